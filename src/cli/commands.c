@@ -1,0 +1,55 @@
+/* SPDX-License-Identifier: MIT
+ * The table of commands and the top-level dispatch: global --help and
+ * --version, then the command function with its own arguments.
+ */
+#include "cli.h"
+
+#include <string.h>
+
+#include "splitlot/physics.h"
+
+const cli_command cli_commands[] = {
+    { "carriers", cmd_carriers, "the carrier physics at one point (Fermi level or gate voltage)" },
+    { NULL, NULL, NULL },
+};
+
+const cli_command *cli_command_find(const char *name)
+{
+    for (const cli_command *c = cli_commands; c->name; c++)
+        if (strcmp(c->name, name) == 0)
+            return c;
+    return NULL;
+}
+
+static int print_overview(FILE *out)
+{
+    fputs("usage: splitlot <command> [options]\n\n"
+          "Plan graphene FET split lots, predict their neutrality points, import\n"
+          "measurements and compare every device with its prediction.\n\ncommands:\n",
+          out);
+    for (const cli_command *c = cli_commands; c->name; c++)
+        fprintf(out, "  %-10s %s\n", c->name, c->summary);
+    fputs("\n'splitlot <command> --help' for a command's options; 'splitlot --version'.\n", out);
+    return CLI_EXIT_OK;
+}
+
+int cli_main(int argc, char **argv)
+{
+    sl_physics_init();
+    if (argc < 2) {
+        print_overview(stderr);
+        return CLI_EXIT_USAGE;
+    }
+    const char *name = argv[1];
+    if (strcmp(name, "--help") == 0 || strcmp(name, "-h") == 0 || strcmp(name, "help") == 0)
+        return print_overview(stdout);
+    if (strcmp(name, "--version") == 0 || strcmp(name, "version") == 0) {
+        printf("splitlot %s\n", SL_VERSION);
+        return CLI_EXIT_OK;
+    }
+    const cli_command *cmd = cli_command_find(name);
+    if (!cmd)
+        return cli_usage_error("unknown command '%s' (see 'splitlot --help')", name);
+    cli_reset_getopt();
+    return cmd->run(argc - 1, argv + 1);
+}

@@ -1,0 +1,511 @@
+/* SPDX-License-Identifier: MIT
+ * Rendering of command output as a terminal table, CSV (RFC 4180) or JSON
+ * (see output.h). Allocation failures abort the command cleanly via exit 1,
+ * since the command layer, unlike the library, may end the process.
+ */
+#include "output.h"
+
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+typedef enum { COL_STR, COL_NUM, COL_FIXED, COL_INT, COL_BOOL, COL_LIST, COL_RANGE } col_kind;
+
+typedef struct {
+    char *key, *header;
+    col_kind kind;
+    int digits;
+} column;
+
+typedef struct {
+    double num, num2;
+    char *text; /* strings and lists ('\x1f'-separated items) */
+    int count;  /* list length */
+} cell;
+
+struct cli_table {
+    char *key, *title;
+    column *cols;
+    int ncols;
+    cell *cells; /* row-major */
+    size_t nrows, cap_rows;
+    int next_col;
+};
+
+typedef struct {
+    char *key, *text;
+    double num;
+    int digits; /* < 0: text value */
+} scalar;
+
+struct cli_doc {
+    scalar *scalars;
+    int nscalars;
+    cli_table **tables;
+    int ntables;
+    char **notes;
+    int nnotes;
+};
+
+static void *xrealloc(void *p, size_t n)
+{
+    void *q = realloc(p, n ? n : 1);
+    if (!q) {
+        fputs("splitlot: error: out of memory\n", stderr);
+        exit(1);
+    }
+    return q;
+}
+
+static char *xstrdup(const char *s)
+{
+    size_t n = strlen(s ? s : "") + 1;
+    char *d = xrealloc(NULL, n);
+    memcpy(d, s ? s : "", n);
+    return d;
+}
+
+int cli_format_parse(const char *text, cli_format *out)
+{
+    static const char *names[] = { "table", "csv", "json" };
+    for (int i = 0; i < 3; i++)
+        if (text && strcmp(text, names[i]) == 0) {
+            *out = (cli_format)i;
+            return 0;
+        }
+    return -1;
+}
+
+cli_doc *cli_doc_new(void)
+{
+    cli_doc *doc = xrealloc(NULL, sizeof *doc);
+    memset(doc, 0, sizeof *doc);
+    return doc;
+}
+
+static void table_free(cli_table *t)
+{
+    for (size_t i = 0; i < t->nrows * (size_t)t->ncols; i++)
+        free(t->cells[i].text);
+    for (int c = 0; c < t->ncols; c++) {
+        free(t->cols[c].key);
+        free(t->cols[c].header);
+    }
+    free(t->cells);
+    free(t->cols);
+    free(t->key);
+    free(t->title);
+    free(t);
+}
+
+void cli_doc_free(cli_doc *doc)
+{
+    if (!doc)
+        return;
+    for (int i = 0; i < doc->nscalars; i++) {
+        free(doc->scalars[i].key);
+        free(doc->scalars[i].text);
+    }
+    for (int i = 0; i < doc->ntables; i++)
+        table_free(doc->tables[i]);
+    for (int i = 0; i < doc->nnotes; i++)
+        free(doc->notes[i]);
+    free(doc->scalars);
+    free(doc->tables);
+    free(doc->notes);
+    free(doc);
+}
+
+static scalar *add_scalar(cli_doc *doc, const char *key)
+{
+    doc->scalars = xrealloc(doc->scalars, (size_t)(doc->nscalars + 1) * sizeof(scalar));
+    scalar *s = &doc->scalars[doc->nscalars++];
+    memset(s, 0, sizeof *s);
+    s->key = xstrdup(key);
+    return s;
+}
+
+void cli_doc_str(cli_doc *doc, const char *key, const char *value)
+{
+    scalar *s = add_scalar(doc, key);
+    s->text = xstrdup(value);
+    s->digits = -1;
+}
+
+void cli_doc_num(cli_doc *doc, const char *key, double value, int digits)
+{
+    scalar *s = add_scalar(doc, key);
+    s->num = value;
+    s->digits = digits;
+}
+
+void cli_doc_note(cli_doc *doc, const char *text)
+{
+    doc->notes = xrealloc(doc->notes, (size_t)(doc->nnotes + 1) * sizeof(char *));
+    doc->notes[doc->nnotes++] = xstrdup(text);
+}
+
+cli_table *cli_doc_table(cli_doc *doc, const char *key, const char *title)
+{
+    cli_table *t = xrealloc(NULL, sizeof *t);
+    memset(t, 0, sizeof *t);
+    t->key = xstrdup(key);
+    t->title = xstrdup(title);
+    doc->tables = xrealloc(doc->tables, (size_t)(doc->ntables + 1) * sizeof(cli_table *));
+    doc->tables[doc->ntables++] = t;
+    return t;
+}
+
+static void add_col(cli_table *t, const char *key, const char *header, col_kind kind, int digits)
+{
+    t->cols = xrealloc(t->cols, (size_t)(t->ncols + 1) * sizeof(column));
+    column *c = &t->cols[t->ncols++];
+    c->key = xstrdup(key);
+    c->header = xstrdup(header);
+    c->kind = kind;
+    c->digits = digits;
+}
+
+void cli_table_col_str(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_STR, 0); }
+void cli_table_col_num(cli_table *t, const char *k, const char *h, int d) { add_col(t, k, h, COL_NUM, d); }
+void cli_table_col_fixed(cli_table *t, const char *k, const char *h, int d) { add_col(t, k, h, COL_FIXED, d); }
+void cli_table_col_int(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_INT, 0); }
+void cli_table_col_bool(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_BOOL, 0); }
+void cli_table_col_list(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_LIST, 0); }
+void cli_table_col_range(cli_table *t, const char *k, const char *h, int d) { add_col(t, k, h, COL_RANGE, d); }
+
+void cli_table_row(cli_table *t)
+{
+    if (t->nrows == t->cap_rows) {
+        t->cap_rows = t->cap_rows ? 2 * t->cap_rows : 16;
+        t->cells = xrealloc(t->cells, t->cap_rows * (size_t)t->ncols * sizeof(cell));
+    }
+    memset(&t->cells[t->nrows * (size_t)t->ncols], 0, (size_t)t->ncols * sizeof(cell));
+    for (int c = 0; c < t->ncols; c++)
+        t->cells[t->nrows * (size_t)t->ncols + (size_t)c].num = NAN;
+    t->nrows++;
+    t->next_col = 0;
+}
+
+static cell *next_cell(cli_table *t)
+{
+    if (t->nrows == 0 || t->next_col >= t->ncols) {
+        fputs("splitlot: internal error: table cell out of range\n", stderr);
+        exit(1);
+    }
+    return &t->cells[(t->nrows - 1) * (size_t)t->ncols + (size_t)t->next_col++];
+}
+
+void cli_cell_str(cli_table *t, const char *v) { next_cell(t)->text = xstrdup(v); }
+void cli_cell_num(cli_table *t, double v) { next_cell(t)->num = v; }
+void cli_cell_int(cli_table *t, long v) { next_cell(t)->num = (double)v; }
+void cli_cell_bool(cli_table *t, bool v) { next_cell(t)->num = v ? 1.0 : 0.0; }
+
+void cli_cell_range(cli_table *t, double lo, double hi)
+{
+    cell *c = next_cell(t);
+    c->num = lo;
+    c->num2 = hi;
+}
+
+void cli_cell_list(cli_table *t, const char *const *items, int count)
+{
+    cell *c = next_cell(t);
+    size_t n = 1;
+    for (int i = 0; i < count; i++)
+        n += strlen(items[i]) + 1;
+    c->text = xrealloc(NULL, n);
+    c->text[0] = '\0';
+    for (int i = 0; i < count; i++) {
+        if (i)
+            strcat(c->text, "\x1f");
+        strcat(c->text, items[i]);
+    }
+    c->count = count;
+}
+
+/* ---- formatting of one cell as plain text (table and CSV) ---- */
+
+static void format_number(char *buf, size_t n, double v, const column *col)
+{
+    if (isnan(v))
+        buf[0] = '\0';
+    else if (col->kind == COL_FIXED)
+        snprintf(buf, n, "%.*f", col->digits, v);
+    else if (col->kind == COL_INT)
+        snprintf(buf, n, "%.0f", v);
+    else
+        snprintf(buf, n, "%.*g", col->digits > 0 ? col->digits : 6, v);
+}
+
+static void format_plain(char *buf, size_t n, const cell *c, const column *col, const char *sep)
+{
+    switch (col->kind) {
+    case COL_STR:
+        snprintf(buf, n, "%s", c->text ? c->text : "");
+        break;
+    case COL_BOOL:
+        snprintf(buf, n, "%s", isnan(c->num) ? "" : (c->num != 0.0 ? "yes" : "no"));
+        break;
+    case COL_LIST: {
+        size_t k = 0;
+        for (const char *p = c->text ? c->text : ""; *p && k + 4 < n; p++) {
+            if (*p == '\x1f')
+                k += (size_t)snprintf(buf + k, n - k, "%s", sep);
+            else
+                buf[k++] = *p;
+        }
+        buf[k] = '\0';
+        if (k == 0 && col->kind == COL_LIST)
+            snprintf(buf, n, "-");
+        break;
+    }
+    case COL_RANGE: {
+        char a[64], b[64];
+        format_number(a, sizeof a, c->num, col);
+        format_number(b, sizeof b, c->num2, col);
+        snprintf(buf, n, "%s..%s", a, b);
+        break;
+    }
+    default:
+        format_number(buf, n, c->num, col);
+    }
+}
+
+/* ---- JSON ---- */
+
+static void json_string(FILE *out, const char *s)
+{
+    fputc('"', out);
+    for (const unsigned char *p = (const unsigned char *)(s ? s : ""); *p; p++) {
+        if (*p == '"' || *p == '\\')
+            fprintf(out, "\\%c", *p);
+        else if (*p == '\n')
+            fputs("\\n", out);
+        else if (*p < 0x20)
+            fprintf(out, "\\u%04x", *p);
+        else
+            fputc(*p, out);
+    }
+    fputc('"', out);
+}
+
+static void json_number(FILE *out, double v)
+{
+    if (!isfinite(v))
+        fputs("null", out);
+    else
+        fprintf(out, "%.10g", v);
+}
+
+static void json_cell(FILE *out, const cell *c, const column *col)
+{
+    switch (col->kind) {
+    case COL_STR:
+        json_string(out, c->text);
+        break;
+    case COL_BOOL:
+        fputs(isnan(c->num) ? "null" : (c->num != 0.0 ? "true" : "false"), out);
+        break;
+    case COL_LIST: {
+        fputc('[', out);
+        const char *p = c->text ? c->text : "";
+        for (int i = 0; i < c->count; i++) {
+            const char *end = strchr(p, '\x1f');
+            size_t len = end ? (size_t)(end - p) : strlen(p);
+            char *item = xrealloc(NULL, len + 1);
+            memcpy(item, p, len);
+            item[len] = '\0';
+            if (i)
+                fputs(", ", out);
+            json_string(out, item);
+            free(item);
+            p += len + (end ? 1 : 0);
+        }
+        fputc(']', out);
+        break;
+    }
+    case COL_RANGE:
+        fputc('[', out);
+        json_number(out, c->num);
+        fputs(", ", out);
+        json_number(out, c->num2);
+        fputc(']', out);
+        break;
+    case COL_INT:
+        if (isnan(c->num))
+            fputs("null", out);
+        else
+            fprintf(out, "%.0f", c->num);
+        break;
+    default:
+        json_number(out, c->num);
+    }
+}
+
+static void print_json(const cli_doc *doc, FILE *out)
+{
+    fputs("{", out);
+    int first = 1;
+    for (int i = 0; i < doc->nscalars; i++, first = 0) {
+        fputs(first ? "\n  " : ",\n  ", out);
+        json_string(out, doc->scalars[i].key);
+        fputs(": ", out);
+        if (doc->scalars[i].digits < 0)
+            json_string(out, doc->scalars[i].text);
+        else
+            json_number(out, doc->scalars[i].num);
+    }
+    for (int i = 0; i < doc->ntables; i++, first = 0) {
+        const cli_table *t = doc->tables[i];
+        fputs(first ? "\n  " : ",\n  ", out);
+        json_string(out, t->key);
+        fputs(": [", out);
+        for (size_t r = 0; r < t->nrows; r++) {
+            fputs(r ? ",\n    {" : "\n    {", out);
+            for (int c = 0; c < t->ncols; c++) {
+                if (c)
+                    fputs(", ", out);
+                json_string(out, t->cols[c].key);
+                fputs(": ", out);
+                json_cell(out, &t->cells[r * (size_t)t->ncols + (size_t)c], &t->cols[c]);
+            }
+            fputc('}', out);
+        }
+        fputs(t->nrows ? "\n  ]" : "]", out);
+    }
+    fputs("\n}\n", out);
+}
+
+/* ---- CSV ---- */
+
+static void csv_field(FILE *out, const char *s)
+{
+    if (strpbrk(s, ",\"\r\n")) {
+        fputc('"', out);
+        for (; *s; s++) {
+            if (*s == '"')
+                fputc('"', out);
+            fputc(*s, out);
+        }
+        fputc('"', out);
+    } else {
+        fputs(s, out);
+    }
+}
+
+static void csv_number(char *buf, size_t n, double v)
+{
+    if (isnan(v))
+        buf[0] = '\0';
+    else
+        snprintf(buf, n, "%.10g", v);
+}
+
+static void print_csv(const cli_doc *doc, FILE *out)
+{
+    char buf[4096];
+    for (int i = 0; i < doc->nscalars; i++) {
+        fprintf(out, "# %s: ", doc->scalars[i].key);
+        if (doc->scalars[i].digits < 0)
+            fprintf(out, "%s\n", doc->scalars[i].text);
+        else
+            fprintf(out, "%.10g\n", doc->scalars[i].num);
+    }
+    for (int i = 0; i < doc->ntables; i++) {
+        const cli_table *t = doc->tables[i];
+        if (doc->ntables > 1)
+            fprintf(out, "%s# %s\n", i ? "\n" : "", t->key);
+        for (int c = 0; c < t->ncols; c++) {
+            if (c)
+                fputc(',', out);
+            csv_field(out, t->cols[c].key);
+        }
+        fputs("\r\n", out);
+        for (size_t r = 0; r < t->nrows; r++) {
+            for (int c = 0; c < t->ncols; c++) {
+                const cell *ce = &t->cells[r * (size_t)t->ncols + (size_t)c];
+                const column *co = &t->cols[c];
+                if (c)
+                    fputc(',', out);
+                if (co->kind == COL_NUM || co->kind == COL_FIXED)
+                    csv_number(buf, sizeof buf, ce->num);
+                else if (co->kind == COL_BOOL)
+                    snprintf(buf, sizeof buf, "%s", isnan(ce->num) ? "" : (ce->num != 0.0 ? "true" : "false"));
+                else
+                    format_plain(buf, sizeof buf, ce, co, ";");
+                csv_field(out, buf);
+            }
+            fputs("\r\n", out);
+        }
+    }
+}
+
+/* ---- aligned table ---- */
+
+static int is_numeric(const column *c)
+{
+    return c->kind == COL_NUM || c->kind == COL_FIXED || c->kind == COL_INT || c->kind == COL_RANGE;
+}
+
+static void print_text_table(const cli_table *t, FILE *out)
+{
+    char buf[4096];
+    int *width = xrealloc(NULL, (size_t)(t->ncols ? t->ncols : 1) * sizeof(int));
+    for (int c = 0; c < t->ncols; c++) {
+        width[c] = (int)strlen(t->cols[c].header);
+        for (size_t r = 0; r < t->nrows; r++) {
+            format_plain(buf, sizeof buf, &t->cells[r * (size_t)t->ncols + (size_t)c], &t->cols[c], ",");
+            int w = (int)strlen(buf);
+            if (w > width[c])
+                width[c] = w;
+        }
+    }
+    if (t->title && *t->title)
+        fprintf(out, "%s\n", t->title);
+    for (int c = 0; c < t->ncols; c++)
+        fprintf(out, "%s%*s", c ? "  " : "", is_numeric(&t->cols[c]) ? width[c] : -width[c], t->cols[c].header);
+    fputc('\n', out);
+    for (size_t r = 0; r < t->nrows; r++) {
+        for (int c = 0; c < t->ncols; c++) {
+            format_plain(buf, sizeof buf, &t->cells[r * (size_t)t->ncols + (size_t)c], &t->cols[c], ",");
+            int last = c == t->ncols - 1;
+            if (last && !is_numeric(&t->cols[c]))
+                fprintf(out, "%s%s", c ? "  " : "", buf);
+            else
+                fprintf(out, "%s%*s", c ? "  " : "", is_numeric(&t->cols[c]) ? width[c] : -width[c], buf);
+        }
+        fputc('\n', out);
+    }
+    free(width);
+}
+
+static void print_table(const cli_doc *doc, FILE *out)
+{
+    for (int i = 0; i < doc->nscalars; i++) {
+        if (doc->scalars[i].digits < 0)
+            fprintf(out, "%s: %s\n", doc->scalars[i].key, doc->scalars[i].text);
+        else
+            fprintf(out, "%s: %.*g\n", doc->scalars[i].key, doc->scalars[i].digits, doc->scalars[i].num);
+    }
+    for (int i = 0; i < doc->ntables; i++) {
+        if (i || doc->nscalars)
+            fputc('\n', out);
+        print_text_table(doc->tables[i], out);
+    }
+    if (doc->nnotes)
+        fputc('\n', out);
+    for (int i = 0; i < doc->nnotes; i++)
+        fprintf(out, "%s\n", doc->notes[i]);
+}
+
+int cli_doc_print(const cli_doc *doc, cli_format format, FILE *out)
+{
+    if (format == CLI_FORMAT_JSON)
+        print_json(doc, out);
+    else if (format == CLI_FORMAT_CSV)
+        print_csv(doc, out);
+    else
+        print_table(doc, out);
+    return (fflush(out) == 0 && !ferror(out)) ? 0 : -1;
+}

@@ -1,0 +1,58 @@
+/* SPDX-License-Identifier: MIT
+ * Output of the commands: a document of named scalars and named tables,
+ * rendered as an aligned terminal table, CSV or JSON (keys of DESIGN.md
+ * section 5). Commands fill a document; this file decides the layout.
+ */
+#ifndef SL_CLI_OUTPUT_H
+#define SL_CLI_OUTPUT_H
+
+#include <stdbool.h>
+#include <stdio.h>
+
+typedef enum { CLI_FORMAT_TABLE = 0, CLI_FORMAT_CSV, CLI_FORMAT_JSON } cli_format;
+
+/* Parse "table", "csv" or "json"; returns 0 on success. */
+int cli_format_parse(const char *text, cli_format *out);
+
+typedef struct cli_doc cli_doc;
+typedef struct cli_table cli_table;
+
+cli_doc *cli_doc_new(void);
+void cli_doc_free(cli_doc *doc);
+
+/* Top-level scalars (JSON members; a "key: value" line in table/CSV form). */
+void cli_doc_str(cli_doc *doc, const char *key, const char *value);
+void cli_doc_num(cli_doc *doc, const char *key, double value, int digits);
+/* A note printed under the tables in table form only (cautions, verdicts). */
+void cli_doc_note(cli_doc *doc, const char *text);
+
+/* A table: key is the JSON array name, title the heading in table form. */
+cli_table *cli_doc_table(cli_doc *doc, const char *key, const char *title);
+
+/* Columns: key (JSON/CSV name, unit in it), header (table heading) and, for
+ * numbers, significant digits in table form ('g' style) or decimals when
+ * fixed_decimals >= 0. */
+void cli_table_col_str(cli_table *t, const char *key, const char *header);
+void cli_table_col_num(cli_table *t, const char *key, const char *header, int digits);
+void cli_table_col_fixed(cli_table *t, const char *key, const char *header, int decimals);
+void cli_table_col_int(cli_table *t, const char *key, const char *header);
+void cli_table_col_bool(cli_table *t, const char *key, const char *header);
+/* A list of strings: JSON array, ';'-joined in CSV, ','-joined in a table. */
+void cli_table_col_list(cli_table *t, const char *key, const char *header);
+/* A pair [lo, hi]: JSON array of two numbers, "lo..hi" in table/CSV form. */
+void cli_table_col_range(cli_table *t, const char *key, const char *header, int digits);
+
+/* Start a row, then give one cell per column in order. NaN numbers are
+ * written as JSON null and left empty in table and CSV form. */
+void cli_table_row(cli_table *t);
+void cli_cell_str(cli_table *t, const char *value);
+void cli_cell_num(cli_table *t, double value);
+void cli_cell_int(cli_table *t, long value);
+void cli_cell_bool(cli_table *t, bool value);
+void cli_cell_list(cli_table *t, const char *const *items, int count);
+void cli_cell_range(cli_table *t, double lo, double hi);
+
+/* Render the whole document; returns 0, or -1 on a write error. */
+int cli_doc_print(const cli_doc *doc, cli_format format, FILE *out);
+
+#endif

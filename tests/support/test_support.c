@@ -1,0 +1,189 @@
+/* SPDX-License-Identifier: MIT
+ * Helpers shared by the Check suites (see test_support.h). POSIX only.
+ */
+#include "test_support.h"
+
+#include <errno.h>
+#include <fcntl.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include "splitlot/physics.h"
+
+char *sl_test_path(const char *dir, const char *name)
+{
+    size_t n = strlen(dir) + strlen(name) + 2;
+    char *p = malloc(n);
+    snprintf(p, n, "%s/%s", dir, name);
+    return p;
+}
+
+char *sl_test_data(const char *name) { return sl_test_path(SL_TEST_DATA_DIR, name); }
+
+char *sl_test_tmpdir(void)
+{
+    const char *base = getenv("TMPDIR");
+    char *tmpl = sl_test_path(base && *base ? base : "/tmp", "splitlot-test-XXXXXX");
+    if (!mkdtemp(tmpl)) {
+        free(tmpl);
+        return NULL;
+    }
+    return tmpl;
+}
+
+void sl_test_rmtree(const char *path)
+{
+    if (!path)
+        return;
+    pid_t pid = fork();
+    if (pid == 0) {
+        execlp("rm", "rm", "-rf", "--", path, (char *)NULL);
+        _exit(127);
+    }
+    if (pid > 0)
+        waitpid(pid, NULL, 0);
+}
+
+char *sl_test_read_file(const char *path, size_t *len)
+{
+    FILE *f = fopen(path, "rb");
+    if (!f)
+        return NULL;
+    size_t cap = 4096, n = 0;
+    char *buf = malloc(cap);
+    size_t got;
+    while ((got = fread(buf + n, 1, cap - n - 1, f)) > 0) {
+        n += got;
+        if (cap - n - 1 == 0) {
+            cap *= 2;
+            buf = realloc(buf, cap);
+        }
+    }
+    fclose(f);
+    buf[n] = '\0';
+    if (len)
+        *len = n;
+    return buf;
+}
+
+int sl_test_write_file(const char *path, const char *text)
+{
+    FILE *f = fopen(path, "wb");
+    if (!f)
+        return -1;
+    size_t n = strlen(text);
+    int ok = fwrite(text, 1, n, f) == n;
+    return (fclose(f) == 0 && ok) ? 0 : -1;
+}
+
+int sl_test_files_equal(const char *a, const char *b)
+{
+    size_t na, nb;
+    char *x = sl_test_read_file(a, &na), *y = sl_test_read_file(b, &nb);
+    int eq = x && y && na == nb && memcmp(x, y, na) == 0;
+    free(x);
+    free(y);
+    return eq;
+}
+
+int sl_test_copy_file(const char *from, const char *to)
+{
+    size_t n;
+    char *x = sl_test_read_file(from, &n);
+    if (!x)
+        return -1;
+    FILE *f = fopen(to, "wb");
+    int ok = f && fwrite(x, 1, n, f) == n;
+    if (f && fclose(f) != 0)
+        ok = 0;
+    free(x);
+    return ok ? 0 : -1;
+}
+
+/* Drain a pipe into a malloc'd string. */
+static char *slurp_fd(int fd)
+{
+    size_t cap = 4096, n = 0;
+    char *buf = malloc(cap);
+    for (;;) {
+        if (cap - n < 2) {
+            cap *= 2;
+            buf = realloc(buf, cap);
+        }
+        ssize_t got = read(fd, buf + n, cap - n - 1);
+        if (got < 0 && errno == EINTR)
+            continue;
+        if (got <= 0)
+            break;
+        n += (size_t)got;
+    }
+    buf[n] = '\0';
+    return buf;
+}
+
+sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *const *argv)
+{
+    sl_run_result r = { -1, NULL, NULL };
+    char out_tmpl[] = "/tmp/splitlot-out-XXXXXX", err_tmpl[] = "/tmp/splitlot-err-XXXXXX";
+    char in_tmpl[] = "/tmp/splitlot-in-XXXXXX";
+    int out_fd = mkstemp(out_tmpl), err_fd = mkstemp(err_tmpl), in_fd = mkstemp(in_tmpl);
+    if (stdin_text) {
+        size_t len = strlen(stdin_text);
+        if (write(in_fd, stdin_text, len) != (ssize_t)len)
+            return r;
+        lseek(in_fd, 0, SEEK_SET);
+    }
+    size_t argc = 0;
+    while (argv[argc])
+        argc++;
+    char **args = calloc(argc + 2, sizeof *args);
+    args[0] = (char *)SL_BINARY;
+    for (size_t i = 0; i < argc; i++)
+        args[i + 1] = (char *)argv[i];
+    pid_t pid = fork();
+    if (pid == 0) {
+        if (cwd && chdir(cwd) != 0)
+            _exit(126);
+        dup2(in_fd, 0);
+        dup2(out_fd, 1);
+        dup2(err_fd, 2);
+        execv(SL_BINARY, args);
+        _exit(127);
+    }
+    int status = 0;
+    waitpid(pid, &status, 0);
+    free(args);
+    r.exit_code = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
+    lseek(out_fd, 0, SEEK_SET);
+    lseek(err_fd, 0, SEEK_SET);
+    r.out = slurp_fd(out_fd);
+    r.err = slurp_fd(err_fd);
+    close(out_fd);
+    close(err_fd);
+    close(in_fd);
+    unlink(out_tmpl);
+    unlink(err_tmpl);
+    unlink(in_tmpl);
+    return r;
+}
+
+void sl_run_result_free(sl_run_result *r)
+{
+    free(r->out);
+    free(r->err);
+    r->out = r->err = NULL;
+}
+
+int sl_test_main(Suite *suite)
+{
+    sl_physics_init();
+    SRunner *sr = srunner_create(suite);
+    srunner_run_all(sr, CK_NORMAL);
+    int failed = srunner_ntests_failed(sr);
+    srunner_free(sr);
+    return failed == 0 ? EXIT_SUCCESS : EXIT_FAILURE;
+}

@@ -1,0 +1,47 @@
+/* SPDX-License-Identifier: MIT
+ * Helpers shared by the Check suites: scratch folders, running the splitlot
+ * binary and capturing what it prints, reading and comparing files, and the
+ * common main() that runs one suite. Test code only.
+ */
+#ifndef SL_TEST_SUPPORT_H
+#define SL_TEST_SUPPORT_H
+
+#include <check.h>
+#include <stddef.h>
+
+/* Result of running the splitlot binary. */
+typedef struct {
+    int exit_code;  /* process exit code, or 128 + signal */
+    char *out;      /* captured stdout, NUL-terminated */
+    char *err;      /* captured stderr, NUL-terminated */
+} sl_run_result;
+
+/* Run the built splitlot with the given arguments (NULL-terminated list), in
+ * working folder cwd (NULL: current), optional stdin text. */
+sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *const *argv);
+void sl_run_result_free(sl_run_result *r);
+
+/* A fresh empty scratch folder under the system temp dir; caller frees the
+ * string and may remove the folder with sl_test_rmtree. */
+char *sl_test_tmpdir(void);
+void sl_test_rmtree(const char *path);
+
+/* Path join into a malloc'd string. */
+char *sl_test_path(const char *dir, const char *name);
+/* Path of a fixture under tests/data (malloc'd). */
+char *sl_test_data(const char *name);
+
+/* Whole file into a malloc'd NUL-terminated buffer (size in *len if non-NULL),
+ * NULL when it cannot be read. */
+char *sl_test_read_file(const char *path, size_t *len);
+/* Write text to a file; returns 0 on success. */
+int sl_test_write_file(const char *path, const char *text);
+/* 1 when both files exist with identical bytes. */
+int sl_test_files_equal(const char *a, const char *b);
+/* Copy a file; returns 0 on success. */
+int sl_test_copy_file(const char *from, const char *to);
+
+/* Run one suite with CK_NORMAL output; returns the process exit status. */
+int sl_test_main(Suite *suite);
+
+#endif
