@@ -1,0 +1,141 @@
+/* SPDX-License-Identifier: MIT
+ * The lot plan: the YAML file of DESIGN.md section 4 parsed (libyaml) into
+ * plain structs, validated with every problem reported at file:line:col, and
+ * normalised so both design kinds look alike to the rest of the library:
+ * factor 0 is always "dielectric", every split names its level per factor.
+ * Not for: randomisation (layout.h) or physics predictions (predict.h).
+ */
+#ifndef SPLITLOT_PLAN_H
+#define SPLITLOT_PLAN_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#include "splitlot/error.h"
+#include "splitlot/physics.h"
+#include "splitlot/units.h"
+
+typedef enum { SL_DESIGN_FULL_FACTORIAL = 0, SL_DESIGN_EXPLICIT } sl_design_kind;
+
+/* A material: built-in (physics.h table) or added/overridden by the plan. */
+typedef struct {
+    char *name;
+    double relative_permittivity;
+    double breakdown_MV_per_cm;
+} sl_plan_material;
+
+typedef struct {
+    char *material;          /* name, resolvable with sl_plan_material_find */
+    double thickness_nm;     /* > 0 */
+    double sigma_nm;         /* >= 0, default 0 */
+} sl_plan_layer;
+
+typedef struct {
+    char *name;
+    sl_plan_layer *layers;   /* top (channel side) first */
+    size_t n_layers;
+    sl_est doping_per_cm2;   /* default {0, 0} */
+    int has_gate_range;      /* gate_range_V given in the plan */
+    double gate_range_V[2];  /* [min, max] when given */
+} sl_plan_dielectric;
+
+typedef struct {
+    char *name;
+    sl_est doping_per_cm2;
+} sl_plan_treatment;
+
+/* A factor and its levels. Factor 0 is "dielectric" with dielectric names as
+ * levels; other factors' levels are treatment names or "none". For an explicit
+ * design every treatment used becomes a two-level factor named after it:
+ * levels "none" and the treatment. Level 0 is the reference level. */
+typedef struct {
+    char *name;
+    char **levels;
+    size_t n_levels;
+    /* per level: index into plan->treatments, or -1 for "none"; for factor 0
+     * the index into plan->dielectrics */
+    long *level_ref;
+} sl_plan_factor;
+
+typedef struct {
+    char *name;              /* full-factorial: dielectric then "+treatment" per
+                                non-none level, e.g. "ox90+anneal-350" */
+    size_t dielectric;       /* index into plan->dielectrics */
+    size_t *treatments;      /* indices into plan->treatments */
+    size_t n_treatments;
+    size_t *levels;          /* level index per factor, n_factors entries */
+    char **wafers;           /* explicit design: the wafers given; else NULL */
+    size_t n_wafers;
+} sl_plan_split;
+
+typedef struct {
+    int present;
+    double shift_V, device_sigma_V, alpha, power;
+} sl_plan_resolve;
+
+typedef struct sl_plan {
+    char *path;              /* as given to sl_plan_load, for messages */
+    char *text;              /* the raw YAML text (stored with predictions) */
+    size_t text_len;
+    char *lot;
+    char *title;             /* "" when absent */
+    double fermi_velocity_m_s;        /* default 1.0e6 */
+    double disorder_density_per_cm2;  /* default 0 (none given) */
+    double *temperatures_K;
+    size_t n_temperatures;
+    double channel_length_um, channel_width_um;
+    long wafer_rows, wafer_cols;
+    double expected_yield;            /* (0, 1] */
+    sl_est baseline_doping_per_cm2;
+    sl_plan_material *materials;      /* built-ins merged with plan additions */
+    size_t n_materials;
+    sl_plan_dielectric *dielectrics;
+    size_t n_dielectrics;
+    sl_plan_treatment *treatments;
+    size_t n_treatments;
+    sl_design_kind design_kind;
+    sl_plan_factor *factors;          /* factors[0] is "dielectric" */
+    size_t n_factors;
+    sl_plan_split *splits;
+    size_t n_splits;
+    long wafers_per_split;            /* full-factorial; 0 for explicit */
+    char **wafers;                    /* W01..Wnn or the list given */
+    size_t n_wafers;
+    long devices_per_wafer;
+    uint64_t seed;
+    sl_plan_resolve resolve;
+    double gate_derating;             /* 0.5: safe range from breakdown */
+} sl_plan;
+
+/* Read, parse and validate a plan file ("-" is not accepted). Every problem is
+ * added to diag as "path:line:col" errors; warnings (exit 0 in `check`) too.
+ * Returns SL_OK (warnings possible), SL_EINPUT when any error was found (*out
+ * is then NULL), SL_EIO when the file cannot be read, SL_ENOMEM. */
+sl_status sl_plan_load(sl_plan **out, const char *path, sl_diag *diag);
+
+/* The same from text in memory; name is used in messages. */
+sl_status sl_plan_parse(sl_plan **out, const char *text, size_t len,
+                        const char *name, sl_diag *diag);
+
+void sl_plan_free(sl_plan *plan);
+
+/* Material by name (plan overrides first, then built-ins); NULL if unknown. */
+const sl_plan_material *sl_plan_material_find(const sl_plan *plan, const char *name);
+
+/* The SI layers of a dielectric's stack for physics.h, at most max layers.
+ * Returns SL_OK or SL_EINPUT (unknown material, too many layers). */
+sl_status sl_plan_stack(const sl_plan *plan, size_t dielectric, sl_layer *out,
+                        size_t max, size_t *count);
+
+/* Planned net doping of a split: baseline + dielectric + its treatments,
+ * sigmas added in quadrature (independent sources), cm^-2. */
+sl_est sl_plan_split_doping_per_cm2(const sl_plan *plan, size_t split);
+
+/* Index of a split by name, of a wafer id by name; -1 when absent. */
+long sl_plan_split_index(const sl_plan *plan, const char *name);
+long sl_plan_wafer_index(const sl_plan *plan, const char *wafer);
+
+/* 64-bit FNV-1a hash of the plan text, as 16 lowercase hex digits + NUL. */
+void sl_plan_hash_hex(const sl_plan *plan, char out[17]);
+
+#endif
