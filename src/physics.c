@@ -19,6 +19,8 @@
 
 /* F1(x) below this is smaller than 1e-300 and negligible next to x^2/2. */
 #define SL_F1_NEGLIGIBLE_X (-690.0)
+/* Below this mu/kT the net density uses its Taylor series (see below). */
+#define SL_NET_SERIES_MAX_X 1.0e-3
 
 void sl_physics_init(void) { gsl_set_error_handler_off(); }
 
@@ -78,8 +80,13 @@ double sl_physics_net_density_per_m2(double mu_J, double temperature_K,
     if (temperature_K <= 0.0)
         return sign * mu_J * mu_J / (M_PI * hv * hv);
     double x = fabs(mu_J) / (SL_SI_BOLTZMANN * temperature_K);
-    /* n - p = scale (F1(x) - F1(-x)) = scale (x^2/2 + pi^2/6 - 2 F1(-x)) */
-    double bracket = 0.5 * x * x + M_PI * M_PI / 6.0 - 2.0 * fermi_dirac_1(-x);
+    /* n - p = scale (F1(x) - F1(-x)) = scale (x^2/2 + pi^2/6 - 2 F1(-x)); near
+     * x = 0 that difference of O(1) numbers loses digits, so use its Taylor
+     * series there (F1' = F0 = ln(1 + e^x)): 2 ln2 x + x^3/12 - x^5/480 + ...,
+     * truncated with relative error below 2e-15 for x < 1e-3 */
+    double bracket = x < SL_NET_SERIES_MAX_X
+                         ? 2.0 * M_LN2 * x + x * x * x / 12.0
+                         : 0.5 * x * x + M_PI * M_PI / 6.0 - 2.0 * fermi_dirac_1(-x);
     return sign * thermal_density_scale(temperature_K, fermi_velocity_m_s) * bracket;
 }
 

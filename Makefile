@@ -1,0 +1,41 @@
+# SPDX-License-Identifier: MIT
+# Thin wrapper over CMake for the README's commands:
+#   make demo   install what is missing, build, run the demo plan end to end
+#   make check  install what is missing, build, run the whole test suite
+#   make asan   the test suite under AddressSanitizer + UndefinedBehaviorSanitizer
+#   make bench  build in Release and run the benchmarks (figures, not tests)
+BUILD ?= build
+JOBS ?= 2
+DEMO ?= demo-out
+SPLITLOT = $(BUILD)/splitlot
+
+.PHONY: all deps build demo check asan bench clean
+
+all: build
+
+deps:
+	@./.ci/install-deps
+
+build: deps
+	@cmake -S . -B $(BUILD) -DCMAKE_BUILD_TYPE=RelWithDebInfo >/dev/null
+	@cmake --build $(BUILD) -j$(JOBS)
+
+check: build
+	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
+
+asan: deps
+	@cmake -S . -B build-asan -DCMAKE_BUILD_TYPE=Debug -DSL_SANITIZE=ON >/dev/null
+	@cmake --build build-asan -j$(JOBS)
+	@cd build-asan && ASAN_OPTIONS=detect_leaks=1:abort_on_error=1 \
+	  UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1 ctest --output-on-failure -j$(JOBS)
+
+bench: deps
+	@cmake -S . -B build-release -DCMAKE_BUILD_TYPE=Release >/dev/null
+	@cmake --build build-release -j$(JOBS)
+	@for b in build-release/tests/bench_*; do echo "== $$b"; $$b; done
+
+demo: build
+	@./.ci/demo $(SPLITLOT) $(DEMO)
+
+clean:
+	rm -rf $(BUILD) build-asan build-release $(DEMO)
