@@ -1,0 +1,261 @@
+/* SPDX-License-Identifier: MIT
+ * Statistics for split-lot analysis: robust outlier scores, sample summaries,
+ * t and normal quantiles, main-effects least squares, one-way ANOVA, pooling
+ * of estimates across lots, the individuals control chart and sample size.
+ * Numbers in, numbers out: no I/O, no knowledge of plans, lots or databases.
+ * Heavy lifting is done by GSL; call sl_physics_init() (GSL errors off) first.
+ */
+#ifndef SPLITLOT_STATS_H
+#define SPLITLOT_STATS_H
+
+#include <stddef.h>
+
+#include "splitlot/error.h"
+
+/* |M| above this flags an outlier (Iglewicz and Hoaglin, 1993). */
+#define SL_STATS_MODIFIED_Z_THRESHOLD 3.5
+/* 0.6745 = Phi^-1(0.75): makes MAD comparable to sigma for normal data
+ * (Iglewicz and Hoaglin, 1993). */
+#define SL_STATS_MAD_FACTOR 0.6745
+/* sqrt(pi/2) = 1.253314: mean absolute deviation to sigma for normal data,
+ * the scale used when MAD = 0. */
+#define SL_STATS_MEANAD_FACTOR 1.253314
+/* d2 for moving ranges of two points (Montgomery, Introduction to Statistical
+ * Quality Control, Appendix table of control chart factors). */
+#define SL_STATS_D2_N2 1.128
+/* Width of individuals chart limits in sigma (Montgomery). */
+#define SL_STATS_CHART_SIGMAS 3.0
+/* Relative singular value below which a design column counts as dependent. */
+#define SL_STATS_RANK_TOL 1e-10
+/* sl_stats_column.factor of the intercept column. */
+#define SL_STATS_INTERCEPT ((size_t)-1)
+
+/* ---- Robust location, scale and outlier score ----------------------------- */
+
+/* Median and scales of a sample, and the denominator of its modified z-score. */
+typedef struct {
+    size_t n;
+    double median;
+    double mad;      /* median |x_i - median|, unscaled */
+    double mean_ad;  /* mean |x_i - median| */
+    double scale;    /* denominator of M: MAD / 0.6745; 1.253314 * mean_ad when
+                        MAD = 0; 0 when every value equals the median */
+} sl_stats_robust;
+
+/* Median of x[0..n-1] (mean of the two middle values for even n), via a
+ * sorted copy (gsl_sort, gsl_stats_median_from_sorted_data); x is not changed.
+ * scratch holds n doubles, or is NULL to allocate. Values must be finite.
+ * Returns SL_OK, SL_EINPUT for n = 0 or a non-finite value, SL_ENOMEM. */
+sl_status sl_stats_median(double *median, const double *x, size_t n, double *scratch);
+
+/* Median, MAD = median |x_i - median| (unscaled), mean absolute deviation
+ * about the median (gsl_stats_absdev_m), and the scale of the modified
+ * z-score. When MAD = 0 (half or more of the values are equal) the scale
+ * falls back to 1.253314 * mean_ad, so M = (x - median) / (1.253314 mean_ad),
+ * the practice that goes with Iglewicz and Hoaglin (1993); when every value
+ * equals the median the scale is 0 and every M is 0.
+ * scratch as in sl_stats_median. Returns SL_OK, SL_EINPUT, SL_ENOMEM. */
+sl_status sl_stats_robust_scale(sl_stats_robust *out, const double *x, size_t n,
+                                double *scratch);
+
+/* Modified z-score of one value: M = 0.6745 (x - median) / MAD
+ * = (x - median) / scale (Iglewicz and Hoaglin, 1993); 0 when scale = 0. */
+double sl_stats_modified_z_of(const sl_stats_robust *robust, double x);
+
+/* Modified z-score M_i of every value into z[0..n-1] (z may not alias x);
+ * robust (may be NULL) receives the median and scales used. Flag a value
+ * when fabs(M_i) > SL_STATS_MODIFIED_Z_THRESHOLD.
+ * Returns SL_OK, SL_EINPUT (n = 0, non-finite value), SL_ENOMEM. */
+sl_status sl_stats_modified_z(double *z, sl_stats_robust *robust, const double *x,
+                              size_t n, double *scratch);
+
+/* ---- Sample summary -------------------------------------------------------- */
+
+typedef struct {
+    size_t n;
+    double mean;
+    double sd;        /* sample SD with n - 1 (gsl_stats_sd) */
+    double se;        /* sd / sqrt(n) */
+    double level;     /* confidence level of the interval, e.g. 0.95 */
+    double t_crit;    /* t_{(1 + level)/2, n - 1} */
+    double ci_low, ci_high; /* mean -/+ t_crit * se */
+} sl_stats_summary;
+
+/* Mean, SD (n - 1), standard error and the two-sided Student t confidence
+ * interval mean +/- t_{(1+level)/2, n-1} s / sqrt(n) at level in (0, 1).
+ * For n = 1: mean = x[0] and sd, se, t_crit, ci_low, ci_high are NaN.
+ * Returns SL_OK, SL_EINPUT for n = 0, a non-finite value or a bad level. */
+sl_status sl_stats_summarize(sl_stats_summary *out, const double *x, size_t n, double level);
+
+/* ---- Distributions --------------------------------------------------------- */
+
+/* Quantile of Student t with df > 0 degrees of freedom at probability p in
+ * (0, 1) (gsl_cdf_tdist_Pinv); NaN outside the domain. */
+double sl_stats_t_quantile(double p, double df);
+
+/* Quantile of the standard normal at p in (0, 1) (gsl_cdf_ugaussian_Pinv);
+ * NaN outside the domain. */
+double sl_stats_normal_quantile(double p);
+
+/* Two-sided p-value 2 Q(|t|) of a t statistic with df > 0 (gsl_cdf_tdist_Q);
+ * NaN for a NaN t or df <= 0. */
+double sl_stats_t_p_two_sided(double t, double df);
+
+/* Two-sided p-value 2 Q(|z|) of a standard normal z (gsl_cdf_ugaussian_Q). */
+double sl_stats_z_p_two_sided(double z);
+
+/* ---- Linear least squares for main-effects models ------------------------- */
+
+/* What a design column stands for: factor index and level (the level whose
+ * difference from level 0 the coefficient estimates). The intercept column has
+ * factor = SL_STATS_INTERCEPT and level 0. */
+typedef struct {
+    size_t factor;
+    size_t level;
+} sl_stats_column;
+
+/* A design matrix, row-major n_obs x n_coef, with what each column means. */
+typedef struct {
+    size_t n_obs;
+    size_t n_coef;
+    double *x;                /* x[obs * n_coef + col] */
+    sl_stats_column *columns; /* n_coef entries */
+} sl_stats_design;
+
+/* Treatment-coded (reference level 0) main-effects design: column 0 is the
+ * intercept (all 1), then for each factor f in order the levels 1 ..
+ * n_levels[f] - 1, column = 1 where levels[obs * n_factors + f] is that level.
+ * A factor with one level adds no column. The intercept estimates the mean of
+ * the all-reference cell, each other coefficient its level's difference from
+ * the factor's level 0. Free with sl_stats_design_free.
+ * Returns SL_OK, SL_EINPUT (n_obs = 0, n_levels[f] = 0, a level out of range;
+ * the message in diag, which may be NULL), SL_ENOMEM. */
+sl_status sl_stats_design_treatment(sl_stats_design **out, const size_t *levels,
+                                    size_t n_obs, size_t n_factors,
+                                    const size_t *n_levels, sl_diag *diag);
+
+void sl_stats_design_free(sl_stats_design *design);
+
+/* Result of a linear least-squares fit y = X b. */
+typedef struct {
+    size_t n_obs;
+    size_t n_coef;
+    double *coef;      /* b, n_coef */
+    double *se;        /* standard error of each b, sqrt(diag(cov)) */
+    double *cov;       /* covariance of b, n_coef x n_coef row-major */
+    double chi2;       /* sum w_i r_i^2 (w_i = 1 unweighted) */
+    double resid_var;  /* chi2 / df_resid; NaN when df_resid = 0 */
+    size_t df_resid;   /* n_obs - n_coef */
+    double r_squared;  /* 1 - chi2 / sum w_i (y_i - ybar_w)^2; NaN when y is constant */
+} sl_stats_fit;
+
+/* Least squares b = argmin sum w_i (y_i - x_i b)^2 for X (n_obs x n_coef,
+ * row-major, caller's coding, include an intercept column for R^2 to mean
+ * anything) and y; w = NULL for the ordinary (unweighted) fit.
+ * Unweighted: gsl_multifit_linear, cov = s^2 (X'X)^-1, s^2 = chi2 / (n - p).
+ * Weighted: gsl_multifit_wlinear, with the weights read as *relative*
+ * precisions (e.g. usable devices behind each wafer mean, Var(y_i) = s^2 / w_i
+ * with s^2 unknown): cov = s^2 (X'WX)^-1, s^2 = chi2_w / (n - p), so the
+ * standard errors do not change when all weights are multiplied by a constant.
+ * Weights must be finite and > 0. With n = p the fit is exact: coefficients
+ * are returned, resid_var, se and cov are NaN.
+ * The rank of X is checked first (singular values of the column-balanced X,
+ * gsl_multifit_linear_svd and gsl_multifit_linear_rank with tolerance
+ * SL_STATS_RANK_TOL); a rank-deficient design is SL_EINPUT with diag naming
+ * the first column that is a linear combination of the columns before it.
+ * Returns SL_OK, SL_EINPUT (n_obs < n_coef, n_coef = 0, non-finite data, bad
+ * weight, rank deficiency), SL_ENUM (GSL failure), SL_ENOMEM.
+ * Free with sl_stats_fit_free. */
+sl_status sl_stats_linear_fit(sl_stats_fit **out, const double *x, const double *y,
+                              const double *w, size_t n_obs, size_t n_coef,
+                              sl_diag *diag);
+
+void sl_stats_fit_free(sl_stats_fit *fit);
+
+/* ---- One-way analysis of variance ----------------------------------------- */
+
+typedef struct {
+    size_t n_groups;     /* non-empty groups */
+    size_t n_total;      /* observations */
+    double df_between;   /* n_groups - 1 */
+    double df_within;    /* n_total - n_groups */
+    double ss_between;   /* sum n_k (mean_k - grand mean)^2 */
+    double ss_within;    /* sum over groups of sum (x - mean_k)^2 */
+    double ms_between;   /* ss_between / df_between */
+    double ms_within;    /* ss_within / df_within */
+    double f;            /* ms_between / ms_within */
+    double p;            /* Q_F(f; df_between, df_within) (gsl_cdf_fdist_Q) */
+} sl_stats_anova;
+
+/* One-way ANOVA F test of equal group means (Fisher; any textbook, e.g.
+ * Montgomery, Design and Analysis of Experiments). x holds the groups one after
+ * the other, group k has group_sizes[k] values. group_means (n_groups entries,
+ * may be NULL) receives each group's mean, NaN for an empty group; empty groups
+ * are left out of every count. A group of one value adds to the between-groups
+ * sum and nothing to the within-groups sum.
+ * With fewer than two non-empty groups or df_within = 0, every field from
+ * ms_between on that cannot be formed is NaN (f and p always NaN then).
+ * When ms_within = 0: f = +inf and p = 0 if ms_between > 0, NaN if both are 0.
+ * Returns SL_OK, SL_EINPUT for a non-finite value or NULL data with values. */
+sl_status sl_stats_anova_oneway(sl_stats_anova *out, double *group_means,
+                                const double *x, const size_t *group_sizes,
+                                size_t n_groups);
+
+/* ---- Pooling estimates ----------------------------------------------------- */
+
+typedef struct {
+    size_t k;
+    double value;  /* sum w_i e_i / sum w_i, w_i = 1 / se_i^2 */
+    double se;     /* 1 / sqrt(sum w_i) */
+    double q;      /* Cochran's Q = sum w_i (e_i - value)^2 */
+    double df;     /* k - 1 */
+    double p;      /* chi-square upper tail of q with df (gsl_cdf_chisq_Q); NaN for k = 1 */
+} sl_stats_pooled;
+
+/* Fixed-effect inverse-variance pooled estimate of k estimates e_i with
+ * standard errors se_i, and Cochran's Q test of their homogeneity
+ * (Cochran, Biometrics 10, 101 (1954)); a small p says the estimates differ
+ * by more than their errors, so the pooled SE is too optimistic.
+ * Returns SL_OK, SL_EINPUT for k = 0, a non-finite estimate or se_i <= 0. */
+sl_status sl_stats_pool_inverse_variance(sl_stats_pooled *out, const double *est,
+                                         const double *se, size_t k);
+
+/* ---- Individuals control chart -------------------------------------------- */
+
+typedef struct {
+    size_t n;
+    double center;  /* mean of the values */
+    double mr_bar;  /* mean of |x_i - x_{i-1}|, i = 1 .. n-1 */
+    double sigma;   /* mr_bar / d2, d2 = 1.128 */
+    double lcl, ucl; /* center -/+ 3 sigma */
+    size_t n_outside; /* points beyond a limit */
+} sl_stats_ichart;
+
+/* Individuals (X) chart with moving-range sigma (Montgomery, Introduction to
+ * Statistical Quality Control): center = mean, sigma = MR-bar / 1.128,
+ * limits center -/+ 3 sigma. flags (n entries, may be NULL) gets +1 above the
+ * upper limit, -1 below the lower, 0 inside or on a limit.
+ * One point: center = x[0], mr_bar, sigma and limits NaN, nothing flagged.
+ * Returns SL_OK, SL_EINPUT for n = 0 or a non-finite value. */
+sl_status sl_stats_individuals_chart(sl_stats_ichart *out, int *flags, const double *x,
+                                     size_t n);
+
+/* ---- Sample size ----------------------------------------------------------- */
+
+/* Normal-approximation size per group of a two-sided two-sample comparison of
+ * means, n = 2 sigma^2 (z_{1-alpha/2} + z_{power})^2 / delta^2, not rounded.
+ * NaN unless sigma > 0, delta != 0, 0 < alpha < 1, 0 < power < 1. */
+double sl_stats_sample_size_normal(double sigma, double delta, double alpha, double power);
+
+/* Size per group for the two-sided two-sample t test to detect a difference
+ * delta between means with common SD sigma at significance alpha and the given
+ * power (= 1 - beta): start from the normal approximation rounded up (at least
+ * 2) and iterate n <- ceil(2 sigma^2 (t_{1-alpha/2,df} + t_{power,df})^2 / delta^2)
+ * with df = 2 (n - 1) until n repeats (at least 2; if it alternates between two
+ * values the larger is taken). Same units for sigma and delta. This is the
+ * canonical implementation for the whole tool.
+ * Returns SL_OK, SL_EINPUT for a bad argument or a size above 1e9. */
+sl_status sl_stats_sample_size_per_group(size_t *n, double sigma, double delta,
+                                         double alpha, double power);
+
+#endif
