@@ -196,6 +196,7 @@ typedef struct {
  * With fewer than two non-empty groups or df_within = 0, every field from
  * ms_between on that cannot be formed is NaN (f and p always NaN then).
  * When ms_within = 0: f = +inf and p = 0 if ms_between > 0, NaN if both are 0.
+ * group_sizes may be NULL only when n_groups = 0.
  * Returns SL_OK, SL_EINPUT for a non-finite value or NULL data with values. */
 sl_status sl_stats_anova_oneway(sl_stats_anova *out, double *group_means,
                                 const double *x, const size_t *group_sizes,
