@@ -10,6 +10,9 @@
 
 const cli_command cli_commands[] = {
     { "carriers", cmd_carriers, "the carrier physics at one point (Fermi level or gate voltage)" },
+    { "check", cmd_check, "validate a lot plan; every problem at PLAN:LINE:COL" },
+    { "layout", cmd_layout, "splits, wafer assignment, processing order, devices needed" },
+    { "predict", cmd_predict, "per split and temperature predictions, stored as a plan revision" },
     { NULL, NULL, NULL },
 };
 
