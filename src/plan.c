@@ -264,8 +264,9 @@ static void syntax_error(tree *t, const yaml_parser_t *p)
 {
     char msg[512];
     if (p->context)
-        snprintf(msg, sizeof msg, "yaml syntax: %s (%s)", p->problem ? p->problem : "error",
-                 p->context);
+        snprintf(msg, sizeof msg, "yaml syntax: %s (%s started at %zu:%zu)",
+                 p->problem ? p->problem : "error", p->context, p->context_mark.line + 1,
+                 p->context_mark.column + 1);
     else
         snprintf(msg, sizeof msg, "yaml syntax: %s", p->problem ? p->problem : "error");
     yaml_mark_t mark = p->problem ? p->problem_mark : p->mark;

@@ -194,24 +194,32 @@ static int read_list(plan_ctx *c, const yn *v, const char *name, size_t max)
 
 /* ---- mappings ---- */
 
-static void unknown_key(plan_ctx *c, const yn *key, const char *what, const field *fields,
+/* Report an unknown key; returns the field it is probably a typo of, or -1. */
+static long unknown_key(plan_ctx *c, const yn *key, const char *what, const field *fields,
                         size_t n)
 {
     const char *names[K_COUNT];
     for (size_t i = 0; i < n && i < K_COUNT; i++)
         names[i] = fields[i].key;
     const char *near = sl_text_nearest(key->text, names, n, suggestion_distance(key->text));
-    if (near)
-        plan_error(c, key, "unknown key '%s' in %s (did you mean '%s'?)", key->text, what, near);
-    else
+    if (!near) {
         plan_error(c, key, "unknown key '%s' in %s", key->text, what);
+        return -1;
+    }
+    plan_error(c, key, "unknown key '%s' in %s (did you mean '%s'?)", key->text, what, near);
+    for (size_t i = 0; i < n; i++)
+        if (names[i] == near)
+            return (long)i;
+    return -1;
 }
 
 /* Match a mapping's keys with fields: values[i] is the value of fields[i] or
- * NULL. Unknown, duplicate and missing required keys are reported. */
+ * NULL. Unknown, duplicate and missing required keys are reported; a missing
+ * key already named in a did-you-mean is not reported twice. */
 static int read_map(plan_ctx *c, const yn *node, const char *what, const field *fields, size_t n,
                     const yn **values)
 {
+    unsigned char suggested[K_COUNT] = { 0 };
     for (size_t i = 0; i < n; i++)
         values[i] = NULL;
     if (node->kind != YN_MAP) {
@@ -229,15 +237,17 @@ static int read_map(plan_ctx *c, const yn *node, const char *what, const field *
         for (size_t i = 0; i < n && f < 0; i++)
             if (strcmp(fields[i].key, key->text) == 0)
                 f = (long)i;
-        if (f < 0)
-            unknown_key(c, key, what, fields, n);
-        else if (values[f])
+        if (f < 0) {
+            long near = unknown_key(c, key, what, fields, n);
+            if (near >= 0)
+                suggested[near] = 1;
+        } else if (values[f])
             plan_error(c, key, "duplicate key '%s' in %s", key->text, what);
         else
             values[f] = node->items[k + 1];
     }
     for (size_t i = 0; i < n; i++)
-        if (fields[i].required && !values[i])
+        if (fields[i].required && !values[i] && !suggested[i])
             plan_error(c, node, "missing required key '%s' in %s", fields[i].key, what);
     return 0;
 }

@@ -1,0 +1,547 @@
+/* SPDX-License-Identifier: MIT
+ * Tests of the plan module: the example plans parse and normalise as
+ * DESIGN.md section 4 says, the broken-plan corpus reports each problem at its
+ * line:col, hostile YAML is refused cleanly, and `splitlot check` exit codes.
+ */
+#include <check.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "splitlot/plan.h"
+#include "test_support.h"
+
+static char *plan_file(const char *name)
+{
+    return sl_test_path(SL_SOURCE_DIR "/plans", name);
+}
+
+/* Load a plan that must be free of errors; warnings counted in *warnings. */
+static sl_plan *load_ok(const char *path, size_t *warnings)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    sl_status st = sl_plan_load(&plan, path, diag);
+    if (st != SL_OK)
+        ck_abort_msg("%s: %s: %s", path, sl_status_str(st), sl_diag_last(diag));
+    if (warnings)
+        *warnings = sl_diag_count(diag, SL_SEV_WARNING);
+    sl_diag_free(diag);
+    return plan;
+}
+
+static sl_plan *parse_ok(const char *text)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    sl_status st = sl_plan_parse(&plan, text, strlen(text), "inline.yaml", diag);
+    ck_assert_msg(st == SL_OK, "inline plan: %s", sl_diag_last(diag));
+    sl_diag_free(diag);
+    return plan;
+}
+
+/* ---- the example plans ---- */
+
+START_TEST(example_plans_check_clean)
+{
+    static const char *const names[] = { "demo.yaml", "rf-highk-topgate.yaml",
+                                         "hall-hbn-lowtemp.yaml" };
+    for (size_t i = 0; i < sizeof names / sizeof names[0]; i++) {
+        char *path = plan_file(names[i]);
+        size_t warnings = 99;
+        sl_plan *plan = load_ok(path, &warnings);
+        ck_assert_msg(warnings == 0, "%s has %zu warnings", names[i], warnings);
+        ck_assert_uint_gt(plan->n_splits, 0);
+        ck_assert_str_eq(plan->factors[0].name, "dielectric");
+        sl_plan_free(plan);
+        free(path);
+    }
+}
+END_TEST
+
+START_TEST(demo_plan_values)
+{
+    char *path = plan_file("demo.yaml");
+    sl_plan *p = load_ok(path, NULL);
+    ck_assert_str_eq(p->lot, "DEMO-01");
+    ck_assert_int_eq(p->design_kind, SL_DESIGN_FULL_FACTORIAL);
+    ck_assert_uint_eq(p->n_temperatures, 2);
+    ck_assert_double_eq(p->temperatures_K[1], 77.0);
+    ck_assert_int_eq(p->wafer_rows, 6);
+    ck_assert_int_eq(p->devices_per_wafer, 36);
+    ck_assert_uint_eq(p->seed, 2026);
+    ck_assert_double_eq(p->gate_derating, 0.5);
+    ck_assert_int_eq(p->resolve.present, 1);
+    ck_assert_double_eq(p->resolve.shift_V, 0.5);
+    /* 2 dielectrics x anneal (none, anneal-350) x cap (none, cap-pmma) */
+    ck_assert_uint_eq(p->n_factors, 3);
+    ck_assert_uint_eq(p->n_splits, 8);
+    ck_assert_uint_eq(p->n_wafers, 18);
+    ck_assert_str_eq(p->wafers[0], "W01");
+    ck_assert_str_eq(p->wafers[17], "W18");
+    ck_assert_str_eq(p->splits[0].name, "ox90");
+    ck_assert_str_eq(p->splits[3].name, "ox90+anneal-350+cap-pmma");
+    ck_assert_str_eq(p->splits[7].name, "alox20+anneal-350+cap-pmma");
+    ck_assert_int_eq(sl_plan_split_index(p, "alox20+cap-pmma"), 5);
+    ck_assert_int_eq(sl_plan_split_index(p, "alox20+nothing"), -1);
+    ck_assert_int_eq(sl_plan_wafer_index(p, "W10"), 9);
+    ck_assert_int_eq(sl_plan_wafer_index(p, "W19"), -1);
+    ck_assert_uint_eq(p->splits[3].n_treatments, 2);
+    ck_assert_uint_eq(p->splits[3].levels[1], 1);
+    ck_assert_uint_eq(p->splits[3].levels[2], 1);
+    ck_assert_ptr_null(p->splits[3].wafers);
+    sl_plan_free(p);
+    free(path);
+}
+END_TEST
+
+/* Doping sums of demo.yaml, by hand (cm^-2):
+ *   ox90+anneal-350+cap-pmma: -2.0e12 + 0 + 1.2e12 + 0.4e12 = -0.4e12,
+ *     sigma sqrt(0.8^2 + 0.2^2 + 0.3^2 + 0.2^2) e12 = sqrt(0.81) e12 = 0.9e12;
+ *   alox20: -2.0e12 + 0.5e12 = -1.5e12, sigma sqrt(0.8^2 + 0.3^2) e12 = 0.854400e12. */
+START_TEST(split_doping_by_hand)
+{
+    char *path = plan_file("demo.yaml");
+    sl_plan *p = load_ok(path, NULL);
+    sl_est a = sl_plan_split_doping_per_cm2(p, (size_t)sl_plan_split_index(p, "ox90+anneal-350+cap-pmma"));
+    ck_assert_double_eq_tol(a.val, -0.4e12, 1e3);
+    ck_assert_double_eq_tol(a.sigma, 0.9e12, 1e3);
+    sl_est b = sl_plan_split_doping_per_cm2(p, (size_t)sl_plan_split_index(p, "alox20"));
+    ck_assert_double_eq_tol(b.val, -1.5e12, 1e3);
+    ck_assert_double_eq_tol(b.sigma, sqrt(0.73) * 1e12, 1e3);
+    sl_plan_free(p);
+    free(path);
+}
+END_TEST
+
+START_TEST(stack_layers_in_si)
+{
+    char *path = plan_file("demo.yaml");
+    sl_plan *p = load_ok(path, NULL);
+    sl_layer layers[4];
+    size_t n = 0;
+    ck_assert_int_eq(sl_plan_stack(p, 1, layers, 4, &n), SL_OK);
+    ck_assert_uint_eq(n, 2);
+    /* Al2O3 9 and SiO2 3.9, 7 and 10 MV/cm: the built-in table of DESIGN.md section 2 */
+    ck_assert_double_eq_tol(layers[0].relative_permittivity, 9.0, 1e-12);
+    ck_assert_double_eq_tol(layers[0].thickness_m, 20e-9, 1e-18);
+    ck_assert_double_eq_tol(layers[0].thickness_sigma_m, 1e-9, 1e-18);
+    ck_assert_double_eq_tol(layers[0].breakdown_V_per_m, 7e8, 1.0);
+    ck_assert_double_eq_tol(layers[1].relative_permittivity, 3.9, 1e-12);
+    ck_assert_int_eq(sl_plan_stack(p, 1, layers, 1, &n), SL_EINPUT); /* too small a buffer */
+    ck_assert_int_eq(sl_plan_stack(p, 7, layers, 4, &n), SL_EINPUT); /* no such dielectric */
+    ck_assert_double_eq(p->dielectrics[0].gate_range_V[0], -40.0);
+    ck_assert_int_eq(p->dielectrics[0].has_gate_range, 1);
+    sl_plan_free(p);
+    free(path);
+}
+END_TEST
+
+START_TEST(explicit_design_normalised)
+{
+    char *path = plan_file("hall-hbn-lowtemp.yaml");
+    sl_plan *p = load_ok(path, NULL);
+    ck_assert_int_eq(p->design_kind, SL_DESIGN_EXPLICIT);
+    ck_assert_int_eq(p->wafers_per_split, 0);
+    ck_assert_uint_eq(p->n_splits, 4);
+    ck_assert_uint_eq(p->n_wafers, 7);
+    ck_assert_str_eq(p->wafers[6], "H07");
+    /* factor 0: dielectrics in order of use; one two-level factor per treatment */
+    ck_assert_uint_eq(p->n_factors, 2);
+    ck_assert_uint_eq(p->factors[0].n_levels, 2);
+    ck_assert_str_eq(p->factors[0].levels[1], "hbn20-graphite");
+    ck_assert_int_eq(p->factors[0].level_ref[1], 1);
+    ck_assert_str_eq(p->factors[1].name, "vacuum-anneal-300");
+    ck_assert_str_eq(p->factors[1].levels[0], "none");
+    ck_assert_int_eq(p->factors[1].level_ref[0], -1);
+    ck_assert_int_eq(p->factors[1].level_ref[1], 0);
+    const sl_plan_split *s = &p->splits[3];
+    ck_assert_str_eq(s->name, "graphite-annealed");
+    ck_assert_uint_eq(s->dielectric, 1);
+    ck_assert_uint_eq(s->levels[0], 1);
+    ck_assert_uint_eq(s->levels[1], 1);
+    ck_assert_uint_eq(p->splits[0].levels[1], 0);
+    ck_assert_uint_eq(s->n_wafers, 1);
+    ck_assert_str_eq(s->wafers[0], "H06");
+    /* the plan's own material is merged with the built-ins */
+    const sl_plan_material *m = sl_plan_material_find(p, "hBN-exfoliated");
+    ck_assert_ptr_nonnull(m);
+    ck_assert_double_eq(m->relative_permittivity, 3.4);
+    ck_assert_ptr_nonnull(sl_plan_material_find(p, "ZrO2"));
+    ck_assert_ptr_null(sl_plan_material_find(p, "unobtainium"));
+    sl_plan_free(p);
+    free(path);
+}
+END_TEST
+
+static const char small_plan[] =
+    "lot: T-1\n"
+    "temperatures_K: [300]\n"
+    "materials: [ { name: SiO2, relative_permittivity: 4.2, breakdown_MV_per_cm: 9 } ]\n"
+    "dielectrics:\n"
+    "  - { name: a, layers: &stack [ { material: SiO2, thickness_nm: 50 } ] }\n"
+    "  - { name: b, layers: *stack, doping_per_cm2: { mean: 1e12 } }\n"
+    "treatments: [ { name: t1, doping_per_cm2: { mean: 2e11, sigma: 1e11 } } ]\n"
+    "design:\n"
+    "  kind: full-factorial\n"
+    "  factors: { step: [t1, none], dielectric: [b, a] }\n"
+    "  wafers_per_split: 1\n"
+    "wafers: [X9, X1, X5, X7]\n"
+    "devices_per_wafer: 4\n";
+
+START_TEST(defaults_overrides_and_order)
+{
+    sl_plan *p = parse_ok(small_plan);
+    /* built-in SiO2 overridden by the plan, no duplicate entry */
+    const sl_plan_material *m = sl_plan_material_find(p, "SiO2");
+    ck_assert_double_eq(m->relative_permittivity, 4.2);
+    ck_assert_double_eq(m->breakdown_MV_per_cm, 9.0);
+    size_t sio2 = 0;
+    for (size_t i = 0; i < p->n_materials; i++)
+        sio2 += strcmp(p->materials[i].name, "SiO2") == 0;
+    ck_assert_uint_eq(sio2, 1);
+    /* the alias shares the first dielectric's layers */
+    ck_assert_uint_eq(p->dielectrics[1].n_layers, 1);
+    ck_assert_double_eq(p->dielectrics[1].layers[0].thickness_nm, 50.0);
+    /* defaults */
+    ck_assert_double_eq(p->fermi_velocity_m_s, 1.0e6);
+    ck_assert_double_eq(p->expected_yield, 1.0);
+    ck_assert_double_eq(p->baseline_doping_per_cm2.val, 0.0);
+    ck_assert_str_eq(p->title, "");
+    ck_assert_int_eq(p->resolve.present, 0);
+    ck_assert_int_eq(p->wafer_rows, 2); /* smallest square map holding 4 devices */
+    /* dielectric becomes factor 0 wherever it was written; 'none' is level 0 */
+    ck_assert_str_eq(p->factors[0].name, "dielectric");
+    ck_assert_str_eq(p->factors[0].levels[0], "b");
+    ck_assert_str_eq(p->factors[1].name, "step");
+    ck_assert_str_eq(p->factors[1].levels[0], "none");
+    ck_assert_str_eq(p->factors[1].levels[1], "t1");
+    ck_assert_str_eq(p->splits[0].name, "b");
+    ck_assert_str_eq(p->splits[1].name, "b+t1");
+    ck_assert_str_eq(p->wafers[1], "X1");
+    /* b+t1: 0 + 1e12 + 2e11 = 1.2e12, sigma 1e11 (the only one given) */
+    sl_est d = sl_plan_split_doping_per_cm2(p, 1);
+    ck_assert_double_eq_tol(d.val, 1.2e12, 1.0);
+    ck_assert_double_eq_tol(d.sigma, 1e11, 1.0);
+    sl_plan_free(p);
+}
+END_TEST
+
+START_TEST(hash_is_fnv1a)
+{
+    char text[] = "a";
+    sl_plan p = { .text = text, .text_len = 1 };
+    char hex[17];
+    sl_plan_hash_hex(&p, hex);
+    /* FNV-1a 64 of "a": test vector of the FNV reference code (Noll), also
+     * computed with a python3 loop (offset 0xcbf29ce484222325, prime 0x100000001b3) */
+    ck_assert_str_eq(hex, "af63dc4c8601ec8c");
+    sl_plan *q = parse_ok(small_plan);
+    char h1[17];
+    sl_plan_hash_hex(q, h1);
+    ck_assert_uint_eq(strlen(h1), 16);
+    ck_assert_uint_eq(q->text_len, strlen(small_plan));
+    ck_assert_int_eq(memcmp(q->text, small_plan, q->text_len), 0);
+    sl_plan_free(q);
+}
+END_TEST
+
+/* ---- the broken-plan corpus: file, line, col, a piece of the message ---- */
+
+typedef struct {
+    const char *file;
+    long line, col;
+    const char *fragment;
+} bad_case;
+
+static const bad_case bad_cases[] = {
+    { "syntax.yaml", 6, 1, "yaml syntax: did not find expected ',' or ']'" },
+    { "unknown_key.yaml", 2, 1, "unknown key 'temperature_K' in the plan (did you mean 'temperatures_K'?)" },
+    { "wrong_type.yaml", 5, 47, "'thickness_nm' must be a number, got 'thick'" },
+    { "wrong_type_list.yaml", 2, 17, "'temperatures_K' must be a list, not a single value" },
+    { "missing_key.yaml", 1, 1, "missing required key 'lot'" },
+    { "unknown_material.yaml", 5, 27, "unknown material 'SiO3' (did you mean 'SiO2'?)" },
+    { "unknown_dielectric.yaml", 11, 18, "unknown dielectric 'ox9' (did you mean 'ox90'?)" },
+    { "unknown_treatment.yaml", 12, 20, "unknown treatment 'anneal-35' (did you mean 'anneal-350'?)" },
+    { "unknown_design_kind.yaml", 9, 9, "unknown design kind 'full-factoral' (did you mean 'full-factorial'?)" },
+    { "duplicate_name.yaml", 6, 11, "duplicate dielectric name 'ox90'" },
+    { "duplicate_key.yaml", 15, 1, "duplicate key 'wafers'" },
+    { "nonpositive_thickness.yaml", 5, 47, "'thickness_nm' must be > 0, got '0'" },
+    { "negative_sigma.yaml", 7, 64, "'sigma' must be >= 0, got '-0.3e12'" },
+    { "negative_temperature.yaml", 2, 23, "'temperatures_K' must be >= 0, got '-4'" },
+    { "yield_range.yaml", 15, 17, "'expected_yield' must be in (0, 1], got '1.2'" },
+    { "too_few_wafers.yaml", 14, 9, "3 wafers are fewer than 2 splits x 2 wafers_per_split = 4" },
+    { "gate_range_no_zero.yaml", 6, 19, "gate_range_V [5, 40] does not contain 0 V" },
+    { "empty.yaml", 1, 1, "the plan is empty" },
+    { "not_a_mapping.yaml", 1, 1, "the plan must be a mapping" },
+    { "two_documents.yaml", 16, 1, "a plan is one YAML document" },
+    { "explicit_wafers.yaml", 12, 74, "wafer 'A1' is already in split 'as-made'" },
+    { "explicit_wafers.yaml", 12, 78, "unknown wafer 'A9'" },
+    { "combined.yaml", 2, 23, "'temperatures_K' must be >= 0" },
+    { "combined.yaml", 5, 27, "unknown material 'SiO3'" },
+    { "combined.yaml", 12, 20, "unknown treatment 'anneal-35'" },
+    { "combined.yaml", 15, 20, "'devices_per_wafer' must be a whole number" },
+    /* hostile YAML */
+    { "alias_bomb.yaml", 8, 8, "'*e' makes the plan larger than 200000 nodes" },
+    { "deep_nesting.yaml", 2, 39, "the plan nests deeper than 32 levels" },
+    { "self_alias.yaml", 4, 13, "alias '*loop' refers to a node that contains it" },
+};
+
+static int has_message(const sl_diag *diag, const bad_case *c)
+{
+    for (size_t i = 0; i < sl_diag_size(diag); i++) {
+        const sl_diag_msg *m = sl_diag_get(diag, i);
+        if (m->severity == SL_SEV_ERROR && m->line == c->line && m->col == c->col &&
+            strstr(m->text, c->fragment))
+            return 1;
+    }
+    return 0;
+}
+
+static void dump(const sl_diag *diag)
+{
+    char line[1200];
+    for (size_t i = 0; i < sl_diag_size(diag); i++) {
+        sl_diag_format(sl_diag_get(diag, i), line, sizeof line);
+        fprintf(stderr, "  got: %s\n", line);
+    }
+}
+
+START_TEST(bad_plan_reports_location)
+{
+    const bad_case *c = &bad_cases[_i];
+    char *name = sl_test_path("plans/bad", c->file);
+    char *path = sl_test_data(name);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = (sl_plan *)1;
+    sl_status st = sl_plan_load(&plan, path, diag);
+    ck_assert_int_eq(st, SL_EINPUT);
+    ck_assert_ptr_null(plan);
+    if (!has_message(diag, c))
+        dump(diag);
+    ck_assert_msg(has_message(diag, c), "%s: no error at %ld:%ld with '%s'", c->file, c->line,
+                  c->col, c->fragment);
+    /* every message carries the file name */
+    ck_assert_str_eq(sl_diag_get(diag, 0)->file, path);
+    sl_diag_free(diag);
+    free(path);
+    free(name);
+}
+END_TEST
+
+static size_t errors_in(const char *bad_file)
+{
+    char *name = sl_test_path("plans/bad", bad_file);
+    char *path = sl_test_data(name);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    sl_plan_load(&plan, path, diag);
+    size_t n = sl_diag_count(diag, SL_SEV_ERROR);
+    sl_diag_free(diag);
+    free(path);
+    free(name);
+    return n;
+}
+
+START_TEST(every_problem_reported_once)
+{
+    ck_assert_uint_eq(errors_in("combined.yaml"), 4); /* all four, not just the first */
+    /* a typo'd key is not also reported as a missing one */
+    ck_assert_uint_eq(errors_in("unknown_key.yaml"), 1);
+    /* hostile input gets one located line */
+    ck_assert_uint_eq(errors_in("self_alias.yaml"), 1);
+    ck_assert_uint_eq(errors_in("alias_bomb.yaml"), 1);
+    ck_assert_uint_eq(errors_in("deep_nesting.yaml"), 1);
+}
+END_TEST
+
+START_TEST(oversized_plan_refused)
+{
+    char *dir = sl_test_tmpdir();
+    char *path = sl_test_path(dir, "huge.yaml");
+    size_t size = ((size_t)1 << 20) + 100;
+    char *text = malloc(size + 1);
+    memset(text, '#', size); /* one long comment: valid YAML, just too big */
+    text[size] = '\0';
+    ck_assert_int_eq(sl_test_write_file(path, text), 0);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    ck_assert_int_eq(sl_plan_load(&plan, path, diag), SL_EINPUT);
+    ck_assert_ptr_null(plan);
+    ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_ERROR), 1);
+    ck_assert_ptr_nonnull(strstr(sl_diag_last(diag), "larger than the 1 MiB"));
+    sl_diag_clear(diag);
+    ck_assert_int_eq(sl_plan_parse(&plan, text, size, "mem", diag), SL_EINPUT);
+    sl_diag_free(diag);
+    free(text);
+    sl_test_rmtree(dir);
+    free(path);
+    free(dir);
+}
+END_TEST
+
+START_TEST(missing_file_is_io_error)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    char *path = sl_test_data("plans/no-such-plan.yaml");
+    ck_assert_int_eq(sl_plan_load(&plan, path, diag), SL_EIO);
+    ck_assert_ptr_null(plan);
+    ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_ERROR), 1);
+    sl_diag_free(diag);
+    free(path);
+}
+END_TEST
+
+/* ---- warnings: the plan is usable, the message located ---- */
+
+typedef struct {
+    const char *file;
+    long line, col;
+    const char *fragment;
+} warn_case;
+
+static const warn_case warn_cases[] = {
+    /* N = 4.0e13 cm^-2 on 90 nm SiO2: V = -e N / C_g = -167 V, far beyond the
+     * +/-45 V safe range (0.5 x 10 MV/cm x 90 nm) */
+    { "cnp_outside.yaml", 11, 18, "split 'ox90+anneal-350': predicted neutrality point" },
+    /* n_th(300 K) e / C_g for 90 nm SiO2 is about 0.34 V, above shift_V 0.1 */
+    { "shift_below_floor.yaml", 16, 21, "shift_V 0.1 V is below the thermal floor of 'ox90'" },
+};
+
+START_TEST(warning_plans_load)
+{
+    const warn_case *c = &warn_cases[_i];
+    char *name = sl_test_path("plans/warn", c->file);
+    char *path = sl_test_data(name);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    ck_assert_int_eq(sl_plan_load(&plan, path, diag), SL_OK);
+    ck_assert_ptr_nonnull(plan);
+    ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_ERROR), 0);
+    ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_WARNING), 1);
+    const sl_diag_msg *m = sl_diag_get(diag, 0);
+    ck_assert_int_eq(m->line, c->line);
+    ck_assert_int_eq(m->col, c->col);
+    ck_assert_ptr_nonnull(strstr(m->text, c->fragment));
+    sl_plan_free(plan);
+    sl_diag_free(diag);
+    free(path);
+    free(name);
+}
+END_TEST
+
+/* The thermal-floor warning's figure: n_th = (pi/6)(k_B T / hbar v_F)^2 at
+ * 300 K is 8.077e14 m^-2 (Fang et al. 2007, "about 8e10 cm^-2"); C_g of 90 nm
+ * SiO2 = 3.9 eps0 / 90 nm = 3.8368e-4 F/m^2; e n_th / C_g = 0.3373 V, computed
+ * with python3 from scipy.constants (k, hbar, e). */
+START_TEST(thermal_floor_figure)
+{
+    char *path = sl_test_data("plans/warn/shift_below_floor.yaml");
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    ck_assert_int_eq(sl_plan_load(&plan, path, diag), SL_OK);
+    const char *text = sl_diag_get(diag, 0)->text;
+    ck_assert_ptr_nonnull(strstr(text, "0.337 V"));
+    sl_plan_free(plan);
+    sl_diag_free(diag);
+    free(path);
+}
+END_TEST
+
+/* ---- the command ---- */
+
+static sl_run_result run_check(const char *path)
+{
+    const char *argv[] = { "check", path, NULL };
+    return sl_test_run(NULL, NULL, argv);
+}
+
+START_TEST(check_command_exit_codes)
+{
+    char *good = plan_file("demo.yaml");
+    sl_run_result r = run_check(good);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_ptr_nonnull(strstr(r.out, "lot DEMO-01, 8 splits, 18 wafers"));
+    ck_assert_str_eq(r.err, "");
+    sl_run_result_free(&r);
+
+    char *bad = sl_test_data("plans/bad/combined.yaml");
+    r = run_check(bad);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_str_eq(r.out, "");
+    char expect[1200];
+    snprintf(expect, sizeof expect, "%s:5:27: error: unknown material 'SiO3'", bad);
+    ck_assert_ptr_nonnull(strstr(r.err, expect));
+    sl_run_result_free(&r);
+
+    char *warn = sl_test_data("plans/warn/cnp_outside.yaml");
+    r = run_check(warn);
+    ck_assert_int_eq(r.exit_code, 0);
+    snprintf(expect, sizeof expect, "%s:11:18: warning: ", warn);
+    ck_assert_ptr_nonnull(strstr(r.err, expect));
+    ck_assert_ptr_nonnull(strstr(r.out, "1 warning"));
+    sl_run_result_free(&r);
+
+    char *missing = sl_test_data("plans/no-such-plan.yaml");
+    r = run_check(missing);
+    ck_assert_int_eq(r.exit_code, 1);
+    sl_run_result_free(&r);
+    free(good);
+    free(bad);
+    free(warn);
+    free(missing);
+}
+END_TEST
+
+START_TEST(check_command_usage)
+{
+    const char *help[] = { "check", "--help", NULL };
+    sl_run_result r = sl_test_run(NULL, NULL, help);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_ptr_nonnull(strstr(r.out, "usage: splitlot check PLAN"));
+    sl_run_result_free(&r);
+    const char *none[] = { "check", NULL };
+    r = sl_test_run(NULL, NULL, none);
+    ck_assert_int_eq(r.exit_code, 2);
+    sl_run_result_free(&r);
+    const char *bad_opt[] = { "check", "--frobnicate", "x.yaml", NULL };
+    r = sl_test_run(NULL, NULL, bad_opt);
+    ck_assert_int_eq(r.exit_code, 2);
+    sl_run_result_free(&r);
+}
+END_TEST
+
+static Suite *plan_suite(void)
+{
+    Suite *s = suite_create("plan");
+    TCase *tc = tcase_create("parse");
+    tcase_add_test(tc, example_plans_check_clean);
+    tcase_add_test(tc, demo_plan_values);
+    tcase_add_test(tc, split_doping_by_hand);
+    tcase_add_test(tc, stack_layers_in_si);
+    tcase_add_test(tc, explicit_design_normalised);
+    tcase_add_test(tc, defaults_overrides_and_order);
+    tcase_add_test(tc, hash_is_fnv1a);
+    suite_add_tcase(s, tc);
+    TCase *bad = tcase_create("broken");
+    tcase_add_loop_test(bad, bad_plan_reports_location, 0,
+                        (int)(sizeof bad_cases / sizeof bad_cases[0]));
+    tcase_add_test(bad, every_problem_reported_once);
+    tcase_add_test(bad, oversized_plan_refused);
+    tcase_add_test(bad, missing_file_is_io_error);
+    tcase_add_loop_test(bad, warning_plans_load, 0, (int)(sizeof warn_cases / sizeof warn_cases[0]));
+    tcase_add_test(bad, thermal_floor_figure);
+    suite_add_tcase(s, bad);
+    TCase *cli = tcase_create("cli");
+    tcase_add_test(cli, check_command_exit_codes);
+    tcase_add_test(cli, check_command_usage);
+    suite_add_tcase(s, cli);
+    return s;
+}
+
+int main(void)
+{
+    return sl_test_main(plan_suite());
+}
