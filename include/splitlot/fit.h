@@ -1,0 +1,102 @@
+/* SPDX-License-Identifier: MIT
+ * Transfer-curve fitter: one gate sweep R(V_g) of a graphene FET in, the
+ * neutrality point, mobility, residual density and contact resistance out
+ * with standard errors, or a class saying why the device cannot be fitted.
+ * Not for: reading files or grouping points per device (ingest.h does that).
+ */
+#ifndef SPLITLOT_FIT_H
+#define SPLITLOT_FIT_H
+
+#include <stddef.h>
+
+#include "splitlot/error.h"
+
+/* What a sweep turned out to be. Only SL_FIT_OK carries fitted parameters. */
+typedef enum {
+    SL_FIT_OK = 0,
+    SL_FIT_SHORT,          /* resistance tiny everywhere, or flat and small */
+    SL_FIT_OPEN,           /* a reading at or above open_min_ohm, or not finite */
+    SL_FIT_CNP_OUTSIDE,    /* neutrality point outside the swept gate range */
+    SL_FIT_NO_CONVERGENCE, /* the least-squares search did not converge */
+    SL_FIT_POOR            /* no gate response, or the model does not describe it */
+} sl_fit_class;
+
+#define SL_FIT_CLASS_COUNT 6
+
+/* Stable names used in the database and reports: "ok", "short", "open",
+ * "cnp-outside-sweep", "no-convergence", "poor-fit"; "?" for a bad value. */
+const char *sl_fit_class_name(sl_fit_class cls);
+
+/* Name back to class; SL_OK, or SL_EINPUT for an unknown name. */
+sl_status sl_fit_class_parse(sl_fit_class *out, const char *name);
+
+/* Device geometry, gate and classification thresholds. */
+typedef struct {
+    double gate_capacitance_F_per_m2; /* C_g per area, > 0 */
+    double length_over_width;         /* channel L/W, > 0 */
+    double short_max_ohm;       /* every reading below: short (default 50) */
+    double short_flat_max_ohm;  /* median below this and flat: short (default 500) */
+    double open_min_ohm;        /* any reading at or above: open (default 1e9) */
+    double min_modulation;      /* smoothed max/min - 1 below this: no gate
+                                   response, flat (default 0.05) */
+    double poor_max_rel_rms;    /* RMS of relative residuals above: poor (0.05) */
+    double poor_min_r_squared;  /* R^2 below: poor (default 0.9) */
+    int max_iterations;         /* trust-region iterations per search (100) */
+} sl_fit_config;
+
+/* Defaults for a channel of the given size on a gate of capacitance C_g.
+ * The thresholds are common practice for two-terminal graphene sweeps, not
+ * published values: a channel below 50 ohm is metal, not graphene; 1 Gohm
+ * is a typical source-meter overload; a fit within 5 % RMS and R^2 >= 0.9
+ * describes a curve well at the usual 0.1-1 % instrument noise. */
+void sl_fit_config_default(sl_fit_config *cfg, double gate_capacitance_F_per_m2,
+                           double channel_length_um, double channel_width_um);
+
+/* Parameters of R(V_g) = R_c + (L/W) / (e mu sqrt(n0^2 + n_g^2)),
+ * n_g = C_g (V_g - V_cnp) / e (Kim et al., Appl. Phys. Lett. 94, 062107 (2009)). */
+typedef struct {
+    double cnp_V;               /* neutrality point V_cnp */
+    double mobility_cm2_per_Vs; /* effective mobility mu */
+    double n0_per_cm2;          /* residual density n0 */
+    double r_contact_ohm;       /* contact resistance R_c, >= 0 */
+} sl_fit_params;
+
+/* Result of one sweep. For any class but SL_FIT_OK, p and sigma are NaN;
+ * rel_rms and r_squared are set when a fit was made (else NaN). */
+typedef struct {
+    sl_fit_class cls;
+    sl_fit_params p;
+    sl_fit_params sigma;   /* one-standard-error of each parameter */
+    double rel_rms;        /* RMS of (R_meas - R_fit) / R_meas */
+    double r_squared;      /* 1 - SS_res / SS_tot on resistance */
+    int iterations;        /* trust-region iterations spent */
+    size_t n_points;
+} sl_fit_result;
+
+/* Scratch space for sweeps of up to max_points points; reuse it for every
+ * device (one per thread): fitting then allocates nothing except when the
+ * sweep length changes. NULL when out of memory or max_points < 8. */
+typedef struct sl_fit_workspace sl_fit_workspace;
+sl_fit_workspace *sl_fit_workspace_new(size_t max_points);
+void sl_fit_workspace_free(sl_fit_workspace *ws);
+
+/* Fewest points a sweep may have. */
+#define SL_FIT_MIN_POINTS 8
+
+/* Fit one sweep (points in any order). Method: variable projection, the
+ * linear R_c and L/(W C_g mu) solved by weighted linear least squares for
+ * every (V_cnp, n0), the two nonlinear ones by GSL's Levenberg-Marquardt trust
+ * region with the Kaufman Jacobian; residuals are relative (weight 1/R), as
+ * meter errors scale with the reading. Standard errors come from the full
+ * four-parameter covariance scaled by the residual variance.
+ * Returns SL_OK with *out filled (check out->cls), SL_EINPUT for fewer than
+ * SL_FIT_MIN_POINTS or more than the workspace's points, a non-finite gate
+ * voltage, a sweep without two distinct voltages, or a bad config; SL_ENOMEM. */
+sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_config *cfg,
+                       const double *vg_V, const double *r_ohm, size_t n_points);
+
+/* The model resistance in ohm at gate voltage vg_V (for simulation and
+ * report curves). */
+double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V);
+
+#endif

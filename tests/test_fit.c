@@ -1,0 +1,334 @@
+/* SPDX-License-Identifier: MIT
+ * Check suite of the transfer-curve fitter: recovery of known parameters from
+ * synthetic sweeps (model plus Gaussian noise from a seeded GSL generator),
+ * the fault classes, the honesty of the standard errors and input errors.
+ */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
+#include <gsl/gsl_statistics_double.h>
+
+#include "splitlot/fit.h"
+#include "splitlot/units.h"
+#include "test_support.h"
+
+#define N_SWEEP 201
+#define VG_MIN_V (-40.0)
+#define VG_MAX_V 40.0
+#define NOISE_REL 0.005
+
+/* 90 nm SiO2 back gate (relative permittivity 3.9: typical handbook value,
+ * DESIGN.md section 2) under a 20 um x 10 um channel. */
+static sl_fit_config test_config(void)
+{
+    sl_fit_config cfg;
+    sl_fit_config_default(&cfg, 3.9 * SL_SI_EPS0 / 90e-9, 20.0, 10.0);
+    return cfg;
+}
+
+static void sweep_voltages(double *vg_V)
+{
+    for (size_t i = 0; i < N_SWEEP; i++)
+        vg_V[i] = VG_MIN_V + (VG_MAX_V - VG_MIN_V) * (double)i / (N_SWEEP - 1);
+}
+
+/* Model curve times (1 + noise), noise Gaussian with relative SD noise_rel. */
+static void synth(double *r_ohm, const double *vg_V, const sl_fit_params *p,
+                  const sl_fit_config *cfg, gsl_rng *rng, double noise_rel)
+{
+    for (size_t i = 0; i < N_SWEEP; i++) {
+        double e = rng ? gsl_ran_gaussian(rng, noise_rel) : 0.0;
+        r_ohm[i] = sl_fit_model_ohm(p, cfg, vg_V[i]) * (1.0 + e);
+    }
+}
+
+/* Truths over the ranges of the assignment: V_cnp -20..30 V, mu 500..5000
+ * cm^2/Vs, n0 5e10..5e11 cm^-2 (log-uniform), R_c 100..2000 ohm. */
+static sl_fit_params draw_truth(gsl_rng *rng)
+{
+    sl_fit_params p;
+    p.cnp_V = gsl_ran_flat(rng, -20.0, 30.0);
+    p.mobility_cm2_per_Vs = gsl_ran_flat(rng, 500.0, 5000.0);
+    p.n0_per_cm2 = exp(gsl_ran_flat(rng, log(5e10), log(5e11)));
+    p.r_contact_ohm = gsl_ran_flat(rng, 100.0, 2000.0);
+    return p;
+}
+
+START_TEST(model_matches_hand_value)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_params p = { 5.0, 1000.0, 1e11, 300.0 };
+    /* At the neutrality point n_g = 0: R = R_c + (L/W) / (e mu n0) with
+     * mu = 0.1 m^2/Vs, n0 = 1e15 m^-2: 2 / (1.602176634e-19 * 0.1 * 1e15)
+     * = 124830.1... ohm (hand calculation from the model of DESIGN.md 2). */
+    double expect = 300.0 + 2.0 / (1.602176634e-19 * 0.1 * 1e15);
+    ck_assert_double_eq_tol(sl_fit_model_ohm(&p, &cfg, 5.0), expect, 1e-9 * expect);
+    /* Symmetric about V_cnp (model property). */
+    ck_assert_double_eq_tol(sl_fit_model_ohm(&p, &cfg, 15.0), sl_fit_model_ohm(&p, &cfg, -5.0),
+                            1e-9);
+}
+END_TEST
+
+START_TEST(class_names_round_trip)
+{
+    for (int i = 0; i < SL_FIT_CLASS_COUNT; i++) {
+        sl_fit_class back;
+        ck_assert_int_eq(sl_fit_class_parse(&back, sl_fit_class_name((sl_fit_class)i)), SL_OK);
+        ck_assert_int_eq(back, i);
+    }
+    sl_fit_class c;
+    ck_assert_int_eq(sl_fit_class_parse(&c, "fine"), SL_EINPUT);
+    ck_assert_str_eq(sl_fit_class_name(SL_FIT_CNP_OUTSIDE), "cnp-outside-sweep");
+    ck_assert_str_eq(sl_fit_class_name((sl_fit_class)99), "?");
+}
+END_TEST
+
+START_TEST(noise_free_recovers_exactly)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    const sl_fit_params truths[] = {
+        { 7.3, 2500.0, 1.2e11, 650.0 },
+        { -18.0, 800.0, 4.0e11, 1800.0 },
+        { 28.0, 4800.0, 6.0e10, 120.0 },
+    };
+    for (size_t t = 0; t < sizeof truths / sizeof truths[0]; t++) {
+        const sl_fit_params *p = &truths[t];
+        synth(r, vg, p, &cfg, NULL, 0.0);
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+        ck_assert_int_eq(res.cls, SL_FIT_OK);
+        ck_assert_double_eq_tol(res.p.cnp_V, p->cnp_V, 1e-6 * fabs(p->cnp_V));
+        ck_assert_double_eq_tol(res.p.mobility_cm2_per_Vs, p->mobility_cm2_per_Vs,
+                                1e-6 * p->mobility_cm2_per_Vs);
+        ck_assert_double_eq_tol(res.p.n0_per_cm2, p->n0_per_cm2, 1e-6 * p->n0_per_cm2);
+        ck_assert_double_eq_tol(res.p.r_contact_ohm, p->r_contact_ohm,
+                                1e-6 * p->r_contact_ohm);
+        ck_assert(res.rel_rms < 1e-9);
+    }
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+/* ~1000 noisy good devices: at least 99 % within 0.05 V and 5 % mobility
+ * (acceptance figures of the assignment), and the pulls (fit - truth)/sigma
+ * have SD near 1 (the definition of an honest standard error). */
+START_TEST(noisy_population_recovered)
+{
+    enum { N_DEV = 1000 };
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 20261201);
+    double vg[N_SWEEP], r[N_SWEEP];
+    static double pull_v[N_DEV], pull_mu[N_DEV], pull_n0[N_DEV], pull_rc[N_DEV];
+    sweep_voltages(vg);
+    int good = 0, fitted = 0;
+    for (int k = 0; k < N_DEV; k++) {
+        sl_fit_params p = draw_truth(rng);
+        synth(r, vg, &p, &cfg, rng, NOISE_REL);
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+        if (res.cls != SL_FIT_OK)
+            continue;
+        pull_v[fitted] = (res.p.cnp_V - p.cnp_V) / res.sigma.cnp_V;
+        pull_mu[fitted] = (res.p.mobility_cm2_per_Vs - p.mobility_cm2_per_Vs) /
+                          res.sigma.mobility_cm2_per_Vs;
+        pull_n0[fitted] = (res.p.n0_per_cm2 - p.n0_per_cm2) / res.sigma.n0_per_cm2;
+        pull_rc[fitted] = (res.p.r_contact_ohm - p.r_contact_ohm) / res.sigma.r_contact_ohm;
+        fitted++;
+        if (fabs(res.p.cnp_V - p.cnp_V) <= 0.05 &&
+            fabs(res.p.mobility_cm2_per_Vs / p.mobility_cm2_per_Vs - 1.0) <= 0.05)
+            good++;
+    }
+    ck_assert_msg(good >= 990, "only %d of %d within tolerance", good, N_DEV);
+    /* Loose bound 0.8..1.25 on the pull SD: with ~1000 devices its sampling
+     * error is about 2 %, the rest allows for the first-order covariance. */
+    double sd[4] = { gsl_stats_sd(pull_v, 1, (size_t)fitted), gsl_stats_sd(pull_mu, 1, (size_t)fitted),
+                     gsl_stats_sd(pull_n0, 1, (size_t)fitted), gsl_stats_sd(pull_rc, 1, (size_t)fitted) };
+    for (int j = 0; j < 4; j++)
+        ck_assert_msg(sd[j] > 0.8 && sd[j] < 1.25, "pull SD %d is %g", j, sd[j]);
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+static sl_fit_class classify(const double *r, const double *vg)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    sl_fit_result res;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+    sl_fit_workspace_free(ws);
+    if (res.cls != SL_FIT_OK)
+        ck_assert(isnan(res.p.cnp_V) && isnan(res.sigma.mobility_cm2_per_Vs));
+    return res.cls;
+}
+
+START_TEST(short_device)
+{
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 7);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    for (size_t i = 0; i < N_SWEEP; i++)
+        r[i] = 12.0 * (1.0 + gsl_ran_gaussian(rng, NOISE_REL));
+    ck_assert_int_eq(classify(r, vg), SL_FIT_SHORT);
+    /* Flat and small but above short_max_ohm: still a short (metal path). */
+    for (size_t i = 0; i < N_SWEEP; i++)
+        r[i] = 180.0 * (1.0 + gsl_ran_gaussian(rng, NOISE_REL));
+    ck_assert_int_eq(classify(r, vg), SL_FIT_SHORT);
+    gsl_rng_free(rng);
+}
+END_TEST
+
+START_TEST(open_device)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_params p = { 3.0, 2000.0, 1e11, 500.0 };
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    for (size_t i = 0; i < N_SWEEP; i++)
+        r[i] = 5e12;
+    ck_assert_int_eq(classify(r, vg), SL_FIT_OPEN);
+    synth(r, vg, &p, &cfg, NULL, 0.0);
+    r[100] = INFINITY;   /* one overload reading */
+    ck_assert_int_eq(classify(r, vg), SL_FIT_OPEN);
+    r[100] = NAN;
+    ck_assert_int_eq(classify(r, vg), SL_FIT_OPEN);
+}
+END_TEST
+
+START_TEST(cnp_outside_sweep)
+{
+    sl_fit_config cfg = test_config();
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 11);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    const double outside_V[] = { 55.0, -70.0, 41.0 };
+    for (size_t t = 0; t < 3; t++) {
+        sl_fit_params p = { outside_V[t], 1500.0, 1e11, 400.0 };
+        synth(r, vg, &p, &cfg, rng, NOISE_REL);
+        ck_assert_int_eq(classify(r, vg), SL_FIT_CNP_OUTSIDE);
+    }
+    gsl_rng_free(rng);
+}
+END_TEST
+
+START_TEST(noise_only_is_not_fitted)
+{
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 13);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    for (int t = 0; t < 20; t++) {
+        /* Strong noise (30 %) around 20 kohm without any gate response. */
+        for (size_t i = 0; i < N_SWEEP; i++)
+            r[i] = 2e4 * exp(gsl_ran_gaussian(rng, 0.3));
+        sl_fit_class c = classify(r, vg);
+        ck_assert_msg(c == SL_FIT_POOR || c == SL_FIT_NO_CONVERGENCE, "class %s",
+                      sl_fit_class_name(c));
+    }
+    gsl_rng_free(rng);
+}
+END_TEST
+
+START_TEST(unsorted_points_same_result)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 17);
+    sl_fit_params p = { -4.0, 3000.0, 2e11, 700.0 };
+    double vg[N_SWEEP], r[N_SWEEP], vg_rev[N_SWEEP], r_rev[N_SWEEP];
+    sweep_voltages(vg);
+    synth(r, vg, &p, &cfg, rng, NOISE_REL);
+    for (size_t i = 0; i < N_SWEEP; i++) {
+        vg_rev[i] = vg[N_SWEEP - 1 - i];
+        r_rev[i] = r[N_SWEEP - 1 - i];
+    }
+    sl_fit_result a, b;
+    ck_assert_int_eq(sl_fit_sweep(&a, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+    ck_assert_int_eq(sl_fit_sweep(&b, ws, &cfg, vg_rev, r_rev, N_SWEEP), SL_OK);
+    ck_assert_int_eq(a.cls, SL_FIT_OK);
+    ck_assert_int_eq(b.cls, SL_FIT_OK);
+    ck_assert_double_eq_tol(a.p.cnp_V, b.p.cnp_V, 1e-9);
+    ck_assert_double_eq_tol(a.p.mobility_cm2_per_Vs, b.p.mobility_cm2_per_Vs, 1e-6);
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+START_TEST(sweep_lengths_change)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    sl_fit_params p = { 2.0, 1200.0, 1.5e11, 900.0 };
+    double vg[N_SWEEP], r[N_SWEEP];
+    const size_t lengths[] = { 41, 201, 81, 201 };
+    for (size_t t = 0; t < 4; t++) {
+        size_t n = lengths[t];
+        for (size_t i = 0; i < n; i++) {
+            vg[i] = VG_MIN_V + (VG_MAX_V - VG_MIN_V) * (double)i / (double)(n - 1);
+            r[i] = sl_fit_model_ohm(&p, &cfg, vg[i]);
+        }
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, n), SL_OK);
+        ck_assert_int_eq(res.cls, SL_FIT_OK);
+        ck_assert_double_eq_tol(res.p.cnp_V, 2.0, 1e-6);
+    }
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+START_TEST(bad_input)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    for (size_t i = 0; i < N_SWEEP; i++)
+        r[i] = 1000.0;
+    sl_fit_result res;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, SL_FIT_MIN_POINTS - 1), SL_EINPUT);
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, 0), SL_EINPUT);
+    vg[3] = NAN;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_EINPUT);
+    for (size_t i = 0; i < N_SWEEP; i++)
+        vg[i] = 1.0;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_EINPUT);
+    ck_assert_ptr_null(sl_fit_workspace_new(3));
+    sl_fit_workspace *small = sl_fit_workspace_new(10);
+    sweep_voltages(vg);
+    ck_assert_int_eq(sl_fit_sweep(&res, small, &cfg, vg, r, 11), SL_EINPUT);
+    sl_fit_workspace_free(small);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+static Suite *fit_suite(void)
+{
+    Suite *s = suite_create("fit");
+    TCase *tc = tcase_create("fit");
+    tcase_add_test(tc, model_matches_hand_value);
+    tcase_add_test(tc, class_names_round_trip);
+    tcase_add_test(tc, noise_free_recovers_exactly);
+    tcase_add_test(tc, noisy_population_recovered);
+    tcase_add_test(tc, short_device);
+    tcase_add_test(tc, open_device);
+    tcase_add_test(tc, cnp_outside_sweep);
+    tcase_add_test(tc, noise_only_is_not_fitted);
+    tcase_add_test(tc, unsorted_points_same_result);
+    tcase_add_test(tc, sweep_lengths_change);
+    tcase_add_test(tc, bad_input);
+    suite_add_tcase(s, tc);
+    return s;
+}
+
+int main(void) { return sl_test_main(fit_suite()); }
