@@ -39,7 +39,7 @@ sl_status sl_layout_sample_size(size_t *n_out, double shift_V, double sigma_V, d
         !(power > 0.0 && power < 1.0) || !isfinite(shift_V) || !isfinite(sigma_V))
         return SL_EINPUT;
     double z = gsl_cdf_ugaussian_Pinv(1.0 - alpha / 2.0) + gsl_cdf_ugaussian_Pinv(power);
-    size_t n = 0;
+    size_t n = 0, before = 0;
     if (round_up(&n, devices_for(z, shift_V, sigma_V)) != SL_OK)
         return SL_ENUM;
     for (int i = 0; i < MAX_REFINEMENTS; i++) {
@@ -48,10 +48,12 @@ sl_status sl_layout_sample_size(size_t *n_out, double shift_V, double sigma_V, d
         size_t next = 0;
         if (round_up(&next, devices_for(t, shift_V, sigma_V)) != SL_OK)
             return SL_ENUM;
-        if (next == n) {
-            *n_out = n;
+        if (next == n || next == before) {
+            /* settled, or rounding flips between two values: keep the larger */
+            *n_out = next > n ? next : n;
             return SL_OK;
         }
+        before = n;
         n = next;
     }
     return SL_ENUM;

@@ -60,7 +60,8 @@ long sl_layout_split_of_wafer(const sl_layout *layout, const char *wafer);
  * devices scatter with sigma_V (DESIGN.md section 3):
  *   n = 2 sigma^2 (z_{1-alpha/2} + z_{1-power})^2 / shift^2,
  * then refined with Student t quantiles at df = 2 (n - 1) until n (rounded up)
- * is stable; at least 2. Domain: shift_V > 0, sigma_V > 0, 0 < alpha < 1,
+ * is stable (if rounding makes it alternate between two values, the larger);
+ * at least 2. Domain: shift_V > 0, sigma_V > 0, 0 < alpha < 1,
  * 0 < power < 1. Returns SL_OK, SL_EINPUT outside the domain, SL_ENUM if the
  * iteration does not settle or n exceeds 1e9. */
 sl_status sl_layout_sample_size(size_t *n_out, double shift_V, double sigma_V, double alpha,
