@@ -78,6 +78,12 @@ int cli_print_help(const char *text);
 /* Unknown option or missing argument: one line with a hint; returns 2. */
 int cli_bad_option(const char *command, const char *arg);
 
+/* The treatment names of a plan's split into names (at most max); returns
+ * how many. The strings belong to the plan. */
+struct sl_plan;
+int cli_split_treatment_names(const struct sl_plan *plan, size_t split, const char **names,
+                              size_t max);
+
 /* Reset getopt state so a command can be called more than once in a process. */
 void cli_reset_getopt(void);
 

@@ -11,6 +11,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "splitlot/plan.h"
+
 const char cli_safety_caution[] =
     "caution: gate bias near breakdown destroys devices and doping treatments can be "
     "hazardous;\nthese figures are estimates, not sign-off: follow your site's safety "
@@ -110,4 +112,13 @@ void cli_reset_getopt(void)
 {
     optind = 0; /* glibc: 0 re-initialises the scanner completely */
     opterr = 0;
+}
+
+int cli_split_treatment_names(const sl_plan *plan, size_t split, const char **names, size_t max)
+{
+    const sl_plan_split *s = &plan->splits[split];
+    size_t n = s->n_treatments < max ? s->n_treatments : max;
+    for (size_t i = 0; i < n; i++)
+        names[i] = plan->treatments[s->treatments[i]].name;
+    return (int)n;
 }

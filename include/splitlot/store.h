@@ -1,0 +1,124 @@
+/* SPDX-License-Identifier: MIT
+ * The embedded SQLite store: opening with migrations (PRAGMA user_version),
+ * WAL, foreign keys and a busy timeout; one transaction per command; and the
+ * reads and writes of lots, plan revisions, predictions, devices and sweeps.
+ * All SQL of splitlot lives here; other modules see plain structs.
+ */
+#ifndef SPLITLOT_STORE_H
+#define SPLITLOT_STORE_H
+
+#include <stddef.h>
+
+#include "splitlot/error.h"
+#include "splitlot/layout.h"
+#include "splitlot/plan.h"
+#include "splitlot/predict.h"
+
+typedef struct sl_store sl_store;
+
+/* Schema version this build writes (number of db/NNN_*.sql migrations). */
+int sl_store_schema_version(void);
+
+/* Open (creating if needed) and migrate the database at path. A database
+ * written by a newer splitlot is refused. Returns SL_OK, SL_EDB with a message
+ * naming the file (unreadable, read-only for a needed migration, not a
+ * database, too new). */
+sl_status sl_store_open(sl_store **out, const char *path, sl_diag *diag);
+void sl_store_close(sl_store *store);
+
+/* One write transaction per command: BEGIN IMMEDIATE (waits up to the busy
+ * timeout for other writers), COMMIT, ROLLBACK. */
+sl_status sl_store_begin(sl_store *store, sl_diag *diag);
+sl_status sl_store_commit(sl_store *store, sl_diag *diag);
+void sl_store_rollback(sl_store *store);
+
+/* Save a validated plan, its layout and predictions under the plan's lot.
+ * Same text as the newest revision: nothing is written, *created = 0.
+ * Otherwise a new revision (1, 2, ...) is added, *created = 1. Call inside a
+ * transaction. */
+sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
+                             const sl_plan *plan, const sl_layout *layout,
+                             const sl_prediction *predictions, size_t n_predictions,
+                             sl_diag *diag);
+
+/* The newest plan revision of a lot. */
+typedef struct {
+    long lot_id;
+    long revision_id;
+    int revision;
+    char *lot;
+    char *plan_text;     /* malloc'd */
+    char *plan_name;     /* file name the plan was read from */
+    char *created_utc;
+} sl_store_lot;
+
+/* SL_ENOTFOUND (with a message listing known lots) when the lot is absent. */
+sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
+                            sl_diag *diag);
+void sl_store_lot_clear(sl_store_lot *lot);
+
+/* Names of all lots in creation order (malloc'd array of malloc'd strings). */
+sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_diag *diag);
+void sl_store_free_names(char **names, size_t count);
+
+/* Wafer id (row id) of a wafer name in a revision; SL_ENOTFOUND if absent. */
+sl_status sl_store_wafer_id(sl_store *store, long *wafer_id, long revision_id,
+                            const char *wafer);
+
+/* A measured device to insert. NaN numbers are stored as NULL. */
+typedef struct {
+    long wafer_id;
+    const char *name;
+    long die_x, die_y;
+    const char *source;       /* "results" or "sweeps" */
+    const char *fit_class;    /* "ok", "unmeasured", or a fit class name */
+    double temperature_K;
+    double cnp_V, cnp_sigma_V;
+    double mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs;
+    double n0_per_cm2, n0_sigma_per_cm2;
+    double r_contact_ohm, r_contact_sigma_ohm;
+    double rel_rms, r_squared;
+    const double *vg_V;       /* raw sweep, or NULL */
+    const double *r_ohm;
+    size_t n_points;
+} sl_store_device;
+
+/* Insert a device (and its packed sweep); *device_id gets its row id (may be
+ * NULL). A device already present for the lot and wafer gives SL_EINPUT
+ * "duplicate device". Inside a transaction. */
+sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
+                                 const sl_store_device *dev, sl_diag *diag);
+
+/* Replace the extraction columns and the sweep of a stored device (used when
+ * an import finds more points of a device further down the file). */
+sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store_device *dev,
+                                 sl_diag *diag);
+
+/* Scratch space of one import for rows of a device that come back after other
+ * devices' rows (a temporary table, gone with the connection): stage points
+ * under a key, read them back in the order staged. */
+sl_status sl_store_stage_points(sl_store *store, long key, const double *vg_V,
+                                const double *r_ohm, size_t n, sl_diag *diag);
+sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
+                                 long key, sl_diag *diag);
+
+/* Number of devices stored for a lot. */
+sl_status sl_store_count_devices(sl_store *store, long *count, long lot_id, sl_diag *diag);
+
+/* Remove a lot's measurements (devices, sweeps) for `ingest --replace`. */
+sl_status sl_store_delete_measurements(sl_store *store, long lot_id, sl_diag *diag);
+
+/* Record a finished import (kind "results" or "sweeps"). */
+sl_status sl_store_record_import(sl_store *store, long lot_id, const char *kind,
+                                 const char *source_name, long rows, long devices,
+                                 sl_diag *diag);
+
+/* Raw sweep of a stored device back from its packed blob: malloc'd arrays. */
+sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
+                              long device_id, sl_diag *diag);
+
+/* Low-level access for the analysis queries of this module's other files. */
+struct sqlite3;
+struct sqlite3 *sl_store_db(sl_store *store);
+
+#endif

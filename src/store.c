@@ -1,0 +1,506 @@
+/* SPDX-License-Identifier: MIT
+ * SQLite store (see include/splitlot/store.h): connection set-up, forward
+ * migrations from the compiled-in db scripts, transactions, plan revisions with
+ * predictions, and device/sweep rows. Analysis reads live in store_read.c.
+ */
+#include "splitlot/store.h"
+
+#include <math.h>
+#include <stdint.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include <sqlite3.h>
+
+#include "store_internal.h"
+
+extern const char *const sl_schema_migrations[];
+extern const size_t sl_schema_migration_count;
+
+#define SL_BUSY_TIMEOUT_MS 30000
+
+int sl_store_schema_version(void) { return (int)sl_schema_migration_count; }
+
+sqlite3 *sl_store_db(sl_store *store) { return store->db; }
+
+sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what)
+{
+    int code = sqlite3_extended_errcode(store->db);
+    const char *msg = sqlite3_errmsg(store->db);
+    if ((code & 0xff) == SQLITE_READONLY)
+        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
+                    "database is read-only; cannot %s", what);
+    else if ((code & 0xff) == SQLITE_FULL)
+        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
+                    "disk full while trying to %s; nothing was changed", what);
+    else if ((code & 0xff) == SQLITE_BUSY)
+        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
+                    "database is busy (another splitlot is writing); cannot %s", what);
+    else
+        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0, "cannot %s: %s", what, msg);
+    return SL_EDB;
+}
+
+sl_status sl_store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what)
+{
+    if (sqlite3_exec(store->db, sql, NULL, NULL, NULL) != SQLITE_OK)
+        return sl_store_db_error(store, diag, what);
+    return SL_OK;
+}
+
+sl_status sl_store_prepare(sl_store *store, sqlite3_stmt **stmt, const char *sql, sl_diag *diag)
+{
+    if (sqlite3_prepare_v2(store->db, sql, -1, stmt, NULL) != SQLITE_OK)
+        return sl_store_db_error(store, diag, "prepare a query");
+    return SL_OK;
+}
+
+void sl_store_now_utc(char out[32])
+{
+    time_t now = time(NULL);
+    struct tm tm;
+    gmtime_r(&now, &tm);
+    strftime(out, 32, "%Y-%m-%dT%H:%M:%SZ", &tm);
+}
+
+static int read_user_version(sl_store *store)
+{
+    sqlite3_stmt *st = NULL;
+    int v = -1;
+    if (sqlite3_prepare_v2(store->db, "PRAGMA user_version", -1, &st, NULL) == SQLITE_OK &&
+        sqlite3_step(st) == SQLITE_ROW)
+        v = sqlite3_column_int(st, 0);
+    sqlite3_finalize(st);
+    return v;
+}
+
+static sl_status apply_migration(sl_store *store, size_t index, sl_diag *diag)
+{
+    char pragma[64];
+    snprintf(pragma, sizeof pragma, "PRAGMA user_version = %zu", index + 1);
+    sl_status st = sl_store_exec(store, "BEGIN IMMEDIATE", diag, "start a schema migration");
+    if (st == SL_OK)
+        st = sl_store_exec(store, sl_schema_migrations[index], diag, "migrate the schema");
+    if (st == SL_OK)
+        st = sl_store_exec(store, pragma, diag, "record the schema version");
+    if (st == SL_OK)
+        st = sl_store_exec(store, "COMMIT", diag, "commit a schema migration");
+    if (st != SL_OK)
+        sqlite3_exec(store->db, "ROLLBACK", NULL, NULL, NULL);
+    return st;
+}
+
+static sl_status migrate(sl_store *store, sl_diag *diag)
+{
+    int v = read_user_version(store);
+    if (v < 0)
+        return sl_store_db_error(store, diag, "read the schema version (not a splitlot database?)");
+    if ((size_t)v > sl_schema_migration_count) {
+        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
+                    "database schema version %d is newer than this splitlot (%zu); upgrade splitlot",
+                    v, sl_schema_migration_count);
+        return SL_EDB;
+    }
+    for (size_t i = (size_t)v; i < sl_schema_migration_count; i++) {
+        sl_status st = apply_migration(store, i, diag);
+        if (st != SL_OK)
+            return st;
+    }
+    return SL_OK;
+}
+
+static sl_status configure(sl_store *store, sl_diag *diag)
+{
+    sqlite3_busy_timeout(store->db, SL_BUSY_TIMEOUT_MS);
+    sqlite3_extended_result_codes(store->db, 1);
+    sl_status st = sl_store_exec(store, "PRAGMA foreign_keys = ON", diag, "enable foreign keys");
+    if (st != SL_OK)
+        return st;
+    /* WAL needs a write the first time only; a read-only file keeps its mode */
+    if (!sqlite3_db_readonly(store->db, "main")) {
+        st = sl_store_exec(store, "PRAGMA journal_mode = WAL", diag, "switch to WAL");
+        if (st == SL_OK)
+            st = sl_store_exec(store, "PRAGMA synchronous = FULL", diag, "set synchronous");
+    }
+    return st;
+}
+
+sl_status sl_store_open(sl_store **out, const char *path, sl_diag *diag)
+{
+    *out = NULL;
+    sl_store *store = calloc(1, sizeof *store);
+    if (!store)
+        return SL_ENOMEM;
+    store->path = strdup(path);
+    int rc = sqlite3_open_v2(path, &store->db, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE, NULL);
+    sl_status st = SL_OK;
+    if (rc != SQLITE_OK) {
+        sl_diag_add(diag, SL_SEV_ERROR, path, 0, 0, "cannot open database: %s",
+                    store->db ? sqlite3_errmsg(store->db) : "out of memory");
+        st = SL_EDB;
+    }
+    if (st == SL_OK)
+        st = configure(store, diag);
+    if (st == SL_OK)
+        st = migrate(store, diag);
+    if (st != SL_OK) {
+        sl_store_close(store);
+        return st;
+    }
+    *out = store;
+    return SL_OK;
+}
+
+void sl_store_close(sl_store *store)
+{
+    if (!store)
+        return;
+    sqlite3_finalize(store->insert_device);
+    sqlite3_finalize(store->insert_sweep);
+    sqlite3_finalize(store->find_wafer);
+    sqlite3_finalize(store->stage_point);
+    sqlite3_close(store->db);
+    free(store->path);
+    free(store);
+}
+
+sl_status sl_store_begin(sl_store *store, sl_diag *diag)
+{
+    return sl_store_exec(store, "BEGIN IMMEDIATE", diag, "start a transaction");
+}
+
+sl_status sl_store_commit(sl_store *store, sl_diag *diag)
+{
+    sl_status st = sl_store_exec(store, "COMMIT", diag, "commit");
+    if (st != SL_OK)
+        sl_store_rollback(store);
+    return st;
+}
+
+void sl_store_rollback(sl_store *store)
+{
+    if (!sqlite3_get_autocommit(store->db))
+        sqlite3_exec(store->db, "ROLLBACK", NULL, NULL, NULL);
+}
+
+/* ---- binding helpers ---- */
+
+void sl_store_bind_real_or_null(sqlite3_stmt *st, int index, double v)
+{
+    if (isfinite(v))
+        sqlite3_bind_double(st, index, v);
+    else
+        sqlite3_bind_null(st, index);
+}
+
+double sl_store_column_real_or_nan(sqlite3_stmt *st, int col)
+{
+    return sqlite3_column_type(st, col) == SQLITE_NULL ? NAN : sqlite3_column_double(st, col);
+}
+
+/* Run a prepared statement to completion (no rows expected) and reset it. */
+sl_status sl_store_step_done(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what)
+{
+    int rc = sqlite3_step(st);
+    sqlite3_reset(st);
+    if (rc != SQLITE_DONE)
+        return sl_store_db_error(store, diag, what);
+    return SL_OK;
+}
+
+/* ---- lots and plan revisions ---- */
+
+static sl_status lot_id_of(sl_store *store, long *lot_id, const char *lot, int create, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st, "SELECT id FROM lot WHERE name = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_text(st, 1, lot, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(st);
+    *lot_id = rc == SQLITE_ROW ? (long)sqlite3_column_int64(st, 0) : 0;
+    sqlite3_finalize(st);
+    if (rc == SQLITE_ROW)
+        return SL_OK;
+    if (rc != SQLITE_DONE)
+        return sl_store_db_error(store, diag, "look up the lot");
+    if (!create)
+        return SL_ENOTFOUND;
+    char now[32];
+    sl_store_now_utc(now);
+    s = sl_store_prepare(store, &st, "INSERT INTO lot (name, created_utc) VALUES (?1, ?2)", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_text(st, 1, lot, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(st, 2, now, -1, SQLITE_TRANSIENT);
+    s = sl_store_step_done(store, st, diag, "add the lot");
+    sqlite3_finalize(st);
+    *lot_id = (long)sqlite3_last_insert_rowid(store->db);
+    return s;
+}
+
+/* Newest revision number and hash of a lot (0 and "" when none). */
+static sl_status newest_revision(sl_store *store, int *revision, char hash[17], long lot_id,
+                                 sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT revision, plan_hash FROM plan_revision WHERE lot_id = ?1 "
+        "ORDER BY revision DESC LIMIT 1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, lot_id);
+    *revision = 0;
+    hash[0] = '\0';
+    int rc = sqlite3_step(st);
+    if (rc == SQLITE_ROW) {
+        *revision = sqlite3_column_int(st, 0);
+        snprintf(hash, 17, "%s", (const char *)sqlite3_column_text(st, 1));
+    }
+    sqlite3_finalize(st);
+    return (rc == SQLITE_ROW || rc == SQLITE_DONE) ? SL_OK
+                                                  : sl_store_db_error(store, diag, "read revisions");
+}
+
+static sl_status insert_revision(sl_store *store, long *revision_id, long lot_id, int revision,
+                                 const char *hash, const sl_plan *plan, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "INSERT INTO plan_revision (lot_id, revision, plan_hash, plan_text, plan_name, created_utc) "
+        "VALUES (?1, ?2, ?3, ?4, ?5, ?6)", diag);
+    if (s != SL_OK)
+        return s;
+    char now[32];
+    sl_store_now_utc(now);
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_int(st, 2, revision);
+    sqlite3_bind_text(st, 3, hash, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(st, 4, plan->text, (int)plan->text_len, SQLITE_TRANSIENT);
+    sqlite3_bind_text(st, 5, plan->path ? plan->path : "", -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(st, 6, now, -1, SQLITE_TRANSIENT);
+    s = sl_store_step_done(store, st, diag, "store the plan revision");
+    sqlite3_finalize(st);
+    *revision_id = (long)sqlite3_last_insert_rowid(store->db);
+    return s;
+}
+
+/* Treatment names of a split joined with ';' into buf. */
+static void join_treatments(char *buf, size_t size, const sl_plan *plan, const sl_plan_split *s)
+{
+    size_t k = 0;
+    buf[0] = '\0';
+    for (size_t i = 0; i < s->n_treatments && k < size; i++)
+        k += (size_t)snprintf(buf + k, size - k, "%s%s", i ? ";" : "",
+                              plan->treatments[s->treatments[i]].name);
+}
+
+static sl_status insert_splits(sl_store *store, long *split_ids, long revision_id,
+                               const sl_plan *plan, const sl_layout *layout, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "INSERT INTO split (revision_id, split_index, name, dielectric, treatments, "
+        "planned_doping_per_cm2, planned_doping_sigma_per_cm2, devices_needed, devices_available) "
+        "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)", diag);
+    for (size_t i = 0; s == SL_OK && i < plan->n_splits; i++) {
+        const sl_plan_split *sp = &plan->splits[i];
+        char treatments[4096];
+        join_treatments(treatments, sizeof treatments, plan, sp);
+        sl_est doping = sl_plan_split_doping_per_cm2(plan, i);
+        sqlite3_bind_int64(st, 1, revision_id);
+        sqlite3_bind_int64(st, 2, (sqlite3_int64)i);
+        sqlite3_bind_text(st, 3, sp->name, -1, SQLITE_TRANSIENT);
+        sqlite3_bind_text(st, 4, plan->dielectrics[sp->dielectric].name, -1, SQLITE_TRANSIENT);
+        sqlite3_bind_text(st, 5, treatments, -1, SQLITE_TRANSIENT);
+        sqlite3_bind_double(st, 6, doping.val);
+        sqlite3_bind_double(st, 7, doping.sigma);
+        sqlite3_bind_int64(st, 8, (sqlite3_int64)layout->splits[i].devices_needed);
+        sqlite3_bind_double(st, 9, layout->splits[i].devices_available);
+        s = sl_store_step_done(store, st, diag, "store a split");
+        split_ids[i] = (long)sqlite3_last_insert_rowid(store->db);
+    }
+    sqlite3_finalize(st);
+    return s;
+}
+
+static sl_status insert_wafers(sl_store *store, const long *split_ids, long revision_id,
+                               const sl_layout *layout, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "INSERT INTO wafer (revision_id, name, split_id, process_order) VALUES (?1, ?2, ?3, ?4)",
+        diag);
+    for (size_t i = 0; s == SL_OK && i < layout->n_wafers; i++) {
+        const sl_layout_wafer *w = &layout->wafers[i];
+        sqlite3_bind_int64(st, 1, revision_id);
+        sqlite3_bind_text(st, 2, w->wafer, -1, SQLITE_TRANSIENT);
+        if (w->split >= 0) {
+            sqlite3_bind_int64(st, 3, split_ids[w->split]);
+            sqlite3_bind_int64(st, 4, (sqlite3_int64)w->process_order);
+        } else {
+            sqlite3_bind_null(st, 3);
+            sqlite3_bind_null(st, 4);
+        }
+        s = sl_store_step_done(store, st, diag, "store a wafer");
+    }
+    sqlite3_finalize(st);
+    return s;
+}
+
+static void bind_prediction(sqlite3_stmt *st, long split_id, const sl_prediction *p)
+{
+    double values[] = {
+        p->temperature_K, p->gate_capacitance_F_per_m2 * SL_NF_CM2_PER_F_M2, p->eot_nm,
+        p->doping_per_cm2.val, p->doping_per_cm2.sigma, p->cnp_V.val, p->cnp_V.sigma,
+        p->gate_min_V, p->gate_max_V, p->max_electron_density_per_cm2,
+        p->max_hole_density_per_cm2, p->fermi_at_gate_min_eV, p->fermi_at_gate_max_eV,
+        p->gate_efficiency_per_cm2_V, p->thermal_floor_per_cm2, p->thermal_floor_V,
+        p->disorder_crossover_K,
+    };
+    sqlite3_bind_int64(st, 1, split_id);
+    for (int i = 0; i < (int)(sizeof values / sizeof values[0]); i++)
+        sqlite3_bind_double(st, i + 2, values[i]);
+    sqlite3_bind_int(st, 19, p->cnp_in_range);
+}
+
+static sl_status insert_predictions(sl_store *store, const long *split_ids,
+                                    const sl_prediction *pred, size_t n, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "INSERT INTO prediction VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, "
+        "?13, ?14, ?15, ?16, ?17, ?18, ?19)", diag);
+    for (size_t i = 0; s == SL_OK && i < n; i++) {
+        bind_prediction(st, split_ids[pred[i].split], &pred[i]);
+        s = sl_store_step_done(store, st, diag, "store a prediction");
+    }
+    sqlite3_finalize(st);
+    return s;
+}
+
+sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
+                             const sl_plan *plan, const sl_layout *layout,
+                             const sl_prediction *predictions, size_t n_predictions,
+                             sl_diag *diag)
+{
+    char hash[17], newest_hash[17];
+    sl_plan_hash_hex(plan, hash);
+    long lot_id = 0, revision_id = 0;
+    *created = 0;
+    sl_status s = lot_id_of(store, &lot_id, plan->lot, 1, diag);
+    if (s == SL_OK)
+        s = newest_revision(store, revision, newest_hash, lot_id, diag);
+    if (s != SL_OK || strcmp(hash, newest_hash) == 0)
+        return s;
+    (*revision)++;
+    long *split_ids = calloc(plan->n_splits ? plan->n_splits : 1, sizeof *split_ids);
+    if (!split_ids)
+        return SL_ENOMEM;
+    s = insert_revision(store, &revision_id, lot_id, *revision, hash, plan, diag);
+    if (s == SL_OK)
+        s = insert_splits(store, split_ids, revision_id, plan, layout, diag);
+    if (s == SL_OK)
+        s = insert_wafers(store, split_ids, revision_id, layout, diag);
+    if (s == SL_OK)
+        s = insert_predictions(store, split_ids, predictions, n_predictions, diag);
+    free(split_ids);
+    *created = s == SL_OK;
+    return s;
+}
+
+static char *column_strdup(sqlite3_stmt *st, int col)
+{
+    const unsigned char *t = sqlite3_column_text(st, col);
+    return strdup(t ? (const char *)t : "");
+}
+
+static void list_known_lots(sl_store *store, const char *lot, sl_diag *diag)
+{
+    char **names = NULL;
+    size_t n = 0;
+    char buf[512] = "";
+    size_t k = 0;
+    if (sl_store_list_lots(store, &names, &n, NULL) == SL_OK)
+        for (size_t i = 0; i < n && k < sizeof buf - 64; i++)
+            k += (size_t)snprintf(buf + k, sizeof buf - k, "%s'%s'", i ? ", " : "", names[i]);
+    if (n)
+        sl_diag_error(diag, "lot '%s' is not in the database (known lots: %s)", lot, buf);
+    else
+        sl_diag_error(diag, "lot '%s' is not in the database (it has no lots yet; run "
+                            "'splitlot predict PLAN' first)", lot);
+    sl_store_free_names(names, n);
+}
+
+sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot, sl_diag *diag)
+{
+    memset(out, 0, sizeof *out);
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT l.id, r.id, r.revision, l.name, r.plan_text, r.plan_name, r.created_utc "
+        "FROM lot l JOIN plan_revision r ON r.lot_id = l.id WHERE l.name = ?1 "
+        "ORDER BY r.revision DESC LIMIT 1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_text(st, 1, lot, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(st);
+    if (rc == SQLITE_ROW) {
+        out->lot_id = (long)sqlite3_column_int64(st, 0);
+        out->revision_id = (long)sqlite3_column_int64(st, 1);
+        out->revision = sqlite3_column_int(st, 2);
+        out->lot = column_strdup(st, 3);
+        out->plan_text = column_strdup(st, 4);
+        out->plan_name = column_strdup(st, 5);
+        out->created_utc = column_strdup(st, 6);
+    }
+    sqlite3_finalize(st);
+    if (rc == SQLITE_ROW)
+        return (out->lot && out->plan_text && out->plan_name && out->created_utc) ? SL_OK : SL_ENOMEM;
+    if (rc != SQLITE_DONE)
+        return sl_store_db_error(store, diag, "look up the lot");
+    list_known_lots(store, lot, diag);
+    return SL_ENOTFOUND;
+}
+
+void sl_store_lot_clear(sl_store_lot *lot)
+{
+    free(lot->lot);
+    free(lot->plan_text);
+    free(lot->plan_name);
+    free(lot->created_utc);
+    memset(lot, 0, sizeof *lot);
+}
+
+sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_diag *diag)
+{
+    *names = NULL;
+    *count = 0;
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st, "SELECT name FROM lot ORDER BY id", diag);
+    if (s != SL_OK)
+        return s;
+    size_t cap = 0;
+    while (sqlite3_step(st) == SQLITE_ROW) {
+        if (*count == cap) {
+            cap = cap ? 2 * cap : 16;
+            char **grown = realloc(*names, cap * sizeof **names);
+            if (!grown) {
+                s = SL_ENOMEM;
+                break;
+            }
+            *names = grown;
+        }
+        (*names)[(*count)++] = column_strdup(st, 0);
+    }
+    sqlite3_finalize(st);
+    return s;
+}
+
+void sl_store_free_names(char **names, size_t count)
+{
+    for (size_t i = 0; i < count; i++)
+        free(names[i]);
+    free(names);
+}

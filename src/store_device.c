@@ -1,0 +1,315 @@
+/* SPDX-License-Identifier: MIT
+ * Device and sweep rows of the store: insertion on the import hot path with
+ * cached statements, the packed little-endian sweep blob, and removal of a
+ * lot's measurements for a replacing import.
+ */
+#include <math.h>
+#include <stdint.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "store_internal.h"
+
+sl_status sl_store_wafer_id(sl_store *store, long *wafer_id, long revision_id, const char *wafer)
+{
+    if (!store->find_wafer &&
+        sqlite3_prepare_v2(store->db, "SELECT id FROM wafer WHERE revision_id = ?1 AND name = ?2",
+                           -1, &store->find_wafer, NULL) != SQLITE_OK)
+        return SL_EDB;
+    sqlite3_bind_int64(store->find_wafer, 1, revision_id);
+    sqlite3_bind_text(store->find_wafer, 2, wafer, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(store->find_wafer);
+    if (rc == SQLITE_ROW)
+        *wafer_id = (long)sqlite3_column_int64(store->find_wafer, 0);
+    sqlite3_reset(store->find_wafer);
+    return rc == SQLITE_ROW ? SL_OK : (rc == SQLITE_DONE ? SL_ENOTFOUND : SL_EDB);
+}
+
+/* Sweeps are kept as little-endian IEEE 754 doubles, vg then r per point,
+ * whatever the host's byte order. */
+static void put_le_double(unsigned char *p, double v)
+{
+    uint64_t bits;
+    memcpy(&bits, &v, sizeof bits);
+    for (int i = 0; i < 8; i++)
+        p[i] = (unsigned char)(bits >> (8 * i));
+}
+
+static double get_le_double(const unsigned char *p)
+{
+    uint64_t bits = 0;
+    for (int i = 0; i < 8; i++)
+        bits |= (uint64_t)p[i] << (8 * i);
+    double v;
+    memcpy(&v, &bits, sizeof v);
+    return v;
+}
+
+unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n)
+{
+    unsigned char *blob = malloc(n ? n * 16 : 1);
+    for (size_t i = 0; blob && i < n; i++) {
+        put_le_double(blob + 16 * i, vg_V[i]);
+        put_le_double(blob + 16 * i + 8, r_ohm[i]);
+    }
+    return blob;
+}
+
+static sl_status insert_sweep(sl_store *store, long device_id, const sl_store_device *dev,
+                              sl_diag *diag)
+{
+    if (!store->insert_sweep &&
+        sl_store_prepare(store, &store->insert_sweep,
+                         "INSERT OR REPLACE INTO sweep (device_id, n_points, points) "
+                         "VALUES (?1, ?2, ?3)", diag) != SL_OK)
+        return SL_EDB;
+    unsigned char *blob = sl_store_pack_sweep(dev->vg_V, dev->r_ohm, dev->n_points);
+    if (!blob)
+        return SL_ENOMEM;
+    sqlite3_stmt *st = store->insert_sweep;
+    sqlite3_bind_int64(st, 1, device_id);
+    sqlite3_bind_int64(st, 2, (sqlite3_int64)dev->n_points);
+    sqlite3_bind_blob(st, 3, blob, (int)(dev->n_points * 16), free);
+    return sl_store_step_done(store, st, diag, "store a sweep");
+}
+
+static void bind_device(sqlite3_stmt *st, long lot_id, const sl_store_device *d)
+{
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_int64(st, 2, d->wafer_id);
+    sqlite3_bind_text(st, 3, d->name, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int64(st, 4, d->die_x);
+    sqlite3_bind_int64(st, 5, d->die_y);
+    sqlite3_bind_text(st, 6, d->source, -1, SQLITE_STATIC);
+    sqlite3_bind_text(st, 7, d->fit_class, -1, SQLITE_TRANSIENT);
+    double values[] = { d->temperature_K, d->cnp_V, d->cnp_sigma_V, d->mobility_cm2_per_Vs,
+                        d->mobility_sigma_cm2_per_Vs, d->n0_per_cm2, d->n0_sigma_per_cm2,
+                        d->r_contact_ohm, d->r_contact_sigma_ohm, d->rel_rms, d->r_squared };
+    for (int i = 0; i < (int)(sizeof values / sizeof values[0]); i++)
+        sl_store_bind_real_or_null(st, 8 + i, values[i]);
+    if (d->vg_V)
+        sqlite3_bind_int64(st, 19, (sqlite3_int64)d->n_points);
+    else
+        sqlite3_bind_null(st, 19);
+}
+
+sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
+                                 const sl_store_device *dev, sl_diag *diag)
+{
+    if (!store->insert_device &&
+        sl_store_prepare(store, &store->insert_device,
+            "INSERT INTO device (lot_id, wafer_id, name, die_x, die_y, source, fit_class, "
+            "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, "
+            "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, "
+            "r_squared, n_points) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, "
+            "?13, ?14, ?15, ?16, ?17, ?18, ?19)", diag) != SL_OK)
+        return SL_EDB;
+    sqlite3_stmt *st = store->insert_device;
+    bind_device(st, lot_id, dev);
+    int rc = sqlite3_step(st);
+    sqlite3_reset(st);
+    if (rc == SQLITE_CONSTRAINT || (rc & 0xff) == SQLITE_CONSTRAINT) {
+        sl_diag_error(diag, "duplicate device '%s' on its wafer", dev->name);
+        return SL_EINPUT;
+    }
+    if (rc != SQLITE_DONE)
+        return sl_store_db_error(store, diag, "store a device");
+    long id = (long)sqlite3_last_insert_rowid(store->db);
+    if (device_id)
+        *device_id = id;
+    if (!dev->vg_V || dev->n_points == 0)
+        return SL_OK;
+    return insert_sweep(store, id, dev, diag);
+}
+
+sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store_device *dev,
+                                 sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "UPDATE device SET fit_class = ?2, cnp_V = ?3, cnp_sigma_V = ?4, mobility_cm2_per_Vs = ?5, "
+        "mobility_sigma_cm2_per_Vs = ?6, n0_per_cm2 = ?7, n0_sigma_per_cm2 = ?8, "
+        "r_contact_ohm = ?9, r_contact_sigma_ohm = ?10, rel_rms = ?11, r_squared = ?12, "
+        "n_points = ?13 WHERE id = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, device_id);
+    sqlite3_bind_text(st, 2, dev->fit_class, -1, SQLITE_TRANSIENT);
+    double values[] = { dev->cnp_V, dev->cnp_sigma_V, dev->mobility_cm2_per_Vs,
+                        dev->mobility_sigma_cm2_per_Vs, dev->n0_per_cm2, dev->n0_sigma_per_cm2,
+                        dev->r_contact_ohm, dev->r_contact_sigma_ohm, dev->rel_rms, dev->r_squared };
+    for (int i = 0; i < (int)(sizeof values / sizeof values[0]); i++)
+        sl_store_bind_real_or_null(st, 3 + i, values[i]);
+    sqlite3_bind_int64(st, 13, (sqlite3_int64)dev->n_points);
+    s = sl_store_step_done(store, st, diag, "update a device");
+    sqlite3_finalize(st);
+    if (s == SL_OK && dev->vg_V)
+        s = insert_sweep(store, device_id, dev, diag);
+    return s;
+}
+
+static sl_status ensure_stage(sl_store *store, sl_diag *diag)
+{
+    if (store->has_stage)
+        return SL_OK;
+    sl_status s = sl_store_exec(store,
+        "CREATE TEMP TABLE IF NOT EXISTS stage (key INTEGER NOT NULL, vg_V REAL NOT NULL, "
+        "r_ohm REAL NOT NULL)", diag, "create the import scratch table");
+    if (s == SL_OK)
+        s = sl_store_exec(store, "CREATE INDEX IF NOT EXISTS temp.stage_by_key ON stage(key)",
+                          diag, "index the import scratch table");
+    if (s == SL_OK)
+        s = sl_store_prepare(store, &store->stage_point,
+                             "INSERT INTO temp.stage (key, vg_V, r_ohm) VALUES (?1, ?2, ?3)", diag);
+    store->has_stage = s == SL_OK;
+    return s;
+}
+
+sl_status sl_store_stage_points(sl_store *store, long key, const double *vg_V,
+                                const double *r_ohm, size_t n, sl_diag *diag)
+{
+    sl_status s = ensure_stage(store, diag);
+    for (size_t i = 0; s == SL_OK && i < n; i++) {
+        sqlite3_bind_int64(store->stage_point, 1, key);
+        sqlite3_bind_double(store->stage_point, 2, vg_V[i]);
+        sqlite3_bind_double(store->stage_point, 3, r_ohm[i]);
+        s = sl_store_step_done(store, store->stage_point, diag, "stage sweep points");
+    }
+    return s;
+}
+
+sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
+                                 long key, sl_diag *diag)
+{
+    *vg_V = *r_ohm = NULL;
+    *n = 0;
+    sqlite3_stmt *st = NULL;
+    sl_status s = ensure_stage(store, diag);
+    if (s == SL_OK)
+        s = sl_store_prepare(store, &st,
+                             "SELECT vg_V, r_ohm FROM temp.stage WHERE key = ?1 ORDER BY rowid", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, key);
+    size_t cap = 0;
+    while (s == SL_OK && sqlite3_step(st) == SQLITE_ROW) {
+        if (*n == cap) {
+            cap = cap ? 2 * cap : 256;
+            double *a = realloc(*vg_V, cap * sizeof *a), *b = a ? realloc(*r_ohm, cap * sizeof *b) : NULL;
+            if (a)
+                *vg_V = a;
+            if (!a || !b) {
+                s = SL_ENOMEM;
+                break;
+            }
+            *r_ohm = b;
+        }
+        (*vg_V)[*n] = sqlite3_column_double(st, 0);
+        (*r_ohm)[*n] = sqlite3_column_double(st, 1);
+        (*n)++;
+    }
+    sqlite3_finalize(st);
+    return s;
+}
+
+static sl_status count_query(sl_store *store, long *count, const char *sql, long id, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, id);
+    *count = sqlite3_step(st) == SQLITE_ROW ? (long)sqlite3_column_int64(st, 0) : 0;
+    sqlite3_finalize(st);
+    return SL_OK;
+}
+
+sl_status sl_store_count_devices(sl_store *store, long *count, long lot_id, sl_diag *diag)
+{
+    return count_query(store, count, "SELECT count(*) FROM device WHERE lot_id = ?1", lot_id, diag);
+}
+
+sl_status sl_store_delete_measurements(sl_store *store, long lot_id, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    static const char *const sql[] = {
+        "DELETE FROM sweep WHERE device_id IN (SELECT id FROM device WHERE lot_id = ?1)",
+        "DELETE FROM device WHERE lot_id = ?1",
+    };
+    for (int i = 0; i < 2; i++) {
+        sl_status s = sl_store_prepare(store, &st, sql[i], diag);
+        if (s != SL_OK)
+            return s;
+        sqlite3_bind_int64(st, 1, lot_id);
+        s = sl_store_step_done(store, st, diag, "remove the lot's measurements");
+        sqlite3_finalize(st);
+        if (s != SL_OK)
+            return s;
+    }
+    return SL_OK;
+}
+
+sl_status sl_store_record_import(sl_store *store, long lot_id, const char *kind,
+                                 const char *source_name, long rows, long devices,
+                                 sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "INSERT INTO import (lot_id, kind, source_name, rows, devices, created_utc) "
+        "VALUES (?1, ?2, ?3, ?4, ?5, ?6)", diag);
+    if (s != SL_OK)
+        return s;
+    char now[32];
+    sl_store_now_utc(now);
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_text(st, 2, kind, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(st, 3, source_name, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int64(st, 4, rows);
+    sqlite3_bind_int64(st, 5, devices);
+    sqlite3_bind_text(st, 6, now, -1, SQLITE_TRANSIENT);
+    s = sl_store_step_done(store, st, diag, "record the import");
+    sqlite3_finalize(st);
+    return s;
+}
+
+sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
+                              long device_id, sl_diag *diag)
+{
+    *vg_V = *r_ohm = NULL;
+    *n = 0;
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+                                   "SELECT n_points, points FROM sweep WHERE device_id = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, device_id);
+    if (sqlite3_step(st) != SQLITE_ROW) {
+        sqlite3_finalize(st);
+        return SL_ENOTFOUND;
+    }
+    size_t count = (size_t)sqlite3_column_int64(st, 0);
+    const unsigned char *blob = sqlite3_column_blob(st, 1);
+    size_t bytes = (size_t)sqlite3_column_bytes(st, 1);
+    if (bytes != count * 16 || (count && !blob)) {
+        sqlite3_finalize(st);
+        sl_diag_error(diag, "sweep of device %ld is damaged (%zu bytes for %zu points)", device_id,
+                      bytes, count);
+        return SL_EDB;
+    }
+    *vg_V = malloc((count ? count : 1) * sizeof(double));
+    *r_ohm = malloc((count ? count : 1) * sizeof(double));
+    if (!*vg_V || !*r_ohm) {
+        sqlite3_finalize(st);
+        free(*vg_V);
+        free(*r_ohm);
+        *vg_V = *r_ohm = NULL;
+        return SL_ENOMEM;
+    }
+    for (size_t i = 0; i < count; i++) {
+        (*vg_V)[i] = get_le_double(blob + 16 * i);
+        (*r_ohm)[i] = get_le_double(blob + 16 * i + 8);
+    }
+    *n = count;
+    sqlite3_finalize(st);
+    return SL_OK;
+}

@@ -1,0 +1,33 @@
+/* SPDX-License-Identifier: MIT
+ * Private parts of the store shared by its source files (store.c,
+ * store_device.c, store_read.c): the handle and small SQLite helpers.
+ */
+#ifndef SL_STORE_INTERNAL_H
+#define SL_STORE_INTERNAL_H
+
+#include <sqlite3.h>
+
+#include "splitlot/store.h"
+
+struct sl_store {
+    sqlite3 *db;
+    char *path;
+    sqlite3_stmt *insert_device; /* cached: the hot path of an import */
+    sqlite3_stmt *insert_sweep;
+    sqlite3_stmt *find_wafer;
+    sqlite3_stmt *stage_point;
+    int has_stage;               /* temp.stage created on this connection */
+};
+
+/* Add a located message for the connection's last error; returns SL_EDB. */
+sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what);
+sl_status sl_store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what);
+sl_status sl_store_prepare(sl_store *store, sqlite3_stmt **stmt, const char *sql, sl_diag *diag);
+sl_status sl_store_step_done(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what);
+void sl_store_bind_real_or_null(sqlite3_stmt *st, int index, double v);
+double sl_store_column_real_or_nan(sqlite3_stmt *st, int col);
+void sl_store_now_utc(char out[32]);
+/* Pack a sweep as little-endian doubles (vg, r per point); malloc'd. */
+unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n);
+
+#endif
