@@ -82,15 +82,17 @@ sl_status sl_chart_color_legend(sl_chart_buf *buf, const sl_chart_rect *bar, dou
         steps = 9;
     if (steps < 2)
         steps = 2;
+    if (steps > 256) /* finer than a screen can show */
+        steps = 256;
     double w = bar->width_px / (double)steps;
     sl_chart_buf_append(buf, "<g class=\"color-legend\">");
     sl_chart_text(buf, bar->x_px, bar->y_px - 4.0, SL_CHART_ANCHOR_START, "legend-title", title);
     for (size_t i = 0; i < steps; i++) {
-        double value = -max_abs + (i + 0.5) * (2.0 * max_abs / (double)steps);
+        double value = -max_abs + ((double)i + 0.5) * (2.0 * max_abs / (double)steps);
         char hex[8];
         sl_chart_diverging_hex(hex, value, max_abs);
         sl_chart_buf_printf(buf, "<rect x=\"%s\" y=\"%s\" width=\"%s\" height=\"%s\" fill=\"%s\"/>",
-                            sl_chart_px_text(bar->x_px + i * w).s, sl_chart_px_text(bar->y_px).s,
+                            sl_chart_px_text(bar->x_px + (double)i * w).s, sl_chart_px_text(bar->y_px).s,
                             sl_chart_px_text(w + 0.3).s, sl_chart_px_text(bar->height_px).s, hex);
     }
     double label_y = bar->y_px + bar->height_px + 11.0;

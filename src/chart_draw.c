@@ -17,7 +17,7 @@
  * its line, its error bar and its legend swatch alike. */
 static const char stylesheet[] =
     ".sl-chart{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;font-size:11px;"
-    "color:#2c65a3;background:#fff}"
+    "color:#2c65a3;background:#fff;-webkit-print-color-adjust:exact;print-color-adjust:exact}"
     ".sl-chart text{fill:#222;stroke:none}"
     ".sl-chart .chart-title{font-size:13px;font-weight:600}"
     ".sl-chart .axis line{stroke:#444}"
@@ -38,11 +38,13 @@ static const char stylesheet[] =
     ".sl-chart .s3{color:#7a4fa0}.sl-chart .s4{color:#2f8f86}.sl-chart .s5{color:#8c4a20}"
     ".sl-chart .flagged{color:#a6431a}"
     ".sl-chart .point.flagged,.sl-chart .swatch.flagged{stroke:#000;stroke-width:1}"
-    ".sl-chart .wafer{fill:#f7f7f7;stroke:#777;stroke-width:1}"
+    /* The wafer is mid grey so that near-zero (light neutral) dies stand
+     * out from the bare wafer around them. */
+    ".sl-chart .wafer{fill:#dedede;stroke:#6b6b6b;stroke-width:1}"
     ".sl-chart .notch{fill:#777}"
     ".sl-chart .die{stroke:#fff;stroke-width:.6}"
     ".sl-chart .die.flagged{stroke:#000;stroke-width:2.2}"
-    ".sl-chart .nd{fill:#c2c2c2}.sl-chart .ndx{stroke:#4d4d4d;stroke-width:1.2}"
+    ".sl-chart .nd{fill:#a9a9a9}.sl-chart .ndx{stroke:#2b2b2b;stroke-width:1.2}"
     ".sl-chart .flag-cell{fill:#fff;stroke:#000;stroke-width:2.2}"
     ".sl-chart .note{fill:#666;font-style:italic}";
 

@@ -219,8 +219,9 @@ static int exponent_label(char *out, size_t size, double value, double step)
     int decimals = step > 0.0 ? sl_chart_step_decimals(step / scale) : 3;
     if (decimals > 6)
         decimals = 6;
-    double mantissa = value / scale;
-    if (fabs(mantissa) >= 9.9999999 && decimals == 0) {
+    double p = pow(10.0, decimals);
+    double mantissa = round(value / scale * p) / p;
+    if (fabs(mantissa) >= 10.0) { /* 9.96 shown with one decimal is 1.0e(k+1) */
         mantissa /= 10.0;
         e++;
     }

@@ -36,8 +36,9 @@ static wafer_layout layout_for(const sl_chart_wafer_map *map)
     l.width = content_w + 2.0 * WAFER_PAD_PX;
     l.centre_x = WAFER_PAD_PX + content_w / 2.0;
     l.centre_y = WAFER_TITLE_PX + l.radius;
-    l.grid_x = l.centre_x - gw / 2.0;
-    l.grid_y = l.centre_y - gh / 2.0;
+    /* Whole-pixel grid origin: crisp cell edges and shorter numbers. */
+    l.grid_x = round(l.centre_x - gw / 2.0);
+    l.grid_y = round(l.centre_y - gh / 2.0);
     l.bar.x_px = WAFER_PAD_PX;
     l.bar.y_px = WAFER_TITLE_PX + 2.0 * l.radius + 26.0;
     l.bar.width_px = fmin(content_w, 220.0);

@@ -274,6 +274,12 @@ START_TEST(test_tick_labels_no_float_noise)
     ck_assert_str_eq(label, "0");
     label_of(label, sizeof label, NAN, &t);
     ck_assert_str_eq(label, "n/a");
+    /* A mantissa that rounds up to 10 moves to the next exponent. */
+    sl_chart_ticks coarse = { .values = { 1e12 }, .count = 1, .step = 1e10, .decimals = 0 };
+    label_of(label, sizeof label, 9.96e11, &coarse);
+    ck_assert_str_eq(label, "1.0e12");
+    label_of(label, sizeof label, -4.2e11, &coarse);
+    ck_assert_str_eq(label, "-4.2e11");
     for (size_t i = 0; i < t.count; i++) {
         label_of(label, sizeof label, t.values[i], &t);
         ck_assert_uint_lt(strlen(label), 8);

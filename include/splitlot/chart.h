@@ -280,7 +280,7 @@ typedef struct {
 sl_status sl_chart_legend(sl_chart_buf *buf, double x_px, double y_px,
                           const sl_chart_legend_item *items, size_t count);
 
-/* A labelled bar of the diverging scale: steps (>= 2, default 9 when 0)
+/* A labelled bar of the diverging scale: steps (2..256, default 9 when 0)
  * discrete rects from -max_abs to +max_abs, labels at both ends and 0, and
  * a title above that carries the unit, e.g. "deviation (V)". Buffer status,
  * or SL_EINPUT for a non-finite max_abs. */
