@@ -1,0 +1,696 @@
+/* SPDX-License-Identifier: MIT
+ * Streaming RFC 4180 reader (see include/splitlot/csv.h): a record is first
+ * scanned without touching the buffer, so a scan cut short by the end of the
+ * buffer can restart after a refill; only a complete record is unescaped in
+ * place and NUL-terminated. Numbers take a correctly rounded fast path.
+ */
+#include "splitlot/csv.h"
+
+#include <float.h>
+#include <math.h>
+#include <stdint.h>
+#include <stdlib.h>
+#include <string.h>
+
+#define READ_CHUNK_BYTES (1024u * 1024u)
+#define BUFFER_BYTES (SL_CSV_MAX_RECORD_BYTES + READ_CHUNK_BYTES + 1u)
+
+typedef struct {
+    size_t off;   /* offset in buf: raw field while scanning, content after */
+    size_t len;
+    bool quoted;
+} field_span;
+
+struct sl_csv {
+    FILE *stream;
+    bool owns_stream;
+    char *name;
+    char *buf;
+    size_t pos, end;        /* unread data is buf[pos, end) */
+    bool eof;
+    long next_line;         /* physical line at buf[pos] */
+    long record_line;
+    field_span *fields;
+    size_t n_fields;
+    char **columns;
+    size_t n_columns;
+    sl_status sticky;
+};
+
+typedef enum { SCAN_RECORD, SCAN_BLANK, SCAN_END, SCAN_MORE, SCAN_ERROR } scan_result;
+
+/* Scanner state for one record attempt. */
+typedef struct {
+    const char *start, *p, *limit;
+    long newlines;
+    size_t n_fields;
+} scan_state;
+
+/* Bytes that end an unquoted run: separator, line ends, quote, NUL. */
+static const unsigned char stop_byte[256] = {
+    [','] = 1, ['\n'] = 1, ['\r'] = 1, ['"'] = 1, [0] = 1,
+};
+
+static char *copy_string(const char *s, size_t len)
+{
+    char *d = malloc(len + 1);
+    if (d) {
+        memcpy(d, s, len);
+        d[len] = '\0';
+    }
+    return d;
+}
+
+/* Printable, shortened copy of a token for messages. */
+static void quote_token(char out[SL_CSV_QUOTE_MAX + 4], const char *s, size_t len)
+{
+    size_t n = len > SL_CSV_QUOTE_MAX ? SL_CSV_QUOTE_MAX : len;
+    for (size_t i = 0; i < n; i++) {
+        unsigned char c = (unsigned char)s[i];
+        out[i] = (c < 0x20 || c == 0x7f || c >= 0x80) ? '?' : (char)c;
+    }
+    if (len > n) {
+        memcpy(out + n, "...", 3);
+        n += 3;
+    }
+    out[n] = '\0';
+}
+
+static sl_status fail(sl_csv *csv, sl_status st, sl_diag *diag, long line, long col,
+                      const char *what)
+{
+    sl_diag_add(diag, SL_SEV_ERROR, csv->name, line, col, "%s", what);
+    csv->sticky = st;
+    return st;
+}
+
+static sl_status refill(sl_csv *csv, sl_diag *diag)
+{
+    size_t keep = csv->end - csv->pos;
+    memmove(csv->buf, csv->buf + csv->pos, keep);
+    csv->pos = 0;
+    csv->end = keep;
+    size_t want = BUFFER_BYTES - 1 - keep;
+    size_t got = fread(csv->buf + keep, 1, want, csv->stream);
+    csv->end += got;
+    if (got < want) {
+        if (ferror(csv->stream))
+            return fail(csv, SL_EIO, diag, 0, 0, "read failed");
+        csv->eof = true;
+    }
+    return SL_OK;
+}
+
+static bool add_span(sl_csv *csv, scan_state *s, const char *from, const char *to, bool quoted)
+{
+    if (s->n_fields == SL_CSV_MAX_FIELDS)
+        return false;
+    field_span *f = &csv->fields[s->n_fields++];
+    f->off = (size_t)(from - csv->buf);
+    f->len = (size_t)(to - from);
+    f->quoted = quoted;
+    return true;
+}
+
+typedef enum { STEP_OK, STEP_MORE, STEP_ERROR } step_result;
+
+/* Scan a quoted field starting at s->p (on the opening quote). */
+static step_result scan_quoted(sl_csv *csv, scan_state *s, const char **why)
+{
+    const char *q = s->p + 1;
+    long opened_on = s->newlines;
+    for (;;) {
+        const char *hit = memchr(q, '"', (size_t)(s->limit - q));
+        const char *stop = hit ? hit : s->limit;
+        for (const char *c = memchr(q, '\n', (size_t)(stop - q)); c;
+             c = memchr(c + 1, '\n', (size_t)(stop - c - 1)))
+            s->newlines++;
+        if (memchr(q, '\0', (size_t)(stop - q))) {
+            *why = "NUL byte in a quoted field";
+            return STEP_ERROR;
+        }
+        if (!hit) {
+            *why = "quoted field opened on this line is not closed before the end of the file";
+            s->newlines = opened_on;
+            return csv->eof ? STEP_ERROR : STEP_MORE;
+        }
+        if (hit + 1 == s->limit && !csv->eof)
+            return STEP_MORE;
+        if (hit + 1 < s->limit && hit[1] == '"') {
+            q = hit + 2;
+            continue;
+        }
+        if (!add_span(csv, s, s->p, hit + 1, true)) {
+            *why = "too many fields in the record";
+            return STEP_ERROR;
+        }
+        s->p = hit + 1;
+        return STEP_OK;
+    }
+}
+
+static step_result scan_unquoted(sl_csv *csv, scan_state *s, const char **why)
+{
+    const char *p = s->p;
+    while (p < s->limit && !stop_byte[(unsigned char)*p])
+        p++;
+    if (p == s->limit && !csv->eof)
+        return STEP_MORE;
+    if (p < s->limit && *p == '"') {
+        *why = "quote inside an unquoted field";
+        return STEP_ERROR;
+    }
+    if (p < s->limit && *p == '\0') {
+        *why = "NUL byte in the data";
+        return STEP_ERROR;
+    }
+    if (!add_span(csv, s, s->p, p, false)) {
+        *why = "too many fields in the record";
+        return STEP_ERROR;
+    }
+    s->p = p;
+    return STEP_OK;
+}
+
+/* After a field: separator, line end or end of file. *done is set at the end
+ * of the record. */
+static step_result scan_separator(sl_csv *csv, scan_state *s, bool *done, const char **why)
+{
+    if (s->p == s->limit) {
+        *done = true;   /* only reached at end of file */
+        return STEP_OK;
+    }
+    char c = *s->p;
+    if (c == ',') {
+        s->p++;
+        return STEP_OK;
+    }
+    if (c == '\n') {
+        s->p++;
+        s->newlines++;
+        *done = true;
+        return STEP_OK;
+    }
+    if (c == '\r') {
+        if (s->p + 1 == s->limit && !csv->eof)
+            return STEP_MORE;
+        if (s->p + 1 < s->limit && s->p[1] == '\n') {
+            s->p += 2;
+            s->newlines++;
+            *done = true;
+            return STEP_OK;
+        }
+        *why = "carriage return not followed by a line feed";
+        return STEP_ERROR;
+    }
+    *why = "unexpected text after a closing quote";
+    return STEP_ERROR;
+}
+
+static scan_result scan_record(sl_csv *csv, scan_state *s, const char **why)
+{
+    s->start = s->p = csv->buf + csv->pos;
+    s->limit = csv->buf + csv->end;
+    s->newlines = 0;
+    s->n_fields = 0;
+    if (s->p == s->limit)
+        return csv->eof ? SCAN_END : SCAN_MORE;
+    for (bool done = false; !done;) {
+        step_result r = (s->p < s->limit && *s->p == '"') ? scan_quoted(csv, s, why)
+                                                           : scan_unquoted(csv, s, why);
+        if (r == STEP_OK)
+            r = scan_separator(csv, s, &done, why);
+        if (r != STEP_OK)
+            return r == STEP_MORE ? SCAN_MORE : SCAN_ERROR;
+    }
+    bool blank = s->n_fields == 1 && csv->fields[0].len == 0 && !csv->fields[0].quoted;
+    return blank ? SCAN_BLANK : SCAN_RECORD;
+}
+
+/* Unescape quoted fields in place and NUL-terminate every field. Unquoted
+ * fields end on a separator byte (or the spare byte after the data). */
+static void finish_record(sl_csv *csv, size_t n_fields)
+{
+    for (size_t i = 0; i < n_fields; i++) {
+        field_span *f = &csv->fields[i];
+        char *s = csv->buf + f->off;
+        if (!f->quoted) {
+            s[f->len] = '\0';
+            continue;
+        }
+        char *from = s + 1, *stop = s + f->len - 1, *to = s + 1;
+        while (from < stop) {
+            if (*from == '"')
+                from++;   /* first of a doubled quote */
+            *to++ = *from++;
+        }
+        *to = '\0';
+        f->off += 1;
+        f->len = (size_t)(to - (s + 1));
+    }
+    csv->n_fields = n_fields;
+}
+
+static sl_status too_long(sl_csv *csv, sl_diag *diag)
+{
+    char what[96];
+    snprintf(what, sizeof what, "record longer than %u bytes", SL_CSV_MAX_RECORD_BYTES);
+    return fail(csv, SL_EINPUT, diag, csv->next_line, 0, what);
+}
+
+/* Read one non-blank record into csv->fields, any field count. */
+static sl_status read_record(bool *has_record, sl_csv *csv, sl_diag *diag)
+{
+    *has_record = false;
+    for (;;) {
+        scan_state s;
+        const char *why = "";
+        scan_result r = scan_record(csv, &s, &why);
+        size_t scanned = (size_t)(s.p - s.start);
+        if (r == SCAN_MORE) {
+            if (csv->end - csv->pos > SL_CSV_MAX_RECORD_BYTES)
+                return too_long(csv, diag);
+            sl_status st = refill(csv, diag);
+            if (st != SL_OK)
+                return st;
+            continue;
+        }
+        if (r == SCAN_ERROR)
+            return fail(csv, SL_EINPUT, diag, csv->next_line + s.newlines, 0, why);
+        if (r == SCAN_END)
+            return SL_OK;
+        if (scanned > SL_CSV_MAX_RECORD_BYTES)
+            return too_long(csv, diag);
+        csv->record_line = csv->next_line;
+        csv->next_line += s.newlines;
+        csv->pos += scanned;
+        if (r == SCAN_BLANK)
+            continue;
+        finish_record(csv, s.n_fields);
+        *has_record = true;
+        return SL_OK;
+    }
+}
+
+sl_status sl_csv_next(bool *has_record, sl_csv *csv, sl_diag *diag)
+{
+    *has_record = false;
+    if (csv->sticky != SL_OK)
+        return csv->sticky;
+    sl_status st = read_record(has_record, csv, diag);
+    if (st != SL_OK || !*has_record || csv->n_fields == csv->n_columns)
+        return st;
+    *has_record = false;
+    sl_diag_add(diag, SL_SEV_ERROR, csv->name, csv->record_line, 0,
+                "expected %zu fields as in the header, found %zu", csv->n_columns,
+                csv->n_fields);
+    csv->sticky = SL_EINPUT;
+    return SL_EINPUT;
+}
+
+static void skip_bom(sl_csv *csv)
+{
+    if (csv->end - csv->pos >= 3 && memcmp(csv->buf + csv->pos, "\xEF\xBB\xBF", 3) == 0)
+        csv->pos += 3;
+}
+
+static sl_status check_header_name(sl_csv *csv, size_t i, sl_diag *diag)
+{
+    const char *name = csv->columns[i];
+    size_t len = strlen(name);
+    if (!sl_csv_utf8_valid(name, len))
+        return fail(csv, SL_EINPUT, diag, csv->record_line, (long)i + 1,
+                    "header name is not valid UTF-8");
+    for (size_t j = 0; len > 0 && j < i; j++) {
+        if (strcmp(csv->columns[j], name) == 0) {
+            char tok[SL_CSV_QUOTE_MAX + 4];
+            quote_token(tok, name, len);
+            sl_diag_add(diag, SL_SEV_ERROR, csv->name, csv->record_line, (long)i + 1,
+                        "duplicate column \"%s\" (also column %zu)", tok, j + 1);
+            csv->sticky = SL_EINPUT;
+            return SL_EINPUT;
+        }
+    }
+    return SL_OK;
+}
+
+static sl_status read_header(sl_csv *csv, sl_diag *diag)
+{
+    sl_status st = refill(csv, diag);
+    if (st != SL_OK)
+        return st;
+    skip_bom(csv);
+    bool has = false;
+    st = read_record(&has, csv, diag);
+    if (st != SL_OK)
+        return st;
+    if (!has)
+        return fail(csv, SL_EINPUT, diag, 0, 0, "empty file: no header row");
+    csv->columns = calloc(csv->n_fields, sizeof *csv->columns);
+    if (!csv->columns)
+        return fail(csv, SL_ENOMEM, diag, 0, 0, "out of memory");
+    csv->n_columns = csv->n_fields;
+    for (size_t i = 0; i < csv->n_columns; i++) {
+        const field_span *f = &csv->fields[i];
+        csv->columns[i] = copy_string(csv->buf + f->off, f->len);
+        if (!csv->columns[i])
+            return fail(csv, SL_ENOMEM, diag, 0, 0, "out of memory");
+        st = check_header_name(csv, i, diag);
+        if (st != SL_OK)
+            return st;
+    }
+    return SL_OK;
+}
+
+static sl_csv *reader_new(FILE *stream, bool owns, const char *name)
+{
+    sl_csv *csv = calloc(1, sizeof *csv);
+    if (!csv)
+        return NULL;
+    csv->stream = stream;
+    csv->owns_stream = owns;
+    csv->name = copy_string(name, strlen(name));
+    csv->buf = malloc(BUFFER_BYTES);
+    csv->fields = malloc(SL_CSV_MAX_FIELDS * sizeof *csv->fields);
+    csv->next_line = 1;
+    if (!csv->name || !csv->buf || !csv->fields) {
+        csv->owns_stream = false;
+        sl_csv_free(csv);
+        return NULL;
+    }
+    return csv;
+}
+
+sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_diag *diag)
+{
+    *out = NULL;
+    sl_csv *csv = reader_new(stream, false, name ? name : "<stream>");
+    if (!csv) {
+        sl_diag_error(diag, "out of memory");
+        return SL_ENOMEM;
+    }
+    sl_status st = read_header(csv, diag);
+    if (st != SL_OK) {
+        sl_csv_free(csv);
+        return st;
+    }
+    *out = csv;
+    return SL_OK;
+}
+
+sl_status sl_csv_open(sl_csv **out, const char *path, sl_diag *diag)
+{
+    *out = NULL;
+    if (strcmp(path, "-") == 0)
+        return sl_csv_open_stream(out, stdin, "<stdin>", diag);
+    FILE *f = fopen(path, "rb");
+    if (!f) {
+        sl_diag_add(diag, SL_SEV_ERROR, path, 0, 0, "cannot open file for reading");
+        return SL_EIO;
+    }
+    sl_status st = sl_csv_open_stream(out, f, path, diag);
+    if (st != SL_OK) {
+        fclose(f);
+        return st;
+    }
+    (*out)->owns_stream = true;
+    return SL_OK;
+}
+
+void sl_csv_free(sl_csv *csv)
+{
+    if (!csv)
+        return;
+    if (csv->owns_stream)
+        fclose(csv->stream);
+    for (size_t i = 0; i < csv->n_columns; i++)
+        free(csv->columns[i]);
+    free(csv->columns);
+    free(csv->fields);
+    free(csv->buf);
+    free(csv->name);
+    free(csv);
+}
+
+const char *sl_csv_name(const sl_csv *csv) { return csv->name; }
+size_t sl_csv_column_count(const sl_csv *csv) { return csv->n_columns; }
+long sl_csv_line(const sl_csv *csv) { return csv->record_line; }
+size_t sl_csv_field_count(const sl_csv *csv) { return csv->n_fields; }
+
+const char *sl_csv_column_name(const sl_csv *csv, size_t index)
+{
+    return index < csv->n_columns ? csv->columns[index] : NULL;
+}
+
+long sl_csv_column(const sl_csv *csv, const char *name)
+{
+    for (size_t i = 0; i < csv->n_columns; i++)
+        if (strcmp(csv->columns[i], name) == 0)
+            return (long)i;
+    return -1;
+}
+
+const char *sl_csv_field(const sl_csv *csv, size_t field, size_t *len)
+{
+    if (field >= csv->n_fields) {
+        if (len)
+            *len = 0;
+        return "";
+    }
+    const field_span *f = &csv->fields[field];
+    if (len)
+        *len = f->len;
+    return csv->buf + f->off;
+}
+
+static bool is_blank(char c) { return c == ' ' || c == '\t'; }
+
+/* Trim spaces and tabs; returns the new start and sets *len. */
+static const char *trim(const char *s, size_t *len)
+{
+    size_t n = *len;
+    while (n > 0 && is_blank(*s)) {
+        s++;
+        n--;
+    }
+    while (n > 0 && is_blank(s[n - 1]))
+        n--;
+    *len = n;
+    return s;
+}
+
+bool sl_csv_is_empty(const sl_csv *csv, size_t field)
+{
+    size_t len;
+    const char *s = sl_csv_field(csv, field, &len);
+    trim(s, &len);
+    return len == 0;
+}
+
+/* ---- numbers ---- */
+
+typedef enum { NUM_OK, NUM_EMPTY, NUM_JUNK, NUM_RANGE } num_status;
+
+typedef struct {
+    bool negative;
+    uint64_t mantissa;     /* first 19 significant digits */
+    int sig_digits;        /* significant digits seen (all of them) */
+    long exp10;            /* value = mantissa * 10^exp10 when sig_digits <= 19 */
+    bool nonzero;
+} decimal;
+
+static bool is_digit(char c) { return c >= '0' && c <= '9'; }
+
+static void take_digit(decimal *d, char c, bool after_point)
+{
+    if (c != '0')
+        d->nonzero = true;
+    if (d->sig_digits == 0 && c == '0') {
+        if (after_point)
+            d->exp10--;
+        return;   /* leading zero */
+    }
+    if (d->sig_digits < 19) {
+        d->mantissa = d->mantissa * 10u + (uint64_t)(c - '0');
+        if (after_point)
+            d->exp10--;
+    } else if (!after_point) {
+        d->exp10++;
+    }
+    d->sig_digits++;
+}
+
+/* Grammar: [+-] (digits [. digits*] | . digits) [(e|E) [+-] digits]. */
+static bool scan_decimal(decimal *d, const char *s, const char *end)
+{
+    memset(d, 0, sizeof *d);
+    if (s < end && (*s == '+' || *s == '-'))
+        d->negative = *s++ == '-';
+    int digits = 0;
+    for (; s < end && is_digit(*s); s++, digits++)
+        take_digit(d, *s, false);
+    if (s < end && *s == '.')
+        for (s++; s < end && is_digit(*s); s++, digits++)
+            take_digit(d, *s, true);
+    if (digits == 0)
+        return false;
+    if (s < end && (*s == 'e' || *s == 'E')) {
+        s++;
+        bool neg = false;
+        if (s < end && (*s == '+' || *s == '-'))
+            neg = *s++ == '-';
+        if (s == end || !is_digit(*s))
+            return false;
+        long e = 0;
+        for (; s < end && is_digit(*s); s++)
+            e = e < 100000 ? e * 10 + (*s - '0') : e;
+        d->exp10 += neg ? -e : e;
+    }
+    return s == end;
+}
+
+/* Exact powers of ten representable in a double. */
+static const double exact_pow10[] = {
+    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11,
+    1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
+};
+
+/* Clinger's fast path: with the mantissa below 2^53 and |exp10| <= 22 both
+ * operands are exact doubles, so one IEEE operation rounds correctly. */
+static bool fast_value(double *out, const decimal *d)
+{
+#if FLT_EVAL_METHOD == 0
+    if (d->sig_digits > 19 || d->mantissa > (UINT64_C(1) << 53) || d->exp10 < -22 ||
+        d->exp10 > 22)
+        return false;
+    double m = (double)d->mantissa;
+    double v = d->exp10 < 0 ? m / exact_pow10[-d->exp10] : m * exact_pow10[d->exp10];
+    *out = d->negative ? -v : v;
+    return true;
+#else
+    (void)out;
+    (void)d;
+    return false;
+#endif
+}
+
+static num_status parse_number(double *out, const char *s, size_t len)
+{
+    s = trim(s, &len);
+    if (len == 0)
+        return NUM_EMPTY;
+    decimal d;
+    if (!scan_decimal(&d, s, s + len))
+        return NUM_JUNK;
+    if (fast_value(out, &d))
+        return NUM_OK;
+    /* The grammar was checked, so strtod reads exactly this token; it stops
+     * at the trailing blank or the NUL that ends every field. */
+    double v = strtod(s, NULL);
+    if (v == HUGE_VAL || v == -HUGE_VAL || (v == 0.0 && d.nonzero))
+        return NUM_RANGE;
+    *out = v;
+    return NUM_OK;
+}
+
+bool sl_csv_parse_double(double *out, const char *token, size_t len)
+{
+    return parse_number(out, token, len) == NUM_OK;
+}
+
+sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *diag)
+{
+    size_t len;
+    const char *s = sl_csv_field(csv, field, &len);
+    num_status st = parse_number(out, s, len);
+    if (st == NUM_OK)
+        return SL_OK;
+    const char *col = field < csv->n_columns ? csv->columns[field] : "?";
+    char tok[SL_CSV_QUOTE_MAX + 4];
+    quote_token(tok, s, len);
+    long line = csv->record_line, at = (long)field + 1;
+    if (st == NUM_EMPTY)
+        sl_diag_add(diag, SL_SEV_ERROR, csv->name, line, at,
+                    "empty value in column %s, a number is required", col);
+    else if (st == NUM_RANGE)
+        sl_diag_add(diag, SL_SEV_ERROR, csv->name, line, at,
+                    "number \"%s\" in column %s is out of range", tok, col);
+    else
+        sl_diag_add(diag, SL_SEV_ERROR, csv->name, line, at,
+                    "bad number \"%s\" in column %s", tok, col);
+    return SL_EINPUT;
+}
+
+/* ---- text ---- */
+
+/* Length of the UTF-8 sequence starting at s (bytes available: n), or 0 when
+ * it is not a valid, shortest-form encoding of a scalar value. */
+static size_t utf8_sequence(const unsigned char *s, size_t n)
+{
+    unsigned char c = s[0];
+    if (c < 0x80)
+        return 1;
+    size_t need = c >= 0xF0 ? 4 : c >= 0xE0 ? 3 : c >= 0xC2 ? 2 : 0;
+    if (need == 0 || c > 0xF4 || need > n)
+        return 0;
+    for (size_t i = 1; i < need; i++)
+        if ((s[i] & 0xC0) != 0x80)
+            return 0;
+    if (c == 0xE0 && s[1] < 0xA0)
+        return 0;   /* overlong */
+    if (c == 0xED && s[1] >= 0xA0)
+        return 0;   /* surrogate */
+    if (c == 0xF0 && s[1] < 0x90)
+        return 0;   /* overlong */
+    if (c == 0xF4 && s[1] >= 0x90)
+        return 0;   /* past U+10FFFF */
+    return need;
+}
+
+bool sl_csv_utf8_valid(const char *bytes, size_t len)
+{
+    const unsigned char *s = (const unsigned char *)bytes;
+    for (size_t i = 0; i < len;) {
+        size_t k = utf8_sequence(s + i, len - i);
+        if (k == 0)
+            return false;
+        i += k;
+    }
+    return true;
+}
+
+static bool has_control(const char *s, size_t len)
+{
+    for (size_t i = 0; i < len; i++) {
+        unsigned char c = (unsigned char)s[i];
+        if ((c < 0x20 && c != '\t') || c == 0x7f)
+            return true;
+    }
+    return false;
+}
+
+sl_status sl_csv_text(const char **out, size_t *len, const sl_csv *csv, size_t field,
+                      size_t max_bytes, sl_diag *diag)
+{
+    size_t n;
+    const char *s = sl_csv_field(csv, field, &n);
+    const char *col = field < csv->n_columns ? csv->columns[field] : "?";
+    const char *why = NULL;
+    if (n > max_bytes)
+        why = "is too long";
+    else if (!sl_csv_utf8_valid(s, n))
+        why = "is not valid UTF-8";
+    else if (has_control(s, n))
+        why = "holds a control character";
+    if (why) {
+        char tok[SL_CSV_QUOTE_MAX + 4];
+        quote_token(tok, s, n);
+        sl_diag_add(diag, SL_SEV_ERROR, csv->name, csv->record_line, (long)field + 1,
+                    "value \"%s\" in column %s %s", tok, col, why);
+        return SL_EINPUT;
+    }
+    *out = s;
+    if (len)
+        *len = n;
+    return SL_OK;
+}
