@@ -1,0 +1,55 @@
+/* SPDX-License-Identifier: MIT
+ * Import of measurements into a lot: device results CSV (one row per device)
+ * or raw transfer sweeps CSV (one row per point, fitted per device), streamed
+ * in flat memory, checked against the lot's plan and layout, written in one
+ * transaction so a failed import leaves the database as it was.
+ */
+#ifndef SPLITLOT_INGEST_H
+#define SPLITLOT_INGEST_H
+
+#include <stddef.h>
+
+#include "splitlot/error.h"
+#include "splitlot/fit.h"
+#include "splitlot/store.h"
+
+typedef enum { SL_INGEST_RESULTS = 0, SL_INGEST_SWEEPS } sl_ingest_kind;
+
+/* Progress as the import streams; bytes_total is 0 when unknown (a pipe). */
+typedef struct {
+    long rows;
+    long devices;
+    double bytes_read;
+    double bytes_total;
+    double seconds;
+} sl_ingest_progress;
+
+typedef struct {
+    const char *lot;           /* lot name, as stored by `predict` */
+    const char *path;          /* CSV file, "-" for standard input */
+    sl_ingest_kind kind;
+    int replace;               /* drop the lot's measurements first */
+    int threads;               /* fitting threads, >= 1 (sweeps only) */
+    /* called now and then from the importing thread; may be NULL */
+    void (*progress)(const sl_ingest_progress *progress, void *ctx);
+    void *progress_ctx;
+} sl_ingest_options;
+
+typedef struct {
+    long rows;                 /* data rows read */
+    long devices;              /* devices stored */
+    long unmeasured;           /* results rows with an empty v_cnp_V */
+    long per_class[SL_FIT_CLASS_COUNT]; /* sweeps: devices per fit class */
+    long replaced;             /* devices removed by --replace */
+    double seconds;
+} sl_ingest_summary;
+
+/* Import a file into a lot of an open store, in one transaction. Errors:
+ * SL_EINPUT with file:line messages (missing column, bad number, NaN or Inf,
+ * unknown or spare wafer, die outside the wafer map, duplicate device, a sweep
+ * with fewer than SL_FIT_MIN_POINTS points), SL_ENOTFOUND for an unknown lot,
+ * SL_EIO, SL_EDB, SL_ENOMEM. On any error nothing of the import is kept. */
+sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
+                        const sl_ingest_options *options, sl_diag *diag);
+
+#endif

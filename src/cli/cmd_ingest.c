@@ -1,0 +1,155 @@
+/* SPDX-License-Identifier: MIT
+ * `splitlot ingest`: import a lot's device results or raw transfer sweeps
+ * (fitted per device) in one transaction, with a progress line on a terminal
+ * and an import summary on stdout.
+ */
+#include "cli.h"
+
+#include <getopt.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "splitlot/ingest.h"
+
+static const char usage[] =
+    "usage: splitlot ingest --lot ID (--results FILE | --sweeps FILE) [options]\n\n"
+    "Import measurements of a lot whose plan was stored by 'splitlot predict'.\n"
+    "Results: one row per device (wafer,device,die_x,die_y,v_cnp_V[,mobility_cm2_per_Vs,\n"
+    "n0_per_cm2,r_contact_ohm,temperature_K]). Sweeps: one row per point\n"
+    "(wafer,device,die_x,die_y,vg_V,r_ohm); each device's transfer curve is fitted.\n"
+    "FILE '-' reads standard input. Nothing is kept of an import that fails.\n\n"
+    "  --lot ID                  the lot\n"
+    "  --results FILE            device results CSV\n"
+    "  --sweeps FILE             transfer sweeps CSV\n"
+    "  --replace                 replace the lot's measurements already stored\n"
+    "  --threads N               fitting threads (default: the machine's cores)\n"
+    "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
+    "  --format table|csv|json   summary format (default table)\n"
+    "  --help                    this text\n";
+
+enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_THREADS, OPT_DB, OPT_FORMAT, OPT_HELP };
+
+static const struct option options[] = {
+    { "lot", required_argument, NULL, OPT_LOT },
+    { "results", required_argument, NULL, OPT_RESULTS },
+    { "sweeps", required_argument, NULL, OPT_SWEEPS },
+    { "replace", no_argument, NULL, OPT_REPLACE },
+    { "threads", required_argument, NULL, OPT_THREADS },
+    { "db", required_argument, NULL, OPT_DB },
+    { "format", required_argument, NULL, OPT_FORMAT },
+    { "help", no_argument, NULL, OPT_HELP },
+    { NULL, 0, NULL, 0 },
+};
+
+typedef struct {
+    sl_ingest_options opt;
+    const char *db;
+    cli_format format;
+    int n_sources;
+} ingest_args;
+
+static void progress_line(const sl_ingest_progress *p, void *ctx)
+{
+    (void)ctx;
+    double rate = p->seconds > 0 ? (double)p->rows / p->seconds : 0.0;
+    fprintf(stderr, "\r%ld rows, %ld devices, %.0f rows/s, %.1f s   ", p->rows, p->devices, rate,
+            p->seconds);
+    fflush(stderr);
+}
+
+static int parse_args(ingest_args *a, int argc, char **argv)
+{
+    int opt;
+    long threads;
+    while ((opt = getopt_long(argc, argv, "", options, NULL)) != -1) {
+        switch (opt) {
+        case OPT_HELP: cli_print_help(usage); return -1;
+        case OPT_LOT: a->opt.lot = optarg; break;
+        case OPT_RESULTS: a->opt.kind = SL_INGEST_RESULTS; a->opt.path = optarg; a->n_sources++; break;
+        case OPT_SWEEPS: a->opt.kind = SL_INGEST_SWEEPS; a->opt.path = optarg; a->n_sources++; break;
+        case OPT_REPLACE: a->opt.replace = 1; break;
+        case OPT_DB: a->db = optarg; break;
+        case OPT_THREADS:
+            if (cli_parse_long("--threads", optarg, 1, &threads) != 0)
+                return CLI_EXIT_USAGE;
+            a->opt.threads = (int)(threads > 64 ? 64 : threads);
+            break;
+        case OPT_FORMAT:
+            if (cli_format_parse(optarg, &a->format) != 0)
+                return cli_usage_error("--format: '%s' is not one of table, csv, json", optarg);
+            break;
+        default: return cli_bad_option("ingest", argv[optind - 1]);
+        }
+    }
+    if (optind < argc)
+        return cli_usage_error("ingest: unexpected argument '%s'", argv[optind]);
+    if (!a->opt.lot)
+        return cli_usage_error("ingest: --lot is required (see 'splitlot ingest --help')");
+    if (a->n_sources != 1)
+        return cli_usage_error("ingest: give exactly one of --results FILE or --sweeps FILE");
+    return 0;
+}
+
+static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
+{
+    cli_doc *doc = cli_doc_new();
+    cli_doc_str(doc, "lot", a->opt.lot);
+    cli_doc_str(doc, "source", a->opt.path);
+    cli_doc_num(doc, "rows", (double)s->rows, 15);
+    cli_doc_num(doc, "devices", (double)s->devices, 15);
+    if (a->opt.replace)
+        cli_doc_num(doc, "devices_replaced", (double)s->replaced, 15);
+    cli_doc_num(doc, "seconds", s->seconds, 3);
+    cli_doc_num(doc, "rows_per_second", s->seconds > 0 ? (double)s->rows / s->seconds : 0.0, 4);
+    cli_table *t = cli_doc_table(doc, "classes", "devices by extraction class");
+    cli_table_col_str(t, "class", "class");
+    cli_table_col_int(t, "devices", "devices");
+    if (a->opt.kind == SL_INGEST_SWEEPS) {
+        for (int k = 0; k < SL_FIT_CLASS_COUNT; k++) {
+            cli_table_row(t);
+            cli_cell_str(t, sl_fit_class_name((sl_fit_class)k));
+            cli_cell_int(t, s->per_class[k]);
+        }
+    } else {
+        cli_table_row(t);
+        cli_cell_str(t, "measured");
+        cli_cell_int(t, s->devices - s->unmeasured);
+        cli_table_row(t);
+        cli_cell_str(t, "unmeasured");
+        cli_cell_int(t, s->unmeasured);
+    }
+    int rc = cli_doc_print(doc, a->format, stdout) == 0 ? CLI_EXIT_OK
+                                                      : cli_runtime_error("cannot write output");
+    cli_doc_free(doc);
+    return rc;
+}
+
+int cmd_ingest(int argc, char **argv)
+{
+    ingest_args a = { .format = CLI_FORMAT_TABLE };
+    long cores = sysconf(_SC_NPROCESSORS_ONLN);
+    a.opt.threads = cores > 0 ? (int)(cores > 64 ? 64 : cores) : 1;
+    int rc = parse_args(&a, argc, argv);
+    if (rc != 0)
+        return rc < 0 ? CLI_EXIT_OK : rc;
+    if (isatty(STDERR_FILENO))
+        a.opt.progress = progress_line;
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_ingest_summary summary;
+    const char *db = cli_db_path(a.db);
+    if (access(db, F_OK) != 0) {
+        sl_diag_free(diag);
+        return cli_usage_error("ingest: database '%s' does not exist; run 'splitlot predict PLAN' first", db);
+    }
+    sl_status st = sl_store_open(&store, db, diag);
+    if (st == SL_OK)
+        st = sl_ingest_run(&summary, store, &a.opt, diag);
+    if (a.opt.progress)
+        fputs("\n", stderr);
+    rc = st == SL_OK ? print_summary(&a, &summary) : cli_fail(st, diag);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    return rc;
+}

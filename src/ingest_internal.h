@@ -1,0 +1,79 @@
+/* SPDX-License-Identifier: MIT
+ * Private to the ingest module: the state of one import shared by ingest.c
+ * (set-up, row checks, device results) and ingest_sweeps.c (sweep runs,
+ * parallel fitting in batches, devices whose rows come back later).
+ */
+#ifndef SL_INGEST_INTERNAL_H
+#define SL_INGEST_INTERNAL_H
+
+#include <stdbool.h>
+
+#include "ingest_table.h"
+#include "splitlot/csv.h"
+#include "splitlot/fit.h"
+#include "splitlot/ingest.h"
+#include "splitlot/layout.h"
+#include "splitlot/plan.h"
+#include "splitlot/store.h"
+
+#define SL_INGEST_MAX_NAME_BYTES 64
+#define SL_INGEST_MAX_POINTS 100000
+#define SL_INGEST_BATCH_DEVICES 256
+
+/* What the plan and the store say about one wafer of the lot. */
+typedef struct {
+    long wafer_id;           /* row id in the store, 0 when a spare */
+    long split;              /* -1 for a spare */
+    sl_fit_config fit;       /* gate capacitance of the wafer's dielectric */
+} ingest_wafer;
+
+/* Columns of the file, -1 when absent. */
+typedef struct {
+    long wafer, device, die_x, die_y, vg, r, vcnp, mobility, n0, r_contact, temperature;
+} ingest_columns;
+
+/* One row's device identity, checked. */
+typedef struct {
+    const char *wafer, *device;
+    size_t wafer_index;
+    long die_x, die_y;
+    double temperature_K;
+} ingest_row;
+
+typedef struct ingest_batch ingest_batch;
+
+typedef struct {
+    sl_store *store;
+    sl_diag *diag;
+    const sl_ingest_options *opt;
+    sl_store_lot lot;
+    sl_plan *plan;
+    sl_layout *layout;
+    ingest_wafer *wafers;    /* per plan wafer */
+    sl_csv *csv;
+    const char *file;        /* name for messages */
+    ingest_columns col;
+    ingest_table devices;
+    sl_ingest_summary *summary;
+    double started_s;
+    ingest_batch *batch;
+} ingest_ctx;
+
+/* Parse and check the identity columns of the current row. */
+sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);
+/* An optional numeric column: NaN when absent or empty. */
+sl_status ingest_optional_number(ingest_ctx *c, double *out, long column);
+/* Report progress every so many rows. */
+void ingest_progress(ingest_ctx *c, bool final);
+double ingest_now_s(void);
+/* A located error at the current row. */
+void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
+#if defined(__GNUC__)
+    __attribute__((format(printf, 3, 4)))
+#endif
+    ;
+
+sl_status ingest_sweeps(ingest_ctx *c);
+void ingest_batch_free(ingest_batch *b);
+
+#endif

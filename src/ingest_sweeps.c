@@ -1,0 +1,450 @@
+/* SPDX-License-Identifier: MIT
+ * Sweep import: rows are grouped into runs of one device, runs are fitted in
+ * batches on several threads (one fit workspace each) and written in file
+ * order by this thread; rows of a device that come back later in the file are
+ * staged in the store and the device is fitted again at the end. Memory holds
+ * one batch of points, whatever the file size.
+ */
+#include <math.h>
+#include <pthread.h>
+#include <stdatomic.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "ingest_internal.h"
+
+typedef struct {
+    size_t device;           /* index into the device table */
+    size_t offset, n;        /* points in the batch arrays */
+    const sl_fit_config *cfg;
+    sl_fit_result result;
+    sl_status status;
+} batch_item;
+
+struct ingest_batch {
+    batch_item *items;
+    size_t n_items, cap_items;
+    double *vg, *r;
+    size_t n_points, cap_points;
+    sl_fit_workspace **ws;   /* one per thread */
+    size_t ws_points;
+    int threads;
+    /* the run being read */
+    int in_run;
+    size_t run_device, run_offset;
+    long run_line;
+    char run_wafer[SL_INGEST_MAX_NAME_BYTES + 1], run_name[SL_INGEST_MAX_NAME_BYTES + 1];
+    char run_die_x[32], run_die_y[32];
+};
+
+void ingest_batch_free(ingest_batch *b)
+{
+    if (!b)
+        return;
+    for (int i = 0; b->ws && i < b->threads; i++)
+        sl_fit_workspace_free(b->ws[i]);
+    free(b->ws);
+    free(b->items);
+    free(b->vg);
+    free(b->r);
+    free(b);
+}
+
+static ingest_batch *batch_new(int threads)
+{
+    ingest_batch *b = calloc(1, sizeof *b);
+    if (!b)
+        return NULL;
+    b->threads = threads < 1 ? 1 : threads;
+    b->ws = calloc((size_t)b->threads, sizeof *b->ws);
+    if (!b->ws) {
+        free(b);
+        return NULL;
+    }
+    return b;
+}
+
+static int grow_points(ingest_batch *b, size_t need)
+{
+    if (need <= b->cap_points)
+        return 0;
+    size_t cap = b->cap_points ? b->cap_points : 65536;
+    while (cap < need)
+        cap *= 2;
+    double *vg = realloc(b->vg, cap * sizeof *vg);
+    if (vg)
+        b->vg = vg;
+    double *r = vg ? realloc(b->r, cap * sizeof *r) : NULL;
+    if (!vg || !r)
+        return -1;
+    b->r = r;
+    b->cap_points = cap;
+    return 0;
+}
+
+/* ---- fitting a batch on several threads ---- */
+
+typedef struct {
+    ingest_batch *b;
+    atomic_size_t next;
+} fit_job;
+
+typedef struct {
+    fit_job *job;
+    sl_fit_workspace *ws;
+} fit_worker;
+
+static void fit_item(ingest_batch *b, batch_item *it, sl_fit_workspace *ws)
+{
+    if (it->n < SL_FIT_MIN_POINTS) {
+        it->status = SL_EINPUT; /* resolved at the end: rows may still come */
+        return;
+    }
+    it->status = sl_fit_sweep(&it->result, ws, it->cfg, b->vg + it->offset, b->r + it->offset, it->n);
+}
+
+static void *fit_worker_run(void *arg)
+{
+    fit_worker *w = arg;
+    ingest_batch *b = w->job->b;
+    for (;;) {
+        size_t i = atomic_fetch_add(&w->job->next, 1);
+        if (i >= b->n_items)
+            break;
+        fit_item(b, &b->items[i], w->ws);
+    }
+    return NULL;
+}
+
+static sl_status ensure_workspaces(ingest_batch *b)
+{
+    size_t need = SL_FIT_MIN_POINTS;
+    for (size_t i = 0; i < b->n_items; i++)
+        if (b->items[i].n > need)
+            need = b->items[i].n;
+    if (need <= b->ws_points && b->ws[0])
+        return SL_OK;
+    for (int t = 0; t < b->threads; t++) {
+        sl_fit_workspace_free(b->ws[t]);
+        b->ws[t] = sl_fit_workspace_new(need);
+        if (!b->ws[t])
+            return SL_ENOMEM;
+    }
+    b->ws_points = need;
+    return SL_OK;
+}
+
+static sl_status fit_batch(ingest_batch *b)
+{
+    sl_status st = ensure_workspaces(b);
+    if (st != SL_OK)
+        return st;
+    fit_job job = { .b = b };
+    atomic_init(&job.next, 0);
+    fit_worker workers[64];
+    pthread_t tids[64];
+    int helpers = b->threads - 1 < 63 ? b->threads - 1 : 63, started = 0;
+    if ((size_t)helpers > b->n_items / 8)
+        helpers = (int)(b->n_items / 8); /* not worth a thread for a few fits */
+    for (int t = 0; t <= helpers; t++)
+        workers[t] = (fit_worker){ &job, b->ws[t] };
+    for (int t = 1; t <= helpers; t++)
+        if (pthread_create(&tids[t], NULL, fit_worker_run, &workers[t]) == 0)
+            started = t;
+        else
+            break;
+    fit_worker_run(&workers[0]);
+    for (int t = 1; t <= started; t++)
+        pthread_join(tids[t], NULL);
+    return SL_OK;
+}
+
+/* ---- writing fitted devices ---- */
+
+static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_status st)
+{
+    dev->cnp_V = dev->cnp_sigma_V = dev->mobility_cm2_per_Vs = dev->mobility_sigma_cm2_per_Vs = NAN;
+    dev->n0_per_cm2 = dev->n0_sigma_per_cm2 = dev->r_contact_ohm = dev->r_contact_sigma_ohm = NAN;
+    dev->rel_rms = dev->r_squared = NAN;
+    if (st != SL_OK) {
+        dev->fit_class = "pending";
+        return;
+    }
+    dev->fit_class = sl_fit_class_name(r->cls);
+    dev->rel_rms = r->rel_rms;
+    dev->r_squared = r->r_squared;
+    if (r->cls != SL_FIT_OK)
+        return; /* no invented numbers for what could not be fitted */
+    dev->cnp_V = r->p.cnp_V;
+    dev->cnp_sigma_V = r->sigma.cnp_V;
+    dev->mobility_cm2_per_Vs = r->p.mobility_cm2_per_Vs;
+    dev->mobility_sigma_cm2_per_Vs = r->sigma.mobility_cm2_per_Vs;
+    dev->n0_per_cm2 = r->p.n0_per_cm2;
+    dev->n0_sigma_per_cm2 = r->sigma.n0_per_cm2;
+    dev->r_contact_ohm = r->p.r_contact_ohm;
+    dev->r_contact_sigma_ohm = r->sigma.r_contact_ohm;
+}
+
+static void count_class(ingest_ctx *c, ingest_device *d, const sl_fit_result *r, sl_status st)
+{
+    if (d->fit_class >= 0)
+        c->summary->per_class[d->fit_class]--;
+    d->fit_class = st == SL_OK ? (int)r->cls : -1;
+    if (d->fit_class >= 0)
+        c->summary->per_class[d->fit_class]++;
+}
+
+static sl_status write_item(ingest_ctx *c, const batch_item *it)
+{
+    ingest_batch *b = c->batch;
+    ingest_device *d = &c->devices.items[it->device];
+    sl_store_device dev = { .wafer_id = c->wafers[d->wafer_index].wafer_id, .name = d->device,
+                            .die_x = d->die_x, .die_y = d->die_y, .source = "sweeps",
+                            .temperature_K = d->temperature_K, .vg_V = b->vg + it->offset,
+                            .r_ohm = b->r + it->offset, .n_points = it->n };
+    result_to_device(&dev, &it->result, it->status);
+    sl_status st = sl_store_insert_device(c->store, &d->device_id, c->lot.lot_id, &dev, c->diag);
+    if (st == SL_EINPUT) {
+        sl_diag_clear(c->diag);
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
+                    "device '%s' on wafer '%s' is already stored for lot '%s' "
+                    "(use --replace to import the lot's measurements again)",
+                    d->device, d->wafer, c->lot.lot);
+    }
+    if (st != SL_OK)
+        return st;
+    d->n_points = it->n;
+    count_class(c, d, &it->result, it->status);
+    c->summary->devices++;
+    return SL_OK;
+}
+
+static sl_status flush_batch(ingest_ctx *c)
+{
+    ingest_batch *b = c->batch;
+    if (b->n_items == 0)
+        return SL_OK;
+    sl_status st = fit_batch(b);
+    for (size_t i = 0; st == SL_OK && i < b->n_items; i++)
+        st = write_item(c, &b->items[i]);
+    b->n_items = 0;
+    b->n_points = 0;
+    ingest_progress(c, false);
+    return st;
+}
+
+/* ---- runs: consecutive rows of one device ---- */
+
+static sl_status end_run(ingest_ctx *c)
+{
+    ingest_batch *b = c->batch;
+    if (!b->in_run)
+        return SL_OK;
+    b->in_run = 0;
+    ingest_device *d = &c->devices.items[b->run_device];
+    size_t n = b->n_points - b->run_offset;
+    if (d->revisit) {
+        /* rows of a device met before: stage them, drop them from the batch */
+        sl_status st = sl_store_stage_points(c->store, (long)b->run_device, b->vg + b->run_offset,
+                                             b->r + b->run_offset, n, c->diag);
+        b->n_points = b->run_offset;
+        return st;
+    }
+    if (b->n_items == b->cap_items) {
+        size_t cap = b->cap_items ? 2 * b->cap_items : SL_INGEST_BATCH_DEVICES;
+        batch_item *items = realloc(b->items, cap * sizeof *items);
+        if (!items)
+            return SL_ENOMEM;
+        b->items = items;
+        b->cap_items = cap;
+    }
+    b->items[b->n_items++] = (batch_item){ .device = b->run_device, .offset = b->run_offset, .n = n,
+                                           .cfg = &c->wafers[d->wafer_index].fit };
+    if (b->n_items >= SL_INGEST_BATCH_DEVICES)
+        return flush_batch(c);
+    return SL_OK;
+}
+
+static sl_status check_same_die(ingest_ctx *c, const ingest_device *d, const ingest_row *row)
+{
+    if (d->die_x == row->die_x && d->die_y == row->die_y)
+        return SL_OK;
+    ingest_error_at_row(c, c->col.die_x,
+                        "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
+                        row->device, row->wafer, row->die_x, row->die_y, d->die_x, d->die_y,
+                        d->first_line);
+    return SL_EINPUT;
+}
+
+static sl_status start_run(ingest_ctx *c, const ingest_row *row)
+{
+    ingest_batch *b = c->batch;
+    size_t k = ingest_table_find(&c->devices, row->wafer, row->device);
+    if (k != (size_t)-1) {
+        sl_status st = check_same_die(c, &c->devices.items[k], row);
+        if (st != SL_OK)
+            return st;
+        c->devices.items[k].revisit = 1;
+    } else {
+        k = ingest_table_add(&c->devices, row->wafer, row->device);
+        if (k == (size_t)-1)
+            return SL_ENOMEM;
+        ingest_device *d = &c->devices.items[k];
+        d->first_line = sl_csv_line(c->csv);
+        d->die_x = row->die_x;
+        d->die_y = row->die_y;
+        d->wafer_index = row->wafer_index;
+        d->temperature_K = row->temperature_K;
+    }
+    b->in_run = 1;
+    b->run_device = k;
+    b->run_offset = b->n_points;
+    b->run_line = sl_csv_line(c->csv);
+    snprintf(b->run_wafer, sizeof b->run_wafer, "%s", row->wafer);
+    snprintf(b->run_name, sizeof b->run_name, "%s", row->device);
+    snprintf(b->run_die_x, sizeof b->run_die_x, "%s", sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
+    snprintf(b->run_die_y, sizeof b->run_die_y, "%s", sl_csv_field(c->csv, (size_t)c->col.die_y, NULL));
+    return SL_OK;
+}
+
+/* Same device as the run, with the same die text: the fast path of a row. */
+static bool continues_run(const ingest_ctx *c)
+{
+    const ingest_batch *b = c->batch;
+    return b->in_run &&
+           strcmp(sl_csv_field(c->csv, (size_t)c->col.device, NULL), b->run_name) == 0 &&
+           strcmp(sl_csv_field(c->csv, (size_t)c->col.wafer, NULL), b->run_wafer) == 0 &&
+           strcmp(sl_csv_field(c->csv, (size_t)c->col.die_x, NULL), b->run_die_x) == 0 &&
+           strcmp(sl_csv_field(c->csv, (size_t)c->col.die_y, NULL), b->run_die_y) == 0;
+}
+
+static sl_status sweep_row(ingest_ctx *c)
+{
+    ingest_batch *b = c->batch;
+    sl_status st = SL_OK;
+    if (!continues_run(c)) {
+        ingest_row row;
+        st = ingest_read_row(c, &row);
+        if (st == SL_OK && b->in_run && strcmp(row.device, b->run_name) == 0 &&
+            strcmp(row.wafer, b->run_wafer) == 0)
+            st = check_same_die(c, &c->devices.items[b->run_device], &row); /* "1" vs "1.0" */
+        else if (st == SL_OK && (st = end_run(c)) == SL_OK)
+            st = start_run(c, &row);
+        if (st != SL_OK)
+            return st;
+    }
+    if (b->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
+        ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
+                            SL_INGEST_MAX_POINTS);
+        return SL_EINPUT;
+    }
+    if (grow_points(b, b->n_points + 1) != 0)
+        return SL_ENOMEM;
+    st = sl_csv_number(&b->vg[b->n_points], c->csv, (size_t)c->col.vg, c->diag);
+    if (st == SL_OK)
+        st = sl_csv_number(&b->r[b->n_points], c->csv, (size_t)c->col.r, c->diag);
+    b->n_points += st == SL_OK;
+    return st;
+}
+
+/* ---- devices with rows in several places or too few points so far ---- */
+
+static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n, size_t k)
+{
+    ingest_device *d = &c->devices.items[k];
+    double *vg0 = NULL, *r0 = NULL, *vg1 = NULL, *r1 = NULL;
+    size_t n0 = 0, n1 = 0;
+    sl_status st = sl_store_load_sweep(c->store, &vg0, &r0, &n0, d->device_id, c->diag);
+    if (st == SL_OK && d->revisit)
+        st = sl_store_staged_points(c->store, &vg1, &r1, &n1, (long)k, c->diag);
+    if (st == SL_OK) {
+        *vg = realloc(vg0, (n0 + n1 + 1) * sizeof **vg);
+        *r = *vg ? realloc(r0, (n0 + n1 + 1) * sizeof **r) : NULL;
+        if (!*vg || !*r) {
+            free(*vg ? *vg : vg0);
+            free(*r ? *r : r0);
+            st = SL_ENOMEM;
+        } else {
+            memcpy(*vg + n0, vg1, n1 * sizeof **vg);
+            memcpy(*r + n0, r1, n1 * sizeof **r);
+            *n = n0 + n1;
+        }
+    } else {
+        free(vg0);
+        free(r0);
+    }
+    free(vg1);
+    free(r1);
+    return st;
+}
+
+static sl_status refit_device(ingest_ctx *c, size_t k)
+{
+    ingest_device *d = &c->devices.items[k];
+    double *vg = NULL, *r = NULL;
+    size_t n = 0;
+    sl_status st = gather_points(c, &vg, &r, &n, k);
+    if (st != SL_OK)
+        return st;
+    sl_fit_result res = { 0 };
+    sl_status fit_st = SL_EINPUT;
+    if (n < SL_FIT_MIN_POINTS) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
+                    "device '%s' on wafer '%s' has %zu points; a sweep needs at least %d",
+                    d->device, d->wafer, n, SL_FIT_MIN_POINTS);
+        st = SL_EINPUT;
+    } else if (n > SL_INGEST_MAX_POINTS) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
+                    "device '%s' has more than %d points", d->device, SL_INGEST_MAX_POINTS);
+        st = SL_EINPUT;
+    } else {
+        sl_fit_workspace *ws = sl_fit_workspace_new(n);
+        fit_st = ws ? sl_fit_sweep(&res, ws, &c->wafers[d->wafer_index].fit, vg, r, n) : SL_ENOMEM;
+        sl_fit_workspace_free(ws);
+        st = fit_st == SL_ENOMEM ? SL_ENOMEM : SL_OK;
+    }
+    if (st == SL_OK) {
+        sl_store_device dev = { .vg_V = vg, .r_ohm = r, .n_points = n };
+        result_to_device(&dev, &res, fit_st);
+        st = sl_store_update_device(c->store, d->device_id, &dev, c->diag);
+        count_class(c, d, &res, fit_st);
+    }
+    free(vg);
+    free(r);
+    return st;
+}
+
+static sl_status resolve_pending(ingest_ctx *c)
+{
+    for (size_t k = 0; k < c->devices.count; k++) {
+        const ingest_device *d = &c->devices.items[k];
+        if (!d->revisit && d->fit_class >= 0)
+            continue;
+        sl_status st = refit_device(c, k);
+        if (st != SL_OK)
+            return st;
+    }
+    return SL_OK;
+}
+
+sl_status ingest_sweeps(ingest_ctx *c)
+{
+    c->batch = batch_new(c->opt->threads);
+    if (!c->batch)
+        return SL_ENOMEM;
+    bool has = false;
+    sl_status st;
+    while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
+        c->summary->rows++;
+        st = sweep_row(c);
+        if (st != SL_OK)
+            return st;
+    }
+    if (st == SL_OK)
+        st = end_run(c);
+    if (st == SL_OK)
+        st = flush_batch(c);
+    if (st == SL_OK)
+        st = resolve_pending(c);
+    return st;
+}

@@ -1,0 +1,304 @@
+/* SPDX-License-Identifier: MIT
+ * Synthetic lot drawn from a plan's model (see include/splitlot/simulate.h),
+ * with GSL's random generators: for demos, tests and benchmarks only.
+ */
+#include "splitlot/simulate.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
+
+#include "splitlot/fit.h"
+#include "splitlot/physics.h"
+#include "splitlot/predict.h"
+
+#define SL_SIM_MAX_LAYERS 32
+
+typedef enum { DEV_GOOD = 0, DEV_SHIFTED, DEV_SHORT, DEV_OPEN, DEV_CNP_OUTSIDE, DEV_POOR, DEV_UNPROBED } device_kind;
+
+static const char *const kind_names[] = { "good", "shifted", "short", "open",
+                                          "cnp-outside-sweep", "poor-fit", "unprobed" };
+
+typedef struct {
+    const sl_plan *plan;
+    const sl_layout *layout;
+    const sl_simulate_options *opt;
+    gsl_rng *rng;
+    double baseline_true;
+    double *dielectric_true, *treatment_true; /* cm^-2 */
+    FILE *results, *sweeps, *truth;
+    sl_simulate_summary *sum;
+    long fault_counter;
+} sim_ctx;
+
+/* One wafer's drawn stack and offsets. */
+typedef struct {
+    size_t index;
+    long split;
+    double cg;              /* F/m^2 */
+    double doping_offset;   /* cm^-2 */
+    double gate_min_V, gate_max_V;
+    sl_fit_config fit;
+} sim_wafer;
+
+typedef struct {
+    long number, die_x, die_y;
+    device_kind kind;
+    sl_fit_params p;
+    double doping_per_cm2;
+} sim_device;
+
+void sl_simulate_options_default(sl_simulate_options *opt, uint64_t seed)
+{
+    memset(opt, 0, sizeof *opt);
+    opt->seed = seed;
+    opt->points_per_sweep = 201;
+    opt->noise_rel = 0.005;
+    opt->fault_fraction = 0.02;
+    opt->shifted_fraction = 0.005;
+    opt->shift_V = 3.0;
+    opt->wafer_doping_sigma_per_cm2 = 1.0e11;
+    opt->write_sweeps = 1;
+}
+
+static double draw_level(sim_ctx *c, const char *name, sl_est planned, int *used)
+{
+    for (size_t i = 0; i < c->opt->n_overrides; i++)
+        if (strcmp(c->opt->overrides[i].level, name) == 0) {
+            used[i] = 1;
+            return c->opt->overrides[i].doping_per_cm2;
+        }
+    return planned.val + gsl_ran_gaussian(c->rng, planned.sigma);
+}
+
+static void write_level(FILE *f, const char *factor, const char *level, sl_est planned,
+                        double truth)
+{
+    fprintf(f, "%s,%s,%.6g,%.6g,%.6g\n", factor, level, planned.val, planned.sigma, truth);
+}
+
+static sl_status draw_levels(sim_ctx *c, const char *out_dir, sl_diag *diag)
+{
+    const sl_plan *p = c->plan;
+    int *used = calloc(c->opt->n_overrides + 1, sizeof *used);
+    c->dielectric_true = calloc(p->n_dielectrics + 1, sizeof(double));
+    c->treatment_true = calloc(p->n_treatments + 1, sizeof(double));
+    if (!used || !c->dielectric_true || !c->treatment_true) {
+        free(used);
+        return SL_ENOMEM;
+    }
+    c->baseline_true = draw_level(c, "baseline", p->baseline_doping_per_cm2, used);
+    for (size_t i = 0; i < p->n_dielectrics; i++)
+        c->dielectric_true[i] = draw_level(c, p->dielectrics[i].name, p->dielectrics[i].doping_per_cm2, used);
+    for (size_t i = 0; i < p->n_treatments; i++)
+        c->treatment_true[i] = draw_level(c, p->treatments[i].name, p->treatments[i].doping_per_cm2, used);
+    sl_status st = SL_OK;
+    for (size_t i = 0; i < c->opt->n_overrides; i++)
+        if (!used[i]) {
+            sl_diag_error(diag, "--true-doping: '%s' is not a dielectric, treatment or 'baseline' of the plan",
+                          c->opt->overrides[i].level);
+            st = SL_EINPUT;
+        }
+    free(used);
+    if (st != SL_OK)
+        return st;
+    char path[4096];
+    snprintf(path, sizeof path, "%s/levels.csv", out_dir);
+    FILE *f = fopen(path, "w");
+    if (!f) {
+        sl_diag_add(diag, SL_SEV_ERROR, path, 0, 0, "cannot write the file");
+        return SL_EIO;
+    }
+    fprintf(f, "factor,level,planned_per_cm2,planned_sigma_per_cm2,true_per_cm2\n");
+    write_level(f, "baseline", "baseline", p->baseline_doping_per_cm2, c->baseline_true);
+    for (size_t i = 0; i < p->n_dielectrics; i++)
+        write_level(f, "dielectric", p->dielectrics[i].name, p->dielectrics[i].doping_per_cm2,
+                    c->dielectric_true[i]);
+    for (size_t i = 0; i < p->n_treatments; i++)
+        write_level(f, "treatment", p->treatments[i].name, p->treatments[i].doping_per_cm2,
+                    c->treatment_true[i]);
+    return fclose(f) == 0 ? SL_OK : SL_EIO;
+}
+
+static sl_status draw_wafer(sim_ctx *c, sim_wafer *w)
+{
+    const sl_plan *p = c->plan;
+    size_t d = p->splits[w->split].dielectric;
+    sl_layer layers[SL_SIM_MAX_LAYERS];
+    size_t n = 0;
+    sl_status st = sl_plan_stack(p, d, layers, SL_SIM_MAX_LAYERS, &n);
+    if (st != SL_OK)
+        return st;
+    for (size_t i = 0; i < n; i++) {
+        double t = layers[i].thickness_m + gsl_ran_gaussian(c->rng, layers[i].thickness_sigma_m);
+        layers[i].thickness_m = fmax(t, 0.2 * layers[i].thickness_m);
+    }
+    w->cg = sl_physics_stack_capacitance_F_per_m2(layers, n);
+    w->doping_offset = gsl_ran_gaussian(c->rng, c->opt->wafer_doping_sigma_per_cm2);
+    int from_plan;
+    sl_predict_gate_range(&w->gate_min_V, &w->gate_max_V, &from_plan, p, d);
+    sl_fit_config_default(&w->fit, w->cg, p->channel_length_um, p->channel_width_um);
+    return SL_OK;
+}
+
+static device_kind draw_kind(sim_ctx *c)
+{
+    double u = gsl_rng_uniform(c->rng);
+    if (u > c->plan->expected_yield + c->opt->fault_fraction)
+        return DEV_UNPROBED;
+    if (u < c->opt->fault_fraction)
+        return (device_kind)(DEV_SHORT + (c->fault_counter++ % 4));
+    if (u < c->opt->fault_fraction + c->opt->shifted_fraction)
+        return DEV_SHIFTED;
+    return DEV_GOOD;
+}
+
+static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
+{
+    const sl_plan *p = c->plan;
+    const sl_plan_split *s = &p->splits[w->split];
+    double n = c->baseline_true + c->dielectric_true[s->dielectric] + w->doping_offset;
+    for (size_t i = 0; i < s->n_treatments; i++)
+        n += c->treatment_true[s->treatments[i]];
+    double per_cm2_per_V = w->cg / SL_SI_ELEMENTARY_CHARGE * SL_PER_CM2_PER_PER_M2;
+    double device_sigma = p->resolve.present ? p->resolve.device_sigma_V * per_cm2_per_V : 1.5e11;
+    n += gsl_ran_gaussian(c->rng, device_sigma);
+    dev->kind = draw_kind(c);
+    dev->doping_per_cm2 = n;
+    dev->p.cnp_V = -n / per_cm2_per_V;
+    if (dev->kind == DEV_SHIFTED)
+        dev->p.cnp_V += (gsl_rng_uniform(c->rng) < 0.5 ? -1.0 : 1.0) * c->opt->shift_V;
+    if (dev->kind == DEV_CNP_OUTSIDE)
+        dev->p.cnp_V = w->gate_max_V + 0.3 * (w->gate_max_V - w->gate_min_V);
+    double disorder = p->disorder_density_per_cm2 > 0 ? p->disorder_density_per_cm2 : 1.5e11;
+    dev->p.mobility_cm2_per_Vs = 2000.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
+    dev->p.n0_per_cm2 = disorder * exp(gsl_ran_gaussian(c->rng, 0.3));
+    dev->p.r_contact_ohm = 400.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
+}
+
+static double sweep_point_ohm(sim_ctx *c, const sim_wafer *w, const sim_device *dev, double vg)
+{
+    double noise = 1.0 + gsl_ran_gaussian(c->rng, c->opt->noise_rel);
+    switch (dev->kind) {
+    case DEV_SHORT: return 5.0 * noise;
+    case DEV_OPEN: return 5.0e10 * noise;
+    case DEV_POOR: return 1.0e4 * (1.0 + gsl_ran_gaussian(c->rng, 0.3));
+    default: return sl_fit_model_ohm(&dev->p, &w->fit, vg) * noise;
+    }
+}
+
+static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
+{
+    const char *wafer = c->plan->wafers[w->index];
+    long n = c->opt->points_per_sweep;
+    for (long i = 0; i < n; i++) {
+        double vg = w->gate_min_V + (w->gate_max_V - w->gate_min_V) * (double)i / (double)(n - 1);
+        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g\n", wafer, dev->number, dev->die_x,
+                dev->die_y, vg, sweep_point_ohm(c, w, dev, vg));
+    }
+    c->sum->sweep_rows += n;
+}
+
+static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
+{
+    const char *wafer = c->plan->wafers[w->index];
+    int usable = dev->kind == DEV_GOOD || dev->kind == DEV_SHIFTED;
+    fprintf(c->results, "%s,D%03ld,%ld,%ld,", wafer, dev->number, dev->die_x, dev->die_y);
+    if (usable)
+        fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g\n",
+                dev->p.cnp_V + gsl_ran_gaussian(c->rng, 0.02),
+                dev->p.mobility_cm2_per_Vs * (1.0 + gsl_ran_gaussian(c->rng, 0.02)),
+                dev->p.n0_per_cm2, dev->p.r_contact_ohm, c->plan->temperatures_K[0]);
+    else
+        fprintf(c->results, ",,,,%g\n", c->plan->temperatures_K[0]);
+    fprintf(c->truth, "%s,D%03ld,%ld,%ld,%s,%s,%.6g,%.6g,%.6g,%.6g,%.6g,%.6g\n", wafer, dev->number,
+            dev->die_x, dev->die_y, c->plan->splits[w->split].name, kind_names[dev->kind],
+            dev->p.cnp_V, dev->p.mobility_cm2_per_Vs, dev->p.n0_per_cm2, dev->p.r_contact_ohm,
+            dev->doping_per_cm2, w->cg * SL_NF_CM2_PER_F_M2);
+    if (c->opt->write_sweeps && dev->kind != DEV_UNPROBED)
+        write_sweep(c, w, dev);
+    c->sum->devices++;
+    c->sum->faulty += dev->kind >= DEV_SHORT && dev->kind <= DEV_POOR;
+    c->sum->shifted += dev->kind == DEV_SHIFTED;
+}
+
+static sl_status simulate_wafers(sim_ctx *c)
+{
+    const sl_plan *p = c->plan;
+    long per_wafer = c->opt->devices_per_wafer > 0 ? c->opt->devices_per_wafer : p->devices_per_wafer;
+    long cells = p->wafer_rows * p->wafer_cols;
+    for (size_t i = 0; i < c->layout->n_wafers; i++) {
+        sim_wafer w = { .index = i, .split = c->layout->wafers[i].split };
+        if (w.split < 0)
+            continue;
+        sl_status st = draw_wafer(c, &w);
+        if (st != SL_OK)
+            return st;
+        c->sum->wafers++;
+        for (long k = 0; k < per_wafer; k++) {
+            sim_device dev = { .number = k + 1, .die_x = (k % cells) % p->wafer_cols,
+                               .die_y = (k % cells) / p->wafer_cols };
+            draw_device(c, &w, &dev);
+            write_device(c, &w, &dev);
+        }
+    }
+    return SL_OK;
+}
+
+static FILE *open_out(const char *dir, const char *name, const char *header, sl_diag *diag)
+{
+    char path[4096];
+    snprintf(path, sizeof path, "%s/%s", dir, name);
+    FILE *f = fopen(path, "w");
+    if (!f) {
+        sl_diag_add(diag, SL_SEV_ERROR, path, 0, 0, "cannot write the file");
+        return NULL;
+    }
+    setvbuf(f, NULL, _IOFBF, 1 << 20);
+    fputs(header, f);
+    return f;
+}
+
+static sl_status close_out(FILE *f, sl_status st)
+{
+    if (f && fclose(f) != 0 && st == SL_OK)
+        return SL_EIO;
+    return st;
+}
+
+sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const sl_layout *layout,
+                          const sl_simulate_options *options, const char *out_dir,
+                          sl_diag *diag)
+{
+    memset(out, 0, sizeof *out);
+    sim_ctx c = { .plan = plan, .layout = layout, .opt = options, .sum = out };
+    c.rng = gsl_rng_alloc(gsl_rng_mt19937);
+    if (!c.rng)
+        return SL_ENOMEM;
+    gsl_rng_set(c.rng, (unsigned long)(options->seed & 0xffffffffu));
+    sl_status st = draw_levels(&c, out_dir, diag);
+    if (st == SL_OK) {
+        c.results = open_out(out_dir, "results.csv",
+            "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,temperature_K\n", diag);
+        c.sweeps = options->write_sweeps
+                       ? open_out(out_dir, "sweeps.csv", "wafer,device,die_x,die_y,vg_V,r_ohm\n", diag)
+                       : NULL;
+        c.truth = open_out(out_dir, "truth.csv",
+            "wafer,device,die_x,die_y,split,kind,cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,"
+            "doping_per_cm2,gate_capacitance_nF_per_cm2\n", diag);
+        st = (c.results && c.truth && (c.sweeps || !options->write_sweeps)) ? SL_OK : SL_EIO;
+    }
+    if (st == SL_OK)
+        st = simulate_wafers(&c);
+    st = close_out(c.results, st);
+    st = close_out(c.sweeps, st);
+    st = close_out(c.truth, st);
+    free(c.dielectric_true);
+    free(c.treatment_true);
+    gsl_rng_free(c.rng);
+    return st;
+}
