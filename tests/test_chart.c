@@ -152,7 +152,8 @@ END_TEST
 
 START_TEST(test_nice_step_table)
 {
-    /* Expected steps follow from the 1-2-5 rule on span / target. */
+    /* Expected steps follow from the 1-2-5 rule on span / target with the
+     * switch points 1.5, 3 and 7 (common practice for axis ticks). */
     static const struct {
         double span;
         size_t target;
@@ -590,7 +591,9 @@ START_TEST(test_wafer_map_bytes_per_die)
     ck_assert_int_eq(sl_chart_wafer_map_svg(&empty, &map, dies, 0), SL_OK);
     ck_assert_int_eq(sl_chart_wafer_map_svg(&full, &map, dies, SIDE * SIDE), SL_OK);
     double per_die = (double)(full.len - empty.len) / (SIDE * SIDE);
-    ck_assert_msg(per_die < 200.0, "%.1f bytes per die", per_die);
+    /* Budget from the report's 5 MB limit; about 150 today, so 170 catches
+     * any drift before the budget is at risk. */
+    ck_assert_msg(per_die < 170.0, "%.1f bytes per die", per_die);
     assert_svg_sane(sl_chart_buf_str(&full));
     assert_svg_sane(sl_chart_buf_str(&empty));
     sl_chart_buf_free(&empty);

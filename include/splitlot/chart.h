@@ -97,7 +97,9 @@ double sl_chart_scale_value(const sl_chart_scale *scale, double position_px);
 void sl_chart_domain_pad(double *domain_min, double *domain_max);
 
 /* A round step 1, 2 or 5 x 10^k near span / target_count (target_count 0
- * counts as 1). Returns 1 for a non-positive or non-finite span. */
+ * counts as 1): r = span / target scaled into [1, 10) becomes 1 below 1.5,
+ * 2 below 3, 5 below 7, else 10 (the 1-2-5 rule, common practice for axis
+ * ticks). Returns 1 for a non-positive or non-finite span. */
 double sl_chart_nice_step(double span, size_t target_count);
 
 #define SL_CHART_MAX_TICKS 64
@@ -213,8 +215,9 @@ sl_status sl_chart_axis(sl_chart_buf *buf, const sl_chart_rect *plot,
 /* Centre x of category i of count equal bands across plot, px. */
 double sl_chart_band_center_px(const sl_chart_rect *plot, size_t count, size_t i);
 
-/* A bottom axis of count named categories (labels at band centres, slanted
- * when there are many) with a title. Buffer status. */
+/* A bottom axis of count named categories with labels at band centres and
+ * a title. When the labels would collide (about 6 px a character) they are
+ * slanted and the title is left out to keep them legible. Buffer status. */
 sl_status sl_chart_axis_categories(sl_chart_buf *buf, const sl_chart_rect *plot,
                                    const char *const *names, size_t count,
                                    const char *title);
@@ -317,13 +320,17 @@ typedef struct {
     int embed_style;         /* as in sl_chart_frame */
 } sl_chart_wafer_map;
 
-/* A complete <svg> wafer map: circular wafer outline, one element per
- * non-empty die with class="die" (plus " flagged"), data-state="value",
- * "unusable" or "flagged" (a flagged unusable die stays "unusable"),
- * data-x/data-y, a fill from the diverging scale and a <title> tooltip
- * "W01 die (x, y) [device]: value unit"; a colour legend bar and a legend for
- * the unusable and flagged cells; the wafer id as caption. About 140 bytes
- * per die. SL_EINPUT for a bad grid or a die outside it, else buffer status. */
+/* A complete <svg> wafer map: circular wafer outline with a notch at the
+ * bottom, one element per non-empty die (a <path>, or a <g> holding the grey
+ * cell and its x for an unusable die) with class="die" or "die flagged",
+ * data-state="value", "flagged" (a flagged die with a value) or "unusable"
+ * (flagged or not; its outline still shows the flag), data-x and data-y,
+ * a fill from the diverging scale over +/- max_abs and a <title> tooltip
+ * "W01 die (x, y) [device]: value unit". Flagged dies are drawn last so
+ * their heavy outline stays whole. Below the wafer a colour legend bar and
+ * a legend for unusable and flagged cells; the wafer id as caption. About
+ * 150 bytes per die. SL_EINPUT for a bad grid (rows or cols outside
+ * 1..4096, cell_px outside 0..1000) or a die outside it, else buffer status. */
 sl_status sl_chart_wafer_map_svg(sl_chart_buf *buf, const sl_chart_wafer_map *map,
                                  const sl_chart_die *dies, size_t count);
 
