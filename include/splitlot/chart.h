@@ -125,12 +125,15 @@ sl_status sl_chart_ticks_nice(sl_chart_ticks *out, double domain_min, double dom
 sl_status sl_chart_scale_nice(sl_chart_scale *scale, sl_chart_ticks *out_ticks,
                               size_t target_count);
 
-/* Decade ticks 10^k of a log scale inside its domain (at least the two
- * decades around it). SL_EINPUT for a non-log scale. */
+/* Decade ticks 10^k of a log scale that lie inside its domain (none when
+ * the domain holds no whole decade: extend it to decades first, as
+ * sl_chart_xy does). SL_EINPUT for a non-log scale or more than
+ * SL_CHART_MAX_TICKS decades. */
 sl_status sl_chart_ticks_log(sl_chart_ticks *out, const sl_chart_scale *scale);
 
-/* Decimals that print every multiple of step exactly: 0 for steps >= 1,
- * else -floor(log10(step)) for 1/2/5 steps (0.2 -> 1, 0.05 -> 2). */
+/* Decimals that print every multiple of step exactly: the smallest d
+ * (0..15) with step x 10^d a whole number (20 -> 0, 0.2 -> 1, 0.05 -> 2);
+ * 0 for a non-positive or non-finite step. */
 int sl_chart_step_decimals(double step);
 
 /* Format a tick label into out (size bytes): fixed notation with the tick
