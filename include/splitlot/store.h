@@ -117,6 +117,28 @@ sl_status sl_store_record_import(sl_store *store, long lot_id, const char *kind,
 sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
                               long device_id, sl_diag *diag);
 
+/* A stored device as read back for analysis. Names fit in 64 bytes (the
+ * import refuses longer ones). NaN where the column is NULL. */
+typedef struct {
+    long id;
+    char wafer[65], name[65];
+    char fit_class[32], source[8];
+    long die_x, die_y;
+    double temperature_K;
+    double cnp_V, cnp_sigma_V;
+    double mobility_cm2_per_Vs, n0_per_cm2, r_contact_ohm;
+    double rel_rms, r_squared;
+    long n_points;               /* 0 for results rows */
+} sl_store_device_row;
+
+/* Every device of a lot in import order (malloc'd array). */
+sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
+                                long lot_id, sl_diag *diag);
+
+/* Lots in creation order with their newest revision (malloc'd array; clear
+ * each entry with sl_store_lot_clear, then free the array). */
+sl_status sl_store_load_lots(sl_store *store, sl_store_lot **lots, size_t *count, sl_diag *diag);
+
 /* Low-level access for the analysis queries of this module's other files. */
 struct sqlite3;
 struct sqlite3 *sl_store_db(sl_store *store);

@@ -73,6 +73,10 @@ int cli_parse_long(const char *opt, const char *text, long min, long *out);
 /* Database path: the option value, else $SPLITLOT_DB, else "splitlot.db". */
 const char *cli_db_path(const char *option_value);
 
+/* A command that reads the database needs it to exist: otherwise one error
+ * line (and no empty database left behind); returns 0 when it exists. */
+int cli_require_db(const char *path);
+
 /* Usage text printed for --help; returns CLI_EXIT_OK. */
 int cli_print_help(const char *text);
 /* Unknown option or missing argument: one line with a hint; returns 2. */

@@ -10,6 +10,7 @@
 #include <stdarg.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "splitlot/plan.h"
 
@@ -121,4 +122,13 @@ int cli_split_treatment_names(const sl_plan *plan, size_t split, const char **na
     for (size_t i = 0; i < n; i++)
         names[i] = plan->treatments[s->treatments[i]].name;
     return (int)n;
+}
+
+int cli_require_db(const char *path)
+{
+    if (access(path, F_OK) == 0)
+        return 0;
+    cli_usage_error("database '%s' does not exist; run 'splitlot predict PLAN' first "
+                    "(or give --db / SPLITLOT_DB)", path);
+    return -1;
 }

@@ -139,9 +139,9 @@ int cmd_ingest(int argc, char **argv)
     sl_store *store = NULL;
     sl_ingest_summary summary;
     const char *db = cli_db_path(a.db);
-    if (access(db, F_OK) != 0) {
+    if (cli_require_db(db) != 0) {
         sl_diag_free(diag);
-        return cli_usage_error("ingest: database '%s' does not exist; run 'splitlot predict PLAN' first", db);
+        return CLI_EXIT_USAGE;
     }
     sl_status st = sl_store_open(&store, db, diag);
     if (st == SL_OK)

@@ -15,6 +15,7 @@ const cli_command cli_commands[] = {
     { "predict", cmd_predict, "per split and temperature predictions, stored as a plan revision" },
     { "simulate", cmd_simulate, "write a synthetic lot drawn from the plan (demo data)" },
     { "ingest", cmd_ingest, "import device results or transfer sweeps (fitted) into a lot" },
+    { "compare", cmd_compare, "every device against its prediction, flags, effects, failure list" },
     { NULL, NULL, NULL },
 };
 

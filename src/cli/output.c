@@ -463,8 +463,11 @@ static void print_text_table(const cli_table *t, FILE *out)
     }
     if (t->title && *t->title)
         fprintf(out, "%s\n", t->title);
-    for (int c = 0; c < t->ncols; c++)
-        fprintf(out, "%s%*s", c ? "  " : "", is_numeric(&t->cols[c]) ? width[c] : -width[c], t->cols[c].header);
+    for (int c = 0; c < t->ncols; c++) {
+        int last_text = c == t->ncols - 1 && !is_numeric(&t->cols[c]);
+        fprintf(out, "%s%*s", c ? "  " : "", last_text ? 0 : (is_numeric(&t->cols[c]) ? width[c] : -width[c]),
+                t->cols[c].header);
+    }
     fputc('\n', out);
     for (size_t r = 0; r < t->nrows; r++) {
         for (int c = 0; c < t->ncols; c++) {

@@ -1,0 +1,135 @@
+/* SPDX-License-Identifier: MIT
+ * Analysis of a measured lot against its plan: every device against its
+ * prediction with robust outlier and off-prediction flags, split summaries,
+ * the main-effects estimate of every dielectric and treatment level (wafer
+ * means as the experimental unit), one-way ANOVA across splits, the
+ * failure-analysis list, and the history of level estimates across lots.
+ * Reads the store; prints nothing.
+ */
+#ifndef SPLITLOT_ANALYZE_H
+#define SPLITLOT_ANALYZE_H
+
+#include <stddef.h>
+
+#include "splitlot/error.h"
+#include "splitlot/plan.h"
+#include "splitlot/stats.h"
+#include "splitlot/store.h"
+
+/* Device flags (bits). */
+#define SL_FLAG_OUTLIER        0x01u /* |modified z| within the split > 3.5 */
+#define SL_FLAG_OFF_PREDICTION 0x02u /* outside the 99.7 % prediction interval */
+#define SL_FLAG_FIT_CLASS      0x04u /* extraction failed (short, open, ...) */
+#define SL_FLAG_UNMEASURED     0x08u /* probed, no neutrality point reported */
+
+/* Half-width of the off-prediction interval in combined sigmas (99.7 %). */
+#define SL_ANALYZE_INTERVAL_SIGMAS 3.0
+
+typedef struct {
+    long device_id;
+    const char *wafer, *device;  /* owned by the analysis */
+    long die_x, die_y;
+    long split;                  /* index into plan->splits */
+    const char *fit_class;       /* "ok", "unmeasured", "short", ... */
+    double cnp_predicted_V, cnp_predicted_sigma_V;
+    double cnp_measured_V;       /* NaN when not usable */
+    double deviation_V;          /* measured - predicted */
+    double z;                    /* deviation / sqrt(pred sigma^2 + device spread^2) */
+    double modified_z;           /* within the split */
+    double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
+    double mobility_cm2_per_Vs;
+    unsigned flags;
+    double severity;             /* for ordering the failure-analysis list */
+    char reason[192];            /* the flag in words; "" when not flagged */
+} sl_analyze_device;
+
+typedef struct {
+    size_t split;
+    size_t n_devices, n_usable;  /* usable: measured, extraction ok */
+    double cnp_predicted_V, cnp_predicted_sigma_V;
+    sl_stats_summary cnp;        /* measured V_cnp of usable devices, 95 % CI */
+    double spread_V;             /* robust device spread (1.4826 MAD, else SD) */
+    double bias_V;               /* mean - predicted */
+    int prediction_in_ci;
+    size_t n_flagged;
+} sl_analyze_split;
+
+typedef struct {
+    const char *factor, *level, *reference;  /* owned by the plan */
+    int is_intercept;            /* baseline + reference levels */
+    double planned_per_cm2, planned_sigma_per_cm2;  /* difference from reference */
+    double estimated_per_cm2, stderr_per_cm2;
+    int off_plan;
+    size_t n_wafers;             /* wafers at this level with usable devices */
+} sl_analyze_effect;
+
+typedef struct sl_analysis {
+    sl_store_lot lot;
+    sl_plan *plan;
+    sl_analyze_device *devices;
+    size_t n_devices;
+    sl_analyze_split *splits;
+    size_t n_splits;
+    sl_analyze_effect *effects;
+    size_t n_effects;
+    int effects_status;          /* SL_OK, or why no effects could be estimated */
+    char effects_note[256];
+    sl_stats_anova anova;        /* of measured doping across splits */
+    size_t *flagged;             /* device indices, most severe first */
+    size_t n_flagged;
+    size_t n_usable;
+    size_t n_off_plan;
+    size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
+    double *split_gate_min_V, *split_gate_max_V;
+    double *split_capacitance_F_per_m2;
+} sl_analysis;
+
+/* Analyse a lot of an open store (its newest plan revision and devices).
+ * Returns SL_OK, SL_ENOTFOUND (unknown lot, message lists known ones), SL_EDB,
+ * SL_ENOMEM. A lot without usable devices analyses to empty summaries. */
+sl_status sl_analyze_lot(sl_analysis **out, sl_store *store, const char *lot, sl_diag *diag);
+void sl_analysis_free(sl_analysis *analysis);
+
+/* Flag names of a device, in a fixed order, into names (at most 4); returns
+ * the count: "outlier", "off-prediction", the fit class, "unmeasured". */
+int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
+
+/* ---- history across lots ---- */
+
+typedef struct {
+    const char *lot;             /* owned by the history */
+    const char *created_utc;
+    double estimated_per_cm2, stderr_per_cm2;
+    int drift;                   /* outside the individuals-chart limits */
+} sl_history_point;
+
+typedef struct {
+    char *factor, *level, *reference;
+    int is_intercept;
+    double planned_per_cm2, planned_sigma_per_cm2; /* from the newest lot's plan */
+    sl_history_point *points;    /* in lot creation order */
+    size_t n_points;
+    sl_stats_pooled pooled;      /* inverse-variance pooled over lots */
+    sl_stats_ichart chart;       /* individuals chart of the estimates */
+    size_t n_drift;
+} sl_history_level;
+
+typedef struct sl_history {
+    sl_history_level *levels;
+    size_t n_levels;
+    size_t n_lots;               /* lots with effect estimates */
+    char **lot_names;            /* every lot, creation order */
+    char **lot_created;
+    size_t n_lot_names;
+    sl_plan *newest_plan;        /* for calibrated YAML */
+} sl_history;
+
+/* Effects of every lot in the store, grouped by level. */
+sl_status sl_analyze_history(sl_history **out, sl_store *store, sl_diag *diag);
+void sl_history_free(sl_history *history);
+
+/* Calibrated plan YAML (baseline, dielectrics with layers, treatments) from
+ * the pooled estimates, into a malloc'd string. */
+sl_status sl_history_emit_yaml(char **yaml, const sl_history *history);
+
+#endif

@@ -1,0 +1,252 @@
+/* SPDX-License-Identifier: MIT
+ * `splitlot compare --lot ID`: every device against its prediction with its
+ * flags, split summaries, level effects against the plan, the ANOVA across
+ * splits, and the failure-analysis list; exit 3 on flags with --fail-on-flags.
+ */
+#include "cli.h"
+
+#include <getopt.h>
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+
+#include "splitlot/analyze.h"
+
+static const char usage[] =
+    "usage: splitlot compare --lot ID [options]\n\n"
+    "Compare every measured device of a lot with its split's prediction: deviation,\n"
+    "z against the prediction interval, flags (outlier: modified z within the split\n"
+    "beyond 3.5; off-prediction: outside the 99.7 % interval; extraction failures).\n"
+    "Then split summaries, each level's estimated doping against the plan (wafer\n"
+    "means as the experimental unit), a one-way ANOVA across splits and the list\n"
+    "of flagged devices for failure analysis, most severe first.\n\n"
+    "  --lot ID                  the lot\n"
+    "  --only-flagged            devices: only the flagged ones\n"
+    "  --fail-on-flags           exit 3 when any device or level is flagged\n"
+    "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
+    "  --format table|csv|json   output format (default table)\n"
+    "  --help                    this text\n";
+
+enum { OPT_LOT = 1, OPT_ONLY_FLAGGED, OPT_FAIL, OPT_DB, OPT_FORMAT, OPT_HELP };
+
+static const struct option options[] = {
+    { "lot", required_argument, NULL, OPT_LOT },
+    { "only-flagged", no_argument, NULL, OPT_ONLY_FLAGGED },
+    { "fail-on-flags", no_argument, NULL, OPT_FAIL },
+    { "db", required_argument, NULL, OPT_DB },
+    { "format", required_argument, NULL, OPT_FORMAT },
+    { "help", no_argument, NULL, OPT_HELP },
+    { NULL, 0, NULL, 0 },
+};
+
+typedef struct {
+    const char *lot, *db;
+    int only_flagged, fail_on_flags;
+    cli_format format;
+} compare_args;
+
+static void devices_table(cli_doc *doc, const sl_analysis *a, const compare_args *args)
+{
+    int table = args->format == CLI_FORMAT_TABLE;
+    cli_table *t = cli_doc_table(doc, "devices", "devices (V; doping in cm^-2)");
+    cli_table_col_str(t, "wafer", "wafer");
+    cli_table_col_str(t, "device", "device");
+    if (!table) {
+        cli_table_col_int(t, "die_x", "x");
+        cli_table_col_int(t, "die_y", "y");
+    }
+    cli_table_col_str(t, "split", "split");
+    cli_table_col_fixed(t, "cnp_predicted_V", "pred", 2);
+    cli_table_col_fixed(t, "cnp_predicted_sigma_V", "+/-", 2);
+    cli_table_col_fixed(t, "cnp_measured_V", "meas", 2);
+    cli_table_col_fixed(t, "deviation_V", "dev", 2);
+    cli_table_col_fixed(t, "z", "z", 2);
+    cli_table_col_num(t, "doping_measured_per_cm2", "doping", 3);
+    if (!table)
+        cli_table_col_fixed(t, "modified_z", "M", 2);
+    cli_table_col_list(t, "flags", "flags");
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        if (args->only_flagged && !d->flags)
+            continue;
+        const char *names[4];
+        cli_table_row(t);
+        cli_cell_str(t, d->wafer);
+        cli_cell_str(t, d->device);
+        if (!table) {
+            cli_cell_int(t, d->die_x);
+            cli_cell_int(t, d->die_y);
+        }
+        cli_cell_str(t, a->plan->splits[d->split].name);
+        cli_cell_num(t, d->cnp_predicted_V);
+        cli_cell_num(t, d->cnp_predicted_sigma_V);
+        cli_cell_num(t, d->cnp_measured_V);
+        cli_cell_num(t, d->deviation_V);
+        cli_cell_num(t, d->z);
+        cli_cell_num(t, d->doping_measured_per_cm2);
+        if (!table)
+            cli_cell_num(t, d->modified_z);
+        cli_cell_list(t, names, sl_analyze_flag_names(d, names));
+    }
+}
+
+static void splits_table(cli_doc *doc, const sl_analysis *a)
+{
+    cli_table *t = cli_doc_table(doc, "splits", "splits (neutrality voltage, V; 95 % CI by Student t)");
+    cli_table_col_str(t, "split", "split");
+    cli_table_col_int(t, "devices", "dev");
+    cli_table_col_int(t, "usable", "ok");
+    cli_table_col_fixed(t, "cnp_predicted_V", "pred", 2);
+    cli_table_col_fixed(t, "cnp_mean_V", "mean", 2);
+    cli_table_col_fixed(t, "cnp_sd_V", "sd", 2);
+    cli_table_col_range(t, "cnp_ci95_V", "95% CI", 3);
+    cli_table_col_fixed(t, "bias_V", "bias", 2);
+    cli_table_col_bool(t, "prediction_in_ci", "in CI");
+    cli_table_col_int(t, "flagged", "flagged");
+    for (size_t s = 0; s < a->n_splits; s++) {
+        const sl_analyze_split *sp = &a->splits[s];
+        cli_table_row(t);
+        cli_cell_str(t, a->plan->splits[s].name);
+        cli_cell_int(t, (long)sp->n_devices);
+        cli_cell_int(t, (long)sp->n_usable);
+        cli_cell_num(t, sp->cnp_predicted_V);
+        cli_cell_num(t, sp->cnp.mean);
+        cli_cell_num(t, sp->cnp.sd);
+        cli_cell_range(t, sp->cnp.ci_low, sp->cnp.ci_high);
+        cli_cell_num(t, sp->bias_V);
+        if (sp->n_usable >= 2)
+            cli_cell_bool(t, sp->prediction_in_ci);
+        else
+            cli_cell_num(t, NAN);
+        cli_cell_int(t, (long)sp->n_flagged);
+    }
+}
+
+static void effects_table(cli_doc *doc, const sl_analysis *a)
+{
+    cli_table *t = cli_doc_table(doc, "effects",
+                                 "level effects (doping, cm^-2, difference from the reference level)");
+    cli_table_col_str(t, "factor", "factor");
+    cli_table_col_str(t, "level", "level");
+    cli_table_col_str(t, "reference", "vs");
+    cli_table_col_num(t, "planned_per_cm2", "planned", 3);
+    cli_table_col_num(t, "planned_sigma_per_cm2", "+/-", 2);
+    cli_table_col_num(t, "estimated_per_cm2", "estimated", 3);
+    cli_table_col_num(t, "stderr_per_cm2", "SE", 2);
+    cli_table_col_int(t, "wafers", "wafers");
+    cli_table_col_list(t, "flags", "flags");
+    for (size_t i = 0; i < a->n_effects; i++) {
+        const sl_analyze_effect *e = &a->effects[i];
+        const char *flag = "off-plan";
+        cli_table_row(t);
+        cli_cell_str(t, e->factor);
+        cli_cell_str(t, e->level);
+        cli_cell_str(t, e->is_intercept ? "-" : e->reference);
+        cli_cell_num(t, e->planned_per_cm2);
+        cli_cell_num(t, e->planned_sigma_per_cm2);
+        cli_cell_num(t, e->estimated_per_cm2);
+        cli_cell_num(t, e->stderr_per_cm2);
+        cli_cell_int(t, (long)e->n_wafers);
+        cli_cell_list(t, &flag, e->off_plan ? 1 : 0);
+    }
+}
+
+static void failure_table(cli_doc *doc, const sl_analysis *a)
+{
+    cli_table *t = cli_doc_table(doc, "failure_analysis", "failure analysis, most severe first");
+    cli_table_col_int(t, "rank", "#");
+    cli_table_col_str(t, "wafer", "wafer");
+    cli_table_col_str(t, "device", "device");
+    cli_table_col_int(t, "die_x", "x");
+    cli_table_col_int(t, "die_y", "y");
+    cli_table_col_str(t, "split", "split");
+    cli_table_col_str(t, "reason", "reason");
+    for (size_t k = 0; k < a->n_flagged; k++) {
+        const sl_analyze_device *d = &a->devices[a->flagged[k]];
+        cli_table_row(t);
+        cli_cell_int(t, (long)k + 1);
+        cli_cell_str(t, d->wafer);
+        cli_cell_str(t, d->device);
+        cli_cell_int(t, d->die_x);
+        cli_cell_int(t, d->die_y);
+        cli_cell_str(t, a->plan->splits[d->split].name);
+        cli_cell_str(t, d->reason);
+    }
+}
+
+static void add_summary(cli_doc *doc, const sl_analysis *a)
+{
+    char text[512];
+    cli_doc_str(doc, "lot", a->lot.lot);
+    cli_doc_num(doc, "plan_revision", a->lot.revision, 6);
+    cli_doc_num(doc, "devices", (double)a->n_devices, 15);
+    cli_doc_num(doc, "usable", (double)a->n_usable, 15);
+    cli_doc_num(doc, "flagged", (double)a->n_flagged, 15);
+    cli_doc_num(doc, "levels_off_plan", (double)a->n_off_plan, 15);
+    cli_doc_num(doc, "anova_F", a->anova.f, 5);
+    cli_doc_num(doc, "anova_p", a->anova.p, 3);
+    if (a->effects_status != SL_OK)
+        cli_doc_note(doc, a->effects_note);
+    snprintf(text, sizeof text,
+             "ANOVA of measured doping across %zu splits: F(%g, %g) = %.4g, p = %.3g.",
+             a->anova.n_groups, a->anova.df_between, a->anova.df_within, a->anova.f, a->anova.p);
+    cli_doc_note(doc, text);
+}
+
+static int run_compare(const compare_args *args)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    sl_status st = sl_store_open(&store, args->db, diag);
+    if (st == SL_OK)
+        st = sl_analyze_lot(&a, store, args->lot, diag);
+    int rc = CLI_EXIT_OK;
+    if (st != SL_OK) {
+        rc = cli_fail(st, diag);
+    } else {
+        cli_doc *doc = cli_doc_new();
+        add_summary(doc, a);
+        devices_table(doc, a, args);
+        splits_table(doc, a);
+        effects_table(doc, a);
+        failure_table(doc, a);
+        if (cli_doc_print(doc, args->format, stdout) != 0)
+            rc = cli_runtime_error("cannot write output");
+        else if (args->fail_on_flags && (a->n_flagged || a->n_off_plan))
+            rc = CLI_EXIT_FLAGGED;
+        cli_doc_free(doc);
+    }
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    return rc;
+}
+
+int cmd_compare(int argc, char **argv)
+{
+    compare_args a = { .format = CLI_FORMAT_TABLE };
+    int opt;
+    while ((opt = getopt_long(argc, argv, "", options, NULL)) != -1) {
+        switch (opt) {
+        case OPT_HELP: return cli_print_help(usage);
+        case OPT_LOT: a.lot = optarg; break;
+        case OPT_ONLY_FLAGGED: a.only_flagged = 1; break;
+        case OPT_FAIL: a.fail_on_flags = 1; break;
+        case OPT_DB: a.db = optarg; break;
+        case OPT_FORMAT:
+            if (cli_format_parse(optarg, &a.format) != 0)
+                return cli_usage_error("--format: '%s' is not one of table, csv, json", optarg);
+            break;
+        default: return cli_bad_option("compare", argv[optind - 1]);
+        }
+    }
+    if (optind < argc)
+        return cli_usage_error("compare: unexpected argument '%s'", argv[optind]);
+    if (!a.lot)
+        return cli_usage_error("compare: --lot is required (see 'splitlot compare --help')");
+    a.db = cli_db_path(a.db);
+    if (cli_require_db(a.db) != 0)
+        return CLI_EXIT_USAGE;
+    return run_compare(&a);
+}
