@@ -72,7 +72,7 @@ static double draw_level(sim_ctx *c, const char *name, sl_est planned, int *used
             used[i] = 1;
             return c->opt->overrides[i].doping_per_cm2;
         }
-    return planned.val + gsl_ran_gaussian(c->rng, planned.sigma);
+    return planned.val + (c->opt->draw_levels ? gsl_ran_gaussian(c->rng, planned.sigma) : 0.0);
 }
 
 static void write_level(FILE *f, const char *factor, const char *level, sl_est planned,

@@ -1,6 +1,7 @@
 /* SPDX-License-Identifier: MIT
  * Synthetic lots for demos, tests and benchmarks, drawn from a plan's own
- * model: per-lot true level dopings, per-wafer layer thicknesses and doping,
+ * model: true level dopings (the planned means, drawn from the plan's sigmas
+ * on request, or set by overrides), per-wafer layer thicknesses and doping,
  * per-device doping scatter, mobility, residual density and contact
  * resistance, measurement noise, and a few faulty devices of each kind.
  * Writes results.csv, sweeps.csv and the truth (truth.csv, levels.csv).
@@ -31,6 +32,8 @@ typedef struct {
     double wafer_doping_sigma_per_cm2; /* wafer-to-wafer scatter, default 1e11 */
     long devices_per_wafer;        /* 0: the plan's */
     int write_sweeps;              /* write sweeps.csv (default on) */
+    int draw_levels;               /* draw each level's true doping from the plan's
+                                      sigma (default off: the planned mean) */
     const sl_simulate_override *overrides;
     size_t n_overrides;
 } sl_simulate_options;

@@ -28,10 +28,12 @@ static const char usage[] =
     "  --devices-per-wafer N     override the plan's devices per wafer\n"
     "  --true-doping LEVEL=N     the doping (cm^-2) a dielectric, treatment or\n"
     "                            'baseline' really delivers (repeatable)\n"
+    "  --draw-levels             draw each level's true doping from the plan's sigma\n"
+    "                            (default: levels deliver their planned means)\n"
     "  --no-sweeps               write results.csv and the truth only\n"
     "  --help                    this text\n";
 
-enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_HELP };
+enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_DRAW, OPT_HELP };
 
 static const struct option options[] = {
     { "out", required_argument, NULL, OPT_OUT },
@@ -42,6 +44,7 @@ static const struct option options[] = {
     { "devices-per-wafer", required_argument, NULL, OPT_DEVICES },
     { "true-doping", required_argument, NULL, OPT_TRUE },
     { "no-sweeps", no_argument, NULL, OPT_NO_SWEEPS },
+    { "draw-levels", no_argument, NULL, OPT_DRAW },
     { "help", no_argument, NULL, OPT_HELP },
     { NULL, 0, NULL, 0 },
 };
@@ -103,6 +106,7 @@ static int parse_option(simulate_args *a, int opt, const char *val)
         return 0;
     case OPT_TRUE: return parse_override(a, val);
     case OPT_NO_SWEEPS: a->sim.write_sweeps = 0; return 0;
+    case OPT_DRAW: a->sim.draw_levels = 1; return 0;
     }
     return -1;
 }
