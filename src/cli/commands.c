@@ -16,6 +16,7 @@ const cli_command cli_commands[] = {
     { "simulate", cmd_simulate, "write a synthetic lot drawn from the plan (demo data)" },
     { "ingest", cmd_ingest, "import device results or transfer sweeps (fitted) into a lot" },
     { "compare", cmd_compare, "every device against its prediction, flags, effects, failure list" },
+    { "history", cmd_history, "level estimates across lots, pooled values, drift, calibrated YAML" },
     { NULL, NULL, NULL },
 };
 

@@ -1,0 +1,168 @@
+/* SPDX-License-Identifier: MIT
+ * Calibrated plan YAML from the history across lots: the pooled doping of
+ * every measured level, turned back into absolute values with the newest
+ * plan's reference levels, as baseline, materials, dielectrics and treatments
+ * blocks that can be pasted into the next plan.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "analyze_internal.h"
+
+static const sl_history_level *history_level(const sl_history *h, const char *factor,
+                                             const char *level, const char *reference)
+{
+    for (size_t i = 0; i < h->n_levels; i++) {
+        const sl_history_level *l = &h->levels[i];
+        if (strcmp(l->factor, factor) == 0 && strcmp(l->level, level) == 0 &&
+            strcmp(l->reference, reference) == 0 && isfinite(l->pooled.value))
+            return l;
+    }
+    return NULL;
+}
+
+/* Lot-to-lot SD of a level's estimates (NaN with fewer than two). */
+static double lot_sd(const sl_history_level *l)
+{
+    if (l->n_points < 2)
+        return NAN;
+    double *x = malloc(l->n_points * sizeof *x);
+    if (!x)
+        return NAN;
+    for (size_t i = 0; i < l->n_points; i++)
+        x[i] = l->points[i].estimated_per_cm2;
+    sl_stats_summary s;
+    double sd = sl_stats_summarize(&s, x, l->n_points, 0.95) == SL_OK ? s.sd : NAN;
+    free(x);
+    return sd;
+}
+
+/* Calibrated absolute doping of a factor's level; planned when unmeasured. */
+static sl_est calibrated(const sl_history *h, size_t factor, size_t level, int *measured)
+{
+    const sl_plan *p = h->newest_plan;
+    const sl_plan_factor *f = &p->factors[factor];
+    sl_est planned = sl_analyze_planned_level(p, factor, level);
+    *measured = 0;
+    if (level == 0)
+        return planned;
+    const sl_history_level *l = history_level(h, f->name, f->levels[level], f->levels[0]);
+    if (!l)
+        return planned;
+    *measured = 1;
+    double sd = lot_sd(l);
+    sl_est v = { sl_analyze_planned_level(p, factor, 0).val + l->pooled.value, l->pooled.se };
+    if (isfinite(sd) && sd > v.sigma)
+        v.sigma = sd;
+    return v;
+}
+
+static void emit_doping(FILE *out, sl_est v)
+{
+    fprintf(out, "{ mean: %.4g, sigma: %.4g }", v.val, fabs(v.sigma));
+}
+
+static void emit_baseline(FILE *out, const sl_history *h)
+{
+    const sl_plan *p = h->newest_plan;
+    const sl_history_level *l = history_level(h, "intercept", "baseline", p->factors[0].levels[0]);
+    sl_est v = p->baseline_doping_per_cm2;
+    if (l) {
+        v.val = l->pooled.value;
+        for (size_t f = 0; f < p->n_factors; f++)
+            v.val -= sl_analyze_planned_level(p, f, 0).val;
+        double sd = lot_sd(l);
+        v.sigma = isfinite(sd) && sd > l->pooled.se ? sd : l->pooled.se;
+    }
+    fprintf(out, "baseline_doping_per_cm2: ");
+    emit_doping(out, v);
+    fprintf(out, "%s\n", l ? "   # with the reference levels as planned" : "   # not measured: planned value");
+}
+
+static void emit_materials(FILE *out, const sl_plan *p)
+{
+    int any = 0;
+    for (size_t i = 0; i < p->n_materials; i++) {
+        const sl_plan_material *m = &p->materials[i];
+        const sl_material *b = sl_physics_material_find(m->name);
+        if (b && b->relative_permittivity == m->relative_permittivity &&
+            b->breakdown_MV_per_cm == m->breakdown_MV_per_cm)
+            continue;
+        if (!any++)
+            fprintf(out, "materials:\n");
+        fprintf(out, "  - { name: %s, relative_permittivity: %.6g, breakdown_MV_per_cm: %.6g }\n",
+                m->name, m->relative_permittivity, m->breakdown_MV_per_cm);
+    }
+}
+
+static long level_of(const sl_plan_factor *f, long ref)
+{
+    for (size_t l = 0; l < f->n_levels; l++)
+        if (f->level_ref[l] == ref)
+            return (long)l;
+    return -1;
+}
+
+static void emit_dielectrics(FILE *out, const sl_history *h)
+{
+    const sl_plan *p = h->newest_plan;
+    fprintf(out, "dielectrics:\n");
+    for (size_t d = 0; d < p->n_dielectrics; d++) {
+        const sl_plan_dielectric *di = &p->dielectrics[d];
+        long level = level_of(&p->factors[0], (long)d);
+        int measured = 0;
+        sl_est v = level >= 0 ? calibrated(h, 0, (size_t)level, &measured) : di->doping_per_cm2;
+        fprintf(out, "  - name: %s\n    layers:\n", di->name);
+        for (size_t i = 0; i < di->n_layers; i++)
+            fprintf(out, "      - { material: %s, thickness_nm: %.6g, sigma_nm: %.6g }\n",
+                    di->layers[i].material, di->layers[i].thickness_nm, di->layers[i].sigma_nm);
+        fprintf(out, "    doping_per_cm2: ");
+        emit_doping(out, v);
+        fprintf(out, "%s\n", measured ? "" : level == 0 ? "   # reference level: planned value"
+                                                        : "   # not measured: planned value");
+        if (di->has_gate_range)
+            fprintf(out, "    gate_range_V: [%.6g, %.6g]\n", di->gate_range_V[0], di->gate_range_V[1]);
+    }
+}
+
+static void emit_treatments(FILE *out, const sl_history *h)
+{
+    const sl_plan *p = h->newest_plan;
+    if (p->n_treatments == 0)
+        return;
+    fprintf(out, "treatments:\n");
+    for (size_t t = 0; t < p->n_treatments; t++) {
+        sl_est v = p->treatments[t].doping_per_cm2;
+        int measured = 0;
+        for (size_t f = 1; f < p->n_factors && !measured; f++) {
+            long level = level_of(&p->factors[f], (long)t);
+            if (level >= 0)
+                v = calibrated(h, f, (size_t)level, &measured);
+        }
+        fprintf(out, "  - { name: %s, doping_per_cm2: ", p->treatments[t].name);
+        emit_doping(out, v);
+        fprintf(out, " }%s\n", measured ? "" : "   # not measured: planned value");
+    }
+}
+
+sl_status sl_history_emit_yaml(char **yaml, const sl_history *h)
+{
+    *yaml = NULL;
+    if (!h->newest_plan)
+        return SL_ENOTFOUND;
+    size_t size = 0;
+    FILE *out = open_memstream(yaml, &size);
+    if (!out)
+        return SL_ENOMEM;
+    fprintf(out, "# Calibrated doping from %zu lot(s) with effect estimates; means are\n"
+                 "# inverse-variance pooled, sigmas the larger of the pooled standard error\n"
+                 "# and the lot-to-lot SD. Paste over the same keys of the next plan.\n",
+            h->n_lots);
+    emit_baseline(out, h);
+    emit_materials(out, h->newest_plan);
+    emit_dielectrics(out, h);
+    emit_treatments(out, h);
+    return fclose(out) == 0 && *yaml ? SL_OK : SL_ENOMEM;
+}
