@@ -493,60 +493,66 @@ typedef enum { NUM_OK, NUM_EMPTY, NUM_JUNK, NUM_RANGE } num_status;
 
 typedef struct {
     bool negative;
+    bool truncated;        /* more than 19 significant digits */
     uint64_t mantissa;     /* first 19 significant digits */
-    int sig_digits;        /* significant digits seen (all of them) */
-    long exp10;            /* value = mantissa * 10^exp10 when sig_digits <= 19 */
-    bool nonzero;
+    long exp10;            /* value ~ mantissa * 10^exp10 */
 } decimal;
 
-static bool is_digit(char c) { return c >= '0' && c <= '9'; }
+static unsigned digit_value(char c) { return (unsigned)((unsigned char)c - '0'); }
 
-static void take_digit(decimal *d, char c, bool after_point)
+/* Digits into the mantissa; leading zeros count no significant digit. Past
+ * 19 significant digits the rest is dropped (strtod then decides). Returns
+ * the number of digits read; *scale gets how the exponent moves. */
+static int take_digits(decimal *d, const char **sp, const char *end, int *sig, bool fraction)
 {
-    if (c != '0')
-        d->nonzero = true;
-    if (d->sig_digits == 0 && c == '0') {
-        if (after_point)
-            d->exp10--;
-        return;   /* leading zero */
+    const char *s = *sp;
+    long scale = 0;
+    for (; s < end && digit_value(*s) < 10; s++) {
+        if (*sig < 19) {
+            d->mantissa = d->mantissa * 10u + digit_value(*s);
+            *sig += d->mantissa != 0;
+            scale -= fraction;
+        } else {
+            d->truncated = true;
+            scale += !fraction;
+        }
     }
-    if (d->sig_digits < 19) {
-        d->mantissa = d->mantissa * 10u + (uint64_t)(c - '0');
-        if (after_point)
-            d->exp10--;
-    } else if (!after_point) {
-        d->exp10++;
-    }
-    d->sig_digits++;
+    d->exp10 += scale;
+    int n = (int)(s - *sp);
+    *sp = s;
+    return n;
+}
+
+static bool take_exponent(decimal *d, const char *s, const char *end)
+{
+    bool neg = false;
+    if (s < end && (*s == '+' || *s == '-'))
+        neg = *s++ == '-';
+    if (s == end)
+        return false;
+    long e = 0;
+    for (; s < end && digit_value(*s) < 10; s++)
+        e = e < 100000 ? e * 10 + (long)digit_value(*s) : e;
+    d->exp10 += neg ? -e : e;
+    return s == end;
 }
 
 /* Grammar: [+-] (digits [. digits*] | . digits) [(e|E) [+-] digits]. */
 static bool scan_decimal(decimal *d, const char *s, const char *end)
 {
     memset(d, 0, sizeof *d);
-    if (s < end && (*s == '+' || *s == '-'))
+    if (*s == '+' || *s == '-')
         d->negative = *s++ == '-';
-    int digits = 0;
-    for (; s < end && is_digit(*s); s++, digits++)
-        take_digit(d, *s, false);
-    if (s < end && *s == '.')
-        for (s++; s < end && is_digit(*s); s++, digits++)
-            take_digit(d, *s, true);
+    int sig = 0, digits = take_digits(d, &s, end, &sig, false);
+    if (s < end && *s == '.') {
+        s++;
+        digits += take_digits(d, &s, end, &sig, true);
+    }
     if (digits == 0)
         return false;
-    if (s < end && (*s == 'e' || *s == 'E')) {
-        s++;
-        bool neg = false;
-        if (s < end && (*s == '+' || *s == '-'))
-            neg = *s++ == '-';
-        if (s == end || !is_digit(*s))
-            return false;
-        long e = 0;
-        for (; s < end && is_digit(*s); s++)
-            e = e < 100000 ? e * 10 + (*s - '0') : e;
-        d->exp10 += neg ? -e : e;
-    }
-    return s == end;
+    if (s == end)
+        return true;
+    return (*s == 'e' || *s == 'E') && take_exponent(d, s + 1, end);
 }
 
 /* Exact powers of ten representable in a double. */
@@ -560,7 +566,7 @@ static const double exact_pow10[] = {
 static bool fast_value(double *out, const decimal *d)
 {
 #if FLT_EVAL_METHOD == 0
-    if (d->sig_digits > 19 || d->mantissa > (UINT64_C(1) << 53) || d->exp10 < -22 ||
+    if (d->truncated || d->mantissa > (UINT64_C(1) << 53) || d->exp10 < -22 ||
         d->exp10 > 22)
         return false;
     double m = (double)d->mantissa;
@@ -587,7 +593,7 @@ static num_status parse_number(double *out, const char *s, size_t len)
     /* The grammar was checked, so strtod reads exactly this token; it stops
      * at the trailing blank or the NUL that ends every field. */
     double v = strtod(s, NULL);
-    if (v == HUGE_VAL || v == -HUGE_VAL || (v == 0.0 && d.nonzero))
+    if (v == HUGE_VAL || v == -HUGE_VAL || (v == 0.0 && d.mantissa != 0))
         return NUM_RANGE;
     *out = v;
     return NUM_OK;

@@ -27,7 +27,7 @@
 /* |Spearman rho| from which a curve peaking at an end counts as monotonic
  * (common practice: a clear trend, not a chance ordering of noise). */
 #define MONOTONIC_MIN_RANK_CORRELATION 0.8
-#define XTOL 1e-7
+#define XTOL 1e-6
 #define GTOL 1e-12
 #define FTOL 0.0
 

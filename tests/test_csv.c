@@ -365,6 +365,17 @@ START_TEST(header_only_is_not_an_error)
 }
 END_TEST
 
+START_TEST(unnamed_columns_allowed)
+{
+    sl_csv *csv;
+    ck_assert_int_eq(open_text(&csv, "a,,b,\n1,2,3,4\n", 14, NULL), SL_OK);
+    ck_assert_uint_eq(sl_csv_column_count(csv), 4);
+    ck_assert_int_eq(sl_csv_column(csv, "b"), 2);
+    ck_assert_int_eq(drain(csv, NULL), SL_OK);
+    sl_csv_free(csv);
+}
+END_TEST
+
 START_TEST(missing_file_is_io_error)
 {
     sl_diag *diag = sl_diag_new();
@@ -502,6 +513,23 @@ START_TEST(open_stream_keeps_stream_open)
 }
 END_TEST
 
+START_TEST(dash_reads_standard_input)
+{
+    char *path = sl_test_data("csv/basic.csv");
+    ck_assert_ptr_nonnull(freopen(path, "rb", stdin));
+    sl_csv *csv;
+    ck_assert_int_eq(sl_csv_open(&csv, "-", NULL), SL_OK);
+    ck_assert_str_eq(sl_csv_name(csv), "<stdin>");
+    bool has;
+    int rows = 0;
+    while (sl_csv_next(&has, csv, NULL) == SL_OK && has)
+        rows++;
+    ck_assert_int_eq(rows, (int)N_EXPECTED);
+    sl_csv_free(csv);
+    free(path);
+}
+END_TEST
+
 static Suite *csv_suite(void)
 {
     Suite *s = suite_create("csv");
@@ -518,12 +546,14 @@ static Suite *csv_suite(void)
     tcase_add_test(tc, structural_errors);
     tcase_add_test(tc, header_errors);
     tcase_add_test(tc, header_only_is_not_an_error);
+    tcase_add_test(tc, unnamed_columns_allowed);
     tcase_add_test(tc, missing_file_is_io_error);
     tcase_add_test(tc, long_record_refused);
     tcase_add_test(tc, text_fields_validated);
     tcase_add_test(tc, utf8_rules);
     tcase_add_test(tc, records_across_buffer_refills);
     tcase_add_test(tc, open_stream_keeps_stream_open);
+    tcase_add_test(tc, dash_reads_standard_input);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -158,6 +158,35 @@ START_TEST(noisy_population_recovered)
 }
 END_TEST
 
+/* Zero contact resistance: the free optimum of R_c is often slightly
+ * negative, so the fit must hold it at its bound 0 and still be right. */
+START_TEST(contact_resistance_at_bound)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 5);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    int at_bound = 0;
+    for (int k = 0; k < 60; k++) {
+        sl_fit_params p = draw_truth(rng);
+        p.r_contact_ohm = 0.0;
+        synth(r, vg, &p, &cfg, rng, NOISE_REL);
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+        ck_assert_int_eq(res.cls, SL_FIT_OK);
+        ck_assert(res.p.r_contact_ohm >= 0.0);
+        at_bound += res.p.r_contact_ohm == 0.0;
+        ck_assert(fabs(res.p.mobility_cm2_per_Vs / p.mobility_cm2_per_Vs - 1.0) < 0.05);
+        ck_assert(fabs(res.p.cnp_V - p.cnp_V) < 0.05);
+    }
+    ck_assert_int_gt(at_bound, 0);
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
 static sl_fit_class classify(const double *r, const double *vg)
 {
     sl_fit_config cfg = test_config();
@@ -320,6 +349,7 @@ static Suite *fit_suite(void)
     tcase_add_test(tc, class_names_round_trip);
     tcase_add_test(tc, noise_free_recovers_exactly);
     tcase_add_test(tc, noisy_population_recovered);
+    tcase_add_test(tc, contact_resistance_at_bound);
     tcase_add_test(tc, short_device);
     tcase_add_test(tc, open_device);
     tcase_add_test(tc, cnp_outside_sweep);

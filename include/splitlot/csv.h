@@ -26,8 +26,9 @@ typedef struct sl_csv sl_csv;
 
 /* Open path for reading ("-" reads standard input, named "<stdin>" in
  * messages) and read its header row: the first non-blank record, after an
- * optional UTF-8 byte-order mark. Header names must be valid UTF-8, non-empty
- * and distinct. Returns SL_OK with *out set, SL_EIO when the file cannot be
+ * optional UTF-8 byte-order mark. Header names must be valid UTF-8 and
+ * distinct; empty names (unnamed spreadsheet columns) are allowed and never
+ * matched. A header-only file is fine: the first sl_csv_next ends. Returns SL_OK with *out set, SL_EIO when the file cannot be
  * opened or read, SL_EINPUT for an empty file (no header) or a bad header,
  * SL_ENOMEM. On failure *out is NULL and diag holds the located reason. */
 sl_status sl_csv_open(sl_csv **out, const char *path, sl_diag *diag);

@@ -1,0 +1,147 @@
+/* SPDX-License-Identifier: MIT
+ * Benchmark of the sweep path on one core: CSV rows per second (parse plus
+ * conversion of the four numeric columns of a transfer-sweep file) and
+ * transfer-curve fits per second for 201-point sweeps. Prints figures only;
+ * never run by ctest.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
+
+#include "splitlot/csv.h"
+#include "splitlot/fit.h"
+#include "splitlot/physics.h"
+#include "splitlot/units.h"
+
+#define CSV_ROWS 4000000
+#define SWEEP_POINTS 201
+#define N_SWEEPS 4000
+#define FIT_ROUNDS 5
+
+/* CPU seconds of this process: the figure per core, less disturbed than
+ * wall time on a shared machine. */
+static double seconds_now(void)
+{
+    struct timespec t;
+    clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t);
+    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
+}
+
+/* An invented sweep file in memory: 12 wafers, devices of 201 points. */
+static char *make_sweep_csv(size_t *len)
+{
+    size_t cap = (size_t)CSV_ROWS * 48 + 64, n = 0;
+    char *buf = malloc(cap);
+    if (!buf)
+        return NULL;
+    n += (size_t)sprintf(buf, "wafer,device,die_x,die_y,vg_V,r_ohm\n");
+    for (long i = 0; i < CSV_ROWS; i++) {
+        long device = i / SWEEP_POINTS, point = i % SWEEP_POINTS;
+        double vg_V = -40.0 + 0.4 * (double)point;
+        double r_ohm = 800.0 + 9000.0 / sqrt(0.04 + (vg_V - 3.0) * (vg_V - 3.0) / 100.0);
+        n += (size_t)sprintf(buf + n, "W%02ld,D%04ld,%ld,%ld,%.1f,%.2f\n", 1 + device % 12,
+                             device % 10000, device % 50 - 25, device / 50 % 50 - 25, vg_V,
+                             r_ohm);
+    }
+    *len = n;
+    return buf;
+}
+
+static int bench_csv(void)
+{
+    size_t len;
+    char *text = make_sweep_csv(&len);
+    FILE *f = text ? fmemopen(text, len, "rb") : NULL;
+    if (!f) {
+        free(text);
+        return 1;
+    }
+    sl_diag *diag = sl_diag_new();
+    sl_csv *csv;
+    double t0 = seconds_now();
+    if (sl_csv_open_stream(&csv, f, "bench", diag) != SL_OK)
+        return 1;
+    size_t cols[4] = { (size_t)sl_csv_column(csv, "die_x"), (size_t)sl_csv_column(csv, "die_y"),
+                       (size_t)sl_csv_column(csv, "vg_V"), (size_t)sl_csv_column(csv, "r_ohm") };
+    size_t wafer = (size_t)sl_csv_column(csv, "wafer"), device = (size_t)sl_csv_column(csv, "device");
+    bool has;
+    long rows = 0;
+    double checksum = 0.0;
+    size_t text_bytes = 0;
+    while (sl_csv_next(&has, csv, diag) == SL_OK && has) {
+        for (size_t j = 0; j < 4; j++) {
+            double v;
+            if (sl_csv_number(&v, csv, cols[j], diag) != SL_OK)
+                return 1;
+            checksum += v;
+        }
+        size_t a, b;
+        sl_csv_field(csv, wafer, &a);
+        sl_csv_field(csv, device, &b);
+        text_bytes += a + b;
+        rows++;
+    }
+    double dt = seconds_now() - t0;
+    printf("csv: %ld rows, %.1f MB in %.3f CPU s: %.2f million rows/s, %.0f MB/s (checksum %.6g, %zu id bytes)\n",
+           rows, (double)len / 1e6, dt, (double)rows / dt / 1e6, (double)len / dt / 1e6, checksum,
+           text_bytes);
+    sl_csv_free(csv);
+    sl_diag_free(diag);
+    fclose(f);
+    free(text);
+    return rows == CSV_ROWS ? 0 : 1;
+}
+
+/* The test population of tests/test_fit.c: 90 nm SiO2, L/W = 2, 0.5 % noise. */
+static int bench_fits(void)
+{
+    sl_fit_config cfg;
+    sl_fit_config_default(&cfg, 3.9 * SL_SI_EPS0 / 90e-9, 20.0, 10.0);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 2026);
+    double vg[SWEEP_POINTS];
+    double *r = malloc(sizeof(double) * SWEEP_POINTS * N_SWEEPS);
+    for (size_t i = 0; i < SWEEP_POINTS; i++)
+        vg[i] = -40.0 + 0.4 * (double)i;
+    for (size_t k = 0; k < N_SWEEPS; k++) {
+        sl_fit_params p = { gsl_ran_flat(rng, -20, 30), gsl_ran_flat(rng, 500, 5000),
+                            exp(gsl_ran_flat(rng, log(5e10), log(5e11))),
+                            gsl_ran_flat(rng, 100, 2000) };
+        for (size_t i = 0; i < SWEEP_POINTS; i++)
+            r[k * SWEEP_POINTS + i] =
+                sl_fit_model_ohm(&p, &cfg, vg[i]) * (1.0 + gsl_ran_gaussian(rng, 0.005));
+    }
+    sl_fit_workspace *ws = sl_fit_workspace_new(SWEEP_POINTS);
+    long ok = 0, iterations = 0;
+    double t0 = seconds_now();
+    for (int round = 0; round < FIT_ROUNDS; round++) {
+        for (size_t k = 0; k < N_SWEEPS; k++) {
+            sl_fit_result res;
+            sl_fit_sweep(&res, ws, &cfg, vg, r + k * SWEEP_POINTS, SWEEP_POINTS);
+            ok += res.cls == SL_FIT_OK;
+            iterations += res.iterations;
+        }
+    }
+    double dt = seconds_now() - t0, fits = (double)FIT_ROUNDS * N_SWEEPS;
+    printf("fit: %.0f sweeps of %d points in %.3f CPU s: %.0f fits/s, %.1f us/fit, "
+           "%.2f iterations/fit, %.1f %% ok\n",
+           fits, SWEEP_POINTS, dt, fits / dt, 1e6 * dt / fits, (double)iterations / fits,
+           100.0 * (double)ok / fits);
+    printf("fit: a lot of 12500 devices needs %.2f s on one core\n", 12500.0 * dt / fits);
+    sl_fit_workspace_free(ws);
+    free(r);
+    gsl_rng_free(rng);
+    return 0;
+}
+
+int main(void)
+{
+    sl_physics_init();
+    int rc = bench_csv();
+    return bench_fits() || rc;
+}
