@@ -16,16 +16,23 @@ all: build
 deps:
 	@./.ci/install-deps
 
+# the build log is shown only when something fails
 build: deps
-	@cmake -S . -B $(BUILD) -DCMAKE_BUILD_TYPE=RelWithDebInfo >/dev/null
-	@cmake --build $(BUILD) -j$(JOBS)
+	@echo "building in $(BUILD)/ (log: $(BUILD)/build.log)"
+	@mkdir -p $(BUILD)
+	@{ cmake -S . -B $(BUILD) -DCMAKE_BUILD_TYPE=RelWithDebInfo && \
+	   cmake --build $(BUILD) -j$(JOBS); } >$(BUILD)/build.log 2>&1 || \
+	   { cat $(BUILD)/build.log; exit 1; }
 
 check: build
 	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
 
 asan: deps
-	@cmake -S . -B build-asan -DCMAKE_BUILD_TYPE=Debug -DSL_SANITIZE=ON >/dev/null
-	@cmake --build build-asan -j$(JOBS)
+	@echo "building in build-asan/ (log: build-asan/build.log)"
+	@mkdir -p build-asan
+	@{ cmake -S . -B build-asan -DCMAKE_BUILD_TYPE=Debug -DSL_SANITIZE=ON && \
+	   cmake --build build-asan -j$(JOBS); } >build-asan/build.log 2>&1 || \
+	   { cat build-asan/build.log; exit 1; }
 	@cd build-asan && ASAN_OPTIONS=detect_leaks=1:abort_on_error=1 \
 	  UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1 ctest --output-on-failure -j$(JOBS)
 

@@ -262,6 +262,10 @@ static void format_plain(char *buf, size_t n, const cell *c, const column *col, 
     }
     case COL_RANGE: {
         char a[64], b[64];
+        if (isnan(c->num) && isnan(c->num2)) {
+            buf[0] = '\0';
+            break;
+        }
         format_number(a, sizeof a, c->num, col);
         format_number(b, sizeof b, c->num2, col);
         snprintf(buf, n, "%s..%s", a, b);
