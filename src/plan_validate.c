@@ -50,16 +50,20 @@ typedef struct {
 
 /* ---- names: every named struct of plan.h starts with its char *name ---- */
 
+/* "" for an entry whose name is missing or broken (an error is out already). */
 static const char *name_at(const void *base, size_t stride, size_t i)
 {
-    return *(char *const *)((const char *)base + i * stride);
+    const char *name = *(char *const *)((const char *)base + i * stride);
+    return name ? name : "";
 }
 
 static long find_named(const void *base, size_t n, size_t stride, const char *name)
 {
-    for (size_t i = 0; i < n; i++)
-        if (strcmp(name_at(base, stride, i), name) == 0)
+    for (size_t i = 0; i < n; i++) {
+        const char *entry = *(char *const *)((const char *)base + i * stride);
+        if (entry && strcmp(entry, name) == 0)
             return (long)i;
+    }
     return -1;
 }
 
@@ -486,8 +490,6 @@ static void read_dielectric(conv *v, const yn *item, size_t index)
         return;
     if (f[0])
         d->name = read_name(v->c, f[0], "dielectric", p->dielectrics, index, sizeof *d);
-    if (!d->name)
-        d->name = plan_strdup(v->c, ""); /* keeps later lookups safe; an error is out */
     if (f[1] && read_list(v->c, f[1], "layers", MAX_LAYERS) == 0) {
         d->layers = plan_calloc(v->c, f[1]->n_items, sizeof *d->layers);
         for (size_t j = 0; d->layers && j < f[1]->n_items; j++) {
@@ -530,8 +532,6 @@ static void read_treatment(conv *v, const yn *item, size_t index)
         t->name = read_name(v->c, f[0], "treatment", p->treatments, index, sizeof *t);
     if (t->name && strcmp(t->name, "none") == 0)
         plan_error(v->c, f[0], "'none' is reserved for the level without a treatment");
-    if (!t->name)
-        t->name = plan_strdup(v->c, "");
     if (f[1])
         read_estimate(v->c, f[1], "doping_per_cm2", &t->doping_per_cm2);
 }
@@ -882,7 +882,7 @@ static void split_treatments(conv *v, sl_plan_split *s, const yn *list)
                           sizeof *p->treatments);
         else if (split_has(s, (size_t)t))
             plan_error(v->c, item, "treatment '%s' is listed twice in split '%s'", item->text,
-                       s->name);
+                       name_at(s, sizeof *s, 0));
         else if (treatment_factor(v, t) >= 0)
             s->treatments[s->n_treatments++] = (size_t)t;
     }
@@ -913,7 +913,7 @@ static void split_wafers(conv *v, size_t index, const yn *list)
             plan_error(v->c, item, "unknown wafer '%s' (not in 'wafers')", item->text);
         else if (owner >= 0)
             plan_error(v->c, item, "wafer '%s' is already in split '%s'", item->text,
-                       p->splits[owner].name);
+                       name_at(p->splits, sizeof *p->splits, (size_t)owner));
         else
             s->wafers[s->n_wafers++] = plan_strdup(v->c, item->text);
     }
@@ -932,8 +932,6 @@ static void explicit_split(conv *v, size_t index, const yn *item)
         return;
     if (f[0])
         s->name = read_name(v->c, f[0], "split", p->splits, index, sizeof *s);
-    if (!s->name)
-        s->name = plan_strdup(v->c, "");
     if (f[1] && want_kind(v->c, f[1], YN_SCALAR, "dielectric") == 0) {
         long d = level_reference(v, f[1], 1);
         if (d >= 0) {

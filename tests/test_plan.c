@@ -253,9 +253,18 @@ typedef struct {
     const char *file;
     long line, col;
     const char *fragment;
-} bad_case;
+} located_case;
 
-static const bad_case bad_cases[] = {
+/* Path of a corpus file under tests/data/plans/<dir>. */
+static char *corpus_path(const char *dir, const char *file)
+{
+    char *name = sl_test_path(dir, file);
+    char *path = sl_test_data(name);
+    free(name);
+    return path;
+}
+
+static const located_case bad_cases[] = {
     { "syntax.yaml", 6, 1, "yaml syntax: did not find expected ',' or ']'" },
     { "unknown_key.yaml", 2, 1, "unknown key 'temperature_K' in the plan (did you mean 'temperatures_K'?)" },
     { "wrong_type.yaml", 5, 47, "'thickness_nm' must be a number, got 'thick'" },
@@ -288,7 +297,7 @@ static const bad_case bad_cases[] = {
     { "self_alias.yaml", 4, 13, "alias '*loop' refers to a node that contains it" },
 };
 
-static int has_message(const sl_diag *diag, const bad_case *c)
+static int has_message(const sl_diag *diag, const located_case *c)
 {
     for (size_t i = 0; i < sl_diag_size(diag); i++) {
         const sl_diag_msg *m = sl_diag_get(diag, i);
@@ -310,9 +319,8 @@ static void dump(const sl_diag *diag)
 
 START_TEST(bad_plan_reports_location)
 {
-    const bad_case *c = &bad_cases[_i];
-    char *name = sl_test_path("plans/bad", c->file);
-    char *path = sl_test_data(name);
+    const located_case *c = &bad_cases[_i];
+    char *path = corpus_path("plans/bad", c->file);
     sl_diag *diag = sl_diag_new();
     sl_plan *plan = (sl_plan *)1;
     sl_status st = sl_plan_load(&plan, path, diag);
@@ -326,21 +334,18 @@ START_TEST(bad_plan_reports_location)
     ck_assert_str_eq(sl_diag_get(diag, 0)->file, path);
     sl_diag_free(diag);
     free(path);
-    free(name);
 }
 END_TEST
 
 static size_t errors_in(const char *bad_file)
 {
-    char *name = sl_test_path("plans/bad", bad_file);
-    char *path = sl_test_data(name);
+    char *path = corpus_path("plans/bad", bad_file);
     sl_diag *diag = sl_diag_new();
     sl_plan *plan = NULL;
     sl_plan_load(&plan, path, diag);
     size_t n = sl_diag_count(diag, SL_SEV_ERROR);
     sl_diag_free(diag);
     free(path);
-    free(name);
     return n;
 }
 
@@ -396,13 +401,7 @@ END_TEST
 
 /* ---- warnings: the plan is usable, the message located ---- */
 
-typedef struct {
-    const char *file;
-    long line, col;
-    const char *fragment;
-} warn_case;
-
-static const warn_case warn_cases[] = {
+static const located_case warn_cases[] = {
     /* N = 4.0e13 cm^-2 on 90 nm SiO2: V = -e N / C_g = -167 V, far beyond the
      * +/-45 V safe range (0.5 x 10 MV/cm x 90 nm) */
     { "cnp_outside.yaml", 11, 18, "split 'ox90+anneal-350': predicted neutrality point" },
@@ -412,9 +411,8 @@ static const warn_case warn_cases[] = {
 
 START_TEST(warning_plans_load)
 {
-    const warn_case *c = &warn_cases[_i];
-    char *name = sl_test_path("plans/warn", c->file);
-    char *path = sl_test_data(name);
+    const located_case *c = &warn_cases[_i];
+    char *path = corpus_path("plans/warn", c->file);
     sl_diag *diag = sl_diag_new();
     sl_plan *plan = NULL;
     ck_assert_int_eq(sl_plan_load(&plan, path, diag), SL_OK);
@@ -428,7 +426,6 @@ START_TEST(warning_plans_load)
     sl_plan_free(plan);
     sl_diag_free(diag);
     free(path);
-    free(name);
 }
 END_TEST
 
