@@ -319,10 +319,12 @@ static bool any_open(const double *r_ohm, size_t n, double open_min_ohm)
     return false;
 }
 
-/* Sorted copies of the sweep, weights 1/R^2 and the moving median. */
+/* Sorted copies of the sweep, weights u = 1/R and the moving median. */
 static void prepare(sl_fit_workspace *ws, const double *vg_V, const double *r_ohm, size_t n)
 {
     ws->n = n;
+    ws->fix_rc_zero = false;
+    ws->have_state = false;
     memcpy(ws->vg, vg_V, n * sizeof *vg_V);
     memcpy(ws->r, r_ohm, n * sizeof *r_ohm);
     bool sorted = true;

@@ -376,6 +376,23 @@ START_TEST(unnamed_columns_allowed)
 }
 END_TEST
 
+START_TEST(too_many_fields_refused)
+{
+    size_t n_fields = SL_CSV_MAX_FIELDS + 1;
+    char *text = malloc(2 * n_fields + 1);
+    for (size_t i = 0; i < n_fields; i++) {
+        text[2 * i] = 'c';
+        text[2 * i + 1] = i + 1 < n_fields ? ',' : '\n';
+    }
+    sl_diag *diag = sl_diag_new();
+    sl_csv *csv;
+    ck_assert_int_eq(open_text(&csv, text, 2 * n_fields, diag), SL_EINPUT);
+    assert_one_error(diag, 1, "too many fields in the record");
+    sl_diag_free(diag);
+    free(text);
+}
+END_TEST
+
 START_TEST(missing_file_is_io_error)
 {
     sl_diag *diag = sl_diag_new();
@@ -547,6 +564,7 @@ static Suite *csv_suite(void)
     tcase_add_test(tc, header_errors);
     tcase_add_test(tc, header_only_is_not_an_error);
     tcase_add_test(tc, unnamed_columns_allowed);
+    tcase_add_test(tc, too_many_fields_refused);
     tcase_add_test(tc, missing_file_is_io_error);
     tcase_add_test(tc, long_record_refused);
     tcase_add_test(tc, text_fields_validated);

@@ -294,6 +294,35 @@ START_TEST(unsorted_points_same_result)
 }
 END_TEST
 
+/* A forward and a backward sweep in one list, as instruments log them,
+ * with the backward neutrality point 0.2 V higher (hysteresis): the fit
+ * lands between the two and is still classified ok. */
+START_TEST(double_sweep_with_hysteresis)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(2 * N_SWEEP);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 19);
+    sl_fit_params fwd = { 6.0, 2200.0, 1.5e11, 800.0 }, back = fwd;
+    back.cnp_V += 0.2;
+    double vg[2 * N_SWEEP], r[2 * N_SWEEP];
+    sweep_voltages(vg);
+    synth(r, vg, &fwd, &cfg, rng, NOISE_REL);
+    for (size_t i = 0; i < N_SWEEP; i++) {
+        vg[N_SWEEP + i] = vg[N_SWEEP - 1 - i];
+        r[N_SWEEP + i] = sl_fit_model_ohm(&back, &cfg, vg[N_SWEEP + i]) *
+                         (1.0 + gsl_ran_gaussian(rng, NOISE_REL));
+    }
+    sl_fit_result res;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, 2 * N_SWEEP), SL_OK);
+    ck_assert_int_eq(res.cls, SL_FIT_OK);
+    ck_assert(res.p.cnp_V > 6.0 - 0.05 && res.p.cnp_V < 6.2 + 0.05);
+    ck_assert(fabs(res.p.mobility_cm2_per_Vs / 2200.0 - 1.0) < 0.05);
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
 START_TEST(sweep_lengths_change)
 {
     sl_fit_config cfg = test_config();
@@ -355,6 +384,7 @@ static Suite *fit_suite(void)
     tcase_add_test(tc, cnp_outside_sweep);
     tcase_add_test(tc, noise_only_is_not_fitted);
     tcase_add_test(tc, unsorted_points_same_result);
+    tcase_add_test(tc, double_sweep_with_hysteresis);
     tcase_add_test(tc, sweep_lengths_change);
     tcase_add_test(tc, bad_input);
     suite_add_tcase(s, tc);

@@ -83,7 +83,11 @@ void sl_fit_workspace_free(sl_fit_workspace *ws);
 /* Fewest points a sweep may have. */
 #define SL_FIT_MIN_POINTS 8
 
-/* Fit one sweep (points in any order). Method: variable projection, the
+/* Fit one sweep (points in any order, repeated voltages allowed, e.g. a
+ * forward and a backward sweep). ws must come from sl_fit_workspace_new;
+ * call sl_physics_init() once per process before fitting, so GSL reports
+ * its errors instead of aborting. Thread-safe with one ws per thread.
+ * Method: variable projection, the
  * linear R_c and L/(W C_g mu) solved by weighted linear least squares for
  * every (V_cnp, n0), the two nonlinear ones by GSL's Levenberg-Marquardt trust
  * region with the Kaufman Jacobian; residuals are relative (weight 1/R), as
