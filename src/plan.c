@@ -178,7 +178,9 @@ static int count_nodes(tree *t, size_t weight, yaml_mark_t mark, const char *tok
 {
     t->expanded += weight;
     if (t->expanded > SL_PLAN_MAX_NODES) {
-        refuse(t, mark, "'%s' makes the plan larger than 200000 nodes (alias expansion?)", token);
+        refuse(t, mark, token[0] == '*' ? "alias '%s' expands the plan beyond 200000 nodes"
+                                        : "the plan has more than 200000 nodes at '%s'",
+               token);
         return -1;
     }
     return 0;
@@ -300,20 +302,19 @@ static void build_tree(tree *t, const char *text, size_t len)
 
 /* ---- loading ---- */
 
-void sl_plan_free(sl_plan *plan)
+static void free_dielectrics(sl_plan *plan)
 {
-    if (!plan)
-        return;
-    for (size_t i = 0; i < plan->n_materials; i++)
-        free(plan->materials[i].name);
     for (size_t i = 0; i < plan->n_dielectrics; i++) {
         for (size_t j = 0; j < plan->dielectrics[i].n_layers; j++)
             free(plan->dielectrics[i].layers[j].material);
         free(plan->dielectrics[i].layers);
         free(plan->dielectrics[i].name);
     }
-    for (size_t i = 0; i < plan->n_treatments; i++)
-        free(plan->treatments[i].name);
+    free(plan->dielectrics);
+}
+
+static void free_factors(sl_plan *plan)
+{
     for (size_t i = 0; i < plan->n_factors; i++) {
         for (size_t j = 0; j < plan->factors[i].n_levels; j++)
             free(plan->factors[i].levels[j]);
@@ -321,6 +322,11 @@ void sl_plan_free(sl_plan *plan)
         free(plan->factors[i].level_ref);
         free(plan->factors[i].name);
     }
+    free(plan->factors);
+}
+
+static void free_splits(sl_plan *plan)
+{
     for (size_t i = 0; i < plan->n_splits; i++) {
         for (size_t j = 0; j < plan->splits[i].n_wafers; j++)
             free(plan->splits[i].wafers[j]);
@@ -329,13 +335,24 @@ void sl_plan_free(sl_plan *plan)
         free(plan->splits[i].levels);
         free(plan->splits[i].name);
     }
+    free(plan->splits);
+}
+
+void sl_plan_free(sl_plan *plan)
+{
+    if (!plan)
+        return;
+    for (size_t i = 0; i < plan->n_materials; i++)
+        free(plan->materials[i].name);
+    for (size_t i = 0; i < plan->n_treatments; i++)
+        free(plan->treatments[i].name);
     for (size_t i = 0; i < plan->n_wafers; i++)
         free(plan->wafers[i]);
+    free_dielectrics(plan);
+    free_factors(plan);
+    free_splits(plan);
     free(plan->wafers);
-    free(plan->splits);
-    free(plan->factors);
     free(plan->treatments);
-    free(plan->dielectrics);
     free(plan->materials);
     free(plan->temperatures_K);
     free(plan->lot);

@@ -356,9 +356,11 @@ static void read_seed(conv *v)
     char *end = NULL;
     errno = 0;
     unsigned long long s = strtoull(node->text, &end, 10);
+    /* 32 bits: the generator uses no more, so larger seeds would repeat layouts */
     if (node->quoted || end == node->text || *end != '\0' || errno == ERANGE ||
-        node->text[0] == '-')
-        plan_error(v->c, node, "'seed' must be a whole number >= 0, got '%s'", node->text);
+        node->text[0] == '-' || s > 4294967295ULL)
+        plan_error(v->c, node, "'seed' must be a whole number from 0 to 4294967295, got '%s'",
+                   node->text);
     else
         v->p->seed = (uint64_t)s;
 }

@@ -282,6 +282,7 @@ static const located_case bad_cases[] = {
     { "yield_range.yaml", 15, 17, "'expected_yield' must be in (0, 1], got '1.2'" },
     { "too_few_wafers.yaml", 14, 9, "3 wafers are fewer than 2 splits x 2 wafers_per_split = 4" },
     { "gate_range_no_zero.yaml", 6, 19, "gate_range_V [5, 40] does not contain 0 V" },
+    { "seed_range.yaml", 16, 7, "'seed' must be a whole number from 0 to 4294967295" },
     { "empty.yaml", 1, 1, "the plan is empty" },
     { "not_a_mapping.yaml", 1, 1, "the plan must be a mapping" },
     { "two_documents.yaml", 16, 1, "a plan is one YAML document" },
@@ -292,7 +293,7 @@ static const located_case bad_cases[] = {
     { "combined.yaml", 12, 20, "unknown treatment 'anneal-35'" },
     { "combined.yaml", 15, 20, "'devices_per_wafer' must be a whole number" },
     /* hostile YAML */
-    { "alias_bomb.yaml", 8, 8, "'*e' makes the plan larger than 200000 nodes" },
+    { "alias_bomb.yaml", 8, 8, "alias '*e' expands the plan beyond 200000 nodes" },
     { "deep_nesting.yaml", 2, 39, "the plan nests deeper than 32 levels" },
     { "self_alias.yaml", 4, 13, "alias '*loop' refers to a node that contains it" },
 };
@@ -383,6 +384,25 @@ START_TEST(oversized_plan_refused)
     sl_test_rmtree(dir);
     free(path);
     free(dir);
+}
+END_TEST
+
+/* Under the size cap but with 300000 list items: the node cap still holds. */
+START_TEST(too_many_nodes_refused)
+{
+    size_t items = 300000;
+    char *text = malloc(2 * items + 32);
+    size_t len = (size_t)sprintf(text, "lot: [");
+    for (size_t i = 0; i < items; i++)
+        len += (size_t)sprintf(text + len, "%s", i ? ",x" : "x");
+    len += (size_t)sprintf(text + len, "]\n");
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    ck_assert_int_eq(sl_plan_parse(&plan, text, len, "many.yaml", diag), SL_EINPUT);
+    ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_ERROR), 1);
+    ck_assert_ptr_nonnull(strstr(sl_diag_last(diag), "more than 200000 nodes"));
+    sl_diag_free(diag);
+    free(text);
 }
 END_TEST
 
@@ -527,6 +547,7 @@ static Suite *plan_suite(void)
                         (int)(sizeof bad_cases / sizeof bad_cases[0]));
     tcase_add_test(bad, every_problem_reported_once);
     tcase_add_test(bad, oversized_plan_refused);
+    tcase_add_test(bad, too_many_nodes_refused);
     tcase_add_test(bad, missing_file_is_io_error);
     tcase_add_loop_test(bad, warning_plans_load, 0, (int)(sizeof warn_cases / sizeof warn_cases[0]));
     tcase_add_test(bad, thermal_floor_figure);

@@ -42,8 +42,8 @@ typedef struct sl_layout {
 } sl_layout;
 
 /* Build the layout of a validated plan. Full-factorial: the wafer ids are
- * shuffled (GSL gsl_rng_mt19937 seeded with the low 32 bits of plan->seed,
- * gsl_ran_shuffle) and dealt wafers_per_split at a time to splits 0, 1, ...;
+ * shuffled (GSL gsl_rng_mt19937 seeded with plan->seed, which the plan
+ * limits to 32 bits; gsl_ran_shuffle) and dealt wafers_per_split at a time to splits 0, 1, ...;
  * the rest are spares. Explicit: the wafers as the plan gives them. Processing
  * order: a second shuffle over all assigned wafers. The same seed gives the
  * same layout on any machine. Returns SL_OK, SL_EINPUT (plan inconsistent,
