@@ -231,9 +231,13 @@ static sl_status results_row(ingest_ctx *c)
     dev.fit_class = isnan(dev.cnp_V) ? "unmeasured" : "ok";
     c->summary->unmeasured += isnan(dev.cnp_V);
     st = sl_store_insert_device(c->store, NULL, c->lot.lot_id, &dev, c->diag);
-    if (st == SL_EINPUT) /* the store's own duplicate check: locate it */
-        ingest_error_at_row(c, c->col.device, "device '%s' on wafer '%s' is already stored",
-                            row.device, row.wafer);
+    if (st == SL_EINPUT) { /* the store's own duplicate check: one located message */
+        sl_diag_clear(c->diag);
+        ingest_error_at_row(c, c->col.device,
+                            "device '%s' on wafer '%s' is already stored for lot '%s' "
+                            "(use --replace to import the lot's measurements again)",
+                            row.device, row.wafer, c->lot.lot);
+    }
     c->summary->devices += st == SL_OK;
     return st;
 }
