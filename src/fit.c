@@ -35,8 +35,8 @@ struct sl_fit_workspace {
     size_t max_points, n;
     double *vg, *r, *u, *g, *smooth, *col, *jac4, *rank_work;
     gsl_movstat_workspace *movstat;
-    gsl_multifit_nlinear_workspace *nl;
-    size_t nl_points;
+    gsl_multifit_nlinear_workspace *nl, *nl_full;
+    size_t nl_points, nl_full_points;
     gsl_matrix *cov4;
     /* Projection state at the last evaluated (V0, b). */
     bool fix_rc_zero;
@@ -77,6 +77,7 @@ void sl_fit_config_default(sl_fit_config *cfg, double gate_capacitance_F_per_m2,
     cfg->poor_max_rel_rms = 0.05;     /* common practice */
     cfg->poor_min_r_squared = 0.9;    /* common practice */
     cfg->max_iterations = 100;
+    cfg->method = SL_FIT_METHOD_PROJECTED;
 }
 
 double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V)
@@ -130,27 +131,38 @@ void sl_fit_workspace_free(sl_fit_workspace *ws)
         gsl_movstat_free(ws->movstat);
     if (ws->nl)
         gsl_multifit_nlinear_free(ws->nl);
+    if (ws->nl_full)
+        gsl_multifit_nlinear_free(ws->nl_full);
     if (ws->cov4)
         gsl_matrix_free(ws->cov4);
     free(ws);
 }
 
-/* The GSL solver is sized for one sweep length; keep it while lengths repeat.
- * Levenberg-Marquardt: with two parameters a step is a 2x2 solve, and its
- * damping copes with the flat direction of d when the peak is sharp. */
-static sl_status ensure_solver(sl_fit_workspace *ws, size_t n)
+/* A GSL solver is sized for one sweep length; keep it while lengths repeat.
+ * Levenberg-Marquardt: a step is a small p x p solve (normal equations by
+ * Cholesky, fine at p <= 4 with well-scaled parameters), and its damping
+ * copes with the flat direction of d when the peak is sharp. */
+static gsl_multifit_nlinear_workspace *solver_for(gsl_multifit_nlinear_workspace **slot,
+                                                  size_t *slot_points, size_t n, size_t p)
 {
-    if (ws->nl && ws->nl_points == n)
-        return SL_OK;
-    if (ws->nl)
-        gsl_multifit_nlinear_free(ws->nl);
+    if (*slot && *slot_points == n)
+        return *slot;
+    if (*slot)
+        gsl_multifit_nlinear_free(*slot);
     gsl_multifit_nlinear_parameters par = gsl_multifit_nlinear_default_parameters();
     par.trs = gsl_multifit_nlinear_trs_lm;
     par.solver = gsl_multifit_nlinear_solver_cholesky;
     par.scale = gsl_multifit_nlinear_scale_levenberg;
-    ws->nl = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, n, N_NONLINEAR);
-    ws->nl_points = ws->nl ? n : 0;
-    return ws->nl ? SL_OK : SL_ENOMEM;
+    *slot = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, n, p);
+    *slot_points = *slot ? n : 0;
+    return *slot;
+}
+
+static sl_status ensure_solvers(sl_fit_workspace *ws, size_t n)
+{
+    bool ok = solver_for(&ws->nl, &ws->nl_points, n, N_NONLINEAR) &&
+              solver_for(&ws->nl_full, &ws->nl_full_points, n, N_ALL);
+    return ok ? SL_OK : SL_ENOMEM;
 }
 
 /* ---- variable projection ---- */
@@ -241,8 +253,22 @@ static int projected_jacobian(const gsl_vector *x, void *data, gsl_matrix *jac)
     return GSL_SUCCESS;
 }
 
-/* Run the trust-region search from (v0, b); returns the GSL status and leaves
- * the solution in the projection state. */
+/* Run GSL's trust-region driver from start; the solution is left in start.
+ * No progress means no step can lower the cost any more: a minimum. */
+static int run_driver(gsl_multifit_nlinear_workspace *nl, gsl_multifit_nlinear_fdf *fdf,
+                      double *start, const sl_fit_config *cfg, int *iterations)
+{
+    gsl_vector_view x0 = gsl_vector_view_array(start, fdf->p);
+    int info = 0, st = gsl_multifit_nlinear_init(&x0.vector, fdf, nl);
+    if (st == GSL_SUCCESS)
+        st = gsl_multifit_nlinear_driver((size_t)cfg->max_iterations, XTOL, GTOL, FTOL, NULL,
+                                         NULL, &info, nl);
+    *iterations += (int)gsl_multifit_nlinear_niter(nl);
+    gsl_vector_memcpy(&x0.vector, gsl_multifit_nlinear_position(nl));
+    return st == GSL_ENOPROG ? GSL_SUCCESS : st;
+}
+
+/* Projected search from (v0, b); leaves the solution in the projection state. */
 static int run_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0, double *b,
                       int *iterations)
 {
@@ -250,22 +276,86 @@ static int run_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0
         .f = projected_residual, .df = projected_jacobian, .fvv = NULL,
         .n = ws->n, .p = N_NONLINEAR, .params = ws,
     };
-    double start[N_NONLINEAR] = { *v0, *b };
-    gsl_vector_view x0 = gsl_vector_view_array(start, N_NONLINEAR);
+    double x[N_NONLINEAR] = { *v0, *b };
     ws->have_state = false;
-    int st = gsl_multifit_nlinear_init(&x0.vector, &fdf, ws->nl);
-    int info = 0;
-    if (st == GSL_SUCCESS)
-        st = gsl_multifit_nlinear_driver((size_t)cfg->max_iterations, XTOL, GTOL, FTOL, NULL,
-                                         NULL, &info, ws->nl);
-    *iterations += (int)gsl_multifit_nlinear_niter(ws->nl);
-    const gsl_vector *x = gsl_multifit_nlinear_position(ws->nl);
-    *v0 = gsl_vector_get(x, 0);
-    *b = gsl_vector_get(x, 1);
+    int st = run_driver(ws->nl, &fdf, x, cfg, iterations);
+    *v0 = x[0];
+    *b = x[1];
     ws->have_state = false;
     project(ws, *v0, *b);
-    /* No progress means no step can lower the cost any more: a minimum. */
-    return st == GSL_ENOPROG ? GSL_SUCCESS : st;
+    return st;
+}
+
+/* ---- full search over all four parameters ---- */
+
+/* x = (V0, b, c, rho) with d = e^b, K = e^c and R_c = rho^2, so that K > 0
+ * and R_c >= 0 hold without bounds. Fills ws->g on the way. */
+typedef struct {
+    double v0, d2, k, rho;
+} full_point;
+
+static full_point unpack_full(const gsl_vector *x)
+{
+    full_point p = { gsl_vector_get(x, 0), exp(2.0 * gsl_vector_get(x, 1)),
+                     exp(gsl_vector_get(x, 2)), gsl_vector_get(x, 3) };
+    return p;
+}
+
+static int full_residual(const gsl_vector *x, void *data, gsl_vector *f)
+{
+    sl_fit_workspace *ws = data;
+    full_point p = unpack_full(x);
+    for (size_t i = 0; i < ws->n; i++) {
+        double dx = ws->vg[i] - p.v0, g = 1.0 / sqrt(p.d2 + dx * dx);
+        ws->g[i] = g;
+        f->data[i * f->stride] = 1.0 - (p.rho * p.rho + p.k * g) * ws->u[i];
+    }
+    return GSL_SUCCESS;
+}
+
+static int full_jacobian(const gsl_vector *x, void *data, gsl_matrix *jac)
+{
+    sl_fit_workspace *ws = data;
+    full_point p = unpack_full(x);
+    for (size_t i = 0; i < ws->n; i++) {
+        double dx = ws->vg[i] - p.v0, g = 1.0 / sqrt(p.d2 + dx * dx), u = ws->u[i];
+        double kg3u = p.k * g * g * g * u;
+        double *row = jac->data + i * jac->tda;
+        row[0] = -dx * kg3u;
+        row[1] = p.d2 * kg3u;
+        row[2] = -p.k * g * u;
+        row[3] = -2.0 * p.rho * u;
+    }
+    return GSL_SUCCESS;
+}
+
+/* Full search from (v0, b) with the linear solution there as the start
+ * (K > 0 and R_c > 0 forced, as logarithm and square root need them). */
+static int run_full_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
+                           double *b, int *iterations)
+{
+    ws->fix_rc_zero = false;
+    ws->have_state = false;
+    project(ws, *v0, *b);
+    double r_min = gsl_stats_min(ws->r, 1, ws->n);
+    double k0 = ws->k > 0.0 ? ws->k : (gsl_stats_max(ws->r, 1, ws->n) - r_min) * exp(*b);
+    double rc0 = GSL_MAX(ws->rc, 0.01 * r_min);
+    double x[N_ALL] = { *v0, *b, log(k0), sqrt(rc0) };
+    gsl_multifit_nlinear_fdf fdf = {
+        .f = full_residual, .df = full_jacobian, .fvv = NULL,
+        .n = ws->n, .p = N_ALL, .params = ws,
+    };
+    int st = run_driver(ws->nl_full, &fdf, x, cfg, iterations);
+    *v0 = x[0];
+    *b = x[1];
+    ws->k = exp(x[2]);
+    ws->rc = x[3] * x[3];
+    gsl_vector_view xv = gsl_vector_view_array(x, N_ALL);
+    gsl_vector *f = gsl_multifit_nlinear_residual(ws->nl_full);
+    full_residual(&xv.vector, ws, f);   /* ws->g at the solution */
+    gsl_blas_ddot(f, f, &ws->chisq);
+    ws->have_state = false;
+    return st;
 }
 
 /* ---- starting values ---- */
@@ -397,7 +487,7 @@ static void quality(sl_fit_result *out, sl_fit_workspace *ws)
 
 /* Jacobian of the relative residuals in all four parameters (V0, d, K, R_c)
  * at the solution, and J^T J (lower triangle) summed on the way. */
-static gsl_matrix_view full_jacobian(sl_fit_workspace *ws, double v0, double d)
+static gsl_matrix_view natural_jacobian(sl_fit_workspace *ws, double v0, double d)
 {
     gsl_matrix_view jac = gsl_matrix_view_array(ws->jac4, ws->n, N_ALL);
     gsl_matrix_set_zero(ws->cov4);
@@ -437,7 +527,7 @@ static void fill_parameters(sl_fit_result *out, sl_fit_workspace *ws, const sl_f
     out->p.n0_per_cm2 = d * n0_per_cm2_per_V;
     out->p.mobility_cm2_per_Vs = cfg->length_over_width / (cg * ws->k) / SL_M2_PER_CM2;
     out->p.r_contact_ohm = ws->rc;
-    gsl_matrix_view jac = full_jacobian(ws, v0, d);
+    gsl_matrix_view jac = natural_jacobian(ws, v0, d);
     unscaled_covariance(ws, &jac.matrix);
     double var = ws->chisq / (double)(ws->n - N_ALL);
     double sd[N_ALL];
@@ -449,9 +539,10 @@ static void fill_parameters(sl_fit_result *out, sl_fit_workspace *ws, const sl_f
     out->sigma.r_contact_ohm = sd[3];
 }
 
-/* Search, with R_c held at its bound 0 when the free optimum is negative. */
-static sl_fit_class search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
-                           double *b, int *iterations)
+/* Projected search, with R_c held at its bound 0 when the free optimum is
+ * negative. */
+static int projected_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
+                            double *b, int *iterations)
 {
     ws->fix_rc_zero = false;
     int st = run_search(ws, cfg, v0, b, iterations);
@@ -459,7 +550,28 @@ static sl_fit_class search(sl_fit_workspace *ws, const sl_fit_config *cfg, doubl
         ws->fix_rc_zero = true;
         st = run_search(ws, cfg, v0, b, iterations);
     }
-    if (st != GSL_SUCCESS || !isfinite(*v0) || !isfinite(*b) || !isfinite(ws->k))
+    return st;
+}
+
+static bool solution_finite(const sl_fit_workspace *ws, double v0, double b)
+{
+    return isfinite(v0) && isfinite(b) && isfinite(ws->k) && isfinite(ws->rc);
+}
+
+/* The chosen search, the full one as fallback when the projected one fails. */
+static sl_fit_class search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
+                           double *b, int *iterations)
+{
+    double start_v0 = *v0, start_b = *b;
+    int st = GSL_FAILURE;
+    if (cfg->method == SL_FIT_METHOD_PROJECTED)
+        st = projected_search(ws, cfg, v0, b, iterations);
+    if (st != GSL_SUCCESS || !solution_finite(ws, *v0, *b)) {
+        *v0 = start_v0;
+        *b = start_b;
+        st = run_full_search(ws, cfg, v0, b, iterations);
+    }
+    if (st != GSL_SUCCESS || !solution_finite(ws, *v0, *b))
         return SL_FIT_NO_CONVERGENCE;
     if (ws->k <= 0.0)
         return SL_FIT_POOR;   /* a dip, not a peak */
@@ -498,7 +610,7 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
         out->cls = SL_FIT_OPEN;
         return SL_OK;
     }
-    if (ensure_solver(ws, n_points) != SL_OK)
+    if (ensure_solvers(ws, n_points) != SL_OK)
         return SL_ENOMEM;
     prepare(ws, vg_V, r_ohm, n_points);
     size_t peak;

@@ -187,6 +187,40 @@ START_TEST(contact_resistance_at_bound)
 }
 END_TEST
 
+/* The full four-parameter search and the projected one minimise the same
+ * sum of squares, so they must agree far inside the standard errors (and
+ * exactly on a noise-free curve). */
+START_TEST(full_search_agrees_with_projection)
+{
+    sl_fit_config projected = test_config(), full = projected;
+    full.method = SL_FIT_METHOD_FULL;
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 23);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    for (int k = 0; k < 80; k++) {
+        sl_fit_params p = draw_truth(rng);
+        synth(r, vg, &p, &projected, k == 0 ? NULL : rng, NOISE_REL);
+        sl_fit_result a, b;
+        ck_assert_int_eq(sl_fit_sweep(&a, ws, &projected, vg, r, N_SWEEP), SL_OK);
+        ck_assert_int_eq(sl_fit_sweep(&b, ws, &full, vg, r, N_SWEEP), SL_OK);
+        ck_assert_int_eq(a.cls, SL_FIT_OK);
+        ck_assert_int_eq(b.cls, SL_FIT_OK);
+        double tol = k == 0 ? 1e-6 : 0.05;   /* noise-free: relative; else in sigmas */
+        const double *pa = &a.p.cnp_V, *pb = &b.p.cnp_V, *sa = &a.sigma.cnp_V, *truth = &p.cnp_V;
+        for (int j = 0; j < 4; j++) {
+            double scale = k == 0 ? fabs(truth[j]) : sa[j];
+            ck_assert_msg(fabs(pa[j] - pb[j]) <= tol * scale, "device %d parameter %d: %g vs %g",
+                          k, j, pa[j], pb[j]);
+        }
+        ck_assert_double_eq_tol(a.rel_rms, b.rel_rms, 1e-6 * a.rel_rms + 1e-9);
+    }
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
 static sl_fit_class classify(const double *r, const double *vg)
 {
     sl_fit_config cfg = test_config();
@@ -379,6 +413,7 @@ static Suite *fit_suite(void)
     tcase_add_test(tc, noise_free_recovers_exactly);
     tcase_add_test(tc, noisy_population_recovered);
     tcase_add_test(tc, contact_resistance_at_bound);
+    tcase_add_test(tc, full_search_agrees_with_projection);
     tcase_add_test(tc, short_device);
     tcase_add_test(tc, open_device);
     tcase_add_test(tc, cnp_outside_sweep);

@@ -30,6 +30,17 @@ const char *sl_fit_class_name(sl_fit_class cls);
 /* Name back to class; SL_OK, or SL_EINPUT for an unknown name. */
 sl_status sl_fit_class_parse(sl_fit_class *out, const char *name);
 
+/* How the least-squares problem is searched. Both minimise the same sum of
+ * squared relative residuals with R_c >= 0 and give the same answer to well
+ * within the standard errors; PROJECTED needs starting values for two
+ * parameters only, takes fewer steps and is faster (tests/bench/bench_fit.c). */
+typedef enum {
+    SL_FIT_METHOD_PROJECTED = 0, /* variable projection over (V_cnp, n0); the
+                                    full search as fallback if it fails */
+    SL_FIT_METHOD_FULL           /* all four parameters at once (R_c = rho^2,
+                                    mu and n0 through logarithms) */
+} sl_fit_method;
+
 /* Device geometry, gate and classification thresholds. */
 typedef struct {
     double gate_capacitance_F_per_m2; /* C_g per area, > 0 */
@@ -42,6 +53,7 @@ typedef struct {
     double poor_max_rel_rms;    /* RMS of relative residuals above: poor (0.05) */
     double poor_min_r_squared;  /* R^2 below: poor (default 0.9) */
     int max_iterations;         /* trust-region iterations per search (100) */
+    sl_fit_method method;       /* default SL_FIT_METHOD_PROJECTED */
 } sl_fit_config;
 
 /* Defaults for a channel of the given size on a gate of capacitance C_g.

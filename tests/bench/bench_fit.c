@@ -98,44 +98,59 @@ static int bench_csv(void)
 }
 
 /* The test population of tests/test_fit.c: 90 nm SiO2, L/W = 2, 0.5 % noise. */
-static int bench_fits(void)
+static double *make_sweeps(const sl_fit_config *cfg, double *vg)
 {
-    sl_fit_config cfg;
-    sl_fit_config_default(&cfg, 3.9 * SL_SI_EPS0 / 90e-9, 20.0, 10.0);
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
     gsl_rng_set(rng, 2026);
-    double vg[SWEEP_POINTS];
     double *r = malloc(sizeof(double) * SWEEP_POINTS * N_SWEEPS);
     for (size_t i = 0; i < SWEEP_POINTS; i++)
         vg[i] = -40.0 + 0.4 * (double)i;
-    for (size_t k = 0; k < N_SWEEPS; k++) {
+    for (size_t k = 0; r && k < N_SWEEPS; k++) {
         sl_fit_params p = { gsl_ran_flat(rng, -20, 30), gsl_ran_flat(rng, 500, 5000),
                             exp(gsl_ran_flat(rng, log(5e10), log(5e11))),
                             gsl_ran_flat(rng, 100, 2000) };
         for (size_t i = 0; i < SWEEP_POINTS; i++)
             r[k * SWEEP_POINTS + i] =
-                sl_fit_model_ohm(&p, &cfg, vg[i]) * (1.0 + gsl_ran_gaussian(rng, 0.005));
+                sl_fit_model_ohm(&p, cfg, vg[i]) * (1.0 + gsl_ran_gaussian(rng, 0.005));
     }
+    gsl_rng_free(rng);
+    return r;
+}
+
+static void bench_method(const sl_fit_config *cfg, const double *vg, const double *r,
+                         const char *label)
+{
     sl_fit_workspace *ws = sl_fit_workspace_new(SWEEP_POINTS);
     long ok = 0, iterations = 0;
     double t0 = seconds_now();
     for (int round = 0; round < FIT_ROUNDS; round++) {
         for (size_t k = 0; k < N_SWEEPS; k++) {
             sl_fit_result res;
-            sl_fit_sweep(&res, ws, &cfg, vg, r + k * SWEEP_POINTS, SWEEP_POINTS);
+            sl_fit_sweep(&res, ws, cfg, vg, r + k * SWEEP_POINTS, SWEEP_POINTS);
             ok += res.cls == SL_FIT_OK;
             iterations += res.iterations;
         }
     }
     double dt = seconds_now() - t0, fits = (double)FIT_ROUNDS * N_SWEEPS;
-    printf("fit: %.0f sweeps of %d points in %.3f CPU s: %.0f fits/s, %.1f us/fit, "
-           "%.2f iterations/fit, %.1f %% ok\n",
-           fits, SWEEP_POINTS, dt, fits / dt, 1e6 * dt / fits, (double)iterations / fits,
-           100.0 * (double)ok / fits);
-    printf("fit: a lot of 12500 devices needs %.2f s on one core\n", 12500.0 * dt / fits);
+    printf("fit %s: %.0f sweeps of %d points in %.3f CPU s: %.0f fits/s, %.1f us/fit, "
+           "%.2f iterations/fit, %.1f %% ok; a lot of 12500 devices: %.2f s on one core\n",
+           label, fits, SWEEP_POINTS, dt, fits / dt, 1e6 * dt / fits, (double)iterations / fits,
+           100.0 * (double)ok / fits, 12500.0 * dt / fits);
     sl_fit_workspace_free(ws);
+}
+
+static int bench_fits(void)
+{
+    sl_fit_config cfg;
+    sl_fit_config_default(&cfg, 3.9 * SL_SI_EPS0 / 90e-9, 20.0, 10.0);
+    double vg[SWEEP_POINTS];
+    double *r = make_sweeps(&cfg, vg);
+    if (!r)
+        return 1;
+    bench_method(&cfg, vg, r, "projected");
+    cfg.method = SL_FIT_METHOD_FULL;
+    bench_method(&cfg, vg, r, "full");
     free(r);
-    gsl_rng_free(rng);
     return 0;
 }
 
