@@ -1,38 +1,25 @@
 /* SPDX-License-Identifier: MIT
  * Sweep import: rows are grouped into runs of one device, runs are fitted in
- * batches on several threads (one fit workspace each) and written in file
- * order by this thread; rows of a device that come back later in the file are
+ * batches by a pool of threads while this thread reads the next batch, and
+ * written in file order by this thread; rows of a device that come back later in the file are
  * staged in the store and the device is fitted again at the end. Memory holds
  * one batch of points, whatever the file size.
  */
 #include <math.h>
-#include <pthread.h>
-#include <stdatomic.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include "ingest_internal.h"
-
-typedef struct {
-    size_t device;           /* index into the device table */
-    size_t offset, n;        /* points in the batch arrays */
-    const sl_fit_config *cfg;
-    sl_fit_result result;
-    sl_status status;
-} batch_item;
+#include "ingest_pool.h"
 
 struct ingest_batch {
-    batch_item *items;
-    size_t n_items, cap_items;
-    double *vg, *r;
-    size_t n_points, cap_points;
-    sl_fit_workspace **ws;   /* one per thread */
-    size_t ws_points;
-    int threads;
-    /* the run being read */
+    fit_batch buf[2];
+    int filling;             /* buffer rows go into */
+    int in_flight;           /* buffer being fitted, -1 when none */
+    fit_pool *pool;
+    /* the run being read (in buf[filling]) */
     int in_run;
     size_t run_device, run_offset;
-    long run_line;
     char run_wafer[SL_INGEST_MAX_NAME_BYTES + 1], run_name[SL_INGEST_MAX_NAME_BYTES + 1];
     char run_die_x[32], run_die_y[32];
 };
@@ -41,12 +28,9 @@ void ingest_batch_free(ingest_batch *b)
 {
     if (!b)
         return;
-    for (int i = 0; b->ws && i < b->threads; i++)
-        sl_fit_workspace_free(b->ws[i]);
-    free(b->ws);
-    free(b->items);
-    free(b->vg);
-    free(b->r);
+    fit_pool_free(b->pool);
+    fit_batch_free(&b->buf[0]);
+    fit_batch_free(&b->buf[1]);
     free(b);
 }
 
@@ -55,108 +39,13 @@ static ingest_batch *batch_new(int threads)
     ingest_batch *b = calloc(1, sizeof *b);
     if (!b)
         return NULL;
-    b->threads = threads < 1 ? 1 : threads;
-    b->ws = calloc((size_t)b->threads, sizeof *b->ws);
-    if (!b->ws) {
+    b->in_flight = -1;
+    b->pool = fit_pool_new(threads);
+    if (!b->pool) {
         free(b);
         return NULL;
     }
     return b;
-}
-
-static int grow_points(ingest_batch *b, size_t need)
-{
-    if (need <= b->cap_points)
-        return 0;
-    size_t cap = b->cap_points ? b->cap_points : 65536;
-    while (cap < need)
-        cap *= 2;
-    double *vg = realloc(b->vg, cap * sizeof *vg);
-    if (vg)
-        b->vg = vg;
-    double *r = vg ? realloc(b->r, cap * sizeof *r) : NULL;
-    if (!vg || !r)
-        return -1;
-    b->r = r;
-    b->cap_points = cap;
-    return 0;
-}
-
-/* ---- fitting a batch on several threads ---- */
-
-typedef struct {
-    ingest_batch *b;
-    atomic_size_t next;
-} fit_job;
-
-typedef struct {
-    fit_job *job;
-    sl_fit_workspace *ws;
-} fit_worker;
-
-static void fit_item(ingest_batch *b, batch_item *it, sl_fit_workspace *ws)
-{
-    if (it->n < SL_FIT_MIN_POINTS) {
-        it->status = SL_EINPUT; /* resolved at the end: rows may still come */
-        return;
-    }
-    it->status = sl_fit_sweep(&it->result, ws, it->cfg, b->vg + it->offset, b->r + it->offset, it->n);
-}
-
-static void *fit_worker_run(void *arg)
-{
-    fit_worker *w = arg;
-    ingest_batch *b = w->job->b;
-    for (;;) {
-        size_t i = atomic_fetch_add(&w->job->next, 1);
-        if (i >= b->n_items)
-            break;
-        fit_item(b, &b->items[i], w->ws);
-    }
-    return NULL;
-}
-
-static sl_status ensure_workspaces(ingest_batch *b)
-{
-    size_t need = SL_FIT_MIN_POINTS;
-    for (size_t i = 0; i < b->n_items; i++)
-        if (b->items[i].n > need)
-            need = b->items[i].n;
-    if (need <= b->ws_points && b->ws[0])
-        return SL_OK;
-    for (int t = 0; t < b->threads; t++) {
-        sl_fit_workspace_free(b->ws[t]);
-        b->ws[t] = sl_fit_workspace_new(need);
-        if (!b->ws[t])
-            return SL_ENOMEM;
-    }
-    b->ws_points = need;
-    return SL_OK;
-}
-
-static sl_status fit_batch(ingest_batch *b)
-{
-    sl_status st = ensure_workspaces(b);
-    if (st != SL_OK)
-        return st;
-    fit_job job = { .b = b };
-    atomic_init(&job.next, 0);
-    fit_worker workers[64];
-    pthread_t tids[64];
-    int helpers = b->threads - 1 < 63 ? b->threads - 1 : 63, started = 0;
-    if ((size_t)helpers > b->n_items / 8)
-        helpers = (int)(b->n_items / 8); /* not worth a thread for a few fits */
-    for (int t = 0; t <= helpers; t++)
-        workers[t] = (fit_worker){ &job, b->ws[t] };
-    for (int t = 1; t <= helpers; t++)
-        if (pthread_create(&tids[t], NULL, fit_worker_run, &workers[t]) == 0)
-            started = t;
-        else
-            break;
-    fit_worker_run(&workers[0]);
-    for (int t = 1; t <= started; t++)
-        pthread_join(tids[t], NULL);
-    return SL_OK;
 }
 
 /* ---- writing fitted devices ---- */
@@ -194,9 +83,8 @@ static void count_class(ingest_ctx *c, ingest_device *d, const sl_fit_result *r,
         c->summary->per_class[d->fit_class]++;
 }
 
-static sl_status write_item(ingest_ctx *c, const batch_item *it)
+static sl_status write_item(ingest_ctx *c, const fit_batch *b, const fit_item *it)
 {
-    ingest_batch *b = c->batch;
     ingest_device *d = &c->devices.items[it->device];
     sl_store_device dev = { .wafer_id = c->wafers[d->wafer_index].wafer_id, .name = d->device,
                             .die_x = d->die_x, .die_y = d->die_y, .source = "sweeps",
@@ -219,18 +107,36 @@ static sl_status write_item(ingest_ctx *c, const batch_item *it)
     return SL_OK;
 }
 
-static sl_status flush_batch(ingest_ctx *c)
+/* Wait for the batch being fitted and write its devices in file order. */
+static sl_status drain(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
-    if (b->n_items == 0)
+    if (b->in_flight < 0)
         return SL_OK;
-    sl_status st = fit_batch(b);
-    for (size_t i = 0; st == SL_OK && i < b->n_items; i++)
-        st = write_item(c, &b->items[i]);
-    b->n_items = 0;
-    b->n_points = 0;
+    fit_pool_wait(b->pool);
+    fit_batch *done = &b->buf[b->in_flight];
+    b->in_flight = -1;
+    sl_status st = SL_OK;
+    for (size_t i = 0; st == SL_OK && i < done->n_items; i++)
+        st = write_item(c, done, &done->items[i]);
+    fit_batch_clear(done);
     ingest_progress(c, false);
     return st;
+}
+
+/* Hand the filled buffer to the pool and keep reading into the other one. */
+static sl_status rotate(ingest_ctx *c)
+{
+    ingest_batch *b = c->batch;
+    sl_status st = drain(c);
+    if (st != SL_OK || b->buf[b->filling].n_items == 0)
+        return st;
+    st = fit_pool_submit(b->pool, &b->buf[b->filling]);
+    if (st != SL_OK)
+        return st;
+    b->in_flight = b->filling;
+    b->filling = 1 - b->filling;
+    return SL_OK;
 }
 
 /* ---- runs: consecutive rows of one device ---- */
@@ -241,28 +147,21 @@ static sl_status end_run(ingest_ctx *c)
     if (!b->in_run)
         return SL_OK;
     b->in_run = 0;
+    fit_batch *f = &b->buf[b->filling];
     ingest_device *d = &c->devices.items[b->run_device];
-    size_t n = b->n_points - b->run_offset;
+    size_t n = f->n_points - b->run_offset;
     if (d->revisit) {
         /* rows of a device met before: stage them, drop them from the batch */
-        sl_status st = sl_store_stage_points(c->store, (long)b->run_device, b->vg + b->run_offset,
-                                             b->r + b->run_offset, n, c->diag);
-        b->n_points = b->run_offset;
+        sl_status st = sl_store_stage_points(c->store, (long)b->run_device, f->vg + b->run_offset,
+                                             f->r + b->run_offset, n, c->diag);
+        f->n_points = b->run_offset;
         return st;
     }
-    if (b->n_items == b->cap_items) {
-        size_t cap = b->cap_items ? 2 * b->cap_items : SL_INGEST_BATCH_DEVICES;
-        batch_item *items = realloc(b->items, cap * sizeof *items);
-        if (!items)
-            return SL_ENOMEM;
-        b->items = items;
-        b->cap_items = cap;
-    }
-    b->items[b->n_items++] = (batch_item){ .device = b->run_device, .offset = b->run_offset, .n = n,
-                                           .cfg = &c->wafers[d->wafer_index].fit };
-    if (b->n_items >= SL_INGEST_BATCH_DEVICES)
-        return flush_batch(c);
-    return SL_OK;
+    fit_item item = { .device = b->run_device, .offset = b->run_offset, .n = n,
+                      .cfg = &c->wafers[d->wafer_index].fit };
+    if (fit_batch_push(f, &item) != 0)
+        return SL_ENOMEM;
+    return f->n_items >= SL_INGEST_BATCH_DEVICES ? rotate(c) : SL_OK;
 }
 
 static sl_status check_same_die(ingest_ctx *c, const ingest_device *d, const ingest_row *row)
@@ -298,8 +197,7 @@ static sl_status start_run(ingest_ctx *c, const ingest_row *row)
     }
     b->in_run = 1;
     b->run_device = k;
-    b->run_offset = b->n_points;
-    b->run_line = sl_csv_line(c->csv);
+    b->run_offset = b->buf[b->filling].n_points;
     snprintf(b->run_wafer, sizeof b->run_wafer, "%s", row->wafer);
     snprintf(b->run_name, sizeof b->run_name, "%s", row->device);
     snprintf(b->run_die_x, sizeof b->run_die_x, "%s", sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
@@ -333,17 +231,18 @@ static sl_status sweep_row(ingest_ctx *c)
         if (st != SL_OK)
             return st;
     }
-    if (b->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
+    fit_batch *f = &b->buf[b->filling];
+    if (f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
         ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
                             SL_INGEST_MAX_POINTS);
         return SL_EINPUT;
     }
-    if (grow_points(b, b->n_points + 1) != 0)
+    if (fit_batch_reserve_points(f, f->n_points + 1) != 0)
         return SL_ENOMEM;
-    st = sl_csv_number(&b->vg[b->n_points], c->csv, (size_t)c->col.vg, c->diag);
+    st = sl_csv_number(&f->vg[f->n_points], c->csv, (size_t)c->col.vg, c->diag);
     if (st == SL_OK)
-        st = sl_csv_number(&b->r[b->n_points], c->csv, (size_t)c->col.r, c->diag);
-    b->n_points += st == SL_OK;
+        st = sl_csv_number(&f->r[f->n_points], c->csv, (size_t)c->col.r, c->diag);
+    f->n_points += st == SL_OK;
     return st;
 }
 
@@ -443,8 +342,12 @@ sl_status ingest_sweeps(ingest_ctx *c)
     if (st == SL_OK)
         st = end_run(c);
     if (st == SL_OK)
-        st = flush_batch(c);
+        st = rotate(c); /* the last, partly filled buffer */
+    if (st == SL_OK)
+        st = drain(c);
     if (st == SL_OK)
         st = resolve_pending(c);
+    if (st != SL_OK)
+        fit_pool_wait(c->batch->pool); /* never free a buffer a thread still reads */
     return st;
 }

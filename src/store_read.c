@@ -40,7 +40,8 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
         "SELECT d.id, w.name, d.name, d.die_x, d.die_y, d.fit_class, d.source, d.temperature_K, "
         "d.cnp_V, d.cnp_sigma_V, d.mobility_cm2_per_Vs, d.n0_per_cm2, d.r_contact_ohm, "
         "d.rel_rms, d.r_squared, coalesce(d.n_points, 0) "
-        "FROM device d JOIN wafer w ON w.id = d.wafer_id WHERE d.lot_id = ?1 ORDER BY d.id", diag);
+        "FROM device d JOIN wafer w ON w.id = d.wafer_id WHERE d.lot_id = ?1 "
+        "ORDER BY w.name, d.die_y, d.die_x, d.name", diag);
     if (s != SL_OK)
         return s;
     sqlite3_bind_int64(st, 1, lot_id);

@@ -131,7 +131,8 @@ typedef struct {
     long n_points;               /* 0 for results rows */
 } sl_store_device_row;
 
-/* Every device of a lot in import order (malloc'd array). */
+/* Every device of a lot, by wafer, die row, die column and name, whatever
+ * the order of the files they came from (malloc'd array). */
 sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
                                 long lot_id, sl_diag *diag);
 

@@ -1,0 +1,46 @@
+/* SPDX-License-Identifier: MIT
+ * Private to the ingest module: batches of sweeps and a pool of fitting
+ * threads that works on one batch while the importing thread reads the next
+ * (double buffering), so parsing and fitting overlap.
+ */
+#ifndef SL_INGEST_POOL_H
+#define SL_INGEST_POOL_H
+
+#include <stddef.h>
+
+#include "splitlot/fit.h"
+
+typedef struct {
+    size_t device;           /* index into the import's device table */
+    size_t offset, n;        /* points in the batch arrays */
+    const sl_fit_config *cfg;
+    sl_fit_result result;
+    sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
+} fit_item;
+
+typedef struct {
+    fit_item *items;
+    size_t n_items, cap_items;
+    double *vg, *r;
+    size_t n_points, cap_points;
+} fit_batch;
+
+void fit_batch_free(fit_batch *b);
+void fit_batch_clear(fit_batch *b);
+/* Room for need points; returns 0, or -1 when out of memory. */
+int fit_batch_reserve_points(fit_batch *b, size_t need);
+/* Append an item; returns 0, or -1 when out of memory. */
+int fit_batch_push(fit_batch *b, const fit_item *item);
+
+typedef struct fit_pool fit_pool;
+
+/* A pool of threads (>= 1) waiting for batches; NULL when out of resources. */
+fit_pool *fit_pool_new(int threads);
+void fit_pool_free(fit_pool *pool);
+/* Start fitting every item of the batch on the pool's threads; the batch
+ * must stay untouched until fit_pool_wait returns. One batch at a time. */
+sl_status fit_pool_submit(fit_pool *pool, fit_batch *batch);
+/* Wait until the submitted batch is fitted (no-op when none is). */
+void fit_pool_wait(fit_pool *pool);
+
+#endif
