@@ -360,43 +360,74 @@ static int run_full_search(sl_fit_workspace *ws, const sl_fit_config *cfg, doubl
 
 /* ---- starting values ---- */
 
-/* Half width of the smoothed peak at half height over the smallest reading,
- * from the side where it is reached nearest; the sweep span when neither. */
-static double peak_half_width_V(const sl_fit_workspace *ws, size_t peak, double floor_ohm)
+/* Half width of the peak of curve (smoothed or raw readings) at half height
+ * over its smallest value, from the side where it is reached nearest; the
+ * sweep span when neither. */
+static double peak_half_width_V(const sl_fit_workspace *ws, const double *curve, size_t peak)
 {
-    double half = floor_ohm + 0.5 * (ws->smooth[peak] - floor_ohm);
+    double floor_ohm = gsl_stats_min(curve, 1, ws->n);
+    double half = floor_ohm + 0.5 * (curve[peak] - floor_ohm);
     double best = ws->vg[ws->n - 1] - ws->vg[0];
     size_t i = peak;
-    while (i > 0 && ws->smooth[i - 1] > half)
+    while (i > 0 && curve[i - 1] > half)
         i--;
     if (i > 0)
         best = fmin(best, ws->vg[peak] - ws->vg[i - 1]);
-    for (i = peak; i + 1 < ws->n && ws->smooth[i + 1] > half;)
+    for (i = peak; i + 1 < ws->n && curve[i + 1] > half;)
         i++;
     if (i + 1 < ws->n)
         best = fmin(best, ws->vg[i + 1] - ws->vg[peak]);
     return best;
 }
 
-/* ln d to start from: half height is reached at |V - V0| = sqrt(3) d; the
- * best of a few multiples of that guess by projected cost. */
-static double start_log_width(sl_fit_workspace *ws, size_t peak, double floor_ohm)
+/* ln d to start from at the peak: half height is reached at |V - V0| =
+ * sqrt(3) d; the best of a few multiples of that guess by projected cost,
+ * which goes to *cost. */
+static double start_log_width(sl_fit_workspace *ws, const double *curve, size_t peak,
+                              double *cost)
 {
     double span = ws->vg[ws->n - 1] - ws->vg[0];
-    double d = peak_half_width_V(ws, peak, floor_ohm) / M_SQRT3;
+    double d = peak_half_width_V(ws, curve, peak) / M_SQRT3;
     d = GSL_MIN(GSL_MAX(d, 1e-4 * span), span);
     static const double factors[] = { 0.5, 1.0, 2.0 };
-    double best_b = log(d), best_cost = HUGE_VAL;
+    double best_b = log(d);
+    *cost = HUGE_VAL;
     for (size_t i = 0; i < sizeof factors / sizeof factors[0]; i++) {
         double b = log(d * factors[i]);
         ws->have_state = false;
         project(ws, ws->vg[peak], b);
-        if (ws->chisq < best_cost && ws->k > 0.0) {
-            best_cost = ws->chisq;
+        if (ws->chisq < *cost && ws->k > 0.0) {
+            *cost = ws->chisq;
             best_b = b;
         }
     }
     return best_b;
+}
+
+static bool interior(size_t index, size_t n)
+{
+    size_t edge = SMOOTH_WINDOW / 2;
+    return index >= edge && index + edge < n;
+}
+
+/* Start at the peak of the moving median (robust to spikes) or of the raw
+ * readings (a peak only a point or two wide on a coarse sweep, which the
+ * median removes), whichever has the lower projected cost. */
+static void choose_start(sl_fit_workspace *ws, double *v0, double *b)
+{
+    const double *curves[2] = { ws->smooth, ws->r };
+    double best_cost = HUGE_VAL;
+    for (size_t c = 0; c < 2; c++) {
+        size_t peak = gsl_stats_max_index(curves[c], 1, ws->n);
+        if (!interior(peak, ws->n))
+            continue;
+        double cost, width = start_log_width(ws, curves[c], peak, &cost);
+        if (cost < best_cost || best_cost == HUGE_VAL) {
+            best_cost = cost;
+            *v0 = ws->vg[peak];
+            *b = width;
+        }
+    }
 }
 
 /* ---- classification before fitting ---- */
@@ -440,14 +471,12 @@ static double median_ohm(sl_fit_workspace *ws)
 }
 
 /* Class decided from the readings alone, or SL_FIT_OK to go on fitting. */
-static sl_fit_class classify_readings(sl_fit_workspace *ws, const sl_fit_config *cfg,
-                                      size_t *peak)
+static sl_fit_class classify_readings(sl_fit_workspace *ws, const sl_fit_config *cfg)
 {
     size_t n = ws->n;
     double r_min, r_max, s_min, s_max;
     gsl_stats_minmax(&r_min, &r_max, ws->r, 1, n);
     gsl_stats_minmax(&s_min, &s_max, ws->smooth, 1, n);
-    *peak = gsl_stats_max_index(ws->smooth, 1, n);
     bool flat = s_min <= 0.0 || s_max / s_min - 1.0 < cfg->min_modulation;
     if (r_max < cfg->short_max_ohm)
         return SL_FIT_SHORT;
@@ -455,11 +484,12 @@ static sl_fit_class classify_readings(sl_fit_workspace *ws, const sl_fit_config 
         return SL_FIT_SHORT;
     if (r_min <= 0.0 || flat)
         return SL_FIT_POOR;
-    size_t edge = SMOOTH_WINDOW / 2;
-    if (*peak >= edge && *peak + edge < n)
+    if (interior(gsl_stats_max_index(ws->smooth, 1, n), n) ||
+        interior(gsl_stats_max_index(ws->r, 1, n), n))
         return SL_FIT_OK;
-    /* Highest at an end: a neutrality point beyond the sweep if the curve
-     * rises steadily towards it, otherwise noise without a gate response. */
+    /* Highest at an end, smoothed or not: a neutrality point beyond the
+     * sweep if the curve rises steadily towards it, otherwise noise without
+     * a gate response. */
     double rho = gsl_stats_spearman(ws->vg, 1, ws->r, 1, n, ws->rank_work);
     return fabs(rho) >= MONOTONIC_MIN_RANK_CORRELATION ? SL_FIT_CNP_OUTSIDE : SL_FIT_POOR;
 }
@@ -613,12 +643,11 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
     if (ensure_solvers(ws, n_points) != SL_OK)
         return SL_ENOMEM;
     prepare(ws, vg_V, r_ohm, n_points);
-    size_t peak;
-    out->cls = classify_readings(ws, cfg, &peak);
+    out->cls = classify_readings(ws, cfg);
     if (out->cls != SL_FIT_OK)
         return SL_OK;
-    double v0 = ws->vg[peak];
-    double b = start_log_width(ws, peak, ws->smooth[gsl_stats_min_index(ws->smooth, 1, ws->n)]);
+    double v0 = 0.0, b = 0.0;
+    choose_start(ws, &v0, &b);
     out->cls = search(ws, cfg, &v0, &b, &out->iterations);
     if (out->cls == SL_FIT_NO_CONVERGENCE)
         return SL_OK;
