@@ -148,19 +148,23 @@ sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store
     return s;
 }
 
+/* Staged runs are kept as packed blobs, like stored sweeps: one row per run,
+ * and every double comes back bit for bit (a REAL column would turn -0.0 into
+ * the integer 0). */
 static sl_status ensure_stage(sl_store *store, sl_diag *diag)
 {
     if (store->has_stage)
         return SL_OK;
     sl_status s = sl_store_exec(store,
-        "CREATE TEMP TABLE IF NOT EXISTS stage (key INTEGER NOT NULL, vg_V REAL NOT NULL, "
-        "r_ohm REAL NOT NULL)", diag, "create the import scratch table");
+        "CREATE TEMP TABLE IF NOT EXISTS stage (key INTEGER NOT NULL, n_points INTEGER NOT NULL, "
+        "points BLOB NOT NULL)", diag, "create the import scratch table");
     if (s == SL_OK)
         s = sl_store_exec(store, "CREATE INDEX IF NOT EXISTS temp.stage_by_key ON stage(key)",
                           diag, "index the import scratch table");
     if (s == SL_OK)
         s = sl_store_prepare(store, &store->stage_point,
-                             "INSERT INTO temp.stage (key, vg_V, r_ohm) VALUES (?1, ?2, ?3)", diag);
+                             "INSERT INTO temp.stage (key, n_points, points) VALUES (?1, ?2, ?3)",
+                             diag);
     store->has_stage = s == SL_OK;
     return s;
 }
@@ -169,13 +173,15 @@ sl_status sl_store_stage_points(sl_store *store, long key, const double *vg_V,
                                 const double *r_ohm, size_t n, sl_diag *diag)
 {
     sl_status s = ensure_stage(store, diag);
-    for (size_t i = 0; s == SL_OK && i < n; i++) {
-        sqlite3_bind_int64(store->stage_point, 1, key);
-        sqlite3_bind_double(store->stage_point, 2, vg_V[i]);
-        sqlite3_bind_double(store->stage_point, 3, r_ohm[i]);
-        s = sl_store_step_done(store, store->stage_point, diag, "stage sweep points");
-    }
-    return s;
+    if (s != SL_OK || n == 0)
+        return s;
+    unsigned char *blob = sl_store_pack_sweep(vg_V, r_ohm, n);
+    if (!blob)
+        return SL_ENOMEM;
+    sqlite3_bind_int64(store->stage_point, 1, key);
+    sqlite3_bind_int64(store->stage_point, 2, (sqlite3_int64)n);
+    sqlite3_bind_blob(store->stage_point, 3, blob, (int)(n * 16), free);
+    return sl_store_step_done(store, store->stage_point, diag, "stage sweep points");
 }
 
 sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
@@ -187,14 +193,24 @@ sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm,
     sl_status s = ensure_stage(store, diag);
     if (s == SL_OK)
         s = sl_store_prepare(store, &st,
-                             "SELECT vg_V, r_ohm FROM temp.stage WHERE key = ?1 ORDER BY rowid", diag);
+                             "SELECT n_points, points FROM temp.stage WHERE key = ?1 ORDER BY rowid",
+                             diag);
     if (s != SL_OK)
         return s;
     sqlite3_bind_int64(st, 1, key);
     size_t cap = 0;
     while (s == SL_OK && sqlite3_step(st) == SQLITE_ROW) {
-        if (*n == cap) {
+        size_t count = (size_t)sqlite3_column_int64(st, 0);
+        const unsigned char *blob = sqlite3_column_blob(st, 1);
+        if ((size_t)sqlite3_column_bytes(st, 1) != count * 16 || (count && !blob)) {
+            sl_diag_error(diag, "staged sweep points are damaged");
+            s = SL_EDB;
+            break;
+        }
+        if (*n + count > cap) {
             cap = cap ? 2 * cap : 256;
+            while (cap < *n + count)
+                cap *= 2;
             double *a = realloc(*vg_V, cap * sizeof *a), *b = a ? realloc(*r_ohm, cap * sizeof *b) : NULL;
             if (a)
                 *vg_V = a;
@@ -204,9 +220,11 @@ sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm,
             }
             *r_ohm = b;
         }
-        (*vg_V)[*n] = sqlite3_column_double(st, 0);
-        (*r_ohm)[*n] = sqlite3_column_double(st, 1);
-        (*n)++;
+        for (size_t i = 0; i < count; i++) {
+            (*vg_V)[*n + i] = get_le_double(blob + 16 * i);
+            (*r_ohm)[*n + i] = get_le_double(blob + 16 * i + 8);
+        }
+        *n += count;
     }
     sqlite3_finalize(st);
     return s;
