@@ -287,6 +287,31 @@ static sl_status insert_revision(sl_store *store, long *revision_id, long lot_id
     return s;
 }
 
+/* A plan text stored before under an older revision (the plan was changed
+ * and then changed back) becomes the newest again under the next number:
+ * plan_hash is unique per lot, and its splits, wafers and predictions are
+ * already there. *revived is 1 when such a revision existed. */
+static sl_status revive_revision(sl_store *store, int *revived, long lot_id, int revision,
+                                 const char *hash, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "UPDATE plan_revision SET revision = ?1, created_utc = ?2 "
+        "WHERE lot_id = ?3 AND plan_hash = ?4", diag);
+    if (s != SL_OK)
+        return s;
+    char now[32];
+    sl_store_now_utc(now);
+    sqlite3_bind_int(st, 1, revision);
+    sqlite3_bind_text(st, 2, now, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int64(st, 3, lot_id);
+    sqlite3_bind_text(st, 4, hash, -1, SQLITE_TRANSIENT);
+    s = sl_store_step_done(store, st, diag, "store the plan revision");
+    sqlite3_finalize(st);
+    *revived = s == SL_OK && sqlite3_changes(store->db) == 1;
+    return s;
+}
+
 /* Treatment names of a split joined with ';' into buf. */
 static void join_treatments(char *buf, size_t size, const sl_plan *plan, const sl_plan_split *s)
 {
@@ -396,6 +421,12 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
     if (s != SL_OK || strcmp(hash, newest_hash) == 0)
         return s;
     (*revision)++;
+    int revived = 0;
+    s = revive_revision(store, &revived, lot_id, *revision, hash, diag);
+    if (s != SL_OK || revived) {
+        *created = s == SL_OK;
+        return s;
+    }
     long *split_ids = calloc(plan->n_splits ? plan->n_splits : 1, sizeof *split_ids);
     if (!split_ids)
         return SL_ENOMEM;
