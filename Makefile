@@ -4,12 +4,13 @@
 #   make check  install what is missing, build, run the whole test suite
 #   make asan   the test suite under AddressSanitizer + UndefinedBehaviorSanitizer
 #   make bench  build in Release and run the benchmarks (figures, not tests)
+#   make bench-reference  splitlot against the pandas + SciPy script, 1k/12.5k/50k devices
 BUILD ?= build
 JOBS ?= 2
 DEMO ?= demo-out
 SPLITLOT = $(BUILD)/splitlot
 
-.PHONY: all deps build demo check asan bench clean
+.PHONY: all deps build demo check asan bench bench-reference clean
 
 all: build
 
@@ -40,6 +41,9 @@ bench: deps
 	@cmake -S . -B build-release -DCMAKE_BUILD_TYPE=Release >/dev/null
 	@cmake --build build-release -j$(JOBS)
 	@for b in build-release/tests/bench_*; do echo "== $$b"; $$b; done
+
+bench-reference: bench
+	@tests/bench/vs_reference.sh build-release
 
 demo: build
 	@./.ci/demo $(SPLITLOT) $(DEMO)
