@@ -41,6 +41,7 @@ bench: deps
 	@cmake -S . -B build-release -DCMAKE_BUILD_TYPE=Release >/dev/null
 	@cmake --build build-release -j$(JOBS)
 	@for b in build-release/tests/bench_*; do echo "== $$b"; $$b; done
+	@for b in tests/bench/bench_*.sh; do echo "== $$b"; $$b build-release; done
 
 bench-reference: bench
 	@tests/bench/vs_reference.sh build-release
