@@ -278,6 +278,15 @@ static void xy_points(sl_chart_buf *buf, const sl_chart_scale *x, const sl_chart
     }
 }
 
+/* Only named series get a legend entry; without any, no legend strip. */
+static int any_named(const sl_chart_series *series, size_t count)
+{
+    for (size_t k = 0; k < count; k++)
+        if (series[k].name)
+            return 1;
+    return 0;
+}
+
 static void xy_legend(sl_chart_buf *buf, const sl_chart_rect *plot,
                       const sl_chart_series *series, size_t count)
 {
@@ -299,7 +308,7 @@ sl_status sl_chart_xy(sl_chart_buf *buf, const sl_chart_frame *frame,
                       const sl_chart_series *series, size_t count,
                       const char *x_title, const char *y_title, int log_y)
 {
-    sl_chart_frame f = widen_right(frame, LEGEND_STRIP_PX);
+    sl_chart_frame f = any_named(series, count) ? widen_right(frame, LEGEND_STRIP_PX) : *frame;
     sl_status st = sl_chart_frame_open(buf, &f);
     if (st != SL_OK)
         return st;
