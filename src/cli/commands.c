@@ -17,6 +17,7 @@ const cli_command cli_commands[] = {
     { "ingest", cmd_ingest, "import device results or transfer sweeps (fitted) into a lot" },
     { "compare", cmd_compare, "every device against its prediction, flags, effects, failure list" },
     { "history", cmd_history, "level estimates across lots, pooled values, drift, calibrated YAML" },
+    { "report", cmd_report, "one self-contained HTML report of a lot, with charts" },
     { NULL, NULL, NULL },
 };
 

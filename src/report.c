@@ -1,0 +1,276 @@
+/* SPDX-License-Identifier: MIT
+ * The lot report's page (see include/splitlot/report.h): document skeleton
+ * with its screen and print CSS, the header with the lot's verdicts and the
+ * caution, the order of the sections, and the analyse-render-write helper.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+#include <time.h>
+
+#include "report_internal.h"
+
+/* Screen and print rules of the page; the charts' own rules come from
+ * sl_chart_stylesheet(). Print: a page per section, no chart split. */
+static const char page_css[] =
+    "body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1d;"
+    "margin:0 auto;max-width:1180px;padding:16px 24px;line-height:1.4;background:#fff}"
+    "h1{font-size:24px;margin:0 0 2px}h2{font-size:19px;margin:30px 0 8px;padding-bottom:3px;"
+    "border-bottom:2px solid #2c65a3}h3{font-size:15px;margin:18px 0 4px}"
+    "p{margin:6px 0;max-width:80em}.lot-title{font-size:16px;color:#333;margin:0 0 8px}"
+    ".facts{display:grid;grid-template-columns:max-content auto;gap:2px 14px;margin:8px 0;"
+    "font-size:14px}.facts dt{color:#555}.facts dd{margin:0}"
+    ".verdicts{display:grid;grid-template-columns:repeat(auto-fit,minmax(15em,1fr));gap:10px;"
+    "list-style:none;padding:0;margin:12px 0}"
+    ".verdict{border:1px solid #c4c4c4;border-left:6px solid #4f7f52;border-radius:3px;"
+    "padding:6px 12px;font-size:14px}"
+    ".verdict.bad{border-left-color:#a6431a;background:#fbf0ea}"
+    ".verdict .count{display:block;font-size:24px;font-weight:700}"
+    ".caution{border:1px solid #c9a227;background:#fdf8e4;padding:6px 10px;font-size:13px}"
+    "nav ol{list-style:none;display:flex;flex-wrap:wrap;gap:4px 22px;padding:0;font-size:14px}"
+    "table{border-collapse:collapse;font-size:13px;margin:8px 0 14px}"
+    "th,td{padding:3px 8px;border-bottom:1px solid #ddd;text-align:left;vertical-align:top}"
+    "th{background:#f1f3f6;font-weight:600}td.num{text-align:right;"
+    "font-variant-numeric:tabular-nums;white-space:nowrap}tr.bad td{background:#fbf0ea}"
+    "figure{margin:6px 0;break-inside:avoid;page-break-inside:avoid}"
+    "figcaption{font-size:12px;color:#444;max-width:380px}figure.wafer figcaption{text-align:center}"
+    ".maps,.curves,.charts{display:flex;flex-wrap:wrap;gap:8px 10px;align-items:flex-start}"
+    "svg.sl-chart{max-width:100%;height:auto}.note,.small{color:#555;font-size:13px}"
+    ".note{font-style:italic}footer{margin-top:30px;font-size:12px;color:#666}"
+    "@page{margin:12mm}"
+    "@media print{body{max-width:none;padding:0;font-size:12px}nav{display:none}"
+    "section{break-before:page;page-break-before:always}"
+    "figure,svg,tr,.verdict{break-inside:avoid;page-break-inside:avoid}"
+    "h2,h3{break-after:avoid;page-break-after:avoid}"
+    ".verdict.bad,tr.bad td,th{-webkit-print-color-adjust:exact;print-color-adjust:exact}}";
+
+static const char caution_html[] =
+    "<p class=\"caution\"><strong>Caution:</strong> predictions and estimates in this report are "
+    "model estimates, not sign-off. Gate bias near breakdown destroys devices and doping "
+    "treatments can be hazardous: follow your site's safety rules and licensed practice.</p>\n";
+
+void sl_report_options_default(sl_report_options *out)
+{
+    out->generated_utc = NULL;
+    out->max_curves = SL_REPORT_DEFAULT_MAX_CURVES;
+    out->with_history = 1;
+}
+
+static void now_utc(char out[32])
+{
+    time_t t = time(NULL);
+    struct tm tm;
+    if (gmtime_r(&t, &tm) == NULL || strftime(out, 32, "%Y-%m-%d %H:%M UTC", &tm) == 0)
+        snprintf(out, 32, "unknown");
+}
+
+static void page_open(report_ctx *c)
+{
+    sl_chart_buf *b = c->buf;
+    sl_chart_buf_append(b, "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
+                           "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
+                           "<title>Lot report ");
+    sl_chart_buf_escape(b, c->a->lot.lot);
+    if (c->a->plan->title[0]) {
+        sl_chart_buf_append(b, ": ");
+        sl_chart_buf_escape(b, c->a->plan->title);
+    }
+    sl_chart_buf_printf(b, "</title>\n<style>%s%s</style>\n</head>\n<body>\n", page_css,
+                        sl_chart_stylesheet());
+}
+
+static void fact(sl_chart_buf *b, const char *term, const char *value)
+{
+    sl_chart_buf_printf(b, "<dt>%s</dt><dd>", term);
+    sl_chart_buf_escape(b, value);
+    sl_chart_buf_append(b, "</dd>");
+}
+
+/* The plan's file name without its folders: a report travels, the reader's
+ * disk layout is nobody else's business. */
+static const char *base_name(const char *path)
+{
+    if (!path || !*path)
+        return "the plan";
+    const char *slash = strrchr(path, '/');
+    return slash && slash[1] ? slash + 1 : path;
+}
+
+static void header_facts(report_ctx *c, const char *generated)
+{
+    const sl_analysis *a = c->a;
+    char text[256];
+    sl_chart_buf *b = c->buf;
+    sl_chart_buf_append(b, "<dl class=\"facts\">");
+    snprintf(text, sizeof text, "revision %d of %s, stored %s", a->lot.revision,
+             base_name(a->lot.plan_name), a->lot.created_utc ? a->lot.created_utc : "");
+    fact(b, "plan", text);
+    fact(b, "report", generated);
+    snprintf(text, sizeof text, "%zu splits on %zu wafers, %zu dielectrics", a->n_splits,
+             a->plan->n_wafers, a->plan->n_dielectrics);
+    fact(b, "design", text);
+    snprintf(text, sizeof text, "%zu measured, %zu usable (neutrality point extracted)",
+             a->n_devices, a->n_usable);
+    fact(b, "devices", text);
+    sl_chart_buf_append(b, "</dl>\n");
+}
+
+/* One verdict box; data-verdict and data-count make the page checkable. */
+static void verdict_open(sl_chart_buf *b, const char *key, size_t count, const char *what)
+{
+    sl_chart_buf_printf(b, "<li class=\"verdict%s\" data-verdict=\"%s\" data-count=\"%zu\">"
+                        "<span class=\"count\">%zu</span>%s",
+                        count ? " bad" : "", key, count, count, what);
+}
+
+static void verdict_off_plan(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    verdict_open(c->buf, "off-plan", a->n_off_plan, "treatment or dielectric levels off plan");
+    const char *sep = ": ";
+    for (size_t i = 0; i < a->n_effects; i++)
+        if (a->effects[i].off_plan) {
+            sl_chart_buf_append(c->buf, sep);
+            sl_chart_buf_escape(c->buf, a->effects[i].level);
+            sep = ", ";
+        }
+    if (a->effects_status != SL_OK)
+        sl_chart_buf_append(c->buf, " (effects could not be estimated)");
+    sl_chart_buf_append(c->buf, "</li>\n");
+}
+
+static void verdict_flagged(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    verdict_open(c->buf, "flagged", a->n_flagged, "devices flagged");
+    sl_chart_buf_printf(c->buf, " of %zu measured; see the failure-analysis list</li>\n",
+                        a->n_devices);
+}
+
+static void verdict_cnp_outside(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    verdict_open(c->buf, "cnp-outside", a->n_splits_cnp_outside,
+                 "splits whose mean neutrality voltage left the gate range");
+    const char *sep = ": ";
+    for (size_t s = 0; s < a->n_splits; s++) {
+        double mean = a->splits[s].cnp.mean;
+        if (isfinite(mean) && (mean < a->split_gate_min_V[s] || mean > a->split_gate_max_V[s])) {
+            sl_chart_buf_append(c->buf, sep);
+            sl_chart_buf_escape(c->buf, a->plan->splits[s].name);
+            sep = ", ";
+        }
+    }
+    sl_chart_buf_append(c->buf, "</li>\n");
+}
+
+static void contents(report_ctx *c)
+{
+    sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#splits\">Splits</a></li>"
+                                "<li><a href=\"#wafers\">Wafer maps</a></li>"
+                                "<li><a href=\"#effects\">Level effects</a></li>");
+    if (c->has_curves)
+        sl_chart_buf_append(c->buf, "<li><a href=\"#curves\">Transfer curves</a></li>");
+    if (c->has_history)
+        sl_chart_buf_append(c->buf, "<li><a href=\"#history\">History</a></li>");
+    sl_chart_buf_append(c->buf, "<li><a href=\"#failure-analysis\">Failure analysis</a></li>"
+                                "</ol></nav>\n");
+}
+
+static void page_header(report_ctx *c)
+{
+    char generated[32];
+    if (!c->opts->generated_utc)
+        now_utc(generated);
+    sl_chart_buf *b = c->buf;
+    sl_chart_buf_printf(b, "<header>\n<h1>Lot report ");
+    sl_chart_buf_escape(b, c->a->lot.lot);
+    sl_chart_buf_append(b, "</h1>\n<p class=\"lot-title\">");
+    sl_chart_buf_escape(b, c->a->plan->title);
+    sl_chart_buf_append(b, "</p>\n");
+    header_facts(c, c->opts->generated_utc ? c->opts->generated_utc : generated);
+    sl_chart_buf_append(b, "<ul class=\"verdicts\">\n");
+    verdict_off_plan(c);
+    verdict_flagged(c);
+    verdict_cnp_outside(c);
+    sl_chart_buf_append(b, "</ul>\n");
+    sl_chart_buf_append(b, caution_html);
+    contents(c);
+    sl_chart_buf_append(b, "</header>\n");
+}
+
+static void failure_section(report_ctx *c)
+{
+    sl_report_section_open(c->buf, "failure-analysis", "Failure analysis, most severe first");
+    sl_report_failure_table(c);
+    sl_report_section_close(c->buf);
+}
+
+static void page_close(report_ctx *c)
+{
+    sl_chart_buf_printf(c->buf, "<footer>splitlot %s. Deviation = measured &minus; predicted "
+                        "neutrality voltage.</footer>\n</body>\n</html>\n", SL_VERSION);
+}
+
+/* The sections go to their own buffer first: the header's contents list
+ * names only the sections that were drawn. */
+static sl_status render_sections(report_ctx *c)
+{
+    sl_status st = sl_report_section_splits(c);
+    if (st == SL_OK)
+        st = sl_report_section_wafers(c);
+    if (st == SL_OK)
+        st = sl_report_section_effects(c);
+    if (st == SL_OK)
+        st = sl_report_section_curves(c);
+    if (st == SL_OK && c->opts->with_history)
+        st = sl_report_section_history(c);
+    return st;
+}
+
+sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
+                           const sl_analysis *analysis, const sl_report_options *opts,
+                           sl_diag *diag)
+{
+    sl_report_summary local;
+    sl_report_options defaults;
+    if (!opts) {
+        sl_report_options_default(&defaults);
+        opts = &defaults;
+    }
+    sl_chart_buf body;
+    sl_chart_buf_init(&body);
+    report_ctx c = { &body, analysis, store, opts, summary ? summary : &local, diag, 0, 0 };
+    memset(c.sum, 0, sizeof *c.sum);
+    sl_status st = render_sections(&c);
+    if (st == SL_OK)
+        failure_section(&c);
+    size_t start = buf->len;
+    c.buf = buf;
+    if (st == SL_OK) {
+        page_open(&c);
+        page_header(&c);
+        sl_chart_buf_append(buf, sl_chart_buf_str(&body));
+        page_close(&c);
+        st = body.status != SL_OK ? body.status : buf->status;
+    }
+    sl_chart_buf_free(&body);
+    c.sum->bytes = buf->len - start;
+    return st;
+}
+
+sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char *lot,
+                        const char *path, const sl_report_options *opts, sl_diag *diag)
+{
+    sl_analysis *a = NULL;
+    sl_chart_buf buf;
+    sl_chart_buf_init(&buf);
+    sl_status st = sl_analyze_lot(&a, store, lot, diag);
+    if (st == SL_OK)
+        st = sl_report_render(&buf, summary, store, a, opts, diag);
+    if (st == SL_OK)
+        st = sl_report_write_file(path, sl_chart_buf_str(&buf), buf.len, diag);
+    sl_chart_buf_free(&buf);
+    sl_analysis_free(a);
+    return st;
+}

@@ -1,0 +1,155 @@
+/* SPDX-License-Identifier: MIT
+ * Transfer curves of the lot report: for the most severe flagged devices with
+ * a stored sweep, the measured points and, where the fit succeeded, the model
+ * curve from the stored parameters. Log resistance for opens and shorts.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "report_internal.h"
+#include "splitlot/fit.h"
+
+#define CURVE_WIDTH_PX 380.0
+#define CURVE_HEIGHT_PX 250.0
+#define CURVE_MODEL_POINTS 160
+#define LOG_Y_RATIO 50.0 /* max/min resistance above which a linear axis hides the floor */
+
+typedef struct {
+    double *vg_V, *r_ohm;
+    size_t n;
+    double model_vg_V[CURVE_MODEL_POINTS], model_r_ohm[CURVE_MODEL_POINTS];
+    size_t n_model;
+} curve_data;
+
+static const sl_store_device_row *find_row(const sl_store_device_row *rows, size_t n, long id)
+{
+    for (size_t i = 0; i < n; i++)
+        if (rows[i].id == id)
+            return &rows[i];
+    return NULL;
+}
+
+static int has_fit(const sl_store_device_row *row)
+{
+    return strcmp(row->fit_class, "ok") == 0 && isfinite(row->cnp_V)
+           && isfinite(row->mobility_cm2_per_Vs) && isfinite(row->n0_per_cm2)
+           && isfinite(row->r_contact_ohm);
+}
+
+static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_device *d,
+                        const sl_store_device_row *row)
+{
+    cd->n_model = 0;
+    if (!has_fit(row) || cd->n == 0)
+        return;
+    double lo = cd->vg_V[0], hi = cd->vg_V[0];
+    for (size_t i = 1; i < cd->n; i++) {
+        lo = fmin(lo, cd->vg_V[i]);
+        hi = fmax(hi, cd->vg_V[i]);
+    }
+    sl_fit_config cfg;
+    sl_fit_config_default(&cfg, a->split_capacitance_F_per_m2[d->split],
+                          a->plan->channel_length_um, a->plan->channel_width_um);
+    sl_fit_params p = { row->cnp_V, row->mobility_cm2_per_Vs, row->n0_per_cm2, row->r_contact_ohm };
+    for (size_t i = 0; i < CURVE_MODEL_POINTS; i++) {
+        double vg = lo + (hi - lo) * (double)i / (CURVE_MODEL_POINTS - 1);
+        cd->model_vg_V[i] = vg;
+        cd->model_r_ohm[i] = sl_fit_model_ohm(&p, &cfg, vg);
+    }
+    cd->n_model = CURVE_MODEL_POINTS;
+}
+
+static int wants_log_y(const curve_data *cd, const sl_store_device_row *row)
+{
+    if (strcmp(row->fit_class, "short") == 0 || strcmp(row->fit_class, "open") == 0)
+        return 1;
+    double lo = INFINITY, hi = 0.0;
+    for (size_t i = 0; i < cd->n; i++)
+        if (isfinite(cd->r_ohm[i]) && cd->r_ohm[i] > 0.0) {
+            lo = fmin(lo, cd->r_ohm[i]);
+            hi = fmax(hi, cd->r_ohm[i]);
+        }
+    return isfinite(lo) && hi / lo > LOG_Y_RATIO;
+}
+
+static void curve_chart(report_ctx *c, const curve_data *cd, const sl_analyze_device *d,
+                        const sl_store_device_row *row)
+{
+    char title[200];
+    snprintf(title, sizeof title, "%s %s (%s)", d->wafer, d->device,
+             c->a->plan->splits[d->split].name);
+    /* A legend only when there are two series to tell apart. */
+    sl_chart_series series[2] = {
+        { cd->n_model ? "measured" : NULL, cd->vg_V, cd->r_ohm, cd->n, 1, 0 },
+        { "fitted model", cd->model_vg_V, cd->model_r_ohm, cd->n_model, 0, 1 },
+    };
+    sl_chart_frame frame;
+    sl_chart_frame_default(&frame, CURVE_WIDTH_PX, CURVE_HEIGHT_PX, title);
+    frame.embed_style = 0;
+    sl_chart_buf_append(c->buf, "<figure class=\"curve\">");
+    sl_chart_xy(c->buf, &frame, series, cd->n_model ? 2 : 1, "gate voltage (V)",
+                "resistance (\xce\xa9)", wants_log_y(cd, row));
+    sl_chart_buf_append(c->buf, "<figcaption>");
+    sl_chart_buf_escape(c->buf, d->reason);
+    if (!cd->n_model)
+        sl_chart_buf_append(c->buf, " (no fitted curve)");
+    sl_chart_buf_append(c->buf, "</figcaption></figure>\n");
+    c->sum->n_curves++;
+}
+
+/* Draw one device's curve; SL_OK also when it has no sweep to draw. */
+static sl_status device_curve(report_ctx *c, const sl_analyze_device *d,
+                              const sl_store_device_row *row)
+{
+    curve_data cd = { 0 };
+    sl_status st = sl_store_load_sweep(c->store, &cd.vg_V, &cd.r_ohm, &cd.n, d->device_id, c->diag);
+    if (st == SL_OK && cd.n > 0) {
+        model_curve(&cd, c->a, d, row);
+        curve_chart(c, &cd, d, row);
+    }
+    free(cd.vg_V);
+    free(cd.r_ohm);
+    return st;
+}
+
+static sl_status draw_curves(report_ctx *c, const sl_store_device_row *rows, size_t n_rows)
+{
+    sl_status st = SL_OK;
+    for (size_t k = 0; st == SL_OK && k < c->a->n_flagged; k++) {
+        if (c->sum->n_curves >= c->opts->max_curves)
+            break;
+        const sl_analyze_device *d = &c->a->devices[c->a->flagged[k]];
+        const sl_store_device_row *row = find_row(rows, n_rows, d->device_id);
+        if (row && row->n_points > 0)
+            st = device_curve(c, d, row);
+    }
+    return st;
+}
+
+sl_status sl_report_section_curves(report_ctx *c)
+{
+    if (c->a->n_flagged == 0 || c->opts->max_curves == 0)
+        return SL_OK;
+    sl_store_device_row *rows = NULL;
+    size_t n_rows = 0;
+    sl_status st = sl_store_load_devices(c->store, &rows, &n_rows, c->a->lot.lot_id, c->diag);
+    if (st != SL_OK)
+        return st;
+    c->has_curves = 1;
+    sl_report_section_open(c->buf, "curves", "Transfer curves of flagged devices");
+    sl_chart_buf_printf(c->buf,
+                        "<p>Resistance against gate voltage of up to %zu flagged devices with a "
+                        "stored sweep, most severe first: measured points, and the fitted model "
+                        "where the extraction succeeded. Opens and shorts on a logarithmic "
+                        "resistance axis.</p>\n<div class=\"curves\">\n",
+                        c->opts->max_curves);
+    st = draw_curves(c, rows, n_rows);
+    if (st == SL_OK && c->sum->n_curves == 0)
+        sl_report_note(c->buf, "None of the flagged devices has a stored sweep.");
+    sl_chart_buf_append(c->buf, "</div>\n");
+    sl_report_section_close(c->buf);
+    free(rows);
+    return st == SL_OK ? c->buf->status : st;
+}

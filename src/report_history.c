@@ -1,0 +1,107 @@
+/* SPDX-License-Identifier: MIT
+ * History section of the lot report: every level's estimate across the lots
+ * of the store on an individuals control chart with its limits, and the
+ * pooled values. Drawn only when more than one lot has estimates.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+
+#include "report_internal.h"
+
+#define HISTORY_WIDTH_PX 420.0
+#define HISTORY_HEIGHT_PX 260.0
+
+static int chartable(const sl_history_level *l)
+{
+    return l->n_points >= 2 && isfinite(l->chart.center) && isfinite(l->chart.lcl)
+           && isfinite(l->chart.ucl) && l->chart.lcl <= l->chart.ucl;
+}
+
+static void level_chart(report_ctx *c, const sl_history_level *l)
+{
+    double *values = malloc(l->n_points * sizeof *values);
+    const char **labels = malloc(l->n_points * sizeof *labels);
+    if (!values || !labels) {
+        free(values);
+        free(labels);
+        c->buf->status = SL_ENOMEM;
+        return;
+    }
+    for (size_t i = 0; i < l->n_points; i++) {
+        values[i] = l->points[i].estimated_per_cm2;
+        labels[i] = l->points[i].lot;
+    }
+    char title[200];
+    snprintf(title, sizeof title, "%s: %s", l->factor, l->level);
+    sl_chart_frame frame;
+    sl_chart_frame_default(&frame, HISTORY_WIDTH_PX, HISTORY_HEIGHT_PX, title);
+    frame.embed_style = 0;
+    frame.margin_bottom_px = 64.0;
+    sl_chart_buf_append(c->buf, "<figure class=\"history\">");
+    sl_chart_control(c->buf, &frame, values, labels, l->n_points, l->chart.center, l->chart.lcl,
+                     l->chart.ucl, "lot", "doping (cm\xe2\x81\xbb\xc2\xb2)");
+    sl_chart_buf_printf(c->buf, "<figcaption>%zu lots, %zu outside the limits</figcaption>"
+                        "</figure>\n", l->n_points, l->n_drift);
+    c->sum->n_history_levels++;
+    free(values);
+    free(labels);
+}
+
+static const char pooled_headings[] =
+    "<table class=\"history\"><thead><tr><th>factor</th><th>level</th><th>lots</th>"
+    "<th>planned (cm<sup>&minus;2</sup>)</th><th>pooled (cm<sup>&minus;2</sup>)</th>"
+    "<th>SE (cm<sup>&minus;2</sup>)</th><th>drifting lots</th></tr></thead><tbody>\n";
+
+static void pooled_table(report_ctx *c, const sl_history *h)
+{
+    sl_chart_buf_append(c->buf, pooled_headings);
+    for (size_t i = 0; i < h->n_levels; i++) {
+        const sl_history_level *l = &h->levels[i];
+        sl_chart_buf_append(c->buf, "<tr>");
+        sl_report_cell_text(c->buf, l->factor);
+        sl_report_cell_text(c->buf, l->level);
+        sl_report_cell_long(c->buf, (long)l->n_points);
+        sl_report_cell_density(c->buf, l->planned_per_cm2);
+        sl_report_cell_density(c->buf, l->pooled.value);
+        sl_report_cell_density(c->buf, l->pooled.se);
+        sl_report_cell_long(c->buf, (long)l->n_drift);
+        sl_chart_buf_append(c->buf, "</tr>\n");
+    }
+    sl_chart_buf_append(c->buf, "</tbody></table>\n");
+}
+
+static void history_body(report_ctx *c, const sl_history *h)
+{
+    c->has_history = 1;
+    sl_report_section_open(c->buf, "history", "History across lots");
+    sl_chart_buf_printf(c->buf,
+                        "<p>Each level's estimated doping in the %zu lots of the database with "
+                        "estimates, in creation order, on an individuals chart: centre line and "
+                        "limits at &plusmn;3&nbsp;&sigma; from the average moving range / "
+                        "1.128. Diamonds: lots outside the limits of the lots before them.</p>\n"
+                        "<div class=\"charts\">\n", h->n_lots);
+    for (size_t i = 0; i < h->n_levels; i++)
+        if (chartable(&h->levels[i]))
+            level_chart(c, &h->levels[i]);
+    sl_chart_buf_append(c->buf, "</div>\n");
+    pooled_table(c, h);
+    sl_report_section_close(c->buf);
+}
+
+/* The history re-analyses every lot: skipped outright for a single-lot store. */
+sl_status sl_report_section_history(report_ctx *c)
+{
+    char **names = NULL;
+    size_t n_lots = 0;
+    sl_status st = sl_store_list_lots(c->store, &names, &n_lots, c->diag);
+    sl_store_free_names(names, n_lots);
+    if (st != SL_OK || n_lots < 2)
+        return st;
+    sl_history *h = NULL;
+    st = sl_analyze_history(&h, c->store, c->diag);
+    if (st == SL_OK && h->n_lots > 1)
+        history_body(c, h);
+    sl_history_free(h);
+    return st == SL_OK ? c->buf->status : st;
+}

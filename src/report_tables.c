@@ -1,0 +1,136 @@
+/* SPDX-License-Identifier: MIT
+ * The lot report's tables: split summaries against prediction, level
+ * effects against the plan, and the failure-analysis list. Units sit in the
+ * column headings; every text cell is escaped.
+ */
+#include <math.h>
+#include <stdio.h>
+
+#include "report_internal.h"
+
+static void table_open(sl_chart_buf *buf, const char *css_class, const char *const *headings,
+                       size_t count)
+{
+    sl_chart_buf_printf(buf, "<table class=\"%s\"><thead><tr>", css_class);
+    for (size_t i = 0; i < count; i++)
+        sl_chart_buf_printf(buf, "<th>%s</th>", headings[i]); /* literal HTML below */
+    sl_chart_buf_append(buf, "</tr></thead><tbody>\n");
+}
+
+static void table_close(sl_chart_buf *buf) { sl_chart_buf_append(buf, "</tbody></table>\n"); }
+
+/* ---- split summaries ---- */
+
+static const char *const split_headings[] = {
+    "split", "devices", "usable", "predicted (V)", "&plusmn;&sigma; (V)", "mean (V)",
+    "SD (V)", "95&nbsp;% CI (V)", "bias (V)", "gate range (V)", "flagged",
+};
+
+static void split_ci_cell(sl_chart_buf *buf, const sl_analyze_split *sp)
+{
+    sl_chart_buf_append(buf, "<td class=\"num\">");
+    if (sp->n_usable >= 2 && isfinite(sp->cnp.ci_low) && isfinite(sp->cnp.ci_high))
+        sl_chart_buf_printf(buf, "%.2f &ndash; %.2f", sp->cnp.ci_low, sp->cnp.ci_high);
+    else
+        sl_chart_buf_append(buf, "n/a");
+    sl_chart_buf_append(buf, "</td>");
+}
+
+static int split_mean_outside(const sl_analysis *a, size_t s)
+{
+    double mean = a->splits[s].cnp.mean;
+    return isfinite(mean) && (mean < a->split_gate_min_V[s] || mean > a->split_gate_max_V[s]);
+}
+
+static void split_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
+{
+    const sl_analyze_split *sp = &a->splits[s];
+    int outside = split_mean_outside(a, s);
+    sl_chart_buf_printf(buf, "<tr%s>", outside ? " class=\"bad\"" : "");
+    sl_report_cell_text(buf, a->plan->splits[s].name);
+    sl_report_cell_long(buf, (long)sp->n_devices);
+    sl_report_cell_long(buf, (long)sp->n_usable);
+    sl_report_cell_fixed(buf, sp->cnp_predicted_V, 2);
+    sl_report_cell_fixed(buf, sp->cnp_predicted_sigma_V, 2);
+    sl_report_cell_fixed(buf, sp->cnp.mean, 2);
+    sl_report_cell_fixed(buf, sp->cnp.sd, 2);
+    split_ci_cell(buf, sp);
+    sl_report_cell_fixed(buf, sp->bias_V, 2);
+    sl_chart_buf_printf(buf, "<td class=\"num\">%.1f &ndash; %.1f%s</td>", a->split_gate_min_V[s],
+                        a->split_gate_max_V[s], outside ? " (mean outside)" : "");
+    sl_report_cell_long(buf, (long)sp->n_flagged);
+    sl_chart_buf_append(buf, "</tr>\n");
+}
+
+void sl_report_splits_table(report_ctx *c, size_t dielectric)
+{
+    table_open(c->buf, "splits", split_headings, sizeof split_headings / sizeof *split_headings);
+    for (size_t s = 0; s < c->a->n_splits; s++)
+        if (c->a->plan->splits[s].dielectric == dielectric)
+            split_row(c->buf, c->a, s);
+    table_close(c->buf);
+}
+
+/* ---- effects ---- */
+
+static const char *const effect_headings[] = {
+    "factor", "level", "versus", "planned (cm<sup>&minus;2</sup>)",
+    "&plusmn;&sigma; (cm<sup>&minus;2</sup>)", "estimated (cm<sup>&minus;2</sup>)",
+    "SE (cm<sup>&minus;2</sup>)", "wafers", "verdict",
+};
+
+static void effect_row(sl_chart_buf *buf, const sl_analyze_effect *e)
+{
+    sl_chart_buf_printf(buf, "<tr%s>", e->off_plan ? " class=\"bad\"" : "");
+    sl_report_cell_text(buf, e->factor);
+    sl_report_cell_text(buf, e->level);
+    sl_report_cell_text(buf, e->is_intercept ? "-" : e->reference);
+    sl_report_cell_density(buf, e->planned_per_cm2);
+    sl_report_cell_density(buf, e->planned_sigma_per_cm2);
+    sl_report_cell_density(buf, e->estimated_per_cm2);
+    sl_report_cell_density(buf, e->stderr_per_cm2);
+    sl_report_cell_long(buf, (long)e->n_wafers);
+    sl_report_cell_text(buf, e->off_plan ? "off plan" : "as planned");
+    sl_chart_buf_append(buf, "</tr>\n");
+}
+
+void sl_report_effects_table(report_ctx *c)
+{
+    table_open(c->buf, "effects", effect_headings, sizeof effect_headings / sizeof *effect_headings);
+    for (size_t i = 0; i < c->a->n_effects; i++)
+        effect_row(c->buf, &c->a->effects[i]);
+    table_close(c->buf);
+}
+
+/* ---- failure analysis ---- */
+
+static const char *const failure_headings[] = {
+    "rank", "wafer", "device", "die x", "die y", "split", "reason",
+};
+
+static void failure_row(sl_chart_buf *buf, const sl_analysis *a, size_t rank)
+{
+    const sl_analyze_device *d = &a->devices[a->flagged[rank]];
+    sl_chart_buf_append(buf, "<tr class=\"fa\">");
+    sl_report_cell_long(buf, (long)rank + 1);
+    sl_report_cell_text(buf, d->wafer);
+    sl_report_cell_text(buf, d->device);
+    sl_report_cell_long(buf, d->die_x);
+    sl_report_cell_long(buf, d->die_y);
+    sl_report_cell_text(buf, a->plan->splits[d->split].name);
+    sl_report_cell_text(buf, d->reason);
+    sl_chart_buf_append(buf, "</tr>\n");
+}
+
+void sl_report_failure_table(report_ctx *c)
+{
+    if (c->a->n_flagged == 0) {
+        sl_report_note(c->buf, "No device is flagged: nothing to send to failure analysis.");
+        return;
+    }
+    table_open(c->buf, "failures", failure_headings,
+               sizeof failure_headings / sizeof *failure_headings);
+    for (size_t k = 0; k < c->a->n_flagged; k++)
+        failure_row(c->buf, c->a, k);
+    table_close(c->buf);
+}

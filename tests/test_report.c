@@ -1,0 +1,548 @@
+/* SPDX-License-Identifier: MIT
+ * Tests of the lot report: two lots built by the binary in a scratch folder
+ * (one from fitted sweeps, one from results with three devices moved far
+ * off), their HTML checked against the analysis and compare's JSON: self-
+ * contained, escaped, one die element per die, flag counts, verdicts,
+ * curves, history, determinism, the atomic write and the command's errors.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "splitlot/report.h"
+#include "test_support.h"
+
+/* The escaping probe put into the plans' title. */
+#define HOSTILE_TITLE "Split <b>&\" lot"
+#define HOSTILE_TITLE_ESCAPED "Split &lt;b&gt;&amp;&quot; lot"
+#define FIXED_DATE "2026-01-02 03:04 UTC"
+#define SHIFT_V 15.0    /* far outside any split's spread of about 0.6 V */
+
+static char *g_dir, *g_db;
+static char *g_html[2];      /* report of DEMO-01 (sweeps) and DEMO-02 (results) */
+static char *g_json[2];      /* compare --format json of both */
+static const char *const g_lots[2] = { "DEMO-01", "DEMO-02" };
+
+/* ---- building the lots ---------------------------------------------------- */
+
+static void run_ok(const char *const *argv)
+{
+    sl_run_result r = sl_test_run(g_dir, NULL, argv);
+    if (r.exit_code != 0)
+        fprintf(stderr, "%s %s failed (%d): %s\n", argv[0], argv[1], r.exit_code, r.err);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+}
+
+/* The demo plan with the hostile title and the given lot name. */
+static void write_plan(const char *name, const char *lot)
+{
+    char *demo = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *text = sl_test_read_file(demo, NULL);
+    ck_assert_ptr_nonnull(text);
+    size_t cap = strlen(text) + 256, n = 0;
+    char *out = malloc(cap);
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n")) {
+        if (strncmp(line, "title:", 6) == 0)
+            n += (size_t)snprintf(out + n, cap - n, "title: '%s'\n", HOSTILE_TITLE);
+        else if (strncmp(line, "lot:", 4) == 0)
+            n += (size_t)snprintf(out + n, cap - n, "lot: %s\n", lot);
+        else
+            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
+    }
+    char *path = sl_test_path(g_dir, name);
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    free(path);
+    free(out);
+    free(text);
+    free(demo);
+}
+
+/* Move the neutrality voltage of three measured devices SHIFT_V up. */
+static void shift_results(const char *name)
+{
+    char *path = sl_test_path(g_dir, name);
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    size_t cap = strlen(text) + 4096, n = 0;
+    char *out = malloc(cap);
+    int row = 0, shifted = 0, next_row = 97;
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"), row++) {
+        char wafer[32], device[32];
+        int x, y;
+        double v;
+        const char *rest = NULL;
+        int used = 0;
+        /* spread over the lot; rows without a value (unmeasured) are skipped */
+        if (row >= next_row && shifted < 3
+            && sscanf(line, "%31[^,],%31[^,],%d,%d,%lf%n", wafer, device, &x, &y, &v, &used) == 5) {
+            rest = line + used;
+            next_row = row + 97;
+            n += (size_t)snprintf(out + n, cap - n, "%s,%s,%d,%d,%.4f%s\n", wafer, device, x, y,
+                                  v + SHIFT_V, rest);
+            shifted++;
+        } else {
+            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
+        }
+    }
+    ck_assert_int_eq(shifted, 3);
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    free(out);
+    free(text);
+    free(path);
+}
+
+static char *report_and_compare(int k)
+{
+    char name[32];
+    snprintf(name, sizeof name, "r%d.html", k + 1);
+    const char *rep[] = { "report", "--lot", g_lots[k], "--out", name, "--db", "t.db", NULL };
+    run_ok(rep);
+    const char *cmp[] = { "compare", "--lot", g_lots[k], "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = sl_test_run(g_dir, NULL, cmp);
+    ck_assert_int_eq(r.exit_code, 0);
+    g_json[k] = r.out;
+    free(r.err);
+    char *path = sl_test_path(g_dir, name);
+    char *html = sl_test_read_file(path, NULL);
+    free(path);
+    return html;
+}
+
+static void build_lots(void)
+{
+    g_dir = sl_test_tmpdir();
+    g_db = sl_test_path(g_dir, "t.db");
+    write_plan("lot1.yaml", g_lots[0]);
+    write_plan("lot2.yaml", g_lots[1]);
+    const char *steps[][12] = {
+        { "predict", "lot1.yaml", "--db", "t.db", NULL },
+        { "simulate", "lot1.yaml", "--out", "sim1", "--seed", "7", "--true-doping",
+          "anneal-350=0.3e12", NULL },
+        { "ingest", "--lot", "DEMO-01", "--sweeps", "sim1/sweeps.csv", "--db", "t.db", NULL },
+        { "predict", "lot2.yaml", "--db", "t.db", NULL },
+        { "simulate", "lot2.yaml", "--out", "sim2", "--seed", "8", "--no-sweeps",
+          "--true-doping", "anneal-350=0.3e12", NULL },
+    };
+    for (size_t i = 0; i < sizeof steps / sizeof steps[0]; i++)
+        run_ok(steps[i]);
+    shift_results("sim2/results.csv");
+    const char *ingest2[] = { "ingest", "--lot", "DEMO-02", "--results", "sim2/results.csv",
+                              "--db", "t.db", NULL };
+    run_ok(ingest2);
+    for (int k = 0; k < 2; k++)
+        g_html[k] = report_and_compare(k);
+}
+
+static void remove_lots(void)
+{
+    for (int k = 0; k < 2; k++) {
+        free(g_html[k]);
+        free(g_json[k]);
+    }
+    sl_test_rmtree(g_dir);
+    free(g_dir);
+    free(g_db);
+}
+
+/* ---- helpers ---------------------------------------------------------------- */
+
+static size_t count_in(const char *from, const char *to, const char *needle)
+{
+    size_t n = 0, len = strlen(needle);
+    for (const char *p = strstr(from, needle); p && (!to || p < to); p = strstr(p + len, needle))
+        n++;
+    return n;
+}
+
+static size_t count(const char *text, const char *needle) { return count_in(text, NULL, needle); }
+
+/* Die elements: class "die", or "die" with more classes ("die flagged");
+ * the map's group of dies is class "dies" and does not count. */
+static size_t count_dies(const char *from, const char *to)
+{
+    return count_in(from, to, "class=\"die\"") + count_in(from, to, "class=\"die ");
+}
+
+/* The text of <section id="id"> (start and end pointers into html). */
+static const char *section(const char *html, const char *id, const char **end)
+{
+    char open[64];
+    snprintf(open, sizeof open, "<section id=\"%s\">", id);
+    const char *start = strstr(html, open);
+    *end = start ? strstr(start, "</section>") : NULL;
+    return start;
+}
+
+/* A top-level number of compare's JSON, e.g. "flagged": 15. */
+static long json_number(const char *json, const char *key)
+{
+    char pattern[64];
+    snprintf(pattern, sizeof pattern, "\"%s\": ", key);
+    const char *p = strstr(json, pattern);
+    ck_assert_msg(p != NULL, "no %s in compare's JSON", key);
+    return strtol(p + strlen(pattern), NULL, 10);
+}
+
+static sl_analysis *analyse(int k, sl_store **store)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(store, g_db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, *store, g_lots[k], diag), SL_OK);
+    sl_diag_free(diag);
+    return a;
+}
+
+typedef struct {
+    size_t usable_flagged, usable_plain, unusable;
+} device_counts;
+
+static device_counts count_devices(const sl_analysis *a)
+{
+    device_counts c = { 0, 0, 0 };
+    for (size_t i = 0; i < a->n_devices; i++) {
+        int usable = isfinite(a->devices[i].cnp_measured_V);
+        if (!usable)
+            c.unusable++;
+        else if (a->devices[i].flags)
+            c.usable_flagged++;
+        else
+            c.usable_plain++;
+    }
+    return c;
+}
+
+/* A report's section next to the lot's analysis. */
+typedef struct {
+    sl_store *store;
+    sl_analysis *a;
+    device_counts counts;
+    const char *sec, *end;
+} lot_view;
+
+static lot_view view_open(int k, const char *section_id)
+{
+    lot_view v;
+    v.a = analyse(k, &v.store);
+    v.counts = count_devices(v.a);
+    v.sec = section(g_html[k], section_id, &v.end);
+    ck_assert_msg(v.sec != NULL && v.end != NULL, "no section %s", section_id);
+    return v;
+}
+
+static void view_close(lot_view *v)
+{
+    sl_analysis_free(v->a);
+    sl_store_close(v->store);
+}
+
+static size_t wafers_with_devices(const sl_analysis *a)
+{
+    size_t n = 0;
+    for (size_t w = 0; w < a->plan->n_wafers; w++)
+        for (size_t i = 0; i < a->n_devices; i++)
+            if (strcmp(a->devices[i].wafer, a->plan->wafers[w]) == 0) {
+                n++;
+                break;
+            }
+    return n;
+}
+
+/* ---- tests ------------------------------------------------------------------ */
+
+START_TEST(test_self_contained)
+{
+    for (int k = 0; k < 2; k++) {
+        const char *h = g_html[k];
+        ck_assert_ptr_nonnull(h);
+        ck_assert_msg(strncmp(h, "<!DOCTYPE html>", 15) == 0, "not an HTML document");
+        ck_assert_ptr_null(strstr(h, "src=\"http"));
+        ck_assert_ptr_null(strstr(h, "href=\"http"));
+        ck_assert_ptr_null(strstr(h, "<link"));
+        ck_assert_ptr_null(strstr(h, "<script"));
+        ck_assert_ptr_null(strstr(h, "<img"));
+        ck_assert_ptr_null(strstr(h, "url("));
+        ck_assert_ptr_null(strstr(h, "@import"));
+        ck_assert_ptr_nonnull(strstr(h, "</html>"));
+        /* print rules: a page per section, charts kept whole */
+        ck_assert_ptr_nonnull(strstr(h, "@media print"));
+        ck_assert_ptr_nonnull(strstr(h, "section{break-before:page"));
+        ck_assert_ptr_nonnull(strstr(h, "figure,svg,tr,.verdict{break-inside:avoid"));
+    }
+}
+END_TEST
+
+START_TEST(test_no_non_numbers_reach_the_page)
+{
+    for (int k = 0; k < 2; k++) {
+        ck_assert_ptr_null(strstr(g_html[k], "nan"));
+        ck_assert_ptr_null(strstr(g_html[k], "NaN"));
+        ck_assert_ptr_null(strstr(g_html[k], ">inf"));
+    }
+}
+END_TEST
+
+START_TEST(test_title_is_escaped)
+{
+    for (int k = 0; k < 2; k++) {
+        ck_assert_ptr_null(strstr(g_html[k], HOSTILE_TITLE));
+        ck_assert_ptr_null(strstr(g_html[k], "<b>"));
+        /* in the <title> and in the page heading */
+        ck_assert_uint_ge(count(g_html[k], HOSTILE_TITLE_ESCAPED), 2);
+    }
+}
+END_TEST
+
+START_TEST(test_header_facts)
+{
+    const char *h = g_html[0];
+    ck_assert_ptr_nonnull(strstr(h, "<h1>Lot report DEMO-01</h1>"));
+    ck_assert_ptr_nonnull(strstr(h, "revision 1 of lot1.yaml, stored "));
+    ck_assert_ptr_nonnull(strstr(h, " UTC</dd>")); /* the report's own date */
+    ck_assert_ptr_nonnull(strstr(h, "not sign-off"));
+    ck_assert_ptr_nonnull(strstr(h, "safety rules and licensed practice"));
+    ck_assert_ptr_null(strstr(h, g_dir)); /* no path of the machine that made it */
+}
+END_TEST
+
+/* Exactly one die element per die with a device, and the states as the
+ * analysis has them (one device per die in these plans). */
+START_TEST(test_wafer_map_dies_match_analysis)
+{
+    lot_view v = view_open(_i, "wafers");
+    ck_assert_uint_eq(count_dies(v.sec, v.end), v.a->n_devices);
+    ck_assert_uint_eq(count_dies(g_html[_i], NULL), v.a->n_devices);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "data-state=\"value\""), v.counts.usable_plain);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "data-state=\"flagged\""), v.counts.usable_flagged);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "data-state=\"unusable\""), v.counts.unusable);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "class=\"die flagged\""), v.a->n_flagged);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "<figure class=\"wafer\">"),
+                      wafers_with_devices(v.a));
+    view_close(&v);
+}
+END_TEST
+
+/* The flagged count on the page equals compare's, in the verdict and on the
+ * wafer maps. */
+START_TEST(test_flagged_count_equals_compare)
+{
+    long flagged = json_number(g_json[_i], "flagged");
+    ck_assert_int_gt(flagged, 0);
+    char verdict[96];
+    snprintf(verdict, sizeof verdict, "data-verdict=\"flagged\" data-count=\"%ld\"", flagged);
+    ck_assert_ptr_nonnull(strstr(g_html[_i], verdict));
+    ck_assert_uint_eq(count(g_html[_i], "class=\"die flagged\""), (size_t)flagged);
+    ck_assert_uint_eq(count(g_html[_i], "<tr class=\"fa\">"), (size_t)flagged);
+}
+END_TEST
+
+START_TEST(test_one_marker_per_flagged_usable_device)
+{
+    lot_view v = view_open(_i, "splits");
+    ck_assert_uint_eq(count_in(v.sec, v.end, "class=\"point flagged\""), v.counts.usable_flagged);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "class=\"point\""), v.counts.usable_plain);
+    if (_i == 1) /* the three devices moved far off are flagged and usable */
+        ck_assert_uint_ge(v.counts.usable_flagged, 3);
+    /* one strip chart per dielectric */
+    ck_assert_uint_eq(count_in(v.sec, v.end, "<figure class=\"strip\">"),
+                      v.a->plan->n_dielectrics);
+    view_close(&v);
+}
+END_TEST
+
+START_TEST(test_off_plan_verdict)
+{
+    long off = json_number(g_json[_i], "levels_off_plan");
+    ck_assert_int_ge(off, 1); /* anneal-350 delivered a quarter of its plan */
+    char verdict[96];
+    snprintf(verdict, sizeof verdict, "data-verdict=\"off-plan\" data-count=\"%ld\"", off);
+    const char *v = strstr(g_html[_i], verdict);
+    ck_assert_ptr_nonnull(v);
+    const char *v_end = strstr(v, "</li>");
+    ck_assert_uint_eq(count_in(v, v_end, "anneal-350"), 1);
+    ck_assert_ptr_nonnull(strstr(g_html[_i], "data-verdict=\"cnp-outside\" data-count=\"0\""));
+    ck_assert_ptr_nonnull(strstr(g_html[_i], "<td>off plan</td>"));
+}
+END_TEST
+
+START_TEST(test_curves_of_flagged_devices)
+{
+    /* DEMO-01 has sweeps: the most severe flagged devices, at most 12 */
+    long flagged = json_number(g_json[0], "flagged");
+    size_t expected = flagged < SL_REPORT_DEFAULT_MAX_CURVES ? (size_t)flagged
+                                                             : SL_REPORT_DEFAULT_MAX_CURVES;
+    ck_assert_uint_eq(count(g_html[0], "<figure class=\"curve\">"), expected);
+    ck_assert_ptr_nonnull(strstr(g_html[0], "gate voltage (V)"));
+    /* DEMO-02 came from results only: nothing to draw */
+    ck_assert_uint_eq(count(g_html[1], "<figure class=\"curve\">"), 0);
+    ck_assert_ptr_nonnull(strstr(g_html[1], "None of the flagged devices has a stored sweep."));
+}
+END_TEST
+
+START_TEST(test_history_with_two_lots)
+{
+    const char *end;
+    const char *sec = section(g_html[1], "history", &end);
+    ck_assert_ptr_nonnull(sec);
+    ck_assert_ptr_nonnull(strstr(g_html[1], "<a href=\"#history\">"));
+    ck_assert_uint_ge(count_in(sec, end, "<figure class=\"history\">"), 1);
+    ck_assert_uint_eq(count_in(sec, end, "<tr><td>anneal</td><td>anneal-350</td><td class=\"num\">2</td>"), 1);
+    const char *rep[] = { "report", "--lot", "DEMO-02", "--out", "nh.html", "--db", "t.db",
+                          "--no-history", NULL };
+    run_ok(rep);
+    char *path = sl_test_path(g_dir, "nh.html");
+    char *html = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(html);
+    ck_assert_ptr_null(strstr(html, "<section id=\"history\">"));
+    ck_assert_ptr_null(strstr(html, "#history"));
+    free(html);
+    free(path);
+}
+END_TEST
+
+/* The library: same lot and date, same bytes; the summary tells the truth. */
+START_TEST(test_render_is_deterministic)
+{
+    sl_store *store = NULL;
+    sl_analysis *a = analyse(0, &store);
+    sl_report_options opts;
+    sl_report_options_default(&opts);
+    opts.generated_utc = FIXED_DATE;
+    sl_chart_buf b1, b2;
+    sl_chart_buf_init(&b1);
+    sl_chart_buf_init(&b2);
+    sl_report_summary s1, s2;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_report_render(&b1, &s1, store, a, &opts, diag), SL_OK);
+    ck_assert_int_eq(sl_report_render(&b2, &s2, store, a, &opts, diag), SL_OK);
+    ck_assert_str_eq(sl_chart_buf_str(&b1), sl_chart_buf_str(&b2));
+    ck_assert_ptr_nonnull(strstr(sl_chart_buf_str(&b1), FIXED_DATE));
+    ck_assert_uint_eq(s1.bytes, b1.len);
+    ck_assert_uint_eq(s1.n_dies, a->n_devices);
+    ck_assert_uint_eq(s1.n_dies, count_dies(sl_chart_buf_str(&b1), NULL));
+    ck_assert_uint_eq(s1.n_wafer_maps, count(sl_chart_buf_str(&b1), "<figure class=\"wafer\">"));
+    ck_assert_uint_eq(s1.n_strip_charts, a->plan->n_dielectrics);
+    ck_assert_uint_eq(s1.n_dies_off_grid, 0);
+    sl_chart_buf_free(&b1);
+    sl_chart_buf_free(&b2);
+    sl_diag_free(diag);
+    sl_analysis_free(a);
+    sl_store_close(store);
+}
+END_TEST
+
+START_TEST(test_no_curves_when_capped_at_zero)
+{
+    sl_store *store = NULL;
+    sl_analysis *a = analyse(0, &store);
+    sl_report_options opts;
+    sl_report_options_default(&opts);
+    opts.max_curves = 0;
+    opts.with_history = 0;
+    sl_chart_buf b;
+    sl_chart_buf_init(&b);
+    sl_report_summary s;
+    ck_assert_int_eq(sl_report_render(&b, &s, store, a, &opts, NULL), SL_OK);
+    ck_assert_uint_eq(s.n_curves, 0);
+    ck_assert_ptr_null(strstr(sl_chart_buf_str(&b), "<section id=\"curves\">"));
+    ck_assert_ptr_null(strstr(sl_chart_buf_str(&b), "#curves"));
+    ck_assert_ptr_nonnull(strstr(sl_chart_buf_str(&b), "<section id=\"failure-analysis\">"));
+    sl_chart_buf_free(&b);
+    sl_analysis_free(a);
+    sl_store_close(store);
+}
+END_TEST
+
+START_TEST(test_write_file_is_atomic)
+{
+    sl_diag *diag = sl_diag_new();
+    char *path = sl_test_path(g_dir, "atomic.html");
+    char *tmp = sl_test_path(g_dir, "atomic.html.tmp");
+    ck_assert_int_eq(sl_test_write_file(path, "old"), 0);
+    ck_assert_int_eq(sl_report_write_file(path, "new text", 8, diag), SL_OK);
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_str_eq(text, "new text");
+    ck_assert_int_ne(access(tmp, F_OK), 0);
+    free(text);
+    /* a folder that does not exist: an error naming the file, nothing left */
+    char *bad = sl_test_path(g_dir, "missing/r.html");
+    ck_assert_int_eq(sl_report_write_file(bad, "x", 1, diag), SL_EIO);
+    ck_assert_ptr_nonnull(strstr(sl_diag_last(diag), "missing/r.html.tmp"));
+    free(bad);
+    free(tmp);
+    free(path);
+    sl_diag_free(diag);
+}
+END_TEST
+
+START_TEST(test_command_errors)
+{
+    const char *no_lot[] = { "report", "--out", "x.html", "--db", "t.db", NULL };
+    const char *no_out[] = { "report", "--lot", "DEMO-01", "--db", "t.db", NULL };
+    const char *unknown[] = { "report", "--lot", "NOPE", "--out", "x.html", "--db", "t.db", NULL };
+    const char *no_db[] = { "report", "--lot", "DEMO-01", "--out", "x.html", "--db", "none.db", NULL };
+    const char *bad_dir[] = { "report", "--lot", "DEMO-01", "--out", "no/such/dir.html", "--db",
+                              "t.db", NULL };
+    const char *const *cases[] = { no_lot, no_out, unknown, no_db };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        sl_run_result r = sl_test_run(g_dir, NULL, cases[i]);
+        ck_assert_int_eq(r.exit_code, 2);
+        ck_assert_ptr_nonnull(strstr(r.err, "error"));
+        sl_run_result_free(&r);
+    }
+    sl_run_result r = sl_test_run(g_dir, NULL, bad_dir);
+    ck_assert_int_eq(r.exit_code, 1);
+    ck_assert_ptr_nonnull(strstr(r.err, "cannot write"));
+    sl_run_result_free(&r);
+    char *x = sl_test_path(g_dir, "x.html");
+    ck_assert_int_ne(access(x, F_OK), 0);
+    free(x);
+    const char *help[] = { "report", "--help", NULL };
+    r = sl_test_run(g_dir, NULL, help);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_ptr_nonnull(strstr(r.out, "usage: splitlot report --lot ID --out FILE.html"));
+    sl_run_result_free(&r);
+}
+END_TEST
+
+START_TEST(test_command_summary)
+{
+    const char *rep[] = { "report", "--lot", "DEMO-01", "--out", "s.html", "--db", "t.db",
+                          "--max-curves", "3", NULL };
+    sl_run_result r = sl_test_run(g_dir, NULL, rep);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_ptr_nonnull(strstr(r.out, "wrote s.html: "));
+    ck_assert_ptr_nonnull(strstr(r.out, " 3 transfer curves"));
+    sl_run_result_free(&r);
+}
+END_TEST
+
+static Suite *report_suite(void)
+{
+    Suite *s = suite_create("report");
+    TCase *tc = tcase_create("lots");
+    tcase_add_unchecked_fixture(tc, build_lots, remove_lots);
+    tcase_set_timeout(tc, 300);
+    tcase_add_test(tc, test_self_contained);
+    tcase_add_test(tc, test_no_non_numbers_reach_the_page);
+    tcase_add_test(tc, test_title_is_escaped);
+    tcase_add_test(tc, test_header_facts);
+    tcase_add_loop_test(tc, test_wafer_map_dies_match_analysis, 0, 2);
+    tcase_add_loop_test(tc, test_flagged_count_equals_compare, 0, 2);
+    tcase_add_loop_test(tc, test_one_marker_per_flagged_usable_device, 0, 2);
+    tcase_add_loop_test(tc, test_off_plan_verdict, 0, 2);
+    tcase_add_test(tc, test_curves_of_flagged_devices);
+    tcase_add_test(tc, test_history_with_two_lots);
+    tcase_add_test(tc, test_render_is_deterministic);
+    tcase_add_test(tc, test_no_curves_when_capped_at_zero);
+    tcase_add_test(tc, test_write_file_is_atomic);
+    tcase_add_test(tc, test_command_errors);
+    tcase_add_test(tc, test_command_summary);
+    suite_add_tcase(s, tc);
+    return s;
+}
+
+int main(void) { return sl_test_main(report_suite()); }
