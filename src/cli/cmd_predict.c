@@ -7,6 +7,7 @@
 
 #include <getopt.h>
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 
 #include "splitlot/layout.h"
@@ -99,21 +100,19 @@ static void split_table(cli_doc *doc, const predict_run *r)
     cli_table *t = cli_doc_table(doc, "splits", "splits (neutrality point from planned doping)");
     cli_table_col_str(t, "split", "split");
     cli_table_col_fixed(t, "c", "Cg nF/cm2", 2);
-    cli_table_col_fixed(t, "e", "EOT nm", 2);
     cli_table_col_fixed(t, "n", "N 1e12/cm2", 2);
     cli_table_col_fixed(t, "ns", "+/-", 2);
     cli_table_col_fixed(t, "v", "Vcnp V", 2);
     cli_table_col_fixed(t, "vs", "+/-", 2);
     cli_table_col_range(t, "g", "gate V", 4);
-    cli_table_col_bool(t, "in", "in range");
-    cli_table_col_int(t, "d", "devices");
+    cli_table_col_bool(t, "in", "inside");
+    cli_table_col_int(t, "d", "need");
     size_t nt = r->plan->n_temperatures;
     for (size_t s = 0; s < r->plan->n_splits; s++) {
         const sl_prediction *p = &r->pred[s * nt];
         cli_table_row(t);
         cli_cell_str(t, r->plan->splits[s].name);
         cli_cell_num(t, p->gate_capacitance_F_per_m2 * SL_NF_CM2_PER_F_M2);
-        cli_cell_num(t, p->eot_nm);
         cli_cell_num(t, p->doping_per_cm2.val * 1e-12);
         cli_cell_num(t, p->doping_per_cm2.sigma * 1e-12);
         cli_cell_num(t, p->cnp_V.val);
@@ -129,12 +128,11 @@ static void window_table(cli_doc *doc, const predict_run *r)
     cli_table *t = cli_doc_table(doc, "window", "density window inside the gate range");
     cli_table_col_str(t, "split", "split");
     cli_table_col_num(t, "t", "T K", 4);
-    cli_table_col_fixed(t, "n", "n max 1e12/cm2", 2);
-    cli_table_col_fixed(t, "p", "p max 1e12/cm2", 2);
+    cli_table_col_fixed(t, "n", "nmax e12/cm2", 2);
+    cli_table_col_fixed(t, "p", "pmax e12/cm2", 2);
     cli_table_col_range(t, "ef", "EF eV", 3);
-    cli_table_col_fixed(t, "th", "floor 1e10/cm2", 3);
-    cli_table_col_fixed(t, "tv", "floor V", 3);
-    cli_table_col_num(t, "ts", "T* K", 4);
+    cli_table_col_fixed(t, "th", "nth e10/cm2", 3);
+    cli_table_col_fixed(t, "tv", "nth V", 3);
     for (size_t i = 0; i < r->n_pred; i++) {
         const sl_prediction *p = &r->pred[i];
         cli_table_row(t);
@@ -145,7 +143,6 @@ static void window_table(cli_doc *doc, const predict_run *r)
         cli_cell_range(t, p->fermi_at_gate_min_eV, p->fermi_at_gate_max_eV);
         cli_cell_num(t, p->thermal_floor_per_cm2 * 1e-10);
         cli_cell_num(t, p->thermal_floor_V);
-        cli_cell_num(t, p->disorder_crossover_K > 0.0 ? p->disorder_crossover_K : NAN);
     }
 }
 
@@ -156,7 +153,15 @@ static int print_predictions(const predict_run *r, cli_format format)
     if (format == CLI_FORMAT_TABLE) {
         split_table(doc, r);
         window_table(doc, r);
-        cli_doc_note(doc, "T*: disorder crossover temperature; floor V: thermal floor in gate volts.");
+        char note[256];
+        double t_star = r->n_pred ? r->pred[0].disorder_crossover_K : 0.0;
+        if (t_star > 0.0)
+            snprintf(note, sizeof note, "nth: thermal floor (nth V: the same in gate volts); "
+                     "disorder crossover temperature T* = %.1f K.", t_star);
+        else
+            snprintf(note, sizeof note, "nth: thermal floor (nth V: the same in gate volts); "
+                     "no disorder density in the plan, so no crossover temperature.");
+        cli_doc_note(doc, note);
         cli_doc_note(doc, cli_safety_caution);
     } else {
         machine_table(doc, r);

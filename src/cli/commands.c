@@ -58,6 +58,10 @@ int cli_main(int argc, char **argv)
     const cli_command *cmd = cli_command_find(name);
     if (!cmd)
         return cli_usage_error("unknown command '%s' (see 'splitlot --help')", name);
+    if (argc == 3 && strcmp(argv[2], "--version") == 0) { /* --version everywhere */
+        printf("splitlot %s\n", SL_VERSION);
+        return CLI_EXIT_OK;
+    }
     cli_reset_getopt();
     return cmd->run(argc - 1, argv + 1);
 }
