@@ -30,15 +30,6 @@ static const struct option options[] = {
     { NULL, 0, NULL, 0 },
 };
 
-/* The treatment names of a split, for a list cell. */
-static int treatment_names(const sl_plan *plan, size_t split, const char **names)
-{
-    const sl_plan_split *s = &plan->splits[split];
-    for (size_t i = 0; i < s->n_treatments; i++)
-        names[i] = plan->treatments[s->treatments[i]].name;
-    return (int)s->n_treatments;
-}
-
 /* The columns naming a split, shared by both tables. */
 static void split_columns(cli_table *t)
 {
@@ -51,7 +42,7 @@ static void split_cells(cli_table *t, const sl_plan *plan, size_t split, const c
 {
     cli_cell_str(t, plan->splits[split].name);
     cli_cell_str(t, plan->dielectrics[plan->splits[split].dielectric].name);
-    cli_cell_list(t, names, treatment_names(plan, split, names));
+    cli_cell_list(t, names, cli_split_treatment_names(plan, split, names, plan->n_treatments));
 }
 
 static void splits_table(cli_doc *doc, const sl_plan *plan, const sl_layout *l)
