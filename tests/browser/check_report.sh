@@ -1,0 +1,81 @@
+#!/bin/sh
+# SPDX-License-Identifier: MIT
+# The lot report in a real browser: builds a lot with three devices moved far
+# off, renders its report, has headless Chromium parse it (--dump-dom) and
+# take a screenshot, and checks the parsed page against compare's JSON.
+# Usage: check_report.sh SPLITLOT SOURCE_DIR. Without Chromium it fails, as CI
+# installs it; SL_SKIP_BROWSER=1 skips it (exit 77) for local runs.
+set -eu
+
+# absolute paths: the work happens in a scratch folder
+splitlot=$(cd "$(dirname "$1")" && pwd)/$(basename "$1")
+source_dir=$(cd "$2" && pwd)
+browser=${CHROMIUM:-chromium}
+
+if [ "${SL_SKIP_BROWSER:-}" = 1 ]; then
+    echo "skipped: SL_SKIP_BROWSER=1"
+    exit 77
+fi
+if ! command -v "$browser" >/dev/null 2>&1; then
+    echo "error: '$browser' not found: install chromium (.ci/install-deps), or set SL_SKIP_BROWSER=1" >&2
+    exit 1
+fi
+
+work=$(mktemp -d "${TMPDIR:-/tmp}/splitlot-browser-XXXXXX")
+trap 'rm -rf "$work"' EXIT INT TERM
+cd "$work"
+
+fail() {
+    echo "error: $*" >&2
+    exit 1
+}
+
+# ---- the lot: demo plan, results with three devices moved 15 V up ----------
+sed 's/^lot: DEMO-01/lot: BROWSER-01/' "$source_dir/plans/demo.yaml" >plan.yaml
+"$splitlot" predict plan.yaml --db t.db >/dev/null 2>&1
+"$splitlot" simulate plan.yaml --out sim --seed 11 --no-sweeps \
+    --true-doping anneal-350=0.3e12 >/dev/null
+awk -F, 'BEGIN { OFS = "," }
+         NR > 1 && $5 != "" && NR >= next_row && moved < 3 { $5 = $5 + 15; moved++; next_row = NR + 97 }
+         { print }' next_row=100 sim/results.csv >results.csv
+"$splitlot" ingest --lot BROWSER-01 --results results.csv --db t.db >/dev/null
+"$splitlot" report --lot BROWSER-01 --out report.html --db t.db >/dev/null
+"$splitlot" compare --lot BROWSER-01 --db t.db --format json >compare.json
+
+# ---- what the analysis says (one device per die in the demo plan) ----------
+grep '"device": .*"cnp_predicted_V"' compare.json >device_rows
+devices=$(wc -l <device_rows | tr -d ' ')
+flagged=$(sed -n 's/^ *"flagged": \([0-9]*\),$/\1/p' compare.json)
+flagged_usable=$(grep '"cnp_measured_V": [-0-9]' device_rows | grep -vc '"flags": \[\]' || true)
+[ "$flagged_usable" -ge 3 ] || fail "expected the 3 moved devices flagged, got $flagged_usable"
+
+# ---- the browser ----------------------------------------------------------
+browse() {
+    profile=$(mktemp -d "$work/profile-XXXXXX")
+    timeout 180 "$browser" --headless --no-sandbox --disable-gpu --disable-quic --no-first-run \
+        --disable-background-networking --disable-component-update --disable-sync \
+        --user-data-dir="$profile" "$@" "file://$work/report.html" 2>>browser.log
+}
+browse --dump-dom >dom.html || { cat browser.log >&2; fail "chromium --dump-dom failed"; }
+browse --screenshot="$work/shot.png" --window-size=1280,2400 >/dev/null ||
+    { cat browser.log >&2; fail "chromium --screenshot failed"; }
+
+# ---- the parsed page ------------------------------------------------------
+count() { grep -o "$1" dom.html | wc -l | tr -d ' '; }
+
+grep -q '<title>Lot report BROWSER-01: Back-gate doping split' dom.html ||
+    fail "the page's title is not in the parsed DOM"
+grep -q '<h1>Lot report BROWSER-01</h1>' dom.html || fail "no heading in the parsed DOM"
+dies=$(($(count 'class="die"') + $(count 'class="die ')))
+[ "$dies" -eq "$devices" ] || fail "$dies die elements, the analysis has $devices devices"
+n=$(count 'class="die flagged"')
+[ "$n" -eq "$flagged" ] || fail "$n flagged dies, compare flags $flagged devices"
+n=$(count 'class="point flagged"')
+[ "$n" -eq "$flagged_usable" ] || fail "$n flagged markers, $flagged_usable flagged usable devices"
+grep -q "data-verdict=\"flagged\" data-count=\"$flagged\"" dom.html ||
+    fail "the flagged verdict does not say $flagged"
+[ "$(count '<script')" -eq 0 ] || fail "the page has a script"
+
+size=$(wc -c <shot.png | tr -d ' ')
+[ "$size" -gt 20000 ] || fail "screenshot of $size bytes: nothing rendered"
+echo "ok: $devices dies, $flagged flagged, $flagged_usable flagged markers; screenshot $size bytes"
