@@ -1,0 +1,208 @@
+/* SPDX-License-Identifier: MIT
+ * Tests of `splitlot simulate`: a seed reproduces the files exactly and
+ * another seed does not, --true-doping overrides reach levels.csv, an unknown
+ * level is refused, and the files hold every wafer x device of the plan.
+ */
+#include <check.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "test_support.h"
+
+#define DEMO_PLAN SL_SOURCE_DIR "/plans/demo.yaml"
+
+static void drop_dir(char *dir)
+{
+    sl_test_rmtree(dir);
+    free(dir);
+}
+
+static size_t count_lines(const char *s)
+{
+    size_t n = 0;
+    for (; *s; s++)
+        n += *s == '\n';
+    return n;
+}
+
+static sl_run_result simulate(const char *dir, const char *out, const char *seed,
+                              const char *extra1, const char *extra2)
+{
+    const char *argv[] = { "simulate", DEMO_PLAN, "--out", out, "--seed", seed, extra1, extra2,
+                           NULL };
+    return sl_test_run(dir, NULL, argv);
+}
+
+static int same_file(const char *dir, const char *a, const char *b)
+{
+    char *x = sl_test_path(dir, a), *y = sl_test_path(dir, b);
+    int eq = sl_test_files_equal(x, y);
+    free(x);
+    free(y);
+    return eq;
+}
+
+static const char *const outputs[] = { "results.csv", "sweeps.csv", "truth.csv", "levels.csv" };
+
+START_TEST(seed_reproduces)
+{
+    char *dir = sl_test_tmpdir();
+    sl_run_result r = simulate(dir, "a", "7", NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    r = simulate(dir, "b", "7", NULL, NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    r = simulate(dir, "c", "8", NULL, NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    for (size_t i = 0; i < 4; i++) {
+        char a[64], b[64], c[64];
+        snprintf(a, sizeof a, "a/%s", outputs[i]);
+        snprintf(b, sizeof b, "b/%s", outputs[i]);
+        snprintf(c, sizeof c, "c/%s", outputs[i]);
+        ck_assert_msg(same_file(dir, a, b), "%s differs for the same seed", outputs[i]);
+        /* levels deliver their planned means by default: levels.csv is the
+         * same for any seed; the drawn files are not */
+        if (strcmp(outputs[i], "levels.csv") == 0)
+            ck_assert(same_file(dir, a, c));
+        else
+            ck_assert_msg(!same_file(dir, a, c), "%s is the same for seeds 7 and 8", outputs[i]);
+    }
+    /* --draw-levels draws the levels from the seed */
+    r = simulate(dir, "d", "7", "--draw-levels", NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    r = simulate(dir, "e", "8", "--draw-levels", NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    ck_assert(!same_file(dir, "d/levels.csv", "e/levels.csv"));
+    drop_dir(dir);
+}
+END_TEST
+
+START_TEST(true_doping_overrides)
+{
+    char *dir = sl_test_tmpdir();
+    sl_run_result r = simulate(dir, "o", "7", "--true-doping", "anneal-350=0.6e12");
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    char *path = sl_test_path(dir, "o/levels.csv");
+    char *levels = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(levels);
+    /* planned 1.2e12 +/- 0.3e12 in plans/demo.yaml, true value as overridden */
+    ck_assert_msg(strstr(levels, "treatment,anneal-350,1.2e+12,3e+11,6e+11\n") != NULL, "%s",
+                  levels);
+    /* untouched levels keep their planned means */
+    ck_assert(strstr(levels, "treatment,cap-pmma,4e+11,2e+11,4e+11\n") != NULL);
+    ck_assert(strstr(levels, "baseline,baseline,-2e+12,8e+11,-2e+12\n") != NULL);
+    free(levels);
+    free(path);
+
+    /* baseline and dielectrics can be overridden too */
+    r = simulate(dir, "p", "7", "--true-doping", "baseline=-1e12");
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    path = sl_test_path(dir, "p/levels.csv");
+    levels = sl_test_read_file(path, NULL);
+    ck_assert(strstr(levels, "baseline,baseline,-2e+12,8e+11,-1e+12\n") != NULL);
+    free(levels);
+    free(path);
+    drop_dir(dir);
+}
+END_TEST
+
+START_TEST(unknown_level_refused)
+{
+    char *dir = sl_test_tmpdir();
+    sl_run_result r = simulate(dir, "u", "7", "--true-doping", "anneal-305=1e12");
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_int_eq(count_lines(r.err), 1);
+    ck_assert_msg(strstr(r.err, "'anneal-305' is not a dielectric, treatment or 'baseline'"), "%s",
+                  r.err);
+    ck_assert_str_eq(r.out, "");
+    sl_run_result_free(&r);
+    static const char *bad[][2] = {
+        { "--true-doping", "anneal-350" },      /* no value */
+        { "--true-doping", "anneal-350=lots" }, /* not a number */
+        { "--noise-rel", "1.5" },               /* not a fraction */
+        { "--points", "7" },                    /* fewer than a fit needs */
+    };
+    for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
+        r = simulate(dir, "v", "7", bad[i][0], bad[i][1]);
+        ck_assert_msg(r.exit_code == 2, "case %zu: exit %d", i, r.exit_code);
+        ck_assert_msg(count_lines(r.err) == 1, "case %zu: '%s'", i, r.err);
+        sl_run_result_free(&r);
+    }
+    const char *no_out[] = { "simulate", DEMO_PLAN, NULL };
+    r = sl_test_run(dir, NULL, no_out);
+    ck_assert_int_eq(r.exit_code, 2);
+    sl_run_result_free(&r);
+    drop_dir(dir);
+}
+END_TEST
+
+/* Data lines of a file (header aside) and those naming a wafer. */
+static size_t data_lines(const char *dir, const char *name, const char *wafer, size_t *on_wafer)
+{
+    char *path = sl_test_path(dir, name);
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    size_t n = count_lines(text) - 1;
+    char key[32];
+    snprintf(key, sizeof key, "\n%s,", wafer);
+    *on_wafer = 0;
+    for (const char *p = text; (p = strstr(p, key)) != NULL; p++)
+        ++*on_wafer;
+    free(text);
+    free(path);
+    return n;
+}
+
+START_TEST(counts_match_plan)
+{
+    char *dir = sl_test_tmpdir();
+    sl_run_result r = simulate(dir, "s", "3", NULL, NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    /* plans/demo.yaml: 16 wafers in splits (18 minus the 2 spares) x 36 devices = 576 */
+    ck_assert_msg(strstr(r.out, "16 wafers, 576 devices") != NULL, "%s", r.out);
+    sl_run_result_free(&r);
+    size_t w = 0;
+    ck_assert_uint_eq(data_lines(dir, "s/results.csv", "W01", &w), 576);
+    ck_assert_uint_eq(w, 36);
+    ck_assert_uint_eq(data_lines(dir, "s/truth.csv", "W04", &w), 576);
+    ck_assert_uint_eq(w, 0); /* W04 is a spare in the demo layout */
+    /* sweeps: 201 points (the default) per probed device */
+    size_t sweeps = data_lines(dir, "s/sweeps.csv", "W01", &w);
+    ck_assert_uint_eq(sweeps % 201, 0);
+    ck_assert_uint_le(sweeps / 201, 576);
+
+    r = simulate(dir, "t", "3", "--devices-per-wafer", "20");
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    ck_assert_uint_eq(data_lines(dir, "t/results.csv", "W16", &w), 16 * 20);
+    ck_assert_uint_eq(w, 20);
+    r = simulate(dir, "n", "3", "--no-sweeps", NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    char *none = sl_test_path(dir, "n/sweeps.csv");
+    ck_assert_ptr_null(fopen(none, "rb"));
+    free(none);
+    drop_dir(dir);
+}
+END_TEST
+
+static Suite *simulate_suite(void)
+{
+    Suite *s = suite_create("simulate");
+    TCase *tc = tcase_create("simulate");
+    tcase_add_test(tc, seed_reproduces);
+    tcase_add_test(tc, true_doping_overrides);
+    tcase_add_test(tc, unknown_level_refused);
+    tcase_add_test(tc, counts_match_plan);
+    suite_add_tcase(s, tc);
+    return s;
+}
+
+int main(void) { return sl_test_main(simulate_suite()); }
