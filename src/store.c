@@ -25,21 +25,38 @@ int sl_store_schema_version(void) { return (int)sl_schema_migration_count; }
 
 sqlite3 *sl_store_db(sl_store *store) { return store->db; }
 
+/* Why the last statement failed, in words that say what to do about it. */
+static void describe_db_error(char *buf, size_t size, sl_store *store, const char *what)
+{
+    int code = sqlite3_extended_errcode(store->db) & 0xff;
+    int sys = sqlite3_system_errno(store->db);
+    if (code == SQLITE_READONLY)
+        snprintf(buf, size, "database is read-only (the file, its folder or the file system); "
+                            "cannot %s; nothing was changed", what);
+    else if (code == SQLITE_FULL)
+        snprintf(buf, size, "disk full while trying to %s; nothing was changed", what);
+    else if (code == SQLITE_IOERR)
+        snprintf(buf, size, "disk I/O error while trying to %s (%s); nothing was changed", what,
+                 sys ? strerror(sys) : "a failing disk, a full one or a file size limit");
+    else if (code == SQLITE_CANTOPEN)
+        snprintf(buf, size, "cannot %s: the database files cannot be opened (%s); a read-only "
+                            "folder or file system also stops SQLite from creating the -wal and "
+                            "-shm files beside the database", what,
+                 sys ? strerror(sys) : sqlite3_errmsg(store->db));
+    else if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
+        snprintf(buf, size, "cannot %s: the file is not a splitlot database or is damaged (%s)",
+                 what, sqlite3_errmsg(store->db));
+    else if (code == SQLITE_BUSY)
+        snprintf(buf, size, "database is busy (another splitlot is writing); cannot %s", what);
+    else
+        snprintf(buf, size, "cannot %s: %s", what, sqlite3_errmsg(store->db));
+}
+
 sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what)
 {
-    int code = sqlite3_extended_errcode(store->db);
-    const char *msg = sqlite3_errmsg(store->db);
-    if ((code & 0xff) == SQLITE_READONLY)
-        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
-                    "database is read-only; cannot %s", what);
-    else if ((code & 0xff) == SQLITE_FULL)
-        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
-                    "disk full while trying to %s; nothing was changed", what);
-    else if ((code & 0xff) == SQLITE_BUSY)
-        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
-                    "database is busy (another splitlot is writing); cannot %s", what);
-    else
-        sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0, "cannot %s: %s", what, msg);
+    char text[512];
+    describe_db_error(text, sizeof text, store, what);
+    sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0, "%s", text);
     return SL_EDB;
 }
 
@@ -96,7 +113,7 @@ static sl_status migrate(sl_store *store, sl_diag *diag)
 {
     int v = read_user_version(store);
     if (v < 0)
-        return sl_store_db_error(store, diag, "read the schema version (not a splitlot database?)");
+        return sl_store_db_error(store, diag, "read the schema version");
     if ((size_t)v > sl_schema_migration_count) {
         sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
                     "database schema version %d is newer than this splitlot (%zu); upgrade splitlot",
