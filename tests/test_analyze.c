@@ -1,0 +1,569 @@
+/* SPDX-License-Identifier: MIT
+ * Tests of the lot analysis through the splitlot binary: compare's statistics
+ * against NumPy and SciPy on a small hand-made lot, and simulated lots end to
+ * end (an under-delivering treatment, faulty devices, drift across lots, the
+ * calibrated plan YAML). Command-line details of compare/history are in
+ * test_cli_compare.c. All data is invented.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "test_support.h"
+
+#define N_OF(a) (sizeof(a) / sizeof((a)[0]))
+
+/* ---- helpers: running the binary, reading its JSON and CSV ------------------ */
+
+static sl_run_result run_ok(const char *dir, const char *const *argv)
+{
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s: exit %d: %s", argv[0], r.exit_code, r.err);
+    return r;
+}
+
+static void run_quiet(const char *dir, const char *const *argv)
+{
+    sl_run_result r = run_ok(dir, argv);
+    sl_run_result_free(&r);
+}
+
+/* The rows of a JSON array `"key": [` as printed by the command layer (one
+ * object per line): *p walks them; returns the next row's line in buf, or 0
+ * at the end of the array. */
+static const char *json_array(const char *json, const char *key)
+{
+    char pat[96];
+    snprintf(pat, sizeof pat, "\"%s\": [", key);
+    const char *p = strstr(json, pat);
+    ck_assert_msg(p != NULL, "no array '%s'", key);
+    return p + strlen(pat);
+}
+
+static int json_next_row(const char **p, char *buf, size_t size)
+{
+    const char *s = *p;
+    while (*s == ' ' || *s == '\n' || *s == ',')
+        s++;
+    if (*s != '{')
+        return 0;
+    const char *end = strchr(s, '\n');
+    size_t n = end ? (size_t)(end - s) : strlen(s);
+    ck_assert_uint_lt(n, size);
+    memcpy(buf, s, n);
+    buf[n] = '\0';
+    *p = s + n;
+    return 1;
+}
+
+/* Value of "key" in a row or document: a string into out (quotes dropped), a
+ * list as its inner text, a number through json_num. */
+static const char *json_find(const char *text, const char *key)
+{
+    char pat[96];
+    snprintf(pat, sizeof pat, "\"%s\": ", key);
+    const char *p = strstr(text, pat);
+    ck_assert_msg(p != NULL, "no key '%s' in %.120s", key, text);
+    return p + strlen(pat);
+}
+
+static void json_str(const char *row, const char *key, char *out, size_t size)
+{
+    const char *v = json_find(row, key);
+    char close = *v == '[' ? ']' : '"';
+    ck_assert_msg(*v == '"' || *v == '[', "'%s' is not a string or list", key);
+    const char *end = strchr(v + 1, close);
+    ck_assert(end != NULL && (size_t)(end - v - 1) < size);
+    memcpy(out, v + 1, (size_t)(end - v - 1));
+    out[end - v - 1] = '\0';
+}
+
+static double json_num(const char *text, const char *key)
+{
+    const char *v = json_find(text, key);
+    return strncmp(v, "null", 4) == 0 ? NAN : strtod(v, NULL);
+}
+
+/* The row of an array whose field `field` equals value, into buf. */
+static void json_row_where(const char *json, const char *array, const char *field,
+                           const char *value, char *buf, size_t size)
+{
+    const char *p = json_array(json, array);
+    char got[128];
+    while (json_next_row(&p, buf, size)) {
+        json_str(buf, field, got, sizeof got);
+        if (strcmp(got, value) == 0)
+            return;
+    }
+    ck_abort_msg("no row of '%s' with %s = '%s'", array, field, value);
+}
+
+static void check_rel(const char *what, double got, double want, double rel)
+{
+    ck_assert_msg(fabs(got - want) <= rel * fabs(want), "%s = %.12g, expected %.12g (rel %g)",
+                  what, got, want, rel);
+}
+
+/* One device of the simulator's truth.csv. */
+typedef struct {
+    char wafer[16], device[16], kind[24];
+    long die_x, die_y;
+} truth_row;
+
+static truth_row *read_truth(const char *dir, size_t *n)
+{
+    char *path = sl_test_path(dir, "truth.csv");
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_msg(text != NULL, "cannot read %s", path);
+    size_t cap = 1;
+    for (const char *s = text; *s; s++)
+        cap += *s == '\n';
+    truth_row *rows = calloc(cap, sizeof *rows);
+    *n = 0;
+    char *save = NULL;
+    strtok_r(text, "\n", &save); /* header */
+    for (char *line = strtok_r(NULL, "\n", &save); line; line = strtok_r(NULL, "\n", &save)) {
+        truth_row *t = &rows[(*n)++];
+        char split[64];
+        ck_assert_int_eq(sscanf(line, "%15[^,],%15[^,],%ld,%ld,%63[^,],%23[^,],", t->wafer,
+                                t->device, &t->die_x, &t->die_y, split, t->kind), 6);
+    }
+    free(text);
+    free(path);
+    return rows;
+}
+
+/* The demo plan with its lot line renamed (malloc'd). */
+static char *demo_plan_as(const char *lot)
+{
+    char *path = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert(text != NULL);
+    const char *old = "lot: DEMO-01\n";
+    char *at = strstr(text, old);
+    ck_assert(at != NULL);
+    size_t n = strlen(text) + strlen(lot) + 8;
+    char *out = malloc(n);
+    snprintf(out, n, "%.*slot: %s\n%s", (int)(at - text), text, lot, at + strlen(old));
+    free(text);
+    free(path);
+    return out;
+}
+
+/* Store a demo-plan lot named lot, simulate it with the given seed and extra
+ * simulate options (NULL-terminated, may be empty) into folder sim, and
+ * ingest its sweeps (sweeps = 1) or results. */
+static void demo_lot(const char *dir, const char *lot, const char *seed, const char *const *extra,
+                     int sweeps)
+{
+    char plan_name[64], sim[64], data[96];
+    snprintf(plan_name, sizeof plan_name, "%s.yaml", lot);
+    snprintf(sim, sizeof sim, "sim-%s", lot);
+    char *plan_path = sl_test_path(dir, plan_name), *plan = demo_plan_as(lot);
+    ck_assert_int_eq(sl_test_write_file(plan_path, plan), 0);
+    const char *predict[] = { "predict", plan_name, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *simulate[24] = { "simulate", plan_name, "--out", sim, "--seed", seed };
+    size_t k = 6;
+    for (size_t i = 0; extra[i]; i++)
+        simulate[k++] = extra[i];
+    if (!sweeps)
+        simulate[k++] = "--no-sweeps";
+    simulate[k] = NULL;
+    run_quiet(dir, simulate);
+    snprintf(data, sizeof data, "%s/%s", sim, sweeps ? "sweeps.csv" : "results.csv");
+    const char *ingest[] = { "ingest", "--lot", lot, sweeps ? "--sweeps" : "--results", data,
+                             "--db", "t.db", NULL };
+    run_quiet(dir, ingest);
+    free(plan_path);
+    free(plan);
+}
+
+/* ---- statistics against NumPy and SciPy -------------------------------------- */
+
+/* tests/data/analyze/stats-lot.yaml with stats-results.csv: nine wafers of an
+ * unbalanced explicit design, four unmeasured devices and one outlier (S04 D3,
+ * modified z 4.544 by 0.6745 * (x - numpy.median(x)) /
+ * scipy.stats.median_abs_deviation(x, scale=1.0) over its split's V_cnp).
+ * Expected values from NumPy 1.24.2 and SciPy 1.10.1, run in
+ * tests/data/analyze with this script:
+ *
+ *   import csv, numpy as np, scipy.stats as st
+ *   e, eps0 = 1.602176634e-19, 8.8541878128e-12
+ *   cg = {"ox90": eps0 * 3.9 / 90e-9, "ox285": eps0 * 3.9 / 285e-9}
+ *   plan = {"S01": ("ox90-plain", "ox90", 0, 0), "S02": ("ox90-plain", "ox90", 0, 0),
+ *           "S03": ("ox90-anneal", "ox90", 1, 0), "S04": ("ox90-anneal", "ox90", 1, 0),
+ *           "S05": ("ox285-plain", "ox285", 0, 0), "S06": ("ox285-plain", "ox285", 0, 0),
+ *           "S07": ("ox285-both", "ox285", 1, 1), "S08": ("ox285-both", "ox285", 1, 1),
+ *           "S09": ("ox90-cap", "ox90", 0, 1)}
+ *   rows = [r for r in csv.DictReader(open("stats-results.csv")) if r["v_cnp_V"]]
+ *   def doping(r):
+ *       return -cg[plan[r["wafer"]][1]] * float(r["v_cnp_V"]) / e * 1e-4
+ *   keep = [r for r in rows if not (r["wafer"] == "S04" and r["device"] == "D3")]
+ *   wafers = sorted(plan)
+ *   y = np.array([np.mean([doping(r) for r in keep if r["wafer"] == w]) for w in wafers])
+ *   w = np.array([sum(r["wafer"] == w for r in keep) for w in wafers], float)
+ *   X = np.array([[1.0, plan[k][1] == "ox285", plan[k][2], plan[k][3]] for k in wafers])
+ *   sw = np.sqrt(w)
+ *   b = np.linalg.lstsq(X * sw[:, None], y * sw, rcond=None)[0]
+ *   r = y - X @ b
+ *   s2 = np.sum(w * r ** 2) / (len(y) - X.shape[1])
+ *   cov = s2 * np.linalg.inv(X.T @ np.diag(w) @ X)
+ *   print(b.tolist(), np.sqrt(np.diag(cov)).tolist())
+ *   groups, v = {}, {}
+ *   for r in rows:
+ *       groups.setdefault(plan[r["wafer"]][0], []).append(doping(r))
+ *       v.setdefault(plan[r["wafer"]][0], []).append(float(r["v_cnp_V"]))
+ *   print(st.f_oneway(*groups.values()))
+ *   for s in v:
+ *       a = np.array(v[s])
+ *       print(s, st.t.interval(0.95, len(a) - 1, loc=a.mean(), scale=st.sem(a)))
+ */
+static char *stats_compare_json(char **dir_out)
+{
+    char *dir = sl_test_tmpdir();
+    char *plan = sl_test_data("analyze/stats-lot.yaml");
+    char *results = sl_test_data("analyze/stats-results.csv");
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", results, "--db", "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = run_ok(dir, compare);
+    free(plan);
+    free(results);
+    free(r.err);
+    *dir_out = dir;
+    return r.out;
+}
+
+START_TEST(test_effects_against_numpy_wls)
+{
+    static const struct {
+        const char *level;
+        double est, se; /* numpy script above: b, sqrt(diag(cov)) */
+    } want[] = {
+        { "baseline", -2032144958535.4768, 66668170866.67375 },
+        { "ox285", 242126249032.18652, 89377561266.80917 },
+        { "anneal-a", 708447364144.8458, 89377561266.80919 },
+        { "cap-b", 713138115278.9747, 97800798462.87735 },
+    };
+    char *dir, *json = stats_compare_json(&dir), row[1024];
+    size_t rows = 0;
+    for (const char *p = json_array(json, "effects"); json_next_row(&p, row, sizeof row);)
+        rows++;
+    ck_assert_uint_eq(rows, N_OF(want)); /* intercept + 3 levels */
+    for (size_t i = 0; i < N_OF(want); i++) {
+        json_row_where(json, "effects", "level", want[i].level, row, sizeof row);
+        check_rel(want[i].level, json_num(row, "estimated_per_cm2"), want[i].est, 1e-8);
+        check_rel(want[i].level, json_num(row, "stderr_per_cm2"), want[i].se, 1e-8);
+    }
+    /* the unbalanced design: wafers per level, 9 in all (S01..S09) */
+    json_row_where(json, "effects", "level", "cap-b", row, sizeof row);
+    ck_assert_int_eq((int)json_num(row, "wafers"), 3); /* S07, S08, S09 */
+    /* the outlier is reported but left out of the wafer means (above) */
+    json_row_where(json, "failure_analysis", "reason",
+                   "far above its split's devices (modified z 4.5)", row, sizeof row);
+    char wafer[16];
+    json_str(row, "wafer", wafer, sizeof wafer);
+    ck_assert_str_eq(wafer, "S04");
+    free(json);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+START_TEST(test_anova_and_ci_against_scipy)
+{
+    char *dir, *json = stats_compare_json(&dir), row[1024];
+    /* scipy.stats.f_oneway over the five splits' measured dopings (script above):
+     * statistic=120.37277210013065, pvalue=1.995135360660606e-23 */
+    check_rel("anova_F", json_num(json, "anova_F"), 120.37277210013065, 1e-8);
+    check_rel("anova_p", json_num(json, "anova_p"), 1.995135360660606e-23, 1e-6);
+    /* scipy.stats.t.interval(0.95, len(a) - 1, loc=a.mean(), scale=scipy.stats.sem(a)) */
+    static const struct {
+        const char *split;
+        double lo, hi;
+    } want[] = {
+        { "ox90-plain", 7.895696903842366, 8.572848550703085 },
+        { "ox90-anneal", 5.213307011975006, 6.65285965469166 },
+        { "ox285-plain", 23.09837958470037, 25.038347688026906 },
+        { "ox285-both", 2.35011933261521, 6.51748066738479 },
+        { "ox90-cap", 5.232606381477732, 6.244393618522267 },
+    };
+    for (size_t i = 0; i < N_OF(want); i++) {
+        json_row_where(json, "splits", "split", want[i].split, row, sizeof row);
+        const char *ci = json_find(row, "cnp_ci95_V");
+        double lo = NAN, hi = NAN;
+        ck_assert_int_eq(sscanf(ci, "[%lf, %lf]", &lo, &hi), 2);
+        check_rel(want[i].split, lo, want[i].lo, 1e-8);
+        check_rel(want[i].split, hi, want[i].hi, 1e-8);
+    }
+    /* S02 D6 and S06 D1 unmeasured: 11 of 12 usable; 4 flagged in all + 1 outlier */
+    json_row_where(json, "splits", "split", "ox285-plain", row, sizeof row);
+    ck_assert_int_eq((int)json_num(row, "usable"), 11);
+    ck_assert_int_eq((int)json_num(json, "flagged"), 5);
+    free(json);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* ---- a simulated lot end to end ------------------------------------------------ */
+
+typedef struct {
+    char wafer[16], device[16], flags[96];
+    long die_x, die_y;
+} out_row;
+
+static out_row *read_rows(const char *json, const char *array, size_t *n)
+{
+    size_t cap = 64;
+    out_row *rows = malloc(cap * sizeof *rows);
+    char line[2048];
+    *n = 0;
+    for (const char *p = json_array(json, array); json_next_row(&p, line, sizeof line);) {
+        if (*n == cap)
+            rows = realloc(rows, (cap *= 2) * sizeof *rows);
+        out_row *o = &rows[(*n)++];
+        json_str(line, "wafer", o->wafer, sizeof o->wafer);
+        json_str(line, "device", o->device, sizeof o->device);
+        o->die_x = (long)json_num(line, "die_x");
+        o->die_y = (long)json_num(line, "die_y");
+        o->flags[0] = '\0';
+        if (strstr(line, "\"flags\": "))
+            json_str(line, "flags", o->flags, sizeof o->flags);
+    }
+    return rows;
+}
+
+static const out_row *find_row(const out_row *rows, size_t n, const char *wafer, const char *device)
+{
+    for (size_t i = 0; i < n; i++)
+        if (strcmp(rows[i].wafer, wafer) == 0 && strcmp(rows[i].device, device) == 0)
+            return &rows[i];
+    return NULL;
+}
+
+static int is_faulty(const char *kind)
+{
+    return strcmp(kind, "short") == 0 || strcmp(kind, "open") == 0 ||
+           strcmp(kind, "cnp-outside-sweep") == 0 || strcmp(kind, "poor-fit") == 0;
+}
+
+/* One seed: anneal-350 delivers 0.2e12 of the planned 1.2e12 cm^-2, 4 % of
+ * the devices are faulty (the simulator's default also shifts 0.5 % by 3 V). */
+static void end_to_end(const char *seed)
+{
+    char *dir = sl_test_tmpdir();
+    const char *extra[] = { "--fault-fraction", "0.04", "--true-doping", "anneal-350=0.2e12", NULL };
+    demo_lot(dir, "DEMO-01", seed, extra, 1);
+    const char *compare[] = { "compare", "--lot", "DEMO-01", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = run_ok(dir, compare);
+
+    /* exactly the anneal level is off-plan, and its estimate finds the truth */
+    char row[1024], flags[96];
+    size_t n_off = 0;
+    for (const char *p = json_array(r.out, "effects"); json_next_row(&p, row, sizeof row);) {
+        char level[64];
+        json_str(row, "level", level, sizeof level);
+        json_str(row, "flags", flags, sizeof flags);
+        int anneal = strcmp(level, "anneal-350") == 0;
+        ck_assert_msg(anneal == (strcmp(flags, "\"off-plan\"") == 0), "seed %s: %s flags [%s]",
+                      seed, level, flags);
+        n_off += anneal;
+        if (anneal) /* true effect 0.2e12 - 0 (levels.csv); within 4 standard errors */
+            ck_assert_msg(fabs(json_num(row, "estimated_per_cm2") - 0.2e12) <
+                              4.0 * json_num(row, "stderr_per_cm2"), "seed %s: %s", seed, row);
+    }
+    ck_assert_uint_eq(n_off, 1);
+    ck_assert_int_eq((int)json_num(r.out, "levels_off_plan"), 1);
+
+    size_t n_truth, n_dev, n_fa;
+    char *sim = sl_test_path(dir, "sim-DEMO-01");
+    truth_row *truth = read_truth(sim, &n_truth);
+    out_row *dev = read_rows(r.out, "devices", &n_dev);
+    out_row *fa = read_rows(r.out, "failure_analysis", &n_fa);
+    size_t n_faulty = 0, n_good = 0, n_false = 0;
+    for (size_t i = 0; i < n_truth; i++) {
+        const truth_row *t = &truth[i];
+        if (is_faulty(t->kind)) { /* listed for failure analysis where it sits */
+            const out_row *o = find_row(fa, n_fa, t->wafer, t->device);
+            ck_assert_msg(o != NULL, "seed %s: faulty %s %s (%s) not listed", seed, t->wafer,
+                          t->device, t->kind);
+            ck_assert(o->die_x == t->die_x && o->die_y == t->die_y);
+            n_faulty++;
+        } else if (strcmp(t->kind, "good") == 0) {
+            const out_row *o = find_row(dev, n_dev, t->wafer, t->device);
+            ck_assert_msg(o != NULL, "seed %s: good %s %s not stored", seed, t->wafer, t->device);
+            n_good++;
+            n_false += o->flags[0] != '\0';
+        }
+    }
+    ck_assert_uint_gt(n_faulty, 0);
+    ck_assert_uint_gt(n_good, 400); /* 16 wafers x 36 dies x 0.85 yield, less the faults */
+    ck_assert_msg(n_false * 100 < n_good, "seed %s: %zu of %zu good devices flagged", seed,
+                  n_false, n_good);
+    free(truth);
+    free(dev);
+    free(fa);
+    free(sim);
+    sl_run_result_free(&r);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+
+START_TEST(test_end_to_end_off_plan_and_faults)
+{
+    static const char *const seeds[] = { "3", "17", "2029" };
+    for (size_t i = 0; i < N_OF(seeds); i++)
+        end_to_end(seeds[i]);
+}
+END_TEST
+
+/* ---- history across lots ---------------------------------------------------------- */
+
+/* Three demo lots; the third gets cap-pmma 1.5e12 instead of the planned 0.4e12. */
+static void drift_lots(const char *dir, int first_seed)
+{
+    static const char *const none[] = { NULL };
+    static const char *const drifted[] = { "--true-doping", "cap-pmma=1.5e12", NULL };
+    for (int i = 1; i <= 3; i++) {
+        char lot[16], seed[16];
+        snprintf(lot, sizeof lot, "DRIFT-0%d", i);
+        snprintf(seed, sizeof seed, "%d", first_seed + i);
+        demo_lot(dir, lot, seed, i == 3 ? drifted : none, 0);
+    }
+}
+
+START_TEST(test_history_flags_drift)
+{
+    static const int first_seeds[] = { 40, 700 };
+    for (size_t s = 0; s < N_OF(first_seeds); s++) {
+        char *dir = sl_test_tmpdir(), row[1024];
+        drift_lots(dir, first_seeds[s]);
+        const char *history[] = { "history", "--db", "t.db", "--format", "json", NULL };
+        sl_run_result r = run_ok(dir, history);
+        ck_assert_int_eq((int)json_num(r.out, "lots"), 3);
+        size_t n = 0, n_drift = 0;
+        for (const char *p = json_array(r.out, "estimates"); json_next_row(&p, row, sizeof row); n++) {
+            char lot[32], level[64], flags[64];
+            json_str(row, "lot", lot, sizeof lot);
+            json_str(row, "level", level, sizeof level);
+            json_str(row, "flags", flags, sizeof flags);
+            int want = strcmp(lot, "DRIFT-03") == 0 && strcmp(level, "cap-pmma") == 0;
+            ck_assert_msg(want == (strcmp(flags, "\"drift\"") == 0), "seeds %d: %s %s [%s]",
+                          first_seeds[s], lot, level, flags);
+            n_drift += want;
+        }
+        ck_assert_uint_eq(n, 12); /* 4 levels (intercept included) x 3 lots */
+        ck_assert_uint_eq(n_drift, 1);
+        json_row_where(r.out, "levels", "level", "cap-pmma", row, sizeof row);
+        ck_assert_int_eq((int)json_num(row, "drift_lots"), 1);
+        json_row_where(r.out, "levels", "level", "anneal-350", row, sizeof row);
+        ck_assert_int_eq((int)json_num(row, "drift_lots"), 0);
+        sl_run_result_free(&r);
+        sl_test_rmtree(dir);
+        free(dir);
+    }
+}
+END_TEST
+
+/* The demo plan without the blocks --emit-yaml writes, then the emitted YAML. */
+static char *plan_with_calibration(const char *yaml)
+{
+    static const char *const dropped[] = { "baseline_doping_per_cm2:", "dielectrics:",
+                                           "treatments:", "materials:" };
+    char *path = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert(text != NULL);
+    size_t cap = strlen(text) + strlen(yaml) + 2, n = 0;
+    char *out = malloc(cap);
+    int skipping = 0;
+    for (char *line = text; *line;) {
+        char *end = strchr(line, '\n');
+        size_t len = end ? (size_t)(end - line) + 1 : strlen(line);
+        if (line[0] != ' ' && line[0] != '-' && line[0] != '#' && line[0] != '\n') {
+            skipping = 0; /* a top-level key ends the block before it */
+            for (size_t k = 0; k < N_OF(dropped); k++)
+                skipping |= strncmp(line, dropped[k], strlen(dropped[k])) == 0;
+        }
+        if (!skipping) {
+            memcpy(out + n, line, len);
+            n += len;
+        }
+        line += len;
+    }
+    snprintf(out + n, cap - n, "%s", yaml);
+    free(text);
+    free(path);
+    return out;
+}
+
+START_TEST(test_emit_yaml_round_trip)
+{
+    static const char *const under[] = { "--true-doping", "anneal-350=0.9e12", NULL };
+    char *dir = sl_test_tmpdir(), row[1024];
+    for (int i = 1; i <= 3; i++) {
+        char lot[16], seed[16];
+        snprintf(lot, sizeof lot, "CAL-0%d", i);
+        snprintf(seed, sizeof seed, "%d", 60 + i);
+        demo_lot(dir, lot, seed, under, 0);
+    }
+    const char *emit[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
+    sl_run_result y = run_ok(dir, emit);
+    ck_assert(strstr(y.out, "baseline_doping_per_cm2:") && strstr(y.out, "\ndielectrics:\n") &&
+              strstr(y.out, "\ntreatments:\n"));
+
+    char *plan = plan_with_calibration(y.out);
+    ck_assert(strstr(plan, "mean: 1.2e12") == NULL); /* the planned anneal is gone */
+    char *plan_path = sl_test_path(dir, "next.yaml");
+    ck_assert_int_eq(sl_test_write_file(plan_path, plan), 0);
+    const char *check[] = { "check", "next.yaml", NULL };
+    sl_run_result c = sl_test_run(dir, NULL, check);
+    ck_assert_msg(c.exit_code == 0, "check: %s%s\n--- plan:\n%s", c.out, c.err, plan);
+    sl_run_result_free(&c);
+
+    /* calibrated anneal against what the lots delivered (levels.csv of the
+     * simulation: 9e+11) and the pooled standard error history reports */
+    const char *anneal = strstr(y.out, "name: anneal-350, doping_per_cm2: { mean: ");
+    ck_assert(anneal != NULL);
+    double mean = strtod(anneal + strlen("name: anneal-350, doping_per_cm2: { mean: "), NULL);
+    char *levels_path = sl_test_path(dir, "sim-CAL-01/levels.csv");
+    char *levels = sl_test_read_file(levels_path, NULL);
+    ck_assert(levels && strstr(levels, "treatment,anneal-350,1.2e+12,3e+11,9e+11\n"));
+    const char *history[] = { "history", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result h = run_ok(dir, history);
+    json_row_where(h.out, "levels", "level", "anneal-350", row, sizeof row);
+    double se = json_num(row, "pooled_stderr_per_cm2");
+    ck_assert(se > 0.0 && se < 1e11);
+    ck_assert_msg(fabs(mean - 0.9e12) < 4.0 * se, "calibrated anneal %g, SE %g", mean, se);
+    sl_run_result_free(&h);
+    free(levels);
+    free(levels_path);
+    free(plan_path);
+    free(plan);
+    sl_run_result_free(&y);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+static Suite *analyze_suite(void)
+{
+    Suite *s = suite_create("analyze");
+    TCase *stats = tcase_create("statistics");
+    tcase_add_test(stats, test_effects_against_numpy_wls);
+    tcase_add_test(stats, test_anova_and_ci_against_scipy);
+    suite_add_tcase(s, stats);
+    TCase *lots = tcase_create("simulated lots");
+    tcase_set_timeout(lots, 300);
+    tcase_add_test(lots, test_end_to_end_off_plan_and_faults);
+    tcase_add_test(lots, test_history_flags_drift);
+    tcase_add_test(lots, test_emit_yaml_round_trip);
+    suite_add_tcase(s, lots);
+    return s;
+}
+
+int main(void) { return sl_test_main(analyze_suite()); }

@@ -1,0 +1,371 @@
+/* SPDX-License-Identifier: MIT
+ * Command-line tests of `splitlot compare` and `splitlot history`: the JSON
+ * keys of DESIGN.md section 5, --only-flagged, --fail-on-flags (exit 3),
+ * unknown lots and missing databases (exit 2, nothing created). The numbers
+ * themselves are checked in test_analyze.c. Lots are simulated, invented data.
+ */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include "test_support.h"
+
+#define N_OF(a) (sizeof(a) / sizeof((a)[0]))
+
+/* One scratch folder for the suite, made once: t.db holds
+ *   DEMO-01   the demo plan, seed 11, the simulator's default 2 % faulty devices;
+ *   CLEAN-01  the demo plan, seed 3, --fault-fraction 0: no device flagged
+ *             (regression value: seed 3 also draws no shifted device);
+ *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2. */
+static char *dir;
+
+static sl_run_result run_in(const char *const *argv) { return sl_test_run(dir, NULL, argv); }
+
+static void must_run(const char *const *argv)
+{
+    sl_run_result r = run_in(argv);
+    ck_assert_msg(r.exit_code == 0, "%s: exit %d: %s", argv[0], r.exit_code, r.err);
+    sl_run_result_free(&r);
+}
+
+static void add_lot(const char *lot, const char *seed, const char *fault, const char *truth)
+{
+    char *demo_path = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *demo = sl_test_read_file(demo_path, NULL);
+    ck_assert(demo && strncmp(strstr(demo, "\nlot: ") + 1, "lot: DEMO-01\n", 13) == 0);
+    char plan[64], sim[64], sweeps[96];
+    snprintf(plan, sizeof plan, "%s.yaml", lot);
+    snprintf(sim, sizeof sim, "sim-%s", lot);
+    snprintf(sweeps, sizeof sweeps, "%s/sweeps.csv", sim);
+    char *text = malloc(strlen(demo) + 64), *at = strstr(demo, "\nlot: ") + 1;
+    sprintf(text, "%.*slot: %s\n%s", (int)(at - demo), demo, lot, at + 13);
+    char *plan_path = sl_test_path(dir, plan);
+    ck_assert_int_eq(sl_test_write_file(plan_path, text), 0);
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    must_run(predict);
+    const char *simulate[] = { "simulate", plan, "--out", sim, "--seed", seed, "--fault-fraction",
+                               fault, truth ? "--true-doping" : NULL, truth, NULL };
+    must_run(simulate);
+    const char *ingest[] = { "ingest", "--lot", lot, "--sweeps", sweeps, "--db", "t.db", NULL };
+    must_run(ingest);
+    free(plan_path);
+    free(text);
+    free(demo);
+    free(demo_path);
+}
+
+static void setup(void)
+{
+    dir = sl_test_tmpdir();
+    ck_assert(dir != NULL);
+    add_lot("DEMO-01", "11", "0.02", NULL);
+    add_lot("CLEAN-01", "3", "0", NULL);
+    add_lot("OFF-01", "3", "0", "anneal-350=0.2e12");
+}
+
+static void teardown(void)
+{
+    sl_test_rmtree(dir);
+    free(dir);
+    dir = NULL;
+}
+
+/* compare --lot LOT --db t.db --format json [extra]; asserts the exit code. */
+static sl_run_result compare_json(const char *lot, const char *extra, int want_exit)
+{
+    const char *argv[] = { "compare", "--lot", lot, "--db", "t.db", "--format", "json", extra, NULL };
+    sl_run_result r = run_in(argv);
+    ck_assert_msg(r.exit_code == want_exit, "compare %s %s: exit %d: %s", lot, extra ? extra : "",
+                  r.exit_code, r.err);
+    return r;
+}
+
+/* The lines of array `"key": [` (one object per line), as a count; each line
+ * is handed to check (may be NULL). */
+static size_t for_rows(const char *json, const char *key, void (*check)(const char *row))
+{
+    char pat[64];
+    snprintf(pat, sizeof pat, "\"%s\": [\n", key);
+    const char *p = strstr(json, pat);
+    ck_assert_msg(p != NULL, "no array %s", key);
+    size_t n = 0;
+    for (p += strlen(pat); strncmp(p, "    {", 5) == 0; n++) {
+        const char *end = strchr(p, '\n');
+        char *row = strndup(p, (size_t)(end - p));
+        if (check)
+            check(row);
+        free(row);
+        p = end + 1;
+    }
+    return n;
+}
+
+static long top_number(const char *json, const char *key)
+{
+    char pat[64];
+    snprintf(pat, sizeof pat, "\n  \"%s\": ", key);
+    const char *p = strstr(json, pat);
+    ck_assert_msg(p != NULL, "no top-level %s", key);
+    return strtol(p + strlen(pat), NULL, 10);
+}
+
+static void has_keys(const char *row, const char *const *keys, size_t n)
+{
+    for (size_t i = 0; i < n; i++) {
+        char pat[64];
+        snprintf(pat, sizeof pat, "\"%s\": ", keys[i]);
+        ck_assert_msg(strstr(row, pat) != NULL, "no key %s in %s", keys[i], row);
+    }
+}
+
+static void device_keys(const char *row)
+{
+    static const char *const keys[] = { "wafer", "device", "split", "cnp_predicted_V",
+                                        "cnp_measured_V", "deviation_V", "z",
+                                        "doping_measured_per_cm2", "flags" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+static void split_keys(const char *row)
+{
+    static const char *const keys[] = { "split", "devices", "usable", "cnp_predicted_V",
+                                        "cnp_mean_V", "cnp_ci95_V", "flagged" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+static void effect_keys(const char *row)
+{
+    static const char *const keys[] = { "factor", "level", "planned_per_cm2",
+                                        "estimated_per_cm2", "stderr_per_cm2", "flags" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+static void failure_keys(const char *row)
+{
+    static const char *const keys[] = { "rank", "wafer", "device", "die_x", "die_y", "split",
+                                        "reason" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+START_TEST(test_compare_json_keys)
+{
+    sl_run_result r = compare_json("DEMO-01", NULL, 0);
+    ck_assert_str_eq(r.err, "");
+    ck_assert(strncmp(r.out, "{\n  \"lot\": \"DEMO-01\",\n", 22) == 0);
+    size_t n_dev = for_rows(r.out, "devices", device_keys);
+    ck_assert_uint_eq(n_dev, (size_t)top_number(r.out, "devices"));
+    ck_assert_uint_eq(for_rows(r.out, "splits", split_keys), 8);   /* 2 x 2 x 2 */
+    ck_assert_uint_eq(for_rows(r.out, "effects", effect_keys), 4); /* intercept + 3 levels */
+    size_t n_fa = for_rows(r.out, "failure_analysis", failure_keys);
+    ck_assert_uint_eq(n_fa, (size_t)top_number(r.out, "flagged"));
+    ck_assert_uint_gt(n_fa, 0);
+    /* an extraction failure has no measured value: null, not a number */
+    ck_assert(strstr(r.out, "\"cnp_measured_V\": null, \"deviation_V\": null") != NULL);
+    sl_run_result_free(&r);
+}
+END_TEST
+
+static void flagged_row(const char *row)
+{
+    device_keys(row);
+    ck_assert_msg(strstr(row, "\"flags\": []") == NULL, "unflagged device listed: %s", row);
+}
+
+START_TEST(test_only_flagged)
+{
+    sl_run_result all = compare_json("DEMO-01", NULL, 0);
+    sl_run_result some = compare_json("DEMO-01", "--only-flagged", 0);
+    size_t n_all = for_rows(all.out, "devices", NULL);
+    size_t n_some = for_rows(some.out, "devices", flagged_row);
+    ck_assert_uint_eq(n_some, (size_t)top_number(some.out, "flagged"));
+    ck_assert_uint_gt(n_some, 0);
+    ck_assert_uint_lt(n_some, n_all);
+    /* the other tables are unchanged */
+    ck_assert_str_eq(strstr(some.out, "\"splits\": ["), strstr(all.out, "\"splits\": ["));
+    sl_run_result_free(&all);
+    sl_run_result_free(&some);
+}
+END_TEST
+
+START_TEST(test_fail_on_flags)
+{
+    sl_run_result r = compare_json("DEMO-01", "--fail-on-flags", 3);
+    ck_assert_int_gt(top_number(r.out, "flagged"), 0); /* the report is still printed */
+    sl_run_result_free(&r);
+    r = compare_json("DEMO-01", NULL, 0); /* flags alone do not fail without the option */
+    sl_run_result_free(&r);
+
+    r = compare_json("CLEAN-01", "--fail-on-flags", 0);
+    ck_assert_int_eq(top_number(r.out, "flagged"), 0);        /* regression value, seed 3 */
+    ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 0);
+    ck_assert(strstr(r.out, "\"flags\": [\"") == NULL);
+    sl_run_result_free(&r);
+
+    /* no device flagged, one level off-plan: that is a flag too */
+    r = compare_json("OFF-01", "--fail-on-flags", 3);
+    ck_assert_int_eq(top_number(r.out, "flagged"), 0); /* regression value, seed 3 */
+    ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 1);
+    sl_run_result_free(&r);
+}
+END_TEST
+
+START_TEST(test_unknown_lot)
+{
+    sl_run_result r = compare_json("NO-SUCH-LOT", NULL, 2);
+    ck_assert_str_eq(r.out, "");
+    ck_assert_msg(strstr(r.err, "NO-SUCH-LOT") && strstr(r.err, "DEMO-01") &&
+                      strstr(r.err, "CLEAN-01") && strstr(r.err, "OFF-01"),
+                  "stderr: %s", r.err);
+    ck_assert_ptr_eq(strchr(r.err, '\n'), r.err + strlen(r.err) - 1); /* one line */
+    sl_run_result_free(&r);
+}
+END_TEST
+
+START_TEST(test_missing_database)
+{
+    static const char *const cases[][8] = {
+        { "compare", "--lot", "DEMO-01", "--db", "missing.db", NULL },
+        { "history", "--db", "missing.db", NULL },
+        { "history", "--db", "missing.db", "--emit-yaml", NULL },
+    };
+    char *missing = sl_test_path(dir, "missing.db");
+    for (size_t i = 0; i < N_OF(cases); i++) {
+        sl_run_result r = run_in(cases[i]);
+        ck_assert_msg(r.exit_code == 2, "case %zu: exit %d", i, r.exit_code);
+        ck_assert_msg(strstr(r.err, "missing.db") != NULL, "case %zu: %s", i, r.err);
+        ck_assert_str_eq(r.out, "");
+        ck_assert_msg(access(missing, F_OK) != 0, "case %zu created the database", i);
+        sl_run_result_free(&r);
+    }
+    free(missing);
+}
+END_TEST
+
+START_TEST(test_bad_usage)
+{
+    static const char *const cases[][8] = {
+        { "compare", "--db", "t.db", NULL },
+        { "compare", "--lot", "DEMO-01", "--db", "t.db", "--format", "xml", NULL },
+        { "compare", "--lot", "DEMO-01", "--db", "t.db", "--bogus", NULL },
+        { "compare", "--lot", "DEMO-01", "--db", "t.db", "extra", NULL },
+        { "history", "--db", "t.db", "--format", "yaml", NULL },
+        { "history", "--db", "t.db", "extra", NULL },
+    };
+    for (size_t i = 0; i < N_OF(cases); i++) {
+        sl_run_result r = run_in(cases[i]);
+        ck_assert_msg(r.exit_code == 2, "case %zu: exit %d", i, r.exit_code);
+        ck_assert_msg(strncmp(r.err, "splitlot: error: ", 17) == 0, "case %zu: %s", i, r.err);
+        ck_assert_str_eq(r.out, "");
+        sl_run_result_free(&r);
+    }
+}
+END_TEST
+
+START_TEST(test_table_and_csv)
+{
+    static const char *const table[] = { "compare", "--lot", "DEMO-01", "--db", "t.db", NULL };
+    sl_run_result r = run_in(table);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert(strstr(r.out, "failure analysis, most severe first") != NULL);
+    ck_assert(strstr(r.out, "ANOVA of measured doping across 8 splits") != NULL);
+    sl_run_result_free(&r);
+    static const char *const csv[] = { "compare", "--lot", "DEMO-01", "--db", "t.db",
+                                       "--format", "csv", NULL };
+    r = run_in(csv);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert(strstr(r.out, "\nwafer,device,die_x,die_y,split,cnp_predicted_V,") != NULL);
+    ck_assert(strstr(r.out, "\nfactor,level,reference,planned_per_cm2,") != NULL);
+    sl_run_result_free(&r);
+}
+END_TEST
+
+static void level_keys(const char *row)
+{
+    static const char *const keys[] = { "factor", "level", "lots", "planned_per_cm2",
+                                        "pooled_per_cm2", "pooled_stderr_per_cm2",
+                                        "center_per_cm2", "limits_per_cm2", "drift_lots" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+static void estimate_keys(const char *row)
+{
+    static const char *const keys[] = { "factor", "level", "lot", "estimated_per_cm2",
+                                        "stderr_per_cm2", "flags" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+START_TEST(test_history_json_and_yaml)
+{
+    static const char *const json[] = { "history", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = run_in(json);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_int_eq(top_number(r.out, "lots"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    ck_assert_uint_eq(for_rows(r.out, "levels", level_keys), 4);
+    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 12); /* 4 levels x 3 lots */
+    sl_run_result_free(&r);
+    static const char *const yaml[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
+    r = run_in(yaml);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_str_eq(r.err, "");
+    ck_assert(strstr(r.out, "\nbaseline_doping_per_cm2: { mean: ") != NULL);
+    ck_assert(strstr(r.out, "\n  - { name: anneal-350, doping_per_cm2: { mean: ") != NULL);
+    sl_run_result_free(&r);
+}
+END_TEST
+
+/* A database whose only lot has no measurements: no estimates, and the YAML
+ * falls back to the plan's own values, saying so. */
+START_TEST(test_history_without_measurements)
+{
+    char *plan = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    static const char *const sub[] = { "history", "--db", "empty/e.db", NULL };
+    char *empty = sl_test_path(dir, "empty");
+    ck_assert_int_eq(mkdir(empty, 0777), 0);
+    const char *predict[] = { "predict", plan, "--db", "empty/e.db", NULL };
+    must_run(predict);
+    sl_run_result r = run_in(sub);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert(strstr(r.out, "lots_with_estimates: 0") != NULL);
+    sl_run_result_free(&r);
+    static const char *const yaml[] = { "history", "--db", "empty/e.db", "--emit-yaml", NULL };
+    r = run_in(yaml);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert(strstr(r.out, "baseline_doping_per_cm2: { mean: -2e+12, sigma: 8e+11 }   "
+                            "# not measured: planned value") != NULL);
+    ck_assert(strstr(r.out, "name: anneal-350, doping_per_cm2: { mean: 1.2e+12, sigma: 3e+11 }") != NULL);
+    sl_run_result_free(&r);
+    static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--db", "empty/e.db",
+                                           "--format", "json", NULL };
+    r = run_in(compare);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_int_eq(top_number(r.out, "devices"), 0);
+    ck_assert(strstr(r.out, "\"anova_F\": null") != NULL);
+    sl_run_result_free(&r);
+    free(empty);
+    free(plan);
+}
+END_TEST
+
+static Suite *cli_compare_suite(void)
+{
+    Suite *s = suite_create("cli_compare");
+    TCase *tc = tcase_create("compare and history");
+    tcase_set_timeout(tc, 300);
+    tcase_add_unchecked_fixture(tc, setup, teardown);
+    tcase_add_test(tc, test_compare_json_keys);
+    tcase_add_test(tc, test_only_flagged);
+    tcase_add_test(tc, test_fail_on_flags);
+    tcase_add_test(tc, test_unknown_lot);
+    tcase_add_test(tc, test_missing_database);
+    tcase_add_test(tc, test_bad_usage);
+    tcase_add_test(tc, test_table_and_csv);
+    tcase_add_test(tc, test_history_json_and_yaml);
+    tcase_add_test(tc, test_history_without_measurements);
+    suite_add_tcase(s, tc);
+    return s;
+}
+
+int main(void) { return sl_test_main(cli_compare_suite()); }
