@@ -1,7 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Transfer-curve fitter (see include/splitlot/fit.h). In gate-voltage units
- * the model is R = R_c + K / sqrt(d^2 + (V - V0)^2) with d = n0 e / C_g and
- * K = (L/W) / (C_g mu); R_c and K enter linearly and are projected out.
+ * the model is R = R_c + K s(V), s = g / h, g = 1 / sqrt(d^2 + (V - V0)^2),
+ * d = n0 e / C_g, K = (L/W) / (C_g mu) and h the mobility weight of the
+ * two-mobility variant (h = 1 in the symmetric model). R_c and K enter
+ * linearly and are projected out of the nonlinear search.
  */
 #include "splitlot/fit.h"
 
@@ -19,11 +21,9 @@
 #include <gsl/gsl_sort.h>
 #include <gsl/gsl_statistics_double.h>
 
-#include "splitlot/units.h"
-
 #define SMOOTH_WINDOW 5        /* moving-median window for the starting peak */
-#define N_NONLINEAR 2          /* V0 and b = ln d */
-#define N_ALL 4                /* V0, d, K, R_c */
+#define MAX_NONLINEAR 3        /* V0, b = ln d, beta = ln(mu_e / mu_h) */
+#define MAX_PARAMS 5           /* V0, d, K, R_c, beta (and the full search's) */
 /* |Spearman rho| from which a curve peaking at an end counts as monotonic
  * (common practice: a clear trend, not a chance ordering of noise). */
 #define MONOTONIC_MIN_RANK_CORRELATION 0.8
@@ -31,18 +31,26 @@
 #define GTOL 1e-12
 #define FTOL 0.0
 
+/* Where the shape s is evaluated: V0, b = ln d and beta, with d^2 and the
+ * hyperbolic functions of beta/2 computed once. */
+typedef struct {
+    double v0, b, beta, d2, ch, sh;
+} shape_at;
+
 struct sl_fit_workspace {
     size_t max_points, n;
-    double *vg, *r, *u, *g, *smooth, *col, *jac4, *rank_work;
+    double *vg, *r, *u, *g, *s, *smooth, *col, *jac, *rank_work;
     gsl_movstat_workspace *movstat;
     gsl_multifit_nlinear_workspace *nl, *nl_full;
-    size_t nl_points, nl_full_points;
-    gsl_matrix *cov4;
-    /* Projection state at the last evaluated (V0, b). */
+    size_t nl_points, nl_params, nl_full_points, nl_full_params;
+    gsl_matrix *cov;
+    bool two_mobility;           /* model of the sweep being fitted */
     bool fix_rc_zero;
-    double at_v0, at_b, rc, k, chisq;
-    double saa, sac, scc, det;   /* Gram matrix of the linear columns */
+    /* Projection state at the last evaluated shape. */
     bool have_state;
+    shape_at at;
+    double rc, k, chisq;
+    double saa, sac, scc, det;   /* Gram matrix of the linear columns */
 };
 
 static const char *const class_names[SL_FIT_CLASS_COUNT] = {
@@ -78,16 +86,26 @@ void sl_fit_config_default(sl_fit_config *cfg, double gate_capacitance_F_per_m2,
     cfg->poor_min_r_squared = 0.9;    /* common practice */
     cfg->max_iterations = 100;
     cfg->method = SL_FIT_METHOD_PROJECTED;
+    cfg->model = SL_FIT_MODEL_SYMMETRIC;
 }
 
-double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V)
+double sl_fit_model_two_mobility_ohm(const sl_fit_params *p, double electron_hole_mobility_ratio,
+                                     const sl_fit_config *cfg, double vg_V)
 {
     double n0_per_m2 = p->n0_per_cm2 * SL_PER_M2_PER_PER_CM2;
     double ng_per_m2 = cfg->gate_capacitance_F_per_m2 * (vg_V - p->cnp_V) / SL_SI_ELEMENTARY_CHARGE;
     double mobility_m2_per_Vs = p->mobility_cm2_per_Vs * SL_M2_PER_CM2;
     double density = hypot(n0_per_m2, ng_per_m2);
-    return p->r_contact_ohm +
-           cfg->length_over_width / (SL_SI_ELEMENTARY_CHARGE * mobility_m2_per_Vs * density);
+    double electron_share = density > 0.0 ? ng_per_m2 / density : 0.0;
+    double half_log_ratio = 0.5 * log(electron_hole_mobility_ratio);
+    double weight = cosh(half_log_ratio) + electron_share * sinh(half_log_ratio);
+    return p->r_contact_ohm + cfg->length_over_width / (SL_SI_ELEMENTARY_CHARGE * mobility_m2_per_Vs *
+                                                        density * weight);
+}
+
+double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V)
+{
+    return sl_fit_model_two_mobility_ohm(p, 1.0, cfg, vg_V);
 }
 
 /* ---- workspace ---- */
@@ -100,15 +118,15 @@ sl_fit_workspace *sl_fit_workspace_new(size_t max_points)
     if (!ws)
         return NULL;
     ws->max_points = max_points;
-    double **arrays[] = { &ws->vg, &ws->r, &ws->u, &ws->g, &ws->smooth, &ws->col };
+    double **arrays[] = { &ws->vg, &ws->r, &ws->u, &ws->g, &ws->s, &ws->smooth, &ws->col };
     bool ok = true;
     for (size_t i = 0; i < sizeof arrays / sizeof arrays[0]; i++)
         ok = ok && (*arrays[i] = malloc(max_points * sizeof(double))) != NULL;
-    ws->jac4 = ok ? malloc(max_points * N_ALL * sizeof(double)) : NULL;
+    ws->jac = ok ? malloc(max_points * MAX_PARAMS * sizeof(double)) : NULL;
     ws->rank_work = ok ? malloc(2 * max_points * sizeof(double)) : NULL;
     ws->movstat = gsl_movstat_alloc(SMOOTH_WINDOW);
-    ws->cov4 = gsl_matrix_alloc(N_ALL, N_ALL);
-    if (!ok || !ws->jac4 || !ws->rank_work || !ws->movstat || !ws->cov4) {
+    ws->cov = gsl_matrix_alloc(MAX_PARAMS, MAX_PARAMS);
+    if (!ok || !ws->jac || !ws->rank_work || !ws->movstat || !ws->cov) {
         sl_fit_workspace_free(ws);
         return NULL;
     }
@@ -123,9 +141,10 @@ void sl_fit_workspace_free(sl_fit_workspace *ws)
     free(ws->r);
     free(ws->u);
     free(ws->g);
+    free(ws->s);
     free(ws->smooth);
     free(ws->col);
-    free(ws->jac4);
+    free(ws->jac);
     free(ws->rank_work);
     if (ws->movstat)
         gsl_movstat_free(ws->movstat);
@@ -133,19 +152,21 @@ void sl_fit_workspace_free(sl_fit_workspace *ws)
         gsl_multifit_nlinear_free(ws->nl);
     if (ws->nl_full)
         gsl_multifit_nlinear_free(ws->nl_full);
-    if (ws->cov4)
-        gsl_matrix_free(ws->cov4);
+    if (ws->cov)
+        gsl_matrix_free(ws->cov);
     free(ws);
 }
 
-/* A GSL solver is sized for one sweep length; keep it while lengths repeat.
- * Levenberg-Marquardt: a step is a small p x p solve (normal equations by
- * Cholesky, fine at p <= 4 with well-scaled parameters), and its damping
- * copes with the flat direction of d when the peak is sharp. */
+/* A GSL solver is sized for one sweep length and parameter count; keep it
+ * while they repeat. Levenberg-Marquardt: a step is a small p x p solve
+ * (normal equations by Cholesky, fine at p <= 5 with parameters of order
+ * one), and its damping copes with the flat direction of d when the peak is
+ * sharp. */
 static gsl_multifit_nlinear_workspace *solver_for(gsl_multifit_nlinear_workspace **slot,
-                                                  size_t *slot_points, size_t n, size_t p)
+                                                  size_t *slot_points, size_t *slot_params,
+                                                  size_t n, size_t p)
 {
-    if (*slot && *slot_points == n)
+    if (*slot && *slot_points == n && *slot_params == p)
         return *slot;
     if (*slot)
         gsl_multifit_nlinear_free(*slot);
@@ -155,23 +176,86 @@ static gsl_multifit_nlinear_workspace *solver_for(gsl_multifit_nlinear_workspace
     par.scale = gsl_multifit_nlinear_scale_levenberg;
     *slot = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, n, p);
     *slot_points = *slot ? n : 0;
+    *slot_params = p;
     return *slot;
 }
 
+static size_t nonlinear_count(const sl_fit_workspace *ws) { return ws->two_mobility ? 3 : 2; }
+static size_t param_count(const sl_fit_workspace *ws) { return ws->two_mobility ? 5 : 4; }
+
 static sl_status ensure_solvers(sl_fit_workspace *ws, size_t n)
 {
-    bool ok = solver_for(&ws->nl, &ws->nl_points, n, N_NONLINEAR) &&
-              solver_for(&ws->nl_full, &ws->nl_full_points, n, N_ALL);
+    bool ok = solver_for(&ws->nl, &ws->nl_points, &ws->nl_params, n, nonlinear_count(ws)) &&
+              solver_for(&ws->nl_full, &ws->nl_full_points, &ws->nl_full_params, n,
+                         param_count(ws));
     return ok ? SL_OK : SL_ENOMEM;
+}
+
+/* ---- the shape s = g / h and its derivatives ---- */
+
+static shape_at shape_setup(double v0, double b, double beta)
+{
+    shape_at a = { v0, b, beta, exp(2.0 * b), cosh(0.5 * beta), sinh(0.5 * beta) };
+    return a;
+}
+
+/* h = cosh(beta/2) + t sinh(beta/2), t = x g the electrons' share of n - p
+ * over n + p: the density-weighted mobility over the geometric mean one. */
+static inline double shape_from_g(const shape_at *a, double x, double g, bool two_mobility)
+{
+    return two_mobility ? g / (a->ch + x * g * a->sh) : g;
+}
+
+static inline double shape_value(const shape_at *a, double vg, bool two_mobility)
+{
+    double x = vg - a->v0;
+    return shape_from_g(a, x, 1.0 / sqrt(a->d2 + x * x), two_mobility);
+}
+
+typedef struct {
+    double s, ds[MAX_NONLINEAR];   /* by V0, b, beta */
+} shape_grad;
+
+/* Gradient at offset x = V - V0 where g = 1 / sqrt(d^2 + x^2) is known. */
+static inline shape_grad shape_gradient_at(const shape_at *a, double x, double g,
+                                           bool two_mobility)
+{
+    double g2 = g * g;
+    shape_grad r;
+    if (!two_mobility) {   /* h = 1: the common case, kept cheap */
+        r.s = g;
+        r.ds[0] = x * g2 * g;
+        r.ds[1] = -a->d2 * g2 * g;
+        r.ds[2] = 0.0;
+        return r;
+    }
+    double h = a->ch + x * g * a->sh, inv_h2 = 1.0 / (h * h);
+    r.s = g / h;
+    r.ds[0] = (x * a->ch * g2 * g + a->sh * g2) * inv_h2;
+    r.ds[1] = -a->d2 * g2 * g * a->ch * inv_h2;
+    r.ds[2] = -0.5 * g * (a->sh + x * g * a->ch) * inv_h2;
+    return r;
+}
+
+static inline shape_grad shape_gradient(const shape_at *a, double vg, bool two_mobility)
+{
+    double x = vg - a->v0;
+    return shape_gradient_at(a, x, 1.0 / sqrt(a->d2 + x * x), two_mobility);
+}
+
+static shape_at shape_of_vector(const sl_fit_workspace *ws, const gsl_vector *x)
+{
+    double beta = ws->two_mobility ? gsl_vector_get(x, 2) : 0.0;
+    return shape_setup(gsl_vector_get(x, 0), gsl_vector_get(x, 1), beta);
 }
 
 /* ---- variable projection ---- */
 
-/* With u = 1/R the relative residual is f = 1 - R_c u - K g u: a linear least
- * squares problem in (R_c, K) with columns a = u, c = g u and target 1. The
- * 2x2 Gram matrix is formed once per (V0, d) and serves the solve for (R_c, K)
- * and both Kaufman projections, which is why it is not left to gsl_fit_wlinear
- * (two passes and a division per point, three times per step). */
+/* With u = 1/R the relative residual is f = 1 - R_c u - K s u: a linear least
+ * squares problem in (R_c, K) with columns a = u, c = s u and target 1. The
+ * 2x2 Gram matrix is formed once per shape and serves the solve for (R_c, K)
+ * and every Kaufman projection, which is why it is not left to
+ * gsl_fit_wlinear (two passes and a division per point, for each of them). */
 static void gram_solve(const sl_fit_workspace *ws, double rhs_a, double rhs_c, double *x_a,
                        double *x_c)
 {
@@ -184,15 +268,22 @@ static void gram_solve(const sl_fit_workspace *ws, double rhs_a, double rhs_c, d
     *x_c = (ws->saa * rhs_c - ws->sac * rhs_a) / ws->det;
 }
 
-static void project(sl_fit_workspace *ws, double v0, double b)
+static bool same_shape(const shape_at *a, const shape_at *b)
 {
-    if (ws->have_state && ws->at_v0 == v0 && ws->at_b == b)
+    return a->v0 == b->v0 && a->b == b->b && a->beta == b->beta;
+}
+
+static void project(sl_fit_workspace *ws, const shape_at *at)
+{
+    if (ws->have_state && same_shape(&ws->at, at))
         return;
-    double d2 = exp(2.0 * b), sac = 0.0, scc = 0.0, sa1 = 0.0, sc1 = 0.0;
+    double sac = 0.0, scc = 0.0, sa1 = 0.0, sc1 = 0.0;
     for (size_t i = 0; i < ws->n; i++) {
-        double x = ws->vg[i] - v0, g = 1.0 / sqrt(d2 + x * x), u = ws->u[i];
-        double c = g * u;
+        double x = ws->vg[i] - at->v0, g = 1.0 / sqrt(at->d2 + x * x);
+        double s = shape_from_g(at, x, g, ws->two_mobility), u = ws->u[i];
+        double c = s * u;
         ws->g[i] = g;
+        ws->s[i] = s;
         sac += u * c;
         scc += c * c;
         sa1 += u;
@@ -204,51 +295,60 @@ static void project(sl_fit_workspace *ws, double v0, double b)
     gram_solve(ws, sa1, sc1, &ws->rc, &ws->k);
     double chisq = 0.0;
     for (size_t i = 0; i < ws->n; i++) {
-        double f = 1.0 - (ws->rc + ws->k * ws->g[i]) * ws->u[i];
+        double f = 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
         chisq += f * f;
     }
     ws->chisq = chisq;
-    ws->at_v0 = v0;
-    ws->at_b = b;
+    ws->at = *at;
     ws->have_state = true;
 }
 
 static int projected_residual(const gsl_vector *x, void *data, gsl_vector *f)
 {
     sl_fit_workspace *ws = data;
-    project(ws, gsl_vector_get(x, 0), gsl_vector_get(x, 1));
+    shape_at at = shape_of_vector(ws, x);
+    project(ws, &at);
     for (size_t i = 0; i < ws->n; i++)
-        f->data[i * f->stride] = 1.0 - (ws->rc + ws->k * ws->g[i]) * ws->u[i];
+        f->data[i * f->stride] = 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
     return GSL_SUCCESS;
 }
 
 /* Kaufman's approximation of the projected Jacobian: column j is
- * -P_perp (u dg/dtheta_j K), P_perp the projector off span{a, c}. */
+ * -P_perp (u K ds/dtheta_j), P_perp the projector off span{a, c}. */
 static int projected_jacobian(const gsl_vector *x, void *data, gsl_matrix *jac)
 {
     sl_fit_workspace *ws = data;
-    double v0 = gsl_vector_get(x, 0), d2 = exp(2.0 * gsl_vector_get(x, 1));
-    project(ws, v0, gsl_vector_get(x, 1));
-    double ta[N_NONLINEAR] = { 0.0, 0.0 }, tc[N_NONLINEAR] = { 0.0, 0.0 };
+    shape_at at = shape_of_vector(ws, x);
+    project(ws, &at);
+    size_t p = nonlinear_count(ws);
+    double ta[MAX_NONLINEAR] = { 0 }, tc[MAX_NONLINEAR] = { 0 };
     for (size_t i = 0; i < ws->n; i++) {
-        double g = ws->g[i], u = ws->u[i], kg3u = ws->k * g * g * g * u;
-        double t0 = (ws->vg[i] - v0) * kg3u, t1 = -d2 * kg3u;
+        /* g and s at this shape are those project() just stored */
+        shape_grad sg = shape_gradient_at(&at, ws->vg[i] - at.v0, ws->g[i], ws->two_mobility);
+        double u = ws->u[i], ku = ws->k * u, su = sg.s * u;
+        double t0 = ku * sg.ds[0], t1 = ku * sg.ds[1], t2 = ku * sg.ds[2];
         double *row = jac->data + i * jac->tda;
         row[0] = t0;
         row[1] = t1;
+        if (p == MAX_NONLINEAR)
+            row[2] = t2;
         ta[0] += u * t0;
         ta[1] += u * t1;
-        tc[0] += g * u * t0;
-        tc[1] += g * u * t1;
+        ta[2] += u * t2;
+        tc[0] += su * t0;
+        tc[1] += su * t1;
+        tc[2] += su * t2;
     }
-    double alpha[N_NONLINEAR], beta[N_NONLINEAR];
-    for (size_t j = 0; j < N_NONLINEAR; j++)
+    double alpha[MAX_NONLINEAR], beta[MAX_NONLINEAR];
+    for (size_t j = 0; j < p; j++)
         gram_solve(ws, ta[j], tc[j], &alpha[j], &beta[j]);
     for (size_t i = 0; i < ws->n; i++) {
-        double u = ws->u[i], gu = ws->g[i] * u;
+        double u = ws->u[i], su = ws->s[i] * u;
         double *row = jac->data + i * jac->tda;
-        for (size_t j = 0; j < N_NONLINEAR; j++)
-            row[j] = -(row[j] - alpha[j] * u - beta[j] * gu);
+        row[0] = alpha[0] * u + beta[0] * su - row[0];
+        row[1] = alpha[1] * u + beta[1] * su - row[1];
+        if (p == MAX_NONLINEAR)
+            row[2] = alpha[2] * u + beta[2] * su - row[2];
     }
     return GSL_SUCCESS;
 }
@@ -268,47 +368,50 @@ static int run_driver(gsl_multifit_nlinear_workspace *nl, gsl_multifit_nlinear_f
     return st == GSL_ENOPROG ? GSL_SUCCESS : st;
 }
 
-/* Projected search from (v0, b); leaves the solution in the projection state. */
-static int run_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0, double *b,
+/* Projected search from *at; leaves the solution in *at and the projection
+ * state. */
+static int run_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape_at *at,
                       int *iterations)
 {
     gsl_multifit_nlinear_fdf fdf = {
         .f = projected_residual, .df = projected_jacobian, .fvv = NULL,
-        .n = ws->n, .p = N_NONLINEAR, .params = ws,
+        .n = ws->n, .p = nonlinear_count(ws), .params = ws,
     };
-    double x[N_NONLINEAR] = { *v0, *b };
+    double x[MAX_NONLINEAR] = { at->v0, at->b, at->beta };
     ws->have_state = false;
     int st = run_driver(ws->nl, &fdf, x, cfg, iterations);
-    *v0 = x[0];
-    *b = x[1];
+    *at = shape_setup(x[0], x[1], ws->two_mobility ? x[2] : 0.0);
     ws->have_state = false;
-    project(ws, *v0, *b);
+    project(ws, at);
     return st;
 }
 
-/* ---- full search over all four parameters ---- */
+/* ---- full search over all parameters ---- */
 
-/* x = (V0, b, c, rho) with d = e^b, K = e^c and R_c = rho^2, so that K > 0
- * and R_c >= 0 hold without bounds. Fills ws->g on the way. */
+/* x = (V0, b, c, rho[, beta]) with d = e^b, K = e^c and R_c = rho^2, so that
+ * K > 0 and R_c >= 0 hold without bounds. */
 typedef struct {
-    double v0, d2, k, rho;
+    shape_at at;
+    double k, rho;
 } full_point;
 
-static full_point unpack_full(const gsl_vector *x)
+static full_point unpack_full(const sl_fit_workspace *ws, const gsl_vector *x)
 {
-    full_point p = { gsl_vector_get(x, 0), exp(2.0 * gsl_vector_get(x, 1)),
+    double beta = ws->two_mobility ? gsl_vector_get(x, 4) : 0.0;
+    full_point p = { shape_setup(gsl_vector_get(x, 0), gsl_vector_get(x, 1), beta),
                      exp(gsl_vector_get(x, 2)), gsl_vector_get(x, 3) };
     return p;
 }
 
+/* Fills ws->s on the way. */
 static int full_residual(const gsl_vector *x, void *data, gsl_vector *f)
 {
     sl_fit_workspace *ws = data;
-    full_point p = unpack_full(x);
+    full_point p = unpack_full(ws, x);
     for (size_t i = 0; i < ws->n; i++) {
-        double dx = ws->vg[i] - p.v0, g = 1.0 / sqrt(p.d2 + dx * dx);
-        ws->g[i] = g;
-        f->data[i * f->stride] = 1.0 - (p.rho * p.rho + p.k * g) * ws->u[i];
+        double s = shape_value(&p.at, ws->vg[i], ws->two_mobility);
+        ws->s[i] = s;
+        f->data[i * f->stride] = 1.0 - (p.rho * p.rho + p.k * s) * ws->u[i];
     }
     return GSL_SUCCESS;
 }
@@ -316,43 +419,45 @@ static int full_residual(const gsl_vector *x, void *data, gsl_vector *f)
 static int full_jacobian(const gsl_vector *x, void *data, gsl_matrix *jac)
 {
     sl_fit_workspace *ws = data;
-    full_point p = unpack_full(x);
+    full_point p = unpack_full(ws, x);
     for (size_t i = 0; i < ws->n; i++) {
-        double dx = ws->vg[i] - p.v0, g = 1.0 / sqrt(p.d2 + dx * dx), u = ws->u[i];
-        double kg3u = p.k * g * g * g * u;
+        shape_grad sg = shape_gradient(&p.at, ws->vg[i], ws->two_mobility);
+        double u = ws->u[i], ku = p.k * u;
         double *row = jac->data + i * jac->tda;
-        row[0] = -dx * kg3u;
-        row[1] = p.d2 * kg3u;
-        row[2] = -p.k * g * u;
+        row[0] = -ku * sg.ds[0];
+        row[1] = -ku * sg.ds[1];
+        row[2] = -ku * sg.s;
         row[3] = -2.0 * p.rho * u;
+        if (ws->two_mobility)
+            row[4] = -ku * sg.ds[2];
     }
     return GSL_SUCCESS;
 }
 
-/* Full search from (v0, b) with the linear solution there as the start
- * (K > 0 and R_c > 0 forced, as logarithm and square root need them). */
-static int run_full_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
-                           double *b, int *iterations)
+/* Full search from *at with the linear solution there as the start (K > 0
+ * and R_c > 0 forced, as logarithm and square root need them). */
+static int run_full_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape_at *at,
+                           int *iterations)
 {
     ws->fix_rc_zero = false;
     ws->have_state = false;
-    project(ws, *v0, *b);
+    project(ws, at);
     double r_min = gsl_stats_min(ws->r, 1, ws->n);
-    double k0 = ws->k > 0.0 ? ws->k : (gsl_stats_max(ws->r, 1, ws->n) - r_min) * exp(*b);
+    double k0 = ws->k > 0.0 ? ws->k : (gsl_stats_max(ws->r, 1, ws->n) - r_min) * exp(at->b);
     double rc0 = GSL_MAX(ws->rc, 0.01 * r_min);
-    double x[N_ALL] = { *v0, *b, log(k0), sqrt(rc0) };
+    double x[MAX_PARAMS] = { at->v0, at->b, log(k0), sqrt(rc0), at->beta };
     gsl_multifit_nlinear_fdf fdf = {
         .f = full_residual, .df = full_jacobian, .fvv = NULL,
-        .n = ws->n, .p = N_ALL, .params = ws,
+        .n = ws->n, .p = param_count(ws), .params = ws,
     };
     int st = run_driver(ws->nl_full, &fdf, x, cfg, iterations);
-    *v0 = x[0];
-    *b = x[1];
-    ws->k = exp(x[2]);
-    ws->rc = x[3] * x[3];
-    gsl_vector_view xv = gsl_vector_view_array(x, N_ALL);
+    gsl_vector_view xv = gsl_vector_view_array(x, fdf.p);
+    full_point p = unpack_full(ws, &xv.vector);
+    *at = p.at;
+    ws->k = p.k;
+    ws->rc = p.rho * p.rho;
     gsl_vector *f = gsl_multifit_nlinear_residual(ws->nl_full);
-    full_residual(&xv.vector, ws, f);   /* ws->g at the solution */
+    full_residual(&xv.vector, ws, f);   /* ws->s at the solution */
     gsl_blas_ddot(f, f, &ws->chisq);
     ws->have_state = false;
     return st;
@@ -394,8 +499,9 @@ static double start_log_width(sl_fit_workspace *ws, const double *curve, size_t 
     *cost = HUGE_VAL;
     for (size_t i = 0; i < sizeof factors / sizeof factors[0]; i++) {
         double b = log(d * factors[i]);
+        shape_at at = shape_setup(ws->vg[peak], b, 0.0);
         ws->have_state = false;
-        project(ws, ws->vg[peak], b);
+        project(ws, &at);
         if (ws->chisq < *cost && ws->k > 0.0) {
             *cost = ws->chisq;
             best_b = b;
@@ -413,7 +519,7 @@ static bool interior(size_t index, size_t n)
 /* Start at the peak of the moving median (robust to spikes) or of the raw
  * readings (a peak only a point or two wide on a coarse sweep, which the
  * median removes), whichever has the lower projected cost. */
-static void choose_start(sl_fit_workspace *ws, double *v0, double *b)
+static void choose_start(sl_fit_workspace *ws, shape_at *start)
 {
     const double *curves[2] = { ws->smooth, ws->r };
     double best_cost = HUGE_VAL;
@@ -424,8 +530,7 @@ static void choose_start(sl_fit_workspace *ws, double *v0, double *b)
         double cost, width = start_log_width(ws, curves[c], peak, &cost);
         if (cost < best_cost || best_cost == HUGE_VAL) {
             best_cost = cost;
-            *v0 = ws->vg[peak];
-            *b = width;
+            *start = shape_setup(ws->vg[peak], width, 0.0);
         }
     }
 }
@@ -501,11 +606,23 @@ static void set_nan(sl_fit_params *p)
     p->cnp_V = p->mobility_cm2_per_Vs = p->n0_per_cm2 = p->r_contact_ohm = NAN;
 }
 
+static void clear_result(sl_fit_result *out, size_t n_points)
+{
+    memset(out, 0, sizeof *out);
+    set_nan(&out->p);
+    set_nan(&out->sigma);
+    out->rel_rms = out->r_squared = NAN;
+    sl_est unknown = { NAN, NAN };
+    out->electron_mobility_cm2_per_Vs = out->hole_mobility_cm2_per_Vs = unknown;
+    out->electron_hole_mobility_ratio = unknown;
+    out->n_points = n_points;
+}
+
 static void quality(sl_fit_result *out, sl_fit_workspace *ws)
 {
     double ss_rel = 0.0, ss_res = 0.0;
     for (size_t i = 0; i < ws->n; i++) {
-        double e = ws->r[i] - (ws->rc + ws->k * ws->g[i]);
+        double e = ws->r[i] - (ws->rc + ws->k * ws->s[i]);
         ss_res += e * e;
         ss_rel += (e / ws->r[i]) * (e / ws->r[i]);
     }
@@ -515,93 +632,119 @@ static void quality(sl_fit_result *out, sl_fit_workspace *ws)
     out->r_squared = ss_tot > 0.0 ? 1.0 - ss_res / ss_tot : 0.0;
 }
 
-/* Jacobian of the relative residuals in all four parameters (V0, d, K, R_c)
- * at the solution, and J^T J (lower triangle) summed on the way. */
-static gsl_matrix_view natural_jacobian(sl_fit_workspace *ws, double v0, double d)
+/* Jacobian of the relative residuals in the natural parameters (V0, d, K,
+ * R_c[, beta]) at the solution, and J^T J (lower triangle) into cov. */
+static gsl_matrix_view natural_jacobian(sl_fit_workspace *ws, const shape_at *at,
+                                        gsl_matrix *jtj)
 {
-    gsl_matrix_view jac = gsl_matrix_view_array(ws->jac4, ws->n, N_ALL);
-    gsl_matrix_set_zero(ws->cov4);
-    double *jtj = ws->cov4->data;
+    size_t p = param_count(ws);
+    double d = exp(at->b);
+    gsl_matrix_view jac = gsl_matrix_view_array(ws->jac, ws->n, p);
+    gsl_matrix_set_zero(jtj);
     for (size_t i = 0; i < ws->n; i++) {
-        double u = ws->u[i], g = ws->g[i], kg3u = ws->k * g * g * g * u;
-        double *row = ws->jac4 + i * N_ALL;
-        row[0] = -(ws->vg[i] - v0) * kg3u;
-        row[1] = d * kg3u;
-        row[2] = -g * u;
+        shape_grad sg = shape_gradient(at, ws->vg[i], ws->two_mobility);
+        double u = ws->u[i], ku = ws->k * u;
+        double *row = ws->jac + i * p;
+        row[0] = -ku * sg.ds[0];
+        row[1] = -ku * sg.ds[1] / d;
+        row[2] = -sg.s * u;
         row[3] = -u;
-        for (size_t a = 0; a < N_ALL; a++)
+        if (ws->two_mobility)
+            row[4] = -ku * sg.ds[2];
+        for (size_t a = 0; a < p; a++)
             for (size_t b = 0; b <= a; b++)
-                jtj[a * N_ALL + b] += row[a] * row[b];
+                jtj->data[a * jtj->tda + b] += row[a] * row[b];
     }
     return jac;
 }
 
-/* (J^T J)^-1 by Cholesky, the 4x4 normal matrix being well conditioned at a
- * good fit; GSL's rank-revealing QR covariance when it is not. */
-static void unscaled_covariance(sl_fit_workspace *ws, const gsl_matrix *jac)
+/* (J^T J)^-1 by Cholesky, the normal matrix being well conditioned at a good
+ * fit; GSL's rank-revealing QR covariance when it is not. */
+static void unscaled_covariance(gsl_matrix *cov, const gsl_matrix *jac)
 {
-    if (gsl_linalg_cholesky_decomp1(ws->cov4) == GSL_SUCCESS &&
-        gsl_linalg_cholesky_invert(ws->cov4) == GSL_SUCCESS)
+    if (gsl_linalg_cholesky_decomp1(cov) == GSL_SUCCESS &&
+        gsl_linalg_cholesky_invert(cov) == GSL_SUCCESS)
         return;
-    gsl_multifit_nlinear_covar(jac, 0.0, ws->cov4);
+    gsl_multifit_nlinear_covar(jac, 0.0, cov);
+}
+
+/* Electron and hole mobilities mu e^(+-beta/2) with first-order errors from
+ * var(ln mu_e,h) = var(K)/K^2 + var(beta)/4 -+ cov(K, beta)/K. */
+static void fill_two_mobilities(sl_fit_result *out, const sl_fit_workspace *ws,
+                                const gsl_matrix *cov, double var, double beta)
+{
+    double mu = out->p.mobility_cm2_per_Vs, k = ws->k;
+    double v_lnk = var * gsl_matrix_get(cov, 2, 2) / (k * k);
+    double v_beta = ws->two_mobility ? var * gsl_matrix_get(cov, 4, 4) : 0.0;
+    double c_lnk_beta = ws->two_mobility ? -var * gsl_matrix_get(cov, 4, 2) / k : 0.0;
+    double mu_e = mu * exp(0.5 * beta), mu_h = mu * exp(-0.5 * beta);
+    out->electron_mobility_cm2_per_Vs.val = mu_e;
+    out->electron_mobility_cm2_per_Vs.sigma = mu_e * sqrt(v_lnk + 0.25 * v_beta + c_lnk_beta);
+    out->hole_mobility_cm2_per_Vs.val = mu_h;
+    out->hole_mobility_cm2_per_Vs.sigma = mu_h * sqrt(v_lnk + 0.25 * v_beta - c_lnk_beta);
+    out->electron_hole_mobility_ratio.val = exp(beta);
+    out->electron_hole_mobility_ratio.sigma = exp(beta) * sqrt(v_beta);
 }
 
 /* Parameters in trade units and their standard errors from the covariance
- * (J^T J)^-1 scaled by the residual variance chi^2 / (n - 4). */
+ * (J^T J)^-1 scaled by the residual variance chi^2 / (n - p). */
 static void fill_parameters(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_config *cfg,
-                            double v0, double d)
+                            const shape_at *at)
 {
-    double cg = cfg->gate_capacitance_F_per_m2;
+    double cg = cfg->gate_capacitance_F_per_m2, d = exp(at->b);
     double n0_per_cm2_per_V = cg / SL_SI_ELEMENTARY_CHARGE * SL_PER_CM2_PER_PER_M2;
-    out->p.cnp_V = v0;
+    out->p.cnp_V = at->v0;
     out->p.n0_per_cm2 = d * n0_per_cm2_per_V;
     out->p.mobility_cm2_per_Vs = cfg->length_over_width / (cg * ws->k) / SL_M2_PER_CM2;
     out->p.r_contact_ohm = ws->rc;
-    gsl_matrix_view jac = natural_jacobian(ws, v0, d);
-    unscaled_covariance(ws, &jac.matrix);
-    double var = ws->chisq / (double)(ws->n - N_ALL);
-    double sd[N_ALL];
-    for (size_t j = 0; j < N_ALL; j++)
-        sd[j] = sqrt(var * gsl_matrix_get(ws->cov4, j, j));
+    size_t p = param_count(ws);
+    gsl_matrix_view cov = gsl_matrix_submatrix(ws->cov, 0, 0, p, p);
+    gsl_matrix_view jac = natural_jacobian(ws, at, &cov.matrix);
+    unscaled_covariance(&cov.matrix, &jac.matrix);
+    double var = ws->chisq / (double)(ws->n - p);
+    double sd[MAX_PARAMS];
+    for (size_t j = 0; j < p; j++)
+        sd[j] = sqrt(var * gsl_matrix_get(&cov.matrix, j, j));
     out->sigma.cnp_V = sd[0];
     out->sigma.n0_per_cm2 = sd[1] * n0_per_cm2_per_V;
     out->sigma.mobility_cm2_per_Vs = out->p.mobility_cm2_per_Vs * sd[2] / ws->k;
     out->sigma.r_contact_ohm = sd[3];
+    fill_two_mobilities(out, ws, &cov.matrix, var, at->beta);
 }
 
 /* Projected search, with R_c held at its bound 0 when the free optimum is
  * negative. */
-static int projected_search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
-                            double *b, int *iterations)
+static int projected_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape_at *at,
+                            int *iterations)
 {
     ws->fix_rc_zero = false;
-    int st = run_search(ws, cfg, v0, b, iterations);
+    int st = run_search(ws, cfg, at, iterations);
     if (st == GSL_SUCCESS && ws->rc < 0.0) {
         ws->fix_rc_zero = true;
-        st = run_search(ws, cfg, v0, b, iterations);
+        st = run_search(ws, cfg, at, iterations);
     }
     return st;
 }
 
-static bool solution_finite(const sl_fit_workspace *ws, double v0, double b)
+static bool solution_finite(const sl_fit_workspace *ws, const shape_at *at)
 {
-    return isfinite(v0) && isfinite(b) && isfinite(ws->k) && isfinite(ws->rc);
+    return isfinite(at->v0) && isfinite(at->b) && isfinite(at->beta) && isfinite(ws->k) &&
+           isfinite(ws->rc);
 }
 
 /* The chosen search, the full one as fallback when the projected one fails. */
-static sl_fit_class search(sl_fit_workspace *ws, const sl_fit_config *cfg, double *v0,
-                           double *b, int *iterations)
+static sl_fit_class search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape_at *at,
+                           int *iterations)
 {
-    double start_v0 = *v0, start_b = *b;
+    shape_at start = *at;
     int st = GSL_FAILURE;
     if (cfg->method == SL_FIT_METHOD_PROJECTED)
-        st = projected_search(ws, cfg, v0, b, iterations);
-    if (st != GSL_SUCCESS || !solution_finite(ws, *v0, *b)) {
-        *v0 = start_v0;
-        *b = start_b;
-        st = run_full_search(ws, cfg, v0, b, iterations);
+        st = projected_search(ws, cfg, at, iterations);
+    if (st != GSL_SUCCESS || !solution_finite(ws, at)) {
+        *at = start;
+        st = run_full_search(ws, cfg, at, iterations);
     }
-    if (st != GSL_SUCCESS || !solution_finite(ws, *v0, *b))
+    if (st != GSL_SUCCESS || !solution_finite(ws, at))
         return SL_FIT_NO_CONVERGENCE;
     if (ws->k <= 0.0)
         return SL_FIT_POOR;   /* a dip, not a peak */
@@ -628,11 +771,7 @@ static sl_status check_input(const sl_fit_workspace *ws, const sl_fit_config *cf
 sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_config *cfg,
                        const double *vg_V, const double *r_ohm, size_t n_points)
 {
-    memset(out, 0, sizeof *out);
-    set_nan(&out->p);
-    set_nan(&out->sigma);
-    out->rel_rms = out->r_squared = NAN;
-    out->n_points = n_points;
+    clear_result(out, n_points);
     sl_status st = check_input(ws, cfg, vg_V, n_points);
     if (st != SL_OK)
         return st;
@@ -640,15 +779,16 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
         out->cls = SL_FIT_OPEN;
         return SL_OK;
     }
+    ws->two_mobility = cfg->model == SL_FIT_MODEL_TWO_MOBILITY;
     if (ensure_solvers(ws, n_points) != SL_OK)
         return SL_ENOMEM;
     prepare(ws, vg_V, r_ohm, n_points);
     out->cls = classify_readings(ws, cfg);
     if (out->cls != SL_FIT_OK)
         return SL_OK;
-    double v0 = 0.0, b = 0.0;
-    choose_start(ws, &v0, &b);
-    out->cls = search(ws, cfg, &v0, &b, &out->iterations);
+    shape_at at = shape_setup(ws->vg[n_points / 2], 0.0, 0.0);
+    choose_start(ws, &at);
+    out->cls = search(ws, cfg, &at, &out->iterations);
     if (out->cls == SL_FIT_NO_CONVERGENCE)
         return SL_OK;
     quality(out, ws);
@@ -656,9 +796,9 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
     if (out->cls == SL_FIT_OK &&
         (out->rel_rms > cfg->poor_max_rel_rms || out->r_squared < cfg->poor_min_r_squared))
         out->cls = SL_FIT_POOR;
-    else if (out->cls == SL_FIT_OK && (v0 < ws->vg[0] || v0 > ws->vg[ws->n - 1]))
+    else if (out->cls == SL_FIT_OK && (at.v0 < ws->vg[0] || at.v0 > ws->vg[ws->n - 1]))
         out->cls = SL_FIT_CNP_OUTSIDE;
     if (out->cls == SL_FIT_OK)
-        fill_parameters(out, ws, cfg, v0, exp(b));
+        fill_parameters(out, ws, cfg, &at);
     return SL_OK;
 }

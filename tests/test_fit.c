@@ -29,6 +29,14 @@ static sl_fit_config test_config(void)
     return cfg;
 }
 
+/* Mersenne twister with a fixed seed: every run draws the same sweeps. */
+static gsl_rng *seeded_rng(unsigned long seed)
+{
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, seed);
+    return rng;
+}
+
 static void sweep_voltages(double *vg_V)
 {
     for (size_t i = 0; i < N_SWEEP; i++)
@@ -55,6 +63,17 @@ static sl_fit_params draw_truth(gsl_rng *rng)
     p.n0_per_cm2 = exp(gsl_ran_flat(rng, log(5e10), log(5e11)));
     p.r_contact_ohm = gsl_ran_flat(rng, 100.0, 2000.0);
     return p;
+}
+
+/* Pulls (fit - truth) / sigma of honest standard errors have SD 1. Loose
+ * bound 0.8..1.25: with some hundred devices the SD's own sampling error is
+ * a few percent, the rest allows for the first-order covariance. */
+static void assert_pulls_honest(const double *const *pulls, size_t count, size_t n)
+{
+    for (size_t j = 0; j < count; j++) {
+        double sd = gsl_stats_sd(pulls[j], 1, n);
+        ck_assert_msg(sd > 0.8 && sd < 1.25, "pull SD of parameter %zu is %g", j, sd);
+    }
 }
 
 START_TEST(model_matches_hand_value)
@@ -110,6 +129,12 @@ START_TEST(noise_free_recovers_exactly)
         ck_assert_double_eq_tol(res.p.r_contact_ohm, p->r_contact_ohm,
                                 1e-6 * p->r_contact_ohm);
         ck_assert(res.rel_rms < 1e-9);
+        /* The symmetric model has one mobility for both carriers. */
+        ck_assert(res.electron_mobility_cm2_per_Vs.val == res.p.mobility_cm2_per_Vs);
+        ck_assert_double_eq_tol(res.hole_mobility_cm2_per_Vs.sigma, res.sigma.mobility_cm2_per_Vs,
+                                1e-12 * res.sigma.mobility_cm2_per_Vs);
+        ck_assert(res.electron_hole_mobility_ratio.val == 1.0);
+        ck_assert(res.electron_hole_mobility_ratio.sigma == 0.0);
     }
     sl_fit_workspace_free(ws);
 }
@@ -123,8 +148,7 @@ START_TEST(noisy_population_recovered)
     enum { N_DEV = 1000 };
     sl_fit_config cfg = test_config();
     sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 20261201);
+    gsl_rng *rng = seeded_rng(20261201);
     double vg[N_SWEEP], r[N_SWEEP];
     static double pull_v[N_DEV], pull_mu[N_DEV], pull_n0[N_DEV], pull_rc[N_DEV];
     sweep_voltages(vg);
@@ -147,12 +171,8 @@ START_TEST(noisy_population_recovered)
             good++;
     }
     ck_assert_msg(good >= 990, "only %d of %d within tolerance", good, N_DEV);
-    /* Loose bound 0.8..1.25 on the pull SD: with ~1000 devices its sampling
-     * error is about 2 %, the rest allows for the first-order covariance. */
-    double sd[4] = { gsl_stats_sd(pull_v, 1, (size_t)fitted), gsl_stats_sd(pull_mu, 1, (size_t)fitted),
-                     gsl_stats_sd(pull_n0, 1, (size_t)fitted), gsl_stats_sd(pull_rc, 1, (size_t)fitted) };
-    for (int j = 0; j < 4; j++)
-        ck_assert_msg(sd[j] > 0.8 && sd[j] < 1.25, "pull SD %d is %g", j, sd[j]);
+    const double *pulls[] = { pull_v, pull_mu, pull_n0, pull_rc };
+    assert_pulls_honest(pulls, 4, (size_t)fitted);
     gsl_rng_free(rng);
     sl_fit_workspace_free(ws);
 }
@@ -164,8 +184,7 @@ START_TEST(contact_resistance_at_bound)
 {
     sl_fit_config cfg = test_config();
     sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 5);
+    gsl_rng *rng = seeded_rng(5);
     double vg[N_SWEEP], r[N_SWEEP];
     sweep_voltages(vg);
     int at_bound = 0;
@@ -192,11 +211,12 @@ END_TEST
  * exactly on a noise-free curve). */
 START_TEST(full_search_agrees_with_projection)
 {
-    sl_fit_config projected = test_config(), full = projected;
+    sl_fit_config projected = test_config();
+    projected.model = (sl_fit_model)_i;   /* loop test over both models */
+    sl_fit_config full = projected;
     full.method = SL_FIT_METHOD_FULL;
     sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 23);
+    gsl_rng *rng = seeded_rng(23);
     double vg[N_SWEEP], r[N_SWEEP];
     sweep_voltages(vg);
     for (int k = 0; k < 80; k++) {
@@ -215,6 +235,110 @@ START_TEST(full_search_agrees_with_projection)
                           k, j, pa[j], pb[j]);
         }
         ck_assert_double_eq_tol(a.rel_rms, b.rel_rms, 1e-6 * a.rel_rms + 1e-9);
+        double ratio_tol = k == 0 ? 1e-6 : 0.05 * a.electron_hole_mobility_ratio.sigma;
+        ck_assert(fabs(a.electron_hole_mobility_ratio.val - b.electron_hole_mobility_ratio.val) <=
+                  ratio_tol);
+    }
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+/* The two-mobility model against its defining formula, written out here
+ * from the header: n, p = (n_t +- n_g)/2, R = R_c + (L/W)/(e (n mu_e + p mu_h)). */
+START_TEST(two_mobility_model_formula)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_params p = { 5.0, 1000.0, 1e11, 300.0 };
+    const double ratios[] = { 1.0, 2.0, 0.3 }, vgs[] = { -35.0, 5.0, 5.3, 40.0 };
+    for (size_t a = 0; a < 3; a++) {
+        double mu_e = 0.1 * sqrt(ratios[a]), mu_h = 0.1 / sqrt(ratios[a]);   /* m^2/Vs */
+        for (size_t b = 0; b < 4; b++) {
+            double ng = cfg.gate_capacitance_F_per_m2 * (vgs[b] - 5.0) / SL_SI_ELEMENTARY_CHARGE;
+            double nt = sqrt(1e15 * 1e15 + ng * ng), n = 0.5 * (nt + ng), h = 0.5 * (nt - ng);
+            double expect = 300.0 + 2.0 / (SL_SI_ELEMENTARY_CHARGE * (n * mu_e + h * mu_h));
+            double got = sl_fit_model_two_mobility_ohm(&p, ratios[a], &cfg, vgs[b]);
+            ck_assert_double_eq_tol(got, expect, 1e-12 * expect);
+        }
+    }
+    for (size_t b = 0; b < 4; b++)
+        ck_assert(sl_fit_model_two_mobility_ohm(&p, 1.0, &cfg, vgs[b]) ==
+                  sl_fit_model_ohm(&p, &cfg, vgs[b]));
+}
+END_TEST
+
+/* Asymmetric devices (mu_e / mu_h from 0.5 to 2): the two-mobility fit finds
+ * both mobilities within 5 % and V_cnp within 0.05 V for at least 99 %, with
+ * honest standard errors (pull SD near 1, as in noisy_population_recovered). */
+START_TEST(two_mobility_population)
+{
+    enum { N_DEV = 400 };
+    sl_fit_config cfg = test_config();
+    cfg.model = SL_FIT_MODEL_TWO_MOBILITY;
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = seeded_rng(31);
+    double vg[N_SWEEP], r[N_SWEEP];
+    static double pull_e[N_DEV], pull_h[N_DEV], pull_ratio[N_DEV];
+    sweep_voltages(vg);
+    int good = 0, fitted = 0;
+    for (int k = 0; k < N_DEV; k++) {
+        sl_fit_params p = draw_truth(rng);
+        double ratio = exp(gsl_ran_flat(rng, log(0.5), log(2.0)));
+        double mu_e = p.mobility_cm2_per_Vs * sqrt(ratio), mu_h = p.mobility_cm2_per_Vs / sqrt(ratio);
+        for (size_t i = 0; i < N_SWEEP; i++)
+            r[i] = sl_fit_model_two_mobility_ohm(&p, ratio, &cfg, vg[i]) *
+                   (1.0 + gsl_ran_gaussian(rng, NOISE_REL));
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+        if (res.cls != SL_FIT_OK)
+            continue;
+        sl_est e = res.electron_mobility_cm2_per_Vs, h = res.hole_mobility_cm2_per_Vs;
+        pull_e[fitted] = (e.val - mu_e) / e.sigma;
+        pull_h[fitted] = (h.val - mu_h) / h.sigma;
+        pull_ratio[fitted] = (res.electron_hole_mobility_ratio.val - ratio) /
+                             res.electron_hole_mobility_ratio.sigma;
+        fitted++;
+        good += fabs(e.val / mu_e - 1.0) <= 0.05 && fabs(h.val / mu_h - 1.0) <= 0.05 &&
+                fabs(res.p.cnp_V - p.cnp_V) <= 0.05;
+    }
+    ck_assert_msg(good >= N_DEV * 99 / 100, "only %d of %d within tolerance", good, N_DEV);
+    const double *pulls[] = { pull_e, pull_h, pull_ratio };
+    assert_pulls_honest(pulls, 3, (size_t)fitted);
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+/* On a device with mu_e = 2 mu_h the symmetric model leaves a systematic
+ * misfit the two-mobility one removes (its residual falls to the 0.5 %
+ * noise); on a symmetric device the two-mobility fit finds a ratio
+ * consistent with 1. */
+START_TEST(two_mobility_fits_asymmetric_curves_better)
+{
+    sl_fit_config sym = test_config(), two = sym;
+    two.model = SL_FIT_MODEL_TWO_MOBILITY;
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = seeded_rng(37);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    sl_fit_params p = { 4.0, 2000.0, 1.5e11, 600.0 };
+    for (size_t i = 0; i < N_SWEEP; i++)
+        r[i] = sl_fit_model_two_mobility_ohm(&p, 2.0, &sym, vg[i]) *
+               (1.0 + gsl_ran_gaussian(rng, NOISE_REL));
+    sl_fit_result a, b;
+    ck_assert_int_eq(sl_fit_sweep(&a, ws, &sym, vg, r, N_SWEEP), SL_OK);
+    ck_assert_int_eq(sl_fit_sweep(&b, ws, &two, vg, r, N_SWEEP), SL_OK);
+    ck_assert_int_eq(b.cls, SL_FIT_OK);
+    ck_assert(a.rel_rms > 3.0 * b.rel_rms);
+    ck_assert(b.rel_rms < 1.2 * NOISE_REL);
+    ck_assert(fabs(b.electron_hole_mobility_ratio.val - 2.0) < 3.0 * b.electron_hole_mobility_ratio.sigma);
+    for (int k = 0; k < 30; k++) {
+        sl_fit_params q = draw_truth(rng);
+        synth(r, vg, &q, &sym, rng, NOISE_REL);
+        ck_assert_int_eq(sl_fit_sweep(&b, ws, &two, vg, r, N_SWEEP), SL_OK);
+        ck_assert_int_eq(b.cls, SL_FIT_OK);
+        ck_assert(fabs(b.electron_hole_mobility_ratio.val - 1.0) <
+                  4.0 * b.electron_hole_mobility_ratio.sigma);
     }
     gsl_rng_free(rng);
     sl_fit_workspace_free(ws);
@@ -235,8 +359,7 @@ static sl_fit_class classify(const double *r, const double *vg)
 
 START_TEST(short_device)
 {
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 7);
+    gsl_rng *rng = seeded_rng(7);
     double vg[N_SWEEP], r[N_SWEEP];
     sweep_voltages(vg);
     for (size_t i = 0; i < N_SWEEP; i++)
@@ -270,8 +393,7 @@ END_TEST
 START_TEST(cnp_outside_sweep)
 {
     sl_fit_config cfg = test_config();
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 11);
+    gsl_rng *rng = seeded_rng(11);
     double vg[N_SWEEP], r[N_SWEEP];
     sweep_voltages(vg);
     const double outside_V[] = { 55.0, -70.0, 41.0 };
@@ -286,8 +408,7 @@ END_TEST
 
 START_TEST(noise_only_is_not_fitted)
 {
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 13);
+    gsl_rng *rng = seeded_rng(13);
     double vg[N_SWEEP], r[N_SWEEP];
     sweep_voltages(vg);
     for (int t = 0; t < 20; t++) {
@@ -306,8 +427,7 @@ START_TEST(unsorted_points_same_result)
 {
     sl_fit_config cfg = test_config();
     sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 17);
+    gsl_rng *rng = seeded_rng(17);
     sl_fit_params p = { -4.0, 3000.0, 2e11, 700.0 };
     double vg[N_SWEEP], r[N_SWEEP], vg_rev[N_SWEEP], r_rev[N_SWEEP];
     sweep_voltages(vg);
@@ -335,8 +455,7 @@ START_TEST(double_sweep_with_hysteresis)
 {
     sl_fit_config cfg = test_config();
     sl_fit_workspace *ws = sl_fit_workspace_new(2 * N_SWEEP);
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 19);
+    gsl_rng *rng = seeded_rng(19);
     sl_fit_params fwd = { 6.0, 2200.0, 1.5e11, 800.0 }, back = fwd;
     back.cnp_V += 0.2;
     double vg[2 * N_SWEEP], r[2 * N_SWEEP];
@@ -365,8 +484,7 @@ START_TEST(coarse_sweeps)
     enum { N_COARSE = 21, N_DEV = 300 };
     sl_fit_config cfg = test_config();
     sl_fit_workspace *ws = sl_fit_workspace_new(N_COARSE);
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 29);
+    gsl_rng *rng = seeded_rng(29);
     double vg[N_COARSE], r[N_COARSE];
     for (size_t i = 0; i < N_COARSE; i++)
         vg[i] = VG_MIN_V + 4.0 * (double)i;
@@ -443,7 +561,11 @@ static Suite *fit_suite(void)
     tcase_add_test(tc, noise_free_recovers_exactly);
     tcase_add_test(tc, noisy_population_recovered);
     tcase_add_test(tc, contact_resistance_at_bound);
-    tcase_add_test(tc, full_search_agrees_with_projection);
+    tcase_add_loop_test(tc, full_search_agrees_with_projection, SL_FIT_MODEL_SYMMETRIC,
+                        SL_FIT_MODEL_TWO_MOBILITY + 1);
+    tcase_add_test(tc, two_mobility_model_formula);
+    tcase_add_test(tc, two_mobility_population);
+    tcase_add_test(tc, two_mobility_fits_asymmetric_curves_better);
     tcase_add_test(tc, short_device);
     tcase_add_test(tc, open_device);
     tcase_add_test(tc, cnp_outside_sweep);

@@ -10,6 +10,7 @@
 #include <stddef.h>
 
 #include "splitlot/error.h"
+#include "splitlot/units.h"
 
 /* What a sweep turned out to be. Only SL_FIT_OK carries fitted parameters. */
 typedef enum {
@@ -41,6 +42,13 @@ typedef enum {
                                     mu and n0 through logarithms) */
 } sl_fit_method;
 
+/* Which transfer-curve model is fitted. */
+typedef enum {
+    SL_FIT_MODEL_SYMMETRIC = 0, /* one mobility for electrons and holes */
+    SL_FIT_MODEL_TWO_MOBILITY   /* electrons and holes each with their own mobility
+                                   (see sl_fit_model_two_mobility_ohm) */
+} sl_fit_model;
+
 /* Device geometry, gate and classification thresholds. */
 typedef struct {
     double gate_capacitance_F_per_m2; /* C_g per area, > 0 */
@@ -54,6 +62,7 @@ typedef struct {
     double poor_min_r_squared;  /* R^2 below: poor (default 0.9) */
     int max_iterations;         /* trust-region iterations per search (100) */
     sl_fit_method method;       /* default SL_FIT_METHOD_PROJECTED */
+    sl_fit_model model;         /* default SL_FIT_MODEL_SYMMETRIC */
 } sl_fit_config;
 
 /* Defaults for a channel of the given size on a gate of capacitance C_g.
@@ -77,8 +86,14 @@ typedef struct {
  * rel_rms and r_squared are set when a fit was made (else NaN). */
 typedef struct {
     sl_fit_class cls;
-    sl_fit_params p;
+    sl_fit_params p;       /* mobility: the geometric mean sqrt(mu_e mu_h) */
     sl_fit_params sigma;   /* one-standard-error of each parameter */
+    /* Electron and hole mobilities and their ratio mu_e / mu_h, with standard
+     * errors; in the symmetric model both equal p.mobility and the ratio is
+     * {1, 0}. NaN unless SL_FIT_OK. */
+    sl_est electron_mobility_cm2_per_Vs;
+    sl_est hole_mobility_cm2_per_Vs;
+    sl_est electron_hole_mobility_ratio;
     double rel_rms;        /* RMS of (R_meas - R_fit) / R_meas */
     double r_squared;      /* 1 - SS_res / SS_tot on resistance */
     int iterations;        /* trust-region iterations spent */
@@ -105,6 +120,7 @@ void sl_fit_workspace_free(sl_fit_workspace *ws);
  * region with the Kaufman Jacobian; residuals are relative (weight 1/R), as
  * meter errors scale with the reading. Standard errors come from the full
  * four-parameter covariance scaled by the residual variance.
+ * The two-mobility model adds ln(mu_e / mu_h) to the nonlinear search.
  * Returns SL_OK with *out filled (check out->cls), SL_EINPUT for fewer than
  * SL_FIT_MIN_POINTS or more than the workspace's points, a non-finite gate
  * voltage, a sweep without two distinct voltages, or a bad config; SL_ENOMEM. */
@@ -114,5 +130,16 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
 /* The model resistance in ohm at gate voltage vg_V (for simulation and
  * report curves). */
 double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V);
+
+/* The two-mobility variant: electrons and holes take the densities
+ * n, p = (n_t +- n_g) / 2 of n_t = sqrt(n0^2 + n_g^2) (n - p = n_g as the
+ * gate demands; the split of the residual n0 evenly between them is this
+ * program's phenomenological choice, not a published law) and conduct in
+ * parallel: R = R_c + (L/W) / (e (n mu_e + p mu_h)). With mu = p->mobility
+ * the geometric mean and ratio = mu_e / mu_h (> 0):
+ * n mu_e + p mu_h = n_t mu (cosh(ln(ratio)/2) + (n_g/n_t) sinh(ln(ratio)/2)).
+ * Ratio 1 gives sl_fit_model_ohm exactly. */
+double sl_fit_model_two_mobility_ohm(const sl_fit_params *p, double electron_hole_mobility_ratio,
+                                     const sl_fit_config *cfg, double vg_V);
 
 #endif

@@ -150,6 +150,9 @@ static int bench_fits(void)
     bench_method(&cfg, vg, r, "projected");
     cfg.method = SL_FIT_METHOD_FULL;
     bench_method(&cfg, vg, r, "full");
+    cfg.method = SL_FIT_METHOD_PROJECTED;
+    cfg.model = SL_FIT_MODEL_TWO_MOBILITY;
+    bench_method(&cfg, vg, r, "two-mobility");
     free(r);
     return 0;
 }
