@@ -62,6 +62,20 @@ void sl_report_cell_fixed(sl_chart_buf *buf, double value, int decimals)
     sl_chart_buf_append(buf, "</td>");
 }
 
+void sl_report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
+                          const char *suffix_html)
+{
+    sl_chart_buf_append(buf, "<td class=\"num\">");
+    if (isfinite(lo) && isfinite(hi)) {
+        put_fixed(buf, lo, decimals);
+        sl_chart_buf_append(buf, " &ndash; ");
+        put_fixed(buf, hi, decimals);
+    } else {
+        sl_chart_buf_append(buf, "n/a");
+    }
+    sl_chart_buf_printf(buf, "%s</td>", suffix_html ? suffix_html : "");
+}
+
 void sl_report_cell_density(sl_chart_buf *buf, double value_per_cm2)
 {
     sl_chart_buf_append(buf, "<td class=\"num\">");

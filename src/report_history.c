@@ -9,7 +9,7 @@
 
 #include "report_internal.h"
 
-#define HISTORY_WIDTH_PX 420.0
+#define HISTORY_WIDTH_PX 460.0
 #define HISTORY_HEIGHT_PX 260.0
 
 static int chartable(const sl_history_level *l)
@@ -37,7 +37,10 @@ static void level_chart(report_ctx *c, const sl_history_level *l)
     sl_chart_frame frame;
     sl_chart_frame_default(&frame, HISTORY_WIDTH_PX, HISTORY_HEIGHT_PX, title);
     frame.embed_style = 0;
-    frame.margin_bottom_px = 64.0;
+    frame.margin_left_px = 80.0;  /* tick labels like "-1.5e12" beside the axis title */
+    frame.margin_right_px = 40.0; /* limit labels like "upper -1.805e+12" */
+    if (l->n_points > 6)
+        frame.margin_bottom_px = 64.0; /* lot names may slant */
     sl_chart_buf_append(c->buf, "<figure class=\"history\">");
     sl_chart_control(c->buf, &frame, values, labels, l->n_points, l->chart.center, l->chart.lcl,
                      l->chart.ucl, "lot", "doping (cm\xe2\x81\xbb\xc2\xb2)");

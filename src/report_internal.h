@@ -30,6 +30,10 @@ extern const char sl_report_per_cm2_html[];
 /* A table cell with a number of the given decimals (class "num"). */
 void sl_report_cell_fixed(sl_chart_buf *buf, double value, int decimals);
 void sl_report_cell_density(sl_chart_buf *buf, double value_per_cm2);
+/* "lo &ndash; hi" with the given decimals and an optional HTML suffix;
+ * "n/a" when a bound is non-finite. */
+void sl_report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
+                          const char *suffix_html);
 void sl_report_cell_text(sl_chart_buf *buf, const char *text);
 void sl_report_cell_long(sl_chart_buf *buf, long value);
 /* Open <section id="id"> with its <h2> heading (escaped). */

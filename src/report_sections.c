@@ -199,7 +199,7 @@ static void effects_chart(report_ctx *c)
     double width = fmin(fmax(420.0, 120.0 + 110.0 * (double)n), 900.0);
     sl_chart_frame_default(&frame, width, 340.0, "Doping per level: planned and estimated");
     frame.embed_style = 0;
-    frame.margin_bottom_px = 70.0;
+    frame.margin_left_px = 80.0; /* tick labels like "-1.5e12" beside the axis title */
     sl_chart_buf_append(c->buf, "<figure class=\"effects\">");
     sl_chart_effects(c->buf, &frame, levels, n, 1.0, "doping (cm\xe2\x81\xbb\xc2\xb2)");
     sl_chart_buf_append(c->buf, "</figure>\n");

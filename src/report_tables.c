@@ -26,16 +26,6 @@ static const char *const split_headings[] = {
     "SD (V)", "95&nbsp;% CI (V)", "bias (V)", "gate range (V)", "flagged",
 };
 
-static void split_ci_cell(sl_chart_buf *buf, const sl_analyze_split *sp)
-{
-    sl_chart_buf_append(buf, "<td class=\"num\">");
-    if (sp->n_usable >= 2 && isfinite(sp->cnp.ci_low) && isfinite(sp->cnp.ci_high))
-        sl_chart_buf_printf(buf, "%.2f &ndash; %.2f", sp->cnp.ci_low, sp->cnp.ci_high);
-    else
-        sl_chart_buf_append(buf, "n/a");
-    sl_chart_buf_append(buf, "</td>");
-}
-
 static int split_mean_outside(const sl_analysis *a, size_t s)
 {
     double mean = a->splits[s].cnp.mean;
@@ -54,10 +44,13 @@ static void split_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
     sl_report_cell_fixed(buf, sp->cnp_predicted_sigma_V, 2);
     sl_report_cell_fixed(buf, sp->cnp.mean, 2);
     sl_report_cell_fixed(buf, sp->cnp.sd, 2);
-    split_ci_cell(buf, sp);
+    if (sp->n_usable >= 2)
+        sl_report_cell_range(buf, sp->cnp.ci_low, sp->cnp.ci_high, 2, NULL);
+    else
+        sl_report_cell_range(buf, NAN, NAN, 2, NULL);
     sl_report_cell_fixed(buf, sp->bias_V, 2);
-    sl_chart_buf_printf(buf, "<td class=\"num\">%.1f &ndash; %.1f%s</td>", a->split_gate_min_V[s],
-                        a->split_gate_max_V[s], outside ? " (mean outside)" : "");
+    sl_report_cell_range(buf, a->split_gate_min_V[s], a->split_gate_max_V[s], 1,
+                         outside ? " (mean outside)" : NULL);
     sl_report_cell_long(buf, (long)sp->n_flagged);
     sl_chart_buf_append(buf, "</tr>\n");
 }
