@@ -264,8 +264,10 @@ static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n
             free(*r ? *r : r0);
             st = SL_ENOMEM;
         } else {
-            memcpy(*vg + n0, vg1, n1 * sizeof **vg);
-            memcpy(*r + n0, r1, n1 * sizeof **r);
+            if (n1) { /* vg1 is NULL without staged rows: no memcpy from NULL */
+                memcpy(*vg + n0, vg1, n1 * sizeof **vg);
+                memcpy(*r + n0, r1, n1 * sizeof **r);
+            }
             *n = n0 + n1;
         }
     } else {
