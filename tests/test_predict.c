@@ -396,6 +396,7 @@ static Suite *predict_suite(void)
 {
     Suite *s = suite_create("predict");
     TCase *tc = tcase_create("predict");
+    tcase_set_timeout(tc, 300);
     tcase_add_test(tc, single_layer_by_hand);
     tcase_add_test(tc, two_layers_by_hand);
     tcase_add_test(tc, plan_gate_range_used);

@@ -197,6 +197,7 @@ static Suite *simulate_suite(void)
 {
     Suite *s = suite_create("simulate");
     TCase *tc = tcase_create("simulate");
+    tcase_set_timeout(tc, 300);
     tcase_add_test(tc, seed_reproduces);
     tcase_add_test(tc, true_doping_overrides);
     tcase_add_test(tc, unknown_level_refused);

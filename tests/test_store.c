@@ -510,6 +510,7 @@ static Suite *store_suite(void)
 {
     Suite *s = suite_create("store");
     TCase *tc = tcase_create("store");
+    tcase_set_timeout(tc, 300);
     tcase_add_test(tc, open_creates_schema);
     tcase_add_test(tc, reopen_does_not_migrate_again);
     tcase_add_test(tc, newer_schema_refused);
