@@ -19,6 +19,7 @@
 #define HOSTILE_TITLE_ESCAPED "Split &lt;b&gt;&amp;&quot; lot"
 #define FIXED_DATE "2026-01-02 03:04 UTC"
 #define SHIFT_V 15.0    /* far outside any split's spread of about 0.6 V */
+#define SWEEP_SHIFT_V 4.0 /* an outlier in its split, its neutrality point still swept */
 
 static char *g_dir, *g_db;
 static char *g_html[2];      /* report of DEMO-01 (sweeps) and DEMO-02 (results) */
@@ -94,6 +95,74 @@ static void shift_results(const char *name)
     free(path);
 }
 
+/* "wafer,device" of the first good device of an alox20 split in truth.csv. */
+static void pick_alox20_device(char *key, size_t size, const char *truth_name)
+{
+    char *path = sl_test_path(g_dir, truth_name);
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    key[0] = '\0';
+    for (char *line = strtok(text, "\n"); line && !key[0]; line = strtok(NULL, "\n")) {
+        char wafer[32], device[32], split[64], kind[32];
+        int x, y;
+        if (sscanf(line, "%31[^,],%31[^,],%d,%d,%63[^,],%31[^,]", wafer, device, &x, &y, split,
+                   kind) == 6 && strcmp(split, "alox20") == 0 && strcmp(kind, "good") == 0)
+            snprintf(key, size, "%s,%s,", wafer, device);
+    }
+    ck_assert_msg(key[0] != '\0', "no good alox20 device in %s", truth_name);
+    free(text);
+    free(path);
+}
+
+/* Move one device's whole sweep SWEEP_SHIFT_V up the gate axis: a clean fit
+ * whose neutrality point is an outlier of its split. */
+static void shift_sweep(const char *sweeps_name, const char *truth_name)
+{
+    char key[80];
+    pick_alox20_device(key, sizeof key, truth_name);
+    char *path = sl_test_path(g_dir, sweeps_name);
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    size_t cap = strlen(text) * 2 + 64, n = 0, moved = 0;
+    char *out = malloc(cap);
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n")) {
+        int x, y, used = 0;
+        double vg;
+        if (strncmp(line, key, strlen(key)) == 0
+            && sscanf(line + strlen(key), "%d,%d,%lf%n", &x, &y, &vg, &used) == 3) {
+            n += (size_t)snprintf(out + n, cap - n, "%s%d,%d,%.6f%s\n", key, x, y,
+                                  vg + SWEEP_SHIFT_V, line + strlen(key) + used);
+            moved++;
+        } else {
+            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
+        }
+    }
+    ck_assert_uint_gt(moved, 8);
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    free(out);
+    free(text);
+    free(path);
+}
+
+/* Results of sim2 for three wafers only: fewer wafers than coefficients. */
+static void three_wafer_results(const char *from_name, const char *to_name)
+{
+    char *from = sl_test_path(g_dir, from_name), *to = sl_test_path(g_dir, to_name);
+    char *text = sl_test_read_file(from, NULL);
+    ck_assert_ptr_nonnull(text);
+    char *out = malloc(strlen(text) + 1);
+    size_t n = 0;
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"))
+        if (strncmp(line, "wafer,", 6) == 0 || strncmp(line, "W01,", 4) == 0
+            || strncmp(line, "W02,", 4) == 0 || strncmp(line, "W03,", 4) == 0)
+            n += (size_t)sprintf(out + n, "%s\n", line);
+    ck_assert_int_eq(sl_test_write_file(to, out), 0);
+    free(out);
+    free(text);
+    free(to);
+    free(from);
+}
+
 static char *report_and_compare(int k)
 {
     char name[32];
@@ -111,6 +180,20 @@ static char *report_and_compare(int k)
     return html;
 }
 
+/* DEMO-03: three wafers only, after the other two reports were written. */
+static void build_small_lot(void)
+{
+    write_plan("lot3.yaml", "DEMO-03");
+    three_wafer_results("sim2/results.csv", "small.csv");
+    const char *steps[][10] = {
+        { "predict", "lot3.yaml", "--db", "t.db", NULL },
+        { "ingest", "--lot", "DEMO-03", "--results", "small.csv", "--db", "t.db", NULL },
+        { "report", "--lot", "DEMO-03", "--out", "r3.html", "--db", "t.db", NULL },
+    };
+    for (size_t i = 0; i < sizeof steps / sizeof steps[0]; i++)
+        run_ok(steps[i]);
+}
+
 static void build_lots(void)
 {
     g_dir = sl_test_tmpdir();
@@ -121,19 +204,23 @@ static void build_lots(void)
         { "predict", "lot1.yaml", "--db", "t.db", NULL },
         { "simulate", "lot1.yaml", "--out", "sim1", "--seed", "7", "--true-doping",
           "anneal-350=0.3e12", NULL },
-        { "ingest", "--lot", "DEMO-01", "--sweeps", "sim1/sweeps.csv", "--db", "t.db", NULL },
         { "predict", "lot2.yaml", "--db", "t.db", NULL },
         { "simulate", "lot2.yaml", "--out", "sim2", "--seed", "8", "--no-sweeps",
           "--true-doping", "anneal-350=0.3e12", NULL },
     };
     for (size_t i = 0; i < sizeof steps / sizeof steps[0]; i++)
         run_ok(steps[i]);
+    shift_sweep("sim1/sweeps.csv", "sim1/truth.csv");
     shift_results("sim2/results.csv");
-    const char *ingest2[] = { "ingest", "--lot", "DEMO-02", "--results", "sim2/results.csv",
-                              "--db", "t.db", NULL };
-    run_ok(ingest2);
+    const char *ingest[][12] = {
+        { "ingest", "--lot", "DEMO-01", "--sweeps", "sim1/sweeps.csv", "--db", "t.db", NULL },
+        { "ingest", "--lot", "DEMO-02", "--results", "sim2/results.csv", "--db", "t.db", NULL },
+    };
+    for (size_t i = 0; i < sizeof ingest / sizeof ingest[0]; i++)
+        run_ok(ingest[i]);
     for (int k = 0; k < 2; k++)
         g_html[k] = report_and_compare(k);
+    build_small_lot();
 }
 
 static void remove_lots(void)
@@ -344,8 +431,8 @@ START_TEST(test_one_marker_per_flagged_usable_device)
     lot_view v = view_open(_i, "splits");
     ck_assert_uint_eq(count_in(v.sec, v.end, "class=\"point flagged\""), v.counts.usable_flagged);
     ck_assert_uint_eq(count_in(v.sec, v.end, "class=\"point\""), v.counts.usable_plain);
-    if (_i == 1) /* the three devices moved far off are flagged and usable */
-        ck_assert_uint_ge(v.counts.usable_flagged, 3);
+    /* the devices moved off (one sweep, three results) are flagged and usable */
+    ck_assert_uint_ge(v.counts.usable_flagged, _i == 0 ? 1 : 3);
     /* one strip chart per dielectric */
     ck_assert_uint_eq(count_in(v.sec, v.end, "<figure class=\"strip\">"),
                       v.a->plan->n_dielectrics);
@@ -461,6 +548,42 @@ START_TEST(test_no_curves_when_capped_at_zero)
 }
 END_TEST
 
+/* Every flagged device of DEMO-01 has a sweep; the one moved along the gate
+ * axis was fitted, so its curve has the model beside the points. */
+START_TEST(test_fitted_curve_of_an_outlier)
+{
+    sl_report_options opts;
+    sl_report_options_default(&opts);
+    opts.max_curves = 1000;
+    sl_report_summary s;
+    size_t n_devices, n_dielectrics;
+    char *h = render_demo01(&s, &opts, &n_devices, &n_dielectrics);
+    long flagged = json_number(g_json[0], "flagged");
+    ck_assert_uint_eq(s.n_curves, (size_t)flagged);
+    ck_assert_uint_eq(count(h, "<figure class=\"curve\">"), (size_t)flagged);
+    ck_assert_uint_ge(count(h, ">fitted model</text>"), 1);
+    ck_assert_uint_ge(count(h, "far above its split"), 1);
+    free(h);
+}
+END_TEST
+
+START_TEST(test_effects_note_when_not_estimable)
+{
+    char *path = sl_test_path(g_dir, "r3.html");
+    char *h = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(h);
+    const char *end;
+    const char *sec = section(h, "effects", &end);
+    ck_assert_ptr_nonnull(sec);
+    ck_assert_uint_eq(count_in(sec, end, "<p class=\"note\">effects not estimated: "), 1);
+    ck_assert_uint_eq(count_in(sec, end, "<figure"), 0);
+    ck_assert_ptr_nonnull(strstr(h, "data-verdict=\"off-plan\" data-count=\"0\""));
+    ck_assert_ptr_nonnull(strstr(h, "(effects could not be estimated)"));
+    free(h);
+    free(path);
+}
+END_TEST
+
 START_TEST(test_write_file_is_atomic)
 {
     sl_diag *diag = sl_diag_new();
@@ -541,6 +664,8 @@ static Suite *report_suite(void)
     tcase_add_loop_test(tc, test_off_plan_verdict, 0, 2);
     tcase_add_test(tc, test_curves_of_flagged_devices);
     tcase_add_test(tc, test_history_with_two_lots);
+    tcase_add_test(tc, test_fitted_curve_of_an_outlier);
+    tcase_add_test(tc, test_effects_note_when_not_estimable);
     tcase_add_test(tc, test_render_is_deterministic);
     tcase_add_test(tc, test_no_curves_when_capped_at_zero);
     tcase_add_test(tc, test_write_file_is_atomic);
