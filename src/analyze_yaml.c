@@ -4,6 +4,7 @@
  * plan's reference levels, as baseline, materials, dielectrics and treatments
  * blocks that can be pasted into the next plan.
  */
+#include <ctype.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -59,6 +60,31 @@ static sl_est calibrated(const sl_history *h, size_t factor, size_t level, int *
     return v;
 }
 
+/* A name as a YAML scalar: plain when it is made of letters, digits and
+ * "_-." only (and starts with a letter or digit), else double-quoted with
+ * escapes, so that names with ", ", ": ", " #" or quotes, which a plan may
+ * hold in quotes, come back as the same text. */
+static void emit_name(FILE *out, const char *name)
+{
+    int plain = isalnum((unsigned char)name[0]);
+    for (const char *s = name; plain && *s; s++)
+        plain = isalnum((unsigned char)*s) || strchr("_-.", *s);
+    if (plain) {
+        fputs(name, out);
+        return;
+    }
+    fputc('"', out);
+    for (const unsigned char *s = (const unsigned char *)name; *s; s++) {
+        if (*s == '"' || *s == '\\')
+            fprintf(out, "\\%c", *s);
+        else if (*s < 0x20 || *s == 0x7f)
+            fprintf(out, "\\x%02x", *s);
+        else
+            fputc(*s, out);
+    }
+    fputc('"', out);
+}
+
 static void emit_doping(FILE *out, sl_est v)
 {
     fprintf(out, "{ mean: %.4g, sigma: %.4g }", v.val, fabs(v.sigma));
@@ -92,8 +118,10 @@ static void emit_materials(FILE *out, const sl_plan *p)
             continue;
         if (!any++)
             fprintf(out, "materials:\n");
-        fprintf(out, "  - { name: %s, relative_permittivity: %.6g, breakdown_MV_per_cm: %.6g }\n",
-                m->name, m->relative_permittivity, m->breakdown_MV_per_cm);
+        fputs("  - { name: ", out);
+        emit_name(out, m->name);
+        fprintf(out, ", relative_permittivity: %.6g, breakdown_MV_per_cm: %.6g }\n",
+                m->relative_permittivity, m->breakdown_MV_per_cm);
     }
 }
 
@@ -114,10 +142,15 @@ static void emit_dielectrics(FILE *out, const sl_history *h)
         long level = level_of(&p->factors[0], (long)d);
         int measured = 0;
         sl_est v = level >= 0 ? calibrated(h, 0, (size_t)level, &measured) : di->doping_per_cm2;
-        fprintf(out, "  - name: %s\n    layers:\n", di->name);
-        for (size_t i = 0; i < di->n_layers; i++)
-            fprintf(out, "      - { material: %s, thickness_nm: %.6g, sigma_nm: %.6g }\n",
-                    di->layers[i].material, di->layers[i].thickness_nm, di->layers[i].sigma_nm);
+        fputs("  - name: ", out);
+        emit_name(out, di->name);
+        fputs("\n    layers:\n", out);
+        for (size_t i = 0; i < di->n_layers; i++) {
+            fputs("      - { material: ", out);
+            emit_name(out, di->layers[i].material);
+            fprintf(out, ", thickness_nm: %.6g, sigma_nm: %.6g }\n", di->layers[i].thickness_nm,
+                    di->layers[i].sigma_nm);
+        }
         fprintf(out, "    doping_per_cm2: ");
         emit_doping(out, v);
         fprintf(out, "%s\n", measured ? "" : level == 0 ? "   # reference level: planned value"
@@ -141,7 +174,9 @@ static void emit_treatments(FILE *out, const sl_history *h)
             if (level >= 0)
                 v = calibrated(h, f, (size_t)level, &measured);
         }
-        fprintf(out, "  - { name: %s, doping_per_cm2: ", p->treatments[t].name);
+        fputs("  - { name: ", out);
+        emit_name(out, p->treatments[t].name);
+        fputs(", doping_per_cm2: ", out);
         emit_doping(out, v);
         fprintf(out, " }%s\n", measured ? "" : "   # not measured: planned value");
     }
