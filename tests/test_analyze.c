@@ -470,12 +470,11 @@ START_TEST(test_history_flags_drift)
 }
 END_TEST
 
-/* The demo plan without the blocks --emit-yaml writes, then the emitted YAML. */
-static char *plan_with_calibration(const char *yaml)
+/* A plan without the blocks --emit-yaml writes, then the emitted YAML. */
+static char *plan_with_calibration(const char *path, const char *yaml)
 {
     static const char *const dropped[] = { "baseline_doping_per_cm2:", "dielectrics:",
                                            "treatments:", "materials:" };
-    char *path = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
     char *text = sl_test_read_file(path, NULL);
     ck_assert(text != NULL);
     size_t cap = strlen(text) + strlen(yaml) + 2, n = 0;
@@ -497,7 +496,6 @@ static char *plan_with_calibration(const char *yaml)
     }
     snprintf(out + n, cap - n, "%s", yaml);
     free(text);
-    free(path);
     return out;
 }
 
@@ -516,7 +514,9 @@ START_TEST(test_emit_yaml_round_trip)
     ck_assert(strstr(y.out, "baseline_doping_per_cm2:") && strstr(y.out, "\ndielectrics:\n") &&
               strstr(y.out, "\ntreatments:\n"));
 
-    char *plan = plan_with_calibration(y.out);
+    char *demo = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *plan = plan_with_calibration(demo, y.out);
+    free(demo);
     ck_assert(strstr(plan, "mean: 1.2e12") == NULL); /* the planned anneal is gone */
     char *plan_path = sl_test_path(dir, "next.yaml");
     ck_assert_int_eq(sl_test_write_file(plan_path, plan), 0);
@@ -550,6 +550,42 @@ START_TEST(test_emit_yaml_round_trip)
 }
 END_TEST
 
+/* Names a plan may hold in quotes come back from --emit-yaml as the same
+ * text (tests/data/analyze/odd-names.yaml: ", ", ": ", " #", '"'). */
+START_TEST(test_emit_yaml_quotes_names)
+{
+    char *dir = sl_test_tmpdir(), *source = sl_test_data("analyze/odd-names.yaml");
+    const char *predict[] = { "predict", source, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *simulate[] = { "simulate", source, "--out", "sim", "--no-sweeps", NULL };
+    run_quiet(dir, simulate);
+    const char *ingest[] = { "ingest", "--lot", "ODD-01", "--results", "sim/results.csv",
+                             "--db", "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *emit[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
+    sl_run_result y = run_ok(dir, emit);
+    ck_assert_msg(strstr(y.out, "\n  - name: \"alox: 20\"\n") &&
+                      strstr(y.out, "\n  - { name: \"anneal 350, N2\", doping_per_cm2: ") &&
+                      strstr(y.out, "\n  - { name: \"cap #2\", doping_per_cm2: ") &&
+                      strstr(y.out, "{ material: \"hBN, \\\"exfoliated\\\"\", thickness_nm: 5,") &&
+                      strstr(y.out, "\n  - { name: \"hBN, \\\"exfoliated\\\"\", relative_permittivity: 3.4,"),
+                  "%s", y.out);
+    char *plan = plan_with_calibration(source, y.out), *path = sl_test_path(dir, "next.yaml");
+    ck_assert_int_eq(sl_test_write_file(path, plan), 0);
+    /* the same splits, named from the same level names */
+    const char *layout[] = { "layout", "next.yaml", "--format", "json", NULL };
+    sl_run_result l = run_ok(dir, layout);
+    ck_assert_msg(strstr(l.out, "\"split\": \"alox: 20+anneal 350, N2+cap #2\"") != NULL, "%s", l.out);
+    sl_run_result_free(&l);
+    free(path);
+    free(plan);
+    sl_run_result_free(&y);
+    free(source);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 static Suite *analyze_suite(void)
 {
     Suite *s = suite_create("analyze");
@@ -562,6 +598,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(lots, test_end_to_end_off_plan_and_faults);
     tcase_add_test(lots, test_history_flags_drift);
     tcase_add_test(lots, test_emit_yaml_round_trip);
+    tcase_add_test(lots, test_emit_yaml_quotes_names);
     suite_add_tcase(s, lots);
     return s;
 }
