@@ -37,65 +37,92 @@ static void run_ok(const char *const *argv)
     sl_run_result_free(&r);
 }
 
+/* An edit of one line: write the replacement into out (cap bytes, with its
+ * newline) and return 1; return 0 to keep the line, -1 to drop it. */
+typedef int (*line_edit)(char *out, size_t cap, const char *line, size_t row, void *ctx);
+
+/* Copy a text file line by line through edit; returns the lines edited. */
+static size_t edit_lines(const char *from_path, const char *to_path, line_edit edit, void *ctx)
+{
+    char *text = sl_test_read_file(from_path, NULL);
+    ck_assert_msg(text != NULL, "cannot read %s", from_path);
+    size_t cap = strlen(text) * 2 + 4096, n = 0, edited = 0, row = 0;
+    char *out = malloc(cap);
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"), row++) {
+        int r = edit(out + n, cap - n, line, row, ctx);
+        if (r == 0)
+            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
+        else if (r > 0) {
+            n += strlen(out + n);
+            edited++;
+        }
+    }
+    out[n] = '\0';
+    ck_assert_int_eq(sl_test_write_file(to_path, out), 0);
+    free(out);
+    free(text);
+    return edited;
+}
+
+/* The same inside the scratch folder. */
+static size_t edit_scratch(const char *from_name, const char *to_name, line_edit edit, void *ctx)
+{
+    char *from = sl_test_path(g_dir, from_name), *to = sl_test_path(g_dir, to_name);
+    size_t edited = edit_lines(from, to, edit, ctx);
+    free(to);
+    free(from);
+    return edited;
+}
+
+static int plan_line(char *out, size_t cap, const char *line, size_t row, void *lot)
+{
+    (void)row;
+    if (strncmp(line, "title:", 6) == 0)
+        return snprintf(out, cap, "title: '%s'\n", HOSTILE_TITLE) > 0;
+    if (strncmp(line, "lot:", 4) == 0)
+        return snprintf(out, cap, "lot: %s\n", (const char *)lot) > 0;
+    return 0;
+}
+
 /* The demo plan with the hostile title and the given lot name. */
 static void write_plan(const char *name, const char *lot)
 {
     char *demo = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
-    char *text = sl_test_read_file(demo, NULL);
-    ck_assert_ptr_nonnull(text);
-    size_t cap = strlen(text) + 256, n = 0;
-    char *out = malloc(cap);
-    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n")) {
-        if (strncmp(line, "title:", 6) == 0)
-            n += (size_t)snprintf(out + n, cap - n, "title: '%s'\n", HOSTILE_TITLE);
-        else if (strncmp(line, "lot:", 4) == 0)
-            n += (size_t)snprintf(out + n, cap - n, "lot: %s\n", lot);
-        else
-            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
-    }
     char *path = sl_test_path(g_dir, name);
-    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    ck_assert_uint_eq(edit_lines(demo, path, plan_line, (void *)lot), 2);
     free(path);
-    free(out);
-    free(text);
     free(demo);
 }
 
-/* Move the neutrality voltage of three measured devices SHIFT_V up. */
-static void shift_results(const char *name)
+/* Three measured devices spread over the lot, SHIFT_V up; rows without a
+ * value (unmeasured) do not count. */
+typedef struct {
+    size_t next_row;
+    int shifted;
+} result_shift;
+
+static int result_line(char *out, size_t cap, const char *line, size_t row, void *ctx)
 {
-    char *path = sl_test_path(g_dir, name);
-    char *text = sl_test_read_file(path, NULL);
-    ck_assert_ptr_nonnull(text);
-    size_t cap = strlen(text) + 4096, n = 0;
-    char *out = malloc(cap);
-    int row = 0, shifted = 0, next_row = 97;
-    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"), row++) {
-        char wafer[32], device[32];
-        int x, y;
-        double v;
-        const char *rest = NULL;
-        int used = 0;
-        /* spread over the lot; rows without a value (unmeasured) are skipped */
-        if (row >= next_row && shifted < 3
-            && sscanf(line, "%31[^,],%31[^,],%d,%d,%lf%n", wafer, device, &x, &y, &v, &used) == 5) {
-            rest = line + used;
-            next_row = row + 97;
-            n += (size_t)snprintf(out + n, cap - n, "%s,%s,%d,%d,%.4f%s\n", wafer, device, x, y,
-                                  v + SHIFT_V, rest);
-            shifted++;
-        } else {
-            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
-        }
-    }
-    ck_assert_int_eq(shifted, 3);
-    ck_assert_int_eq(sl_test_write_file(path, out), 0);
-    free(out);
-    free(text);
-    free(path);
+    result_shift *rs = ctx;
+    char wafer[32], device[32];
+    int x, y, used = 0;
+    double v;
+    if (rs->shifted == 3 || row < rs->next_row
+        || sscanf(line, "%31[^,],%31[^,],%d,%d,%lf%n", wafer, device, &x, &y, &v, &used) != 5)
+        return 0;
+    rs->next_row = row + 97;
+    rs->shifted++;
+    return snprintf(out, cap, "%s,%s,%d,%d,%.4f%s\n", wafer, device, x, y, v + SHIFT_V,
+                    line + used) > 0;
 }
 
-/* "wafer,device" of the first good device of an alox20 split in truth.csv. */
+static void shift_results(const char *name)
+{
+    result_shift rs = { 97, 0 };
+    ck_assert_uint_eq(edit_scratch(name, name, result_line, &rs), 3);
+}
+
+/* "wafer,device," of the first good device of an alox20 split in truth.csv. */
 static void pick_alox20_device(char *key, size_t size, const char *truth_name)
 {
     char *path = sl_test_path(g_dir, truth_name);
@@ -114,53 +141,41 @@ static void pick_alox20_device(char *key, size_t size, const char *truth_name)
     free(path);
 }
 
+static int sweep_line(char *out, size_t cap, const char *line, size_t row, void *key)
+{
+    size_t k = strlen(key);
+    int x, y, used = 0;
+    double vg;
+    (void)row;
+    if (strncmp(line, key, k) != 0 || sscanf(line + k, "%d,%d,%lf%n", &x, &y, &vg, &used) != 3)
+        return 0;
+    return snprintf(out, cap, "%s%d,%d,%.6f%s\n", (const char *)key, x, y, vg + SWEEP_SHIFT_V,
+                    line + k + used) > 0;
+}
+
 /* Move one device's whole sweep SWEEP_SHIFT_V up the gate axis: a clean fit
  * whose neutrality point is an outlier of its split. */
 static void shift_sweep(const char *sweeps_name, const char *truth_name)
 {
     char key[80];
     pick_alox20_device(key, sizeof key, truth_name);
-    char *path = sl_test_path(g_dir, sweeps_name);
-    char *text = sl_test_read_file(path, NULL);
-    ck_assert_ptr_nonnull(text);
-    size_t cap = strlen(text) * 2 + 64, n = 0, moved = 0;
-    char *out = malloc(cap);
-    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n")) {
-        int x, y, used = 0;
-        double vg;
-        if (strncmp(line, key, strlen(key)) == 0
-            && sscanf(line + strlen(key), "%d,%d,%lf%n", &x, &y, &vg, &used) == 3) {
-            n += (size_t)snprintf(out + n, cap - n, "%s%d,%d,%.6f%s\n", key, x, y,
-                                  vg + SWEEP_SHIFT_V, line + strlen(key) + used);
-            moved++;
-        } else {
-            n += (size_t)snprintf(out + n, cap - n, "%s\n", line);
-        }
-    }
-    ck_assert_uint_gt(moved, 8);
-    ck_assert_int_eq(sl_test_write_file(path, out), 0);
-    free(out);
-    free(text);
-    free(path);
+    ck_assert_uint_gt(edit_scratch(sweeps_name, sweeps_name, sweep_line, key), 8);
+}
+
+static int wafer_line(char *out, size_t cap, const char *line, size_t row, void *ctx)
+{
+    (void)out;
+    (void)cap;
+    (void)ctx;
+    int keep = row == 0 || strncmp(line, "W01,", 4) == 0 || strncmp(line, "W02,", 4) == 0
+               || strncmp(line, "W03,", 4) == 0;
+    return keep ? 0 : -1;
 }
 
 /* Results of sim2 for three wafers only: fewer wafers than coefficients. */
 static void three_wafer_results(const char *from_name, const char *to_name)
 {
-    char *from = sl_test_path(g_dir, from_name), *to = sl_test_path(g_dir, to_name);
-    char *text = sl_test_read_file(from, NULL);
-    ck_assert_ptr_nonnull(text);
-    char *out = malloc(strlen(text) + 1);
-    size_t n = 0;
-    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"))
-        if (strncmp(line, "wafer,", 6) == 0 || strncmp(line, "W01,", 4) == 0
-            || strncmp(line, "W02,", 4) == 0 || strncmp(line, "W03,", 4) == 0)
-            n += (size_t)sprintf(out + n, "%s\n", line);
-    ck_assert_int_eq(sl_test_write_file(to, out), 0);
-    free(out);
-    free(text);
-    free(to);
-    free(from);
+    ck_assert_uint_eq(edit_scratch(from_name, to_name, wafer_line, NULL), 0);
 }
 
 static char *report_and_compare(int k)
