@@ -20,7 +20,7 @@ sed 's/^expected_yield: .*/expected_yield: 1.0/' "$here/plan-12500.yaml" > plan.
 "$bin" simulate plan.yaml --out sim --seed 12500 > /dev/null
 rows=$(($(wc -l < sim/sweeps.csv) - 1))
 bytes=$(wc -c < sim/sweeps.csv)
-echo "sweeps.csv: $rows rows, $bytes bytes, $(nproc) cores"
+echo "sweeps.csv: $rows rows, $bytes bytes"
 
 have_time=0
 if /usr/bin/time -v true > /dev/null 2>&1; then
@@ -40,6 +40,8 @@ while [ "$i" -lt "$runs" ]; do
         wall=$(awk -F': ' '/Elapsed \(wall clock\)/ { n = split($2, t, ":"); s = 0;
                    for (k = 1; k <= n; k++) s = s * 60 + t[k]; printf "%.3f", s }' time.txt)
         rss=$(awk -F': ' '/Maximum resident set size/ { printf "%.1f", $2 / 1024 }' time.txt)
+        cpu=$(awk -F': ' '/User time/ { u = $2 } /System time/ { s = $2 }
+                  /Percent of CPU/ { p = $2 } END { printf "%.2f s CPU (%s)", u + s, p }' time.txt)
     else
         start=$(date +%s.%N)
         "$bin" ingest --lot BENCH-12500 --sweeps sim/sweeps.csv --db t.db --format csv \
@@ -47,14 +49,15 @@ while [ "$i" -lt "$runs" ]; do
         end=$(date +%s.%N)
         wall=$(echo "$start $end" | awk '{ printf "%.3f", $2 - $1 }')
         rss="n/a"
+        cpu="CPU n/a"
     fi
     devices=$(awk -F': ' '/^# devices:/ { print $2 }' out.txt)
-    echo "run $i: $wall s wall, $(echo "$rows $wall" | awk '{ printf "%.0f", $1 / $2 }') rows/s, peak RSS $rss MB${devices:+, $devices devices}"
+    echo "run $i: $wall s wall, $(echo "$rows $wall" | awk '{ printf "%.0f", $1 / $2 }') rows/s, peak RSS $rss MB, $cpu${devices:+, $devices devices}"
     if [ -z "$best" ] || [ "$(echo "$wall $best" | awk '{ print ($1 < $2) }')" = 1 ]; then
         best=$wall
         best_rss=$rss
     fi
 done
-cpu=$(awk -F': ' '/User time/ { u = $2 } /System time/ { s = $2 } END { if (u != "") printf "%.2f", u + s; else print "n/a" }' time.txt 2>/dev/null || echo n/a)
-echo "last run CPU (user + system, all threads): $cpu s; load average $(cut -d' ' -f1 /proc/loadavg 2>/dev/null || echo n/a)"
+# a CPU share well under 100 % means other processes held the cores
+echo "load average: $(cut -d' ' -f1 /proc/loadavg 2>/dev/null || echo n/a) on $(nproc) cores"
 echo "best: $best s wall, $(echo "$rows $best" | awk '{ printf "%.0f", $1 / $2 }') rows/s, peak RSS $best_rss MB (target < 2 s, < 200 MB)"
