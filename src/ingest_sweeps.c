@@ -303,6 +303,15 @@ static sl_status refit_device(ingest_ctx *c, size_t k)
         fit_st = ws ? sl_fit_sweep(&res, ws, &c->wafers[d->wafer_index].fit, vg, r, n) : SL_ENOMEM;
         sl_fit_workspace_free(ws);
         st = fit_st == SL_ENOMEM ? SL_ENOMEM : SL_OK;
+        if (fit_st == SL_EINPUT) {
+            /* the fitter refuses it as a sweep (enough finite points, so the
+             * gate never moved): an input error like too few points, not a
+             * device stored with no class */
+            sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
+                        "device '%s' on wafer '%s' has no two distinct gate voltages in its "
+                        "%zu points; it is not a sweep", d->device, d->wafer, n);
+            st = SL_EINPUT;
+        }
     }
     if (st == SL_OK) {
         sl_store_device dev = { .vg_V = vg, .r_ohm = r, .n_points = n };
