@@ -175,6 +175,8 @@ static const bad_case bad_cases[] = {
       "duplicate device 'D001' on wafer 'W01' (first on line 2)" },
     { "sweeps_too_few_points.csv", "sweeps", "2", "has 7 points; a sweep needs at least 8" },
     { "sweeps_scattered_too_few.csv", "sweeps", "2", "has 7 points; a sweep needs at least 8" },
+    { "sweeps_flat_gate.csv", "sweeps", "11",
+      "device 'D001' on wafer 'W01' has no two distinct gate voltages in its 10 points" },
     { "sweeps_empty.csv", "sweeps", NULL, "empty file: no header row" },
     { "sweeps_header_only.csv", "sweeps", "1", "header but no data rows" },
     { "results_unterminated_quote.csv", "results", "3", "quoted field opened on this line is not closed" },
