@@ -129,7 +129,7 @@ static void verdict_off_plan(report_ctx *c)
     verdict_open(c->buf, "off-plan", a->n_off_plan, "treatment or dielectric levels off plan");
     const char *sep = ": ";
     for (size_t i = 0; i < a->n_effects; i++)
-        if (a->effects[i].off_plan) {
+        if (a->effects[i].off_plan && !a->effects[i].is_intercept) { /* as n_off_plan counts */
             sl_chart_buf_append(c->buf, sep);
             sl_chart_buf_escape(c->buf, a->effects[i].level);
             sep = ", ";
@@ -183,7 +183,7 @@ static void page_header(report_ctx *c)
     if (!c->opts->generated_utc)
         now_utc(generated);
     sl_chart_buf *b = c->buf;
-    sl_chart_buf_printf(b, "<header>\n<h1>Lot report ");
+    sl_chart_buf_append(b, "<header>\n<h1>Lot report ");
     sl_chart_buf_escape(b, c->a->lot.lot);
     sl_chart_buf_append(b, "</h1>\n<p class=\"lot-title\">");
     sl_chart_buf_escape(b, c->a->plan->title);
