@@ -27,6 +27,12 @@
 /* |Spearman rho| from which a curve peaking at an end counts as monotonic
  * (common practice: a clear trend, not a chance ordering of noise). */
 #define MONOTONIC_MIN_RANK_CORRELATION 0.8
+/* Spikes: relative residuals beyond this many robust standard deviations
+ * (1.4826 MAD), at most SPIKE_MAX_FRACTION of the points (at least one),
+ * are left out once when they alone make a fit poor (common practice:
+ * instrument glitches such as a compliance hit, far outside Gaussian noise). */
+#define SPIKE_MIN_SIGMAS 10.0
+#define SPIKE_MAX_FRACTION 0.02
 #define XTOL 1e-6
 #define GTOL 1e-12
 #define FTOL 0.0
@@ -768,6 +774,64 @@ static sl_status check_input(const sl_fit_workspace *ws, const sl_fit_config *cf
     return distinct ? SL_OK : SL_EINPUT;
 }
 
+static bool poor_quality(const sl_fit_result *out, const sl_fit_config *cfg)
+{
+    return out->rel_rms > cfg->poor_max_rel_rms || out->r_squared < cfg->poor_min_r_squared;
+}
+
+/* Mark spikes in ws->col (1 = spike) and return their number, 0 when there
+ * are none or too many to call them glitches. */
+static size_t find_spikes(sl_fit_workspace *ws)
+{
+    size_t n = ws->n;
+    double *f = ws->rank_work, *work = ws->rank_work + n;
+    for (size_t i = 0; i < n; i++)
+        f[i] = 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
+    double sigma = gsl_stats_mad(f, 1, n, work);
+    size_t count = 0;
+    for (size_t i = 0; i < n; i++) {
+        ws->col[i] = fabs(f[i]) > SPIKE_MIN_SIGMAS * sigma;
+        count += ws->col[i] != 0.0;
+    }
+    size_t cap = GSL_MAX((size_t)(SPIKE_MAX_FRACTION * (double)n), 1);
+    return count <= cap && n - count >= SL_FIT_MIN_POINTS ? count : 0;
+}
+
+/* Drop the points marked in ws->col from the sorted arrays. */
+static void drop_marked(sl_fit_workspace *ws)
+{
+    size_t kept = 0;
+    ws->saa = 0.0;
+    for (size_t i = 0; i < ws->n; i++) {
+        if (ws->col[i] != 0.0)
+            continue;
+        ws->vg[kept] = ws->vg[i];
+        ws->r[kept] = ws->r[i];
+        ws->u[kept] = ws->u[i];
+        ws->saa += ws->u[i] * ws->u[i];
+        kept++;
+    }
+    ws->n = kept;
+    ws->have_state = false;
+}
+
+/* When a few spikes alone make the fit poor, fit again without them. */
+static sl_status refit_without_spikes(sl_fit_result *out, sl_fit_workspace *ws,
+                                      const sl_fit_config *cfg, shape_at *at)
+{
+    size_t spikes = find_spikes(ws);
+    if (spikes == 0)
+        return SL_OK;
+    drop_marked(ws);
+    if (ensure_solvers(ws, ws->n) != SL_OK)
+        return SL_ENOMEM;
+    out->n_spikes = spikes;
+    out->cls = search(ws, cfg, at, &out->iterations);
+    if (out->cls != SL_FIT_NO_CONVERGENCE)
+        quality(out, ws);
+    return SL_OK;
+}
+
 sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_config *cfg,
                        const double *vg_V, const double *r_ohm, size_t n_points)
 {
@@ -792,9 +856,13 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
     if (out->cls == SL_FIT_NO_CONVERGENCE)
         return SL_OK;
     quality(out, ws);
+    if (out->cls == SL_FIT_OK && poor_quality(out, cfg)) {
+        st = refit_without_spikes(out, ws, cfg, &at);
+        if (st != SL_OK || out->cls == SL_FIT_NO_CONVERGENCE)
+            return st;
+    }
     /* A poor fit says nothing about where the neutrality point is. */
-    if (out->cls == SL_FIT_OK &&
-        (out->rel_rms > cfg->poor_max_rel_rms || out->r_squared < cfg->poor_min_r_squared))
+    if (out->cls == SL_FIT_OK && poor_quality(out, cfg))
         out->cls = SL_FIT_POOR;
     else if (out->cls == SL_FIT_OK && (at.v0 < ws->vg[0] || at.v0 > ws->vg[ws->n - 1]))
         out->cls = SL_FIT_CNP_OUTSIDE;

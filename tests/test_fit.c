@@ -345,6 +345,39 @@ START_TEST(two_mobility_fits_asymmetric_curves_better)
 }
 END_TEST
 
+/* Two instrument spikes (a reading tripled, one cut to a third) would make
+ * the fit poor; they are left out and the device fitted as usual. Spikes on
+ * 10 % of the points are no glitch: the device stays a poor fit. */
+START_TEST(spikes_left_out)
+{
+    sl_fit_config cfg = test_config();
+    sl_fit_workspace *ws = sl_fit_workspace_new(N_SWEEP);
+    gsl_rng *rng = seeded_rng(41);
+    double vg[N_SWEEP], r[N_SWEEP];
+    sweep_voltages(vg);
+    sl_fit_params p = { -6.0, 1800.0, 2e11, 450.0 };
+    synth(r, vg, &p, &cfg, rng, NOISE_REL);
+    r[40] *= 3.0;
+    r[150] /= 3.0;
+    sl_fit_result res;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+    ck_assert_int_eq(res.cls, SL_FIT_OK);
+    ck_assert_uint_eq(res.n_spikes, 2);
+    ck_assert_uint_eq(res.n_points, N_SWEEP);
+    ck_assert(fabs(res.p.cnp_V + 6.0) < 0.05);
+    ck_assert(fabs(res.p.mobility_cm2_per_Vs / 1800.0 - 1.0) < 0.05);
+    ck_assert(res.rel_rms < 1.2 * NOISE_REL);
+    synth(r, vg, &p, &cfg, rng, NOISE_REL);
+    for (size_t i = 5; i < N_SWEEP; i += 10)
+        r[i] *= 3.0;
+    ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, N_SWEEP), SL_OK);
+    ck_assert_int_eq(res.cls, SL_FIT_POOR);
+    ck_assert_uint_eq(res.n_spikes, 0);
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
 static sl_fit_class classify(const double *r, const double *vg)
 {
     sl_fit_config cfg = test_config();
@@ -566,6 +599,7 @@ static Suite *fit_suite(void)
     tcase_add_test(tc, two_mobility_model_formula);
     tcase_add_test(tc, two_mobility_population);
     tcase_add_test(tc, two_mobility_fits_asymmetric_curves_better);
+    tcase_add_test(tc, spikes_left_out);
     tcase_add_test(tc, short_device);
     tcase_add_test(tc, open_device);
     tcase_add_test(tc, cnp_outside_sweep);

@@ -97,7 +97,8 @@ typedef struct {
     double rel_rms;        /* RMS of (R_meas - R_fit) / R_meas */
     double r_squared;      /* 1 - SS_res / SS_tot on resistance */
     int iterations;        /* trust-region iterations spent */
-    size_t n_points;
+    size_t n_points;       /* points given */
+    size_t n_spikes;       /* points left out as instrument spikes (see below) */
 } sl_fit_result;
 
 /* Scratch space for sweeps of up to max_points points; reuse it for every
@@ -121,6 +122,10 @@ void sl_fit_workspace_free(sl_fit_workspace *ws);
  * meter errors scale with the reading. Standard errors come from the full
  * four-parameter covariance scaled by the residual variance.
  * The two-mobility model adds ln(mu_e / mu_h) to the nonlinear search.
+ * Spikes: when a fit is poor only because of a few points (at most 2 %, at
+ * least one) whose relative residual exceeds 10 robust standard deviations
+ * (1.4826 MAD), they are left out once and the sweep fitted again; their
+ * number is reported in n_spikes (common practice for instrument glitches).
  * Returns SL_OK with *out filled (check out->cls), SL_EINPUT for fewer than
  * SL_FIT_MIN_POINTS or more than the workspace's points, a non-finite gate
  * voltage, a sweep without two distinct voltages, or a bad config; SL_ENOMEM. */
