@@ -594,6 +594,56 @@ START_TEST(unknown_lot_and_usage)
 }
 END_TEST
 
+/* Rows at the edges of what a results file may hold. */
+START_TEST(results_edge_rows)
+{
+    char *dir = demo_dir();
+    char name64[65], name65[66];
+    memset(name64, 'D', 64);
+    name64[64] = '\0';
+    snprintf(name65, sizeof name65, "%sX", name64);
+    char text[512];
+    snprintf(text, sizeof text,
+             "wafer,device,die_x,die_y,v_cnp_V,temperature_K\n"
+             "W01,%s,1.0,0, 0.5 ,77\n"          /* longest name, die as 1.0, padded number */
+             "W01,D2,2,0,,300\n"                 /* probed, no neutrality point */
+             "\"W02\",\"D,3\",0,0,1e-1,\n",     /* quoted, comma in a name, no temperature */
+             name64);
+    char *path = sl_test_path(dir, "edge.csv"), *db = sl_test_path(dir, "t.db");
+    ck_assert_int_eq(sl_test_write_file(path, text), 0);
+    sl_run_result r = ingest(dir, "t.db", "results", "edge.csv", NULL, 0);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert_msg(strstr(r.out, "\nmeasured          2\nunmeasured        1\n") != NULL, "%s", r.out);
+    sl_run_result_free(&r);
+    lot_devices L = load_lot(db);
+    ck_assert_uint_eq(L.n, 3);
+    /* sorted by wafer, then name: W01/D2, W01/DDD..., W02/D,3 */
+    ck_assert_str_eq(L.rows[0].name, "D2");
+    ck_assert_str_eq(L.rows[0].fit_class, "unmeasured");
+    ck_assert(isnan(L.rows[0].cnp_V));
+    ck_assert_str_eq(L.rows[1].name, name64);
+    ck_assert_int_eq(L.rows[1].die_x, 1);
+    ck_assert_double_eq(L.rows[1].cnp_V, 0.5);
+    ck_assert_double_eq(L.rows[1].temperature_K, 77.0);
+    ck_assert_str_eq(L.rows[2].name, "D,3");
+    ck_assert_double_eq(L.rows[2].cnp_V, 0.1);
+    ck_assert(isnan(L.rows[2].temperature_K));
+    ck_assert_int_eq(L.rows[2].n_points, 0);
+    lot_devices_free(&L);
+
+    snprintf(text, sizeof text, "wafer,device,die_x,die_y,v_cnp_V\nW01,%s,1,0,0.5\n", name65);
+    ck_assert_int_eq(sl_test_write_file(path, text), 0);
+    assert_refused(dir, path, "results", "2:2", "in column device is too long");
+    ck_assert_int_eq(sl_test_write_file(path, "wafer,device,die_x,die_y,v_cnp_V\nW01,D9,1.5,0,0.5\n"), 0);
+    assert_refused(dir, path, "results", "2:3", "die_x '1.5' is not a die index from 0 to 5");
+    ck_assert_int_eq(sl_test_write_file(path, "wafer,device,die_x,die_y,v_cnp_V\n,D9,1,0,0.5\n"), 0);
+    assert_refused(dir, path, "results", "2:1", "empty wafer name");
+    free(path);
+    free(db);
+    drop_dir(dir);
+}
+END_TEST
+
 /* ---- extraction quality on a simulated 90 nm SiO2 lot ---- */
 
 static const char quality_plan[] =
@@ -761,6 +811,7 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, stdin_results_and_sweeps);
     tcase_add_test(tc, replace_and_duplicate_import);
     tcase_add_test(tc, unknown_lot_and_usage);
+    tcase_add_test(tc, results_edge_rows);
     tcase_add_test(tc, extraction_quality_against_truth);
     tcase_add_test(tc, library_summary_counts);
     suite_add_tcase(s, tc);
