@@ -10,6 +10,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "splitlot/analyze.h"
+#include "splitlot/store.h"
 #include "test_support.h"
 
 #define N_OF(a) (sizeof(a) / sizeof((a)[0]))
@@ -310,6 +312,84 @@ START_TEST(test_anova_and_ci_against_scipy)
 }
 END_TEST
 
+/* The same lot through the library: device fields, flags and their names,
+ * the failure-analysis order, an unknown lot, and a history of one lot. */
+START_TEST(test_library_analysis)
+{
+    char *dir, *json = stats_compare_json(&dir);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    ck_assert_uint_eq(a->n_devices, 54); /* 9 wafers x 6 dies */
+    ck_assert_uint_eq(a->n_usable, 50);  /* 4 empty v_cnp_V */
+    ck_assert_uint_eq(a->n_splits, 5);
+    ck_assert_uint_eq(a->n_effects, 4);
+    ck_assert_uint_eq(a->n_off_plan, 0);
+    size_t outliers = 0, unmeasured = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        const char *names[4];
+        int n = sl_analyze_flag_names(d, names);
+        if (strcmp(d->wafer, "S01") == 0 && strcmp(d->device, "D1") == 0) {
+            /* 8.164 V on 90 nm SiO2: C_g = 8.8541878128e-12 * 3.9 / 90e-9 = 3.83681e-4 F/m^2,
+             * doping = -3.83681e-4 * 8.164 / 1.602176634e-19 * 1e-4 = -1.955075e12 cm^-2 (by hand) */
+            ck_assert(fabs(d->doping_measured_per_cm2 / -1.955075e12 - 1.0) < 1e-6);
+            ck_assert(fabs(d->deviation_V - (8.164 - d->cnp_predicted_V)) < 1e-12);
+            ck_assert_int_eq(n, 0);
+        }
+        if (d->flags & SL_FLAG_OUTLIER) {
+            ck_assert_str_eq(d->wafer, "S04");
+            ck_assert_str_eq(d->device, "D3");
+            ck_assert(d->modified_z > 4.5 && d->modified_z < 4.6); /* 4.544, numpy above */
+            ck_assert_int_eq(n, 1);
+            ck_assert_str_eq(names[0], "outlier");
+            outliers++;
+        }
+        if (d->flags & SL_FLAG_UNMEASURED) {
+            ck_assert(isnan(d->cnp_measured_V) && isnan(d->z));
+            ck_assert_int_eq(n, 1);
+            ck_assert_str_eq(names[0], "unmeasured");
+            unmeasured++;
+        }
+    }
+    ck_assert_uint_eq(outliers, 1);
+    ck_assert_uint_eq(unmeasured, 4);
+    /* failure analysis: the four unmeasured devices before the statistical flag */
+    ck_assert_uint_eq(a->n_flagged, 5);
+    for (size_t k = 0; k < 4; k++)
+        ck_assert(a->devices[a->flagged[k]].flags & SL_FLAG_UNMEASURED);
+    ck_assert(a->devices[a->flagged[4]].flags & SL_FLAG_OUTLIER);
+    sl_analysis_free(a);
+
+    a = NULL;
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-99", diag), SL_ENOTFOUND);
+    ck_assert_ptr_null(a);
+    ck_assert_msg(strstr(sl_diag_last(diag), "STATS-01") != NULL, "%s", sl_diag_last(diag));
+
+    sl_history *h = NULL;
+    ck_assert_int_eq(sl_analyze_history(&h, store, diag), SL_OK);
+    ck_assert_uint_eq(h->n_lots, 1);
+    ck_assert_uint_eq(h->n_levels, 4);
+    for (size_t i = 0; i < h->n_levels; i++) { /* one lot: pooled = its estimate, no chart */
+        ck_assert_uint_eq(h->levels[i].n_points, 1);
+        ck_assert(fabs(h->levels[i].pooled.value - h->levels[i].points[0].estimated_per_cm2) <=
+                  1e-6 * fabs(h->levels[i].pooled.value));
+        ck_assert(isnan(h->levels[i].chart.center));
+        ck_assert_uint_eq(h->levels[i].n_drift, 0);
+    }
+    sl_history_free(h);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    free(json);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 /* ---- a simulated lot end to end ------------------------------------------------ */
 
 typedef struct {
@@ -592,6 +672,7 @@ static Suite *analyze_suite(void)
     TCase *stats = tcase_create("statistics");
     tcase_add_test(stats, test_effects_against_numpy_wls);
     tcase_add_test(stats, test_anova_and_ci_against_scipy);
+    tcase_add_test(stats, test_library_analysis);
     suite_add_tcase(s, stats);
     TCase *lots = tcase_create("simulated lots");
     tcase_set_timeout(lots, 300);

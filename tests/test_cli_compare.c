@@ -243,6 +243,32 @@ START_TEST(test_missing_database)
 }
 END_TEST
 
+/* The database from SPLITLOT_DB when --db is not given (DESIGN.md section 5). */
+START_TEST(test_database_from_environment)
+{
+    static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--format", "json", NULL };
+    static const char *const history[] = { "history", "--format", "json", NULL };
+    ck_assert_int_eq(setenv("SPLITLOT_DB", "t.db", 1), 0);
+    sl_run_result r = run_in(compare);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert(strncmp(r.out, "{\n  \"lot\": \"DEMO-01\",\n", 22) == 0);
+    sl_run_result_free(&r);
+    r = run_in(history);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_int_eq(top_number(r.out, "lots"), 3);
+    sl_run_result_free(&r);
+    ck_assert_int_eq(setenv("SPLITLOT_DB", "elsewhere.db", 1), 0);
+    r = run_in(compare);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert(strstr(r.err, "elsewhere.db") != NULL);
+    sl_run_result_free(&r);
+    char *elsewhere = sl_test_path(dir, "elsewhere.db");
+    ck_assert_int_ne(access(elsewhere, F_OK), 0);
+    free(elsewhere);
+    unsetenv("SPLITLOT_DB");
+}
+END_TEST
+
 START_TEST(test_bad_usage)
 {
     static const char *const cases[][8] = {
@@ -360,6 +386,7 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_fail_on_flags);
     tcase_add_test(tc, test_unknown_lot);
     tcase_add_test(tc, test_missing_database);
+    tcase_add_test(tc, test_database_from_environment);
     tcase_add_test(tc, test_bad_usage);
     tcase_add_test(tc, test_table_and_csv);
     tcase_add_test(tc, test_history_json_and_yaml);
