@@ -179,7 +179,7 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
     char text[512];
     cli_doc_str(doc, "lot", a->lot.lot);
     cli_doc_num(doc, "plan_revision", a->lot.revision, 6);
-    cli_doc_num(doc, "devices", (double)a->n_devices, 15);
+    cli_doc_num(doc, "device_count", (double)a->n_devices, 15); /* "devices" is the table */
     cli_doc_num(doc, "usable", (double)a->n_usable, 15);
     cli_doc_num(doc, "flagged", (double)a->n_flagged, 15);
     cli_doc_num(doc, "levels_off_plan", (double)a->n_off_plan, 15);
