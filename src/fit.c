@@ -732,10 +732,12 @@ static int projected_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shap
     return st;
 }
 
+/* A usable solution: finite numbers, a width that did not underflow to zero
+ * and an asymmetry whose hyperbolic functions did not overflow. */
 static bool solution_finite(const sl_fit_workspace *ws, const shape_at *at)
 {
-    return isfinite(at->v0) && isfinite(at->b) && isfinite(at->beta) && isfinite(ws->k) &&
-           isfinite(ws->rc);
+    return isfinite(at->v0) && at->d2 > 0.0 && isfinite(at->d2) && isfinite(at->ch) &&
+           isfinite(ws->k) && isfinite(ws->rc) && isfinite(ws->chisq);
 }
 
 /* The chosen search, the full one as fallback when the projected one fails. */
@@ -774,9 +776,11 @@ static sl_status check_input(const sl_fit_workspace *ws, const sl_fit_config *cf
     return distinct ? SL_OK : SL_EINPUT;
 }
 
+/* Written so that NaN counts as poor. */
 static bool poor_quality(const sl_fit_result *out, const sl_fit_config *cfg)
 {
-    return out->rel_rms > cfg->poor_max_rel_rms || out->r_squared < cfg->poor_min_r_squared;
+    return !(out->rel_rms <= cfg->poor_max_rel_rms) ||
+           !(out->r_squared >= cfg->poor_min_r_squared);
 }
 
 /* Mark spikes in ws->col (1 = spike) and return their number, 0 when there

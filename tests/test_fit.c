@@ -11,6 +11,7 @@
 #include <gsl/gsl_rng.h>
 #include <gsl/gsl_statistics_double.h>
 
+#include "splitlot/csv.h"
 #include "splitlot/fit.h"
 #include "splitlot/units.h"
 #include "test_support.h"
@@ -378,6 +379,89 @@ START_TEST(spikes_left_out)
 }
 END_TEST
 
+/* Random and hostile sweeps (wild parameters, 30 % noise, uniform junk,
+ * unsorted voltages, NaN, infinities, zeros, subnormals and negative
+ * readings sprinkled in), both models and both searches: whatever the
+ * class, an ok result carries only finite numbers and R_c >= 0, and every
+ * other class carries no parameters at all. */
+START_TEST(hostile_sweeps_never_invent_numbers)
+{
+    enum { MAX_N = 300 };
+    static const double specials[] = { NAN, INFINITY, -INFINITY, 0.0, -0.0, 1e-320, 1e308, -5.0 };
+    sl_fit_workspace *ws = sl_fit_workspace_new(MAX_N);
+    gsl_rng *rng = seeded_rng(43);
+    double vg[MAX_N], r[MAX_N];
+    for (int t = 0; t < 6000; t++) {
+        sl_fit_config cfg = test_config();
+        cfg.model = (sl_fit_model)gsl_rng_uniform_int(rng, 2);
+        cfg.method = (sl_fit_method)gsl_rng_uniform_int(rng, 2);
+        size_t n = SL_FIT_MIN_POINTS + gsl_rng_uniform_int(rng, MAX_N - SL_FIT_MIN_POINTS);
+        unsigned long kind = gsl_rng_uniform_int(rng, 4);
+        sl_fit_params p = { gsl_ran_flat(rng, -60, 60), exp(gsl_ran_flat(rng, log(10), log(1e5))),
+                            exp(gsl_ran_flat(rng, log(1e9), log(1e13))), gsl_ran_flat(rng, 0, 1e4) };
+        double ratio = exp(gsl_ran_flat(rng, -3, 3));
+        for (size_t i = 0; i < n; i++) {
+            vg[i] = kind == 3 ? gsl_ran_flat(rng, -50, 50) : -40.0 + 80.0 * (double)i / (double)(n - 1);
+            double noise = gsl_ran_gaussian(rng, kind == 1 ? 0.3 : 0.01);
+            r[i] = kind == 2 ? gsl_ran_flat(rng, -10, 1e10)
+                             : sl_fit_model_two_mobility_ohm(&p, ratio, &cfg, vg[i]) * (1.0 + noise);
+            if (gsl_rng_uniform(rng) < 0.01)
+                r[i] = specials[gsl_rng_uniform_int(rng, 8)];
+        }
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, n), SL_OK);
+        const double *val = &res.p.cnp_V, *sd = &res.sigma.cnp_V;
+        for (int j = 0; j < 4; j++)
+            ck_assert(res.cls == SL_FIT_OK ? isfinite(val[j]) && isfinite(sd[j])
+                                           : isnan(val[j]) && isnan(sd[j]));
+        if (res.cls == SL_FIT_OK) {
+            ck_assert(res.p.r_contact_ohm >= 0.0 && res.p.mobility_cm2_per_Vs > 0.0);
+            ck_assert(isfinite(res.electron_hole_mobility_ratio.val) &&
+                      isfinite(res.electron_hole_mobility_ratio.sigma));
+            ck_assert(res.rel_rms <= cfg.poor_max_rel_rms && res.r_squared >= cfg.poor_min_r_squared);
+        }
+    }
+    gsl_rng_free(rng);
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
+/* A noisy sweep (30 % noise, from the random cases above) on which the
+ * two-mobility search runs away: the width underflows to zero and the
+ * mobility ratio to 0. Once taken for ok with an infinite mobility and a NaN
+ * residual; it must be no-convergence. Points kept in a fixture. */
+START_TEST(runaway_search_is_no_convergence)
+{
+    char *path = sl_test_data("csv/sweep_runaway_two_mobility.csv");
+    sl_csv *csv;
+    ck_assert_int_eq(sl_csv_open(&csv, path, NULL), SL_OK);
+    double vg[200], r[200];
+    size_t n = 0;
+    bool has;
+    while (sl_csv_next(&has, csv, NULL) == SL_OK && has) {
+        ck_assert_uint_lt(n, 200);
+        ck_assert_int_eq(sl_csv_number(&vg[n], csv, 0, NULL), SL_OK);
+        ck_assert_int_eq(sl_csv_number(&r[n], csv, 1, NULL), SL_OK);
+        n++;
+    }
+    sl_csv_free(csv);
+    free(path);
+    ck_assert_uint_eq(n, 136);
+    sl_fit_config cfg;
+    sl_fit_config_default(&cfg, 3.8e-4, 20.0, 10.0);
+    cfg.model = SL_FIT_MODEL_TWO_MOBILITY;
+    sl_fit_workspace *ws = sl_fit_workspace_new(n);
+    for (int method = SL_FIT_METHOD_PROJECTED; method <= SL_FIT_METHOD_FULL; method++) {
+        cfg.method = (sl_fit_method)method;
+        sl_fit_result res;
+        ck_assert_int_eq(sl_fit_sweep(&res, ws, &cfg, vg, r, n), SL_OK);
+        ck_assert_int_eq(res.cls, SL_FIT_NO_CONVERGENCE);
+        ck_assert(isnan(res.p.mobility_cm2_per_Vs));
+    }
+    sl_fit_workspace_free(ws);
+}
+END_TEST
+
 static sl_fit_class classify(const double *r, const double *vg)
 {
     sl_fit_config cfg = test_config();
@@ -609,6 +693,8 @@ static Suite *fit_suite(void)
     tcase_add_test(tc, coarse_sweeps);
     tcase_add_test(tc, sweep_lengths_change);
     tcase_add_test(tc, bad_input);
+    tcase_add_test(tc, hostile_sweeps_never_invent_numbers);
+    tcase_add_test(tc, runaway_search_is_no_convergence);
     suite_add_tcase(s, tc);
     return s;
 }
