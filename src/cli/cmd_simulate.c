@@ -91,7 +91,15 @@ static int parse_option(simulate_args *a, int opt, const char *val)
     long n;
     switch (opt) {
     case OPT_OUT: a->out = val; return 0;
-    case OPT_SEED: a->has_seed = 1; return cli_parse_long("--seed", val, 0, &a->seed);
+    case OPT_SEED:
+        a->has_seed = 1;
+        if (cli_parse_long("--seed", val, 0, &a->seed) != 0)
+            return -1;
+        /* the generator takes 32 bits: a larger seed would repeat a smaller one */
+        if (a->seed > 4294967295L)
+            return cli_usage_error("--seed: '%s' is not a whole number from 0 to 4294967295",
+                                   val), -1;
+        return 0;
     case OPT_POINTS:
         if (cli_parse_long("--points", val, 8, &n) != 0)
             return -1;
