@@ -128,6 +128,7 @@ START_TEST(unknown_level_refused)
         { "--true-doping", "anneal-350=lots" }, /* not a number */
         { "--noise-rel", "1.5" },               /* not a fraction */
         { "--points", "7" },                    /* fewer than a fit needs */
+        { "--seed", "4294967303" },             /* 2^32 + 7: would repeat seed 7 */
     };
     for (size_t i = 0; i < sizeof bad / sizeof bad[0]; i++) {
         r = simulate(dir, "v", "7", bad[i][0], bad[i][1]);
