@@ -143,7 +143,12 @@ static void summarize_split(sl_analysis *a, sl_analyze_split *s, double *x, doub
         if (d->split != (long)s->split || !isfinite(d->cnp_measured_V))
             continue;
         double combined = hypot(d->cnp_predicted_sigma_V, s->spread_V);
-        d->z = combined > 0.0 ? d->deviation_V / combined : 0.0;
+        /* no spread at all (a plan without sigmas, a split of one device):
+         * the interval is a point, so any deviation lies outside it */
+        if (combined > 0.0)
+            d->z = d->deviation_V / combined;
+        else
+            d->z = d->deviation_V == 0.0 ? 0.0 : copysign(INFINITY, d->deviation_V);
         if (fabs(d->z) > SL_ANALYZE_INTERVAL_SIGMAS)
             d->flags |= SL_FLAG_OFF_PREDICTION;
         if (n >= SL_ANALYZE_MIN_FOR_OUTLIERS) {
@@ -203,10 +208,15 @@ static void describe(sl_analyze_device *d)
         return;
     }
     size_t k = 0;
-    if (d->flags & SL_FLAG_OFF_PREDICTION)
+    if (d->flags & SL_FLAG_OFF_PREDICTION && isfinite(d->z))
         k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
                               "neutrality point %.2f V %s the prediction (%.1f sigma)",
                               fabs(d->deviation_V), d->deviation_V > 0 ? "above" : "below", fabs(d->z));
+    else if (d->flags & SL_FLAG_OFF_PREDICTION)
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "neutrality point %.2f V %s the prediction (neither the plan nor "
+                              "the split gives a spread)",
+                              fabs(d->deviation_V), d->deviation_V > 0 ? "above" : "below");
     if (d->flags & SL_FLAG_OUTLIER)
         snprintf(d->reason + k, sizeof d->reason - k, "%s%s its split's devices (modified z %.1f)",
                  k ? "; " : "", d->modified_z > 0 ? "far above" : "far below", d->modified_z);

@@ -34,7 +34,8 @@ typedef struct {
     double cnp_predicted_V, cnp_predicted_sigma_V;
     double cnp_measured_V;       /* NaN when not usable */
     double deviation_V;          /* measured - predicted */
-    double z;                    /* deviation / sqrt(pred sigma^2 + device spread^2) */
+    double z;                    /* deviation / sqrt(pred sigma^2 + device spread^2);
+                                    +/-inf when both are 0 and the deviation is not */
     double modified_z;           /* within the split */
     double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
     double mobility_cm2_per_Vs;
