@@ -390,6 +390,48 @@ START_TEST(test_library_analysis)
 }
 END_TEST
 
+/* A plan without sigmas and a split left with one usable device: its
+ * interval has no width, so the device 2.68 V off is off-prediction (z is
+ * infinite, printed as null) while the ox90 devices, 0.27 V at most from
+ * their prediction with a spread of their own, are not flagged. */
+START_TEST(test_off_prediction_without_spread)
+{
+    char *dir = sl_test_tmpdir(), row[1024], flags[96];
+    char *plan = sl_test_data("analyze/no-sigma.yaml");
+    char *results = sl_test_data("analyze/no-sigma-results.csv");
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "NOSIGMA-01", "--results", results, "--db", "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "NOSIGMA-01", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = run_ok(dir, compare);
+    size_t n_flagged = 0;
+    for (const char *p = json_array(r.out, "devices"); json_next_row(&p, row, sizeof row);) {
+        char split[32];
+        json_str(row, "split", split, sizeof split);
+        json_str(row, "flags", flags, sizeof flags);
+        if (strcmp(split, "ox90") == 0) {
+            ck_assert_msg(flags[0] == '\0', "%s", row);
+            ck_assert(fabs(json_num(row, "z")) < 3.0);
+        } else if (isfinite(json_num(row, "cnp_measured_V"))) { /* W03 D1 */
+            ck_assert_str_eq(flags, "\"off-prediction\"");
+            ck_assert(isnan(json_num(row, "z")));
+            n_flagged++;
+        }
+    }
+    ck_assert_uint_eq(n_flagged, 1);
+    json_row_where(r.out, "failure_analysis", "reason",
+                   "neutrality point 2.68 V below the prediction (neither the plan nor the "
+                   "split gives a spread)", row, sizeof row);
+    ck_assert(strstr(row, "\"wafer\": \"W03\", \"device\": \"D1\"") != NULL);
+    sl_run_result_free(&r);
+    free(plan);
+    free(results);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 /* ---- a simulated lot end to end ------------------------------------------------ */
 
 typedef struct {
@@ -673,6 +715,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_effects_against_numpy_wls);
     tcase_add_test(stats, test_anova_and_ci_against_scipy);
     tcase_add_test(stats, test_library_analysis);
+    tcase_add_test(stats, test_off_prediction_without_spread);
     suite_add_tcase(s, stats);
     TCase *lots = tcase_create("simulated lots");
     tcase_set_timeout(lots, 300);
