@@ -222,22 +222,30 @@ static void demo_lot(const char *dir, const char *lot, const char *seed, const c
  *       a = np.array(v[s])
  *       print(s, st.t.interval(0.95, len(a) - 1, loc=a.mean(), scale=st.sem(a)))
  */
-static char *stats_compare_json(char **dir_out)
+/* compare --format json of a fixture lot (plan and results under
+ * tests/data/analyze) stored in a fresh scratch folder, returned in *dir_out. */
+static char *fixture_compare_json(const char *plan_name, const char *results_name,
+                                  const char *lot, char **dir_out)
 {
     char *dir = sl_test_tmpdir();
-    char *plan = sl_test_data("analyze/stats-lot.yaml");
-    char *results = sl_test_data("analyze/stats-results.csv");
+    char *plan = sl_test_data(plan_name), *results = sl_test_data(results_name);
     const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
     run_quiet(dir, predict);
-    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", results, "--db", "t.db", NULL };
+    const char *ingest[] = { "ingest", "--lot", lot, "--results", results, "--db", "t.db", NULL };
     run_quiet(dir, ingest);
-    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json", NULL };
+    const char *compare[] = { "compare", "--lot", lot, "--db", "t.db", "--format", "json", NULL };
     sl_run_result r = run_ok(dir, compare);
     free(plan);
     free(results);
     free(r.err);
     *dir_out = dir;
     return r.out;
+}
+
+static char *stats_compare_json(char **dir_out)
+{
+    return fixture_compare_json("analyze/stats-lot.yaml", "analyze/stats-results.csv", "STATS-01",
+                                dir_out);
 }
 
 START_TEST(test_effects_against_numpy_wls)
@@ -396,17 +404,11 @@ END_TEST
  * their prediction with a spread of their own, are not flagged. */
 START_TEST(test_off_prediction_without_spread)
 {
-    char *dir = sl_test_tmpdir(), row[1024], flags[96];
-    char *plan = sl_test_data("analyze/no-sigma.yaml");
-    char *results = sl_test_data("analyze/no-sigma-results.csv");
-    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
-    run_quiet(dir, predict);
-    const char *ingest[] = { "ingest", "--lot", "NOSIGMA-01", "--results", results, "--db", "t.db", NULL };
-    run_quiet(dir, ingest);
-    const char *compare[] = { "compare", "--lot", "NOSIGMA-01", "--db", "t.db", "--format", "json", NULL };
-    sl_run_result r = run_ok(dir, compare);
+    char *dir, row[1024], flags[96];
+    char *json = fixture_compare_json("analyze/no-sigma.yaml", "analyze/no-sigma-results.csv",
+                                      "NOSIGMA-01", &dir);
     size_t n_flagged = 0;
-    for (const char *p = json_array(r.out, "devices"); json_next_row(&p, row, sizeof row);) {
+    for (const char *p = json_array(json, "devices"); json_next_row(&p, row, sizeof row);) {
         char split[32];
         json_str(row, "split", split, sizeof split);
         json_str(row, "flags", flags, sizeof flags);
@@ -420,13 +422,11 @@ START_TEST(test_off_prediction_without_spread)
         }
     }
     ck_assert_uint_eq(n_flagged, 1);
-    json_row_where(r.out, "failure_analysis", "reason",
+    json_row_where(json, "failure_analysis", "reason",
                    "neutrality point 2.68 V below the prediction (neither the plan nor the "
                    "split gives a spread)", row, sizeof row);
     ck_assert(strstr(row, "\"wafer\": \"W03\", \"device\": \"D1\"") != NULL);
-    sl_run_result_free(&r);
-    free(plan);
-    free(results);
+    free(json);
     sl_test_rmtree(dir);
     free(dir);
 }
