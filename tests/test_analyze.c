@@ -559,6 +559,57 @@ static void drift_lots(const char *dir, int first_seed)
     }
 }
 
+static int by_value(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+/* A level's pooled value and chart recomputed from its per-lot estimates in
+ * the history JSON: inverse-variance pooling over every lot (a drifted one
+ * included, as analyze_history.c does today), x_p = sum(x/se^2)
+ * / sum(1/se^2), se_p = sum(1/se^2)^-1/2 (the textbook fixed-effect pool);
+ * the chart over the first n_base lots (those not flagged): centre = mean,
+ * sigma = average moving range / 1.128 (Montgomery, Introduction to Statistical
+ * Quality Control), floored at the median standard error (analyze.h's
+ * documented guard), limits centre -/+ 3 sigma. Tolerance 1e4 cm^-2: the
+ * inputs are printed to 10 significant digits. */
+static void check_level_history(const char *json, const char *level, size_t n_base)
+{
+    double x[8], se[8], row_se[8], sw = 0.0, swx = 0.0;
+    size_t n = 0;
+    char row[1024], got[64];
+    for (const char *p = json_array(json, "estimates"); json_next_row(&p, row, sizeof row);) {
+        json_str(row, "level", got, sizeof got);
+        if (strcmp(got, level) != 0)
+            continue;
+        ck_assert_uint_lt(n, 8);
+        x[n] = json_num(row, "estimated_per_cm2");
+        se[n] = row_se[n] = json_num(row, "stderr_per_cm2");
+        sw += 1.0 / (se[n] * se[n]);
+        swx += x[n] / (se[n] * se[n]);
+        n++;
+    }
+    ck_assert_uint_ge(n, n_base);
+    json_row_where(json, "levels", "level", level, row, sizeof row);
+    ck_assert(fabs(json_num(row, "pooled_per_cm2") - swx / sw) < 1e4);
+    ck_assert(fabs(json_num(row, "pooled_stderr_per_cm2") - 1.0 / sqrt(sw)) < 1e4);
+    double centre = 0.0, mr = 0.0;
+    for (size_t i = 0; i < n_base; i++) {
+        centre += x[i] / (double)n_base;
+        if (i > 0)
+            mr += fabs(x[i] - x[i - 1]) / (double)(n_base - 1);
+    }
+    qsort(row_se, n_base, sizeof row_se[0], by_value);
+    double median_se = n_base % 2 ? row_se[n_base / 2]
+                                  : 0.5 * (row_se[n_base / 2 - 1] + row_se[n_base / 2]);
+    double sigma = fmax(mr / 1.128, median_se), lo = NAN, hi = NAN;
+    ck_assert(sscanf(json_find(row, "limits_per_cm2"), "[%lf, %lf]", &lo, &hi) == 2);
+    ck_assert_msg(fabs(json_num(row, "center_per_cm2") - centre) < 1e4, "%s: %s", level, row);
+    ck_assert_msg(fabs(lo - (centre - 3.0 * sigma)) < 1e4 && fabs(hi - (centre + 3.0 * sigma)) < 1e4,
+                  "%s: %s", level, row);
+}
+
 START_TEST(test_history_flags_drift)
 {
     static const int first_seeds[] = { 40, 700 };
@@ -585,6 +636,10 @@ START_TEST(test_history_flags_drift)
         ck_assert_int_eq((int)json_num(row, "drift_lots"), 1);
         json_row_where(r.out, "levels", "level", "anneal-350", row, sizeof row);
         ck_assert_int_eq((int)json_num(row, "drift_lots"), 0);
+        check_level_history(r.out, "baseline", 3);
+        check_level_history(r.out, "alox20", 3);
+        check_level_history(r.out, "anneal-350", 3);
+        check_level_history(r.out, "cap-pmma", 2); /* the chart leaves the drifted lot out */
         sl_run_result_free(&r);
         sl_test_rmtree(dir);
         free(dir);
