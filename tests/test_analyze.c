@@ -571,7 +571,7 @@ static int by_value(const void *a, const void *b)
  * / sum(1/se^2), se_p = sum(1/se^2)^-1/2 (the textbook fixed-effect pool);
  * the chart over the first n_base lots (those not flagged): centre = mean,
  * sigma = average moving range / 1.128 (Montgomery, Introduction to Statistical
- * Quality Control), floored at the median standard error (analyze.h's
+ * Quality Control), floored at the median standard error (analyze_history.c's
  * documented guard), limits centre -/+ 3 sigma. Tolerance 1e4 cm^-2: the
  * inputs are printed to 10 significant digits. */
 static void check_level_history(const char *json, const char *level, size_t n_base)
