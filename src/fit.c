@@ -527,10 +527,15 @@ static bool interior(size_t index, size_t n)
  * median removes), whichever has the lower projected cost. */
 static void choose_start(sl_fit_workspace *ws, shape_at *start)
 {
-    const double *curves[2] = { ws->smooth, ws->r };
+    const double *curves[2] = { ws->r, ws->smooth };
+    size_t peaks[2] = { gsl_stats_max_index(ws->r, 1, ws->n),
+                        gsl_stats_max_index(ws->smooth, 1, ws->n) };
+    /* Peaks a window apart or less are one peak: the raw one will do. */
+    size_t candidates = peaks[0] + SMOOTH_WINDOW / 2 >= peaks[1] &&
+                        peaks[1] + SMOOTH_WINDOW / 2 >= peaks[0] ? 1 : 2;
     double best_cost = HUGE_VAL;
-    for (size_t c = 0; c < 2; c++) {
-        size_t peak = gsl_stats_max_index(curves[c], 1, ws->n);
+    for (size_t c = 0; c < candidates; c++) {
+        size_t peak = peaks[c];
         if (!interior(peak, ws->n))
             continue;
         double cost, width = start_log_width(ws, curves[c], peak, &cost);
