@@ -3,6 +3,8 @@
 #   make demo   install what is missing, build, run the demo plan end to end
 #   make check  install what is missing, build, run the whole test suite
 #   make asan   the test suite under AddressSanitizer + UndefinedBehaviorSanitizer
+#   make fuzz   the libFuzzer targets, FUZZ_SECONDS (default 60) each
+#   make valgrind  the test suite under valgrind memcheck (Debug build)
 #   make bench  build in Release and run the benchmarks (figures, not tests)
 #   make bench-reference  splitlot against the pandas + SciPy script, 1k/12.5k/50k devices
 BUILD ?= build
@@ -10,7 +12,7 @@ JOBS ?= 2
 DEMO ?= demo-out
 SPLITLOT = $(BUILD)/splitlot
 
-.PHONY: all deps build demo check asan bench bench-reference clean
+.PHONY: all deps build demo check asan fuzz valgrind bench bench-reference clean
 
 all: build
 
@@ -37,6 +39,12 @@ asan: deps
 	@cd build-asan && ASAN_OPTIONS=detect_leaks=1:abort_on_error=1 \
 	  UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1 ctest --output-on-failure -j$(JOBS)
 
+fuzz:
+	@./.ci/fuzz
+
+valgrind:
+	@./.ci/valgrind
+
 bench: deps
 	@cmake -S . -B build-release -DCMAKE_BUILD_TYPE=Release >/dev/null
 	@cmake --build build-release -j$(JOBS)
@@ -50,4 +58,4 @@ demo: build
 	@./.ci/demo $(SPLITLOT) $(DEMO)
 
 clean:
-	rm -rf $(BUILD) build-asan build-release $(DEMO)
+	rm -rf $(BUILD) build-asan build-release build-fuzz build-valgrind $(DEMO)
