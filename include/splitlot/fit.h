@@ -115,17 +115,32 @@ void sl_fit_workspace_free(sl_fit_workspace *ws);
  * forward and a backward sweep). ws must come from sl_fit_workspace_new;
  * call sl_physics_init() once per process before fitting, so GSL reports
  * its errors instead of aborting. Thread-safe with one ws per thread.
- * Method: variable projection, the
- * linear R_c and L/(W C_g mu) solved by weighted linear least squares for
- * every (V_cnp, n0), the two nonlinear ones by GSL's Levenberg-Marquardt trust
- * region with the Kaufman Jacobian; residuals are relative (weight 1/R), as
- * meter errors scale with the reading. Standard errors come from the full
- * four-parameter covariance scaled by the residual variance.
- * The two-mobility model adds ln(mu_e / mu_h) to the nonlinear search.
+ *
+ * Classes, in the order they are decided: open (any reading >= open_min_ohm
+ * or not finite); short (all below short_max_ohm, or flat with a median below
+ * short_flat_max_ohm); poor (a reading <= 0, or flat: no gate response);
+ * cnp-outside-sweep (highest at an end of the sweep and rising steadily
+ * towards it, |Spearman rho| >= 0.8; noise peaking at an end is poor); then
+ * the fit: no-convergence, poor (a dip instead of a peak, rel_rms above
+ * poor_max_rel_rms or R^2 below poor_min_r_squared), cnp-outside-sweep
+ * (fitted V_cnp outside [min vg_V, max vg_V]), else ok.
+ *
+ * Method: variable projection. R_c and K = (L/W)/(C_g mu) enter linearly and
+ * are solved by least squares at every (V_cnp, n0); those two (and ln(mu_e /
+ * mu_h) in the two-mobility model) are searched by GSL's trust region with
+ * Levenberg-Marquardt steps and the Kaufman Jacobian: with two or three
+ * parameters a step is a tiny solve, and the damping copes with the flat
+ * valley of n0 when the peak is sharp. Start: the peak of the raw or the
+ * moving-median curve (whichever fits better), n0 from its half width.
+ * R_c >= 0 is kept by refitting with R_c = 0 when the free optimum is
+ * negative. Residuals are relative (weight 1/R), as meter errors scale with
+ * the reading. Standard errors come from the covariance of all parameters
+ * (J^T J)^-1 scaled by the residual variance chi^2 / (n - p).
  * Spikes: when a fit is poor only because of a few points (at most 2 %, at
  * least one) whose relative residual exceeds 10 robust standard deviations
  * (1.4826 MAD), they are left out once and the sweep fitted again; their
  * number is reported in n_spikes (common practice for instrument glitches).
+ *
  * Returns SL_OK with *out filled (check out->cls), SL_EINPUT for fewer than
  * SL_FIT_MIN_POINTS or more than the workspace's points, a non-finite gate
  * voltage, a sweep without two distinct voltages, or a bad config; SL_ENOMEM. */
