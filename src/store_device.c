@@ -101,14 +101,22 @@ sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
             "INSERT INTO device (lot_id, wafer_id, name, die_x, die_y, source, fit_class, "
             "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, "
             "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, "
-            "r_squared, n_points) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, "
-            "?13, ?14, ?15, ?16, ?17, ?18, ?19)", diag) != SL_OK)
+            "r_squared, n_points) SELECT ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, "
+            "?13, ?14, ?15, ?16, ?17, ?18, ?19 "
+            /* the same wafer name under an older plan revision of the lot is the
+             * same wafer: its devices are duplicates too (CROSS JOIN keeps the
+             * index-only order: revisions, wafer by name, device) */
+            "WHERE NOT EXISTS (SELECT 1 FROM plan_revision r CROSS JOIN wafer w "
+            "CROSS JOIN device d WHERE r.lot_id = ?1 AND w.revision_id = r.id "
+            "AND w.name = (SELECT name FROM wafer WHERE id = ?2) AND d.lot_id = ?1 "
+            "AND d.wafer_id = w.id AND d.name = ?3)", diag) != SL_OK)
         return SL_EDB;
     sqlite3_stmt *st = store->insert_device;
     bind_device(st, lot_id, dev);
     int rc = sqlite3_step(st);
     sqlite3_reset(st);
-    if (rc == SQLITE_CONSTRAINT || (rc & 0xff) == SQLITE_CONSTRAINT) {
+    if (rc == SQLITE_CONSTRAINT || (rc & 0xff) == SQLITE_CONSTRAINT ||
+        (rc == SQLITE_DONE && sqlite3_changes(store->db) == 0)) {
         sl_diag_error(diag, "duplicate device '%s' on its wafer", dev->name);
         return SL_EINPUT;
     }
