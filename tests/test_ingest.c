@@ -561,6 +561,55 @@ START_TEST(replace_and_duplicate_import)
 }
 END_TEST
 
+/* A new plan revision has new wafer rows: devices stored under the old one
+ * are still the same devices of the same wafers. */
+START_TEST(duplicate_across_plan_revisions)
+{
+    char *dir = demo_dir();
+    simulate_into(dir, DEMO_PLAN, "3", "--no-sweeps");
+    sl_run_result r = ingest(dir, "t.db", "results", "sim/results.csv", NULL, 0);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    char *text = sl_test_read_file(DEMO_PLAN, NULL);
+    char *at = strstr(text, "(invented)");
+    ck_assert_ptr_nonnull(at);
+    memcpy(at, "(Invented)", 10);
+    char *plan = sl_test_path(dir, "demo-b.yaml");
+    ck_assert_int_eq(sl_test_write_file(plan, text), 0);
+    const char *argv[] = { "predict", "demo-b.yaml", "--db", "t.db", NULL };
+    r = sl_test_run(dir, NULL, argv);
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert(strstr(r.err, "stored plan as revision 2") != NULL);
+    sl_run_result_free(&r);
+
+    char *results = sl_test_path(dir, "sim/results.csv");
+    assert_refused(dir, results, "results", "2:2",
+                   "device 'D001' on wafer 'W01' is already stored for lot 'DEMO-01'");
+    /* --replace takes them all again, once */
+    r = ingest(dir, "t.db", "results", "sim/results.csv", NULL, 1);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    char *db = sl_test_path(dir, "t.db");
+    lot_devices L = load_lot(db);
+    char *csv = sl_test_read_file(results, NULL);
+    ck_assert_uint_eq(L.n, count_lines(csv) - 1);
+    lot_devices_free(&L);
+    /* a device not yet stored is welcome under the new revision */
+    char *extra = sl_test_path(dir, "extra.csv");
+    ck_assert_int_eq(sl_test_write_file(extra, "wafer,device,die_x,die_y,v_cnp_V\nW01,X1,1,0,0.5\n"), 0);
+    r = ingest(dir, "t.db", "results", "extra.csv", NULL, 0);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    free(extra);
+    free(csv);
+    free(db);
+    free(results);
+    free(plan);
+    free(text);
+    drop_dir(dir);
+}
+END_TEST
+
 START_TEST(unknown_lot_and_usage)
 {
     char *dir = demo_dir();
@@ -810,6 +859,7 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, csv_variants_store_identical_devices);
     tcase_add_test(tc, stdin_results_and_sweeps);
     tcase_add_test(tc, replace_and_duplicate_import);
+    tcase_add_test(tc, duplicate_across_plan_revisions);
     tcase_add_test(tc, unknown_lot_and_usage);
     tcase_add_test(tc, results_edge_rows);
     tcase_add_test(tc, extraction_quality_against_truth);
