@@ -484,6 +484,27 @@ START_TEST(duplicate_device_is_input_error)
     long count = 0;
     ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(count, 2);
+
+    /* a new plan revision has new wafer rows, but W01 is still W01 */
+    char *text = sl_test_read_file(DEMO_PLAN, NULL);
+    memcpy(strstr(text, "(invented)"), "(Invented)", 10);
+    planned b = plan_text(text);
+    save(s.store, &b, 2, 1);
+    sl_store_lot lot2;
+    long w1_rev2 = 0;
+    ck_assert_int_eq(sl_store_find_lot(s.store, &lot2, "DEMO-01", diag), SL_OK);
+    ck_assert_int_eq(sl_store_wafer_id(s.store, &w1_rev2, lot2.revision_id, "W01"), SL_OK);
+    ck_assert_int_ne(w1_rev2, s.wafer_id);
+    d.wafer_id = w1_rev2;
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_EINPUT);
+    d.name = "D005";
+    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_OK);
+    sl_store_rollback(s.store);
+    d.name = "D001";
+    sl_store_lot_clear(&lot2);
+    planned_free(&b);
+    free(text);
     /* rolled back inserts leave nothing */
     d.name = "D002";
     ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
