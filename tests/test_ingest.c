@@ -171,6 +171,8 @@ static const bad_case bad_cases[] = {
     { "results_die_outside.csv", "results", "3:4", "die_y '6' is not a die index from 0 to 5" },
     { "sweeps_die_changes.csv", "sweeps", "7:3",
       "device 'D001' on wafer 'W01' is at die (1, 0) here but at (0, 0) on line 2" },
+    { "sweeps_die_changes_later.csv", "sweeps", "20:3",
+      "device 'D001' on wafer 'W01' is at die (2, 0) here but at (0, 0) on line 2" },
     { "results_duplicate.csv", "results", "4:2",
       "duplicate device 'D001' on wafer 'W01' (first on line 2)" },
     { "sweeps_too_few_points.csv", "sweeps", "2", "has 7 points; a sweep needs at least 8" },
