@@ -139,6 +139,11 @@ START_TEST(single_layer_by_hand)
     /* T* = (hbar v_F / k_B) sqrt(6 n* / pi) = 7.638233e-6 m K * sqrt(6 * 1.5e15 / pi)
      * = 7.638233e-6 * 5.352372e7 = 408.827 K */
     CLOSE(p->disorder_crossover_K, 408.827, 1e-5);
+    /* gate efficiency at the neutrality point, (C_g/e) C_q/(C_g + C_q) with
+     * C_q = (2 e^2 k_B T / (pi (hbar v_F)^2)) ln 4 = 6.0862968e-3 * 1.3862944
+     * = 8.4373989e-3 F/m^2 (0.84 uF/cm^2, about 0.8 per Fang et al. 2007):
+     * 2.3947514e15 /m^2/V * 0.95650403 = 2.2905893e11 cm^-2 V^-1 (mpmath, 20 digits) */
+    CLOSE(p->gate_efficiency_per_cm2_V, 2.29058934734e11, 1e-9);
     assert_charge_balance(p);
 
     /* the annealed split adds 1.2e12 +/- 0.3e12: N = -0.8e12, V_cnp = 8.3516 * 0.4 */
