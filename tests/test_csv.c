@@ -166,7 +166,8 @@ START_TEST(line_numbers_are_physical)
 END_TEST
 
 /* Numbers accepted and the doubles they must give (C literals, which the
- * compiler rounds correctly: ISO C 6.4.4.2 recommends it, GCC does it). */
+ * compiler rounds correctly: ISO C 6.4.4.2 recommends it; that GCC does
+ * it is from memory). */
 START_TEST(numbers_accepted)
 {
     static const struct {

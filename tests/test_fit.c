@@ -54,8 +54,9 @@ static void synth(double *r_ohm, const double *vg_V, const sl_fit_params *p,
     }
 }
 
-/* Truths over the ranges of the assignment: V_cnp -20..30 V, mu 500..5000
- * cm^2/Vs, n0 5e10..5e11 cm^-2 (log-uniform), R_c 100..2000 ohm. */
+/* Truths over the ranges of issue 4 (realistic devices, common practice):
+ * V_cnp -20..30 V, mu 500..5000 cm^2/Vs, n0 5e10..5e11 cm^-2 (log-uniform),
+ * R_c 100..2000 ohm. */
 static sl_fit_params draw_truth(gsl_rng *rng)
 {
     sl_fit_params p;
@@ -142,7 +143,7 @@ START_TEST(noise_free_recovers_exactly)
 END_TEST
 
 /* ~1000 noisy good devices: at least 99 % within 0.05 V and 5 % mobility
- * (acceptance figures of the assignment), and the pulls (fit - truth)/sigma
+ * (acceptance figures of issue 4), and the pulls (fit - truth)/sigma
  * have SD near 1 (the definition of an honest standard error). */
 START_TEST(noisy_population_recovered)
 {
