@@ -1,9 +1,10 @@
 /* SPDX-License-Identifier: MIT
- * Tests of the lot analysis through the splitlot binary: compare's statistics
- * against NumPy and SciPy on a small hand-made lot, and simulated lots end to
- * end (an under-delivering treatment, faulty devices, drift across lots, the
- * calibrated plan YAML). Command-line details of compare/history are in
- * test_cli_compare.c. All data is invented.
+ * Tests of the lot analysis, through the splitlot binary and the library:
+ * compare's statistics against NumPy and SciPy on a small hand-made lot, flags
+ * and their reasons, and simulated lots end to end (an under-delivering
+ * treatment, faulty devices, drift across lots, the calibrated plan YAML).
+ * Command-line details of compare/history are in test_cli_compare.c. All data
+ * is invented.
  */
 #include <math.h>
 #include <stdio.h>
@@ -31,9 +32,9 @@ static void run_quiet(const char *dir, const char *const *argv)
     sl_run_result_free(&r);
 }
 
-/* The rows of a JSON array `"key": [` as printed by the command layer (one
- * object per line): *p walks them; returns the next row's line in buf, or 0
- * at the end of the array. */
+/* JSON as the command layer prints it, one object of an array per line:
+ * json_array finds `"key": [`, json_next_row walks from there, one row's line
+ * into buf, 0 at the end of the array. */
 static const char *json_array(const char *json, const char *key)
 {
     char pat[96];
@@ -59,8 +60,8 @@ static int json_next_row(const char **p, char *buf, size_t size)
     return 1;
 }
 
-/* Value of "key" in a row or document: a string into out (quotes dropped), a
- * list as its inner text, a number through json_num. */
+/* Value of "key" in a row or document: json_str gives a string without its
+ * quotes or a list's inner text, json_num a number (NaN for null). */
 static const char *json_find(const char *text, const char *key)
 {
     char pat[96];
@@ -154,7 +155,7 @@ static char *demo_plan_as(const char *lot)
 }
 
 /* Store a demo-plan lot named lot, simulate it with the given seed and extra
- * simulate options (NULL-terminated, may be empty) into folder sim, and
+ * simulate options (NULL-terminated, may be empty) into folder sim-LOT, and
  * ingest its sweeps (sweeps = 1) or results. */
 static void demo_lot(const char *dir, const char *lot, const char *seed, const char *const *extra,
                      int sweeps)
