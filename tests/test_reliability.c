@@ -168,7 +168,8 @@ static void rig_setup(void)
     predict_ok("late.yaml", "base.db");
     /* the three plans differ only in the lot name: their sweeps fit any lot */
     const char *small[] = { "simulate", "early.yaml", "--out", "small", "--points", "41", NULL };
-    const char *big[] = { "simulate", DEMO_PLAN, "--out", "big", "--devices-per-wafer", "400", NULL };
+    const char *big[] = { "simulate", DEMO_PLAN, "--out", "big", "--devices-per-wafer", "300",
+                          "--points", "101", NULL };
     run_ok(small);
     run_ok(big);
     rig.base_db = rig_path("base.db");
@@ -330,7 +331,7 @@ static int import_killed_after(const char *db, long delay_ms)
 START_TEST(kill_during_import_keeps_database_whole)
 {
     /* time-based kill points: the assertion is integrity, never speed */
-    static const long delays_ms[] = { 20, 60, 150, 300, 600 };
+    static const long delays_ms[] = { 10, 40, 100, 200, 400 };
     char *db = work_db("kill.db");
     int killed = 0, complete = 0;
     for (size_t i = 0; i < sizeof delays_ms / sizeof delays_ms[0]; i++) {
