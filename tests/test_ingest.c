@@ -10,6 +10,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <sqlite3.h>
+
 #include "splitlot/ingest.h"
 #include "splitlot/store.h"
 #include "test_support.h"
@@ -837,6 +839,18 @@ START_TEST(library_summary_counts)
     ck_assert_int_eq(sl_store_find_lot(store, &lot, "DEMO-01", diag), SL_OK);
     ck_assert_int_eq(sl_store_count_devices(store, &stored, lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(stored, sum.devices);
+    /* the import is on record with its counts */
+    sqlite3_stmt *q = NULL;
+    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
+                                        "SELECT kind, rows, devices, source_name FROM import", -1,
+                                        &q, NULL), SQLITE_OK);
+    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
+    ck_assert_str_eq((const char *)sqlite3_column_text(q, 0), "sweeps");
+    ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.rows);
+    ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
+    ck_assert_str_eq((const char *)sqlite3_column_text(q, 3), sweeps);
+    ck_assert_int_eq(sqlite3_step(q), SQLITE_DONE);
+    sqlite3_finalize(q);
     /* unknown lot: SL_ENOTFOUND, and the store still usable */
     opt.lot = "NOPE";
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_ENOTFOUND);
