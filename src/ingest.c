@@ -66,6 +66,7 @@ static sl_status load_wafers(ingest_ctx *c)
             return SL_EDB;
         }
         sl_fit_config_default(&w->fit, cg, plan->channel_length_um, plan->channel_width_um);
+        w->fit.model = c->opt->fit_model;
     }
     return SL_OK;
 }
@@ -217,17 +218,20 @@ static sl_status results_row(ingest_ctx *c)
     if (k == (size_t)-1)
         return SL_ENOMEM;
     c->devices.items[k].first_line = sl_csv_line(c->csv);
-    sl_store_device dev = { .wafer_id = c->wafers[row.wafer_index].wafer_id, .name = row.device,
-                            .die_x = row.die_x, .die_y = row.die_y, .source = "results",
-                            .temperature_K = row.temperature_K };
+    sl_store_device dev;
+    sl_store_device_init(&dev);
+    dev.wafer_id = c->wafers[row.wafer_index].wafer_id;
+    dev.name = row.device;
+    dev.die_x = row.die_x;
+    dev.die_y = row.die_y;
+    dev.source = "results";
+    dev.temperature_K = row.temperature_K;
     double *numbers[] = { &dev.cnp_V, &dev.mobility_cm2_per_Vs, &dev.n0_per_cm2, &dev.r_contact_ohm };
     long columns[] = { c->col.vcnp, c->col.mobility, c->col.n0, c->col.r_contact };
     for (int i = 0; st == SL_OK && i < 4; i++)
         st = ingest_optional_number(c, numbers[i], columns[i]);
     if (st != SL_OK)
         return st;
-    dev.cnp_sigma_V = dev.mobility_sigma_cm2_per_Vs = dev.n0_sigma_per_cm2 = NAN;
-    dev.r_contact_sigma_ohm = dev.rel_rms = dev.r_squared = NAN;
     dev.fit_class = isnan(dev.cnp_V) ? "unmeasured" : "ok";
     c->summary->unmeasured += isnan(dev.cnp_V);
     st = sl_store_insert_device(c->store, NULL, c->lot.lot_id, &dev, c->diag);

@@ -50,18 +50,24 @@ static ingest_batch *batch_new(int threads)
 
 /* ---- writing fitted devices ---- */
 
-static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_status st)
+static const char *model_name(sl_fit_model model)
 {
-    dev->cnp_V = dev->cnp_sigma_V = dev->mobility_cm2_per_Vs = dev->mobility_sigma_cm2_per_Vs = NAN;
-    dev->n0_per_cm2 = dev->n0_sigma_per_cm2 = dev->r_contact_ohm = dev->r_contact_sigma_ohm = NAN;
-    dev->rel_rms = dev->r_squared = NAN;
+    return model == SL_FIT_MODEL_TWO_MOBILITY ? "two-mobility" : "symmetric";
+}
+
+/* Fill what the fit found (the device starts from sl_store_device_init). */
+static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_status st,
+                             const sl_fit_config *cfg)
+{
     if (st != SL_OK) {
         dev->fit_class = "pending";
         return;
     }
     dev->fit_class = sl_fit_class_name(r->cls);
+    dev->fit_model = model_name(cfg->model);
     dev->rel_rms = r->rel_rms;
     dev->r_squared = r->r_squared;
+    dev->n_spikes = (long)r->n_spikes;
     if (r->cls != SL_FIT_OK)
         return; /* no invented numbers for what could not be fitted */
     dev->cnp_V = r->p.cnp_V;
@@ -72,6 +78,10 @@ static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_st
     dev->n0_sigma_per_cm2 = r->sigma.n0_per_cm2;
     dev->r_contact_ohm = r->p.r_contact_ohm;
     dev->r_contact_sigma_ohm = r->sigma.r_contact_ohm;
+    if (cfg->model == SL_FIT_MODEL_TWO_MOBILITY) {
+        dev->electron_mobility_cm2_per_Vs = r->electron_mobility_cm2_per_Vs.val;
+        dev->hole_mobility_cm2_per_Vs = r->hole_mobility_cm2_per_Vs.val;
+    }
 }
 
 static void count_class(ingest_ctx *c, ingest_device *d, const sl_fit_result *r, sl_status st)
@@ -86,11 +96,18 @@ static void count_class(ingest_ctx *c, ingest_device *d, const sl_fit_result *r,
 static sl_status write_item(ingest_ctx *c, const fit_batch *b, const fit_item *it)
 {
     ingest_device *d = &c->devices.items[it->device];
-    sl_store_device dev = { .wafer_id = c->wafers[d->wafer_index].wafer_id, .name = d->device,
-                            .die_x = d->die_x, .die_y = d->die_y, .source = "sweeps",
-                            .temperature_K = d->temperature_K, .vg_V = b->vg + it->offset,
-                            .r_ohm = b->r + it->offset, .n_points = it->n };
-    result_to_device(&dev, &it->result, it->status);
+    sl_store_device dev;
+    sl_store_device_init(&dev);
+    dev.wafer_id = c->wafers[d->wafer_index].wafer_id;
+    dev.name = d->device;
+    dev.die_x = d->die_x;
+    dev.die_y = d->die_y;
+    dev.source = "sweeps";
+    dev.temperature_K = d->temperature_K;
+    dev.vg_V = b->vg + it->offset;
+    dev.r_ohm = b->r + it->offset;
+    dev.n_points = it->n;
+    result_to_device(&dev, &it->result, it->status, it->cfg);
     sl_status st = sl_store_insert_device(c->store, &d->device_id, c->lot.lot_id, &dev, c->diag);
     if (st == SL_EINPUT) {
         sl_diag_clear(c->diag);
@@ -314,8 +331,12 @@ static sl_status refit_device(ingest_ctx *c, size_t k)
         }
     }
     if (st == SL_OK) {
-        sl_store_device dev = { .vg_V = vg, .r_ohm = r, .n_points = n };
-        result_to_device(&dev, &res, fit_st);
+        sl_store_device dev;
+        sl_store_device_init(&dev);
+        dev.vg_V = vg;
+        dev.r_ohm = r;
+        dev.n_points = n;
+        result_to_device(&dev, &res, fit_st, &c->wafers[d->wafer_index].fit);
         st = sl_store_update_device(c->store, d->device_id, &dev, c->diag);
         count_class(c, d, &res, fit_st);
     }

@@ -73,6 +73,32 @@ static sl_status insert_sweep(sl_store *store, long device_id, const sl_store_de
     return sl_store_step_done(store, st, diag, "store a sweep");
 }
 
+void sl_store_device_init(sl_store_device *d)
+{
+    memset(d, 0, sizeof *d);
+    d->temperature_K = d->cnp_V = d->cnp_sigma_V = NAN;
+    d->mobility_cm2_per_Vs = d->mobility_sigma_cm2_per_Vs = NAN;
+    d->n0_per_cm2 = d->n0_sigma_per_cm2 = d->r_contact_ohm = d->r_contact_sigma_ohm = NAN;
+    d->rel_rms = d->r_squared = NAN;
+    d->electron_mobility_cm2_per_Vs = d->hole_mobility_cm2_per_Vs = NAN;
+    d->n_spikes = -1;
+}
+
+/* fit_model, electron and hole mobility, n_spikes from parameter index first. */
+static void bind_fit_details(sqlite3_stmt *st, int first, const sl_store_device *d)
+{
+    if (d->fit_model)
+        sqlite3_bind_text(st, first, d->fit_model, -1, SQLITE_STATIC);
+    else
+        sqlite3_bind_null(st, first);
+    sl_store_bind_real_or_null(st, first + 1, d->electron_mobility_cm2_per_Vs);
+    sl_store_bind_real_or_null(st, first + 2, d->hole_mobility_cm2_per_Vs);
+    if (d->n_spikes >= 0)
+        sqlite3_bind_int64(st, first + 3, d->n_spikes);
+    else
+        sqlite3_bind_null(st, first + 3);
+}
+
 static void bind_device(sqlite3_stmt *st, long lot_id, const sl_store_device *d)
 {
     sqlite3_bind_int64(st, 1, lot_id);
@@ -91,6 +117,7 @@ static void bind_device(sqlite3_stmt *st, long lot_id, const sl_store_device *d)
         sqlite3_bind_int64(st, 19, (sqlite3_int64)d->n_points);
     else
         sqlite3_bind_null(st, 19);
+    bind_fit_details(st, 20, d);
 }
 
 sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
@@ -101,8 +128,9 @@ sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
             "INSERT INTO device (lot_id, wafer_id, name, die_x, die_y, source, fit_class, "
             "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, "
             "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, "
-            "r_squared, n_points) SELECT ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, "
-            "?13, ?14, ?15, ?16, ?17, ?18, ?19 "
+            "r_squared, n_points, fit_model, electron_mobility_cm2_per_Vs, "
+            "hole_mobility_cm2_per_Vs, n_spikes) SELECT ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, "
+            "?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, ?20, ?21, ?22, ?23 "
             /* the same wafer name under an older plan revision of the lot is the
              * same wafer: its devices are duplicates too (CROSS JOIN keeps the
              * index-only order: revisions, wafer by name, device) */
@@ -138,7 +166,8 @@ sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store
         "UPDATE device SET fit_class = ?2, cnp_V = ?3, cnp_sigma_V = ?4, mobility_cm2_per_Vs = ?5, "
         "mobility_sigma_cm2_per_Vs = ?6, n0_per_cm2 = ?7, n0_sigma_per_cm2 = ?8, "
         "r_contact_ohm = ?9, r_contact_sigma_ohm = ?10, rel_rms = ?11, r_squared = ?12, "
-        "n_points = ?13 WHERE id = ?1", diag);
+        "n_points = ?13, fit_model = ?14, electron_mobility_cm2_per_Vs = ?15, "
+        "hole_mobility_cm2_per_Vs = ?16, n_spikes = ?17 WHERE id = ?1", diag);
     if (s != SL_OK)
         return s;
     sqlite3_bind_int64(st, 1, device_id);
@@ -149,6 +178,7 @@ sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store
     for (int i = 0; i < (int)(sizeof values / sizeof values[0]); i++)
         sl_store_bind_real_or_null(st, 3 + i, values[i]);
     sqlite3_bind_int64(st, 13, (sqlite3_int64)dev->n_points);
+    bind_fit_details(st, 14, dev);
     s = sl_store_step_done(store, st, diag, "update a device");
     sqlite3_finalize(st);
     if (s == SL_OK && dev->vg_V)

@@ -30,6 +30,7 @@ typedef struct {
     sl_ingest_kind kind;
     int replace;               /* drop the lot's measurements first */
     int threads;               /* fitting threads, >= 1 (sweeps only) */
+    sl_fit_model fit_model;    /* sweeps: symmetric (default) or two mobilities */
     /* called now and then from the importing thread; may be NULL */
     void (*progress)(const sl_ingest_progress *progress, void *ctx);
     void *progress_ctx;

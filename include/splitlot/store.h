@@ -78,10 +78,17 @@ typedef struct {
     double n0_per_cm2, n0_sigma_per_cm2;
     double r_contact_ohm, r_contact_sigma_ohm;
     double rel_rms, r_squared;
+    const char *fit_model;    /* "symmetric", "two-mobility", or NULL (results) */
+    double electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs; /* two-mobility */
+    long n_spikes;            /* points left out as spikes; < 0 for none recorded */
     const double *vg_V;       /* raw sweep, or NULL */
     const double *r_ohm;
     size_t n_points;
 } sl_store_device;
+
+/* A device with every number NaN, no fit details and no sweep: start from
+ * this and fill what is known. */
+void sl_store_device_init(sl_store_device *dev);
 
 /* Insert a device (and its packed sweep); *device_id gets its row id (may be
  * NULL). A device already present for the lot and wafer gives SL_EINPUT

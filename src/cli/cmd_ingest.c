@@ -24,11 +24,14 @@ static const char usage[] =
     "  --sweeps FILE             transfer sweeps CSV\n"
     "  --replace                 replace the lot's measurements already stored\n"
     "  --threads N               fitting threads (default: the machine's cores)\n"
+    "  --model symmetric|two-mobility\n"
+    "                            transfer-curve model for sweeps: one mobility, or\n"
+    "                            electrons and holes each their own (default symmetric)\n"
     "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
     "  --format table|csv|json   summary format (default table)\n"
     "  --help                    this text\n";
 
-enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_THREADS, OPT_DB, OPT_FORMAT, OPT_HELP };
+enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_THREADS, OPT_MODEL, OPT_DB, OPT_FORMAT, OPT_HELP };
 
 static const struct option options[] = {
     { "lot", required_argument, NULL, OPT_LOT },
@@ -36,6 +39,7 @@ static const struct option options[] = {
     { "sweeps", required_argument, NULL, OPT_SWEEPS },
     { "replace", no_argument, NULL, OPT_REPLACE },
     { "threads", required_argument, NULL, OPT_THREADS },
+    { "model", required_argument, NULL, OPT_MODEL },
     { "db", required_argument, NULL, OPT_DB },
     { "format", required_argument, NULL, OPT_FORMAT },
     { "help", no_argument, NULL, OPT_HELP },
@@ -74,6 +78,14 @@ static int parse_args(ingest_args *a, int argc, char **argv)
             if (cli_parse_long("--threads", optarg, 1, &threads) != 0)
                 return CLI_EXIT_USAGE;
             a->opt.threads = (int)(threads > 64 ? 64 : threads);
+            break;
+        case OPT_MODEL:
+            if (strcmp(optarg, "symmetric") == 0)
+                a->opt.fit_model = SL_FIT_MODEL_SYMMETRIC;
+            else if (strcmp(optarg, "two-mobility") == 0)
+                a->opt.fit_model = SL_FIT_MODEL_TWO_MOBILITY;
+            else
+                return cli_usage_error("--model: '%s' is not one of symmetric, two-mobility", optarg);
             break;
         case OPT_FORMAT:
             if (cli_format_parse(optarg, &a->format) != 0)
