@@ -32,6 +32,21 @@ typedef struct {
     double *weight;      /* usable devices behind it */
 } wafer_means;
 
+/* Levels that have wafers, per factor, renumbered in plan order: a level
+ * without usable wafers cannot be estimated, but must not stop the others;
+ * a factor's reference is its first level that has wafers. */
+typedef struct {
+    size_t stride;       /* most levels of any factor */
+    size_t *old_of_new;  /* [factor * stride + new level] -> plan level */
+    size_t *n_present;   /* per factor */
+} level_map;
+
+static void level_map_free(level_map *map)
+{
+    free(map->old_of_new);
+    free(map->n_present);
+}
+
 static void wafer_means_free(wafer_means *m)
 {
     free(m->levels);
@@ -75,6 +90,41 @@ static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const
     return SL_OK;
 }
 
+static sl_status compact_levels(level_map *map, wafer_means *m, const sl_plan *plan)
+{
+    size_t nf = plan->n_factors;
+    map->stride = 1;
+    for (size_t f = 0; f < nf; f++)
+        if (plan->factors[f].n_levels > map->stride)
+            map->stride = plan->factors[f].n_levels;
+    size_t *new_of_old = malloc(nf * map->stride * sizeof *new_of_old);
+    map->old_of_new = malloc(nf * map->stride * sizeof *map->old_of_new);
+    map->n_present = calloc(nf + 1, sizeof *map->n_present);
+    if (!new_of_old || !map->old_of_new || !map->n_present) {
+        free(new_of_old);
+        return SL_ENOMEM;
+    }
+    for (size_t f = 0; f < nf; f++)
+        for (size_t l = 0; l < plan->factors[f].n_levels; l++) {
+            size_t used = 0;
+            for (size_t i = 0; i < m->n_obs && !used; i++)
+                used = m->levels[i * nf + f] == l;
+            new_of_old[f * map->stride + l] = map->n_present[f];
+            if (used)
+                map->old_of_new[f * map->stride + map->n_present[f]++] = l;
+        }
+    for (size_t i = 0; i < m->n_obs; i++)
+        for (size_t f = 0; f < nf; f++)
+            m->levels[i * nf + f] = new_of_old[f * map->stride + m->levels[i * nf + f]];
+    free(new_of_old);
+    return SL_OK;
+}
+
+static size_t plan_level(const level_map *map, size_t factor, size_t new_level)
+{
+    return map->old_of_new[factor * map->stride + new_level];
+}
+
 /* Wafers at each (factor, level), for the table. */
 static size_t wafers_at(const wafer_means *m, size_t nf, size_t factor, size_t level)
 {
@@ -84,18 +134,19 @@ static size_t wafers_at(const wafer_means *m, size_t nf, size_t factor, size_t l
     return n;
 }
 
-static void intercept_effect(sl_analyze_effect *e, const sl_plan *plan, const sl_stats_fit *fit)
+static void intercept_effect(sl_analyze_effect *e, const sl_plan *plan, const level_map *map,
+                             const sl_stats_fit *fit)
 {
     double planned = plan->baseline_doping_per_cm2.val;
     double var = plan->baseline_doping_per_cm2.sigma * plan->baseline_doping_per_cm2.sigma;
     for (size_t f = 0; f < plan->n_factors; f++) {
-        sl_est ref = sl_analyze_planned_level(plan, f, 0);
+        sl_est ref = sl_analyze_planned_level(plan, f, plan_level(map, f, 0));
         planned += ref.val;
         var += ref.sigma * ref.sigma;
     }
     e->factor = "intercept";
     e->level = "baseline";
-    e->reference = plan->factors[0].levels[0];
+    e->reference = plan->factors[0].levels[plan_level(map, 0, 0)];
     e->is_intercept = 1;
     e->planned_per_cm2 = planned;
     e->planned_sigma_per_cm2 = sqrt(var);
@@ -103,19 +154,18 @@ static void intercept_effect(sl_analyze_effect *e, const sl_plan *plan, const sl
     e->stderr_per_cm2 = fit->se[0];
 }
 
-static void level_effect(sl_analyze_effect *e, const sl_plan *plan, const sl_stats_column *col,
-                         const sl_stats_fit *fit, size_t c)
+/* A level's planned difference from its factor's reference; estimate NaN. */
+static void planned_effect(sl_analyze_effect *e, const sl_plan *plan, size_t factor, size_t level,
+                           size_t reference)
 {
-    const sl_plan_factor *f = &plan->factors[col->factor];
-    sl_est level = sl_analyze_planned_level(plan, col->factor, col->level);
-    sl_est ref = sl_analyze_planned_level(plan, col->factor, 0);
+    const sl_plan_factor *f = &plan->factors[factor];
+    sl_est planned = sl_analyze_planned_level(plan, factor, level);
     e->factor = f->name;
-    e->level = f->levels[col->level];
-    e->reference = f->levels[0];
-    e->planned_per_cm2 = level.val - ref.val;
-    e->planned_sigma_per_cm2 = level.sigma;
-    e->estimated_per_cm2 = fit->coef[c];
-    e->stderr_per_cm2 = fit->se[c];
+    e->level = f->levels[level];
+    e->reference = f->levels[reference];
+    e->planned_per_cm2 = planned.val - sl_analyze_planned_level(plan, factor, reference).val;
+    e->planned_sigma_per_cm2 = planned.sigma;
+    e->estimated_per_cm2 = e->stderr_per_cm2 = NAN;
 }
 
 static void judge(sl_analyze_effect *e)
@@ -125,26 +175,51 @@ static void judge(sl_analyze_effect *e)
                   gap > SL_EFFECT_PLAN_SIGMAS * e->planned_sigma_per_cm2;
 }
 
-static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, const sl_stats_fit *fit,
-                              const wafer_means *m)
+/* Levels of the plan without usable wafers, listed with no estimate. */
+static size_t count_absent(const sl_plan *plan, const level_map *map)
 {
-    a->effects = calloc(design->n_coef, sizeof *a->effects);
+    size_t n = 0;
+    for (size_t f = 0; f < plan->n_factors; f++)
+        n += plan->factors[f].n_levels - map->n_present[f];
+    return n;
+}
+
+static void fill_absent(sl_analysis *a, const level_map *map)
+{
+    const sl_plan *plan = a->plan;
+    for (size_t f = 0; f < plan->n_factors; f++)
+        for (size_t l = 0, k = 0; l < plan->factors[f].n_levels; l++) {
+            if (k < map->n_present[f] && plan_level(map, f, k) == l) {
+                k++;
+                continue;
+            }
+            planned_effect(&a->effects[a->n_effects++], plan, f, l, plan_level(map, f, 0));
+        }
+}
+
+static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, const sl_stats_fit *fit,
+                              const wafer_means *m, const level_map *map)
+{
+    a->effects = calloc(design->n_coef + count_absent(a->plan, map), sizeof *a->effects);
     if (!a->effects)
         return SL_ENOMEM;
-    a->n_effects = design->n_coef;
     for (size_t c = 0; c < design->n_coef; c++) {
-        sl_analyze_effect *e = &a->effects[c];
+        sl_analyze_effect *e = &a->effects[a->n_effects++];
         const sl_stats_column *col = &design->columns[c];
         if (col->factor == SL_STATS_INTERCEPT) {
-            intercept_effect(e, a->plan, fit);
+            intercept_effect(e, a->plan, map, fit);
             e->n_wafers = m->n_obs;
         } else {
-            level_effect(e, a->plan, col, fit, c);
+            planned_effect(e, a->plan, col->factor, plan_level(map, col->factor, col->level),
+                           plan_level(map, col->factor, 0));
+            e->estimated_per_cm2 = fit->coef[c];
+            e->stderr_per_cm2 = fit->se[c];
             e->n_wafers = wafers_at(m, a->plan->n_factors, col->factor, col->level);
         }
         judge(e);
         a->n_off_plan += e->off_plan && !e->is_intercept;
     }
+    fill_absent(a, map);
     return SL_OK;
 }
 
@@ -164,25 +239,23 @@ static void note_failure(sl_analysis *a, sl_status st, const sl_diag *fit_diag, 
 sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout)
 {
     wafer_means m = { 0 };
+    level_map map = { 0 };
     sl_stats_design *design = NULL;
     sl_stats_fit *fit = NULL;
     sl_diag *fit_diag = sl_diag_new();
-    size_t *n_levels = calloc(a->plan->n_factors + 1, sizeof *n_levels);
-    sl_status st = (fit_diag && n_levels) ? collect_wafer_means(&m, a, layout) : SL_ENOMEM;
-    for (size_t f = 0; n_levels && f < a->plan->n_factors; f++)
-        n_levels[f] = a->plan->factors[f].n_levels;
+    sl_status st = fit_diag ? collect_wafer_means(&m, a, layout) : SL_ENOMEM;
     if (st == SL_OK && m.n_obs == 0) {
         note_failure(a, SL_EINPUT, fit_diag, 0, 1);
-    } else if (st == SL_OK) {
+    } else if (st == SL_OK && (st = compact_levels(&map, &m, a->plan)) == SL_OK) {
         sl_status fst = sl_stats_design_treatment(&design, m.levels, m.n_obs, a->plan->n_factors,
-                                                  n_levels, fit_diag);
+                                                  map.n_present, fit_diag);
         if (fst == SL_OK && m.n_obs <= design->n_coef)
             fst = SL_EINPUT;
         else if (fst == SL_OK)
             fst = sl_stats_linear_fit(&fit, design->x, m.mean, m.weight, m.n_obs, design->n_coef,
                                       fit_diag);
         if (fst == SL_OK)
-            st = fill_effects(a, design, fit, &m);
+            st = fill_effects(a, design, fit, &m, &map);
         else if (fst == SL_ENOMEM)
             st = fst;
         else
@@ -191,7 +264,7 @@ sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout)
     sl_stats_fit_free(fit);
     sl_stats_design_free(design);
     wafer_means_free(&m);
-    free(n_levels);
+    level_map_free(&map);
     sl_diag_free(fit_diag);
     return st;
 }

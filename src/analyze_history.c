@@ -50,6 +50,8 @@ static sl_status add_lot(sl_history *h, const sl_analysis *a, size_t lot_index, 
     h->n_lots++;
     for (size_t i = 0; i < a->n_effects; i++) {
         const sl_analyze_effect *e = &a->effects[i];
+        if (!isfinite(e->estimated_per_cm2) || !isfinite(e->stderr_per_cm2))
+            continue; /* a level this lot could not estimate */
         sl_history_level *l = find_level(h, e);
         if (!l && !(l = add_level(h, e, n_lots)))
             return SL_ENOMEM;
@@ -122,11 +124,13 @@ static sl_status chart_level(sl_history_level *l)
         free(flags);
         return SL_ENOMEM;
     }
-    size_t m = baseline(l, n, x, se); /* all lots: nothing has drifted yet */
+    judge_drift(l, x, se, flags);
+    /* calibration pools the lots in control: a drifted lot is a finding, not
+     * a measurement of what the level normally delivers */
+    size_t m = baseline(l, n, x, se);
     l->pooled.value = l->pooled.se = NAN;
     if (sl_stats_pool_inverse_variance(&l->pooled, x, se, m) != SL_OK)
         l->pooled.value = l->pooled.se = NAN;
-    judge_drift(l, x, se, flags);
     free(x);
     free(se);
     free(flags);

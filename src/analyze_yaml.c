@@ -192,8 +192,9 @@ sl_status sl_history_emit_yaml(char **yaml, const sl_history *h)
     if (!out)
         return SL_ENOMEM;
     fprintf(out, "# Calibrated doping from %zu lot(s) with effect estimates; means are\n"
-                 "# inverse-variance pooled, sigmas the larger of the pooled standard error\n"
-                 "# and the lot-to-lot SD. Paste over the same keys of the next plan.\n",
+                 "# inverse-variance pooled over the lots that did not drift, sigmas the\n"
+                 "# larger of the pooled standard error and the lot-to-lot SD. Paste over\n"
+                 "# the same keys of the next plan.\n",
             h->n_lots);
     emit_baseline(out, h);
     emit_materials(out, h->newest_plan);

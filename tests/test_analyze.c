@@ -567,8 +567,8 @@ static int by_value(const void *a, const void *b)
 }
 
 /* A level's pooled value and chart recomputed from its per-lot estimates in
- * the history JSON: inverse-variance pooling over every lot (a drifted one
- * included, as analyze_history.c does today), x_p = sum(x/se^2)
+ * the history JSON: inverse-variance pooling over the first n_base lots (the
+ * ones that did not drift; a drifted lot is left out), x_p = sum(x/se^2)
  * / sum(1/se^2), se_p = sum(1/se^2)^-1/2 (the textbook fixed-effect pool);
  * the chart over the first n_base lots (those not flagged): centre = mean,
  * sigma = average moving range / 1.128 (Montgomery, Introduction to Statistical
@@ -587,9 +587,11 @@ static void check_level_history(const char *json, const char *level, size_t n_ba
         ck_assert_uint_lt(n, 8);
         x[n] = json_num(row, "estimated_per_cm2");
         se[n] = row_se[n] = json_num(row, "stderr_per_cm2");
-        sw += 1.0 / (se[n] * se[n]);
-        swx += x[n] / (se[n] * se[n]);
         n++;
+    }
+    for (size_t i = 0; i < n_base; i++) { /* pooled over the lots in control */
+        sw += 1.0 / (se[i] * se[i]);
+        swx += x[i] / (se[i] * se[i]);
     }
     ck_assert_uint_ge(n, n_base);
     json_row_where(json, "levels", "level", level, row, sizeof row);

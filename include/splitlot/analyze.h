@@ -110,7 +110,8 @@ typedef struct {
     double planned_per_cm2, planned_sigma_per_cm2; /* from the newest lot's plan */
     sl_history_point *points;    /* in lot creation order */
     size_t n_points;
-    sl_stats_pooled pooled;      /* inverse-variance pooled over lots */
+    sl_stats_pooled pooled;      /* inverse-variance pooled over the lots that
+                                    did not drift */
     sl_stats_ichart chart;       /* individuals chart of the estimates */
     size_t n_drift;
 } sl_history_level;

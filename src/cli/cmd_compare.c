@@ -185,8 +185,10 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
     cli_doc_num(doc, "levels_off_plan", (double)a->n_off_plan, 15);
     cli_doc_num(doc, "anova_F", a->anova.f, 5);
     cli_doc_num(doc, "anova_p", a->anova.p, 3);
-    if (a->effects_status != SL_OK)
+    if (a->effects_status != SL_OK) {
+        cli_doc_str(doc, "effects_note", a->effects_note);
         cli_doc_note(doc, a->effects_note);
+    }
     snprintf(text, sizeof text,
              "ANOVA of measured doping across %zu splits: F(%g, %g) = %.4g, p = %.3g.",
              a->anova.n_groups, a->anova.df_between, a->anova.df_within, a->anova.f, a->anova.p);
