@@ -766,6 +766,47 @@ START_TEST(test_emit_yaml_quotes_names)
 }
 END_TEST
 
+/* A level without usable wafers (here every wafer with the cap is left out of
+ * the file) is listed without an estimate, and the other levels are still
+ * estimated: one empty level must not stop the whole effects fit. */
+START_TEST(test_level_without_wafers)
+{
+    char *dir = sl_test_tmpdir(), *src = sl_test_data("analyze/stats-results.csv");
+    char *text = sl_test_read_file(src, NULL), *kept = malloc(strlen(text) + 1), *out = kept;
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"))
+        if (strncmp(line, "S07,", 4) && strncmp(line, "S08,", 4) && strncmp(line, "S09,", 4))
+            out += sprintf(out, "%s\n", line);
+    char *path = sl_test_path(dir, "no-cap.csv"), *plan = sl_test_data("analyze/stats-lot.yaml");
+    ck_assert_int_eq(sl_test_write_file(path, kept), 0);
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", "no-cap.csv", "--db", "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = run_ok(dir, compare);
+    char row[1024];
+    size_t estimated = 0, empty = 0;
+    for (const char *p = json_array(r.out, "effects"); json_next_row(&p, row, sizeof row);) {
+        int has = strstr(row, "\"estimated_per_cm2\": null") == NULL;
+        estimated += has;
+        empty += !has;
+        if (!has)
+            ck_assert_msg(strstr(row, "\"wafers\": 0") != NULL, "%s", row);
+    }
+    ck_assert_uint_eq(empty, 1);    /* the cap level */
+    ck_assert_uint_eq(estimated, 3); /* intercept, dielectric, anneal */
+    ck_assert(strstr(r.out, "\"effects_note\"") == NULL);
+    sl_run_result_free(&r);
+    free(plan);
+    free(path);
+    free(kept);
+    free(text);
+    free(src);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 static Suite *analyze_suite(void)
 {
     Suite *s = suite_create("analyze");
@@ -774,6 +815,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_anova_and_ci_against_scipy);
     tcase_add_test(stats, test_library_analysis);
     tcase_add_test(stats, test_off_prediction_without_spread);
+    tcase_add_test(stats, test_level_without_wafers);
     suite_add_tcase(s, stats);
     TCase *lots = tcase_create("simulated lots");
     tcase_set_timeout(lots, 300);
