@@ -34,8 +34,10 @@ void sl_store_rollback(sl_store *store);
 
 /* Save a validated plan, its layout and predictions under the plan's lot.
  * Same text as the newest revision: nothing is written, *created = 0.
- * Otherwise a new revision (1, 2, ...) is added, *created = 1. Call inside a
- * transaction. */
+ * Otherwise the next revision number (1, 2, ...) is given, *created = 1: to a
+ * new revision, or, when the text is that of an older revision (a plan changed
+ * and changed back), to that revision, which becomes the newest again with
+ * its stored splits, wafers and predictions. Call inside a transaction. */
 sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
                              const sl_plan *plan, const sl_layout *layout,
                              const sl_prediction *predictions, size_t n_predictions,
