@@ -203,24 +203,34 @@ static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
     c->sum->sweep_rows += n;
 }
 
-static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
+/* The device's results row: measured values when usable, an empty
+ * neutrality voltage for a faulty device (probed, no neutrality point). */
+static void write_result(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
 {
-    const char *wafer = c->plan->wafers[w->index];
-    int usable = dev->kind == DEV_GOOD || dev->kind == DEV_SHIFTED;
-    fprintf(c->results, "%s,D%03ld,%ld,%ld,", wafer, dev->number, dev->die_x, dev->die_y);
-    if (usable)
+    fprintf(c->results, "%s,D%03ld,%ld,%ld,", c->plan->wafers[w->index], dev->number, dev->die_x,
+            dev->die_y);
+    if (dev->kind == DEV_GOOD || dev->kind == DEV_SHIFTED)
         fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g\n",
                 dev->p.cnp_V + gsl_ran_gaussian(c->rng, 0.02),
                 dev->p.mobility_cm2_per_Vs * (1.0 + gsl_ran_gaussian(c->rng, 0.02)),
                 dev->p.n0_per_cm2, dev->p.r_contact_ohm, c->plan->temperatures_K[0]);
     else
         fprintf(c->results, ",,,,%g\n", c->plan->temperatures_K[0]);
-    fprintf(c->truth, "%s,D%03ld,%ld,%ld,%s,%s,%.6g,%.6g,%.6g,%.6g,%.6g,%.6g\n", wafer, dev->number,
-            dev->die_x, dev->die_y, c->plan->splits[w->split].name, kind_names[dev->kind],
-            dev->p.cnp_V, dev->p.mobility_cm2_per_Vs, dev->p.n0_per_cm2, dev->p.r_contact_ohm,
+}
+
+static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
+{
+    /* a device lost to yield was never probed: it is in the truth only */
+    if (dev->kind != DEV_UNPROBED) {
+        write_result(c, w, dev);
+        if (c->opt->write_sweeps)
+            write_sweep(c, w, dev);
+    }
+    fprintf(c->truth, "%s,D%03ld,%ld,%ld,%s,%s,%.6g,%.6g,%.6g,%.6g,%.6g,%.6g\n",
+            c->plan->wafers[w->index], dev->number, dev->die_x, dev->die_y,
+            c->plan->splits[w->split].name, kind_names[dev->kind], dev->p.cnp_V,
+            dev->p.mobility_cm2_per_Vs, dev->p.n0_per_cm2, dev->p.r_contact_ohm,
             dev->doping_per_cm2, w->cg * SL_NF_CM2_PER_F_M2);
-    if (c->opt->write_sweeps && dev->kind != DEV_UNPROBED)
-        write_sweep(c, w, dev);
     c->sum->devices++;
     c->sum->faulty += dev->kind >= DEV_SHORT && dev->kind <= DEV_POOR;
     c->sum->shifted += dev->kind == DEV_SHIFTED;

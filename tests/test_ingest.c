@@ -525,7 +525,7 @@ START_TEST(replace_and_duplicate_import)
     /* again without --replace: refused, naming the device, nothing changed */
     char *results = sl_test_path(dir, "sim/results.csv");
     assert_refused(dir, results, "results", "2:2",
-                   "device 'D001' on wafer 'W01' is already stored for lot 'DEMO-01'");
+                   "device 'D002' on wafer 'W01' is already stored for lot 'DEMO-01'");
     char *sweeps = sl_test_path(dir, "sim/sweeps.csv");
     assert_refused(dir, sweeps, "sweeps", "2",
                    "on wafer 'W01' is already stored for lot 'DEMO-01' (use --replace");
@@ -538,7 +538,7 @@ START_TEST(replace_and_duplicate_import)
     ck_assert_msg(strstr(r.out, expect) != NULL, "%s", r.out);
     sl_run_result_free(&r);
     lot_devices second = load_lot(db);
-    ck_assert_uint_lt(second.n, first.n); /* unprobed devices have no sweep */
+    ck_assert_uint_eq(second.n, first.n); /* the same probed devices, now from their sweeps */
     for (size_t i = 0; i < second.n; i++)
         ck_assert_str_eq(second.rows[i].source, "sweeps");
 
@@ -588,7 +588,7 @@ START_TEST(duplicate_across_plan_revisions)
 
     char *results = sl_test_path(dir, "sim/results.csv");
     assert_refused(dir, results, "results", "2:2",
-                   "device 'D001' on wafer 'W01' is already stored for lot 'DEMO-01'");
+                   "device 'D002' on wafer 'W01' is already stored for lot 'DEMO-01'");
     /* --replace takes them all again, once */
     r = ingest(dir, "t.db", "results", "sim/results.csv", NULL, 1);
     ck_assert_int_eq(r.exit_code, 0);

@@ -161,6 +161,28 @@ static size_t data_lines(const char *dir, const char *name, const char *wafer, s
     return n;
 }
 
+/* Truth lines of one device kind, and those of them on a wafer. */
+static size_t kind_lines(const char *dir, const char *name, const char *kind, const char *wafer,
+                         size_t *on_wafer)
+{
+    char *path = sl_test_path(dir, name);
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    char key[64], wafer_key[32];
+    snprintf(key, sizeof key, ",%s,", kind);
+    snprintf(wafer_key, sizeof wafer_key, "%s,", wafer);
+    size_t n = 0;
+    *on_wafer = 0;
+    for (char *line = strtok(text, "\n"); line; line = strtok(NULL, "\n"))
+        if (strstr(line, key)) {
+            n++;
+            *on_wafer += strncmp(line, wafer_key, strlen(wafer_key)) == 0;
+        }
+    free(text);
+    free(path);
+    return n;
+}
+
 START_TEST(counts_match_plan)
 {
     char *dir = sl_test_tmpdir();
@@ -169,20 +191,23 @@ START_TEST(counts_match_plan)
     /* plans/demo.yaml: 16 wafers in splits (18 minus the 2 spares) x 36 devices = 576 */
     ck_assert_msg(strstr(r.out, "16 wafers, 576 devices") != NULL, "%s", r.out);
     sl_run_result_free(&r);
-    size_t w = 0;
-    ck_assert_uint_eq(data_lines(dir, "s/results.csv", "W01", &w), 576);
-    ck_assert_uint_eq(w, 36);
+    size_t w = 0, w01 = 0;
     ck_assert_uint_eq(data_lines(dir, "s/truth.csv", "W04", &w), 576);
     ck_assert_uint_eq(w, 0); /* W04 is a spare in the demo layout */
-    /* sweeps: 201 points (the default) per probed device */
+    /* devices lost to yield (kind 'unprobed' in the truth) were never probed:
+     * results.csv and sweeps.csv hold every other device, 201 points each */
+    size_t unprobed = kind_lines(dir, "s/truth.csv", "unprobed", "W01", &w01);
+    ck_assert_uint_gt(unprobed, 0); /* expected yield 0.85 */
+    ck_assert_uint_eq(data_lines(dir, "s/results.csv", "W01", &w), 576 - unprobed);
+    ck_assert_uint_eq(w, 36 - w01);
     size_t sweeps = data_lines(dir, "s/sweeps.csv", "W01", &w);
-    ck_assert_uint_eq(sweeps % 201, 0);
-    ck_assert_uint_le(sweeps / 201, 576);
+    ck_assert_uint_eq(sweeps, 201 * (576 - unprobed));
+    ck_assert_uint_eq(w, 201 * (36 - w01));
 
     r = simulate(dir, "t", "3", "--devices-per-wafer", "20");
     ck_assert_int_eq(r.exit_code, 0);
     sl_run_result_free(&r);
-    ck_assert_uint_eq(data_lines(dir, "t/results.csv", "W16", &w), 16 * 20);
+    ck_assert_uint_eq(data_lines(dir, "t/truth.csv", "W16", &w), 16 * 20);
     ck_assert_uint_eq(w, 20);
     r = simulate(dir, "n", "3", "--no-sweeps", NULL);
     ck_assert_int_eq(r.exit_code, 0);
