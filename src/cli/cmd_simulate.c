@@ -25,6 +25,7 @@ static const char usage[] =
     "  --points N                points per sweep (default 201)\n"
     "  --noise-rel X             relative noise of each resistance (default 0.005)\n"
     "  --fault-fraction X        devices made faulty (default 0.02)\n"
+    "  --shifted-fraction X      good devices given an odd 3 V shift (default 0.005)\n"
     "  --devices-per-wafer N     override the plan's devices per wafer\n"
     "  --true-doping LEVEL=N     the doping (cm^-2) a dielectric, treatment or\n"
     "                            'baseline' really delivers (repeatable)\n"
@@ -33,7 +34,7 @@ static const char usage[] =
     "  --no-sweeps               write results.csv and the truth only\n"
     "  --help                    this text\n";
 
-enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_DRAW, OPT_HELP };
+enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_SHIFTED, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_DRAW, OPT_HELP };
 
 static const struct option options[] = {
     { "out", required_argument, NULL, OPT_OUT },
@@ -41,6 +42,7 @@ static const struct option options[] = {
     { "points", required_argument, NULL, OPT_POINTS },
     { "noise-rel", required_argument, NULL, OPT_NOISE },
     { "fault-fraction", required_argument, NULL, OPT_FAULT },
+    { "shifted-fraction", required_argument, NULL, OPT_SHIFTED },
     { "devices-per-wafer", required_argument, NULL, OPT_DEVICES },
     { "true-doping", required_argument, NULL, OPT_TRUE },
     { "no-sweeps", no_argument, NULL, OPT_NO_SWEEPS },
@@ -107,6 +109,7 @@ static int parse_option(simulate_args *a, int opt, const char *val)
         return 0;
     case OPT_NOISE: return parse_fraction("--noise-rel", val, &a->sim.noise_rel);
     case OPT_FAULT: return parse_fraction("--fault-fraction", val, &a->sim.fault_fraction);
+    case OPT_SHIFTED: return parse_fraction("--shifted-fraction", val, &a->sim.shifted_fraction);
     case OPT_DEVICES:
         if (cli_parse_long("--devices-per-wafer", val, 1, &n) != 0)
             return -1;
