@@ -22,6 +22,7 @@ struct ingest_batch {
     size_t run_device, run_offset;
     char run_wafer[SL_INGEST_MAX_NAME_BYTES + 1], run_name[SL_INGEST_MAX_NAME_BYTES + 1];
     char run_die_x[32], run_die_y[32];
+    size_t run_wafer_len, run_name_len, run_die_x_len, run_die_y_len;
 };
 
 void ingest_batch_free(ingest_batch *b)
@@ -192,6 +193,16 @@ static sl_status check_same_die(ingest_ctx *c, const ingest_device *d, const ing
     return SL_EINPUT;
 }
 
+/* Keep a field of the run's first row for the fast comparison; a text too
+ * long for the buffer gets a length no field can match, so every row of such
+ * a run takes the checked path. */
+static size_t remember(char *dst, size_t size, const char *text)
+{
+    size_t n = strlen(text);
+    snprintf(dst, size, "%s", text);
+    return n < size ? n : (size_t)-1;
+}
+
 static sl_status start_run(ingest_ctx *c, const ingest_row *row)
 {
     ingest_batch *b = c->batch;
@@ -215,22 +226,30 @@ static sl_status start_run(ingest_ctx *c, const ingest_row *row)
     b->in_run = 1;
     b->run_device = k;
     b->run_offset = b->buf[b->filling].n_points;
-    snprintf(b->run_wafer, sizeof b->run_wafer, "%s", row->wafer);
-    snprintf(b->run_name, sizeof b->run_name, "%s", row->device);
-    snprintf(b->run_die_x, sizeof b->run_die_x, "%s", sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
-    snprintf(b->run_die_y, sizeof b->run_die_y, "%s", sl_csv_field(c->csv, (size_t)c->col.die_y, NULL));
+    b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer, row->wafer);
+    b->run_name_len = remember(b->run_name, sizeof b->run_name, row->device);
+    b->run_die_x_len = remember(b->run_die_x, sizeof b->run_die_x,
+                                sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
+    b->run_die_y_len = remember(b->run_die_y, sizeof b->run_die_y,
+                                sl_csv_field(c->csv, (size_t)c->col.die_y, NULL));
     return SL_OK;
 }
 
 /* Same device as the run, with the same die text: the fast path of a row. */
+static bool field_is(const ingest_ctx *c, long column, const char *text, size_t len)
+{
+    size_t n;
+    const char *f = sl_csv_field(c->csv, (size_t)column, &n);
+    return n == len && memcmp(f, text, n) == 0;
+}
+
 static bool continues_run(const ingest_ctx *c)
 {
     const ingest_batch *b = c->batch;
-    return b->in_run &&
-           strcmp(sl_csv_field(c->csv, (size_t)c->col.device, NULL), b->run_name) == 0 &&
-           strcmp(sl_csv_field(c->csv, (size_t)c->col.wafer, NULL), b->run_wafer) == 0 &&
-           strcmp(sl_csv_field(c->csv, (size_t)c->col.die_x, NULL), b->run_die_x) == 0 &&
-           strcmp(sl_csv_field(c->csv, (size_t)c->col.die_y, NULL), b->run_die_y) == 0;
+    return b->in_run && field_is(c, c->col.device, b->run_name, b->run_name_len) &&
+           field_is(c, c->col.wafer, b->run_wafer, b->run_wafer_len) &&
+           field_is(c, c->col.die_x, b->run_die_x, b->run_die_x_len) &&
+           field_is(c, c->col.die_y, b->run_die_y, b->run_die_y_len);
 }
 
 static sl_status sweep_row(ingest_ctx *c)
