@@ -14,6 +14,7 @@
 
 void fit_batch_free(fit_batch *b)
 {
+    sl_diag_free(b->diag);
     free(b->items);
     free(b->vg);
     free(b->r);
@@ -73,7 +74,9 @@ struct fit_pool {
     int threads, started;
     fit_batch *job;
     atomic_size_t next;
-    int generation, finished, quit;
+    int generation, finished, completed, quit;
+    fit_batch_done done_fn;
+    void *done_ctx;
 };
 
 static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
@@ -111,18 +114,27 @@ static void *worker_main(void *arg)
         pthread_mutex_unlock(&p->mu);
         work_on(p, b, p->ws[w->index]);
         pthread_mutex_lock(&p->mu);
-        if (++p->finished == p->started)
+        if (++p->finished == p->started) {
+            /* the last thread out hands the batch on, outside the lock */
+            pthread_mutex_unlock(&p->mu);
+            if (p->done_fn)
+                p->done_fn(b, p->done_ctx);
+            pthread_mutex_lock(&p->mu);
+            p->completed = 1;
             pthread_cond_signal(&p->done);
+        }
     }
     pthread_mutex_unlock(&p->mu);
     return NULL;
 }
 
-fit_pool *fit_pool_new(int threads)
+fit_pool *fit_pool_new(int threads, fit_batch_done done, void *done_ctx)
 {
     fit_pool *p = calloc(1, sizeof *p);
     if (!p)
         return NULL;
+    p->done_fn = done;
+    p->done_ctx = done_ctx;
     p->threads = threads < 1 ? 1 : (threads > SL_POOL_MAX_THREADS ? SL_POOL_MAX_THREADS : threads);
     pthread_mutex_init(&p->mu, NULL);
     pthread_cond_init(&p->work, NULL);
@@ -191,6 +203,7 @@ sl_status fit_pool_submit(fit_pool *p, fit_batch *b)
     p->job = b;
     atomic_store(&p->next, 0);
     p->finished = 0;
+    p->completed = 0;
     p->generation++;
     pthread_cond_broadcast(&p->work);
     pthread_mutex_unlock(&p->mu);
@@ -200,7 +213,7 @@ sl_status fit_pool_submit(fit_pool *p, fit_batch *b)
 void fit_pool_wait(fit_pool *p)
 {
     pthread_mutex_lock(&p->mu);
-    while (p->job && p->finished < p->started)
+    while (p->job && !p->completed)
         pthread_cond_wait(&p->done, &p->mu);
     p->job = NULL;
     pthread_mutex_unlock(&p->mu);

@@ -14,8 +14,13 @@ typedef struct {
     size_t device;           /* index into the import's device table */
     size_t offset, n;        /* points in the batch arrays */
     const sl_fit_config *cfg;
+    /* what the writer needs, copied so it never reads the device table */
+    char wafer[65], name[65];
+    long wafer_id, die_x, die_y, first_line;
+    double temperature_K;
     sl_fit_result result;
     sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
+    long device_id;          /* set by the writer */
 } fit_item;
 
 typedef struct {
@@ -23,6 +28,8 @@ typedef struct {
     size_t n_items, cap_items;
     double *vg, *r;
     size_t n_points, cap_points;
+    sl_status write_status;  /* the writer's outcome for the whole batch */
+    sl_diag *diag;           /* the writer's messages, read after the wait */
 } fit_batch;
 
 void fit_batch_free(fit_batch *b);
@@ -34,13 +41,17 @@ int fit_batch_push(fit_batch *b, const fit_item *item);
 
 typedef struct fit_pool fit_pool;
 
+/* Called once per batch, on one pool thread, after every item is fitted
+ * (the import writes the batch there while its own thread reads on). */
+typedef void (*fit_batch_done)(fit_batch *batch, void *ctx);
+
 /* A pool of threads (>= 1) waiting for batches; NULL when out of resources. */
-fit_pool *fit_pool_new(int threads);
+fit_pool *fit_pool_new(int threads, fit_batch_done done, void *done_ctx);
 void fit_pool_free(fit_pool *pool);
 /* Start fitting every item of the batch on the pool's threads; the batch
  * must stay untouched until fit_pool_wait returns. One batch at a time. */
 sl_status fit_pool_submit(fit_pool *pool, fit_batch *batch);
-/* Wait until the submitted batch is fitted (no-op when none is). */
+/* Wait until the submitted batch is fitted and done with (no-op when none is). */
 void fit_pool_wait(fit_pool *pool);
 
 #endif

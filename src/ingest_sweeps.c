@@ -1,11 +1,14 @@
 /* SPDX-License-Identifier: MIT
- * Sweep import: rows are grouped into runs of one device, runs are fitted in
- * batches by a pool of threads while this thread reads the next batch, and
- * written in file order by this thread; rows of a device that come back later in the file are
- * staged in the store and the device is fitted again at the end. Memory holds
- * one batch of points, whatever the file size.
+ * Sweep import: rows are grouped into runs of one device; runs are fitted in
+ * batches by a pool of threads, and the last of them writes the batch to the
+ * store in file order, while this thread reads the next batch. Rows of a
+ * device that come back later in the file are staged in the store and the
+ * device is fitted again at the end. Memory holds two batches of points,
+ * whatever the file size.
  */
 #include <math.h>
+#include <pthread.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -15,8 +18,10 @@
 struct ingest_batch {
     fit_batch buf[2];
     int filling;             /* buffer rows go into */
-    int in_flight;           /* buffer being fitted, -1 when none */
+    int in_flight;           /* buffer being fitted and written, -1 when none */
     fit_pool *pool;
+    /* the store is written by a pool thread and staged into by this one */
+    pthread_mutex_t store_lock;
     /* the run being read (in buf[filling]) */
     int in_run;
     size_t run_device, run_offset;
@@ -25,6 +30,8 @@ struct ingest_batch {
     size_t run_wafer_len, run_name_len, run_die_x_len, run_die_y_len;
 };
 
+static void write_batch(fit_batch *batch, void *ctx);
+
 void ingest_batch_free(ingest_batch *b)
 {
     if (!b)
@@ -32,18 +39,22 @@ void ingest_batch_free(ingest_batch *b)
     fit_pool_free(b->pool);
     fit_batch_free(&b->buf[0]);
     fit_batch_free(&b->buf[1]);
+    pthread_mutex_destroy(&b->store_lock);
     free(b);
 }
 
-static ingest_batch *batch_new(int threads)
+static ingest_batch *batch_new(ingest_ctx *c, int threads)
 {
     ingest_batch *b = calloc(1, sizeof *b);
     if (!b)
         return NULL;
     b->in_flight = -1;
-    b->pool = fit_pool_new(threads);
-    if (!b->pool) {
-        free(b);
+    pthread_mutex_init(&b->store_lock, NULL);
+    b->buf[0].diag = sl_diag_new();
+    b->buf[1].diag = sl_diag_new();
+    b->pool = fit_pool_new(threads, write_batch, c);
+    if (!b->pool || !b->buf[0].diag || !b->buf[1].diag) {
+        ingest_batch_free(b);
         return NULL;
     }
     return b;
@@ -94,38 +105,65 @@ static void count_class(ingest_ctx *c, ingest_device *d, const sl_fit_result *r,
         c->summary->per_class[d->fit_class]++;
 }
 
-static sl_status write_item(ingest_ctx *c, const fit_batch *b, const fit_item *it)
+/* Store one fitted device; runs on a pool thread, so it reads only the item
+ * and what does not change during the import. */
+static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
 {
-    ingest_device *d = &c->devices.items[it->device];
     sl_store_device dev;
     sl_store_device_init(&dev);
-    dev.wafer_id = c->wafers[d->wafer_index].wafer_id;
-    dev.name = d->device;
-    dev.die_x = d->die_x;
-    dev.die_y = d->die_y;
+    dev.wafer_id = it->wafer_id;
+    dev.name = it->name;
+    dev.die_x = it->die_x;
+    dev.die_y = it->die_y;
     dev.source = "sweeps";
-    dev.temperature_K = d->temperature_K;
+    dev.temperature_K = it->temperature_K;
     dev.vg_V = b->vg + it->offset;
     dev.r_ohm = b->r + it->offset;
     dev.n_points = it->n;
     result_to_device(&dev, &it->result, it->status, it->cfg);
-    sl_status st = sl_store_insert_device(c->store, &d->device_id, c->lot.lot_id, &dev, c->diag);
+    sl_status st = sl_store_insert_device(c->store, &it->device_id, c->lot.lot_id, &dev, b->diag);
     if (st == SL_EINPUT) {
-        sl_diag_clear(c->diag);
-        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
+        sl_diag_clear(b->diag);
+        sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, 0,
                     "device '%s' on wafer '%s' is already stored for lot '%s' "
                     "(use --replace to import the lot's measurements again)",
-                    d->device, d->wafer, c->lot.lot);
+                    it->name, it->wafer, c->lot.lot);
     }
-    if (st != SL_OK)
-        return st;
-    d->n_points = it->n;
-    count_class(c, d, &it->result, it->status);
-    c->summary->devices++;
-    return SL_OK;
+    return st;
 }
 
-/* Wait for the batch being fitted and write its devices in file order. */
+/* The pool's hand-over: write a fitted batch in file order. */
+static void write_batch(fit_batch *b, void *ctx)
+{
+    ingest_ctx *c = ctx;
+    pthread_mutex_lock(&c->batch->store_lock);
+    b->write_status = SL_OK;
+    for (size_t i = 0; b->write_status == SL_OK && i < b->n_items; i++)
+        b->write_status = write_item(c, b, &b->items[i]);
+    pthread_mutex_unlock(&c->batch->store_lock);
+}
+
+/* Stage a revisiting run's points; the store is shared with the writer. */
+static sl_status stage_points(ingest_ctx *c, size_t device, const double *vg, const double *r,
+                              size_t n)
+{
+    pthread_mutex_lock(&c->batch->store_lock);
+    sl_status st = sl_store_stage_points(c->store, (long)device, vg, r, n, c->diag);
+    pthread_mutex_unlock(&c->batch->store_lock);
+    return st;
+}
+
+static void take_messages(sl_diag *to, sl_diag *from)
+{
+    for (size_t i = 0; i < sl_diag_size(from); i++) {
+        const sl_diag_msg *m = sl_diag_get(from, i);
+        sl_diag_add(to, m->severity, m->file, m->line, m->col, "%s", m->text);
+    }
+    sl_diag_clear(from);
+}
+
+/* Wait until the batch in flight is fitted and written, then account for
+ * its devices here, where the device table lives. */
 static sl_status drain(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
@@ -134,9 +172,16 @@ static sl_status drain(ingest_ctx *c)
     fit_pool_wait(b->pool);
     fit_batch *done = &b->buf[b->in_flight];
     b->in_flight = -1;
-    sl_status st = SL_OK;
-    for (size_t i = 0; st == SL_OK && i < done->n_items; i++)
-        st = write_item(c, done, &done->items[i]);
+    sl_status st = done->write_status;
+    take_messages(c->diag, done->diag);
+    for (size_t i = 0; st == SL_OK && i < done->n_items; i++) {
+        const fit_item *it = &done->items[i];
+        ingest_device *d = &c->devices.items[it->device];
+        d->device_id = it->device_id;
+        d->n_points = it->n;
+        count_class(c, d, &it->result, it->status);
+        c->summary->devices++;
+    }
     fit_batch_clear(done);
     ingest_progress(c, false);
     return st;
@@ -170,13 +215,17 @@ static sl_status end_run(ingest_ctx *c)
     size_t n = f->n_points - b->run_offset;
     if (d->revisit) {
         /* rows of a device met before: stage them, drop them from the batch */
-        sl_status st = sl_store_stage_points(c->store, (long)b->run_device, f->vg + b->run_offset,
-                                             f->r + b->run_offset, n, c->diag);
+        sl_status st = stage_points(c, b->run_device, f->vg + b->run_offset, f->r + b->run_offset, n);
         f->n_points = b->run_offset;
         return st;
     }
     fit_item item = { .device = b->run_device, .offset = b->run_offset, .n = n,
-                      .cfg = &c->wafers[d->wafer_index].fit };
+                      .cfg = &c->wafers[d->wafer_index].fit,
+                      .wafer_id = c->wafers[d->wafer_index].wafer_id, .die_x = d->die_x,
+                      .die_y = d->die_y, .first_line = d->first_line,
+                      .temperature_K = d->temperature_K };
+    snprintf(item.wafer, sizeof item.wafer, "%s", d->wafer);
+    snprintf(item.name, sizeof item.name, "%s", d->device);
     if (fit_batch_push(f, &item) != 0)
         return SL_ENOMEM;
     return f->n_items >= SL_INGEST_BATCH_DEVICES ? rotate(c) : SL_OK;
@@ -379,16 +428,15 @@ static sl_status resolve_pending(ingest_ctx *c)
 
 sl_status ingest_sweeps(ingest_ctx *c)
 {
-    c->batch = batch_new(c->opt->threads);
+    c->batch = batch_new(c, c->opt->threads);
     if (!c->batch)
         return SL_ENOMEM;
     bool has = false;
     sl_status st;
     while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
         c->summary->rows++;
-        st = sweep_row(c);
-        if (st != SL_OK)
-            return st;
+        if ((st = sweep_row(c)) != SL_OK)
+            break;
     }
     if (st == SL_OK)
         st = end_run(c);
@@ -398,7 +446,9 @@ sl_status ingest_sweeps(ingest_ctx *c)
         st = drain(c);
     if (st == SL_OK)
         st = resolve_pending(c);
+    /* on any failure the writer must be done before the caller rolls back:
+     * a write after the rollback would land outside the transaction */
     if (st != SL_OK)
-        fit_pool_wait(c->batch->pool); /* never free a buffer a thread still reads */
+        fit_pool_wait(c->batch->pool);
     return st;
 }
