@@ -1,10 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * Sweep import: rows are grouped into runs of one device; runs are fitted in
- * batches by a pool of threads, and the last of them writes the batch to the
- * store in file order, while this thread reads the next batch. Rows of a
- * device that come back later in the file are staged in the store and the
- * device is fitted again at the end. Memory holds two batches of points,
- * whatever the file size.
+ * batches by a pool of threads and written to the store in file order by a
+ * writer thread, while this thread reads on. Rows of a device that come back
+ * later in the file are staged in the store and the device is fitted again at
+ * the end. Memory holds a ring of four batches of points, whatever the file
+ * size.
  */
 #include <math.h>
 #include <pthread.h>
@@ -15,13 +15,29 @@
 #include "ingest_internal.h"
 #include "ingest_pool.h"
 
+/* Buffers in a ring: one filled by this thread, the others being fitted,
+ * waiting for the writer, or written and waiting to be accounted for. */
+#define SL_INGEST_BUFFERS 4
+
+typedef enum { BUF_FREE = 0, BUF_FILLING, BUF_SUBMITTED, BUF_WRITTEN } buffer_state;
+
 struct ingest_batch {
-    fit_batch buf[2];
+    fit_batch buf[SL_INGEST_BUFFERS];
+    buffer_state state[SL_INGEST_BUFFERS]; /* guarded by lock */
     int filling;             /* buffer rows go into */
-    int in_flight;           /* buffer being fitted and written, -1 when none */
+    int oldest;              /* oldest submitted buffer not yet accounted for */
+    int in_flight;           /* submitted buffers not yet accounted for */
     fit_pool *pool;
-    /* the store is written by a pool thread and staged into by this one */
+    /* the writer thread: buffers fitted by the pool, written in file order */
+    pthread_t writer;
+    int writer_started, quit;
+    int queue[SL_INGEST_BUFFERS], queue_head, queue_len;
+    pthread_mutex_t lock;
+    pthread_cond_t changed;
+    /* the store is written by the writer and staged into by this thread */
     pthread_mutex_t store_lock;
+    int write_failed;        /* guarded by store_lock: later buffers are skipped */
+    int reported;            /* a writer failure is already in the diagnostics */
     /* the run being read (in buf[filling]) */
     int in_run;
     size_t run_device, run_offset;
@@ -32,13 +48,58 @@ struct ingest_batch {
 
 static void write_batch(fit_batch *batch, void *ctx);
 
+/* The writer thread: takes fitted buffers in the order the pool finished
+ * them, which is file order (the pool fits one buffer at a time). */
+static void *writer_main(void *arg)
+{
+    ingest_ctx *c = arg;
+    ingest_batch *b = c->batch;
+    pthread_mutex_lock(&b->lock);
+    for (;;) {
+        while (b->queue_len == 0 && !b->quit)
+            pthread_cond_wait(&b->changed, &b->lock);
+        if (b->queue_len == 0)
+            break;
+        int i = b->queue[b->queue_head];
+        b->queue_head = (b->queue_head + 1) % SL_INGEST_BUFFERS;
+        b->queue_len--;
+        pthread_mutex_unlock(&b->lock);
+        write_batch(&b->buf[i], c);
+        pthread_mutex_lock(&b->lock);
+        b->state[i] = BUF_WRITTEN;
+        pthread_cond_broadcast(&b->changed);
+    }
+    pthread_mutex_unlock(&b->lock);
+    return NULL;
+}
+
+/* The pool's hand-over, on a pool thread: queue the fitted buffer. */
+static void fitted(fit_batch *batch, void *ctx)
+{
+    ingest_batch *b = ((ingest_ctx *)ctx)->batch;
+    pthread_mutex_lock(&b->lock);
+    b->queue[(b->queue_head + b->queue_len) % SL_INGEST_BUFFERS] = (int)(batch - b->buf);
+    b->queue_len++;
+    pthread_cond_broadcast(&b->changed);
+    pthread_mutex_unlock(&b->lock);
+}
+
 void ingest_batch_free(ingest_batch *b)
 {
     if (!b)
         return;
-    fit_pool_free(b->pool);
-    fit_batch_free(&b->buf[0]);
-    fit_batch_free(&b->buf[1]);
+    fit_pool_free(b->pool); /* no more hand-overs after this */
+    if (b->writer_started) {
+        pthread_mutex_lock(&b->lock);
+        b->quit = 1;
+        pthread_cond_broadcast(&b->changed);
+        pthread_mutex_unlock(&b->lock);
+        pthread_join(b->writer, NULL);
+    }
+    for (int i = 0; i < SL_INGEST_BUFFERS; i++)
+        fit_batch_free(&b->buf[i]);
+    pthread_cond_destroy(&b->changed);
+    pthread_mutex_destroy(&b->lock);
     pthread_mutex_destroy(&b->store_lock);
     free(b);
 }
@@ -48,13 +109,19 @@ static ingest_batch *batch_new(ingest_ctx *c, int threads)
     ingest_batch *b = calloc(1, sizeof *b);
     if (!b)
         return NULL;
-    b->in_flight = -1;
+    pthread_mutex_init(&b->lock, NULL);
+    pthread_cond_init(&b->changed, NULL);
     pthread_mutex_init(&b->store_lock, NULL);
-    b->buf[0].diag = sl_diag_new();
-    b->buf[1].diag = sl_diag_new();
-    b->pool = fit_pool_new(threads, write_batch, c);
-    if (!b->pool || !b->buf[0].diag || !b->buf[1].diag) {
+    int ok = 1;
+    for (int i = 0; i < SL_INGEST_BUFFERS; i++)
+        ok = ok && (b->buf[i].diag = sl_diag_new()) != NULL;
+    b->state[0] = BUF_FILLING;
+    c->batch = b;
+    b->pool = ok ? fit_pool_new(threads, fitted, c) : NULL;
+    b->writer_started = b->pool && pthread_create(&b->writer, NULL, writer_main, c) == 0;
+    if (!b->writer_started) {
         ingest_batch_free(b);
+        c->batch = NULL;
         return NULL;
     }
     return b;
@@ -132,14 +199,16 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     return st;
 }
 
-/* The pool's hand-over: write a fitted batch in file order. */
+/* Write a fitted buffer in file order; runs on the writer thread. */
 static void write_batch(fit_batch *b, void *ctx)
 {
     ingest_ctx *c = ctx;
     pthread_mutex_lock(&c->batch->store_lock);
-    b->write_status = SL_OK;
+    /* after a failure the import is lost anyway: write nothing more */
+    b->write_status = c->batch->write_failed ? SL_EDB : SL_OK;
     for (size_t i = 0; b->write_status == SL_OK && i < b->n_items; i++)
         b->write_status = write_item(c, b, &b->items[i]);
+    c->batch->write_failed |= b->write_status != SL_OK;
     pthread_mutex_unlock(&c->batch->store_lock);
 }
 
@@ -162,20 +231,39 @@ static void take_messages(sl_diag *to, sl_diag *from)
     sl_diag_clear(from);
 }
 
-/* Wait until the batch in flight is fitted and written, then account for
- * its devices here, where the device table lives. */
-static sl_status drain(ingest_ctx *c)
+static buffer_state state_of(ingest_batch *b, int i)
+{
+    pthread_mutex_lock(&b->lock);
+    buffer_state st = b->state[i];
+    pthread_mutex_unlock(&b->lock);
+    return st;
+}
+
+static void set_state(ingest_batch *b, int i, buffer_state st)
+{
+    pthread_mutex_lock(&b->lock);
+    b->state[i] = st;
+    pthread_mutex_unlock(&b->lock);
+}
+
+/* Wait until the oldest submitted buffer is written, then account for its
+ * devices here, where the device table lives, and free the buffer. */
+static sl_status drain_oldest(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
-    if (b->in_flight < 0)
-        return SL_OK;
-    fit_pool_wait(b->pool);
-    fit_batch *done = &b->buf[b->in_flight];
-    b->in_flight = -1;
+    int i = b->oldest;
+    pthread_mutex_lock(&b->lock);
+    while (b->state[i] != BUF_WRITTEN)
+        pthread_cond_wait(&b->changed, &b->lock);
+    pthread_mutex_unlock(&b->lock);
+    fit_batch *done = &b->buf[i];
     sl_status st = done->write_status;
-    take_messages(c->diag, done->diag);
-    for (size_t i = 0; st == SL_OK && i < done->n_items; i++) {
-        const fit_item *it = &done->items[i];
+    if (st != SL_OK && !b->reported) /* the first failure says what went wrong */
+        take_messages(c->diag, done->diag);
+    b->reported |= st != SL_OK;
+    sl_diag_clear(done->diag);
+    for (size_t k = 0; st == SL_OK && k < done->n_items; k++) {
+        const fit_item *it = &done->items[k];
         ingest_device *d = &c->devices.items[it->device];
         d->device_id = it->device_id;
         d->n_points = it->n;
@@ -183,23 +271,51 @@ static sl_status drain(ingest_ctx *c)
         c->summary->devices++;
     }
     fit_batch_clear(done);
+    set_state(b, i, BUF_FREE);
+    b->oldest = (i + 1) % SL_INGEST_BUFFERS;
+    b->in_flight--;
     ingest_progress(c, false);
     return st;
 }
 
-/* Hand the filled buffer to the pool and keep reading into the other one. */
+/* Every submitted buffer written and accounted for (all of them, even after
+ * an error: nothing may be written once the caller rolls back). */
+static sl_status drain_all(ingest_ctx *c)
+{
+    sl_status st = SL_OK;
+    while (c->batch->in_flight > 0) {
+        sl_status one = drain_oldest(c);
+        if (st == SL_OK)
+            st = one;
+    }
+    return st;
+}
+
+/* Hand the filled buffer to the pool and go on reading into the next one,
+ * once that one is free. On an error the states are left as they are, for
+ * drain_all. */
 static sl_status rotate(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
-    sl_status st = drain(c);
-    if (st != SL_OK || b->buf[b->filling].n_items == 0)
-        return st;
-    st = fit_pool_submit(b->pool, &b->buf[b->filling]);
-    if (st != SL_OK)
-        return st;
-    b->in_flight = b->filling;
-    b->filling = 1 - b->filling;
-    return SL_OK;
+    if (b->buf[b->filling].n_items == 0)
+        return SL_OK;
+    if (b->in_flight == 0)
+        b->oldest = b->filling;
+    set_state(b, b->filling, BUF_SUBMITTED);
+    sl_status st = fit_pool_submit(b->pool, &b->buf[b->filling]);
+    if (st != SL_OK) { /* never reached the pool: drain reports it */
+        b->buf[b->filling].write_status = st;
+        set_state(b, b->filling, BUF_WRITTEN);
+    }
+    b->in_flight++;
+    b->filling = (b->filling + 1) % SL_INGEST_BUFFERS;
+    while (state_of(b, b->filling) != BUF_FREE) {
+        sl_status drained = drain_oldest(c);
+        if (drained != SL_OK)
+            return drained;
+    }
+    set_state(b, b->filling, BUF_FILLING);
+    return st;
 }
 
 /* ---- runs: consecutive rows of one device ---- */
@@ -428,8 +544,7 @@ static sl_status resolve_pending(ingest_ctx *c)
 
 sl_status ingest_sweeps(ingest_ctx *c)
 {
-    c->batch = batch_new(c, c->opt->threads);
-    if (!c->batch)
+    if (!batch_new(c, c->opt->threads))
         return SL_ENOMEM;
     bool has = false;
     sl_status st;
@@ -442,13 +557,12 @@ sl_status ingest_sweeps(ingest_ctx *c)
         st = end_run(c);
     if (st == SL_OK)
         st = rotate(c); /* the last, partly filled buffer */
+    /* on any failure too, the writer must be done before the caller rolls
+     * back: a write after the rollback would land outside the transaction */
+    sl_status drained = drain_all(c);
     if (st == SL_OK)
-        st = drain(c);
+        st = drained;
     if (st == SL_OK)
         st = resolve_pending(c);
-    /* on any failure the writer must be done before the caller rolls back:
-     * a write after the rollback would land outside the transaction */
-    if (st != SL_OK)
-        fit_pool_wait(c->batch->pool);
     return st;
 }
