@@ -24,10 +24,17 @@ char *sl_test_path(const char *dir, const char *name)
 
 char *sl_test_data(const char *name) { return sl_test_path(SL_TEST_DATA_DIR, name); }
 
-char *sl_test_tmpdir(void)
+/* $TMPDIR, else the POSIX default temporary folder. */
+static const char *temp_base(void)
 {
     const char *base = getenv("TMPDIR");
-    char *tmpl = sl_test_path(base && *base ? base : "/tmp", "splitlot-test-XXXXXX");
+    return base && *base ? base : "/tmp";
+}
+
+char *sl_test_tmpdir(void)
+{
+    const char *base = temp_base();
+    char *tmpl = sl_test_path(base, "splitlot-test-XXXXXX");
     if (!mkdtemp(tmpl)) {
         free(tmpl);
         return NULL;
@@ -82,7 +89,7 @@ int sl_test_write_file(const char *path, const char *text)
 
 int sl_test_files_equal(const char *a, const char *b)
 {
-    size_t na, nb;
+    size_t na = 0, nb = 0;
     char *x = sl_test_read_file(a, &na), *y = sl_test_read_file(b, &nb);
     int eq = x && y && na == nb && memcmp(x, y, na) == 0;
     free(x);
@@ -128,8 +135,12 @@ static char *slurp_fd(int fd)
 sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *const *argv)
 {
     sl_run_result r = { -1, NULL, NULL };
-    char out_tmpl[] = "/tmp/splitlot-out-XXXXXX", err_tmpl[] = "/tmp/splitlot-err-XXXXXX";
-    char in_tmpl[] = "/tmp/splitlot-in-XXXXXX";
+    /* the captured streams live in the temp dir (TMPDIR honoured) */
+    const char *base = temp_base();
+    char out_tmpl[4096], err_tmpl[4096], in_tmpl[4096];
+    snprintf(out_tmpl, sizeof out_tmpl, "%s/splitlot-out-XXXXXX", base);
+    snprintf(err_tmpl, sizeof err_tmpl, "%s/splitlot-err-XXXXXX", base);
+    snprintf(in_tmpl, sizeof in_tmpl, "%s/splitlot-in-XXXXXX", base);
     int out_fd = mkstemp(out_tmpl), err_fd = mkstemp(err_tmpl), in_fd = mkstemp(in_tmpl);
     if (stdin_text) {
         size_t len = strlen(stdin_text);
