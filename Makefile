@@ -12,12 +12,15 @@ JOBS ?= 2
 DEMO ?= demo-out
 SPLITLOT = $(BUILD)/splitlot
 
-.PHONY: all deps build demo check asan fuzz valgrind bench bench-reference clean
+.PHONY: all deps deps-test build demo check asan fuzz valgrind bench bench-reference clean
 
 all: build
 
 deps:
-	@./.ci/install-deps
+	@./.ci/install-deps build
+
+deps-test:
+	@./.ci/install-deps test
 
 # the build log is shown only when something fails
 build: deps
@@ -27,10 +30,10 @@ build: deps
 	   cmake --build $(BUILD) -j$(JOBS); } >$(BUILD)/build.log 2>&1 || \
 	   { cat $(BUILD)/build.log; exit 1; }
 
-check: build
+check: deps-test build
 	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
 
-asan: deps
+asan: deps-test
 	@echo "building in build-asan/ (log: build-asan/build.log)"
 	@mkdir -p build-asan
 	@{ cmake -S . -B build-asan -DCMAKE_BUILD_TYPE=Debug -DSL_SANITIZE=ON && \
