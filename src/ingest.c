@@ -32,13 +32,12 @@ void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
                 "%s", text);
 }
 
-void ingest_progress(ingest_ctx *c, bool final)
+void ingest_progress(ingest_ctx *c)
 {
     if (!c->opt->progress)
         return;
-    sl_ingest_progress p = { c->summary->rows, c->summary->devices, 0.0, 0.0,
+    sl_ingest_progress p = { c->summary->rows, c->summary->devices,
                              ingest_now_s() - c->started_s };
-    (void)final;
     c->opt->progress(&p, c->opt->progress_ctx);
 }
 
@@ -256,7 +255,7 @@ static sl_status ingest_results(ingest_ctx *c)
         if (st != SL_OK)
             return st;
         if ((c->summary->rows & 0xffff) == 0)
-            ingest_progress(c, false);
+            ingest_progress(c);
     }
     return st;
 }
@@ -318,7 +317,7 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
         st = sl_store_commit(store, diag);
     else
         sl_store_rollback(store);
-    ingest_progress(&c, true);
+    ingest_progress(&c);
     ctx_free(&c);
     out->seconds = ingest_now_s() - c.started_s;
     return st;

@@ -64,7 +64,7 @@ sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);
 /* An optional numeric column: NaN when absent or empty. */
 sl_status ingest_optional_number(ingest_ctx *c, double *out, long column);
 /* Report progress every so many rows. */
-void ingest_progress(ingest_ctx *c, bool final);
+void ingest_progress(ingest_ctx *c);
 double ingest_now_s(void);
 /* A located error at the current row. */
 void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)

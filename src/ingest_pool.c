@@ -79,6 +79,8 @@ struct fit_pool {
     void *done_ctx;
 };
 
+static void fit_pool_wait(fit_pool *p);
+
 static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
 {
     if (it->n < SL_FIT_MIN_POINTS) {
@@ -210,7 +212,8 @@ sl_status fit_pool_submit(fit_pool *p, fit_batch *b)
     return SL_OK;
 }
 
-void fit_pool_wait(fit_pool *p)
+/* Wait until the submitted batch is fitted and handed over (no-op when none is). */
+static void fit_pool_wait(fit_pool *p)
 {
     pthread_mutex_lock(&p->mu);
     while (p->job && !p->completed)

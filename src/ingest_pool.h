@@ -48,10 +48,9 @@ typedef void (*fit_batch_done)(fit_batch *batch, void *ctx);
 /* A pool of threads (>= 1) waiting for batches; NULL when out of resources. */
 fit_pool *fit_pool_new(int threads, fit_batch_done done, void *done_ctx);
 void fit_pool_free(fit_pool *pool);
-/* Start fitting every item of the batch on the pool's threads; the batch
- * must stay untouched until fit_pool_wait returns. One batch at a time. */
+/* Start fitting every item of the batch on the pool's threads, once the
+ * previous batch is fitted and handed over; the batch must stay untouched
+ * until the hand-over callback has run for it. One batch at a time. */
 sl_status fit_pool_submit(fit_pool *pool, fit_batch *batch);
-/* Wait until the submitted batch is fitted and done with (no-op when none is). */
-void fit_pool_wait(fit_pool *pool);
 
 #endif

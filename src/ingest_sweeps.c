@@ -274,7 +274,7 @@ static sl_status drain_oldest(ingest_ctx *c)
     set_state(b, i, BUF_FREE);
     b->oldest = (i + 1) % SL_INGEST_BUFFERS;
     b->in_flight--;
-    ingest_progress(c, false);
+    ingest_progress(c);
     return st;
 }
 

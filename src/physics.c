@@ -314,16 +314,10 @@ const sl_material *sl_physics_material_find(const char *name)
 /* Closest built-in material name within edit distance 2, or NULL. */
 static const char *nearest_material(const char *name)
 {
-    const char *best = NULL;
-    size_t best_d = 3;
-    for (size_t i = 0; i < sl_physics_material_count(); i++) {
-        size_t d = sl_text_edit_distance(name, material_table[i].name);
-        if (d < best_d) {
-            best_d = d;
-            best = material_table[i].name;
-        }
-    }
-    return best;
+    const char *names[sizeof material_table / sizeof material_table[0]];
+    for (size_t i = 0; i < sl_physics_material_count(); i++)
+        names[i] = material_table[i].name;
+    return sl_text_nearest(name, names, sl_physics_material_count(), 2);
 }
 
 static sl_status parse_layer(sl_layer *layer, char *item, sl_diag *diag)

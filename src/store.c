@@ -227,6 +227,13 @@ sl_status sl_store_step_done(sl_store *store, sqlite3_stmt *st, sl_diag *diag, c
     return SL_OK;
 }
 
+sl_status sl_store_step_once(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what)
+{
+    sl_status s = sl_store_step_done(store, st, diag, what);
+    sqlite3_finalize(st);
+    return s;
+}
+
 /* ---- lots and plan revisions ---- */
 
 static sl_status lot_id_of(sl_store *store, long *lot_id, const char *lot, int create, sl_diag *diag)
@@ -252,8 +259,7 @@ static sl_status lot_id_of(sl_store *store, long *lot_id, const char *lot, int c
         return s;
     sqlite3_bind_text(st, 1, lot, -1, SQLITE_TRANSIENT);
     sqlite3_bind_text(st, 2, now, -1, SQLITE_TRANSIENT);
-    s = sl_store_step_done(store, st, diag, "add the lot");
-    sqlite3_finalize(st);
+    s = sl_store_step_once(store, st, diag, "add the lot");
     *lot_id = (long)sqlite3_last_insert_rowid(store->db);
     return s;
 }
@@ -298,8 +304,7 @@ static sl_status insert_revision(sl_store *store, long *revision_id, long lot_id
     sqlite3_bind_text(st, 4, plan->text, (int)plan->text_len, SQLITE_TRANSIENT);
     sqlite3_bind_text(st, 5, plan->path ? plan->path : "", -1, SQLITE_TRANSIENT);
     sqlite3_bind_text(st, 6, now, -1, SQLITE_TRANSIENT);
-    s = sl_store_step_done(store, st, diag, "store the plan revision");
-    sqlite3_finalize(st);
+    s = sl_store_step_once(store, st, diag, "store the plan revision");
     *revision_id = (long)sqlite3_last_insert_rowid(store->db);
     return s;
 }
@@ -323,8 +328,7 @@ static sl_status revive_revision(sl_store *store, int *revived, long lot_id, int
     sqlite3_bind_text(st, 2, now, -1, SQLITE_TRANSIENT);
     sqlite3_bind_int64(st, 3, lot_id);
     sqlite3_bind_text(st, 4, hash, -1, SQLITE_TRANSIENT);
-    s = sl_store_step_done(store, st, diag, "store the plan revision");
-    sqlite3_finalize(st);
+    s = sl_store_step_once(store, st, diag, "store the plan revision");
     *revived = s == SL_OK && sqlite3_changes(store->db) == 1;
     return s;
 }

@@ -179,8 +179,7 @@ sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store
         sl_store_bind_real_or_null(st, 3 + i, values[i]);
     sqlite3_bind_int64(st, 13, (sqlite3_int64)dev->n_points);
     bind_fit_details(st, 14, dev);
-    s = sl_store_step_done(store, st, diag, "update a device");
-    sqlite3_finalize(st);
+    s = sl_store_step_once(store, st, diag, "update a device");
     if (s == SL_OK && dev->vg_V)
         s = insert_sweep(store, device_id, dev, diag);
     return s;
@@ -297,8 +296,7 @@ sl_status sl_store_delete_measurements(sl_store *store, long lot_id, sl_diag *di
         if (s != SL_OK)
             return s;
         sqlite3_bind_int64(st, 1, lot_id);
-        s = sl_store_step_done(store, st, diag, "remove the lot's measurements");
-        sqlite3_finalize(st);
+        s = sl_store_step_once(store, st, diag, "remove the lot's measurements");
         if (s != SL_OK)
             return s;
     }
@@ -323,8 +321,7 @@ sl_status sl_store_record_import(sl_store *store, long lot_id, const char *kind,
     sqlite3_bind_int64(st, 4, rows);
     sqlite3_bind_int64(st, 5, devices);
     sqlite3_bind_text(st, 6, now, -1, SQLITE_TRANSIENT);
-    s = sl_store_step_done(store, st, diag, "record the import");
-    sqlite3_finalize(st);
+    s = sl_store_step_once(store, st, diag, "record the import");
     return s;
 }
 

@@ -24,6 +24,8 @@ sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what);
 sl_status sl_store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what);
 sl_status sl_store_prepare(sl_store *store, sqlite3_stmt **stmt, const char *sql, sl_diag *diag);
 sl_status sl_store_step_done(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what);
+/* The same for a statement used once: stepped, then finalized. */
+sl_status sl_store_step_once(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what);
 void sl_store_bind_real_or_null(sqlite3_stmt *st, int index, double v);
 double sl_store_column_real_or_nan(sqlite3_stmt *st, int col);
 void sl_store_now_utc(char out[32]);

@@ -15,12 +15,10 @@
 
 typedef enum { SL_INGEST_RESULTS = 0, SL_INGEST_SWEEPS } sl_ingest_kind;
 
-/* Progress as the import streams; bytes_total is 0 when unknown (a pipe). */
+/* Progress as the import streams. */
 typedef struct {
     long rows;
     long devices;
-    double bytes_read;
-    double bytes_total;
     double seconds;
 } sl_ingest_progress;
 
