@@ -1,6 +1,7 @@
 /* SPDX-License-Identifier: MIT
  * Private parts of the store shared by its source files (store.c,
- * store_device.c, store_read.c): the handle and small SQLite helpers.
+ * store_device.c, store_sweep.c, store_read.c): the handle and small SQLite
+ * helpers.
  */
 #ifndef SL_STORE_INTERNAL_H
 #define SL_STORE_INTERNAL_H
@@ -31,5 +32,8 @@ double sl_store_column_real_or_nan(sqlite3_stmt *st, int col);
 void sl_store_now_utc(char out[32]);
 /* Pack a sweep as little-endian doubles (vg, r per point); malloc'd. */
 unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n);
+/* Store (or replace) the sweep of a device row: dev->vg_V, r_ohm, n_points. */
+sl_status sl_store_insert_sweep(sl_store *store, long device_id, const sl_store_device *dev,
+                                sl_diag *diag);
 
 #endif
