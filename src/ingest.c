@@ -224,6 +224,7 @@ static sl_status results_row(ingest_ctx *c)
     dev.die_x = row.die_x;
     dev.die_y = row.die_y;
     dev.source = "results";
+    dev.source_line = sl_csv_line(c->csv);
     dev.temperature_K = row.temperature_K;
     double *numbers[] = { &dev.cnp_V, &dev.mobility_cm2_per_Vs, &dev.n0_per_cm2, &dev.r_contact_ohm };
     long columns[] = { c->col.vcnp, c->col.mobility, c->col.n0, c->col.r_contact };

@@ -11,7 +11,6 @@
 #include "splitlot/fit.h"
 
 typedef struct {
-    size_t device;           /* index into the import's device table */
     size_t offset, n;        /* points in the batch arrays */
     const sl_fit_config *cfg;
     /* what the writer needs, copied so it never reads the device table */
@@ -20,7 +19,8 @@ typedef struct {
     double temperature_K;
     sl_fit_result result;
     sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
-    long device_id;          /* set by the writer */
+    long device_id;          /* set by the writer (that of the first run when
+                                the device's rows come back later) */
 } fit_item;
 
 typedef struct {

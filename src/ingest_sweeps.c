@@ -1,10 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * Sweep import: rows are grouped into runs of one device; runs are fitted in
  * batches by a pool of threads and written to the store in file order by a
- * writer thread, while this thread reads on. Rows of a device that come back
- * later in the file are staged in the store and the device is fitted again at
- * the end. Memory holds a ring of four batches of points, whatever the file
- * size.
+ * writer thread, while this thread reads on. The writer finds a device that
+ * comes back later in the file among those already stored, stages its rows
+ * in the store and the device is fitted again at the end. Memory holds a ring
+ * of four batches of points and nothing per device, whatever the file size.
  */
 #include <math.h>
 #include <pthread.h>
@@ -38,9 +38,12 @@ struct ingest_batch {
     pthread_mutex_t store_lock;
     int write_failed;        /* guarded by store_lock: later buffers are skipped */
     int reported;            /* a writer failure is already in the diagnostics */
-    /* the run being read (in buf[filling]) */
+    long first_device_id;    /* this import's devices have ids from here */
+    /* the run being read (in buf[filling]) and its device */
     int in_run;
-    size_t run_device, run_offset;
+    size_t run_offset, run_wafer_index;
+    long run_first_line, run_x, run_y;
+    double run_temperature_K;
     char run_wafer[SL_INGEST_MAX_NAME_BYTES + 1], run_name[SL_INGEST_MAX_NAME_BYTES + 1];
     char run_die_x[32], run_die_y[32];
     size_t run_wafer_len, run_name_len, run_die_x_len, run_die_y_len;
@@ -163,17 +166,40 @@ static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_st
     }
 }
 
-static void count_class(ingest_ctx *c, ingest_device *d, const sl_fit_result *r, sl_status st)
+/* Column of a row-level message as ingest_error_at_row numbers it. */
+static long message_column(long column) { return column >= 0 ? column + 1 : 0; }
+
+/* A device already stored: by this import, its rows came back later in the
+ * file (staged under its id, fitted again at the end, after its die is
+ * checked); by an earlier import, a duplicate. Runs on the writer thread. */
+static sl_status met_again(ingest_ctx *c, fit_batch *b, fit_item *it)
 {
-    if (d->fit_class >= 0)
-        c->summary->per_class[d->fit_class]--;
-    d->fit_class = st == SL_OK ? (int)r->cls : -1;
-    if (d->fit_class >= 0)
-        c->summary->per_class[d->fit_class]++;
+    sl_store_import_device first;
+    sl_status st = sl_store_find_import_device(c->store, &first, c->lot.lot_id, it->wafer_id,
+                                               it->name, c->batch->first_device_id, b->diag);
+    if (st == SL_ENOTFOUND) {
+        sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, 0,
+                    "device '%s' on wafer '%s' is already stored for lot '%s' "
+                    "(use --replace to import the lot's measurements again)",
+                    it->name, it->wafer, c->lot.lot);
+        return SL_EINPUT;
+    }
+    if (st != SL_OK)
+        return st;
+    if (first.die_x != it->die_x || first.die_y != it->die_y) {
+        sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, message_column(c->col.die_x),
+                    "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
+                    it->name, it->wafer, it->die_x, it->die_y, first.die_x, first.die_y,
+                    first.source_line);
+        return SL_EINPUT;
+    }
+    it->device_id = first.id;
+    return sl_store_stage_points(c->store, first.id, b->vg + it->offset, b->r + it->offset, it->n,
+                                 b->diag);
 }
 
-/* Store one fitted device; runs on a pool thread, so it reads only the item
- * and what does not change during the import. */
+/* Store one fitted device; runs on the writer thread, so it reads only the
+ * item and what does not change during the import. */
 static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
 {
     sl_store_device dev;
@@ -187,14 +213,12 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     dev.vg_V = b->vg + it->offset;
     dev.r_ohm = b->r + it->offset;
     dev.n_points = it->n;
+    dev.source_line = it->first_line;
     result_to_device(&dev, &it->result, it->status, it->cfg);
     sl_status st = sl_store_insert_device(c->store, &it->device_id, c->lot.lot_id, &dev, b->diag);
     if (st == SL_EINPUT) {
         sl_diag_clear(b->diag);
-        sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, 0,
-                    "device '%s' on wafer '%s' is already stored for lot '%s' "
-                    "(use --replace to import the lot's measurements again)",
-                    it->name, it->wafer, c->lot.lot);
+        st = met_again(c, b, it);
     }
     return st;
 }
@@ -210,16 +234,6 @@ static void write_batch(fit_batch *b, void *ctx)
         b->write_status = write_item(c, b, &b->items[i]);
     c->batch->write_failed |= b->write_status != SL_OK;
     pthread_mutex_unlock(&c->batch->store_lock);
-}
-
-/* Stage a revisiting run's points; the store is shared with the writer. */
-static sl_status stage_points(ingest_ctx *c, size_t device, const double *vg, const double *r,
-                              size_t n)
-{
-    pthread_mutex_lock(&c->batch->store_lock);
-    sl_status st = sl_store_stage_points(c->store, (long)device, vg, r, n, c->diag);
-    pthread_mutex_unlock(&c->batch->store_lock);
-    return st;
 }
 
 static void take_messages(sl_diag *to, sl_diag *from)
@@ -246,8 +260,8 @@ static void set_state(ingest_batch *b, int i, buffer_state st)
     pthread_mutex_unlock(&b->lock);
 }
 
-/* Wait until the oldest submitted buffer is written, then account for its
- * devices here, where the device table lives, and free the buffer. */
+/* Wait until the oldest submitted buffer is written, then count its devices
+ * for the progress report and free the buffer. */
 static sl_status drain_oldest(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
@@ -262,14 +276,8 @@ static sl_status drain_oldest(ingest_ctx *c)
         take_messages(c->diag, done->diag);
     b->reported |= st != SL_OK;
     sl_diag_clear(done->diag);
-    for (size_t k = 0; st == SL_OK && k < done->n_items; k++) {
-        const fit_item *it = &done->items[k];
-        ingest_device *d = &c->devices.items[it->device];
-        d->device_id = it->device_id;
-        d->n_points = it->n;
-        count_class(c, d, &it->result, it->status);
-        c->summary->devices++;
-    }
+    if (st == SL_OK)
+        c->summary->devices += (long)done->n_items; /* exact once the import ends */
     fit_batch_clear(done);
     set_state(b, i, BUF_FREE);
     b->oldest = (i + 1) % SL_INGEST_BUFFERS;
@@ -327,34 +335,27 @@ static sl_status end_run(ingest_ctx *c)
         return SL_OK;
     b->in_run = 0;
     fit_batch *f = &b->buf[b->filling];
-    ingest_device *d = &c->devices.items[b->run_device];
-    size_t n = f->n_points - b->run_offset;
-    if (d->revisit) {
-        /* rows of a device met before: stage them, drop them from the batch */
-        sl_status st = stage_points(c, b->run_device, f->vg + b->run_offset, f->r + b->run_offset, n);
-        f->n_points = b->run_offset;
-        return st;
-    }
-    fit_item item = { .device = b->run_device, .offset = b->run_offset, .n = n,
-                      .cfg = &c->wafers[d->wafer_index].fit,
-                      .wafer_id = c->wafers[d->wafer_index].wafer_id, .die_x = d->die_x,
-                      .die_y = d->die_y, .first_line = d->first_line,
-                      .temperature_K = d->temperature_K };
-    snprintf(item.wafer, sizeof item.wafer, "%s", d->wafer);
-    snprintf(item.name, sizeof item.name, "%s", d->device);
+    const ingest_wafer *w = &c->wafers[b->run_wafer_index];
+    fit_item item = { .offset = b->run_offset, .n = f->n_points - b->run_offset, .cfg = &w->fit,
+                      .wafer_id = w->wafer_id, .die_x = b->run_x, .die_y = b->run_y,
+                      .first_line = b->run_first_line, .temperature_K = b->run_temperature_K };
+    snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
+    snprintf(item.name, sizeof item.name, "%s", b->run_name);
     if (fit_batch_push(f, &item) != 0)
         return SL_ENOMEM;
     return f->n_items >= SL_INGEST_BATCH_DEVICES ? rotate(c) : SL_OK;
 }
 
-static sl_status check_same_die(ingest_ctx *c, const ingest_device *d, const ingest_row *row)
+/* A row of the run's device written differently ("1" vs "1.0"). */
+static sl_status check_same_die(ingest_ctx *c, const ingest_row *row)
 {
-    if (d->die_x == row->die_x && d->die_y == row->die_y)
+    const ingest_batch *b = c->batch;
+    if (b->run_x == row->die_x && b->run_y == row->die_y)
         return SL_OK;
     ingest_error_at_row(c, c->col.die_x,
                         "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
-                        row->device, row->wafer, row->die_x, row->die_y, d->die_x, d->die_y,
-                        d->first_line);
+                        row->device, row->wafer, row->die_x, row->die_y, b->run_x, b->run_y,
+                        b->run_first_line);
     return SL_EINPUT;
 }
 
@@ -371,25 +372,12 @@ static size_t remember(char *dst, size_t size, const char *text)
 static sl_status start_run(ingest_ctx *c, const ingest_row *row)
 {
     ingest_batch *b = c->batch;
-    size_t k = ingest_table_find(&c->devices, row->wafer, row->device);
-    if (k != (size_t)-1) {
-        sl_status st = check_same_die(c, &c->devices.items[k], row);
-        if (st != SL_OK)
-            return st;
-        c->devices.items[k].revisit = 1;
-    } else {
-        k = ingest_table_add(&c->devices, row->wafer, row->device);
-        if (k == (size_t)-1)
-            return SL_ENOMEM;
-        ingest_device *d = &c->devices.items[k];
-        d->first_line = sl_csv_line(c->csv);
-        d->die_x = row->die_x;
-        d->die_y = row->die_y;
-        d->wafer_index = row->wafer_index;
-        d->temperature_K = row->temperature_K;
-    }
     b->in_run = 1;
-    b->run_device = k;
+    b->run_first_line = sl_csv_line(c->csv);
+    b->run_x = row->die_x;
+    b->run_y = row->die_y;
+    b->run_wafer_index = row->wafer_index;
+    b->run_temperature_K = row->temperature_K;
     b->run_offset = b->buf[b->filling].n_points;
     b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer, row->wafer);
     b->run_name_len = remember(b->run_name, sizeof b->run_name, row->device);
@@ -426,7 +414,7 @@ static sl_status sweep_row(ingest_ctx *c)
         st = ingest_read_row(c, &row);
         if (st == SL_OK && b->in_run && strcmp(row.device, b->run_name) == 0 &&
             strcmp(row.wafer, b->run_wafer) == 0)
-            st = check_same_die(c, &c->devices.items[b->run_device], &row); /* "1" vs "1.0" */
+            st = check_same_die(c, &row);
         else if (st == SL_OK && (st = end_run(c)) == SL_OK)
             st = start_run(c, &row);
         if (st != SL_OK)
@@ -449,14 +437,14 @@ static sl_status sweep_row(ingest_ctx *c)
 
 /* ---- devices with rows in several places or too few points so far ---- */
 
-static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n, size_t k)
+/* The stored sweep of a device followed by its staged rows, in file order. */
+static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n, long device_id)
 {
-    ingest_device *d = &c->devices.items[k];
     double *vg0 = NULL, *r0 = NULL, *vg1 = NULL, *r1 = NULL;
     size_t n0 = 0, n1 = 0;
-    sl_status st = sl_store_load_sweep(c->store, &vg0, &r0, &n0, d->device_id, c->diag);
-    if (st == SL_OK && d->revisit)
-        st = sl_store_staged_points(c->store, &vg1, &r1, &n1, (long)k, c->diag);
+    sl_status st = sl_store_load_sweep(c->store, &vg0, &r0, &n0, device_id, c->diag);
+    if (st == SL_OK)
+        st = sl_store_staged_points(c->store, &vg1, &r1, &n1, device_id, c->diag);
     if (st == SL_OK) {
         *vg = realloc(vg0, (n0 + n1 + 1) * sizeof **vg);
         *r = *vg ? realloc(r0, (n0 + n1 + 1) * sizeof **r) : NULL;
@@ -480,37 +468,57 @@ static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n
     return st;
 }
 
-static sl_status refit_device(ingest_ctx *c, size_t k)
+static const sl_fit_config *wafer_fit(const ingest_ctx *c, long wafer_id)
 {
-    ingest_device *d = &c->devices.items[k];
+    for (size_t i = 0; i < c->plan->n_wafers; i++)
+        if (c->wafers[i].wafer_id == wafer_id)
+            return &c->wafers[i].fit;
+    return NULL;
+}
+
+/* Why the gathered points of a device cannot be fitted, or SL_OK. */
+static sl_status check_gathered(ingest_ctx *c, const sl_store_import_device *d, size_t n)
+{
+    if (n < SL_FIT_MIN_POINTS) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->source_line, 0,
+                    "device '%s' on wafer '%s' has %zu points; a sweep needs at least %d",
+                    d->name, d->wafer, n, SL_FIT_MIN_POINTS);
+        return SL_EINPUT;
+    }
+    if (n > SL_INGEST_MAX_POINTS) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->source_line, 0,
+                    "device '%s' has more than %d points", d->name, SL_INGEST_MAX_POINTS);
+        return SL_EINPUT;
+    }
+    return SL_OK;
+}
+
+static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
+{
+    const sl_fit_config *cfg = wafer_fit(c, d->wafer_id);
+    if (!cfg) {
+        sl_diag_error(c->diag, "device '%s' is on a wafer this import does not know", d->name);
+        return SL_EDB;
+    }
     double *vg = NULL, *r = NULL;
     size_t n = 0;
-    sl_status st = gather_points(c, &vg, &r, &n, k);
-    if (st != SL_OK)
-        return st;
+    sl_status st = gather_points(c, &vg, &r, &n, d->id);
+    if (st == SL_OK)
+        st = check_gathered(c, d, n);
     sl_fit_result res = { 0 };
     sl_status fit_st = SL_EINPUT;
-    if (n < SL_FIT_MIN_POINTS) {
-        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
-                    "device '%s' on wafer '%s' has %zu points; a sweep needs at least %d",
-                    d->device, d->wafer, n, SL_FIT_MIN_POINTS);
-        st = SL_EINPUT;
-    } else if (n > SL_INGEST_MAX_POINTS) {
-        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
-                    "device '%s' has more than %d points", d->device, SL_INGEST_MAX_POINTS);
-        st = SL_EINPUT;
-    } else {
+    if (st == SL_OK) {
         sl_fit_workspace *ws = sl_fit_workspace_new(n);
-        fit_st = ws ? sl_fit_sweep(&res, ws, &c->wafers[d->wafer_index].fit, vg, r, n) : SL_ENOMEM;
+        fit_st = ws ? sl_fit_sweep(&res, ws, cfg, vg, r, n) : SL_ENOMEM;
         sl_fit_workspace_free(ws);
         st = fit_st == SL_ENOMEM ? SL_ENOMEM : SL_OK;
         if (fit_st == SL_EINPUT) {
             /* the fitter refuses it as a sweep (enough finite points, so the
              * gate never moved): an input error like too few points, not a
              * device stored with no class */
-            sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->first_line, 0,
+            sl_diag_add(c->diag, SL_SEV_ERROR, c->file, d->source_line, 0,
                         "device '%s' on wafer '%s' has no two distinct gate voltages in its "
-                        "%zu points; it is not a sweep", d->device, d->wafer, n);
+                        "%zu points; it is not a sweep", d->name, d->wafer, n);
             st = SL_EINPUT;
         }
     }
@@ -520,32 +528,54 @@ static sl_status refit_device(ingest_ctx *c, size_t k)
         dev.vg_V = vg;
         dev.r_ohm = r;
         dev.n_points = n;
-        result_to_device(&dev, &res, fit_st, &c->wafers[d->wafer_index].fit);
-        st = sl_store_update_device(c->store, d->device_id, &dev, c->diag);
-        count_class(c, d, &res, fit_st);
+        result_to_device(&dev, &res, fit_st, cfg);
+        st = sl_store_update_device(c->store, d->id, &dev, c->diag);
     }
     free(vg);
     free(r);
     return st;
 }
 
+/* Fit the devices left open (more rows later in the file, or too few in
+ * their first run), in file order. */
 static sl_status resolve_pending(ingest_ctx *c)
 {
-    for (size_t k = 0; k < c->devices.count; k++) {
-        const ingest_device *d = &c->devices.items[k];
-        if (!d->revisit && d->fit_class >= 0)
-            continue;
-        sl_status st = refit_device(c, k);
-        if (st != SL_OK)
-            return st;
-    }
+    sl_store_import_device *open = NULL;
+    size_t n_open = 0;
+    sl_status st = sl_store_open_devices(c->store, &open, &n_open, c->lot.lot_id,
+                                         c->batch->first_device_id, c->diag);
+    for (size_t k = 0; st == SL_OK && k < n_open; k++)
+        st = refit_device(c, &open[k]);
+    free(open);
+    return st;
+}
+
+/* The summary's device and class counts, from what the import stored. */
+static sl_status count_stored(ingest_ctx *c)
+{
+    const char *names[SL_FIT_CLASS_COUNT];
+    long counts[SL_FIT_CLASS_COUNT], total = 0;
+    for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)
+        names[k] = sl_fit_class_name((sl_fit_class)k);
+    sl_status st = sl_store_count_classes(c->store, counts, names, SL_FIT_CLASS_COUNT, &total,
+                                          c->lot.lot_id, c->batch->first_device_id, c->diag);
+    if (st != SL_OK)
+        return st;
+    for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)
+        c->summary->per_class[k] = counts[k];
+    c->summary->devices = total;
     return SL_OK;
 }
 
 sl_status ingest_sweeps(ingest_ctx *c)
 {
+    long first_device_id = 0;
+    sl_status first = sl_store_next_device_id(c->store, &first_device_id, c->diag);
+    if (first != SL_OK)
+        return first;
     if (!batch_new(c, c->opt->threads))
         return SL_ENOMEM;
+    c->batch->first_device_id = first_device_id;
     bool has = false;
     sl_status st;
     while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
@@ -564,5 +594,7 @@ sl_status ingest_sweeps(ingest_ctx *c)
         st = drained;
     if (st == SL_OK)
         st = resolve_pending(c);
+    if (st == SL_OK)
+        st = count_stored(c);
     return st;
 }

@@ -75,7 +75,6 @@ size_t ingest_table_add(ingest_table *t, const char *wafer, const char *device)
         return (size_t)-1;
     ingest_device *d = &t->items[t->count];
     memset(d, 0, sizeof *d);
-    d->fit_class = -1;
     d->wafer = strdup(wafer);
     d->device = strdup(device);
     if (!d->wafer || !d->device) {

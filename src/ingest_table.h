@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
- * Private to the ingest module: a hash table of the devices seen by one
- * import, keyed by wafer and device name, so duplicates and devices whose
- * rows come back later in the file are recognised in O(1).
+ * Private to the ingest module: a hash table of the devices of one results
+ * import (one row per device), keyed by wafer and device name, so a
+ * duplicate row is recognised in O(1). Sweep imports keep no such table:
+ * their devices are looked up in the store.
  */
 #ifndef SL_INGEST_TABLE_H
 #define SL_INGEST_TABLE_H
@@ -10,14 +11,7 @@
 
 typedef struct {
     char *wafer, *device;
-    long device_id;      /* row id once stored, 0 before */
-    long first_line;     /* line of the device's first row */
-    long die_x, die_y;
-    size_t wafer_index;  /* into plan->wafers */
-    size_t n_points;     /* points stored so far */
-    int revisit;         /* rows came back after other devices' rows */
-    int fit_class;       /* sl_fit_class once fitted, -1 before */
-    double temperature_K;
+    long first_line;     /* line of the device's row */
 } ingest_device;
 
 typedef struct {

@@ -68,6 +68,10 @@ static void bind_device(sqlite3_stmt *st, long lot_id, const sl_store_device *d)
     else
         sqlite3_bind_null(st, 19);
     bind_fit_details(st, 20, d);
+    if (d->source_line > 0)
+        sqlite3_bind_int64(st, 24, d->source_line);
+    else
+        sqlite3_bind_null(st, 24);
 }
 
 sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
@@ -79,8 +83,8 @@ sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
             "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, "
             "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, "
             "r_squared, n_points, fit_model, electron_mobility_cm2_per_Vs, "
-            "hole_mobility_cm2_per_Vs, n_spikes) SELECT ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, "
-            "?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, ?20, ?21, ?22, ?23 "
+            "hole_mobility_cm2_per_Vs, n_spikes, source_line) SELECT ?1, ?2, ?3, ?4, ?5, ?6, "
+            "?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, ?20, ?21, ?22, ?23, ?24 "
             /* the same wafer name under an older plan revision of the lot is the
              * same wafer: its devices are duplicates too (CROSS JOIN keeps the
              * index-only order: revisions, wafer by name, device) */

@@ -851,6 +851,17 @@ START_TEST(library_summary_counts)
     ck_assert_str_eq((const char *)sqlite3_column_text(q, 3), sweeps);
     ck_assert_int_eq(sqlite3_step(q), SQLITE_DONE);
     sqlite3_finalize(q);
+    /* each device knows the line of its first row: 2, 203, 404, ... in a
+     * simulated file, whose devices come one after another */
+    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
+                                        "SELECT min(source_line), count(*), "
+                                        "sum((source_line - 2) % 201 = 0) FROM device", -1, &q,
+                                        NULL), SQLITE_OK);
+    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
+    ck_assert_int_eq(sqlite3_column_int64(q, 0), 2);
+    ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.devices);
+    ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
+    sqlite3_finalize(q);
     /* unknown lot: SL_ENOTFOUND, and the store still usable */
     opt.lot = "NOPE";
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_ENOTFOUND);

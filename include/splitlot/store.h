@@ -86,6 +86,7 @@ typedef struct {
     const double *vg_V;       /* raw sweep, or NULL */
     const double *r_ohm;
     size_t n_points;
+    long source_line;         /* line of the device's first row in its file; 0: unknown */
 } sl_store_device;
 
 /* A device with every number NaN, no fit details and no sweep: start from
@@ -110,6 +111,36 @@ sl_status sl_store_stage_points(sl_store *store, long key, const double *vg_V,
                                 const double *r_ohm, size_t n, sl_diag *diag);
 sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
                                  long key, sl_diag *diag);
+
+/* ---- an import in progress (inside its transaction) ---- */
+
+/* Row id the next inserted device gets: this import's devices have ids >= it. */
+sl_status sl_store_next_device_id(sl_store *store, long *id, sl_diag *diag);
+
+/* A device of the lot stored at id >= first_id: what an import needs of a
+ * device whose rows come back later in its file. */
+typedef struct {
+    long id, wafer_id, die_x, die_y;
+    long source_line;            /* 0 when unknown */
+    char wafer[65], name[65];
+} sl_store_import_device;
+
+/* The device with this wafer and name stored at id >= first_id;
+ * SL_ENOTFOUND when there is none. */
+sl_status sl_store_find_import_device(sl_store *store, sl_store_import_device *found,
+                                      long lot_id, long wafer_id, const char *name,
+                                      long first_id, sl_diag *diag);
+
+/* Devices stored at id >= first_id that still need a fit: fit class
+ * "pending" or points staged under their id (malloc'd array, by id). */
+sl_status sl_store_open_devices(sl_store *store, sl_store_import_device **devices,
+                                size_t *count, long lot_id, long first_id, sl_diag *diag);
+
+/* Devices stored at id >= first_id per fit class: counts[i] for names[i];
+ * *total gets them all. */
+sl_status sl_store_count_classes(sl_store *store, long *counts, const char *const *names,
+                                 size_t n_names, long *total, long lot_id, long first_id,
+                                 sl_diag *diag);
 
 /* Number of devices stored for a lot. */
 sl_status sl_store_count_devices(sl_store *store, long *count, long lot_id, sl_diag *diag);

@@ -1,0 +1,143 @@
+/* SPDX-License-Identifier: MIT
+ * Queries of an import in progress (see include/splitlot/store.h): the
+ * devices this import has stored so far live in the database, not in the
+ * importing process, so an import's memory does not grow with the lot. A
+ * device met again later in the file, the devices still to be fitted at the
+ * end, and the class counts for the summary are read back from there.
+ */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "store_internal.h"
+
+sl_status sl_store_next_device_id(sl_store *store, long *id, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st, "SELECT coalesce(max(id), 0) + 1 FROM device", diag);
+    if (s != SL_OK)
+        return s;
+    if (sqlite3_step(st) == SQLITE_ROW)
+        *id = (long)sqlite3_column_int64(st, 0);
+    else
+        s = sl_store_db_error(store, diag, "read the device ids");
+    sqlite3_finalize(st);
+    return s;
+}
+
+#define IMPORT_DEVICE_COLUMNS \
+    "d.id, d.wafer_id, d.die_x, d.die_y, coalesce(d.source_line, 0), w.name, d.name"
+
+static void read_import_device(sqlite3_stmt *st, sl_store_import_device *d)
+{
+    d->id = (long)sqlite3_column_int64(st, 0);
+    d->wafer_id = (long)sqlite3_column_int64(st, 1);
+    d->die_x = (long)sqlite3_column_int64(st, 2);
+    d->die_y = (long)sqlite3_column_int64(st, 3);
+    d->source_line = (long)sqlite3_column_int64(st, 4);
+    const unsigned char *wafer = sqlite3_column_text(st, 5), *name = sqlite3_column_text(st, 6);
+    snprintf(d->wafer, sizeof d->wafer, "%s", wafer ? (const char *)wafer : "");
+    snprintf(d->name, sizeof d->name, "%s", name ? (const char *)name : "");
+}
+
+sl_status sl_store_find_import_device(sl_store *store, sl_store_import_device *found,
+                                      long lot_id, long wafer_id, const char *name,
+                                      long first_id, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT " IMPORT_DEVICE_COLUMNS " FROM device d JOIN wafer w ON w.id = d.wafer_id "
+        "WHERE d.lot_id = ?1 AND d.wafer_id = ?2 AND d.name = ?3 AND d.id >= ?4", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_int64(st, 2, wafer_id);
+    sqlite3_bind_text(st, 3, name, -1, SQLITE_STATIC);
+    sqlite3_bind_int64(st, 4, first_id);
+    int rc = sqlite3_step(st);
+    if (rc == SQLITE_ROW)
+        read_import_device(st, found);
+    else if (rc == SQLITE_DONE)
+        s = SL_ENOTFOUND;
+    else
+        s = sl_store_db_error(store, diag, "look up a device of this import");
+    sqlite3_finalize(st);
+    return s;
+}
+
+static sl_status append_device(sl_store_import_device **devices, size_t *count, size_t *cap,
+                               sqlite3_stmt *st)
+{
+    if (*count == *cap) {
+        size_t grown_cap = *cap ? 2 * *cap : 64;
+        sl_store_import_device *grown = realloc(*devices, grown_cap * sizeof **devices);
+        if (!grown)
+            return SL_ENOMEM;
+        *devices = grown;
+        *cap = grown_cap;
+    }
+    read_import_device(st, &(*devices)[(*count)++]);
+    return SL_OK;
+}
+
+sl_status sl_store_open_devices(sl_store *store, sl_store_import_device **devices,
+                                size_t *count, long lot_id, long first_id, sl_diag *diag)
+{
+    *devices = NULL;
+    *count = 0;
+    /* temp.stage exists once something was staged on this connection */
+    const char *sql = store->has_stage
+        ? "SELECT " IMPORT_DEVICE_COLUMNS " FROM device d JOIN wafer w ON w.id = d.wafer_id "
+          "WHERE d.lot_id = ?1 AND d.id >= ?2 AND (d.fit_class = 'pending' OR "
+          "d.id IN (SELECT key FROM temp.stage)) ORDER BY d.id"
+        : "SELECT " IMPORT_DEVICE_COLUMNS " FROM device d JOIN wafer w ON w.id = d.wafer_id "
+          "WHERE d.lot_id = ?1 AND d.id >= ?2 AND d.fit_class = 'pending' ORDER BY d.id";
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_int64(st, 2, first_id);
+    size_t cap = 0;
+    int rc;
+    while (s == SL_OK && (rc = sqlite3_step(st)) == SQLITE_ROW)
+        s = append_device(devices, count, &cap, st);
+    if (s == SL_OK && rc != SQLITE_DONE)
+        s = sl_store_db_error(store, diag, "list the devices still to be fitted");
+    sqlite3_finalize(st);
+    if (s != SL_OK) {
+        free(*devices);
+        *devices = NULL;
+        *count = 0;
+    }
+    return s;
+}
+
+sl_status sl_store_count_classes(sl_store *store, long *counts, const char *const *names,
+                                 size_t n_names, long *total, long lot_id, long first_id,
+                                 sl_diag *diag)
+{
+    memset(counts, 0, n_names * sizeof *counts);
+    *total = 0;
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT fit_class, count(*) FROM device WHERE lot_id = ?1 AND id >= ?2 GROUP BY fit_class",
+        diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_int64(st, 2, first_id);
+    int rc;
+    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
+        const char *cls = (const char *)sqlite3_column_text(st, 0);
+        long n = (long)sqlite3_column_int64(st, 1);
+        *total += n;
+        for (size_t i = 0; cls && i < n_names; i++)
+            if (strcmp(cls, names[i]) == 0)
+                counts[i] += n;
+    }
+    if (rc != SQLITE_DONE)
+        s = sl_store_db_error(store, diag, "count the imported devices");
+    sqlite3_finalize(st);
+    return s;
+}
