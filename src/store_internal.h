@@ -30,8 +30,15 @@ sl_status sl_store_step_once(sl_store *store, sqlite3_stmt *st, sl_diag *diag, c
 void sl_store_bind_real_or_null(sqlite3_stmt *st, int index, double v);
 double sl_store_column_real_or_nan(sqlite3_stmt *st, int col);
 void sl_store_now_utc(char out[32]);
-/* Pack a sweep as little-endian doubles (vg, r per point); malloc'd. */
-unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n);
+/* Pack a sweep into the compact blob described in store_sweep.c: malloc'd,
+ * its length in *bytes; NULL when out of memory. */
+unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
+                                   size_t *bytes);
+/* Unpack a blob of n points, compact or raw (exactly 16 * n bytes), into
+ * vg_V and r_ohm (n each). A damaged blob gives SL_EDB and *damage says
+ * what is wrong (a static string), else *damage is NULL. */
+sl_status sl_store_unpack_sweep(double *vg_V, double *r_ohm, size_t n,
+                                const unsigned char *blob, size_t bytes, const char **damage);
 /* Store (or replace) the sweep of a device row: dev->vg_V, r_ohm, n_points. */
 sl_status sl_store_insert_sweep(sl_store *store, long device_id, const sl_store_device *dev,
                                 sl_diag *diag);

@@ -2,15 +2,75 @@
  * Sweep rows of the store: the packed blob of a device's transfer sweep (gate
  * voltages and resistances), its insertion and loading, and the import's
  * scratch table of staged runs, which uses the same blob.
+ *
+ * The blob gives back every double bit for bit. The row's n_points says how
+ * many points it holds; its length tells the two formats apart:
+ *
+ * Raw (written by the first versions, still read): exactly 16 * n_points
+ * bytes, per point vg then r, each a little-endian IEEE 754 double.
+ *
+ * Compact (written now), never a multiple of 16 bytes long:
+ *   byte 0      format, 1
+ *   the vg_V column, then the r_ohm column, each:
+ *     byte      mode: 0 raw, 1 decimal by first differences,
+ *                     2 decimal by second differences
+ *     raw:      n_points little-endian doubles
+ *     decimal:  a byte k (0..22), then n_points varints
+ *   byte 0      padding, present exactly when the bytes before it are a
+ *               multiple of 16 long
+ *
+ * A decimal column holds integers m_i with |m_i| < 2^53 and stands for the
+ * values v_i = m_i / 10^k, worked out by one IEEE 754 division (round to
+ * nearest). m_i and 10^k (k <= 22) are exact doubles, so that one division
+ * rounds the decimal m_i * 10^-k correctly: the same double a correct
+ * strtod gives for its text (the exact fast path of decimal to binary
+ * conversion: W. D. Clinger, "How to read floating point numbers
+ * accurately", PLDI 1990). CSV sweeps are short decimals ("-39.6000",
+ * "927.597"), so their columns come out decimal; the encoder decodes every
+ * value it codes and compares the bits, and a column with any value that
+ * does not come back (-0.0, NaN, infinities, subnormals, long binary
+ * fractions) stays raw.
+ * A varint is the residual m_i - p_i, zigzagged (0, -1, 1, -2 -> 0, 1, 2,
+ * 3) and written 7 bits a byte, low bits first, the high bit set on every
+ * byte but the last. The prediction p_i is m_(i-1) in mode 1 and
+ * 2 m_(i-1) - m_(i-2) in mode 2 (evenly stepped gate voltages leave zeros),
+ * with m_(-1) = m_(-2) = 0.
  */
+#include <assert.h>
+#include <float.h>
+#include <math.h>
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include "store_internal.h"
 
-/* Sweeps are kept as little-endian IEEE 754 doubles, vg then r per point,
- * whatever the host's byte order. */
+enum { FORMAT_COMPACT = 1 };
+enum { MODE_RAW = 0, MODE_FIRST_DIFFERENCES = 1, MODE_SECOND_DIFFERENCES = 2 };
+enum { MAX_SCALE = 22 };                  /* 10^22 is the largest exact power of ten */
+#define MANTISSA_LIMIT ((int64_t)1 << 53) /* |m| below it is an exact double */
+/* Residuals of |m| < 2^53 are below 2^55 in size, 2^56 zigzagged: at most
+ * eight varint bytes of 7 bits. */
+enum { MAX_VARINT_BYTES = 8 };
+
+/* The exact division needs doubles evaluated as doubles (no x87 excess
+ * precision, which would round twice) and the default rounding to nearest,
+ * which the library never changes. Where doubles are evaluated otherwise the
+ * encoder keeps every column raw and the decoder refuses decimal columns
+ * rather than give other bits back. */
+#if defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD == 0
+#define DECIMAL_IS_EXACT 1
+#else
+#define DECIMAL_IS_EXACT 0
+#endif
+
+static const double POWER_OF_TEN[MAX_SCALE + 1] = {
+    1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,  1e8,  1e9,  1e10, 1e11,
+    1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
+};
+
+/* ---- bytes: little-endian doubles, zigzag varints ---- */
+
 static void put_le_double(unsigned char *p, double v)
 {
     uint64_t bits;
@@ -29,15 +89,275 @@ static double get_le_double(const unsigned char *p)
     return v;
 }
 
-unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n)
+/* Residuals of noisy resistances change sign at random: no branches on it. */
+static uint64_t zigzag(int64_t v)
 {
-    unsigned char *blob = malloc(n ? n * 16 : 1);
-    for (size_t i = 0; blob && i < n; i++) {
-        put_le_double(blob + 16 * i, vg_V[i]);
-        put_le_double(blob + 16 * i + 8, r_ohm[i]);
+    return 2 * (uint64_t)v ^ (0 - (uint64_t)(v < 0));
+}
+
+static int64_t unzigzag(uint64_t u)
+{
+    return (int64_t)(u >> 1) ^ -(int64_t)(u & 1);
+}
+
+/* Without a loop where the compiler can count leading zeros: residuals of
+ * noisy resistances take 2 or 3 bytes at random, which a loop mispredicts. */
+static size_t varint_bytes(uint64_t u)
+{
+#if defined(__GNUC__)
+    return (size_t)(63 - __builtin_clzll(u | 1)) / 7 + 1;
+#else
+    size_t n = 1;
+    for (; u >= 0x80; u >>= 7)
+        n++;
+    return n;
+#endif
+}
+
+static unsigned char *put_varint(unsigned char *p, uint64_t u)
+{
+    for (; u >= 0x80; u >>= 7)
+        *p++ = (unsigned char)(u | 0x80);
+    *p++ = (unsigned char)u;
+    return p;
+}
+
+/* ---- the encoder ---- */
+
+/* The integer nearest v * 10^scale, for |v * 10^scale| < 2^53: the m that v
+ * should be m / 10^scale of; whether it is, is for the caller to check by
+ * dividing back. */
+static int64_t candidate_mantissa(double v, int scale)
+{
+    return (int64_t)rint(v * POWER_OF_TEN[scale]);
+}
+
+/* Whether v is, bit for bit, m / 10^scale for an integer |m| < 2^53. */
+static int decimal_fits(double v, int scale, int64_t *m)
+{
+    double scaled = v * POWER_OF_TEN[scale];
+    if (!(fabs(scaled) < (double)MANTISSA_LIMIT)) /* also NaN and infinities */
+        return 0;
+    *m = candidate_mantissa(v, scale);
+    double back = (double)*m / POWER_OF_TEN[scale];
+    return memcmp(&back, &v, sizeof v) == 0;
+}
+
+/* The smallest scale from `from` on at which v fits; -1 when none does. */
+static int smallest_scale(double v, int from)
+{
+    int64_t m;
+    for (int scale = from; scale <= MAX_SCALE; scale++)
+        if (decimal_fits(v, scale, &m))
+            return scale;
+    return -1;
+}
+
+typedef struct {
+    int mode;
+    int scale;
+    size_t bytes; /* of the column, its mode byte included */
+} column_plan;
+
+/* Check every value at scale and add up the varint bytes of both modes;
+ * returns the index of the first value that does not fit, n when all do. */
+static size_t tally_decimal(const double *v, size_t n, int scale, size_t bytes[2])
+{
+    int64_t m1 = 0, m2 = 0, m;
+    bytes[0] = bytes[1] = 0;
+    for (size_t i = 0; i < n; i++) {
+        if (!decimal_fits(v[i], scale, &m))
+            return i;
+        bytes[0] += varint_bytes(zigzag(m - m1));
+        bytes[1] += varint_bytes(zigzag(m - (2 * m1 - m2)));
+        m2 = m1;
+        m1 = m;
     }
+    return n;
+}
+
+/* The cheapest coding of a column: decimal at the smallest scale that fits
+ * every value, else raw. */
+static column_plan plan_column(const double *v, size_t n)
+{
+    column_plan raw = { MODE_RAW, 0, 1 + 8 * n };
+    size_t bytes[2];
+    int scale = DECIMAL_IS_EXACT ? 0 : -1;
+    while (scale >= 0) {
+        size_t misfit = tally_decimal(v, n, scale, bytes);
+        if (misfit == n)
+            break;
+        scale = smallest_scale(v[misfit], scale + 1);
+    }
+    if (scale < 0)
+        return raw;
+    column_plan first = { MODE_FIRST_DIFFERENCES, scale, 2 + bytes[0] };
+    column_plan second = { MODE_SECOND_DIFFERENCES, scale, 2 + bytes[1] };
+    column_plan best = second.bytes < first.bytes ? second : first;
+    return best.bytes < raw.bytes ? best : raw;
+}
+
+static unsigned char *put_column(unsigned char *p, const double *v, size_t n, column_plan plan)
+{
+    *p++ = (unsigned char)plan.mode;
+    if (plan.mode == MODE_RAW) {
+        for (size_t i = 0; i < n; i++, p += 8)
+            put_le_double(p, v[i]);
+        return p;
+    }
+    *p++ = (unsigned char)plan.scale;
+    int64_t m1 = 0, m2 = 0;
+    for (size_t i = 0; i < n; i++) {
+        int64_t m = candidate_mantissa(v[i], plan.scale); /* checked by tally_decimal */
+        int64_t predicted = plan.mode == MODE_FIRST_DIFFERENCES ? m1 : 2 * m1 - m2;
+        p = put_varint(p, zigzag(m - predicted));
+        m2 = m1;
+        m1 = m;
+    }
+    return p;
+}
+
+unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
+                                   size_t *bytes)
+{
+    column_plan vg = plan_column(vg_V, n), r = plan_column(r_ohm, n);
+    size_t length = 1 + vg.bytes + r.bytes;
+    int pad = length % 16 == 0;
+    unsigned char *blob = malloc(length + pad);
+    if (!blob)
+        return NULL;
+    blob[0] = FORMAT_COMPACT;
+    unsigned char *end = put_column(put_column(blob + 1, vg_V, n, vg), r_ohm, n, r);
+    assert(end == blob + length); /* put_column wrote what plan_column counted */
+    if (pad)
+        *end = 0;
+    *bytes = length + pad;
     return blob;
 }
+
+/* ---- the decoder ---- */
+
+typedef struct {
+    const unsigned char *p, *end;
+    const char *damage; /* what is wrong, once something is */
+} blob_reader;
+
+static int read_fails(blob_reader *rd, const char *damage)
+{
+    rd->damage = damage;
+    return 0;
+}
+
+static int read_byte(blob_reader *rd, int *byte)
+{
+    if (rd->p == rd->end)
+        return read_fails(rd, "it ends early");
+    *byte = *rd->p++;
+    return 1;
+}
+
+static int read_residual(blob_reader *rd, int64_t *residual)
+{
+    uint64_t u = 0;
+    for (int i = 0; i < MAX_VARINT_BYTES; i++) {
+        if (rd->p == rd->end)
+            return read_fails(rd, "it ends early");
+        unsigned byte = *rd->p++;
+        u |= (uint64_t)(byte & 0x7f) << (7 * i);
+        if (!(byte & 0x80)) {
+            *residual = unzigzag(u);
+            return 1;
+        }
+    }
+    return read_fails(rd, "a varint runs on too long");
+}
+
+static int read_raw_column(blob_reader *rd, double *v, size_t n)
+{
+    if ((size_t)(rd->end - rd->p) / 8 < n)
+        return read_fails(rd, "it ends early");
+    for (size_t i = 0; i < n; i++, rd->p += 8)
+        v[i] = get_le_double(rd->p);
+    return 1;
+}
+
+static int read_decimal_column(blob_reader *rd, double *v, size_t n, int mode)
+{
+    int scale;
+    if (!read_byte(rd, &scale))
+        return 0;
+    if (scale > MAX_SCALE)
+        return read_fails(rd, "a decimal scale is out of range");
+    if (!DECIMAL_IS_EXACT)
+        return read_fails(rd, "decimal columns need FLT_EVAL_METHOD 0 to come back exactly");
+    int64_t m1 = 0, m2 = 0, residual;
+    for (size_t i = 0; i < n; i++) {
+        if (!read_residual(rd, &residual))
+            return 0;
+        int64_t m = (mode == MODE_FIRST_DIFFERENCES ? m1 : 2 * m1 - m2) + residual;
+        if (m <= -MANTISSA_LIMIT || m >= MANTISSA_LIMIT)
+            return read_fails(rd, "a mantissa is out of range");
+        v[i] = (double)m / POWER_OF_TEN[scale];
+        m2 = m1;
+        m1 = m;
+    }
+    return 1;
+}
+
+static int read_column(blob_reader *rd, double *v, size_t n)
+{
+    int mode;
+    if (!read_byte(rd, &mode))
+        return 0;
+    if (mode == MODE_RAW)
+        return read_raw_column(rd, v, n);
+    if (mode == MODE_FIRST_DIFFERENCES || mode == MODE_SECOND_DIFFERENCES)
+        return read_decimal_column(rd, v, n, mode);
+    return read_fails(rd, "a column has an unknown mode");
+}
+
+static void read_raw_points(double *vg_V, double *r_ohm, size_t n, const unsigned char *blob)
+{
+    for (size_t i = 0; i < n; i++) {
+        vg_V[i] = get_le_double(blob + 16 * i);
+        r_ohm[i] = get_le_double(blob + 16 * i + 8);
+    }
+}
+
+static int read_compact(blob_reader *rd, const unsigned char *blob, double *vg_V,
+                        double *r_ohm, size_t n)
+{
+    int format;
+    if (!read_byte(rd, &format))
+        return 0;
+    if (format != FORMAT_COMPACT)
+        return read_fails(rd, "its format is unknown");
+    if (!read_column(rd, vg_V, n) || !read_column(rd, r_ohm, n))
+        return 0;
+    size_t used = (size_t)(rd->p - blob), left = (size_t)(rd->end - rd->p);
+    int pad_expected = used % 16 == 0;
+    if (left != (size_t)pad_expected || (pad_expected && *rd->p != 0))
+        return read_fails(rd, "its length does not match its points");
+    return 1;
+}
+
+sl_status sl_store_unpack_sweep(double *vg_V, double *r_ohm, size_t n,
+                                const unsigned char *blob, size_t bytes, const char **damage)
+{
+    blob_reader rd = { blob, bytes ? blob + bytes : blob, NULL };
+    /* every format takes at least a byte a point: a larger count is damage,
+     * and 16 * n below cannot overflow */
+    if (n > bytes || (bytes && !blob))
+        read_fails(&rd, "its length does not match its points");
+    else if (bytes == 16 * n)
+        read_raw_points(vg_V, r_ohm, n, blob);
+    else
+        read_compact(&rd, blob, vg_V, r_ohm, n);
+    *damage = rd.damage;
+    return rd.damage ? SL_EDB : SL_OK;
+}
+
+/* ---- rows of the sweep table and of the import's scratch table ---- */
 
 sl_status sl_store_insert_sweep(sl_store *store, long device_id, const sl_store_device *dev,
                                 sl_diag *diag)
@@ -47,13 +367,14 @@ sl_status sl_store_insert_sweep(sl_store *store, long device_id, const sl_store_
                          "INSERT OR REPLACE INTO sweep (device_id, n_points, points) "
                          "VALUES (?1, ?2, ?3)", diag) != SL_OK)
         return SL_EDB;
-    unsigned char *blob = sl_store_pack_sweep(dev->vg_V, dev->r_ohm, dev->n_points);
+    size_t bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(dev->vg_V, dev->r_ohm, dev->n_points, &bytes);
     if (!blob)
         return SL_ENOMEM;
     sqlite3_stmt *st = store->insert_sweep;
     sqlite3_bind_int64(st, 1, device_id);
     sqlite3_bind_int64(st, 2, (sqlite3_int64)dev->n_points);
-    sqlite3_bind_blob(st, 3, blob, (int)(dev->n_points * 16), free);
+    sqlite3_bind_blob64(st, 3, blob, bytes, free);
     return sl_store_step_done(store, st, diag, "store a sweep");
 }
 
@@ -84,13 +405,68 @@ sl_status sl_store_stage_points(sl_store *store, long key, const double *vg_V,
     sl_status s = ensure_stage(store, diag);
     if (s != SL_OK || n == 0)
         return s;
-    unsigned char *blob = sl_store_pack_sweep(vg_V, r_ohm, n);
+    size_t bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg_V, r_ohm, n, &bytes);
     if (!blob)
         return SL_ENOMEM;
     sqlite3_bind_int64(store->stage_point, 1, key);
     sqlite3_bind_int64(store->stage_point, 2, (sqlite3_int64)n);
-    sqlite3_bind_blob(store->stage_point, 3, blob, (int)(n * 16), free);
+    sqlite3_bind_blob64(store->stage_point, 3, blob, bytes, free);
     return sl_store_step_done(store, store->stage_point, diag, "stage sweep points");
+}
+
+typedef struct {
+    double *vg_V, *r_ohm;
+    size_t n, capacity;
+} point_arrays;
+
+static int grow_points(point_arrays *a, size_t need)
+{
+    if (need <= a->capacity && a->vg_V)
+        return 1;
+    size_t capacity = 2 * a->capacity > need ? 2 * a->capacity : (need ? need : 1);
+    double *vg = realloc(a->vg_V, capacity * sizeof *vg);
+    if (vg)
+        a->vg_V = vg;
+    double *r = vg ? realloc(a->r_ohm, capacity * sizeof *r) : NULL;
+    if (r)
+        a->r_ohm = r;
+    if (vg && r)
+        a->capacity = capacity;
+    return vg && r;
+}
+
+/* Append the points of the row st stands on (columns n_points, points). */
+static sl_status append_row_points(point_arrays *a, sqlite3_stmt *st, const char **damage)
+{
+    sqlite3_int64 count = sqlite3_column_int64(st, 0);
+    const unsigned char *blob = sqlite3_column_blob(st, 1);
+    size_t bytes = (size_t)sqlite3_column_bytes(st, 1);
+    /* every format takes a byte a point at least: no huge allocation for a
+     * damaged count */
+    if (count < 0 || (uint64_t)count > bytes) {
+        *damage = "its length does not match its points";
+        return SL_EDB;
+    }
+    if (!grow_points(a, a->n + (size_t)count))
+        return SL_ENOMEM;
+    sl_status s = sl_store_unpack_sweep(a->vg_V + a->n, a->r_ohm + a->n, (size_t)count, blob,
+                                        bytes, damage);
+    if (s == SL_OK)
+        a->n += (size_t)count;
+    return s;
+}
+
+static void give_points(point_arrays *a, sl_status s, double **vg_V, double **r_ohm, size_t *n)
+{
+    if (s != SL_OK) {
+        free(a->vg_V);
+        free(a->r_ohm);
+        *a = (point_arrays){ 0 };
+    }
+    *vg_V = a->vg_V;
+    *r_ohm = a->r_ohm;
+    *n = a->n;
 }
 
 sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
@@ -107,35 +483,14 @@ sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm,
     if (s != SL_OK)
         return s;
     sqlite3_bind_int64(st, 1, key);
-    size_t cap = 0;
-    while (s == SL_OK && sqlite3_step(st) == SQLITE_ROW) {
-        size_t count = (size_t)sqlite3_column_int64(st, 0);
-        const unsigned char *blob = sqlite3_column_blob(st, 1);
-        if ((size_t)sqlite3_column_bytes(st, 1) != count * 16 || (count && !blob)) {
-            sl_diag_error(diag, "staged sweep points are damaged");
-            s = SL_EDB;
-            break;
-        }
-        if (*n + count > cap) {
-            cap = cap ? 2 * cap : 256;
-            while (cap < *n + count)
-                cap *= 2;
-            double *a = realloc(*vg_V, cap * sizeof *a), *b = a ? realloc(*r_ohm, cap * sizeof *b) : NULL;
-            if (a)
-                *vg_V = a;
-            if (!a || !b) {
-                s = SL_ENOMEM;
-                break;
-            }
-            *r_ohm = b;
-        }
-        for (size_t i = 0; i < count; i++) {
-            (*vg_V)[*n + i] = get_le_double(blob + 16 * i);
-            (*r_ohm)[*n + i] = get_le_double(blob + 16 * i + 8);
-        }
-        *n += count;
-    }
+    point_arrays a = { 0 };
+    const char *damage = NULL;
+    while (s == SL_OK && sqlite3_step(st) == SQLITE_ROW)
+        s = append_row_points(&a, st, &damage);
     sqlite3_finalize(st);
+    if (damage)
+        sl_diag_error(diag, "staged sweep points under key %ld are damaged: %s", key, damage);
+    give_points(&a, s, vg_V, r_ohm, n);
     return s;
 }
 
@@ -154,29 +509,14 @@ sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, si
         sqlite3_finalize(st);
         return SL_ENOTFOUND;
     }
-    size_t count = (size_t)sqlite3_column_int64(st, 0);
-    const unsigned char *blob = sqlite3_column_blob(st, 1);
-    size_t bytes = (size_t)sqlite3_column_bytes(st, 1);
-    if (bytes != count * 16 || (count && !blob)) {
-        sqlite3_finalize(st);
-        sl_diag_error(diag, "sweep of device %ld is damaged (%zu bytes for %zu points)", device_id,
-                      bytes, count);
-        return SL_EDB;
-    }
-    *vg_V = malloc((count ? count : 1) * sizeof(double));
-    *r_ohm = malloc((count ? count : 1) * sizeof(double));
-    if (!*vg_V || !*r_ohm) {
-        sqlite3_finalize(st);
-        free(*vg_V);
-        free(*r_ohm);
-        *vg_V = *r_ohm = NULL;
-        return SL_ENOMEM;
-    }
-    for (size_t i = 0; i < count; i++) {
-        (*vg_V)[i] = get_le_double(blob + 16 * i);
-        (*r_ohm)[i] = get_le_double(blob + 16 * i + 8);
-    }
-    *n = count;
+    point_arrays a = { 0 };
+    const char *damage = NULL;
+    s = append_row_points(&a, st, &damage);
+    if (damage)
+        sl_diag_error(diag, "sweep of device %ld is damaged: %s (%d bytes for %lld points)",
+                      device_id, damage, sqlite3_column_bytes(st, 1),
+                      (long long)sqlite3_column_int64(st, 0));
     sqlite3_finalize(st);
-    return SL_OK;
+    give_points(&a, s, vg_V, r_ohm, n);
+    return s;
 }

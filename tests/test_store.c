@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
  * Tests of the SQLite store: schema creation and migration bookkeeping, files
  * it must refuse (too new, not a database, read-only), plan revisions, exact
- * round trips of packed sweeps, and the duplicate-device rule.
+ * round trips of packed sweeps (the compact blob coded and decoded directly,
+ * old raw blobs, damaged ones), and the duplicate-device rule.
  */
 #include <check.h>
 #include <ctype.h>
@@ -10,6 +11,7 @@
 #include <math.h>
 #include <pwd.h>
 #include <sqlite3.h>
+#include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -21,6 +23,7 @@
 #include "splitlot/plan.h"
 #include "splitlot/predict.h"
 #include "splitlot/store.h"
+#include "store_internal.h"
 #include "test_support.h"
 
 #define DEMO_PLAN SL_SOURCE_DIR "/plans/demo.yaml"
@@ -429,18 +432,23 @@ START_TEST(sweep_round_trip_exact)
     ck_assert(signbit(vg2[0]) && !signbit(vg2[1]));
     free(vg2);
     free(r2);
-    /* the blob is little-endian whatever the host: byte 0..7 of point 0 is
-     * -0.0 = 0x8000000000000000, so its last byte is 0x80 */
+    /* none of these columns is a short decimal: the compact blob (format 1)
+     * keeps both raw (mode 0), 1 + 2 * (1 + 8 n) bytes, and its doubles are
+     * little-endian whatever the host: point 0's vg is -0.0 =
+     * 0x8000000000000000, so the last of its bytes 2..9 is 0x80 */
     sqlite3_stmt *st = NULL;
     ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(s.store),
                                         "SELECT points FROM sweep WHERE device_id = ?1", -1, &st,
                                         NULL), SQLITE_OK);
     sqlite3_bind_int64(st, 1, id);
     ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
-    ck_assert_int_eq(sqlite3_column_bytes(st, 0), (int)(16 * n));
+    ck_assert_int_eq(sqlite3_column_bytes(st, 0), (int)(1 + 2 * (1 + 8 * n)));
     const unsigned char *blob = sqlite3_column_blob(st, 0);
-    ck_assert_int_eq(blob[7], 0x80);
-    ck_assert_int_eq(blob[0], 0x00);
+    ck_assert_int_eq(blob[0], 1);
+    ck_assert_int_eq(blob[1], 0);
+    ck_assert_int_eq(blob[2], 0x00);
+    ck_assert_int_eq(blob[9], 0x80);
+    ck_assert_int_eq(blob[2 + 8 * n], 0); /* r's mode */
     sqlite3_finalize(st);
 
     /* NaN numbers come back as NaN (stored NULL); the row as inserted */
@@ -547,6 +555,406 @@ START_TEST(staged_points_in_order)
 }
 END_TEST
 
+/* ---- the sweep blob ---- */
+
+static uint64_t next_random(uint64_t *state) /* splitmix64 */
+{
+    uint64_t z = (*state += 0x9e3779b97f4a7c15u);
+    z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9u;
+    z = (z ^ (z >> 27)) * 0x94d049bb133111ebu;
+    return z ^ (z >> 31);
+}
+
+static long long random_below(uint64_t *state, long long n)
+{
+    return (long long)(next_random(state) % (uint64_t)n);
+}
+
+/* What a correct strtod makes of the text m e-k: a CSV cell's double. */
+static double decimal(long long m, int k)
+{
+    char text[48];
+    snprintf(text, sizeof text, "%llde-%d", m, k);
+    return strtod(text, NULL);
+}
+
+/* A resistance as a CSV written with %.6g holds it. */
+static double six_digits(double r_ohm)
+{
+    char text[32];
+    snprintf(text, sizeof text, "%.6g", r_ohm);
+    return strtod(text, NULL);
+}
+
+typedef enum { EVEN_STEPS, UNEVEN_STEPS, MIXED_DECIMALS, RESISTANCES, ANY_BITS, N_KINDS } column_kind;
+
+/* Decimals of 1 to 17 digits, 0 to 25 after the point: some beyond 2^53 or
+ * 10^22, which must stay raw. */
+static double mixed_decimal(uint64_t *rng)
+{
+    long long m = 1;
+    for (long long digits = 1 + random_below(rng, 17); digits > 0; digits--)
+        m = 10 * m + random_below(rng, 10);
+    return decimal(random_below(rng, 2) ? -m : m, (int)random_below(rng, 26));
+}
+
+static double any_bits(uint64_t *rng)
+{
+    uint64_t bits = next_random(rng);
+    double v;
+    memcpy(&v, &bits, sizeof v);
+    return v;
+}
+
+static void fill_column(double *v, size_t n, column_kind kind, uint64_t *rng)
+{
+    int k = (int)random_below(rng, 7);
+    long long m = random_below(rng, 2000001) - 1000000, step = random_below(rng, 2001) - 1000;
+    double decade = pow(10.0, (double)random_below(rng, 6));
+    for (size_t i = 0; i < n; i++) {
+        if (kind == EVEN_STEPS)
+            v[i] = decimal(m + (long long)i * step, k);
+        else if (kind == UNEVEN_STEPS)
+            v[i] = decimal(m += random_below(rng, 2001) - 1000, k);
+        else if (kind == MIXED_DECIMALS)
+            v[i] = mixed_decimal(rng);
+        else if (kind == RESISTANCES)
+            v[i] = six_digits(decade * (1.0 + 9.0 * (double)random_below(rng, 1000000) / 1e6));
+        else
+            v[i] = any_bits(rng);
+    }
+}
+
+/* Values no decimal column can hold, or only at its limits. */
+static void sprinkle_specials(double *v, size_t n, uint64_t *rng)
+{
+    static const double special[] = { -0.0, NAN, -NAN, INFINITY, -INFINITY, 5e-324,
+                                      -2.2250738585072009e-308, DBL_MIN, DBL_MAX, 1e300,
+                                      1e-300, 0.1 + 0.2, 1e22, 1e-22 };
+    const size_t n_special = sizeof special / sizeof special[0];
+    for (long long hits = 1 + random_below(rng, 3); hits > 0; hits--)
+        v[random_below(rng, (long long)n)] = special[random_below(rng, (long long)n_special)];
+}
+
+/* Pack, check the length rules, unpack, compare bits; returns the length. */
+static size_t round_trip(const double *vg, const double *r, size_t n)
+{
+    size_t bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    ck_assert_ptr_nonnull(blob);
+    ck_assert_uint_ne(bytes % 16, 0);
+    ck_assert_uint_le(bytes, 16 * n + 4);
+    double *vg2 = calloc(n + 1, sizeof *vg2), *r2 = calloc(n + 1, sizeof *r2);
+    const char *damage = "not set";
+    ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, n, blob, bytes, &damage), SL_OK);
+    ck_assert_ptr_null(damage);
+    ck_assert_int_eq(memcmp(vg, vg2, n * sizeof *vg), 0);
+    ck_assert_int_eq(memcmp(r, r2, n * sizeof *r), 0);
+    free(vg2);
+    free(r2);
+    free(blob);
+    return bytes;
+}
+
+START_TEST(blob_round_trips_generated_sweeps)
+{
+    uint64_t rng = 20240611;
+    double *vg = malloc(1000 * sizeof *vg), *r = malloc(1000 * sizeof *r);
+    for (size_t n = 1; n <= 1000; n++) {
+        column_kind vg_kind = (column_kind)(n % N_KINDS), r_kind = (column_kind)(n / N_KINDS % N_KINDS);
+        fill_column(vg, n, vg_kind, &rng);
+        fill_column(r, n, r_kind, &rng);
+        int special = n % 3 == 0;
+        if (special) {
+            sprinkle_specials(vg, n, &rng);
+            sprinkle_specials(r, n, &rng);
+        }
+        size_t bytes = round_trip(vg, r, n);
+        /* steps of at most 1000 units at the column's scale: 2 bytes a value */
+        if (!special && vg_kind <= UNEVEN_STEPS && r_kind <= UNEVEN_STEPS)
+            ck_assert_msg(bytes <= 4 * n + 10, "n %zu: %zu bytes", n, bytes);
+    }
+    free(vg);
+    free(r);
+}
+END_TEST
+
+/* A sweep as the CSV holds it: gate voltages "%.4f" from -40 V in 0.4 V
+ * steps, resistances "%.6g" of a peak at the neutrality point. */
+static size_t csv_like_sweep(double *vg, double *r, size_t n)
+{
+    for (size_t i = 0; i < n; i++) {
+        vg[i] = decimal(-400000 + 4000 * (long long)i, 4);
+        double x = (vg[i] - 5.0) / 8.0;
+        r[i] = six_digits(900.0 + 4000.0 / sqrt(1.0 + x * x) + 3.0 * sin(7.0 * (double)i));
+    }
+    return n;
+}
+
+START_TEST(blob_is_compact_for_a_csv_sweep)
+{
+    double vg[201], r[201];
+    size_t n = csv_like_sweep(vg, r, 201);
+    ck_assert_uint_le(round_trip(vg, r, n), 16 * n / 4);
+    size_t bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    ck_assert_int_eq(blob[0], 1);
+    ck_assert(blob[1] == 1 || blob[1] == 2); /* a decimal mode */
+    ck_assert_int_eq(blob[2], 1);            /* in tenths of a volt */
+    free(blob);
+}
+END_TEST
+
+/* The mode and scale bytes of the vg column of a sweep of v four times
+ * (once, a large mantissa would cost more bytes than the raw double). */
+static int vg_mode_of(double v, int *scale)
+{
+    const double vg[] = { v, v, v, v }, r[] = { 1, 1, 1, 1 };
+    size_t bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg, r, 4, &bytes);
+    ck_assert_ptr_nonnull(blob);
+    int mode = blob[1];
+    *scale = blob[2];
+    free(blob);
+    round_trip(vg, r, 4);
+    return mode;
+}
+
+START_TEST(blob_decimal_limits)
+{
+    const struct {
+        double v;
+        int mode, scale;
+    } cases[] = {
+        { 9007199254740991.0, 1, 0 }, /* 2^53 - 1 */
+        { 9007199254740992.0, 0, 0 }, /* 2^53 */
+        { 1e-22, 1, 22 },
+        { 123e-23, 0, 0 },            /* needs 10^23 */
+        { 1e22, 0, 0 },
+        { 927.597, 1, 3 },
+        { -39.6, 1, 1 },
+        { 0.0, 1, 0 },
+        { -0.0, 0, 0 },
+        { 0.1 + 0.2, 0, 0 },          /* 0.30000000000000004: 17 digits */
+        { 5e-324, 0, 0 },
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        int scale = -1, mode = vg_mode_of(cases[i].v, &scale);
+        ck_assert_msg(mode == cases[i].mode, "%.17g: mode %d", cases[i].v, mode);
+        if (mode != 0)
+            ck_assert_msg(scale == cases[i].scale, "%.17g: scale %d", cases[i].v, scale);
+    }
+    const double none[1] = { 0 };
+    ck_assert_uint_eq(round_trip(none, none, 0), 3); /* format and two mode bytes */
+}
+END_TEST
+
+START_TEST(blob_pads_a_multiple_of_16)
+{
+    /* vg 0..4 and r 1000 five times: 1 + (2 + 5) + (2 + 2 + 4) = 16 bytes */
+    const double vg[] = { 0, 1, 2, 3, 4 }, r[] = { 1000, 1000, 1000, 1000, 1000 };
+    size_t bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg, r, 5, &bytes);
+    ck_assert_uint_eq(bytes, 17);
+    ck_assert_int_eq(blob[16], 0);
+    round_trip(vg, r, 5);
+    double vg2[5], r2[5];
+    const char *damage = NULL;
+    ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, 5, blob, 16, &damage), SL_EDB);
+    ck_assert_str_eq(damage, "its length does not match its points");
+    blob[16] = 1;
+    ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, 5, blob, 17, &damage), SL_EDB);
+    ck_assert_str_eq(damage, "its length does not match its points");
+    free(blob);
+}
+END_TEST
+
+static const char *damage_of(const unsigned char *blob, size_t bytes, size_t n)
+{
+    double vg[4], r[4];
+    const char *damage = NULL;
+    ck_assert_uint_le(n, 4);
+    sl_status st = sl_store_unpack_sweep(vg, r, n, blob, bytes, &damage);
+    ck_assert_int_eq(st, damage ? SL_EDB : SL_OK);
+    return damage ? damage : "";
+}
+
+START_TEST(blob_damage_is_named)
+{
+    static const unsigned char long_varint[] = { 1, 1, 0, 0xff, 0xff, 0xff, 0xff,
+                                                 0xff, 0xff, 0xff, 0xff, 0x01 };
+    static const unsigned char huge_mantissa[] = { 1, 1, 0, 0xff, 0xff, 0xff, 0xff,
+                                                   0xff, 0xff, 0xff, 0x7f, 0, 0 };
+    static const unsigned char bad_mode[] = { 1, 7, 0, 0, 1, 0, 0 };
+    static const unsigned char bad_format[] = { 2, 1, 0, 0, 1, 0, 0 };
+    static const unsigned char bad_scale[] = { 1, 1, 23, 0, 1, 0, 0 };
+    static const unsigned char trailing[] = { 1, 1, 0, 0, 1, 0, 0, 9 };
+    static const unsigned char good[] = { 1, 1, 0, 0, 1, 0, 0 };
+    ck_assert_str_eq(damage_of(good, sizeof good, 1), "");
+    ck_assert_str_eq(damage_of(long_varint, sizeof long_varint, 1), "a varint runs on too long");
+    ck_assert_str_eq(damage_of(huge_mantissa, sizeof huge_mantissa, 1), "a mantissa is out of range");
+    ck_assert_str_eq(damage_of(bad_mode, sizeof bad_mode, 1), "a column has an unknown mode");
+    ck_assert_str_eq(damage_of(bad_format, sizeof bad_format, 1), "its format is unknown");
+    ck_assert_str_eq(damage_of(bad_scale, sizeof bad_scale, 1), "a decimal scale is out of range");
+    ck_assert_str_eq(damage_of(trailing, sizeof trailing, 1), "its length does not match its points");
+    ck_assert_str_eq(damage_of(good, 5, 1), "it ends early");
+    ck_assert_str_eq(damage_of(good, sizeof good, 4), "it ends early");
+    ck_assert_str_eq(damage_of(NULL, 0, 1), "its length does not match its points");
+}
+END_TEST
+
+START_TEST(blob_truncated_or_mutated_never_crashes)
+{
+    double vg[201], r[201], vg2[201], r2[201];
+    size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    const char *damage = NULL;
+    for (size_t cut = 0; cut < bytes; cut++) {
+        unsigned char *part = malloc(cut ? cut : 1); /* exact size: ASan sees overreads */
+        memcpy(part, blob, cut);
+        ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, n, part, cut, &damage), SL_EDB);
+        ck_assert_ptr_nonnull(damage);
+        free(part);
+    }
+    uint64_t rng = 7;
+    unsigned char *copy = malloc(bytes);
+    for (int trial = 0; trial < 5000; trial++) {
+        memcpy(copy, blob, bytes);
+        for (long long hits = 1 + random_below(&rng, 3); hits > 0; hits--)
+            copy[random_below(&rng, (long long)bytes)] = (unsigned char)next_random(&rng);
+        size_t length = bytes - (size_t)random_below(&rng, 2);
+        sl_status st = sl_store_unpack_sweep(vg2, r2, n, copy, length, &damage);
+        ck_assert_int_eq(st, damage ? SL_EDB : SL_OK);
+    }
+    free(copy);
+    free(blob);
+}
+END_TEST
+
+/* A stored device without a sweep; its id. */
+static long device_without_sweep(stored_demo *s, const char *name)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_store_device d = device_named(s->wafer_id, name);
+    long id = 0;
+    ck_assert_int_eq(sl_store_insert_device(s->store, &id, s->lot.lot_id, &d, diag), SL_OK);
+    sl_diag_free(diag);
+    return id;
+}
+
+static void put_sweep_row(sl_store *store, long device_id, long n_points, const void *blob,
+                          int bytes)
+{
+    sqlite3_stmt *st = NULL;
+    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
+                                        "INSERT OR REPLACE INTO sweep (device_id, n_points, points) "
+                                        "VALUES (?1, ?2, ?3)", -1, &st, NULL), SQLITE_OK);
+    sqlite3_bind_int64(st, 1, device_id);
+    sqlite3_bind_int64(st, 2, n_points);
+    sqlite3_bind_blob(st, 3, blob, bytes, SQLITE_TRANSIENT);
+    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
+    sqlite3_finalize(st);
+}
+
+START_TEST(old_raw_sweep_still_loads)
+{
+    stored_demo s = demo_store();
+    /* 5e-324 is 0x0000000000000001: the raw blob starts with the compact
+     * format's byte, and only its length tells them apart */
+    const double vg[] = { 5e-324, -39.6, -0.0 }, r[] = { 927.597, NAN, 1e300 };
+    unsigned char raw[48];
+    for (size_t i = 0; i < 3; i++) {
+        uint64_t bits[2];
+        memcpy(&bits[0], &vg[i], 8);
+        memcpy(&bits[1], &r[i], 8);
+        for (int b = 0; b < 16; b++)
+            raw[16 * i + (size_t)b] = (unsigned char)(bits[b / 8] >> (8 * (b % 8)));
+    }
+    ck_assert_int_eq(raw[0], 1);
+    long id = device_without_sweep(&s, "D001");
+    put_sweep_row(s.store, id, 3, raw, 48);
+    sl_diag *diag = sl_diag_new();
+    double *vg2 = NULL, *r2 = NULL;
+    size_t n2 = 0;
+    ck_assert_int_eq(sl_store_load_sweep(s.store, &vg2, &r2, &n2, id, diag), SL_OK);
+    ck_assert_uint_eq(n2, 3);
+    ck_assert_int_eq(memcmp(vg2, vg, sizeof vg), 0);
+    ck_assert_int_eq(memcmp(r2, r, sizeof r), 0);
+    free(vg2);
+    free(r2);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* Load a sweep that must be damaged; returns the message. */
+static char *load_damaged(sl_store *store, long id)
+{
+    sl_diag *diag = sl_diag_new();
+    double *vg = NULL, *r = NULL;
+    size_t n = 99;
+    ck_assert_int_eq(sl_store_load_sweep(store, &vg, &r, &n, id, diag), SL_EDB);
+    ck_assert(vg == NULL && r == NULL && n == 0);
+    char *message = strdup(sl_diag_last(diag));
+    sl_diag_free(diag);
+    return message;
+}
+
+START_TEST(damaged_sweep_is_a_database_error)
+{
+    stored_demo s = demo_store();
+    double vg[201], r[201];
+    size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
+    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    long id = device_without_sweep(&s, "D001");
+    char expected[160], *message;
+
+    put_sweep_row(s.store, id, 201, blob, (int)bytes - 5); /* truncated */
+    message = load_damaged(s.store, id);
+    snprintf(expected, sizeof expected,
+             "sweep of device %ld is damaged: it ends early (%zu bytes for 201 points)", id,
+             bytes - 5);
+    ck_assert_str_eq(message, expected);
+    free(message);
+
+    blob[1] = 9; /* no such mode */
+    put_sweep_row(s.store, id, 201, blob, (int)bytes);
+    message = load_damaged(s.store, id);
+    ck_assert_msg(strstr(message, "damaged: a column has an unknown mode") != NULL, "%s", message);
+    free(message);
+
+    put_sweep_row(s.store, id, 1000000000, blob, (int)bytes); /* more points than bytes */
+    message = load_damaged(s.store, id);
+    ck_assert_msg(strstr(message, "its length does not match its points") != NULL, "%s", message);
+    free(message);
+
+    put_sweep_row(s.store, id, -1, blob, (int)bytes);
+    free(load_damaged(s.store, id));
+    free(blob);
+    demo_store_free(&s);
+}
+END_TEST
+
+START_TEST(damaged_staged_points_are_a_database_error)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    const double vg[] = { 1.0, 2.0 }, r[] = { 10.0, 20.0 };
+    ck_assert_int_eq(sl_store_stage_points(s.store, 7, vg, r, 2, diag), SL_OK);
+    ck_assert_int_eq(sqlite3_exec(sl_store_db(s.store),
+                                  "UPDATE temp.stage SET points = x'010105'", NULL, NULL, NULL),
+                     SQLITE_OK);
+    double *vg2 = NULL, *r2 = NULL;
+    size_t n = 99;
+    ck_assert_int_eq(sl_store_staged_points(s.store, &vg2, &r2, &n, 7, diag), SL_EDB);
+    ck_assert(vg2 == NULL && r2 == NULL && n == 0);
+    ck_assert_str_eq(sl_diag_last(diag),
+                     "staged sweep points under key 7 are damaged: it ends early");
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 static Suite *store_suite(void)
 {
     Suite *s = suite_create("store");
@@ -561,7 +969,19 @@ static Suite *store_suite(void)
     tcase_add_test(tc, sweep_round_trip_exact);
     tcase_add_test(tc, duplicate_device_is_input_error);
     tcase_add_test(tc, staged_points_in_order);
+    tcase_add_test(tc, old_raw_sweep_still_loads);
+    tcase_add_test(tc, damaged_sweep_is_a_database_error);
+    tcase_add_test(tc, damaged_staged_points_are_a_database_error);
     suite_add_tcase(s, tc);
+    TCase *blob = tcase_create("sweep blob");
+    tcase_set_timeout(blob, 300);
+    tcase_add_test(blob, blob_round_trips_generated_sweeps);
+    tcase_add_test(blob, blob_is_compact_for_a_csv_sweep);
+    tcase_add_test(blob, blob_decimal_limits);
+    tcase_add_test(blob, blob_pads_a_multiple_of_16);
+    tcase_add_test(blob, blob_damage_is_named);
+    tcase_add_test(blob, blob_truncated_or_mutated_never_crashes);
+    suite_add_tcase(s, blob);
     return s;
 }
 
