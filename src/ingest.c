@@ -276,6 +276,8 @@ static sl_status import_body(ingest_ctx *c)
         c->summary->replaced = before;
     }
     if (st == SL_OK)
+        st = sl_store_begin_lot_inserts(c->store, c->lot.lot_id, c->diag);
+    if (st == SL_OK)
         st = c->opt->kind == SL_INGEST_SWEEPS ? ingest_sweeps(c) : ingest_results(c);
     if (st == SL_OK && c->summary->rows == 0) {
         sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_csv_line(c->csv), 0,

@@ -175,6 +175,7 @@ void sl_store_close(sl_store *store)
     if (!store)
         return;
     sqlite3_finalize(store->insert_device);
+    sqlite3_finalize(store->insert_new_device);
     sqlite3_finalize(store->insert_sweep);
     sqlite3_finalize(store->find_wafer);
     sqlite3_finalize(store->stage_point);

@@ -74,17 +74,42 @@ static void bind_device(sqlite3_stmt *st, long lot_id, const sl_store_device *d)
         sqlite3_bind_null(st, 24);
 }
 
-sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
-                                 const sl_store_device *dev, sl_diag *diag)
+#define INSERT_DEVICE_SQL \
+    "INSERT INTO device (lot_id, wafer_id, name, die_x, die_y, source, fit_class, " \
+    "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, " \
+    "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, " \
+    "r_squared, n_points, fit_model, electron_mobility_cm2_per_Vs, " \
+    "hole_mobility_cm2_per_Vs, n_spikes, source_line) "
+#define INSERT_DEVICE_VALUES \
+    "?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, " \
+    "?20, ?21, ?22, ?23, ?24"
+
+sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag)
 {
+    long devices = 0;
+    sl_status s = sl_store_count_devices(store, &devices, lot_id, diag);
+    store->new_lot_id = s == SL_OK && devices == 0 ? lot_id : 0;
+    return s;
+}
+
+/* The cached insert for the lot: a lot that had no devices when its import
+ * began can only meet this import's own devices again, all on wafers of one
+ * plan revision, which the unique index catches; any other lot also checks
+ * the same wafer name under older revisions. */
+static sl_status device_insert(sl_store *store, sqlite3_stmt **st, long lot_id, sl_diag *diag)
+{
+    if (lot_id == store->new_lot_id) {
+        if (!store->insert_new_device &&
+            sl_store_prepare(store, &store->insert_new_device,
+                                     INSERT_DEVICE_SQL "VALUES (" INSERT_DEVICE_VALUES ")",
+                                     diag) != SL_OK)
+            return SL_EDB;
+        *st = store->insert_new_device;
+        return SL_OK;
+    }
     if (!store->insert_device &&
         sl_store_prepare(store, &store->insert_device,
-            "INSERT INTO device (lot_id, wafer_id, name, die_x, die_y, source, fit_class, "
-            "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, "
-            "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, "
-            "r_squared, n_points, fit_model, electron_mobility_cm2_per_Vs, "
-            "hole_mobility_cm2_per_Vs, n_spikes, source_line) SELECT ?1, ?2, ?3, ?4, ?5, ?6, "
-            "?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, ?20, ?21, ?22, ?23, ?24 "
+            INSERT_DEVICE_SQL "SELECT " INSERT_DEVICE_VALUES " "
             /* the same wafer name under an older plan revision of the lot is the
              * same wafer: its devices are duplicates too (CROSS JOIN keeps the
              * index-only order: revisions, wafer by name, device) */
@@ -93,7 +118,16 @@ sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
             "AND w.name = (SELECT name FROM wafer WHERE id = ?2) AND d.lot_id = ?1 "
             "AND d.wafer_id = w.id AND d.name = ?3)", diag) != SL_OK)
         return SL_EDB;
-    sqlite3_stmt *st = store->insert_device;
+    *st = store->insert_device;
+    return SL_OK;
+}
+
+sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
+                                 const sl_store_device *dev, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    if (device_insert(store, &st, lot_id, diag) != SL_OK)
+        return SL_EDB;
     bind_device(st, lot_id, dev);
     int rc = sqlite3_step(st);
     sqlite3_reset(st);

@@ -14,6 +14,8 @@ struct sl_store {
     sqlite3 *db;
     char *path;
     sqlite3_stmt *insert_device; /* cached: the hot path of an import */
+    sqlite3_stmt *insert_new_device; /* the same without the older-revision check */
+    long new_lot_id;             /* a lot with no devices before this import, or 0 */
     sqlite3_stmt *insert_sweep;
     sqlite3_stmt *find_wafer;
     sqlite3_stmt *stage_point;

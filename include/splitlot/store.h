@@ -93,6 +93,11 @@ typedef struct {
  * this and fill what is known. */
 void sl_store_device_init(sl_store_device *dev);
 
+/* Call before an import's inserts into a lot (inside its transaction): a lot
+ * without devices yet takes plain inserts, which need not look for the same
+ * device under an older plan revision of the lot. */
+sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag);
+
 /* Insert a device (and its packed sweep); *device_id gets its row id (may be
  * NULL). A device already present for the lot and wafer gives SL_EINPUT
  * "duplicate device". Inside a transaction. */
