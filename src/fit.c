@@ -16,9 +16,10 @@
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_linalg.h>
 #include <gsl/gsl_math.h>
-#include <gsl/gsl_movstat.h>
 #include <gsl/gsl_multifit_nlinear.h>
+#include <gsl/gsl_multilarge_nlinear.h>
 #include <gsl/gsl_sort.h>
+#include <gsl/gsl_sort_double.h>
 #include <gsl/gsl_statistics_double.h>
 
 #define SMOOTH_WINDOW 5        /* moving-median window for the starting peak */
@@ -43,20 +44,32 @@ typedef struct {
     double v0, b, beta, d2, ch, sh;
 } shape_at;
 
+/* Sweep length and parameter count a solver was allocated for. */
+typedef struct {
+    size_t points, params;
+} solver_size;
+
 struct sl_fit_workspace {
     size_t max_points, n;
     double *vg, *r, *u, *g, *s, *smooth, *col, *jac, *rank_work;
-    gsl_movstat_workspace *movstat;
-    gsl_multifit_nlinear_workspace *nl, *nl_full;
-    size_t nl_points, nl_params, nl_full_points, nl_full_params;
+    double *ds;                  /* ds/dtheta_j per point, rows of MAX_NONLINEAR */
+    gsl_multilarge_nlinear_workspace *nl;   /* projected search */
+    gsl_multifit_nlinear_workspace *nl_full;
+    solver_size nl_size, nl_full_size;
     gsl_matrix *cov;
     bool two_mobility;           /* model of the sweep being fitted */
     bool fix_rc_zero;
     /* Projection state at the last evaluated shape. */
     bool have_state;
+    bool state_rc_zero;          /* fix_rc_zero when it was made */
+    bool have_gradient;          /* ds, du_a, du_c are for this shape too */
     shape_at at;
     double rc, k, chisq;
+    double sc1;                  /* c . 1 */
     double saa, sac, scc, det;   /* Gram matrix of the linear columns */
+    double sa1;                  /* a . 1, the sum of the weights u */
+    /* a . (u ds/dtheta_j) and c . (u ds/dtheta_j), for the Jacobian */
+    double du_a[MAX_NONLINEAR], du_c[MAX_NONLINEAR];
 };
 
 static const char *const class_names[SL_FIT_CLASS_COUNT] = {
@@ -129,10 +142,10 @@ sl_fit_workspace *sl_fit_workspace_new(size_t max_points)
     for (size_t i = 0; i < sizeof arrays / sizeof arrays[0]; i++)
         ok = ok && (*arrays[i] = malloc(max_points * sizeof(double))) != NULL;
     ws->jac = ok ? malloc(max_points * MAX_PARAMS * sizeof(double)) : NULL;
+    ws->ds = ok ? malloc(max_points * MAX_NONLINEAR * sizeof(double)) : NULL;
     ws->rank_work = ok ? malloc(2 * max_points * sizeof(double)) : NULL;
-    ws->movstat = gsl_movstat_alloc(SMOOTH_WINDOW);
     ws->cov = gsl_matrix_alloc(MAX_PARAMS, MAX_PARAMS);
-    if (!ok || !ws->jac || !ws->rank_work || !ws->movstat || !ws->cov) {
+    if (!ok || !ws->jac || !ws->ds || !ws->rank_work || !ws->cov) {
         sl_fit_workspace_free(ws);
         return NULL;
     }
@@ -151,11 +164,10 @@ void sl_fit_workspace_free(sl_fit_workspace *ws)
     free(ws->smooth);
     free(ws->col);
     free(ws->jac);
+    free(ws->ds);
     free(ws->rank_work);
-    if (ws->movstat)
-        gsl_movstat_free(ws->movstat);
     if (ws->nl)
-        gsl_multifit_nlinear_free(ws->nl);
+        gsl_multilarge_nlinear_free(ws->nl);
     if (ws->nl_full)
         gsl_multifit_nlinear_free(ws->nl_full);
     if (ws->cov)
@@ -163,37 +175,61 @@ void sl_fit_workspace_free(sl_fit_workspace *ws)
     free(ws);
 }
 
+static size_t nonlinear_count(const sl_fit_workspace *ws) { return ws->two_mobility ? 3 : 2; }
+static size_t param_count(const sl_fit_workspace *ws) { return ws->two_mobility ? 5 : 4; }
+
 /* A GSL solver is sized for one sweep length and parameter count; keep it
- * while they repeat. Levenberg-Marquardt: a step is a small p x p solve
- * (normal equations by Cholesky, fine at p <= 5 with parameters of order
- * one), and its damping copes with the flat direction of d when the peak is
- * sharp. */
-static gsl_multifit_nlinear_workspace *solver_for(gsl_multifit_nlinear_workspace **slot,
-                                                  size_t *slot_points, size_t *slot_params,
-                                                  size_t n, size_t p)
+ * while they repeat: true when the solver that exists has the size asked
+ * for, else *have takes that size for a new one. */
+static bool solver_fits(bool exists, solver_size *have, size_t n, size_t p)
 {
-    if (*slot && *slot_points == n && *slot_params == p)
-        return *slot;
-    if (*slot)
-        gsl_multifit_nlinear_free(*slot);
+    if (exists && have->points == n && have->params == p)
+        return true;
+    *have = (solver_size){ n, p };
+    return false;
+}
+
+/* Levenberg-Marquardt: a step is a small p x p solve (normal equations by
+ * Cholesky, fine at p <= 5 with parameters of order one), and its damping
+ * copes with the flat direction of d when the peak is sharp. The projected
+ * search runs on the driver for large problems, which asks the model for
+ * J^T u and J^T J instead of the n x p Jacobian: with two or three
+ * parameters, handing the driver J costs more (copies and matrix-vector
+ * products over all points) than the model itself. */
+static bool ensure_projected_solver(sl_fit_workspace *ws, size_t n)
+{
+    if (solver_fits(ws->nl != NULL, &ws->nl_size, n, nonlinear_count(ws)))
+        return true;
+    if (ws->nl)
+        gsl_multilarge_nlinear_free(ws->nl);
+    gsl_multilarge_nlinear_parameters par = gsl_multilarge_nlinear_default_parameters();
+    par.trs = gsl_multilarge_nlinear_trs_lm;
+    par.solver = gsl_multilarge_nlinear_solver_cholesky;
+    par.scale = gsl_multilarge_nlinear_scale_levenberg;
+    ws->nl = gsl_multilarge_nlinear_alloc(gsl_multilarge_nlinear_trust, &par, n,
+                                          nonlinear_count(ws));
+    return ws->nl != NULL;
+}
+
+/* The full search, the same method on the driver that takes J itself. */
+static bool ensure_full_solver(sl_fit_workspace *ws, size_t n)
+{
+    if (solver_fits(ws->nl_full != NULL, &ws->nl_full_size, n, param_count(ws)))
+        return true;
+    if (ws->nl_full)
+        gsl_multifit_nlinear_free(ws->nl_full);
     gsl_multifit_nlinear_parameters par = gsl_multifit_nlinear_default_parameters();
     par.trs = gsl_multifit_nlinear_trs_lm;
     par.solver = gsl_multifit_nlinear_solver_cholesky;
     par.scale = gsl_multifit_nlinear_scale_levenberg;
-    *slot = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, n, p);
-    *slot_points = *slot ? n : 0;
-    *slot_params = p;
-    return *slot;
+    ws->nl_full = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, n,
+                                             param_count(ws));
+    return ws->nl_full != NULL;
 }
-
-static size_t nonlinear_count(const sl_fit_workspace *ws) { return ws->two_mobility ? 3 : 2; }
-static size_t param_count(const sl_fit_workspace *ws) { return ws->two_mobility ? 5 : 4; }
 
 static sl_status ensure_solvers(sl_fit_workspace *ws, size_t n)
 {
-    bool ok = solver_for(&ws->nl, &ws->nl_points, &ws->nl_params, n, nonlinear_count(ws)) &&
-              solver_for(&ws->nl_full, &ws->nl_full_points, &ws->nl_full_params, n,
-                         param_count(ws));
+    bool ok = ensure_projected_solver(ws, n) && ensure_full_solver(ws, n);
     return ok ? SL_OK : SL_ENOMEM;
 }
 
@@ -279,88 +315,244 @@ static bool same_shape(const shape_at *a, const shape_at *b)
     return a->v0 == b->v0 && a->b == b->b && a->beta == b->beta;
 }
 
-static void project(sl_fit_workspace *ws, const shape_at *at)
+/* Sums over the points of a . (u ds/dtheta_j) and c . (u ds/dtheta_j). */
+typedef struct {
+    double du_a[MAX_NONLINEAR], du_c[MAX_NONLINEAR];
+} gradient_sums;
+
+/* Keeps ds/dtheta_j of point i in ws->ds and adds u ds/dtheta_j to the
+ * sums. */
+static inline void add_gradient(sl_fit_workspace *ws, gradient_sums *sums, size_t i, double u,
+                                double c, const shape_grad *sg, bool two_mobility)
 {
-    if (ws->have_state && same_shape(&ws->at, at))
-        return;
-    double sac = 0.0, scc = 0.0, sa1 = 0.0, sc1 = 0.0;
+    double *ds = ws->ds + i * MAX_NONLINEAR;
+    for (size_t j = 0; j < (two_mobility ? 3u : 2u); j++) {
+        double du = u * sg->ds[j];
+        ds[j] = sg->ds[j];
+        sums->du_a[j] += u * du;
+        sums->du_c[j] += c * du;
+    }
+}
+
+static void keep_gradient(sl_fit_workspace *ws, const gradient_sums *sums)
+{
+    memcpy(ws->du_a, sums->du_a, sizeof ws->du_a);
+    memcpy(ws->du_c, sums->du_c, sizeof ws->du_c);
+}
+
+/* One pass over the points at the shape *at: g and s of every point, the
+ * Gram matrix and its right-hand side, and with_gradient also the sums
+ * du_a, du_c and the values ws->ds that Kaufman's Jacobian needs (a fused
+ * accumulation in our own model evaluation). Written for constant flags
+ * (see project). */
+static inline void projection_pass(sl_fit_workspace *ws, const shape_at *at, bool two_mobility,
+                                   bool with_gradient)
+{
+    double sac = 0.0, scc = 0.0, sc1 = 0.0;
+    gradient_sums sums = { { 0 }, { 0 } };
     for (size_t i = 0; i < ws->n; i++) {
-        double x = ws->vg[i] - at->v0, g = 1.0 / sqrt(at->d2 + x * x);
-        double s = shape_from_g(at, x, g, ws->two_mobility), u = ws->u[i];
-        double c = s * u;
+        double x = ws->vg[i] - at->v0, g = 1.0 / sqrt(at->d2 + x * x), u = ws->u[i];
+        shape_grad sg = { shape_from_g(at, x, g, two_mobility), { 0 } };
+        if (with_gradient)
+            sg = shape_gradient_at(at, x, g, two_mobility);
+        double c = sg.s * u;
         ws->g[i] = g;
-        ws->s[i] = s;
+        ws->s[i] = sg.s;
         sac += u * c;
         scc += c * c;
-        sa1 += u;
         sc1 += c;
+        if (with_gradient)
+            add_gradient(ws, &sums, i, u, c, &sg, two_mobility);
     }
     ws->sac = sac;
     ws->scc = scc;
+    ws->sc1 = sc1;
     ws->det = ws->saa * scc - sac * sac;
-    gram_solve(ws, sa1, sc1, &ws->rc, &ws->k);
-    double chisq = 0.0;
-    for (size_t i = 0; i < ws->n; i++) {
-        double f = 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
-        chisq += f * f;
-    }
-    ws->chisq = chisq;
-    ws->at = *at;
-    ws->have_state = true;
+    gram_solve(ws, ws->sa1, sc1, &ws->rc, &ws->k);
+    keep_gradient(ws, &sums);
 }
 
+/* The gradient sums alone, from g and s kept by a projection at this shape
+ * (the same numbers projection_pass would add up). */
+static inline void gradient_pass(sl_fit_workspace *ws, bool two_mobility)
+{
+    gradient_sums sums = { { 0 }, { 0 } };
+    for (size_t i = 0; i < ws->n; i++) {
+        double u = ws->u[i], c = ws->s[i] * u;
+        shape_grad sg = shape_gradient_at(&ws->at, ws->vg[i] - ws->at.v0, ws->g[i], two_mobility);
+        add_gradient(ws, &sums, i, u, c, &sg, two_mobility);
+    }
+    keep_gradient(ws, &sums);
+}
+
+/* Solves for (R_c, K) at the shape *at and keeps what the residuals and
+ * (with_gradient) the Jacobian there need. What the last call left for the
+ * same shape is reused. The cost is left to projected_chisq. */
+static void project(sl_fit_workspace *ws, const shape_at *at, bool with_gradient)
+{
+    bool same = ws->have_state && same_shape(&ws->at, at) && ws->state_rc_zero == ws->fix_rc_zero;
+    if (same && (ws->have_gradient || !with_gradient))
+        return;
+    if (same && ws->two_mobility)
+        gradient_pass(ws, true);
+    else if (same)
+        gradient_pass(ws, false);
+    else if (ws->two_mobility && with_gradient)
+        projection_pass(ws, at, true, true);
+    else if (ws->two_mobility)
+        projection_pass(ws, at, true, false);
+    else if (with_gradient)
+        projection_pass(ws, at, false, true);
+    else
+        projection_pass(ws, at, false, false);
+    ws->at = *at;
+    ws->have_state = true;
+    ws->state_rc_zero = ws->fix_rc_zero;
+    ws->have_gradient = with_gradient;
+}
+
+static inline double projected_residual_at(const sl_fit_workspace *ws, size_t i)
+{
+    return 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
+}
+
+/* Sum of squared relative residuals at the last projection. */
+static double projected_chisq(const sl_fit_workspace *ws)
+{
+    double chisq = 0.0;
+    for (size_t i = 0; i < ws->n; i++) {
+        double f = projected_residual_at(ws, i);
+        chisq += f * f;
+    }
+    return chisq;
+}
+
+/* The same from the sums of the projection alone: at the least-squares
+ * (R_c, K) the residual is orthogonal to a and c, so chi^2 = f . 1 =
+ * n - R_c (a . 1) - K (c . 1). Exact but for rounding of relative size
+ * n eps / chi^2, which is ample for ranking starting values. */
+static double projected_chisq_from_sums(const sl_fit_workspace *ws)
+{
+    return (double)ws->n - ws->rc * ws->sa1 - ws->k * ws->sc1;
+}
+
+/* The residuals of the projected search. The Jacobian sums are gathered in
+ * the same pass: the driver asks for the Jacobian at every point whose step
+ * it accepts, which is nearly every point it evaluates. */
 static int projected_residual(const gsl_vector *x, void *data, gsl_vector *f)
 {
     sl_fit_workspace *ws = data;
     shape_at at = shape_of_vector(ws, x);
-    project(ws, &at);
+    project(ws, &at, true);
     for (size_t i = 0; i < ws->n; i++)
-        f->data[i * f->stride] = 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
+        f->data[i * f->stride] = projected_residual_at(ws, i);
     return GSL_SUCCESS;
 }
 
 /* Kaufman's approximation of the projected Jacobian: column j is
- * -P_perp (u K ds/dtheta_j), P_perp the projector off span{a, c}. */
-static int projected_jacobian(const gsl_vector *x, void *data, gsl_matrix *jac)
+ * -P_perp t_j with t_j = u K ds/dtheta_j and P_perp the projector off
+ * span{a, c}, i.e. J_ij = alpha_j a_i + beta_j c_i - t_ij where (alpha_j,
+ * beta_j) solve the Gram system for t_j (right-hand side K du_a, K du_c).
+ * GSL's large-problem driver asks for products with J only, never for J:
+ * see projected_jacobian. */
+typedef struct {
+    double alpha[MAX_NONLINEAR], beta[MAX_NONLINEAR];
+} kaufman_coefficients;
+
+static kaufman_coefficients kaufman_at_state(const sl_fit_workspace *ws)
+{
+    kaufman_coefficients kc = { { 0 }, { 0 } };
+    for (size_t j = 0; j < nonlinear_count(ws); j++)
+        gram_solve(ws, ws->k * ws->du_a[j], ws->k * ws->du_c[j], &kc.alpha[j], &kc.beta[j]);
+    return kc;
+}
+
+/* Row i of J (the third entry 0 in the symmetric model), from the values
+ * the projection kept. Written for a constant two_mobility. */
+static inline void kaufman_row(const sl_fit_workspace *ws, const kaufman_coefficients *kc,
+                               size_t i, bool two_mobility, double row[MAX_NONLINEAR])
+{
+    const double *ds = ws->ds + i * MAX_NONLINEAR;
+    double u = ws->u[i], ku = ws->k * u, su = ws->s[i] * u;
+    row[2] = 0.0;
+    for (size_t j = 0; j < (two_mobility ? 3u : 2u); j++)
+        row[j] = kc->alpha[j] * u + kc->beta[j] * su - ku * ds[j];
+}
+
+/* v = J^T w and J^T J (either may be NULL), the rows of J formed one at a
+ * time and accumulated in the same pass (a fused accumulation in our own
+ * model evaluation). Written for a constant two_mobility. */
+static inline void jacobian_transpose_products(const sl_fit_workspace *ws, bool two_mobility,
+                                               const gsl_vector *w, gsl_vector *v,
+                                               gsl_matrix *jtj)
+{
+    kaufman_coefficients kc = kaufman_at_state(ws);
+    double w0 = 0.0, w1 = 0.0, w2 = 0.0;
+    double s00 = 0.0, s10 = 0.0, s11 = 0.0, s20 = 0.0, s21 = 0.0, s22 = 0.0;
+    for (size_t i = 0; i < ws->n; i++) {
+        double r[MAX_NONLINEAR], wi = v ? w->data[i * w->stride] : 0.0;
+        kaufman_row(ws, &kc, i, two_mobility, r);
+        w0 += wi * r[0];
+        w1 += wi * r[1];
+        s00 += r[0] * r[0];
+        s10 += r[1] * r[0];
+        s11 += r[1] * r[1];
+        if (two_mobility) {
+            w2 += wi * r[2];
+            s20 += r[2] * r[0];
+            s21 += r[2] * r[1];
+            s22 += r[2] * r[2];
+        }
+    }
+    const double jw[MAX_NONLINEAR] = { w0, w1, w2 };
+    const double sums[MAX_NONLINEAR][MAX_NONLINEAR] = {
+        { s00, s10, s20 }, { s10, s11, s21 }, { s20, s21, s22 },
+    };
+    for (size_t j = 0; j < nonlinear_count(ws); j++) {
+        if (v)
+            v->data[j * v->stride] = jw[j];
+        for (size_t k = 0; jtj && k < nonlinear_count(ws); k++)
+            jtj->data[j * jtj->tda + k] = sums[j][k];
+    }
+}
+
+/* v = J w (w of p) and J^T J when asked for. */
+static void jacobian_times(const sl_fit_workspace *ws, const gsl_vector *w, gsl_vector *v,
+                           gsl_matrix *jtj)
+{
+    kaufman_coefficients kc = kaufman_at_state(ws);
+    for (size_t i = 0; i < ws->n; i++) {
+        double r[MAX_NONLINEAR], jw = 0.0;
+        kaufman_row(ws, &kc, i, ws->two_mobility, r);
+        for (size_t j = 0; j < nonlinear_count(ws); j++)
+            jw += r[j] * w->data[j * w->stride];
+        v->data[i * v->stride] = jw;
+    }
+    if (jtj)
+        jacobian_transpose_products(ws, ws->two_mobility, NULL, NULL, jtj);
+}
+
+/* df of the projected search, GSL's large-problem contract: v = J^T w for
+ * CblasTrans (w of n), v = J w for CblasNoTrans (w of p), and J^T J (full,
+ * symmetric) into jtj; v or jtj may be NULL. */
+static int projected_jacobian(CBLAS_TRANSPOSE_t trans, const gsl_vector *x, const gsl_vector *w,
+                              void *data, gsl_vector *v, gsl_matrix *jtj)
 {
     sl_fit_workspace *ws = data;
     shape_at at = shape_of_vector(ws, x);
-    project(ws, &at);
-    size_t p = nonlinear_count(ws);
-    double ta[MAX_NONLINEAR] = { 0 }, tc[MAX_NONLINEAR] = { 0 };
-    for (size_t i = 0; i < ws->n; i++) {
-        /* g and s at this shape are those project() just stored */
-        shape_grad sg = shape_gradient_at(&at, ws->vg[i] - at.v0, ws->g[i], ws->two_mobility);
-        double u = ws->u[i], ku = ws->k * u, su = sg.s * u;
-        double t0 = ku * sg.ds[0], t1 = ku * sg.ds[1], t2 = ku * sg.ds[2];
-        double *row = jac->data + i * jac->tda;
-        row[0] = t0;
-        row[1] = t1;
-        if (p == MAX_NONLINEAR)
-            row[2] = t2;
-        ta[0] += u * t0;
-        ta[1] += u * t1;
-        ta[2] += u * t2;
-        tc[0] += su * t0;
-        tc[1] += su * t1;
-        tc[2] += su * t2;
-    }
-    double alpha[MAX_NONLINEAR], beta[MAX_NONLINEAR];
-    for (size_t j = 0; j < p; j++)
-        gram_solve(ws, ta[j], tc[j], &alpha[j], &beta[j]);
-    for (size_t i = 0; i < ws->n; i++) {
-        double u = ws->u[i], su = ws->s[i] * u;
-        double *row = jac->data + i * jac->tda;
-        row[0] = alpha[0] * u + beta[0] * su - row[0];
-        row[1] = alpha[1] * u + beta[1] * su - row[1];
-        if (p == MAX_NONLINEAR)
-            row[2] = alpha[2] * u + beta[2] * su - row[2];
-    }
+    project(ws, &at, true);
+    if (v && trans == CblasNoTrans)
+        jacobian_times(ws, w, v, jtj);
+    else if (ws->two_mobility)
+        jacobian_transpose_products(ws, true, w, v, jtj);
+    else
+        jacobian_transpose_products(ws, false, w, v, jtj);
     return GSL_SUCCESS;
 }
 
-/* Run GSL's trust-region driver from start; the solution is left in start.
- * No progress means no step can lower the cost any more: a minimum. */
+/* Run GSL's multifit trust-region driver from start; the solution is left
+ * in start. No progress means no step can lower the cost any more: a
+ * minimum. */
 static int run_driver(gsl_multifit_nlinear_workspace *nl, gsl_multifit_nlinear_fdf *fdf,
                       double *start, const sl_fit_config *cfg, int *iterations)
 {
@@ -374,21 +566,35 @@ static int run_driver(gsl_multifit_nlinear_workspace *nl, gsl_multifit_nlinear_f
     return st == GSL_ENOPROG ? GSL_SUCCESS : st;
 }
 
+/* The same for the large-problem driver of the projected search. */
+static int run_large_driver(gsl_multilarge_nlinear_workspace *nl,
+                            gsl_multilarge_nlinear_fdf *fdf, double *start,
+                            const sl_fit_config *cfg, int *iterations)
+{
+    gsl_vector_view x0 = gsl_vector_view_array(start, fdf->p);
+    int info = 0, st = gsl_multilarge_nlinear_init(&x0.vector, fdf, nl);
+    if (st == GSL_SUCCESS)
+        st = gsl_multilarge_nlinear_driver((size_t)cfg->max_iterations, XTOL, GTOL, FTOL, NULL,
+                                           NULL, &info, nl);
+    *iterations += (int)gsl_multilarge_nlinear_niter(nl);
+    gsl_vector_memcpy(&x0.vector, gsl_multilarge_nlinear_position(nl));
+    return st == GSL_ENOPROG ? GSL_SUCCESS : st;
+}
+
 /* Projected search from *at; leaves the solution in *at and the projection
  * state. */
 static int run_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape_at *at,
                       int *iterations)
 {
-    gsl_multifit_nlinear_fdf fdf = {
+    gsl_multilarge_nlinear_fdf fdf = {
         .f = projected_residual, .df = projected_jacobian, .fvv = NULL,
         .n = ws->n, .p = nonlinear_count(ws), .params = ws,
     };
     double x[MAX_NONLINEAR] = { at->v0, at->b, at->beta };
-    ws->have_state = false;
-    int st = run_driver(ws->nl, &fdf, x, cfg, iterations);
+    int st = run_large_driver(ws->nl, &fdf, x, cfg, iterations);
     *at = shape_setup(x[0], x[1], ws->two_mobility ? x[2] : 0.0);
-    ws->have_state = false;
-    project(ws, at);
+    project(ws, at, false);   /* usually the driver's last evaluation, kept */
+    ws->chisq = projected_chisq(ws);
     return st;
 }
 
@@ -447,7 +653,7 @@ static int run_full_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape
 {
     ws->fix_rc_zero = false;
     ws->have_state = false;
-    project(ws, at);
+    project(ws, at, false);
     double r_min = gsl_stats_min(ws->r, 1, ws->n);
     double k0 = ws->k > 0.0 ? ws->k : (gsl_stats_max(ws->r, 1, ws->n) - r_min) * exp(at->b);
     double rc0 = GSL_MAX(ws->rc, 0.01 * r_min);
@@ -474,9 +680,9 @@ static int run_full_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape
 /* Half width of the peak of curve (smoothed or raw readings) at half height
  * over its smallest value, from the side where it is reached nearest; the
  * sweep span when neither. */
-static double peak_half_width_V(const sl_fit_workspace *ws, const double *curve, size_t peak)
+static double peak_half_width_V(const sl_fit_workspace *ws, const double *curve, double floor_ohm,
+                                size_t peak)
 {
-    double floor_ohm = gsl_stats_min(curve, 1, ws->n);
     double half = floor_ohm + 0.5 * (curve[peak] - floor_ohm);
     double best = ws->vg[ws->n - 1] - ws->vg[0];
     size_t i = peak;
@@ -493,23 +699,24 @@ static double peak_half_width_V(const sl_fit_workspace *ws, const double *curve,
 
 /* ln d to start from at the peak: half height is reached at |V - V0| =
  * sqrt(3) d; the best of a few multiples of that guess by projected cost,
- * which goes to *cost. */
-static double start_log_width(sl_fit_workspace *ws, const double *curve, size_t peak,
-                              double *cost)
+ * which goes to *cost. The guess itself, the usual winner, is tried last,
+ * so that the search starts where the projection was just made. */
+static double start_log_width(sl_fit_workspace *ws, const double *curve, double floor_ohm,
+                              size_t peak, double *cost)
 {
     double span = ws->vg[ws->n - 1] - ws->vg[0];
-    double d = peak_half_width_V(ws, curve, peak) / M_SQRT3;
+    double d = peak_half_width_V(ws, curve, floor_ohm, peak) / M_SQRT3;
     d = GSL_MIN(GSL_MAX(d, 1e-4 * span), span);
-    static const double factors[] = { 0.5, 1.0, 2.0 };
+    static const double factors[] = { 0.5, 2.0, 1.0 };
     double best_b = log(d);
     *cost = HUGE_VAL;
     for (size_t i = 0; i < sizeof factors / sizeof factors[0]; i++) {
         double b = log(d * factors[i]);
         shape_at at = shape_setup(ws->vg[peak], b, 0.0);
-        ws->have_state = false;
-        project(ws, &at);
-        if (ws->chisq < *cost && ws->k > 0.0) {
-            *cost = ws->chisq;
+        project(ws, &at, false);
+        double chisq = projected_chisq_from_sums(ws);
+        if (chisq < *cost && ws->k > 0.0) {
+            *cost = chisq;
             best_b = b;
         }
     }
@@ -522,14 +729,33 @@ static bool interior(size_t index, size_t n)
     return index >= edge && index + edge < n;
 }
 
+/* Extremes of the readings and of their moving median (one pass each). */
+typedef struct {
+    double r_min, r_max, s_min, s_max;
+    size_t r_peak, s_peak;   /* first index of the maximum */
+} sweep_extremes;
+
+static sweep_extremes find_extremes(const sl_fit_workspace *ws)
+{
+    sweep_extremes e;
+    size_t r_low, s_low;
+    gsl_stats_minmax_index(&r_low, &e.r_peak, ws->r, 1, ws->n);
+    gsl_stats_minmax_index(&s_low, &e.s_peak, ws->smooth, 1, ws->n);
+    e.r_min = ws->r[r_low];
+    e.r_max = ws->r[e.r_peak];
+    e.s_min = ws->smooth[s_low];
+    e.s_max = ws->smooth[e.s_peak];
+    return e;
+}
+
 /* Start at the peak of the moving median (robust to spikes) or of the raw
  * readings (a peak only a point or two wide on a coarse sweep, which the
  * median removes), whichever has the lower projected cost. */
-static void choose_start(sl_fit_workspace *ws, shape_at *start)
+static void choose_start(sl_fit_workspace *ws, const sweep_extremes *e, shape_at *start)
 {
     const double *curves[2] = { ws->r, ws->smooth };
-    size_t peaks[2] = { gsl_stats_max_index(ws->r, 1, ws->n),
-                        gsl_stats_max_index(ws->smooth, 1, ws->n) };
+    const double floors[2] = { e->r_min, e->s_min };
+    const size_t peaks[2] = { e->r_peak, e->s_peak };
     /* Peaks a window apart or less are one peak: the raw one will do. */
     size_t candidates = peaks[0] + SMOOTH_WINDOW / 2 >= peaks[1] &&
                         peaks[1] + SMOOTH_WINDOW / 2 >= peaks[0] ? 1 : 2;
@@ -538,7 +764,7 @@ static void choose_start(sl_fit_workspace *ws, shape_at *start)
         size_t peak = peaks[c];
         if (!interior(peak, ws->n))
             continue;
-        double cost, width = start_log_width(ws, curves[c], peak, &cost);
+        double cost, width = start_log_width(ws, curves[c], floors[c], peak, &cost);
         if (cost < best_cost || best_cost == HUGE_VAL) {
             best_cost = cost;
             *start = shape_setup(ws->vg[peak], width, 0.0);
@@ -556,6 +782,28 @@ static bool any_open(const double *r_ohm, size_t n, double open_min_ohm)
     return false;
 }
 
+/* Moving median of the readings over SMOOTH_WINDOW points, the window
+ * truncated at the ends: the values gsl_movstat_median gives with
+ * GSL_MOVSTAT_END_TRUNCATE, at a fraction of the cost of its general
+ * accumulator. A full window's median is its middle value,
+ * picked by gsl_sort_smallest; the truncated windows at the ends go to
+ * gsl_stats_median. */
+static void moving_median(sl_fit_workspace *ws)
+{
+    const size_t half = SMOOTH_WINDOW / 2;
+    double window[SMOOTH_WINDOW];
+    for (size_t i = 0; i < ws->n; i++) {
+        size_t lo = i >= half ? i - half : 0, hi = GSL_MIN(i + half + 1, ws->n);
+        if (hi - lo == SMOOTH_WINDOW) {
+            gsl_sort_smallest(window, half + 1, ws->r + lo, 1, SMOOTH_WINDOW);
+            ws->smooth[i] = window[half];
+        } else {
+            memcpy(window, ws->r + lo, (hi - lo) * sizeof *window);
+            ws->smooth[i] = gsl_stats_median(window, 1, hi - lo);
+        }
+    }
+}
+
 /* Sorted copies of the sweep, weights u = 1/R and the moving median. */
 static void prepare(sl_fit_workspace *ws, const double *vg_V, const double *r_ohm, size_t n)
 {
@@ -569,14 +817,16 @@ static void prepare(sl_fit_workspace *ws, const double *vg_V, const double *r_oh
         sorted = ws->vg[i - 1] <= ws->vg[i];
     if (!sorted)
         gsl_sort2(ws->vg, 1, ws->r, 1, n);
-    ws->saa = 0.0;
+    double saa = 0.0, sa1 = 0.0;
     for (size_t i = 0; i < n; i++) {
-        ws->u[i] = 1.0 / ws->r[i];
-        ws->saa += ws->u[i] * ws->u[i];
+        double u = 1.0 / ws->r[i];
+        ws->u[i] = u;
+        saa += u * u;
+        sa1 += u;
     }
-    gsl_vector_const_view in = gsl_vector_const_view_array(ws->r, n);
-    gsl_vector_view out = gsl_vector_view_array(ws->smooth, n);
-    gsl_movstat_median(GSL_MOVSTAT_END_TRUNCATE, &in.vector, &out.vector, ws->movstat);
+    ws->saa = saa;
+    ws->sa1 = sa1;
+    moving_median(ws);
 }
 
 static double median_ohm(sl_fit_workspace *ws)
@@ -587,21 +837,18 @@ static double median_ohm(sl_fit_workspace *ws)
 }
 
 /* Class decided from the readings alone, or SL_FIT_OK to go on fitting. */
-static sl_fit_class classify_readings(sl_fit_workspace *ws, const sl_fit_config *cfg)
+static sl_fit_class classify_readings(sl_fit_workspace *ws, const sl_fit_config *cfg,
+                                      const sweep_extremes *e)
 {
     size_t n = ws->n;
-    double r_min, r_max, s_min, s_max;
-    gsl_stats_minmax(&r_min, &r_max, ws->r, 1, n);
-    gsl_stats_minmax(&s_min, &s_max, ws->smooth, 1, n);
-    bool flat = s_min <= 0.0 || s_max / s_min - 1.0 < cfg->min_modulation;
-    if (r_max < cfg->short_max_ohm)
+    bool flat = e->s_min <= 0.0 || e->s_max / e->s_min - 1.0 < cfg->min_modulation;
+    if (e->r_max < cfg->short_max_ohm)
         return SL_FIT_SHORT;
     if (flat && median_ohm(ws) < cfg->short_flat_max_ohm)
         return SL_FIT_SHORT;
-    if (r_min <= 0.0 || flat)
+    if (e->r_min <= 0.0 || flat)
         return SL_FIT_POOR;
-    if (interior(gsl_stats_max_index(ws->smooth, 1, n), n) ||
-        interior(gsl_stats_max_index(ws->r, 1, n), n))
+    if (interior(e->s_peak, n) || interior(e->r_peak, n))
         return SL_FIT_OK;
     /* Highest at an end, smoothed or not: a neutrality point beyond the
      * sweep if the curve rises steadily towards it, otherwise noise without
@@ -629,22 +876,26 @@ static void clear_result(sl_fit_result *out, size_t n_points)
     out->n_points = n_points;
 }
 
+/* Relative RMS and R^2 of the fit. The mean reading for the total sum of
+ * squares is summed in the same pass as the residuals (a fused
+ * accumulation; gsl_stats_mean's running mean divides at every point). */
 static void quality(sl_fit_result *out, sl_fit_workspace *ws)
 {
-    double ss_rel = 0.0, ss_res = 0.0;
+    double ss_rel = 0.0, ss_res = 0.0, sum_r = 0.0;
     for (size_t i = 0; i < ws->n; i++) {
         double e = ws->r[i] - (ws->rc + ws->k * ws->s[i]);
         ss_res += e * e;
-        ss_rel += (e / ws->r[i]) * (e / ws->r[i]);
+        ss_rel += (e * ws->u[i]) * (e * ws->u[i]);   /* u = 1/R */
+        sum_r += ws->r[i];
     }
-    double mean = gsl_stats_mean(ws->r, 1, ws->n);
+    double mean = sum_r / (double)ws->n;
     double ss_tot = gsl_stats_tss_m(ws->r, 1, ws->n, mean);
     out->rel_rms = sqrt(ss_rel / (double)ws->n);
     out->r_squared = ss_tot > 0.0 ? 1.0 - ss_res / ss_tot : 0.0;
 }
 
 /* Jacobian of the relative residuals in the natural parameters (V0, d, K,
- * R_c[, beta]) at the solution, and J^T J (lower triangle) into cov. */
+ * R_c[, beta]) at the solution, and J^T J (lower triangle) into jtj. */
 static gsl_matrix_view natural_jacobian(sl_fit_workspace *ws, const shape_at *at,
                                         gsl_matrix *jtj)
 {
@@ -669,14 +920,69 @@ static gsl_matrix_view natural_jacobian(sl_fit_workspace *ws, const shape_at *at
     return jac;
 }
 
-/* (J^T J)^-1 by Cholesky, the normal matrix being well conditioned at a good
- * fit; GSL's rank-revealing QR covariance when it is not. */
-static void unscaled_covariance(gsl_matrix *cov, const gsl_matrix *jac)
+/* The same J^T J from what a projection with gradient kept at the solution:
+ * with t_j = u ds/dtheta_j the natural columns are -K t_0, -(K/d) t_1, -c,
+ * -a[, -K t_2], so J^T J is made of the sums t_j . t_k (one light pass over
+ * ws->ds), a . t_j and c . t_j (du_a, du_c) and the Gram matrix. Written for
+ * a constant two_mobility (see natural_normal_matrix). */
+static inline void natural_normal_from_sums(const sl_fit_workspace *ws, bool two_mobility,
+                                            gsl_matrix *jtj)
+{
+    double t00 = 0.0, t10 = 0.0, t11 = 0.0, t20 = 0.0, t21 = 0.0, t22 = 0.0;
+    for (size_t i = 0; i < ws->n; i++) {
+        const double *ds = ws->ds + i * MAX_NONLINEAR;
+        double t[MAX_NONLINEAR] = { ws->u[i] * ds[0], ws->u[i] * ds[1],
+                                    two_mobility ? ws->u[i] * ds[2] : 0.0 };
+        t00 += t[0] * t[0];
+        t10 += t[1] * t[0];
+        t11 += t[1] * t[1];
+        if (two_mobility) {
+            t20 += t[2] * t[0];
+            t21 += t[2] * t[1];
+            t22 += t[2] * t[2];
+        }
+    }
+    double k = ws->k, kd = k * exp(-ws->at.b);
+    const double *ta = ws->du_a, *tc = ws->du_c;
+    const double lower[MAX_PARAMS][MAX_PARAMS] = {
+        { k * k * t00 },
+        { kd * k * t10, kd * kd * t11 },
+        { k * tc[0], kd * tc[1], ws->scc },
+        { k * ta[0], kd * ta[1], ws->sac, ws->saa },
+        { k * k * t20, k * kd * t21, k * tc[2], k * ta[2], k * k * t22 },
+    };
+    for (size_t a = 0; a < (two_mobility ? 5u : 4u); a++)
+        for (size_t b = 0; b <= a; b++)
+            jtj->data[a * jtj->tda + b] = lower[a][b];
+}
+
+/* J^T J of the natural parameters at the solution *at (lower triangle) into
+ * jtj; true when the rows of J are in ws->jac as well. */
+static bool natural_normal_matrix(sl_fit_workspace *ws, const shape_at *at, gsl_matrix *jtj)
+{
+    if (!(ws->have_state && ws->have_gradient && same_shape(&ws->at, at))) {
+        natural_jacobian(ws, at, jtj);
+        return true;
+    }
+    if (ws->two_mobility)
+        natural_normal_from_sums(ws, true, jtj);
+    else
+        natural_normal_from_sums(ws, false, jtj);
+    return false;
+}
+
+/* (J^T J)^-1 by Cholesky from the normal matrix in cov, well conditioned at
+ * a good fit; GSL's rank-revealing QR covariance from the rows of J when it
+ * is not. */
+static void unscaled_covariance(sl_fit_workspace *ws, const shape_at *at, gsl_matrix *cov,
+                                bool have_rows)
 {
     if (gsl_linalg_cholesky_decomp1(cov) == GSL_SUCCESS &&
         gsl_linalg_cholesky_invert(cov) == GSL_SUCCESS)
         return;
-    gsl_multifit_nlinear_covar(jac, 0.0, cov);
+    gsl_matrix_view jac = have_rows ? gsl_matrix_view_array(ws->jac, ws->n, param_count(ws))
+                                    : natural_jacobian(ws, at, cov);
+    gsl_multifit_nlinear_covar(&jac.matrix, 0.0, cov);
 }
 
 /* Electron and hole mobilities mu e^(+-beta/2) with first-order errors from
@@ -710,8 +1016,8 @@ static void fill_parameters(sl_fit_result *out, sl_fit_workspace *ws, const sl_f
     out->p.r_contact_ohm = ws->rc;
     size_t p = param_count(ws);
     gsl_matrix_view cov = gsl_matrix_submatrix(ws->cov, 0, 0, p, p);
-    gsl_matrix_view jac = natural_jacobian(ws, at, &cov.matrix);
-    unscaled_covariance(&cov.matrix, &jac.matrix);
+    bool have_rows = natural_normal_matrix(ws, at, &cov.matrix);
+    unscaled_covariance(ws, at, &cov.matrix, have_rows);
     double var = ws->chisq / (double)(ws->n - p);
     double sd[MAX_PARAMS];
     for (size_t j = 0; j < p; j++)
@@ -795,7 +1101,7 @@ static size_t find_spikes(sl_fit_workspace *ws)
     size_t n = ws->n;
     double *f = ws->rank_work, *work = ws->rank_work + n;
     for (size_t i = 0; i < n; i++)
-        f[i] = 1.0 - (ws->rc + ws->k * ws->s[i]) * ws->u[i];
+        f[i] = projected_residual_at(ws, i);
     double sigma = gsl_stats_mad(f, 1, n, work);
     size_t count = 0;
     for (size_t i = 0; i < n; i++) {
@@ -810,16 +1116,19 @@ static size_t find_spikes(sl_fit_workspace *ws)
 static void drop_marked(sl_fit_workspace *ws)
 {
     size_t kept = 0;
-    ws->saa = 0.0;
+    double saa = 0.0, sa1 = 0.0;
     for (size_t i = 0; i < ws->n; i++) {
         if (ws->col[i] != 0.0)
             continue;
         ws->vg[kept] = ws->vg[i];
         ws->r[kept] = ws->r[i];
         ws->u[kept] = ws->u[i];
-        ws->saa += ws->u[i] * ws->u[i];
+        saa += ws->u[i] * ws->u[i];
+        sa1 += ws->u[i];
         kept++;
     }
+    ws->saa = saa;
+    ws->sa1 = sa1;
     ws->n = kept;
     ws->have_state = false;
 }
@@ -856,11 +1165,12 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
     if (ensure_solvers(ws, n_points) != SL_OK)
         return SL_ENOMEM;
     prepare(ws, vg_V, r_ohm, n_points);
-    out->cls = classify_readings(ws, cfg);
+    sweep_extremes extremes = find_extremes(ws);
+    out->cls = classify_readings(ws, cfg, &extremes);
     if (out->cls != SL_FIT_OK)
         return SL_OK;
     shape_at at = shape_setup(ws->vg[n_points / 2], 0.0, 0.0);
-    choose_start(ws, &at);
+    choose_start(ws, &extremes, &at);
     out->cls = search(ws, cfg, &at, &out->iterations);
     if (out->cls == SL_FIT_NO_CONVERGENCE)
         return SL_OK;

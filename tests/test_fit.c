@@ -237,6 +237,17 @@ START_TEST(full_search_agrees_with_projection)
                           k, j, pa[j], pb[j]);
         }
         ck_assert_double_eq_tol(a.rel_rms, b.rel_rms, 1e-6 * a.rel_rms + 1e-9);
+        /* The standard errors: the projected search builds J^T J from the
+         * sums it kept, the full one from the rows of J; at one solution
+         * they are the same matrix. Not on the noise-free curve, where
+         * chi^2, and with it every error, is rounding only. */
+        const double *sb = &b.sigma.cnp_V;
+        for (int j = 0; k > 0 && j < 4; j++)
+            ck_assert_msg(fabs(sa[j] - sb[j]) <= 1e-5 * sa[j], "device %d sigma %d: %g vs %g", k, j,
+                          sa[j], sb[j]);
+        ck_assert(k == 0 || fabs(a.electron_mobility_cm2_per_Vs.sigma -
+                                 b.electron_mobility_cm2_per_Vs.sigma) <=
+                                1e-5 * a.electron_mobility_cm2_per_Vs.sigma);
         double ratio_tol = k == 0 ? 1e-6 : 0.05 * a.electron_hole_mobility_ratio.sigma;
         ck_assert(fabs(a.electron_hole_mobility_ratio.val - b.electron_hole_mobility_ratio.val) <=
                   ratio_tol);
