@@ -84,6 +84,16 @@ static double modified_z_scale(double mad, double mean_ad)
     return SL_STATS_MEANAD_FACTOR * mean_ad;
 }
 
+void sl_stats_robust_from(sl_stats_robust *out, size_t n, double median, double mad,
+                          double mean_ad)
+{
+    out->n = n;
+    out->median = median;
+    out->mad = mad;
+    out->mean_ad = mean_ad;
+    out->scale = modified_z_scale(mad, mean_ad);
+}
+
 sl_status sl_stats_robust_scale(sl_stats_robust *out, const double *x, size_t n,
                                 double *scratch)
 {
@@ -91,11 +101,9 @@ sl_status sl_stats_robust_scale(sl_stats_robust *out, const double *x, size_t n,
     sl_status st = sample_buffer(&buf, &owned, x, n, scratch);
     if (st != SL_OK)
         return st;
-    out->n = n;
-    out->median = median_via(buf, x, n);
-    out->mad = median_abs_dev_via(buf, x, n, out->median);
-    out->mean_ad = gsl_stats_absdev_m(x, 1, n, out->median);
-    out->scale = modified_z_scale(out->mad, out->mean_ad);
+    double median = median_via(buf, x, n);
+    double mad = median_abs_dev_via(buf, x, n, median);
+    sl_stats_robust_from(out, n, median, mad, gsl_stats_absdev_m(x, 1, n, median));
     free(owned);
     return SL_OK;
 }
@@ -125,16 +133,27 @@ sl_status sl_stats_modified_z(double *z, sl_stats_robust *robust, const double *
 
 sl_status sl_stats_summarize(sl_stats_summary *out, const double *x, size_t n, double level)
 {
-    if (n == 0 || !x || !all_finite(x, n) || !is_probability(level))
+    if (n == 0 || !x || !all_finite(x, n))
+        return SL_EINPUT;
+    double mean = gsl_stats_mean(x, 1, n);
+    return sl_stats_summarize_moments(out, n, mean, n > 1 ? gsl_stats_sd_m(x, 1, n, mean) : NAN,
+                                      level);
+}
+
+sl_status sl_stats_summarize_moments(sl_stats_summary *out, size_t n, double mean, double sd,
+                                     double level)
+{
+    if (n == 0 || !isfinite(mean) || !is_probability(level) ||
+        (n > 1 && !(isfinite(sd) && sd >= 0.0)))
         return SL_EINPUT;
     out->n = n;
     out->level = level;
-    out->mean = gsl_stats_mean(x, 1, n);
+    out->mean = mean;
     if (n == 1) {
         out->sd = out->se = out->t_crit = out->ci_low = out->ci_high = NAN;
         return SL_OK;
     }
-    out->sd = gsl_stats_sd_m(x, 1, n, out->mean);
+    out->sd = sd;
     out->se = out->sd / sqrt((double)n);
     out->t_crit = gsl_cdf_tdist_Pinv(0.5 * (1.0 + level), (double)(n - 1));
     out->ci_low = out->mean - out->t_crit * out->se;
@@ -460,6 +479,18 @@ static void anova_finish(sl_stats_anova *out)
     }
 }
 
+/* Means and sample variances (n - 1) of the groups of x, one after the other. */
+static void group_moments(double *means, double *variances, const double *x,
+                          const size_t *group_sizes, size_t n_groups)
+{
+    const double *g = x;
+    for (size_t k = 0; k < n_groups; g += group_sizes[k], k++) {
+        size_t m = group_sizes[k];
+        means[k] = m > 0 ? gsl_stats_mean(g, 1, m) : NAN;
+        variances[k] = m > 1 ? gsl_stats_variance_m(g, 1, m, means[k]) : 0.0;
+    }
+}
+
 sl_status sl_stats_anova_oneway(sl_stats_anova *out, double *group_means,
                                 const double *x, const size_t *group_sizes,
                                 size_t n_groups)
@@ -469,23 +500,50 @@ sl_status sl_stats_anova_oneway(sl_stats_anova *out, double *group_means,
         n_total += group_sizes[k];
     if (n_total > 0 && (!x || !all_finite(x, n_total)))
         return SL_EINPUT;
+    double *means = malloc((n_groups + 1) * sizeof *means);
+    double *variances = malloc((n_groups + 1) * sizeof *variances);
+    if (!means || !variances) {
+        free(means);
+        free(variances);
+        return SL_ENOMEM;
+    }
+    group_moments(means, variances, x, group_sizes, n_groups);
+    sl_status st = sl_stats_anova_moments(out, group_sizes, means, variances, n_groups);
+    if (group_means)
+        memcpy(group_means, means, n_groups * sizeof *means);
+    free(means);
+    free(variances);
+    return st;
+}
+
+sl_status sl_stats_anova_moments(sl_stats_anova *out, const size_t *group_sizes,
+                                 const double *group_means, const double *group_variances,
+                                 size_t n_groups)
+{
     memset(out, 0, sizeof *out);
-    out->n_total = n_total;
-    double grand = n_total > 0 ? gsl_stats_mean(x, 1, n_total) : NAN;
-    const double *g = x;
-    for (size_t k = 0; k < n_groups; g += group_sizes[k], k++) {
+    double weighted_sum = 0.0;
+    for (size_t k = 0; k < n_groups; k++) {
         size_t m = group_sizes[k];
-        double mean = m > 0 ? gsl_stats_mean(g, 1, m) : NAN;
-        if (group_means)
-            group_means[k] = mean;
         if (m == 0)
             continue;
+        if (!isfinite(group_means[k]) || (m > 1 && !(isfinite(group_variances[k]) &&
+                                                     group_variances[k] >= 0.0)))
+            return SL_EINPUT;
         out->n_groups++;
-        out->ss_between += (double)m * (mean - grand) * (mean - grand);
-        out->ss_within += gsl_stats_tss_m(g, 1, m, mean);
+        out->n_total += m;
+        weighted_sum += (double)m * group_means[k];
+    }
+    double grand = out->n_total > 0 ? weighted_sum / (double)out->n_total : NAN;
+    for (size_t k = 0; k < n_groups; k++) {
+        size_t m = group_sizes[k];
+        if (m == 0)
+            continue;
+        out->ss_between += (double)m * (group_means[k] - grand) * (group_means[k] - grand);
+        if (m > 1)
+            out->ss_within += (double)(m - 1) * group_variances[k];
     }
     out->df_between = out->n_groups > 0 ? (double)(out->n_groups - 1) : 0.0;
-    out->df_within = (double)(n_total - out->n_groups);
+    out->df_within = (double)(out->n_total - out->n_groups);
     anova_finish(out);
     return SL_OK;
 }

@@ -1,11 +1,18 @@
 /* SPDX-License-Identifier: MIT
- * Unit tests of the statistics module (src/stats.c) against SciPy 1.10.1 and
- * NumPy 1.24.2 (each call written beside its value), Iglewicz and Hoaglin's
- * modified z-score and hand arithmetic for the individuals chart.
+ * Unit tests of the statistics module (src/stats.c, src/stats_median.c)
+ * against SciPy 1.10.1 and NumPy 1.24.2 (each call written beside its value),
+ * Iglewicz and Hoaglin's modified z-score, hand arithmetic for the
+ * individuals chart, and the median found in passes against GSL's median of
+ * a sorted copy.
  * Data sets are made up but typical: neutrality voltages in V, dopings in 1e12 cm^-2.
  */
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
+
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
+#include <gsl/gsl_statistics_double.h>
 
 #include "splitlot/stats.h"
 #include "test_support.h"
@@ -113,6 +120,145 @@ START_TEST(test_robust_bad_input)
 }
 END_TEST
 
+START_TEST(test_robust_from_parts)
+{
+    /* the scales of test_median_mad_odd and test_mad_zero_falls_back_to_mean_ad,
+     * from their median, MAD and mean absolute deviation */
+    sl_stats_robust r;
+    sl_stats_robust_from(&r, 9, 2.02, 0.08, 0.28555555555555556);
+    ck_assert_uint_eq(r.n, 9);
+    check_near("scale", r.scale, 0.08 / 0.6745, 1e-14);
+    check_near("M", sl_stats_modified_z_of(&r, 3.95), 16.272312499999988, 1e-12); /* as above */
+    sl_stats_robust_from(&r, 7, 0.5, 0.0, 0.030000000000000002);
+    check_near("scale", r.scale, 1.253314 * 0.03, 1e-15);
+    sl_stats_robust_from(&r, 4, 1.25, 0.0, 0.0);
+    ck_assert(r.scale == 0.0 && sl_stats_modified_z_of(&r, 1.30) == 0.0);
+}
+END_TEST
+
+/* ---- Exact median in passes ------------------------------------------------ */
+
+/* The median of x[0..n) by a search over [lo, hi] fed x in passes; the
+ * passes it took in *passes. */
+static double median_in_passes(const double *x, size_t n, double lo, double hi, int *passes)
+{
+    sl_stats_median_search *s = NULL;
+    ck_assert_int_eq(sl_stats_median_search_new(&s, n, lo, hi), SL_OK);
+    double median = NAN;
+    int done = 0;
+    for (*passes = 0; !done; ++*passes) {
+        ck_assert_int_lt(*passes, 40);
+        for (size_t i = 0; i < n; i++)
+            sl_stats_median_search_add(s, x[i]);
+        ck_assert_int_eq(sl_stats_median_search_end_pass(s, &done, &median), SL_OK);
+    }
+    ck_assert(sl_stats_median_search_done(s));
+    sl_stats_median_search_free(s);
+    return median;
+}
+
+/* The search against the sorted-copy median (sl_stats_median: gsl_sort and
+ * gsl_stats_median_from_sorted_data), value for value, and the MAD likewise
+ * (the median of |x - median| over [0, largest distance], as the analysis
+ * asks for it). Returns the passes the median took. */
+static int check_median_in_passes(const char *what, const double *x, size_t n)
+{
+    double lo, hi, want, got;
+    int passes, mad_passes;
+    gsl_stats_minmax(&lo, &hi, x, 1, n);
+    ck_assert_int_eq(sl_stats_median(&want, x, n, NULL), SL_OK);
+    got = median_in_passes(x, n, lo, hi, &passes);
+    ck_assert_msg(got == want, "%s: median %.17g, sorted copy %.17g", what, got, want);
+
+    sl_stats_robust r;
+    ck_assert_int_eq(sl_stats_robust_scale(&r, x, n, NULL), SL_OK);
+    double *dist = malloc(n * sizeof *dist);
+    for (size_t i = 0; i < n; i++)
+        dist[i] = fabs(x[i] - got);
+    got = median_in_passes(dist, n, 0.0, fmax(fabs(lo - got), fabs(hi - got)), &mad_passes);
+    ck_assert_msg(got == r.mad, "%s: MAD %.17g, sorted copy %.17g", what, got, r.mad);
+    free(dist);
+    return passes;
+}
+
+START_TEST(test_median_search_matches_sorting)
+{
+    static const size_t sizes[] = { 1, 2, 3, 4, 7, SL_STATS_MEDIAN_HELD, SL_STATS_MEDIAN_HELD + 1,
+                                    5000, 5001, 40000 };
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 20261);
+    double *x = malloc(40000 * sizeof *x);
+    char what[64];
+    for (size_t k = 0; k < N_OF(sizes); k++) { /* V_cnp of one split: 8.2 V, 0.6 V spread */
+        for (size_t i = 0; i < sizes[k]; i++)
+            x[i] = 8.2 + gsl_ran_gaussian(rng, 0.6);
+        snprintf(what, sizeof what, "normal, n = %zu", sizes[k]);
+        int passes = check_median_in_passes(what, x, sizes[k]);
+        /* one pass to hold a small split, two for a large one (by design) */
+        ck_assert_int_eq(passes, sizes[k] <= SL_STATS_MEDIAN_HELD ? 1 : 2);
+    }
+    for (size_t i = 0; i < 10001; i++) /* a meter with 0.1 V steps: many ties */
+        x[i] = round(10.0 * gsl_ran_gaussian(rng, 0.3)) / 10.0;
+    check_median_in_passes("ties", x, 10001);
+    for (size_t i = 0; i < 9999; i++) /* one device far off stretches the range */
+        x[i] = gsl_rng_uniform(rng);
+    x[9999] = 1e6;
+    check_median_in_passes("far outlier", x, 10000);
+    for (size_t i = 0; i < 5000; i++) /* values about zero with both zeros among them */
+        x[i] = i % 50 == 0 ? (i % 100 == 0 ? 0.0 : -0.0) : gsl_ran_gaussian(rng, 1e-3);
+    check_median_in_passes("signed zeros", x, 5000);
+    for (size_t i = 0; i < 5000; i++) /* a range wider than the largest double */
+        x[i] = i % 2 ? 1e308 * gsl_rng_uniform(rng) : -1e308 * gsl_rng_uniform(rng);
+    check_median_in_passes("widest range", x, 5000);
+    for (size_t i = 0; i < 3000; i++) /* 1, 1/2, 1/4, ... down to 2^-999: binned by value,
+                                          nearly all stay in the lowest bin pass after pass */
+        x[i] = ldexp(1.0 + (double)(i % 3) / 4.0, -(int)(i / 3));
+    ck_assert_int_le(check_median_in_passes("halving", x, 3000), 4);
+    for (size_t i = 0; i < 3000; i++)
+        x[i] = 1.25;
+    ck_assert_int_eq(check_median_in_passes("all equal", x, 3000), 1);
+    free(x);
+    gsl_rng_free(rng);
+}
+END_TEST
+
+START_TEST(test_median_search_bad_input)
+{
+    sl_stats_median_search *s = NULL;
+    ck_assert_int_eq(sl_stats_median_search_new(&s, 0, 0.0, 1.0), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_median_search_new(&s, 3, 1.0, 0.0), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_median_search_new(&s, 3, NAN, 1.0), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_median_search_new(&s, 3, 0.0, INFINITY), SL_EINPUT);
+    ck_assert_ptr_null(s);
+
+    /* a pass that does not see the sample the search was told of */
+    static const double x[] = { 0.3, 0.1, 0.2 };
+    double median = 7.0;
+    int done = 1;
+    for (int extra = 0; extra < 2; extra++) {
+        ck_assert_int_eq(sl_stats_median_search_new(&s, 3, 0.1, 0.3), SL_OK);
+        for (size_t i = 0; i < 2; i++)
+            sl_stats_median_search_add(s, x[i]);
+        if (extra) {
+            sl_stats_median_search_add(s, x[2]);
+            sl_stats_median_search_add(s, 0.25);
+        }
+        ck_assert_int_eq(sl_stats_median_search_end_pass(s, &done, &median), SL_EINPUT);
+        ck_assert(!done && median == 7.0);
+        sl_stats_median_search_free(s);
+    }
+    /* NaN and values out of range are counted nowhere */
+    ck_assert_int_eq(sl_stats_median_search_new(&s, 3, 0.1, 0.3), SL_OK);
+    sl_stats_median_search_add(s, NAN);
+    sl_stats_median_search_add(s, 0.4);
+    for (size_t i = 0; i < 3; i++)
+        sl_stats_median_search_add(s, x[i]);
+    ck_assert_int_eq(sl_stats_median_search_end_pass(s, &done, &median), SL_OK);
+    ck_assert(done && median == 0.2);
+    sl_stats_median_search_free(s);
+}
+END_TEST
+
 /* ---- Sample summary -------------------------------------------------------- */
 
 /* Delivered doping of ten wafers, 1e12 cm^-2. */
@@ -135,6 +281,25 @@ START_TEST(test_summary_against_scipy)
         check_near("ci_low", s.ci_low, table[i].lo, 1e-10);   /* t quantile to ~1e-9 relative */
         check_near("ci_high", s.ci_high, table[i].hi, 1e-10);
     }
+}
+END_TEST
+
+START_TEST(test_summary_from_moments)
+{
+    /* numpy.mean(x), numpy.std(x, ddof=1) of doping10 */
+    const double mean = 1.1960000000000002, sd = 0.13712929827153802;
+    sl_stats_summary s;
+    ck_assert_int_eq(sl_stats_summarize_moments(&s, 10, mean, sd, 0.95), SL_OK);
+    check_near("se", s.se, 0.0433640916478651, 1e-14); /* scipy.stats.sem(x) */
+    /* scipy.stats.t.interval(0.95, 9, loc=numpy.mean(x), scale=scipy.stats.sem(x)) */
+    check_near("ci_low", s.ci_low, 1.0979036094730252, 1e-10);
+    check_near("ci_high", s.ci_high, 1.2940963905269751, 1e-10);
+    ck_assert_int_eq(sl_stats_summarize_moments(&s, 1, -1.7, NAN, 0.95), SL_OK);
+    ck_assert(s.mean == -1.7 && isnan(s.sd) && isnan(s.ci_low));
+    ck_assert_int_eq(sl_stats_summarize_moments(&s, 0, mean, sd, 0.95), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_summarize_moments(&s, 10, NAN, sd, 0.95), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_summarize_moments(&s, 10, mean, -sd, 0.95), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_summarize_moments(&s, 10, mean, sd, 1.5), SL_EINPUT);
 }
 END_TEST
 
@@ -430,6 +595,42 @@ START_TEST(test_anova_group_of_one_and_empty_group)
 }
 END_TEST
 
+/* The same test from each group's size, mean and variance, as running
+ * accumulators give them: the groups of test_anova_three_splits and of
+ * test_anova_group_of_one_and_empty_group, means and variances by GSL. */
+START_TEST(test_anova_from_moments)
+{
+    static const double x[] = { -0.41, -0.35, -0.52, -0.38, -0.44, 0.12, 0.05, 0.21, 0.09,
+                                -1.05, -0.98, -1.12, -0.91, -1.01, -1.08 };
+    static const size_t sizes[] = { 5, 4, 6 };
+    double mean[3], var[3];
+    for (size_t k = 0, first = 0; k < 3; first += sizes[k], k++) {
+        mean[k] = gsl_stats_mean(x + first, 1, sizes[k]);
+        var[k] = gsl_stats_variance(x + first, 1, sizes[k]);
+    }
+    sl_stats_anova a;
+    ck_assert_int_eq(sl_stats_anova_moments(&a, sizes, mean, var, 3), SL_OK);
+    ck_assert_uint_eq(a.n_groups, 3);
+    ck_assert_uint_eq(a.n_total, 15);
+    check_near("F", a.f, 325.87022448115647, 1e-9);     /* scipy.stats.f_oneway(a, b, c).statistic */
+    check_near("p", a.p / 3.492189222754767e-11, 1.0, 1e-8); /* scipy.stats.f_oneway(a, b, c).pvalue */
+
+    /* a group of one (its variance is not used) and an empty group (nor its mean) */
+    static const size_t with_one[] = { 5, 4, 1, 0 };
+    double mean1[] = { mean[0], mean[1], -0.20, NAN }, var1[] = { var[0], var[1], NAN, NAN };
+    ck_assert_int_eq(sl_stats_anova_moments(&a, with_one, mean1, var1, 4), SL_OK);
+    ck_assert_uint_eq(a.n_groups, 3);
+    check_near("F", a.f, 72.81530364372446, 1e-9); /* scipy.stats.f_oneway(a, b, [-0.20]).statistic */
+    check_near("p", a.p, 2.065843544389173e-05, 1e-13); /* scipy.stats.f_oneway(a, b, [-0.20]).pvalue */
+
+    var1[0] = -1.0;
+    ck_assert_int_eq(sl_stats_anova_moments(&a, with_one, mean1, var1, 4), SL_EINPUT);
+    mean1[1] = NAN;
+    var1[0] = var[0];
+    ck_assert_int_eq(sl_stats_anova_moments(&a, with_one, mean1, var1, 4), SL_EINPUT);
+}
+END_TEST
+
 START_TEST(test_anova_degenerate)
 {
     static const double x[] = { 0.4, 0.5, 0.6 };
@@ -600,7 +801,11 @@ static Suite *stats_suite(void)
     tcase_add_test(tc, test_mad_zero_falls_back_to_mean_ad);
     tcase_add_test(tc, test_all_equal_gives_zero_scores);
     tcase_add_test(tc, test_robust_bad_input);
+    tcase_add_test(tc, test_robust_from_parts);
+    tcase_add_test(tc, test_median_search_matches_sorting);
+    tcase_add_test(tc, test_median_search_bad_input);
     tcase_add_test(tc, test_summary_against_scipy);
+    tcase_add_test(tc, test_summary_from_moments);
     tcase_add_test(tc, test_summary_one_value);
     tcase_add_test(tc, test_summary_bad_input);
     tcase_add_test(tc, test_quantiles_and_p_values);
@@ -614,6 +819,7 @@ static Suite *stats_suite(void)
     tcase_add_test(tc, test_fit_bad_input);
     tcase_add_test(tc, test_anova_three_splits);
     tcase_add_test(tc, test_anova_group_of_one_and_empty_group);
+    tcase_add_test(tc, test_anova_from_moments);
     tcase_add_test(tc, test_anova_degenerate);
     tcase_add_test(tc, test_pool_against_numpy);
     tcase_add_test(tc, test_pool_edges);

@@ -58,6 +58,12 @@ sl_status sl_stats_median(double *median, const double *x, size_t n, double *scr
 sl_status sl_stats_robust_scale(sl_stats_robust *out, const double *x, size_t n,
                                 double *scratch);
 
+/* The same from a median, MAD and mean absolute deviation about the median
+ * found elsewhere (e.g. by sl_stats_median_search over a sample too large to
+ * hold): sets n, the three and the scale exactly as sl_stats_robust_scale. */
+void sl_stats_robust_from(sl_stats_robust *out, size_t n, double median, double mad,
+                          double mean_ad);
+
 /* Modified z-score of one value: M = 0.6745 (x - median) / MAD
  * = (x - median) / scale (Iglewicz and Hoaglin, 1993); 0 when scale = 0. */
 double sl_stats_modified_z_of(const sl_stats_robust *robust, double x);
@@ -86,6 +92,56 @@ typedef struct {
  * For n = 1: mean = x[0] and sd, se, t_crit, ci_low, ci_high are NaN.
  * Returns SL_OK, SL_EINPUT for n = 0, a non-finite value or a bad level. */
 sl_status sl_stats_summarize(sl_stats_summary *out, const double *x, size_t n, double level);
+
+/* The same from the moments of a sample: its size n, mean and sample SD with
+ * n - 1 (e.g. gsl_rstat_mean and gsl_rstat_sd of a running accumulator); sd
+ * is ignored for n = 1. Returns SL_OK, SL_EINPUT for n = 0, a non-finite mean,
+ * a non-finite or negative sd (n > 1) or a bad level. */
+sl_status sl_stats_summarize_moments(sl_stats_summary *out, size_t n, double mean, double sd,
+                                     double level);
+
+/* ---- Exact median in passes over a sample ---------------------------------- */
+
+/* Bins of the histogram a median search keeps between passes, and the most
+ * values it holds for its last pass: its memory is fixed, whatever n. */
+#define SL_STATS_MEDIAN_BINS 512
+#define SL_STATS_MEDIAN_HELD 2048
+
+typedef struct sl_stats_median_search sl_stats_median_search;
+
+/* The exact median of n values, all in [lo, hi], that are read again in
+ * passes instead of held (rows of a database, say): the same number that
+ * sl_stats_median gives, without the sample in memory. Each pass counts the
+ * values still in question into SL_STATS_MEDIAN_BINS bins over their range
+ * and keeps only the bin that holds the middle rank(s), with that bin's
+ * smallest and largest value as the next range; once at most
+ * SL_STATS_MEDIAN_HELD values remain, the next pass keeps them, and sorting
+ * them (gsl_sort) gives the middle one or two, the median of which
+ * (gsl_stats_median_from_sorted_data) is returned. Typical data takes two
+ * passes, and every pass after the first shrinks the values in question.
+ * Use: sl_stats_median_search_new; then while not done, give every value of
+ * the sample, in any order, to sl_stats_median_search_add and finish the
+ * pass with sl_stats_median_search_end_pass. The sample must be the same in
+ * every pass. Returns SL_OK, SL_EINPUT (n = 0, lo > hi or a bound not
+ * finite), SL_ENOMEM. Free with sl_stats_median_search_free. */
+sl_status sl_stats_median_search_new(sl_stats_median_search **out, size_t n, double lo,
+                                     double hi);
+
+/* One value of the current pass (values outside the range in question are
+ * passed over; a NaN is counted nowhere, so the pass will not add up). */
+void sl_stats_median_search_add(sl_stats_median_search *search, double x);
+
+/* Finish a pass: *done = 1 with *median set when the median is known, else
+ * *done = 0 and another pass is needed. Returns SL_OK, SL_EINPUT when the
+ * pass did not see the values the earlier ones counted (the sample changed
+ * between passes, or held values outside [lo, hi] or NaN), SL_ENOMEM. */
+sl_status sl_stats_median_search_end_pass(sl_stats_median_search *search, int *done,
+                                          double *median);
+
+/* 1 once the median is known. */
+int sl_stats_median_search_done(const sl_stats_median_search *search);
+
+void sl_stats_median_search_free(sl_stats_median_search *search);
 
 /* ---- Distributions --------------------------------------------------------- */
 
@@ -196,11 +252,24 @@ typedef struct {
  * With fewer than two non-empty groups or df_within = 0, every field from
  * ms_between on that cannot be formed is NaN (f and p always NaN then).
  * When ms_within = 0: f = +inf and p = 0 if ms_between > 0, NaN if both are 0.
- * group_sizes may be NULL only when n_groups = 0.
- * Returns SL_OK, SL_EINPUT for a non-finite value or NULL data with values. */
+ * group_sizes may be NULL only when n_groups = 0. Computed from each group's
+ * mean and variance (gsl_stats_mean, gsl_stats_variance_m) by
+ * sl_stats_anova_moments.
+ * Returns SL_OK, SL_EINPUT for a non-finite value or NULL data with values,
+ * SL_ENOMEM. */
 sl_status sl_stats_anova_oneway(sl_stats_anova *out, double *group_means,
                                 const double *x, const size_t *group_sizes,
                                 size_t n_groups);
+
+/* The same test from each group's size, mean and sample variance (n_k - 1;
+ * ignored for groups of one), e.g. running accumulators (gsl_rstat) of
+ * samples too large to hold: grand mean = sum n_k mean_k / N, ss_between =
+ * sum n_k (mean_k - grand)^2, ss_within = sum (n_k - 1) var_k; degenerate
+ * cases as sl_stats_anova_oneway. Returns SL_OK, SL_EINPUT for a non-finite
+ * mean or a non-finite or negative variance of a group with values. */
+sl_status sl_stats_anova_moments(sl_stats_anova *out, const size_t *group_sizes,
+                                 const double *group_means, const double *group_variances,
+                                 size_t n_groups);
 
 /* ---- Pooling estimates ----------------------------------------------------- */
 
