@@ -139,6 +139,10 @@ static sl_status configure(sl_store *store, sl_diag *diag)
      * of a thousand devices or of a million. */
     if (st == SL_OK)
         st = sl_store_exec(store, "PRAGMA cache_size = -1024", diag, "set the page cache size");
+    /* temporary tables (an import's staged runs, an analysis's scratch) in a
+     * file whatever SQLite's build default, so they do not grow the process */
+    if (st == SL_OK)
+        st = sl_store_exec(store, "PRAGMA temp_store = FILE", diag, "keep temporary tables in a file");
     if (st != SL_OK)
         return st;
     /* WAL needs a write the first time only; a read-only file keeps its mode */

@@ -2,7 +2,8 @@
  * Tests of the SQLite store: schema creation and migration bookkeeping, files
  * it must refuse (too new, not a database, read-only), plan revisions, exact
  * round trips of packed sweeps (the compact blob coded and decoded directly,
- * old raw blobs, damaged ones), and the duplicate-device rule.
+ * old raw blobs, damaged ones), the duplicate-device rule, and the scratch
+ * space of an analysis.
  */
 #include <check.h>
 #include <ctype.h>
@@ -955,6 +956,127 @@ START_TEST(damaged_staged_points_are_a_database_error)
 }
 END_TEST
 
+/* ---- the scratch space of an analysis ---- */
+
+/* A device of the demo lot committed through store (which may be another
+ * connection than s->store). */
+static void add_device(const stored_demo *s, sl_store *store, const char *wafer, const char *name,
+                       long die_x, long die_y, const char *fit_class, double cnp_V)
+{
+    sl_diag *diag = sl_diag_new();
+    long wafer_id = 0;
+    ck_assert_int_eq(sl_store_wafer_id(store, &wafer_id, s->lot.revision_id, wafer), SL_OK);
+    sl_store_device d = device_named(wafer_id, name);
+    d.die_x = die_x;
+    d.die_y = die_y;
+    d.fit_class = fit_class;
+    d.cnp_V = cnp_V;
+    ck_assert_int_eq(sl_store_begin(store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_insert_device(store, NULL, s->lot.lot_id, &d, diag), SL_OK);
+    ck_assert_int_eq(sl_store_commit(store, diag), SL_OK);
+    sl_diag_free(diag);
+}
+
+static void check_same_row(const sl_store_device_row *got, const sl_store_device_row *want)
+{
+    ck_assert_int_eq(got->id, want->id);
+    ck_assert_str_eq(got->wafer, want->wafer);
+    ck_assert_str_eq(got->name, want->name);
+    ck_assert_str_eq(got->fit_class, want->fit_class);
+    ck_assert(got->die_x == want->die_x && got->die_y == want->die_y);
+    ck_assert(got->cnp_V == want->cnp_V || (isnan(got->cnp_V) && isnan(want->cnp_V)));
+    ck_assert(got->mobility_cm2_per_Vs == want->mobility_cm2_per_Vs);
+}
+
+/* Devices kept wafer by wafer come back in sl_store_load_devices order with
+ * the caller's group and tag, as often as asked; the V_cnp of one fit class
+ * alone; listed devices by severity, then wafer and name; an import another
+ * connection commits while the scratch is open is not seen; closing leaves
+ * the scratch tables empty and the page cache as it was. */
+START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    add_device(&s, s.store, "W02", "B", 0, 0, "ok", 2.5); /* not in die or wafer order */
+    add_device(&s, s.store, "W01", "C", 1, 1, "ok", 1.5);
+    add_device(&s, s.store, "W01", "A", 0, 1, "unmeasured", NAN);
+    add_device(&s, s.store, "W01", "B", 1, 0, "ok", -0.5);
+    add_device(&s, s.store, "W02", "A", 0, 0, "short", NAN);
+    sl_store_device_row *rows = NULL;
+    size_t n = 0;
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, diag), SL_OK);
+    ck_assert_uint_eq(n, 5);
+    long cache_before = query_long(s.store, "PRAGMA cache_size");
+
+    sl_store_scratch *x = NULL;
+    ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_keep_wafer(x, s.lot.lot_id, "W01", 7, 1, diag), SL_OK);
+    sl_store *other = open_ok(s.db);
+    add_device(&s, other, "W02", "Z", 5, 5, "ok", 9.0);
+    add_device(&s, other, "W03", "Z", 5, 5, "ok", 9.0);
+    sl_store_close(other);
+    ck_assert_int_eq(sl_store_scratch_keep_wafer(x, s.lot.lot_id, "W02", 8, 2, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_keep_wafer(x, s.lot.lot_id, "W03", 9, 3, diag), SL_OK);
+    const sl_store_device_row *r = NULL;
+    long group = 0, tag = 0;
+    for (int round = 0; round < 2; round++) {
+        for (size_t i = 0; i < n; i++) {
+            ck_assert_int_eq(sl_store_scratch_next_kept(x, &group, &tag, &r, diag), SL_OK);
+            ck_assert_ptr_nonnull(r);
+            check_same_row(r, &rows[i]);
+            ck_assert_int_eq(group, strcmp(rows[i].wafer, "W01") == 0 ? 7 : 8);
+            ck_assert_int_eq(tag, group - 6);
+        }
+        ck_assert_int_eq(sl_store_scratch_next_kept(x, &group, &tag, &r, diag), SL_OK);
+        ck_assert_ptr_null(r);
+    }
+
+    static const double want_v[] = { -0.5, 1.5, 2.5 }; /* W01 B, W01 C, W02 B */
+    static const long want_group[] = { 7, 7, 8 };
+    const size_t n_values = sizeof want_v / sizeof want_v[0];
+    ck_assert_int_eq(sl_store_scratch_keep_values(x, "ok", diag), SL_OK);
+    for (size_t i = 0; i <= n_values; i++) {
+        int more = 0;
+        double v = NAN;
+        ck_assert_int_eq(sl_store_scratch_next_value(x, &more, &group, &v, diag), SL_OK);
+        ck_assert_int_eq(more, i < n_values);
+        if (more)
+            ck_assert(v == want_v[i] && group == want_group[i]);
+    }
+
+    /* kept order W01 B, A, C, W02 A, B: severities 3, 5, 3, 3, none */
+    static const double severity[] = { 3.0, 5.0, 3.0, 3.0 };
+    const size_t n_ranked = sizeof severity / sizeof severity[0];
+    for (size_t i = 0; i < n_ranked; i++) {
+        ck_assert_int_eq(sl_store_scratch_next_kept(x, &group, &tag, &r, diag), SL_OK);
+        ck_assert_int_eq(sl_store_scratch_rank(x, severity[i], diag), SL_OK);
+    }
+    sl_store_scratch_rewind(x);
+    static const char *const want_ranked[][2] = { { "W01", "A" }, { "W01", "B" }, { "W01", "C" },
+                                                  { "W02", "A" } };
+    for (size_t i = 0; i <= n_ranked; i++) {
+        ck_assert_int_eq(sl_store_scratch_next_ranked(x, &group, &tag, &r, diag), SL_OK);
+        ck_assert_int_eq(r != NULL, i < n_ranked);
+        if (r)
+            ck_assert(strcmp(r->wafer, want_ranked[i][0]) == 0 &&
+                      strcmp(r->name, want_ranked[i][1]) == 0 && group == (i < 3 ? 7 : 8));
+    }
+    sl_store_scratch_close(x);
+    ck_assert_int_eq(query_long(s.store, "PRAGMA cache_size"), cache_before);
+    ck_assert_int_eq(query_long(s.store, "SELECT (SELECT count(*) FROM temp.sl_scratch_kept) + "
+                                         "(SELECT count(*) FROM temp.sl_scratch_value) + "
+                                         "(SELECT count(*) FROM temp.sl_scratch_rank)"), 0);
+    free(rows);
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, diag), SL_OK);
+    ck_assert_uint_eq(n, 7); /* the other connection's devices, now the scratch is gone */
+    ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    sl_store_scratch_close(x);
+    free(rows);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 static Suite *store_suite(void)
 {
     Suite *s = suite_create("store");
@@ -972,6 +1094,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);
     tcase_add_test(tc, damaged_staged_points_are_a_database_error);
+    tcase_add_test(tc, scratch_keeps_ranks_and_reads_one_snapshot);
     suite_add_tcase(s, tc);
     TCase *blob = tcase_create("sweep blob");
     tcase_set_timeout(blob, 300);

@@ -185,6 +185,50 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
  * each entry with sl_store_lot_clear, then free the array). */
 sl_status sl_store_load_lots(sl_store *store, sl_store_lot **lots, size_t *count, sl_diag *diag);
 
+/* ---- the scratch space of an analysis (flat memory, whatever the lot) ---- */
+
+/* Temporary tables on the store's connection, which SQLite keeps in a file
+ * (temp_store FILE), so they do not grow the process: a lot's devices kept
+ * for passes over them, and devices listed by severity. While a scratch is
+ * open, the connection reads one snapshot of the database (a savepoint:
+ * another process's import is never seen half way) and its page caches are
+ * held small. One scratch per connection at a time. */
+typedef struct sl_store_scratch sl_store_scratch;
+
+sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag *diag);
+void sl_store_scratch_close(sl_store_scratch *scratch);
+
+/* Keep the lot's devices on wafers named wafer (in any plan revision), by die
+ * row, die column and name, under a group and a tag of the caller's. Keeping
+ * wafer names in sl_store_load_devices order keeps the devices in its order. */
+sl_status sl_store_scratch_keep_wafer(sl_store_scratch *scratch, long lot_id, const char *wafer,
+                                      long group, long tag, sl_diag *diag);
+
+/* The kept devices in the order kept: *row has the id, wafer, name, die,
+ * fit class, V_cnp and mobility (every other number NaN), valid until the
+ * next read; NULL after the last, and the next call starts over. */
+sl_status sl_store_scratch_next_kept(sl_store_scratch *scratch, long *group, long *tag,
+                                     const sl_store_device_row **row, sl_diag *diag);
+
+/* Once every wafer is kept: the group and V_cnp of the kept devices of one
+ * fit class that have a V_cnp, copied into a small table of their own; then
+ * read back in the order kept, faster than whole devices: *more = 0 after
+ * the last, and the next call starts over. */
+sl_status sl_store_scratch_keep_values(sl_store_scratch *scratch, const char *fit_class,
+                                       sl_diag *diag);
+sl_status sl_store_scratch_next_value(sl_store_scratch *scratch, int *more, long *group,
+                                      double *cnp_V, sl_diag *diag);
+
+/* List the device last read by sl_store_scratch_next_kept with a severity;
+ * read the listed ones back as kept devices, most severe first, then by
+ * wafer and device name (byte order). */
+sl_status sl_store_scratch_rank(sl_store_scratch *scratch, double severity, sl_diag *diag);
+sl_status sl_store_scratch_next_ranked(sl_store_scratch *scratch, long *group, long *tag,
+                                       const sl_store_device_row **row, sl_diag *diag);
+
+/* Start every read-back over. */
+void sl_store_scratch_rewind(sl_store_scratch *scratch);
+
 /* Low-level access for the analysis queries of this module's other files. */
 struct sqlite3;
 struct sqlite3 *sl_store_db(sl_store *store);
