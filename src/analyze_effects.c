@@ -54,39 +54,26 @@ static void wafer_means_free(wafer_means *m)
     free(m->weight);
 }
 
-static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const sl_layout *layout)
+static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const sl_layout *layout,
+                                     const double *wafer_sum_per_cm2, const double *wafer_devices)
 {
     const sl_plan *plan = a->plan;
     size_t nw = layout->n_wafers, nf = plan->n_factors;
     m->levels = calloc(nw * nf + 1, sizeof *m->levels);
     m->mean = calloc(nw + 1, sizeof *m->mean);
     m->weight = calloc(nw + 1, sizeof *m->weight);
-    double *sum = calloc(nw + 1, sizeof *sum);
-    if (!m->levels || !m->mean || !m->weight || !sum) {
-        free(sum);
+    if (!m->levels || !m->mean || !m->weight)
         return SL_ENOMEM;
-    }
-    for (size_t i = 0; i < a->n_devices; i++) {
-        const sl_analyze_device *d = &a->devices[i];
-        if (!isfinite(d->doping_measured_per_cm2) || (d->flags & SL_FLAG_OUTLIER))
-            continue;
-        long w = sl_plan_wafer_index(plan, d->wafer);
-        if (w >= 0) {
-            sum[w] += d->doping_measured_per_cm2;
-            m->weight[w] += 1.0;
-        }
-    }
     for (size_t w = 0; w < nw; w++) {
         long split = layout->wafers[w].split;
-        if (split < 0 || m->weight[w] == 0.0)
+        if (split < 0 || wafer_devices[w] == 0.0)
             continue;
         for (size_t f = 0; f < nf; f++)
             m->levels[m->n_obs * nf + f] = plan->splits[split].levels[f];
-        m->mean[m->n_obs] = sum[w] / m->weight[w];
-        m->weight[m->n_obs] = m->weight[w];
+        m->mean[m->n_obs] = wafer_sum_per_cm2[w] / wafer_devices[w];
+        m->weight[m->n_obs] = wafer_devices[w];
         m->n_obs++;
     }
-    free(sum);
     return SL_OK;
 }
 
@@ -236,14 +223,16 @@ static void note_failure(sl_analysis *a, sl_status st, const sl_diag *fit_diag, 
                  sl_diag_size(fit_diag) ? sl_diag_last(fit_diag) : sl_status_str(st));
 }
 
-sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout)
+sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
+                             const double *wafer_sum_per_cm2, const double *wafer_devices)
 {
     wafer_means m = { 0 };
     level_map map = { 0 };
     sl_stats_design *design = NULL;
     sl_stats_fit *fit = NULL;
     sl_diag *fit_diag = sl_diag_new();
-    sl_status st = fit_diag ? collect_wafer_means(&m, a, layout) : SL_ENOMEM;
+    sl_status st = fit_diag ? collect_wafer_means(&m, a, layout, wafer_sum_per_cm2, wafer_devices)
+                            : SL_ENOMEM;
     if (st == SL_OK && m.n_obs == 0) {
         note_failure(a, SL_EINPUT, fit_diag, 0, 1);
     } else if (st == SL_OK && (st = compact_levels(&map, &m, a->plan)) == SL_OK) {

@@ -150,8 +150,9 @@ static sl_status collect_lots(sl_history *h, sl_store *store, sl_diag *diag)
         h->lot_names[i] = dup_or_empty(lots[i].lot);
         h->lot_created[i] = dup_or_empty(lots[i].created_utc);
         h->n_lot_names = i + 1;
-        sl_analysis *a = NULL;
-        st = sl_analyze_lot(&a, store, lots[i].lot, diag);
+        sl_analysis_stream *stream = NULL; /* the effects are all it needs */
+        st = sl_analyze_lot_stream(&stream, store, lots[i].lot, diag);
+        sl_analysis *a = st == SL_OK ? &sl_analysis_stream_release(stream)->pub : NULL;
         if (st == SL_OK)
             st = add_lot(h, a, i, n);
         if (st == SL_OK && i + 1 == n) { /* keep the newest plan for calibration */

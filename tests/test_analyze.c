@@ -223,10 +223,10 @@ static void demo_lot(const char *dir, const char *lot, const char *seed, const c
  *       a = np.array(v[s])
  *       print(s, st.t.interval(0.95, len(a) - 1, loc=a.mean(), scale=st.sem(a)))
  */
-/* compare --format json of a fixture lot (plan and results under
+/* compare --format FORMAT of a fixture lot (plan and results under
  * tests/data/analyze) stored in a fresh scratch folder, returned in *dir_out. */
-static char *fixture_compare_json(const char *plan_name, const char *results_name,
-                                  const char *lot, char **dir_out)
+static char *fixture_compare(const char *plan_name, const char *results_name, const char *lot,
+                             const char *format, char **dir_out)
 {
     char *dir = sl_test_tmpdir();
     char *plan = sl_test_data(plan_name), *results = sl_test_data(results_name);
@@ -234,13 +234,19 @@ static char *fixture_compare_json(const char *plan_name, const char *results_nam
     run_quiet(dir, predict);
     const char *ingest[] = { "ingest", "--lot", lot, "--results", results, "--db", "t.db", NULL };
     run_quiet(dir, ingest);
-    const char *compare[] = { "compare", "--lot", lot, "--db", "t.db", "--format", "json", NULL };
+    const char *compare[] = { "compare", "--lot", lot, "--db", "t.db", "--format", format, NULL };
     sl_run_result r = run_ok(dir, compare);
     free(plan);
     free(results);
     free(r.err);
     *dir_out = dir;
     return r.out;
+}
+
+static char *fixture_compare_json(const char *plan_name, const char *results_name,
+                                  const char *lot, char **dir_out)
+{
+    return fixture_compare(plan_name, results_name, lot, "json", dir_out);
 }
 
 static char *stats_compare_json(char **dir_out)
@@ -321,16 +327,41 @@ START_TEST(test_anova_and_ci_against_scipy)
 }
 END_TEST
 
+/* The stats lot stored in a fresh scratch folder, its store open. */
+typedef struct {
+    char *dir, *json, *db;
+    sl_store *store;
+    sl_diag *diag;
+} stats_store;
+
+static stats_store open_stats_store(void)
+{
+    stats_store t = { 0 };
+    t.json = stats_compare_json(&t.dir);
+    t.db = sl_test_path(t.dir, "t.db");
+    t.diag = sl_diag_new();
+    ck_assert_int_eq(sl_store_open(&t.store, t.db, t.diag), SL_OK);
+    return t;
+}
+
+static void close_stats_store(stats_store *t)
+{
+    sl_store_close(t->store);
+    sl_diag_free(t->diag);
+    free(t->db);
+    free(t->json);
+    sl_test_rmtree(t->dir);
+    free(t->dir);
+}
+
 /* The same lot through the library: device fields, flags and their names,
  * the failure-analysis order, an unknown lot, and a history of one lot. */
 START_TEST(test_library_analysis)
 {
-    char *dir, *json = stats_compare_json(&dir);
-    char *db = sl_test_path(dir, "t.db");
-    sl_diag *diag = sl_diag_new();
-    sl_store *store = NULL;
+    stats_store t = open_stats_store();
+    sl_store *store = t.store;
+    sl_diag *diag = t.diag;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
     ck_assert_uint_eq(a->n_devices, 54); /* 9 wafers x 6 dies */
     ck_assert_uint_eq(a->n_usable, 50);  /* 4 empty v_cnp_V */
@@ -390,12 +421,7 @@ START_TEST(test_library_analysis)
         ck_assert_uint_eq(h->levels[i].n_drift, 0);
     }
     sl_history_free(h);
-    sl_store_close(store);
-    sl_diag_free(diag);
-    free(db);
-    free(json);
-    sl_test_rmtree(dir);
-    free(dir);
+    close_stats_store(&t);
 }
 END_TEST
 
@@ -430,6 +456,120 @@ START_TEST(test_off_prediction_without_spread)
     free(json);
     sl_test_rmtree(dir);
     free(dir);
+}
+END_TEST
+
+/* ---- the streamed analysis gives what the in-memory one gave ------------------- */
+
+/* compare of the two fixture lots in every format, byte for byte against
+ * what splitlot printed before the analysis was streamed (the in-memory
+ * analysis and output of commit b3905b4, saved as
+ * tests/data/analyze/<lot>-compare.json, .csv and .txt for the table). The
+ * no-sigma lot has an infinite z, negative columns and a flagged device that
+ * is not an outlier, so still counts in its wafer's mean. */
+START_TEST(test_compare_output_unchanged)
+{
+    static const struct {
+        const char *plan, *results, *lot, *format, *expected;
+    } cases[] = {
+        { "analyze/stats-lot.yaml", "analyze/stats-results.csv", "STATS-01", "json",
+          "analyze/stats-compare.json" },
+        { "analyze/stats-lot.yaml", "analyze/stats-results.csv", "STATS-01", "csv",
+          "analyze/stats-compare.csv" },
+        { "analyze/stats-lot.yaml", "analyze/stats-results.csv", "STATS-01", "table",
+          "analyze/stats-compare.txt" },
+        { "analyze/no-sigma.yaml", "analyze/no-sigma-results.csv", "NOSIGMA-01", "json",
+          "analyze/no-sigma-compare.json" },
+        { "analyze/no-sigma.yaml", "analyze/no-sigma-results.csv", "NOSIGMA-01", "table",
+          "analyze/no-sigma-compare.txt" },
+    };
+    for (size_t i = 0; i < N_OF(cases); i++) {
+        char *dir, *path = sl_test_data(cases[i].expected);
+        char *got = fixture_compare(cases[i].plan, cases[i].results, cases[i].lot, cases[i].format,
+                                    &dir);
+        char *want = sl_test_read_file(path, NULL);
+        ck_assert_msg(want != NULL, "cannot read %s", path);
+        ck_assert_msg(strcmp(got, want) == 0, "%s --format %s differs from %s:\n%s", cases[i].lot,
+                      cases[i].format, path, got);
+        free(want);
+        free(got);
+        free(path);
+        sl_test_rmtree(dir);
+        free(dir);
+    }
+}
+END_TEST
+
+static void check_same_number(const char *what, double got, double want)
+{
+    ck_assert_msg(got == want || (isnan(got) && isnan(want)), "%s = %.17g, expected %.17g", what,
+                  got, want);
+}
+
+static void check_same_device(const sl_analyze_device *got, const sl_analyze_device *want)
+{
+    ck_assert_int_eq(got->device_id, want->device_id);
+    ck_assert_str_eq(got->wafer, want->wafer);
+    ck_assert_str_eq(got->device, want->device);
+    ck_assert(got->die_x == want->die_x && got->die_y == want->die_y);
+    ck_assert_int_eq(got->split, want->split);
+    ck_assert_uint_eq(got->flags, want->flags);
+    check_same_number("z", got->z, want->z);
+    check_same_number("modified z", got->modified_z, want->modified_z);
+    check_same_number("doping", got->doping_measured_per_cm2, want->doping_measured_per_cm2);
+    ck_assert_str_eq(got->reason, want->reason);
+}
+
+/* The stream read device by device against the same lot collected in
+ * memory: the summary without devices, every device in order (twice: the
+ * reading starts over after the last), the failure-analysis order, a rewind
+ * half way, and a stream freed before its end leaving the store usable. */
+START_TEST(test_stream_reads_back_the_lot)
+{
+    stats_store t = open_stats_store();
+    sl_store *store = t.store;
+    sl_diag *diag = t.diag;
+    sl_analysis *a = NULL;
+    sl_analysis_stream *s = NULL;
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot_stream(&s, store, "STATS-01", diag), SL_OK);
+    const sl_analysis *sum = sl_analysis_stream_summary(s);
+    ck_assert(sum->devices == NULL && sum->flagged == NULL);
+    ck_assert_uint_eq(sum->n_devices, 54);
+    ck_assert(sum->n_devices == a->n_devices && sum->n_usable == a->n_usable &&
+              sum->n_flagged == a->n_flagged && sum->n_off_plan == a->n_off_plan);
+    check_same_number("anova F", sum->anova.f, a->anova.f);
+    for (size_t k = 0; k < sum->n_splits; k++)
+        check_same_number("split spread", sum->splits[k].spread_V, a->splits[k].spread_V);
+    const sl_analyze_device *d = NULL;
+    for (int round = 0; round < 2; round++) {
+        for (size_t i = 0; i < a->n_devices; i++) {
+            ck_assert_int_eq(sl_analysis_stream_next_device(s, &d, diag), SL_OK);
+            ck_assert_ptr_nonnull(d);
+            check_same_device(d, &a->devices[i]);
+        }
+        ck_assert_int_eq(sl_analysis_stream_next_device(s, &d, diag), SL_OK);
+        ck_assert_ptr_null(d);
+    }
+    for (size_t k = 0; k < a->n_flagged; k++) {
+        ck_assert_int_eq(sl_analysis_stream_next_flagged(s, &d, diag), SL_OK);
+        ck_assert_ptr_nonnull(d);
+        check_same_device(d, &a->devices[a->flagged[k]]);
+    }
+    ck_assert_int_eq(sl_analysis_stream_next_flagged(s, &d, diag), SL_OK);
+    ck_assert_ptr_null(d);
+    for (int i = 0; i < 3; i++)
+        ck_assert_int_eq(sl_analysis_stream_next_device(s, &d, diag), SL_OK);
+    sl_analysis_stream_rewind(s);
+    ck_assert_int_eq(sl_analysis_stream_next_device(s, &d, diag), SL_OK);
+    check_same_device(d, &a->devices[0]);
+    sl_analysis_stream_free(s);
+    sl_analysis_free(a);
+    a = NULL;
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    ck_assert_uint_eq(a->n_devices, 54);
+    sl_analysis_free(a);
+    close_stats_store(&t);
 }
 END_TEST
 
@@ -816,6 +956,8 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_library_analysis);
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
+    tcase_add_test(stats, test_compare_output_unchanged);
+    tcase_add_test(stats, test_stream_reads_back_the_lot);
     suite_add_tcase(s, stats);
     TCase *lots = tcase_create("simulated lots");
     tcase_set_timeout(lots, 300);

@@ -67,7 +67,7 @@ typedef struct {
 typedef struct sl_analysis {
     sl_store_lot lot;
     sl_plan *plan;
-    sl_analyze_device *devices;
+    sl_analyze_device *devices; /* NULL in a stream's summary */
     size_t n_devices;
     sl_analyze_split *splits;
     size_t n_splits;
@@ -76,7 +76,8 @@ typedef struct sl_analysis {
     int effects_status;          /* SL_OK, or why no effects could be estimated */
     char effects_note[256];
     sl_stats_anova anova;        /* of measured doping across splits */
-    size_t *flagged;             /* device indices, most severe first */
+    size_t *flagged;             /* device indices, most severe first; NULL in a
+                                    stream's summary */
     size_t n_flagged;
     size_t n_usable;
     size_t n_off_plan;
@@ -85,11 +86,53 @@ typedef struct sl_analysis {
     double *split_capacitance_F_per_m2;
 } sl_analysis;
 
-/* Analyse a lot of an open store (its newest plan revision and devices).
+/* Analyse a lot of an open store (its newest plan revision and devices), with
+ * every device in memory: sl_analyze_lot_stream, then its devices and its
+ * failure-analysis order collected.
  * Returns SL_OK, SL_ENOTFOUND (unknown lot, message lists known ones), SL_EDB,
  * SL_ENOMEM. A lot without usable devices analyses to empty summaries. */
 sl_status sl_analyze_lot(sl_analysis **out, sl_store *store, const char *lot, sl_diag *diag);
 void sl_analysis_free(sl_analysis *analysis);
+
+/* ---- the same analysis in flat memory, whatever the lot's size ---- */
+
+typedef struct sl_analysis_stream sl_analysis_stream;
+
+/* Analyse a lot in passes over its devices, holding state per split and per
+ * wafer only. The devices on the plan's wafers are copied, wafer by wafer in
+ * the order of sl_store_load_devices, into the store's scratch (a temporary
+ * table in a file); one pass over their usable V_cnp gives each split's
+ * count, mean and SD (gsl_rstat), more passes each split's exact median and
+ * MAD (sl_stats_median_search); a last pass scores every device, lists the
+ * flagged ones by severity in the scratch and sums the wafer means; then the
+ * effects and the ANOVA (from each split's moments, sl_stats_anova_moments).
+ * The results are those of sl_analyze_lot: the summary has everything but
+ * the devices, which are read back one at a time, in the same order, with
+ * sl_analysis_stream_next_device, and the failure-analysis list with
+ * sl_analysis_stream_next_flagged. The store stays open, reading one
+ * snapshot of the database, until sl_analysis_stream_free.
+ * Returns as sl_analyze_lot; SL_EINPUT when the devices read differently
+ * from one pass to the next. */
+sl_status sl_analyze_lot_stream(sl_analysis_stream **out, sl_store *store, const char *lot,
+                                sl_diag *diag);
+
+/* Everything but the devices: devices and flagged are NULL, the counts set. */
+const sl_analysis *sl_analysis_stream_summary(const sl_analysis_stream *stream);
+
+/* The next device (as sl_analyze_lot's devices[i], in that order), valid
+ * until the next call on the stream; NULL after the last, and the next call
+ * starts over. Returns SL_OK, SL_EDB. */
+sl_status sl_analysis_stream_next_device(sl_analysis_stream *stream,
+                                         const sl_analyze_device **device, sl_diag *diag);
+
+/* The next flagged device, most severe first (then by wafer and device
+ * name), with its reason; NULL after the last, as above. */
+sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
+                                          const sl_analyze_device **device, sl_diag *diag);
+
+/* Start both readings over. */
+void sl_analysis_stream_rewind(sl_analysis_stream *stream);
+void sl_analysis_stream_free(sl_analysis_stream *stream);
 
 /* Flag names of a device, in a fixed order, into names (at most 4); returns
  * the count: "outlier", "off-prediction", the fit class, "unmeasured". */
