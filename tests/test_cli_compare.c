@@ -1,13 +1,18 @@
 /* SPDX-License-Identifier: MIT
  * Command-line tests of `splitlot compare` and `splitlot history`: the JSON
  * keys of DESIGN.md section 5, --only-flagged, --fail-on-flags (exit 3),
- * unknown lots and missing databases (exit 2, nothing created). The numbers
- * themselves are checked in test_analyze.c. Lots are simulated, invented data.
+ * unknown lots and missing databases (exit 2, nothing created), and compare's
+ * peak memory, which must not grow with the lot. The numbers themselves are
+ * checked in test_analyze.c. Lots are simulated, invented data.
  */
+#define _DEFAULT_SOURCE /* wait4(2): a child's own peak resident size */
+#include <fcntl.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
+#include <sys/wait.h>
 #include <unistd.h>
 
 #include "test_support.h"
@@ -378,6 +383,82 @@ START_TEST(test_history_without_measurements)
 }
 END_TEST
 
+/* ---- memory ---- */
+
+#if defined(__SANITIZE_ADDRESS__)
+#define SL_UNDER_ASAN 1
+#elif defined(__has_feature)
+#if __has_feature(address_sanitizer)
+#define SL_UNDER_ASAN 1
+#endif
+#endif
+
+/* Peak resident size (KiB) of `splitlot compare --lot MANY-01` on db in a
+ * format, output thrown away: the child's own ru_maxrss from wait4. */
+static long compare_peak_kib(const char *db, const char *format)
+{
+    pid_t pid = fork();
+    ck_assert_int_ge(pid, 0);
+    if (pid == 0) {
+        int null = open("/dev/null", O_WRONLY);
+        dup2(null, STDOUT_FILENO);
+        dup2(null, STDERR_FILENO);
+        execl(SL_BINARY, "splitlot", "compare", "--lot", "MANY-01", "--db", db, "--format", format,
+              (char *)NULL);
+        _exit(127);
+    }
+    int status = 0;
+    struct rusage usage;
+    ck_assert_int_eq(wait4(pid, &status, 0, &usage), pid);
+    ck_assert_msg(WIFEXITED(status) && WEXITSTATUS(status) == 0, "compare on %s failed", db);
+    return usage.ru_maxrss;
+}
+
+/* The plan of tests/data/analyze/many-devices.yaml (40 wafers, two splits)
+ * with per_wafer devices drawn on each wafer, in its own database. */
+static char *many_devices_db(const char *per_wafer)
+{
+    char *plan = sl_test_data("analyze/many-devices.yaml");
+    char db[32], sim[32], results[64];
+    snprintf(db, sizeof db, "many-%s.db", per_wafer);
+    snprintf(sim, sizeof sim, "many-%s", per_wafer);
+    snprintf(results, sizeof results, "%s/results.csv", sim);
+    const char *predict[] = { "predict", plan, "--db", db, NULL };
+    must_run(predict);
+    const char *simulate[] = { "simulate", plan, "--out", sim, "--devices-per-wafer", per_wafer,
+                               "--no-sweeps", NULL };
+    must_run(simulate);
+    const char *ingest[] = { "ingest", "--lot", "MANY-01", "--results", results, "--db", db, NULL };
+    must_run(ingest);
+    free(plan);
+    return sl_test_path(dir, db);
+}
+
+/* compare's peak memory does not grow with the lot: about 1,800 and 14,600
+ * devices peak within 1.5 MiB of each other in every format, where the
+ * in-memory analysis it replaced took about 1.2 kB more a device (16 MB more
+ * here). A memory size, not a timing. Skipped under AddressSanitizer, whose
+ * allocator holds freed blocks back for a while. */
+START_TEST(test_compare_memory_is_flat)
+{
+#ifdef SL_UNDER_ASAN
+    printf("test_cli_compare: test_compare_memory_is_flat skipped: AddressSanitizer build\n");
+    return;
+#endif
+    static const char *const formats[] = { "json", "csv", "table" };
+    char *small = many_devices_db("50"), *large = many_devices_db("400");
+    for (size_t i = 0; i < N_OF(formats); i++) {
+        long small_kib = compare_peak_kib(small, formats[i]);
+        long large_kib = compare_peak_kib(large, formats[i]);
+        ck_assert_msg(small_kib > 0, "no peak resident size reported");
+        ck_assert_msg(large_kib - small_kib < 1536, "--format %s: %ld KiB for 1,800 devices, %ld KiB "
+                      "for 14,600", formats[i], small_kib, large_kib);
+    }
+    free(small);
+    free(large);
+}
+END_TEST
+
 static Suite *cli_compare_suite(void)
 {
     Suite *s = suite_create("cli_compare");
@@ -394,6 +475,7 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_table_and_csv);
     tcase_add_test(tc, test_history_json_and_yaml);
     tcase_add_test(tc, test_history_without_measurements);
+    tcase_add_test(tc, test_compare_memory_is_flat);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -2,6 +2,8 @@
  * `splitlot compare --lot ID`: every device against its prediction with its
  * flags, split summaries, level effects against the plan, the ANOVA across
  * splits, and the failure-analysis list; exit 3 on flags with --fail-on-flags.
+ * The devices and the failure-analysis list are streamed from the analysis
+ * to the output row by row, so memory does not grow with the lot.
  */
 #include "cli.h"
 
@@ -45,10 +47,52 @@ typedef struct {
     cli_format format;
 } compare_args;
 
-static void devices_table(cli_doc *doc, const sl_analysis *a, const compare_args *args)
+/* What the streamed tables read from while the document prints. */
+typedef struct {
+    const compare_args *args;
+    sl_analysis_stream *stream;
+    const sl_analysis *a;
+    sl_status status;
+    sl_diag *diag;
+} compare_rows;
+
+static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_device *d, int table)
 {
-    int table = args->format == CLI_FORMAT_TABLE;
-    cli_table *t = cli_doc_table(doc, "devices", "devices (V; doping in cm^-2)");
+    const char *names[4];
+    cli_table_row(t);
+    cli_cell_str(t, d->wafer);
+    cli_cell_str(t, d->device);
+    if (!table) {
+        cli_cell_int(t, d->die_x);
+        cli_cell_int(t, d->die_y);
+    }
+    cli_cell_str(t, a->plan->splits[d->split].name);
+    cli_cell_num(t, d->cnp_predicted_V);
+    cli_cell_num(t, d->cnp_predicted_sigma_V);
+    cli_cell_num(t, d->cnp_measured_V);
+    cli_cell_num(t, d->deviation_V);
+    cli_cell_num(t, d->z);
+    cli_cell_num(t, d->doping_measured_per_cm2);
+    if (!table)
+        cli_cell_num(t, d->modified_z);
+    cli_cell_list(t, names, sl_analyze_flag_names(d, names));
+}
+
+static int device_rows(cli_table *t, void *ctx)
+{
+    compare_rows *c = ctx;
+    const sl_analyze_device *d = NULL;
+    while ((c->status = sl_analysis_stream_next_device(c->stream, &d, c->diag)) == SL_OK && d)
+        if (!c->args->only_flagged || d->flags)
+            device_row(t, c->a, d, c->args->format == CLI_FORMAT_TABLE);
+    return c->status != SL_OK;
+}
+
+static void devices_table(cli_doc *doc, compare_rows *rows)
+{
+    int table = rows->args->format == CLI_FORMAT_TABLE;
+    cli_table *t = cli_doc_table_streamed(doc, "devices", "devices (V; doping in cm^-2)",
+                                          device_rows, rows);
     cli_table_col_str(t, "wafer", "wafer");
     cli_table_col_str(t, "device", "device");
     if (!table) {
@@ -65,29 +109,6 @@ static void devices_table(cli_doc *doc, const sl_analysis *a, const compare_args
     if (!table)
         cli_table_col_fixed(t, "modified_z", "M", 2);
     cli_table_col_list(t, "flags", "flags");
-    for (size_t i = 0; i < a->n_devices; i++) {
-        const sl_analyze_device *d = &a->devices[i];
-        if (args->only_flagged && !d->flags)
-            continue;
-        const char *names[4];
-        cli_table_row(t);
-        cli_cell_str(t, d->wafer);
-        cli_cell_str(t, d->device);
-        if (!table) {
-            cli_cell_int(t, d->die_x);
-            cli_cell_int(t, d->die_y);
-        }
-        cli_cell_str(t, a->plan->splits[d->split].name);
-        cli_cell_num(t, d->cnp_predicted_V);
-        cli_cell_num(t, d->cnp_predicted_sigma_V);
-        cli_cell_num(t, d->cnp_measured_V);
-        cli_cell_num(t, d->deviation_V);
-        cli_cell_num(t, d->z);
-        cli_cell_num(t, d->doping_measured_per_cm2);
-        if (!table)
-            cli_cell_num(t, d->modified_z);
-        cli_cell_list(t, names, sl_analyze_flag_names(d, names));
-    }
 }
 
 static void splits_table(cli_doc *doc, const sl_analysis *a)
@@ -151,9 +172,28 @@ static void effects_table(cli_doc *doc, const sl_analysis *a)
     }
 }
 
-static void failure_table(cli_doc *doc, const sl_analysis *a)
+static int failure_rows(cli_table *t, void *ctx)
 {
-    cli_table *t = cli_doc_table(doc, "failure_analysis", "failure analysis, most severe first");
+    compare_rows *c = ctx;
+    const sl_analyze_device *d = NULL;
+    long rank = 0;
+    while ((c->status = sl_analysis_stream_next_flagged(c->stream, &d, c->diag)) == SL_OK && d) {
+        cli_table_row(t);
+        cli_cell_int(t, ++rank);
+        cli_cell_str(t, d->wafer);
+        cli_cell_str(t, d->device);
+        cli_cell_int(t, d->die_x);
+        cli_cell_int(t, d->die_y);
+        cli_cell_str(t, c->a->plan->splits[d->split].name);
+        cli_cell_str(t, d->reason);
+    }
+    return c->status != SL_OK;
+}
+
+static void failure_table(cli_doc *doc, compare_rows *rows)
+{
+    cli_table *t = cli_doc_table_streamed(doc, "failure_analysis",
+                                          "failure analysis, most severe first", failure_rows, rows);
     cli_table_col_int(t, "rank", "#");
     cli_table_col_str(t, "wafer", "wafer");
     cli_table_col_str(t, "device", "device");
@@ -161,17 +201,6 @@ static void failure_table(cli_doc *doc, const sl_analysis *a)
     cli_table_col_int(t, "die_y", "y");
     cli_table_col_str(t, "split", "split");
     cli_table_col_str(t, "reason", "reason");
-    for (size_t k = 0; k < a->n_flagged; k++) {
-        const sl_analyze_device *d = &a->devices[a->flagged[k]];
-        cli_table_row(t);
-        cli_cell_int(t, (long)k + 1);
-        cli_cell_str(t, d->wafer);
-        cli_cell_str(t, d->device);
-        cli_cell_int(t, d->die_x);
-        cli_cell_int(t, d->die_y);
-        cli_cell_str(t, a->plan->splits[d->split].name);
-        cli_cell_str(t, d->reason);
-    }
 }
 
 static void add_summary(cli_doc *doc, const sl_analysis *a)
@@ -195,31 +224,37 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
     cli_doc_note(doc, text);
 }
 
+/* Print the analysis; the devices and the failure list are read as printed. */
+static int print_compare(const compare_args *args, sl_analysis_stream *stream, sl_diag *diag)
+{
+    compare_rows rows = { args, stream, sl_analysis_stream_summary(stream), SL_OK, diag };
+    const sl_analysis *a = rows.a;
+    cli_doc *doc = cli_doc_new();
+    add_summary(doc, a);
+    devices_table(doc, &rows);
+    splits_table(doc, a);
+    effects_table(doc, a);
+    failure_table(doc, &rows);
+    int rc = CLI_EXIT_OK;
+    if (cli_doc_print(doc, args->format, stdout) != 0)
+        rc = rows.status != SL_OK ? cli_fail(rows.status, diag)
+                                  : cli_runtime_error("cannot write output");
+    else if (args->fail_on_flags && (a->n_flagged || a->n_off_plan))
+        rc = CLI_EXIT_FLAGGED;
+    cli_doc_free(doc);
+    return rc;
+}
+
 static int run_compare(const compare_args *args)
 {
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    sl_analysis *a = NULL;
+    sl_analysis_stream *stream = NULL;
     sl_status st = sl_store_open(&store, args->db, diag);
     if (st == SL_OK)
-        st = sl_analyze_lot(&a, store, args->lot, diag);
-    int rc = CLI_EXIT_OK;
-    if (st != SL_OK) {
-        rc = cli_fail(st, diag);
-    } else {
-        cli_doc *doc = cli_doc_new();
-        add_summary(doc, a);
-        devices_table(doc, a, args);
-        splits_table(doc, a);
-        effects_table(doc, a);
-        failure_table(doc, a);
-        if (cli_doc_print(doc, args->format, stdout) != 0)
-            rc = cli_runtime_error("cannot write output");
-        else if (args->fail_on_flags && (a->n_flagged || a->n_off_plan))
-            rc = CLI_EXIT_FLAGGED;
-        cli_doc_free(doc);
-    }
-    sl_analysis_free(a);
+        st = sl_analyze_lot_stream(&stream, store, args->lot, diag);
+    int rc = st == SL_OK ? print_compare(args, stream, diag) : cli_fail(st, diag);
+    sl_analysis_stream_free(stream);
     sl_store_close(store);
     sl_diag_free(diag);
     return rc;

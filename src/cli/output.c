@@ -1,7 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Rendering of command output as a terminal table, CSV (RFC 4180) or JSON
- * (see output.h). Allocation failures abort the command cleanly via exit 1,
- * since the command layer, unlike the library, may end the process.
+ * (see output.h): every format writes a table row by row, whether the rows
+ * were kept or come from a streamed table's callback. Allocation failures
+ * abort the command cleanly via exit 1, since the command layer, unlike the
+ * library, may end the process.
  */
 #include "output.h"
 
@@ -23,13 +25,38 @@ typedef struct {
     int count;  /* list length */
 } cell;
 
+typedef struct row_visitor row_visitor;
+
 struct cli_table {
     char *key, *title;
     column *cols;
     int ncols;
-    cell *cells; /* row-major */
+    cell *cells; /* row-major; a streamed table's one row in the making */
     size_t nrows, cap_rows;
     int next_col;
+    cli_rows_fn fill;      /* streamed: rows come from here when printed */
+    void *fill_ctx;
+    row_visitor *visitor;  /* streamed, while printed: where rows go */
+};
+
+/* Sizing a column of an aligned table: the widest text so far and, for
+ * fixed-point and integer columns, the finite values of each sign with the
+ * largest magnitude, whose text is the widest of that sign ("%.Nf" grows with
+ * the magnitude; a minus sign, even of -0, adds one), so a long column is
+ * sized without printing every number. */
+typedef struct {
+    int width;
+    int has_neg, has_pos;
+    double neg, pos;
+} col_size;
+
+/* What printing does with each row of a table, in order. */
+struct row_visitor {
+    void (*row)(row_visitor *v, const cli_table *t, const cell *cells);
+    FILE *out;
+    size_t count;    /* rows visited so far */
+    int *width;      /* aligned table: column widths */
+    col_size *size;  /* aligned table, while sizing */
 };
 
 typedef struct {
@@ -83,10 +110,17 @@ cli_doc *cli_doc_new(void)
     return doc;
 }
 
+static void free_cell_texts(cell *cells, size_t n)
+{
+    for (size_t i = 0; i < n; i++) {
+        free(cells[i].text);
+        cells[i].text = NULL;
+    }
+}
+
 static void table_free(cli_table *t)
 {
-    for (size_t i = 0; i < t->nrows * (size_t)t->ncols; i++)
-        free(t->cells[i].text);
+    free_cell_texts(t->cells, t->nrows * (size_t)t->ncols);
     for (int c = 0; c < t->ncols; c++) {
         free(t->cols[c].key);
         free(t->cols[c].header);
@@ -156,6 +190,15 @@ cli_table *cli_doc_table(cli_doc *doc, const char *key, const char *title)
     return t;
 }
 
+cli_table *cli_doc_table_streamed(cli_doc *doc, const char *key, const char *title,
+                                  cli_rows_fn fill, void *ctx)
+{
+    cli_table *t = cli_doc_table(doc, key, title);
+    t->fill = fill;
+    t->fill_ctx = ctx;
+    return t;
+}
+
 static void add_col(cli_table *t, const char *key, const char *header, col_kind kind, int digits)
 {
     t->cols = xrealloc(t->cols, (size_t)(t->ncols + 1) * sizeof(column));
@@ -174,8 +217,30 @@ void cli_table_col_bool(cli_table *t, const char *k, const char *h) { add_col(t,
 void cli_table_col_list(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_LIST, 0); }
 void cli_table_col_range(cli_table *t, const char *k, const char *h, int d) { add_col(t, k, h, COL_RANGE, d); }
 
+static void internal_error(const char *what)
+{
+    fprintf(stderr, "splitlot: internal error: %s\n", what);
+    exit(1);
+}
+
+/* A streamed table's finished row goes to the printer, and is forgotten. */
+static void emit_pending(cli_table *t)
+{
+    if (t->nrows == 0)
+        return;
+    t->visitor->row(t->visitor, t, t->cells);
+    t->visitor->count++;
+    free_cell_texts(t->cells, (size_t)t->ncols);
+    t->nrows = 0;
+}
+
 void cli_table_row(cli_table *t)
 {
+    if (t->fill) {
+        if (!t->visitor)
+            internal_error("row of a streamed table outside its printing");
+        emit_pending(t);
+    }
     if (t->nrows == t->cap_rows) {
         t->cap_rows = t->cap_rows ? 2 * t->cap_rows : 16;
         t->cells = xrealloc(t->cells, t->cap_rows * (size_t)t->ncols * sizeof(cell));
@@ -189,10 +254,8 @@ void cli_table_row(cli_table *t)
 
 static cell *next_cell(cli_table *t)
 {
-    if (t->nrows == 0 || t->next_col >= t->ncols) {
-        fputs("splitlot: internal error: table cell out of range\n", stderr);
-        exit(1);
-    }
+    if (t->nrows == 0 || t->next_col >= t->ncols)
+        internal_error("table cell out of range");
     return &t->cells[(t->nrows - 1) * (size_t)t->ncols + (size_t)t->next_col++];
 }
 
@@ -347,7 +410,40 @@ static void json_cell(FILE *out, const cell *c, const column *col)
     }
 }
 
-static void print_json(const cli_doc *doc, FILE *out)
+/* Every row of a table to a visitor: the kept ones, or a streamed table's
+ * as its callback makes them. Returns 0, or -1 when the callback failed. */
+static int each_row(cli_table *t, row_visitor *v)
+{
+    if (!t->fill) {
+        for (size_t r = 0; r < t->nrows; r++, v->count++)
+            v->row(v, t, &t->cells[r * (size_t)t->ncols]);
+        return 0;
+    }
+    t->visitor = v;
+    t->nrows = 0;
+    int rc = t->fill(t, t->fill_ctx);
+    if (rc == 0)
+        emit_pending(t);
+    free_cell_texts(t->cells, t->nrows * (size_t)t->ncols);
+    t->nrows = 0;
+    t->visitor = NULL;
+    return rc == 0 ? 0 : -1;
+}
+
+static void json_row(row_visitor *v, const cli_table *t, const cell *cells)
+{
+    fputs(v->count ? ",\n    {" : "\n    {", v->out);
+    for (int c = 0; c < t->ncols; c++) {
+        if (c)
+            fputs(", ", v->out);
+        json_string(v->out, t->cols[c].key);
+        fputs(": ", v->out);
+        json_cell(v->out, &cells[c], &t->cols[c]);
+    }
+    fputc('}', v->out);
+}
+
+static int print_json(const cli_doc *doc, FILE *out)
 {
     fputs("{", out);
     int first = 1;
@@ -361,24 +457,17 @@ static void print_json(const cli_doc *doc, FILE *out)
             json_number(out, doc->scalars[i].num);
     }
     for (int i = 0; i < doc->ntables; i++, first = 0) {
-        const cli_table *t = doc->tables[i];
+        cli_table *t = doc->tables[i];
+        row_visitor v = { json_row, out, 0, NULL, NULL };
         fputs(first ? "\n  " : ",\n  ", out);
         json_string(out, t->key);
         fputs(": [", out);
-        for (size_t r = 0; r < t->nrows; r++) {
-            fputs(r ? ",\n    {" : "\n    {", out);
-            for (int c = 0; c < t->ncols; c++) {
-                if (c)
-                    fputs(", ", out);
-                json_string(out, t->cols[c].key);
-                fputs(": ", out);
-                json_cell(out, &t->cells[r * (size_t)t->ncols + (size_t)c], &t->cols[c]);
-            }
-            fputc('}', out);
-        }
-        fputs(t->nrows ? "\n  ]" : "]", out);
+        if (each_row(t, &v) != 0)
+            return -1;
+        fputs(v.count ? "\n  ]" : "]", out);
     }
     fputs("\n}\n", out);
+    return 0;
 }
 
 /* ---- CSV ---- */
@@ -406,9 +495,27 @@ static void csv_number(char *buf, size_t n, double v)
         snprintf(buf, n, "%.10g", v);
 }
 
-static void print_csv(const cli_doc *doc, FILE *out)
+static void csv_row(row_visitor *v, const cli_table *t, const cell *cells)
 {
     char buf[4096];
+    for (int c = 0; c < t->ncols; c++) {
+        const cell *ce = &cells[c];
+        const column *co = &t->cols[c];
+        if (c)
+            fputc(',', v->out);
+        if (co->kind == COL_NUM || co->kind == COL_FIXED)
+            csv_number(buf, sizeof buf, ce->num);
+        else if (co->kind == COL_BOOL)
+            snprintf(buf, sizeof buf, "%s", isnan(ce->num) ? "" : (ce->num != 0.0 ? "true" : "false"));
+        else
+            format_plain(buf, sizeof buf, ce, co, ";");
+        csv_field(v->out, buf);
+    }
+    fputs("\r\n", v->out);
+}
+
+static int print_csv(const cli_doc *doc, FILE *out)
+{
     for (int i = 0; i < doc->nscalars; i++) {
         fprintf(out, "# %s: ", doc->scalars[i].key);
         if (doc->scalars[i].digits < 0)
@@ -417,7 +524,8 @@ static void print_csv(const cli_doc *doc, FILE *out)
             fprintf(out, "%.10g\n", doc->scalars[i].num);
     }
     for (int i = 0; i < doc->ntables; i++) {
-        const cli_table *t = doc->tables[i];
+        cli_table *t = doc->tables[i];
+        row_visitor v = { csv_row, out, 0, NULL, NULL };
         if (doc->ntables > 1)
             fprintf(out, "%s# %s\n", i ? "\n" : "", t->key);
         for (int c = 0; c < t->ncols; c++) {
@@ -426,23 +534,10 @@ static void print_csv(const cli_doc *doc, FILE *out)
             csv_field(out, t->cols[c].key);
         }
         fputs("\r\n", out);
-        for (size_t r = 0; r < t->nrows; r++) {
-            for (int c = 0; c < t->ncols; c++) {
-                const cell *ce = &t->cells[r * (size_t)t->ncols + (size_t)c];
-                const column *co = &t->cols[c];
-                if (c)
-                    fputc(',', out);
-                if (co->kind == COL_NUM || co->kind == COL_FIXED)
-                    csv_number(buf, sizeof buf, ce->num);
-                else if (co->kind == COL_BOOL)
-                    snprintf(buf, sizeof buf, "%s", isnan(ce->num) ? "" : (ce->num != 0.0 ? "true" : "false"));
-                else
-                    format_plain(buf, sizeof buf, ce, co, ";");
-                csv_field(out, buf);
-            }
-            fputs("\r\n", out);
-        }
+        if (each_row(t, &v) != 0)
+            return -1;
     }
+    return 0;
 }
 
 /* ---- aligned table ---- */
@@ -452,42 +547,103 @@ static int is_numeric(const column *c)
     return c->kind == COL_NUM || c->kind == COL_FIXED || c->kind == COL_INT || c->kind == COL_RANGE;
 }
 
-static void print_text_table(const cli_table *t, FILE *out)
+static void size_extreme(col_size *z, double v)
+{
+    if (signbit(v)) {
+        if (!z->has_neg || v < z->neg)
+            z->neg = v;
+        z->has_neg = 1;
+    } else {
+        if (!z->has_pos || v > z->pos)
+            z->pos = v;
+        z->has_pos = 1;
+    }
+}
+
+static int plain_width(const cell *c, const column *col)
 {
     char buf[4096];
-    int *width = xrealloc(NULL, (size_t)(t->ncols ? t->ncols : 1) * sizeof(int));
+    format_plain(buf, sizeof buf, c, col, ",");
+    return (int)strlen(buf);
+}
+
+/* Widest cell of each column so far (a first pass over the rows). */
+static void measure_row(row_visitor *v, const cli_table *t, const cell *cells)
+{
     for (int c = 0; c < t->ncols; c++) {
+        const column *col = &t->cols[c];
+        col_size *z = &v->size[c];
+        if ((col->kind == COL_FIXED || col->kind == COL_INT) && isfinite(cells[c].num)) {
+            size_extreme(z, cells[c].num);
+            continue;
+        }
+        int w = plain_width(&cells[c], col);
+        if (w > z->width)
+            z->width = w;
+    }
+}
+
+/* Column widths from the sizes: the headers, the widest texts and the texts
+ * of the extreme values. */
+static void finish_widths(int *width, const col_size *size, const cli_table *t)
+{
+    for (int c = 0; c < t->ncols; c++) {
+        const col_size *z = &size[c];
+        cell extreme = { .num = NAN };
         width[c] = (int)strlen(t->cols[c].header);
-        for (size_t r = 0; r < t->nrows; r++) {
-            format_plain(buf, sizeof buf, &t->cells[r * (size_t)t->ncols + (size_t)c], &t->cols[c], ",");
-            int w = (int)strlen(buf);
+        if (z->width > width[c])
+            width[c] = z->width;
+        for (int sign = 0; sign < 2; sign++) {
+            if (!(sign ? z->has_neg : z->has_pos))
+                continue;
+            extreme.num = sign ? z->neg : z->pos;
+            int w = plain_width(&extreme, &t->cols[c]);
             if (w > width[c])
                 width[c] = w;
         }
     }
-    if (t->title && *t->title)
-        fprintf(out, "%s\n", t->title);
+}
+
+static void text_row(row_visitor *v, const cli_table *t, const cell *cells)
+{
+    char buf[4096];
     for (int c = 0; c < t->ncols; c++) {
+        format_plain(buf, sizeof buf, &cells[c], &t->cols[c], ",");
+        int last = c == t->ncols - 1, w = v->width[c];
+        if (last && !is_numeric(&t->cols[c]))
+            fprintf(v->out, "%s%s", c ? "  " : "", buf);
+        else
+            fprintf(v->out, "%s%*s", c ? "  " : "", is_numeric(&t->cols[c]) ? w : -w, buf);
+    }
+    fputc('\n', v->out);
+}
+
+static int print_text_table(cli_table *t, FILE *out)
+{
+    size_t n = (size_t)(t->ncols ? t->ncols : 1);
+    int *width = xrealloc(NULL, n * sizeof(int));
+    col_size *size = xrealloc(NULL, n * sizeof *size);
+    memset(size, 0, n * sizeof *size);
+    row_visitor measure = { measure_row, out, 0, width, size }, print = { text_row, out, 0, width, NULL };
+    int rc = each_row(t, &measure);
+    finish_widths(width, size, t);
+    free(size);
+    if (rc == 0 && t->title && *t->title)
+        fprintf(out, "%s\n", t->title);
+    for (int c = 0; rc == 0 && c < t->ncols; c++) {
         int last_text = c == t->ncols - 1 && !is_numeric(&t->cols[c]);
         fprintf(out, "%s%*s", c ? "  " : "", last_text ? 0 : (is_numeric(&t->cols[c]) ? width[c] : -width[c]),
                 t->cols[c].header);
     }
-    fputc('\n', out);
-    for (size_t r = 0; r < t->nrows; r++) {
-        for (int c = 0; c < t->ncols; c++) {
-            format_plain(buf, sizeof buf, &t->cells[r * (size_t)t->ncols + (size_t)c], &t->cols[c], ",");
-            int last = c == t->ncols - 1;
-            if (last && !is_numeric(&t->cols[c]))
-                fprintf(out, "%s%s", c ? "  " : "", buf);
-            else
-                fprintf(out, "%s%*s", c ? "  " : "", is_numeric(&t->cols[c]) ? width[c] : -width[c], buf);
-        }
+    if (rc == 0) {
         fputc('\n', out);
+        rc = each_row(t, &print);
     }
     free(width);
+    return rc;
 }
 
-static void print_table(const cli_doc *doc, FILE *out)
+static int print_table(const cli_doc *doc, FILE *out)
 {
     for (int i = 0; i < doc->nscalars; i++) {
         if (doc->scalars[i].digits < 0)
@@ -498,21 +654,24 @@ static void print_table(const cli_doc *doc, FILE *out)
     for (int i = 0; i < doc->ntables; i++) {
         if (i || doc->nscalars)
             fputc('\n', out);
-        print_text_table(doc->tables[i], out);
+        if (print_text_table(doc->tables[i], out) != 0)
+            return -1;
     }
     if (doc->nnotes)
         fputc('\n', out);
     for (int i = 0; i < doc->nnotes; i++)
         fprintf(out, "%s\n", doc->notes[i]);
+    return 0;
 }
 
-int cli_doc_print(const cli_doc *doc, cli_format format, FILE *out)
+int cli_doc_print(cli_doc *doc, cli_format format, FILE *out)
 {
+    int rc;
     if (format == CLI_FORMAT_JSON)
-        print_json(doc, out);
+        rc = print_json(doc, out);
     else if (format == CLI_FORMAT_CSV)
-        print_csv(doc, out);
+        rc = print_csv(doc, out);
     else
-        print_table(doc, out);
-    return (fflush(out) == 0 && !ferror(out)) ? 0 : -1;
+        rc = print_table(doc, out);
+    return (fflush(out) == 0 && !ferror(out) && rc == 0) ? 0 : -1;
 }

@@ -29,6 +29,16 @@ void cli_doc_note(cli_doc *doc, const char *text);
 /* A table: key is the JSON array name, title the heading in table form. */
 cli_table *cli_doc_table(cli_doc *doc, const char *key, const char *title);
 
+/* A table whose rows are not kept: fill(t, ctx) is called when the document
+ * is printed (twice in table form: once to size the columns, once to print)
+ * and gives its rows with cli_table_row and cli_cell_* as for any table; each
+ * row is written as soon as the next one starts, so a table of any length
+ * prints in fixed memory. fill returns 0, or nonzero to stop the printing
+ * (cli_doc_print then returns -1). Columns are declared as for any table. */
+typedef int (*cli_rows_fn)(cli_table *t, void *ctx);
+cli_table *cli_doc_table_streamed(cli_doc *doc, const char *key, const char *title,
+                                  cli_rows_fn fill, void *ctx);
+
 /* Columns: key (JSON/CSV name, unit in it), header (table heading) and, for
  * numbers, significant digits in table form ('g' style) or decimals when
  * fixed_decimals >= 0. */
@@ -52,7 +62,8 @@ void cli_cell_bool(cli_table *t, bool value);
 void cli_cell_list(cli_table *t, const char *const *items, int count);
 void cli_cell_range(cli_table *t, double lo, double hi);
 
-/* Render the whole document; returns 0, or -1 on a write error. */
-int cli_doc_print(const cli_doc *doc, cli_format format, FILE *out);
+/* Render the whole document; returns 0, or -1 on a write error or when a
+ * streamed table's fill stopped. */
+int cli_doc_print(cli_doc *doc, cli_format format, FILE *out);
 
 #endif
