@@ -1,8 +1,10 @@
 /* SPDX-License-Identifier: MIT
- * Streaming RFC 4180 reader (see include/splitlot/csv.h): a record is first
- * scanned without touching the buffer, so a scan cut short by the end of the
- * buffer can restart after a refill; only a complete record is unescaped in
- * place and NUL-terminated. Numbers take a correctly rounded fast path.
+ * Streaming RFC 4180 reader (see include/splitlot/csv.h). The common record
+ * (unquoted fields, LF or CRLF end, wholly in the buffer) is split in one pass
+ * eight bytes at a time and NUL-terminated as it goes; any other record goes
+ * to the general scanner, which does not touch the buffer, so a scan cut
+ * short by the end of the buffer can restart after a refill, and unescapes a
+ * complete record in place. Numbers take correctly rounded fast paths.
  */
 #include "splitlot/csv.h"
 
@@ -13,7 +15,12 @@
 #include <string.h>
 
 #define READ_CHUNK_BYTES (1024u * 1024u)
-#define BUFFER_BYTES (SL_CSV_MAX_RECORD_BYTES + READ_CHUNK_BYTES + 1u)
+#define DATA_BYTES (SL_CSV_MAX_RECORD_BYTES + READ_CHUNK_BYTES)
+/* Eight-byte words are loaded at any data position up to the NUL kept after
+ * the data (the sentinel that ends the fast record scan); the buffer has
+ * room for the last one. */
+#define WORD_BYTES 8u
+#define BUFFER_BYTES (DATA_BYTES + 1u + WORD_BYTES)
 
 typedef struct {
     size_t off;   /* offset in buf: raw field while scanning, content after */
@@ -44,12 +51,59 @@ typedef struct {
     const char *start, *p, *limit;
     long newlines;
     size_t n_fields;
+    bool finished;   /* fields unescaped and NUL-terminated already */
 } scan_state;
 
-/* Bytes that end an unquoted run: separator, line ends, quote, NUL. */
+/* Bytes that end an unquoted run: separator, line ends, quote, NUL. All are
+ * below STOP_BYTE_LIMIT, which the word-at-a-time scan relies on. */
 static const unsigned char stop_byte[256] = {
     [','] = 1, ['\n'] = 1, ['\r'] = 1, ['"'] = 1, [0] = 1,
 };
+#define STOP_BYTE_LIMIT (',' + 1u)
+
+/* Keeps a rarely taken path out of its caller, so the caller's common path
+ * needs no stack frame. */
+#if defined(__GNUC__)
+#define OUT_OF_LINE __attribute__((noinline))
+#else
+#define OUT_OF_LINE
+#endif
+
+/* ---- eight bytes at a time: a uint64_t holds p[0] in its lowest byte ---- */
+
+#define BYTES_01 UINT64_C(0x0101010101010101)
+#define BYTES_7F UINT64_C(0x7F7F7F7F7F7F7F7F)
+#define BYTES_80 UINT64_C(0x8080808080808080)
+
+/* Little-endian by construction; compilers make it one load. */
+static uint64_t load_word(const unsigned char *p)
+{
+    return (uint64_t)p[0] | (uint64_t)p[1] << 8 | (uint64_t)p[2] << 16 | (uint64_t)p[3] << 24 |
+           (uint64_t)p[4] << 32 | (uint64_t)p[5] << 40 | (uint64_t)p[6] << 48 |
+           (uint64_t)p[7] << 56;
+}
+
+/* The high bit of each byte set where that byte is below limit (at most
+ * 0x80): with the top bit cleared, adding 0x80 - limit cannot carry out of
+ * the byte and reaches its high bit exactly when the byte is >= limit. */
+static uint64_t bytes_below(uint64_t word, unsigned limit)
+{
+    uint64_t at_least = (word & BYTES_7F) + BYTES_01 * (0x80u - limit);
+    return ~(at_least | word) & BYTES_80;
+}
+
+/* Index of the first flagged byte of a non-zero mask of byte high bits. */
+static unsigned first_flagged_byte(uint64_t mask)
+{
+#if defined(__GNUC__)
+    return (unsigned)__builtin_ctzll(mask) / 8u;
+#else
+    unsigned i = 0;
+    for (; !(mask & 0x80u); mask >>= 8)
+        i++;
+    return i;
+#endif
+}
 
 static char *copy_string(const char *s, size_t len)
 {
@@ -90,9 +144,10 @@ static sl_status refill(sl_csv *csv, sl_diag *diag)
     memmove(csv->buf, csv->buf + csv->pos, keep);
     csv->pos = 0;
     csv->end = keep;
-    size_t want = BUFFER_BYTES - 1 - keep;
+    size_t want = DATA_BYTES - keep;
     size_t got = fread(csv->buf + keep, 1, want, csv->stream);
     csv->end += got;
+    csv->buf[csv->end] = '\0';   /* the sentinel */
     if (got < want) {
         if (ferror(csv->stream))
             return fail(csv, SL_EIO, diag, 0, 0, "read failed");
@@ -207,14 +262,78 @@ static step_result scan_separator(sl_csv *csv, scan_state *s, bool *done, const 
     return STEP_ERROR;
 }
 
+/* Put back the commas scan_plain_record replaced by NULs in its first n fields. */
+static void restore_separators(sl_csv *csv, size_t n)
+{
+    for (size_t i = 0; i < n; i++)
+        csv->buf[csv->fields[i].off + csv->fields[i].len] = ',';
+}
+
+static void set_plain_span(field_span *f, const unsigned char *buf, const unsigned char *from,
+                           const unsigned char *stop)
+{
+    f->off = (size_t)(from - buf);
+    f->len = (size_t)(stop - from);
+    f->quoted = false;
+}
+
+/* The common record in one pass: unquoted fields ending in LF or CRLF,
+ * wholly in the buffer. Eight bytes at a time, the bytes below
+ * STOP_BYTE_LIMIT are found at once and taken in order: a comma ends a field
+ * (and becomes its NUL), another stop byte ends the record, a candidate that
+ * is no stop (a space, say) is passed over. The sentinel after the data
+ * guarantees an end. For anything but LF or CRLF there (a quote, a lone CR, a
+ * NUL, the sentinel) or too many fields, the commas are put back and false
+ * returned: the general scan starts over. */
+static bool scan_plain_record(sl_csv *csv, scan_state *s)
+{
+    unsigned char *const buf = (unsigned char *)csv->buf;
+    field_span *f = csv->fields, *const last = csv->fields + SL_CSV_MAX_FIELDS - 1;
+    unsigned char *from = buf + csv->pos, *stop = NULL;
+    for (unsigned char *word = from; !stop; word += 8) {
+        for (uint64_t c = bytes_below(load_word(word), STOP_BYTE_LIMIT); c; c &= c - 1) {
+            unsigned char *q = word + first_flagged_byte(c);
+            if (*q != ',') {
+                if (!stop_byte[*q])
+                    continue;
+                stop = q;
+                break;
+            }
+            if (f == last) {
+                restore_separators(csv, SL_CSV_MAX_FIELDS - 1);
+                return false;
+            }
+            set_plain_span(f++, buf, from, q);
+            *q = '\0';
+            from = q + 1;
+        }
+    }
+    set_plain_span(f++, buf, from, stop);
+    size_t n = (size_t)(f - csv->fields);
+    size_t end_bytes = *stop == '\n' ? 1 : *stop == '\r' && stop[1] == '\n' ? 2 : 0;
+    if (end_bytes == 0) {
+        restore_separators(csv, n - 1);
+        return false;
+    }
+    *stop = '\0';
+    s->p = (const char *)stop + end_bytes;
+    s->newlines = 1;
+    s->n_fields = n;
+    s->finished = true;
+    return true;
+}
+
 static scan_result scan_record(sl_csv *csv, scan_state *s, const char **why)
 {
     s->start = s->p = csv->buf + csv->pos;
     s->limit = csv->buf + csv->end;
     s->newlines = 0;
     s->n_fields = 0;
+    s->finished = false;
     if (s->p == s->limit)
         return csv->eof ? SCAN_END : SCAN_MORE;
+    if (scan_plain_record(csv, s))
+        return s->n_fields == 1 && csv->fields[0].len == 0 ? SCAN_BLANK : SCAN_RECORD;
     for (bool done = false; !done;) {
         step_result r = (s->p < s->limit && *s->p == '"') ? scan_quoted(csv, s, why)
                                                            : scan_unquoted(csv, s, why);
@@ -286,7 +405,10 @@ static sl_status read_record(bool *has_record, sl_csv *csv, sl_diag *diag)
         csv->pos += scanned;
         if (r == SCAN_BLANK)
             continue;
-        finish_record(csv, s.n_fields);
+        if (s.finished)
+            csv->n_fields = s.n_fields;
+        else
+            finish_record(csv, s.n_fields);
         *has_record = true;
         return SL_OK;
     }
@@ -370,7 +492,7 @@ static sl_csv *reader_new(FILE *stream, bool owns, const char *name)
     csv->stream = stream;
     csv->owns_stream = owns;
     csv->name = copy_string(name, strlen(name));
-    csv->buf = malloc(BUFFER_BYTES);
+    csv->buf = calloc(1, BUFFER_BYTES);   /* word loads may read past the data */
     csv->fields = malloc(SL_CSV_MAX_FIELDS * sizeof *csv->fields);
     csv->next_line = 1;
     if (!csv->name || !csv->buf || !csv->fields) {
@@ -602,12 +724,103 @@ static num_status parse_number(double *out, const char *s, size_t len)
     return NUM_OK;
 }
 
+/* ---- numbers: the short-token path ---- */
+
+#if FLT_EVAL_METHOD == 0
+
+/* Value of eight digit values (0 to 9), one per byte, the first byte the
+ * most significant: adjacent digits are paired (10 a + b fits a byte), then
+ * the four pairs are weighted 10^6, 10^4, 10^2 and 1 by two multiplications
+ * that leave their sums in the upper 32 bits. */
+static uint64_t eight_digits_value(uint64_t d)
+{
+    d = d * 10u + (d >> 8);
+    const uint64_t pairs = UINT64_C(0x000000FF000000FF);
+    return ((d & pairs) * (100u + (UINT64_C(1000000) << 32)) +
+            ((d >> 16) & pairs) * (1u + (UINT64_C(10000) << 32))) >> 32;
+}
+
+/* The high bit of each byte set where that byte is not a digit value (0 to
+ * 9). A byte from 0x8A up may carry into the next one and flag that too:
+ * extra flags, never a non-digit missed. */
+static uint64_t non_digit_values(uint64_t v)
+{
+    return ((v + BYTES_01 * (0x80u - 10u)) | v) & BYTES_80;
+}
+
+/* Exact powers of ten, negated in the second row: dividing by one carries
+ * the sign too, and IEEE division rounds the same either side of zero. */
+static const double signed_pow10[2][WORD_BYTES] = {
+    { 1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7 },
+    { -1e0, -1e1, -1e2, -1e3, -1e4, -1e5, -1e6, -1e7 },
+};
+
+/* Take the decimal point out of a word of digit values: the bytes below it
+ * move up one, so the digits join. *n_frac gets the number of digits after
+ * it. Returns the bytes taken out (0 or 1), or -1 when a byte other than one
+ * point is not a digit. */
+static int take_out_point(uint64_t *v, unsigned *n_frac)
+{
+    uint64_t odd = non_digit_values(*v);
+    *n_frac = 0;
+    if (!odd)
+        return 0;
+    unsigned at = first_flagged_byte(odd);
+    if ((odd & (odd - 1u)) || ((*v >> (8u * at)) & 0xFFu) != ('.' ^ '0'))
+        return -1;
+    uint64_t below = (UINT64_C(1) << (8u * at)) - 1u;
+    *v = (*v & ~(below | UINT64_C(0xFF) << (8u * at))) | (*v & below) << 8;
+    *n_frac = WORD_BYTES - 1u - at;
+    return 1;
+}
+
+/* A token of 1 to 8 bytes of the form [+-] digits [. digits] (no blanks, no
+ * exponent), read as one word without branching on its digits: the token
+ * is moved to the top of the word (the bytes below become leading zeros)
+ * and turned into digit values, its sign byte cleared and its point taken
+ * out. Eight digits at most stay below 2^53, so the division by an exact
+ * power of ten is fast_value's, correctly rounded. s[0] to s[7] must be
+ * readable. Returns false, leaving *out alone, for any other token:
+ * parse_number decides those. */
+static bool short_number(double *out, const char *s, size_t len)
+{
+    unsigned shift = 64u - 8u * (unsigned)len, n_frac;
+    uint64_t v = (load_word((const unsigned char *)s) ^ (BYTES_01 * '0')) << shift;
+    bool negative = s[0] == '-', has_sign = negative || s[0] == '+';
+    v &= ~((uint64_t)(has_sign ? 0xFFu : 0u) << shift);
+    int points = take_out_point(&v, &n_frac);
+    if (points < 0 || len == (size_t)has_sign + (size_t)points)
+        return false;   /* not a number, or no digit */
+    *out = (double)(int64_t)eight_digits_value(v) / signed_pow10[negative][n_frac];
+    return true;
+}
+#else
+/* Where double operations are evaluated wider, one division is not one
+ * rounding: parse_number decides every token. */
+static bool short_number(double *out, const char *s, size_t len)
+{
+    (void)out;
+    (void)s;
+    (void)len;
+    return false;
+}
+#endif
+
 bool sl_csv_parse_double(double *out, const char *token, size_t len)
 {
+    char word[WORD_BYTES] = { 0 };   /* short_number reads a whole word */
+    if (len - 1u < WORD_BYTES) {
+        memcpy(word, token, len);
+        if (short_number(out, word, len))
+            return true;
+    }
     return parse_number(out, token, len) == NUM_OK;
 }
 
-sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *diag)
+/* sl_csv_number for the tokens short_number leaves, and its errors; out of
+ * line, so that the short path needs no stack frame. */
+OUT_OF_LINE static sl_status general_number(double *out, const sl_csv *csv, size_t field,
+                                            sl_diag *diag)
 {
     size_t len;
     const char *s = sl_csv_field(csv, field, &len);
@@ -628,6 +841,17 @@ sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *d
         sl_diag_add(diag, SL_SEV_ERROR, csv->name, line, at,
                     "bad number \"%s\" in column %s", tok, col);
     return SL_EINPUT;
+}
+
+sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *diag)
+{
+    if (field < csv->n_fields) {
+        const field_span *f = &csv->fields[field];
+        /* a field lies in the buffer, so a word from its start is readable */
+        if (f->len - 1u < WORD_BYTES && short_number(out, csv->buf + f->off, f->len))
+            return SL_OK;
+    }
+    return general_number(out, csv, field, diag);
 }
 
 /* ---- text ---- */

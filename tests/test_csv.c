@@ -548,6 +548,245 @@ START_TEST(dash_reads_standard_input)
 }
 END_TEST
 
+/* ---- the fast paths against the general ones ---- */
+
+enum { MIX_RECORDS = 30000, MIX_FIELDS = 5, MIX_FIELD_MAX = 12 };
+
+typedef struct {
+    char field[MIX_FIELDS][MIX_FIELD_MAX + 1];
+    long line;
+} mix_record;
+
+/* A field of plain bytes: letters, digits, bytes the fast scan looks at
+ * twice (space, tab, '#', '!', '+', '&') and UTF-8 bytes, never a quote,
+ * comma or line end. */
+static void random_field(char *out, gsl_rng *rng)
+{
+    static const char plain[] = "aZ09 \t#!+&.-\xC3\xA9";
+    size_t len = gsl_rng_uniform_int(rng, MIX_FIELD_MAX + 1);
+    for (size_t i = 0; i < len; i++)
+        out[i] = plain[gsl_rng_uniform_int(rng, sizeof plain - 1)];
+    out[len] = '\0';
+}
+
+/* Write the records; quote_percent of the fields are quoted (so a record
+ * may switch from the fast scan to the general one midway). LF or CRLF
+ * ends, a blank line now and then, no line end after the last record.
+ * Fills in each record's physical line. */
+static char *write_mix(const char *name, mix_record *recs, int quote_percent, gsl_rng *rng)
+{
+    char *path = sl_test_path(scratch, name);
+    FILE *f = fopen(path, "wb");
+    ck_assert_ptr_nonnull(f);
+    fputs("c0,c1,c2,c3,c4\n", f);
+    long line = 2;
+    for (size_t r = 0; r < MIX_RECORDS; r++) {
+        if (gsl_rng_uniform_int(rng, 50) == 0) {
+            fputs("\n", f);
+            line++;
+        }
+        recs[r].line = line++;
+        for (size_t i = 0; i < MIX_FIELDS; i++) {
+            const char *quote = (int)gsl_rng_uniform_int(rng, 100) < quote_percent ? "\"" : "";
+            fprintf(f, "%s%s%s%s", i ? "," : "", quote, recs[r].field[i], quote);
+        }
+        if (r + 1 < MIX_RECORDS)
+            fputs(gsl_rng_uniform_int(rng, 2) ? "\r\n" : "\n", f);
+    }
+    ck_assert_int_eq(fclose(f), 0);
+    return path;
+}
+
+static void assert_mix_read_back(const char *path, const mix_record *recs)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_csv *csv;
+    ck_assert_int_eq(sl_csv_open(&csv, path, diag), SL_OK);
+    bool has;
+    size_t r = 0;
+    while (sl_csv_next(&has, csv, diag) == SL_OK && has) {
+        ck_assert_uint_lt(r, MIX_RECORDS);
+        ck_assert_int_eq(sl_csv_line(csv), recs[r].line);
+        for (size_t i = 0; i < MIX_FIELDS; i++) {
+            size_t len;
+            const char *s = sl_csv_field(csv, i, &len);
+            ck_assert_str_eq(s, recs[r].field[i]);
+            ck_assert_uint_eq(len, strlen(recs[r].field[i]));
+        }
+        r++;
+    }
+    ck_assert_uint_eq(r, MIX_RECORDS);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_csv_free(csv);
+    sl_diag_free(diag);
+}
+
+/* The same records plain (the fast scan), all quoted (the general scan)
+ * and partly quoted (the fast scan giving up midway and putting its NULs
+ * back): each must come back as written, over many buffer refills. */
+START_TEST(plain_and_quoted_records_agree)
+{
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 1180);
+    mix_record *recs = malloc(MIX_RECORDS * sizeof *recs);
+    ck_assert_ptr_nonnull(recs);
+    for (size_t r = 0; r < MIX_RECORDS; r++)
+        for (size_t i = 0; i < MIX_FIELDS; i++)
+            random_field(recs[r].field[i], rng);
+    static const int quote_percent[] = { 0, 100, 10 };
+    for (size_t k = 0; k < 3; k++) {
+        char name[32];
+        snprintf(name, sizeof name, "mix%zu.csv", k);
+        char *path = write_mix(name, recs, quote_percent[k], rng);
+        assert_mix_read_back(path, recs);
+        free(path);
+    }
+    free(recs);
+    gsl_rng_free(rng);
+}
+END_TEST
+
+/* A header of SL_CSV_MAX_FIELDS columns and a record as wide are read; one
+ * field more is refused on its line. */
+START_TEST(widest_record_accepted)
+{
+    size_t n = SL_CSV_MAX_FIELDS;
+    char *text = malloc(12 * n + 16);
+    size_t len = 0;
+    for (size_t i = 0; i < n; i++)
+        len += (size_t)sprintf(text + len, "c%zu%c", i, i + 1 < n ? ',' : '\n');
+    for (size_t width = n; width <= n + 1; width++)
+        for (size_t i = 0; i < width; i++)
+            len += (size_t)sprintf(text + len, "7%c", i + 1 < width ? ',' : '\n');
+    sl_diag *diag = sl_diag_new();
+    sl_csv *csv;
+    ck_assert_int_eq(open_text(&csv, text, len, diag), SL_OK);
+    bool has;
+    ck_assert_int_eq(sl_csv_next(&has, csv, diag), SL_OK);
+    ck_assert(has);
+    ck_assert_uint_eq(sl_csv_field_count(csv), n);
+    ck_assert_str_eq(sl_csv_field(csv, n - 1, NULL), "7");
+    ck_assert_int_eq(sl_csv_next(&has, csv, diag), SL_EINPUT);
+    assert_one_error(diag, 3, "too many fields in the record");
+    sl_csv_free(csv);
+    sl_diag_free(diag);
+    free(text);
+}
+END_TEST
+
+/* Tokens over an alphabet of digits, signs and points, every shape up to
+ * six bytes: the short-token path (a bare token) and the general path (the
+ * same token with blanks around, which the short path never takes) must
+ * accept the same tokens with the same doubles. */
+START_TEST(short_number_shapes_agree_with_general_path)
+{
+    static const char alphabet[] = "059+-.";
+    enum { ALPHABET = sizeof alphabet - 1 };
+    char token[8], padded[12];
+    for (size_t len = 1; len <= 6; len++) {
+        size_t count = 1;
+        for (size_t i = 0; i < len; i++)
+            count *= ALPHABET;
+        for (size_t code = 0; code < count; code++) {
+            for (size_t i = 0, c = code; i < len; i++, c /= ALPHABET)
+                token[i] = alphabet[c % ALPHABET];
+            token[len] = '\0';
+            snprintf(padded, sizeof padded, " %s\t", token);
+            double a = 42.0, b = 42.0;
+            bool short_ok = sl_csv_parse_double(&a, token, len);
+            bool general_ok = sl_csv_parse_double(&b, padded, len + 2);
+            ck_assert_msg(short_ok == general_ok, "\"%s\": %d vs %d", token, short_ok, general_ok);
+            ck_assert_msg(memcmp(&a, &b, sizeof a) == 0, "\"%s\": %a vs %a", token, a, b);
+        }
+    }
+}
+END_TEST
+
+/* A random token of up to max_digits digits, a sign now and then and a
+ * point anywhere or nowhere. */
+static size_t random_decimal(char *out, size_t max_digits, gsl_rng *rng)
+{
+    size_t n = 0, digits = 1 + gsl_rng_uniform_int(rng, max_digits);
+    unsigned long sign = gsl_rng_uniform_int(rng, 4);
+    if (sign < 2)
+        out[n++] = sign ? '-' : '+';
+    size_t point = gsl_rng_uniform_int(rng, digits + 2);   /* past the end: none */
+    for (size_t i = 0; i < digits; i++) {
+        if (i == point)
+            out[n++] = '.';
+        out[n++] = (char)('0' + gsl_rng_uniform_int(rng, 10));
+    }
+    if (point == digits)
+        out[n++] = '.';
+    out[n] = '\0';
+    return n;
+}
+
+/* strtod is the reference: ISO C 7.22.1.3 recommends correct rounding and
+ * glibc's strtod does round correctly (from memory). Short tokens, with
+ * every digit count, sign and point position, bit for bit. */
+START_TEST(short_numbers_round_like_strtod)
+{
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 2053);
+    char token[16];
+    for (int i = 0; i < 300000; i++) {
+        size_t len = random_decimal(token, 8, rng);
+        double got = 42.0, want = strtod(token, NULL);
+        ck_assert_msg(sl_csv_parse_double(&got, token, len), "rejected %s", token);
+        ck_assert_msg(memcmp(&got, &want, sizeof got) == 0, "%s: %a vs %a", token, got, want);
+    }
+    gsl_rng_free(rng);
+}
+END_TEST
+
+/* Numbers read from a file with sl_csv_number: short tokens (the fast path
+ * reads a word from the reader's buffer), longer ones and exponents, the
+ * last without a line end, so its word reaches past the data. strtod is
+ * the reference, as above. */
+START_TEST(numbers_from_file_round_like_strtod)
+{
+    enum { N_VALUES = 50000, TOKEN_MAX = 24 };
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 7);
+    char (*tokens)[TOKEN_MAX] = malloc(N_VALUES * sizeof *tokens);
+    ck_assert_ptr_nonnull(tokens);
+    char *path = sl_test_path(scratch, "values.csv");
+    FILE *f = fopen(path, "wb");
+    ck_assert_ptr_nonnull(f);
+    fputs("n,v\n", f);
+    for (int i = 0; i < N_VALUES; i++) {
+        unsigned long pick = gsl_rng_uniform_int(rng, 4);
+        double scale = pow(10.0, (double)gsl_rng_uniform_int(rng, 12) - 4.0);
+        double x = (gsl_rng_uniform(rng) - 0.5) * scale;
+        if (pick < 2)
+            random_decimal(tokens[i], pick ? 8 : 12, rng);
+        else
+            snprintf(tokens[i], TOKEN_MAX, pick == 2 ? "%.6g" : "%.3e", x);
+        fprintf(f, "%d,%s%s", i, tokens[i], i + 1 < N_VALUES ? "\n" : "");
+    }
+    ck_assert_int_eq(fclose(f), 0);
+    sl_diag *diag = sl_diag_new();
+    sl_csv *csv;
+    ck_assert_int_eq(sl_csv_open(&csv, path, diag), SL_OK);
+    bool has;
+    int i = 0;
+    while (sl_csv_next(&has, csv, diag) == SL_OK && has) {
+        double got, want = strtod(tokens[i], NULL);
+        ck_assert_int_eq(sl_csv_number(&got, csv, 1, diag), SL_OK);
+        ck_assert_msg(memcmp(&got, &want, sizeof got) == 0, "%s: %a vs %a", tokens[i], got, want);
+        i++;
+    }
+    ck_assert_int_eq(i, N_VALUES);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_csv_free(csv);
+    sl_diag_free(diag);
+    free(path);
+    free(tokens);
+    gsl_rng_free(rng);
+}
+END_TEST
+
 static Suite *csv_suite(void)
 {
     Suite *s = suite_create("csv");
@@ -573,6 +812,11 @@ static Suite *csv_suite(void)
     tcase_add_test(tc, records_across_buffer_refills);
     tcase_add_test(tc, open_stream_keeps_stream_open);
     tcase_add_test(tc, dash_reads_standard_input);
+    tcase_add_test(tc, plain_and_quoted_records_agree);
+    tcase_add_test(tc, widest_record_accepted);
+    tcase_add_test(tc, short_number_shapes_agree_with_general_path);
+    tcase_add_test(tc, short_numbers_round_like_strtod);
+    tcase_add_test(tc, numbers_from_file_round_like_strtod);
     suite_add_tcase(s, tc);
     return s;
 }
