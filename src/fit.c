@@ -350,13 +350,19 @@ static inline void projection_pass(sl_fit_workspace *ws, const shape_at *at, boo
 {
     double sac = 0.0, scc = 0.0, sc1 = 0.0;
     gradient_sums sums = { { 0 }, { 0 } };
+    const double v0 = at->v0, d2 = at->d2;
+    const double *restrict vg = ws->vg;
+    double *restrict gv = ws->g;
+    for (size_t i = 0; i < ws->n; i++) { /* no sums: a loop the compiler vectorises */
+        double x = vg[i] - v0;
+        gv[i] = 1.0 / sqrt(d2 + x * x);
+    }
     for (size_t i = 0; i < ws->n; i++) {
-        double x = ws->vg[i] - at->v0, g = 1.0 / sqrt(at->d2 + x * x), u = ws->u[i];
+        double x = ws->vg[i] - at->v0, g = ws->g[i], u = ws->u[i];
         shape_grad sg = { shape_from_g(at, x, g, two_mobility), { 0 } };
         if (with_gradient)
             sg = shape_gradient_at(at, x, g, two_mobility);
         double c = sg.s * u;
-        ws->g[i] = g;
         ws->s[i] = sg.s;
         sac += u * c;
         scc += c * c;
