@@ -8,6 +8,7 @@
 #include "output.h"
 
 #include <math.h>
+#include <stdbool.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -341,18 +342,27 @@ static void format_plain(char *buf, size_t n, const cell *c, const column *col, 
 
 /* ---- JSON ---- */
 
+static bool json_plain(unsigned char c) { return c >= 0x20 && c != '"' && c != '\\'; }
+
 static void json_string(FILE *out, const char *s)
 {
     fputc('"', out);
-    for (const unsigned char *p = (const unsigned char *)(s ? s : ""); *p; p++) {
+    const unsigned char *p = (const unsigned char *)(s ? s : "");
+    while (*p) {
+        size_t run = 0; /* characters that go out as they are, in one write */
+        while (p[run] && json_plain(p[run]))
+            run++;
+        fwrite(p, 1, run, out);
+        p += run;
+        if (!*p)
+            break;
         if (*p == '"' || *p == '\\')
             fprintf(out, "\\%c", *p);
         else if (*p == '\n')
             fputs("\\n", out);
-        else if (*p < 0x20)
-            fprintf(out, "\\u%04x", *p);
         else
-            fputc(*p, out);
+            fprintf(out, "\\u%04x", *p);
+        p++;
     }
     fputc('"', out);
 }
