@@ -34,9 +34,9 @@ struct ingest_batch {
     int queue[SL_INGEST_BUFFERS], queue_head, queue_len;
     pthread_mutex_t lock;
     pthread_cond_t changed;
-    /* the store is written by the writer and staged into by this thread */
-    pthread_mutex_t store_lock;
-    int write_failed;        /* guarded by store_lock: later buffers are skipped */
+    /* while rows are read, only the writer touches the store; this thread
+     * does again once drain_all has seen every buffer written */
+    int write_failed;        /* the writer's: later buffers are skipped */
     int reported;            /* a writer failure is already in the diagnostics */
     long first_device_id;    /* this import's devices have ids from here */
     /* the run being read (in buf[filling]) and its device */
@@ -103,7 +103,6 @@ void ingest_batch_free(ingest_batch *b)
         fit_batch_free(&b->buf[i]);
     pthread_cond_destroy(&b->changed);
     pthread_mutex_destroy(&b->lock);
-    pthread_mutex_destroy(&b->store_lock);
     free(b);
 }
 
@@ -114,7 +113,6 @@ static ingest_batch *batch_new(ingest_ctx *c, int threads)
         return NULL;
     pthread_mutex_init(&b->lock, NULL);
     pthread_cond_init(&b->changed, NULL);
-    pthread_mutex_init(&b->store_lock, NULL);
     int ok = 1;
     for (int i = 0; i < SL_INGEST_BUFFERS; i++)
         ok = ok && (b->buf[i].diag = sl_diag_new()) != NULL;
@@ -227,13 +225,11 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
 static void write_batch(fit_batch *b, void *ctx)
 {
     ingest_ctx *c = ctx;
-    pthread_mutex_lock(&c->batch->store_lock);
     /* after a failure the import is lost anyway: write nothing more */
     b->write_status = c->batch->write_failed ? SL_EDB : SL_OK;
     for (size_t i = 0; b->write_status == SL_OK && i < b->n_items; i++)
         b->write_status = write_item(c, b, &b->items[i]);
     c->batch->write_failed |= b->write_status != SL_OK;
-    pthread_mutex_unlock(&c->batch->store_lock);
 }
 
 static void take_messages(sl_diag *to, sl_diag *from)
