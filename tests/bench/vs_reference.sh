@@ -3,13 +3,15 @@
 # Benchmark (not a test): splitlot's import-fit-store plus compare against the
 # pandas + SciPy script an engineer would write (reference/fit_reference.py),
 # on simulated lots of 1,000, 12,500 and 50,000 devices x 201 points. Wall time
-# and peak memory are measured here with GNU time, each the median of 3 runs.
-# Usage: tests/bench/vs_reference.sh [BUILD_DIR] [SIZES...]   (from the repo root)
+# and peak memory are measured here with GNU time, each the median of RUNS runs
+# (default 5: on a shared 2-core machine single runs of either side move by 20 %).
+# Usage: [RUNS=N] tests/bench/vs_reference.sh [BUILD_DIR] [SIZES...]   (from the repo root)
 set -eu
 here=$(cd "$(dirname "$0")" && pwd)
 build=${1:-build-release}
 [ $# -gt 0 ] && shift
 sizes=${*:-1000 12500 50000}
+runs=${RUNS:-5}
 bin=$(cd "$build" && pwd)/splitlot
 plan=$here/plan-vs-reference.yaml
 py=/usr/bin/python3
@@ -22,7 +24,14 @@ lw=2               # 20 um / 10 um
 
 # "seconds kilobytes" of one command
 measure() { /usr/bin/time -f "%e %M" -o "$work/time" "$@" >/dev/null 2>&1; cat "$work/time"; }
-median3() { printf '%s\n%s\n%s\n' "$1" "$2" "$3" | sort -g | sed -n 2p; }
+# median of the numbers on stdin, one a line
+median() { sort -g | awk '{ v[NR] = $1 } END { print v[int((NR + 1) / 2)] }'; }
+# run a "seconds kilobytes" measurement $runs times: "median_seconds median_kilobytes"
+medians() {
+    i=0; : >"$work/runs"
+    while [ "$i" -lt "$runs" ]; do "$@" >>"$work/runs"; i=$((i + 1)); done
+    echo "$(cut -d' ' -f1 "$work/runs" | median) $(cut -d' ' -f2 "$work/runs" | median)"
+}
 
 run_splitlot() { # dir -> "seconds kilobytes"
     cp "$1/template.db" "$1/s.db"; rm -f "$1/s.db-wal" "$1/s.db-shm"
@@ -51,10 +60,8 @@ for n in $sizes; do
     "$bin" simulate "$plan" --out "$dir" --devices-per-wafer $((n / 50)) >/dev/null
     rows=$(($(wc -l < "$dir/sweeps.csv") - 1))
     "$bin" predict "$plan" --db "$dir/template.db" >/dev/null 2>&1
-    s1=$(run_splitlot "$dir"); s2=$(run_splitlot "$dir"); s3=$(run_splitlot "$dir")
-    r1=$(run_reference "$dir"); r2=$(run_reference "$dir"); r3=$(run_reference "$dir")
-    st=$(median3 "${s1% *}" "${s2% *}" "${s3% *}"); sm=$(median3 "${s1#* }" "${s2#* }" "${s3#* }")
-    rt=$(median3 "${r1% *}" "${r2% *}" "${r3% *}"); rm_=$(median3 "${r1#* }" "${r2#* }" "${r3#* }")
+    s=$(medians run_splitlot "$dir"); r=$(medians run_reference "$dir")
+    st=${s% *}; sm=${s#* }; rt=${r% *}; rm_=${r#* }
     agree=$(agreement "$dir")
     awk -v n=$n -v rows=$rows -v st=$st -v sm=$sm -v rt=$rt -v rm=$rm_ -v ag="$agree" 'BEGIN {
         split(ag, a, " ");
