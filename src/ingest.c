@@ -201,22 +201,30 @@ sl_status ingest_read_row(ingest_ctx *c, ingest_row *row)
 
 /* ---- device results ---- */
 
+/* A row whose device is stored already: earlier in this file (the store
+ * knows the line) or by an earlier import. */
+static sl_status duplicate_row(ingest_ctx *c, const ingest_row *row, long wafer_id)
+{
+    sl_store_import_device first;
+    sl_status st = sl_store_find_import_device(c->store, &first, c->lot.lot_id, wafer_id,
+                                               row->device, c->first_device_id, c->diag);
+    if (st == SL_OK)
+        ingest_error_at_row(c, c->col.device, "duplicate device '%s' on wafer '%s' (first on line %ld)",
+                            row->device, row->wafer, first.source_line);
+    else if (st == SL_ENOTFOUND)
+        ingest_error_at_row(c, c->col.device,
+                            "device '%s' on wafer '%s' is already stored for lot '%s' "
+                            "(use --replace to import the lot's measurements again)",
+                            row->device, row->wafer, c->lot.lot);
+    return st == SL_OK || st == SL_ENOTFOUND ? SL_EINPUT : st;
+}
+
 static sl_status results_row(ingest_ctx *c)
 {
     ingest_row row;
     sl_status st = ingest_read_row(c, &row);
     if (st != SL_OK)
         return st;
-    size_t seen = ingest_table_find(&c->devices, row.wafer, row.device);
-    if (seen != (size_t)-1) {
-        ingest_error_at_row(c, c->col.device, "duplicate device '%s' on wafer '%s' (first on line %ld)",
-                            row.device, row.wafer, c->devices.items[seen].first_line);
-        return SL_EINPUT;
-    }
-    size_t k = ingest_table_add(&c->devices, row.wafer, row.device);
-    if (k == (size_t)-1)
-        return SL_ENOMEM;
-    c->devices.items[k].first_line = sl_csv_line(c->csv);
     sl_store_device dev;
     sl_store_device_init(&dev);
     dev.wafer_id = c->wafers[row.wafer_index].wafer_id;
@@ -237,10 +245,7 @@ static sl_status results_row(ingest_ctx *c)
     st = sl_store_insert_device(c->store, NULL, c->lot.lot_id, &dev, c->diag);
     if (st == SL_EINPUT) { /* the store's own duplicate check: one located message */
         sl_diag_clear(c->diag);
-        ingest_error_at_row(c, c->col.device,
-                            "device '%s' on wafer '%s' is already stored for lot '%s' "
-                            "(use --replace to import the lot's measurements again)",
-                            row.device, row.wafer, c->lot.lot);
+        st = duplicate_row(c, &row, dev.wafer_id);
     }
     c->summary->devices += st == SL_OK;
     return st;
@@ -278,6 +283,8 @@ static sl_status import_body(ingest_ctx *c)
     if (st == SL_OK)
         st = sl_store_begin_lot_inserts(c->store, c->lot.lot_id, c->diag);
     if (st == SL_OK)
+        st = sl_store_next_device_id(c->store, &c->first_device_id, c->diag);
+    if (st == SL_OK)
         st = c->opt->kind == SL_INGEST_SWEEPS ? ingest_sweeps(c) : ingest_results(c);
     if (st == SL_OK && c->summary->rows == 0) {
         sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_csv_line(c->csv), 0,
@@ -295,7 +302,6 @@ static void ctx_free(ingest_ctx *c)
 {
     sl_csv_free(c->csv);
     ingest_batch_free(c->batch);
-    ingest_table_free(&c->devices);
     free(c->wafers);
     sl_layout_free(c->layout);
     sl_plan_free(c->plan);

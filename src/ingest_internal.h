@@ -8,7 +8,6 @@
 
 #include <stdbool.h>
 
-#include "ingest_table.h"
 #include "splitlot/csv.h"
 #include "splitlot/fit.h"
 #include "splitlot/ingest.h"
@@ -53,7 +52,7 @@ typedef struct {
     sl_csv *csv;
     const char *file;        /* name for messages */
     ingest_columns col;
-    ingest_table devices;
+    long first_device_id;    /* this import's devices are stored from this id on */
     sl_ingest_summary *summary;
     double started_s;
     ingest_batch *batch;

@@ -38,7 +38,6 @@ struct ingest_batch {
      * does again once drain_all has seen every buffer written */
     int write_failed;        /* the writer's: later buffers are skipped */
     int reported;            /* a writer failure is already in the diagnostics */
-    long first_device_id;    /* this import's devices have ids from here */
     /* the run being read (in buf[filling]) and its device */
     int in_run;
     size_t run_offset, run_wafer_index;
@@ -174,7 +173,7 @@ static sl_status met_again(ingest_ctx *c, fit_batch *b, fit_item *it)
 {
     sl_store_import_device first;
     sl_status st = sl_store_find_import_device(c->store, &first, c->lot.lot_id, it->wafer_id,
-                                               it->name, c->batch->first_device_id, b->diag);
+                                               it->name, c->first_device_id, b->diag);
     if (st == SL_ENOTFOUND) {
         sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, 0,
                     "device '%s' on wafer '%s' is already stored for lot '%s' "
@@ -546,7 +545,7 @@ static sl_status resolve_pending(ingest_ctx *c)
     sl_store_import_device *open = NULL;
     size_t n_open = 0;
     sl_status st = sl_store_open_devices(c->store, &open, &n_open, c->lot.lot_id,
-                                         c->batch->first_device_id, c->diag);
+                                         c->first_device_id, c->diag);
     for (size_t k = 0; st == SL_OK && k < n_open; k++)
         st = refit_device(c, &open[k]);
     free(open);
@@ -561,7 +560,7 @@ static sl_status count_stored(ingest_ctx *c)
     for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)
         names[k] = sl_fit_class_name((sl_fit_class)k);
     sl_status st = sl_store_count_classes(c->store, counts, names, SL_FIT_CLASS_COUNT, &total,
-                                          c->lot.lot_id, c->batch->first_device_id, c->diag);
+                                          c->lot.lot_id, c->first_device_id, c->diag);
     if (st != SL_OK)
         return st;
     for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)
@@ -572,13 +571,8 @@ static sl_status count_stored(ingest_ctx *c)
 
 sl_status ingest_sweeps(ingest_ctx *c)
 {
-    long first_device_id = 0;
-    sl_status first = sl_store_next_device_id(c->store, &first_device_id, c->diag);
-    if (first != SL_OK)
-        return first;
     if (!batch_new(c, c->opt->threads))
         return SL_ENOMEM;
-    c->batch->first_device_id = first_device_id;
     bool has = false;
     sl_status st;
     while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
