@@ -21,15 +21,38 @@ double ingest_now_s(void)
     return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
-void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
+static void error_at_v(const ingest_ctx *c, sl_diag *diag, long line, long column,
+                       const char *fmt, va_list ap)
 {
     char text[1024];
+    vsnprintf(text, sizeof text, fmt, ap);
+    sl_diag_add(diag, SL_SEV_ERROR, c->file, line, column >= 0 ? column + 1 : 0, "%s", text);
+}
+
+void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
+                     const char *fmt, ...)
+{
     va_list ap;
     va_start(ap, fmt);
-    vsnprintf(text, sizeof text, fmt, ap);
+    error_at_v(c, diag, line, column, fmt, ap);
     va_end(ap);
-    sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_csv_line(c->csv), column >= 0 ? column + 1 : 0,
-                "%s", text);
+}
+
+void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
+{
+    va_list ap;
+    va_start(ap, fmt);
+    error_at_v(c, c->diag, sl_csv_line(c->csv), column, fmt, ap);
+    va_end(ap);
+}
+
+void ingest_already_stored(const ingest_ctx *c, sl_diag *diag, long line, long column,
+                           const char *device, const char *wafer)
+{
+    ingest_error_at(c, diag, line, column,
+                    "device '%s' on wafer '%s' is already stored for lot '%s' "
+                    "(use --replace to import the lot's measurements again)",
+                    device, wafer, c->lot.lot);
 }
 
 void ingest_progress(ingest_ctx *c)
@@ -212,10 +235,8 @@ static sl_status duplicate_row(ingest_ctx *c, const ingest_row *row, long wafer_
         ingest_error_at_row(c, c->col.device, "duplicate device '%s' on wafer '%s' (first on line %ld)",
                             row->device, row->wafer, first.source_line);
     else if (st == SL_ENOTFOUND)
-        ingest_error_at_row(c, c->col.device,
-                            "device '%s' on wafer '%s' is already stored for lot '%s' "
-                            "(use --replace to import the lot's measurements again)",
-                            row->device, row->wafer, c->lot.lot);
+        ingest_already_stored(c, c->diag, sl_csv_line(c->csv), c->col.device, row->device,
+                              row->wafer);
     return st == SL_OK || st == SL_ENOTFOUND ? SL_EINPUT : st;
 }
 

@@ -65,12 +65,23 @@ sl_status ingest_optional_number(ingest_ctx *c, double *out, long column);
 /* Report progress every so many rows. */
 void ingest_progress(ingest_ctx *c);
 double ingest_now_s(void);
-/* A located error at the current row. */
+/* A located error at the current row; column is the file's (0-based, -1
+ * for none). */
 void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
 #if defined(__GNUC__)
     __attribute__((format(printf, 3, 4)))
 #endif
     ;
+/* The same at any line, into any diagnostics (the writer thread has its own). */
+void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
+                     const char *fmt, ...)
+#if defined(__GNUC__)
+    __attribute__((format(printf, 5, 6)))
+#endif
+    ;
+/* The device is stored for the lot by an earlier import. */
+void ingest_already_stored(const ingest_ctx *c, sl_diag *diag, long line, long column,
+                           const char *device, const char *wafer);
 
 sl_status ingest_sweeps(ingest_ctx *c);
 void ingest_batch_free(ingest_batch *b);

@@ -13,7 +13,7 @@
 typedef struct {
     size_t offset, n;        /* points in the batch arrays */
     const sl_fit_config *cfg;
-    /* what the writer needs, copied so it never reads the device table */
+    /* the device's identity, copied so the writer reads only the item */
     char wafer[65], name[65];
     long wafer_id, die_x, die_y, first_line;
     double temperature_K;

@@ -163,8 +163,16 @@ static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_st
     }
 }
 
-/* Column of a row-level message as ingest_error_at_row numbers it. */
-static long message_column(long column) { return column >= 0 ? column + 1 : 0; }
+/* The one message for a device met at another die than before. */
+static sl_status die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
+                           const char *wafer, const long here[2], const long before[2],
+                           long before_line)
+{
+    ingest_error_at(c, diag, line, c->col.die_x,
+                    "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
+                    device, wafer, here[0], here[1], before[0], before[1], before_line);
+    return SL_EINPUT;
+}
 
 /* A device already stored: by this import, its rows came back later in the
  * file (staged under its id, fitted again at the end, after its die is
@@ -175,20 +183,15 @@ static sl_status met_again(ingest_ctx *c, fit_batch *b, fit_item *it)
     sl_status st = sl_store_find_import_device(c->store, &first, c->lot.lot_id, it->wafer_id,
                                                it->name, c->first_device_id, b->diag);
     if (st == SL_ENOTFOUND) {
-        sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, 0,
-                    "device '%s' on wafer '%s' is already stored for lot '%s' "
-                    "(use --replace to import the lot's measurements again)",
-                    it->name, it->wafer, c->lot.lot);
+        ingest_already_stored(c, b->diag, it->first_line, -1, it->name, it->wafer);
         return SL_EINPUT;
     }
     if (st != SL_OK)
         return st;
     if (first.die_x != it->die_x || first.die_y != it->die_y) {
-        sl_diag_add(b->diag, SL_SEV_ERROR, c->file, it->first_line, message_column(c->col.die_x),
-                    "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
-                    it->name, it->wafer, it->die_x, it->die_y, first.die_x, first.die_y,
-                    first.source_line);
-        return SL_EINPUT;
+        const long here[2] = { it->die_x, it->die_y }, before[2] = { first.die_x, first.die_y };
+        return die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, before,
+                         first.source_line);
     }
     it->device_id = first.id;
     return sl_store_stage_points(c->store, first.id, b->vg + it->offset, b->r + it->offset, it->n,
@@ -347,11 +350,9 @@ static sl_status check_same_die(ingest_ctx *c, const ingest_row *row)
     const ingest_batch *b = c->batch;
     if (b->run_x == row->die_x && b->run_y == row->die_y)
         return SL_OK;
-    ingest_error_at_row(c, c->col.die_x,
-                        "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
-                        row->device, row->wafer, row->die_x, row->die_y, b->run_x, b->run_y,
-                        b->run_first_line);
-    return SL_EINPUT;
+    const long here[2] = { row->die_x, row->die_y }, before[2] = { b->run_x, b->run_y };
+    return die_moved(c, c->diag, sl_csv_line(c->csv), row->device, row->wafer, here, before,
+                     b->run_first_line);
 }
 
 /* Keep a field of the run's first row for the fast comparison; a text too
