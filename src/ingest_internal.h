@@ -8,16 +8,18 @@
 
 #include <stdbool.h>
 
-#include "splitlot/csv.h"
 #include "splitlot/fit.h"
 #include "splitlot/ingest.h"
 #include "splitlot/layout.h"
 #include "splitlot/plan.h"
+#include "splitlot/rowsrc.h"
 #include "splitlot/store.h"
 
 #define SL_INGEST_MAX_NAME_BYTES 64
 #define SL_INGEST_MAX_POINTS 100000
 #define SL_INGEST_BATCH_DEVICES 256
+/* Problems reported one by one per file; the rest are counted. */
+#define SL_INGEST_MAX_ERRORS 20
 
 /* What the plan and the store say about one wafer of the lot. */
 typedef struct {
@@ -26,17 +28,19 @@ typedef struct {
     sl_fit_config fit;       /* gate capacitance of the wafer's dielectric */
 } ingest_wafer;
 
-/* Columns of the file, -1 when absent. */
+/* Columns of the file (0-based, for messages), -1 when absent. */
 typedef struct {
-    long wafer, device, die_x, die_y, vg, r, vcnp, mobility, n0, r_contact, temperature;
+    long wafer, device, die_x, die_y, vg, r, id, vd, vcnp, temperature, device_type, length;
 } ingest_columns;
 
 /* One row's device identity, checked. */
 typedef struct {
     const char *wafer, *device;
     size_t wafer_index;
-    long die_x, die_y;
+    long die_x, die_y;           /* as the prober wrote them */
     double temperature_K;
+    long device_type;            /* plan device type, -1 for none */
+    double channel_length_um, channel_width_um; /* the device's own channel */
 } ingest_row;
 
 typedef struct ingest_batch ingest_batch;
@@ -49,8 +53,13 @@ typedef struct {
     sl_plan *plan;
     sl_layout *layout;
     ingest_wafer *wafers;    /* per plan wafer */
-    sl_csv *csv;
+    sl_rowsrc *src;
     const char *file;        /* name for messages */
+    sl_diag *user_diag;      /* the caller's: at most SL_INGEST_MAX_ERRORS errors */
+    long n_errors;           /* problems found in the file */
+    FILE *rejects;           /* --keep-going --rejects: rows of rejected devices */
+    char *reject_buf;        /* rows of the device being read (with rejects) */
+    size_t reject_len, reject_cap;
     ingest_columns col;
     long first_device_id;    /* this import's devices are stored from this id on */
     sl_ingest_summary *summary;
@@ -60,8 +69,21 @@ typedef struct {
 
 /* Parse and check the identity columns of the current row. */
 sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);
-/* An optional numeric column: NaN when absent or empty. */
-sl_status ingest_optional_number(ingest_ctx *c, double *out, long column);
+/* An optional quantity in SI: NaN when absent or empty. */
+sl_status ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q);
+/* The fit configuration of a device: its wafer's gate with its own channel. */
+void ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row);
+/* Move the messages found so far to the caller's diagnostics, the first
+ * SL_INGEST_MAX_ERRORS errors of the file in full, later ones counted. */
+void ingest_flush_errors(ingest_ctx *c);
+/* With --rejects: keep the current row's text for the device being read;
+ * write the kept rows with reason (the first message of the device's
+ * problems) and forget them. */
+sl_status ingest_keep_row(ingest_ctx *c);
+sl_status ingest_reject_kept(ingest_ctx *c, const char *reason);
+void ingest_forget_kept(ingest_ctx *c);
+/* The first error message found for the current row, as a reason. */
+const char *ingest_current_reason(const ingest_ctx *c);
 /* Report progress every so many rows. */
 void ingest_progress(ingest_ctx *c);
 double ingest_now_s(void);

@@ -5,6 +5,7 @@
  */
 #include "ingest_pool.h"
 
+#include <math.h>
 #include <pthread.h>
 #include <stdatomic.h>
 #include <stdlib.h>
@@ -18,6 +19,7 @@ void fit_batch_free(fit_batch *b)
     free(b->items);
     free(b->vg);
     free(b->r);
+    free(b->dir);
     memset(b, 0, sizeof *b);
 }
 
@@ -38,9 +40,12 @@ int fit_batch_reserve_points(fit_batch *b, size_t need)
     if (vg)
         b->vg = vg;
     double *r = vg ? realloc(b->r, cap * sizeof *r) : NULL;
-    if (!vg || !r)
+    if (r)
+        b->r = r;
+    signed char *dir = r ? realloc(b->dir, cap * sizeof *dir) : NULL;
+    if (!vg || !r || !dir)
         return -1;
-    b->r = r;
+    b->dir = dir;
     b->cap_points = cap;
     return 0;
 }
@@ -81,13 +86,38 @@ struct fit_pool {
 
 static void fit_pool_wait(fit_pool *p);
 
+/* A device whose readings were mostly the meter's overflow code: open. */
+static void open_result(sl_fit_result *r, size_t n_points)
+{
+    const double nan = NAN;
+    const sl_fit_params none = { nan, nan, nan, nan };
+    const sl_est no_est = { nan, nan };
+    *r = (sl_fit_result){ .cls = SL_FIT_OPEN, .p = none, .sigma = none,
+                          .electron_mobility_cm2_per_Vs = no_est,
+                          .hole_mobility_cm2_per_Vs = no_est,
+                          .electron_hole_mobility_ratio = no_est, .rel_rms = nan,
+                          .r_squared = nan, .n_points = n_points };
+}
+
 static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
 {
+    it->hysteresis_V = NAN;
+    it->is_double = 0;
+    if (it->open_by_overflow) {
+        open_result(&it->result, it->n);
+        it->status = SL_OK;
+        return;
+    }
     if (it->n < SL_FIT_MIN_POINTS) {
         it->status = SL_EINPUT; /* rows may still come further down the file */
         return;
     }
-    it->status = sl_fit_sweep(&it->result, ws, it->cfg, b->vg + it->offset, b->r + it->offset, it->n);
+    sl_fit_double_result d;
+    it->status = sl_fit_double_sweep(&d, ws, &it->cfg, b->vg + it->offset, b->r + it->offset,
+                                     it->has_direction ? b->dir + it->offset : NULL, it->n);
+    it->result = d.device;
+    it->is_double = d.is_double;
+    it->hysteresis_V = d.hysteresis_V;
 }
 
 static void work_on(fit_pool *p, fit_batch *b, sl_fit_workspace *ws)

@@ -12,12 +12,17 @@
 
 typedef struct {
     size_t offset, n;        /* points in the batch arrays */
-    const sl_fit_config *cfg;
+    sl_fit_config cfg;       /* the wafer's gate, the device's own channel */
+    int has_direction;       /* dir[] of the points says forward or reverse */
+    int open_by_overflow;    /* too few readings left after overflows: open */
+    long overflow, compliance; /* points dropped */
     /* the device's identity, copied so the writer reads only the item */
     char wafer[65], name[65];
     long wafer_id, die_x, die_y, first_line;
     double temperature_K;
     sl_fit_result result;
+    int is_double;           /* fitted as a double sweep, branch by branch */
+    double hysteresis_V;     /* V_cnp(reverse) - V_cnp(forward), NaN if none */
     sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
     long device_id;          /* set by the writer (that of the first run when
                                 the device's rows come back later) */
@@ -27,6 +32,7 @@ typedef struct {
     fit_item *items;
     size_t n_items, cap_items;
     double *vg, *r;
+    signed char *dir;        /* +1 forward, -1 reverse, 0 not said */
     size_t n_points, cap_points;
     sl_status write_status;  /* the writer's outcome for the whole batch */
     sl_diag *diag;           /* the writer's messages, read after the wait */

@@ -38,8 +38,15 @@ struct ingest_batch {
      * does again once drain_all has seen every buffer written */
     int write_failed;        /* the writer's: later buffers are skipped */
     int reported;            /* a writer failure is already in the diagnostics */
+    /* what the file gives for a point */
+    int by_current, has_direction, has_compliance;
     /* the run being read (in buf[filling]) and its device */
     int in_run;
+    int run_bad;             /* a problem in its rows: the device is rejected */
+    int run_identity_bad;    /* the problem is its identity: rows not read */
+    char run_reason[512];
+    long run_overflow, run_compliance;
+    sl_fit_config run_cfg;
     size_t run_offset, run_wafer_index;
     long run_first_line, run_x, run_y;
     double run_temperature_K;
@@ -214,7 +221,7 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     dev.r_ohm = b->r + it->offset;
     dev.n_points = it->n;
     dev.source_line = it->first_line;
-    result_to_device(&dev, &it->result, it->status, it->cfg);
+    result_to_device(&dev, &it->result, it->status, &it->cfg);
     sl_status st = sl_store_insert_device(c->store, &it->device_id, c->lot.lot_id, &dev, b->diag);
     if (st == SL_EINPUT) {
         sl_diag_clear(b->diag);
@@ -258,6 +265,17 @@ static void set_state(ingest_batch *b, int i, buffer_state st)
     pthread_mutex_unlock(&b->lock);
 }
 
+/* What the summary says of a device besides its class. */
+static void count_item(ingest_ctx *c, const fit_item *it)
+{
+    sl_ingest_summary *s = c->summary;
+    s->points_overflow += it->overflow;
+    s->devices_with_overflow += it->overflow > 0;
+    s->points_compliance += it->compliance;
+    s->double_sweeps += it->is_double;
+    s->hysteresis_flagged += fabs(it->hysteresis_V) > c->plan->max_hysteresis_V;
+}
+
 /* Wait until the oldest submitted buffer is written, then count its devices
  * for the progress report and free the buffer. */
 static sl_status drain_oldest(ingest_ctx *c)
@@ -276,6 +294,8 @@ static sl_status drain_oldest(ingest_ctx *c)
     sl_diag_clear(done->diag);
     if (st == SL_OK)
         c->summary->devices += (long)done->n_items; /* exact once the import ends */
+    for (size_t k = 0; st == SL_OK && k < done->n_items; k++)
+        count_item(c, &done->items[k]);
     fit_batch_clear(done);
     set_state(b, i, BUF_FREE);
     b->oldest = (i + 1) % SL_INGEST_BUFFERS;
@@ -333,10 +353,23 @@ static sl_status end_run(ingest_ctx *c)
         return SL_OK;
     b->in_run = 0;
     fit_batch *f = &b->buf[b->filling];
+    if (b->run_bad) {
+        b->run_bad = b->run_identity_bad = 0;
+        f->n_points = b->run_offset; /* none of its points is kept */
+        return ingest_reject_kept(c, b->run_reason);
+    }
+    ingest_forget_kept(c);
     const ingest_wafer *w = &c->wafers[b->run_wafer_index];
-    fit_item item = { .offset = b->run_offset, .n = f->n_points - b->run_offset, .cfg = &w->fit,
+    size_t n = f->n_points - b->run_offset;
+    fit_item item = { .offset = b->run_offset, .n = n, .cfg = b->run_cfg,
+                      .has_direction = b->has_direction,
+                      .overflow = b->run_overflow, .compliance = b->run_compliance,
                       .wafer_id = w->wafer_id, .die_x = b->run_x, .die_y = b->run_y,
                       .first_line = b->run_first_line, .temperature_K = b->run_temperature_K };
+    /* an open device reads the overflow code most of the time: it is open,
+     * not a sweep too short to fit */
+    item.open_by_overflow = n < SL_FIT_MIN_POINTS && b->run_overflow > 0 &&
+                            n + (size_t)b->run_overflow >= SL_FIT_MIN_POINTS;
     snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
     snprintf(item.name, sizeof item.name, "%s", b->run_name);
     if (fit_batch_push(f, &item) != 0)
@@ -351,7 +384,7 @@ static sl_status check_same_die(ingest_ctx *c, const ingest_row *row)
     if (b->run_x == row->die_x && b->run_y == row->die_y)
         return SL_OK;
     const long here[2] = { row->die_x, row->die_y }, before[2] = { b->run_x, b->run_y };
-    return die_moved(c, c->diag, sl_csv_line(c->csv), row->device, row->wafer, here, before,
+    return die_moved(c, c->diag, sl_rowsrc_line(c->src), row->device, row->wafer, here, before,
                      b->run_first_line);
 }
 
@@ -365,30 +398,41 @@ static size_t remember(char *dst, size_t size, const char *text)
     return n < size ? n : (size_t)-1;
 }
 
-static sl_status start_run(ingest_ctx *c, const ingest_row *row)
+/* A run's identity as written, for the fast comparison of the rows after. */
+static void remember_identity(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
     b->in_run = 1;
-    b->run_first_line = sl_csv_line(c->csv);
+    b->run_first_line = sl_rowsrc_line(c->src);
+    b->run_offset = b->buf[b->filling].n_points;
+    b->run_overflow = b->run_compliance = 0;
+    b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer,
+                                sl_rowsrc_field(c->src, SL_ROW_WAFER, NULL));
+    b->run_name_len = remember(b->run_name, sizeof b->run_name,
+                               sl_rowsrc_field(c->src, SL_ROW_DEVICE, NULL));
+    b->run_die_x_len = remember(b->run_die_x, sizeof b->run_die_x,
+                                sl_rowsrc_field(c->src, SL_ROW_DIE_X, NULL));
+    b->run_die_y_len = remember(b->run_die_y, sizeof b->run_die_y,
+                                sl_rowsrc_field(c->src, SL_ROW_DIE_Y, NULL));
+}
+
+static sl_status start_run(ingest_ctx *c, const ingest_row *row)
+{
+    ingest_batch *b = c->batch;
+    remember_identity(c);
     b->run_x = row->die_x;
     b->run_y = row->die_y;
     b->run_wafer_index = row->wafer_index;
     b->run_temperature_K = row->temperature_K;
-    b->run_offset = b->buf[b->filling].n_points;
-    b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer, row->wafer);
-    b->run_name_len = remember(b->run_name, sizeof b->run_name, row->device);
-    b->run_die_x_len = remember(b->run_die_x, sizeof b->run_die_x,
-                                sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
-    b->run_die_y_len = remember(b->run_die_y, sizeof b->run_die_y,
-                                sl_csv_field(c->csv, (size_t)c->col.die_y, NULL));
+    ingest_device_fit(c, &b->run_cfg, row);
     return SL_OK;
 }
 
 /* Same device as the run, with the same die text: the fast path of a row. */
-static bool field_is(const ingest_ctx *c, long column, const char *text, size_t len)
+static bool field_is(const ingest_ctx *c, sl_row_quantity q, const char *text, size_t len)
 {
     size_t n;
-    const char *f = sl_csv_field(c->csv, (size_t)column, &n);
+    const char *f = sl_rowsrc_field(c->src, q, &n);
     if (n != len)
         return false;
     /* names and die indices are a few bytes: a plain loop, not a call to
@@ -402,40 +446,138 @@ static bool field_is(const ingest_ctx *c, long column, const char *text, size_t 
 static bool continues_run(const ingest_ctx *c)
 {
     const ingest_batch *b = c->batch;
-    return b->in_run && field_is(c, c->col.device, b->run_name, b->run_name_len) &&
-           field_is(c, c->col.wafer, b->run_wafer, b->run_wafer_len) &&
-           field_is(c, c->col.die_x, b->run_die_x, b->run_die_x_len) &&
-           field_is(c, c->col.die_y, b->run_die_y, b->run_die_y_len);
+    return b->in_run && field_is(c, SL_ROW_DEVICE, b->run_name, b->run_name_len) &&
+           field_is(c, SL_ROW_WAFER, b->run_wafer, b->run_wafer_len) &&
+           field_is(c, SL_ROW_DIE_X, b->run_die_x, b->run_die_x_len) &&
+           field_is(c, SL_ROW_DIE_Y, b->run_die_y, b->run_die_y_len);
+}
+
+/* A problem in the run's rows (its message is in c->diag): the device is
+ * rejected, its points dropped; the row is kept for the rejects file. */
+static sl_status run_problem(ingest_ctx *c)
+{
+    ingest_batch *b = c->batch;
+    if (!b->run_bad) {
+        b->run_bad = 1;
+        snprintf(b->run_reason, sizeof b->run_reason, "%s", ingest_current_reason(c));
+        b->buf[b->filling].n_points = b->run_offset;
+    }
+    sl_status st = ingest_keep_row(c);
+    ingest_flush_errors(c);
+    return st;
+}
+
+/* One point into the batch, in SI; overflow and compliance points are
+ * counted and left out. */
+static sl_status read_point(ingest_ctx *c, fit_batch *f)
+{
+    ingest_batch *b = c->batch;
+    double vg, r, id, vd;
+    sl_status st = sl_rowsrc_number(&vg, c->src, SL_ROW_VG, c->diag);
+    if (st != SL_OK)
+        return st;
+    bool overflow = sl_rowsrc_is_overflow(c->src, SL_ROW_VG, vg);
+    if (b->by_current) {
+        st = sl_rowsrc_number(&id, c->src, SL_ROW_ID, c->diag);
+        if (st == SL_OK)
+            st = sl_rowsrc_number(&vd, c->src, SL_ROW_VD, c->diag);
+        if (st != SL_OK)
+            return st;
+        overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_ID, id) ||
+                    sl_rowsrc_is_overflow(c->src, SL_ROW_VD, vd);
+        /* R = V_d / I_d; the sign of a current depends on the meter's
+         * convention, the channel's resistance does not (common practice) */
+        r = fabs(vd / id);
+    } else {
+        st = sl_rowsrc_number(&r, c->src, SL_ROW_R, c->diag);
+        if (st != SL_OK)
+            return st;
+        overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_R, r);
+    }
+    int dir = 0;
+    bool at_compliance = false;
+    if (b->has_compliance && (st = sl_rowsrc_flag(&at_compliance, c->src, SL_ROW_COMPLIANCE,
+                                                  c->diag)) != SL_OK)
+        return st;
+    if (b->has_direction && (st = sl_rowsrc_direction(&dir, c->src, c->diag)) != SL_OK)
+        return st;
+    if (at_compliance || overflow) {
+        b->run_compliance += at_compliance;
+        b->run_overflow += !at_compliance;
+        return SL_OK;
+    }
+    size_t k = f->n_points++;
+    f->vg[k] = vg;
+    f->r[k] = r;
+    f->dir[k] = (signed char)dir;
+    return SL_OK;
+}
+
+/* A row whose identity does not read: the rows after it with the same text
+ * belong to the same rejected device. */
+static sl_status identity_problem(ingest_ctx *c)
+{
+    sl_status st = end_run(c);
+    if (st != SL_OK)
+        return st;
+    remember_identity(c);
+    c->batch->run_identity_bad = 1;
+    return run_problem(c);
+}
+
+/* The first row of a run, or a row of the run's device written differently;
+ * *reported when the row had a problem (reported and kept already). */
+static sl_status next_row_of_run(ingest_ctx *c, bool *reported)
+{
+    ingest_batch *b = c->batch;
+    ingest_row row;
+    *reported = false;
+    sl_status st = ingest_read_row(c, &row);
+    if (st == SL_EINPUT) {
+        *reported = true;
+        return identity_problem(c);
+    }
+    if (st != SL_OK)
+        return st;
+    if (b->in_run && !b->run_identity_bad && strcmp(row.device, b->run_name) == 0 &&
+        strcmp(row.wafer, b->run_wafer) == 0) {
+        if (b->run_bad)
+            return SL_OK; /* rejected already: one message for the device */
+        st = check_same_die(c, &row);
+        *reported = st == SL_EINPUT;
+        return *reported ? run_problem(c) : st;
+    }
+    st = end_run(c);
+    return st == SL_OK ? start_run(c, &row) : st;
 }
 
 static sl_status sweep_row(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
-    sl_status st = SL_OK;
     if (!continues_run(c)) {
-        ingest_row row;
-        st = ingest_read_row(c, &row);
-        if (st == SL_OK && b->in_run && strcmp(row.device, b->run_name) == 0 &&
-            strcmp(row.wafer, b->run_wafer) == 0)
-            st = check_same_die(c, &row);
-        else if (st == SL_OK && (st = end_run(c)) == SL_OK)
-            st = start_run(c, &row);
-        if (st != SL_OK)
+        bool reported = false;
+        sl_status st = next_row_of_run(c, &reported);
+        if (st != SL_OK || reported)
             return st;
     }
+    if (b->run_identity_bad)
+        return ingest_keep_row(c);
     fit_batch *f = &b->buf[b->filling];
-    if (f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
+    if (!b->run_bad && f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
         ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
                             SL_INGEST_MAX_POINTS);
-        return SL_EINPUT;
+        return run_problem(c);
     }
     if (fit_batch_reserve_points(f, f->n_points + 1) != 0)
         return SL_ENOMEM;
-    st = sl_csv_number(&f->vg[f->n_points], c->csv, (size_t)c->col.vg, c->diag);
-    if (st == SL_OK)
-        st = sl_csv_number(&f->r[f->n_points], c->csv, (size_t)c->col.r, c->diag);
-    f->n_points += st == SL_OK;
-    return st;
+    sl_status st = read_point(c, f);
+    if (st == SL_EINPUT)
+        return run_problem(c);
+    if (st != SL_OK)
+        return st;
+    if (b->run_bad)
+        f->n_points = b->run_offset; /* its values are checked, never kept */
+    return ingest_keep_row(c);       /* for the rejects file, if any */
 }
 
 /* ---- devices with rows in several places or too few points so far ---- */
@@ -498,6 +640,8 @@ static sl_status check_gathered(ingest_ctx *c, const sl_store_import_device *d, 
 
 static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
 {
+    /* rows of the device in several places: the wafer's gate and the plan's
+     * channel (the device's own channel is known only while its rows are read) */
     const sl_fit_config *cfg = wafer_fit(c, d->wafer_id);
     if (!cfg) {
         sl_diag_error(c->diag, "device '%s' is on a wafer this import does not know", d->name);
@@ -574,9 +718,13 @@ sl_status ingest_sweeps(ingest_ctx *c)
 {
     if (!batch_new(c, c->opt->threads))
         return SL_ENOMEM;
+    ingest_batch *b = c->batch;
+    b->by_current = !sl_rowsrc_has(c->src, SL_ROW_R);
+    b->has_direction = sl_rowsrc_has(c->src, SL_ROW_DIRECTION);
+    b->has_compliance = sl_rowsrc_has(c->src, SL_ROW_COMPLIANCE);
     bool has = false;
     sl_status st;
-    while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
+    while ((st = sl_rowsrc_next(&has, c->src, c->diag)) == SL_OK && has) {
         c->summary->rows++;
         if ((st = sweep_row(c)) != SL_OK)
             break;
