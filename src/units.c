@@ -58,6 +58,8 @@ bool sl_units_exp10(int *exp10, sl_dimension dim, const char *unit, size_t len)
     for (size_t i = 0; i < N_UNITS; i++) {
         if (units[i].dim != dim || !same(units[i].name, unit, len, true))
             continue;
+        if ((unit[0] == 'm' || unit[0] == 'M') && unit[0] != units[i].name[0])
+            continue; /* milli and mega are never taken for one another */
         if (found && found->exp10 != units[i].exp10)
             return false; /* two units differ only in case: say nothing */
         found = &units[i];

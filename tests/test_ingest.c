@@ -88,15 +88,15 @@ static int row_order(const void *a, const void *b)
     return c ? c : strcmp(x->name, y->name);
 }
 
-/* Every stored device of DEMO-01 in db, sorted by wafer and name, with sweeps. */
-static lot_devices load_lot(const char *db)
+/* Every stored device of a lot in db, sorted by wafer and name, with sweeps. */
+static lot_devices load_lot_named(const char *db, const char *lot_name)
 {
     lot_devices L = { 0 };
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_store_lot lot;
     ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
-    ck_assert_int_eq(sl_store_find_lot(store, &lot, "DEMO-01", diag), SL_OK);
+    ck_assert_int_eq(sl_store_find_lot(store, &lot, lot_name, diag), SL_OK);
     ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, diag), SL_OK);
     qsort(L.rows, L.n, sizeof *L.rows, row_order);
     L.vg = calloc(L.n + 1, sizeof *L.vg);
@@ -111,6 +111,16 @@ static lot_devices load_lot(const char *db)
     sl_store_close(store);
     sl_diag_free(diag);
     return L;
+}
+
+static lot_devices load_lot(const char *db) { return load_lot_named(db, "DEMO-01"); }
+
+static int write_in_dir(const char *dir, const char *name, const char *text)
+{
+    char *path = sl_test_path(dir, name);
+    int rc = sl_test_write_file(path, text);
+    free(path);
+    return rc;
 }
 
 static void lot_devices_free(lot_devices *L)
@@ -891,6 +901,209 @@ START_TEST(library_summary_counts)
 }
 END_TEST
 
+
+/* ---- instrument files (fixtures by tests/gen/gen_instrument, truth beside) ---- */
+
+typedef struct {
+    char wafer[16], device[32];
+    long die_x, die_y;
+    double cnp_V, hysteresis_V, mobility_cm2_per_Vs;
+} truth_row;
+
+/* The generator's truth file: one row per device. */
+static truth_row *load_truth(const char *name, size_t *n)
+{
+    char rel[256];
+    snprintf(rel, sizeof rel, "instrument/%s", name);
+    char *path = sl_test_data(rel);
+    FILE *f = fopen(path, "r");
+    ck_assert_ptr_nonnull(f);
+    truth_row *rows = calloc(1000, sizeof *rows);
+    char line[512];
+    *n = 0;
+    ck_assert_ptr_nonnull(fgets(line, sizeof line, f)); /* header */
+    while (*n < 1000 && fgets(line, sizeof line, f)) {
+        truth_row *t = &rows[*n];
+        ck_assert_int_eq(sscanf(line, "%15[^,],%31[^,],%ld,%ld,%lf,%lf,%lf", t->wafer, t->device,
+                                &t->die_x, &t->die_y, &t->cnp_V, &t->hysteresis_V,
+                                &t->mobility_cm2_per_Vs), 7);
+        (*n)++;
+    }
+    fclose(f);
+    free(path);
+    return rows;
+}
+
+static const truth_row *find_truth(const truth_row *t, size_t n, const char *wafer,
+                                   const char *device)
+{
+    for (size_t i = 0; i < n; i++)
+        if (strcmp(t[i].wafer, wafer) == 0 && strcmp(t[i].device, device) == 0)
+            return &t[i];
+    return NULL;
+}
+
+/* A scratch folder with t.db holding the plan of tests/data/instrument. */
+static char *instrument_dir(const char *plan)
+{
+    char *dir = sl_test_tmpdir();
+    char rel[256];
+    snprintf(rel, sizeof rel, "instrument/%s", plan);
+    char *path = sl_test_data(rel);
+    const char *argv[] = { "predict", path, "--db", "t.db", NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "predict %s: %s", plan, r.err);
+    sl_run_result_free(&r);
+    free(path);
+    return dir;
+}
+
+static sl_run_result ingest_fixture(const char *dir, const char *lot, const char *kind,
+                                    const char *file, const char *extra1, const char *extra2)
+{
+    char rel[256], opt[32];
+    snprintf(rel, sizeof rel, "instrument/%s", file);
+    snprintf(opt, sizeof opt, "--%s", kind);
+    char *path = sl_test_data(rel);
+    const char *argv[] = { "ingest", "--lot", lot, opt, path, "--db", "t.db", "--format", "json",
+                           extra1, extra2, NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    free(path);
+    return r;
+}
+
+static void assert_json_count(const char *json, const char *key, long want)
+{
+    char text[128];
+    snprintf(text, sizeof text, "\"%s\": %ld,", key, want);
+    ck_assert_msg(strstr(json, text) != NULL, "summary lacks '%s': %s", text, json);
+}
+
+/* Every stored device is in the truth, fitted ok, at the die the prober
+ * wrote, with V_cnp within cnp_tol_V and mobility within mobility_rel. */
+static void assert_against_truth(const char *dir, const char *lot, const char *truth_name,
+                                 double cnp_tol_V, double mobility_rel)
+{
+    size_t n_truth = 0;
+    truth_row *truth = load_truth(truth_name, &n_truth);
+    char *db = sl_test_path(dir, "t.db");
+    lot_devices L = load_lot_named(db, lot);
+    ck_assert_uint_eq(L.n, n_truth);
+    for (size_t i = 0; i < L.n; i++) {
+        const sl_store_device_row *d = &L.rows[i];
+        const truth_row *t = find_truth(truth, n_truth, d->wafer, d->name);
+        ck_assert_msg(t != NULL, "%s/%s not in the truth", d->wafer, d->name);
+        ck_assert_msg(d->die_x == t->die_x && d->die_y == t->die_y,
+                      "%s/%s at die (%ld, %ld), the file says (%ld, %ld)", d->wafer, d->name,
+                      d->die_x, d->die_y, t->die_x, t->die_y);
+        if (cnp_tol_V > 0)
+            ck_assert_msg(strcmp(d->fit_class, "ok") == 0 ||
+                              strcmp(d->fit_class, "unmeasured") == 0,
+                          "%s/%s: %s", d->wafer, d->name, d->fit_class);
+        if (cnp_tol_V > 0)
+            ck_assert_msg(fabs(d->cnp_V - t->cnp_V) < cnp_tol_V,
+                          "%s/%s: V_cnp %.4f V, truth %.4f V", d->wafer, d->name, d->cnp_V,
+                          t->cnp_V);
+        if (mobility_rel > 0)
+            ck_assert_msg(fabs(d->mobility_cm2_per_Vs / t->mobility_cm2_per_Vs - 1) < mobility_rel,
+                          "%s/%s: mobility %.0f, truth %.0f cm^2/Vs", d->wafer, d->name,
+                          d->mobility_cm2_per_Vs, t->mobility_cm2_per_Vs);
+    }
+    lot_devices_free(&L);
+    free(db);
+    free(truth);
+}
+
+/* Drain current in uA at a drain bias in mV, semicolons, decimal commas, a
+ * comment line before the header, an overflow code and compliance points;
+ * dies numbered from 1. Tolerance 0.01 V on 20 nm Al2O3 (the acceptance
+ * figure of the import, common practice for a 0.2 % meter). */
+START_TEST(instrument_drain_current_semicolon)
+{
+    char *dir = instrument_dir("alox.yaml");
+    sl_run_result r = ingest_fixture(dir, "INST-ALOX", "sweeps", "alox_idvd.csv", NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    assert_json_count(r.out, "devices", 32);
+    assert_json_count(r.out, "points_dropped_overflow", 4);   /* one per wafer, by the generator */
+    assert_json_count(r.out, "devices_with_overflow", 4);
+    assert_json_count(r.out, "points_dropped_compliance", 8); /* two per wafer */
+    ck_assert_msg(strstr(r.out, "\"separator\": \";\"") && strstr(r.out, "\"unused_columns\": \"Operator\""),
+                  "%s", r.out);
+    sl_run_result_free(&r);
+    assert_against_truth(dir, "INST-ALOX", "alox_idvd_truth.csv", 0.01, 0.03);
+    drop_dir(dir);
+}
+END_TEST
+
+/* Double sweeps: the turn of the gate voltage (tab separated, R in kOhm) or
+ * a direction column (reverse rows first); the device's V_cnp is the mean of
+ * the branches. */
+START_TEST(instrument_double_sweeps)
+{
+    const char *files[][2] = { { "alox_double.csv", "alox_double_truth.csv" },
+                               { "alox_double_dir.csv", "alox_double_dir_truth.csv" } };
+    for (int k = 0; k < 2; k++) {
+        char *dir = instrument_dir("alox.yaml");
+        sl_run_result r = ingest_fixture(dir, "INST-ALOX", "sweeps", files[k][0], NULL, NULL);
+        ck_assert_msg(r.exit_code == 0, "%s", r.err);
+        assert_json_count(r.out, "double_sweeps", 32);
+        sl_run_result_free(&r);
+        assert_against_truth(dir, "INST-ALOX", files[k][1], 0.01, 0.03);
+        drop_dir(dir);
+    }
+}
+END_TEST
+
+/* Die coordinates centred on the wafer (-2 to 2) are kept as written. */
+START_TEST(instrument_centred_coordinates)
+{
+    char *dir = instrument_dir("centred.yaml");
+    sl_run_result r = ingest_fixture(dir, "INST-CENTRED", "results", "centred_results.csv", NULL,
+                                     NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    /* results carry V_cnp to 4 decimals: within 0.0001 V of the truth */
+    assert_against_truth(dir, "INST-CENTRED", "centred_truth.csv", 1e-4, 0);
+    drop_dir(dir);
+}
+END_TEST
+
+/* Four transistors per die, 5 to 40 um long on 90 nm SiO2: each device's
+ * mobility from its own channel (device_type, or geometry columns), within
+ * 3 % of the truth. */
+START_TEST(instrument_device_types)
+{
+    const char *files[][2] = { { "types_sweeps.csv", "types_truth.csv" },
+                               { "types_geometry.csv", "types_geometry_truth.csv" } };
+    for (int k = 0; k < 2; k++) {
+        char *dir = instrument_dir("types.yaml");
+        sl_run_result r = ingest_fixture(dir, "INST-TYPES", "sweeps", files[k][0], NULL, NULL);
+        ck_assert_msg(r.exit_code == 0, "%s", r.err);
+        assert_json_count(r.out, "devices", 72);
+        sl_run_result_free(&r);
+        assert_against_truth(dir, "INST-TYPES", files[k][1], 0.05, 0.03);
+        drop_dir(dir);
+    }
+}
+END_TEST
+
+/* Die coordinates outside the prober's numbering are refused with the range. */
+START_TEST(instrument_first_die_range)
+{
+    char *dir = instrument_dir("alox.yaml");
+    ck_assert_int_eq(write_in_dir(dir, "zero.csv",
+                                           "wafer,device,die_x,die_y,v_cnp_V\nW01,D1,0,1,0.5\n"), 0);
+    const char *argv[] = { "ingest", "--lot", "INST-ALOX", "--results", "zero.csv", "--db", "t.db",
+                           NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "zero.csv:2:3: error: die_x '0' is not a die coordinate from 1 to 3"),
+                  "%s", r.err);
+    sl_run_result_free(&r);
+    drop_dir(dir);
+}
+END_TEST
+
 static Suite *ingest_suite(void)
 {
     Suite *s = suite_create("ingest");
@@ -907,6 +1120,11 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, results_edge_rows);
     tcase_add_test(tc, extraction_quality_against_truth);
     tcase_add_test(tc, library_summary_counts);
+    tcase_add_test(tc, instrument_drain_current_semicolon);
+    tcase_add_test(tc, instrument_double_sweeps);
+    tcase_add_test(tc, instrument_centred_coordinates);
+    tcase_add_test(tc, instrument_device_types);
+    tcase_add_test(tc, instrument_first_die_range);
     suite_add_tcase(s, tc);
     return s;
 }

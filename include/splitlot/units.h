@@ -32,8 +32,9 @@ typedef enum { SL_DIM_VOLT = 0, SL_DIM_AMPERE, SL_DIM_OHM, SL_DIM_KELVIN } sl_di
  * (the one conversion table; src/units.c): V, mV, uV, kV; A, mA, uA, nA, pA;
  * ohm, kohm, Mohm, Gohm (also written with the ohm sign); K. The micro prefix
  * may be 'u' or the micro or mu sign. The spelling is matched exactly first,
- * then without regard to case when that names one unit ("OHM", "MOhm"; "mv"
- * is mV, as no megavolt is listed). Returns true with *exp10 set (the SI
+ * then without regard to case when that names one unit ("OHM", "MOhm", "mv"),
+ * except that an 'm' and an 'M' prefix are never taken for one another
+ * ("MV" is refused). Returns true with *exp10 set (the SI
  * value is the written value times 10^exp10), false for a unit not in the
  * table or of another dimension. */
 bool sl_units_exp10(int *exp10, sl_dimension dim, const char *unit, size_t len);
