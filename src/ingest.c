@@ -306,16 +306,18 @@ sl_status ingest_read_row(ingest_ctx *c, ingest_row *row)
 
 /* ---- problems, and rows of rejected devices ---- */
 
-void ingest_flush_errors(ingest_ctx *c)
+static void flush_errors(ingest_ctx *c, bool all)
 {
     for (size_t i = 0; i < sl_diag_size(c->diag); i++) {
         const sl_diag_msg *m = sl_diag_get(c->diag, i);
-        if (m->severity == SL_SEV_ERROR && ++c->n_errors > SL_INGEST_MAX_ERRORS)
+        if (m->severity == SL_SEV_ERROR && ++c->n_errors > SL_INGEST_MAX_ERRORS && !all)
             continue;
         sl_diag_add(c->user_diag, m->severity, m->file, m->line, m->col, "%s", m->text);
     }
     sl_diag_clear(c->diag);
 }
+
+void ingest_flush_errors(ingest_ctx *c) { flush_errors(c, false); }
 
 sl_status ingest_keep_row(ingest_ctx *c)
 {
@@ -517,7 +519,8 @@ static sl_status import_body(ingest_ctx *c)
                     "the file has a header but no data rows");
         st = SL_EINPUT;
     }
-    ingest_flush_errors(c);
+    if (st == SL_OK || st == SL_EINPUT)
+        ingest_flush_errors(c); /* any other failure is said past the limit */
     if (st == SL_OK && c->n_errors > 0 && !c->opt->keep_going)
         st = SL_EINPUT; /* every problem reported; nothing of the file kept */
     if (st == SL_OK && c->rejects)
@@ -546,6 +549,7 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
                         const sl_ingest_options *options, sl_diag *diag)
 {
     memset(out, 0, sizeof *out);
+    size_t errors_before = sl_diag_count(diag, SL_SEV_ERROR);
     sl_diag *scratch = sl_diag_new();
     if (!scratch) {
         sl_diag_error(diag, "out of memory");
@@ -571,11 +575,13 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
         remove(options->rejects_path); /* no rejects file of an import that did not happen */
     }
     ingest_progress(&c);
-    ingest_flush_errors(&c);
-    if (c.n_errors > SL_INGEST_MAX_ERRORS) /* after the rest, at the last line read */
+    /* what stopped an import other than its rows (the disk, the store) is
+     * always said, past the limit too */
+    flush_errors(&c, st != SL_OK && st != SL_EINPUT);
+    long shown = (long)(sl_diag_count(diag, SL_SEV_ERROR) - errors_before);
+    if (c.n_errors > shown) /* after the rest, at the last line read */
         sl_diag_add(diag, SL_SEV_ERROR, c.file, c.src ? sl_rowsrc_line(c.src) : 0, 0,
-                    "%ld more problems not shown (%ld in all)", c.n_errors - SL_INGEST_MAX_ERRORS,
-                    c.n_errors);
+                    "%ld more problems not shown (%ld in all)", c.n_errors - shown, c.n_errors);
     out->errors = c.n_errors;
     ctx_free(&c);
     sl_diag_free(scratch);

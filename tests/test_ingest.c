@@ -1104,6 +1104,127 @@ START_TEST(instrument_first_die_range)
 }
 END_TEST
 
+/* Three empty values and an unknown wafer: four located errors, nothing
+ * kept; with --keep-going the other devices are stored and the four rows go
+ * to the rejects file with a reason column. */
+START_TEST(every_problem_and_keep_going)
+{
+    char *dir = demo_dir();
+    const char *text = "wafer,device,die_x,die_y,v_cnp_V,operator\n"
+                       "W01,A1,0,0,1.5,ann\n"
+                       "W01,A2,1,0,,ann\n"
+                       "W01,A3,2,0,-0.5,ann\n"
+                       "WO2,A4,3,0,0.25,ann\n"
+                       "W02,A5,0,1,,ann\n"
+                       "W02,A6,1,1,0.75,ann\n"
+                       "W03,A7,2,x,0.1,ann\n";
+    ck_assert_int_eq(write_in_dir(dir, "three.csv", text), 0);
+    char *db = sl_test_path(dir, "t.db"), *copy = sl_test_path(dir, "before.db");
+    ck_assert_int_eq(sl_test_copy_file(db, copy), 0);
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--results", "three.csv", "--db", "t.db",
+                           NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_int_eq(r.exit_code, 2);
+    /* empty v_cnp_V is "probed, no neutrality point" for results, so the
+     * problems here are the unknown wafer and the bad die only */
+    ck_assert_msg(count_errors(r.err) == 2 && strstr(r.err, "three.csv:5:1: error: unknown wafer 'WO2'") &&
+                      strstr(r.err, "three.csv:8:4: error: bad number \"x\" in column die_y"),
+                  "%s", r.err);
+    ck_assert(sl_test_files_equal(db, copy));
+    sl_run_result_free(&r);
+    const char *keep[] = { "ingest", "--lot", "DEMO-01", "--results", "three.csv", "--db", "t.db",
+                           "--keep-going", "--rejects", "rejects.csv", "--format", "json", NULL };
+    r = sl_test_run(dir, NULL, keep);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    assert_json_count(r.out, "devices", 5);
+    assert_json_count(r.out, "devices_rejected", 2);
+    assert_json_count(r.out, "rows_rejected", 2);
+    ck_assert_msg(strstr(r.out, "\"unused_columns\": \"operator\""), "%s", r.out);
+    sl_run_result_free(&r);
+    char *rejects = sl_test_path(dir, "rejects.csv");
+    char *got = sl_test_read_file(rejects, NULL);
+    ck_assert_str_eq(got, "wafer,device,die_x,die_y,v_cnp_V,operator,reason\n"
+                          "WO2,A4,3,0,0.25,ann,\"unknown wafer 'WO2' in lot 'DEMO-01' (did you mean 'W02'?)\"\n"
+                          "W03,A7,2,x,0.1,ann,\"bad number \"\"x\"\" in column die_y\"\n");
+    free(got);
+    free(rejects);
+    free(db);
+    free(copy);
+    drop_dir(dir);
+}
+END_TEST
+
+/* Sweeps: a bad reading condemns its device only; past 20 problems the
+ * rest are counted; the rejects file holds every row of the rejected
+ * devices, in the file's own separator. */
+START_TEST(sweep_problems_counted_and_rejected)
+{
+    char *dir = demo_dir();
+    simulate_into(dir, DEMO_PLAN, "7", NULL);
+    char *sim = sl_test_path(dir, "sim/sweeps.csv");
+    char *text = sl_test_read_file(sim, NULL);
+    ck_assert_ptr_nonnull(text);
+    /* every 500th row's r_ohm made "bad": about two devices in five */
+    char *out = sl_test_path(dir, "bad.csv");
+    FILE *f = fopen(out, "wb");
+    long line = 0, bad_rows = 0;
+    for (char *p = text; *p;) {
+        char *nl = strchr(p, '\n');
+        size_t n = nl ? (size_t)(nl - p) : strlen(p);
+        const char *comma = p + n;
+        while (comma > p && *comma != ',')
+            comma--;
+        if (++line % 500 == 0) {
+            fprintf(f, "%.*s,bad\n", (int)(comma - p), p);
+            bad_rows++;
+        } else {
+            fprintf(f, "%.*s\n", (int)n, p);
+        }
+        p += n + (nl != NULL);
+    }
+    fclose(f);
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--sweeps", "bad.csv", "--db", "t.db", NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_uint_eq(count_errors(r.err), 21);
+    char more[96];
+    snprintf(more, sizeof more, "error: %ld more problems not shown (%ld in all)", bad_rows - 20,
+             bad_rows);
+    ck_assert_msg(strstr(r.err, more) != NULL, "'%s' not in %s", more, r.err);
+    sl_run_result_free(&r);
+    const char *keep[] = { "ingest", "--lot", "DEMO-01", "--sweeps", "bad.csv", "--db", "t.db",
+                           "--keep-going", "--rejects", "rej.csv", "--format", "json", NULL };
+    r = sl_test_run(dir, NULL, keep);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    char *db = sl_test_path(dir, "t.db");
+    lot_devices L = load_lot(db);
+    char *rej = sl_test_path(dir, "rej.csv");
+    char *rejected = sl_test_read_file(rej, NULL);
+    /* every rejected row is the file's row plus a reason; every stored
+     * device is absent from the rejects */
+    size_t rows = count_lines(rejected) - 1;
+    ck_assert_msg(L.n > 100 && rows > 1000, "%zu stored, %zu rejected rows", L.n, rows);
+    for (size_t i = 0; i < L.n; i++) {
+        char key[160];
+        snprintf(key, sizeof key, "\n%s,%s,", L.rows[i].wafer, L.rows[i].name);
+        ck_assert_msg(strstr(rejected, key) == NULL, "%s/%s stored and rejected", L.rows[i].wafer,
+                      L.rows[i].name);
+    }
+    char rows_text[64];
+    snprintf(rows_text, sizeof rows_text, "\"rows_rejected\": %zu,", rows);
+    ck_assert_msg(strstr(r.out, rows_text), "%s", r.out);
+    lot_devices_free(&L);
+    sl_run_result_free(&r);
+    free(rejected);
+    free(rej);
+    free(db);
+    free(out);
+    free(text);
+    free(sim);
+    drop_dir(dir);
+}
+END_TEST
+
 static Suite *ingest_suite(void)
 {
     Suite *s = suite_create("ingest");
@@ -1125,6 +1246,8 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, instrument_centred_coordinates);
     tcase_add_test(tc, instrument_device_types);
     tcase_add_test(tc, instrument_first_die_range);
+    tcase_add_test(tc, every_problem_and_keep_going);
+    tcase_add_test(tc, sweep_problems_counted_and_rejected);
     suite_add_tcase(s, tc);
     return s;
 }
