@@ -292,19 +292,16 @@ static sl_status apply_mappings(sl_rowsrc *src, const char *columns, sl_diag *di
     return st;
 }
 
-sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns, sl_diag *diag)
+/* Map the header of an open reader (taken over, freed on failure). */
+static sl_status open_over(sl_rowsrc **out, sl_csv *csv, const char *columns, sl_diag *diag)
 {
-    *out = NULL;
     sl_rowsrc *src = calloc(1, sizeof *src);
     if (!src) {
+        sl_csv_free(csv);
         sl_diag_error(diag, "out of memory");
         return SL_ENOMEM;
     }
-    sl_status st = sl_csv_open(&src->csv, path, diag);
-    if (st != SL_OK) {
-        free(src);
-        return st;
-    }
+    src->csv = csv;
     src->n_columns = sl_csv_column_count(src->csv);
     src->quantity_of = malloc((src->n_columns + 1) * sizeof *src->quantity_of);
     src->unused = malloc((src->n_columns + 1) * sizeof *src->unused);
@@ -317,7 +314,7 @@ sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns,
         src->quantity_of[i] = -1;
     for (int q = 0; q < SL_ROW_COUNT; q++)
         src->col[q] = -1;
-    st = apply_mappings(src, columns, diag);
+    sl_status st = apply_mappings(src, columns, diag);
     sl_status header = map_header(src, diag);
     if (st == SL_OK)
         st = header;
@@ -327,6 +324,23 @@ sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns,
     }
     *out = src;
     return SL_OK;
+}
+
+sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns, sl_diag *diag)
+{
+    *out = NULL;
+    sl_csv *csv = NULL;
+    sl_status st = sl_csv_open(&csv, path, diag);
+    return st == SL_OK ? open_over(out, csv, columns, diag) : st;
+}
+
+sl_status sl_rowsrc_open_stream(sl_rowsrc **out, FILE *stream, const char *name,
+                                const char *columns, sl_diag *diag)
+{
+    *out = NULL;
+    sl_csv *csv = NULL;
+    sl_status st = sl_csv_open_stream(&csv, stream, name, diag);
+    return st == SL_OK ? open_over(out, csv, columns, diag) : st;
 }
 
 void sl_rowsrc_free(sl_rowsrc *src)

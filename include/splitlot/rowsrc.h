@@ -11,6 +11,7 @@
 
 #include <stdbool.h>
 #include <stddef.h>
+#include <stdio.h>
 
 #include "splitlot/csv.h"
 #include "splitlot/error.h"
@@ -62,6 +63,11 @@ typedef struct sl_rowsrc sl_rowsrc;
  * known quantity with an unknown unit, two columns giving one quantity. Also
  * sl_csv_open's statuses. *out is NULL on failure. */
 sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns, sl_diag *diag);
+
+/* The same on an open stream, which the row source does not close; name is
+ * used in messages. */
+sl_status sl_rowsrc_open_stream(sl_rowsrc **out, FILE *stream, const char *name,
+                                const char *columns, sl_diag *diag);
 
 void sl_rowsrc_free(sl_rowsrc *src);
 
