@@ -93,9 +93,19 @@ sl_status sl_store_prepare(sl_store *store, sqlite3_stmt **stmt, const char *sql
     return SL_OK;
 }
 
+/* The time records are stamped with: now, or SOURCE_DATE_EPOCH (seconds
+ * since 1970, the reproducible-builds convention) when it is set, so that
+ * a test or a reproducible demo gets the same database twice. */
 void sl_store_now_utc(char out[32])
 {
     time_t now = time(NULL);
+    const char *fixed = getenv("SOURCE_DATE_EPOCH");
+    if (fixed && *fixed) {
+        char *end = NULL;
+        long long v = strtoll(fixed, &end, 10);
+        if (*end == '\0' && v >= 0)
+            now = (time_t)v;
+    }
     struct tm tm;
     gmtime_r(&now, &tm);
     strftime(out, 32, "%Y-%m-%dT%H:%M:%SZ", &tm);
