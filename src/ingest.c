@@ -385,9 +385,10 @@ static sl_status start_runs(ingest_ctx *c)
 
 static sl_status finish_runs(ingest_ctx *c)
 {
-    unsigned char digest[32];
-    sha256_final(&c->sha, digest);
-    sha256_hex(digest, c->summary->sha256);
+    ingest_hasher_free(c->hasher, c->summary->sha256);
+    c->hasher = NULL;
+    if (c->hash_failed)
+        return SL_ENOMEM;
     sl_status st = SL_OK;
     for (size_t t = 0; st == SL_OK && t < c->revision.n_temperatures; t++) {
         long devices = 0;
@@ -426,6 +427,7 @@ static sl_status import_body(ingest_ctx *c)
 static void ctx_free(ingest_ctx *c)
 {
     sl_csv_free(c->csv);
+    ingest_hasher_free(c->hasher, NULL);
     ingest_batch_free(c->batch);
     free(c->wafers);
     free(c->run_ids);
@@ -435,9 +437,11 @@ static void ctx_free(ingest_ctx *c)
     sl_store_lot_clear(&c->lot);
 }
 
-static void hash_bytes(void *sha, const char *bytes, size_t n)
+static void hash_bytes(void *ctx, const char *bytes, size_t n)
 {
-    sha256_update(sha, bytes, n);
+    ingest_ctx *c = ctx;
+    if (!c->hash_failed && ingest_hasher_add(c->hasher, bytes, n) != 0)
+        c->hash_failed = 1;
 }
 
 sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
@@ -450,9 +454,10 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
     sl_status st = sl_store_begin(store, diag);
     if (st == SL_OK)
         st = load_lot(&c);
-    sha256_init(&c.sha);
+    if (st == SL_OK && !(c.hasher = ingest_hasher_new()))
+        st = SL_ENOMEM;
     if (st == SL_OK)
-        st = sl_csv_open_tapped(&c.csv, options->path, hash_bytes, &c.sha, diag);
+        st = sl_csv_open_tapped(&c.csv, options->path, hash_bytes, &c, diag);
     if (st == SL_OK)
         st = import_body(&c);
     if (st == SL_OK)

@@ -6,6 +6,7 @@
 #ifndef SL_INGEST_INTERNAL_H
 #define SL_INGEST_INTERNAL_H
 
+#include <pthread.h>
 #include <stdbool.h>
 
 #include "splitlot/csv.h"
@@ -41,6 +42,14 @@ typedef struct {
 
 typedef struct ingest_batch ingest_batch;
 
+/* The SHA-256 of the file as read, on a thread of its own (ingest_hash.c):
+ * add every block in order (0, or -1 when out of memory), then free, which
+ * waits for the last block and gives the digest in hex (hex may be NULL). */
+typedef struct ingest_hasher ingest_hasher;
+ingest_hasher *ingest_hasher_new(void);
+int ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
+void ingest_hasher_free(ingest_hasher *h, char hex[65]);
+
 typedef struct {
     sl_store *store;
     sl_diag *diag;
@@ -53,7 +62,8 @@ typedef struct {
     long *run_rows;          /* rows read per plan temperature */
     size_t default_temperature; /* for rows without a temperature */
     long first_run_id;       /* this import's runs have ids from this on */
-    sha256_ctx sha;          /* of the file's bytes as read */
+    ingest_hasher *hasher;   /* the file's SHA-256 as it is read */
+    int hash_failed;         /* a block could not be handed over */
     sl_csv *csv;
     const char *file;        /* name for messages */
     ingest_columns col;

@@ -579,6 +579,34 @@ START_TEST(test_compare_views)
 }
 END_TEST
 
+/* history and report take the same view options and say which they used */
+START_TEST(test_history_and_report_views)
+{
+    const char *history[] = { "history", "--db", "t.db", "--format", "json", "--temperature-K",
+                              "77", NULL };
+    sl_run_result r = run_in(history);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert(strstr(r.out, "\"step\": \"\",\n  \"temperature_K\": 77,\n") != NULL);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 0); /* no lot measured at 77 K */
+    sl_run_result_free(&r);
+    history[6] = "300";
+    r = run_in(history);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    sl_run_result_free(&r);
+    const char *report[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "v.html",
+                             "--no-history", "--step", "final", NULL };
+    r = run_in(report);
+    ck_assert_msg(r.exit_code == 0 && strstr(r.out, "measurements at step final, 300 K"), "%s%s",
+                  r.out, r.err);
+    sl_run_result_free(&r);
+    char *path = sl_test_path(dir, "v.html");
+    char *html = sl_test_read_file(path, NULL);
+    ck_assert(html && strstr(html, "<section id=\"runs\"") && strstr(html, "sim-CLEAN-01/sweeps.csv"));
+    free(html);
+    free(path);
+}
+END_TEST
+
 START_TEST(test_compare_memory_is_flat)
 {
 #ifdef SL_UNDER_ASAN
@@ -617,6 +645,7 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_history_without_measurements);
     tcase_add_test(tc, test_compare_memory_is_flat);
     tcase_add_test(tc, test_compare_views);
+    tcase_add_test(tc, test_history_and_report_views);
     tcase_add_test(tc, test_plan_revisions_after_measurement);
     suite_add_tcase(s, tc);
     return s;
