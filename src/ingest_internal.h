@@ -6,6 +6,7 @@
 #ifndef SL_INGEST_INTERNAL_H
 #define SL_INGEST_INTERNAL_H
 
+#include <pthread.h>
 #include <stdbool.h>
 
 #include "splitlot/fit.h"
@@ -14,6 +15,7 @@
 #include "splitlot/plan.h"
 #include "splitlot/rowsrc.h"
 #include "splitlot/store.h"
+#include "sha256.h"
 
 #define SL_INGEST_MAX_NAME_BYTES 64
 #define SL_INGEST_MAX_POINTS 100000
@@ -21,11 +23,10 @@
 /* Problems reported one by one per file; the rest are counted. */
 #define SL_INGEST_MAX_ERRORS 20
 
-/* What the plan and the store say about one wafer of the lot. */
+/* What the store says about one wafer of the lot's plan. */
 typedef struct {
-    long wafer_id;           /* row id in the store, 0 when a spare */
     long split;              /* -1 for a spare */
-    sl_fit_config fit;       /* gate capacitance of the wafer's dielectric */
+    sl_fit_config fit;       /* the stored gate capacitance of its split */
 } ingest_wafer;
 
 /* Columns of the file (0-based, for messages), -1 when absent. */
@@ -38,21 +39,35 @@ typedef struct {
     const char *wafer, *device;
     size_t wafer_index;
     long die_x, die_y;           /* as the prober wrote them */
-    double temperature_K;
+    size_t temperature;          /* index into the plan's temperatures */
     long device_type;            /* plan device type, -1 for none */
     double channel_length_um, channel_width_um; /* the device's own channel */
 } ingest_row;
 
 typedef struct ingest_batch ingest_batch;
 
+/* The SHA-256 of the file as read, on a thread of its own (ingest_hash.c):
+ * add every block in order (0, or -1 when out of memory), then free, which
+ * waits for the last block and gives the digest in hex (hex may be NULL). */
+typedef struct ingest_hasher ingest_hasher;
+ingest_hasher *ingest_hasher_new(void);
+int ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
+void ingest_hasher_free(ingest_hasher *h, char hex[65]);
+
 typedef struct {
     sl_store *store;
     sl_diag *diag;
     const sl_ingest_options *opt;
     sl_store_lot lot;
-    sl_plan *plan;
-    sl_layout *layout;
+    sl_plan *plan;           /* the stored plan text: names, wafer map, geometry */
+    sl_store_revision revision; /* what predict stored: splits, wafers, C_g */
     ingest_wafer *wafers;    /* per plan wafer */
+    long *run_ids;           /* per plan temperature: its run of this import */
+    long *run_rows;          /* rows read per plan temperature */
+    size_t default_temperature; /* for rows without a temperature */
+    long first_run_id;       /* this import's runs have ids from this on */
+    ingest_hasher *hasher;   /* the file's SHA-256 as it is read */
+    int hash_failed;         /* a block could not be handed over */
     sl_rowsrc *src;
     const char *file;        /* name for messages */
     sl_diag *user_diag;      /* the caller's: at most SL_INGEST_MAX_ERRORS errors */
@@ -61,7 +76,6 @@ typedef struct {
     char *reject_buf;        /* rows of the device being read (with rejects) */
     size_t reject_len, reject_cap;
     ingest_columns col;
-    long first_device_id;    /* this import's devices are stored from this id on */
     sl_ingest_summary *summary;
     double started_s;
     ingest_batch *batch;
@@ -73,6 +87,10 @@ sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);
 sl_status ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q);
 /* The fit configuration of a device: its wafer's gate with its own channel. */
 void ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row);
+/* The store's device type and channel of a row: NULL and NaN when the row
+ * gives the plan's device. */
+void ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
+                         double *length_um, double *width_um);
 /* Move the messages found so far to the caller's diagnostics, the first
  * SL_INGEST_MAX_ERRORS errors of the file in full, later ones counted. */
 void ingest_flush_errors(ingest_ctx *c);
@@ -101,9 +119,11 @@ void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
     __attribute__((format(printf, 5, 6)))
 #endif
     ;
-/* The device is stored for the lot by an earlier import. */
-void ingest_already_stored(const ingest_ctx *c, sl_diag *diag, long line, long column,
-                           const char *device, const char *wafer);
+/* The one message for a device stored at another die than in this row. */
+sl_status ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
+                           const char *wafer, const long here[2], const sl_store_insert *stored);
+/* Index of a plan wafer by name, -1 when the plan has none. */
+long ingest_wafer_index(const ingest_ctx *c, const char *wafer);
 
 sl_status ingest_sweeps(ingest_ctx *c);
 void ingest_batch_free(ingest_batch *b);

@@ -16,15 +16,16 @@ typedef struct {
     int has_direction;       /* dir[] of the points says forward or reverse */
     int open_by_overflow;    /* too few readings left after overflows: open */
     long overflow, compliance; /* points dropped */
+    const char *device_type; /* plan device type, or NULL */
+    double channel_length_um, channel_width_um; /* NaN: the plan's device */
     /* the device's identity, copied so the writer reads only the item */
     char wafer[65], name[65];
-    long wafer_id, die_x, die_y, first_line;
-    double temperature_K;
+    long run_id, die_x, die_y, first_line;   /* the measurement run of its temperature */
     sl_fit_result result;
     int is_double;           /* fitted as a double sweep, branch by branch */
     double hysteresis_V;     /* V_cnp(reverse) - V_cnp(forward), NaN if none */
     sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
-    long device_id;          /* set by the writer (that of the first run when
+    long measurement_id;     /* set by the writer (that of the first rows when
                                 the device's rows come back later) */
 } fit_item;
 

@@ -64,6 +64,11 @@ typedef struct sl_rowsrc sl_rowsrc;
  * sl_csv_open's statuses. *out is NULL on failure. */
 sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns, sl_diag *diag);
 
+/* The same with every byte of the file shown to tap as it is read (see
+ * sl_csv_open_tapped). */
+sl_status sl_rowsrc_open_tapped(sl_rowsrc **out, const char *path, const char *columns,
+                                sl_csv_tap tap, void *tap_ctx, sl_diag *diag);
+
 /* The same on an open stream, which the row source does not close; name is
  * used in messages. */
 sl_status sl_rowsrc_open_stream(sl_rowsrc **out, FILE *stream, const char *name,
