@@ -257,6 +257,8 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
                                                      : r->channel_width_um;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
+    if (fabs(r->hysteresis_V) > a->plan->max_hysteresis_V) /* NaN: no limit, or none */
+        d->flags |= SL_FLAG_HYSTERESIS;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
         d->deviation_V = r->cnp_V - d->cnp_predicted_V;
@@ -302,7 +304,7 @@ static const char *class_reason(const char *cls)
 }
 
 /* The flag in words, and the severity that orders the failure analysis. */
-static void describe(sl_analyze_device *d)
+static void describe(sl_analyze_device *d, double max_hysteresis_V)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
         snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
@@ -320,12 +322,18 @@ static void describe(sl_analyze_device *d)
                               "the split gives a spread)",
                               fabs(d->deviation_V), d->deviation_V > 0 ? "above" : "below");
     if (d->flags & SL_FLAG_OUTLIER)
-        snprintf(d->reason + k, sizeof d->reason - k, "%s%s its split's devices (modified z %.1f)",
-                 k ? "; " : "", d->modified_z > 0 ? "far above" : "far below", d->modified_z);
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "%s%s its split's devices (modified z %.1f)", k ? "; " : "",
+                              d->modified_z > 0 ? "far above" : "far below", d->modified_z);
+    if (d->flags & SL_FLAG_HYSTERESIS && k < sizeof d->reason)
+        snprintf(d->reason + k, sizeof d->reason - k, "%shysteresis %.2f V, beyond the plan's %.2f V",
+                 k ? "; " : "", d->hysteresis_V, max_hysteresis_V);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
     if (d->flags & SL_FLAG_OFF_PREDICTION)
         d->severity += 100.0;
+    if (d->flags == SL_FLAG_HYSTERESIS) /* by how far beyond the limit */
+        d->severity = fabs(d->hysteresis_V) / max_hysteresis_V;
 }
 
 /* Every field of a device, from its row and its split's statistics. */
@@ -337,7 +345,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long s
     if (isfinite(d->cnp_measured_V))
         score_device(d, &a->splits[split], &s->split[split].robust);
     if (d->flags)
-        describe(d);
+        describe(d, a->plan->max_hysteresis_V);
     s->row = r;
 }
 
@@ -503,6 +511,7 @@ static sl_status add_flags(sl_analysis_stream *s, long split, long wafer, sl_dia
     const sl_analyze_device *d = &s->device;
     a->n_devices++;
     a->splits[split].n_devices++;
+    a->n_with_hysteresis += isfinite(d->hysteresis_V);
     if (isfinite(d->doping_measured_per_cm2) && !(d->flags & SL_FLAG_OUTLIER)) {
         s->wafer_sum_per_cm2[wafer] += d->doping_measured_per_cm2;
         s->wafer_devices[wafer] += 1.0;

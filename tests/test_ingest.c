@@ -1214,6 +1214,30 @@ START_TEST(instrument_double_sweeps)
         assert_json_count(r.out, "double_sweeps", 32);
         sl_run_result_free(&r);
         assert_against_truth(dir, "INST-ALOX", files[k][1], 0.01, 0.03);
+        /* compare flags every device beyond the plan's max_hysteresis_V
+         * (1.5 V) and shows a hysteresis column */
+        char *db = sl_test_path(dir, "t.db");
+        lot_devices L = load_lot_named(db, "INST-ALOX", 300.0);
+        size_t beyond = 0;
+        for (size_t i = 0; i < L.n; i++)
+            beyond += fabs(L.rows[i].hysteresis_V) > 1.5;
+        lot_devices_free(&L);
+        free(db);
+        const char *json[] = { "compare", "--lot", "INST-ALOX", "--db", "t.db", "--format", "json",
+                               NULL };
+        r = sl_test_run(dir, NULL, json);
+        ck_assert_msg(r.exit_code == 0, "%s", r.err);
+        size_t flagged = 0;
+        for (const char *p = r.out; (p = strstr(p, "\"flags\": [\"hysteresis\"]")) != NULL; p++)
+            flagged++;
+        ck_assert_msg(beyond > 0 && flagged == beyond, "%zu flagged, %zu beyond 1.5 V", flagged,
+                      beyond);
+        sl_run_result_free(&r);
+        const char *text[] = { "compare", "--lot", "INST-ALOX", "--db", "t.db", NULL };
+        r = sl_test_run(dir, NULL, text);
+        ck_assert_msg(strstr(r.out, "flags       hyst\n") && strstr(r.out, "beyond the plan's 1.50 V"),
+                      "%s", r.out);
+        sl_run_result_free(&r);
         drop_dir(dir);
     }
 }

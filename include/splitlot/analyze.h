@@ -21,6 +21,7 @@
 #define SL_FLAG_OFF_PREDICTION 0x02u /* outside the 99.7 % prediction interval */
 #define SL_FLAG_FIT_CLASS      0x04u /* extraction failed (short, open, ...) */
 #define SL_FLAG_UNMEASURED     0x08u /* probed, no neutrality point reported */
+#define SL_FLAG_HYSTERESIS     0x10u /* |hysteresis| above the plan's device.max_hysteresis_V */
 
 /* Half-width of the off-prediction interval in combined sigmas (99.7 %). */
 #define SL_ANALYZE_INTERVAL_SIGMAS 3.0
@@ -87,6 +88,7 @@ typedef struct sl_analysis {
                                     stream's summary */
     size_t n_flagged;
     size_t n_usable;
+    size_t n_with_hysteresis;    /* devices with a hysteresis (double sweeps) */
     size_t n_off_plan;
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
     double *split_gate_min_V, *split_gate_max_V;
@@ -163,8 +165,9 @@ sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
 void sl_analysis_stream_rewind(sl_analysis_stream *stream);
 void sl_analysis_stream_free(sl_analysis_stream *stream);
 
-/* Flag names of a device, in a fixed order, into names (at most 4); returns
- * the count: "outlier", "off-prediction", the fit class, "unmeasured". */
+/* Flag names of a device, in a fixed order, into names (at most 4: the fit
+ * class and "unmeasured" never come together); returns the count:
+ * "outlier", "off-prediction", the fit class, "unmeasured", "hysteresis". */
 int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
 
 /* ---- history across lots ---- */

@@ -84,6 +84,8 @@ static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_devi
     if (!table)
         cli_cell_num(t, d->modified_z);
     cli_cell_list(t, names, sl_analyze_flag_names(d, names));
+    if (table && a->n_with_hysteresis > 0)
+        cli_cell_num(t, d->hysteresis_V);
     if (table)
         return;
     double numbers[] = { d->mobility_cm2_per_Vs, d->n0_per_cm2, d->r_contact_ohm, d->hysteresis_V,
@@ -124,6 +126,8 @@ static void devices_table(cli_doc *doc, compare_rows *rows)
     if (!table)
         cli_table_col_fixed(t, "modified_z", "M", 2);
     cli_table_col_list(t, "flags", "flags");
+    if (table && rows->a->n_with_hysteresis > 0) /* a lot of double sweeps */
+        cli_table_col_fixed(t, "hysteresis_V", "hyst", 2);
     if (table)
         return;
     cli_table_col_int(t, "measurements", "n");
