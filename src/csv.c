@@ -999,6 +999,36 @@ static bool short_number_e(double *out, const char *s, size_t len, int exp10)
 }
 #endif
 
+/* A token of the form M e X, M a short_number token of at most 8 bytes and X
+ * an exponent of at most three digits ("1.234567e-05", the way meters write
+ * currents): the exponent joins the scale of short_number_e, so the value is
+ * still rounded once. Returns false for any other token. */
+static bool short_exp_number(double *out, const char *s, size_t len, int exp10)
+{
+    size_t k = 1;
+    while (k < len && k <= WORD_BYTES && s[k] != 'e' && s[k] != 'E')
+        k++;
+    if (k > WORD_BYTES || k + 1 >= len)
+        return false;
+    const char *e = s + k + 1;
+    size_t n = len - k - 1;
+    bool negative = *e == '-';
+    if (*e == '+' || *e == '-') {
+        e++;
+        n--;
+    }
+    if (n == 0 || n > 3)
+        return false;
+    int x = 0;
+    for (size_t i = 0; i < n; i++) {
+        unsigned d = digit_value(e[i]);
+        if (d > 9)
+            return false;
+        x = 10 * x + (int)d;
+    }
+    return short_number_e(out, s, k, exp10 + (negative ? -x : x));
+}
+
 bool sl_csv_parse_double(double *out, const char *token, size_t len)
 {
     char word[WORD_BYTES] = { 0 };   /* short_number reads a whole word */
@@ -1013,10 +1043,15 @@ bool sl_csv_parse_double(double *out, const char *token, size_t len)
 bool sl_csv_parse_double_e(double *out, const char *token, size_t len, int exp10,
                            bool decimal_comma)
 {
-    char word[WORD_BYTES] = { 0 };
+    char word[2 * WORD_BYTES] = { 0 };
     if (len - 1u < WORD_BYTES) {
         memcpy(word, token, len);
         if (short_number_e(out, word, len, exp10))
+            return true;
+    }
+    if (len - 1u < 2 * WORD_BYTES - 1u) {
+        memcpy(word, token, len);
+        if (short_exp_number(out, word, len, exp10))
             return true;
     }
     return parse_number_e(out, token, len, exp10, decimal_comma) == NUM_OK;
@@ -1055,6 +1090,8 @@ sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *d
         /* a field lies in the buffer, so a word from its start is readable */
         if (f->len - 1u < WORD_BYTES && short_number(out, csv->buf + f->off, f->len))
             return SL_OK;
+        if (short_exp_number(out, csv->buf + f->off, f->len, 0))
+            return SL_OK;
     }
     return general_number(out, csv, field, 0, diag);
 }
@@ -1067,6 +1104,8 @@ sl_status sl_csv_number_e(double *out, const sl_csv *csv, size_t field, int exp1
     if (field < csv->n_fields) {
         const field_span *f = &csv->fields[field];
         if (f->len - 1u < WORD_BYTES && short_number_e(out, csv->buf + f->off, f->len, exp10))
+            return SL_OK;
+        if (short_exp_number(out, csv->buf + f->off, f->len, exp10))
             return SL_OK;
     }
     return general_number(out, csv, field, exp10, diag);

@@ -479,7 +479,7 @@ static sl_status read_point(ingest_ctx *c, fit_batch *f)
     if (b->by_current) {
         st = sl_rowsrc_number(&id, c->src, SL_ROW_ID, c->diag);
         if (st == SL_OK)
-            st = sl_rowsrc_number(&vd, c->src, SL_ROW_VD, c->diag);
+            st = sl_rowsrc_number_repeated(&vd, c->src, SL_ROW_VD, c->diag);
         if (st != SL_OK)
             return st;
         overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_ID, id) ||

@@ -54,6 +54,10 @@ struct sl_rowsrc {
     size_t n_columns;
     size_t *unused;             /* file columns nobody reads */
     size_t n_unused;
+    /* sl_rowsrc_number_repeated: the last text read and its value */
+    char last_text[SL_ROW_COUNT][16];
+    size_t last_len[SL_ROW_COUNT];  /* 0: none */
+    double last_value[SL_ROW_COUNT];
 };
 
 /* ---- names ---- */
@@ -458,6 +462,24 @@ sl_status sl_rowsrc_next(bool *has_row, sl_rowsrc *src, sl_diag *diag)
 sl_status sl_rowsrc_number(double *out, const sl_rowsrc *src, sl_row_quantity q, sl_diag *diag)
 {
     return sl_csv_number_e(out, src->csv, (size_t)src->col[q], src->exp10[q], diag);
+}
+
+sl_status sl_rowsrc_number_repeated(double *out, sl_rowsrc *src, sl_row_quantity q,
+                                    sl_diag *diag)
+{
+    size_t len;
+    const char *text = sl_csv_field(src->csv, (size_t)src->col[q], &len);
+    if (len > 0 && len == src->last_len[q] && memcmp(text, src->last_text[q], len) == 0) {
+        *out = src->last_value[q];
+        return SL_OK;
+    }
+    sl_status st = sl_rowsrc_number(out, src, q, diag);
+    if (st == SL_OK && len < sizeof src->last_text[q]) {
+        memcpy(src->last_text[q], text, len);
+        src->last_len[q] = len;
+        src->last_value[q] = *out;
+    }
+    return st;
 }
 
 sl_status sl_rowsrc_optional(double *out, const sl_rowsrc *src, sl_row_quantity q,

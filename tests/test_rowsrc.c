@@ -10,6 +10,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <gsl/gsl_rng.h>
+
 #include "splitlot/rowsrc.h"
 #include "splitlot/units.h"
 #include "test_support.h"
@@ -58,6 +60,11 @@ START_TEST(units_exact)
         { SL_DIM_AMPERE, "\u00b5A", "1.1", 1.1e-6 },
         { SL_DIM_AMPERE, "nA", "0.3", 0.3e-9 },
         { SL_DIM_AMPERE, "nA", "123456.789e3", 123456.789e-6 },
+        { SL_DIM_AMPERE, "uA", "1.234567e-05", 1.234567e-11 },
+        { SL_DIM_AMPERE, "A", "-9.91E+37", -9.91e37 },
+        { SL_DIM_AMPERE, "mA", "5e-3", 5e-6 },
+        { SL_DIM_AMPERE, "nA", "12.5E2", 1250e-9 },
+        { SL_DIM_AMPERE, "A", "7.0e-300", 7.0e-300 },
         { SL_DIM_OHM, "ohm", "1500", 1500.0 },
         { SL_DIM_OHM, "Ohm", "0.1", 0.1 },
         { SL_DIM_OHM, "kohm", "4.7", 4.7e3 },
@@ -89,6 +96,38 @@ START_TEST(units_exact)
         ck_assert_msg(!sl_units_exp10(&e, refused[i].dim, refused[i].unit, strlen(refused[i].unit)),
                       "unit '%s' accepted", refused[i].unit);
     }
+}
+END_TEST
+
+/* Scaled parsing rounds once: a token in a unit 10^k gives bit for bit what
+ * strtod gives for the same digits with the exponent moved by k (glibc's
+ * strtod rounds correctly, from memory, as tests/test_csv.c relies on). */
+START_TEST(scaled_numbers_round_once)
+{
+    static const int exps[] = { -12, -9, -6, -3, 0, 3, 6, 9 };
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 15);
+    char token[64], moved[96];
+    for (int i = 0; i < 100000; i++) {
+        double x = (gsl_rng_uniform(rng) - 0.5) * pow(10.0, (double)gsl_rng_uniform_int(rng, 30) - 15.0);
+        unsigned long pick = gsl_rng_uniform_int(rng, 3);
+        if (pick == 0)
+            snprintf(token, sizeof token, "%.*f", (int)gsl_rng_uniform_int(rng, 7), x);
+        else if (pick == 1)
+            snprintf(token, sizeof token, "%.*e", (int)gsl_rng_uniform_int(rng, 9), x);
+        else
+            snprintf(token, sizeof token, "%.17g", x);
+        int e = exps[gsl_rng_uniform_int(rng, 8)];
+        char *ex = strpbrk(token, "eE");
+        long file_exp = ex ? strtol(ex + 1, NULL, 10) : 0;
+        snprintf(moved, sizeof moved, "%.*se%ld", (int)(ex ? ex - token : (long)strlen(token)),
+                 token, file_exp + e);
+        double got = 0.0, want = strtod(moved, NULL);
+        ck_assert_msg(sl_csv_parse_double_e(&got, token, strlen(token), e, false), "%s", token);
+        ck_assert_msg(memcmp(&got, &want, sizeof got) == 0, "%s at 1e%d: %a vs %a", token, e, got,
+                      want);
+    }
+    gsl_rng_free(rng);
 }
 END_TEST
 
@@ -308,6 +347,7 @@ static Suite *rowsrc_suite(void)
     TCase *tc = tcase_create("core");
     tcase_add_checked_fixture(tc, make_scratch, drop_scratch);
     tcase_add_test(tc, units_exact);
+    tcase_add_test(tc, scaled_numbers_round_once);
     tcase_add_test(tc, separators_and_decimal_comma);
     tcase_add_test(tc, column_names_with_units);
     tcase_add_test(tc, column_mappings);

@@ -125,6 +125,12 @@ int sl_rowsrc_format(char **buf, size_t *len, size_t *cap, const sl_rowsrc *src,
  * the file. */
 sl_status sl_rowsrc_number(double *out, const sl_rowsrc *src, sl_row_quantity q, sl_diag *diag);
 
+/* sl_rowsrc_number for a quantity that seldom changes from row to row (a
+ * drain bias): when the field's text is the last one read, its value is
+ * reused without parsing. */
+sl_status sl_rowsrc_number_repeated(double *out, sl_rowsrc *src, sl_row_quantity q,
+                                    sl_diag *diag);
+
 /* The same, NaN when the file lacks the quantity or the field is empty. */
 sl_status sl_rowsrc_optional(double *out, const sl_rowsrc *src, sl_row_quantity q,
                              sl_diag *diag);
