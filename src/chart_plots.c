@@ -157,7 +157,8 @@ static void strip_points(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
     }
 }
 
-static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot)
+/* The prediction's entries only where a category has a prediction. */
+static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot, int any_prediction)
 {
     const sl_chart_legend_item items[5] = {
         { SL_CHART_SWATCH_CIRCLE, NULL, NULL, "measured" },
@@ -166,7 +167,7 @@ static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot)
         { SL_CHART_SWATCH_BAND, "sigma1", NULL, "predicted \xc2\xb1" "1\xcf\x83" },
         { SL_CHART_SWATCH_BAND, "sigma3", NULL, "predicted \xc2\xb1" "3\xcf\x83" },
     };
-    sl_chart_legend(buf, legend_x(plot), plot->y_px, items, 5);
+    sl_chart_legend(buf, legend_x(plot), plot->y_px, items, any_prediction ? 5 : 2);
 }
 
 sl_status sl_chart_strip(sl_chart_buf *buf, const sl_chart_frame *frame,
@@ -185,16 +186,18 @@ sl_status sl_chart_strip(sl_chart_buf *buf, const sl_chart_frame *frame,
                        offsetof(sl_chart_category, name), x_title);
     double band_w = count ? plot.width_px / (double)count : plot.width_px;
     double spread = fmin(0.5 * band_w, 60.0);
+    int any_prediction = 0;
     for (size_t c = 0; c < count; c++) {
         double cx = sl_chart_band_center_px(&plot, count, c);
         strip_bands(buf, &y, cx, 0.4 * band_w, categories[c].predicted);
+        any_prediction |= isfinite(categories[c].predicted.val);
     }
     for (int pass = 0; pass < 2; pass++)
         for (size_t c = 0; c < count; c++)
             strip_points(buf, &y, sl_chart_band_center_px(&plot, count, c), spread,
                          &categories[c], pass);
     note_no_data(buf, &plot, isfinite(r.lo));
-    strip_legend(buf, &plot);
+    strip_legend(buf, &plot, any_prediction);
     return sl_chart_frame_close(buf);
 }
 

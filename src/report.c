@@ -172,8 +172,10 @@ static void verdict_cnp_outside(report_ctx *c)
 static void contents(report_ctx *c)
 {
     sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#runs\">Measurement runs</a></li>"
-                                "<li><a href=\"#splits\">Splits</a></li>"
-                                "<li><a href=\"#wafers\">Wafer maps</a></li>"
+                                "<li><a href=\"#splits\">Splits</a></li>");
+    if (c->has_hysteresis)
+        sl_chart_buf_append(c->buf, "<li><a href=\"#hysteresis\">Hysteresis</a></li>");
+    sl_chart_buf_append(c->buf, "<li><a href=\"#wafers\">Wafer maps</a></li>"
                                 "<li><a href=\"#effects\">Level effects</a></li>");
     if (c->has_curves)
         sl_chart_buf_append(c->buf, "<li><a href=\"#curves\">Transfer curves</a></li>");
@@ -226,6 +228,8 @@ static sl_status render_sections(report_ctx *c)
     if (st == SL_OK)
         st = sl_report_section_splits(c);
     if (st == SL_OK)
+        st = sl_report_section_hysteresis(c);
+    if (st == SL_OK)
         st = sl_report_section_wafers(c);
     if (st == SL_OK)
         st = sl_report_section_effects(c);
@@ -248,7 +252,7 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
     }
     sl_chart_buf body;
     sl_chart_buf_init(&body);
-    report_ctx c = { &body, analysis, store, opts, summary ? summary : &local, diag, 0, 0 };
+    report_ctx c = { &body, analysis, store, opts, summary ? summary : &local, diag, 0, 0, 0 };
     memset(c.sum, 0, sizeof *c.sum);
     snprintf(c.sum->step, sizeof c.sum->step, "%s", analysis->step);
     c.sum->temperature_K = analysis->temperature_K;

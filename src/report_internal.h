@@ -16,6 +16,7 @@ typedef struct {
     sl_report_summary *sum;
     sl_diag *diag;
     int has_curves, has_history; /* sections present, for the contents */
+    int has_hysteresis;
 } report_ctx;
 
 /* ---- report_format.c: numbers with units, escaped text ---- */
@@ -53,6 +54,9 @@ sl_status sl_report_section_runs(report_ctx *c);
 /* ---- report_sections.c: splits and effects ---- */
 sl_status sl_report_section_splits(report_ctx *c);
 sl_status sl_report_section_effects(report_ctx *c);
+
+/* ---- report_hysteresis.c: per split, for lots with double sweeps ---- */
+sl_status sl_report_section_hysteresis(report_ctx *c);
 
 /* ---- report_wafers.c ---- */
 sl_status sl_report_section_wafers(report_ctx *c);

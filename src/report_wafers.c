@@ -1,12 +1,17 @@
 /* SPDX-License-Identifier: MIT
  * Wafer maps of the lot report: one small map per wafer on the plan's die
- * grid, dies coloured by deviation from prediction (V) on a symmetric range
- * shared by the wafers of one dielectric, unusable and flagged dies marked.
+ * grid (prober coordinates counted from wafer_map.first_die), dies coloured
+ * by deviation from prediction (V) on a symmetric range shared by the wafers
+ * of one dielectric, unusable and flagged dies marked. A die with several
+ * devices shows their median, its tooltip the count.
  */
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+
+#include <gsl/gsl_sort.h>
+#include <gsl/gsl_statistics_double.h>
 
 #include "report_internal.h"
 
@@ -14,16 +19,20 @@
 #define MAP_MIN_CELL_PX 5.0
 #define MAP_MAX_CELL_PX 16.0
 #define COLOUR_PERCENTILE 0.99
+#define DIE_LABEL_BYTES 96
 
 /* Devices grouped by wafer (plan order): wafer w owns order[first[w] ..
  * first[w + 1] - 1]. Dies and the grid slots are scratch for one wafer. */
 typedef struct {
     size_t *order, *first;
     sl_chart_die *dies;
-    double *sum_V;
-    size_t *n_values;
+    size_t *n_devices;   /* per die */
+    char (*label)[DIE_LABEL_BYTES]; /* per die: the device, or the count */
+    double *values_V;    /* one wafer's deviations, die by die */
+    size_t *die_of;      /* per device of the wafer: its die */
     long *slot;          /* rows x cols: index into dies, or -1 */
     size_t n_slots;
+    size_t n_shared;     /* dies drawn with more than one device, all wafers */
 } wafer_groups;
 
 static void groups_free(wafer_groups *g)
@@ -31,8 +40,10 @@ static void groups_free(wafer_groups *g)
     free(g->order);
     free(g->first);
     free(g->dies);
-    free(g->sum_V);
-    free(g->n_values);
+    free(g->n_devices);
+    free(g->label);
+    free(g->values_V);
+    free(g->die_of);
     free(g->slot);
 }
 
@@ -49,10 +60,13 @@ static sl_status groups_build(wafer_groups *g, const sl_analysis *a)
     g->order = malloc(n * sizeof *g->order);
     g->first = calloc(nw + 2, sizeof *g->first);
     g->dies = malloc(n * sizeof *g->dies);
-    g->sum_V = malloc(n * sizeof *g->sum_V);
-    g->n_values = malloc(n * sizeof *g->n_values);
+    g->n_devices = malloc(n * sizeof *g->n_devices);
+    g->label = malloc(n * sizeof *g->label);
+    g->values_V = malloc(n * sizeof *g->values_V);
+    g->die_of = malloc(n * sizeof *g->die_of);
     g->slot = malloc((g->n_slots ? g->n_slots : 1) * sizeof *g->slot);
-    if (!g->order || !g->first || !g->dies || !g->sum_V || !g->n_values || !g->slot) {
+    if (!g->order || !g->first || !g->dies || !g->n_devices || !g->label || !g->values_V ||
+        !g->die_of || !g->slot) {
         groups_free(g);
         return SL_ENOMEM;
     }
@@ -98,45 +112,77 @@ static double colour_range_V(const sl_analysis *a, size_t dielectric, double *sc
     return ceil(m / step - 1e-9) * step;
 }
 
-static void add_device(wafer_groups *g, size_t *n_dies, const sl_analysis *a,
+/* The die's slot on the grid from the prober's coordinates, or -1 when
+ * they lie outside it. */
+static long die_slot(const sl_plan *p, const sl_analyze_device *d, long *col, long *row)
+{
+    *col = d->die_x - p->first_die_x;
+    *row = d->die_y - p->first_die_y;
+    if (*col < 0 || *row < 0 || *col >= p->wafer_cols || *row >= p->wafer_rows)
+        return -1;
+    return *row * p->wafer_cols + *col;
+}
+
+static void add_device(wafer_groups *g, size_t *n_dies, size_t k_device, const sl_analysis *a,
                        const sl_analyze_device *d)
 {
-    long slot = d->die_y * a->plan->wafer_cols + d->die_x;
+    long col, row, slot = die_slot(a->plan, d, &col, &row);
     if (g->slot[slot] < 0) {
         sl_chart_die *die = &g->dies[*n_dies];
-        *die = (sl_chart_die){ (int)d->die_x, (int)d->die_y, SL_CHART_DIE_UNUSABLE, 0.0, 0,
-                               d->device };
-        g->sum_V[*n_dies] = 0.0;
-        g->n_values[*n_dies] = 0;
+        *die = (sl_chart_die){ (int)col, (int)row, SL_CHART_DIE_UNUSABLE, 0.0, 0, d->device };
+        g->n_devices[*n_dies] = 0;
         g->slot[slot] = (long)(*n_dies)++;
     }
     size_t k = (size_t)g->slot[slot];
     g->dies[k].flagged |= d->flags != 0;
-    if (isfinite(d->deviation_V)) {
-        g->sum_V[k] += d->deviation_V;
-        g->n_values[k]++;
-    }
+    g->n_devices[k]++;
+    g->die_of[k_device] = k;
 }
 
-/* Dies of one wafer: devices sharing a die are averaged; a die is usable
- * when one of its devices is, flagged when one of them is. */
+/* The usable deviations of die k (its devices' among the wafer's first n),
+ * sorted, into out; their count. */
+static size_t die_values(const wafer_groups *g, const sl_analysis *a, size_t w, size_t n,
+                         size_t k, double *out)
+{
+    size_t m = 0;
+    for (size_t i = 0; i < n; i++) {
+        const sl_analyze_device *d = &a->devices[g->order[g->first[w] + i]];
+        if (g->die_of[i] == k && isfinite(d->deviation_V))
+            out[m++] = d->deviation_V;
+    }
+    gsl_sort(out, 1, m);
+    return m;
+}
+
+/* Dies of one wafer: a die shows the median deviation of its usable
+ * devices (one device: its own), is usable when one of them is and flagged
+ * when one of them is; a die of several devices says how many. */
 static size_t wafer_dies(wafer_groups *g, const sl_analysis *a, size_t w, size_t *off_grid)
 {
-    size_t n_dies = 0;
-    for (size_t k = g->first[w]; k < g->first[w + 1]; k++) {
-        const sl_analyze_device *d = &a->devices[g->order[k]];
-        if (d->die_x < 0 || d->die_y < 0 || d->die_x >= a->plan->wafer_cols
-            || d->die_y >= a->plan->wafer_rows) {
+    size_t n_dies = 0, n = g->first[w + 1] - g->first[w];
+    for (size_t i = 0; i < n; i++) {
+        const sl_analyze_device *d = &a->devices[g->order[g->first[w] + i]];
+        long col, row;
+        g->die_of[i] = (size_t)-1;
+        if (die_slot(a->plan, d, &col, &row) < 0) {
             (*off_grid)++;
             continue;
         }
-        add_device(g, &n_dies, a, d);
+        add_device(g, &n_dies, i, a, d);
     }
-    for (size_t i = 0; i < n_dies; i++) {
-        g->slot[g->dies[i].die_y * a->plan->wafer_cols + g->dies[i].die_x] = -1;
-        if (g->n_values[i] > 0) {
-            g->dies[i].state = SL_CHART_DIE_VALUE;
-            g->dies[i].value = g->sum_V[i] / (double)g->n_values[i];
+    for (size_t k = 0; k < n_dies; k++) {
+        sl_chart_die *die = &g->dies[k];
+        g->slot[die->die_y * a->plan->wafer_cols + die->die_x] = -1;
+        size_t m = die_values(g, a, w, n, k, g->values_V);
+        if (m > 0) {
+            die->state = SL_CHART_DIE_VALUE;
+            die->value = gsl_stats_median_from_sorted_data(g->values_V, 1, m);
+        }
+        if (g->n_devices[k] > 1) {
+            snprintf(g->label[k], DIE_LABEL_BYTES, "median of %zu usable of %zu devices", m,
+                     g->n_devices[k]);
+            die->device = g->label[k];
+            g->n_shared++;
         }
     }
     return n_dies;
@@ -212,14 +258,26 @@ sl_status sl_report_section_wafers(report_ctx *c)
         return SL_ENOMEM;
     }
     sl_report_section_open(c->buf, "wafers", "Wafer maps");
+    const sl_plan *p = c->a->plan;
     sl_chart_buf_printf(c->buf,
-                        "<p>Each die on the plan's %ld &times; %ld grid, coloured by the "
+                        "<p>Each die on the plan's %ld &times; %ld grid (prober coordinates "
+                        "from (%ld, %ld) at the top left), coloured by the "
                         "deviation of its measured neutrality voltage from its split's "
                         "prediction (V; blue below, orange above). Grey with a cross: no usable "
                         "device. Heavy outline: flagged device. Notch at the bottom.</p>\n",
-                        c->a->plan->wafer_rows, c->a->plan->wafer_cols);
-    for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
+                        p->wafer_rows, p->wafer_cols, p->first_die_x, p->first_die_y);
+    if (p->devices_per_die > 1)
+        sl_chart_buf_printf(c->buf, "<p id=\"wafer-dies-shared\">%ld devices per die "
+                            "(<code>wafer_map.devices_per_die</code>): a die shows the median "
+                            "deviation of its usable devices, not each device; its tooltip says "
+                            "how many devices it has.</p>\n", p->devices_per_die);
+    for (size_t k = 0; k < p->n_dielectrics; k++)
         dielectric_maps(c, &g, k, scratch);
+    if (g.n_shared > 0 && p->devices_per_die == 1) /* known once the maps are drawn */
+        sl_chart_buf_printf(c->buf, "<p class=\"note\" id=\"wafer-dies-shared\">%zu dies hold "
+                            "several devices though the plan has one per die: each shows the "
+                            "median deviation of its usable devices, its tooltip how many "
+                            "devices it has.</p>\n", g.n_shared);
     if (c->sum->n_dies_off_grid > 0) {
         char text[160];
         snprintf(text, sizeof text, "%zu devices have a die position outside the %ld x %ld grid "

@@ -1,0 +1,130 @@
+/* SPDX-License-Identifier: MIT
+ * Hysteresis section of the lot report, for lots measured with double
+ * sweeps: the hysteresis of every device per split as a strip chart (one per
+ * dielectric), with the plan's largest acceptable hysteresis in words. Not
+ * drawn for a lot without hysteresis.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "report_internal.h"
+
+#define HYST_LABEL_BYTES 136 /* wafer and device names of at most 64 bytes each */
+
+/* Every device's hysteresis grouped by split (counting sort, import order
+ * kept inside a split): split s owns first[s] .. first[s + 1] - 1. */
+typedef struct {
+    double *values_V;
+    unsigned char *flagged;
+    const char **labels;
+    char (*text)[HYST_LABEL_BYTES];
+    size_t *first;
+} hyst_data;
+
+static void hyst_free(hyst_data *d)
+{
+    free(d->values_V);
+    free(d->flagged);
+    free(d->labels);
+    free(d->text);
+    free(d->first);
+}
+
+static sl_status hyst_build(hyst_data *d, const sl_analysis *a)
+{
+    size_t n = a->n_devices ? a->n_devices : 1;
+    d->values_V = malloc(n * sizeof *d->values_V);
+    d->flagged = malloc(n);
+    d->labels = malloc(n * sizeof *d->labels);
+    d->text = malloc(n * sizeof *d->text);
+    d->first = calloc(a->n_splits + 2, sizeof *d->first);
+    if (!d->values_V || !d->flagged || !d->labels || !d->text || !d->first) {
+        hyst_free(d);
+        return SL_ENOMEM;
+    }
+    for (size_t i = 0; i < a->n_devices; i++)
+        d->first[a->devices[i].split + 2]++;
+    for (size_t s = 0; s < a->n_splits; s++)
+        d->first[s + 2] += d->first[s + 1];
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *dev = &a->devices[i];
+        size_t k = d->first[dev->split + 1]++;
+        d->values_V[k] = dev->hysteresis_V;
+        d->flagged[k] = (dev->flags & SL_FLAG_HYSTERESIS) != 0;
+        snprintf(d->text[k], HYST_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
+        d->labels[k] = d->text[k];
+    }
+    return SL_OK;
+}
+
+/* Splits of one dielectric with at least one hysteresis value. */
+static size_t fill(sl_chart_category *cats, const sl_analysis *a, const hyst_data *d, size_t k)
+{
+    size_t count = 0;
+    for (size_t s = 0; s < a->n_splits; s++) {
+        size_t with = 0;
+        for (size_t i = d->first[s]; i < d->first[s + 1]; i++)
+            with += isfinite(d->values_V[i]);
+        if (a->plan->splits[s].dielectric != k || with == 0)
+            continue;
+        cats[count++] = (sl_chart_category){ a->plan->splits[s].name, d->values_V + d->first[s],
+                                             d->flagged + d->first[s], d->labels + d->first[s],
+                                             d->first[s + 1] - d->first[s], { NAN, NAN } };
+    }
+    return count;
+}
+
+static void chart(report_ctx *c, const hyst_data *d, sl_chart_category *cats, size_t k)
+{
+    size_t count = fill(cats, c->a, d, k);
+    if (count == 0)
+        return;
+    const char *name = c->a->plan->dielectrics[k].name;
+    char title[160];
+    snprintf(title, sizeof title, "Hysteresis by split, dielectric %s", name);
+    sl_chart_frame frame;
+    double width = fmin(fmax(420.0, 200.0 + 120.0 * (double)count), 1000.0);
+    sl_chart_frame_default(&frame, width, 330.0, title);
+    frame.embed_style = 0;
+    sl_chart_buf_printf(c->buf, "<div class=\"stack\" data-dielectric=\"%zu\">\n<h3>", k);
+    sl_chart_buf_escape(c->buf, name);
+    sl_chart_buf_append(c->buf, "</h3>\n<figure class=\"strip hysteresis\">");
+    sl_chart_strip(c->buf, &frame, cats, count, "split", "hysteresis (V)");
+    sl_chart_buf_append(c->buf, "</figure>\n</div>\n");
+    c->sum->n_hysteresis_charts++;
+}
+
+sl_status sl_report_section_hysteresis(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    if (a->n_with_hysteresis == 0)
+        return SL_OK;
+    hyst_data d;
+    sl_chart_category *cats = malloc((a->n_splits + 1) * sizeof *cats);
+    if (!cats || hyst_build(&d, a) != SL_OK) {
+        free(cats);
+        return SL_ENOMEM;
+    }
+    c->has_hysteresis = 1;
+    sl_report_section_open(c->buf, "hysteresis", "Hysteresis of double sweeps");
+    sl_chart_buf_printf(c->buf,
+                        "<p>Neutrality voltage of the reverse sweep minus that of the forward "
+                        "sweep, per device, for the %zu devices measured with a double sweep "
+                        "(each branch fitted on its own; the device's neutrality voltage is "
+                        "their mean). ", a->n_with_hysteresis);
+    if (isfinite(a->plan->max_hysteresis_V))
+        sl_chart_buf_printf(c->buf, "The plan accepts up to %g&nbsp;V "
+                            "(<code>device.max_hysteresis_V</code>); devices beyond it are "
+                            "diamonds and flagged.</p>\n", a->plan->max_hysteresis_V);
+    else
+        sl_chart_buf_append(c->buf, "The plan sets no limit "
+                            "(<code>device.max_hysteresis_V</code>).</p>\n");
+    for (size_t k = 0; k < a->plan->n_dielectrics; k++)
+        chart(c, &d, cats, k);
+    sl_report_section_close(c->buf);
+    hyst_free(&d);
+    free(cats);
+    return c->buf->status;
+}
