@@ -978,7 +978,12 @@ START_TEST(library_summary_counts)
     sl_ingest_options opt = { .lot = "DEMO-01", .path = sweeps, .kind = SL_INGEST_SWEEPS,
                               .threads = 2 };
     sl_ingest_summary sum;
+    /* what the caller collected before stays: the library never clears it */
+    sl_diag_add(diag, SL_SEV_WARNING, "earlier.yaml", 3, 1, "a warning of the caller's");
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_OK);
+    ck_assert_uint_eq(sl_diag_size(diag), 1);
+    ck_assert_str_eq(sl_diag_get(diag, 0)->text, "a warning of the caller's");
+    sl_diag_clear(diag);
     /* 201 points per probed device (simulate's default) */
     ck_assert_int_eq(sum.rows, 201 * sum.devices);
     long classes = 0;
