@@ -135,15 +135,16 @@ static void device_keys(const char *row)
 
 static void split_keys(const char *row)
 {
-    static const char *const keys[] = { "split", "devices", "usable", "cnp_predicted_V",
-                                        "cnp_mean_V", "cnp_ci95_V", "flagged" };
+    static const char *const keys[] = { "split", "devices", "usable", "wafers", "censored",
+                                        "cnp_predicted_V", "cnp_mean_V", "cnp_ci95_V", "flagged" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void effect_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "planned_per_cm2",
-                                        "estimated_per_cm2", "stderr_per_cm2", "flags" };
+                                        "estimated_per_cm2", "stderr_per_cm2", "df",
+                                        "ci95_per_cm2", "tolerance_per_cm2", "verdict", "flags" };
     has_keys(row, keys, N_OF(keys));
 }
 
@@ -303,7 +304,7 @@ START_TEST(test_table_and_csv)
     sl_run_result r = run_in(table);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert(strstr(r.out, "failure analysis, most severe first") != NULL);
-    ck_assert(strstr(r.out, "ANOVA of measured doping across 8 splits") != NULL);
+    ck_assert(strstr(r.out, "ANOVA of wafer-mean doping across 8 splits") != NULL);
     sl_run_result_free(&r);
     static const char *const csv[] = { "compare", "--lot", "DEMO-01", "--db", "t.db",
                                        "--format", "csv", NULL };
@@ -318,15 +319,16 @@ END_TEST
 static void level_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "lots", "planned_per_cm2",
-                                        "pooled_per_cm2", "pooled_stderr_per_cm2",
-                                        "center_per_cm2", "limits_per_cm2", "drift_lots" };
+                                        "pooled_per_cm2", "pooled_se_per_cm2",
+                                        "between_lot_sigma_per_cm2", "center_per_cm2",
+                                        "limits_per_cm2", "drift_lots" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void estimate_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "lot", "estimated_per_cm2",
-                                        "stderr_per_cm2", "flags" };
+                                        "stderr_per_cm2", "limits_per_cm2", "flags" };
     has_keys(row, keys, N_OF(keys));
 }
 
@@ -376,7 +378,8 @@ START_TEST(test_history_without_measurements)
     r = run_in(compare);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert_int_eq(top_number(r.out, "device_count"), 0);
-    ck_assert(strstr(r.out, "\"anova_F\": null") != NULL);
+    ck_assert(strstr(r.out, "\"anova\": {\"F\": null, \"df_between\": 0, \"df_within\": 0, "
+                            "\"p\": null}") != NULL);
     sl_run_result_free(&r);
     free(empty);
     free(plan);
