@@ -11,7 +11,12 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
+
+#include "analyze_internal.h"
 #include "splitlot/analyze.h"
+#include "splitlot/predict.h"
 #include "splitlot/store.h"
 #include "test_support.h"
 
@@ -1122,6 +1127,276 @@ START_TEST(test_level_without_wafers)
 }
 END_TEST
 
+/* ---- Monte Carlo: simulated lots with wafer scatter, analysed in memory ------------- */
+
+/* One dielectric (90 nm SiO2) and a treatment t1 planned at 1.2e12 +/- 0.3e12
+ * (tolerance 0.3e12): two splits, k wafers each, M devices a wafer. The
+ * lots are drawn here (gsl_rng mt19937, fixed seed) straight into what the
+ * passes over a stored lot keep per wafer, and analysed by the same
+ * function as compare (sl_analyze_wafer_statistics). */
+#define MC_LOTS 2000
+#define MC_DEVICES 20
+#define MC_WAFER_SIGMA 3.0e11  /* cm^-2 */
+#define MC_DEVICE_SIGMA_V 0.6
+#define MC_PLANNED 1.2e12
+#define MC_TOLERANCE 0.3e12
+#define MC_BASELINE -2.0e12
+
+typedef struct {
+    sl_plan *plan;
+    sl_layout *layout;
+    sl_analysis a;
+    sl_analyze_wafer *wafers;
+    double per_cm2_per_V;  /* -C_g / e in cm^-2 per V */
+    double wafer_sigma;    /* cm^-2 */
+    gsl_rng *rng;
+} mc_lot;
+
+static void mc_open(mc_lot *m, int wafers_per_split, unsigned long seed)
+{
+    char text[1024];
+    snprintf(text, sizeof text,
+             "lot: MC-01\n"
+             "temperatures_K: [300]\n"
+             "baseline_doping_per_cm2: { mean: %g, sigma: 0.5e12 }\n"
+             "dielectrics: [ { name: ox90, layers: [ { material: SiO2, thickness_nm: 90 } ] } ]\n"
+             "treatments: [ { name: t1, doping_per_cm2: { mean: %g, sigma: 0.3e12, tolerance: %g } } ]\n"
+             "design: { kind: full-factorial, factors: { dielectric: [ox90], anneal: [none, t1] },\n"
+             "          wafers_per_split: %d }\n"
+             "wafers: %d\n"
+             "devices_per_wafer: %d\n",
+             MC_BASELINE, MC_PLANNED, MC_TOLERANCE, wafers_per_split, 2 * wafers_per_split,
+             MC_DEVICES);
+    memset(m, 0, sizeof *m);
+    ck_assert_int_eq(sl_plan_parse(&m->plan, text, strlen(text), "mc.yaml", NULL), SL_OK);
+    ck_assert_int_eq(sl_layout_build(&m->layout, m->plan, NULL), SL_OK);
+    sl_prediction *pred = NULL;
+    size_t n = 0;
+    ck_assert_int_eq(sl_predict_plan(&pred, &n, m->plan, NULL), SL_OK);
+    sl_analysis *a = &m->a;
+    a->plan = m->plan;
+    a->n_splits = m->plan->n_splits;
+    a->splits = calloc(a->n_splits, sizeof *a->splits);
+    a->split_capacitance_F_per_m2 = calloc(a->n_splits, sizeof(double));
+    a->split_gate_min_V = calloc(a->n_splits, sizeof(double));
+    a->split_gate_max_V = calloc(a->n_splits, sizeof(double));
+    for (size_t s = 0; s < a->n_splits; s++) {
+        const sl_prediction *p = &pred[s * m->plan->n_temperatures];
+        a->split_capacitance_F_per_m2[s] = p->gate_capacitance_F_per_m2;
+        a->split_gate_min_V[s] = p->gate_min_V;
+        a->split_gate_max_V[s] = p->gate_max_V;
+        a->splits[s].cnp_predicted_V = p->cnp_V.val;
+    }
+    m->per_cm2_per_V = -pred[0].gate_capacitance_F_per_m2 / 1.602176634e-19 * 1e-4;
+    free(pred);
+    m->wafers = calloc(m->layout->n_wafers, sizeof *m->wafers);
+    m->wafer_sigma = MC_WAFER_SIGMA;
+    m->rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(m->rng, seed);
+}
+
+static void mc_close(mc_lot *m)
+{
+    free(m->a.effects);
+    free(m->a.splits);
+    free(m->a.split_capacitance_F_per_m2);
+    free(m->a.split_gate_min_V);
+    free(m->a.split_gate_max_V);
+    free(m->wafers);
+    gsl_rng_free(m->rng);
+    sl_layout_free(m->layout);
+    sl_plan_free(m->plan);
+}
+
+/* True doping of a split: baseline, plus t1 as delivered. */
+static double mc_truth(const mc_lot *m, long split, double t1_true)
+{
+    return MC_BASELINE + (m->plan->splits[split].n_treatments ? t1_true : 0.0);
+}
+
+/* Draw a lot with t1 delivering t1_true, the t1 split's V_cnp above
+ * censor_above_V (the end of its sweeps, if finite) censored at that bound
+ * (dropped instead when drop_censored), and analyse it. */
+static void mc_lot_run(mc_lot *m, double t1_true, double censor_above_V, int drop_censored)
+{
+    sl_analysis *a = &m->a;
+    free(a->effects);
+    a->effects = NULL;
+    a->n_effects = 0;
+    a->n_off_plan = a->n_censored = a->n_splits_censored = a->n_splits_cnp_outside = 0;
+    memset(a->n_verdict, 0, sizeof a->n_verdict);
+    for (size_t s = 0; s < a->n_splits; s++)
+        a->splits[s].n_usable = a->splits[s].n_censored = 0;
+    for (size_t w = 0; w < m->layout->n_wafers; w++) {
+        sl_analyze_wafer *wf = &m->wafers[w];
+        memset(wf, 0, sizeof *wf);
+        wf->split = m->layout->wafers[w].split;
+        double wafer_doping = mc_truth(m, wf->split, t1_true) + gsl_ran_gaussian(m->rng, m->wafer_sigma);
+        for (int d = 0; d < MC_DEVICES; d++) {
+            double v = wafer_doping / m->per_cm2_per_V + gsl_ran_gaussian(m->rng, MC_DEVICE_SIGMA_V);
+            if (m->plan->splits[wf->split].n_treatments && v > censor_above_V) {
+                if (!drop_censored)
+                    sl_analyze_wafer_censor(wf, 1, censor_above_V);
+                continue;
+            }
+            sl_analyze_wafer_add(wf, v);
+            wf->n_usable++;
+            a->splits[wf->split].n_usable++;
+        }
+    }
+    ck_assert_int_eq(sl_analyze_wafer_statistics(a, m->layout, m->wafers), SL_OK);
+    ck_assert_int_eq(a->effects_status, SL_OK);
+}
+
+/* The t1 effect of the last lot. */
+static const sl_analyze_effect *mc_t1(const mc_lot *m)
+{
+    for (size_t i = 0; i < m->a.n_effects; i++)
+        if (strcmp(m->a.effects[i].level, "t1") == 0)
+            return &m->a.effects[i];
+    ck_abort_msg("no t1 effect");
+    return NULL;
+}
+
+/* |rate - p| within 2 binomial standard errors sqrt(p (1 - p) / n). */
+static void check_rate(const char *what, size_t hits, size_t n, double p)
+{
+    double rate = (double)hits / (double)n, se = sqrt(p * (1.0 - p) / (double)n);
+    ck_assert_msg(fabs(rate - p) <= 2.0 * se, "%s: %.4f, expected %.4f +/- %.4f", what, rate, p,
+                  2.0 * se);
+}
+
+/* SE of the t1 effect: the difference of two split means of k wafers, each
+ * wafer mean of variance sigma_w^2 + (sigma_d C_g/e)^2 / M. */
+static double mc_effect_se(const mc_lot *m, int k)
+{
+    double sd_n = MC_DEVICE_SIGMA_V * m->per_cm2_per_V;
+    return sqrt(2.0 * (MC_WAFER_SIGMA * MC_WAFER_SIGMA + sd_n * sd_n / MC_DEVICES) / k);
+}
+
+/* Under a true null (t1 delivers nothing, so both splits have one mean):
+ * the ANOVA of wafer means rejects at 5 % in 5 % of lots (Fisher's F test,
+ * exact for normal wafer means; Montgomery, Design and Analysis of
+ * Experiments); each split's 95 % t interval of its wafer means covers the
+ * true split mean in 95 % of lots (Student's t, exact for normal wafer
+ * means). Both within 2 binomial SE. */
+START_TEST(test_mc_anova_and_split_coverage)
+{
+    mc_lot m;
+    mc_open(&m, 5, 20261203);
+    size_t rejected = 0, covered = 0, intervals = 0;
+    for (int lot = 0; lot < MC_LOTS; lot++) {
+        mc_lot_run(&m, 0.0, INFINITY, 0);
+        ck_assert_double_eq(m.a.anova.df_between, 1.0);
+        ck_assert_double_eq(m.a.anova.df_within, 8.0);
+        rejected += m.a.anova.p < 0.05;
+        for (size_t s = 0; s < m.a.n_splits; s++) {
+            double truth_V = mc_truth(&m, (long)s, 0.0) / m.per_cm2_per_V;
+            const sl_stats_summary *c = &m.a.splits[s].cnp;
+            covered += c->ci_low <= truth_V && truth_V <= c->ci_high;
+            intervals++;
+        }
+    }
+    check_rate("ANOVA false positives", rejected, MC_LOTS, 0.05);
+    check_rate("split CI coverage", covered, intervals, 0.95);
+    mc_close(&m);
+}
+END_TEST
+
+/* A level delivered exactly as planned is judged off-plan or differs in at
+ * most alpha of lots: both need the 95 % interval of d = estimate - planned
+ * to exclude 0, which a t interval does in 5 % of lots (Student's t; the
+ * equivalence logic of Schuirmann, J. Pharmacokinet. Biopharm. 15, 657
+ * (1987)). */
+START_TEST(test_mc_as_planned_rarely_flagged)
+{
+    mc_lot m;
+    mc_open(&m, 5, 777);
+    size_t flagged = 0, as_planned = 0;
+    for (int lot = 0; lot < MC_LOTS; lot++) {
+        mc_lot_run(&m, MC_PLANNED, INFINITY, 0);
+        sl_verdict v = mc_t1(&m)->judgement.verdict;
+        flagged += v == SL_VERDICT_OFF_PLAN || v == SL_VERDICT_DIFFERS;
+        as_planned += v == SL_VERDICT_AS_PLANNED;
+        ck_assert_double_eq(mc_t1(&m)->df, 8.0);
+    }
+    double rate = (double)flagged / MC_LOTS, se = sqrt(0.05 * 0.95 / MC_LOTS);
+    ck_assert_msg(rate <= 0.05 + 2.0 * se, "flagged in %.4f of lots", rate);
+    ck_assert_uint_gt(as_planned, 0);
+    mc_close(&m);
+}
+END_TEST
+
+/* A level that misses its plan by T + 4 SE is judged off-plan when the
+ * interval's lower end clears T: (d - T)/SE-hat > t_{0.975, df}, with
+ * (d - T)/SE-hat noncentral t (df, 4). Rates from scipy.stats.nct.sf(
+ * scipy.stats.t.ppf(0.975, df), df, 4.0): 0.9367428609357922 at df = 8
+ * (5 wafers a split), 0.8432963951444645 at df = 4 (3 wafers a split). With
+ * every wafer of M devices the weights are equal, so the fit is ordinary
+ * least squares and the noncentral t exact. */
+START_TEST(test_mc_off_plan_power)
+{
+    static const struct {
+        int wafers_per_split;
+        double df, power;
+    } cases[] = { { 5, 8.0, 0.9367428609357922 }, { 3, 4.0, 0.8432963951444645 } };
+    for (size_t i = 0; i < N_OF(cases); i++) {
+        mc_lot m;
+        mc_open(&m, cases[i].wafers_per_split, 4242 + i);
+        double t1 = MC_PLANNED + MC_TOLERANCE + 4.0 * mc_effect_se(&m, cases[i].wafers_per_split);
+        size_t off = 0;
+        for (int lot = 0; lot < MC_LOTS; lot++) {
+            mc_lot_run(&m, t1, INFINITY, 0);
+            ck_assert_double_eq(mc_t1(&m)->df, cases[i].df);
+            off += mc_t1(&m)->judgement.verdict == SL_VERDICT_OFF_PLAN;
+        }
+        check_rate(cases[i].df == 8.0 ? "power at 8 df" : "power at 4 df", off, MC_LOTS,
+                   cases[i].power);
+        mc_close(&m);
+    }
+}
+END_TEST
+
+/* Devices whose neutrality point lies beyond the sweep: with a wafer
+ * sigma of 1e11 cm^-2 (0.42 V) the t1 split sits 0.3 V below the sweep's
+ * end, so about a third of its devices are censored. The censored-normal
+ * maximum-likelihood wafer means (Tobin, Econometrica 26, 24 (1958)) leave
+ * the t1 estimate biased by less than 1 SE of one lot's estimate, averaged
+ * over the lots; dropping the censored devices instead biases it by more
+ * than that (the check can fail), and the split is reported as censored. */
+START_TEST(test_mc_censored_bias)
+{
+    mc_lot m;
+    mc_open(&m, 5, 99);
+    m.wafer_sigma = 1.0e11;
+    double t1 = MC_PLANNED, top_V = (MC_BASELINE + t1) / m.per_cm2_per_V + 0.3;
+    double sum_ml = 0.0, sum_drop = 0.0, sum_se = 0.0;
+    size_t censored = 0, usable = 0, warned = 0;
+    const int lots = MC_LOTS / 4;
+    for (int lot = 0; lot < lots; lot++) {
+        mc_lot_run(&m, t1, top_V, 0);
+        sum_ml += mc_t1(&m)->estimated_per_cm2;
+        sum_se += mc_t1(&m)->stderr_per_cm2;
+        censored += m.a.n_censored;
+        for (size_t s = 0; s < m.a.n_splits; s++)
+            usable += m.a.splits[s].n_usable;
+        warned += m.a.n_splits_censored;
+    }
+    gsl_rng_set(m.rng, 99);
+    for (int lot = 0; lot < lots; lot++) {
+        mc_lot_run(&m, t1, top_V, 1);
+        sum_drop += mc_t1(&m)->estimated_per_cm2;
+    }
+    double se = sum_se / lots, bias_ml = sum_ml / lots - t1, bias_drop = sum_drop / lots - t1;
+    double share = (double)censored / (double)(censored + usable);
+    ck_assert_msg(share > 0.1 && share < 0.25, "censored share %.3f of the lot", share);
+    ck_assert_uint_ge(warned, (size_t)lots * 9 / 10); /* the t1 split, > 10 % censored */
+    ck_assert_msg(fabs(bias_ml) < se, "ML bias %g, SE %g", bias_ml, se);
+    ck_assert_msg(fabs(bias_drop) > se, "dropping the censored: bias %g, SE %g", bias_drop, se);
+    mc_close(&m);
+}
+END_TEST
+
 static Suite *analyze_suite(void)
 {
     Suite *s = suite_create("analyze");
@@ -1135,6 +1410,13 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_compare_output_unchanged);
     tcase_add_test(stats, test_stream_reads_back_the_lot);
     suite_add_tcase(s, stats);
+    TCase *mc = tcase_create("monte carlo");
+    tcase_set_timeout(mc, 120);
+    tcase_add_test(mc, test_mc_anova_and_split_coverage);
+    tcase_add_test(mc, test_mc_as_planned_rarely_flagged);
+    tcase_add_test(mc, test_mc_off_plan_power);
+    tcase_add_test(mc, test_mc_censored_bias);
+    suite_add_tcase(s, mc);
     TCase *lots = tcase_create("simulated lots");
     tcase_set_timeout(lots, 300);
     tcase_add_test(lots, test_end_to_end_off_plan_and_faults);
