@@ -171,20 +171,23 @@ static void planned_effect(sl_analyze_effect *e, const sl_plan *plan, size_t fac
     e->tolerance_per_cm2 = sl_plan_level_tolerance_per_cm2(plan, factor, level);
     e->estimated_per_cm2 = e->stderr_per_cm2 = NAN;
     e->ci_low_per_cm2 = e->ci_high_per_cm2 = NAN;
-    sl_stats_verdict(&e->judgement, NAN, e->planned_per_cm2, NAN, 0.0, e->tolerance_per_cm2,
-                     SL_ANALYZE_ALPHA);
+    e->verdict = SL_VERDICT_INCONCLUSIVE;
 }
 
 /* The interval of the estimate and the verdict against the plan. */
 static void judge(sl_analysis *a, sl_analyze_effect *e, double df)
 {
     e->df = df;
-    sl_verdict v = sl_stats_verdict(&e->judgement, e->estimated_per_cm2, e->planned_per_cm2,
-                                    e->stderr_per_cm2, df, e->tolerance_per_cm2, SL_ANALYZE_ALPHA);
+    sl_stats_verdict_kind v = sl_stats_verdict(e->estimated_per_cm2 - e->planned_per_cm2,
+                                               e->stderr_per_cm2, df, e->tolerance_per_cm2,
+                                               SL_ANALYZE_ALPHA);
+    e->verdict = v;
+    /* the interval the verdict rests on, around the estimate */
+    double t = sl_stats_t_quantile(1.0 - 0.5 * SL_ANALYZE_ALPHA, df);
     e->ci_low_per_cm2 = e->ci_high_per_cm2 = NAN;
-    if (isfinite(e->judgement.t_crit)) {
-        e->ci_low_per_cm2 = e->estimated_per_cm2 - e->judgement.t_crit * e->stderr_per_cm2;
-        e->ci_high_per_cm2 = e->estimated_per_cm2 + e->judgement.t_crit * e->stderr_per_cm2;
+    if (isfinite(t) && isfinite(e->stderr_per_cm2)) {
+        e->ci_low_per_cm2 = e->estimated_per_cm2 - t * e->stderr_per_cm2;
+        e->ci_high_per_cm2 = e->estimated_per_cm2 + t * e->stderr_per_cm2;
     }
     e->off_plan = v == SL_VERDICT_OFF_PLAN || v == SL_VERDICT_DIFFERS;
     if (!e->is_intercept) {

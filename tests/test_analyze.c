@@ -1315,7 +1315,7 @@ START_TEST(test_mc_as_planned_rarely_flagged)
     size_t flagged = 0, as_planned = 0;
     for (int lot = 0; lot < MC_LOTS; lot++) {
         mc_lot_run(&m, MC_PLANNED, INFINITY, 0);
-        sl_verdict v = mc_t1(&m)->judgement.verdict;
+        sl_stats_verdict_kind v = mc_t1(&m)->verdict;
         flagged += v == SL_VERDICT_OFF_PLAN || v == SL_VERDICT_DIFFERS;
         as_planned += v == SL_VERDICT_AS_PLANNED;
         ck_assert_double_eq(mc_t1(&m)->df, 8.0);
@@ -1348,7 +1348,7 @@ START_TEST(test_mc_off_plan_power)
         for (int lot = 0; lot < MC_LOTS; lot++) {
             mc_lot_run(&m, t1, INFINITY, 0);
             ck_assert_double_eq(mc_t1(&m)->df, cases[i].df);
-            off += mc_t1(&m)->judgement.verdict == SL_VERDICT_OFF_PLAN;
+            off += mc_t1(&m)->verdict == SL_VERDICT_OFF_PLAN;
         }
         check_rate(cases[i].df == 8.0 ? "power at 8 df" : "power at 4 df", off, MC_LOTS,
                    cases[i].power);

@@ -466,7 +466,10 @@ START_TEST(test_off_plan_verdict)
     const char *v_end = strstr(v, "</li>");
     ck_assert_uint_eq(count_in(v, v_end, "anneal-350"), 1);
     ck_assert_ptr_nonnull(strstr(g_html[_i], "data-verdict=\"cnp-outside\" data-count=\"0\""));
-    ck_assert_ptr_nonnull(strstr(g_html[_i], "<td>off plan</td>"));
+    ck_assert_ptr_nonnull(strstr(g_html[_i], "<td>off-plan</td>"));
+    long differing = json_number(g_json[_i], "levels_differing");
+    snprintf(verdict, sizeof verdict, "data-verdict=\"differs\" data-count=\"%ld\"", differing);
+    ck_assert_ptr_nonnull(strstr(g_html[_i], verdict));
 }
 END_TEST
 

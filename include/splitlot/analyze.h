@@ -75,7 +75,7 @@ typedef struct {
     double df;                   /* residual df of the wafer-mean fit; 0: none */
     double ci_low_per_cm2, ci_high_per_cm2; /* 95 %: estimate -/+ t_{0.975, df} SE */
     double tolerance_per_cm2;    /* the plan's, default its sigma */
-    sl_stats_judgement judgement; /* verdict and the interval of estimate - planned */
+    sl_stats_verdict_kind verdict; /* of estimate - planned against the tolerance */
     int off_plan;                /* flagged: verdict off-plan or differs */
     size_t n_wafers;             /* wafers at this level with usable devices */
 } sl_analyze_effect;
@@ -98,7 +98,7 @@ typedef struct sl_analysis {
     size_t n_flagged;
     size_t n_usable;
     size_t n_off_plan;           /* levels flagged: off-plan or differs */
-    size_t n_verdict[4];         /* levels (not the intercept) per sl_verdict */
+    size_t n_verdict[4];         /* levels (not the intercept) per verdict */
     size_t n_censored;           /* devices with V_cnp beyond the sweep */
     size_t n_splits_censored;    /* splits with more than 10 % censored */
     size_t n_outlier_scored;     /* devices the outlier rule scored */

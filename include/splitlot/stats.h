@@ -338,36 +338,28 @@ sl_status sl_stats_fit_components(sl_stats_fit **out, double *unit_var, const do
 sl_status sl_stats_censored_mean(double *mean, double *se, size_t n, double xbar, double sigma,
                                  size_t n_above, double above, size_t n_below, double below);
 
-/* ---- Verdict of a level against its plan ---------------------------------- */
+/* ---- Verdict of a level against its plan (src/stats_verdict.c) ------------ */
 
+/* Verdict of a level against its plan (equivalence logic), from the
+ * difference d = estimate - planned, its standard error se, df and the
+ * tolerance T > 0, with the two-sided (1 - alpha) interval d +/- t se,
+ * t = t_{1-alpha/2, df}:
+ *   AS_PLANNED   the interval lies inside [-T, T]
+ *   OFF_PLAN     the interval lies entirely outside [-T, T]
+ *   DIFFERS      the interval excludes 0 but is neither of those
+ *   INCONCLUSIVE otherwise, or without df (df < 1) or a finite se. */
 typedef enum {
-    SL_VERDICT_INCONCLUSIVE = 0, /* the interval cannot tell */
-    SL_VERDICT_AS_PLANNED,       /* interval of d inside [-T, T] */
-    SL_VERDICT_DIFFERS,          /* excludes 0, neither of the others */
-    SL_VERDICT_OFF_PLAN          /* entirely outside [-T, T] */
-} sl_verdict;
+    SL_VERDICT_INCONCLUSIVE = 0,
+    SL_VERDICT_AS_PLANNED,
+    SL_VERDICT_OFF_PLAN,
+    SL_VERDICT_DIFFERS
+} sl_stats_verdict_kind;
 
-typedef struct {
-    sl_verdict verdict;
-    double diff;             /* d = estimate - planned */
-    double t_crit;           /* t_{1 - alpha/2, df}; NaN without df */
-    double ci_low, ci_high;  /* d -/+ t_crit se; NaN without df */
-} sl_stats_judgement;
+sl_stats_verdict_kind sl_stats_verdict(double d, double se, double df, double tolerance,
+                                       double alpha);
 
-/* The verdict of an estimate (SE se with df degrees of freedom) against its
- * planned value with tolerance T >= 0 (equivalence logic: Schuirmann, J.
- * Pharmacokinet. Biopharm. 15, 657 (1987) for the interval inside [-T, T]):
- * with d = estimate - planned and the 1 - alpha interval d +/- t se,
- * `as-planned` when it lies inside [-T, T], `off-plan` when entirely outside
- * it, `differs` when it excludes 0 but is neither, `inconclusive` otherwise
- * and whenever df <= 0, se is not finite or negative, or an argument is not
- * finite. The one rule for the analysis and for planning power. out may be
- * NULL; returns the verdict. */
-sl_verdict sl_stats_verdict(sl_stats_judgement *out, double estimate, double planned, double se,
-                            double df, double tolerance, double alpha);
-
-/* "as-planned", "differs", "off-plan", "inconclusive". */
-const char *sl_stats_verdict_name(sl_verdict verdict);
+/* "as-planned", "off-plan", "differs", "inconclusive". */
+const char *sl_stats_verdict_name(sl_stats_verdict_kind verdict);
 
 /* ---- Individuals control chart -------------------------------------------- */
 

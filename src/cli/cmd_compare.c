@@ -172,7 +172,7 @@ static void effects_table(cli_doc *doc, const sl_analysis *a)
     cli_table_col_list(t, "flags", "flags");
     for (size_t i = 0; i < a->n_effects; i++) {
         const sl_analyze_effect *e = &a->effects[i];
-        const char *flag = sl_stats_verdict_name(e->judgement.verdict);
+        const char *flag = sl_stats_verdict_name(e->verdict);
         cli_table_row(t);
         cli_cell_str(t, e->factor);
         cli_cell_str(t, e->level);

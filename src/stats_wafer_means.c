@@ -1,8 +1,8 @@
 /* SPDX-License-Identifier: MIT
- * Statistics with the wafer as the unit (see include/splitlot/stats.h): the
+ * Statistics of wafer means (see include/splitlot/stats.h): the
  * least-squares fit of wafer means with variance components, the
- * censored-normal maximum-likelihood mean, the verdict of a level against
- * its plan and random-effects pooling across lots. Numbers only; no I/O.
+ * censored-normal maximum-likelihood mean of a wafer, and random-effects
+ * pooling of per-lot estimates. Numbers only; no I/O.
  */
 #include "splitlot/stats.h"
 
@@ -201,40 +201,6 @@ sl_status sl_stats_censored_mean(double *mean, double *se, size_t n, double xbar
         *se = curv > 0.0 ? 1.0 / sqrt(curv) : NAN;
     }
     return SL_OK;
-}
-
-/* ---- Verdict --------------------------------------------------------------- */
-
-sl_verdict sl_stats_verdict(sl_stats_judgement *out, double estimate, double planned, double se,
-                            double df, double tolerance, double alpha)
-{
-    sl_stats_judgement j = { SL_VERDICT_INCONCLUSIVE, estimate - planned, NAN, NAN, NAN };
-    if (isfinite(j.diff) && isfinite(se) && se >= 0.0 && df > 0.0 && isfinite(df) &&
-        isfinite(tolerance) && tolerance >= 0.0 && alpha > 0.0 && alpha < 1.0) {
-        j.t_crit = gsl_cdf_tdist_Pinv(1.0 - 0.5 * alpha, df);
-        j.ci_low = j.diff - j.t_crit * se;
-        j.ci_high = j.diff + j.t_crit * se;
-        if (j.ci_low >= -tolerance && j.ci_high <= tolerance)
-            j.verdict = SL_VERDICT_AS_PLANNED;
-        else if (j.ci_low > tolerance || j.ci_high < -tolerance)
-            j.verdict = SL_VERDICT_OFF_PLAN;
-        else if (j.ci_low > 0.0 || j.ci_high < 0.0)
-            j.verdict = SL_VERDICT_DIFFERS;
-    }
-    if (out)
-        *out = j;
-    return j.verdict;
-}
-
-const char *sl_stats_verdict_name(sl_verdict verdict)
-{
-    switch (verdict) {
-    case SL_VERDICT_AS_PLANNED: return "as-planned";
-    case SL_VERDICT_DIFFERS: return "differs";
-    case SL_VERDICT_OFF_PLAN: return "off-plan";
-    case SL_VERDICT_INCONCLUSIVE: break;
-    }
-    return "inconclusive";
 }
 
 /* ---- Random-effects pooling ------------------------------------------------ */
