@@ -796,6 +796,41 @@ static void end_to_end(const char *seed)
     free(dir);
 }
 
+/* A lot from sweeps where many devices' neutrality points lie beyond the
+ * sweep: each is counted as censored in its split (not dropped), the counts
+ * add up to the devices of that fit class, and compare warns on stderr for
+ * every split with more than 10 % of them. */
+START_TEST(test_censored_lot_end_to_end)
+{
+    static const char *const many_faults[] = { "--fault-fraction", "0.6", "--points", "41", NULL };
+    char *dir = sl_test_tmpdir(), row[2048], flags[128];
+    demo_lot(dir, "CENS-01", "5", many_faults, 1);
+    const char *compare[] = { "compare", "--lot", "CENS-01", "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = run_ok(dir, compare);
+    size_t beyond = 0, censored = 0, warned = 0;
+    for (const char *p = json_array(r.out, "devices"); json_next_row(&p, row, sizeof row);) {
+        json_str(row, "flags", flags, sizeof flags);
+        beyond += strstr(flags, "cnp-outside-sweep") != NULL;
+    }
+    for (const char *p = json_array(r.out, "splits"); json_next_row(&p, row, sizeof row);) {
+        double c = json_num(row, "censored"), u = json_num(row, "usable");
+        censored += (size_t)c;
+        warned += c > 0.1 * (c + u);
+    }
+    ck_assert_uint_gt(beyond, 10);
+    ck_assert_uint_eq(censored, beyond);
+    ck_assert_int_eq((int)json_num(r.out, "censored"), (int)beyond);
+    size_t lines = 0;
+    for (const char *e = r.err; (e = strstr(e, "beyond the sweep; its wafer means are censored")); e++)
+        lines++;
+    ck_assert_uint_gt(warned, 0);
+    ck_assert_uint_eq(lines, warned);
+    sl_run_result_free(&r);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 START_TEST(test_end_to_end_off_plan_and_faults)
 {
     static const char *const seeds[] = { "3", "17", "2029" };
@@ -1420,6 +1455,7 @@ static Suite *analyze_suite(void)
     TCase *lots = tcase_create("simulated lots");
     tcase_set_timeout(lots, 300);
     tcase_add_test(lots, test_end_to_end_off_plan_and_faults);
+    tcase_add_test(lots, test_censored_lot_end_to_end);
     tcase_add_test(lots, test_history_flags_drift);
     tcase_add_test(lots, test_emit_yaml_round_trip);
     tcase_add_test(lots, test_emit_yaml_quotes_names);
