@@ -25,7 +25,9 @@
  *   DEMO-01   the demo plan, seed 11, the simulator's default 2 % faulty devices;
  *   CLEAN-01  the demo plan, seed 3, --fault-fraction 0: no device flagged
  *             (regression value: seed 3 also draws no shifted device);
- *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2. */
+ *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2;
+ *   DIFF-01   as CLEAN-01 but anneal-350 delivers 0.85e12: its interval
+ *             excludes the plan yet reaches inside the tolerance (differs). */
 static char *dir;
 
 static sl_run_result run_in(const char *const *argv) { return sl_test_run(dir, NULL, argv); }
@@ -70,6 +72,7 @@ static void setup(void)
     add_lot("DEMO-01", "11", "0.02", NULL);
     add_lot("CLEAN-01", "3", "0", NULL);
     add_lot("OFF-01", "3", "0", "anneal-350=0.2e12");
+    add_lot("DIFF-01", "3", "0", "anneal-350=0.85e12");
 }
 
 static void teardown(void)
@@ -229,6 +232,15 @@ START_TEST(test_fail_on_flags)
     ck_assert_int_eq(top_number(r.out, "flagged"), 0); /* regression value, seed 3 */
     ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 1);
     sl_run_result_free(&r);
+
+    /* nothing off-plan, one level that differs from plan: a flag as well */
+    r = compare_json("DIFF-01", "--fail-on-flags", 3);
+    ck_assert_int_eq(top_number(r.out, "flagged"), 0);          /* regression value, seed 3 */
+    ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 0);  /* estimate 8.27e11 +/- 5.4e10 */
+    ck_assert_int_eq(top_number(r.out, "levels_differing"), 1);
+    ck_assert(strstr(r.out, "\"level\": \"anneal-350\"") &&
+              strstr(r.out, "\"verdict\": \"differs\""));
+    sl_run_result_free(&r);
 }
 END_TEST
 
@@ -276,7 +288,7 @@ START_TEST(test_database_from_environment)
     sl_run_result_free(&r);
     r = run_in(history);
     ck_assert_int_eq(r.exit_code, 0);
-    ck_assert_int_eq(top_number(r.out, "lots"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots"), 4);
     sl_run_result_free(&r);
     ck_assert_int_eq(setenv("SPLITLOT_DB", "elsewhere.db", 1), 0);
     r = run_in(compare);
@@ -349,10 +361,10 @@ START_TEST(test_history_json_and_yaml)
     static const char *const json[] = { "history", "--db", "t.db", "--format", "json", NULL };
     sl_run_result r = run_in(json);
     ck_assert_int_eq(r.exit_code, 0);
-    ck_assert_int_eq(top_number(r.out, "lots"), 3);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots"), 4);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4);
     ck_assert_uint_eq(for_rows(r.out, "levels", level_keys), 4);
-    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 12); /* 4 levels x 3 lots */
+    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 16); /* 4 levels x 4 lots */
     sl_run_result_free(&r);
     static const char *const yaml[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
     r = run_in(yaml);
@@ -594,7 +606,7 @@ START_TEST(test_history_and_report_views)
     sl_run_result_free(&r);
     history[6] = "300";
     r = run_in(history);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4);
     sl_run_result_free(&r);
     const char *report[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "v.html",
                              "--no-history", "--step", "final", NULL };
