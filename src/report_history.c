@@ -42,8 +42,9 @@ static void level_chart(report_ctx *c, const sl_history_level *l)
     if (l->n_points > 6)
         frame.margin_bottom_px = 64.0; /* lot names may slant */
     sl_chart_buf_append(c->buf, "<figure class=\"history\">");
-    sl_chart_control(c->buf, &frame, values, labels, l->n_points, l->chart.center, l->chart.lcl,
-                     l->chart.ucl, "lot", "doping (cm\xe2\x81\xbb\xc2\xb2)");
+    sl_chart_control_planned(c->buf, &frame, values, labels, l->n_points, l->chart.center,
+                             l->chart.lcl, l->chart.ucl, l->planned_per_cm2, "lot",
+                             "doping (cm\xe2\x81\xbb\xc2\xb2)");
     sl_chart_buf_printf(c->buf, "<figcaption>%zu lots, %zu outside the limits; planned "
                         "%.3g cm<sup>&minus;2</sup>, pooled %.3g, between-lot &sigma; %.2g"
                         "</figcaption></figure>\n", l->n_points, l->n_drift, l->planned_per_cm2,

@@ -496,6 +496,7 @@ START_TEST(test_history_with_two_lots)
     ck_assert_uint_ge(count_in(sec, end, "<figure class=\"history\">"), 1);
     /* every history chart names the planned value beside the pool */
     ck_assert_uint_eq(count_in(sec, end, "; planned "), count_in(sec, end, "<figure class=\"history\">"));
+    ck_assert_uint_eq(count_in(sec, end, "dy=\".32em\">planned "), count_in(sec, end, "<figure class=\"history\">"));
     ck_assert_uint_eq(count_in(sec, end, "<tr><td>anneal</td><td>anneal-350</td><td class=\"num\">2</td>"), 1);
     const char *rep[] = { "report", "--lot", "DEMO-02", "--out", "nh.html", "--db", "t.db",
                           "--no-history", NULL };
