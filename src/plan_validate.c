@@ -256,16 +256,28 @@ static int read_map(plan_ctx *c, const yn *node, const char *what, const field *
     return 0;
 }
 
-static void read_estimate(plan_ctx *c, const yn *v, const char *what, sl_est *out)
+/* { mean, sigma } and, where tolerance is not NULL, an optional tolerance
+ * (NaN when not given: the level's sigma stands in). */
+static void read_estimate_tol(plan_ctx *c, const yn *v, const char *what, sl_est *out,
+                              double *tolerance)
 {
-    static const field fields[] = { { "mean", 1 }, { "sigma", 0 } };
-    const yn *f[2];
+    static const field fields[] = { { "mean", 1 }, { "sigma", 0 }, { "tolerance", 0 } };
+    const yn *f[3] = { NULL, NULL, NULL };
     *out = (sl_est){ 0.0, 0.0 };
-    if (read_map(c, v, what, fields, 2, f) != 0)
+    if (tolerance)
+        *tolerance = NAN;
+    if (read_map(c, v, what, fields, tolerance ? 3 : 2, f) != 0)
         return;
     if (f[0])
         read_number(c, f[0], "mean", NUM_ANY, &out->val);
     read_number_or(c, f[1], "sigma", NUM_NONNEG, 0.0, &out->sigma);
+    if (tolerance && f[2])
+        read_number(c, f[2], "tolerance", NUM_NONNEG, tolerance);
+}
+
+static void read_estimate(plan_ctx *c, const yn *v, const char *what, sl_est *out)
+{
+    read_estimate_tol(c, v, what, out, NULL);
 }
 
 /* A name for a dielectric, treatment or split: not empty, unique; no '+' in
@@ -499,8 +511,10 @@ static void read_dielectric(conv *v, const yn *item, size_t index)
             read_layer(v, f[1]->items[j], &d->layers[j]);
         }
     }
+    d->doping_tolerance_per_cm2 = NAN;
     if (f[2])
-        read_estimate(v->c, f[2], "doping_per_cm2", &d->doping_per_cm2);
+        read_estimate_tol(v->c, f[2], "doping_per_cm2", &d->doping_per_cm2,
+                          &d->doping_tolerance_per_cm2);
     if (f[3]) {
         v->gate_range_at[index] = f[3];
         read_gate_range(v, f[3], d);
@@ -534,8 +548,10 @@ static void read_treatment(conv *v, const yn *item, size_t index)
         t->name = read_name(v->c, f[0], "treatment", p->treatments, index, sizeof *t);
     if (t->name && strcmp(t->name, "none") == 0)
         plan_error(v->c, f[0], "'none' is reserved for the level without a treatment");
+    t->doping_tolerance_per_cm2 = NAN;
     if (f[1])
-        read_estimate(v->c, f[1], "doping_per_cm2", &t->doping_per_cm2);
+        read_estimate_tol(v->c, f[1], "doping_per_cm2", &t->doping_per_cm2,
+                          &t->doping_tolerance_per_cm2);
 }
 
 static void read_treatments(conv *v)
