@@ -7,12 +7,16 @@
 #   make valgrind  the test suite under valgrind memcheck (Debug build)
 #   make bench  build in Release and run the benchmarks (figures, not tests)
 #   make bench-reference  splitlot against the pandas + SciPy script, 1k/12.5k/50k devices
+#   make install  build and install under PREFIX (default /usr/local), staged
+#                 under DESTDIR when given (docs/install.md)
 BUILD ?= build
 JOBS ?= 2
 DEMO ?= demo-out
 SPLITLOT = $(BUILD)/splitlot
+PREFIX ?= /usr/local
+DESTDIR ?=
 
-.PHONY: all deps deps-test build demo check asan fuzz valgrind bench bench-reference clean
+.PHONY: all deps deps-test build install demo check asan fuzz valgrind bench bench-reference clean
 
 all: build
 
@@ -29,6 +33,15 @@ build: deps
 	@{ cmake -S . -B $(BUILD) -DCMAKE_BUILD_TYPE=RelWithDebInfo && \
 	   cmake --build $(BUILD) -j$(JOBS); } >$(BUILD)/build.log 2>&1 || \
 	   { cat $(BUILD)/build.log; exit 1; }
+
+# configured for PREFIX, so the library directory follows the platform's rule
+# for that prefix (lib/<multiarch> under /usr on Debian)
+install: deps
+	@mkdir -p $(BUILD)
+	@{ cmake -S . -B $(BUILD) -DCMAKE_INSTALL_PREFIX="$(PREFIX)" && \
+	   cmake --build $(BUILD) -j$(JOBS); } >$(BUILD)/build.log 2>&1 || \
+	   { cat $(BUILD)/build.log; exit 1; }
+	DESTDIR="$(DESTDIR)" cmake --install $(BUILD) --prefix "$(PREFIX)"
 
 check: deps-test build
 	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
