@@ -18,6 +18,7 @@ const cli_command cli_commands[] = {
     { "compare", cmd_compare, "every device against its prediction, flags, effects, failure list" },
     { "history", cmd_history, "level estimates across lots, pooled values, drift, calibrated YAML" },
     { "report", cmd_report, "one self-contained HTML report of a lot, with charts" },
+    { "lots", cmd_lots, "the lot ids in the database" },
     { NULL, NULL, NULL },
 };
 
