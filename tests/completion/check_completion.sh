@@ -3,8 +3,9 @@
 # The shell completion (completion/) loads in bash and zsh without a word on
 # stderr and completes what the program has: every command of `splitlot
 # --help`, a command's options, the formats, and the lot ids of a database.
-# zsh's completion functions run against stand-ins of compadd, _describe and
-# _files that print what they are given. Without zsh the zsh half is skipped
+# zsh's completion function runs against stand-ins of compadd, _describe and
+# _files that print what they are given, and once in a real interactive zsh
+# (zpty) that completes "splitlot comp<TAB>". Without zsh the zsh half is skipped
 # (exit 77) unless SL_REQUIRE_ZSH=1.
 # Usage: check_completion.sh SPLITLOT SOURCE_DIR
 set -eu
@@ -93,4 +94,27 @@ printf 'DEMO-01\n' >"$work/want"
 expect_all "$work/z4" "$work/want" "zsh, --lot"
 complete_zsh "$prog" check "" >"$work/z5"
 grep -q '^_files -g' "$work/z5" || fail "zsh: check does not complete plan files"
-echo "zsh: commands, options, lots and plan files complete"
+
+# and in a real interactive zsh (zpty), as a user types: "splitlot comp<TAB>"
+mkdir -p "$work/bin"
+ln -s "$prog" "$work/bin/splitlot"
+cat >"$work/interactive.zsh" <<'ZSH'
+zmodload zsh/zpty || exit 1
+zpty z zsh -f -i
+zpty -w z "PS1='> '; fpath=($1/completion \$fpath); path=($2/bin \$path); autoload -Uz compinit; compinit -u -D; print READY"
+zpty -r z line '*READY*'
+zpty -w -n z $'splitlot comp\t'
+out=""
+for i in {1..100}; do # up to 20 s on a busy machine
+    while zpty -r -t z chunk; do out+=$chunk; done
+    [[ $out == *"splitlot compare"* ]] && break
+    sleep 0.2
+done
+zpty -d z
+print -r -- "$out"
+ZSH
+timeout 30 zsh -f "$work/interactive.zsh" "$src" "$work" >"$work/zsh.tty" 2>&1 ||
+    fail "zsh: the interactive session did not finish: $(cat "$work/zsh.tty")"
+grep -q 'splitlot compare' "$work/zsh.tty" ||
+    fail "zsh: 'splitlot comp<TAB>' did not become 'splitlot compare': $(cat "$work/zsh.tty")"
+echo "zsh: commands, options, lots and plan files complete (also interactively)"

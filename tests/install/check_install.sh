@@ -54,6 +54,13 @@ pkgconfig)
     ${CC:-cc} -std=c11 -Wall -Wextra -Wpedantic -Werror -o "$out" "$src/tests/install/floor.c" $flags ||
         fail "compiling with the pkg-config flags"
     "$out"
+    # every installed public header compiles on its own with those flags
+    for h in "$prefix"/include/splitlot/*.h; do
+        printf '#include <splitlot/%s>\nint main(void) { return 0; }\n' "$(basename "$h")" >"$out-h.c"
+        # shellcheck disable=SC2086
+        ${CC:-cc} -std=c11 -Wall -Wextra -Wpedantic -Werror -c -o "$out-h.o" "$out-h.c" $flags ||
+            fail "installed header $(basename "$h") does not compile on its own"
+    done
     ;;
 cmake)
     work=$build/install-test/consumer
