@@ -5,7 +5,8 @@
 #           on, and through man -l, without a word on stderr; skipped (77)
 #           when scdoc was missing and no page was built;
 #   drift   every command of src/cli/commands.c and every option of the
-#           option tables in src/cli/cmd_*.c appears in splitlot(1); every
+#           option tables in src/cli/cmd_<name>.c appears in splitlot(1), an
+#           option in its command's section of OPTIONS; every
 #           key of the plan validator's field tables (src/plan*.c) and every
 #           built-in material (src/physics.c) appears in splitlot-plan(5).
 # Usage: check_man.sh render MAN_BUILD_DIR | check_man.sh drift SOURCE_DIR
@@ -46,12 +47,21 @@ drift)
         n=$((n + 1))
         grep -qE "^\*$cmd\*" "$man1" || problem "command '$cmd' (src/cli/commands.c) is not described in man/splitlot.1.scd"
     done
+    # a command's options are documented in its own section of OPTIONS ("## <command>")
+    # or in "## Common to the data commands"
+    section() {
+        awk -v h="## $1" '$0 == h { on = 1; next } /^#/ { on = 0 } on' "$man1"
+    }
+    common=$(section "Common to the data commands")
     for f in "$dir"/src/cli/cmd_*.c; do
+        cmd=$(basename "$f" .c | sed 's/^cmd_//')
+        text="$common
+$(section "$cmd")"
         for opt in $(grep -ohE '\{ *"[a-zA-Z][-a-zA-Z0-9]*", *(required|no|optional)_argument' "$f" |
                      sed 's/.*"\(.*\)".*/\1/'); do
             n=$((n + 1))
-            grep -qE -- "\*--$opt\*" "$man1" ||
-                problem "option --$opt ($(basename "$f")) is not in man/splitlot.1.scd"
+            printf '%s\n' "$text" | grep -qE -- "\*--$opt\*" ||
+                problem "option --$opt of '$cmd' ($(basename "$f")) is not in its section of man/splitlot.1.scd (## $cmd)"
         done
     done
     for key in $(grep -ohE '\{ *"[A-Za-z_][A-Za-z0-9_]*", *[01] *\}' "$dir"/src/plan*.c |
