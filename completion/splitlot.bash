@@ -43,6 +43,9 @@ _splitlot()
     --model)
         mapfile -t COMPREPLY < <(compgen -W "symmetric two-mobility" -- "$cur")
         return 0 ;;
+    --density-model)
+        mapfile -t COMPREPLY < <(compgen -W "qc short" -- "$cur")
+        return 0 ;;
     --db | --results | --sweeps | --rejects)
         compopt -o filenames 2>/dev/null
         mapfile -t COMPREPLY < <(compgen -f -- "$cur")
