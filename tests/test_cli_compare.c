@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Command-line tests of `splitlot compare` and `splitlot history`: the JSON
- * keys of DESIGN.md section 5, --only-flagged, --fail-on-flags (exit 3),
+ * keys of docs/formats.md, --only-flagged, --fail-on-flags (exit 3),
  * unknown lots and missing databases (exit 2, nothing created), and compare's
  * peak memory, which must not grow with the lot. The numbers themselves are
  * checked in test_analyze.c. Lots are simulated, invented data.
@@ -276,7 +276,7 @@ START_TEST(test_missing_database)
 }
 END_TEST
 
-/* The database from SPLITLOT_DB when --db is not given (DESIGN.md section 5). */
+/* The database from SPLITLOT_DB when --db is not given (docs/formats.md). */
 START_TEST(test_database_from_environment)
 {
     static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--format", "json", NULL };
