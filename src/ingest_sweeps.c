@@ -651,11 +651,15 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
     sl_status st = gather_points(c, &vg, &r, &n, d->id);
     if (st == SL_OK)
         st = check_gathered(c, d, n);
+    sl_fit_double_result both = { 0 };
     sl_fit_result res = { 0 };
     sl_status fit_st = SL_EINPUT;
     if (st == SL_OK) {
+        /* the turn of the gate tells a double sweep here: a direction
+         * column is not kept with the staged rows */
         sl_fit_workspace *ws = sl_fit_workspace_new(n);
-        fit_st = ws ? sl_fit_sweep(&res, ws, cfg, vg, r, n) : SL_ENOMEM;
+        fit_st = ws ? sl_fit_double_sweep(&both, ws, cfg, vg, r, NULL, n) : SL_ENOMEM;
+        res = both.device;
         sl_fit_workspace_free(ws);
         st = fit_st == SL_ENOMEM ? SL_ENOMEM : SL_OK;
         if (fit_st == SL_EINPUT) {
@@ -674,6 +678,7 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
         dev.vg_V = vg;
         dev.r_ohm = r;
         dev.n_points = n;
+        dev.hysteresis_V = both.hysteresis_V;
         result_to_device(&dev, &res, fit_st, cfg);
         st = sl_store_update_measurement(c->store, d->id, &dev, c->diag);
     }

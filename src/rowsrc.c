@@ -243,10 +243,8 @@ static long find_column(const sl_rowsrc *src, const char *name, size_t len)
     return -1;
 }
 
-static sl_status mapping_error(const sl_rowsrc *src, sl_diag *diag, const char *what, size_t len,
-                               const char *why)
+static sl_status mapping_error(sl_diag *diag, const char *what, size_t len, const char *why)
 {
-    (void)src;
     sl_diag_error(diag, "--columns: '%.*s' %s", (int)len, what, why);
     return SL_EINPUT;
 }
@@ -255,7 +253,7 @@ static sl_status apply_mapping(sl_rowsrc *src, const char *item, size_t len, sl_
 {
     const char *eq = memchr(item, '=', len);
     if (!eq || eq == item || eq + 1 == item + len)
-        return mapping_error(src, diag, item, len, "is not QUANTITY=COLUMN");
+        return mapping_error(diag, item, len, "is not QUANTITY=COLUMN");
     name_result r;
     size_t qlen = (size_t)(eq - item), clen = len - qlen - 1;
     name_match m = match_name(&r, item, qlen);
@@ -270,13 +268,13 @@ static sl_status apply_mapping(sl_rowsrc *src, const char *item, size_t len, sl_
         snprintf(why, sizeof why, "%s%s%s%s",
                  m == NAME_BAD_UNIT ? "has a unit not in the table" : "names no quantity",
                  near ? " (did you mean '" : "", near ? near : "", near ? "'?)" : "");
-        return mapping_error(src, diag, item, qlen, why);
+        return mapping_error(diag, item, qlen, why);
     }
     long column = find_column(src, eq + 1, clen);
     if (column < 0)
-        return mapping_error(src, diag, eq + 1, clen, "is not a column of the file");
+        return mapping_error(diag, eq + 1, clen, "is not a column of the file");
     if (src->mapped[r.q] || src->quantity_of[column] >= 0)
-        return mapping_error(src, diag, item, len, "maps a quantity or a column twice");
+        return mapping_error(diag, item, len, "maps a quantity or a column twice");
     src->mapped[r.q] = true;
     assign(src, r.q, column, r.exp10);
     return SL_OK;

@@ -1256,6 +1256,45 @@ START_TEST(instrument_double_sweeps)
 }
 END_TEST
 
+/* A double sweep whose reverse branch comes back at the end of the file is
+ * fitted again as a whole: the turn of the gate still splits it, and its
+ * hysteresis is that of the truth. */
+START_TEST(instrument_double_sweep_in_two_places)
+{
+    char *path = sl_test_data("instrument/alox_double.csv");
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    char *dir = instrument_dir("alox.yaml");
+    char *moved = sl_test_path(dir, "moved.csv");
+    FILE *f = fopen(moved, "wb");
+    ck_assert_ptr_nonnull(f);
+    /* line 1 the header, 2-142 W01/H01 forward, 143-283 its reverse */
+    const char *line = text, *reverse = NULL, *rest = NULL;
+    for (int n = 1; *line; n++) {
+        if (n == 143)
+            reverse = line;
+        if (n == 284)
+            rest = line;
+        line = strchr(line, '\n') + 1;
+    }
+    ck_assert(reverse && rest);
+    fwrite(text, 1, (size_t)(reverse - text), f);
+    fputs(rest, f);
+    fwrite(reverse, 1, (size_t)(rest - reverse), f);
+    fclose(f);
+    const char *argv[] = { "ingest", "--lot", "INST-ALOX", "--sweeps", "moved.csv", "--db", "t.db",
+                           NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    assert_against_truth(dir, "INST-ALOX", "alox_double_truth.csv", 0.01, 0.03);
+    free(moved);
+    free(text);
+    free(path);
+    drop_dir(dir);
+}
+END_TEST
+
 /* Die coordinates centred on the wafer (-2 to 2) are kept as written. */
 START_TEST(instrument_centred_coordinates)
 {
@@ -1448,6 +1487,7 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, library_summary_counts);
     tcase_add_test(tc, instrument_drain_current_semicolon);
     tcase_add_test(tc, instrument_double_sweeps);
+    tcase_add_test(tc, instrument_double_sweep_in_two_places);
     tcase_add_test(tc, instrument_centred_coordinates);
     tcase_add_test(tc, instrument_device_types);
     tcase_add_test(tc, instrument_first_die_range);
