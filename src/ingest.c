@@ -423,13 +423,13 @@ sl_status ingest_keep_row(ingest_ctx *c)
 
 void ingest_forget_kept(ingest_ctx *c) { c->reject_len = 0; }
 
-/* Each kept line with the reason as one more field. */
-sl_status ingest_reject_kept(ingest_ctx *c, const char *reason)
+/* Each line of rows (as the file had them) with the reason as one more
+ * field, into the rejects file; the device counted as rejected. */
+sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason)
 {
-    if (!c->rejects) {
-        c->reject_len = 0;
+    c->summary->rejected_devices++;
+    if (!c->rejects)
         return SL_OK;
-    }
     char sep = sl_rowsrc_separator(c->src);
     size_t quoted_cap = 2 * strlen(reason) + 3;
     char *quoted = malloc(quoted_cap);
@@ -444,22 +444,27 @@ sl_status ingest_reject_kept(ingest_ctx *c, const char *reason)
     }
     quoted[q++] = '"';
     int ok = 1;
-    for (size_t at = 0; ok && at < c->reject_len;) {
-        const char *nl = memchr(c->reject_buf + at, '\n', c->reject_len - at);
-        size_t n = nl ? (size_t)(nl - (c->reject_buf + at)) : c->reject_len - at;
-        ok = fwrite(c->reject_buf + at, 1, n, c->rejects) == n && fputc(sep, c->rejects) != EOF &&
+    for (size_t at = 0; ok && at < len;) {
+        const char *nl = memchr(rows + at, '\n', len - at);
+        size_t n = nl ? (size_t)(nl - (rows + at)) : len - at;
+        ok = fwrite(rows + at, 1, n, c->rejects) == n && fputc(sep, c->rejects) != EOF &&
              fwrite(quoted, 1, q, c->rejects) == q && fputc('\n', c->rejects) != EOF;
         c->summary->rejected_rows += ok;
         at += n + 1;
     }
     free(quoted);
-    c->summary->rejected_devices++;
-    c->reject_len = 0;
     if (!ok) {
         sl_diag_add(c->diag, SL_SEV_ERROR, c->opt->rejects_path, 0, 0, "cannot write the rejects file");
         return SL_EIO;
     }
     return SL_OK;
+}
+
+sl_status ingest_reject_kept(ingest_ctx *c, const char *reason)
+{
+    sl_status st = ingest_reject_rows(c, c->reject_buf, c->reject_len, reason);
+    c->reject_len = 0;
+    return st;
 }
 
 /* The first error message of the current problem, as a reason. */

@@ -99,6 +99,8 @@ void ingest_flush_errors(ingest_ctx *c);
  * problems) and forget them. */
 sl_status ingest_keep_row(ingest_ctx *c);
 sl_status ingest_reject_kept(ingest_ctx *c, const char *reason);
+/* The same for rows kept elsewhere (len bytes of lines). */
+sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason);
 void ingest_forget_kept(ingest_ctx *c);
 /* The first error message found for the current row, as a reason. */
 const char *ingest_current_reason(const ingest_ctx *c);

@@ -20,6 +20,7 @@ void fit_batch_free(fit_batch *b)
     free(b->vg);
     free(b->r);
     free(b->dir);
+    free(b->text);
     memset(b, 0, sizeof *b);
 }
 
@@ -27,6 +28,27 @@ void fit_batch_clear(fit_batch *b)
 {
     b->n_items = 0;
     b->n_points = 0;
+    b->text_len = 0;
+}
+
+int fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t len)
+{
+    if (b->text_len + len > b->text_cap) {
+        size_t cap = b->text_cap ? b->text_cap : 65536;
+        while (cap < b->text_len + len)
+            cap *= 2;
+        char *grown = realloc(b->text, cap);
+        if (!grown)
+            return -1;
+        b->text = grown;
+        b->text_cap = cap;
+    }
+    if (len)
+        memcpy(b->text + b->text_len, text, len);
+    item->text_off = b->text_len;
+    item->text_len = len;
+    b->text_len += len;
+    return 0;
 }
 
 int fit_batch_reserve_points(fit_batch *b, size_t need)

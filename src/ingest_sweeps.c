@@ -216,7 +216,9 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     it->measurement_id = ins.measurement_id;
     if (ins.outcome == SL_STORE_DIE_DIFFERS) {
         const long here[2] = { it->die_x, it->die_y };
-        return ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
+        st = ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
+        it->rejected = c->opt->keep_going; /* left out, the rest goes on */
+        return it->rejected ? SL_OK : st;
     }
     if (ins.outcome == SL_STORE_IN_RUN)
         return sl_store_stage_points(c->store, ins.measurement_id, b->vg + it->offset,
@@ -270,6 +272,26 @@ static void count_item(ingest_ctx *c, const fit_item *it)
     s->hysteresis_flagged += fabs(it->hysteresis_V) > c->plan->max_hysteresis_V;
 }
 
+/* --keep-going: the devices the writer left out (one message each, in
+ * order) are reported and their rows go to the rejects file. */
+static sl_status reject_left_out(ingest_ctx *c, fit_batch *done)
+{
+    size_t message = 0;
+    sl_status st = SL_OK;
+    for (size_t k = 0; st == SL_OK && k < done->n_items; k++) {
+        const fit_item *it = &done->items[k];
+        if (!it->rejected)
+            continue;
+        const sl_diag_msg *m = message < sl_diag_size(done->diag)
+                                   ? sl_diag_get(done->diag, message++) : NULL;
+        st = ingest_reject_rows(c, done->text ? done->text + it->text_off : "", it->text_len,
+                                m ? m->text : "rejected");
+    }
+    take_messages(c->diag, done->diag);
+    ingest_flush_errors(c);
+    return st;
+}
+
 /* Wait until the oldest submitted buffer is written, then count its devices
  * for the progress report and free the buffer. */
 static sl_status drain_oldest(ingest_ctx *c)
@@ -285,11 +307,14 @@ static sl_status drain_oldest(ingest_ctx *c)
     if (st != SL_OK && !b->reported) /* the first failure says what went wrong */
         take_messages(c->diag, done->diag);
     b->reported |= st != SL_OK;
+    if (st == SL_OK)
+        st = reject_left_out(c, done);
     sl_diag_clear(done->diag);
     if (st == SL_OK)
         c->summary->devices += (long)done->n_items; /* exact once the import ends */
     for (size_t k = 0; st == SL_OK && k < done->n_items; k++)
-        count_item(c, &done->items[k]);
+        if (!done->items[k].rejected)
+            count_item(c, &done->items[k]);
     fit_batch_clear(done);
     set_state(b, i, BUF_FREE);
     b->oldest = (i + 1) % SL_INGEST_BUFFERS;
@@ -352,7 +377,6 @@ static sl_status end_run(ingest_ctx *c)
         f->n_points = b->run_offset; /* none of its points is kept */
         return ingest_reject_kept(c, b->run_reason);
     }
-    ingest_forget_kept(c);
     size_t n = f->n_points - b->run_offset;
     fit_item item = { .offset = b->run_offset, .n = n, .cfg = b->run_cfg,
                       .has_direction = b->has_direction,
@@ -367,7 +391,10 @@ static sl_status end_run(ingest_ctx *c)
                             n + (size_t)b->run_overflow >= SL_FIT_MIN_POINTS;
     snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
     snprintf(item.name, sizeof item.name, "%s", b->run_name);
-    if (fit_batch_push(f, &item) != 0)
+    /* its rows stay with it until stored: the store may still refuse it */
+    int fail = c->rejects && fit_batch_push_text(f, &item, c->reject_buf, c->reject_len) != 0;
+    ingest_forget_kept(c);
+    if (fail || fit_batch_push(f, &item) != 0)
         return SL_ENOMEM;
     return f->n_items >= SL_INGEST_BATCH_DEVICES ? rotate(c) : SL_OK;
 }

@@ -1295,6 +1295,55 @@ START_TEST(instrument_double_sweep_in_two_places)
 }
 END_TEST
 
+/* A device the store has at another die: without --keep-going the import
+ * fails; with it, that device is left out, reported, and its rows go to the
+ * rejects file, the others stored. */
+START_TEST(keep_going_past_a_moved_die)
+{
+    char *dir = instrument_dir("alox.yaml");
+    sl_run_result r = ingest_fixture(dir, "INST-ALOX", "sweeps", "alox_double.csv", NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    char *path = sl_test_data("instrument/alox_double.csv");
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    size_t moved_rows = 0;
+    for (char *p = strstr(text, "\nW01\tH02\t2\t1\t"); p; p = strstr(p + 1, "\nW01\tH02\t2\t1\t")) {
+        p[9] = '3'; /* die_x 2 -> 3 */
+        moved_rows++;
+    }
+    ck_assert_uint_eq(moved_rows, 282);
+    ck_assert_int_eq(write_in_dir(dir, "moved.csv", text), 0);
+    const char *plain[] = { "ingest", "--lot", "INST-ALOX", "--sweeps", "moved.csv", "--db", "t.db",
+                            NULL };
+    r = sl_test_run(dir, NULL, plain);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "device 'H02' on wafer 'W01' is at die (3, 1) here but lot"), "%s",
+                  r.err);
+    sl_run_result_free(&r);
+    const char *keep[] = { "ingest", "--lot", "INST-ALOX", "--sweeps", "moved.csv", "--db", "t.db",
+                           "--keep-going", "--rejects", "rej.csv", "--format", "json", NULL };
+    r = sl_test_run(dir, NULL, keep);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert_msg(strstr(r.err, "device 'H02' on wafer 'W01' is at die (3, 1) here but lot"), "%s",
+                  r.err);
+    assert_json_count(r.out, "devices", 31);
+    assert_json_count(r.out, "devices_rejected", 1);
+    assert_json_count(r.out, "rows_rejected", 282);
+    sl_run_result_free(&r);
+    char *rej = sl_test_path(dir, "rej.csv");
+    char *rejected = sl_test_read_file(rej, NULL);
+    ck_assert_uint_eq(count_lines(rejected), 283);
+    ck_assert_ptr_nonnull(strstr(rejected, "wafer\tdevice\tdie_x\tdie_y\tVg [V]\tR [kOhm]\treason\n"
+                                           "W01\tH02\t3\t1\t-7\t"));
+    free(rejected);
+    free(rej);
+    free(text);
+    free(path);
+    drop_dir(dir);
+}
+END_TEST
+
 /* Die coordinates centred on the wafer (-2 to 2) are kept as written. */
 START_TEST(instrument_centred_coordinates)
 {
@@ -1488,6 +1537,7 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, instrument_drain_current_semicolon);
     tcase_add_test(tc, instrument_double_sweeps);
     tcase_add_test(tc, instrument_double_sweep_in_two_places);
+    tcase_add_test(tc, keep_going_past_a_moved_die);
     tcase_add_test(tc, instrument_centred_coordinates);
     tcase_add_test(tc, instrument_device_types);
     tcase_add_test(tc, instrument_first_die_range);
