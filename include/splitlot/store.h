@@ -266,6 +266,8 @@ typedef struct {
     double rel_rms, r_squared;
     long n_points;               /* 0 for results rows */
     long measurements;           /* the device's measurements in the view's runs */
+    /* the two-mobility fit's carriers (sl_store_load_devices only; NaN else) */
+    double electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs;
 } sl_store_device_row;
 
 /* The current measurement of every device of a lot in a view (step and
