@@ -59,11 +59,12 @@ static int is_usable(const sl_store_device_row *r)
 
 /* ---- the view, the plan and what its revision stored ---- */
 
-/* The view's temperature among the stored ones: its index, or -1. */
+/* A temperature among the stored ones (within 0.5 K, as an import takes
+ * them): its index, or -1. */
 static long temperature_index(const sl_store_revision *rev, double temperature_K)
 {
     for (size_t t = 0; t < rev->n_temperatures; t++)
-        if (rev->temperatures_K[t] == temperature_K)
+        if (fabs(rev->temperatures_K[t] - temperature_K) <= 0.5)
             return (long)t;
     return -1;
 }
@@ -78,15 +79,12 @@ static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
     if (st != SL_OK)
         return st;
     st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
-                               newest.temperatures_K, newest.n_temperatures, diag);
-    if (st == SL_OK && view && view->step)
-        snprintf(a->step, sizeof a->step, "%s", view->step);
+                               view ? view->step : NULL, newest.temperatures_K,
+                               newest.n_temperatures, diag);
     if (st == SL_OK && view && !isnan(view->temperature_K)) {
-        a->temperature_K = view->temperature_K;
-        if (view->step == NULL)
-            st = sl_store_default_view(store, a->step, &(double){ 0 }, a->lot.lot_id,
-                                       &a->temperature_K, 1, diag);
-        if (st == SL_OK && temperature_index(&newest, a->temperature_K) < 0) {
+        long t = temperature_index(&newest, view->temperature_K);
+        a->temperature_K = t >= 0 ? newest.temperatures_K[t] : view->temperature_K;
+        if (t < 0) {
             char allowed[256];
             size_t k = 0;
             for (size_t t = 0; t < newest.n_temperatures && k < sizeof allowed; t++)

@@ -1265,8 +1265,8 @@ START_TEST(migration_from_version_3_keeps_every_device)
     char step[65];
     double t = 0;
     const double temperatures[] = { 300.0 };
-    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, temperatures, 1, diag),
-                     SL_OK);
+    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, NULL, temperatures, 1,
+                                           diag), SL_OK);
     ck_assert(strcmp(step, "final") == 0 && t == 300.0);
     sl_store_device_row *rows = NULL;
     ck_assert_int_eq(sl_store_load_devices(store, &rows, &n, lot.lot_id, step, t, diag), SL_OK);
