@@ -379,7 +379,9 @@ static sl_status insert_splits(sl_store *store, long *split_ids, long revision_i
         sqlite3_bind_text(st, 5, treatments, -1, SQLITE_TRANSIENT);
         sqlite3_bind_double(st, 6, doping.val);
         sqlite3_bind_double(st, 7, doping.sigma);
-        sqlite3_bind_int64(st, 8, (sqlite3_int64)layout->splits[i].devices_needed);
+        /* devices_needed: no longer computed (the layout's power per level
+         * replaces the device count), kept as 0 until a migration drops it */
+        sqlite3_bind_int64(st, 8, 0);
         sqlite3_bind_double(st, 9, layout->splits[i].devices_available);
         s = sl_store_step_done(store, st, diag, "store a split");
         split_ids[i] = (long)sqlite3_last_insert_rowid(store->db);
