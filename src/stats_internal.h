@@ -1,7 +1,7 @@
 /* SPDX-License-Identifier: MIT
  * Private to the stats module: the generalised-least-squares Gram matrix
  * shared by the planner's covariance (stats_power.c) and the wafer-level
- * analysis (stats_wafer.c). Not a public interface.
+ * analysis (stats_gls.c). Not a public interface.
  */
 #ifndef SL_STATS_INTERNAL_H
 #define SL_STATS_INTERNAL_H

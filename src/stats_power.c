@@ -68,26 +68,26 @@ double sl_stats_nct_cdf(double t, double df, double nc)
 
 static const char *const verdict_names[] = { "inconclusive", "as-planned", "off-plan", "differs" };
 
-const char *sl_stats_verdict_name(sl_stats_verdict_kind verdict)
+const char *sl_stats_plan_verdict_name(sl_stats_plan_verdict_kind verdict)
 {
     return (unsigned)verdict < 4 ? verdict_names[verdict] : "inconclusive";
 }
 
-sl_stats_verdict_kind sl_stats_verdict(double d, double se, double df, double tolerance,
-                                       double alpha)
+sl_stats_plan_verdict_kind sl_stats_plan_verdict(double d, double se, double df,
+                                                 double tolerance, double alpha)
 {
     if (!(df >= 1.0) || !isfinite(se) || !isfinite(d) || !(se >= 0.0) || !(alpha > 0.0) ||
         !(alpha < 1.0))
-        return SL_VERDICT_INCONCLUSIVE;
+        return SL_PLAN_VERDICT_INCONCLUSIVE;
     double half = gsl_cdf_tdist_Pinv(1.0 - 0.5 * alpha, df) * se;
     double lo = d - half, hi = d + half;
     if (lo > tolerance || hi < -tolerance)
-        return SL_VERDICT_OFF_PLAN;
+        return SL_PLAN_VERDICT_OFF_PLAN;
     if (lo >= -tolerance && hi <= tolerance)
-        return SL_VERDICT_AS_PLANNED;
+        return SL_PLAN_VERDICT_AS_PLANNED;
     if (lo > 0.0 || hi < 0.0)
-        return SL_VERDICT_DIFFERS;
-    return SL_VERDICT_INCONCLUSIVE;
+        return SL_PLAN_VERDICT_DIFFERS;
+    return SL_PLAN_VERDICT_INCONCLUSIVE;
 }
 
 static int power_args_ok(double se, double tolerance, double alpha)
@@ -203,7 +203,8 @@ sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model)
     sl_status st = SL_OK;
     if (stats_gls_gram(g, NULL, model->x, p, model->var, model->z, model->n_obs, L,
                        model->load_var, work) != 0 ||
-        gsl_linalg_cholesky_decomp1(g) != GSL_SUCCESS || gsl_linalg_cholesky_invert(g) != GSL_SUCCESS)
+        gsl_linalg_cholesky_decomp1(g) != GSL_SUCCESS ||
+        gsl_linalg_cholesky_invert(g) != GSL_SUCCESS)
         st = SL_ENUM;
     for (size_t a = 0; st == SL_OK && a < p; a++)
         for (size_t b = 0; b < p; b++)

@@ -474,13 +474,14 @@ END_TEST
 /* ---- second-wave keys: variation, batches, resolve shift, processed,
  * fractional designs ---- */
 
-/* A plan whose line 6 is the design and line 9 the key under test. */
+/* A plan whose line 7 is the design and line 10 the key under test. */
 static const char key_base[] =
     "lot: K-1\n"
     "temperatures_K: [300]\n"
     "dielectrics: [ { name: ox, layers: [ { material: SiO2, thickness_nm: 90 } ] },\n"
     "               { name: ox2, layers: [ { material: SiO2, thickness_nm: 60 } ] } ]\n"
-    "treatments: [ { name: anneal, doping_per_cm2: { mean: 1e12 } }, { name: cap, doping_per_cm2: { mean: 1e11 } } ]\n"
+    "treatments: [ { name: anneal, doping_per_cm2: { mean: 1e12 } },\n"
+    "              { name: cap, doping_per_cm2: { mean: 1e11 } } ]\n"
     "%s\n"
     "wafers: 8\n"
     "devices_per_wafer: 10\n"
@@ -546,7 +547,7 @@ START_TEST(new_keys_located_errors)
     sl_plan *plan = NULL;
     ck_assert_int_eq(sl_plan_parse(&plan, text, strlen(text), "k.yaml", diag), SL_EINPUT);
     const char *line = c->design ? strstr(text, "design:") : strstr(text, c->line9);
-    long line_no = c->design ? 6 : 9;
+    long line_no = c->design ? 7 : 10;
     long col = (long)(strstr(line, c->token) - line) + 1;
     int found = 0;
     for (size_t i = 0; i < sl_diag_size(diag); i++) {

@@ -795,15 +795,15 @@ START_TEST(test_verdicts)
 {
     /* t_{0.975, 10} = 2.228139 (gsl_cdf_tdist_Pinv); T = 1 */
     double t = gsl_cdf_tdist_Pinv(0.975, 10);
-    ck_assert_int_eq(sl_stats_verdict(0.1, 0.1, 10, 1.0, 0.05), SL_VERDICT_AS_PLANNED);
-    ck_assert_int_eq(sl_stats_verdict(1.0 + t * 0.1 + 1e-6, 0.1, 10, 1.0, 0.05),
-                     SL_VERDICT_OFF_PLAN);
-    ck_assert_int_eq(sl_stats_verdict(-2.0, 0.1, 10, 1.0, 0.05), SL_VERDICT_OFF_PLAN);
-    ck_assert_int_eq(sl_stats_verdict(1.0, 0.1, 10, 1.0, 0.05), SL_VERDICT_DIFFERS);
-    ck_assert_int_eq(sl_stats_verdict(0.3, 0.5, 10, 1.0, 0.05), SL_VERDICT_INCONCLUSIVE);
-    ck_assert_int_eq(sl_stats_verdict(5.0, 0.1, 0.0, 1.0, 0.05), SL_VERDICT_INCONCLUSIVE);
-    ck_assert_int_eq(sl_stats_verdict(5.0, NAN, 4.0, 1.0, 0.05), SL_VERDICT_INCONCLUSIVE);
-    ck_assert_str_eq(sl_stats_verdict_name(SL_VERDICT_OFF_PLAN), "off-plan");
+    ck_assert_int_eq(sl_stats_plan_verdict(0.1, 0.1, 10, 1.0, 0.05), SL_PLAN_VERDICT_AS_PLANNED);
+    ck_assert_int_eq(sl_stats_plan_verdict(1.0 + t * 0.1 + 1e-6, 0.1, 10, 1.0, 0.05),
+                     SL_PLAN_VERDICT_OFF_PLAN);
+    ck_assert_int_eq(sl_stats_plan_verdict(-2.0, 0.1, 10, 1.0, 0.05), SL_PLAN_VERDICT_OFF_PLAN);
+    ck_assert_int_eq(sl_stats_plan_verdict(1.0, 0.1, 10, 1.0, 0.05), SL_PLAN_VERDICT_DIFFERS);
+    ck_assert_int_eq(sl_stats_plan_verdict(0.3, 0.5, 10, 1.0, 0.05), SL_PLAN_VERDICT_INCONCLUSIVE);
+    ck_assert_int_eq(sl_stats_plan_verdict(5.0, 0.1, 0.0, 1.0, 0.05), SL_PLAN_VERDICT_INCONCLUSIVE);
+    ck_assert_int_eq(sl_stats_plan_verdict(5.0, NAN, 4.0, 1.0, 0.05), SL_PLAN_VERDICT_INCONCLUSIVE);
+    ck_assert_str_eq(sl_stats_plan_verdict_name(SL_PLAN_VERDICT_OFF_PLAN), "off-plan");
 }
 END_TEST
 

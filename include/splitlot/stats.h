@@ -335,19 +335,19 @@ double sl_stats_nct_cdf(double t, double df, double nc);
  *   DIFFERS      the interval excludes 0 but is neither of those
  *   INCONCLUSIVE otherwise, or without df (df < 1) or a finite se. */
 typedef enum {
-    SL_VERDICT_INCONCLUSIVE = 0,
-    SL_VERDICT_AS_PLANNED,
-    SL_VERDICT_OFF_PLAN,
-    SL_VERDICT_DIFFERS
-} sl_stats_verdict_kind;
+    SL_PLAN_VERDICT_INCONCLUSIVE = 0,
+    SL_PLAN_VERDICT_AS_PLANNED,
+    SL_PLAN_VERDICT_OFF_PLAN,
+    SL_PLAN_VERDICT_DIFFERS
+} sl_stats_plan_verdict_kind;
 
-sl_stats_verdict_kind sl_stats_verdict(double d, double se, double df, double tolerance,
-                                       double alpha);
+sl_stats_plan_verdict_kind sl_stats_plan_verdict(double d, double se, double df,
+                                                 double tolerance, double alpha);
 
 /* "as-planned", "off-plan", "differs", "inconclusive". */
-const char *sl_stats_verdict_name(sl_stats_verdict_kind verdict);
+const char *sl_stats_plan_verdict_name(sl_stats_plan_verdict_kind verdict);
 
-/* Probability that sl_stats_verdict says OFF_PLAN for a level whose true
+/* Probability that sl_stats_plan_verdict says OFF_PLAN for a level whose true
  * difference from plan is tolerance + shift, when its estimate is normal with
  * standard error se and se is estimated with df degrees of freedom:
  *   P[t'(df, shift/se) > t_{1-alpha/2,df}] + P[t'(df, (2T+shift)/se) < -t_{1-alpha/2,df}]

@@ -113,7 +113,8 @@ static void minimise_2d(reml *r, double *a, double *b)
     double step = (r->hi - r->lo) / (GRID_2D - 1), best_f = INFINITY;
     double start[2] = { r->lo, r->lo };
     gsl_vector *x = gsl_vector_alloc(2), *steps = gsl_vector_alloc(2);
-    gsl_multimin_fminimizer *m = gsl_multimin_fminimizer_alloc(gsl_multimin_fminimizer_nmsimplex2, 2);
+    gsl_multimin_fminimizer *m =
+        gsl_multimin_fminimizer_alloc(gsl_multimin_fminimizer_nmsimplex2, 2);
     for (size_t i = 0; x && i < GRID_2D; i++)
         for (size_t j = 0; j < GRID_2D; j++) {
             gsl_vector_set(x, 0, r->lo + step * (double)i);
