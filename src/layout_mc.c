@@ -32,13 +32,14 @@ typedef struct {
 
 /* Buffers of one worker: the kept wafers of a lot. */
 typedef struct {
-    double *x, *z, *mean, *devices, *ss, *conv, *load_offset;
+    double *x, *mean, *devices, *ss, *conv, *load_offset;
+    long *load;
 } lot_buffers;
 
 static void buffers_free(lot_buffers *b)
 {
     free(b->x);
-    free(b->z);
+    free(b->load);
     free(b->mean);
     free(b->devices);
     free(b->ss);
@@ -50,13 +51,13 @@ static int buffers_alloc(lot_buffers *b, const sl_layout_model *m)
 {
     size_t n = m->n_obs + 1, L = m->n_loads + 1;
     b->x = malloc(n * m->n_coef * sizeof *b->x);
-    b->z = malloc(n * L * sizeof *b->z);
+    b->load = malloc(n * (m->n_steps + 1) * sizeof *b->load);
     b->mean = malloc(n * sizeof *b->mean);
     b->devices = malloc(n * sizeof *b->devices);
     b->ss = malloc(n * sizeof *b->ss);
     b->conv = malloc(n * sizeof *b->conv);
     b->load_offset = malloc(L * sizeof *b->load_offset);
-    return b->x && b->z && b->mean && b->devices && b->ss && b->conv && b->load_offset ? 0 : -1;
+    return b->x && b->load && b->mean && b->devices && b->ss && b->conv && b->load_offset ? 0 : -1;
 }
 
 /* Draw one lot with every level as planned (true effects 0); returns the
@@ -65,7 +66,7 @@ static size_t draw_lot(lot_buffers *b, const worker *w, gsl_rng *rng)
 {
     const sl_layout_model *m = w->model;
     const sl_plan_variation *v = &w->plan->variation;
-    size_t L = m->n_loads, p = m->n_coef, kept = 0;
+    size_t L = m->n_loads, p = m->n_coef, S = m->n_steps, kept = 0;
     for (size_t k = 0; k < L; k++)
         b->load_offset[k] = gsl_ran_gaussian(rng, v->batch_sigma_per_cm2);
     for (size_t i = 0; i < m->n_obs; i++) {
@@ -74,8 +75,9 @@ static size_t draw_lot(lot_buffers *b, const worker *w, gsl_rng *rng)
         double offset = gsl_ran_gaussian(rng, v->wafer_sigma_per_cm2);
         if (usable == 0)
             continue; /* a wafer without usable devices has no mean */
-        for (size_t k = 0; k < L; k++)
-            offset += m->z[i * L + k] * b->load_offset[k];
+        for (size_t s = 0; s < S; s++)
+            if (m->load[i * S + s] >= 0)
+                offset += b->load_offset[m->load[i * S + s]];
         double mean_V = gsl_ran_gaussian(rng, v->device_sigma_V / sqrt((double)usable));
         b->ss[kept] = usable > 1 ? v->device_sigma_V * v->device_sigma_V *
                                        gsl_ran_chisq(rng, (double)(usable - 1))
@@ -84,8 +86,8 @@ static size_t draw_lot(lot_buffers *b, const worker *w, gsl_rng *rng)
         b->devices[kept] = (double)usable;
         b->conv[kept] = m->per_cm2_per_V[i];
         memcpy(b->x + kept * p, m->x + i * p, p * sizeof *b->x);
-        if (L)
-            memcpy(b->z + kept * L, m->z + i * L, L * sizeof *b->z);
+        if (S)
+            memcpy(b->load + kept * S, m->load + i * S, S * sizeof *b->load);
         kept++;
     }
     return kept;
@@ -121,8 +123,9 @@ static void *run_worker(void *arg)
         const sl_layout_model *m = w->model;
         for (size_t lot = 0; lot < w->lots; lot++) {
             size_t kept = draw_lot(&b, w, rng);
-            sl_stats_wafer_data in = { kept, m->n_coef, m->n_loads, b.x, b.mean, b.devices,
-                                       b.ss, b.conv, m->n_loads ? b.z : NULL };
+            sl_stats_wafer_data in = { kept,   m->n_coef, m->n_loads, m->n_steps,
+                                       b.x,    b.mean,    b.devices,  b.ss,
+                                       b.conv, m->n_loads ? b.load : NULL };
             sl_stats_wafer_fit fit;
             w->analysed++;
             /* a lot the analysis cannot fit gives no verdict: it counts as not found */

@@ -62,7 +62,7 @@ void sl_layout_model_free(sl_layout_model *m)
 {
     free(m->x);
     free(m->var);
-    free(m->z);
+    free(m->load);
     free(m->per_cm2_per_V);
     free(m->wafer);
     free(m->coef_factor);
@@ -135,23 +135,24 @@ static sl_status model_from_rows(sl_layout_model *m, const sl_plan *plan, const 
         L += r->loads_per_batch[b];
     m->n_obs = r->n;
     m->n_loads = L;
+    m->n_steps = nb;
     m->wafer_var = v->wafer_sigma_per_cm2 * v->wafer_sigma_per_cm2;
     m->device_var_V2 = v->device_sigma_V * v->device_sigma_V;
     m->load_var = v->batch_sigma_per_cm2 * v->batch_sigma_per_cm2;
     m->devices = devices;
     m->var = malloc((r->n + 1) * sizeof *m->var);
     m->per_cm2_per_V = malloc((r->n + 1) * sizeof *m->per_cm2_per_V);
-    m->z = L ? calloc(r->n * L, sizeof *m->z) : NULL;
+    m->load = malloc((r->n * nb + 1) * sizeof *m->load);
     m->wafer = calloc(r->n + 1, sizeof *m->wafer);
-    if (!m->var || !m->per_cm2_per_V || (L && !m->z) || !m->wafer)
+    if (!m->var || !m->per_cm2_per_V || !m->load || !m->wafer)
         return SL_ENOMEM;
     for (size_t i = 0; i < r->n; i++) {
         double c = per_cm2_per_V(plan, plan->splits[r->split[i]].dielectric);
         m->per_cm2_per_V[i] = c;
         m->var[i] = m->wafer_var + (isinf(devices) ? 0.0 : m->device_var_V2 * c * c / devices);
         for (size_t b = 0, offset = 0; b < nb; offset += r->loads_per_batch[b++])
-            if (r->load[i * nb + b] > 0)
-                m->z[i * L + offset + r->load[i * nb + b] - 1] = 1.0;
+            m->load[i * nb + b] =
+                r->load[i * nb + b] > 0 ? (long)(offset + r->load[i * nb + b] - 1) : -1;
     }
     return model_design(m, plan, r);
 }
@@ -237,7 +238,8 @@ static sl_status model_stats(level_stats *s, const sl_layout_model *m)
     s->df = malloc(m->n_coef * sizeof *s->df);
     if (!s->cov || !s->df)
         return SL_ENOMEM;
-    sl_stats_gls_model g = { m->n_obs, m->n_coef, m->n_loads, m->x, m->var, m->z, m->load_var };
+    sl_stats_gls_model g = { m->n_obs,  m->n_coef, m->n_loads,  m->n_steps,
+                             m->x,      m->var,    m->n_loads ? m->load : NULL, m->load_var };
     sl_stats_coef_df(s->df, &g);
     return sl_stats_gls_cov(s->cov, &g);
 }
@@ -255,51 +257,109 @@ static double column_power(const level_stats *s, size_t c, const sl_layout_level
     return sl_stats_offplan_power(se, s->df[c], lv->tolerance_per_cm2, lv->shift_per_cm2, alpha);
 }
 
-/* Power of column c in a balanced lot of w wafers per split with devices
- * usable devices per wafer; NaN on failure. */
-static double balanced_power(const sl_plan *plan, size_t w, double devices, size_t c,
-                             const sl_layout_level *lv)
+/* Models of balanced lots already worked out: the searches of every level
+ * ask for the same few (wafers per split, devices) pairs. */
+#define CACHE_MAX 32
+
+typedef struct {
+    size_t w;
+    double devices;
+    level_stats s;
+    sl_status status;
+} cache_entry;
+
+typedef struct {
+    const sl_plan *plan;
+    cache_entry e[CACHE_MAX];
+    size_t n, next;          /* entries in use; the one to replace next */
+    level_stats unlimited;   /* today's layout with unlimited devices */
+    sl_status unlimited_status;
+    int has_unlimited;
+} power_cache;
+
+static void cache_free(power_cache *pc)
 {
-    rows r = { 0 };
-    sl_layout_model m = { 0 };
-    level_stats s = { 0 };
-    double power = NAN;
-    if (rows_balanced(&r, plan, w) == SL_OK && model_from_rows(&m, plan, &r, devices) == SL_OK &&
-        model_stats(&s, &m) == SL_OK)
-        power = column_power(&s, c, lv, plan->resolve.alpha);
-    level_stats_free(&s);
-    sl_layout_model_free(&m);
-    rows_free(&r);
-    return power;
+    for (size_t i = 0; i < pc->n; i++)
+        level_stats_free(&pc->e[i].s);
+    level_stats_free(&pc->unlimited);
 }
 
-/* Smallest w in 1..max with power >= target (power grows with w). */
-static long wafers_needed(const sl_plan *plan, double devices, size_t c, const sl_layout_level *lv)
+static cache_entry *balanced_stats(power_cache *pc, size_t w, double devices)
 {
-    double target = plan->resolve.power;
-    long hi = SL_LAYOUT_MAX_WAFERS_PER_SPLIT, lo = 1;
-    if (!(balanced_power(plan, (size_t)hi, devices, c, lv) >= target))
-        return -1;
+    for (size_t i = 0; i < pc->n; i++)
+        if (pc->e[i].w == w && pc->e[i].devices == devices)
+            return &pc->e[i];
+    cache_entry *e = &pc->e[pc->n < CACHE_MAX ? pc->n++ : pc->next];
+    pc->next = (size_t)(e - pc->e + 1) % CACHE_MAX;
+    level_stats_free(&e->s);
+    *e = (cache_entry){ .w = w, .devices = devices };
+    rows r = { 0 };
+    sl_layout_model m = { 0 };
+    e->status = rows_balanced(&r, pc->plan, w);
+    if (e->status == SL_OK)
+        e->status = model_from_rows(&m, pc->plan, &r, devices);
+    if (e->status == SL_OK)
+        e->status = model_stats(&e->s, &m);
+    sl_layout_model_free(&m);
+    rows_free(&r);
+    return e;
+}
+
+/* Power of column c in a balanced lot of w wafers per split with devices
+ * usable devices per wafer; NaN on failure. Without batches the covariance
+ * of w wafers per split is that of one wafer per split over w. */
+static double balanced_power(power_cache *pc, size_t w, double devices, size_t c,
+                             const sl_layout_level *lv)
+{
+    const sl_plan *plan = pc->plan;
+    double alpha = plan->resolve.alpha;
+    if (plan->n_batches > 0) {
+        cache_entry *e = balanced_stats(pc, w, devices);
+        return e->status == SL_OK ? column_power(&e->s, c, lv, alpha) : NAN;
+    }
+    cache_entry *e = balanced_stats(pc, 1, devices);
+    if (e->status != SL_OK)
+        return NAN;
+    double se = sqrt(e->s.cov[c * e->s.p + c] / (double)w);
+    double df = (double)(plan->n_splits * w) - (double)e->s.p;
+    return sl_stats_offplan_power(se, df, lv->tolerance_per_cm2, lv->shift_per_cm2, alpha);
+}
+
+/* Smallest w in 1..max with power >= target (power grows with w): doubling,
+ * then bisection. */
+static long wafers_needed(power_cache *pc, double devices, size_t c, const sl_layout_level *lv)
+{
+    double target = pc->plan->resolve.power;
+    long max = SL_LAYOUT_MAX_WAFERS_PER_SPLIT, w = 1;
+    while (w < max && !(balanced_power(pc, (size_t)w, devices, c, lv) >= target))
+        w *= 2;
+    if (w >= max) {
+        w = max;
+        if (!(balanced_power(pc, (size_t)w, devices, c, lv) >= target))
+            return -1;
+    }
+    long lo = w / 2 + 1, hi = w;
     while (lo < hi) {
         long mid = lo + (hi - lo) / 2;
-        if (balanced_power(plan, (size_t)mid, devices, c, lv) >= target)
+        if (balanced_power(pc, (size_t)mid, devices, c, lv) >= target)
             hi = mid;
         else
             lo = mid + 1;
     }
-    return lo;
+    return hi;
 }
 
 /* At w wafers per split, the fewest devices per wafer keeping the power. */
-static long devices_enough(const sl_plan *plan, size_t w, size_t c, const sl_layout_level *lv)
+static long devices_enough(power_cache *pc, size_t w, size_t c, const sl_layout_level *lv)
 {
+    const sl_plan *plan = pc->plan;
     long lo = 1, hi = plan->devices_per_wafer;
     double y = plan->expected_yield;
-    if (!(balanced_power(plan, w, (double)hi * y, c, lv) >= plan->resolve.power))
+    if (!(balanced_power(pc, w, (double)hi * y, c, lv) >= plan->resolve.power))
         return 0;
     while (lo < hi) {
         long mid = lo + (hi - lo) / 2;
-        if (balanced_power(plan, w, (double)mid * y, c, lv) >= plan->resolve.power)
+        if (balanced_power(pc, w, (double)mid * y, c, lv) >= plan->resolve.power)
             hi = mid;
         else
             lo = mid + 1;
@@ -317,20 +377,39 @@ static size_t wafers_at(const sl_layout_model *m, size_t c)
 
 static size_t loads_at(const sl_layout_model *m, size_t c)
 {
+    unsigned char *carries = calloc(m->n_loads + 1, 1);
     size_t n = 0;
-    for (size_t k = 0; k < m->n_loads; k++) {
-        int carries = 0;
-        for (size_t i = 0; i < m->n_obs && !carries; i++)
-            carries = m->z[i * m->n_loads + k] != 0.0 && m->x[i * m->n_coef + c] != 0.0;
-        n += carries;
-    }
+    for (size_t i = 0; carries && i < m->n_obs; i++)
+        for (size_t s = 0; s < m->n_steps; s++) {
+            long k = m->load[i * m->n_steps + s];
+            if (k >= 0 && m->x[i * m->n_coef + c] != 0.0 && !carries[k]) {
+                carries[k] = 1;
+                n++;
+            }
+        }
+    free(carries);
     return n;
 }
 
-static void judge_level(sl_layout_level *lv, const sl_plan *plan, const sl_layout *l,
+/* Today's layout with unlimited devices per wafer, worked out once. */
+static const level_stats *unlimited_stats(power_cache *pc, const sl_layout *l)
+{
+    if (!pc->has_unlimited) {
+        sl_layout_model m = { 0 };
+        pc->has_unlimited = 1;
+        pc->unlimited_status = sl_layout_model_build(&m, pc->plan, l, INFINITY);
+        if (pc->unlimited_status == SL_OK)
+            pc->unlimited_status = model_stats(&pc->unlimited, &m);
+        sl_layout_model_free(&m);
+    }
+    return pc->unlimited_status == SL_OK ? &pc->unlimited : NULL;
+}
+
+static void judge_level(sl_layout_level *lv, power_cache *pc, const sl_layout *l,
                         const sl_layout_model *m, const level_stats *s, size_t c)
 {
-    double alpha = plan->resolve.alpha, devices = m->devices;
+    const sl_plan *plan = pc->plan;
+    double alpha = plan->resolve.alpha;
     lv->effect_se_per_cm2 = sqrt(s->cov[c * s->p + c]);
     lv->df = s->df[c];
     if (!plan->resolve.present)
@@ -339,19 +418,16 @@ static void judge_level(sl_layout_level *lv, const sl_plan *plan, const sl_layou
     lv->false_rate = sl_stats_offplan_false_rate(lv->effect_se_per_cm2, lv->df,
                                                  lv->tolerance_per_cm2, alpha);
     lv->verdict = lv->power >= plan->resolve.power ? SL_LAYOUT_ENOUGH : SL_LAYOUT_TOO_FEW;
-    lv->wafers_per_split_needed = wafers_needed(plan, devices, c, lv);
+    lv->wafers_per_split_needed = wafers_needed(pc, m->devices, c, lv);
     if (lv->verdict == SL_LAYOUT_ENOUGH)
         return;
     /* what would help: devices without limit at today's wafers, or more wafers */
-    sl_layout_model inf = { 0 };
-    level_stats si = { 0 };
-    if (sl_layout_model_build(&inf, plan, l, INFINITY) == SL_OK && model_stats(&si, &inf) == SL_OK)
-        lv->devices_cannot_help = !(column_power(&si, c, lv, alpha) >= plan->resolve.power);
-    level_stats_free(&si);
-    sl_layout_model_free(&inf);
+    const level_stats *inf = unlimited_stats(pc, l);
+    if (inf)
+        lv->devices_cannot_help = !(column_power(inf, c, lv, alpha) >= plan->resolve.power);
     if (lv->wafers_per_split_needed > 0)
         lv->devices_per_wafer_enough =
-            devices_enough(plan, (size_t)lv->wafers_per_split_needed, c, lv);
+            devices_enough(pc, (size_t)lv->wafers_per_split_needed, c, lv);
 }
 
 static sl_status list_levels(sl_layout *l, const sl_plan *plan)
@@ -383,6 +459,10 @@ sl_status sl_layout_power(sl_layout *l, const sl_plan *plan)
         return st;
     sl_layout_model m = { 0 };
     level_stats s = { 0 };
+    power_cache *pc = calloc(1, sizeof *pc);
+    if (!pc)
+        return SL_ENOMEM;
+    pc->plan = plan;
     st = sl_layout_model_build(&m, plan, l, (double)plan->devices_per_wafer);
     if (st == SL_OK)
         st = model_stats(&s, &m);
@@ -393,9 +473,11 @@ sl_status sl_layout_power(sl_layout *l, const sl_plan *plan)
                 continue;
             lv->loads = loads_at(&m, c);
             lv->wafers = wafers_at(&m, c);
-            judge_level(lv, plan, l, &m, &s, c);
+            judge_level(lv, pc, l, &m, &s, c);
         }
     }
+    cache_free(pc);
+    free(pc);
     level_stats_free(&s);
     sl_layout_model_free(&m);
     return st;

@@ -17,7 +17,7 @@
 
 #include "stats_internal.h"
 
-#define GRID_1D 24          /* log-spaced starting grid for one component */
+#define GRID_1D 16          /* log-spaced starting grid for one component */
 #define GRID_2D 10          /* per axis, with loads */
 #define RANGE_LO 1e-6       /* components searched over [1e-6, 1e2] x the OLS scale */
 #define RANGE_HI 1e2
@@ -31,6 +31,7 @@ typedef struct {
     double *d;          /* work: diagonal of V */
     gsl_matrix *g, *work;
     double lo, hi;      /* log range of each component */
+    stats_loads loads;
 } reml;
 
 /* -2 restricted log-likelihood (constants dropped) at wafer variance a and
@@ -40,7 +41,7 @@ static double reml_objective(reml *r, double a, double b)
     double logdet_v = 0.0;
     for (size_t i = 0; i < r->n; i++)
         r->d[i] = a + r->dev[i];
-    if (stats_gls_gram(r->g, &logdet_v, r->m, r->q, r->d, r->in->z, r->n, r->L, b, r->work) != 0)
+    if (stats_gls_gram(r->g, &logdet_v, r->m, r->q, r->d, r->n, &r->loads, b, r->work) != 0)
         return INFINITY;
     gsl_matrix_view xx = gsl_matrix_submatrix(r->g, 0, 0, r->p, r->p);
     gsl_vector_view xy = gsl_matrix_subcolumn(r->g, r->p, 0, r->p);
@@ -97,8 +98,9 @@ static double minimise_1d(reml *r)
         for (int it = 0; it < MAX_ITER; it++) {
             if (gsl_min_fminimizer_iterate(m) != GSL_SUCCESS)
                 break;
+            /* 1e-4 in log variance: far below the sampling error of the estimate */
             if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(m),
-                                      gsl_min_fminimizer_x_upper(m), 1e-6, 0.0) == GSL_SUCCESS)
+                                      gsl_min_fminimizer_x_upper(m), 1e-4, 0.0) == GSL_SUCCESS)
                 break;
         }
         best_u = gsl_min_fminimizer_x_minimum(m);
@@ -151,8 +153,11 @@ static int data_ok(const sl_stats_wafer_data *in)
 {
     if (!in->x || !in->mean || !in->devices || !in->ss_V2 || !in->per_cm2_per_V ||
         in->n_coef == 0 || in->n_coef > SL_STATS_MAX_COEF || in->n_wafers <= in->n_coef ||
-        (in->n_loads > 0 && !in->z))
+        (in->n_loads > 0 && (!in->load || in->n_steps == 0)))
         return 0;
+    for (size_t i = 0; in->n_loads && i < in->n_wafers * in->n_steps; i++)
+        if (in->load[i] >= (long)in->n_loads)
+            return 0;
     for (size_t i = 0; i < in->n_wafers; i++)
         if (!isfinite(in->mean[i]) || !(in->devices[i] >= 1.0) || !(in->ss_V2[i] >= 0.0) ||
             !isfinite(in->per_cm2_per_V[i]))
@@ -191,7 +196,8 @@ static sl_status reml_init(reml *r, const sl_stats_wafer_data *in, double device
     r->dev = malloc(r->n * sizeof *r->dev);
     r->d = malloc(r->n * sizeof *r->d);
     r->g = gsl_matrix_alloc(r->q, r->q);
-    r->work = r->L ? gsl_matrix_alloc(r->L, r->L + r->q) : NULL;
+    r->loads = (stats_loads){ in->load, in->n_loads, in->n_steps };
+    r->work = stats_gls_work_alloc(&r->loads, r->q);
     if (!r->m || !r->dev || !r->d || !r->g || (r->L && !r->work))
         return SL_ENOMEM;
     for (size_t i = 0; i < r->n; i++) {
@@ -208,7 +214,7 @@ static sl_status final_fit(sl_stats_wafer_fit *out, reml *r, double a, double b)
 {
     for (size_t i = 0; i < r->n; i++)
         r->d[i] = a + r->dev[i];
-    if (stats_gls_gram(r->g, NULL, r->m, r->q, r->d, r->in->z, r->n, r->L, b, r->work) != 0)
+    if (stats_gls_gram(r->g, NULL, r->m, r->q, r->d, r->n, &r->loads, b, r->work) != 0)
         return SL_ENUM;
     gsl_matrix_view xx = gsl_matrix_submatrix(r->g, 0, 0, r->p, r->p);
     gsl_vector_view xy = gsl_matrix_subcolumn(r->g, r->p, 0, r->p);
@@ -267,7 +273,7 @@ sl_status sl_stats_wafer_effects(sl_stats_wafer_fit *out, const sl_stats_wafer_d
         out->device_sigma_V = sqrt(device_var);
         out->wafer_sigma_per_cm2 = sqrt(a);
         out->load_sigma_per_cm2 = sqrt(b);
-        sl_stats_gls_model model = { r.n, r.p, r.L, in->x, r.d, in->z, b };
+        sl_stats_gls_model model = { r.n, r.p, r.L, in->n_steps, in->x, r.d, in->load, b };
         sl_stats_coef_df(out->df, &model);
     }
     reml_free(&r);

@@ -119,55 +119,125 @@ double sl_stats_offplan_false_rate(double se, double df, double tolerance, doubl
 
 /* ---- generalised least squares ---- */
 
-/* B = I / s2b + Z^T D^-1 Z and C = Z^T D^-1 M side by side in work. */
-static void load_blocks(gsl_matrix *work, const double *m, size_t q, const double *d,
-                        const double *z, size_t n, size_t L, double s2b)
+gsl_matrix *stats_gls_work_alloc(const stats_loads *loads, size_t q)
 {
+    if (loads->n == 0)
+        return NULL;
+    return gsl_matrix_alloc(loads->n, (loads->steps == 1 ? 1 : loads->n) + q);
+}
+
+/* One step: B = I / s2b + Z^T D^-1 Z is diagonal (a wafer is in one load of
+ * the step), column 0 of work; C = Z^T D^-1 M in the columns after it. */
+static void diagonal_blocks(gsl_matrix *work, const double *m, size_t q, const double *d,
+                            size_t n, const stats_loads *z, double s2b)
+{
+    gsl_matrix_set_zero(work);
+    for (size_t k = 0; k < z->n; k++)
+        gsl_matrix_set(work, k, 0, 1.0 / s2b);
+    for (size_t i = 0; i < n; i++) {
+        long k = z->load[i];
+        if (k < 0)
+            continue;
+        *gsl_matrix_ptr(work, (size_t)k, 0) += 1.0 / d[i];
+        for (size_t c = 0; c < q; c++)
+            *gsl_matrix_ptr(work, (size_t)k, 1 + c) += m[i * q + c] / d[i];
+    }
+}
+
+/* Several steps: B dense (L x L) and C side by side in work. */
+static void dense_blocks(gsl_matrix *work, const double *m, size_t q, const double *d, size_t n,
+                         const stats_loads *z, double s2b)
+{
+    size_t L = z->n;
     gsl_matrix_set_zero(work);
     for (size_t k = 0; k < L; k++)
         gsl_matrix_set(work, k, k, 1.0 / s2b);
     for (size_t i = 0; i < n; i++)
-        for (size_t k = 0; k < L; k++) {
-            double zk = z[i * L + k] / d[i];
-            if (zk == 0.0)
+        for (size_t s = 0; s < z->steps; s++) {
+            long k = z->load[i * z->steps + s];
+            if (k < 0)
                 continue;
-            for (size_t l = 0; l < L; l++)
-                *gsl_matrix_ptr(work, k, l) += zk * z[i * L + l];
+            for (size_t t = 0; t < z->steps; t++) {
+                long l = z->load[i * z->steps + t];
+                if (l >= 0)
+                    *gsl_matrix_ptr(work, (size_t)k, (size_t)l) += 1.0 / d[i];
+            }
             for (size_t c = 0; c < q; c++)
-                *gsl_matrix_ptr(work, k, L + c) += zk * m[i * q + c];
+                *gsl_matrix_ptr(work, (size_t)k, L + c) += m[i * q + c] / d[i];
         }
 }
 
-int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, const double *d,
-                   const double *z, size_t n, size_t L, double s2b, gsl_matrix *work)
+/* G -= C^T B^-1 C and the log det B, B diagonal in column 0 of work. */
+static double subtract_diagonal(gsl_matrix *g, const gsl_matrix *work, size_t L, size_t q)
 {
     double ld = 0.0;
+    for (size_t k = 0; k < L; k++) {
+        double b = gsl_matrix_get(work, k, 0);
+        ld += log(b);
+        for (size_t a = 0; a < q; a++)
+            for (size_t c = a; c < q; c++)
+                *gsl_matrix_ptr(g, a, c) -=
+                    gsl_matrix_get(work, k, 1 + a) * gsl_matrix_get(work, k, 1 + c) / b;
+    }
+    return ld;
+}
+
+/* G -= C^T B^-1 C and the log det B by Cholesky; NaN when B is not positive. */
+static double subtract_dense(gsl_matrix *g, gsl_matrix *work, size_t L, size_t q)
+{
+    gsl_matrix_view bm = gsl_matrix_submatrix(work, 0, 0, L, L);
+    gsl_matrix_view cm = gsl_matrix_submatrix(work, 0, L, L, q);
+    if (gsl_linalg_cholesky_decomp1(&bm.matrix) != GSL_SUCCESS)
+        return NAN;
+    double ld = 0.0;
+    for (size_t k = 0; k < L; k++)
+        ld += 2.0 * log(gsl_matrix_get(&bm.matrix, k, k));
+    /* L^-1 C, then G -= (L^-1 C)^T (L^-1 C) */
+    gsl_blas_dtrsm(CblasLeft, CblasLower, CblasNoTrans, CblasNonUnit, 1.0, &bm.matrix,
+                   &cm.matrix);
+    for (size_t a = 0; a < q; a++)
+        for (size_t b = a; b < q; b++) {
+            double s = 0.0;
+            for (size_t k = 0; k < L; k++)
+                s += gsl_matrix_get(&cm.matrix, k, a) * gsl_matrix_get(&cm.matrix, k, b);
+            *gsl_matrix_ptr(g, a, b) -= s;
+        }
+    return ld;
+}
+
+int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, const double *d,
+                   size_t n, const stats_loads *loads, double s2b, gsl_matrix *work)
+{
+    double ld = 0.0;
+    double *gd = g->data;
+    size_t tda = g->tda;
     gsl_matrix_set_zero(g);
     for (size_t i = 0; i < n; i++) {
-        ld += log(d[i]);
-        for (size_t a = 0; a < q; a++)
+        if (logdet)
+            ld += log(d[i]);
+        const double *row = m + i * q;
+        double w = 1.0 / d[i];
+        for (size_t a = 0; a < q; a++) {
+            double wa = w * row[a];
+            if (wa == 0.0)
+                continue;
             for (size_t b = a; b < q; b++)
-                *gsl_matrix_ptr(g, a, b) += m[i * q + a] * m[i * q + b] / d[i];
+                gd[a * tda + b] += wa * row[b];
+        }
     }
+    size_t L = loads ? loads->n : 0;
     if (L > 0 && s2b > 0.0) {
-        load_blocks(work, m, q, d, z, n, L, s2b);
-        gsl_matrix_view bm = gsl_matrix_submatrix(work, 0, 0, L, L);
-        gsl_matrix_view cm = gsl_matrix_submatrix(work, 0, L, L, q);
-        if (gsl_linalg_cholesky_decomp1(&bm.matrix) != GSL_SUCCESS)
+        double lb;
+        if (loads->steps == 1) {
+            diagonal_blocks(work, m, q, d, n, loads, s2b);
+            lb = subtract_diagonal(g, work, L, q);
+        } else {
+            dense_blocks(work, m, q, d, n, loads, s2b);
+            lb = subtract_dense(g, work, L, q);
+        }
+        if (isnan(lb))
             return -1;
-        ld += (double)L * log(s2b);
-        for (size_t k = 0; k < L; k++)
-            ld += 2.0 * log(gsl_matrix_get(&bm.matrix, k, k));
-        /* L^-1 C, then G -= (L^-1 C)^T (L^-1 C) */
-        gsl_blas_dtrsm(CblasLeft, CblasLower, CblasNoTrans, CblasNonUnit, 1.0, &bm.matrix,
-                       &cm.matrix);
-        for (size_t a = 0; a < q; a++)
-            for (size_t b = a; b < q; b++) {
-                double s = 0.0;
-                for (size_t k = 0; k < L; k++)
-                    s += gsl_matrix_get(&cm.matrix, k, a) * gsl_matrix_get(&cm.matrix, k, b);
-                *gsl_matrix_ptr(g, a, b) -= s;
-            }
+        ld += (double)L * log(s2b) + lb;
     }
     for (size_t a = 0; a < q; a++)
         for (size_t b = 0; b < a; b++)
@@ -180,8 +250,12 @@ int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, con
 static int model_ok(const sl_stats_gls_model *m)
 {
     if (!m->x || !m->var || m->n_coef == 0 || m->n_obs < m->n_coef ||
-        (m->n_loads > 0 && !m->z) || !(m->load_var >= 0.0) || !isfinite(m->load_var))
+        (m->n_loads > 0 && (!m->load || m->n_steps == 0)) || !(m->load_var >= 0.0) ||
+        !isfinite(m->load_var))
         return 0;
+    for (size_t i = 0; m->n_loads && i < m->n_obs * m->n_steps; i++)
+        if (m->load[i] >= (long)m->n_loads)
+            return 0;
     for (size_t i = 0; i < m->n_obs; i++)
         if (!(m->var[i] > 0.0) || !isfinite(m->var[i]))
             return 0;
@@ -193,16 +267,17 @@ sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model)
     if (!model_ok(model))
         return SL_EINPUT;
     size_t p = model->n_coef, L = model->n_loads;
+    stats_loads loads = { model->load, L, model->n_steps };
     gsl_matrix *g = gsl_matrix_alloc(p, p);
-    gsl_matrix *work = L ? gsl_matrix_alloc(L, L + p) : NULL;
+    gsl_matrix *work = stats_gls_work_alloc(&loads, p);
     if (!g || (L && !work)) {
         gsl_matrix_free(g);
         gsl_matrix_free(work);
         return SL_ENOMEM;
     }
     sl_status st = SL_OK;
-    if (stats_gls_gram(g, NULL, model->x, p, model->var, model->z, model->n_obs, L,
-                       model->load_var, work) != 0 ||
+    if (stats_gls_gram(g, NULL, model->x, p, model->var, model->n_obs, &loads, model->load_var,
+                       work) != 0 ||
         gsl_linalg_cholesky_decomp1(g) != GSL_SUCCESS ||
         gsl_linalg_cholesky_invert(g) != GSL_SUCCESS)
         st = SL_ENUM;
@@ -214,41 +289,61 @@ sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model)
     return st;
 }
 
-/* The column is the same on every wafer of each load and set in a load of
- * two or more wafers: a level that the loads carry. */
-static int load_level_column(const sl_stats_gls_model *m, size_t col)
+/* Per load: how many wafers, and whether column col is the same on all of
+ * them (first value in value[k]). */
+static void load_members(size_t *members, double *value, int *same, const sl_stats_gls_model *m,
+                         size_t col)
 {
-    int carried = 0;
     for (size_t k = 0; k < m->n_loads; k++) {
-        size_t members = 0;
-        double value = 0.0;
-        for (size_t i = 0; i < m->n_obs; i++) {
-            if (m->z[i * m->n_loads + k] == 0.0)
+        members[k] = 0;
+        same[k] = 1;
+    }
+    for (size_t i = 0; i < m->n_obs; i++)
+        for (size_t s = 0; s < m->n_steps; s++) {
+            long k = m->load[i * m->n_steps + s];
+            if (k < 0)
                 continue;
             double x = m->x[i * m->n_coef + col];
-            if (members++ > 0 && x != value)
-                return 0;
-            value = x;
+            if (members[k]++ == 0)
+                value[k] = x;
+            else if (x != value[k])
+                same[k] = 0;
         }
-        carried |= members >= 2 && value != 0.0;
-    }
-    return carried;
 }
 
 void sl_stats_coef_df(double *df, const sl_stats_gls_model *model)
 {
+    size_t L = model->n_loads;
+    size_t *members = malloc((L + 1) * sizeof *members);
+    double *value = malloc((L + 1) * sizeof *value);
+    int *same = malloc((L + 1) * sizeof *same);
     long units = (long)model->n_obs;
-    for (size_t k = 0; k < model->n_loads; k++) {
-        long members = 0;
-        for (size_t i = 0; i < model->n_obs; i++)
-            members += model->z[i * model->n_loads + k] != 0.0;
-        units -= members > 1 ? members - 1 : 0;
+    for (size_t c = 0; c < model->n_coef; c++)
+        df[c] = (double)model->n_obs - (double)model->n_coef;
+    if (L == 0 || !members || !value || !same) {
+        free(members);
+        free(value);
+        free(same);
+        return;
     }
-    if (units < (long)model->n_loads)
-        units = (long)model->n_loads;
+    load_members(members, value, same, model, 0);
+    for (size_t k = 0; k < L; k++)
+        units -= members[k] > 1 ? (long)members[k] - 1 : 0;
+    if (units < (long)L)
+        units = (long)L;
+    /* a column the loads carry: the same on every wafer of each load, set in
+     * a load of two or more wafers */
     for (size_t c = 0; c < model->n_coef; c++) {
-        double n = model->n_loads && load_level_column(model, c) ? (double)units
-                                                                 : (double)model->n_obs;
-        df[c] = n - (double)model->n_coef;
+        load_members(members, value, same, model, c);
+        int carried = 0, split = 0;
+        for (size_t k = 0; k < L; k++) {
+            split |= !same[k];
+            carried |= members[k] >= 2 && value[k] != 0.0;
+        }
+        if (carried && !split)
+            df[c] = (double)units - (double)model->n_coef;
     }
+    free(members);
+    free(value);
+    free(same);
 }

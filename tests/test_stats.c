@@ -847,7 +847,7 @@ static void check_gls_se(const sl_stats_gls_model *m, const double *se, double c
 START_TEST(test_gls_cov_against_numpy)
 {
     double v8[8] = { 2, 2, 2, 2, 2, 2, 2, 2 };
-    sl_stats_gls_model balanced = { 8, 3, 0, design_2x2, v8, NULL, 0.0 };
+    sl_stats_gls_model balanced = { 8, 3, 0, 0, design_2x2, v8, NULL, 0.0 };
     check_gls_se(&balanced, (const double[]){ 0.866025403784, 1.0, 1.0 }, -0.5);
 
     /* a spare wafer added to cell (1, 1); var = 1 + 0.5 / m, m usable devices
@@ -859,15 +859,21 @@ START_TEST(test_gls_cov_against_numpy)
     double v9[9];
     for (size_t i = 0; i < 9; i++)
         v9[i] = 1.0 + 0.5 / m[i];
-    sl_stats_gls_model unbalanced = { 9, 3, 0, x9, v9, NULL, 0.0 };
+    sl_stats_gls_model unbalanced = { 9, 3, 0, 0, x9, v9, NULL, 0.0 };
     check_gls_se(&unbalanced, (const double[]){ 0.608627490399, 0.68063682899, 0.680782995347 },
                  -0.231350885464);
 
     /* the B = 1 wafers (rows 2, 3, 6, 7) in two loads balanced over A, load_var 0.7 */
-    double z[8 * 2] = { 0 };
-    z[2 * 2 + 0] = z[6 * 2 + 0] = z[3 * 2 + 1] = z[7 * 2 + 1] = 1;
-    sl_stats_gls_model batched = { 8, 3, 2, design_2x2, v8, z, 0.7 };
+    const long load[8] = { -1, -1, 0, 1, -1, -1, 0, 1 };
+    sl_stats_gls_model batched = { 8, 3, 2, 1, design_2x2, v8, load, 0.7 };
     check_gls_se(&batched, (const double[]){ 0.866025403784, 1.0, 1.16189500386 }, -0.5);
+
+    /* two batched steps (the loads' block no longer diagonal): step 2 takes
+     * rows 0, 1, 4, 5 in load 2 and rows 2, 3 in load 3 */
+    const long load2[8 * 2] = { -1, 2, -1, 2, 0, 3, 1, 3, -1, 2, -1, 2, 0, -1, 1, -1 };
+    sl_stats_gls_model two_steps = { 8, 3, 4, 2, design_2x2, v8, load2, 0.7 };
+    check_gls_se(&two_steps, (const double[]){ 1.21952205497, 1.07188440152, 1.48288103711 },
+                 -0.574468085106);
 
     /* B is carried by the loads: 2 loads + 4 wafers outside = 6 units - 3 */
     double df[3];
@@ -892,7 +898,7 @@ START_TEST(test_wafer_effects_balanced_is_ols)
         ss[i] = 24 * 0.04;        /* device sigma 0.2 V */
         conv[i] = 2.0e11;         /* cm^-2 per V */
     }
-    sl_stats_wafer_data in = { 8, 3, 0, design_2x2, y, devices, ss, conv, NULL };
+    sl_stats_wafer_data in = { 8, 3, 0, 0, design_2x2, y, devices, ss, conv, NULL };
     sl_stats_wafer_fit fit;
     ck_assert_int_eq(sl_stats_wafer_effects(&fit, &in), SL_OK);
     sl_stats_fit *ols = NULL;

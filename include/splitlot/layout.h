@@ -114,8 +114,9 @@ double sl_layout_tolerance_per_cm2(const sl_plan *plan, size_t factor, size_t le
  * with sl_layout_model_free. Returns SL_OK, SL_EINPUT (no variation block,
  * too many coefficients), SL_ENOMEM. */
 typedef struct {
-    size_t n_obs, n_coef, n_loads;
-    double *x, *var, *z, *per_cm2_per_V;
+    size_t n_obs, n_coef, n_loads, n_steps;
+    double *x, *var, *per_cm2_per_V;
+    long *load;              /* n_obs x n_steps (plan batches): load index or -1 */
     size_t *wafer;           /* index into layout->wafers of each row */
     size_t *coef_factor, *coef_level;  /* what each column estimates */
     double load_var, wafer_var, device_var_V2, devices;

@@ -365,19 +365,21 @@ double sl_stats_offplan_false_rate(double se, double df, double tolerance, doubl
 /* The variance model of n_obs wafer means in a linear model y = X b + e:
  * Var(y) = V = diag(var) + load_var Z Z^T, var[i] the wafer's own variance
  * (wafer scatter plus its devices' scatter / devices), Z (n_obs x n_loads,
- * 0/1, row-major; NULL when n_loads = 0) the loads each wafer went through,
- * load_var the variance of one load's offset. */
+ * 0/1) the loads each wafer went through, given as load[i * n_steps + s]:
+ * the index (0 .. n_loads - 1) of wafer i's load in batched step s, or -1
+ * when the wafer skips that step; load_var the variance of a load's offset. */
 typedef struct {
-    size_t n_obs, n_coef, n_loads;
+    size_t n_obs, n_coef, n_loads, n_steps;
     const double *x;   /* n_obs x n_coef row-major */
     const double *var; /* n_obs, > 0 */
-    const double *z;   /* n_obs x n_loads, or NULL */
+    const long *load;  /* n_obs x n_steps, or NULL when n_loads = 0 */
     double load_var;   /* >= 0 */
 } sl_stats_gls_model;
 
 /* Covariance of the GLS estimate, cov = (X^T V^-1 X)^-1 (n_coef x n_coef,
  * row-major, caller's array), V^-1 by the Woodbury identity so the cost is
- * linear in n_obs (gsl_linalg_cholesky_decomp1, gsl_linalg_cholesky_invert).
+ * linear in n_obs (gsl_linalg_cholesky_decomp1, gsl_linalg_cholesky_invert;
+ * with one batched step the loads' block is diagonal and needs neither).
  * Returns SL_OK, SL_EINPUT (bad sizes or variances), SL_ENUM (X^T V^-1 X is
  * singular: a coefficient the design cannot estimate), SL_ENOMEM. */
 sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model);
@@ -391,14 +393,14 @@ void sl_stats_coef_df(double *df, const sl_stats_gls_model *model);
 
 /* Wafer-level data of a measured lot for sl_stats_wafer_effects. */
 typedef struct {
-    size_t n_wafers, n_coef, n_loads;
+    size_t n_wafers, n_coef, n_loads, n_steps;
     const double *x;             /* design, n_wafers x n_coef row-major */
     const double *mean;          /* wafer mean of its devices' doping, cm^-2 */
     const double *devices;       /* usable devices behind each mean, >= 1 */
     const double *ss_V2;         /* sum of squared deviations of the wafer's device
                                     neutrality points from their mean, V^2 */
     const double *per_cm2_per_V; /* the wafer's planned C_g / e, cm^-2 per V */
-    const double *z;             /* loads, n_wafers x n_loads 0/1, or NULL */
+    const long *load;            /* loads as in sl_stats_gls_model, or NULL */
 } sl_stats_wafer_data;
 
 /* Effects estimated from wafer means (the wafer, or the load, as the unit). */
