@@ -137,7 +137,8 @@ static sl_status chart_level(sl_history_level *l)
     return SL_OK;
 }
 
-static sl_status collect_lots(sl_history *h, sl_store *store, sl_diag *diag)
+static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_view *view,
+                              sl_diag *diag)
 {
     sl_store_lot *lots = NULL;
     size_t n = 0;
@@ -151,7 +152,13 @@ static sl_status collect_lots(sl_history *h, sl_store *store, sl_diag *diag)
         h->lot_created[i] = dup_or_empty(lots[i].created_utc);
         h->n_lot_names = i + 1;
         sl_analysis_stream *stream = NULL; /* the effects are all it needs */
-        st = sl_analyze_lot_stream(&stream, store, lots[i].lot, diag);
+        size_t before = sl_diag_size(diag);
+        st = sl_analyze_lot_stream_view(&stream, store, lots[i].lot, view, diag);
+        if (st == SL_ENOTFOUND) { /* a lot whose plan lacks the temperature: no estimates */
+            sl_diag_truncate(diag, before);
+            st = SL_OK;
+            continue;
+        }
         sl_analysis *a = st == SL_OK ? &sl_analysis_stream_release(stream)->pub : NULL;
         if (st == SL_OK)
             st = add_lot(h, a, i, n);
@@ -169,11 +176,17 @@ static sl_status collect_lots(sl_history *h, sl_store *store, sl_diag *diag)
 
 sl_status sl_analyze_history(sl_history **out, sl_store *store, sl_diag *diag)
 {
+    return sl_analyze_history_view(out, store, NULL, diag);
+}
+
+sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_analyze_view *view,
+                                  sl_diag *diag)
+{
     *out = NULL;
     sl_history *h = calloc(1, sizeof *h);
     if (!h)
         return SL_ENOMEM;
-    sl_status st = collect_lots(h, store, diag);
+    sl_status st = collect_lots(h, store, view, diag);
     for (size_t i = 0; st == SL_OK && i < h->n_levels; i++)
         st = chart_level(&h->levels[i]);
     if (st != SL_OK) {

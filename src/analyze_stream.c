@@ -1,7 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * One lot against its plan in flat memory (see sl_analyze_lot_stream in
- * include/splitlot/analyze.h): the lot's devices are kept in the store's
- * scratch, and passes over them give the split summaries, exact robust
+ * include/splitlot/analyze.h): the view (step and temperature) is chosen,
+ * the splits, wafers and predictions are read as the view's plan revision
+ * stored them (never recomputed), the lot's current measurements in the
+ * view are kept in the store's scratch, and passes over them give the split summaries, exact robust
  * scales, flags, wafer means, effects and ANOVA, holding state per split and
  * per wafer only; devices and the failure-analysis list are then read back
  * one at a time. Every device is scored by one function (evaluate), whichever
@@ -15,7 +17,6 @@
 #include <gsl/gsl_rstat.h>
 
 #include "analyze_internal.h"
-#include "splitlot/predict.h"
 
 /* Fewest usable devices in a split for modified z-scores to mean anything
  * (common practice: a median and MAD of fewer points are too unstable). */
@@ -50,54 +51,156 @@ static int is_usable(const sl_store_device_row *r)
     return strcmp(r->fit_class, fit_ok) == 0 && isfinite(r->cnp_V);
 }
 
-/* ---- plan and predictions ---- */
+/* ---- the view, the plan and what its revision stored ---- */
 
-static sl_status load_plan(sl_analysis *a, sl_layout **layout, sl_store *store, const char *lot,
-                           sl_diag *diag)
+/* The view's temperature among the stored ones: its index, or -1. */
+static long temperature_index(const sl_store_revision *rev, double temperature_K)
 {
-    sl_status st = sl_store_find_lot(store, &a->lot, lot, diag);
+    for (size_t t = 0; t < rev->n_temperatures; t++)
+        if (rev->temperatures_K[t] == temperature_K)
+            return (long)t;
+    return -1;
+}
+
+/* The step and temperature shown, and the revision of the view's newest
+ * run (the lot's newest revision when the view has no run). */
+static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
+                             const sl_analyze_view *view, sl_diag *diag)
+{
+    sl_store_revision newest;
+    sl_status st = sl_store_load_revision(store, &newest, a->lot.revision_id, diag);
     if (st != SL_OK)
         return st;
-    st = sl_plan_parse(&a->plan, a->lot.plan_text, strlen(a->lot.plan_text), a->lot.plan_name, diag);
+    st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
+                               newest.temperatures_K, newest.n_temperatures, diag);
+    if (st == SL_OK && view && view->step)
+        snprintf(a->step, sizeof a->step, "%s", view->step);
+    if (st == SL_OK && view && !isnan(view->temperature_K)) {
+        a->temperature_K = view->temperature_K;
+        if (view->step == NULL)
+            st = sl_store_default_view(store, a->step, &(double){ 0 }, a->lot.lot_id,
+                                       &a->temperature_K, 1, diag);
+        if (st == SL_OK && temperature_index(&newest, a->temperature_K) < 0) {
+            char allowed[256];
+            size_t k = 0;
+            for (size_t t = 0; t < newest.n_temperatures && k < sizeof allowed; t++)
+                k += (size_t)snprintf(allowed + k, sizeof allowed - k, "%s%g", t ? ", " : "",
+                                      newest.temperatures_K[t]);
+            sl_diag_error(diag, "lot '%s': %g K is not one of its plan's temperatures (%s K)",
+                          a->lot.lot, a->temperature_K, allowed);
+            st = SL_ENOTFOUND;
+        }
+    }
+    sl_store_revision_clear(&newest);
     if (st == SL_OK)
-        st = sl_layout_build(layout, a->plan, diag);
-    if (st != SL_OK) {
-        sl_diag_error(diag, "lot '%s': its stored plan no longer loads", lot);
+        st = sl_store_view_revision(store, revision_id, &a->lot, a->step, a->temperature_K, diag);
+    return st;
+}
+
+/* The stored plan text, parsed for its factors, levels and names; its
+ * splits must be the stored revision's, in the same order. */
+static sl_status load_plan(sl_analysis *a, const sl_store_revision *rev, sl_diag *diag)
+{
+    size_t before = sl_diag_size(diag);
+    sl_status st = sl_plan_parse(&a->plan, a->lot.plan_text, strlen(a->lot.plan_text),
+                                 a->lot.plan_name, diag);
+    int same = st == SL_OK && a->plan->n_splits == rev->n_splits;
+    for (size_t i = 0; same && i < rev->n_splits; i++)
+        same = strcmp(a->plan->splits[i].name, rev->splits[i].name) == 0;
+    if (st != SL_OK || !same) {
+        sl_diag_error(diag, "lot '%s': its stored plan %s", a->lot.lot,
+                      st != SL_OK ? "no longer loads" : "no longer matches its stored splits");
         return SL_EDB;
     }
-    sl_diag_clear(diag);
+    sl_diag_truncate(diag, before); /* the plan's warnings were shown when it was stored */
     return SL_OK;
 }
 
-/* Predicted neutrality point, gate range and C_g per split. */
-static sl_status load_predictions(sl_analysis *a, sl_diag *diag)
+/* The layout as the revision stored it: each wafer's split. */
+static sl_status stored_layout(sl_layout **out, const sl_store_revision *rev)
 {
-    sl_prediction *pred = NULL;
-    size_t n = 0;
-    sl_status st = sl_predict_plan(&pred, &n, a->plan, diag);
-    if (st != SL_OK)
-        return st;
-    size_t ns = a->plan->n_splits, nt = a->plan->n_temperatures;
+    sl_layout *l = calloc(1, sizeof *l);
+    if (!l)
+        return SL_ENOMEM;
+    *out = l;
+    l->wafers = calloc(rev->n_wafers + 1, sizeof *l->wafers);
+    l->splits = calloc(rev->n_splits + 1, sizeof *l->splits);
+    if (!l->wafers || !l->splits)
+        return SL_ENOMEM;
+    l->n_splits = rev->n_splits;
+    for (size_t s = 0; s < rev->n_splits; s++)
+        if (!(l->splits[s].wafers = calloc(rev->n_wafers + 1, sizeof(size_t))))
+            return SL_ENOMEM;
+    for (size_t w = 0; w < rev->n_wafers; w++, l->n_wafers++) {
+        sl_layout_wafer *lw = &l->wafers[w];
+        if (!(lw->wafer = strdup(rev->wafers[w].name)))
+            return SL_ENOMEM;
+        lw->split = rev->wafers[w].split;
+        lw->process_order = (size_t)rev->wafers[w].process_order;
+        if (lw->split >= 0) {
+            sl_layout_split *sp = &l->splits[lw->split];
+            sp->wafers[sp->n_wafers++] = w;
+        }
+    }
+    return SL_OK;
+}
+
+/* Predicted neutrality point, gate range, C_g and thermal floor per split,
+ * as stored for the view's temperature. */
+static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
+{
+    size_t ns = rev->n_splits, nt = rev->n_temperatures;
+    long t = temperature_index(rev, a->temperature_K);
+    if (t < 0)
+        t = 0; /* a revision without the view's temperature: its V_cnp is the same */
     a->splits = calloc(ns ? ns : 1, sizeof *a->splits);
     a->split_gate_min_V = calloc(ns ? ns : 1, sizeof(double));
     a->split_gate_max_V = calloc(ns ? ns : 1, sizeof(double));
     a->split_capacitance_F_per_m2 = calloc(ns ? ns : 1, sizeof(double));
-    if (!a->splits || !a->split_gate_min_V || !a->split_gate_max_V || !a->split_capacitance_F_per_m2) {
-        free(pred);
+    a->split_floor_per_cm2 = calloc(ns ? ns : 1, sizeof(double));
+    if (!a->splits || !a->split_gate_min_V || !a->split_gate_max_V ||
+        !a->split_capacitance_F_per_m2 || !a->split_floor_per_cm2)
         return SL_ENOMEM;
-    }
     a->n_splits = ns;
     for (size_t s = 0; s < ns; s++) {
-        const sl_prediction *p = &pred[s * nt]; /* V_cnp does not depend on T */
+        const sl_prediction *p = &rev->predictions[s * nt + (size_t)t];
         a->splits[s].split = s;
         a->splits[s].cnp_predicted_V = p->cnp_V.val;
         a->splits[s].cnp_predicted_sigma_V = p->cnp_V.sigma;
         a->split_gate_min_V[s] = p->gate_min_V;
         a->split_gate_max_V[s] = p->gate_max_V;
         a->split_capacitance_F_per_m2[s] = p->gate_capacitance_F_per_m2;
+        a->split_floor_per_cm2[s] = p->thermal_floor_per_cm2;
     }
-    free(pred);
     return SL_OK;
+}
+
+/* The lot, its view, runs, plan and stored revision. */
+static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lot,
+                          const sl_analyze_view *view, sl_diag *diag)
+{
+    sl_analysis *a = &s->owner->pub;
+    sl_store_revision rev = { 0 };
+    long revision_id = 0;
+    sl_status st = sl_store_find_lot(store, &a->lot, lot, diag);
+    if (st == SL_OK)
+        st = choose_view(a, &revision_id, store, view, diag);
+    if (st == SL_OK)
+        st = sl_store_list_runs(store, &a->runs, &a->n_runs, a->lot.lot_id, diag);
+    if (st == SL_OK)
+        st = sl_store_load_revision(store, &rev, revision_id, diag);
+    a->revision = a->lot.revision;
+    for (size_t i = 0; i < a->n_runs; i++)
+        if (a->runs[i].revision_id == revision_id)
+            a->revision = a->runs[i].revision;
+    if (st == SL_OK)
+        st = load_plan(a, &rev, diag);
+    if (st == SL_OK)
+        st = stored_layout(&s->layout, &rev);
+    if (st == SL_OK)
+        st = load_predictions(a, &rev);
+    sl_store_revision_clear(&rev);
+    return st;
 }
 
 static sl_status alloc_state(sl_analysis_stream *s)
@@ -142,6 +245,17 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->cnp_predicted_V = a->splits[split].cnp_predicted_V;
     d->cnp_predicted_sigma_V = a->splits[split].cnp_predicted_sigma_V;
     d->mobility_cm2_per_Vs = r->mobility_cm2_per_Vs;
+    d->run_id = r->run_id;
+    d->measurements = r->measurements;
+    d->fit_model = r->fit_model;
+    d->n0_per_cm2 = r->n0_per_cm2;
+    d->r_contact_ohm = r->r_contact_ohm;
+    d->hysteresis_V = r->hysteresis_V;
+    d->floor_predicted_per_cm2 = a->split_floor_per_cm2[split];
+    d->channel_length_um = isnan(r->channel_length_um) ? a->plan->channel_length_um
+                                                       : r->channel_length_um;
+    d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
+                                                     : r->channel_width_um;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
@@ -245,9 +359,10 @@ static int by_name(const void *pa, const void *pb)
     return strcmp(((const named_wafer *)pa)->name, ((const named_wafer *)pb)->name);
 }
 
-/* The devices on the plan's wafers into the scratch, under their split and
- * wafer, in wafer name order as sl_store_load_devices gives them (devices on
- * wafers the newest plan revision no longer uses are left out). */
+/* The current measurement in the view of the devices on the revision's
+ * wafers into the scratch, under their split and wafer, in wafer name order
+ * as sl_store_load_devices gives them (devices on wafers the revision no
+ * longer uses are left out). */
 static sl_status keep_devices(sl_analysis_stream *s, sl_diag *diag)
 {
     const sl_layout *l = s->layout;
@@ -257,7 +372,8 @@ static sl_status keep_devices(sl_analysis_stream *s, sl_diag *diag)
     for (size_t w = 0; w < l->n_wafers; w++)
         order[w] = (named_wafer){ l->wafers[w].wafer, w };
     qsort(order, l->n_wafers, sizeof *order, by_name);
-    sl_status st = SL_OK;
+    const sl_analysis *a = &s->owner->pub;
+    sl_status st = sl_store_scratch_view(s->scratch, a->lot.lot_id, a->step, a->temperature_K, diag);
     for (size_t i = 0; st == SL_OK && i < l->n_wafers; i++) {
         const sl_layout_wafer *w = &l->wafers[order[i].index];
         if (w->split >= 0)
@@ -467,16 +583,19 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
 sl_status sl_analyze_lot_stream(sl_analysis_stream **out, sl_store *store, const char *lot,
                                 sl_diag *diag)
 {
+    return sl_analyze_lot_stream_view(out, store, lot, NULL, diag);
+}
+
+sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, const char *lot,
+                                     const sl_analyze_view *view, sl_diag *diag)
+{
     *out = NULL;
     sl_analysis_stream *s = calloc(1, sizeof *s);
     if (!s || !(s->owner = calloc(1, sizeof *s->owner))) {
         free(s);
         return SL_ENOMEM;
     }
-    sl_analysis *a = &s->owner->pub;
-    sl_status st = load_plan(a, &s->layout, store, lot, diag);
-    if (st == SL_OK)
-        st = load_predictions(a, diag);
+    sl_status st = load_lot(s, store, lot, view, diag);
     if (st == SL_OK)
         st = alloc_state(s);
     if (st == SL_OK)

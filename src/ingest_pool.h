@@ -15,11 +15,10 @@ typedef struct {
     const sl_fit_config *cfg;
     /* the device's identity, copied so the writer reads only the item */
     char wafer[65], name[65];
-    long wafer_id, die_x, die_y, first_line;
-    double temperature_K;
+    long run_id, die_x, die_y, first_line;   /* the measurement run of its temperature */
     sl_fit_result result;
     sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
-    long device_id;          /* set by the writer (that of the first run when
+    long measurement_id;     /* set by the writer (that of the first rows when
                                 the device's rows come back later) */
 } fit_item;
 

@@ -54,6 +54,8 @@ void sl_report_options_default(sl_report_options *out)
     out->generated_utc = NULL;
     out->max_curves = SL_REPORT_DEFAULT_MAX_CURVES;
     out->with_history = 1;
+    out->view.step = NULL; /* the newest step, the first temperature with data */
+    out->view.temperature_K = NAN;
 }
 
 static void now_utc(char out[32])
@@ -105,6 +107,9 @@ static void header_facts(report_ctx *c, const char *generated)
     snprintf(text, sizeof text, "revision %d of %s, stored %s", a->lot.revision,
              base_name(a->lot.plan_name), a->lot.created_utc ? a->lot.created_utc : "");
     fact(b, "plan", text);
+    snprintf(text, sizeof text, "step %s at %g K, against plan revision %d (%zu run%s in all)",
+             a->step, a->temperature_K, a->revision, a->n_runs, a->n_runs == 1 ? "" : "s");
+    fact(b, "measurements", text);
     fact(b, "report", generated);
     snprintf(text, sizeof text, "%zu splits on %zu wafers, %zu dielectrics", a->n_splits,
              a->plan->n_wafers, a->plan->n_dielectrics);
@@ -166,7 +171,8 @@ static void verdict_cnp_outside(report_ctx *c)
 
 static void contents(report_ctx *c)
 {
-    sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#splits\">Splits</a></li>"
+    sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#runs\">Measurement runs</a></li>"
+                                "<li><a href=\"#splits\">Splits</a></li>"
                                 "<li><a href=\"#wafers\">Wafer maps</a></li>"
                                 "<li><a href=\"#effects\">Level effects</a></li>");
     if (c->has_curves)
@@ -216,7 +222,9 @@ static void page_close(report_ctx *c)
  * names only the sections that were drawn. */
 static sl_status render_sections(report_ctx *c)
 {
-    sl_status st = sl_report_section_splits(c);
+    sl_status st = sl_report_section_runs(c);
+    if (st == SL_OK)
+        st = sl_report_section_splits(c);
     if (st == SL_OK)
         st = sl_report_section_wafers(c);
     if (st == SL_OK)
@@ -242,6 +250,8 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
     sl_chart_buf_init(&body);
     report_ctx c = { &body, analysis, store, opts, summary ? summary : &local, diag, 0, 0 };
     memset(c.sum, 0, sizeof *c.sum);
+    snprintf(c.sum->step, sizeof c.sum->step, "%s", analysis->step);
+    c.sum->temperature_K = analysis->temperature_K;
     sl_status st = render_sections(&c);
     if (st == SL_OK)
         failure_section(&c);
@@ -265,7 +275,7 @@ sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char 
     sl_analysis *a = NULL;
     sl_chart_buf buf;
     sl_chart_buf_init(&buf);
-    sl_status st = sl_analyze_lot(&a, store, lot, diag);
+    sl_status st = sl_analyze_lot_view(&a, store, lot, opts ? &opts->view : NULL, diag);
     if (st == SL_OK)
         st = sl_report_render(&buf, summary, store, a, opts, diag);
     if (st == SL_OK)

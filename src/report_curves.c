@@ -134,7 +134,8 @@ sl_status sl_report_section_curves(report_ctx *c)
         return SL_OK;
     sl_store_device_row *rows = NULL;
     size_t n_rows = 0;
-    sl_status st = sl_store_load_devices(c->store, &rows, &n_rows, c->a->lot.lot_id, c->diag);
+    sl_status st = sl_store_load_devices(c->store, &rows, &n_rows, c->a->lot.lot_id, c->a->step,
+                                         c->a->temperature_K, c->diag);
     if (st != SL_OK)
         return st;
     c->has_curves = 1;

@@ -230,10 +230,18 @@ static char *fixture_compare(const char *plan_name, const char *results_name, co
 {
     char *dir = sl_test_tmpdir();
     char *plan = sl_test_data(plan_name), *results = sl_test_data(results_name);
+    /* the run's record the same every time: the file by a name relative to
+     * the folder, the time from SOURCE_DATE_EPOCH (2026-11-20T00:00:00Z) */
+    char *copy = sl_test_path(dir, "results.csv");
+    ck_assert_int_eq(sl_test_copy_file(results, copy), 0);
+    setenv("SOURCE_DATE_EPOCH", "1795132800", 1);
     const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
     run_quiet(dir, predict);
-    const char *ingest[] = { "ingest", "--lot", lot, "--results", results, "--db", "t.db", NULL };
+    const char *ingest[] = { "ingest", "--lot", lot, "--results", "results.csv", "--db", "t.db",
+                             NULL };
     run_quiet(dir, ingest);
+    unsetenv("SOURCE_DATE_EPOCH");
+    free(copy);
     const char *compare[] = { "compare", "--lot", lot, "--db", "t.db", "--format", format, NULL };
     sl_run_result r = run_ok(dir, compare);
     free(plan);

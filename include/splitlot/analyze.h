@@ -42,6 +42,13 @@ typedef struct {
     unsigned flags;
     double severity;             /* for ordering the failure-analysis list */
     char reason[192];            /* the flag in words; "" when not flagged */
+    /* the measurement shown (the newest of the view) and its device */
+    long run_id;
+    long measurements;           /* the device's measurements in the view */
+    const char *fit_model;       /* "symmetric", "two-mobility", "" for results */
+    double n0_per_cm2, r_contact_ohm, hysteresis_V;   /* NaN when not measured */
+    double floor_predicted_per_cm2; /* the split's thermal floor at the view's temperature */
+    double channel_length_um, channel_width_um;       /* the device's, else the plan's */
 } sl_analyze_device;
 
 typedef struct {
@@ -84,7 +91,23 @@ typedef struct sl_analysis {
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
     double *split_gate_min_V, *split_gate_max_V;
     double *split_capacitance_F_per_m2;
+    /* the view shown: one step and temperature of the lot's measurement
+     * runs, read against the stored revision of its newest run */
+    char step[65];
+    double temperature_K;
+    int revision;                /* number of the plan revision the view is read against */
+    double *split_floor_per_cm2; /* stored thermal floor per split at temperature_K */
+    sl_store_run *runs;          /* every run of the lot, oldest first */
+    size_t n_runs;
 } sl_analysis;
+
+/* Which measurements an analysis shows: step NULL for the step of the lot's
+ * newest run, temperature_K NaN for the plan's first temperature that has a
+ * run of that step. */
+typedef struct {
+    const char *step;
+    double temperature_K;
+} sl_analyze_view;
 
 /* Analyse a lot of an open store (its newest plan revision and devices), with
  * every device in memory: sl_analyze_lot_stream, then its devices and its
@@ -92,6 +115,10 @@ typedef struct sl_analysis {
  * Returns SL_OK, SL_ENOTFOUND (unknown lot, message lists known ones), SL_EDB,
  * SL_ENOMEM. A lot without usable devices analyses to empty summaries. */
 sl_status sl_analyze_lot(sl_analysis **out, sl_store *store, const char *lot, sl_diag *diag);
+/* The same for one view (NULL: the defaults). A temperature the plan does
+ * not list is SL_EINPUT naming the plan's. */
+sl_status sl_analyze_lot_view(sl_analysis **out, sl_store *store, const char *lot,
+                              const sl_analyze_view *view, sl_diag *diag);
 void sl_analysis_free(sl_analysis *analysis);
 
 /* ---- the same analysis in flat memory, whatever the lot's size ---- */
@@ -115,6 +142,8 @@ typedef struct sl_analysis_stream sl_analysis_stream;
  * from one pass to the next. */
 sl_status sl_analyze_lot_stream(sl_analysis_stream **out, sl_store *store, const char *lot,
                                 sl_diag *diag);
+sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, const char *lot,
+                                     const sl_analyze_view *view, sl_diag *diag);
 
 /* Everything but the devices: devices and flagged are NULL, the counts set. */
 const sl_analysis *sl_analysis_stream_summary(const sl_analysis_stream *stream);
@@ -171,6 +200,9 @@ typedef struct sl_history {
 
 /* Effects of every lot in the store, grouped by level. */
 sl_status sl_analyze_history(sl_history **out, sl_store *store, sl_diag *diag);
+/* The same with every lot read in one view (NULL: each lot's defaults). */
+sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_analyze_view *view,
+                                  sl_diag *diag);
 void sl_history_free(sl_history *history);
 
 /* Calibrated plan YAML (baseline, dielectrics with layers, treatments) from

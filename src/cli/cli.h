@@ -70,6 +70,11 @@ int cli_parse_double(const char *opt, const char *text, double *out);
 /* Parse a whole number >= min. */
 int cli_parse_long(const char *opt, const char *text, long min, long *out);
 
+/* --temperature-K: a finite temperature above 0 K. */
+int cli_parse_temperature(const char *text, double *out);
+/* --step: a process step name, 1 to 64 bytes of printable text. */
+int cli_check_step(const char *text);
+
 /* Database path: the option value, else $SPLITLOT_DB, else "splitlot.db". */
 const char *cli_db_path(const char *option_value);
 

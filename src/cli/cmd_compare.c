@@ -23,16 +23,23 @@ static const char usage[] =
     "means as the experimental unit), a one-way ANOVA across splits and the list\n"
     "of flagged devices for failure analysis, most severe first.\n\n"
     "  --lot ID                  the lot\n"
+    "  --step NAME               measurements after this process step (default: the\n"
+    "                            step of the lot's newest measurement run)\n"
+    "  --temperature-K T         measurements at this plan temperature (default: the\n"
+    "                            plan's first temperature with measurements)\n"
     "  --only-flagged            devices: only the flagged ones\n"
     "  --fail-on-flags           exit 3 when any device or level is flagged\n"
     "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
     "  --format table|csv|json   output format (default table)\n"
     "  --help                    this text\n";
 
-enum { OPT_LOT = 1, OPT_ONLY_FLAGGED, OPT_FAIL, OPT_DB, OPT_FORMAT, OPT_HELP };
+enum { OPT_LOT = 1, OPT_STEP, OPT_TEMPERATURE, OPT_ONLY_FLAGGED, OPT_FAIL, OPT_DB, OPT_FORMAT,
+       OPT_HELP };
 
 static const struct option options[] = {
     { "lot", required_argument, NULL, OPT_LOT },
+    { "step", required_argument, NULL, OPT_STEP },
+    { "temperature-K", required_argument, NULL, OPT_TEMPERATURE },
     { "only-flagged", no_argument, NULL, OPT_ONLY_FLAGGED },
     { "fail-on-flags", no_argument, NULL, OPT_FAIL },
     { "db", required_argument, NULL, OPT_DB },
@@ -43,6 +50,7 @@ static const struct option options[] = {
 
 typedef struct {
     const char *lot, *db;
+    sl_analyze_view view;
     int only_flagged, fail_on_flags;
     cli_format format;
 } compare_args;
@@ -76,6 +84,13 @@ static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_devi
     if (!table)
         cli_cell_num(t, d->modified_z);
     cli_cell_list(t, names, sl_analyze_flag_names(d, names));
+    if (table)
+        return;
+    double numbers[] = { d->mobility_cm2_per_Vs, d->n0_per_cm2, d->r_contact_ohm, d->hysteresis_V,
+                         d->floor_predicted_per_cm2, d->channel_length_um, d->channel_width_um };
+    cli_cell_int(t, d->measurements);
+    for (size_t i = 0; i < sizeof numbers / sizeof numbers[0]; i++)
+        cli_cell_num(t, numbers[i]);
 }
 
 static int device_rows(cli_table *t, void *ctx)
@@ -109,6 +124,46 @@ static void devices_table(cli_doc *doc, compare_rows *rows)
     if (!table)
         cli_table_col_fixed(t, "modified_z", "M", 2);
     cli_table_col_list(t, "flags", "flags");
+    if (table)
+        return;
+    cli_table_col_int(t, "measurements", "n");
+    cli_table_col_num(t, "mobility_cm2_per_Vs", "mu", 6);
+    cli_table_col_num(t, "n0_per_cm2", "n0", 6);
+    cli_table_col_num(t, "r_contact_ohm", "Rc", 6);
+    cli_table_col_num(t, "hysteresis_V", "hyst", 6);
+    cli_table_col_num(t, "floor_predicted_per_cm2", "nth", 6);
+    cli_table_col_num(t, "channel_length_um", "L", 6);
+    cli_table_col_num(t, "channel_width_um", "W", 6);
+}
+
+/* Every measurement run of the lot, the view's marked. */
+static void runs_table(cli_doc *doc, const sl_analysis *a, int table)
+{
+    cli_table *t = cli_doc_table(doc, "runs", "measurement runs of the lot (* in the view shown)");
+    cli_table_col_int(t, "run", "run");
+    cli_table_col_str(t, "step", "step");
+    cli_table_col_num(t, "temperature_K", "T [K]", 6);
+    cli_table_col_int(t, "devices", "devices");
+    cli_table_col_int(t, "plan_revision", "rev");
+    cli_table_col_str(t, "source", "source");
+    cli_table_col_str(t, "source_sha256", "sha256");
+    cli_table_col_str(t, "imported_utc", "imported");
+    cli_table_col_bool(t, "in_view", "*");
+    for (size_t i = 0; i < a->n_runs; i++) {
+        const sl_store_run *r = &a->runs[i];
+        char sha[16];
+        snprintf(sha, sizeof sha, "%.12s", r->source_sha256); /* enough to tell files apart */
+        cli_table_row(t);
+        cli_cell_int(t, r->id);
+        cli_cell_str(t, r->step);
+        cli_cell_num(t, r->temperature_K);
+        cli_cell_int(t, r->devices);
+        cli_cell_int(t, r->revision);
+        cli_cell_str(t, r->source_name);
+        cli_cell_str(t, table ? sha : r->source_sha256);
+        cli_cell_str(t, r->created_utc);
+        cli_cell_bool(t, strcmp(r->step, a->step) == 0 && r->temperature_K == a->temperature_K);
+    }
 }
 
 static void splits_table(cli_doc *doc, const sl_analysis *a)
@@ -207,7 +262,9 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
 {
     char text[512];
     cli_doc_str(doc, "lot", a->lot.lot);
-    cli_doc_num(doc, "plan_revision", a->lot.revision, 6);
+    cli_doc_num(doc, "plan_revision", a->revision, 6);
+    cli_doc_str(doc, "step", a->step);
+    cli_doc_num(doc, "temperature_K", a->temperature_K, 6);
     cli_doc_num(doc, "device_count", (double)a->n_devices, 15); /* "devices" is the table */
     cli_doc_num(doc, "usable", (double)a->n_usable, 15);
     cli_doc_num(doc, "flagged", (double)a->n_flagged, 15);
@@ -231,6 +288,7 @@ static int print_compare(const compare_args *args, sl_analysis_stream *stream, s
     const sl_analysis *a = rows.a;
     cli_doc *doc = cli_doc_new();
     add_summary(doc, a);
+    runs_table(doc, a, args->format == CLI_FORMAT_TABLE);
     devices_table(doc, &rows);
     splits_table(doc, a);
     effects_table(doc, a);
@@ -252,7 +310,7 @@ static int run_compare(const compare_args *args)
     sl_analysis_stream *stream = NULL;
     sl_status st = sl_store_open(&store, args->db, diag);
     if (st == SL_OK)
-        st = sl_analyze_lot_stream(&stream, store, args->lot, diag);
+        st = sl_analyze_lot_stream_view(&stream, store, args->lot, &args->view, diag);
     int rc = st == SL_OK ? print_compare(args, stream, diag) : cli_fail(st, diag);
     sl_analysis_stream_free(stream);
     sl_store_close(store);
@@ -262,12 +320,21 @@ static int run_compare(const compare_args *args)
 
 int cmd_compare(int argc, char **argv)
 {
-    compare_args a = { .format = CLI_FORMAT_TABLE };
+    compare_args a = { .format = CLI_FORMAT_TABLE, .view = { NULL, NAN } };
     int opt;
     while ((opt = getopt_long(argc, argv, "", options, NULL)) != -1) {
         switch (opt) {
         case OPT_HELP: return cli_print_help(usage);
         case OPT_LOT: a.lot = optarg; break;
+        case OPT_STEP:
+            if (cli_check_step(optarg) != 0)
+                return CLI_EXIT_USAGE;
+            a.view.step = optarg;
+            break;
+        case OPT_TEMPERATURE:
+            if (cli_parse_temperature(optarg, &a.view.temperature_K) != 0)
+                return CLI_EXIT_USAGE;
+            break;
         case OPT_ONLY_FLAGGED: a.only_flagged = 1; break;
         case OPT_FAIL: a.fail_on_flags = 1; break;
         case OPT_DB: a.db = optarg; break;

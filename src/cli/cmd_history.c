@@ -18,16 +18,23 @@ static const char usage[] =
     "(centre and limits from the average moving range / 1.128) and a drift flag\n"
     "for lots outside the limits.\n\n"
     "  --emit-yaml               print calibrated doping as plan YAML instead\n"
+    "  --step NAME               each lot's measurements after this process step\n"
+    "                            (default: the step of the lot's newest run)\n"
+    "  --temperature-K T         each lot's measurements at this temperature (default:\n"
+    "                            its plan's first with measurements; lots whose plan\n"
+    "                            lacks it are left out)\n"
     "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
     "  --format table|csv|json   output format (default table)\n"
     "  --help                    this text\n";
 
-enum { OPT_DB = 1, OPT_FORMAT, OPT_YAML, OPT_HELP };
+enum { OPT_DB = 1, OPT_FORMAT, OPT_YAML, OPT_STEP, OPT_TEMPERATURE, OPT_HELP };
 
 static const struct option options[] = {
     { "db", required_argument, NULL, OPT_DB },
     { "format", required_argument, NULL, OPT_FORMAT },
     { "emit-yaml", no_argument, NULL, OPT_YAML },
+    { "step", required_argument, NULL, OPT_STEP },
+    { "temperature-K", required_argument, NULL, OPT_TEMPERATURE },
     { "help", no_argument, NULL, OPT_HELP },
     { NULL, 0, NULL, 0 },
 };
@@ -86,7 +93,8 @@ static void points_table(cli_doc *doc, const sl_history *h)
         }
 }
 
-static int print_history(const sl_history *h, cli_format format, int emit_yaml)
+static int print_history(const sl_history *h, cli_format format, int emit_yaml,
+                         const sl_analyze_view *view)
 {
     if (emit_yaml) {
         char *yaml = NULL;
@@ -102,6 +110,13 @@ static int print_history(const sl_history *h, cli_format format, int emit_yaml)
     cli_doc *doc = cli_doc_new();
     cli_doc_num(doc, "lots", (double)h->n_lot_names, 15);
     cli_doc_num(doc, "lots_with_estimates", (double)h->n_lots, 15);
+    /* the view each lot was read in: as asked, else ("" and null) each
+     * lot's own default, the newest step and the first temperature with data */
+    cli_doc_str(doc, "step", view->step ? view->step : "");
+    cli_doc_num(doc, "temperature_K", view->temperature_K, 6);
+    if (!view->step || isnan(view->temperature_K))
+        cli_doc_note(doc, "each lot read at its newest step and its plan's first temperature "
+                          "with measurements, where not given");
     levels_table(doc, h);
     points_table(doc, h);
     cli_doc_note(doc, "limits: individuals chart, centre +/- 3 x (average moving range / 1.128); "
@@ -117,11 +132,21 @@ int cmd_history(int argc, char **argv)
     cli_format format = CLI_FORMAT_TABLE;
     const char *db = NULL;
     int emit_yaml = 0, opt;
+    sl_analyze_view view = { NULL, NAN };
     while ((opt = getopt_long(argc, argv, "", options, NULL)) != -1) {
         switch (opt) {
         case OPT_HELP: return cli_print_help(usage);
         case OPT_DB: db = optarg; break;
         case OPT_YAML: emit_yaml = 1; break;
+        case OPT_STEP:
+            if (cli_check_step(optarg) != 0)
+                return CLI_EXIT_USAGE;
+            view.step = optarg;
+            break;
+        case OPT_TEMPERATURE:
+            if (cli_parse_temperature(optarg, &view.temperature_K) != 0)
+                return CLI_EXIT_USAGE;
+            break;
         case OPT_FORMAT:
             if (cli_format_parse(optarg, &format) != 0)
                 return cli_usage_error("--format: '%s' is not one of table, csv, json", optarg);
@@ -139,8 +164,8 @@ int cmd_history(int argc, char **argv)
     sl_history *h = NULL;
     sl_status st = sl_store_open(&store, db, diag);
     if (st == SL_OK)
-        st = sl_analyze_history(&h, store, diag);
-    int rc = st == SL_OK ? print_history(h, format, emit_yaml) : cli_fail(st, diag);
+        st = sl_analyze_history_view(&h, store, &view, diag);
+    int rc = st == SL_OK ? print_history(h, format, emit_yaml, &view) : cli_fail(st, diag);
     sl_history_free(h);
     sl_store_close(store);
     sl_diag_free(diag);
