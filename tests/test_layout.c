@@ -6,6 +6,7 @@
  */
 #include <check.h>
 #include <math.h>
+#include <sqlite3.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -511,6 +512,70 @@ START_TEST(layout_csv_and_errors)
 }
 END_TEST
 
+/* The fractional plan's alias structure, and a small --simulate, by the command. */
+START_TEST(layout_fraction_and_simulate_cli)
+{
+    char *path = sl_test_data("plans/good/fractional.yaml");
+    const char *argv[] = { "layout", path, "--format", "json", "--simulate", "60", NULL };
+    sl_run_result r = sl_test_run(NULL, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    static const char *const keys[] = {
+        "\"resolution\": 4", "\"aliases\": [\"dielectric = anneal*cap*dip\"",
+        "\"dielectric*dip = anneal*cap\"]", "\"observed_power\": ",
+        "\"false_verdict_rate\": ", "\"observed_false_verdict_rate\": ",
+    };
+    for (size_t i = 0; i < sizeof keys / sizeof keys[0]; i++)
+        ck_assert_msg(strstr(r.out, keys[i]) != NULL, "missing %s", keys[i]);
+    ck_assert_str_eq(r.err, "");
+    sl_run_result_free(&r);
+    const char *bad[] = { "layout", path, "--simulate", "0", NULL };
+    r = sl_test_run(NULL, NULL, bad);
+    ck_assert_int_eq(r.exit_code, 2);
+    sl_run_result_free(&r);
+    free(path);
+}
+END_TEST
+
+/* predict stores the plan revision with each wafer's load (table wafer_load),
+ * the same loads the layout shows. */
+START_TEST(predict_stores_loads)
+{
+    char *dir = sl_test_tmpdir();
+    char *plan_path = sl_test_path(SL_SOURCE_DIR "/plans", "rf-highk-topgate.yaml");
+    char *db = sl_test_path(dir, "t.db");
+    const char *argv[] = { "predict", plan_path, "--db", db, NULL };
+    sl_run_result r = sl_test_run(NULL, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    sl_plan *plan = load_example("rf-highk-topgate.yaml");
+    sl_layout *l = build(plan);
+    sqlite3 *conn = NULL;
+    ck_assert_int_eq(sqlite3_open(db, &conn), SQLITE_OK);
+    sqlite3_stmt *st = NULL;
+    ck_assert_int_eq(sqlite3_prepare_v2(conn,
+                         "SELECT w.name, l.step, l.load FROM wafer_load l "
+                         "JOIN wafer w ON w.id = l.wafer_id",
+                         -1, &st, NULL), SQLITE_OK);
+    size_t rows = 0;
+    while (sqlite3_step(st) == SQLITE_ROW) {
+        long w = sl_plan_wafer_index(plan, (const char *)sqlite3_column_text(st, 0));
+        ck_assert_int_ge(w, 0);
+        ck_assert_str_eq((const char *)sqlite3_column_text(st, 1), "pda-400");
+        ck_assert_int_eq(sqlite3_column_int64(st, 2), (long)l->wafers[w].load[0]);
+        rows++;
+    }
+    ck_assert_uint_eq(rows, 12);
+    sqlite3_finalize(st);
+    sqlite3_close(conn);
+    sl_layout_free(l);
+    sl_plan_free(plan);
+    sl_test_rmtree(dir);
+    free(db);
+    free(plan_path);
+    free(dir);
+}
+END_TEST
+
 static Suite *layout_suite(void)
 {
     Suite *s = suite_create("layout");
@@ -534,6 +599,8 @@ static Suite *layout_suite(void)
     tcase_add_test(cli, layout_json_keys);
     tcase_add_test(cli, layout_table_fits_and_cautions);
     tcase_add_test(cli, layout_csv_and_errors);
+    tcase_add_test(cli, predict_stores_loads);
+    tcase_add_test(cli, layout_fraction_and_simulate_cli);
     suite_add_tcase(s, cli);
     return s;
 }
