@@ -256,6 +256,9 @@ sl_status sl_layout_build(sl_layout **out, const sl_plan *plan, sl_diag *diag)
         if (st == SL_ENUM)
             sl_diag_error(diag, "plan '%s': the design cannot estimate every level apart",
                           plan->path);
+        else if (st != SL_OK)
+            sl_diag_error(diag, "plan '%s': no power per level (%s)", plan->path,
+                          sl_status_str(st));
     }
     gsl_rng_free(rng);
     if (st != SL_OK) {

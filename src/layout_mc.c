@@ -103,11 +103,11 @@ static void judge_lot(worker *w, const sl_stats_wafer_fit *fit)
         if (c < 0)
             continue;
         double d = fit->coef[c], se = fit->se[c], df = fit->df[c], t = lv->tolerance_per_cm2;
-        sl_stats_plan_verdict_kind as_planned = sl_stats_plan_verdict(d, se, df, t, alpha);
-        sl_stats_plan_verdict_kind missed =
-            sl_stats_plan_verdict(d + t + lv->shift_per_cm2, se, df, t, alpha);
-        w->false_verdict[k] += as_planned == SL_PLAN_VERDICT_OFF_PLAN;
-        w->detected[k] += missed == SL_PLAN_VERDICT_OFF_PLAN;
+        sl_stats_verdict_kind as_planned = sl_stats_verdict(d, se, df, t, alpha);
+        sl_stats_verdict_kind missed =
+            sl_stats_verdict(d + t + lv->shift_per_cm2, se, df, t, alpha);
+        w->false_verdict[k] += as_planned == SL_VERDICT_OFF_PLAN;
+        w->detected[k] += missed == SL_VERDICT_OFF_PLAN;
     }
 }
 

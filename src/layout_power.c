@@ -330,7 +330,10 @@ static double balanced_power(power_cache *pc, size_t w, double devices, size_t c
 static long wafers_needed(power_cache *pc, double devices, size_t c, const sl_layout_level *lv)
 {
     double target = pc->plan->resolve.power;
-    long max = SL_LAYOUT_MAX_WAFERS_PER_SPLIT, w = 1;
+    long max = SL_LAYOUT_MAX_WAFERS / (long)(pc->plan->n_splits ? pc->plan->n_splits : 1), w = 1;
+    max = max < SL_LAYOUT_MAX_WAFERS_PER_SPLIT ? max : SL_LAYOUT_MAX_WAFERS_PER_SPLIT;
+    if (max < 1)
+        return -1;
     while (w < max && !(balanced_power(pc, (size_t)w, devices, c, lv) >= target))
         w *= 2;
     if (w >= max) {
@@ -455,7 +458,9 @@ static sl_status list_levels(sl_layout *l, const sl_plan *plan)
 sl_status sl_layout_power(sl_layout *l, const sl_plan *plan)
 {
     sl_status st = list_levels(l, plan);
-    if (st != SL_OK || !plan->variation.present)
+    const sl_plan_variation *v = &plan->variation;
+    /* without wafer-level scatter nothing is uncertain: no power to compute */
+    if (st != SL_OK || !v->present || (v->wafer_sigma_per_cm2 == 0.0 && v->device_sigma_V == 0.0))
         return st;
     sl_layout_model m = { 0 };
     level_stats s = { 0 };

@@ -892,11 +892,15 @@ static void read_generator(conv *v, const yn *key, const yn *list, unsigned char
     g->of = plan_calloc(v->c, list->n_items, sizeof *g->of);
     for (size_t j = 0; g->of && j < list->n_items; j++) {
         long f = factor_named(v, list->items[j]);
-        if (f < 0)
-            return;
-        if (f == target || (used[f] & 2u) || memchr_size(g->of, g->n_of, (size_t)f)) {
+        if (f >= 0 && (f == target || (used[f] & 2u) || memchr_size(g->of, g->n_of, (size_t)f))) {
             plan_error(v->c, list->items[j], "factor '%s' cannot be in the generator of '%s'",
                        list->items[j]->text, key->text);
+            f = -1;
+        }
+        if (f < 0) { /* the generator is dropped: the error is out */
+            free(g->of);
+            g->of = NULL;
+            g->n_of = 0;
             return;
         }
         g->of[g->n_of++] = (size_t)f;
@@ -1218,6 +1222,9 @@ static void read_variation(conv *v)
     read_number_or(v->c, f[2], "batch_sigma_per_cm2", NUM_NONNEG, 0.0,
                    &var->batch_sigma_per_cm2);
     v->batch_sigma_at = f[2];
+    if (f[0] && f[1] && var->wafer_sigma_per_cm2 == 0.0 && var->device_sigma_V == 0.0)
+        plan_warning(v->c, node, "wafer_sigma_per_cm2 and device_sigma_V are both 0: a wafer "
+                                 "mean would have no scatter, so no power can be computed");
 }
 
 /* A batched step names a treatment or a dielectric of the plan. */

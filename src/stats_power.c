@@ -1,7 +1,7 @@
 /* SPDX-License-Identifier: MIT
  * The planner's statistics (see include/splitlot/stats.h): the noncentral t
- * by quadrature over the chi-square (GSL has none), the verdict of a level
- * against its plan, the power of an off-plan verdict, and the covariance of
+ * by quadrature over the chi-square (GSL has none), the power of an off-plan
+ * verdict (the verdict itself is in stats_verdict.c), and the covariance of
  * generalised least squares of wafer means with shared loads.
  */
 #include "splitlot/stats.h"
@@ -64,31 +64,7 @@ double sl_stats_nct_cdf(double t, double df, double nc)
     return 1.0 - sl_stats_nct_sf(t, df, nc);
 }
 
-/* ---- verdict and power ---- */
-
-static const char *const verdict_names[] = { "inconclusive", "as-planned", "off-plan", "differs" };
-
-const char *sl_stats_plan_verdict_name(sl_stats_plan_verdict_kind verdict)
-{
-    return (unsigned)verdict < 4 ? verdict_names[verdict] : "inconclusive";
-}
-
-sl_stats_plan_verdict_kind sl_stats_plan_verdict(double d, double se, double df,
-                                                 double tolerance, double alpha)
-{
-    if (!(df >= 1.0) || !isfinite(se) || !isfinite(d) || !(se >= 0.0) || !(alpha > 0.0) ||
-        !(alpha < 1.0))
-        return SL_PLAN_VERDICT_INCONCLUSIVE;
-    double half = gsl_cdf_tdist_Pinv(1.0 - 0.5 * alpha, df) * se;
-    double lo = d - half, hi = d + half;
-    if (lo > tolerance || hi < -tolerance)
-        return SL_PLAN_VERDICT_OFF_PLAN;
-    if (lo >= -tolerance && hi <= tolerance)
-        return SL_PLAN_VERDICT_AS_PLANNED;
-    if (lo > 0.0 || hi < 0.0)
-        return SL_PLAN_VERDICT_DIFFERS;
-    return SL_PLAN_VERDICT_INCONCLUSIVE;
-}
+/* ---- power of the verdict ---- */
 
 static int power_args_ok(double se, double tolerance, double alpha)
 {
@@ -121,27 +97,10 @@ double sl_stats_offplan_false_rate(double se, double df, double tolerance, doubl
 
 gsl_matrix *stats_gls_work_alloc(const stats_loads *loads, size_t q)
 {
-    if (loads->n == 0)
+    /* the dense block of several steps grows as loads^2: refuse beyond 4096 */
+    if (loads->n == 0 || (loads->steps > 1 && loads->n > 4096))
         return NULL;
     return gsl_matrix_alloc(loads->n, (loads->steps == 1 ? 1 : loads->n) + q);
-}
-
-/* One step: B = I / s2b + Z^T D^-1 Z is diagonal (a wafer is in one load of
- * the step), column 0 of work; C = Z^T D^-1 M in the columns after it. */
-static void diagonal_blocks(gsl_matrix *work, const double *m, size_t q, const double *d,
-                            size_t n, const stats_loads *z, double s2b)
-{
-    gsl_matrix_set_zero(work);
-    for (size_t k = 0; k < z->n; k++)
-        gsl_matrix_set(work, k, 0, 1.0 / s2b);
-    for (size_t i = 0; i < n; i++) {
-        long k = z->load[i];
-        if (k < 0)
-            continue;
-        *gsl_matrix_ptr(work, (size_t)k, 0) += 1.0 / d[i];
-        for (size_t c = 0; c < q; c++)
-            *gsl_matrix_ptr(work, (size_t)k, 1 + c) += m[i * q + c] / d[i];
-    }
 }
 
 /* Several steps: B dense (L x L) and C side by side in work. */
@@ -167,17 +126,67 @@ static void dense_blocks(gsl_matrix *work, const double *m, size_t q, const doub
         }
 }
 
-/* G -= C^T B^-1 C and the log det B, B diagonal in column 0 of work. */
-static double subtract_diagonal(gsl_matrix *g, const gsl_matrix *work, size_t L, size_t q)
+/* G += w row row^T (upper triangle). */
+static void add_outer(gsl_matrix *g, const double *row, size_t q, double w)
 {
-    double ld = 0.0;
-    for (size_t k = 0; k < L; k++) {
-        double b = gsl_matrix_get(work, k, 0);
-        ld += log(b);
-        for (size_t a = 0; a < q; a++)
-            for (size_t c = a; c < q; c++)
-                *gsl_matrix_ptr(g, a, c) -=
-                    gsl_matrix_get(work, k, 1 + a) * gsl_matrix_get(work, k, 1 + c) / b;
+    double *gd = g->data;
+    for (size_t a = 0; a < q; a++) {
+        double wa = w * row[a];
+        if (wa == 0.0)
+            continue;
+        for (size_t b = a; b < q; b++)
+            gd[a * g->tda + b] += wa * row[b];
+    }
+}
+
+/* One batched step: each load's block of V is D_k + s2b 1 1^T, whose inverse
+ * form splits exactly into the wafers' deviations from the load's weighted
+ * mean, sum (m_i - mbar)(m_i - mbar)^T / d_i, plus the mean's own term
+ * mbar mbar^T S / (1 + s2b S), S = sum 1 / d_i; no difference of large
+ * numbers, so a load scatter far above the wafers' stays exact. work: L x
+ * (1 + q), column 0 S, the rest the weighted means. Returns log det V. */
+static double gram_one_step(gsl_matrix *g, const double *m, size_t q, const double *d, size_t n,
+                            const stats_loads *z, double s2b, gsl_matrix *work)
+{
+    double ld = 0.0, small[128];
+    gsl_matrix_set_zero(work);
+    for (size_t i = 0; i < n; i++) {
+        long k = z->load[i];
+        ld += log(d[i]);
+        if (k < 0) {
+            add_outer(g, m + i * q, q, 1.0 / d[i]);
+            continue;
+        }
+        double *wk = gsl_matrix_ptr(work, (size_t)k, 0);
+        wk[0] += 1.0 / d[i];
+        for (size_t c = 0; c < q; c++)
+            wk[1 + c] += m[i * q + c] / d[i];
+    }
+    for (size_t k = 0; k < z->n; k++) {
+        double *wk = gsl_matrix_ptr(work, k, 0);
+        for (size_t c = 0; wk[0] > 0.0 && c < q; c++)
+            wk[1 + c] /= wk[0];
+    }
+    double *dev = q <= 128 ? small : malloc(q * sizeof *dev);
+    if (!dev)
+        return NAN;
+    for (size_t i = 0; i < n; i++) {
+        long k = z->load[i];
+        if (k < 0)
+            continue;
+        const double *wk = gsl_matrix_const_ptr(work, (size_t)k, 0);
+        for (size_t c = 0; c < q; c++)
+            dev[c] = m[i * q + c] - wk[1 + c];
+        add_outer(g, dev, q, 1.0 / d[i]);
+    }
+    if (dev != small)
+        free(dev);
+    for (size_t k = 0; k < z->n; k++) {
+        const double *wk = gsl_matrix_const_ptr(work, k, 0);
+        if (wk[0] == 0.0)
+            continue;
+        add_outer(g, wk + 1, q, wk[0] / (1.0 + s2b * wk[0]));
+        ld += log1p(s2b * wk[0]);
     }
     return ld;
 }
@@ -209,35 +218,25 @@ int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, con
                    size_t n, const stats_loads *loads, double s2b, gsl_matrix *work)
 {
     double ld = 0.0;
-    double *gd = g->data;
-    size_t tda = g->tda;
-    gsl_matrix_set_zero(g);
-    for (size_t i = 0; i < n; i++) {
-        if (logdet)
-            ld += log(d[i]);
-        const double *row = m + i * q;
-        double w = 1.0 / d[i];
-        for (size_t a = 0; a < q; a++) {
-            double wa = w * row[a];
-            if (wa == 0.0)
-                continue;
-            for (size_t b = a; b < q; b++)
-                gd[a * tda + b] += wa * row[b];
-        }
-    }
     size_t L = loads ? loads->n : 0;
-    if (L > 0 && s2b > 0.0) {
-        double lb;
-        if (loads->steps == 1) {
-            diagonal_blocks(work, m, q, d, n, loads, s2b);
-            lb = subtract_diagonal(g, work, L, q);
-        } else {
-            dense_blocks(work, m, q, d, n, loads, s2b);
-            lb = subtract_dense(g, work, L, q);
-        }
-        if (isnan(lb))
+    gsl_matrix_set_zero(g);
+    if (L > 0 && s2b > 0.0 && loads->steps == 1) {
+        ld = gram_one_step(g, m, q, d, n, loads, s2b, work);
+        if (isnan(ld))
             return -1;
-        ld += (double)L * log(s2b) + lb;
+    } else {
+        for (size_t i = 0; i < n; i++) {
+            if (logdet)
+                ld += log(d[i]);
+            add_outer(g, m + i * q, q, 1.0 / d[i]);
+        }
+        if (L > 0 && s2b > 0.0) {
+            dense_blocks(work, m, q, d, n, loads, s2b);
+            double lb = subtract_dense(g, work, L, q);
+            if (isnan(lb))
+                return -1;
+            ld += (double)L * log(s2b) + lb;
+        }
     }
     for (size_t a = 0; a < q; a++)
         for (size_t b = 0; b < a; b++)

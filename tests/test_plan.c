@@ -591,6 +591,31 @@ START_TEST(new_keys_read)
     ck_assert_int_eq(sl_diag_get(diag, 0)->line, 1);
     ck_assert_ptr_nonnull(strstr(sl_diag_get(diag, 0)->text, "no 'variation' block"));
     sl_plan_free(p);
+    free(text);
+    /* a load scatter without batches, and batches without a load scatter */
+    static const char *const lines[][2] = {
+        { "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5, batch_sigma_per_cm2: 1e11 }",
+          "batch_sigma_per_cm2 is not used: the plan has no batches" },
+        { "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5 }\n"
+          "batches: [ { step: ox2, capacity: 4 } ]",
+          "batches without variation.batch_sigma_per_cm2" },
+        { "variation: { wafer_sigma_per_cm2: 0, device_sigma_V: 0 }",
+          "a wafer mean would have no scatter" },
+    };
+    for (size_t i = 0; i < 3; i++) {
+        c.line9 = lines[i][0];
+        text = key_plan(&c);
+        sl_diag_clear(diag);
+        ck_assert_int_eq(sl_plan_parse(&p, text, strlen(text), "k.yaml", diag), SL_OK);
+        ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_WARNING), 1);
+        ck_assert_int_eq(sl_diag_get(diag, 0)->line, 10);
+        ck_assert_ptr_nonnull(strstr(sl_diag_get(diag, 0)->text, lines[i][1]));
+        if (i == 1)
+            ck_assert_int_eq(p->batches[0].is_dielectric, 1);
+        sl_plan_free(p);
+        free(text);
+    }
+    text = NULL;
     sl_diag_free(diag);
     free(text);
 }

@@ -60,7 +60,7 @@ typedef struct {
     double power;                    /* P[off-plan | true miss T + shift] */
     double false_rate;               /* P[off-plan | level exactly as planned] */
     long wafers_per_split_needed;    /* smallest giving the plan's power; -1 if
-                                        more than SL_LAYOUT_MAX_WAFERS_PER_SPLIT,
+                                        beyond the search's limits (below),
                                         0 when unknown */
     long devices_per_wafer_enough;   /* at wafers_per_split_needed, the fewest
                                         devices per wafer that still give the
@@ -70,7 +70,10 @@ typedef struct {
     sl_layout_verdict verdict;
 } sl_layout_level;
 
+/* The search for wafers_per_split_needed stops at 200 wafers per split, and
+ * at 9999 wafers in all (as many as a plan may list). */
 #define SL_LAYOUT_MAX_WAFERS_PER_SPLIT 200
+#define SL_LAYOUT_MAX_WAFERS 9999
 
 typedef struct sl_layout {
     sl_layout_wafer *wafers;

@@ -313,7 +313,30 @@ typedef struct {
 sl_status sl_stats_individuals_chart(sl_stats_ichart *out, int *flags, const double *x,
                                      size_t n);
 
-/* ---- Noncentral t, verdicts and power (src/stats_power.c) ------------------ */
+/* ---- Verdict of a level against its plan (src/stats_verdict.c) ------------ */
+
+/* Verdict of a level against its plan (equivalence logic), from the
+ * difference d = estimate - planned, its standard error se, df and the
+ * tolerance T > 0, with the two-sided (1 - alpha) interval d +/- t se,
+ * t = t_{1-alpha/2, df}:
+ *   AS_PLANNED   the interval lies inside [-T, T]
+ *   OFF_PLAN     the interval lies entirely outside [-T, T]
+ *   DIFFERS      the interval excludes 0 but is neither of those
+ *   INCONCLUSIVE otherwise, or without df (df < 1) or a finite se. */
+typedef enum {
+    SL_VERDICT_INCONCLUSIVE = 0,
+    SL_VERDICT_AS_PLANNED,
+    SL_VERDICT_OFF_PLAN,
+    SL_VERDICT_DIFFERS
+} sl_stats_verdict_kind;
+
+sl_stats_verdict_kind sl_stats_verdict(double d, double se, double df, double tolerance,
+                                       double alpha);
+
+/* "as-planned", "off-plan", "differs", "inconclusive". */
+const char *sl_stats_verdict_name(sl_stats_verdict_kind verdict);
+
+/* ---- Noncentral t and power (src/stats_power.c) ----------------------------- */
 
 /* Survival function P[T' > t] of the noncentral t with df > 0 degrees of
  * freedom and noncentrality nc: T' = (Z + nc) / sqrt(V / df), Z standard
@@ -326,28 +349,7 @@ double sl_stats_nct_sf(double t, double df, double nc);
 /* Distribution function P[T' <= t] = 1 - sl_stats_nct_sf(t, df, nc). */
 double sl_stats_nct_cdf(double t, double df, double nc);
 
-/* Verdict of a level against its plan (equivalence logic), from the
- * difference d = estimate - planned, its standard error se, df and the
- * tolerance T > 0, with the two-sided (1 - alpha) interval d +/- t se,
- * t = t_{1-alpha/2, df}:
- *   AS_PLANNED   the interval lies inside [-T, T]
- *   OFF_PLAN     the interval lies entirely outside [-T, T]
- *   DIFFERS      the interval excludes 0 but is neither of those
- *   INCONCLUSIVE otherwise, or without df (df < 1) or a finite se. */
-typedef enum {
-    SL_PLAN_VERDICT_INCONCLUSIVE = 0,
-    SL_PLAN_VERDICT_AS_PLANNED,
-    SL_PLAN_VERDICT_OFF_PLAN,
-    SL_PLAN_VERDICT_DIFFERS
-} sl_stats_plan_verdict_kind;
-
-sl_stats_plan_verdict_kind sl_stats_plan_verdict(double d, double se, double df,
-                                                 double tolerance, double alpha);
-
-/* "as-planned", "off-plan", "differs", "inconclusive". */
-const char *sl_stats_plan_verdict_name(sl_stats_plan_verdict_kind verdict);
-
-/* Probability that sl_stats_plan_verdict says OFF_PLAN for a level whose true
+/* Probability that sl_stats_verdict says OFF_PLAN for a level whose true
  * difference from plan is tolerance + shift, when its estimate is normal with
  * standard error se and se is estimated with df degrees of freedom:
  *   P[t'(df, shift/se) > t_{1-alpha/2,df}] + P[t'(df, (2T+shift)/se) < -t_{1-alpha/2,df}]

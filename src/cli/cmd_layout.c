@@ -212,8 +212,10 @@ static void suggestion(cli_doc *doc, const sl_plan *plan, const sl_layout_level 
     const char *name = plan->factors[lv->factor].levels[lv->level];
     if (lv->wafers_per_split_needed < 0) {
         snprintf(text, sizeof text,
-                 "%s: power %.2f < %.2f even with %d wafers per split: widen T or the shift",
-                 name, lv->power, plan->resolve.power, SL_LAYOUT_MAX_WAFERS_PER_SPLIT);
+                 "%s: power %.2f < %.2f even with %d wafers per split (or %d in all): widen T "
+                 "or the shift",
+                 name, lv->power, plan->resolve.power, SL_LAYOUT_MAX_WAFERS_PER_SPLIT,
+                 SL_LAYOUT_MAX_WAFERS);
         cli_doc_note(doc, text);
         return;
     }
