@@ -19,19 +19,6 @@
 
 /* ---- plan quantities ---- */
 
-static sl_est planned_level(const sl_plan *plan, size_t factor, size_t level)
-{
-    long ref = plan->factors[factor].level_ref[level];
-    if (factor == 0)
-        return plan->dielectrics[ref].doping_per_cm2;
-    return ref < 0 ? (sl_est){ 0.0, 0.0 } : plan->treatments[ref].doping_per_cm2;
-}
-
-double sl_layout_tolerance_per_cm2(const sl_plan *plan, size_t factor, size_t level)
-{
-    return planned_level(plan, factor, level).sigma;
-}
-
 /* C_g / e of a dielectric's planned stack, cm^-2 per volt; NaN if unknown. */
 static double per_cm2_per_V(const sl_plan *plan, size_t dielectric)
 {
@@ -446,7 +433,7 @@ static sl_status list_levels(sl_layout *l, const sl_plan *plan)
             sl_layout_level *lv = &l->levels[l->n_levels++];
             lv->factor = f;
             lv->level = k;
-            lv->tolerance_per_cm2 = sl_layout_tolerance_per_cm2(plan, f, k);
+            lv->tolerance_per_cm2 = sl_plan_level_tolerance_per_cm2(plan, f, k);
             lv->shift_per_cm2 = plan->resolve.present ? level_shift_per_cm2(plan, f, k) : NAN;
             lv->effect_se_per_cm2 = lv->df = lv->power = lv->false_rate = NAN;
             for (size_t s = 0; s < l->n_splits; s++)

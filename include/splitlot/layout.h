@@ -55,7 +55,8 @@ typedef struct {
     size_t loads;                    /* loads that carry it, 0 when not batched */
     double effect_se_per_cm2;        /* sqrt of its diagonal of (X^T V^-1 X)^-1 */
     double df;                       /* wafers (or units with loads) - coefficients */
-    double tolerance_per_cm2;        /* the level's tolerance T */
+    double tolerance_per_cm2;        /* the level's tolerance T
+                                        (sl_plan_level_tolerance_per_cm2) */
     double shift_per_cm2;            /* the miss beyond T to be found */
     double power;                    /* P[off-plan | true miss T + shift] */
     double false_rate;               /* P[off-plan | level exactly as planned] */
@@ -104,10 +105,6 @@ void sl_layout_free(sl_layout *layout);
 
 /* Split index of a wafer id, -1 if it is a spare or unknown. */
 long sl_layout_split_of_wafer(const sl_layout *layout, const char *wafer);
-
-/* The level's tolerance T: the planned level's tolerance (its doping sigma,
- * the plan's default), cm^-2. */
-double sl_layout_tolerance_per_cm2(const sl_plan *plan, size_t factor, size_t level);
 
 /* The model a layout's power rests on, wafer by wafer (assigned wafers only,
  * in layout order): treatment-coded main-effects design X (intercept first,

@@ -2,7 +2,8 @@
  * `splitlot layout PLAN`: the splits and their wafers, every wafer with its
  * split, processing order and loads, the loads of batched steps, the alias
  * structure of a fractional design, and per level the power of the analysis
- * (optionally checked by simulated lots), as a table, CSV or JSON.
+ * (optionally checked by simulated lots), as a table, CSV or JSON (keys of
+ * docs/formats.md).
  */
 #include "cli.h"
 
