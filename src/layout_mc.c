@@ -32,7 +32,9 @@ typedef struct {
 
 /* Buffers of one worker: the kept wafers of a lot. */
 typedef struct {
-    double *x, *mean, *devices, *ss, *conv, *load_offset;
+    double *x, *mean, *devices, *ss, *conv, *var, *load_offset;
+    double *pool_ss, *pool_df;   /* per dielectric */
+    size_t *dielectric;
     long *load;
 } lot_buffers;
 
@@ -44,12 +46,22 @@ static void buffers_free(lot_buffers *b)
     free(b->devices);
     free(b->ss);
     free(b->conv);
+    free(b->var);
+    free(b->pool_ss);
+    free(b->pool_df);
+    free(b->dielectric);
     free(b->load_offset);
 }
 
-static int buffers_alloc(lot_buffers *b, const sl_layout_model *m)
+static int buffers_alloc(lot_buffers *b, const sl_layout_model *m, size_t n_dielectrics)
 {
     size_t n = m->n_obs + 1, L = m->n_loads + 1;
+    b->var = malloc(n * sizeof *b->var);
+    b->dielectric = malloc(n * sizeof *b->dielectric);
+    b->pool_ss = malloc((n_dielectrics + 1) * sizeof *b->pool_ss);
+    b->pool_df = malloc((n_dielectrics + 1) * sizeof *b->pool_df);
+    if (!b->var || !b->dielectric || !b->pool_ss || !b->pool_df)
+        return -1;
     b->x = malloc(n * m->n_coef * sizeof *b->x);
     b->load = malloc(n * (m->n_steps + 1) * sizeof *b->load);
     b->mean = malloc(n * sizeof *b->mean);
@@ -85,12 +97,37 @@ static size_t draw_lot(lot_buffers *b, const worker *w, gsl_rng *rng)
         b->mean[kept] = offset + m->per_cm2_per_V[i] * mean_V;
         b->devices[kept] = (double)usable;
         b->conv[kept] = m->per_cm2_per_V[i];
+        b->dielectric[kept] =
+            w->plan->splits[w->layout->wafers[m->wafer[i]].split].dielectric;
         memcpy(b->x + kept * p, m->x + i * p, p * sizeof *b->x);
         if (S)
             memcpy(b->load + kept * S, m->load + i * S, S * sizeof *b->load);
         kept++;
     }
     return kept;
+}
+
+/* Each wafer mean's sampling variance as the analysis of a measured lot
+ * forms it: the within-wafer variance of neutrality points pooled over the
+ * wafers of the same dielectric (the lot's pool when that dielectric has no
+ * df, 0 when nothing has), over the wafer's devices, times (C_g / e)^2. */
+static void wafer_variances(lot_buffers *b, size_t kept, size_t n_dielectrics)
+{
+    double lot_ss = 0.0, lot_df = 0.0;
+    for (size_t d = 0; d < n_dielectrics; d++)
+        b->pool_ss[d] = b->pool_df[d] = 0.0;
+    for (size_t i = 0; i < kept; i++) {
+        b->pool_ss[b->dielectric[i]] += b->ss[i];
+        b->pool_df[b->dielectric[i]] += b->devices[i] - 1.0;
+        lot_ss += b->ss[i];
+        lot_df += b->devices[i] - 1.0;
+    }
+    for (size_t i = 0; i < kept; i++) {
+        size_t d = b->dielectric[i];
+        double s2 = b->pool_df[d] > 0.0 ? b->pool_ss[d] / b->pool_df[d]
+                                        : (lot_df > 0.0 ? lot_ss / lot_df : 0.0);
+        b->var[i] = b->conv[i] * b->conv[i] * s2 / b->devices[i];
+    }
 }
 
 /* Judge every level of one analysed lot, as planned and missed by T + shift. */
@@ -116,16 +153,16 @@ static void *run_worker(void *arg)
     worker *w = arg;
     lot_buffers b = { 0 };
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    if (!rng || buffers_alloc(&b, w->model) != 0) {
+    if (!rng || buffers_alloc(&b, w->model, w->plan->n_dielectrics) != 0) {
         w->status = SL_ENOMEM;
     } else {
         gsl_rng_set(rng, w->seed);
         const sl_layout_model *m = w->model;
         for (size_t lot = 0; lot < w->lots; lot++) {
             size_t kept = draw_lot(&b, w, rng);
-            sl_stats_wafer_data in = { kept,   m->n_coef, m->n_loads, m->n_steps,
-                                       b.x,    b.mean,    b.devices,  b.ss,
-                                       b.conv, m->n_loads ? b.load : NULL };
+            wafer_variances(&b, kept, w->plan->n_dielectrics);
+            sl_stats_wafer_data in = { kept, m->n_coef, m->n_loads, m->n_steps,
+                                       b.x,  b.mean,    b.var,      m->n_loads ? b.load : NULL };
             sl_stats_wafer_fit fit;
             w->analysed++;
             /* a lot the analysis cannot fit gives no verdict: it counts as not found */

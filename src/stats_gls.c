@@ -1,8 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Effects from wafer means with the wafer (or the load) as the unit (see
- * include/splitlot/stats.h): device scatter pooled within wafers, wafer and
- * load variance components by restricted maximum likelihood with GSL's
- * minimisers, then generalised least squares. Numbers only: no plans here.
+ * include/splitlot/stats.h): without loads the analysis's variance-components
+ * least squares; with loads the wafer and load variance components by
+ * restricted maximum likelihood with GSL's minimisers, then generalised least
+ * squares. Numbers only: no plans here.
  */
 #include "splitlot/stats.h"
 
@@ -12,12 +13,10 @@
 
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_linalg.h>
-#include <gsl/gsl_min.h>
 #include <gsl/gsl_multimin.h>
 
 #include "stats_internal.h"
 
-#define GRID_1D 16          /* log-spaced starting grid for one component */
 #define GRID_2D 10          /* per axis, with loads */
 #define RANGE_LO 1e-6       /* components searched over [1e-6, 1e2] x the OLS scale */
 #define RANGE_HI 1e2
@@ -61,52 +60,12 @@ static double reml_objective(reml *r, double a, double b)
 
 static double clamp(double u, double lo, double hi) { return u < lo ? lo : (u > hi ? hi : u); }
 
-static double objective_1d(double u, void *p)
-{
-    reml *r = p;
-    return reml_objective(r, exp(clamp(u, r->lo, r->hi)), 0.0);
-}
-
 static double objective_2d(const gsl_vector *v, void *p)
 {
     reml *r = p;
     double a = exp(clamp(gsl_vector_get(v, 0), r->lo, r->hi));
     double b = exp(clamp(gsl_vector_get(v, 1), r->lo, r->hi));
     return reml_objective(r, a, b);
-}
-
-/* Grid, then Brent's method around the best interior point. */
-static double minimise_1d(reml *r)
-{
-    double best_u = r->lo, best_f = INFINITY, step = (r->hi - r->lo) / (GRID_1D - 1);
-    size_t best_k = 0;
-    for (size_t k = 0; k < GRID_1D; k++) {
-        double u = r->lo + step * (double)k, f = objective_1d(u, r);
-        if (f < best_f) {
-            best_f = f;
-            best_u = u;
-            best_k = k;
-        }
-    }
-    if (best_k == 0 || best_k == GRID_1D - 1)
-        return exp(best_u);
-    gsl_function fn = { objective_1d, r };
-    gsl_min_fminimizer *m = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
-    if (!m)
-        return exp(best_u);
-    if (gsl_min_fminimizer_set(m, &fn, best_u, best_u - step, best_u + step) == GSL_SUCCESS) {
-        for (int it = 0; it < MAX_ITER; it++) {
-            if (gsl_min_fminimizer_iterate(m) != GSL_SUCCESS)
-                break;
-            /* 1e-4 in log variance: far below the sampling error of the estimate */
-            if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(m),
-                                      gsl_min_fminimizer_x_upper(m), 1e-4, 0.0) == GSL_SUCCESS)
-                break;
-        }
-        best_u = gsl_min_fminimizer_x_minimum(m);
-    }
-    gsl_min_fminimizer_free(m);
-    return exp(best_u);
 }
 
 /* Grid over both components, then the simplex method from the best point. */
@@ -151,7 +110,7 @@ static void minimise_2d(reml *r, double *a, double *b)
 
 static int data_ok(const sl_stats_wafer_data *in)
 {
-    if (!in->x || !in->mean || !in->devices || !in->ss_V2 || !in->per_cm2_per_V ||
+    if (!in->x || !in->mean || !in->var ||
         in->n_coef == 0 || in->n_coef > SL_STATS_MAX_COEF || in->n_wafers <= in->n_coef ||
         (in->n_loads > 0 && (!in->load || in->n_steps == 0)))
         return 0;
@@ -159,21 +118,9 @@ static int data_ok(const sl_stats_wafer_data *in)
         if (in->load[i] >= (long)in->n_loads)
             return 0;
     for (size_t i = 0; i < in->n_wafers; i++)
-        if (!isfinite(in->mean[i]) || !(in->devices[i] >= 1.0) || !(in->ss_V2[i] >= 0.0) ||
-            !isfinite(in->per_cm2_per_V[i]))
+        if (!isfinite(in->mean[i]) || !(in->var[i] >= 0.0) || !isfinite(in->var[i]))
             return 0;
     return 1;
-}
-
-/* Pooled within-wafer variance of device neutrality points, V^2. */
-static double pooled_device_var(const sl_stats_wafer_data *in)
-{
-    double ss = 0.0, df = 0.0;
-    for (size_t i = 0; i < in->n_wafers; i++) {
-        ss += in->ss_V2[i];
-        df += in->devices[i] - 1.0;
-    }
-    return df > 0.0 ? ss / df : 0.0;
 }
 
 static void reml_free(reml *r)
@@ -185,7 +132,7 @@ static void reml_free(reml *r)
     gsl_matrix_free(r->work);
 }
 
-static sl_status reml_init(reml *r, const sl_stats_wafer_data *in, double device_var_V2)
+static sl_status reml_init(reml *r, const sl_stats_wafer_data *in)
 {
     r->in = in;
     r->n = in->n_wafers;
@@ -203,8 +150,7 @@ static sl_status reml_init(reml *r, const sl_stats_wafer_data *in, double device
     for (size_t i = 0; i < r->n; i++) {
         memcpy(r->m + i * r->q, in->x + i * r->p, r->p * sizeof *r->m);
         r->m[i * r->q + r->p] = in->mean[i];
-        double c = in->per_cm2_per_V[i];
-        r->dev[i] = device_var_V2 * c * c / in->devices[i];
+        r->dev[i] = in->var[i];
     }
     return SL_OK;
 }
@@ -239,16 +185,37 @@ static sl_status final_fit(sl_stats_wafer_fit *out, reml *r, double a, double b)
     return st;
 }
 
+/* Without loads: the analysis's variance-components least squares. */
+static sl_status components_fit(sl_stats_wafer_fit *out, const sl_stats_wafer_data *in)
+{
+    sl_stats_fit *fit = NULL;
+    double unit_var = NAN;
+    sl_status st = sl_stats_fit_components(&fit, &unit_var, in->x, in->mean, in->var,
+                                           in->n_wafers, in->n_coef, NULL);
+    if (st == SL_EINPUT)
+        st = SL_ENUM; /* the data were checked: a singular design */
+    for (size_t k = 0; st == SL_OK && k < in->n_coef; k++) {
+        out->coef[k] = fit->coef[k];
+        out->se[k] = fit->se[k];
+        out->df[k] = (double)fit->df_resid;
+    }
+    out->n_coef = in->n_coef;
+    out->wafer_sigma_per_cm2 = sqrt(unit_var);
+    sl_stats_fit_free(fit);
+    return st;
+}
+
 sl_status sl_stats_wafer_effects(sl_stats_wafer_fit *out, const sl_stats_wafer_data *in)
 {
     memset(out, 0, sizeof *out);
     if (!data_ok(in))
         return SL_EINPUT;
-    double device_var = pooled_device_var(in);
+    if (in->n_loads == 0)
+        return components_fit(out, in);
     reml r = { 0 };
-    sl_status st = reml_init(&r, in, device_var);
+    sl_status st = reml_init(&r, in);
     if (st == SL_OK) {
-        /* search the components on the scale of the residual variance of the means */
+        /* search the components on the scale of the variance of the means */
         double s0 = 0.0, mean = 0.0;
         for (size_t i = 0; i < r.n; i++)
             mean += in->mean[i] / (double)r.n;
@@ -258,10 +225,7 @@ sl_status sl_stats_wafer_effects(sl_stats_wafer_fit *out, const sl_stats_wafer_d
         r.lo = log(RANGE_LO * s0);
         r.hi = log(RANGE_HI * s0);
         double a = 0.0, b = 0.0;
-        if (r.L > 0)
-            minimise_2d(&r, &a, &b);
-        else
-            a = minimise_1d(&r);
+        minimise_2d(&r, &a, &b);
         /* a component at the bottom of its range is zero */
         a = a <= exp(r.lo) * 1.0001 ? 0.0 : a;
         b = b <= exp(r.lo) * 1.0001 ? 0.0 : b;
@@ -270,7 +234,6 @@ sl_status sl_stats_wafer_effects(sl_stats_wafer_fit *out, const sl_stats_wafer_d
             any_var &= a + r.dev[i] > 0.0;
         st = final_fit(out, &r, any_var ? a : a + exp(r.lo), b);
         out->n_coef = r.p;
-        out->device_sigma_V = sqrt(device_var);
         out->wafer_sigma_per_cm2 = sqrt(a);
         out->load_sigma_per_cm2 = sqrt(b);
         sl_stats_gls_model model = { r.n, r.p, r.L, in->n_steps, in->x, r.d, in->load, b };

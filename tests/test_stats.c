@@ -892,20 +892,17 @@ START_TEST(test_gls_cov_against_numpy)
 }
 END_TEST
 
-/* Balanced wafers with equal devices: the wafer-level GLS is ordinary least
- * squares of the means, whatever the variance components, so coef and se
- * must equal sl_stats_linear_fit's; and REML's wafer variance is then
- * RSS/(n - p) - device part (Patterson and Thompson 1971, balanced case). */
+/* Balanced wafers with equal devices: the wafer-level least squares is
+ * ordinary least squares of the means, whatever the variance components, so
+ * coef and se must equal sl_stats_linear_fit's, without loads (the moments
+ * estimator) and with loads of one wafer each and no load scatter found. */
 START_TEST(test_wafer_effects_balanced_is_ols)
 {
     const double y[8] = { 1.0e12, 1.2e12, 2.1e12, 1.8e12, 0.4e12, 0.7e12, 1.6e12, 1.3e12 };
-    double devices[8], ss[8], conv[8];
-    for (size_t i = 0; i < 8; i++) {
-        devices[i] = 25;
-        ss[i] = 24 * 0.04;        /* device sigma 0.2 V */
-        conv[i] = 2.0e11;         /* cm^-2 per V */
-    }
-    sl_stats_wafer_data in = { 8, 3, 0, 0, design_2x2, y, devices, ss, conv, NULL };
+    double var[8];
+    for (size_t i = 0; i < 8; i++)
+        var[i] = 0.04 * 2.0e11 * 2.0e11 / 25; /* 0.2 V over 25 devices at 2e11 cm^-2/V */
+    sl_stats_wafer_data in = { 8, 3, 0, 0, design_2x2, y, var, NULL };
     sl_stats_wafer_fit fit;
     ck_assert_int_eq(sl_stats_wafer_effects(&fit, &in), SL_OK);
     sl_stats_fit *ols = NULL;
@@ -915,11 +912,22 @@ START_TEST(test_wafer_effects_balanced_is_ols)
         ck_assert_double_eq_tol(fit.se[k], ols->se[k], 1e-6 * ols->se[k]);
         ck_assert_double_eq(fit.df[k], 5.0);
     }
-    ck_assert_double_eq_tol(fit.device_sigma_V, 0.2, 1e-12);
-    double device_part = 0.04 * 2.0e11 * 2.0e11 / 25;
-    double expect = ols->resid_var - device_part;
+    /* moments: sigma_w^2 = RSS / (n - p) - v for equal v (balanced) */
+    double expect = ols->resid_var - var[0];
     ck_assert_double_eq_tol(fit.wafer_sigma_per_cm2 * fit.wafer_sigma_per_cm2, expect,
-                            1e-4 * expect);
+                            1e-6 * expect);
+    /* REML with every wafer its own load: the components share out the same
+     * total, and the balanced fit is still ordinary least squares */
+    const long own[8] = { 0, 1, 2, 3, 4, 5, 6, 7 };
+    sl_stats_wafer_data loaded = { 8, 3, 8, 1, design_2x2, y, var, own };
+    ck_assert_int_eq(sl_stats_wafer_effects(&fit, &loaded), SL_OK);
+    for (size_t k = 0; k < 3; k++) {
+        ck_assert_double_eq_tol(fit.coef[k], ols->coef[k], 1e-6 * 1e12);
+        ck_assert_double_eq_tol(fit.se[k], ols->se[k], 1e-4 * ols->se[k]);
+    }
+    double total = fit.wafer_sigma_per_cm2 * fit.wafer_sigma_per_cm2 +
+                   fit.load_sigma_per_cm2 * fit.load_sigma_per_cm2;
+    ck_assert_double_eq_tol(total, expect, 1e-2 * expect);
     sl_stats_fit_free(ols);
     in.n_wafers = 3; /* not more wafers than coefficients */
     ck_assert_int_eq(sl_stats_wafer_effects(&fit, &in), SL_EINPUT);

@@ -144,8 +144,9 @@ typedef struct {
  * the plan's variation: per load an offset (batch sigma), per wafer an offset
  * (wafer sigma), per wafer m ~ Binomial(devices_per_wafer, expected_yield)
  * usable devices with their mean and within-wafer sum of squares drawn from
- * the device sigma (normal and chi-square, GSL); analyse each with
- * sl_stats_wafer_effects and judge each level with sl_stats_verdict at the
+ * the device sigma (normal and chi-square, GSL); analyse each as compare does
+ * (each wafer mean's variance from the device scatter pooled per dielectric,
+ * then sl_stats_wafer_effects) and judge each level with sl_stats_verdict at the
  * plan's alpha, once as planned and once missed by T + shift (the estimator
  * is shift-equivariant, so one fit serves both). threads >= 1 workers with
  * their own generators seeded from seed. Free with sl_layout_mc_free.

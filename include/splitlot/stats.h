@@ -446,10 +446,8 @@ typedef struct {
     size_t n_wafers, n_coef, n_loads, n_steps;
     const double *x;             /* design, n_wafers x n_coef row-major */
     const double *mean;          /* wafer mean of its devices' doping, cm^-2 */
-    const double *devices;       /* usable devices behind each mean, >= 1 */
-    const double *ss_V2;         /* sum of squared deviations of the wafer's device
-                                    neutrality points from their mean, V^2 */
-    const double *per_cm2_per_V; /* the wafer's planned C_g / e, cm^-2 per V */
+    const double *var;           /* its known sampling variance (device scatter /
+                                    devices behind it), cm^-4, >= 0 */
     const long *load;            /* loads as in sl_stats_gls_model, or NULL */
 } sl_stats_wafer_data;
 
@@ -459,22 +457,21 @@ typedef struct {
     double coef[SL_STATS_MAX_COEF];
     double se[SL_STATS_MAX_COEF];
     double df[SL_STATS_MAX_COEF];   /* sl_stats_coef_df */
-    double device_sigma_V;          /* pooled within-wafer scatter */
-    double wafer_sigma_per_cm2;     /* REML, >= 0 */
-    double load_sigma_per_cm2;      /* REML, 0 without loads */
+    double wafer_sigma_per_cm2;     /* estimated, >= 0 */
+    double load_sigma_per_cm2;      /* estimated, 0 without loads */
 } sl_stats_wafer_fit;
 
-/* Main effects from wafer means as the design's analysis: the device scatter
- * pooled within wafers (sum ss / sum (m_i - 1), in volts, converted per wafer
- * with its C_g), the wafer (and load) variance components by restricted
- * maximum likelihood (Patterson and Thompson, Biometrika 58, 545 (1971);
- * GSL minimisers), then generalised least squares with those variances as
- * relative weights and the scale estimated from the residuals with
- * n_wafers - n_coef df, so that balanced data give exactly the classical
- * t-test. se from that scale; df per coefficient by sl_stats_coef_df.
- * Needs n_wafers > n_coef and n_coef <= SL_STATS_MAX_COEF.
- * Returns SL_OK, SL_EINPUT (sizes, non-finite data), SL_ENUM (singular
- * design or a minimiser failure), SL_ENOMEM. */
+/* Main effects from wafer means, the analysis of a lot as the planner
+ * assumes it. Without loads: sl_stats_fit_components (wafer variance by
+ * moments, weights 1/(sigma_w^2 + v_i), scale from the residuals, n - p df).
+ * With loads: the wafer and load variance components by restricted maximum
+ * likelihood (Patterson and Thompson, Biometrika 58, 545 (1971); GSL
+ * minimisers), then generalised least squares with V = diag(sigma_w^2 + v_i)
+ * + sigma_b^2 Z Z^T as relative weights and the scale from the residuals;
+ * df per coefficient by sl_stats_coef_df. Balanced data without loads give
+ * exactly the classical t-test. Needs n_wafers > n_coef and n_coef <=
+ * SL_STATS_MAX_COEF. Returns SL_OK, SL_EINPUT (sizes, non-finite data),
+ * SL_ENUM (singular design or a minimiser failure), SL_ENOMEM. */
 sl_status sl_stats_wafer_effects(sl_stats_wafer_fit *out, const sl_stats_wafer_data *data);
 
 #endif
