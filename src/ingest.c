@@ -324,6 +324,7 @@ static void ctx_free(ingest_ctx *c)
     sl_csv_free(c->csv);
     ingest_batch_free(c->batch);
     free(c->wafers);
+    ingest_density_free(c->densities);
     sl_layout_free(c->layout);
     sl_plan_free(c->plan);
     sl_store_lot_clear(&c->lot);

@@ -33,6 +33,7 @@ typedef struct {
     FILE *results, *sweeps, *truth;
     sl_simulate_summary *sum;
     long fault_counter;
+    double temperature_K;   /* of the measurement */
 } sim_ctx;
 
 /* One wafer's drawn stack and offsets. */
@@ -180,6 +181,16 @@ static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
     dev->p.r_contact_ohm = 400.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
 }
 
+/* The transfer curve with n_g from the charge balance solved at vg. */
+static double transfer_ohm(const sim_ctx *c, const sim_wafer *w, const sim_device *dev, double vg)
+{
+    double vf = c->plan->fermi_velocity_m_s, mu = 0.0;
+    if (sl_physics_solve_fermi_J(&mu, vg, dev->p.cnp_V, w->cg, c->temperature_K, vf) != SL_OK)
+        return NAN;
+    double ng = sl_physics_net_density_per_m2(mu, c->temperature_K, vf);
+    return sl_fit_model_at_density_ohm(&dev->p, &w->fit, ng);
+}
+
 static double sweep_point_ohm(sim_ctx *c, const sim_wafer *w, const sim_device *dev, double vg)
 {
     double noise = 1.0 + gsl_ran_gaussian(c->rng, c->opt->noise_rel);
@@ -187,7 +198,7 @@ static double sweep_point_ohm(sim_ctx *c, const sim_wafer *w, const sim_device *
     case DEV_SHORT: return 5.0 * noise;
     case DEV_OPEN: return 5.0e10 * noise;
     case DEV_POOR: return 1.0e4 * (1.0 + gsl_ran_gaussian(c->rng, 0.3));
-    default: return sl_fit_model_ohm(&dev->p, &w->fit, vg) * noise;
+    default: return transfer_ohm(c, w, dev, vg) * noise;
     }
 }
 
@@ -197,8 +208,11 @@ static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
     long n = c->opt->points_per_sweep;
     for (long i = 0; i < n; i++) {
         double vg = w->gate_min_V + (w->gate_max_V - w->gate_min_V) * (double)i / (double)(n - 1);
-        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g\n", wafer, dev->number, dev->die_x,
+        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g", wafer, dev->number, dev->die_x,
                 dev->die_y, vg, sweep_point_ohm(c, w, dev, vg));
+        if (c->opt->temperature_K > 0.0)
+            fprintf(c->sweeps, ",%g", c->temperature_K);
+        fputc('\n', c->sweeps);
     }
     c->sum->sweep_rows += n;
 }
@@ -213,9 +227,9 @@ static void write_result(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
         fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g\n",
                 dev->p.cnp_V + gsl_ran_gaussian(c->rng, 0.02),
                 dev->p.mobility_cm2_per_Vs * (1.0 + gsl_ran_gaussian(c->rng, 0.02)),
-                dev->p.n0_per_cm2, dev->p.r_contact_ohm, c->plan->temperatures_K[0]);
+                dev->p.n0_per_cm2, dev->p.r_contact_ohm, c->temperature_K);
     else
-        fprintf(c->results, ",,,,%g\n", c->plan->temperatures_K[0]);
+        fprintf(c->results, ",,,,%g\n", c->temperature_K);
 }
 
 static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
@@ -285,7 +299,10 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
                           sl_diag *diag)
 {
     memset(out, 0, sizeof *out);
-    sim_ctx c = { .plan = plan, .layout = layout, .opt = options, .sum = out };
+    sim_ctx c = { .plan = plan, .layout = layout, .opt = options, .sum = out,
+                  .temperature_K = options->temperature_K > 0.0 ? options->temperature_K
+                                   : plan->n_temperatures > 0   ? plan->temperatures_K[0]
+                                                                : 300.0 };
     c.rng = gsl_rng_alloc(gsl_rng_mt19937);
     if (!c.rng)
         return SL_ENOMEM;
@@ -295,7 +312,10 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
         c.results = open_out(out_dir, "results.csv",
             "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,temperature_K\n", diag);
         c.sweeps = options->write_sweeps
-                       ? open_out(out_dir, "sweeps.csv", "wafer,device,die_x,die_y,vg_V,r_ohm\n", diag)
+                       ? open_out(out_dir, "sweeps.csv",
+                                  options->temperature_K > 0.0
+                                      ? "wafer,device,die_x,die_y,vg_V,r_ohm,temperature_K\n"
+                                      : "wafer,device,die_x,die_y,vg_V,r_ohm\n", diag)
                        : NULL;
         c.truth = open_out(out_dir, "truth.csv",
             "wafer,device,die_x,die_y,split,kind,cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,"

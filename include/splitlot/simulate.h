@@ -4,6 +4,9 @@
  * on request, or set by overrides), per-wafer layer thicknesses and doping,
  * per-device doping scatter, mobility, residual density and contact
  * resistance, measurement noise, and a few faulty devices of each kind.
+ * Sweeps follow the transfer curve with the gate's density from the charge
+ * balance with quantum capacitance, solved at every point at the
+ * measurement temperature.
  * Writes results.csv, sweeps.csv and the truth (truth.csv, levels.csv).
  */
 #ifndef SPLITLOT_SIMULATE_H
@@ -34,6 +37,8 @@ typedef struct {
     int write_sweeps;              /* write sweeps.csv (default on) */
     int draw_levels;               /* draw each level's true doping from the plan's
                                       sigma (default off: the planned mean) */
+    double temperature_K;          /* measurement temperature; 0: the plan's first,
+                                      and no temperature column in sweeps.csv */
     const sl_simulate_override *overrides;
     size_t n_overrides;
 } sl_simulate_options;
