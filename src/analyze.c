@@ -63,6 +63,7 @@ static sl_status collect_devices(collected *c, sl_analysis_stream *s, sl_diag *d
         c->devices[i].wafer = c->rows[i].wafer;
         c->devices[i].device = c->rows[i].name;
         c->devices[i].fit_class = c->rows[i].fit_class;
+        c->devices[i].fit_model = c->rows[i].fit_model;
         i++;
     }
     if (st == SL_OK && (d || i != a->n_devices)) {

@@ -142,6 +142,11 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->cnp_predicted_V = a->splits[split].cnp_predicted_V;
     d->cnp_predicted_sigma_V = a->splits[split].cnp_predicted_sigma_V;
     d->mobility_cm2_per_Vs = r->mobility_cm2_per_Vs;
+    d->n0_per_cm2 = r->n0_per_cm2;
+    d->r_contact_ohm = r->r_contact_ohm;
+    d->temperature_K = r->temperature_K;
+    d->n_points = r->n_points;
+    d->fit_model = r->fit_model;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
@@ -364,7 +369,7 @@ static void summarize_split(sl_analysis *a, size_t k, split_state *p)
     sp->n_usable = n;
     sp->cnp.n = n;
     sp->cnp.mean = sp->cnp.sd = sp->cnp.ci_low = sp->cnp.ci_high = NAN;
-    sp->bias_V = sp->spread_V = NAN;
+    sp->bias_V = sp->spread_V = sp->flag_low_V = sp->flag_high_V = NAN;
     if (n == 0)
         return;
     sl_stats_summarize_moments(&sp->cnp, n, gsl_rstat_mean(p->cnp), gsl_rstat_sd(p->cnp), 0.95);
@@ -373,6 +378,10 @@ static void summarize_split(sl_analysis *a, size_t k, split_state *p)
                            sp->cnp_predicted_V <= sp->cnp.ci_high;
     sl_stats_robust_from(&p->robust, n, p->median, p->mad, gsl_rstat_mean(p->abs_dev));
     sp->spread_V = p->robust.scale > 0.0 ? p->robust.scale : (n >= 2 ? sp->cnp.sd : 0.0);
+    /* the interval score_device flags against, for the report to draw */
+    double half = SL_ANALYZE_INTERVAL_SIGMAS * hypot(sp->cnp_predicted_sigma_V, sp->spread_V);
+    sp->flag_low_V = sp->cnp_predicted_V - half;
+    sp->flag_high_V = sp->cnp_predicted_V + half;
     a->n_usable += n;
     if (sp->cnp.mean < a->split_gate_min_V[k] || sp->cnp.mean > a->split_gate_max_V[k])
         a->n_splits_cnp_outside++;

@@ -30,6 +30,8 @@ static const char stylesheet[] =
     ".sl-chart .band{stroke:none}"
     ".sl-chart .sigma3{color:#9cbbdc;fill:currentColor;fill-opacity:.25}"
     ".sl-chart .sigma1{color:#6f98c6;fill:currentColor;fill-opacity:.4}"
+    ".sl-chart .density,.sl-chart .swatch.density{fill:#3d5f85;fill-opacity:.75;stroke:none}"
+    ".sl-chart .die-axis{font-size:9px;fill:#555}"
     ".sl-chart .predicted{stroke:#1c416b;stroke-width:1.5}"
     ".sl-chart .center{stroke:#333;stroke-width:1.2}"
     ".sl-chart .limit{stroke:#a6431a;stroke-width:1.2;stroke-dasharray:6 3}"

@@ -199,11 +199,12 @@ static void page_header(report_ctx *c)
     sl_chart_buf_append(b, "</header>\n");
 }
 
-static void failure_section(report_ctx *c)
+static sl_status failure_section(report_ctx *c)
 {
     sl_report_section_open(c->buf, "failure-analysis", "Failure analysis, most severe first");
-    sl_report_failure_table(c);
+    sl_status st = sl_report_failure_table(c);
     sl_report_section_close(c->buf);
+    return st;
 }
 
 static void page_close(report_ctx *c)
@@ -216,7 +217,9 @@ static void page_close(report_ctx *c)
  * names only the sections that were drawn. */
 static sl_status render_sections(report_ctx *c)
 {
-    sl_status st = sl_report_section_splits(c);
+    sl_status st = sl_report_collect(c);
+    if (st == SL_OK)
+        st = sl_report_section_splits(c);
     if (st == SL_OK)
         st = sl_report_section_wafers(c);
     if (st == SL_OK)
@@ -228,9 +231,11 @@ static sl_status render_sections(report_ctx *c)
     return st;
 }
 
-sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
-                           const sl_analysis *analysis, const sl_report_options *opts,
-                           sl_diag *diag)
+/* The page of an analysis whose devices are in memory (stream NULL) or
+ * read from a stream. */
+static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
+                        const sl_analysis *analysis, sl_analysis_stream *stream,
+                        const sl_history *history, const sl_report_options *opts, sl_diag *diag)
 {
     sl_report_summary local;
     sl_report_options defaults;
@@ -240,11 +245,14 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
     }
     sl_chart_buf body;
     sl_chart_buf_init(&body);
-    report_ctx c = { &body, analysis, store, opts, summary ? summary : &local, diag, 0, 0 };
+    report_ctx c = { .buf = &body, .a = analysis, .stream = stream, .store = store,
+                     .opts = opts, .sum = summary ? summary : &local, .diag = diag,
+                     .history = history, .history_loaded = stream != NULL };
     memset(c.sum, 0, sizeof *c.sum);
+    sl_report_rewind(&c);
     sl_status st = render_sections(&c);
     if (st == SL_OK)
-        failure_section(&c);
+        st = failure_section(&c);
     size_t start = buf->len;
     c.buf = buf;
     if (st == SL_OK) {
@@ -255,22 +263,44 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
         st = body.status != SL_OK ? body.status : buf->status;
     }
     sl_chart_buf_free(&body);
+    sl_report_data_free(&c.data);
     c.sum->bytes = buf->len - start;
     return st;
+}
+
+sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
+                           const sl_analysis *analysis, const sl_report_options *opts,
+                           sl_diag *diag)
+{
+    return render(buf, summary, store, analysis, NULL, NULL, opts, diag);
+}
+
+sl_status sl_report_render_stream(sl_chart_buf *buf, sl_report_summary *summary,
+                                  sl_store *store, sl_analysis_stream *stream,
+                                  const sl_report_options *opts, sl_diag *diag)
+{
+    return render(buf, summary, store, sl_analysis_stream_summary(stream), stream, NULL, opts,
+                  diag);
 }
 
 sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char *lot,
                         const char *path, const sl_report_options *opts, sl_diag *diag)
 {
-    sl_analysis *a = NULL;
+    sl_analysis_stream *s = NULL;
+    sl_history *h = NULL;
     sl_chart_buf buf;
     sl_chart_buf_init(&buf);
-    sl_status st = sl_analyze_lot(&a, store, lot, diag);
+    sl_status st = SL_OK;
+    if (!opts || opts->with_history) /* before the stream takes the scratch */
+        st = sl_report_load_history(&h, store, diag);
     if (st == SL_OK)
-        st = sl_report_render(&buf, summary, store, a, opts, diag);
+        st = sl_analyze_lot_stream(&s, store, lot, diag);
+    if (st == SL_OK)
+        st = render(&buf, summary, store, sl_analysis_stream_summary(s), s, h, opts, diag);
+    sl_analysis_stream_free(s);
+    sl_history_free(h);
     if (st == SL_OK)
         st = sl_report_write_file(path, sl_chart_buf_str(&buf), buf.len, diag);
     sl_chart_buf_free(&buf);
-    sl_analysis_free(a);
     return st;
 }

@@ -28,6 +28,7 @@ static void read_device_row(sqlite3_stmt *st, sl_store_device_row *r)
     for (int i = 0; i < 8; i++)
         *numbers[i] = sl_store_column_real_or_nan(st, 7 + i);
     r->n_points = (long)sqlite3_column_int64(st, 15);
+    copy_text(r->fit_model, sizeof r->fit_model, st, 16);
 }
 
 sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
@@ -39,7 +40,7 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
     sl_status s = sl_store_prepare(store, &st,
         "SELECT d.id, w.name, d.name, d.die_x, d.die_y, d.fit_class, d.source, d.temperature_K, "
         "d.cnp_V, d.cnp_sigma_V, d.mobility_cm2_per_Vs, d.n0_per_cm2, d.r_contact_ohm, "
-        "d.rel_rms, d.r_squared, coalesce(d.n_points, 0) "
+        "d.rel_rms, d.r_squared, coalesce(d.n_points, 0), d.fit_model "
         "FROM device d JOIN wafer w ON w.id = d.wafer_id WHERE d.lot_id = ?1 "
         "ORDER BY w.name, d.die_y, d.die_x, d.name", diag);
     if (s != SL_OK)

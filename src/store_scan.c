@@ -36,7 +36,8 @@ static const char scratch_tables_sql[] =
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_kept (grp INTEGER NOT NULL, "
     "tag INTEGER NOT NULL, device_id INTEGER NOT NULL, wafer TEXT NOT NULL, "
     "device TEXT NOT NULL, fit_class TEXT NOT NULL, cnp_V REAL, die_x INTEGER NOT NULL, "
-    "die_y INTEGER NOT NULL, mobility_cm2_per_Vs REAL);"
+    "die_y INTEGER NOT NULL, mobility_cm2_per_Vs REAL, n0_per_cm2 REAL, r_contact_ohm REAL, "
+    "temperature_K REAL, n_points INTEGER, fit_model TEXT);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_value (grp INTEGER NOT NULL, "
     "cnp_V REAL NOT NULL);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_rank (severity REAL NOT NULL, "
@@ -52,16 +53,19 @@ static const char empty_tables_sql[] =
  * to a table of their own, which the many passes of a median read faster. */
 static const char keep_sql[] =
     "INSERT INTO temp.sl_scratch_kept (grp, tag, device_id, wafer, device, fit_class, cnp_V, "
-    "die_x, die_y, mobility_cm2_per_Vs) "
+    "die_x, die_y, mobility_cm2_per_Vs, n0_per_cm2, r_contact_ohm, temperature_K, n_points, "
+    "fit_model) "
     "SELECT ?3, ?4, d.id, ?2, d.name, d.fit_class, d.cnp_V, d.die_x, d.die_y, "
-    "d.mobility_cm2_per_Vs FROM device d "
+    "d.mobility_cm2_per_Vs, d.n0_per_cm2, d.r_contact_ohm, d.temperature_K, "
+    "coalesce(d.n_points, 0), d.fit_model FROM device d "
     "WHERE d.lot_id = ?1 AND d.wafer_id IN (SELECT w.id FROM wafer w "
     "JOIN plan_revision r ON r.id = w.revision_id WHERE r.lot_id = ?1 AND w.name = ?2) "
     "ORDER BY d.die_y, d.die_x, d.name";
 
 #define KEPT_COLUMNS                                                                          \
     "c.grp, c.tag, c.rowid, c.device_id, c.wafer, c.device, c.fit_class, c.cnp_V, c.die_x, " \
-    "c.die_y, c.mobility_cm2_per_Vs"
+    "c.die_y, c.mobility_cm2_per_Vs, c.n0_per_cm2, c.r_contact_ohm, c.temperature_K, "        \
+    "c.n_points, c.fit_model"
 static const char kept_sql[] =
     "SELECT " KEPT_COLUMNS " FROM temp.sl_scratch_kept c ORDER BY c.rowid";
 static const char keep_values_sql[] =
@@ -102,6 +106,11 @@ static void read_kept(sl_store_scratch *x, sqlite3_stmt *st, long *group, long *
     r->die_x = (long)sqlite3_column_int64(st, 8);
     r->die_y = (long)sqlite3_column_int64(st, 9);
     r->mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 10);
+    r->n0_per_cm2 = sl_store_column_real_or_nan(st, 11);
+    r->r_contact_ohm = sl_store_column_real_or_nan(st, 12);
+    r->temperature_K = sl_store_column_real_or_nan(st, 13);
+    r->n_points = (long)sqlite3_column_int64(st, 14);
+    copy_text(r->fit_model, sizeof r->fit_model, st, 15);
 }
 
 static sl_status pragma_value(sl_store *store, long *value, const char *sql, sl_diag *diag)

@@ -39,6 +39,10 @@ typedef struct {
     double modified_z;           /* within the split */
     double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
     double mobility_cm2_per_Vs;
+    double n0_per_cm2, r_contact_ohm; /* as stored; NaN when not fitted */
+    double temperature_K;        /* of the measurement; NaN when not stored */
+    long n_points;               /* of its stored sweep; 0 for results rows */
+    const char *fit_model;       /* "symmetric/qc", ...; "" for results rows */
     unsigned flags;
     double severity;             /* for ordering the failure-analysis list */
     char reason[192];            /* the flag in words; "" when not flagged */
@@ -51,6 +55,10 @@ typedef struct {
     sl_stats_summary cnp;        /* measured V_cnp of usable devices, 95 % CI */
     double spread_V;             /* robust device spread (1.4826 MAD, else SD) */
     double bias_V;               /* mean - predicted */
+    /* The interval outside which a device is flagged off-prediction:
+     * predicted +/- SL_ANALYZE_INTERVAL_SIGMAS sqrt(sigma_pred^2 +
+     * spread^2); NaN without usable devices. */
+    double flag_low_V, flag_high_V;
     int prediction_in_ci;
     size_t n_flagged;
 } sl_analyze_split;

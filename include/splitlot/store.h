@@ -174,6 +174,7 @@ typedef struct {
     double mobility_cm2_per_Vs, n0_per_cm2, r_contact_ohm;
     double rel_rms, r_squared;
     long n_points;               /* 0 for results rows */
+    char fit_model[24];          /* "symmetric/qc", ...; "" for results rows */
 } sl_store_device_row;
 
 /* Every device of a lot, by wafer, die row, die column and name, whatever
