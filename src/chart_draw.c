@@ -46,6 +46,7 @@ static const char stylesheet[] =
     ".sl-chart .notch{fill:#777}"
     ".sl-chart .die{stroke:#fff;stroke-width:.6}"
     ".sl-chart .die.flagged{stroke:#000;stroke-width:2.2}"
+    ".sl-chart .fine .die{stroke:none}.sl-chart .fine .die.flagged{stroke:#000;stroke-width:1}"
     ".sl-chart .nd{fill:#a9a9a9}.sl-chart .ndx{stroke:#2b2b2b;stroke-width:1.2}"
     ".sl-chart .flag-cell{fill:#fff;stroke:#000;stroke-width:2.2}"
     ".sl-chart .note{fill:#666;font-style:italic}";

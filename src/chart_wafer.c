@@ -258,7 +258,8 @@ sl_status sl_chart_wafer_map_svg(sl_chart_buf *buf, const sl_chart_wafer_map *ma
     draw_outline(buf, &l);
     if (map->die_axes)
         draw_die_axes(buf, map, &l);
-    sl_chart_buf_append(buf, "<g class=\"dies\">");
+    /* cells too small for an outline of their own: no white seams */
+    sl_chart_buf_append(buf, l.cell < 6.0 ? "<g class=\"dies fine\">" : "<g class=\"dies\">");
     draw_dies(buf, map, &l, dies, count, max_abs, 0);
     draw_dies(buf, map, &l, dies, count, max_abs, 1);
     sl_chart_buf_append(buf, "</g>");

@@ -164,6 +164,26 @@ static void verdict_cnp_outside(report_ctx *c)
     sl_chart_buf_append(c->buf, "</li>\n");
 }
 
+/* Splits whose predicted neutrality voltage lies outside the 95 % CI of
+ * their measured mean (the splits table's "in CI" column), named. */
+static void verdict_prediction_outside_ci(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    size_t n = 0;
+    for (size_t s = 0; s < a->n_splits; s++)
+        n += a->splits[s].n_usable >= 2 && !a->splits[s].prediction_in_ci;
+    verdict_open(c->buf, "prediction-outside-ci", n,
+                 "splits whose prediction lies outside the 95 % CI of their mean");
+    const char *sep = ": ";
+    for (size_t s = 0; s < a->n_splits; s++)
+        if (a->splits[s].n_usable >= 2 && !a->splits[s].prediction_in_ci) {
+            sl_chart_buf_append(c->buf, sep);
+            sl_chart_buf_escape(c->buf, a->plan->splits[s].name);
+            sep = ", ";
+        }
+    sl_chart_buf_append(c->buf, "</li>\n");
+}
+
 static void contents(report_ctx *c)
 {
     sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#splits\">Splits</a></li>"
@@ -193,6 +213,7 @@ static void page_header(report_ctx *c)
     verdict_off_plan(c);
     verdict_flagged(c);
     verdict_cnp_outside(c);
+    verdict_prediction_outside_ci(c);
     sl_chart_buf_append(b, "</ul>\n");
     sl_chart_buf_append(b, caution_html);
     contents(c);

@@ -137,7 +137,7 @@ static void add_die(report_data *d, const sl_plan *plan, long w, const sl_analyz
                                (size_t)(dev->die_y * plan->wafer_cols + dev->die_x)];
     if (die->n_devices++ == 0)
         snprintf(die->device, sizeof die->device, "%s", dev->device);
-    die->flagged |= dev->flags != 0;
+    die->n_flagged += dev->flags != 0;
     if (isfinite(dev->deviation_V)) {
         die->sum_V += dev->deviation_V;
         die->n_values++;

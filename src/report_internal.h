@@ -36,8 +36,7 @@ typedef struct {
 /* One die position of one wafer: devices averaged. */
 typedef struct {
     double sum_V;
-    unsigned n_values, n_devices;
-    unsigned char flagged;
+    unsigned n_values, n_devices, n_flagged;
     char device[65];              /* the first device's name */
 } report_die;
 

@@ -29,7 +29,7 @@ static size_t flagged_markers(const report_strip *st)
 }
 
 /* The flag interval as the legend names it. */
-static const char flag_label[] = "flag interval (\xc2\xb1" "3\xcf\x83 pred.+spread)";
+static const char flag_label[] = "flag interval";
 
 static size_t fill_categories(sl_chart_category *cats, report_ctx *c, size_t dielectric)
 {

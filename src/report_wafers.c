@@ -12,9 +12,17 @@
 
 #include "report_internal.h"
 
-#define MAP_GRID_PX 130.0   /* target grid edge of one small map */
-#define MAP_MIN_CELL_PX 3.0
+#define MAP_GRID_PX 150.0   /* target grid edge of one small map */
+#define MAP_MIN_CELL_PX 4.0
 #define MAP_MAX_CELL_PX 16.0
+
+/* Outlined as flagged: a die of one device when it is flagged, a die of
+ * several when half of them or more are, so that a few flagged devices
+ * among many per die do not outline every die. */
+static int die_flagged(const report_die *die)
+{
+    return die->n_flagged > 0 && 2 * die->n_flagged >= die->n_devices;
+}
 
 /* The dies of wafer w as the chart takes them, into dies (n_slots room). */
 static size_t wafer_dies(const report_data *d, const sl_plan *plan, size_t w, sl_chart_die *dies)
@@ -27,7 +35,7 @@ static size_t wafer_dies(const report_data *d, const sl_plan *plan, size_t w, sl
         sl_chart_die *out = &dies[n++];
         *out = (sl_chart_die){ (int)(k % (size_t)plan->wafer_cols),
                                (int)(k / (size_t)plan->wafer_cols), SL_CHART_DIE_UNUSABLE, 0.0,
-                               die->flagged, die->device };
+                               die_flagged(die), die->device };
         if (die->n_values > 0) {
             out->state = SL_CHART_DIE_VALUE;
             out->value = die->sum_V / (double)die->n_values;
@@ -111,7 +119,8 @@ sl_status sl_report_section_wafers(report_ctx *c)
                         "split's prediction (V; blue below, orange above). Die coordinates "
                         "along the top (column) and the left (row). Grey with a cross: no usable "
                         "device; bare wafer: no device at that die. Heavy outline: a flagged "
-                        "device. Notch at the bottom.</p>\n",
+                        "device (on a die of several devices: half of them or more flagged). "
+                        "Notch at the bottom.</p>\n",
                         c->a->plan->wafer_rows, c->a->plan->wafer_cols);
     maps_legend(c);
     for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
