@@ -35,6 +35,8 @@ void sl_analysis_free(sl_analysis *a)
     free(a->split_gate_min_V);
     free(a->split_gate_max_V);
     free(a->split_capacitance_F_per_m2);
+    free(a->split_floor_per_cm2);
+    sl_store_runs_free(a->runs, a->n_runs);
     sl_plan_free(a->plan);
     sl_store_lot_clear(&a->lot);
     free(o);
@@ -116,10 +118,16 @@ static sl_status collect_flagged(collected *c, sl_analysis_stream *s, sl_diag *d
 
 sl_status sl_analyze_lot(sl_analysis **out, sl_store *store, const char *lot, sl_diag *diag)
 {
+    return sl_analyze_lot_view(out, store, lot, NULL, diag);
+}
+
+sl_status sl_analyze_lot_view(sl_analysis **out, sl_store *store, const char *lot,
+                              const sl_analyze_view *view, sl_diag *diag)
+{
     *out = NULL;
     sl_analysis_stream *s = NULL;
     collected c = { 0 };
-    sl_status st = sl_analyze_lot_stream(&s, store, lot, diag);
+    sl_status st = sl_analyze_lot_stream_view(&s, store, lot, view, diag);
     if (st == SL_OK)
         st = collect_devices(&c, s, diag);
     if (st == SL_OK)

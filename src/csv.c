@@ -42,6 +42,8 @@ struct sl_csv {
     char **columns;
     size_t n_columns;
     sl_status sticky;
+    sl_csv_tap tap;         /* sees every byte read, in order; may be NULL */
+    void *tap_ctx;
 };
 
 typedef enum { SCAN_RECORD, SCAN_BLANK, SCAN_END, SCAN_MORE, SCAN_ERROR } scan_result;
@@ -146,6 +148,8 @@ static sl_status refill(sl_csv *csv, sl_diag *diag)
     csv->end = keep;
     size_t want = DATA_BYTES - keep;
     size_t got = fread(csv->buf + keep, 1, want, csv->stream);
+    if (csv->tap && got)
+        csv->tap(csv->tap_ctx, csv->buf + keep, got);
     csv->end += got;
     csv->buf[csv->end] = '\0';   /* the sentinel */
     if (got < want) {
@@ -503,7 +507,8 @@ static sl_csv *reader_new(FILE *stream, bool owns, const char *name)
     return csv;
 }
 
-sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_diag *diag)
+static sl_status open_stream(sl_csv **out, FILE *stream, const char *name, sl_csv_tap tap,
+                             void *tap_ctx, sl_diag *diag)
 {
     *out = NULL;
     sl_csv *csv = reader_new(stream, false, name ? name : "<stream>");
@@ -511,6 +516,8 @@ sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_di
         sl_diag_error(diag, "out of memory");
         return SL_ENOMEM;
     }
+    csv->tap = tap;
+    csv->tap_ctx = tap_ctx;
     sl_status st = read_header(csv, diag);
     if (st != SL_OK) {
         sl_csv_free(csv);
@@ -520,17 +527,28 @@ sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_di
     return SL_OK;
 }
 
+sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_diag *diag)
+{
+    return open_stream(out, stream, name, NULL, NULL, diag);
+}
+
 sl_status sl_csv_open(sl_csv **out, const char *path, sl_diag *diag)
+{
+    return sl_csv_open_tapped(out, path, NULL, NULL, diag);
+}
+
+sl_status sl_csv_open_tapped(sl_csv **out, const char *path, sl_csv_tap tap, void *tap_ctx,
+                             sl_diag *diag)
 {
     *out = NULL;
     if (strcmp(path, "-") == 0)
-        return sl_csv_open_stream(out, stdin, "<stdin>", diag);
+        return open_stream(out, stdin, "<stdin>", tap, tap_ctx, diag);
     FILE *f = fopen(path, "rb");
     if (!f) {
         sl_diag_add(diag, SL_SEV_ERROR, path, 0, 0, "cannot open file for reading");
         return SL_EIO;
     }
-    sl_status st = sl_csv_open_stream(out, f, path, diag);
+    sl_status st = open_stream(out, f, path, tap, tap_ctx, diag);
     if (st != SL_OK) {
         fclose(f);
         return st;

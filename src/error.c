@@ -29,6 +29,18 @@ void sl_diag_clear(sl_diag *diag)
     memset(diag->lost, 0, sizeof diag->lost);
 }
 
+void sl_diag_truncate(sl_diag *diag, size_t size)
+{
+    if (!diag)
+        return;
+    for (size_t i = size; i < diag->len; i++) {
+        free(diag->msgs[i].file);
+        free(diag->msgs[i].text);
+    }
+    if (size < diag->len)
+        diag->len = size;
+}
+
 void sl_diag_free(sl_diag *diag)
 {
     if (!diag)

@@ -6,6 +6,7 @@
 #ifndef SL_INGEST_INTERNAL_H
 #define SL_INGEST_INTERNAL_H
 
+#include <pthread.h>
 #include <stdbool.h>
 
 #include "splitlot/csv.h"
@@ -14,16 +15,16 @@
 #include "splitlot/layout.h"
 #include "splitlot/plan.h"
 #include "splitlot/store.h"
+#include "sha256.h"
 
 #define SL_INGEST_MAX_NAME_BYTES 64
 #define SL_INGEST_MAX_POINTS 100000
 #define SL_INGEST_BATCH_DEVICES 256
 
-/* What the plan and the store say about one wafer of the lot. */
+/* What the store says about one wafer of the lot's plan. */
 typedef struct {
-    long wafer_id;           /* row id in the store, 0 when a spare */
     long split;              /* -1 for a spare */
-    sl_fit_config fit;       /* gate capacitance of the wafer's dielectric */
+    sl_fit_config fit;       /* the stored gate capacitance of its split */
 } ingest_wafer;
 
 /* Columns of the file, -1 when absent. */
@@ -36,24 +37,37 @@ typedef struct {
     const char *wafer, *device;
     size_t wafer_index;
     long die_x, die_y;
-    double temperature_K;
+    size_t temperature;      /* index into the plan's temperatures */
 } ingest_row;
 
 typedef struct ingest_batch ingest_batch;
 typedef struct ingest_density ingest_density;
+
+/* The SHA-256 of the file as read, on a thread of its own (ingest_hash.c):
+ * add every block in order (0, or -1 when out of memory), then free, which
+ * waits for the last block and gives the digest in hex (hex may be NULL). */
+typedef struct ingest_hasher ingest_hasher;
+ingest_hasher *ingest_hasher_new(void);
+int ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
+void ingest_hasher_free(ingest_hasher *h, char hex[65]);
 
 typedef struct {
     sl_store *store;
     sl_diag *diag;
     const sl_ingest_options *opt;
     sl_store_lot lot;
-    sl_plan *plan;
-    sl_layout *layout;
+    sl_plan *plan;           /* the stored plan text: names, wafer map, geometry */
+    sl_store_revision revision; /* what predict stored: splits, wafers, C_g */
     ingest_wafer *wafers;    /* per plan wafer */
+    long *run_ids;           /* per plan temperature: its run of this import */
+    long *run_rows;          /* rows read per plan temperature */
+    size_t default_temperature; /* for rows without a temperature */
+    long first_run_id;       /* this import's runs have ids from this on */
+    ingest_hasher *hasher;   /* the file's SHA-256 as it is read */
+    int hash_failed;         /* a block could not be handed over */
     sl_csv *csv;
     const char *file;        /* name for messages */
     ingest_columns col;
-    long first_device_id;    /* this import's devices are stored from this id on */
     sl_ingest_summary *summary;
     double started_s;
     ingest_batch *batch;
@@ -90,9 +104,11 @@ void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
     __attribute__((format(printf, 5, 6)))
 #endif
     ;
-/* The device is stored for the lot by an earlier import. */
-void ingest_already_stored(const ingest_ctx *c, sl_diag *diag, long line, long column,
-                           const char *device, const char *wafer);
+/* The one message for a device stored at another die than in this row. */
+sl_status ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
+                           const char *wafer, const long here[2], const sl_store_insert *stored);
+/* Index of a plan wafer by name, -1 when the plan has none. */
+long ingest_wafer_index(const ingest_ctx *c, const char *wafer);
 
 sl_status ingest_sweeps(ingest_ctx *c);
 void ingest_batch_free(ingest_batch *b);

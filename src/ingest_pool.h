@@ -1,7 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Private to the ingest module: batches of sweeps and a pool of fitting
- * threads that works on one batch while the importing thread reads the next
- * (double buffering), so parsing and fitting overlap.
+ * threads. The sweep import (src/ingest_sweeps.c) keeps a ring of four
+ * batches: the reading thread fills one while the pool fits others and a
+ * writer thread stores fitted ones in file order; the pool's hand-over
+ * callback passes each fitted batch on (docs/architecture.md, "Import").
  */
 #ifndef SL_INGEST_POOL_H
 #define SL_INGEST_POOL_H
@@ -15,11 +17,10 @@ typedef struct {
     const sl_fit_config *cfg;
     /* the device's identity, copied so the writer reads only the item */
     char wafer[65], name[65];
-    long wafer_id, die_x, die_y, first_line;
-    double temperature_K;
+    long run_id, die_x, die_y, first_line;   /* the measurement run of its temperature */
     sl_fit_result result;
     sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
-    long device_id;          /* set by the writer (that of the first run when
+    long measurement_id;     /* set by the writer (that of the first rows when
                                 the device's rows come back later) */
 } fit_item;
 

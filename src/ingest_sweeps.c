@@ -1,9 +1,11 @@
 /* SPDX-License-Identifier: MIT
  * Sweep import: rows are grouped into runs of one device; runs are fitted in
  * batches by a pool of threads and written to the store in file order by a
- * writer thread, while this thread reads on. The writer finds a device that
- * comes back later in the file among those already stored, stages its rows
- * in the store and the device is fitted again at the end. Memory holds a ring
+ * writer thread, while this thread reads on. A run ends where the device,
+ * its die or its temperature changes (each temperature is a measurement run
+ * of its own, never one fit). The writer finds a device that comes back
+ * later in the file at the same temperature in the store, stages its rows
+ * under its measurement and the device is fitted again at the end. Memory holds a ring
  * of four batches of points and nothing per device, whatever the file size.
  */
 #include <math.h>
@@ -42,10 +44,10 @@ struct ingest_batch {
     int in_run;
     size_t run_offset, run_wafer_index;
     long run_first_line, run_x, run_y;
-    double run_temperature_K;
+    size_t run_temperature;  /* index into the plan's temperatures */
     char run_wafer[SL_INGEST_MAX_NAME_BYTES + 1], run_name[SL_INGEST_MAX_NAME_BYTES + 1];
-    char run_die_x[32], run_die_y[32];
-    size_t run_wafer_len, run_name_len, run_die_x_len, run_die_y_len;
+    char run_die_x[32], run_die_y[32], run_t[32];
+    size_t run_wafer_len, run_name_len, run_die_x_len, run_die_y_len, run_t_len;
 };
 
 static void write_batch(fit_batch *batch, void *ctx);
@@ -174,59 +176,43 @@ static sl_status die_moved(const ingest_ctx *c, sl_diag *diag, long line, const 
                            const char *wafer, const long here[2], const long before[2],
                            long before_line)
 {
-    ingest_error_at(c, diag, line, c->col.die_x,
-                    "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on line %ld",
-                    device, wafer, here[0], here[1], before[0], before[1], before_line);
-    return SL_EINPUT;
-}
-
-/* A device already stored: by this import, its rows came back later in the
- * file (staged under its id, fitted again at the end, after its die is
- * checked); by an earlier import, a duplicate. Runs on the writer thread. */
-static sl_status met_again(ingest_ctx *c, fit_batch *b, fit_item *it)
-{
-    sl_store_import_device first;
-    sl_status st = sl_store_find_import_device(c->store, &first, c->lot.lot_id, it->wafer_id,
-                                               it->name, c->first_device_id, b->diag);
-    if (st == SL_ENOTFOUND) {
-        ingest_already_stored(c, b->diag, it->first_line, -1, it->name, it->wafer);
-        return SL_EINPUT;
-    }
-    if (st != SL_OK)
-        return st;
-    if (first.die_x != it->die_x || first.die_y != it->die_y) {
-        const long here[2] = { it->die_x, it->die_y }, before[2] = { first.die_x, first.die_y };
-        return die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, before,
-                         first.source_line);
-    }
-    it->device_id = first.id;
-    return sl_store_stage_points(c->store, first.id, b->vg + it->offset, b->r + it->offset, it->n,
-                                 b->diag);
+    sl_store_insert stored = { .die_x = before[0], .die_y = before[1],
+                               .source_line = before_line, .run_id = c->first_run_id };
+    return ingest_die_moved(c, diag, line, device, wafer, here, &stored);
 }
 
 /* Store one fitted device; runs on the writer thread, so it reads only the
- * item and what does not change during the import. */
+ * item and what does not change during the import. A device the run has
+ * already (its rows came back later in the file) gets these rows staged
+ * under its measurement and is fitted again at the end. */
 static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
 {
     sl_store_device dev;
     sl_store_device_init(&dev);
-    dev.wafer_id = it->wafer_id;
+    dev.wafer = it->wafer;
     dev.name = it->name;
     dev.die_x = it->die_x;
     dev.die_y = it->die_y;
     dev.source = "sweeps";
-    dev.temperature_K = it->temperature_K;
     dev.vg_V = b->vg + it->offset;
     dev.r_ohm = b->r + it->offset;
     dev.n_points = it->n;
     dev.source_line = it->first_line;
     result_to_device(&dev, &it->result, it->status, it->cfg);
-    sl_status st = sl_store_insert_device(c->store, &it->device_id, c->lot.lot_id, &dev, b->diag);
-    if (st == SL_EINPUT) {
-        sl_diag_clear(b->diag);
-        st = met_again(c, b, it);
+    sl_store_insert ins;
+    sl_status st = sl_store_insert_measurement(c->store, &ins, c->lot.lot_id, it->run_id, &dev,
+                                               b->diag);
+    if (st != SL_OK)
+        return st;
+    it->measurement_id = ins.measurement_id;
+    if (ins.outcome == SL_STORE_DIE_DIFFERS) {
+        const long here[2] = { it->die_x, it->die_y };
+        return ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
     }
-    return st;
+    if (ins.outcome == SL_STORE_IN_RUN)
+        return sl_store_stage_points(c->store, ins.measurement_id, b->vg + it->offset,
+                                     b->r + it->offset, it->n, b->diag);
+    return SL_OK;
 }
 
 /* Write a fitted buffer in file order; runs on the writer thread. */
@@ -341,12 +327,13 @@ static sl_status end_run(ingest_ctx *c)
     fit_batch *f = &b->buf[b->filling];
     const ingest_wafer *w = &c->wafers[b->run_wafer_index];
     sl_status st = SL_OK;
-    const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index, b->run_temperature_K, &st);
+    const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index,
+                                              c->plan->temperatures_K[b->run_temperature], &st);
     if (!cfg)
         return st;
     fit_item item = { .offset = b->run_offset, .n = f->n_points - b->run_offset, .cfg = cfg,
-                      .wafer_id = w->wafer_id, .die_x = b->run_x, .die_y = b->run_y,
-                      .first_line = b->run_first_line, .temperature_K = b->run_temperature_K };
+                      .run_id = c->run_ids[b->run_temperature], .die_x = b->run_x,
+                      .die_y = b->run_y, .first_line = b->run_first_line };
     snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
     snprintf(item.name, sizeof item.name, "%s", b->run_name);
     if (fit_batch_push(f, &item) != 0)
@@ -383,7 +370,7 @@ static sl_status start_run(ingest_ctx *c, const ingest_row *row)
     b->run_x = row->die_x;
     b->run_y = row->die_y;
     b->run_wafer_index = row->wafer_index;
-    b->run_temperature_K = row->temperature_K;
+    b->run_temperature = row->temperature;
     b->run_offset = b->buf[b->filling].n_points;
     b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer, row->wafer);
     b->run_name_len = remember(b->run_name, sizeof b->run_name, row->device);
@@ -391,6 +378,9 @@ static sl_status start_run(ingest_ctx *c, const ingest_row *row)
                                 sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
     b->run_die_y_len = remember(b->run_die_y, sizeof b->run_die_y,
                                 sl_csv_field(c->csv, (size_t)c->col.die_y, NULL));
+    if (c->col.temperature >= 0)
+        b->run_t_len = remember(b->run_t, sizeof b->run_t,
+                                sl_csv_field(c->csv, (size_t)c->col.temperature, NULL));
     return SL_OK;
 }
 
@@ -415,7 +405,8 @@ static bool continues_run(const ingest_ctx *c)
     return b->in_run && field_is(c, c->col.device, b->run_name, b->run_name_len) &&
            field_is(c, c->col.wafer, b->run_wafer, b->run_wafer_len) &&
            field_is(c, c->col.die_x, b->run_die_x, b->run_die_x_len) &&
-           field_is(c, c->col.die_y, b->run_die_y, b->run_die_y_len);
+           field_is(c, c->col.die_y, b->run_die_y, b->run_die_y_len) &&
+           (c->col.temperature < 0 || field_is(c, c->col.temperature, b->run_t, b->run_t_len));
 }
 
 static sl_status sweep_row(ingest_ctx *c)
@@ -425,14 +416,16 @@ static sl_status sweep_row(ingest_ctx *c)
     if (!continues_run(c)) {
         ingest_row row;
         st = ingest_read_row(c, &row);
+        /* the same device at another temperature is a run of its own */
         if (st == SL_OK && b->in_run && strcmp(row.device, b->run_name) == 0 &&
-            strcmp(row.wafer, b->run_wafer) == 0)
+            strcmp(row.wafer, b->run_wafer) == 0 && row.temperature == b->run_temperature)
             st = check_same_die(c, &row);
         else if (st == SL_OK && (st = end_run(c)) == SL_OK)
             st = start_run(c, &row);
         if (st != SL_OK)
             return st;
     }
+    c->run_rows[b->run_temperature]++;
     fit_batch *f = &b->buf[b->filling];
     if (f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
         ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
@@ -481,14 +474,20 @@ static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n
     return st;
 }
 
-/* A device met again is fitted at the plan's first temperature. */
-static const sl_fit_config *wafer_fit(ingest_ctx *c, long wafer_id, sl_status *status)
+/* A device met again is fitted at its run's temperature, with the
+ * import's density model. */
+static const sl_fit_config *wafer_fit(ingest_ctx *c, const char *wafer, long run_id,
+                                      sl_status *status)
 {
     *status = SL_OK;
-    for (size_t i = 0; i < c->plan->n_wafers; i++)
-        if (c->wafers[i].wafer_id == wafer_id)
-            return ingest_fit_for(c, i, NAN, status);
-    return NULL;
+    long w = ingest_wafer_index(c, wafer);
+    if (w < 0 || c->wafers[w].split < 0)
+        return NULL;
+    double temperature_K = NAN;
+    for (size_t t = 0; t < c->plan->n_temperatures; t++)
+        if (c->run_ids[t] == run_id)
+            temperature_K = c->plan->temperatures_K[t];
+    return ingest_fit_for(c, (size_t)w, temperature_K, status);
 }
 
 /* Why the gathered points of a device cannot be fitted, or SL_OK. */
@@ -511,7 +510,7 @@ static sl_status check_gathered(ingest_ctx *c, const sl_store_import_device *d, 
 static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
 {
     sl_status cfg_st;
-    const sl_fit_config *cfg = wafer_fit(c, d->wafer_id, &cfg_st);
+    const sl_fit_config *cfg = wafer_fit(c, d->wafer, d->run_id, &cfg_st);
     if (!cfg && cfg_st != SL_OK)
         return cfg_st;
     if (!cfg) {
@@ -547,7 +546,7 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
         dev.r_ohm = r;
         dev.n_points = n;
         result_to_device(&dev, &res, fit_st, cfg);
-        st = sl_store_update_device(c->store, d->id, &dev, c->diag);
+        st = sl_store_update_measurement(c->store, d->id, &dev, c->diag);
     }
     free(vg);
     free(r);
@@ -560,8 +559,7 @@ static sl_status resolve_pending(ingest_ctx *c)
 {
     sl_store_import_device *open = NULL;
     size_t n_open = 0;
-    sl_status st = sl_store_open_devices(c->store, &open, &n_open, c->lot.lot_id,
-                                         c->first_device_id, c->diag);
+    sl_status st = sl_store_open_devices(c->store, &open, &n_open, c->first_run_id, c->diag);
     for (size_t k = 0; st == SL_OK && k < n_open; k++)
         st = refit_device(c, &open[k]);
     free(open);
@@ -576,7 +574,7 @@ static sl_status count_stored(ingest_ctx *c)
     for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)
         names[k] = sl_fit_class_name((sl_fit_class)k);
     sl_status st = sl_store_count_classes(c->store, counts, names, SL_FIT_CLASS_COUNT, &total,
-                                          c->lot.lot_id, c->first_device_id, c->diag);
+                                          c->first_run_id, c->diag);
     if (st != SL_OK)
         return st;
     for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)

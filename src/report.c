@@ -54,6 +54,8 @@ void sl_report_options_default(sl_report_options *out)
     out->generated_utc = NULL;
     out->max_curves = SL_REPORT_DEFAULT_MAX_CURVES;
     out->with_history = 1;
+    out->view.step = NULL; /* the newest step, the first temperature with data */
+    out->view.temperature_K = NAN;
 }
 
 static void now_utc(char out[32])
@@ -105,6 +107,9 @@ static void header_facts(report_ctx *c, const char *generated)
     snprintf(text, sizeof text, "revision %d of %s, stored %s", a->lot.revision,
              base_name(a->lot.plan_name), a->lot.created_utc ? a->lot.created_utc : "");
     fact(b, "plan", text);
+    snprintf(text, sizeof text, "step %s at %g K, against plan revision %d (%zu run%s in all)",
+             a->step, a->temperature_K, a->revision, a->n_runs, a->n_runs == 1 ? "" : "s");
+    fact(b, "measurements", text);
     fact(b, "report", generated);
     snprintf(text, sizeof text, "%zu splits on %zu wafers, %zu dielectrics", a->n_splits,
              a->plan->n_wafers, a->plan->n_dielectrics);
@@ -123,13 +128,26 @@ static void verdict_open(sl_chart_buf *b, const char *key, size_t count, const c
                         count ? " bad" : "", key, count, count, what);
 }
 
-static void verdict_off_plan(report_ctx *c)
+/* The same for a count that is no finding (levels as planned, or too
+ * uncertain to tell): never marked bad. */
+static void verdict_open_plain(sl_chart_buf *b, const char *key, size_t count, const char *what)
+{
+    sl_chart_buf_printf(b, "<li class=\"verdict\" data-verdict=\"%s\" data-count=\"%zu\">"
+                        "<span class=\"count\">%zu</span>%s", key, count, count, what);
+}
+
+/* The levels of one verdict, named after the count. */
+static void verdict_levels(report_ctx *c, sl_stats_verdict_kind verdict, const char *what)
 {
     const sl_analysis *a = c->a;
-    verdict_open(c->buf, "off-plan", a->n_off_plan, "treatment or dielectric levels off plan");
+    size_t n = a->n_verdict[verdict];
+    if (verdict == SL_VERDICT_AS_PLANNED || verdict == SL_VERDICT_INCONCLUSIVE)
+        verdict_open_plain(c->buf, sl_stats_verdict_name(verdict), n, what);
+    else
+        verdict_open(c->buf, sl_stats_verdict_name(verdict), n, what);
     const char *sep = ": ";
     for (size_t i = 0; i < a->n_effects; i++)
-        if (a->effects[i].off_plan && !a->effects[i].is_intercept) { /* as n_off_plan counts */
+        if (a->effects[i].verdict == verdict && !a->effects[i].is_intercept) {
             sl_chart_buf_append(c->buf, sep);
             sl_chart_buf_escape(c->buf, a->effects[i].level);
             sep = ", ";
@@ -137,6 +155,18 @@ static void verdict_off_plan(report_ctx *c)
     if (a->effects_status != SL_OK)
         sl_chart_buf_append(c->buf, " (effects could not be estimated)");
     sl_chart_buf_append(c->buf, "</li>\n");
+}
+
+static void verdict_off_plan(report_ctx *c)
+{
+    verdict_levels(c, SL_VERDICT_OFF_PLAN,
+                   "levels off-plan (95&nbsp;% interval beyond the tolerance)");
+    verdict_levels(c, SL_VERDICT_DIFFERS,
+                   "levels that differ from plan (interval excludes it, within tolerance in part)");
+    verdict_levels(c, SL_VERDICT_AS_PLANNED,
+                   "levels as planned (95&nbsp;% interval within the tolerance)");
+    verdict_levels(c, SL_VERDICT_INCONCLUSIVE,
+                   "levels inconclusive (interval too wide to tell)");
 }
 
 static void verdict_flagged(report_ctx *c)
@@ -186,7 +216,8 @@ static void verdict_prediction_outside_ci(report_ctx *c)
 
 static void contents(report_ctx *c)
 {
-    sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#splits\">Splits</a></li>"
+    sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#runs\">Measurement runs</a></li>"
+                                "<li><a href=\"#splits\">Splits</a></li>"
                                 "<li><a href=\"#wafers\">Wafer maps</a></li>"
                                 "<li><a href=\"#effects\">Level effects</a></li>");
     if (c->has_curves)
@@ -240,6 +271,8 @@ static sl_status render_sections(report_ctx *c)
 {
     sl_status st = sl_report_collect(c);
     if (st == SL_OK)
+        st = sl_report_section_runs(c);
+    if (st == SL_OK)
         st = sl_report_section_splits(c);
     if (st == SL_OK)
         st = sl_report_section_wafers(c);
@@ -271,6 +304,8 @@ static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store 
                      .history = history, .history_loaded = stream != NULL };
     memset(c.sum, 0, sizeof *c.sum);
     sl_report_rewind(&c);
+    snprintf(c.sum->step, sizeof c.sum->step, "%s", analysis->step);
+    c.sum->temperature_K = analysis->temperature_K;
     sl_status st = render_sections(&c);
     if (st == SL_OK)
         st = failure_section(&c);
@@ -315,7 +350,7 @@ sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char 
     if (!opts || opts->with_history) /* before the stream takes the scratch */
         st = sl_report_load_history(&h, store, diag);
     if (st == SL_OK)
-        st = sl_analyze_lot_stream(&s, store, lot, diag);
+        st = sl_analyze_lot_stream_view(&s, store, lot, opts ? &opts->view : NULL, diag);
     if (st == SL_OK)
         st = render(&buf, summary, store, sl_analysis_stream_summary(s), s, h, opts, diag);
     sl_analysis_stream_free(s);

@@ -54,7 +54,7 @@ static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_d
     /* the density model the device was fitted with, as stored */
     sl_physics_density_table *table = NULL;
     if (uses_charge_balance(d)) {
-        double t = isfinite(d->temperature_K)      ? d->temperature_K
+        double t = isfinite(a->temperature_K)      ? a->temperature_K /* the view's */
                    : a->plan->n_temperatures > 0 ? a->plan->temperatures_K[0]
                                                  : 300.0;
         double reach = 2.0 * (fabs(lo) + fabs(hi) + fabs(p.cnp_V)) + 1.0;

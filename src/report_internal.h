@@ -109,6 +109,9 @@ void sl_report_splits_table(report_ctx *c, size_t dielectric);
 void sl_report_effects_table(report_ctx *c);
 sl_status sl_report_failure_table(report_ctx *c);
 
+/* ---- report_runs.c: the lot's measurement runs ---- */
+sl_status sl_report_section_runs(report_ctx *c);
+
 /* ---- report_sections.c: splits and effects ---- */
 sl_status sl_report_section_splits(report_ctx *c);
 sl_status sl_report_section_effects(report_ctx *c);

@@ -1,7 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * SQLite store (see include/splitlot/store.h): connection set-up, forward
- * migrations from the compiled-in db scripts, transactions, plan revisions with
- * predictions, and device/sweep rows. Analysis reads live in store_read.c.
+ * migrations from the compiled-in db scripts, transactions, error mapping and
+ * plan revisions with their predictions. Devices live in store_device.c, the
+ * packed sweeps in store_sweep.c, an import's lookups in store_import.c,
+ * analysis reads in store_read.c and an analysis's scratch tables in
+ * store_scan.c (docs/store.md).
  */
 #include "splitlot/store.h"
 
@@ -25,12 +28,31 @@ int sl_store_schema_version(void) { return (int)sl_schema_migration_count; }
 
 sqlite3 *sl_store_db(sl_store *store) { return store->db; }
 
+/* The kind of a failed constraint in words, or NULL for another error. */
+static const char *constraint_kind(int extended)
+{
+    switch (extended) {
+    case SQLITE_CONSTRAINT_UNIQUE: return "a UNIQUE constraint (the row exists already)";
+    case SQLITE_CONSTRAINT_PRIMARYKEY: return "a PRIMARY KEY constraint (the row exists already)";
+    case SQLITE_CONSTRAINT_FOREIGNKEY:
+        return "a FOREIGN KEY constraint (a row it refers to is missing, or rows refer to it)";
+    case SQLITE_CONSTRAINT_CHECK: return "a CHECK constraint (a value out of its allowed range)";
+    case SQLITE_CONSTRAINT_NOTNULL: return "a NOT NULL constraint (a required value is missing)";
+    default: return (extended & 0xff) == SQLITE_CONSTRAINT ? "a constraint" : NULL;
+    }
+}
+
 /* Why the last statement failed, in words that say what to do about it. */
 static void describe_db_error(char *buf, size_t size, sl_store *store, const char *what)
 {
-    int code = sqlite3_extended_errcode(store->db) & 0xff;
+    int extended = sqlite3_extended_errcode(store->db);
+    int code = extended & 0xff;
     int sys = sqlite3_system_errno(store->db);
-    if (code == SQLITE_READONLY)
+    const char *constraint = constraint_kind(extended);
+    if (constraint)
+        snprintf(buf, size, "cannot %s: %s failed (%s); nothing was changed", what, constraint,
+                 sqlite3_errmsg(store->db));
+    else if (code == SQLITE_READONLY)
         snprintf(buf, size, "database is read-only (the file, its folder or the file system); "
                             "cannot %s; nothing was changed", what);
     else if (code == SQLITE_FULL)
@@ -74,9 +96,19 @@ sl_status sl_store_prepare(sl_store *store, sqlite3_stmt **stmt, const char *sql
     return SL_OK;
 }
 
+/* The time records are stamped with: now, or SOURCE_DATE_EPOCH (seconds
+ * since 1970, the reproducible-builds convention) when it is set, so that
+ * a test or a reproducible demo gets the same database twice. */
 void sl_store_now_utc(char out[32])
 {
     time_t now = time(NULL);
+    const char *fixed = getenv("SOURCE_DATE_EPOCH");
+    if (fixed && *fixed) {
+        char *end = NULL;
+        long long v = strtoll(fixed, &end, 10);
+        if (*end == '\0' && v >= 0)
+            now = (time_t)v;
+    }
     struct tm tm;
     gmtime_r(&now, &tm);
     strftime(out, 32, "%Y-%m-%dT%H:%M:%SZ", &tm);
@@ -190,9 +222,9 @@ void sl_store_close(sl_store *store)
     if (!store)
         return;
     sqlite3_finalize(store->insert_device);
-    sqlite3_finalize(store->insert_new_device);
+    sqlite3_finalize(store->find_device);
+    sqlite3_finalize(store->insert_measurement);
     sqlite3_finalize(store->insert_sweep);
-    sqlite3_finalize(store->find_wafer);
     sqlite3_finalize(store->stage_point);
     sqlite3_close(store->db);
     free(store->path);
@@ -359,18 +391,30 @@ static void join_treatments(char *buf, size_t size, const sl_plan *plan, const s
                               plan->treatments[s->treatments[i]].name);
 }
 
+/* Factor level names of a split joined with ';' into buf, in factor order. */
+static void join_levels(char *buf, size_t size, const sl_plan *plan, const sl_plan_split *s)
+{
+    size_t k = 0;
+    buf[0] = '\0';
+    for (size_t f = 0; f < plan->n_factors && k < size; f++)
+        k += (size_t)snprintf(buf + k, size - k, "%s%s", f ? ";" : "",
+                              plan->factors[f].levels[s->levels[f]]);
+}
+
 static sl_status insert_splits(sl_store *store, long *split_ids, long revision_id,
                                const sl_plan *plan, const sl_layout *layout, sl_diag *diag)
 {
     sqlite3_stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "INSERT INTO split (revision_id, split_index, name, dielectric, treatments, "
-        "planned_doping_per_cm2, planned_doping_sigma_per_cm2, devices_needed, devices_available) "
-        "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)", diag);
+        "planned_doping_per_cm2, planned_doping_sigma_per_cm2, devices_needed, devices_available, "
+        "levels) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)", diag);
     for (size_t i = 0; s == SL_OK && i < plan->n_splits; i++) {
         const sl_plan_split *sp = &plan->splits[i];
-        char treatments[4096];
+        char treatments[4096], levels[4096];
         join_treatments(treatments, sizeof treatments, plan, sp);
+        join_levels(levels, sizeof levels, plan, sp);
+        sqlite3_bind_text(st, 10, levels, -1, SQLITE_TRANSIENT);
         sl_est doping = sl_plan_split_doping_per_cm2(plan, i);
         sqlite3_bind_int64(st, 1, revision_id);
         sqlite3_bind_int64(st, 2, (sqlite3_int64)i);
@@ -457,6 +501,9 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
         s = newest_revision(store, revision, newest_hash, lot_id, diag);
     if (s != SL_OK || strcmp(hash, newest_hash) == 0)
         return s;
+    s = sl_store_check_measured_wafers(store, lot_id, plan, layout, diag);
+    if (s != SL_OK)
+        return s;
     (*revision)++;
     int revived = 0;
     s = revive_revision(store, &revived, lot_id, *revision, hash, diag);
@@ -479,27 +526,48 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
     return s;
 }
 
-static char *column_strdup(sqlite3_stmt *st, int col)
+char *sl_store_column_strdup(sqlite3_stmt *st, int col)
 {
     const unsigned char *t = sqlite3_column_text(st, col);
     return strdup(t ? (const char *)t : "");
 }
 
-static void list_known_lots(sl_store *store, const char *lot, sl_diag *diag)
+sl_status sl_store_count_query(sl_store *store, long *count, const char *sql, long id,
+                               sl_diag *diag, const char *what)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, id);
+    if (sqlite3_step(st) == SQLITE_ROW)
+        *count = (long)sqlite3_column_int64(st, 0);
+    else
+        s = sl_store_db_error(store, diag, what);
+    sqlite3_finalize(st);
+    return s;
+}
+
+/* The message for an unknown lot, naming the known ones; a failed listing
+ * is reported as what it is. */
+static sl_status list_known_lots(sl_store *store, const char *lot, sl_diag *diag)
 {
     char **names = NULL;
     size_t n = 0;
     char buf[512] = "";
     size_t k = 0;
-    if (sl_store_list_lots(store, &names, &n, NULL) == SL_OK)
-        for (size_t i = 0; i < n && k < sizeof buf - 64; i++)
-            k += (size_t)snprintf(buf + k, sizeof buf - k, "%s'%s'", i ? ", " : "", names[i]);
+    sl_status s = sl_store_list_lots(store, &names, &n, diag);
+    if (s != SL_OK)
+        return s;
+    for (size_t i = 0; i < n && k < sizeof buf - 64; i++)
+        k += (size_t)snprintf(buf + k, sizeof buf - k, "%s'%s'", i ? ", " : "", names[i]);
     if (n)
         sl_diag_error(diag, "lot '%s' is not in the database (known lots: %s)", lot, buf);
     else
         sl_diag_error(diag, "lot '%s' is not in the database (it has no lots yet; run "
                             "'splitlot predict PLAN' first)", lot);
     sl_store_free_names(names, n);
+    return SL_ENOTFOUND;
 }
 
 sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot, sl_diag *diag)
@@ -518,18 +586,17 @@ sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
         out->lot_id = (long)sqlite3_column_int64(st, 0);
         out->revision_id = (long)sqlite3_column_int64(st, 1);
         out->revision = sqlite3_column_int(st, 2);
-        out->lot = column_strdup(st, 3);
-        out->plan_text = column_strdup(st, 4);
-        out->plan_name = column_strdup(st, 5);
-        out->created_utc = column_strdup(st, 6);
+        out->lot = sl_store_column_strdup(st, 3);
+        out->plan_text = sl_store_column_strdup(st, 4);
+        out->plan_name = sl_store_column_strdup(st, 5);
+        out->created_utc = sl_store_column_strdup(st, 6);
     }
     sqlite3_finalize(st);
     if (rc == SQLITE_ROW)
         return (out->lot && out->plan_text && out->plan_name && out->created_utc) ? SL_OK : SL_ENOMEM;
     if (rc != SQLITE_DONE)
         return sl_store_db_error(store, diag, "look up the lot");
-    list_known_lots(store, lot, diag);
-    return SL_ENOTFOUND;
+    return list_known_lots(store, lot, diag);
 }
 
 void sl_store_lot_clear(sl_store_lot *lot)
@@ -550,7 +617,8 @@ sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_d
     if (s != SL_OK)
         return s;
     size_t cap = 0;
-    while (sqlite3_step(st) == SQLITE_ROW) {
+    int rc;
+    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
         if (*count == cap) {
             cap = cap ? 2 * cap : 16;
             char **grown = realloc(*names, cap * sizeof **names);
@@ -560,8 +628,14 @@ sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_d
             }
             *names = grown;
         }
-        (*names)[(*count)++] = column_strdup(st, 0);
+        if (!((*names)[*count] = sl_store_column_strdup(st, 0))) {
+            s = SL_ENOMEM;
+            break;
+        }
+        (*count)++;
     }
+    if (s == SL_OK && rc != SQLITE_DONE)
+        s = sl_store_db_error(store, diag, "list the lots");
     sqlite3_finalize(st);
     return s;
 }

@@ -1,88 +1,76 @@
 /* SPDX-License-Identifier: MIT
- * Device rows of the store: insertion on the import hot path with a cached
- * statement, updates after a re-fit, and removal of a lot's measurements for a
- * replacing import. The sweep blobs live in store_sweep.c.
+ * Devices and their measurements in the store: a measurement added to a run
+ * on the import hot path with cached statements (the device found by lot,
+ * wafer name and name, or added), updates after a re-fit, and counts. The
+ * sweep blobs live in store_sweep.c, the runs in store_run.c.
  */
 #include <math.h>
 #include <string.h>
 
 #include "store_internal.h"
 
-sl_status sl_store_wafer_id(sl_store *store, long *wafer_id, long revision_id, const char *wafer)
-{
-    if (!store->find_wafer &&
-        sqlite3_prepare_v2(store->db, "SELECT id FROM wafer WHERE revision_id = ?1 AND name = ?2",
-                           -1, &store->find_wafer, NULL) != SQLITE_OK)
-        return SL_EDB;
-    sqlite3_bind_int64(store->find_wafer, 1, revision_id);
-    sqlite3_bind_text(store->find_wafer, 2, wafer, -1, SQLITE_TRANSIENT);
-    int rc = sqlite3_step(store->find_wafer);
-    if (rc == SQLITE_ROW)
-        *wafer_id = (long)sqlite3_column_int64(store->find_wafer, 0);
-    sqlite3_reset(store->find_wafer);
-    return rc == SQLITE_ROW ? SL_OK : (rc == SQLITE_DONE ? SL_ENOTFOUND : SL_EDB);
-}
-
 void sl_store_device_init(sl_store_device *d)
 {
     memset(d, 0, sizeof *d);
-    d->temperature_K = d->cnp_V = d->cnp_sigma_V = NAN;
+    d->channel_length_um = d->channel_width_um = NAN;
+    d->cnp_V = d->cnp_sigma_V = NAN;
     d->mobility_cm2_per_Vs = d->mobility_sigma_cm2_per_Vs = NAN;
     d->n0_per_cm2 = d->n0_sigma_per_cm2 = d->r_contact_ohm = d->r_contact_sigma_ohm = NAN;
     d->rel_rms = d->r_squared = NAN;
     d->electron_mobility_cm2_per_Vs = d->hole_mobility_cm2_per_Vs = NAN;
-    d->n_spikes = -1;
+    d->hysteresis_V = NAN;
+    d->n_spikes = d->points_dropped = -1;
 }
 
-/* fit_model, electron and hole mobility, n_spikes from parameter index first. */
-static void bind_fit_details(sqlite3_stmt *st, int first, const sl_store_device *d)
+static void bind_text_or_null(sqlite3_stmt *st, int index, const char *text)
 {
-    if (d->fit_model)
-        sqlite3_bind_text(st, first, d->fit_model, -1, SQLITE_STATIC);
+    if (text)
+        sqlite3_bind_text(st, index, text, -1, SQLITE_STATIC);
     else
-        sqlite3_bind_null(st, first);
-    sl_store_bind_real_or_null(st, first + 1, d->electron_mobility_cm2_per_Vs);
-    sl_store_bind_real_or_null(st, first + 2, d->hole_mobility_cm2_per_Vs);
-    if (d->n_spikes >= 0)
-        sqlite3_bind_int64(st, first + 3, d->n_spikes);
-    else
-        sqlite3_bind_null(st, first + 3);
+        sqlite3_bind_null(st, index);
 }
 
-static void bind_device(sqlite3_stmt *st, long lot_id, const sl_store_device *d)
+static void bind_count_or_null(sqlite3_stmt *st, int index, long v)
 {
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_int64(st, 2, d->wafer_id);
-    sqlite3_bind_text(st, 3, d->name, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_int64(st, 4, d->die_x);
-    sqlite3_bind_int64(st, 5, d->die_y);
-    sqlite3_bind_text(st, 6, d->source, -1, SQLITE_STATIC);
-    sqlite3_bind_text(st, 7, d->fit_class, -1, SQLITE_TRANSIENT);
-    double values[] = { d->temperature_K, d->cnp_V, d->cnp_sigma_V, d->mobility_cm2_per_Vs,
+    if (v >= 0)
+        sqlite3_bind_int64(st, index, v);
+    else
+        sqlite3_bind_null(st, index);
+}
+
+/* The extraction columns, in MEASUREMENT_COLUMNS order, from index first. */
+#define MEASUREMENT_COLUMNS \
+    "fit_class, fit_model, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, " \
+    "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, r_squared, " \
+    "n_points, electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs, n_spikes, " \
+    "hysteresis_V, points_dropped"
+enum { N_MEASUREMENT_COLUMNS = 18 };
+
+static void bind_extraction(sqlite3_stmt *st, int first, const sl_store_device *d)
+{
+    sqlite3_bind_text(st, first, d->fit_class, -1, SQLITE_STATIC);
+    bind_text_or_null(st, first + 1, d->fit_model);
+    double values[] = { d->cnp_V, d->cnp_sigma_V, d->mobility_cm2_per_Vs,
                         d->mobility_sigma_cm2_per_Vs, d->n0_per_cm2, d->n0_sigma_per_cm2,
                         d->r_contact_ohm, d->r_contact_sigma_ohm, d->rel_rms, d->r_squared };
-    for (int i = 0; i < (int)(sizeof values / sizeof values[0]); i++)
-        sl_store_bind_real_or_null(st, 8 + i, values[i]);
+    for (int i = 0; i < 10; i++)
+        sl_store_bind_real_or_null(st, first + 2 + i, values[i]);
     if (d->vg_V)
-        sqlite3_bind_int64(st, 19, (sqlite3_int64)d->n_points);
+        sqlite3_bind_int64(st, first + 12, (sqlite3_int64)d->n_points);
     else
-        sqlite3_bind_null(st, 19);
-    bind_fit_details(st, 20, d);
-    if (d->source_line > 0)
-        sqlite3_bind_int64(st, 24, d->source_line);
-    else
-        sqlite3_bind_null(st, 24);
+        sqlite3_bind_null(st, first + 12);
+    sl_store_bind_real_or_null(st, first + 13, d->electron_mobility_cm2_per_Vs);
+    sl_store_bind_real_or_null(st, first + 14, d->hole_mobility_cm2_per_Vs);
+    bind_count_or_null(st, first + 15, d->n_spikes);
+    sl_store_bind_real_or_null(st, first + 16, d->hysteresis_V);
+    bind_count_or_null(st, first + 17, d->points_dropped);
 }
 
-#define INSERT_DEVICE_SQL \
-    "INSERT INTO device (lot_id, wafer_id, name, die_x, die_y, source, fit_class, " \
-    "temperature_K, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, " \
-    "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, " \
-    "r_squared, n_points, fit_model, electron_mobility_cm2_per_Vs, " \
-    "hole_mobility_cm2_per_Vs, n_spikes, source_line) "
-#define INSERT_DEVICE_VALUES \
-    "?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, " \
-    "?20, ?21, ?22, ?23, ?24"
+/* A cached statement of the import path, prepared on first use. */
+static sl_status cached(sl_store *store, sqlite3_stmt **st, const char *sql, sl_diag *diag)
+{
+    return *st ? SL_OK : sl_store_prepare(store, st, sql, diag);
+}
 
 sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag)
 {
@@ -92,141 +80,197 @@ sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag
     return s;
 }
 
-/* The cached insert for the lot: a lot that had no devices when its import
- * began can only meet this import's own devices again, all on wafers of one
- * plan revision, which the unique index catches; any other lot also checks
- * the same wafer name under older revisions. */
-static sl_status device_insert(sl_store *store, sqlite3_stmt **st, long lot_id, sl_diag *diag)
+/* The device's row id and die, SL_ENOTFOUND when the lot has no such device. */
+static sl_status find_device(sl_store *store, sl_store_insert *out, long lot_id,
+                             const sl_store_device *d, sl_diag *diag)
 {
-    if (lot_id == store->new_lot_id) {
-        if (!store->insert_new_device &&
-            sl_store_prepare(store, &store->insert_new_device,
-                                     INSERT_DEVICE_SQL "VALUES (" INSERT_DEVICE_VALUES ")",
-                                     diag) != SL_OK)
-            return SL_EDB;
-        *st = store->insert_new_device;
-        return SL_OK;
+    sl_status s = cached(store, &store->find_device,
+                         "SELECT id, die_x, die_y FROM device WHERE lot_id = ?1 AND wafer = ?2 "
+                         "AND name = ?3", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_stmt *st = store->find_device;
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_text(st, 2, d->wafer, -1, SQLITE_STATIC);
+    sqlite3_bind_text(st, 3, d->name, -1, SQLITE_STATIC);
+    int rc = sqlite3_step(st);
+    if (rc == SQLITE_ROW) {
+        out->device_id = (long)sqlite3_column_int64(st, 0);
+        out->die_x = (long)sqlite3_column_int64(st, 1);
+        out->die_y = (long)sqlite3_column_int64(st, 2);
     }
-    if (!store->insert_device &&
-        sl_store_prepare(store, &store->insert_device,
-            INSERT_DEVICE_SQL "SELECT " INSERT_DEVICE_VALUES " "
-            /* the same wafer name under an older plan revision of the lot is the
-             * same wafer: its devices are duplicates too (CROSS JOIN keeps the
-             * index-only order: revisions, wafer by name, device) */
-            "WHERE NOT EXISTS (SELECT 1 FROM plan_revision r CROSS JOIN wafer w "
-            "CROSS JOIN device d WHERE r.lot_id = ?1 AND w.revision_id = r.id "
-            "AND w.name = (SELECT name FROM wafer WHERE id = ?2) AND d.lot_id = ?1 "
-            "AND d.wafer_id = w.id AND d.name = ?3)", diag) != SL_OK)
-        return SL_EDB;
-    *st = store->insert_device;
-    return SL_OK;
+    sqlite3_reset(st);
+    if (rc == SQLITE_ROW)
+        return SL_OK;
+    return rc == SQLITE_DONE ? SL_ENOTFOUND : sl_store_db_error(store, diag, "look up a device");
 }
 
-sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
-                                 const sl_store_device *dev, sl_diag *diag)
+/* Insert the device; SL_ENOTFOUND-free: *added 0 when the lot has it already
+ * (the unique key refused it), and nothing was written. */
+static sl_status add_device(sl_store *store, int *added, long lot_id, const sl_store_device *d,
+                            long *device_id, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
-    if (device_insert(store, &st, lot_id, diag) != SL_OK)
-        return SL_EDB;
-    bind_device(st, lot_id, dev);
+    sl_status s = cached(store, &store->insert_device,
+                         "INSERT INTO device (lot_id, wafer, name, die_x, die_y, device_type, "
+                         "channel_length_um, channel_width_um) "
+                         "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_stmt *st = store->insert_device;
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_text(st, 2, d->wafer, -1, SQLITE_STATIC);
+    sqlite3_bind_text(st, 3, d->name, -1, SQLITE_STATIC);
+    sqlite3_bind_int64(st, 4, d->die_x);
+    sqlite3_bind_int64(st, 5, d->die_y);
+    bind_text_or_null(st, 6, d->device_type);
+    sl_store_bind_real_or_null(st, 7, d->channel_length_um);
+    sl_store_bind_real_or_null(st, 8, d->channel_width_um);
     int rc = sqlite3_step(st);
     sqlite3_reset(st);
-    if (rc == SQLITE_CONSTRAINT || (rc & 0xff) == SQLITE_CONSTRAINT ||
-        (rc == SQLITE_DONE && sqlite3_changes(store->db) == 0)) {
-        sl_diag_error(diag, "duplicate device '%s' on its wafer", dev->name);
-        return SL_EINPUT;
-    }
-    if (rc != SQLITE_DONE)
-        return sl_store_db_error(store, diag, "store a device");
-    long id = (long)sqlite3_last_insert_rowid(store->db);
-    if (device_id)
-        *device_id = id;
-    if (!dev->vg_V || dev->n_points == 0)
+    *added = rc == SQLITE_DONE;
+    if (rc == SQLITE_DONE) {
+        *device_id = (long)sqlite3_last_insert_rowid(store->db);
         return SL_OK;
-    return sl_store_insert_sweep(store, id, dev, diag);
+    }
+    if (sqlite3_extended_errcode(store->db) == SQLITE_CONSTRAINT_UNIQUE)
+        return SL_OK;
+    return sl_store_db_error(store, diag, "store a device");
 }
 
-sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store_device *dev,
-                                 sl_diag *diag)
+/* The device's first measurement (its line and run), for a die that differs. */
+static sl_status first_measurement(sl_store *store, sl_store_insert *out, sl_diag *diag)
 {
     sqlite3_stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
-        "UPDATE device SET fit_class = ?2, cnp_V = ?3, cnp_sigma_V = ?4, mobility_cm2_per_Vs = ?5, "
-        "mobility_sigma_cm2_per_Vs = ?6, n0_per_cm2 = ?7, n0_sigma_per_cm2 = ?8, "
-        "r_contact_ohm = ?9, r_contact_sigma_ohm = ?10, rel_rms = ?11, r_squared = ?12, "
-        "n_points = ?13, fit_model = ?14, electron_mobility_cm2_per_Vs = ?15, "
-        "hole_mobility_cm2_per_Vs = ?16, n_spikes = ?17 WHERE id = ?1", diag);
+        "SELECT run_id, coalesce(source_line, 0) FROM measurement WHERE device_id = ?1 "
+        "ORDER BY run_id LIMIT 1", diag);
     if (s != SL_OK)
         return s;
+    sqlite3_bind_int64(st, 1, out->device_id);
+    int rc = sqlite3_step(st);
+    if (rc == SQLITE_ROW) {
+        out->run_id = (long)sqlite3_column_int64(st, 0);
+        out->source_line = (long)sqlite3_column_int64(st, 1);
+    }
+    sqlite3_finalize(st);
+    return rc == SQLITE_ROW || rc == SQLITE_DONE ? SL_OK
+                                                 : sl_store_db_error(store, diag, "look up a device");
+}
+
+/* The measurement the run has of the device already. */
+static sl_status measurement_in_run(sl_store *store, sl_store_insert *out, long run_id,
+                                    sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT id, coalesce(source_line, 0) FROM measurement WHERE run_id = ?1 AND device_id = ?2",
+        diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, run_id);
+    sqlite3_bind_int64(st, 2, out->device_id);
+    int rc = sqlite3_step(st);
+    if (rc == SQLITE_ROW) {
+        out->measurement_id = (long)sqlite3_column_int64(st, 0);
+        out->source_line = (long)sqlite3_column_int64(st, 1);
+    }
+    sqlite3_finalize(st);
+    if (rc == SQLITE_ROW)
+        return SL_OK;
+    return rc == SQLITE_DONE ? sl_store_db_error(store, diag, "find a device's measurement")
+                             : sl_store_db_error(store, diag, "look up a device's measurement");
+}
+
+/* Insert the measurement row; *added 0 when the run has the device already. */
+static sl_status add_measurement(sl_store *store, int *added, long run_id, long device_id,
+                                 const sl_store_device *d, sl_diag *diag)
+{
+    sl_status s = cached(store, &store->insert_measurement,
+        "INSERT INTO measurement (device_id, run_id, source, source_line, " MEASUREMENT_COLUMNS
+        ") VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, "
+        "?18, ?19, ?20, ?21, ?22)", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_stmt *st = store->insert_measurement;
     sqlite3_bind_int64(st, 1, device_id);
-    sqlite3_bind_text(st, 2, dev->fit_class, -1, SQLITE_TRANSIENT);
-    double values[] = { dev->cnp_V, dev->cnp_sigma_V, dev->mobility_cm2_per_Vs,
-                        dev->mobility_sigma_cm2_per_Vs, dev->n0_per_cm2, dev->n0_sigma_per_cm2,
-                        dev->r_contact_ohm, dev->r_contact_sigma_ohm, dev->rel_rms, dev->r_squared };
-    for (int i = 0; i < (int)(sizeof values / sizeof values[0]); i++)
-        sl_store_bind_real_or_null(st, 3 + i, values[i]);
-    sqlite3_bind_int64(st, 13, (sqlite3_int64)dev->n_points);
-    bind_fit_details(st, 14, dev);
-    s = sl_store_step_once(store, st, diag, "update a device");
-    if (s == SL_OK && dev->vg_V)
-        s = sl_store_insert_sweep(store, device_id, dev, diag);
+    sqlite3_bind_int64(st, 2, run_id);
+    sqlite3_bind_text(st, 3, d->source, -1, SQLITE_STATIC);
+    bind_count_or_null(st, 4, d->source_line > 0 ? d->source_line : -1);
+    bind_extraction(st, 5, d);
+    int rc = sqlite3_step(st);
+    sqlite3_reset(st);
+    *added = rc == SQLITE_DONE;
+    if (rc == SQLITE_DONE ||
+        sqlite3_extended_errcode(store->db) == SQLITE_CONSTRAINT_UNIQUE)
+        return SL_OK;
+    return sl_store_db_error(store, diag, "store a measurement");
+}
+
+/* The device of the measurement: added (a lot without devices tries the
+ * insert first), or found, its die checked. */
+static sl_status resolve_device(sl_store *store, sl_store_insert *out, long lot_id,
+                                const sl_store_device *d, sl_diag *diag)
+{
+    int added = 0;
+    sl_status s = SL_OK;
+    if (lot_id == store->new_lot_id)
+        s = add_device(store, &added, lot_id, d, &out->device_id, diag);
+    if (s != SL_OK || added)
+        return s;
+    s = find_device(store, out, lot_id, d, diag);
+    if (s == SL_ENOTFOUND) {
+        s = add_device(store, &added, lot_id, d, &out->device_id, diag);
+        if (s == SL_OK && !added)
+            s = sl_store_db_error(store, diag, "store a device");
+        return s;
+    }
+    if (s == SL_OK && (out->die_x != d->die_x || out->die_y != d->die_y)) {
+        out->outcome = SL_STORE_DIE_DIFFERS;
+        s = first_measurement(store, out, diag);
+    }
     return s;
 }
 
-static sl_status count_query(sl_store *store, long *count, const char *sql, long id, sl_diag *diag)
+sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, long lot_id,
+                                      long run_id, const sl_store_device *d, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    memset(out, 0, sizeof *out);
+    sl_status s = resolve_device(store, out, lot_id, d, diag);
+    if (s != SL_OK || out->outcome != SL_STORE_ADDED)
+        return s;
+    int added = 0;
+    s = add_measurement(store, &added, run_id, out->device_id, d, diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, id);
-    *count = sqlite3_step(st) == SQLITE_ROW ? (long)sqlite3_column_int64(st, 0) : 0;
-    sqlite3_finalize(st);
-    return SL_OK;
+    if (!added) {
+        out->outcome = SL_STORE_IN_RUN;
+        return measurement_in_run(store, out, run_id, diag);
+    }
+    out->measurement_id = (long)sqlite3_last_insert_rowid(store->db);
+    if (!d->vg_V || d->n_points == 0)
+        return SL_OK;
+    return sl_store_insert_sweep(store, out->measurement_id, d, diag);
+}
+
+sl_status sl_store_update_measurement(sl_store *store, long measurement_id,
+                                      const sl_store_device *dev, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "UPDATE measurement SET (" MEASUREMENT_COLUMNS ") = (?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, "
+        "?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19) WHERE id = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, measurement_id);
+    bind_extraction(st, 2, dev);
+    s = sl_store_step_once(store, st, diag, "update a measurement");
+    if (s == SL_OK && dev->vg_V)
+        s = sl_store_insert_sweep(store, measurement_id, dev, diag);
+    return s;
 }
 
 sl_status sl_store_count_devices(sl_store *store, long *count, long lot_id, sl_diag *diag)
 {
-    return count_query(store, count, "SELECT count(*) FROM device WHERE lot_id = ?1", lot_id, diag);
-}
-
-sl_status sl_store_delete_measurements(sl_store *store, long lot_id, sl_diag *diag)
-{
-    sqlite3_stmt *st = NULL;
-    static const char *const sql[] = {
-        "DELETE FROM sweep WHERE device_id IN (SELECT id FROM device WHERE lot_id = ?1)",
-        "DELETE FROM device WHERE lot_id = ?1",
-    };
-    for (int i = 0; i < 2; i++) {
-        sl_status s = sl_store_prepare(store, &st, sql[i], diag);
-        if (s != SL_OK)
-            return s;
-        sqlite3_bind_int64(st, 1, lot_id);
-        s = sl_store_step_once(store, st, diag, "remove the lot's measurements");
-        if (s != SL_OK)
-            return s;
-    }
-    return SL_OK;
-}
-
-sl_status sl_store_record_import(sl_store *store, long lot_id, const char *kind,
-                                 const char *source_name, long rows, long devices,
-                                 sl_diag *diag)
-{
-    sqlite3_stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
-        "INSERT INTO import (lot_id, kind, source_name, rows, devices, created_utc) "
-        "VALUES (?1, ?2, ?3, ?4, ?5, ?6)", diag);
-    if (s != SL_OK)
-        return s;
-    char now[32];
-    sl_store_now_utc(now);
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_text(st, 2, kind, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_text(st, 3, source_name, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_int64(st, 4, rows);
-    sqlite3_bind_int64(st, 5, devices);
-    sqlite3_bind_text(st, 6, now, -1, SQLITE_TRANSIENT);
-    s = sl_store_step_once(store, st, diag, "record the import");
-    return s;
+    return sl_store_count_query(store, count, "SELECT count(*) FROM device WHERE lot_id = ?1",
+                                lot_id, diag, "count the lot's devices");
 }

@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
- * Reads of the store for analysis: a lot's devices and every lot with its
- * newest plan revision (see include/splitlot/store.h).
+ * Reads of the store for analysis: a lot's current measurements in a view
+ * and every lot with its newest plan revision (see include/splitlot/store.h).
  */
 #include <stdio.h>
 #include <stdlib.h>
@@ -17,35 +17,48 @@ static void copy_text(char *dst, size_t size, sqlite3_stmt *st, int col)
 static void read_device_row(sqlite3_stmt *st, sl_store_device_row *r)
 {
     r->id = (long)sqlite3_column_int64(st, 0);
-    copy_text(r->wafer, sizeof r->wafer, st, 1);
-    copy_text(r->name, sizeof r->name, st, 2);
-    r->die_x = (long)sqlite3_column_int64(st, 3);
-    r->die_y = (long)sqlite3_column_int64(st, 4);
-    copy_text(r->fit_class, sizeof r->fit_class, st, 5);
-    copy_text(r->source, sizeof r->source, st, 6);
+    r->device_id = (long)sqlite3_column_int64(st, 1);
+    r->run_id = (long)sqlite3_column_int64(st, 2);
+    copy_text(r->wafer, sizeof r->wafer, st, 3);
+    copy_text(r->name, sizeof r->name, st, 4);
+    r->die_x = (long)sqlite3_column_int64(st, 5);
+    r->die_y = (long)sqlite3_column_int64(st, 6);
+    copy_text(r->fit_class, sizeof r->fit_class, st, 7);
+    copy_text(r->source, sizeof r->source, st, 8);
+    copy_text(r->fit_model, sizeof r->fit_model, st, 9);
     double *numbers[] = { &r->temperature_K, &r->cnp_V, &r->cnp_sigma_V, &r->mobility_cm2_per_Vs,
-                          &r->n0_per_cm2, &r->r_contact_ohm, &r->rel_rms, &r->r_squared };
-    for (int i = 0; i < 8; i++)
-        *numbers[i] = sl_store_column_real_or_nan(st, 7 + i);
-    r->n_points = (long)sqlite3_column_int64(st, 15);
-    copy_text(r->fit_model, sizeof r->fit_model, st, 16);
+                          &r->n0_per_cm2, &r->r_contact_ohm, &r->hysteresis_V,
+                          &r->channel_length_um, &r->channel_width_um, &r->rel_rms,
+                          &r->r_squared };
+    for (int i = 0; i < 11; i++)
+        *numbers[i] = sl_store_column_real_or_nan(st, 10 + i);
+    r->n_points = (long)sqlite3_column_int64(st, 21);
+    r->measurements = (long)sqlite3_column_int64(st, 22);
 }
 
 sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
-                                long lot_id, sl_diag *diag)
+                                long lot_id, const char *step, double temperature_K,
+                                sl_diag *diag)
 {
     *rows = NULL;
     *count = 0;
     sqlite3_stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
-        "SELECT d.id, w.name, d.name, d.die_x, d.die_y, d.fit_class, d.source, d.temperature_K, "
-        "d.cnp_V, d.cnp_sigma_V, d.mobility_cm2_per_Vs, d.n0_per_cm2, d.r_contact_ohm, "
-        "d.rel_rms, d.r_squared, coalesce(d.n_points, 0), d.fit_model "
-        "FROM device d JOIN wafer w ON w.id = d.wafer_id WHERE d.lot_id = ?1 "
-        "ORDER BY w.name, d.die_y, d.die_x, d.name", diag);
+        "WITH runs AS (SELECT id FROM measurement_run WHERE lot_id = ?1 AND step = ?2 "
+        "AND temperature_K = ?3) "
+        "SELECT m.id, d.id, m.run_id, d.wafer, d.name, d.die_x, d.die_y, m.fit_class, m.source, "
+        "coalesce(m.fit_model, ''), ?3, m.cnp_V, m.cnp_sigma_V, m.mobility_cm2_per_Vs, "
+        "m.n0_per_cm2, m.r_contact_ohm, m.hysteresis_V, d.channel_length_um, d.channel_width_um, "
+        "m.rel_rms, m.r_squared, coalesce(m.n_points, 0), "
+        "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id AND c.run_id IN runs) "
+        "FROM device d JOIN measurement m ON m.id = (SELECT c.id FROM measurement c "
+        "WHERE c.device_id = d.id AND c.run_id IN runs ORDER BY c.run_id DESC LIMIT 1) "
+        "WHERE d.lot_id = ?1 ORDER BY d.wafer, d.die_y, d.die_x, d.name", diag);
     if (s != SL_OK)
         return s;
     sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_text(st, 2, step, -1, SQLITE_STATIC);
+    sqlite3_bind_double(st, 3, temperature_K);
     size_t cap = 0;
     int rc;
     while ((rc = sqlite3_step(st)) == SQLITE_ROW) {

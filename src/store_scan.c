@@ -25,6 +25,7 @@ struct sl_store_scratch {
     sqlite3_stmt *kept, *values; /* kept devices read back: whole, or V_cnp only */
     sqlite3_stmt *rank, *ranked; /* ranked devices: insert, read back */
     long last_kept;              /* rowid of the kept device last read */
+    double temperature_K;        /* the view's */
     sl_store_device_row row;
 };
 
@@ -33,11 +34,14 @@ struct sl_store_scratch {
  * again) for each. Ranked devices are read in the order of their index, so
  * no sort is held. */
 static const char scratch_tables_sql[] =
+    "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_run (id INTEGER PRIMARY KEY);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_kept (grp INTEGER NOT NULL, "
-    "tag INTEGER NOT NULL, device_id INTEGER NOT NULL, wafer TEXT NOT NULL, "
-    "device TEXT NOT NULL, fit_class TEXT NOT NULL, cnp_V REAL, die_x INTEGER NOT NULL, "
+    "tag INTEGER NOT NULL, measurement_id INTEGER NOT NULL, device_id INTEGER NOT NULL, "
+    "run_id INTEGER NOT NULL, wafer TEXT NOT NULL, device TEXT NOT NULL, "
+    "fit_class TEXT NOT NULL, fit_model TEXT, cnp_V REAL, die_x INTEGER NOT NULL, "
     "die_y INTEGER NOT NULL, mobility_cm2_per_Vs REAL, n0_per_cm2 REAL, r_contact_ohm REAL, "
-    "temperature_K REAL, n_points INTEGER, fit_model TEXT);"
+    "hysteresis_V REAL, channel_length_um REAL, channel_width_um REAL, "
+    "measurements INTEGER NOT NULL, n_points INTEGER NOT NULL);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_value (grp INTEGER NOT NULL, "
     "cnp_V REAL NOT NULL);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_rank (severity REAL NOT NULL, "
@@ -45,27 +49,37 @@ static const char scratch_tables_sql[] =
     "CREATE INDEX IF NOT EXISTS temp.sl_scratch_rank_order "
     "ON sl_scratch_rank (severity DESC, wafer, device)";
 static const char empty_tables_sql[] =
-    "DELETE FROM temp.sl_scratch_kept; DELETE FROM temp.sl_scratch_value; "
-    "DELETE FROM temp.sl_scratch_rank";
+    "DELETE FROM temp.sl_scratch_run; DELETE FROM temp.sl_scratch_kept; "
+    "DELETE FROM temp.sl_scratch_value; DELETE FROM temp.sl_scratch_rank";
 
-/* One wafer name's devices (wafers of that name in every plan revision of
- * the lot), sorted by die: a sort as small as a wafer. The usable V_cnp go
- * to a table of their own, which the many passes of a median read faster. */
+static const char view_sql[] =
+    "INSERT INTO temp.sl_scratch_run (id) SELECT id FROM measurement_run "
+    "WHERE lot_id = ?1 AND step = ?2 AND temperature_K = ?3";
+
+/* One wafer's devices, each with its newest measurement in the view's runs
+ * (a re-probe supersedes the earlier run), sorted by die: a sort as small
+ * as a wafer. The usable V_cnp go to a table of their own, which the many
+ * passes of a median read faster. */
 static const char keep_sql[] =
-    "INSERT INTO temp.sl_scratch_kept (grp, tag, device_id, wafer, device, fit_class, cnp_V, "
-    "die_x, die_y, mobility_cm2_per_Vs, n0_per_cm2, r_contact_ohm, temperature_K, n_points, "
-    "fit_model) "
-    "SELECT ?3, ?4, d.id, ?2, d.name, d.fit_class, d.cnp_V, d.die_x, d.die_y, "
-    "d.mobility_cm2_per_Vs, d.n0_per_cm2, d.r_contact_ohm, d.temperature_K, "
-    "coalesce(d.n_points, 0), d.fit_model FROM device d "
-    "WHERE d.lot_id = ?1 AND d.wafer_id IN (SELECT w.id FROM wafer w "
-    "JOIN plan_revision r ON r.id = w.revision_id WHERE r.lot_id = ?1 AND w.name = ?2) "
+    "INSERT INTO temp.sl_scratch_kept (grp, tag, measurement_id, device_id, run_id, wafer, "
+    "device, fit_class, fit_model, cnp_V, die_x, die_y, mobility_cm2_per_Vs, n0_per_cm2, "
+    "r_contact_ohm, hysteresis_V, channel_length_um, channel_width_um, measurements, "
+    "n_points) "
+    "SELECT ?3, ?4, m.id, d.id, m.run_id, ?2, d.name, m.fit_class, m.fit_model, m.cnp_V, "
+    "d.die_x, d.die_y, m.mobility_cm2_per_Vs, m.n0_per_cm2, m.r_contact_ohm, m.hysteresis_V, "
+    "d.channel_length_um, d.channel_width_um, "
+    "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id "
+    "AND c.run_id IN temp.sl_scratch_run), coalesce(m.n_points, 0) "
+    "FROM device d JOIN measurement m ON m.id = (SELECT c.id FROM measurement c "
+    "WHERE c.device_id = d.id AND c.run_id IN temp.sl_scratch_run ORDER BY c.run_id DESC LIMIT 1) "
+    "WHERE d.lot_id = ?1 AND d.wafer = ?2 "
     "ORDER BY d.die_y, d.die_x, d.name";
 
-#define KEPT_COLUMNS                                                                          \
-    "c.grp, c.tag, c.rowid, c.device_id, c.wafer, c.device, c.fit_class, c.cnp_V, c.die_x, " \
-    "c.die_y, c.mobility_cm2_per_Vs, c.n0_per_cm2, c.r_contact_ohm, c.temperature_K, "        \
-    "c.n_points, c.fit_model"
+#define KEPT_COLUMNS                                                                       \
+    "c.grp, c.tag, c.rowid, c.measurement_id, c.device_id, c.run_id, c.wafer, c.device, " \
+    "c.fit_class, coalesce(c.fit_model, ''), c.cnp_V, c.die_x, c.die_y, "                 \
+    "c.mobility_cm2_per_Vs, c.n0_per_cm2, c.r_contact_ohm, c.hysteresis_V, "              \
+    "c.channel_length_um, c.channel_width_um, c.measurements, c.n_points"
 static const char kept_sql[] =
     "SELECT " KEPT_COLUMNS " FROM temp.sl_scratch_kept c ORDER BY c.rowid";
 static const char keep_values_sql[] =
@@ -88,29 +102,32 @@ static void copy_text(char *dst, size_t size, sqlite3_stmt *st, int col)
     dst[n] = '\0';
 }
 
-/* A kept device: its group, tag, rowid and row (every other number NaN). */
+/* A kept device: its group, tag, rowid and row (the numbers not kept NaN). */
 static void read_kept(sl_store_scratch *x, sqlite3_stmt *st, long *group, long *tag)
 {
-    static const sl_store_device_row blank = { .temperature_K = NAN, .cnp_sigma_V = NAN,
-        .n0_per_cm2 = NAN, .r_contact_ohm = NAN, .rel_rms = NAN, .r_squared = NAN };
     sl_store_device_row *r = &x->row;
-    *r = blank;
+    memset(r, 0, sizeof *r);
+    r->temperature_K = x->temperature_K;
+    r->cnp_sigma_V = r->rel_rms = r->r_squared = NAN;
     *group = (long)sqlite3_column_int64(st, 0);
     *tag = (long)sqlite3_column_int64(st, 1);
     x->last_kept = (long)sqlite3_column_int64(st, 2);
     r->id = (long)sqlite3_column_int64(st, 3);
-    copy_text(r->wafer, sizeof r->wafer, st, 4);
-    copy_text(r->name, sizeof r->name, st, 5);
-    copy_text(r->fit_class, sizeof r->fit_class, st, 6);
-    r->cnp_V = sl_store_column_real_or_nan(st, 7);
-    r->die_x = (long)sqlite3_column_int64(st, 8);
-    r->die_y = (long)sqlite3_column_int64(st, 9);
-    r->mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 10);
-    r->n0_per_cm2 = sl_store_column_real_or_nan(st, 11);
-    r->r_contact_ohm = sl_store_column_real_or_nan(st, 12);
-    r->temperature_K = sl_store_column_real_or_nan(st, 13);
-    r->n_points = (long)sqlite3_column_int64(st, 14);
-    copy_text(r->fit_model, sizeof r->fit_model, st, 15);
+    r->device_id = (long)sqlite3_column_int64(st, 4);
+    r->run_id = (long)sqlite3_column_int64(st, 5);
+    copy_text(r->wafer, sizeof r->wafer, st, 6);
+    copy_text(r->name, sizeof r->name, st, 7);
+    copy_text(r->fit_class, sizeof r->fit_class, st, 8);
+    copy_text(r->fit_model, sizeof r->fit_model, st, 9);
+    r->cnp_V = sl_store_column_real_or_nan(st, 10);
+    r->die_x = (long)sqlite3_column_int64(st, 11);
+    r->die_y = (long)sqlite3_column_int64(st, 12);
+    double *numbers[] = { &r->mobility_cm2_per_Vs, &r->n0_per_cm2, &r->r_contact_ohm,
+                          &r->hysteresis_V, &r->channel_length_um, &r->channel_width_um };
+    for (int i = 0; i < 6; i++)
+        *numbers[i] = sl_store_column_real_or_nan(st, 13 + i);
+    r->measurements = (long)sqlite3_column_int64(st, 19);
+    r->n_points = (long)sqlite3_column_int64(st, 20);
 }
 
 static sl_status pragma_value(sl_store *store, long *value, const char *sql, sl_diag *diag)
@@ -186,6 +203,23 @@ sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag
     }
     *out = x;
     return SL_OK;
+}
+
+sl_status sl_store_scratch_view(sl_store_scratch *x, long lot_id, const char *step,
+                                double temperature_K, sl_diag *diag)
+{
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_exec(x->store, "DELETE FROM temp.sl_scratch_run", diag,
+                                "empty the scratch tables");
+    if (s == SL_OK)
+        s = sl_store_prepare(x->store, &st, view_sql, diag);
+    if (s != SL_OK)
+        return s;
+    x->temperature_K = temperature_K;
+    sqlite3_bind_int64(st, 1, lot_id);
+    sqlite3_bind_text(st, 2, step, -1, SQLITE_STATIC);
+    sqlite3_bind_double(st, 3, temperature_K);
+    return sl_store_step_once(x->store, st, diag, "choose the view's runs");
 }
 
 sl_status sl_store_scratch_keep_wafer(sl_store_scratch *x, long lot_id, const char *wafer,

@@ -359,12 +359,12 @@ sl_status sl_store_unpack_sweep(double *vg_V, double *r_ohm, size_t n,
 
 /* ---- rows of the sweep table and of the import's scratch table ---- */
 
-sl_status sl_store_insert_sweep(sl_store *store, long device_id, const sl_store_device *dev,
+sl_status sl_store_insert_sweep(sl_store *store, long measurement_id, const sl_store_device *dev,
                                 sl_diag *diag)
 {
     if (!store->insert_sweep &&
         sl_store_prepare(store, &store->insert_sweep,
-                         "INSERT OR REPLACE INTO sweep (device_id, n_points, points) "
+                         "INSERT OR REPLACE INTO sweep (measurement_id, n_points, points) "
                          "VALUES (?1, ?2, ?3)", diag) != SL_OK)
         return SL_EDB;
     size_t bytes = 0;
@@ -372,7 +372,7 @@ sl_status sl_store_insert_sweep(sl_store *store, long device_id, const sl_store_
     if (!blob)
         return SL_ENOMEM;
     sqlite3_stmt *st = store->insert_sweep;
-    sqlite3_bind_int64(st, 1, device_id);
+    sqlite3_bind_int64(st, 1, measurement_id);
     sqlite3_bind_int64(st, 2, (sqlite3_int64)dev->n_points);
     sqlite3_bind_blob64(st, 3, blob, bytes, free);
     return sl_store_step_done(store, st, diag, "store a sweep");
@@ -495,16 +495,16 @@ sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm,
 }
 
 sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
-                              long device_id, sl_diag *diag)
+                              long measurement_id, sl_diag *diag)
 {
     *vg_V = *r_ohm = NULL;
     *n = 0;
     sqlite3_stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
-                                   "SELECT n_points, points FROM sweep WHERE device_id = ?1", diag);
+                                   "SELECT n_points, points FROM sweep WHERE measurement_id = ?1", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, device_id);
+    sqlite3_bind_int64(st, 1, measurement_id);
     if (sqlite3_step(st) != SQLITE_ROW) {
         sqlite3_finalize(st);
         return SL_ENOTFOUND;
@@ -513,8 +513,8 @@ sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, si
     const char *damage = NULL;
     s = append_row_points(&a, st, &damage);
     if (damage)
-        sl_diag_error(diag, "sweep of device %ld is damaged: %s (%d bytes for %lld points)",
-                      device_id, damage, sqlite3_column_bytes(st, 1),
+        sl_diag_error(diag, "sweep of measurement %ld is damaged: %s (%d bytes for %lld points)",
+                      measurement_id, damage, sqlite3_column_bytes(st, 1),
                       (long long)sqlite3_column_int64(st, 0));
     sqlite3_finalize(st);
     give_points(&a, s, vg_V, r_ohm, n);

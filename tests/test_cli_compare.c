@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Command-line tests of `splitlot compare` and `splitlot history`: the JSON
- * keys of DESIGN.md section 5, --only-flagged, --fail-on-flags (exit 3),
+ * keys of docs/formats.md, --only-flagged, --fail-on-flags (exit 3),
  * unknown lots and missing databases (exit 2, nothing created), and compare's
  * peak memory, which must not grow with the lot. The numbers themselves are
  * checked in test_analyze.c. Lots are simulated, invented data.
@@ -15,6 +15,8 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <sqlite3.h>
+
 #include "test_support.h"
 
 #define N_OF(a) (sizeof(a) / sizeof((a)[0]))
@@ -23,7 +25,9 @@
  *   DEMO-01   the demo plan, seed 11, the simulator's default 2 % faulty devices;
  *   CLEAN-01  the demo plan, seed 3, --fault-fraction 0: no device flagged
  *             (regression value: seed 3 also draws no shifted device);
- *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2. */
+ *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2;
+ *   DIFF-01   as CLEAN-01 but anneal-350 delivers 0.85e12: its interval
+ *             excludes the plan yet reaches inside the tolerance (differs). */
 static char *dir;
 
 static sl_run_result run_in(const char *const *argv) { return sl_test_run(dir, NULL, argv); }
@@ -68,6 +72,7 @@ static void setup(void)
     add_lot("DEMO-01", "11", "0.02", NULL);
     add_lot("CLEAN-01", "3", "0", NULL);
     add_lot("OFF-01", "3", "0", "anneal-350=0.2e12");
+    add_lot("DIFF-01", "3", "0", "anneal-350=0.85e12");
 }
 
 static void teardown(void)
@@ -127,23 +132,34 @@ static void has_keys(const char *row, const char *const *keys, size_t n)
 
 static void device_keys(const char *row)
 {
-    static const char *const keys[] = { "wafer", "device", "split", "cnp_predicted_V",
-                                        "cnp_measured_V", "deviation_V", "z",
-                                        "doping_measured_per_cm2", "flags" };
+    static const char *const keys[] = { "wafer", "device", "die_x", "die_y", "split",
+                                        "cnp_predicted_V", "cnp_measured_V", "deviation_V", "z",
+                                        "doping_measured_per_cm2", "flags", "measurements",
+                                        "mobility_cm2_per_Vs", "n0_per_cm2", "r_contact_ohm",
+                                        "hysteresis_V", "floor_predicted_per_cm2",
+                                        "channel_length_um", "channel_width_um" };
+    has_keys(row, keys, N_OF(keys));
+}
+
+static void run_keys(const char *row)
+{
+    static const char *const keys[] = { "run", "step", "temperature_K", "devices", "source",
+                                        "imported_utc" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void split_keys(const char *row)
 {
-    static const char *const keys[] = { "split", "devices", "usable", "cnp_predicted_V",
-                                        "cnp_mean_V", "cnp_ci95_V", "flagged" };
+    static const char *const keys[] = { "split", "devices", "usable", "wafers", "censored",
+                                        "cnp_predicted_V", "cnp_mean_V", "cnp_ci95_V", "flagged" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void effect_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "planned_per_cm2",
-                                        "estimated_per_cm2", "stderr_per_cm2", "flags" };
+                                        "estimated_per_cm2", "stderr_per_cm2", "df",
+                                        "ci95_per_cm2", "tolerance_per_cm2", "verdict", "flags" };
     has_keys(row, keys, N_OF(keys));
 }
 
@@ -216,6 +232,15 @@ START_TEST(test_fail_on_flags)
     ck_assert_int_eq(top_number(r.out, "flagged"), 0); /* regression value, seed 3 */
     ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 1);
     sl_run_result_free(&r);
+
+    /* nothing off-plan, one level that differs from plan: a flag as well */
+    r = compare_json("DIFF-01", "--fail-on-flags", 3);
+    ck_assert_int_eq(top_number(r.out, "flagged"), 0);          /* regression value, seed 3 */
+    ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 0);  /* estimate 8.27e11 +/- 5.4e10 */
+    ck_assert_int_eq(top_number(r.out, "levels_differing"), 1);
+    ck_assert(strstr(r.out, "\"level\": \"anneal-350\"") &&
+              strstr(r.out, "\"verdict\": \"differs\""));
+    sl_run_result_free(&r);
 }
 END_TEST
 
@@ -251,7 +276,7 @@ START_TEST(test_missing_database)
 }
 END_TEST
 
-/* The database from SPLITLOT_DB when --db is not given (DESIGN.md section 5). */
+/* The database from SPLITLOT_DB when --db is not given (docs/formats.md). */
 START_TEST(test_database_from_environment)
 {
     static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--format", "json", NULL };
@@ -263,7 +288,7 @@ START_TEST(test_database_from_environment)
     sl_run_result_free(&r);
     r = run_in(history);
     ck_assert_int_eq(r.exit_code, 0);
-    ck_assert_int_eq(top_number(r.out, "lots"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots"), 4);
     sl_run_result_free(&r);
     ck_assert_int_eq(setenv("SPLITLOT_DB", "elsewhere.db", 1), 0);
     r = run_in(compare);
@@ -303,7 +328,7 @@ START_TEST(test_table_and_csv)
     sl_run_result r = run_in(table);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert(strstr(r.out, "failure analysis, most severe first") != NULL);
-    ck_assert(strstr(r.out, "ANOVA of measured doping across 8 splits") != NULL);
+    ck_assert(strstr(r.out, "ANOVA of wafer-mean doping across 8 splits") != NULL);
     sl_run_result_free(&r);
     static const char *const csv[] = { "compare", "--lot", "DEMO-01", "--db", "t.db",
                                        "--format", "csv", NULL };
@@ -318,15 +343,16 @@ END_TEST
 static void level_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "lots", "planned_per_cm2",
-                                        "pooled_per_cm2", "pooled_stderr_per_cm2",
-                                        "center_per_cm2", "limits_per_cm2", "drift_lots" };
+                                        "pooled_per_cm2", "pooled_se_per_cm2",
+                                        "between_lot_sigma_per_cm2", "center_per_cm2",
+                                        "limits_per_cm2", "drift_lots" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void estimate_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "lot", "estimated_per_cm2",
-                                        "stderr_per_cm2", "flags" };
+                                        "stderr_per_cm2", "limits_per_cm2", "flags" };
     has_keys(row, keys, N_OF(keys));
 }
 
@@ -335,10 +361,10 @@ START_TEST(test_history_json_and_yaml)
     static const char *const json[] = { "history", "--db", "t.db", "--format", "json", NULL };
     sl_run_result r = run_in(json);
     ck_assert_int_eq(r.exit_code, 0);
-    ck_assert_int_eq(top_number(r.out, "lots"), 3);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots"), 4);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4);
     ck_assert_uint_eq(for_rows(r.out, "levels", level_keys), 4);
-    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 12); /* 4 levels x 3 lots */
+    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 16); /* 4 levels x 4 lots */
     sl_run_result_free(&r);
     static const char *const yaml[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
     r = run_in(yaml);
@@ -376,7 +402,8 @@ START_TEST(test_history_without_measurements)
     r = run_in(compare);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert_int_eq(top_number(r.out, "device_count"), 0);
-    ck_assert(strstr(r.out, "\"anova_F\": null") != NULL);
+    ck_assert(strstr(r.out, "\"anova\": {\"F\": null, \"df_between\": 0, \"df_within\": 0, "
+                            "\"p\": null}") != NULL);
     sl_run_result_free(&r);
     free(empty);
     free(plan);
@@ -439,6 +466,165 @@ static char *many_devices_db(const char *per_wafer)
  * in-memory analysis it replaced took about 1.2 kB more a device (16 MB more
  * here). A memory size, not a timing. Skipped under AddressSanitizer, whose
  * allocator holds freed blocks back for a while. */
+/* ---- the lot's record: plan revisions after measurement, stored predictions ---- */
+
+/* The demo plan as lot REV-01 with one line replaced (or none), in
+ * folder/rev.yaml; predict's run. */
+static sl_run_result predict_rev(const char *folder, const char *from, const char *to)
+{
+    char *demo_path = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *demo = sl_test_read_file(demo_path, NULL);
+    char *text = malloc(strlen(demo) + 256), *o = text;
+    const char *at = strstr(demo, "lot: DEMO-01\n");
+    o += sprintf(o, "%.*slot: REV-01\n", (int)(at - demo), demo);
+    const char *rest = at + strlen("lot: DEMO-01\n");
+    const char *hit = from ? strstr(rest, from) : NULL;
+    if (hit)
+        sprintf(o, "%.*s%s%s", (int)(hit - rest), rest, to, hit + strlen(from));
+    else
+        strcpy(o, rest);
+    char *plan = sl_test_path(folder, "rev.yaml");
+    ck_assert_int_eq(sl_test_write_file(plan, text), 0);
+    const char *argv[] = { "predict", "rev.yaml", "--db", "t.db", "--format", "csv", NULL };
+    sl_run_result r = sl_test_run(folder, NULL, argv);
+    free(plan);
+    free(text);
+    free(demo);
+    free(demo_path);
+    return r;
+}
+
+static char *compare_in(const char *folder, const char *lot)
+{
+    const char *argv[] = { "compare", "--lot", lot, "--db", "t.db", "--format", "json", NULL };
+    sl_run_result r = sl_test_run(folder, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "compare: %s", r.err);
+    free(r.err);
+    return r.out;
+}
+
+/* A revision that would move measured wafers (another seed reshuffles the
+ * wafers) is refused, naming them, and compare's output stays byte for
+ * byte; a revision that moves none (a new title) is stored and the next run
+ * is measured against it; compare reads the stored prediction, whatever the
+ * code would compute now. */
+START_TEST(test_plan_revisions_after_measurement)
+{
+    char *folder = sl_test_tmpdir();
+    sl_run_result r = predict_rev(folder, NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *simulate[] = { "simulate", "rev.yaml", "--out", "sim", "--seed", "3", NULL };
+    r = sl_test_run(folder, NULL, simulate);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    const char *ingest[] = { "ingest", "--lot", "REV-01", "--results", "sim/results.csv", "--db",
+                             "t.db", NULL };
+    r = sl_test_run(folder, NULL, ingest);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    char *before = compare_in(folder, "REV-01");
+
+    r = predict_rev(folder, "seed: 2026", "seed: 2027");
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "rev.yaml: error: lot 'REV-01' has measurements on ") &&
+                  strstr(r.err, " (alox20") && strstr(r.err, "a measured wafer keeps its split"),
+                  "%s", r.err);
+    ck_assert_str_eq(r.out, "");
+    sl_run_result_free(&r);
+    char *after = compare_in(folder, "REV-01");
+    ck_assert_str_eq(after, before);
+    free(after);
+
+    r = predict_rev(folder, "(invented)", "(invented, revised)");
+    ck_assert_msg(r.exit_code == 0 && strstr(r.err, "stored plan as revision 2"), "%s", r.err);
+    sl_run_result_free(&r);
+    after = compare_in(folder, "REV-01");
+    ck_assert_int_eq(top_number(after, "plan_revision"), 1); /* the run's revision */
+    free(after);
+    r = sl_test_run(folder, NULL, ingest);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    after = compare_in(folder, "REV-01");
+    ck_assert_int_eq(top_number(after, "plan_revision"), 2);
+    ck_assert_uint_eq(for_rows(after, "runs", run_keys), 4); /* two imports at 300 and 77 K */
+    free(after);
+
+    /* the stored prediction of revision 2 moved by +5 V: compare follows it */
+    char *db_path = sl_test_path(folder, "t.db");
+    sqlite3 *db = NULL;
+    ck_assert_int_eq(sqlite3_open(db_path, &db), SQLITE_OK);
+    ck_assert_int_eq(sqlite3_exec(db, "UPDATE prediction SET cnp_V = cnp_V + 5 WHERE split_id IN "
+                                      "(SELECT s.id FROM split s JOIN plan_revision r ON "
+                                      "r.id = s.revision_id WHERE r.revision = 2)",
+                                  NULL, NULL, NULL), SQLITE_OK);
+    sqlite3_close(db);
+    char *moved = compare_in(folder, "REV-01");
+    const char *p = strstr(before, "\"cnp_predicted_V\": "), *q = strstr(moved, "\"cnp_predicted_V\": ");
+    ck_assert(p && q);
+    double was = strtod(p + 19, NULL), now = strtod(q + 19, NULL);
+    ck_assert_msg(now - was > 4.999 && now - was < 5.001, "%g -> %g", was, now);
+    free(moved);
+    free(db_path);
+    free(before);
+    sl_test_rmtree(folder);
+    free(folder);
+}
+END_TEST
+
+/* compare in another view: the 77 K run of a re-probed lot, chosen by
+ * --temperature-K, and a temperature the plan lacks refused (exit 2). */
+START_TEST(test_compare_views)
+{
+    sl_run_result r = compare_json("DEMO-01", NULL, 0);
+    ck_assert(strstr(r.out, "\n  \"step\": \"final\",\n  \"temperature_K\": 300,\n") != NULL);
+    ck_assert_uint_eq(for_rows(r.out, "runs", run_keys), 2); /* 300 K and 77 K */
+    long warm = top_number(r.out, "device_count");
+    sl_run_result_free(&r);
+    r = compare_json("DEMO-01", "--temperature-K=4", 2);
+    ck_assert_msg(strstr(r.err, "4 K is not one of its plan's temperatures (300, 77 K)"), "%s", r.err);
+    sl_run_result_free(&r);
+    r = compare_json("DEMO-01", "--temperature-K=77", 0);
+    ck_assert(strstr(r.out, "\"temperature_K\": 77,\n") != NULL);
+    /* the simulated sweeps hold every device at both temperatures */
+    ck_assert_int_eq(top_number(r.out, "device_count"), warm);
+    sl_run_result_free(&r);
+    r = compare_json("DEMO-01", "--step=after-anneal", 0);
+    ck_assert(strstr(r.out, "\"step\": \"after-anneal\"") != NULL);
+    ck_assert_int_eq(top_number(r.out, "device_count"), 0);
+    sl_run_result_free(&r);
+}
+END_TEST
+
+/* history and report take the same view options and say which they used */
+START_TEST(test_history_and_report_views)
+{
+    const char *history[] = { "history", "--db", "t.db", "--format", "json", "--temperature-K",
+                              "77", NULL, NULL };
+    sl_run_result r = run_in(history);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert(strstr(r.out, "\"step\": \"\",\n  \"temperature_K\": 77,\n") != NULL);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4); /* every fixture lot has 77 K data */
+    sl_run_result_free(&r);
+    history[7] = "--step=after-anneal"; /* no lot measured after that step */
+    r = run_in(history);
+    ck_assert(strstr(r.out, "\"step\": \"after-anneal\",\n") != NULL);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 0);
+    sl_run_result_free(&r);
+    const char *report[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "v.html",
+                             "--no-history", "--step", "final", NULL };
+    r = run_in(report);
+    ck_assert_msg(r.exit_code == 0 && strstr(r.out, "measurements at step final, 300 K"), "%s%s",
+                  r.out, r.err);
+    sl_run_result_free(&r);
+    char *path = sl_test_path(dir, "v.html");
+    char *html = sl_test_read_file(path, NULL);
+    ck_assert(html && strstr(html, "<section id=\"runs\"") && strstr(html, "sim-CLEAN-01/sweeps.csv"));
+    free(html);
+    free(path);
+}
+END_TEST
+
 START_TEST(test_compare_memory_is_flat)
 {
 #ifdef SL_UNDER_ASAN
@@ -476,6 +662,9 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_history_json_and_yaml);
     tcase_add_test(tc, test_history_without_measurements);
     tcase_add_test(tc, test_compare_memory_is_flat);
+    tcase_add_test(tc, test_compare_views);
+    tcase_add_test(tc, test_history_and_report_views);
+    tcase_add_test(tc, test_plan_revisions_after_measurement);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -47,9 +47,12 @@ static void drop_dir(char *dir)
 }
 
 /* `splitlot simulate PLAN --out sim --seed N` inside dir, plus extra options. */
+/* Simulated files at the plan's first temperature (300 K) only: one sweep
+ * per device, as these tests expect. */
 static void simulate_into(const char *dir, const char *plan, const char *seed, const char *extra)
 {
-    const char *argv[] = { "simulate", plan, "--out", "sim", "--seed", seed, extra, NULL };
+    const char *argv[] = { "simulate", plan, "--out", "sim", "--seed", seed, "--temperature-K",
+                           "300", extra, NULL };
     sl_run_result r = sl_test_run(dir, NULL, argv);
     ck_assert_msg(r.exit_code == 0, "simulate: %s", r.err);
     sl_run_result_free(&r);
@@ -61,7 +64,7 @@ static sl_run_result ingest(const char *dir, const char *db, const char *kind, c
     char opt[32];
     snprintf(opt, sizeof opt, "--%s", kind);
     const char *argv[] = { "ingest", "--lot", "DEMO-01", opt, file, "--db", db,
-                           replace ? "--replace" : NULL, NULL };
+                           replace ? "--replace" : NULL, NULL }; /* --replace: refused */
     return sl_test_run(dir, stdin_text, argv);
 }
 
@@ -79,8 +82,9 @@ static int row_order(const void *a, const void *b)
     return c ? c : strcmp(x->name, y->name);
 }
 
-/* Every stored device of DEMO-01 in db, sorted by wafer and name, with sweeps. */
-static lot_devices load_lot(const char *db)
+/* The current measurement of every device of DEMO-01 in db at step final
+ * and temperature_K, sorted by wafer and name, with sweeps. */
+static lot_devices load_lot_at(const char *db, double temperature_K)
 {
     lot_devices L = { 0 };
     sl_diag *diag = sl_diag_new();
@@ -88,7 +92,8 @@ static lot_devices load_lot(const char *db)
     sl_store_lot lot;
     ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_store_find_lot(store, &lot, "DEMO-01", diag), SL_OK);
-    ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, diag), SL_OK);
+    ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, "final",
+                                           temperature_K, diag), SL_OK);
     qsort(L.rows, L.n, sizeof *L.rows, row_order);
     L.vg = calloc(L.n + 1, sizeof *L.vg);
     L.r = calloc(L.n + 1, sizeof *L.r);
@@ -102,6 +107,12 @@ static lot_devices load_lot(const char *db)
     sl_store_close(store);
     sl_diag_free(diag);
     return L;
+}
+
+/* The same at the demo plan's first temperature. */
+static lot_devices load_lot(const char *db)
+{
+    return load_lot_at(db, 300.0);
 }
 
 static void lot_devices_free(lot_devices *L)
@@ -176,7 +187,7 @@ static const bad_case bad_cases[] = {
     { "sweeps_die_changes_later.csv", "sweeps", "20:3",
       "device 'D001' on wafer 'W01' is at die (2, 0) here but at (0, 0) on line 2" },
     { "results_duplicate.csv", "results", "4:2",
-      "duplicate device 'D001' on wafer 'W01' (first on line 2)" },
+      "duplicate device 'D001' on wafer 'W01' at 300 K (first on line 2)" },
     { "sweeps_too_few_points.csv", "sweeps", "2", "has 7 points; a sweep needs at least 8" },
     { "sweeps_scattered_too_few.csv", "sweeps", "2", "has 7 points; a sweep needs at least 8" },
     { "sweeps_flat_gate.csv", "sweeps", "11",
@@ -264,11 +275,16 @@ START_TEST(bad_rows_in_simulated_file)
     size_t len = 0;
     char *text = sl_test_read_file(good, &len);
     ck_assert_ptr_nonnull(text);
-    /* line 50001 is a data row; replace its r_ohm by a bad token */
+    /* line 50001 is a data row; replace its r_ohm (before temperature_K) by
+     * a bad token */
     char *p = text;
     for (int line = 1; line < 50001; line++)
         p = strchr(p, '\n') + 1;
     char *end = strchr(p, '\n'), *comma = end;
+    while (comma[-1] != ',')
+        comma--;
+    end = comma - 1;
+    comma = end;
     while (comma[-1] != ',')
         comma--;
     char *bad = sl_test_path(dir, "bad.csv");
@@ -486,7 +502,7 @@ START_TEST(stdin_results_and_sweeps)
     lot_devices_free(&from_file);
 
     /* results through stdin: one row per line of results.csv (header aside) */
-    r = ingest(dir, "t.db", "results", "-", results, 1);
+    r = ingest(dir, "t.db", "results", "-", results, 0);
     ck_assert_msg(r.exit_code == 0, "%s", r.err);
     sl_run_result_free(&r);
     lot_devices L = load_lot(db);
@@ -495,7 +511,7 @@ START_TEST(stdin_results_and_sweeps)
     lot_devices_free(&L);
 
     /* a bad row on stdin is located as <stdin> */
-    r = ingest(dir, "t.db", "results", "-", "wafer,device,die_x,die_y,v_cnp_V\nW01,D001,0,0,x\n", 1);
+    r = ingest(dir, "t.db", "results", "-", "wafer,device,die_x,die_y,v_cnp_V\nW01,D001,0,0,x\n", 0);
     ck_assert_int_eq(r.exit_code, 2);
     ck_assert_str_eq(r.err, "<stdin>:2:5: error: bad number \"x\" in column v_cnp_V\n");
     sl_run_result_free(&r);
@@ -510,9 +526,38 @@ START_TEST(stdin_results_and_sweeps)
 }
 END_TEST
 
-/* ---- --replace ---- */
+/* ---- measurement runs: re-probes and temperatures ---- */
 
-START_TEST(replace_and_duplicate_import)
+/* Rows of the simulated results whose device is one of the first n, into a
+ * file (header kept) with v_cnp_V shifted by +1 V: a re-probe. */
+static void write_reprobe(const char *dir, const char *name, size_t n)
+{
+    char *src = sl_test_path(dir, "sim/results.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *out = malloc(strlen(text) + 64), *o = out;
+    char *line = strtok(text, "\n");
+    o += sprintf(o, "%s\n", line);
+    for (size_t i = 0; i < n && (line = strtok(NULL, "\n")); i++) {
+        char wafer[32], device[32];
+        long x, y;
+        double v;
+        int used = 0;
+        ck_assert_int_eq(sscanf(line, "%31[^,],%31[^,],%ld,%ld,%lf%n", wafer, device, &x, &y, &v,
+                                &used), 5);
+        o += sprintf(o, "%s,%s,%ld,%ld,%.6f%s\n", wafer, device, x, y, v + 1.0, line + used);
+    }
+    char *path = sl_test_path(dir, name);
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    free(path);
+    free(out);
+    free(text);
+    free(src);
+}
+
+/* Re-probing three devices keeps the lot whole: the three get a second
+ * measurement that wins, the earlier stays stored; --replace is gone and
+ * says what took its place; a failing import changes nothing. */
+START_TEST(reprobe_keeps_lot_whole)
 {
     char *dir = demo_dir();
     simulate_into(dir, DEMO_PLAN, "3", NULL);
@@ -522,51 +567,159 @@ START_TEST(replace_and_duplicate_import)
     char *db = sl_test_path(dir, "t.db");
     lot_devices first = load_lot(db);
 
-    /* again without --replace: refused, naming the device, nothing changed */
-    char *results = sl_test_path(dir, "sim/results.csv");
-    assert_refused(dir, results, "results", "2:2",
-                   "device 'D002' on wafer 'W01' is already stored for lot 'DEMO-01'");
-    char *sweeps = sl_test_path(dir, "sim/sweeps.csv");
-    assert_refused(dir, sweeps, "sweeps", "2",
-                   "on wafer 'W01' is already stored for lot 'DEMO-01' (use --replace");
-
-    /* --replace: the sweeps take the place of the results */
-    r = ingest(dir, "t.db", "sweeps", "sim/sweeps.csv", NULL, 1);
+    write_reprobe(dir, "reprobe.csv", 3);
+    r = ingest(dir, "t.db", "results", "reprobe.csv", NULL, 0);
     ck_assert_msg(r.exit_code == 0, "%s", r.err);
-    char expect[64];
-    snprintf(expect, sizeof expect, "devices_replaced: %zu\n", first.n);
-    ck_assert_msg(strstr(r.out, expect) != NULL, "%s", r.out);
+    ck_assert_msg(strstr(r.out, "devices: 3\n") != NULL, "%s", r.out);
     sl_run_result_free(&r);
     lot_devices second = load_lot(db);
-    ck_assert_uint_eq(second.n, first.n); /* the same probed devices, now from their sweeps */
-    for (size_t i = 0; i < second.n; i++)
-        ck_assert_str_eq(second.rows[i].source, "sweeps");
+    ck_assert_uint_eq(second.n, first.n);
+    size_t moved = 0;
+    for (size_t i = 0; i < second.n; i++) {
+        ck_assert_str_eq(second.rows[i].name, first.rows[i].name);
+        if (second.rows[i].measurements == 2) {
+            ck_assert_double_eq_tol(second.rows[i].cnp_V, first.rows[i].cnp_V + 1.0, 1e-6);
+            moved++;
+        } else {
+            ck_assert(second.rows[i].cnp_V == first.rows[i].cnp_V ||
+                      (isnan(second.rows[i].cnp_V) && isnan(first.rows[i].cnp_V)));
+        }
+    }
+    ck_assert_uint_eq(moved, 3);
 
-    /* a failing --replace keeps the old measurements */
+    r = ingest(dir, "t.db", "results", "reprobe.csv", NULL, 1);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "--replace is gone") != NULL, "%s", r.err);
+    sl_run_result_free(&r);
+    /* the sweeps of every device: a later run, which wins for every device */
+    r = ingest(dir, "t.db", "sweeps", "sim/sweeps.csv", NULL, 0);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    lot_devices third = load_lot(db);
+    ck_assert_uint_eq(third.n, first.n);
+    for (size_t i = 0; i < third.n; i++)
+        ck_assert_str_eq(third.rows[i].source, "sweeps");
+
+    /* a failing import keeps the database as it was */
     char *bad = sl_test_data("ingest/bad/results_nan.csv");
     char *copy = sl_test_path(dir, "copy.db");
     ck_assert_int_eq(sl_test_copy_file(db, copy), 0);
-    r = ingest(dir, "t.db", "results", bad, NULL, 1);
+    r = ingest(dir, "t.db", "results", bad, NULL, 0);
     ck_assert_int_eq(r.exit_code, 2);
     ck_assert(sl_test_files_equal(db, copy));
     sl_run_result_free(&r);
-    lot_devices third = load_lot(db);
-    assert_same_devices(&second, &third, "after failed replace");
 
     lot_devices_free(&first);
     lot_devices_free(&second);
     lot_devices_free(&third);
     free(bad);
     free(copy);
-    free(results);
-    free(sweeps);
     free(db);
     drop_dir(dir);
 }
 END_TEST
 
-/* A new plan revision has new wafer rows: devices stored under the old one
- * are still the same devices of the same wafers. */
+/* Two temperatures: in one results file (one run each, one transaction),
+ * by --temperature-K in a second file, and in one sweeps file, where each
+ * device's curves at the two temperatures are fitted apart; a temperature
+ * the plan does not list is refused at its line, naming the plan's. */
+START_TEST(two_temperatures)
+{
+    char *dir = demo_dir();
+    char *db = sl_test_path(dir, "t.db");
+    char *both = sl_test_path(dir, "both.csv");
+    ck_assert_int_eq(sl_test_write_file(both, "wafer,device,die_x,die_y,v_cnp_V,temperature_K\n"
+                                              "W01,A,0,0,1.5,300\nW01,A,0,0,2.5,77\n"
+                                              "W01,B,1,0,1.0,300.2\n"), 0);
+    sl_run_result r = ingest(dir, "t.db", "results", "both.csv", NULL, 0);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert_msg(strstr(r.out, "devices: 3\n") != NULL, "%s", r.out);
+    sl_run_result_free(&r);
+    lot_devices warm = load_lot_at(db, 300.0), cold = load_lot_at(db, 77.0);
+    ck_assert(warm.n == 2 && warm.rows[0].cnp_V == 1.5 && warm.rows[1].cnp_V == 1.0);
+    ck_assert(cold.n == 1 && cold.rows[0].cnp_V == 2.5 && cold.rows[0].temperature_K == 77.0);
+    lot_devices_free(&warm);
+    lot_devices_free(&cold);
+
+    char *second = sl_test_path(dir, "cold.csv");
+    ck_assert_int_eq(sl_test_write_file(second, "wafer,device,die_x,die_y,v_cnp_V\nW01,B,1,0,2.0\n"),
+                     0);
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--results", "cold.csv", "--db", "t.db",
+                           "--temperature-K", "77", NULL };
+    r = sl_test_run(dir, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    cold = load_lot_at(db, 77.0);
+    ck_assert(cold.n == 2 && cold.rows[1].cnp_V == 2.0);
+    lot_devices_free(&cold);
+
+    char *bad = sl_test_path(dir, "four.csv");
+    ck_assert_int_eq(sl_test_write_file(bad, "wafer,device,die_x,die_y,v_cnp_V,temperature_K\n"
+                                             "W01,C,2,0,1.5,300\nW01,D,3,0,1.5,4\n"), 0);
+    assert_refused(dir, bad, "results", "3:6",
+                   "temperature '4' is not one of the plan's temperatures (300, 77 K)");
+    const char *argv_bad[] = { "ingest", "--lot", "DEMO-01", "--results", "cold.csv", "--db",
+                               "t.db", "--temperature-K", "4", NULL };
+    r = sl_test_run(dir, NULL, argv_bad);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "temperature 4 K is not one of lot 'DEMO-01''s plan temperatures "
+                                "(300, 77 K)") != NULL, "%s", r.err);
+    sl_run_result_free(&r);
+
+    /* sweeps: the simulated sweeps of the first devices at 300 K, and the
+     * same rows again marked 77 K with the gate shifted by 2 V */
+    simulate_into(dir, DEMO_PLAN, "5", NULL);
+    char *src = sl_test_path(dir, "sim/sweeps.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *out = malloc(3 * strlen(text) + 64), *o = out;
+    char *save = NULL, *line = strtok_r(text, "\n", &save);
+    o += sprintf(o, "wafer,device,die_x,die_y,vg_V,r_ohm,temperature_K\n");
+    char *rows[2000];
+    size_t n = 0;
+    while (n < 2000 && (line = strtok_r(NULL, "\n", &save)) && strncmp(line, "W01,", 4) == 0)
+        rows[n++] = line;
+    for (int pass = 0; pass < 2; pass++)
+        for (size_t i = 0; i < n; i++) {
+            char wafer[16], device[16];
+            long x, y;
+            double vg, ohm;
+            ck_assert_int_eq(sscanf(rows[i], "%15[^,],%15[^,],%ld,%ld,%lf,%lf", wafer, device, &x,
+                                    &y, &vg, &ohm), 6);
+            o += sprintf(o, "%s,S%s,%ld,%ld,%.4f,%.3f,%s\n", wafer, device, x, y,
+                         pass ? vg + 2.0 : vg, ohm, pass ? "77" : "300");
+        }
+    char *sweeps = sl_test_path(dir, "sweeps2.csv");
+    ck_assert_int_eq(sl_test_write_file(sweeps, out), 0);
+    r = ingest(dir, "t.db", "sweeps", "sweeps2.csv", NULL, 0);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    warm = load_lot_at(db, 300.0);
+    cold = load_lot_at(db, 77.0);
+    size_t pairs = 0;
+    for (size_t i = 0; i < warm.n; i++)
+        for (size_t k = 0; k < cold.n; k++)
+            if (warm.rows[i].name[0] == 'S' && strcmp(warm.rows[i].name, cold.rows[k].name) == 0 &&
+                strcmp(warm.rows[i].fit_class, "ok") == 0) {
+                /* each fit saw its own curve: the same device 2 V apart */
+                ck_assert_double_eq_tol(cold.rows[k].cnp_V - warm.rows[i].cnp_V, 2.0, 1e-3);
+                ck_assert_uint_eq(warm.n_points[i], cold.n_points[k]);
+                pairs++;
+            }
+    ck_assert_uint_gt(pairs, 0);
+    lot_devices_free(&warm);
+    lot_devices_free(&cold);
+    free(sweeps);
+    free(out);
+    free(text);
+    free(src);
+    free(bad);
+    free(second);
+    free(both);
+    free(db);
+    drop_dir(dir);
+}
+END_TEST
+
 START_TEST(duplicate_across_plan_revisions)
 {
     char *dir = demo_dir();
@@ -587,10 +740,8 @@ START_TEST(duplicate_across_plan_revisions)
     sl_run_result_free(&r);
 
     char *results = sl_test_path(dir, "sim/results.csv");
-    assert_refused(dir, results, "results", "2:2",
-                   "device 'D002' on wafer 'W01' is already stored for lot 'DEMO-01'");
-    /* --replace takes them all again, once */
-    r = ingest(dir, "t.db", "results", "sim/results.csv", NULL, 1);
+    /* imported again under revision 2: a re-probe of every device */
+    r = ingest(dir, "t.db", "results", "sim/results.csv", NULL, 0);
     ck_assert_int_eq(r.exit_code, 0);
     sl_run_result_free(&r);
     char *db = sl_test_path(dir, "t.db");
@@ -658,7 +809,7 @@ START_TEST(results_edge_rows)
     char text[512];
     snprintf(text, sizeof text,
              "wafer,device,die_x,die_y,v_cnp_V,temperature_K\n"
-             "W01,%s,1.0,0, 0.5 ,77\n"          /* longest name, die as 1.0, padded number */
+             "W01,%s,1.0,0, 0.5 ,300.0\n"       /* longest name, die as 1.0, padded number */
              "W01,D2,2,0,,300\n"                 /* probed, no neutrality point */
              "\"W02\",\"D,3\",0,0,1e-1,\n",     /* quoted, comma in a name, no temperature */
              name64);
@@ -677,10 +828,10 @@ START_TEST(results_edge_rows)
     ck_assert_str_eq(L.rows[1].name, name64);
     ck_assert_int_eq(L.rows[1].die_x, 1);
     ck_assert_double_eq(L.rows[1].cnp_V, 0.5);
-    ck_assert_double_eq(L.rows[1].temperature_K, 77.0);
+    ck_assert_double_eq(L.rows[1].temperature_K, 300.0);
     ck_assert_str_eq(L.rows[2].name, "D,3");
     ck_assert_double_eq(L.rows[2].cnp_V, 0.1);
-    ck_assert(isnan(L.rows[2].temperature_K));
+    ck_assert_double_eq(L.rows[2].temperature_K, 300.0); /* no value: the plan's first */
     ck_assert_int_eq(L.rows[2].n_points, 0);
     lot_devices_free(&L);
 
@@ -724,7 +875,7 @@ static const char quality_plan[] =
     "devices_per_wafer: 64\n"
     "seed: 99\n";
 
-/* SiO2 90 nm, eps 3.9 (DESIGN.md table): C_g = 8.8541878128e-12 * 3.9 / 90e-9
+/* SiO2 90 nm, eps 3.9 (docs/physics.md, built-in materials): C_g = 8.8541878128e-12 * 3.9 / 90e-9
  * = 3.83681e-4 F/m^2 = 38.3681 nF/cm^2 (hand arithmetic). */
 #define OX90_NF_PER_CM2 38.36814719
 
@@ -860,9 +1011,9 @@ static void tally_split(density_tally *t, const char *db_path, const char *truth
     ck_assert_int_eq(sqlite3_open_v2(db_path, &db, SQLITE_OPEN_READONLY, NULL), SQLITE_OK);
     sqlite3_stmt *q = NULL;
     ck_assert_int_eq(sqlite3_prepare_v2(db,
-        "SELECT d.mobility_cm2_per_Vs, d.n0_per_cm2, d.r_contact_ohm, d.fit_model "
-        "FROM device d JOIN wafer w ON w.id = d.wafer_id "
-        "WHERE w.name = ?1 AND d.name = ?2 AND d.fit_class = 'ok'", -1, &q, NULL), SQLITE_OK);
+        "SELECT m.mobility_cm2_per_Vs, m.n0_per_cm2, m.r_contact_ohm, m.fit_model "
+        "FROM device d JOIN measurement m ON m.device_id = d.id "
+        "WHERE d.wafer = ?1 AND d.name = ?2 AND m.fit_class = 'ok'", -1, &q, NULL), SQLITE_OK);
     char *copy = strdup(truth_text);
     char *save = NULL;
     for (char *line = strtok_r(copy, "\n", &save); line; line = strtok_r(NULL, "\n", &save)) {
@@ -983,7 +1134,12 @@ START_TEST(library_summary_counts)
     sl_ingest_options opt = { .lot = "DEMO-01", .path = sweeps, .kind = SL_INGEST_SWEEPS,
                               .threads = 2 };
     sl_ingest_summary sum;
+    /* what the caller collected before stays: the library never clears it */
+    sl_diag_add(diag, SL_SEV_WARNING, "earlier.yaml", 3, 1, "a warning of the caller's");
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_OK);
+    ck_assert_uint_eq(sl_diag_size(diag), 1);
+    ck_assert_str_eq(sl_diag_get(diag, 0)->text, "a warning of the caller's");
+    sl_diag_clear(diag);
     /* 201 points per probed device (simulate's default) */
     ck_assert_int_eq(sum.rows, 201 * sum.devices);
     long classes = 0;
@@ -995,23 +1151,28 @@ START_TEST(library_summary_counts)
     ck_assert_int_eq(sl_store_find_lot(store, &lot, "DEMO-01", diag), SL_OK);
     ck_assert_int_eq(sl_store_count_devices(store, &stored, lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(stored, sum.devices);
-    /* the import is on record with its counts */
+    /* the import is on record as a run with its counts and the file's SHA-256 */
     sqlite3_stmt *q = NULL;
     ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "SELECT kind, rows, devices, source_name FROM import", -1,
+                                        "SELECT kind, rows, devices, source_name, step, "
+                                        "temperature_K, source_sha256 FROM measurement_run", -1,
                                         &q, NULL), SQLITE_OK);
     ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
     ck_assert_str_eq((const char *)sqlite3_column_text(q, 0), "sweeps");
     ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.rows);
     ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
     ck_assert_str_eq((const char *)sqlite3_column_text(q, 3), sweeps);
+    ck_assert_str_eq((const char *)sqlite3_column_text(q, 4), "final");
+    ck_assert_double_eq(sqlite3_column_double(q, 5), 300.0);
+    ck_assert_str_eq((const char *)sqlite3_column_text(q, 6), sum.sha256);
     ck_assert_int_eq(sqlite3_step(q), SQLITE_DONE);
     sqlite3_finalize(q);
+    ck_assert_uint_eq(sum.n_runs, 1);
     /* each device knows the line of its first row: 2, 203, 404, ... in a
      * simulated file, whose devices come one after another */
     ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
                                         "SELECT min(source_line), count(*), "
-                                        "sum((source_line - 2) % 201 = 0) FROM device", -1, &q,
+                                        "sum((source_line - 2) % 201 = 0) FROM measurement", -1, &q,
                                         NULL), SQLITE_OK);
     ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
     ck_assert_int_eq(sqlite3_column_int64(q, 0), 2);
@@ -1041,7 +1202,8 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, bad_rows_in_simulated_file);
     tcase_add_test(tc, csv_variants_store_identical_devices);
     tcase_add_test(tc, stdin_results_and_sweeps);
-    tcase_add_test(tc, replace_and_duplicate_import);
+    tcase_add_test(tc, reprobe_keeps_lot_whole);
+    tcase_add_test(tc, two_temperatures);
     tcase_add_test(tc, duplicate_across_plan_revisions);
     tcase_add_test(tc, unknown_lot_and_usage);
     tcase_add_test(tc, results_edge_rows);

@@ -24,6 +24,7 @@
 #include "splitlot/plan.h"
 #include "splitlot/predict.h"
 #include "splitlot/store.h"
+#include "sha256.h"
 #include "store_internal.h"
 #include "test_support.h"
 
@@ -95,7 +96,8 @@ START_TEST(open_creates_schema)
     ck_assert_int_eq(query_long(store, "PRAGMA foreign_keys"), 1);
     ck_assert_int_eq(query_long(store, "SELECT count(*) FROM sqlite_master WHERE type = 'table' "
                                        "AND name IN ('lot', 'plan_revision', 'split', 'wafer', "
-                                       "'prediction', 'device', 'sweep', 'import')"), 8);
+                                       "'prediction', 'device', 'sweep', 'measurement_run', "
+                                       "'measurement', 'wafer_load')"), 10);
     /* foreign keys are enforced: a revision of a lot that does not exist */
     ck_assert_int_ne(sqlite3_exec(sl_store_db(store),
                                   "INSERT INTO plan_revision (lot_id, revision, plan_hash, plan_text, "
@@ -204,7 +206,7 @@ static int readonly_check(const char *db)
         st = sl_store_begin(store, diag);
     /* in WAL mode the transaction may start; the first write must fail */
     if (st == SL_OK)
-        st = sl_store_record_import(store, 1, "results", "ro.csv", 0, 0, diag);
+        st = sl_store_add_run(store, &(long){ 0 }, 1, 1, "final", 300.0, "results", "ro.csv", diag);
     if (st == SL_EDB && strstr(sl_diag_last(diag), "read-only"))
         rc = 0;
     else if (st == SL_OK)
@@ -361,7 +363,7 @@ typedef struct {
     char *dir, *db;
     sl_store *store;
     sl_store_lot lot;
-    long wafer_id;
+    long run_id;                 /* a run of the lot: step final, 300 K */
     planned p;
 } stored_demo;
 
@@ -377,9 +379,10 @@ static stored_demo demo_store(void)
     save(s.store, &s.p, 1, 1);
     sl_diag *diag = sl_diag_new();
     ck_assert_int_eq(sl_store_find_lot(s.store, &s.lot, "DEMO-01", diag), SL_OK);
-    ck_assert_int_eq(sl_store_wafer_id(s.store, &s.wafer_id, s.lot.revision_id, "W01"), SL_OK);
-    ck_assert_int_eq(sl_store_wafer_id(s.store, &(long){ 0 }, s.lot.revision_id, "W99"),
-                     SL_ENOTFOUND);
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_add_run(s.store, &s.run_id, s.lot.lot_id, s.lot.revision_id, "final",
+                                      300.0, "sweeps", "demo.csv", diag), SL_OK);
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
     sl_diag_free(diag);
     return s;
 }
@@ -393,15 +396,32 @@ static void demo_store_free(stored_demo *s)
     drop_dir(s->dir);
 }
 
-static sl_store_device device_named(long wafer_id, const char *name)
+static sl_store_device device_named(const char *wafer, const char *name)
 {
-    sl_store_device d = { .wafer_id = wafer_id, .name = name, .die_x = 2, .die_y = 3,
-                          .source = "sweeps", .fit_class = "ok", .temperature_K = 300.0,
-                          .cnp_V = 1.25, .cnp_sigma_V = NAN, .mobility_cm2_per_Vs = 2100.0,
-                          .mobility_sigma_cm2_per_Vs = NAN, .n0_per_cm2 = 1.5e11,
-                          .n0_sigma_per_cm2 = NAN, .r_contact_ohm = 0.0,
-                          .r_contact_sigma_ohm = NAN, .rel_rms = NAN, .r_squared = NAN };
+    sl_store_device d;
+    sl_store_device_init(&d);
+    d.wafer = wafer;
+    d.name = name;
+    d.die_x = 2;
+    d.die_y = 3;
+    d.source = "sweeps";
+    d.fit_class = "ok";
+    d.cnp_V = 1.25;
+    d.mobility_cm2_per_Vs = 2100.0;
+    d.n0_per_cm2 = 1.5e11;
+    d.r_contact_ohm = 0.0;
     return d;
+}
+
+/* Insert a measurement that must be added; its id. */
+static long insert_added(sl_store *store, long lot_id, long run_id, const sl_store_device *d)
+{
+    sl_diag *diag = sl_diag_new();
+    sl_store_insert ins;
+    ck_assert_int_eq(sl_store_insert_measurement(store, &ins, lot_id, run_id, d, diag), SL_OK);
+    ck_assert_int_eq(ins.outcome, SL_STORE_ADDED);
+    sl_diag_free(diag);
+    return ins.measurement_id;
 }
 
 START_TEST(sweep_round_trip_exact)
@@ -414,13 +434,12 @@ START_TEST(sweep_round_trip_exact)
                          3.0e10, 7.0, 2.5e-310, 1e22 };
     const size_t n = sizeof vg / sizeof vg[0];
     sl_diag *diag = sl_diag_new();
-    sl_store_device d = device_named(s.wafer_id, "D007");
+    sl_store_device d = device_named("W01", "D007");
     d.vg_V = vg;
     d.r_ohm = r;
     d.n_points = n;
-    long id = 0;
     ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_insert_device(s.store, &id, s.lot.lot_id, &d, diag), SL_OK);
+    long id = insert_added(s.store, s.lot.lot_id, s.run_id, &d);
     ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
     ck_assert_int_gt(id, 0);
 
@@ -439,7 +458,7 @@ START_TEST(sweep_round_trip_exact)
      * 0x8000000000000000, so the last of its bytes 2..9 is 0x80 */
     sqlite3_stmt *st = NULL;
     ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(s.store),
-                                        "SELECT points FROM sweep WHERE device_id = ?1", -1, &st,
+                                        "SELECT points FROM sweep WHERE measurement_id = ?1", -1, &st,
                                         NULL), SQLITE_OK);
     sqlite3_bind_int64(st, 1, id);
     ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
@@ -455,7 +474,8 @@ START_TEST(sweep_round_trip_exact)
     /* NaN numbers come back as NaN (stored NULL); the row as inserted */
     sl_store_device_row *rows = NULL;
     size_t count = 0;
-    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &count, s.lot.lot_id, diag), SL_OK);
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &count, s.lot.lot_id, "final", 300.0,
+                                           diag), SL_OK);
     ck_assert_uint_eq(count, 1);
     ck_assert_str_eq(rows[0].wafer, "W01");
     ck_assert_str_eq(rows[0].name, "D007");
@@ -474,60 +494,101 @@ START_TEST(sweep_round_trip_exact)
 }
 END_TEST
 
-START_TEST(duplicate_device_is_input_error)
+/* A device keeps every measurement: the same device twice in one run is
+ * told apart from a re-probe in a later run (which wins for the view, the
+ * earlier staying stored), from a device at another die and from the same
+ * name on another wafer; a later plan revision's W01 is the same wafer. */
+START_TEST(measurements_reprobes_and_identity)
 {
     stored_demo s = demo_store();
     sl_diag *diag = sl_diag_new();
-    sl_store_device d = device_named(s.wafer_id, "D001");
+    sl_store_device d = device_named("W01", "D001");
+    sl_store_insert ins;
     ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_OK);
-    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_EINPUT);
-    ck_assert_msg(strstr(sl_diag_last(diag), "duplicate device 'D001'") != NULL, "%s",
-                  sl_diag_last(diag));
-    /* the same name on another wafer is another device */
-    long w2 = 0;
-    ck_assert_int_eq(sl_store_wafer_id(s.store, &w2, s.lot.revision_id, "W02"), SL_OK);
-    d.wafer_id = w2;
-    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    long first = insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    d.cnp_V = 9.0;
+    ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &d, diag),
+                     SL_OK);
+    ck_assert_int_eq(ins.outcome, SL_STORE_IN_RUN);
+    ck_assert_int_eq(ins.measurement_id, first);
+    d.die_x = 4;
+    ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &d, diag),
+                     SL_OK);
+    ck_assert_int_eq(ins.outcome, SL_STORE_DIE_DIFFERS);
+    ck_assert(ins.die_x == 2 && ins.die_y == 3 && ins.run_id == s.run_id);
+    d.die_x = 2;
+    d.wafer = "W02"; /* the same name on another wafer is another device */
+    insert_added(s.store, s.lot.lot_id, s.run_id, &d);
     ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
     long count = 0;
     ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(count, 2);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 2);
 
-    /* a new plan revision has new wafer rows, but W01 is still W01 */
+    /* a new plan revision has new wafer rows, but W01 is still W01: a
+     * re-probe in a later run of the same step and temperature wins, the
+     * first measurement stays */
     char *text = sl_test_read_file(DEMO_PLAN, NULL);
     memcpy(strstr(text, "(invented)"), "(Invented)", 10);
     planned b = plan_text(text);
     save(s.store, &b, 2, 1);
-    sl_store_lot lot2;
-    long w1_rev2 = 0;
-    ck_assert_int_eq(sl_store_find_lot(s.store, &lot2, "DEMO-01", diag), SL_OK);
-    ck_assert_int_eq(sl_store_wafer_id(s.store, &w1_rev2, lot2.revision_id, "W01"), SL_OK);
-    ck_assert_int_ne(w1_rev2, s.wafer_id);
-    d.wafer_id = w1_rev2;
+    long run2 = 0, run77 = 0;
     ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_EINPUT);
-    d.name = "D005";
-    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_OK);
-    sl_store_rollback(s.store);
-    d.name = "D001";
-    sl_store_lot_clear(&lot2);
+    ck_assert_int_eq(sl_store_add_run(s.store, &run2, s.lot.lot_id, s.lot.revision_id, "final",
+                                      300.0, "results", "again.csv", diag), SL_OK);
+    ck_assert_int_eq(sl_store_add_run(s.store, &run77, s.lot.lot_id, s.lot.revision_id, "final",
+                                      77.0, "results", "cold.csv", diag), SL_OK);
+    d.wafer = "W01";
+    d.cnp_V = 3.5;
+    long second = insert_added(s.store, s.lot.lot_id, run2, &d);
+    d.cnp_V = 7.5;
+    insert_added(s.store, s.lot.lot_id, run77, &d);
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_OK);
+    ck_assert_int_eq(count, 2);
+    sl_store_device_row *rows = NULL;
+    size_t n = 0;
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, "final", 300.0, diag),
+                     SL_OK);
+    ck_assert_uint_eq(n, 2);
+    ck_assert(strcmp(rows[0].wafer, "W01") == 0 && rows[0].id == second);
+    ck_assert(rows[0].cnp_V == 3.5 && rows[0].measurements == 2 && rows[0].run_id == run2);
+    ck_assert(strcmp(rows[1].wafer, "W02") == 0 && rows[1].measurements == 1);
+    free(rows);
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, "final", 77.0, diag),
+                     SL_OK);
+    ck_assert(n == 1 && rows[0].cnp_V == 7.5 && rows[0].temperature_K == 77.0);
+    free(rows);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement_view WHERE current"), 3);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 4);
+    /* runs listed oldest first; a finished run counts its devices, an empty one goes */
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    long devices = -1, run_empty = 0;
+    ck_assert_int_eq(sl_store_finish_run(s.store, run2, 1, NULL, &devices, diag), SL_OK);
+    ck_assert_int_eq(devices, 1);
+    ck_assert_int_eq(sl_store_add_run(s.store, &run_empty, s.lot.lot_id, s.lot.revision_id,
+                                      "final", 300.0, "results", "none.csv", diag), SL_OK);
+    ck_assert_int_eq(sl_store_finish_run(s.store, run_empty, 0, NULL, &devices, diag), SL_OK);
+    ck_assert_int_eq(devices, 0);
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
+    sl_store_run *runs = NULL;
+    ck_assert_int_eq(sl_store_list_runs(s.store, &runs, &n, s.lot.lot_id, diag), SL_OK);
+    ck_assert_uint_eq(n, 3);
+    ck_assert(runs[0].id == s.run_id && runs[1].id == run2 && runs[2].id == run77);
+    ck_assert(runs[1].devices == 1 && runs[1].revision == 1 && runs[2].temperature_K == 77.0);
+    ck_assert_str_eq(runs[1].source_name, "again.csv");
+    sl_store_runs_free(runs, n);
     planned_free(&b);
     free(text);
     /* rolled back inserts leave nothing */
     d.name = "D002";
     ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_insert_device(s.store, NULL, s.lot.lot_id, &d, diag), SL_OK);
+    insert_added(s.store, s.lot.lot_id, s.run_id, &d);
     sl_store_rollback(s.store);
     ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(count, 2);
-    /* delete_measurements removes devices and their sweeps */
-    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_delete_measurements(s.store, s.lot.lot_id, diag), SL_OK);
-    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_OK);
-    ck_assert_int_eq(count, 0);
-    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM sweep"), 0);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
     sl_diag_free(diag);
     demo_store_free(&s);
 }
@@ -835,12 +896,8 @@ END_TEST
 /* A stored device without a sweep; its id. */
 static long device_without_sweep(stored_demo *s, const char *name)
 {
-    sl_diag *diag = sl_diag_new();
-    sl_store_device d = device_named(s->wafer_id, name);
-    long id = 0;
-    ck_assert_int_eq(sl_store_insert_device(s->store, &id, s->lot.lot_id, &d, diag), SL_OK);
-    sl_diag_free(diag);
-    return id;
+    sl_store_device d = device_named("W01", name);
+    return insert_added(s->store, s->lot.lot_id, s->run_id, &d);
 }
 
 static void put_sweep_row(sl_store *store, long device_id, long n_points, const void *blob,
@@ -848,7 +905,7 @@ static void put_sweep_row(sl_store *store, long device_id, long n_points, const 
 {
     sqlite3_stmt *st = NULL;
     ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "INSERT OR REPLACE INTO sweep (device_id, n_points, points) "
+                                        "INSERT OR REPLACE INTO sweep (measurement_id, n_points, points) "
                                         "VALUES (?1, ?2, ?3)", -1, &st, NULL), SQLITE_OK);
     sqlite3_bind_int64(st, 1, device_id);
     sqlite3_bind_int64(st, 2, n_points);
@@ -913,7 +970,7 @@ START_TEST(damaged_sweep_is_a_database_error)
     put_sweep_row(s.store, id, 201, blob, (int)bytes - 5); /* truncated */
     message = load_damaged(s.store, id);
     snprintf(expected, sizeof expected,
-             "sweep of device %ld is damaged: it ends early (%zu bytes for 201 points)", id,
+             "sweep of measurement %ld is damaged: it ends early (%zu bytes for 201 points)", id,
              bytes - 5);
     ck_assert_str_eq(message, expected);
     free(message);
@@ -964,15 +1021,13 @@ static void add_device(const stored_demo *s, sl_store *store, const char *wafer,
                        long die_x, long die_y, const char *fit_class, double cnp_V)
 {
     sl_diag *diag = sl_diag_new();
-    long wafer_id = 0;
-    ck_assert_int_eq(sl_store_wafer_id(store, &wafer_id, s->lot.revision_id, wafer), SL_OK);
-    sl_store_device d = device_named(wafer_id, name);
+    sl_store_device d = device_named(wafer, name);
     d.die_x = die_x;
     d.die_y = die_y;
     d.fit_class = fit_class;
     d.cnp_V = cnp_V;
     ck_assert_int_eq(sl_store_begin(store, diag), SL_OK);
-    ck_assert_int_eq(sl_store_insert_device(store, NULL, s->lot.lot_id, &d, diag), SL_OK);
+    insert_added(store, s->lot.lot_id, s->run_id, &d);
     ck_assert_int_eq(sl_store_commit(store, diag), SL_OK);
     sl_diag_free(diag);
 }
@@ -1004,12 +1059,13 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     add_device(&s, s.store, "W02", "A", 0, 0, "short", NAN);
     sl_store_device_row *rows = NULL;
     size_t n = 0;
-    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, diag), SL_OK);
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, "final", 300.0, diag), SL_OK);
     ck_assert_uint_eq(n, 5);
     long cache_before = query_long(s.store, "PRAGMA cache_size");
 
     sl_store_scratch *x = NULL;
     ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_view(x, s.lot.lot_id, "final", 300.0, diag), SL_OK);
     ck_assert_int_eq(sl_store_scratch_keep_wafer(x, s.lot.lot_id, "W01", 7, 1, diag), SL_OK);
     sl_store *other = open_ok(s.db);
     add_device(&s, other, "W02", "Z", 5, 5, "ok", 9.0);
@@ -1067,13 +1123,231 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
                                          "(SELECT count(*) FROM temp.sl_scratch_value) + "
                                          "(SELECT count(*) FROM temp.sl_scratch_rank)"), 0);
     free(rows);
-    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, diag), SL_OK);
+    ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, "final", 300.0, diag), SL_OK);
     ck_assert_uint_eq(n, 7); /* the other connection's devices, now the scratch is gone */
     ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
     sl_store_scratch_close(x);
     free(rows);
     sl_diag_free(diag);
     demo_store_free(&s);
+}
+END_TEST
+
+/* ---- the schema migration from version 3 ---- */
+
+/* One CSV line of a dump (no quoted commas in these dumps) split in place. */
+static size_t split_fields(char *line, char **fields, size_t max)
+{
+    size_t n = 0;
+    for (char *p = line; n < max; n++) {
+        fields[n] = p;
+        char *comma = strchr(p, ',');
+        if (!comma) {
+            n++;
+            break;
+        }
+        *comma = '\0';
+        p = comma + 1;
+    }
+    return n;
+}
+
+/* A dumped number to 17 digits against a stored REAL ("NULL" for NULL). */
+static void check_real(sqlite3_stmt *st, int col, const char *want, const char *what)
+{
+    if (strcmp(want, "NULL") == 0)
+        ck_assert_msg(sqlite3_column_type(st, col) == SQLITE_NULL, "%s: not NULL", what);
+    else
+        ck_assert_msg(sqlite3_column_type(st, col) != SQLITE_NULL &&
+                      sqlite3_column_double(st, col) == strtod(want, NULL),
+                      "%s: %.17g, dumped %s", what, sqlite3_column_double(st, col), want);
+}
+
+/* tests/data/store/v3.db was written by the release before measurement runs
+ * (tests/data/store/make_v3.sh): opened now, every device is still there
+ * with every number (v3-devices.csv), every sweep blob byte for byte
+ * (v3-sweeps.csv), each lot's measurements one run at its plan's first
+ * temperature, step final; and the analysis reads them. */
+START_TEST(migration_from_version_3_keeps_every_device)
+{
+    char *dir = sl_test_tmpdir();
+    char *db = sl_test_path(dir, "v3.db");
+    char *fixture = sl_test_data("store/v3.db");
+    ck_assert_int_eq(sl_test_copy_file(fixture, db), 0);
+    sl_store *store = open_ok(db);
+    ck_assert_int_eq(query_long(store, "PRAGMA user_version"), sl_store_schema_version());
+    ck_assert_int_eq(query_long(store, "SELECT count(*) FROM pragma_foreign_key_check"), 0);
+    ck_assert_int_eq(query_long(store, "SELECT count(*) FROM measurement_run"), 2);
+    ck_assert_int_eq(query_long(store, "SELECT count(*) FROM measurement_run WHERE step = 'final' "
+                                       "AND temperature_K = 300 AND source_sha256 IS NULL"), 2);
+    char *source = query_text(store, "SELECT group_concat(source_name, '|') FROM "
+                                     "(SELECT source_name FROM measurement_run ORDER BY id)");
+    ck_assert_str_eq(source, "stats-results.csv|sim/sweeps.csv");
+    free(source);
+
+    char *path = sl_test_data("store/v3-devices.csv");
+    char *text = sl_test_read_file(path, NULL);
+    sqlite3_stmt *st = NULL;
+    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
+        "SELECT l.name, d.wafer, d.name, m.id, d.die_x, d.die_y, m.source, m.fit_class, "
+        "quote(m.fit_model), m.cnp_V, m.cnp_sigma_V, m.mobility_cm2_per_Vs, "
+        "m.mobility_sigma_cm2_per_Vs, m.n0_per_cm2, m.n0_sigma_per_cm2, m.r_contact_ohm, "
+        "m.r_contact_sigma_ohm, m.rel_rms, m.r_squared, quote(m.n_points), quote(m.n_spikes), "
+        "quote(m.source_line), m.current FROM measurement_view m JOIN device d ON d.id = m.device_id "
+        "JOIN lot l ON l.id = d.lot_id ORDER BY m.id", -1, &st, NULL), SQLITE_OK);
+    char *save = NULL, *line = strtok_r(text, "\n", &save); /* the header */
+    size_t devices = 0;
+    while ((line = strtok_r(NULL, "\n", &save))) {
+        char *f[22];
+        ck_assert_uint_eq(split_fields(line, f, 22), 22);
+        ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
+        for (int c = 0; c < 9; c++)
+            if (c != 3 && c != 4 && c != 5)
+                ck_assert_str_eq((const char *)sqlite3_column_text(st, c),
+                                 c == 8 && strcmp(f[c], "NULL") ? "'symmetric'" : f[c]);
+        ck_assert_int_eq(sqlite3_column_int64(st, 3), strtol(f[3], NULL, 10));
+        ck_assert_int_eq(sqlite3_column_int64(st, 4), strtol(f[4], NULL, 10));
+        ck_assert_int_eq(sqlite3_column_int64(st, 5), strtol(f[5], NULL, 10));
+        for (int c = 9; c < 19; c++)
+            check_real(st, c, f[c], f[2]);
+        for (int c = 19; c < 22; c++)
+            ck_assert_str_eq((const char *)sqlite3_column_text(st, c), f[c]);
+        ck_assert_int_eq(sqlite3_column_int(st, 22), 1); /* current in its view */
+        devices++;
+    }
+    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
+    sqlite3_finalize(st);
+    ck_assert_uint_eq(devices, 70);
+    free(text);
+    free(path);
+
+    path = sl_test_data("store/v3-sweeps.csv");
+    text = sl_test_read_file(path, NULL);
+    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
+        "SELECT measurement_id, n_points, hex(points) FROM sweep ORDER BY measurement_id", -1, &st,
+        NULL), SQLITE_OK);
+    save = NULL;
+    line = strtok_r(text, "\n", &save);
+    size_t sweeps = 0;
+    while ((line = strtok_r(NULL, "\n", &save))) {
+        char *f[3];
+        ck_assert_uint_eq(split_fields(line, f, 3), 3);
+        ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
+        ck_assert_int_eq(sqlite3_column_int64(st, 0), strtol(f[0], NULL, 10));
+        ck_assert_int_eq(sqlite3_column_int64(st, 1), strtol(f[1], NULL, 10));
+        ck_assert_str_eq((const char *)sqlite3_column_text(st, 2), f[2]);
+        sweeps++;
+    }
+    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
+    sqlite3_finalize(st);
+    ck_assert_uint_eq(sweeps, 16);
+    free(text);
+    free(path);
+
+    /* the sweeps decode, and a lot reads back in its default view */
+    sl_diag *diag = sl_diag_new();
+    double *vg = NULL, *r = NULL;
+    size_t n = 0;
+    ck_assert_int_eq(sl_store_load_sweep(store, &vg, &r, &n, 59, diag), SL_OK);
+    ck_assert_uint_eq(n, 201);
+    free(vg);
+    free(r);
+    sl_store_lot lot;
+    ck_assert_int_eq(sl_store_find_lot(store, &lot, "STATS-01", diag), SL_OK);
+    char step[65];
+    double t = 0;
+    const double temperatures[] = { 300.0 };
+    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, temperatures, 1, diag),
+                     SL_OK);
+    ck_assert(strcmp(step, "final") == 0 && t == 300.0);
+    sl_store_device_row *rows = NULL;
+    ck_assert_int_eq(sl_store_load_devices(store, &rows, &n, lot.lot_id, step, t, diag), SL_OK);
+    ck_assert_uint_eq(n, 54);
+    free(rows);
+    sl_store_lot_clear(&lot);
+    sl_diag_free(diag);
+    sl_store_close(store);
+    free(fixture);
+    free(db);
+    drop_dir(dir);
+}
+END_TEST
+
+/* ---- what a failed statement says ---- */
+
+/* Each kind of constraint failure is named as what it is, never as a
+ * duplicate; nothing is written. */
+START_TEST(constraint_failures_say_which)
+{
+    stored_demo s = demo_store();
+    static const struct { const char *sql, *kind; } cases[] = {
+        { "INSERT INTO lot (name, created_utc) VALUES ('DEMO-01', 'now')", "a UNIQUE constraint" },
+        { "INSERT INTO lot (name) VALUES ('OTHER')", "a NOT NULL constraint" },
+        { "INSERT INTO measurement_run (lot_id, step, temperature_K, revision_id, kind, "
+          "source_name, rows, devices, created_utc) VALUES (1, 'final', -4, 1, 'results', "
+          "'x.csv', 0, 0, 'now')", "a CHECK constraint" },
+        { "INSERT INTO measurement_run (lot_id, step, temperature_K, revision_id, kind, "
+          "source_name, rows, devices, created_utc) VALUES (99, 'final', 4, 1, 'results', "
+          "'x.csv', 0, 0, 'now')", "a FOREIGN KEY constraint" },
+        { "INSERT INTO split (id, revision_id, split_index, name, dielectric, treatments, "
+          "planned_doping_per_cm2, planned_doping_sigma_per_cm2, devices_needed, "
+          "devices_available) SELECT id, revision_id, 99, 'x', 'x', '', 0, 0, 0, 0 FROM split "
+          "LIMIT 1", "a PRIMARY KEY constraint" },
+    };
+    long runs = query_long(s.store, "SELECT count(*) FROM measurement_run");
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        sl_diag *diag = sl_diag_new();
+        ck_assert_int_eq(sl_store_exec(s.store, cases[i].sql, diag, "store a row"), SL_EDB);
+        ck_assert_msg(strstr(sl_diag_last(diag), cases[i].kind) &&
+                      strstr(sl_diag_last(diag), "cannot store a row: ") &&
+                      !strstr(sl_diag_last(diag), "duplicate device"),
+                      "%zu: %s", i, sl_diag_last(diag));
+        sl_diag_free(diag);
+    }
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement_run"), runs);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM lot"), 1);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* ---- the checksum of a run's file ---- */
+
+/* SHA-256 of the FIPS 180-2 appendix B examples ("abc"; the 448-bit
+ * message; a million 'a'), and of the empty message (NIST's published
+ * example value e3b0c442...b855), in pieces of awkward sizes, by the
+ * portable code and, where the processor has them, the SHA instructions. */
+START_TEST(sha256_fips_examples)
+{
+    static const struct { const char *text; long repeat; const char *digest; } cases[] = {
+        { "abc", 1, "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad" },
+        { "abcdbcdecdefdefgefghfghighijhijkijkljklmklmnlmnomnopnopq", 1,
+          "248d6a61d20638b8e5c026930c3e6039a33ce45964ff2167f6ecedd419db06c1" },
+        { "a", 1000000, "cdc76e5c9914fb9281a1c7e284d73e67f1809a48a497200e046d39ccc7112cd0" },
+        { "", 1, "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855" },
+    };
+    char *buf = malloc(1000000);
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        size_t len = strlen(cases[i].text), total = len * (size_t)cases[i].repeat;
+        for (size_t k = 0; k < total; k++)
+            buf[k] = cases[i].text[k % (len ? len : 1)];
+        for (int way = 0; way < 2; way++) {
+            if (way == 1 && !sha256_has_extensions())
+                continue;
+            sha256_ctx c;
+            if (way == 0)
+                sha256_init_portable(&c);
+            else
+                sha256_init(&c);
+            for (size_t at = 0, piece = 1; at < total; at += piece, piece = piece * 3 + 1)
+                sha256_update(&c, buf + at, piece < total - at ? piece : total - at);
+            unsigned char digest[32];
+            char hex[65];
+            sha256_final(&c, digest);
+            sha256_hex(digest, hex);
+            ck_assert_msg(strcmp(hex, cases[i].digest) == 0, "case %zu way %d: %s", i, way, hex);
+        }
+    }
+    free(buf);
 }
 END_TEST
 
@@ -1089,7 +1363,10 @@ static Suite *store_suite(void)
     tcase_add_test(tc, read_only_database);
     tcase_add_test(tc, plan_revisions);
     tcase_add_test(tc, sweep_round_trip_exact);
-    tcase_add_test(tc, duplicate_device_is_input_error);
+    tcase_add_test(tc, measurements_reprobes_and_identity);
+    tcase_add_test(tc, migration_from_version_3_keeps_every_device);
+    tcase_add_test(tc, sha256_fips_examples);
+    tcase_add_test(tc, constraint_failures_say_which);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);

@@ -63,6 +63,9 @@ const sl_diag_msg *sl_diag_get(const sl_diag *diag, size_t i);
 const char *sl_diag_last(const sl_diag *diag);
 /* Drop all messages. */
 void sl_diag_clear(sl_diag *diag);
+/* Drop the messages added after the first size ones (what a call added, so
+ * a library function never clears what its caller had collected). */
+void sl_diag_truncate(sl_diag *diag, size_t size);
 /* Sort messages by file, line, column (stable), for readable output. */
 void sl_diag_sort(sl_diag *diag);
 

@@ -15,6 +15,13 @@
 
 typedef enum { SL_INGEST_RESULTS = 0, SL_INGEST_SWEEPS } sl_ingest_kind;
 
+/* Most temperatures one import reports runs for (a plan may list more). */
+#define SL_INGEST_MAX_RUNS 16
+
+/* A file's temperature matches a plan temperature within this (K): a
+ * prober's reading of 299.8 K is the plan's 300 K. */
+#define SL_INGEST_TEMPERATURE_TOLERANCE_K 0.5
+
 /* Progress as the import streams. */
 typedef struct {
     long rows;
@@ -26,7 +33,9 @@ typedef struct {
     const char *lot;           /* lot name, as stored by `predict` */
     const char *path;          /* CSV file, "-" for standard input */
     sl_ingest_kind kind;
-    int replace;               /* drop the lot's measurements first */
+    const char *step;          /* process step measured after; NULL: "final" */
+    double temperature_K;      /* rows without a temperature_K value; NaN or 0:
+                                  the plan's first temperature */
     int threads;               /* fitting threads, >= 1 (sweeps only) */
     sl_fit_model fit_model;    /* sweeps: symmetric (default) or two mobilities */
     /* sweeps: the gate's carrier density from the charge balance with
@@ -43,15 +52,28 @@ typedef struct {
     long devices;              /* devices stored */
     long unmeasured;           /* results rows with an empty v_cnp_V */
     long per_class[SL_FIT_CLASS_COUNT]; /* sweeps: devices per fit class */
-    long replaced;             /* devices removed by --replace */
+    size_t n_runs;             /* measurement runs made: one per temperature */
+    struct {
+        long run;              /* its id in the store */
+        double temperature_K;
+        long rows, devices;
+    } runs[SL_INGEST_MAX_RUNS];
+    char sha256[65];           /* of the file's bytes, hex */
     double seconds;
 } sl_ingest_summary;
 
-/* Import a file into a lot of an open store, in one transaction. Errors:
- * SL_EINPUT with file:line messages (missing column, bad number, NaN or Inf,
- * unknown or spare wafer, die outside the wafer map, duplicate device, a sweep
- * with fewer than SL_FIT_MIN_POINTS points), SL_ENOTFOUND for an unknown lot,
- * SL_EIO, SL_EDB, SL_ENOMEM. On any error nothing of the import is kept. */
+/* Import a file into a lot of an open store, in one transaction, as one
+ * measurement run per temperature found (step, temperature, the lot's newest
+ * plan revision, the file's name and SHA-256). A device measured before at
+ * the same step and temperature gets a new measurement that supersedes the
+ * earlier one for analysis (a re-probe); the earlier stays stored. Sweeps of
+ * a device at several temperatures are fitted one temperature at a time.
+ * Errors: SL_EINPUT with file:line messages (missing column, bad number, NaN
+ * or Inf, unknown or spare wafer, die outside the wafer map or other than
+ * the device's stored die, a device twice at one temperature, a temperature
+ * not in the plan, a sweep with fewer than SL_FIT_MIN_POINTS points),
+ * SL_ENOTFOUND for an unknown lot, SL_EIO, SL_EDB, SL_ENOMEM. On any error
+ * nothing of the import is kept. */
 sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
                         const sl_ingest_options *options, sl_diag *diag);
 

@@ -26,6 +26,7 @@ typedef struct {
     size_t max_curves;     /* transfer curves of flagged devices; 0: none */
     int with_history;      /* nonzero: the across-lots section when the store
                               holds more than one lot with estimates */
+    sl_analyze_view view;  /* the measurements shown (sl_report_lot) */
 } sl_report_options;
 
 /* What a render put on the page, for the command's summary and for tests. */
@@ -38,6 +39,8 @@ typedef struct {
     size_t n_flagged_markers;  /* flagged points in the strip charts */
     size_t n_curves;           /* transfer curves drawn */
     size_t n_history_levels;   /* control charts drawn (0: no history section) */
+    char step[65];             /* the measurements shown: step and temperature */
+    double temperature_K;
 } sl_report_summary;
 
 /* Defaults: current time, SL_REPORT_DEFAULT_MAX_CURVES curves, history on. */

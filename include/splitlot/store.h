@@ -37,7 +37,11 @@ void sl_store_rollback(sl_store *store);
  * Otherwise the next revision number (1, 2, ...) is given, *created = 1: to a
  * new revision, or, when the text is that of an older revision (a plan changed
  * and changed back), to that revision, which becomes the newest again with
- * its stored splits, wafers and predictions. Call inside a transaction. */
+ * its stored splits, wafers and predictions. Once the lot has measured
+ * devices, a revision that would put a measured wafer (one with devices) in
+ * another split (another name, dielectric or treatments), make it a spare
+ * or drop it is refused: SL_EINPUT, the message naming every such wafer,
+ * nothing written. Call inside a transaction. */
 sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
                              const sl_plan *plan, const sl_layout *layout,
                              const sl_prediction *predictions, size_t n_predictions,
@@ -63,18 +67,102 @@ void sl_store_lot_clear(sl_store_lot *lot);
 sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_diag *diag);
 void sl_store_free_names(char **names, size_t count);
 
-/* Wafer id (row id) of a wafer name in a revision; SL_ENOTFOUND if absent. */
-sl_status sl_store_wafer_id(sl_store *store, long *wafer_id, long revision_id,
-                            const char *wafer);
+/* ---- what a plan revision stored: splits, wafers, predictions ---- */
 
-/* A measured device to insert. NaN numbers are stored as NULL. */
 typedef struct {
-    long wafer_id;
+    char *name, *dielectric;
+    char *treatments;            /* ';'-joined treatment names, "" for none */
+    char *levels;                /* ';'-joined factor levels; "" when not recorded */
+    double planned_doping_per_cm2, planned_doping_sigma_per_cm2;
+} sl_store_split;
+
+typedef struct {
+    char *name;
+    long split;                  /* index into the revision's splits, -1 for a spare */
+    long process_order;          /* 0 for a spare */
+} sl_store_wafer;
+
+/* A revision as stored: splits by split index, wafers in plan order, the
+ * plan's temperatures in plan order and the predictions split-major (split
+ * s at temperature t is predictions[s * n_temperatures + t]; the fields
+ * predict does not store, capacitance_rel_sigma and gate_range_from_plan,
+ * are 0). Read back, never recomputed. */
+typedef struct {
+    long revision_id;
+    sl_store_split *splits;
+    size_t n_splits;
+    sl_store_wafer *wafers;
+    size_t n_wafers;
+    double *temperatures_K;
+    size_t n_temperatures;
+    sl_prediction *predictions;
+} sl_store_revision;
+
+/* SL_OK, SL_EDB (also for a revision whose predictions are incomplete),
+ * SL_ENOMEM. */
+sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long revision_id,
+                                 sl_diag *diag);
+void sl_store_revision_clear(sl_store_revision *revision);
+
+/* ---- measurement runs ---- */
+
+/* One run: a file's measurements at one step and temperature. */
+typedef struct {
+    long id;
+    char *step;
+    double temperature_K;
+    long revision_id;
+    int revision;                /* the revision's number */
+    char *kind;                  /* "results" or "sweeps" */
+    char *source_name;
+    char *source_sha256;         /* 64 hex digits; "" for runs migrated from version 3 */
+    long rows, devices;
+    char *created_utc;
+} sl_store_run;
+
+/* Start a run of a lot (inside the import's transaction); rows and devices
+ * are set by sl_store_finish_run. */
+sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revision_id,
+                           const char *step, double temperature_K, const char *kind,
+                           const char *source_name, sl_diag *diag);
+
+/* Record a run's row count and source checksum, and count its devices
+ * into *devices; a run without measurements is removed. */
+sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sha256_hex,
+                              long *devices, sl_diag *diag);
+
+/* Row id the next run gets: an import's runs have ids >= it. */
+sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag);
+
+/* Every run of a lot, oldest first (malloc'd array). */
+sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count, long lot_id,
+                             sl_diag *diag);
+void sl_store_runs_free(sl_store_run *runs, size_t count);
+
+/* The view an analysis shows by default: the step of the lot's newest run
+ * and, of temperatures (plan order), the first with a run of that step.
+ * Without runs: "final" and temperatures[0]. step gets at most 64 bytes. */
+sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
+                                long lot_id, const double *temperatures_K, size_t n_temperatures,
+                                sl_diag *diag);
+
+/* The plan revision of the newest run of a view, or the lot's newest
+ * revision when the view has no run. */
+sl_status sl_store_view_revision(sl_store *store, long *revision_id, const sl_store_lot *lot,
+                                 const char *step, double temperature_K, sl_diag *diag);
+
+/* ---- devices and their measurements ---- */
+
+/* A measurement to insert, with its device's identity. NaN numbers are
+ * stored as NULL. */
+typedef struct {
+    const char *wafer;        /* wafer name */
     const char *name;
     long die_x, die_y;
+    const char *device_type;  /* or NULL; with the geometry, kept by a new device */
+    double channel_length_um, channel_width_um; /* NaN: the plan's */
     const char *source;       /* "results" or "sweeps" */
     const char *fit_class;    /* "ok", "unmeasured", or a fit class name */
-    double temperature_K;
     double cnp_V, cnp_sigma_V;
     double mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs;
     double n0_per_cm2, n0_sigma_per_cm2;
@@ -83,6 +171,8 @@ typedef struct {
     const char *fit_model;    /* "symmetric", "two-mobility", or NULL (results) */
     double electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs; /* two-mobility */
     long n_spikes;            /* points left out as spikes; < 0 for none recorded */
+    double hysteresis_V;      /* double sweeps */
+    long points_dropped;      /* < 0 for none recorded */
     const double *vg_V;       /* raw sweep, or NULL */
     const double *r_ohm;
     size_t n_points;
@@ -94,20 +184,36 @@ typedef struct {
 void sl_store_device_init(sl_store_device *dev);
 
 /* Call before an import's inserts into a lot (inside its transaction): a lot
- * without devices yet takes plain inserts, which need not look for the same
- * device under an older plan revision of the lot. */
+ * without devices yet takes plain inserts. */
 sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag);
 
-/* Insert a device (and its packed sweep); *device_id gets its row id (may be
- * NULL). A device already present for the lot and wafer gives SL_EINPUT
- * "duplicate device". Inside a transaction. */
-sl_status sl_store_insert_device(sl_store *store, long *device_id, long lot_id,
-                                 const sl_store_device *dev, sl_diag *diag);
+typedef enum {
+    SL_STORE_ADDED = 0,        /* a new measurement (of a new device or a known one) */
+    SL_STORE_IN_RUN,           /* the device has a measurement in this run already */
+    SL_STORE_DIE_DIFFERS       /* the device is stored at another die */
+} sl_store_outcome;
 
-/* Replace the extraction columns and the sweep of a stored device (used when
- * an import finds more points of a device further down the file). */
-sl_status sl_store_update_device(sl_store *store, long device_id, const sl_store_device *dev,
-                                 sl_diag *diag);
+typedef struct {
+    sl_store_outcome outcome;
+    long measurement_id;       /* ADDED: the new one; IN_RUN: the one in the run */
+    long device_id;
+    long die_x, die_y;         /* DIE_DIFFERS: the stored die */
+    long source_line;          /* IN_RUN: line of the measurement in the run;
+                                  DIE_DIFFERS: of the device's first measurement */
+    long run_id;               /* DIE_DIFFERS: run of the device's first measurement */
+} sl_store_insert;
+
+/* Add a measurement of a device to a run: the device is found by lot,
+ * wafer name and name, or added. Nothing is written unless the outcome is
+ * SL_STORE_ADDED. Returns SL_OK whatever the outcome; SL_EDB (a constraint
+ * failure says which kind), SL_ENOMEM. Inside a transaction. */
+sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, long lot_id,
+                                      long run_id, const sl_store_device *dev, sl_diag *diag);
+
+/* Replace the extraction columns and the sweep of a stored measurement
+ * (used when an import finds more points of a device further down the file). */
+sl_status sl_store_update_measurement(sl_store *store, long measurement_id,
+                                      const sl_store_device *dev, sl_diag *diag);
 
 /* Scratch space of one import for rows of a device that come back after other
  * devices' rows (a temporary table, gone with the connection): stage points
@@ -119,68 +225,55 @@ sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm,
 
 /* ---- an import in progress (inside its transaction) ---- */
 
-/* Row id the next inserted device gets: this import's devices have ids >= it. */
-sl_status sl_store_next_device_id(sl_store *store, long *id, sl_diag *diag);
-
-/* A device of the lot stored at id >= first_id: what an import needs of a
- * device whose rows come back later in its file. */
+/* A measurement of this import, with its device. */
 typedef struct {
-    long id, wafer_id, die_x, die_y;
+    long id;                     /* the measurement */
+    long run_id, die_x, die_y;
     long source_line;            /* 0 when unknown */
     char wafer[65], name[65];
 } sl_store_import_device;
 
-/* The device with this wafer and name stored at id >= first_id;
- * SL_ENOTFOUND when there is none. */
-sl_status sl_store_find_import_device(sl_store *store, sl_store_import_device *found,
-                                      long lot_id, long wafer_id, const char *name,
-                                      long first_id, sl_diag *diag);
-
-/* Devices stored at id >= first_id that still need a fit: fit class
+/* Measurements in runs >= first_run_id that still need a fit: fit class
  * "pending" or points staged under their id (malloc'd array, by id). */
 sl_status sl_store_open_devices(sl_store *store, sl_store_import_device **devices,
-                                size_t *count, long lot_id, long first_id, sl_diag *diag);
+                                size_t *count, long first_run_id, sl_diag *diag);
 
-/* Devices stored at id >= first_id per fit class: counts[i] for names[i];
- * *total gets them all. */
+/* Measurements in runs >= first_run_id per fit class: counts[i] for
+ * names[i]; *total gets them all. */
 sl_status sl_store_count_classes(sl_store *store, long *counts, const char *const *names,
-                                 size_t n_names, long *total, long lot_id, long first_id,
-                                 sl_diag *diag);
+                                 size_t n_names, long *total, long first_run_id, sl_diag *diag);
 
 /* Number of devices stored for a lot. */
 sl_status sl_store_count_devices(sl_store *store, long *count, long lot_id, sl_diag *diag);
 
-/* Remove a lot's measurements (devices, sweeps) for `ingest --replace`. */
-sl_status sl_store_delete_measurements(sl_store *store, long lot_id, sl_diag *diag);
-
-/* Record a finished import (kind "results" or "sweeps"). */
-sl_status sl_store_record_import(sl_store *store, long lot_id, const char *kind,
-                                 const char *source_name, long rows, long devices,
-                                 sl_diag *diag);
-
-/* Raw sweep of a stored device back from its packed blob: malloc'd arrays. */
+/* Raw sweep of a stored measurement back from its packed blob: malloc'd arrays. */
 sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
-                              long device_id, sl_diag *diag);
+                              long measurement_id, sl_diag *diag);
 
-/* A stored device as read back for analysis. Names fit in 64 bytes (the
- * import refuses longer ones). NaN where the column is NULL. */
+/* A device's measurement as read back for analysis. Names fit in 64 bytes
+ * (the import refuses longer ones). NaN where the column is NULL. */
 typedef struct {
-    long id;
+    long id;                     /* the measurement */
+    long device_id, run_id;
     char wafer[65], name[65];
-    char fit_class[32], source[8];
+    char fit_class[32], source[8], fit_model[16];
     long die_x, die_y;
-    double temperature_K;
+    double temperature_K;        /* its run's */
     double cnp_V, cnp_sigma_V;
     double mobility_cm2_per_Vs, n0_per_cm2, r_contact_ohm;
+    double hysteresis_V;
+    double channel_length_um, channel_width_um; /* NaN: the plan's */
     double rel_rms, r_squared;
     long n_points;               /* 0 for results rows */
-    char fit_model[24];          /* "symmetric/qc", ...; "" for results rows */
+    long measurements;           /* the device's measurements in the view's runs */
 } sl_store_device_row;
 
-/* Every device of a lot, by wafer, die row, die column and name, whatever
- * the order of the files they came from (malloc'd array). */
+/* The current measurement of every device of a lot in a view (step and
+ * temperature: the newest run wins), by wafer, die row, die column and
+ * name, whatever the order of the files they came from (malloc'd array). */
 sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
-                                long lot_id, sl_diag *diag);
+                                long lot_id, const char *step, double temperature_K,
+                                sl_diag *diag);
 
 /* Lots in creation order with their newest revision (malloc'd array; clear
  * each entry with sl_store_lot_clear, then free the array). */
@@ -199,15 +292,21 @@ typedef struct sl_store_scratch sl_store_scratch;
 sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag *diag);
 void sl_store_scratch_close(sl_store_scratch *scratch);
 
-/* Keep the lot's devices on wafers named wafer (in any plan revision), by die
- * row, die column and name, under a group and a tag of the caller's. Keeping
- * wafer names in sl_store_load_devices order keeps the devices in its order. */
+/* Choose the runs whose measurements are kept: a lot's runs of one step and
+ * temperature (call before keeping wafers). */
+sl_status sl_store_scratch_view(sl_store_scratch *scratch, long lot_id, const char *step,
+                                double temperature_K, sl_diag *diag);
+
+/* Keep the current measurement in the view of the lot's devices on the
+ * wafer named wafer, by die row, die column and name, under a group and a
+ * tag of the caller's. Keeping wafer names in sl_store_load_devices order
+ * keeps the devices in its order. */
 sl_status sl_store_scratch_keep_wafer(sl_store_scratch *scratch, long lot_id, const char *wafer,
                                       long group, long tag, sl_diag *diag);
 
-/* The kept devices in the order kept: *row has the id, wafer, name, die,
- * fit class, V_cnp and mobility (every other number NaN), valid until the
- * next read; NULL after the last, and the next call starts over. */
+/* The kept devices in the order kept: *row has everything but cnp_sigma_V,
+ * rel_rms, r_squared and n_points (NaN or 0), valid until the next read;
+ * NULL after the last, and the next call starts over. */
 sl_status sl_store_scratch_next_kept(sl_store_scratch *scratch, long *group, long *tag,
                                      const sl_store_device_row **row, sl_diag *diag);
 

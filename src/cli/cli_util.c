@@ -76,6 +76,30 @@ int cli_parse_double(const char *opt, const char *text, double *out)
     return 0;
 }
 
+int cli_parse_temperature(const char *text, double *out)
+{
+    if (cli_parse_double("--temperature-K", text, out) != 0)
+        return -1;
+    if (*out <= 0.0) {
+        cli_usage_error("--temperature-K: '%s' is not a temperature above 0 K", text);
+        return -1;
+    }
+    return 0;
+}
+
+int cli_check_step(const char *text)
+{
+    size_t n = strlen(text);
+    int printable = n > 0 && n <= 64;
+    for (size_t i = 0; printable && i < n; i++)
+        printable = (unsigned char)text[i] >= 0x20 && text[i] != 0x7f;
+    if (!printable) {
+        cli_usage_error("--step: '%s' is not a step name (1 to 64 printable bytes)", text);
+        return -1;
+    }
+    return 0;
+}
+
 int cli_parse_long(const char *opt, const char *text, long min, long *out)
 {
     char *end = NULL;

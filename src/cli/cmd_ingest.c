@@ -6,6 +6,7 @@
 #include "cli.h"
 
 #include <getopt.h>
+#include <math.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
@@ -17,12 +18,17 @@ static const char usage[] =
     "Import measurements of a lot whose plan was stored by 'splitlot predict'.\n"
     "Results: one row per device (wafer,device,die_x,die_y,v_cnp_V[,mobility_cm2_per_Vs,\n"
     "n0_per_cm2,r_contact_ohm,temperature_K]). Sweeps: one row per point\n"
-    "(wafer,device,die_x,die_y,vg_V,r_ohm); each device's transfer curve is fitted.\n"
-    "FILE '-' reads standard input. Nothing is kept of an import that fails.\n\n"
+    "(wafer,device,die_x,die_y,vg_V,r_ohm[,temperature_K]); each device's transfer\n"
+    "curve is fitted, one temperature at a time. FILE '-' reads standard input.\n"
+    "Each import is a measurement run per temperature; a device measured again at\n"
+    "the same step and temperature (a re-probe) supersedes its earlier measurement,\n"
+    "which stays stored. Nothing is kept of an import that fails.\n\n"
     "  --lot ID                  the lot\n"
     "  --results FILE            device results CSV\n"
     "  --sweeps FILE             transfer sweeps CSV\n"
-    "  --replace                 replace the lot's measurements already stored\n"
+    "  --step NAME               process step measured after (default final)\n"
+    "  --temperature-K T         temperature of rows without a temperature_K value\n"
+    "                            (one of the plan's; default the plan's first)\n"
     "  --threads N               fitting threads (default: the machine's cores)\n"
     "  --model symmetric|two-mobility\n"
     "                            transfer-curve model for sweeps: one mobility, or\n"
@@ -34,13 +40,16 @@ static const char usage[] =
     "  --format table|csv|json   summary format (default table)\n"
     "  --help                    this text\n";
 
-enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_THREADS, OPT_MODEL, OPT_DENSITY, OPT_DB, OPT_FORMAT, OPT_HELP };
+enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_STEP, OPT_TEMPERATURE, OPT_THREADS,
+       OPT_MODEL, OPT_DENSITY, OPT_DB, OPT_FORMAT, OPT_HELP };
 
 static const struct option options[] = {
     { "lot", required_argument, NULL, OPT_LOT },
     { "results", required_argument, NULL, OPT_RESULTS },
     { "sweeps", required_argument, NULL, OPT_SWEEPS },
-    { "replace", no_argument, NULL, OPT_REPLACE },
+    { "replace", no_argument, NULL, OPT_REPLACE }, /* gone: says what took its place */
+    { "step", required_argument, NULL, OPT_STEP },
+    { "temperature-K", required_argument, NULL, OPT_TEMPERATURE },
     { "threads", required_argument, NULL, OPT_THREADS },
     { "model", required_argument, NULL, OPT_MODEL },
     { "density-model", required_argument, NULL, OPT_DENSITY },
@@ -76,7 +85,20 @@ static int parse_args(ingest_args *a, int argc, char **argv)
         case OPT_LOT: a->opt.lot = optarg; break;
         case OPT_RESULTS: a->opt.kind = SL_INGEST_RESULTS; a->opt.path = optarg; a->n_sources++; break;
         case OPT_SWEEPS: a->opt.kind = SL_INGEST_SWEEPS; a->opt.path = optarg; a->n_sources++; break;
-        case OPT_REPLACE: a->opt.replace = 1; break;
+        case OPT_REPLACE:
+            return cli_usage_error("ingest: --replace is gone: each import is a measurement run "
+                                   "of its own, and a device measured again at the same --step and "
+                                   "--temperature-K supersedes its earlier measurement (which stays "
+                                   "listed); import the file without --replace");
+        case OPT_STEP:
+            if (cli_check_step(optarg) != 0)
+                return CLI_EXIT_USAGE;
+            a->opt.step = optarg;
+            break;
+        case OPT_TEMPERATURE:
+            if (cli_parse_temperature(optarg, &a->opt.temperature_K) != 0)
+                return CLI_EXIT_USAGE;
+            break;
         case OPT_DB: a->db = optarg; break;
         case OPT_THREADS:
             if (cli_parse_long("--threads", optarg, 1, &threads) != 0)
@@ -122,10 +144,22 @@ static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
     cli_doc_str(doc, "source", a->opt.path);
     cli_doc_num(doc, "rows", (double)s->rows, 15);
     cli_doc_num(doc, "devices", (double)s->devices, 15);
-    if (a->opt.replace)
-        cli_doc_num(doc, "devices_replaced", (double)s->replaced, 15);
+    cli_doc_str(doc, "step", a->opt.step ? a->opt.step : "final");
+    cli_doc_str(doc, "source_sha256", s->sha256);
     cli_doc_num(doc, "seconds", s->seconds, 3);
     cli_doc_num(doc, "rows_per_second", s->seconds > 0 ? (double)s->rows / s->seconds : 0.0, 4);
+    cli_table *r = cli_doc_table(doc, "runs", "measurement runs");
+    cli_table_col_int(r, "run", "run");
+    cli_table_col_num(r, "temperature_K", "T [K]", 6);
+    cli_table_col_int(r, "rows", "rows");
+    cli_table_col_int(r, "devices", "devices");
+    for (size_t i = 0; i < s->n_runs; i++) {
+        cli_table_row(r);
+        cli_cell_int(r, s->runs[i].run);
+        cli_cell_num(r, s->runs[i].temperature_K);
+        cli_cell_int(r, s->runs[i].rows);
+        cli_cell_int(r, s->runs[i].devices);
+    }
     cli_table *t = cli_doc_table(doc, "classes", "devices by extraction class");
     cli_table_col_str(t, "class", "class");
     cli_table_col_int(t, "devices", "devices");
@@ -151,7 +185,7 @@ static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
 
 int cmd_ingest(int argc, char **argv)
 {
-    ingest_args a = { .format = CLI_FORMAT_TABLE };
+    ingest_args a = { .format = CLI_FORMAT_TABLE, .opt.temperature_K = NAN };
     long cores = sysconf(_SC_NPROCESSORS_ONLN);
     a.opt.threads = cores > 0 ? (int)(cores > 64 ? 64 : cores) : 1;
     int rc = parse_args(&a, argc, argv);

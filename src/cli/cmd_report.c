@@ -21,16 +21,23 @@ static const char usage[] =
     "The file is written to FILE.tmp first and renamed, so it is never half there.\n\n"
     "  --lot ID                  the lot\n"
     "  --out FILE                the HTML file to write\n"
+    "  --step NAME               measurements after this process step (default: the\n"
+    "                            step of the lot's newest measurement run)\n"
+    "  --temperature-K T         measurements at this plan temperature (default: the\n"
+    "                            plan's first temperature with measurements)\n"
     "  --max-curves N            transfer curves of flagged devices (default 12)\n"
     "  --no-history              leave out the history across lots\n"
     "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
     "  --help                    this text\n";
 
-enum { OPT_LOT = 1, OPT_OUT, OPT_MAX_CURVES, OPT_NO_HISTORY, OPT_DB, OPT_HELP };
+enum { OPT_LOT = 1, OPT_OUT, OPT_STEP, OPT_TEMPERATURE, OPT_MAX_CURVES, OPT_NO_HISTORY, OPT_DB,
+       OPT_HELP };
 
 static const struct option options[] = {
     { "lot", required_argument, NULL, OPT_LOT },
     { "out", required_argument, NULL, OPT_OUT },
+    { "step", required_argument, NULL, OPT_STEP },
+    { "temperature-K", required_argument, NULL, OPT_TEMPERATURE },
     { "max-curves", required_argument, NULL, OPT_MAX_CURVES },
     { "no-history", no_argument, NULL, OPT_NO_HISTORY },
     { "db", required_argument, NULL, OPT_DB },
@@ -47,9 +54,9 @@ typedef struct {
 static void print_summary(const report_args *args, const sl_report_summary *s)
 {
     printf("wrote %s: %zu bytes; %zu strip charts, %zu wafer maps with %zu dies, "
-           "%zu transfer curves, %zu history charts\n",
+           "%zu transfer curves, %zu history charts; measurements at step %s, %g K\n",
            args->out, s->bytes, s->n_strip_charts, s->n_wafer_maps, s->n_dies, s->n_curves,
-           s->n_history_levels);
+           s->n_history_levels, s->step, s->temperature_K);
     if (s->n_dies_off_grid)
         fprintf(stderr, "splitlot: warning: %zu devices lie outside the plan's die grid and "
                 "are not on the wafer maps\n", s->n_dies_off_grid);
@@ -80,6 +87,15 @@ static int parse_options(report_args *a, int argc, char **argv)
         case OPT_HELP: a->help = 1; return 0;
         case OPT_LOT: a->lot = optarg; break;
         case OPT_OUT: a->out = optarg; break;
+        case OPT_STEP:
+            if (cli_check_step(optarg) != 0)
+                return CLI_EXIT_USAGE;
+            a->opts.view.step = optarg;
+            break;
+        case OPT_TEMPERATURE:
+            if (cli_parse_temperature(optarg, &a->opts.view.temperature_K) != 0)
+                return CLI_EXIT_USAGE;
+            break;
         case OPT_MAX_CURVES:
             if (cli_parse_long("--max-curves", optarg, 0, &n) != 0)
                 return CLI_EXIT_USAGE;

@@ -32,8 +32,8 @@ static const char usage[] =
     "  --draw-levels             draw each level's true doping from the plan's sigma\n"
     "                            (default: levels deliver their planned means)\n"
     "  --no-sweeps               write results.csv and the truth only\n"
-    "  --temperature-K T         measurement temperature of the sweeps, written as a\n"
-    "                            temperature_K column (default: the plan's first)\n"
+    "  --temperature-K T         measure at this plan temperature only (default:\n"
+    "                            every device at every temperature of the plan)\n"
     "  --help                    this text\n";
 
 enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_SHIFTED, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_DRAW, OPT_TEMPERATURE, OPT_HELP };
@@ -121,14 +121,7 @@ static int parse_option(simulate_args *a, int opt, const char *val)
     case OPT_TRUE: return parse_override(a, val);
     case OPT_NO_SWEEPS: a->sim.write_sweeps = 0; return 0;
     case OPT_DRAW: a->sim.draw_levels = 1; return 0;
-    case OPT_TEMPERATURE: {
-        char *end = NULL;
-        double t = strtod(val, &end);
-        if (end == val || *end || !(t > 0.0) || !(t < 1.0e4))
-            return cli_usage_error("--temperature-K: '%s' is not a temperature in K above 0", val), -1;
-        a->sim.temperature_K = t;
-        return 0;
-    }
+    case OPT_TEMPERATURE: return cli_parse_temperature(val, &a->sim.only_temperature_K);
     }
     return -1;
 }
