@@ -269,7 +269,7 @@ static void page_close(report_ctx *c)
  * names only the sections that were drawn. */
 static sl_status render_sections(report_ctx *c)
 {
-    sl_status st = sl_report_collect(c);
+    sl_status st = report_collect(c);
     if (st == SL_OK)
         st = sl_report_section_runs(c);
     if (st == SL_OK)
@@ -303,7 +303,7 @@ static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store 
                      .opts = opts, .sum = summary ? summary : &local, .diag = diag,
                      .history = history, .history_loaded = stream != NULL };
     memset(c.sum, 0, sizeof *c.sum);
-    sl_report_rewind(&c);
+    report_rewind(&c);
     snprintf(c.sum->step, sizeof c.sum->step, "%s", analysis->step);
     c.sum->temperature_K = analysis->temperature_K;
     sl_status st = render_sections(&c);
@@ -319,7 +319,7 @@ static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store 
         st = body.status != SL_OK ? body.status : buf->status;
     }
     sl_chart_buf_free(&body);
-    sl_report_data_free(&c.data);
+    report_data_free(&c.data);
     c.sum->bytes = buf->len - start;
     return st;
 }
@@ -348,7 +348,7 @@ sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char 
     sl_chart_buf_init(&buf);
     sl_status st = SL_OK;
     if (!opts || opts->with_history) /* before the stream takes the scratch */
-        st = sl_report_load_history(&h, store, diag);
+        st = report_load_history(&h, store, diag);
     if (st == SL_OK)
         st = sl_analyze_lot_stream_view(&s, store, lot, opts ? &opts->view : NULL, diag);
     if (st == SL_OK)

@@ -14,7 +14,7 @@
 
 #define COLOUR_PERCENTILE 0.99
 
-sl_status sl_report_next_device(report_ctx *c, const sl_analyze_device **device)
+sl_status report_next_device(report_ctx *c, const sl_analyze_device **device)
 {
     if (c->stream)
         return sl_analysis_stream_next_device(c->stream, device, c->diag);
@@ -27,7 +27,7 @@ sl_status sl_report_next_device(report_ctx *c, const sl_analyze_device **device)
     return SL_OK;
 }
 
-sl_status sl_report_next_flagged(report_ctx *c, const sl_analyze_device **device)
+sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device)
 {
     if (c->stream)
         return sl_analysis_stream_next_flagged(c->stream, device, c->diag);
@@ -40,14 +40,14 @@ sl_status sl_report_next_flagged(report_ctx *c, const sl_analyze_device **device
     return SL_OK;
 }
 
-void sl_report_rewind(report_ctx *c)
+void report_rewind(report_ctx *c)
 {
     if (c->stream)
         sl_analysis_stream_rewind(c->stream);
     c->next_device = c->next_flagged = 0;
 }
 
-void sl_report_data_free(report_data *data)
+void report_data_free(report_data *data)
 {
     if (data->strips)
         for (size_t s = 0; data->strips[s].cap_points != (size_t)-1; s++) {
@@ -180,7 +180,7 @@ static sl_status collect_pass(report_ctx *c)
     long last_wafer = -1;
     const sl_analyze_device *dev;
     sl_status st;
-    while ((st = sl_report_next_device(c, &dev)) == SL_OK && dev) {
+    while ((st = report_next_device(c, &dev)) == SL_OK && dev) {
         add_die(d, plan, wafer_index(plan, dev->wafer, &last_wafer), dev);
         if (dev->split < 0 || (size_t)dev->split >= c->a->n_splits ||
             !isfinite(dev->cnp_measured_V))
@@ -225,7 +225,7 @@ static sl_status colour_range(report_data *d, const sl_plan *plan)
     return SL_OK;
 }
 
-sl_status sl_report_collect(report_ctx *c)
+sl_status report_collect(report_ctx *c)
 {
     report_data *d = &c->data;
     sl_status st = strips_alloc(d, c->a);

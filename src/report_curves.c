@@ -130,10 +130,10 @@ static sl_status draw_curves(report_ctx *c)
     sl_status st = SL_OK;
     const sl_analyze_device *d;
     while (c->sum->n_curves < c->opts->max_curves &&
-           (st = sl_report_next_flagged(c, &d)) == SL_OK && d)
+           (st = report_next_flagged(c, &d)) == SL_OK && d)
         if (d->n_points > 0)
             st = device_curve(c, d);
-    sl_report_rewind(c);
+    report_rewind(c);
     return st;
 }
 

@@ -100,7 +100,7 @@ static void history_body(report_ctx *c, const sl_history *h)
     sl_report_section_close(c->buf);
 }
 
-sl_status sl_report_load_history(sl_history **out, sl_store *store, sl_diag *diag)
+sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag)
 {
     *out = NULL;
     char **names = NULL;
@@ -120,7 +120,7 @@ sl_status sl_report_section_history(report_ctx *c)
     const sl_history *h = c->history;
     sl_status st = SL_OK;
     if (!c->history_loaded) {
-        st = sl_report_load_history(&own, c->store, c->diag);
+        st = report_load_history(&own, c->store, c->diag);
         h = own;
     }
     if (st == SL_OK && h && h->n_lots > 1)

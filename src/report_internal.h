@@ -72,13 +72,13 @@ typedef struct {
 
 /* The next device in the analysis' order, NULL after the last (the next
  * call starts over); the next flagged one, most severe first. */
-sl_status sl_report_next_device(report_ctx *c, const sl_analyze_device **device);
-sl_status sl_report_next_flagged(report_ctx *c, const sl_analyze_device **device);
+sl_status report_next_device(report_ctx *c, const sl_analyze_device **device);
+sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device);
 /* Both readings start over. */
-void sl_report_rewind(report_ctx *c);
+void report_rewind(report_ctx *c);
 /* Gather c->data in one pass over the devices. */
-sl_status sl_report_collect(report_ctx *c);
-void sl_report_data_free(report_data *data);
+sl_status report_collect(report_ctx *c);
+void report_data_free(report_data *data);
 
 /* ---- report_format.c: numbers with units, escaped text ---- */
 
@@ -125,6 +125,6 @@ sl_status sl_report_section_curves(report_ctx *c);
 /* ---- report_history.c ---- */
 sl_status sl_report_section_history(report_ctx *c);
 /* Every lot's estimates across lots, or NULL for a store of one lot. */
-sl_status sl_report_load_history(sl_history **out, sl_store *store, sl_diag *diag);
+sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag);
 
 #endif

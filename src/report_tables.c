@@ -147,9 +147,9 @@ sl_status sl_report_failure_table(report_ctx *c)
     const sl_analyze_device *d;
     size_t rank = 0;
     sl_status st = SL_OK;
-    while (rank < SL_REPORT_FAILURE_ROWS_MAX && (st = sl_report_next_flagged(c, &d)) == SL_OK && d)
+    while (rank < SL_REPORT_FAILURE_ROWS_MAX && (st = report_next_flagged(c, &d)) == SL_OK && d)
         failure_row(c->buf, c->a, d, rank++);
-    sl_report_rewind(c);
+    report_rewind(c);
     table_close(c->buf);
     rank = c->a->n_flagged;
     if (st == SL_OK && rank > SL_REPORT_FAILURE_ROWS_MAX)
