@@ -254,6 +254,7 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
                                                        : r->channel_length_um;
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
                                                      : r->channel_width_um;
+    d->n_points = r->n_points;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
@@ -515,8 +516,14 @@ static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
             sl_stats_robust_from(&g->robust, g->n, 0.0, g->mad_V, g->sum_abs_V / (double)g->n);
     }
     /* the device spread of the off-prediction interval: about the wafer medians */
-    for (size_t k = 0; k < a->n_splits; k++)
-        a->splits[k].spread_V = dielectric_of(s, (long)k)->robust.scale;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        sl_analyze_split *sp = &a->splits[k];
+        sp->spread_V = dielectric_of(s, (long)k)->robust.scale;
+        /* the interval score_device flags against, for the report to draw */
+        double half = SL_ANALYZE_INTERVAL_SIGMAS * hypot(sp->cnp_predicted_sigma_V, sp->spread_V);
+        sp->flag_low_V = sp->cnp_predicted_V - half;
+        sp->flag_high_V = sp->cnp_predicted_V + half;
+    }
     return st;
 }
 
