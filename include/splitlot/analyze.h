@@ -108,6 +108,9 @@ typedef struct sl_analysis {
     size_t n_verdict[4];         /* levels (not the intercept) per verdict */
     size_t n_censored;           /* devices with V_cnp beyond the sweep */
     size_t n_splits_censored;    /* splits with more than 10 % censored */
+    size_t n_wafers_censored_biased; /* wafers with censored devices whose mean
+                                    is the plain mean of the rest (no device
+                                    scatter to fit with): biased */
     size_t n_outlier_scored;     /* devices the outlier rule scored */
     double outliers_expected;    /* good devices it flags by chance: 2 Q(3.5) n */
     double device_sigma_V;       /* pooled within-wafer SD of V_cnp (NaN: none) */
