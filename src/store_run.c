@@ -64,9 +64,17 @@ sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const cha
 
 sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag)
 {
-    return sl_store_count_query(store, id,
-                                "SELECT coalesce(max(id), 0) + 1 FROM measurement_run WHERE ?1 = ?1",
-                                0, diag, "read the run ids");
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+                                   "SELECT coalesce(max(id), 0) + 1 FROM measurement_run", diag);
+    if (s != SL_OK)
+        return s;
+    if (sqlite3_step(st) == SQLITE_ROW)
+        *id = (long)sqlite3_column_int64(st, 0);
+    else
+        s = sl_store_db_error(store, diag, "read the run ids");
+    sqlite3_finalize(st);
+    return s;
 }
 
 void sl_store_runs_free(sl_store_run *runs, size_t count)

@@ -485,7 +485,14 @@ START_TEST(test_library_analysis)
     sl_store *store = t.store;
     sl_diag *diag = t.diag;
     sl_analysis *a = NULL;
+    size_t before = sl_diag_size(diag); /* the caller's messages stay */
+    sl_diag_add(diag, SL_SEV_NOTE, NULL, 0, 0, "a note of the caller's");
     ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    ck_assert_uint_eq(sl_diag_size(diag), before + 1);
+    ck_assert_str_eq(sl_diag_get(diag, before)->text, "a note of the caller's");
+    ck_assert_str_eq(a->step, "final");
+    ck_assert_double_eq(a->temperature_K, 300.0);
+    ck_assert_uint_eq(a->n_runs, 1);
     ck_assert_uint_eq(a->n_devices, 54); /* 9 wafers x 6 dies */
     ck_assert_uint_eq(a->n_usable, 50);  /* 4 empty v_cnp_V */
     ck_assert_uint_eq(a->n_splits, 5);
