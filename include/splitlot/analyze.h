@@ -154,14 +154,18 @@ void sl_analysis_free(sl_analysis *analysis);
 
 typedef struct sl_analysis_stream sl_analysis_stream;
 
-/* Analyse a lot in passes over its devices, holding state per split and per
- * wafer only. The devices on the plan's wafers are copied, wafer by wafer in
- * the order of sl_store_load_devices, into the store's scratch (a temporary
- * table in a file); one pass over their usable V_cnp gives each split's
- * count, mean and SD (gsl_rstat), more passes each split's exact median and
- * MAD (sl_stats_median_search); a last pass scores every device, lists the
- * flagged ones by severity in the scratch and sums the wafer means; then the
- * effects and the ANOVA (from each split's moments, sl_stats_anova_moments).
+/* Analyse a lot in passes over its devices, holding state per wafer, split
+ * and dielectric only. The devices on the plan's wafers are copied, wafer by
+ * wafer in the order of sl_store_load_devices, into the store's scratch (a
+ * temporary table in a file); one pass over their usable V_cnp gives each
+ * wafer's count and range, more passes each wafer's exact median and each
+ * dielectric's MAD of the residuals from the wafer medians
+ * (sl_stats_median_search); a last pass scores every device, lists the
+ * flagged ones by severity in the scratch, keeps each wafer's running
+ * moments of its usable non-outliers and the bounds of its devices beyond
+ * the sweep (read from their stored sweeps); then, with the wafer as the
+ * unit, the wafer means (censored-normal maximum likelihood where needed),
+ * split summaries, the ANOVA of wafer means, the effects and verdicts.
  * The results are those of sl_analyze_lot: the summary has everything but
  * the devices, which are read back one at a time, in the same order, with
  * sl_analysis_stream_next_device, and the failure-analysis list with
