@@ -1498,9 +1498,8 @@ END_TEST
  * and Laird, 1986). 3-sigma limits with known variances would flag 0.27 %
  * (Montgomery, Introduction to Statistical Quality Control); tau unknown at
  * the second lot and estimated from few lots after it adds to that: our
- * bound is 3 % of judged lots (2.4 % with this seed), against the 15 to 18 %
- * that moving-range limits gave on such lots. The pooled SE includes tau:
- * on average above the fixed-effect SE / sqrt(6). */
+ * bound is 3 % of judged lots (2.4 % with this seed). The pooled SE
+ * includes tau: on average above the fixed-effect SE / sqrt(6). */
 START_TEST(test_mc_history_drift_rate)
 {
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
