@@ -233,11 +233,12 @@ static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
 {
     long w = ingest_wafer_index(c, row->wafer);
     if (w < 0) {
-        const char *near = sl_text_nearest(row->wafer, (const char *const *)c->plan->wafers,
-                                           c->plan->n_wafers, 2);
-        ingest_error_at_row(c, c->col.wafer, "unknown wafer '%s' in lot '%s'%s%s%s", row->wafer,
-                            c->lot.lot, near ? " (did you mean '" : "", near ? near : "",
-                            near ? "'?)" : "");
+        char hint[96];
+        ingest_error_at_row(c, c->col.wafer, "unknown wafer '%s' in lot '%s'%s", row->wafer,
+                            c->lot.lot,
+                            sl_text_did_you_mean(hint, sizeof hint, row->wafer,
+                                                 (const char *const *)c->plan->wafers,
+                                                 c->plan->n_wafers));
         return SL_EINPUT;
     }
     if (c->wafers[w].split < 0) {

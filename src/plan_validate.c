@@ -1,5 +1,5 @@
 /* SPDX-License-Identifier: MIT
- * The meaning of a plan's keys (DESIGN.md section 4): the node tree from
+ * The meaning of a plan's keys (docs/formats.md): the node tree from
  * plan.c turned into an sl_plan, every problem reported at its line:col with a
  * did-you-mean where a near name exists, both design kinds normalised, and the
  * physics warnings (neutrality point outside the gate range, thermal floor).
@@ -67,21 +67,13 @@ static long find_named(const void *base, size_t n, size_t stride, const char *na
     return -1;
 }
 
-static size_t suggestion_distance(const char *name)
-{
-    size_t d = strlen(name) / 3;
-    return d < 1 ? 1 : (d > 4 ? 4 : d);
-}
-
-/* "unknown <what> 'name'", with "(did you mean 'x'?)" for a near candidate. */
+/* "unknown <what> 'name'", with the did-you-mean of sl_text_did_you_mean. */
 static void unknown_name(plan_ctx *c, const yn *at, const char *what, const char *const *names,
                          size_t n)
 {
-    const char *near = sl_text_nearest(at->text, names, n, suggestion_distance(at->text));
-    if (near)
-        plan_error(c, at, "unknown %s '%s' (did you mean '%s'?)", what, at->text, near);
-    else
-        plan_error(c, at, "unknown %s '%s'", what, at->text);
+    char hint[96];
+    plan_error(c, at, "unknown %s '%s'%s", what, at->text,
+               sl_text_did_you_mean(hint, sizeof hint, at->text, names, n));
 }
 
 static void unknown_named(plan_ctx *c, const yn *at, const char *what, const void *base,
@@ -205,12 +197,12 @@ static long unknown_key(plan_ctx *c, const yn *key, const char *what, const fiel
     const char *names[K_COUNT];
     for (size_t i = 0; i < n && i < K_COUNT; i++)
         names[i] = fields[i].key;
-    const char *near = sl_text_nearest(key->text, names, n, suggestion_distance(key->text));
-    if (!near) {
-        plan_error(c, key, "unknown key '%s' in %s", key->text, what);
+    const char *near = sl_text_suggest(key->text, names, n);
+    char hint[96];
+    plan_error(c, key, "unknown key '%s' in %s%s", key->text, what,
+               sl_text_did_you_mean(hint, sizeof hint, key->text, names, n));
+    if (!near)
         return -1;
-    }
-    plan_error(c, key, "unknown key '%s' in %s (did you mean '%s'?)", key->text, what, near);
     for (size_t i = 0; i < n; i++)
         if (names[i] == near)
             return (long)i;

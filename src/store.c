@@ -1,7 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * SQLite store (see include/splitlot/store.h): connection set-up, forward
- * migrations from the compiled-in db scripts, transactions, plan revisions with
- * predictions, and device/sweep rows. Analysis reads live in store_read.c.
+ * migrations from the compiled-in db scripts, transactions, error mapping and
+ * plan revisions with their predictions. Devices live in store_device.c, the
+ * packed sweeps in store_sweep.c, an import's lookups in store_import.c,
+ * analysis reads in store_read.c and an analysis's scratch tables in
+ * store_scan.c (docs/store.md).
  */
 #include "splitlot/store.h"
 

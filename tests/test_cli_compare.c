@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Command-line tests of `splitlot compare` and `splitlot history`: the JSON
- * keys of DESIGN.md section 5, --only-flagged, --fail-on-flags (exit 3),
+ * keys of docs/formats.md, --only-flagged, --fail-on-flags (exit 3),
  * unknown lots and missing databases (exit 2, nothing created), and compare's
  * peak memory, which must not grow with the lot. The numbers themselves are
  * checked in test_analyze.c. Lots are simulated, invented data.
@@ -276,7 +276,7 @@ START_TEST(test_missing_database)
 }
 END_TEST
 
-/* The database from SPLITLOT_DB when --db is not given (DESIGN.md section 5). */
+/* The database from SPLITLOT_DB when --db is not given (docs/formats.md). */
 START_TEST(test_database_from_environment)
 {
     static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--format", "json", NULL };
@@ -604,7 +604,7 @@ START_TEST(test_history_and_report_views)
     sl_run_result r = run_in(history);
     ck_assert_msg(r.exit_code == 0, "%s", r.err);
     ck_assert(strstr(r.out, "\"step\": \"\",\n  \"temperature_K\": 77,\n") != NULL);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4); /* every fixture lot has 77 K data */
     sl_run_result_free(&r);
     history[7] = "--step=after-anneal"; /* no lot measured after that step */
     r = run_in(history);

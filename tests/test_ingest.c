@@ -875,7 +875,7 @@ static const char quality_plan[] =
     "devices_per_wafer: 64\n"
     "seed: 99\n";
 
-/* SiO2 90 nm, eps 3.9 (DESIGN.md table): C_g = 8.8541878128e-12 * 3.9 / 90e-9
+/* SiO2 90 nm, eps 3.9 (docs/physics.md, built-in materials): C_g = 8.8541878128e-12 * 3.9 / 90e-9
  * = 3.83681e-4 F/m^2 = 38.3681 nF/cm^2 (hand arithmetic). */
 #define OX90_NF_PER_CM2 38.36814719
 

@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Tests of the plan module: the example plans parse and normalise as
- * DESIGN.md section 4 says, the broken-plan corpus reports each problem at its
+ * docs/formats.md says, the broken-plan corpus reports each problem at its
  * line:col, hostile YAML is refused cleanly, and `splitlot check` exit codes.
  */
 #include <check.h>
@@ -123,7 +123,7 @@ START_TEST(stack_layers_in_si)
     size_t n = 0;
     ck_assert_int_eq(sl_plan_stack(p, 1, layers, 4, &n), SL_OK);
     ck_assert_uint_eq(n, 2);
-    /* Al2O3 9 and SiO2 3.9, 7 and 10 MV/cm: the built-in table of DESIGN.md section 2 */
+    /* Al2O3 9 and SiO2 3.9, 7 and 10 MV/cm: the built-in table of docs/physics.md */
     ck_assert_double_eq_tol(layers[0].relative_permittivity, 9.0, 1e-12);
     ck_assert_double_eq_tol(layers[0].thickness_m, 20e-9, 1e-18);
     ck_assert_double_eq_tol(layers[0].thickness_sigma_m, 1e-9, 1e-18);

@@ -1,5 +1,5 @@
 /* SPDX-License-Identifier: MIT
- * The lot plan: the YAML file of DESIGN.md section 4 parsed (libyaml) into
+ * The lot plan: the YAML file of docs/formats.md parsed (libyaml) into
  * plain structs, validated with every problem reported at file:line:col, and
  * normalised so both design kinds look alike to the rest of the library:
  * factor 0 is always "dielectric", every split names its level per factor.

@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
  * Output of the commands: a document of named scalars and named tables,
- * rendered as an aligned terminal table, CSV or JSON (keys of DESIGN.md
- * section 5). Commands fill a document; this file decides the layout.
+ * rendered as an aligned terminal table, CSV or JSON (keys in
+ * docs/formats.md, "JSON"). Commands fill a document; this file decides the
+ * layout.
  */
 #ifndef SL_CLI_OUTPUT_H
 #define SL_CLI_OUTPUT_H
