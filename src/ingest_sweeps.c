@@ -141,9 +141,15 @@ static ingest_batch *batch_new(ingest_ctx *c, int threads)
 
 /* ---- writing fitted devices ---- */
 
-static const char *model_name(sl_fit_model model)
+/* The fit model and, after a slash, the density model when it is the
+ * charge balance ("symmetric/qc"); no suffix for the short form, which is
+ * what every fit stored before the charge balance was. */
+static const char *model_name(const sl_fit_config *cfg)
 {
-    return model == SL_FIT_MODEL_TWO_MOBILITY ? "two-mobility" : "symmetric";
+    bool qc = cfg->density_table != NULL;
+    if (cfg->model == SL_FIT_MODEL_TWO_MOBILITY)
+        return qc ? "two-mobility/qc" : "two-mobility";
+    return qc ? "symmetric/qc" : "symmetric";
 }
 
 /* Fill what the fit found (the device starts from sl_store_device_init). */
@@ -155,7 +161,7 @@ static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_st
         return;
     }
     dev->fit_class = sl_fit_class_name(r->cls);
-    dev->fit_model = model_name(cfg->model);
+    dev->fit_model = model_name(cfg);
     dev->rel_rms = r->rel_rms;
     dev->r_squared = r->r_squared;
     dev->n_spikes = (long)r->n_spikes;
@@ -377,14 +383,21 @@ static sl_status end_run(ingest_ctx *c)
         f->n_points = b->run_offset; /* none of its points is kept */
         return ingest_reject_kept(c, b->run_reason);
     }
+    sl_status st = SL_OK;
+    const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index,
+                                              c->plan->temperatures_K[b->run_temperature], &st);
+    if (!cfg)
+        return st;
     size_t n = f->n_points - b->run_offset;
-    fit_item item = { .offset = b->run_offset, .n = n, .cfg = b->run_cfg,
+    fit_item item = { .offset = b->run_offset, .n = n, .cfg = *cfg,
                       .has_direction = b->has_direction,
                       .overflow = b->run_overflow, .compliance = b->run_compliance,
                       .device_type = b->run_type, .channel_length_um = b->run_length_um,
                       .channel_width_um = b->run_width_um,
                       .run_id = c->run_ids[b->run_temperature], .die_x = b->run_x,
                       .die_y = b->run_y, .first_line = b->run_first_line };
+    /* the gate and temperature's, with the device's own channel */
+    item.cfg.length_over_width = b->run_cfg.length_over_width;
     /* an open device reads the overflow code most of the time: it is open,
      * not a sweep too short to fit */
     item.open_by_overflow = n < SL_FIT_MIN_POINTS && b->run_overflow > 0 &&
@@ -641,10 +654,20 @@ static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n
     return st;
 }
 
-static const sl_fit_config *wafer_fit(const ingest_ctx *c, const char *wafer)
+/* A device met again is fitted at its run's temperature, with the
+ * import's density model. */
+static const sl_fit_config *wafer_fit(ingest_ctx *c, const char *wafer, long run_id,
+                                      sl_status *status)
 {
+    *status = SL_OK;
     long w = ingest_wafer_index(c, wafer);
-    return w >= 0 && c->wafers[w].split >= 0 ? &c->wafers[w].fit : NULL;
+    if (w < 0 || c->wafers[w].split < 0)
+        return NULL;
+    double temperature_K = NAN;
+    for (size_t t = 0; t < c->plan->n_temperatures; t++)
+        if (c->run_ids[t] == run_id)
+            temperature_K = c->plan->temperatures_K[t];
+    return ingest_fit_for(c, (size_t)w, temperature_K, status);
 }
 
 /* Why the gathered points of a device cannot be fitted, or SL_OK. */
@@ -668,7 +691,10 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
 {
     /* rows of the device in several places: the wafer's gate and the plan's
      * channel (the device's own channel is known only while its rows are read) */
-    const sl_fit_config *cfg = wafer_fit(c, d->wafer);
+    sl_status cfg_st;
+    const sl_fit_config *cfg = wafer_fit(c, d->wafer, d->run_id, &cfg_st);
+    if (!cfg && cfg_st != SL_OK)
+        return cfg_st;
     if (!cfg) {
         sl_diag_error(c->diag, "device '%s' is on a wafer this import does not know", d->name);
         return SL_EDB;

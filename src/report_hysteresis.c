@@ -13,14 +13,15 @@
 
 #define HYST_LABEL_BYTES 136 /* wafer and device names of at most 64 bytes each */
 
-/* Every device's hysteresis grouped by split (counting sort, import order
- * kept inside a split): split s owns first[s] .. first[s + 1] - 1. */
+/* The hysteresis of the devices, per split: at most
+ * SL_REPORT_STRIP_POINTS_MAX points a split (the rest counted), so the page
+ * grows with splits, not devices. Split s owns first[s] .. first[s] + n[s]. */
 typedef struct {
     double *values_V;
     unsigned char *flagged;
     const char **labels;
     char (*text)[HYST_LABEL_BYTES];
-    size_t *first;
+    size_t *first, *n, not_drawn;
 } hyst_data;
 
 static void hyst_free(hyst_data *d)
@@ -30,33 +31,53 @@ static void hyst_free(hyst_data *d)
     free(d->labels);
     free(d->text);
     free(d->first);
+    free(d->n);
 }
 
-static sl_status hyst_build(hyst_data *d, const sl_analysis *a)
+static size_t split_cap(const sl_analysis *a, size_t s)
 {
-    size_t n = a->n_devices ? a->n_devices : 1;
-    d->values_V = malloc(n * sizeof *d->values_V);
-    d->flagged = malloc(n);
-    d->labels = malloc(n * sizeof *d->labels);
-    d->text = malloc(n * sizeof *d->text);
-    d->first = calloc(a->n_splits + 2, sizeof *d->first);
-    if (!d->values_V || !d->flagged || !d->labels || !d->text || !d->first) {
-        hyst_free(d);
+    size_t n = a->splits[s].n_devices;
+    return n < SL_REPORT_STRIP_POINTS_MAX ? n : SL_REPORT_STRIP_POINTS_MAX;
+}
+
+static sl_status hyst_alloc(hyst_data *d, const sl_analysis *a)
+{
+    memset(d, 0, sizeof *d);
+    d->first = calloc(a->n_splits + 1, sizeof *d->first);
+    d->n = calloc(a->n_splits + 1, sizeof *d->n);
+    if (!d->first || !d->n)
         return SL_ENOMEM;
-    }
-    for (size_t i = 0; i < a->n_devices; i++)
-        d->first[a->devices[i].split + 2]++;
     for (size_t s = 0; s < a->n_splits; s++)
-        d->first[s + 2] += d->first[s + 1];
-    for (size_t i = 0; i < a->n_devices; i++) {
-        const sl_analyze_device *dev = &a->devices[i];
-        size_t k = d->first[dev->split + 1]++;
+        d->first[s + 1] = d->first[s] + split_cap(a, s);
+    size_t total = d->first[a->n_splits] ? d->first[a->n_splits] : 1;
+    d->values_V = malloc(total * sizeof *d->values_V);
+    d->flagged = malloc(total);
+    d->labels = malloc(total * sizeof *d->labels);
+    d->text = malloc(total * sizeof *d->text);
+    return d->values_V && d->flagged && d->labels && d->text ? SL_OK : SL_ENOMEM;
+}
+
+/* One pass over the devices. */
+static sl_status hyst_build(hyst_data *d, report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    sl_status st = hyst_alloc(d, a);
+    const sl_analyze_device *dev;
+    while (st == SL_OK && (st = report_next_device(c, &dev)) == SL_OK && dev) {
+        if (dev->split < 0 || (size_t)dev->split >= a->n_splits || !isfinite(dev->hysteresis_V))
+            continue;
+        size_t s = (size_t)dev->split;
+        if (d->n[s] >= split_cap(a, s)) {
+            d->not_drawn++;
+            continue;
+        }
+        size_t k = d->first[s] + d->n[s]++;
         d->values_V[k] = dev->hysteresis_V;
         d->flagged[k] = (dev->flags & SL_FLAG_HYSTERESIS) != 0;
         snprintf(d->text[k], HYST_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
         d->labels[k] = d->text[k];
     }
-    return SL_OK;
+    return st;
 }
 
 /* Splits of one dielectric with at least one hysteresis value. */
@@ -64,14 +85,16 @@ static size_t fill(sl_chart_category *cats, const sl_analysis *a, const hyst_dat
 {
     size_t count = 0;
     for (size_t s = 0; s < a->n_splits; s++) {
-        size_t with = 0;
-        for (size_t i = d->first[s]; i < d->first[s + 1]; i++)
-            with += isfinite(d->values_V[i]);
-        if (a->plan->splits[s].dielectric != k || with == 0)
+        if (a->plan->splits[s].dielectric != k || d->n[s] == 0)
             continue;
-        cats[count++] = (sl_chart_category){ a->plan->splits[s].name, d->values_V + d->first[s],
-                                             d->flagged + d->first[s], d->labels + d->first[s],
-                                             d->first[s + 1] - d->first[s], { NAN, NAN } };
+        sl_chart_category *cat = &cats[count++];
+        memset(cat, 0, sizeof *cat);
+        cat->name = a->plan->splits[s].name;
+        cat->values = d->values_V + d->first[s];
+        cat->flagged = d->flagged + d->first[s];
+        cat->labels = d->labels + d->first[s];
+        cat->count = d->n[s];
+        cat->predicted = (sl_est){ NAN, NAN };
     }
     return count;
 }
@@ -103,9 +126,12 @@ sl_status sl_report_section_hysteresis(report_ctx *c)
         return SL_OK;
     hyst_data d;
     sl_chart_category *cats = malloc((a->n_splits + 1) * sizeof *cats);
-    if (!cats || hyst_build(&d, a) != SL_OK) {
+    sl_status st = cats ? hyst_build(&d, c) : SL_ENOMEM;
+    if (st != SL_OK) {
+        if (cats)
+            hyst_free(&d);
         free(cats);
-        return SL_ENOMEM;
+        return st;
     }
     c->has_hysteresis = 1;
     sl_report_section_open(c->buf, "hysteresis", "Hysteresis of double sweeps");
@@ -123,6 +149,10 @@ sl_status sl_report_section_hysteresis(report_ctx *c)
                             "(<code>device.max_hysteresis_V</code>).</p>\n");
     for (size_t k = 0; k < a->plan->n_dielectrics; k++)
         chart(c, &d, cats, k);
+    if (d.not_drawn > 0)
+        sl_chart_buf_printf(c->buf, "<p class=\"note\">%zu devices beyond the first %d of "
+                            "their split are not drawn.</p>\n", d.not_drawn,
+                            SL_REPORT_STRIP_POINTS_MAX);
     sl_report_section_close(c->buf);
     hyst_free(&d);
     free(cats);

@@ -43,6 +43,10 @@ typedef struct {
     int keep_going;            /* store the good devices of a file with problems */
     const char *rejects_path;  /* with keep_going: the rejected devices' rows, as
                                   the file wrote them, plus a reason column; or NULL */
+    /* sweeps: the gate's carrier density from the charge balance with
+     * quantum capacitance at each device's temperature (default), or the
+     * short form C_g (V_g - V_cnp) / e */
+    sl_fit_density_model density_model;
     /* called now and then from the importing thread; may be NULL */
     void (*progress)(const sl_ingest_progress *progress, void *ctx);
     void *progress_ctx;
