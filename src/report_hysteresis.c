@@ -107,8 +107,13 @@ static void chart(report_ctx *c, const hyst_data *d, sl_chart_category *cats, si
     const char *name = c->a->plan->dielectrics[k].name;
     char title[160];
     snprintf(title, sizeof title, "Hysteresis by split, dielectric %s", name);
+    /* bands wide enough for upright split names (6 px a character) */
+    size_t longest = 0;
+    for (size_t i = 0; i < count; i++)
+        longest = strlen(cats[i].name) > longest ? strlen(cats[i].name) : longest;
+    double band = fmax(120.0, 6.0 * (double)longest / 0.9 + 4.0);
     sl_chart_frame frame;
-    double width = fmin(fmax(420.0, 200.0 + 120.0 * (double)count), 1000.0);
+    double width = fmin(fmax(420.0, 260.0 + band * (double)count), 1000.0); /* + legend, axes */
     sl_chart_frame_default(&frame, width, 330.0, title);
     frame.embed_style = 0;
     sl_chart_buf_printf(c->buf, "<div class=\"stack\" data-dielectric=\"%zu\">\n<h3>", k);
