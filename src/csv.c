@@ -999,6 +999,66 @@ static bool short_number_e(double *out, const char *s, size_t len, int exp10)
 }
 #endif
 
+/* A token of up to 24 bytes, [+-] digits [point digits] [(e|E) [+-] d{1,3}]
+ * with at most 15 significant digits (so the integer of its digits is
+ * exact) and a power of ten within 10^22 once the exponent, the point and
+ * exp10 are joined: one exact multiplication or division, rounded once.
+ * comma_point lets ',' stand for the point. Returns false for any other
+ * token, which parse_number_e then decides (blanks, long mantissas). */
+static bool plain_number(double *out, const char *s, size_t len, int exp10, bool comma_point)
+{
+#if FLT_EVAL_METHOD != 0
+    return false; /* one division is not one rounding where doubles are evaluated wider */
+#endif
+    if (len == 0 || len > 24)
+        return false;
+    size_t i = 0;
+    bool negative = s[0] == '-';
+    i += negative || s[0] == '+';
+    uint64_t m = 0;
+    int sig = 0, frac = 0, digits = 0;
+    bool point = false;
+    for (; i < len; i++) {
+        unsigned d = digit_value(s[i]);
+        if (d < 10) {
+            digits++;
+            frac += point;
+            if (m == 0 && d == 0)
+                continue; /* a leading zero is no significant digit */
+            if (++sig > 15)
+                return false;
+            m = 10u * m + d;
+        } else if (!point && (s[i] == '.' || (comma_point && s[i] == ','))) {
+            point = true;
+        } else {
+            break;
+        }
+    }
+    if (digits == 0)
+        return false;
+    long e = (long)exp10 - frac;
+    if (i < len) {
+        if (s[i] != 'e' && s[i] != 'E')
+            return false;
+        i++;
+        bool neg_exp = i < len && s[i] == '-';
+        i += i < len && (s[i] == '-' || s[i] == '+');
+        size_t start = i;
+        long x = 0;
+        for (; i < len && i - start < 3 && digit_value(s[i]) < 10; i++)
+            x = 10 * x + (long)digit_value(s[i]);
+        if (i == start || i != len)
+            return false;
+        e += neg_exp ? -x : x;
+    }
+    if (e < -22 || e > 22)
+        return false;
+    double v = (double)m;
+    v = e < 0 ? v / exact_pow10[-e] : v * exact_pow10[e];
+    *out = negative ? -v : v;
+    return true;
+}
+
 /* A token of the form M e X, M a short_number token of at most 8 bytes and X
  * an exponent of at most three digits ("1.234567e-05", the way meters write
  * currents): the exponent joins the scale of short_number_e, so the value is
@@ -1054,6 +1114,8 @@ bool sl_csv_parse_double_e(double *out, const char *token, size_t len, int exp10
         if (short_exp_number(out, word, len, exp10))
             return true;
     }
+    if (plain_number(out, token, len, exp10, decimal_comma))
+        return true;
     return parse_number_e(out, token, len, exp10, decimal_comma) == NUM_OK;
 }
 
@@ -1090,7 +1152,8 @@ sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *d
         /* a field lies in the buffer, so a word from its start is readable */
         if (f->len - 1u < WORD_BYTES && short_number(out, csv->buf + f->off, f->len))
             return SL_OK;
-        if (short_exp_number(out, csv->buf + f->off, f->len, 0))
+        if (short_exp_number(out, csv->buf + f->off, f->len, 0) ||
+            plain_number(out, csv->buf + f->off, f->len, 0, csv->decimal_comma))
             return SL_OK;
     }
     return general_number(out, csv, field, 0, diag);
@@ -1105,7 +1168,8 @@ sl_status sl_csv_number_e(double *out, const sl_csv *csv, size_t field, int exp1
         const field_span *f = &csv->fields[field];
         if (f->len - 1u < WORD_BYTES && short_number_e(out, csv->buf + f->off, f->len, exp10))
             return SL_OK;
-        if (short_exp_number(out, csv->buf + f->off, f->len, exp10))
+        if (short_exp_number(out, csv->buf + f->off, f->len, exp10) ||
+            plain_number(out, csv->buf + f->off, f->len, exp10, csv->decimal_comma))
             return SL_OK;
     }
     return general_number(out, csv, field, exp10, diag);
