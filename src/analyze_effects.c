@@ -120,11 +120,11 @@ static size_t wafers_at(const wafer_means *m, size_t nf, size_t factor, size_t l
 }
 
 void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
-                               const size_t *reference_levels)
+                               const size_t *reference_levels, size_t stride)
 {
     size_t k = (size_t)snprintf(buf, size, "baseline");
     for (size_t f = 0; f < plan->n_factors && k < size; f++) {
-        size_t l = reference_levels[f];
+        size_t l = reference_levels ? reference_levels[f * stride] : 0;
         if (f > 0 && plan->factors[f].level_ref[l] < 0)
             continue; /* 'none' adds nothing */
         k += (size_t)snprintf(buf + k, size - k, " + %s", plan->factors[f].levels[l]);
@@ -137,15 +137,13 @@ static void intercept_effect(sl_analysis *a, sl_analyze_effect *e, const level_m
     const sl_plan *plan = a->plan;
     double planned = plan->baseline_doping_per_cm2.val;
     double var = plan->baseline_doping_per_cm2.sigma * plan->baseline_doping_per_cm2.sigma;
-    size_t refs[64] = { 0 };
     for (size_t f = 0; f < plan->n_factors; f++) {
         sl_est ref = sl_analyze_planned_level(plan, f, plan_level(map, f, 0));
         planned += ref.val;
         var += ref.sigma * ref.sigma;
-        if (f < sizeof refs / sizeof refs[0])
-            refs[f] = plan_level(map, f, 0);
     }
-    sl_analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan, refs);
+    sl_analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan,
+                              map->old_of_new, map->stride);
     e->factor = "intercept";
     e->level = a->intercept_name;
     e->reference = plan->factors[0].levels[plan_level(map, 0, 0)];

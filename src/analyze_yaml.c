@@ -85,11 +85,8 @@ static void emit_baseline(FILE *out, const sl_history *h)
 {
     const sl_plan *p = h->newest_plan;
     char name[256];
-    size_t refs[64] = { 0 }; /* every factor's level 0 */
-    sl_analyze_intercept_name(name, sizeof name, p, refs);
-    const sl_history_level *l = p->n_factors <= 64 ? history_level(h, "intercept", name,
-                                                                   p->factors[0].levels[0])
-                                                   : NULL;
+    sl_analyze_intercept_name(name, sizeof name, p, NULL, 0); /* every factor's level 0 */
+    const sl_history_level *l = history_level(h, "intercept", name, p->factors[0].levels[0]);
     sl_est v = p->baseline_doping_per_cm2;
     if (l) {
         v.val = l->pooled.value;
