@@ -45,13 +45,15 @@ typedef struct {
                                     the MAD pooled over its dielectric's wafers */
     double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
     double mobility_cm2_per_Vs;
+    long n_points;               /* of its stored sweep; 0 for results rows */
     unsigned flags;
     double severity;             /* for ordering the failure-analysis list */
     char reason[192];            /* the flag in words; "" when not flagged */
     /* the measurement shown (the newest of the view) and its device */
     long run_id;
     long measurements;           /* the device's measurements in the view */
-    const char *fit_model;       /* "symmetric", "two-mobility", "" for results */
+    const char *fit_model;       /* "symmetric", "two-mobility", with "/qc" when
+                                    fitted with the charge balance; "" for results */
     double n0_per_cm2, r_contact_ohm, hysteresis_V;   /* NaN when not measured */
     double floor_predicted_per_cm2; /* the split's thermal floor at the view's temperature */
     double channel_length_um, channel_width_um;       /* the device's, else the plan's */
@@ -70,6 +72,10 @@ typedef struct {
     double spread_V;             /* device spread about the wafer medians: its
                                     dielectric's pooled MAD / 0.6745 */
     double bias_V;               /* mean - predicted */
+    /* The interval outside which a device is flagged off-prediction:
+     * predicted +/- SL_ANALYZE_INTERVAL_SIGMAS sqrt(sigma_pred^2 +
+     * spread^2), spread as above. */
+    double flag_low_V, flag_high_V;
     int prediction_in_ci;
     size_t n_flagged;
 } sl_analyze_split;
