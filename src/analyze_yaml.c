@@ -109,6 +109,8 @@ static void emit_variation(FILE *out, const sl_history *h)
         fprintf(out, "  wafer_sigma_per_cm2: %.4g\n", h->wafer_sigma_per_cm2);
     if (isfinite(h->device_sigma_V))
         fprintf(out, "  device_sigma_V: %.4g\n", h->device_sigma_V);
+    if (isfinite(h->batch_sigma_per_cm2))
+        fprintf(out, "  batch_sigma_per_cm2: %.4g\n", h->batch_sigma_per_cm2);
 }
 
 static void emit_materials(FILE *out, const sl_plan *p)
