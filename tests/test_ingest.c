@@ -1097,7 +1097,7 @@ static double median_bias(density_tally *t)
  * within 3 %, contact resistance within 5 % and n0 within 10 % for 95 % of
  * the good devices of both stacks and stores the model as 'symmetric/qc';
  * the short form (--density-model short) reads the Al2O3 mobility more than
- * 10 % low (median; DESIGN.md section 2 puts it near 18 %). */
+ * 10 % low (median; docs/physics.md puts it near 18 %). */
 START_TEST(density_model_on_two_stacks)
 {
     char *dir = sl_test_tmpdir();
