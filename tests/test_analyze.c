@@ -844,6 +844,52 @@ START_TEST(test_censored_lot_end_to_end)
 }
 END_TEST
 
+/* A plan with a batched step (plans/rf-highk-topgate.yaml: the anneal
+ * pda-400 in furnace loads of six wafers): compare fits the loads as a
+ * random effect, so each level's df is the one layout planned from the same
+ * assignment (the load the unit of the batched level: 10, the wafer of the
+ * others: 20), the load scatter is reported, and --emit-yaml measures it. */
+START_TEST(test_batched_lot_df_as_planned)
+{
+    char *dir = sl_test_tmpdir(), *plan = sl_test_path(SL_SOURCE_DIR, "plans/rf-highk-topgate.yaml");
+    char row[2048], lrow[2048];
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *simulate[] = { "simulate", plan, "--out", "sim", "--no-sweeps", NULL };
+    run_quiet(dir, simulate);
+    const char *ingest[] = { "ingest", "--lot", "RFTG-07", "--results", "sim/results.csv", "--db",
+                             "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "RFTG-07", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result c = run_ok(dir, compare);
+    const char *layout[] = { "layout", plan, "--format", "json", NULL };
+    sl_run_result l = run_ok(dir, layout);
+    static const char *const levels[] = { "zro8", "uv-ozone-60s", "pda-400" };
+    for (size_t i = 0; i < N_OF(levels); i++) {
+        json_row_where(c.out, "effects", "level", levels[i], row, sizeof row);
+        json_row_where(l.out, "levels", "level", levels[i], lrow, sizeof lrow);
+        ck_assert_msg(json_num(row, "df") == json_num(lrow, "df"), "%s: df %g, planned %g",
+                      levels[i], json_num(row, "df"), json_num(lrow, "df"));
+    }
+    json_row_where(c.out, "effects", "level", "pda-400", row, sizeof row);
+    /* 12 annealed wafers in 2 loads + 12 wafers outside loads = 14 units - 4 coefficients */
+    ck_assert_double_eq(json_num(row, "df"), 10.0);
+    json_row_where(c.out, "effects", "level", "zro8", row, sizeof row);
+    ck_assert_double_eq(json_num(row, "df"), 20.0); /* 24 wafers - 4 coefficients */
+    ck_assert(json_num(c.out, "batch_sigma_per_cm2") >= 0.0);
+    const char *emit[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
+    sl_run_result y = run_ok(dir, emit);
+    ck_assert_ptr_nonnull(strstr(y.out, "\n  batch_sigma_per_cm2: "));
+    sl_run_result_free(&y);
+    sl_run_result_free(&l);
+    sl_run_result_free(&c);
+    free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 START_TEST(test_end_to_end_off_plan_and_faults)
 {
     static const char *const seeds[] = { "3", "17", "2029" };
@@ -1555,6 +1601,7 @@ static Suite *analyze_suite(void)
     tcase_set_timeout(lots, 300);
     tcase_add_test(lots, test_end_to_end_off_plan_and_faults);
     tcase_add_test(lots, test_censored_lot_end_to_end);
+    tcase_add_test(lots, test_batched_lot_df_as_planned);
     tcase_add_test(lots, test_history_flags_drift);
     tcase_add_test(lots, test_emit_yaml_round_trip);
     tcase_add_test(lots, test_emit_yaml_quotes_names);

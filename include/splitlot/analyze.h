@@ -121,6 +121,8 @@ typedef struct sl_analysis {
     double outliers_expected;    /* good devices it flags by chance: 2 Q(3.5) n */
     double device_sigma_V;       /* pooled within-wafer SD of V_cnp (NaN: none) */
     double wafer_sigma_per_cm2;  /* wafer-to-wafer SD of doping, from the fit */
+    double load_sigma_per_cm2;   /* load-to-load SD of a batched step (REML);
+                                    NaN without batches */
     char intercept_name[256];    /* "baseline + <reference levels>", the
                                     intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
@@ -243,8 +245,10 @@ typedef struct sl_history {
     sl_plan *newest_plan;        /* for calibrated YAML */
     double wafer_sigma_per_cm2;  /* RMS over the lots of their wafer sigma */
     double device_sigma_V;       /* RMS over the lots of their device sigma */
-    double wafer_var_sum, device_var_sum;
-    size_t n_wafer_sigma, n_device_sigma;
+    double batch_sigma_per_cm2;  /* RMS over the lots with batches of their load
+                                    sigma; NaN when none had batches */
+    double wafer_var_sum, device_var_sum, batch_var_sum;
+    size_t n_wafer_sigma, n_device_sigma, n_batch_sigma;
 } sl_history;
 
 /* Effects of every lot in the store, grouped by level. */
