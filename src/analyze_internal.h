@@ -51,6 +51,11 @@ sl_status sl_analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
 sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
                              const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4);
 
+/* A level's lots judged in order (drift from the second lot on, against the
+ * random-effects pool of the lots before it that did not drift), its pool
+ * and its chart: points[] (estimates and SEs) in, everything else out. */
+sl_status sl_analyze_history_level(sl_history_level *l);
+
 /* "baseline + ox90" (+ each other factor's reference level but 'none'):
  * the name of the intercept, levels given per factor. */
 void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,

@@ -59,11 +59,12 @@ static int is_usable(const sl_store_device_row *r)
 
 /* ---- the view, the plan and what its revision stored ---- */
 
-/* The view's temperature among the stored ones: its index, or -1. */
+/* A temperature among the stored ones (within 0.5 K, as an import takes
+ * them): its index, or -1. */
 static long temperature_index(const sl_store_revision *rev, double temperature_K)
 {
     for (size_t t = 0; t < rev->n_temperatures; t++)
-        if (rev->temperatures_K[t] == temperature_K)
+        if (fabs(rev->temperatures_K[t] - temperature_K) <= 0.5)
             return (long)t;
     return -1;
 }
@@ -78,15 +79,12 @@ static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
     if (st != SL_OK)
         return st;
     st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
-                               newest.temperatures_K, newest.n_temperatures, diag);
-    if (st == SL_OK && view && view->step)
-        snprintf(a->step, sizeof a->step, "%s", view->step);
+                               view ? view->step : NULL, newest.temperatures_K,
+                               newest.n_temperatures, diag);
     if (st == SL_OK && view && !isnan(view->temperature_K)) {
-        a->temperature_K = view->temperature_K;
-        if (view->step == NULL)
-            st = sl_store_default_view(store, a->step, &(double){ 0 }, a->lot.lot_id,
-                                       &a->temperature_K, 1, diag);
-        if (st == SL_OK && temperature_index(&newest, a->temperature_K) < 0) {
+        long t = temperature_index(&newest, view->temperature_K);
+        a->temperature_K = t >= 0 ? newest.temperatures_K[t] : view->temperature_K;
+        if (t < 0) {
             char allowed[256];
             size_t k = 0;
             for (size_t t = 0; t < newest.n_temperatures && k < sizeof allowed; t++)
@@ -256,6 +254,7 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
                                                        : r->channel_length_um;
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
                                                      : r->channel_width_um;
+    d->n_points = r->n_points;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
@@ -517,8 +516,14 @@ static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
             sl_stats_robust_from(&g->robust, g->n, 0.0, g->mad_V, g->sum_abs_V / (double)g->n);
     }
     /* the device spread of the off-prediction interval: about the wafer medians */
-    for (size_t k = 0; k < a->n_splits; k++)
-        a->splits[k].spread_V = dielectric_of(s, (long)k)->robust.scale;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        sl_analyze_split *sp = &a->splits[k];
+        sp->spread_V = dielectric_of(s, (long)k)->robust.scale;
+        /* the interval score_device flags against, for the report to draw */
+        double half = SL_ANALYZE_INTERVAL_SIGMAS * hypot(sp->cnp_predicted_sigma_V, sp->spread_V);
+        sp->flag_low_V = sp->cnp_predicted_V - half;
+        sp->flag_high_V = sp->cnp_predicted_V + half;
+    }
     return st;
 }
 

@@ -222,15 +222,28 @@ static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
     dev->p.r_contact_ohm = 400.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
 }
 
+/* The transfer curve with n_g from the charge balance solved at vg, at the
+ * measurement temperature (K). */
+static double transfer_ohm(const sim_ctx *c, const sim_wafer *w, const sl_fit_params *p,
+                           double temperature_K, double vg)
+{
+    double vf = c->plan->fermi_velocity_m_s, mu = 0.0;
+    if (sl_physics_solve_fermi_J(&mu, vg, p->cnp_V, w->cg, temperature_K, vf) != SL_OK)
+        return NAN;
+    double ng = sl_physics_net_density_per_m2(mu, temperature_K, vf);
+    return sl_fit_model_at_density_ohm(p, &w->fit, ng);
+}
+
 static double sweep_point_ohm(gsl_rng *rng, const sim_ctx *c, const sim_wafer *w,
-                              const sl_fit_params *p, device_kind kind, double vg)
+                              const sl_fit_params *p, device_kind kind, double temperature_K,
+                              double vg)
 {
     double noise = 1.0 + gsl_ran_gaussian(rng, c->opt->noise_rel);
     switch (kind) {
     case DEV_SHORT: return 5.0 * noise;
     case DEV_OPEN: return 5.0e10 * noise;
     case DEV_POOR: return 1.0e4 * (1.0 + gsl_ran_gaussian(rng, 0.3));
-    default: return sl_fit_model_ohm(p, &w->fit, vg) * noise;
+    default: return transfer_ohm(c, w, p, temperature_K, vg) * noise;
     }
 }
 
@@ -263,7 +276,7 @@ static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev, s
     for (long i = 0; i < n; i++) {
         double vg = w->gate_min_V + (w->gate_max_V - w->gate_min_V) * (double)i / (double)(n - 1);
         fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g,%g\n", wafer, dev->number, dev->die_x,
-                dev->die_y, vg, sweep_point_ohm(rng, c, w, &p, dev->kind, vg),
+                dev->die_y, vg, sweep_point_ohm(rng, c, w, &p, dev->kind, c->plan->temperatures_K[t], vg),
                 c->plan->temperatures_K[t]);
     }
     c->sum->sweep_rows += n;

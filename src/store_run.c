@@ -169,12 +169,10 @@ static int has_run(sl_store *store, long lot_id, const char *step, double temper
     return found;
 }
 
-sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
-                                long lot_id, const double *temperatures_K, size_t n_temperatures,
-                                sl_diag *diag)
+/* The step of the lot's newest run into step; "final" without runs. */
+static sl_status newest_step(sl_store *store, char step[65], long lot_id, sl_diag *diag)
 {
     snprintf(step, 65, "final");
-    *temperature_K = n_temperatures ? temperatures_K[0] : 300.0;
     sqlite3_stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT step FROM measurement_run WHERE lot_id = ?1 ORDER BY id DESC LIMIT 1", diag);
@@ -185,8 +183,23 @@ sl_status sl_store_default_view(sl_store *store, char step[65], double *temperat
     if (rc == SQLITE_ROW)
         snprintf(step, 65, "%s", (const char *)sqlite3_column_text(st, 0));
     sqlite3_finalize(st);
-    if (rc != SQLITE_ROW)
-        return rc == SQLITE_DONE ? SL_OK : sl_store_db_error(store, diag, "look up the lot's runs");
+    return rc == SQLITE_ROW || rc == SQLITE_DONE ? SL_OK
+                                                 : sl_store_db_error(store, diag, "look up the lot's runs");
+}
+
+sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
+                                long lot_id, const char *want_step,
+                                const double *temperatures_K, size_t n_temperatures,
+                                sl_diag *diag)
+{
+    *temperature_K = n_temperatures ? temperatures_K[0] : 300.0;
+    sl_status s = SL_OK;
+    if (want_step)
+        snprintf(step, 65, "%s", want_step);
+    else
+        s = newest_step(store, step, lot_id, diag);
+    if (s != SL_OK)
+        return s;
     for (size_t i = 0; i < n_temperatures; i++) {
         int found = has_run(store, lot_id, step, temperatures_K[i], diag);
         if (found < 0)

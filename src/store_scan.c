@@ -41,7 +41,7 @@ static const char scratch_tables_sql[] =
     "fit_class TEXT NOT NULL, fit_model TEXT, cnp_V REAL, die_x INTEGER NOT NULL, "
     "die_y INTEGER NOT NULL, mobility_cm2_per_Vs REAL, n0_per_cm2 REAL, r_contact_ohm REAL, "
     "hysteresis_V REAL, channel_length_um REAL, channel_width_um REAL, "
-    "measurements INTEGER NOT NULL);"
+    "measurements INTEGER NOT NULL, n_points INTEGER NOT NULL);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_value (grp INTEGER NOT NULL, "
     "cnp_V REAL NOT NULL);"
     "CREATE TEMP TABLE IF NOT EXISTS sl_scratch_rank (severity REAL NOT NULL, "
@@ -63,12 +63,13 @@ static const char view_sql[] =
 static const char keep_sql[] =
     "INSERT INTO temp.sl_scratch_kept (grp, tag, measurement_id, device_id, run_id, wafer, "
     "device, fit_class, fit_model, cnp_V, die_x, die_y, mobility_cm2_per_Vs, n0_per_cm2, "
-    "r_contact_ohm, hysteresis_V, channel_length_um, channel_width_um, measurements) "
+    "r_contact_ohm, hysteresis_V, channel_length_um, channel_width_um, measurements, "
+    "n_points) "
     "SELECT ?3, ?4, m.id, d.id, m.run_id, ?2, d.name, m.fit_class, m.fit_model, m.cnp_V, "
     "d.die_x, d.die_y, m.mobility_cm2_per_Vs, m.n0_per_cm2, m.r_contact_ohm, m.hysteresis_V, "
     "d.channel_length_um, d.channel_width_um, "
     "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id "
-    "AND c.run_id IN temp.sl_scratch_run) "
+    "AND c.run_id IN temp.sl_scratch_run), coalesce(m.n_points, 0) "
     "FROM device d JOIN measurement m ON m.id = (SELECT c.id FROM measurement c "
     "WHERE c.device_id = d.id AND c.run_id IN temp.sl_scratch_run ORDER BY c.run_id DESC LIMIT 1) "
     "WHERE d.lot_id = ?1 AND d.wafer = ?2 "
@@ -78,7 +79,7 @@ static const char keep_sql[] =
     "c.grp, c.tag, c.rowid, c.measurement_id, c.device_id, c.run_id, c.wafer, c.device, " \
     "c.fit_class, coalesce(c.fit_model, ''), c.cnp_V, c.die_x, c.die_y, "                 \
     "c.mobility_cm2_per_Vs, c.n0_per_cm2, c.r_contact_ohm, c.hysteresis_V, "              \
-    "c.channel_length_um, c.channel_width_um, c.measurements"
+    "c.channel_length_um, c.channel_width_um, c.measurements, c.n_points"
 static const char kept_sql[] =
     "SELECT " KEPT_COLUMNS " FROM temp.sl_scratch_kept c ORDER BY c.rowid";
 static const char keep_values_sql[] =
@@ -108,6 +109,7 @@ static void read_kept(sl_store_scratch *x, sqlite3_stmt *st, long *group, long *
     memset(r, 0, sizeof *r);
     r->temperature_K = x->temperature_K;
     r->cnp_sigma_V = r->rel_rms = r->r_squared = NAN;
+    r->electron_mobility_cm2_per_Vs = r->hole_mobility_cm2_per_Vs = NAN;
     *group = (long)sqlite3_column_int64(st, 0);
     *tag = (long)sqlite3_column_int64(st, 1);
     x->last_kept = (long)sqlite3_column_int64(st, 2);
@@ -126,6 +128,7 @@ static void read_kept(sl_store_scratch *x, sqlite3_stmt *st, long *group, long *
     for (int i = 0; i < 6; i++)
         *numbers[i] = sl_store_column_real_or_nan(st, 13 + i);
     r->measurements = (long)sqlite3_column_int64(st, 19);
+    r->n_points = (long)sqlite3_column_int64(st, 20);
 }
 
 static sl_status pragma_value(sl_store *store, long *value, const char *sql, sl_diag *diag)

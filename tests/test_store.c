@@ -435,6 +435,10 @@ START_TEST(sweep_round_trip_exact)
     const size_t n = sizeof vg / sizeof vg[0];
     sl_diag *diag = sl_diag_new();
     sl_store_device d = device_named("W01", "D007");
+    d.fit_model = "two-mobility";
+    d.electron_mobility_cm2_per_Vs = 2500.0;
+    d.hole_mobility_cm2_per_Vs = 1800.0;
+    d.hysteresis_V = 0.25;
     d.vg_V = vg;
     d.r_ohm = r;
     d.n_points = n;
@@ -487,6 +491,10 @@ START_TEST(sweep_round_trip_exact)
     ck_assert_double_eq(rows[0].cnp_V, 1.25);
     ck_assert_double_eq(rows[0].r_contact_ohm, 0.0);
     ck_assert(isnan(rows[0].cnp_sigma_V) && isnan(rows[0].rel_rms) && isnan(rows[0].r_squared));
+    ck_assert_str_eq(rows[0].fit_model, "two-mobility");
+    ck_assert(rows[0].electron_mobility_cm2_per_Vs == 2500.0 &&
+              rows[0].hole_mobility_cm2_per_Vs == 1800.0 && rows[0].hysteresis_V == 0.25);
+    ck_assert(isnan(rows[0].channel_length_um) && rows[0].measurements == 1);
     free(rows);
     ck_assert_int_eq(sl_store_load_sweep(s.store, &vg2, &r2, &n2, id + 1000, diag), SL_ENOTFOUND);
     sl_diag_free(diag);
@@ -1257,8 +1265,8 @@ START_TEST(migration_from_version_3_keeps_every_device)
     char step[65];
     double t = 0;
     const double temperatures[] = { 300.0 };
-    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, temperatures, 1, diag),
-                     SL_OK);
+    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, NULL, temperatures, 1,
+                                           diag), SL_OK);
     ck_assert(strcmp(step, "final") == 0 && t == 300.0);
     sl_store_device_row *rows = NULL;
     ck_assert_int_eq(sl_store_load_devices(store, &rows, &n, lot.lot_id, step, t, diag), SL_OK);

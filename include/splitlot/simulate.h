@@ -5,6 +5,9 @@
  * per-wafer and per-device doping scatter from the plan's variation block,
  * mobility, residual density and contact
  * resistance, measurement noise, and a few faulty devices of each kind.
+ * Sweeps follow the transfer curve with the gate's density from the charge
+ * balance with quantum capacitance, solved at every point at the
+ * measurement temperature.
  * Writes results.csv, sweeps.csv and the truth (truth.csv, levels.csv).
  */
 #ifndef SPLITLOT_SIMULATE_H

@@ -295,6 +295,13 @@ static void add_notes(cli_doc *doc, const sl_analysis *a)
              "as-planned inside [-T, T], off-plan entirely outside, differs excludes 0 only, "
              "inconclusive otherwise.");
     cli_doc_note(doc, text);
+    if (a->n_wafers_censored_biased) {
+        snprintf(text, sizeof text,
+                 "%zu wafer(s) with devices beyond the sweep have no device scatter to fit a "
+                 "censored mean with: their means are those of the devices inside the sweep, "
+                 "biased towards it.", a->n_wafers_censored_biased);
+        cli_doc_note(doc, text);
+    }
     snprintf(text, sizeof text,
              "outliers: |modified z| > 3.5 of the residual from the wafer median (MAD pooled per "
              "dielectric) flags about %.2g of these %zu devices by chance even when all are good.",
