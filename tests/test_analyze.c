@@ -591,6 +591,72 @@ START_TEST(test_off_prediction_without_spread)
 }
 END_TEST
 
+/* ---- the residual density against the thermal floor -------------------------- */
+
+static size_t count_of(const char *text, const char *needle)
+{
+    size_t n = 0;
+    for (const char *p = strstr(text, needle); p; p = strstr(p + 1, needle))
+        n++;
+    return n;
+}
+
+/* The stats lot with residual densities: S01/D1 fitted at 3e10 cm^-2, below
+ * the thermal floor at 300 K, n_th = (pi/6)(k_B T / hbar v_F)^2 = 8.077e10
+ * cm^-2 (Fang et al., Appl. Phys. Lett. 91, 092109 (2007), about 8e10 at
+ * 300 K); S01/D2 at 8.2e10, just above; every other device at 2e11. Only
+ * D1 is flagged "below-floor", it keeps its place in its wafer's mean, and
+ * every device's floor_predicted_per_cm2 is sqrt(n_th^2 + n*^2) with the
+ * plan's n* = 1.5e11: 1.7036e11 (hand arithmetic). */
+START_TEST(test_residual_below_thermal_floor_flagged)
+{
+    char *dir = sl_test_tmpdir();
+    char *src = sl_test_data("analyze/stats-results.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *path = sl_test_path(dir, "results.csv");
+    size_t cap = strlen(text) * 2 + 64, n = 0;
+    char *out = malloc(cap);
+    char *save = NULL;
+    for (char *line = strtok_r(text, "\n", &save); line; line = strtok_r(NULL, "\n", &save)) {
+        const char *n0 = strncmp(line, "wafer,", 6) == 0   ? "n0_per_cm2"
+                         : strncmp(line, "S01,D1,", 7) == 0 ? "3e10"
+                         : strncmp(line, "S01,D2,", 7) == 0 ? "8.2e10"
+                                                            : "2e11";
+        n += (size_t)snprintf(out + n, cap - n, "%s,%s\n", line, n0);
+    }
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    char *plan = sl_test_data("analyze/stats-lot.yaml");
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", "results.csv", "--db",
+                             "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result r = run_ok(dir, compare);
+    char row[4096];
+    json_row_where(r.out, "devices", "device", "D1", row, sizeof row); /* S01 comes first */
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\""));
+    ck_assert_ptr_nonnull(strstr(row, "\"below-floor\""));
+    check_rel("floor_predicted_per_cm2", json_num(row, "floor_predicted_per_cm2"), 1.7036e11, 1e-4);
+    json_row_where(r.out, "devices", "device", "D2", row, sizeof row);
+    ck_assert_ptr_null(strstr(row, "below-floor"));
+    ck_assert_int_eq((int)count_of(r.out, "\"below-floor\""), 1);
+    json_row_where(r.out, "failure_analysis", "reason",
+                   "residual density 3e+10 cm^-2 below the thermal floor 8.08e+10 cm^-2 at 300 K "
+                   "(the fit or the temperature is wrong)", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\", \"device\": \"D1\""));
+    sl_run_result_free(&r);
+    free(out);
+    free(text);
+    free(src);
+    free(path);
+    free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 /* ---- the streamed analysis gives what the in-memory one gave ------------------- */
 
 /* compare of the two fixture lots in every format, byte for byte against
@@ -1586,6 +1652,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);
+    tcase_add_test(stats, test_residual_below_thermal_floor_flagged);
     tcase_add_test(stats, test_stream_reads_back_the_lot);
     suite_add_tcase(s, stats);
     TCase *mc = tcase_create("monte carlo");
