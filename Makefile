@@ -60,7 +60,7 @@ asan: deps-test
 
 # the import's reading, fitting and writing threads (tests spawn the TSan-built binary);
 # a race makes the program exit 66, which fails the test
-TSAN_SUITES ?= test_ingest|test_reliability
+TSAN_SUITES ?= test_ingest|test_reliability|test_layout
 tsan: deps-test
 	@echo "building in build-tsan/ (log: build-tsan/build.log)"
 	@mkdir -p build-tsan

@@ -232,32 +232,57 @@ START_TEST(df_and_power_per_level)
 }
 END_TEST
 
-/* wafers_per_split_needed is the smallest: a plan with that many wafers per
- * split reaches the wanted power, one fewer does not. */
-START_TEST(wafers_needed_is_smallest)
+/* Give a full-factorial plan enough wafers for w per split. */
+static void wafers_for(sl_plan *plan, long w)
 {
-    sl_plan *plan = load_example("rf-highk-topgate.yaml");
-    sl_layout *l = build(plan);
-    long need = l->levels[2].wafers_per_split_needed;
-    ck_assert_int_gt(need, 3);
-    sl_layout_free(l);
-    plan->wafers_per_split = need;
-    plan->n_wafers = 8 * (size_t)need; /* the first wafers of the list suffice */
-    char **more = realloc(plan->wafers, plan->n_wafers * sizeof *more);
+    size_t need = plan->n_splits * (size_t)w;
+    plan->wafers_per_split = w;
+    if (need <= plan->n_wafers)
+        return;
+    char **more = realloc(plan->wafers, need * sizeof *more);
     ck_assert_ptr_nonnull(more);
     plan->wafers = more;
-    for (size_t i = 25; i < plan->n_wafers; i++) {
+    for (size_t i = plan->n_wafers; i < need; i++) {
         plan->wafers[i] = malloc(32);
         snprintf(plan->wafers[i], 32, "X%02zu", i);
     }
-    l = build(plan);
-    ck_assert(l->levels[2].power >= 0.9);
-    sl_layout_free(l);
-    plan->wafers_per_split = need - 1;
-    l = build(plan);
-    ck_assert(l->levels[2].power < 0.9);
-    sl_layout_free(l);
-    sl_plan_free(plan);
+    plan->n_wafers = need;
+}
+
+/* wafers_per_split_needed is the smallest: a plan with that many wafers per
+ * split reaches the wanted power, one fewer does not. rf: the batched level
+ * (loads rebuilt for each count); demo with twice its wafer scatter: every
+ * level (the 1/w scaling of an unbatched design). */
+START_TEST(wafers_needed_is_smallest)
+{
+    static const struct {
+        const char *plan;
+        size_t level;
+        double wafer_sigma; /* 0: the plan's */
+    } cases[] = { { "rf-highk-topgate.yaml", 2, 0 }, { "demo.yaml", 0, 2e11 },
+                  { "demo.yaml", 1, 2e11 }, { "demo.yaml", 2, 2e11 } };
+    for (size_t c = 0; c < sizeof cases / sizeof cases[0]; c++) {
+        sl_plan *plan = load_example(cases[c].plan);
+        if (cases[c].wafer_sigma > 0)
+            plan->variation.wafer_sigma_per_cm2 = cases[c].wafer_sigma;
+        size_t k = cases[c].level;
+        sl_layout *l = build(plan);
+        long need = l->levels[k].wafers_per_split_needed;
+        ck_assert_int_gt(need, (long)plan->wafers_per_split);
+        ck_assert(l->levels[k].power < plan->resolve.power);
+        sl_layout_free(l);
+        wafers_for(plan, need);
+        l = build(plan);
+        ck_assert_msg(l->levels[k].power >= plan->resolve.power, "%s level %zu at %ld: %.4f",
+                      cases[c].plan, k, need, l->levels[k].power);
+        ck_assert_int_eq(l->levels[k].wafers_per_split_needed, need);
+        sl_layout_free(l);
+        wafers_for(plan, need - 1);
+        l = build(plan);
+        ck_assert(l->levels[k].power < plan->resolve.power);
+        sl_layout_free(l);
+        sl_plan_free(plan);
+    }
 }
 END_TEST
 
