@@ -325,7 +325,6 @@ static sl_status end_run(ingest_ctx *c)
         return SL_OK;
     b->in_run = 0;
     fit_batch *f = &b->buf[b->filling];
-    const ingest_wafer *w = &c->wafers[b->run_wafer_index];
     sl_status st = SL_OK;
     const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index,
                                               c->plan->temperatures_K[b->run_temperature], &st);

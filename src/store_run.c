@@ -390,6 +390,50 @@ sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long r
     return s;
 }
 
+/* Index of a stored wafer by name, -1 when absent. */
+static long wafer_index(const sl_store_revision *rev, const char *name)
+{
+    for (size_t w = 0; w < rev->n_wafers; w++)
+        if (strcmp(rev->wafers[w].name, name) == 0)
+            return (long)w;
+    return -1;
+}
+
+/* Index of a step by name, -1 when absent. */
+static long step_index(const char *const *steps, size_t n_steps, const char *name)
+{
+    for (size_t k = 0; k < n_steps; k++)
+        if (strcmp(steps[k], name) == 0)
+            return (long)k;
+    return -1;
+}
+
+sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store_revision *rev,
+                                    const char *const *steps, size_t n_steps, sl_diag *diag)
+{
+    memset(loads, 0, rev->n_wafers * n_steps * sizeof *loads);
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT w.name, l.step, l.load FROM wafer_load l JOIN wafer w ON w.id = l.wafer_id "
+        "WHERE w.revision_id = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, rev->revision_id);
+    int rc;
+    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
+        const char *wafer = (const char *)sqlite3_column_text(st, 0);
+        const char *step = (const char *)sqlite3_column_text(st, 1);
+        long w = wafer_index(rev, wafer ? wafer : "");
+        long k = step_index(steps, n_steps, step ? step : "");
+        if (w >= 0 && k >= 0)
+            loads[(size_t)w * n_steps + (size_t)k] = (long)sqlite3_column_int64(st, 2);
+    }
+    if (rc != SQLITE_DONE)
+        s = sl_store_db_error(store, diag, "read the wafers' loads");
+    sqlite3_finalize(st);
+    return s;
+}
+
 /* ---- a new revision against the measured wafers ---- */
 
 /* What a wafer belongs to in the new layout, in the stored split's words:

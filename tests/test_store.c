@@ -1318,6 +1318,36 @@ START_TEST(constraint_failures_say_which)
 }
 END_TEST
 
+/* A query that fails is an error naming what was asked, never a value: a
+ * count of devices, the list of lots, and an unknown lot whose known lots
+ * cannot be listed. */
+START_TEST(failed_queries_are_errors)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    long count = 12345;
+    ck_assert_int_eq(sl_store_exec(s.store, "PRAGMA foreign_keys = OFF; DROP VIEW measurement_view; "
+                                            "ALTER TABLE device RENAME TO device_gone",
+                                   diag, "break the schema"), SL_OK);
+    ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_EDB);
+    ck_assert_int_eq(count, 12345);
+    ck_assert_msg(strstr(sl_diag_last(diag), "no such table: device"), "%s", sl_diag_last(diag));
+    sl_diag_clear(diag);
+    ck_assert_int_eq(sl_store_exec(s.store, "ALTER TABLE lot RENAME TO lot_gone", diag,
+                                   "break the schema"), SL_OK);
+    char **names = NULL;
+    size_t n = 7;
+    ck_assert_int_eq(sl_store_list_lots(s.store, &names, &n, diag), SL_EDB);
+    ck_assert(names == NULL && n == 0);
+    sl_diag_clear(diag);
+    sl_store_lot lot;
+    ck_assert_int_eq(sl_store_find_lot(s.store, &lot, "NOPE", diag), SL_EDB);
+    ck_assert_msg(!strstr(sl_diag_last(diag), "not in the database"), "%s", sl_diag_last(diag));
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* ---- the checksum of a run's file ---- */
 
 /* SHA-256 of the FIPS 180-2 appendix B examples ("abc"; the 448-bit
@@ -1375,6 +1405,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, migration_from_version_3_keeps_every_device);
     tcase_add_test(tc, sha256_fips_examples);
     tcase_add_test(tc, constraint_failures_say_which);
+    tcase_add_test(tc, failed_queries_are_errors);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);

@@ -21,6 +21,8 @@
 #define SL_FLAG_OFF_PREDICTION 0x02u /* outside the 99.7 % prediction interval */
 #define SL_FLAG_FIT_CLASS      0x04u /* extraction failed (short, open, ...) */
 #define SL_FLAG_UNMEASURED     0x08u /* probed, no neutrality point reported */
+#define SL_FLAG_BELOW_FLOOR    0x10u /* fitted n0 below the thermal floor at the view's
+                                        temperature: the fit or the temperature is wrong */
 
 /* Share of censored devices in a split above which the output warns. */
 #define SL_ANALYZE_CENSORED_WARN 0.10
@@ -55,7 +57,11 @@ typedef struct {
     const char *fit_model;       /* "symmetric", "two-mobility", with "/qc" when
                                     fitted with the charge balance; "" for results */
     double n0_per_cm2, r_contact_ohm, hysteresis_V;   /* NaN when not measured */
-    double floor_predicted_per_cm2; /* the split's thermal floor at the view's temperature */
+    /* The residual density expected at the view's temperature: the stored
+     * thermal floor n_th and the plan's disorder density n* combined in
+     * quadrature, sqrt(n_th^2 + n*^2) (a common approximation, the way n0
+     * and n_g combine in the transfer curve); n_th alone without n*. */
+    double floor_predicted_per_cm2;
     double channel_length_um, channel_width_um;       /* the device's, else the plan's */
 } sl_analyze_device;
 
@@ -121,6 +127,8 @@ typedef struct sl_analysis {
     double outliers_expected;    /* good devices it flags by chance: 2 Q(3.5) n */
     double device_sigma_V;       /* pooled within-wafer SD of V_cnp (NaN: none) */
     double wafer_sigma_per_cm2;  /* wafer-to-wafer SD of doping, from the fit */
+    double load_sigma_per_cm2;   /* load-to-load SD of a batched step (REML);
+                                    NaN without batches */
     char intercept_name[256];    /* "baseline + <reference levels>", the
                                     intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
@@ -202,8 +210,9 @@ sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
 void sl_analysis_stream_rewind(sl_analysis_stream *stream);
 void sl_analysis_stream_free(sl_analysis_stream *stream);
 
-/* Flag names of a device, in a fixed order, into names (at most 4); returns
- * the count: "outlier", "off-prediction", the fit class, "unmeasured". */
+/* Flag names of a device, in a fixed order, into names (at most 5); returns
+ * the count: "outlier", "off-prediction", the fit class, "unmeasured",
+ * "below-floor". */
 int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
 
 /* ---- history across lots ---- */
@@ -243,8 +252,10 @@ typedef struct sl_history {
     sl_plan *newest_plan;        /* for calibrated YAML */
     double wafer_sigma_per_cm2;  /* RMS over the lots of their wafer sigma */
     double device_sigma_V;       /* RMS over the lots of their device sigma */
-    double wafer_var_sum, device_var_sum;
-    size_t n_wafer_sigma, n_device_sigma;
+    double batch_sigma_per_cm2;  /* RMS over the lots with batches of their load
+                                    sigma; NaN when none had batches */
+    double wafer_var_sum, device_var_sum, batch_var_sum;
+    size_t n_wafer_sigma, n_device_sigma, n_batch_sigma;
 } sl_history;
 
 /* Effects of every lot in the store, grouped by level. */

@@ -104,6 +104,14 @@ sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long r
                                  sl_diag *diag);
 void sl_store_revision_clear(sl_store_revision *revision);
 
+/* The load (1-based) of each of a stored revision's wafers in each batched
+ * step, as predict stored them: loads[w * n_steps + s] for rev->wafers[w]
+ * and the step named steps[s], 0 where the wafer went through no load of it
+ * (a spare, a step not batched). loads holds rev->n_wafers x n_steps.
+ * SL_OK, SL_EDB. */
+sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store_revision *rev,
+                                    const char *const *steps, size_t n_steps, sl_diag *diag);
+
 /* ---- measurement runs ---- */
 
 /* One run: a file's measurements at one step and temperature. */
