@@ -392,9 +392,10 @@ sl_status sl_stats_individuals_chart(sl_stats_ichart *out, int *flags, const dou
 /* Survival function P[T' > t] of the noncentral t with df > 0 degrees of
  * freedom and noncentrality nc: T' = (Z + nc) / sqrt(V / df), Z standard
  * normal, V chi-square with df. GSL has no noncentral t; this integrates
- * P[Z > t sqrt(v/df) - nc] against the chi-square density of v
- * (gsl_integration_qags/qagiu, gsl_cdf_ugaussian_Q, gsl_ran_chisq_pdf),
- * absolute error below 1e-10. NaN for df <= 0 or a NaN argument. */
+ * P[Z > t sqrt(v/df) - nc] against the chi-square density of v over
+ * df +/- 40 standard deviations (gsl_integration_qags, gsl_cdf_ugaussian_Q,
+ * gsl_ran_chisq_pdf), absolute error below 1e-10. NaN for df <= 0 or a NaN
+ * argument. */
 double sl_stats_nct_sf(double t, double df, double nc);
 
 /* Distribution function P[T' <= t] = 1 - sl_stats_nct_sf(t, df, nc). */
