@@ -10,7 +10,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include <sqlite3.h>
+#include "store_internal.h"
 
 #include "splitlot/ingest.h"
 #include "splitlot/store.h"
@@ -983,33 +983,33 @@ START_TEST(library_summary_counts)
     ck_assert_int_eq(sl_store_count_devices(store, &stored, lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(stored, sum.devices);
     /* the import is on record as a run with its counts and the file's SHA-256 */
-    sqlite3_stmt *q = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "SELECT kind, rows, devices, source_name, step, "
-                                        "temperature_K, source_sha256 FROM measurement_run", -1,
-                                        &q, NULL), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 0), "sweeps");
-    ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.rows);
-    ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 3), sweeps);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 4), "final");
-    ck_assert_double_eq(sqlite3_column_double(q, 5), 300.0);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 6), sum.sha256);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_DONE);
-    sqlite3_finalize(q);
+    sl__stmt *q = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db,
+                                    "SELECT kind, rows, devices, source_name, step, "
+                                    "temperature_K, source_sha256 FROM measurement_run", 0, &q),
+                     SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_ROW);
+    ck_assert_str_eq(sl__db_column_text(q, 0), "sweeps");
+    ck_assert_int_eq(sl__db_column_int64(q, 1), sum.rows);
+    ck_assert_int_eq(sl__db_column_int64(q, 2), sum.devices);
+    ck_assert_str_eq(sl__db_column_text(q, 3), sweeps);
+    ck_assert_str_eq(sl__db_column_text(q, 4), "final");
+    ck_assert_double_eq(sl__db_column_double(q, 5), 300.0);
+    ck_assert_str_eq(sl__db_column_text(q, 6), sum.sha256);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_DONE);
+    sl__db_finalize(q);
     ck_assert_uint_eq(sum.n_runs, 1);
     /* each device knows the line of its first row: 2, 203, 404, ... in a
      * simulated file, whose devices come one after another */
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "SELECT min(source_line), count(*), "
-                                        "sum((source_line - 2) % 201 = 0) FROM measurement", -1, &q,
-                                        NULL), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
-    ck_assert_int_eq(sqlite3_column_int64(q, 0), 2);
-    ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.devices);
-    ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
-    sqlite3_finalize(q);
+    ck_assert_int_eq(sl__db_prepare(store->db,
+                                    "SELECT min(source_line), count(*), sum(CASE WHEN "
+                                    "(source_line - 2) % 201 = 0 THEN 1 ELSE 0 END) "
+                                    "FROM measurement", 0, &q), SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_ROW);
+    ck_assert_int_eq(sl__db_column_int64(q, 0), 2);
+    ck_assert_int_eq(sl__db_column_int64(q, 1), sum.devices);
+    ck_assert_int_eq(sl__db_column_int64(q, 2), sum.devices);
+    sl__db_finalize(q);
     /* unknown lot: SL_ENOTFOUND, and the store still usable */
     opt.lot = "NOPE";
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_ENOTFOUND);
