@@ -2,6 +2,7 @@
 # Thin wrapper over CMake for the README's commands:
 #   make demo   install what is missing, build, run the demo plan end to end
 #   make check  install what is missing, build, run the whole test suite
+#   make check-pg  the whole test suite against a throwaway PostgreSQL server
 #   make asan   the test suite under AddressSanitizer + UndefinedBehaviorSanitizer
 #   make fuzz   the libFuzzer targets, FUZZ_SECONDS (default 60) each
 #   make valgrind  the test suite under valgrind memcheck (Debug build)
@@ -12,7 +13,7 @@ JOBS ?= 2
 DEMO ?= demo-out
 SPLITLOT = $(BUILD)/splitlot
 
-.PHONY: all deps deps-test build demo check asan fuzz valgrind bench bench-reference clean
+.PHONY: all deps deps-test build demo check check-pg asan fuzz valgrind bench bench-reference clean
 
 all: build
 
@@ -32,6 +33,11 @@ build: deps
 
 check: deps-test build
 	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
+
+# .ci/pg-start starts the server, sets SPLITLOT_TEST_DB for tests/support and
+# stops it afterwards
+check-pg: deps-test build
+	@./.ci/pg-start sh -c 'cd $(BUILD) && ctest --output-on-failure -j$(JOBS)'
 
 asan: deps-test
 	@echo "building in build-asan/ (log: build-asan/build.log)"

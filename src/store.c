@@ -22,6 +22,8 @@ extern const size_t sl_schema_migration_count;
 
 int sl_store_schema_version(void) { return (int)sl_schema_migration_count; }
 
+int sl_store_is_server(const char *location) { return sl__db_is_url(location); }
+
 /* The kind of a failed constraint in words, or NULL for another error. */
 static const char *constraint_kind(sl__db_errkind kind)
 {
@@ -548,6 +550,8 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
     long lot_id = 0, revision_id = 0;
     *created = 0;
     sl_status s = lot_id_of(store, &lot_id, plan->lot, 1, diag);
+    if (s == SL_OK)
+        s = sl_store_lock_lot(store, lot_id, diag);
     if (s == SL_OK)
         s = newest_revision(store, revision, newest_hash, lot_id, diag);
     if (s != SL_OK || strcmp(hash, newest_hash) == 0)

@@ -88,7 +88,9 @@ static sl_status cached(sl_store *store, sl__stmt **st, const char *sql, sl_diag
 sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag)
 {
     long devices = 0;
-    sl_status s = sl_store_count_devices(store, &devices, lot_id, diag);
+    sl_status s = sl_store_lock_lot(store, lot_id, diag);
+    if (s == SL_OK)
+        s = sl_store_count_devices(store, &devices, lot_id, diag);
     store->new_lot_id = s == SL_OK && devices == 0 ? lot_id : 0;
     return s;
 }

@@ -38,6 +38,9 @@ sl_status sl_store_step_id(sl_store *store, sl__stmt *st, long *id, sl_diag *dia
 int sl_store_is_pg(const sl_store *store);
 /* Opening on PostgreSQL: session settings and migrations (store_pg.c). */
 sl_status sl_store_pg_setup(sl_store *store, sl_diag *diag);
+/* Hold the lot for the rest of the transaction (PostgreSQL: an advisory
+ * lock, so imports of one lot take turns and of different lots do not). */
+sl_status sl_store_lock_lot(sl_store *store, long lot_id, sl_diag *diag);
 /* SL_EDB naming a schema version newer than this build. */
 sl_status sl_store_refuse_newer(sl_store *store, int version, sl_diag *diag);
 /* Location of a database for messages: a URL's password left out (malloc'd). */

@@ -87,7 +87,7 @@ static lot_devices load_lot_at(const char *db, double temperature_K)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_store_lot lot;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_store_find_lot(store, &lot, "DEMO-01", diag), SL_OK);
     ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, "final",
                                            temperature_K, diag), SL_OK);
@@ -966,7 +966,7 @@ START_TEST(library_summary_counts)
     char *db = sl_test_path(dir, "t.db"), *sweeps = sl_test_path(dir, "sim/sweeps.csv");
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     sl_ingest_options opt = { .lot = "DEMO-01", .path = sweeps, .kind = SL_INGEST_SWEEPS,
                               .threads = 2 };
     sl_ingest_summary sum;

@@ -36,7 +36,7 @@ static sl_store *open_ok(const char *path)
 {
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    sl_status st = sl_store_open(&store, path, diag);
+    sl_status st = sl_test_store_open(&store, path, diag);
     ck_assert_msg(st == SL_OK, "%s: %s", path, sl_diag_last(diag));
     sl_diag_free(diag);
     return store;
@@ -145,7 +145,7 @@ START_TEST(newer_schema_refused)
     sqlite3_close(raw);
     sl_diag *diag = sl_diag_new();
     sl_store *store = (sl_store *)1;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_EDB);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_EDB);
     ck_assert_ptr_null(store);
     const sl_diag_msg *m = sl_diag_get(diag, 0);
     ck_assert_str_eq(m->file, db);
@@ -179,7 +179,7 @@ START_TEST(not_a_database_refused)
     ck_assert_int_eq(sl_test_write_file(db, text), 0);
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_EDB);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_EDB);
     ck_assert_ptr_null(store);
     const sl_diag_msg *m = sl_diag_get(diag, 0);
     ck_assert_str_eq(m->file, db);
@@ -201,7 +201,7 @@ static int readonly_check(const char *db)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     int rc = 10;
-    sl_status st = sl_store_open(&store, db, diag);
+    sl_status st = sl_test_store_open(&store, db, diag);
     if (st == SL_OK)
         st = sl_store_begin(store, diag);
     /* in WAL mode the transaction may start; the first write must fail */

@@ -20,6 +20,10 @@ typedef struct sl_store sl_store;
 /* Schema version this build writes (number of db/NNN_*.sql migrations). */
 int sl_store_schema_version(void);
 
+/* 1 when a location names a PostgreSQL server (a postgresql:// or
+ * postgres:// URL) rather than an SQLite file. */
+int sl_store_is_server(const char *location);
+
 /* Open (creating if needed) and migrate the database at path: an SQLite
  * file, or a PostgreSQL server when path is a postgresql:// or postgres://
  * URL (libpq's; the password from ~/.pgpass or PGPASSWORD, never shown). A

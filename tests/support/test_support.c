@@ -12,7 +12,71 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <libpq-fe.h>
+
 #include "splitlot/physics.h"
+
+/* ---- the backend under test ---- */
+
+int sl_test_pg(void)
+{
+    const char *url = getenv("SPLITLOT_TEST_DB");
+    return url && *url;
+}
+
+/* A schema of the test server per database file name, made on first use. */
+static int make_schema(const char *base, const char *schema)
+{
+    static PGconn *conn;
+    if (!conn)
+        conn = PQconnectdb(base);
+    if (PQstatus(conn) != CONNECTION_OK) {
+        fprintf(stderr, "test support: cannot reach SPLITLOT_TEST_DB: %s", PQerrorMessage(conn));
+        return -1;
+    }
+    char sql[128];
+    snprintf(sql, sizeof sql, "SET client_min_messages = warning; "
+                              "CREATE SCHEMA IF NOT EXISTS %s", schema);
+    PGresult *res = PQexec(conn, sql);
+    int ok = PQresultStatus(res) == PGRES_COMMAND_OK;
+    PQclear(res);
+    return ok ? 0 : -1;
+}
+
+char *sl_test_db_in(const char *cwd, const char *path)
+{
+    if (!sl_test_pg() || strncmp(path, "postgres", 8) == 0)
+        return strdup(path);
+    char here[4096], full[8192];
+    if (path[0] == '/')
+        snprintf(full, sizeof full, "%s", path);
+    else
+        snprintf(full, sizeof full, "%s/%s", cwd ? cwd : getcwd(here, sizeof here), path);
+    unsigned long long h = 1469598103934665603ULL; /* FNV-1a, 64 bits */
+    for (const char *p = full; *p; p++)
+        h = (h ^ (unsigned char)*p) * 1099511628211ULL;
+    char schema[40];
+    snprintf(schema, sizeof schema, "t_%016llx", h);
+    const char *base = getenv("SPLITLOT_TEST_DB");
+    if (make_schema(base, schema) != 0)
+        return strdup(path);
+    size_t n = strlen(base) + 64;
+    char *url = malloc(n);
+    if (url)
+        snprintf(url, n, "%s%soptions=-csearch_path%%3D%s", base, strchr(base, '?') ? "&" : "?",
+                 schema);
+    return url;
+}
+
+char *sl_test_db(const char *path) { return sl_test_db_in(NULL, path); }
+
+sl_status sl_test_store_open(sl_store **out, const char *path, sl_diag *diag)
+{
+    char *location = sl_test_db(path);
+    sl_status s = location ? sl_store_open(out, location, diag) : SL_ENOMEM;
+    free(location);
+    return s;
+}
 
 char *sl_test_path(const char *dir, const char *name)
 {
@@ -152,13 +216,22 @@ sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *c
     while (argv[argc])
         argc++;
     char **args = calloc(argc + 2, sizeof *args);
+    char **mapped = calloc(argc + 1, sizeof *mapped);
     args[0] = (char *)SL_BINARY;
-    for (size_t i = 0; i < argc; i++)
+    for (size_t i = 0; i < argc; i++) {
         args[i + 1] = (char *)argv[i];
+        /* a database file names a schema of the test server instead */
+        if (i > 0 && strcmp(argv[i - 1], "--db") == 0 && sl_test_pg())
+            args[i + 1] = mapped[i] = sl_test_db_in(cwd, argv[i]);
+    }
+    const char *env_db = getenv("SPLITLOT_DB");
+    char *mapped_env = env_db && *env_db ? sl_test_db_in(cwd, env_db) : NULL;
     pid_t pid = fork();
     if (pid == 0) {
         if (cwd && chdir(cwd) != 0)
             _exit(126);
+        if (mapped_env)
+            setenv("SPLITLOT_DB", mapped_env, 1);
         dup2(in_fd, 0);
         dup2(out_fd, 1);
         dup2(err_fd, 2);
@@ -168,6 +241,10 @@ sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *c
     int status = 0;
     waitpid(pid, &status, 0);
     free(args);
+    for (size_t i = 0; i < argc; i++)
+        free(mapped[i]);
+    free(mapped);
+    free(mapped_env);
     r.exit_code = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
     lseek(out_fd, 0, SEEK_SET);
     lseek(err_fd, 0, SEEK_SET);
