@@ -218,7 +218,7 @@ static sl_status begin_snapshot(sl_store_scratch *x, sl_diag *diag)
     sl_store *store = x->store;
     x->own_transaction = sl_store_is_pg(store) && !sl__db_in_transaction(store->db);
     sl_status s = sl_store_exec(store, x->own_transaction
-                                    ? "BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY"
+                                    ? "BEGIN ISOLATION LEVEL REPEATABLE READ"
                                     : "SAVEPOINT sl_scratch",
                                 diag, "start reading the lot");
     x->in_savepoint = s == SL_OK && !x->own_transaction;

@@ -196,6 +196,30 @@ static char *slurp_fd(int fd)
     return buf;
 }
 
+/* Every from in *text replaced by to (a new malloc'd string). */
+static void replace_all(char **text, const char *from, const char *to)
+{
+    if (!*text || !*from || !strstr(*text, from))
+        return;
+    size_t nf = strlen(from), nt = strlen(to), n = 0;
+    for (const char *p = *text; (p = strstr(p, from)); p += nf)
+        n++;
+    char *out = malloc(strlen(*text) + n * nt + 1), *o = out;
+    if (!out)
+        return;
+    const char *p = *text, *q;
+    while ((q = strstr(p, from))) {
+        memcpy(o, p, (size_t)(q - p));
+        o += q - p;
+        memcpy(o, to, nt);
+        o += nt;
+        p = q + nf;
+    }
+    strcpy(o, p);
+    free(*text);
+    *text = out;
+}
+
 sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *const *argv)
 {
     sl_run_result r = { -1, NULL, NULL };
@@ -241,15 +265,25 @@ sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *c
     int status = 0;
     waitpid(pid, &status, 0);
     free(args);
-    for (size_t i = 0; i < argc; i++)
-        free(mapped[i]);
-    free(mapped);
-    free(mapped_env);
     r.exit_code = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
     lseek(out_fd, 0, SEEK_SET);
     lseek(err_fd, 0, SEEK_SET);
     r.out = slurp_fd(out_fd);
     r.err = slurp_fd(err_fd);
+    /* messages name the database as the test gave it, whatever the backend */
+    for (size_t i = 0; i < argc; i++)
+        if (mapped[i]) {
+            replace_all(&r.out, mapped[i], argv[i]);
+            replace_all(&r.err, mapped[i], argv[i]);
+        }
+    if (mapped_env) {
+        replace_all(&r.out, mapped_env, env_db);
+        replace_all(&r.err, mapped_env, env_db);
+    }
+    for (size_t i = 0; i < argc; i++)
+        free(mapped[i]);
+    free(mapped);
+    free(mapped_env);
     close(out_fd);
     close(err_fd);
     close(in_fd);
