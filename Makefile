@@ -8,12 +8,19 @@
 #   make valgrind  the test suite under valgrind memcheck (Debug build)
 #   make bench  build in Release and run the benchmarks (figures, not tests)
 #   make bench-reference  splitlot against the pandas + SciPy script, 1k/12.5k/50k devices
+#   make tsan   the threaded import's suites (ingest, reliability) under ThreadSanitizer
+#   make golden rewrite tests/data/analyze's golden outputs from this build (only for an
+#               intended output change, reviewed in the diff; DEVELOPERS.md)
+#   make install  build and install under PREFIX (default /usr/local), staged
+#                 under DESTDIR when given (docs/install.md)
 BUILD ?= build
 JOBS ?= 2
 DEMO ?= demo-out
 SPLITLOT = $(BUILD)/splitlot
+PREFIX ?= /usr/local
+DESTDIR ?=
 
-.PHONY: all deps deps-test build demo check check-pg asan fuzz valgrind bench bench-reference clean
+.PHONY: all deps deps-test build install demo check check-pg asan tsan golden fuzz valgrind bench bench-reference clean
 
 all: build
 
@@ -31,11 +38,20 @@ build: deps
 	   cmake --build $(BUILD) -j$(JOBS); } >$(BUILD)/build.log 2>&1 || \
 	   { cat $(BUILD)/build.log; exit 1; }
 
+# configured for PREFIX, so the library directory follows the platform's rule
+# for that prefix (lib/<multiarch> under /usr on Debian)
+install: deps
+	@mkdir -p $(BUILD)
+	@{ cmake -S . -B $(BUILD) -DCMAKE_INSTALL_PREFIX="$(PREFIX)" && \
+	   cmake --build $(BUILD) -j$(JOBS); } >$(BUILD)/build.log 2>&1 || \
+	   { cat $(BUILD)/build.log; exit 1; }
+	DESTDIR="$(DESTDIR)" cmake --install $(BUILD) --prefix "$(PREFIX)"
+
 check: deps-test build
 	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
 
-# .ci/pg-start starts the server, sets SPLITLOT_TEST_DB for tests/support and
-# stops it afterwards
+# .ci/pg-start starts a throwaway server, sets SPLITLOT_TEST_DB for
+# tests/support and stops the server afterwards
 check-pg: deps-test build
 	@./.ci/pg-start sh -c 'cd $(BUILD) && ctest --output-on-failure -j$(JOBS)'
 
@@ -47,6 +63,21 @@ asan: deps-test
 	   { cat build-asan/build.log; exit 1; }
 	@cd build-asan && ASAN_OPTIONS=detect_leaks=1:abort_on_error=1 \
 	  UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1 ctest --output-on-failure -j$(JOBS)
+
+# the import's reading, fitting and writing threads (tests spawn the TSan-built binary);
+# a race makes the program exit 66, which fails the test
+TSAN_SUITES ?= test_ingest|test_reliability
+tsan: deps-test
+	@echo "building in build-tsan/ (log: build-tsan/build.log)"
+	@mkdir -p build-tsan
+	@{ cmake -S . -B build-tsan -DCMAKE_BUILD_TYPE=RelWithDebInfo -DSL_TSAN=ON && \
+	   cmake --build build-tsan -j$(JOBS); } >build-tsan/build.log 2>&1 || \
+	   { cat build-tsan/build.log; exit 1; }
+	@cd build-tsan && TSAN_OPTIONS="halt_on_error=1 exitcode=66 second_deadlock_stack=1" \
+	  ctest --output-on-failure -j$(JOBS) -R '^($(TSAN_SUITES))$$'
+
+golden: build
+	@tests/regenerate_golden.sh $(SPLITLOT)
 
 fuzz:
 	@./.ci/fuzz
@@ -67,4 +98,4 @@ demo: build
 	@./.ci/demo $(SPLITLOT) $(DEMO)
 
 clean:
-	rm -rf $(BUILD) build-asan build-release build-fuzz build-valgrind $(DEMO)
+	rm -rf $(BUILD) build-asan build-tsan build-release build-fuzz build-valgrind $(DEMO)

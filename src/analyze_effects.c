@@ -1,10 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * Main-effects estimate of every dielectric and treatment level of a lot:
- * wafer means of measured doping (usable, non-outlier devices) as the
- * experimental unit, weighted by their device counts, treatment-coded against
- * each factor's reference level, fitted by GSL weighted least squares through
- * stats.h; a level is off-plan when its planned value is both beyond 3
- * standard errors and more than twice the plan's own sigma from the estimate.
+ * wafer means of measured doping as the experimental unit, treatment-coded
+ * against each factor's reference level, fitted by weighted least squares
+ * with weights 1/var(wafer mean) from the variance components
+ * (sl_stats_fit_components); each level's estimate, SE, residual df, 95 %
+ * interval and its verdict against the plan (sl_stats_verdict).
  */
 #include <math.h>
 #include <stdio.h>
@@ -13,8 +13,6 @@
 
 #include "analyze_internal.h"
 
-#define SL_EFFECT_SE_LIMIT 3.0     /* statistically clear: beyond 3 SE */
-#define SL_EFFECT_PLAN_SIGMAS 2.0  /* and practically large: beyond 2 plan sigmas */
 
 sl_est sl_analyze_planned_level(const sl_plan *plan, size_t factor, size_t level)
 {
@@ -29,7 +27,7 @@ typedef struct {
     size_t n_obs;
     size_t *levels;      /* n_obs x n_factors */
     double *mean;        /* wafer mean doping, cm^-2 */
-    double *weight;      /* usable devices behind it */
+    double *var;         /* its sampling variance, cm^-4 */
 } wafer_means;
 
 /* Levels that have wafers, per factor, renumbered in plan order: a level
@@ -51,27 +49,27 @@ static void wafer_means_free(wafer_means *m)
 {
     free(m->levels);
     free(m->mean);
-    free(m->weight);
+    free(m->var);
 }
 
 static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const sl_layout *layout,
-                                     const double *wafer_sum_per_cm2, const double *wafer_devices)
+                                     const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4)
 {
     const sl_plan *plan = a->plan;
     size_t nw = layout->n_wafers, nf = plan->n_factors;
     m->levels = calloc(nw * nf + 1, sizeof *m->levels);
     m->mean = calloc(nw + 1, sizeof *m->mean);
-    m->weight = calloc(nw + 1, sizeof *m->weight);
-    if (!m->levels || !m->mean || !m->weight)
+    m->var = calloc(nw + 1, sizeof *m->var);
+    if (!m->levels || !m->mean || !m->var)
         return SL_ENOMEM;
     for (size_t w = 0; w < nw; w++) {
         long split = layout->wafers[w].split;
-        if (split < 0 || wafer_devices[w] == 0.0)
+        if (split < 0 || !isfinite(wafer_mean_per_cm2[w]))
             continue;
         for (size_t f = 0; f < nf; f++)
             m->levels[m->n_obs * nf + f] = plan->splits[split].levels[f];
-        m->mean[m->n_obs] = wafer_sum_per_cm2[w] / wafer_devices[w];
-        m->weight[m->n_obs] = wafer_devices[w];
+        m->mean[m->n_obs] = wafer_mean_per_cm2[w];
+        m->var[m->n_obs] = isfinite(wafer_var_per_cm4[w]) ? wafer_var_per_cm4[w] : 0.0;
         m->n_obs++;
     }
     return SL_OK;
@@ -121,22 +119,40 @@ static size_t wafers_at(const wafer_means *m, size_t nf, size_t factor, size_t l
     return n;
 }
 
-static void intercept_effect(sl_analyze_effect *e, const sl_plan *plan, const level_map *map,
+void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
+                               const size_t *reference_levels)
+{
+    size_t k = (size_t)snprintf(buf, size, "baseline");
+    for (size_t f = 0; f < plan->n_factors && k < size; f++) {
+        size_t l = reference_levels[f];
+        if (f > 0 && plan->factors[f].level_ref[l] < 0)
+            continue; /* 'none' adds nothing */
+        k += (size_t)snprintf(buf + k, size - k, " + %s", plan->factors[f].levels[l]);
+    }
+}
+
+static void intercept_effect(sl_analysis *a, sl_analyze_effect *e, const level_map *map,
                              const sl_stats_fit *fit)
 {
+    const sl_plan *plan = a->plan;
     double planned = plan->baseline_doping_per_cm2.val;
     double var = plan->baseline_doping_per_cm2.sigma * plan->baseline_doping_per_cm2.sigma;
+    size_t refs[64] = { 0 };
     for (size_t f = 0; f < plan->n_factors; f++) {
         sl_est ref = sl_analyze_planned_level(plan, f, plan_level(map, f, 0));
         planned += ref.val;
         var += ref.sigma * ref.sigma;
+        if (f < sizeof refs / sizeof refs[0])
+            refs[f] = plan_level(map, f, 0);
     }
+    sl_analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan, refs);
     e->factor = "intercept";
-    e->level = "baseline";
+    e->level = a->intercept_name;
     e->reference = plan->factors[0].levels[plan_level(map, 0, 0)];
     e->is_intercept = 1;
     e->planned_per_cm2 = planned;
     e->planned_sigma_per_cm2 = sqrt(var);
+    e->tolerance_per_cm2 = e->planned_sigma_per_cm2; /* the plan's own uncertainty */
     e->estimated_per_cm2 = fit->coef[0];
     e->stderr_per_cm2 = fit->se[0];
 }
@@ -152,14 +168,32 @@ static void planned_effect(sl_analyze_effect *e, const sl_plan *plan, size_t fac
     e->reference = f->levels[reference];
     e->planned_per_cm2 = planned.val - sl_analyze_planned_level(plan, factor, reference).val;
     e->planned_sigma_per_cm2 = planned.sigma;
+    e->tolerance_per_cm2 = sl_plan_level_tolerance_per_cm2(plan, factor, level);
     e->estimated_per_cm2 = e->stderr_per_cm2 = NAN;
+    e->ci_low_per_cm2 = e->ci_high_per_cm2 = NAN;
+    e->verdict = SL_VERDICT_INCONCLUSIVE;
 }
 
-static void judge(sl_analyze_effect *e)
+/* The interval of the estimate and the verdict against the plan. */
+static void judge(sl_analysis *a, sl_analyze_effect *e, double df)
 {
-    double gap = fabs(e->planned_per_cm2 - e->estimated_per_cm2);
-    e->off_plan = isfinite(e->stderr_per_cm2) && gap > SL_EFFECT_SE_LIMIT * e->stderr_per_cm2 &&
-                  gap > SL_EFFECT_PLAN_SIGMAS * e->planned_sigma_per_cm2;
+    e->df = df;
+    sl_stats_verdict_kind v = sl_stats_verdict(e->estimated_per_cm2 - e->planned_per_cm2,
+                                               e->stderr_per_cm2, df, e->tolerance_per_cm2,
+                                               SL_ANALYZE_ALPHA);
+    e->verdict = v;
+    /* the interval the verdict rests on, around the estimate */
+    double t = sl_stats_t_quantile(1.0 - 0.5 * SL_ANALYZE_ALPHA, df);
+    e->ci_low_per_cm2 = e->ci_high_per_cm2 = NAN;
+    if (isfinite(t) && isfinite(e->stderr_per_cm2)) {
+        e->ci_low_per_cm2 = e->estimated_per_cm2 - t * e->stderr_per_cm2;
+        e->ci_high_per_cm2 = e->estimated_per_cm2 + t * e->stderr_per_cm2;
+    }
+    e->off_plan = v == SL_VERDICT_OFF_PLAN || v == SL_VERDICT_DIFFERS;
+    if (!e->is_intercept) {
+        a->n_verdict[v]++;
+        a->n_off_plan += e->off_plan;
+    }
 }
 
 /* Levels of the plan without usable wafers, listed with no estimate. */
@@ -194,7 +228,7 @@ static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, con
         sl_analyze_effect *e = &a->effects[a->n_effects++];
         const sl_stats_column *col = &design->columns[c];
         if (col->factor == SL_STATS_INTERCEPT) {
-            intercept_effect(e, a->plan, map, fit);
+            intercept_effect(a, e, map, fit);
             e->n_wafers = m->n_obs;
         } else {
             planned_effect(e, a->plan, col->factor, plan_level(map, col->factor, col->level),
@@ -203,8 +237,7 @@ static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, con
             e->stderr_per_cm2 = fit->se[c];
             e->n_wafers = wafers_at(m, a->plan->n_factors, col->factor, col->level);
         }
-        judge(e);
-        a->n_off_plan += e->off_plan && !e->is_intercept;
+        judge(a, e, (double)fit->df_resid);
     }
     fill_absent(a, map);
     return SL_OK;
@@ -224,15 +257,17 @@ static void note_failure(sl_analysis *a, sl_status st, const sl_diag *fit_diag, 
 }
 
 sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
-                             const double *wafer_sum_per_cm2, const double *wafer_devices)
+                             const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4)
 {
     wafer_means m = { 0 };
     level_map map = { 0 };
     sl_stats_design *design = NULL;
     sl_stats_fit *fit = NULL;
     sl_diag *fit_diag = sl_diag_new();
-    sl_status st = fit_diag ? collect_wafer_means(&m, a, layout, wafer_sum_per_cm2, wafer_devices)
+    sl_status st = fit_diag ? collect_wafer_means(&m, a, layout, wafer_mean_per_cm2, wafer_var_per_cm4)
                             : SL_ENOMEM;
+    double unit_var = NAN;
+    a->wafer_sigma_per_cm2 = NAN;
     if (st == SL_OK && m.n_obs == 0) {
         note_failure(a, SL_EINPUT, fit_diag, 0, 1);
     } else if (st == SL_OK && (st = compact_levels(&map, &m, a->plan)) == SL_OK) {
@@ -241,8 +276,10 @@ sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
         if (fst == SL_OK && m.n_obs <= design->n_coef)
             fst = SL_EINPUT;
         else if (fst == SL_OK)
-            fst = sl_stats_linear_fit(&fit, design->x, m.mean, m.weight, m.n_obs, design->n_coef,
-                                      fit_diag);
+            fst = sl_stats_fit_components(&fit, &unit_var, design->x, m.mean, m.var, m.n_obs,
+                                          design->n_coef, fit_diag);
+        if (fst == SL_OK)
+            a->wafer_sigma_per_cm2 = sqrt(unit_var);
         if (fst == SL_OK)
             st = fill_effects(a, design, fit, &m, &map);
         else if (fst == SL_ENOMEM)

@@ -1,8 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * History across lots (see include/splitlot/analyze.h): every lot's level
- * effects grouped by level, inverse-variance pooled, charted as individuals
- * with limits from the average moving range, drift flagged; and calibrated
- * plan YAML for the next lot from the pooled values.
+ * effects grouped by level, pooled with random effects (DerSimonian and
+ * Laird) so the between-lot sigma is seen, each lot from the second on
+ * judged against limits centre +/- 3 sqrt(tau^2 + SE^2) of the lots before
+ * it; and the measured scatter behind the calibrated plan YAML.
  */
 #include <math.h>
 #include <stdio.h>
@@ -59,29 +60,13 @@ static sl_status add_lot(sl_history *h, const sl_analysis *a, size_t lot_index, 
         l->planned_sigma_per_cm2 = e->planned_sigma_per_cm2;
         l->points[l->n_points++] = (sl_history_point){ h->lot_names[lot_index],
                                                        h->lot_created[lot_index],
-                                                       e->estimated_per_cm2, e->stderr_per_cm2, 0 };
+                                                       e->estimated_per_cm2, e->stderr_per_cm2, 0,
+                                                       NAN, NAN };
     }
     return SL_OK;
 }
 
-/* Centre and guarded limits of an individuals chart over the baseline values
- * x[0..n) with standard errors se: sigma = max(MR-bar / 1.128, median SE), so
- * two lots that happen to agree closely do not make the limits absurdly tight
- * (the guard is our choice; the chart itself follows Montgomery). */
-static int guarded_chart(sl_stats_ichart *c, double *x, double *se, int *flags, size_t n)
-{
-    if (n < 2 || sl_stats_individuals_chart(c, flags, x, n) != SL_OK)
-        return -1;
-    double median_se = 0.0;
-    if (sl_stats_median(&median_se, se, n, NULL) != SL_OK || !isfinite(median_se))
-        median_se = 0.0;
-    double sigma = fmax(c->sigma, median_se);
-    c->lcl = c->center - SL_STATS_CHART_SIGMAS * sigma;
-    c->ucl = c->center + SL_STATS_CHART_SIGMAS * sigma;
-    return 0;
-}
-
-/* Baseline of the lots before k that have not drifted, into x and se. */
+/* Estimates and SEs of the lots before k that have not drifted. */
 static size_t baseline(const sl_history_level *l, size_t k, double *x, double *se)
 {
     size_t m = 0;
@@ -93,48 +78,88 @@ static size_t baseline(const sl_history_level *l, size_t k, double *x, double *s
     return m;
 }
 
-/* Each lot is judged against limits from the lots before it (phase II
- * monitoring against a growing baseline); the chart shown is that of every
- * lot that did not drift. */
-static void judge_drift(sl_history_level *l, double *x, double *se, int *flags)
+/* Half-width of the limits for a lot of standard error se against a pool:
+ * 3 sqrt(tau^2 + se^2 + SE_pool^2) (the SE of the difference between the
+ * lot and the centre; tau 0 while one lot cannot show it). */
+static double half_width(const sl_stats_pooled *pool, double se)
 {
-    sl_stats_ichart c;
-    for (size_t k = 2; k < l->n_points; k++) {
+    double tau = isfinite(pool->tau) ? pool->tau : 0.0;
+    return SL_STATS_CHART_SIGMAS * sqrt(tau * tau + se * se + pool->se * pool->se);
+}
+
+/* Each lot from the second on is judged against the random-effects pool of
+ * the lots before it that did not drift (phase II monitoring against a
+ * growing baseline). */
+static void judge_drift(sl_history_level *l, double *x, double *se)
+{
+    for (size_t k = 0; k < l->n_points; k++) {
+        sl_history_point *p = &l->points[k];
+        p->lcl_per_cm2 = p->ucl_per_cm2 = NAN;
         size_t m = baseline(l, k, x, se);
-        double v = l->points[k].estimated_per_cm2;
-        if (guarded_chart(&c, x, se, flags, m) == 0 && (v < c.lcl || v > c.ucl)) {
-            l->points[k].drift = 1;
+        sl_stats_pooled pool;
+        if (m == 0 || sl_stats_pool_random_effects(&pool, x, se, m) != SL_OK)
+            continue;
+        double w = half_width(&pool, p->stderr_per_cm2);
+        p->lcl_per_cm2 = pool.value - w;
+        p->ucl_per_cm2 = pool.value + w;
+        if (p->estimated_per_cm2 < p->lcl_per_cm2 || p->estimated_per_cm2 > p->ucl_per_cm2) {
+            p->drift = 1;
             l->n_drift++;
         }
     }
+}
+
+/* The pool of the lots in control and the chart shown: its centre, limits
+ * for a lot of the median standard error. */
+static void pool_level(sl_history_level *l, double *x, double *se)
+{
     size_t m = baseline(l, l->n_points, x, se);
+    l->pooled.value = l->pooled.se = l->pooled.tau = NAN;
     l->chart.center = l->chart.lcl = l->chart.ucl = NAN;
-    if (guarded_chart(&c, x, se, flags, m) == 0)
-        l->chart = c;
+    l->chart.n = m;
+    if (m == 0 || sl_stats_pool_random_effects(&l->pooled, x, se, m) != SL_OK) {
+        l->pooled.value = l->pooled.se = l->pooled.tau = NAN;
+        return;
+    }
+    double median_se = NAN;
+    if (m < 2 || sl_stats_median(&median_se, se, m, NULL) != SL_OK)
+        return;
+    double w = half_width(&l->pooled, median_se);
+    l->chart.center = l->pooled.value;
+    l->chart.lcl = l->pooled.value - w;
+    l->chart.ucl = l->pooled.value + w;
+    l->chart.sigma = w / SL_STATS_CHART_SIGMAS;
 }
 
 static sl_status chart_level(sl_history_level *l)
 {
     size_t n = l->n_points;
     double *x = malloc((n + 1) * sizeof *x), *se = malloc((n + 1) * sizeof *se);
-    int *flags = calloc(n + 1, sizeof *flags);
-    if (!x || !se || !flags) {
+    if (!x || !se) {
         free(x);
         free(se);
-        free(flags);
         return SL_ENOMEM;
     }
-    judge_drift(l, x, se, flags);
+    judge_drift(l, x, se);
     /* calibration pools the lots in control: a drifted lot is a finding, not
      * a measurement of what the level normally delivers */
-    size_t m = baseline(l, n, x, se);
-    l->pooled.value = l->pooled.se = NAN;
-    if (sl_stats_pool_inverse_variance(&l->pooled, x, se, m) != SL_OK)
-        l->pooled.value = l->pooled.se = NAN;
+    pool_level(l, x, se);
     free(x);
     free(se);
-    free(flags);
     return SL_OK;
+}
+
+/* The lot's measured scatter into the history's running sums. */
+static void add_variation(sl_history *h, const sl_analysis *a)
+{
+    if (isfinite(a->wafer_sigma_per_cm2)) {
+        h->wafer_var_sum += a->wafer_sigma_per_cm2 * a->wafer_sigma_per_cm2;
+        h->n_wafer_sigma++;
+    }
+    if (isfinite(a->device_sigma_V)) {
+        h->device_var_sum += a->device_sigma_V * a->device_sigma_V;
+        h->n_device_sigma++;
+    }
 }
 
 static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_view *view,
@@ -162,6 +187,8 @@ static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_v
         sl_analysis *a = st == SL_OK ? &sl_analysis_stream_release(stream)->pub : NULL;
         if (st == SL_OK)
             st = add_lot(h, a, i, n);
+        if (st == SL_OK)
+            add_variation(h, a);
         if (st == SL_OK && i + 1 == n) { /* keep the newest plan for calibration */
             h->newest_plan = a->plan;
             a->plan = NULL;
@@ -189,6 +216,9 @@ sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_an
     sl_status st = collect_lots(h, store, view, diag);
     for (size_t i = 0; st == SL_OK && i < h->n_levels; i++)
         st = chart_level(&h->levels[i]);
+    /* root mean square over the lots that measured it */
+    h->wafer_sigma_per_cm2 = h->n_wafer_sigma ? sqrt(h->wafer_var_sum / (double)h->n_wafer_sigma) : NAN;
+    h->device_sigma_V = h->n_device_sigma ? sqrt(h->device_var_sum / (double)h->n_device_sigma) : NAN;
     if (st != SL_OK) {
         sl_history_free(h);
         return st;

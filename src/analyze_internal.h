@@ -17,12 +17,44 @@ typedef struct {
     sl_store_device_row *rows;
 } sl_analysis_owner;
 
-/* Estimate every level's effect from wafer means of measured doping:
- * wafer_sum_per_cm2[w] and wafer_devices[w] (plan wafer index w) over the
- * usable, non-outlier devices of each wafer; fills a->effects,
- * a->n_off_plan and a->effects_status / effects_note. */
+/* What the analysis keeps of one wafer (plan wafer index), volts. */
+typedef struct {
+    long split;              /* -1: the wafer is not in the design */
+    size_t n_usable;         /* usable devices */
+    double min_V, max_V;     /* of their V_cnp */
+    double median_V;         /* of their V_cnp */
+    size_t n;                /* usable, not outliers: the wafer mean's devices */
+    double mean_V, m2_V2;    /* their mean and sum of squared deviations */
+    size_t n_above, n_below; /* censored: V_cnp above / below the sweep */
+    double above_V, below_V; /* the least extreme bound of each side */
+} sl_analyze_wafer;
+
+/* Add a usable, non-outlier V_cnp to a wafer (Welford's running moments). */
+void sl_analyze_wafer_add(sl_analyze_wafer *w, double cnp_V);
+
+/* Add a censored device whose V_cnp lies above (above = 1) or below bound_V. */
+void sl_analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V);
+
+/* Everything that speaks for a split or a level, from the wafers (layout
+ * order, layout->n_wafers entries) with the wafer as the unit: the pooled
+ * device SD per dielectric, each wafer's mean (censored-normal ML where it
+ * has censored devices), split summaries, the ANOVA of wafer-mean doping,
+ * the effects and their verdicts. Needs a->plan, a->splits (predictions,
+ * device counts) and a->split_capacitance_F_per_m2. */
+sl_status sl_analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
+                                      const sl_analyze_wafer *wafers);
+
+/* Estimate every level's effect from wafer means of measured doping
+ * (cm^-2, NaN for a wafer without a mean) and the sampling variance of
+ * each (cm^-4); fills a->effects, the verdict counts, a->wafer_sigma_per_cm2
+ * and a->effects_status / effects_note. */
 sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
-                             const double *wafer_sum_per_cm2, const double *wafer_devices);
+                             const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4);
+
+/* "baseline + ox90" (+ each other factor's reference level but 'none'):
+ * the name of the intercept, levels given per factor. */
+void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
+                               const size_t *reference_levels);
 
 /* Planned doping of a factor's level (cm^-2) and its own sigma. */
 sl_est sl_analyze_planned_level(const sl_plan *plan, size_t factor, size_t level);

@@ -3,42 +3,48 @@
  * include/splitlot/analyze.h): the view (step and temperature) is chosen,
  * the splits, wafers and predictions are read as the view's plan revision
  * stored them (never recomputed), the lot's current measurements in the
- * view are kept in the store's scratch, and passes over them give the split summaries, exact robust
- * scales, flags, wafer means, effects and ANOVA, holding state per split and
- * per wafer only; devices and the failure-analysis list are then read back
- * one at a time. Every device is scored by one function (evaluate), whichever
- * pass or reading asks.
+ * view are kept in the store's scratch, and passes over them give each
+ * wafer's exact median, each dielectric's pooled MAD of the residuals from
+ * the wafer medians, the flags, and each wafer's running moments and
+ * censored devices, holding state per wafer, split and dielectric only;
+ * src/analyze_wafers.c turns those into split summaries, ANOVA and effects.
+ * Devices and the failure-analysis list are then read back one at a time.
+ * Every device is scored by one function (evaluate), whichever pass or
+ * reading asks.
  */
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
-#include <gsl/gsl_rstat.h>
-
 #include "analyze_internal.h"
 
-/* Fewest usable devices in a split for modified z-scores to mean anything
- * (common practice: a median and MAD of fewer points are too unstable). */
+/* Fewest usable devices for modified z-scores to mean anything (common
+ * practice: a median and MAD of fewer points are too unstable): on the
+ * device's wafer, and pooled over its dielectric's wafers. */
+#define SL_ANALYZE_MIN_PER_WAFER 3
 #define SL_ANALYZE_MIN_FOR_OUTLIERS 5
 
-/* Running state of one split. */
+/* Running state of one dielectric: the MAD of the residuals from the wafer
+ * medians, pooled over its wafers. */
 typedef struct {
-    gsl_rstat_workspace *cnp;     /* usable V_cnp */
-    gsl_rstat_workspace *doping;  /* their doping, for the ANOVA */
-    gsl_rstat_workspace *abs_dev; /* |V_cnp - median|, for the mean absolute deviation */
+    size_t n;                     /* residuals pooled */
+    double max_distance_V;        /* the largest |residual| */
+    double sum_abs_V;             /* for the mean absolute deviation */
     sl_stats_median_search *search;
-    double median, mad;
-    int first_distance_pass;
-    sl_stats_robust robust;
-} split_state;
+    double mad_V;
+    sl_stats_robust robust;       /* of the residuals: median 0 */
+} dielectric_state;
 
 struct sl_analysis_stream {
     sl_analysis_owner *owner;     /* the summary */
     sl_layout *layout;
-    sl_store_scratch *scratch;    /* the devices, kept under their split */
-    split_state *split;
-    double *wafer_sum_per_cm2, *wafer_devices; /* per plan wafer: usable, not outliers */
+    sl_store *store;              /* sweeps of censored devices */
+    sl_store_scratch *scratch;    /* the devices, kept under their wafer */
+    sl_analyze_wafer *wafer;      /* per plan wafer */
+    sl_stats_median_search **wafer_search;
+    dielectric_state *dielectric;
+    int first_pass;               /* of a phase of median searches */
     const sl_store_device_row *row; /* behind device */
     sl_analyze_device device;       /* the one last given */
 };
@@ -205,26 +211,20 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
 
 static sl_status alloc_state(sl_analysis_stream *s)
 {
-    size_t ns = s->owner->pub.n_splits, nw = s->layout->n_wafers;
-    s->split = calloc(ns + 1, sizeof *s->split);
-    s->wafer_sum_per_cm2 = calloc(nw + 1, sizeof *s->wafer_sum_per_cm2);
-    s->wafer_devices = calloc(nw + 1, sizeof *s->wafer_devices);
-    if (!s->split || !s->wafer_sum_per_cm2 || !s->wafer_devices)
+    size_t nw = s->layout->n_wafers, nd = s->owner->pub.plan->n_dielectrics;
+    s->wafer = calloc(nw + 1, sizeof *s->wafer);
+    s->wafer_search = calloc(nw + 1, sizeof *s->wafer_search);
+    s->dielectric = calloc(nd + 1, sizeof *s->dielectric);
+    if (!s->wafer || !s->wafer_search || !s->dielectric)
         return SL_ENOMEM;
-    for (size_t k = 0; k < ns; k++) {
-        split_state *p = &s->split[k];
-        p->cnp = gsl_rstat_alloc();
-        p->doping = gsl_rstat_alloc();
-        p->abs_dev = gsl_rstat_alloc();
-        if (!p->cnp || !p->doping || !p->abs_dev)
-            return SL_ENOMEM;
-    }
+    for (size_t w = 0; w < nw; w++)
+        s->wafer[w].split = s->layout->wafers[w].split;
     return SL_OK;
 }
 
 /* ---- one device ---- */
 
-/* Doping from a measured V_cnp with the split's planned C_g. */
+/* Doping from a measured V_cnp with the split's planned C_g: -C_g V / e. */
 static double doping_of(const sl_analysis *a, long split, double cnp_V)
 {
     return -a->split_capacitance_F_per_m2[split] * cnp_V / SL_SI_ELEMENTARY_CHARGE *
@@ -266,9 +266,17 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     }
 }
 
-/* z against the prediction interval and M within the split. */
-static void score_device(sl_analyze_device *d, const sl_analyze_split *sp, const sl_stats_robust *robust)
+/* The dielectric of a split. */
+static dielectric_state *dielectric_of(sl_analysis_stream *s, long split)
 {
+    return &s->dielectric[s->owner->pub.plan->splits[split].dielectric];
+}
+
+/* z against the prediction interval; M of the residual from the wafer
+ * median, scaled by the dielectric's pooled MAD. */
+static void score_device(sl_analysis_stream *s, sl_analyze_device *d, long wafer)
+{
+    const sl_analyze_split *sp = &s->owner->pub.splits[d->split];
     double combined = hypot(d->cnp_predicted_sigma_V, sp->spread_V);
     /* no spread at all (a plan without sigmas, a split of one device):
      * the interval is a point, so any deviation lies outside it */
@@ -278,8 +286,10 @@ static void score_device(sl_analyze_device *d, const sl_analyze_split *sp, const
         d->z = d->deviation_V == 0.0 ? 0.0 : copysign(INFINITY, d->deviation_V);
     if (fabs(d->z) > SL_ANALYZE_INTERVAL_SIGMAS)
         d->flags |= SL_FLAG_OFF_PREDICTION;
-    if (sp->n_usable >= SL_ANALYZE_MIN_FOR_OUTLIERS) {
-        d->modified_z = sl_stats_modified_z_of(robust, d->cnp_measured_V);
+    const dielectric_state *g = dielectric_of(s, d->split);
+    const sl_analyze_wafer *w = &s->wafer[wafer];
+    if (w->n_usable >= SL_ANALYZE_MIN_PER_WAFER && g->n >= SL_ANALYZE_MIN_FOR_OUTLIERS) {
+        d->modified_z = sl_stats_modified_z_of(&g->robust, d->cnp_measured_V - w->median_V);
         if (fabs(d->modified_z) > SL_STATS_MODIFIED_Z_THRESHOLD)
             d->flags |= SL_FLAG_OUTLIER;
     }
@@ -320,7 +330,7 @@ static void describe(sl_analyze_device *d)
                               "the split gives a spread)",
                               fabs(d->deviation_V), d->deviation_V > 0 ? "above" : "below");
     if (d->flags & SL_FLAG_OUTLIER)
-        snprintf(d->reason + k, sizeof d->reason - k, "%s%s its split's devices (modified z %.1f)",
+        snprintf(d->reason + k, sizeof d->reason - k, "%s%s the other devices of its wafer (modified z %.1f)",
                  k ? "; " : "", d->modified_z > 0 ? "far above" : "far below", d->modified_z);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
@@ -328,14 +338,16 @@ static void describe(sl_analyze_device *d)
         d->severity += 100.0;
 }
 
-/* Every field of a device, from its row and its split's statistics. */
-static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long split)
+/* Every field of a device, from its row and its wafer's and dielectric's
+ * statistics. */
+static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long wafer)
 {
     const sl_analysis *a = &s->owner->pub;
     sl_analyze_device *d = &s->device;
+    long split = s->wafer[wafer].split;
     fill_device(a, d, r, split);
     if (isfinite(d->cnp_measured_V))
-        score_device(d, &a->splits[split], &s->split[split].robust);
+        score_device(s, d, wafer);
     if (d->flags)
         describe(d);
     s->row = r;
@@ -360,9 +372,9 @@ static int by_name(const void *pa, const void *pb)
 }
 
 /* The current measurement in the view of the devices on the revision's
- * wafers into the scratch, under their split and wafer, in wafer name order
- * as sl_store_load_devices gives them (devices on wafers the revision no
- * longer uses are left out). */
+ * wafers into the scratch, under their wafer (group) and split (tag), in
+ * wafer name order as sl_store_load_devices gives them (devices on wafers
+ * the revision no longer uses are left out). */
 static sl_status keep_devices(sl_analysis_stream *s, sl_diag *diag)
 {
     const sl_layout *l = s->layout;
@@ -377,70 +389,79 @@ static sl_status keep_devices(sl_analysis_stream *s, sl_diag *diag)
     for (size_t i = 0; st == SL_OK && i < l->n_wafers; i++) {
         const sl_layout_wafer *w = &l->wafers[order[i].index];
         if (w->split >= 0)
-            st = sl_store_scratch_keep_wafer(s->scratch, s->owner->pub.lot.lot_id, w->wafer, w->split,
-                                             (long)order[i].index, diag);
+            st = sl_store_scratch_keep_wafer(s->scratch, s->owner->pub.lot.lot_id, w->wafer,
+                                             (long)order[i].index, w->split, diag);
     }
     free(order);
     return st;
 }
 
-/* Every usable V_cnp, with its split, to visit. */
-typedef void (*value_visit)(split_state *p, double cnp_V, const sl_analysis *a, long split);
+/* Every usable V_cnp, with its wafer, to visit. */
+typedef void (*value_visit)(sl_analysis_stream *s, long wafer, double cnp_V);
 
 static sl_status each_value(sl_analysis_stream *s, value_visit visit, sl_diag *diag)
 {
-    long split;
+    long wafer;
     double v;
     int more;
     sl_status st;
-    while ((st = sl_store_scratch_next_value(s->scratch, &more, &split, &v, diag)) == SL_OK && more)
+    while ((st = sl_store_scratch_next_value(s->scratch, &more, &wafer, &v, diag)) == SL_OK && more)
         if (isfinite(v))
-            visit(&s->split[split], v, &s->owner->pub, split);
+            visit(s, wafer, v);
     return st;
 }
 
-/* Pass 1: each split's count, mean, SD, range, and its doping's moments. */
-static void add_moments(split_state *p, double cnp_V, const sl_analysis *a, long split)
+/* Pass 1: each wafer's count and range of usable V_cnp. */
+static void add_range(sl_analysis_stream *s, long wafer, double cnp_V)
 {
-    gsl_rstat_add(cnp_V, p->cnp);
-    gsl_rstat_add(doping_of(a, split, cnp_V), p->doping);
+    sl_analyze_wafer *w = &s->wafer[wafer];
+    w->min_V = w->n_usable ? fmin(w->min_V, cnp_V) : cnp_V;
+    w->max_V = w->n_usable ? fmax(w->max_V, cnp_V) : cnp_V;
+    w->n_usable++;
 }
 
-/* Median passes: V_cnp to the split's search; in the MAD phase |V_cnp -
- * median|, whose first pass also feeds the mean absolute deviation. */
-static void add_to_search(split_state *p, double cnp_V, const sl_analysis *a, long split)
+/* Median passes: V_cnp to its wafer's search. */
+static void add_to_wafer_search(sl_analysis_stream *s, long wafer, double cnp_V)
 {
-    (void)a, (void)split;
-    if (p->search)
-        sl_stats_median_search_add(p->search, cnp_V);
+    if (s->wafer_search[wafer])
+        sl_stats_median_search_add(s->wafer_search[wafer], cnp_V);
 }
 
-static void add_distance(split_state *p, double cnp_V, const sl_analysis *a, long split)
+/* MAD passes: |V_cnp - wafer median| of the wafers the outlier rule scores
+ * to their dielectric's search; the first also sums them. */
+static void add_residual(sl_analysis_stream *s, long wafer, double cnp_V)
 {
-    (void)a, (void)split;
-    double x = fabs(cnp_V - p->median);
-    if (p->first_distance_pass)
-        gsl_rstat_add(x, p->abs_dev);
-    if (p->search)
-        sl_stats_median_search_add(p->search, x);
+    const sl_analyze_wafer *w = &s->wafer[wafer];
+    if (w->n_usable < SL_ANALYZE_MIN_PER_WAFER)
+        return;
+    dielectric_state *g = dielectric_of(s, w->split);
+    double x = fabs(cnp_V - w->median_V);
+    if (s->first_pass)
+        g->sum_abs_V += x;
+    if (g->search)
+        sl_stats_median_search_add(g->search, x);
 }
 
-/* Passes until every split's search has its median (a pass at least). */
-static sl_status search_passes(sl_analysis_stream *s, int mad_phase, sl_diag *diag)
+/* End a pass of one search; *open |= not done yet. */
+static sl_status end_pass(sl_stats_median_search *search, double *median, int *open)
+{
+    int done = 1;
+    sl_status st = search ? sl_stats_median_search_end_pass(search, &done, median) : SL_OK;
+    *open |= !done;
+    return st;
+}
+
+/* Passes until every search has its median (a pass at least). */
+static sl_status search_passes(sl_analysis_stream *s, int residuals, sl_diag *diag)
 {
     sl_analysis *a = &s->owner->pub;
-    for (int first = 1, open = 1; open; first = 0) {
-        for (size_t k = 0; k < a->n_splits; k++)
-            s->split[k].first_distance_pass = first;
-        sl_status st = each_value(s, mad_phase ? add_distance : add_to_search, diag);
+    for (int open = 1; open; s->first_pass = 0) {
+        sl_status st = each_value(s, residuals ? add_residual : add_to_wafer_search, diag);
         open = 0;
-        for (size_t k = 0; st == SL_OK && k < a->n_splits; k++) {
-            split_state *p = &s->split[k];
-            int done = 1;
-            if (p->search)
-                st = sl_stats_median_search_end_pass(p->search, &done, mad_phase ? &p->mad : &p->median);
-            open |= !done;
-        }
+        for (size_t w = 0; !residuals && st == SL_OK && w < s->layout->n_wafers; w++)
+            st = end_pass(s->wafer_search[w], &s->wafer[w].median_V, &open);
+        for (size_t d = 0; residuals && st == SL_OK && d < a->plan->n_dielectrics; d++)
+            st = end_pass(s->dielectric[d].search, &s->dielectric[d].mad_V, &open);
         if (st == SL_EINPUT)
             return sl_analyze_lot_changed(a, diag);
         if (st != SL_OK)
@@ -449,68 +470,113 @@ static sl_status search_passes(sl_analysis_stream *s, int mad_phase, sl_diag *di
     return SL_OK;
 }
 
-/* A search per split with usable devices: for the median over [min, max],
- * for the MAD over [0, largest distance from the median]. */
-static sl_status start_searches(sl_analysis_stream *s, int mad_phase)
+/* A median search for every wafer with usable devices, over its range. */
+static sl_status wafer_medians(sl_analysis_stream *s, sl_diag *diag)
 {
-    for (size_t k = 0; k < s->owner->pub.n_splits; k++) {
-        split_state *p = &s->split[k];
-        size_t n = gsl_rstat_n(p->cnp);
-        sl_stats_median_search_free(p->search);
-        p->search = NULL;
-        if (n == 0)
-            continue;
-        double lo = gsl_rstat_min(p->cnp), hi = gsl_rstat_max(p->cnp);
-        if (mad_phase) {
-            hi = fmax(fabs(lo - p->median), fabs(hi - p->median));
-            lo = 0.0;
-        }
-        sl_status st = sl_stats_median_search_new(&p->search, n, lo, hi);
-        if (st != SL_OK)
-            return st;
+    sl_status st = SL_OK;
+    for (size_t w = 0; st == SL_OK && w < s->layout->n_wafers; w++)
+        if (s->wafer[w].n_usable)
+            st = sl_stats_median_search_new(&s->wafer_search[w], s->wafer[w].n_usable,
+                                            s->wafer[w].min_V, s->wafer[w].max_V);
+    s->first_pass = 1;
+    if (st == SL_OK)
+        st = search_passes(s, 0, diag);
+    for (size_t w = 0; w < s->layout->n_wafers; w++) {
+        sl_stats_median_search_free(s->wafer_search[w]);
+        s->wafer_search[w] = NULL;
     }
-    return SL_OK;
+    return st;
 }
 
-/* Summary, CI and robust spread of one split from its accumulators. */
-static void summarize_split(sl_analysis *a, size_t k, split_state *p)
+/* Each dielectric's MAD of the residuals pooled over its scored wafers. */
+static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
 {
-    sl_analyze_split *sp = &a->splits[k];
-    size_t n = gsl_rstat_n(p->cnp);
-    sp->n_usable = n;
-    sp->cnp.n = n;
-    sp->cnp.mean = sp->cnp.sd = sp->cnp.ci_low = sp->cnp.ci_high = NAN;
-    sp->bias_V = sp->spread_V = NAN;
-    if (n == 0)
-        return;
-    sl_stats_summarize_moments(&sp->cnp, n, gsl_rstat_mean(p->cnp), gsl_rstat_sd(p->cnp), 0.95);
-    sp->bias_V = sp->cnp.mean - sp->cnp_predicted_V;
-    sp->prediction_in_ci = n >= 2 && sp->cnp_predicted_V >= sp->cnp.ci_low &&
-                           sp->cnp_predicted_V <= sp->cnp.ci_high;
-    sl_stats_robust_from(&p->robust, n, p->median, p->mad, gsl_rstat_mean(p->abs_dev));
-    sp->spread_V = p->robust.scale > 0.0 ? p->robust.scale : (n >= 2 ? sp->cnp.sd : 0.0);
-    a->n_usable += n;
-    if (sp->cnp.mean < a->split_gate_min_V[k] || sp->cnp.mean > a->split_gate_max_V[k])
-        a->n_splits_cnp_outside++;
+    sl_analysis *a = &s->owner->pub;
+    for (size_t w = 0; w < s->layout->n_wafers; w++) {
+        const sl_analyze_wafer *wf = &s->wafer[w];
+        if (wf->split < 0 || wf->n_usable < SL_ANALYZE_MIN_PER_WAFER)
+            continue;
+        dielectric_state *g = dielectric_of(s, wf->split);
+        g->n += wf->n_usable;
+        g->max_distance_V = fmax(g->max_distance_V, fmax(fabs(wf->min_V - wf->median_V),
+                                                         fabs(wf->max_V - wf->median_V)));
+    }
+    sl_status st = SL_OK;
+    for (size_t d = 0; st == SL_OK && d < a->plan->n_dielectrics; d++)
+        if (s->dielectric[d].n)
+            st = sl_stats_median_search_new(&s->dielectric[d].search, s->dielectric[d].n, 0.0,
+                                            s->dielectric[d].max_distance_V);
+    s->first_pass = 1;
+    if (st == SL_OK)
+        st = search_passes(s, 1, diag);
+    for (size_t d = 0; d < a->plan->n_dielectrics; d++) {
+        dielectric_state *g = &s->dielectric[d];
+        sl_stats_median_search_free(g->search);
+        g->search = NULL;
+        if (g->n)
+            sl_stats_robust_from(&g->robust, g->n, 0.0, g->mad_V, g->sum_abs_V / (double)g->n);
+    }
+    /* the device spread of the off-prediction interval: about the wafer medians */
+    for (size_t k = 0; k < a->n_splits; k++)
+        a->splits[k].spread_V = dielectric_of(s, (long)k)->robust.scale;
+    return st;
+}
+
+/* A censored device: which end of its sweep the neutrality point lies
+ * beyond (the end where the resistance is higher, the curve still rising
+ * towards its peak). Without a stored sweep, the split's gate range and
+ * the side of its prediction stand in. */
+static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d, long wafer,
+                               sl_diag *diag)
+{
+    double *vg = NULL, *r = NULL;
+    size_t n = 0;
+    const sl_analysis *a = &s->owner->pub;
+    sl_status st = sl_store_load_sweep(s->store, &vg, &r, &n, d->device_id, diag);
+    if (st == SL_OK && n >= 2) {
+        size_t lo = 0, hi = 0;
+        for (size_t i = 1; i < n; i++) {
+            lo = vg[i] < vg[lo] ? i : lo;
+            hi = vg[i] > vg[hi] ? i : hi;
+        }
+        int above = r[hi] > r[lo];
+        sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
+    } else if (st == SL_OK || st == SL_ENOTFOUND) {
+        double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
+        int above = d->cnp_predicted_V > 0.5 * (lo + hi);
+        sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
+        st = SL_OK;
+    }
+    free(vg);
+    free(r);
+    return st;
 }
 
 /* The last pass before the devices are read back: each device counted and
  * scored, the flagged ones listed by severity, the usable ones but the
- * outliers summed into their wafer's mean. */
-static sl_status add_flags(sl_analysis_stream *s, long split, long wafer, sl_diag *diag)
+ * outliers into their wafer's moments, the censored ones to its bounds. */
+static sl_status add_flags(sl_analysis_stream *s, long wafer, sl_diag *diag)
 {
     sl_analysis *a = &s->owner->pub;
     const sl_analyze_device *d = &s->device;
+    sl_analyze_split *sp = &a->splits[d->split];
     a->n_devices++;
-    a->splits[split].n_devices++;
-    if (isfinite(d->doping_measured_per_cm2) && !(d->flags & SL_FLAG_OUTLIER)) {
-        s->wafer_sum_per_cm2[wafer] += d->doping_measured_per_cm2;
-        s->wafer_devices[wafer] += 1.0;
+    sp->n_devices++;
+    if (isfinite(d->cnp_measured_V)) {
+        sp->n_usable++;
+        a->n_usable++;
+        a->n_outlier_scored += isfinite(d->modified_z);
+        if (!(d->flags & SL_FLAG_OUTLIER))
+            sl_analyze_wafer_add(&s->wafer[wafer], d->cnp_measured_V);
+    } else if (strcmp(d->fit_class, "cnp-outside-sweep") == 0) {
+        sl_status st = censor_device(s, d, wafer, diag);
+        if (st != SL_OK)
+            return st;
     }
     if (!d->flags)
         return SL_OK;
     a->n_flagged++;
-    a->splits[split].n_flagged++;
+    sp->n_flagged++;
     return sl_store_scratch_rank(s->scratch, d->severity, diag);
 }
 
@@ -519,64 +585,34 @@ static sl_status flags_pass(sl_analysis_stream *s, sl_diag *diag)
     const sl_store_device_row *r = NULL;
     long split, wafer;
     sl_status st;
-    while ((st = sl_store_scratch_next_kept(s->scratch, &split, &wafer, &r, diag)) == SL_OK && r) {
-        evaluate(s, r, split);
-        if ((st = add_flags(s, split, wafer, diag)) != SL_OK)
+    while ((st = sl_store_scratch_next_kept(s->scratch, &wafer, &split, &r, diag)) == SL_OK && r) {
+        evaluate(s, r, wafer);
+        if ((st = add_flags(s, wafer, diag)) != SL_OK)
             break;
     }
     if (r)
         sl_store_scratch_rewind(s->scratch);
-    return st;
-}
-
-/* One-way ANOVA of measured doping across splits, from their moments. */
-static sl_status anova_splits(sl_analysis_stream *s)
-{
-    sl_analysis *a = &s->owner->pub;
-    size_t ns = a->n_splits, total = 0;
-    size_t *sizes = calloc(ns + 1, sizeof *sizes);
-    double *means = calloc(ns + 1, sizeof *means), *variances = calloc(ns + 1, sizeof *variances);
-    sl_status st = (sizes && means && variances) ? SL_OK : SL_ENOMEM;
-    for (size_t k = 0; st == SL_OK && k < ns; k++) {
-        const gsl_rstat_workspace *w = s->split[k].doping;
-        sizes[k] = gsl_rstat_n(w);
-        means[k] = sizes[k] ? gsl_rstat_mean(w) : NAN;
-        variances[k] = sizes[k] > 1 ? gsl_rstat_variance(w) : 0.0;
-        total += sizes[k];
-    }
-    a->anova.f = a->anova.p = NAN;
-    if (st == SL_OK && total > 0 && sl_stats_anova_moments(&a->anova, sizes, means, variances, ns) != SL_OK)
-        a->anova.f = a->anova.p = NAN;
-    free(sizes);
-    free(means);
-    free(variances);
+    /* |M| > 3.5 of a normal residual: 2 Q(3.5) of the devices scored */
+    s->owner->pub.outliers_expected = (double)s->owner->pub.n_outlier_scored *
+                                      sl_stats_z_p_two_sided(SL_STATS_MODIFIED_Z_THRESHOLD);
     return st;
 }
 
 static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
 {
-    sl_analysis *a = &s->owner->pub;
     sl_status st = keep_devices(s, diag);
     if (st == SL_OK)
         st = sl_store_scratch_keep_values(s->scratch, fit_ok, diag);
     if (st == SL_OK)
-        st = each_value(s, add_moments, diag);
+        st = each_value(s, add_range, diag);
     if (st == SL_OK)
-        st = start_searches(s, 0);
+        st = wafer_medians(s, diag);
     if (st == SL_OK)
-        st = search_passes(s, 0, diag);
-    if (st == SL_OK)
-        st = start_searches(s, 1);
-    if (st == SL_OK)
-        st = search_passes(s, 1, diag);
-    for (size_t k = 0; st == SL_OK && k < a->n_splits; k++)
-        summarize_split(a, k, &s->split[k]);
+        st = dielectric_mads(s, diag);
     if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)
-        st = anova_splits(s);
-    if (st == SL_OK)
-        st = sl_analyze_effects(a, s->layout, s->wafer_sum_per_cm2, s->wafer_devices);
+        st = sl_analyze_wafer_statistics(&s->owner->pub, s->layout, s->wafer);
     return st;
 }
 
@@ -595,6 +631,7 @@ sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, 
         free(s);
         return SL_ENOMEM;
     }
+    s->store = store;
     sl_status st = load_lot(s, store, lot, view, diag);
     if (st == SL_OK)
         st = alloc_state(s);
@@ -632,9 +669,9 @@ static sl_status next_evaluated(sl_analysis_stream *s, kept_reading read,
     const sl_store_device_row *r = NULL;
     long split, wafer;
     *device = NULL;
-    sl_status st = read(s->scratch, &split, &wafer, &r, diag);
+    sl_status st = read(s->scratch, &wafer, &split, &r, diag);
     if (st == SL_OK && r) {
-        evaluate(s, r, split);
+        evaluate(s, r, wafer);
         *device = &s->device;
     }
     return st;
@@ -659,19 +696,13 @@ void sl_analysis_stream_rewind(sl_analysis_stream *s)
 
 static void free_state(sl_analysis_stream *s)
 {
-    for (size_t k = 0; s->split && k < s->owner->pub.n_splits; k++) {
-        split_state *p = &s->split[k];
-        if (p->cnp)
-            gsl_rstat_free(p->cnp);
-        if (p->doping)
-            gsl_rstat_free(p->doping);
-        if (p->abs_dev)
-            gsl_rstat_free(p->abs_dev);
-        sl_stats_median_search_free(p->search);
-    }
-    free(s->split);
-    free(s->wafer_sum_per_cm2);
-    free(s->wafer_devices);
+    for (size_t w = 0; s->wafer_search && w < s->layout->n_wafers; w++)
+        sl_stats_median_search_free(s->wafer_search[w]);
+    for (size_t d = 0; s->dielectric && d < s->owner->pub.plan->n_dielectrics; d++)
+        sl_stats_median_search_free(s->dielectric[d].search);
+    free(s->wafer_search);
+    free(s->dielectric);
+    free(s->wafer);
 }
 
 sl_analysis_owner *sl_analysis_stream_release(sl_analysis_stream *s)

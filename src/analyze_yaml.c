@@ -1,8 +1,10 @@
 /* SPDX-License-Identifier: MIT
- * Calibrated plan YAML from the history across lots: the pooled doping of
- * every measured level, turned back into absolute values with the newest
- * plan's reference levels, as baseline, materials, dielectrics and treatments
- * blocks that can be pasted into the next plan.
+ * Calibrated plan YAML from the history across lots: the random-effects
+ * pooled doping of every measured level with sigma sqrt(tau^2 + SE^2),
+ * turned back into absolute values with the newest plan's reference levels,
+ * as baseline, materials, dielectrics and treatments blocks, and the
+ * measured wafer and device scatter as a `variation` block, to be pasted
+ * into the next plan.
  */
 #include <ctype.h>
 #include <math.h>
@@ -24,20 +26,12 @@ static const sl_history_level *history_level(const sl_history *h, const char *fa
     return NULL;
 }
 
-/* Lot-to-lot SD of a level's estimates (NaN with fewer than two). */
-static double lot_sd(const sl_history_level *l)
+/* What a lot of this level will deliver: sigma = sqrt(tau^2 + SE^2), tau
+ * the between-lot sigma (unknown from one lot: SE alone). */
+static double calibrated_sigma(const sl_history_level *l)
 {
-    if (l->n_points < 2)
-        return NAN;
-    double *x = malloc(l->n_points * sizeof *x);
-    if (!x)
-        return NAN;
-    for (size_t i = 0; i < l->n_points; i++)
-        x[i] = l->points[i].estimated_per_cm2;
-    sl_stats_summary s;
-    double sd = sl_stats_summarize(&s, x, l->n_points, 0.95) == SL_OK ? s.sd : NAN;
-    free(x);
-    return sd;
+    double tau = isfinite(l->pooled.tau) ? l->pooled.tau : 0.0;
+    return sqrt(tau * tau + l->pooled.se * l->pooled.se);
 }
 
 /* Calibrated absolute doping of a factor's level; planned when unmeasured. */
@@ -53,11 +47,8 @@ static sl_est calibrated(const sl_history *h, size_t factor, size_t level, int *
     if (!l)
         return planned;
     *measured = 1;
-    double sd = lot_sd(l);
-    sl_est v = { sl_analyze_planned_level(p, factor, 0).val + l->pooled.value, l->pooled.se };
-    if (isfinite(sd) && sd > v.sigma)
-        v.sigma = sd;
-    return v;
+    return (sl_est){ sl_analyze_planned_level(p, factor, 0).val + l->pooled.value,
+                     calibrated_sigma(l) };
 }
 
 /* A name as a YAML scalar: plain when it is made of letters, digits and
@@ -93,18 +84,34 @@ static void emit_doping(FILE *out, sl_est v)
 static void emit_baseline(FILE *out, const sl_history *h)
 {
     const sl_plan *p = h->newest_plan;
-    const sl_history_level *l = history_level(h, "intercept", "baseline", p->factors[0].levels[0]);
+    char name[256];
+    size_t refs[64] = { 0 }; /* every factor's level 0 */
+    sl_analyze_intercept_name(name, sizeof name, p, refs);
+    const sl_history_level *l = p->n_factors <= 64 ? history_level(h, "intercept", name,
+                                                                   p->factors[0].levels[0])
+                                                   : NULL;
     sl_est v = p->baseline_doping_per_cm2;
     if (l) {
         v.val = l->pooled.value;
         for (size_t f = 0; f < p->n_factors; f++)
             v.val -= sl_analyze_planned_level(p, f, 0).val;
-        double sd = lot_sd(l);
-        v.sigma = isfinite(sd) && sd > l->pooled.se ? sd : l->pooled.se;
+        v.sigma = calibrated_sigma(l);
     }
     fprintf(out, "baseline_doping_per_cm2: ");
     emit_doping(out, v);
     fprintf(out, "%s\n", l ? "   # with the reference levels as planned" : "   # not measured: planned value");
+}
+
+/* The scatter the lots showed, for the next plan's power and analysis. */
+static void emit_variation(FILE *out, const sl_history *h)
+{
+    if (!isfinite(h->wafer_sigma_per_cm2) && !isfinite(h->device_sigma_V))
+        return;
+    fprintf(out, "variation:   # measured: root mean square over the lots\n");
+    if (isfinite(h->wafer_sigma_per_cm2))
+        fprintf(out, "  wafer_sigma_per_cm2: %.4g\n", h->wafer_sigma_per_cm2);
+    if (isfinite(h->device_sigma_V))
+        fprintf(out, "  device_sigma_V: %.4g\n", h->device_sigma_V);
 }
 
 static void emit_materials(FILE *out, const sl_plan *p)
@@ -192,13 +199,14 @@ sl_status sl_history_emit_yaml(char **yaml, const sl_history *h)
     if (!out)
         return SL_ENOMEM;
     fprintf(out, "# Calibrated doping from %zu lot(s) with effect estimates; means are\n"
-                 "# inverse-variance pooled over the lots that did not drift, sigmas the\n"
-                 "# larger of the pooled standard error and the lot-to-lot SD. Paste over\n"
+                 "# random-effects pooled (DerSimonian and Laird) over the lots that did\n"
+                 "# not drift, sigmas sqrt(between-lot sigma^2 + pooled SE^2). Paste over\n"
                  "# the same keys of the next plan.\n",
             h->n_lots);
     emit_baseline(out, h);
     emit_materials(out, h->newest_plan);
     emit_dielectrics(out, h);
     emit_treatments(out, h);
+    emit_variation(out, h);
     return fclose(out) == 0 && *yaml ? SL_OK : SL_ENOMEM;
 }

@@ -506,6 +506,15 @@ sl_status sl_chart_control(sl_chart_buf *buf, const sl_chart_frame *frame,
                            double center, double lower_limit, double upper_limit,
                            const char *x_title, const char *y_title)
 {
+    return sl_chart_control_planned(buf, frame, values, labels, count, center, lower_limit,
+                                    upper_limit, NAN, x_title, y_title);
+}
+
+sl_status sl_chart_control_planned(sl_chart_buf *buf, const sl_chart_frame *frame,
+                                   const double *values, const char *const *labels, size_t count,
+                                   double center, double lower_limit, double upper_limit,
+                                   double planned, const char *x_title, const char *y_title)
+{
     if (!isfinite(center) || !isfinite(lower_limit) || !isfinite(upper_limit)
         || lower_limit > upper_limit || (count > 0 && !values))
         return SL_EINPUT;
@@ -521,12 +530,16 @@ sl_status sl_chart_control(sl_chart_buf *buf, const sl_chart_frame *frame,
     range_add(&r, center);
     range_add(&r, lower_limit);
     range_add(&r, upper_limit);
+    if (isfinite(planned))
+        range_add(&r, planned);
     sl_chart_scale x, y;
     draw_linear_y(buf, &y, &plot, r, y_title);
     draw_sequence_x(buf, &x, &plot, labels, count, x_title);
     limit_line(buf, &plot, &y, upper_limit, "limit", "upper");
     limit_line(buf, &plot, &y, center, "center", "centre");
     limit_line(buf, &plot, &y, lower_limit, "limit", "lower");
+    if (isfinite(planned))
+        limit_line(buf, &plot, &y, planned, "predicted", "planned");
     control_trace(buf, &x, &y, values, count);
     control_points(buf, &x, &y, values, labels, count, lower_limit, upper_limit);
     note_no_data(buf, &plot, any);

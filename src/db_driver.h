@@ -20,7 +20,8 @@ enum { SL__DB_OK = 0, SL__DB_FAIL = 1, SL__DB_ROW = 100, SL__DB_DONE = 101 };
 /* What the last failure of a connection was, for messages that say what to do. */
 typedef enum {
     SL__DBE_OTHER = 0,
-    SL__DBE_UNIQUE,       /* a unique or primary key: the row exists */
+    SL__DBE_UNIQUE,       /* a unique key: the row exists */
+    SL__DBE_PRIMARYKEY,   /* the primary key: the row exists */
     SL__DBE_FOREIGNKEY,
     SL__DBE_CHECK,
     SL__DBE_NOTNULL,

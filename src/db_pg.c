@@ -113,6 +113,10 @@ static int fail(pg_db *db, const PGresult *res)
     first_line(db->message, sizeof db->message,
                primary ? primary : PQerrorMessage(db->conn));
     db->kind = kind_of_sqlstate(state);
+    const char *constraint = res ? PQresultErrorField(res, PG_DIAG_CONSTRAINT_NAME) : NULL;
+    size_t n = constraint ? strlen(constraint) : 0;
+    if (db->kind == SL__DBE_UNIQUE && n > 5 && strcmp(constraint + n - 5, "_pkey") == 0)
+        db->kind = SL__DBE_PRIMARYKEY;
     if (PQstatus(db->conn) == CONNECTION_BAD)
         db->kind = SL__DBE_CONNECTION;
     return SL__DB_FAIL;
@@ -573,7 +577,7 @@ static void connect_failure(pg_db *db)
     const char *text = PQerrorMessage(db->conn);
     first_line(db->message, sizeof db->message, text);
     db->kind = (PQconnectionNeedsPassword(db->conn) || strstr(text, "authentication failed") ||
-                strstr(text, "password") || strstr(text, "does not exist"))
+                strstr(text, "password") || (strstr(text, "role") && strstr(text, "does not exist")))
                    ? SL__DBE_AUTH
                    : SL__DBE_CONNECTION;
 }

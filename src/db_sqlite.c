@@ -37,8 +37,8 @@ static sl__db_errkind db_errkind(sl__db *db)
 {
     int extended = sqlite3_extended_errcode(H(db));
     switch (extended) {
-    case SQLITE_CONSTRAINT_UNIQUE:
-    case SQLITE_CONSTRAINT_PRIMARYKEY: return SL__DBE_UNIQUE;
+    case SQLITE_CONSTRAINT_UNIQUE: return SL__DBE_UNIQUE;
+    case SQLITE_CONSTRAINT_PRIMARYKEY: return SL__DBE_PRIMARYKEY;
     case SQLITE_CONSTRAINT_FOREIGNKEY: return SL__DBE_FOREIGNKEY;
     case SQLITE_CONSTRAINT_CHECK: return SL__DBE_CHECK;
     case SQLITE_CONSTRAINT_NOTNULL: return SL__DBE_NOTNULL;

@@ -233,11 +233,12 @@ static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
 {
     long w = ingest_wafer_index(c, row->wafer);
     if (w < 0) {
-        const char *near = sl_text_nearest(row->wafer, (const char *const *)c->plan->wafers,
-                                           c->plan->n_wafers, 2);
-        ingest_error_at_row(c, c->col.wafer, "unknown wafer '%s' in lot '%s'%s%s%s", row->wafer,
-                            c->lot.lot, near ? " (did you mean '" : "", near ? near : "",
-                            near ? "'?)" : "");
+        char hint[96];
+        ingest_error_at_row(c, c->col.wafer, "unknown wafer '%s' in lot '%s'%s", row->wafer,
+                            c->lot.lot,
+                            sl_text_did_you_mean(hint, sizeof hint, row->wafer,
+                                                 (const char *const *)c->plan->wafers,
+                                                 c->plan->n_wafers));
         return SL_EINPUT;
     }
     if (c->wafers[w].split < 0) {
@@ -376,6 +377,11 @@ static sl_status start_runs(ingest_ctx *c)
 {
     const char *kind = c->opt->kind == SL_INGEST_SWEEPS ? "sweeps" : "results";
     const char *step = c->opt->step ? c->opt->step : "final";
+    if (!*step || strlen(step) > SL_INGEST_MAX_NAME_BYTES) {
+        sl_diag_error(c->diag, "step '%.64s' is not a step name (1 to %d bytes)", step,
+                      SL_INGEST_MAX_NAME_BYTES);
+        return SL_EINPUT;
+    }
     sl_status st = sl_store_next_run_id(c->store, &c->first_run_id, c->diag);
     for (size_t t = 0; st == SL_OK && t < c->revision.n_temperatures; t++)
         st = sl_store_add_run(c->store, &c->run_ids[t], c->lot.lot_id, c->lot.revision_id, step,

@@ -1,7 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Private to the ingest module: batches of sweeps and a pool of fitting
- * threads that works on one batch while the importing thread reads the next
- * (double buffering), so parsing and fitting overlap.
+ * threads. The sweep import (src/ingest_sweeps.c) keeps a ring of four
+ * batches: the reading thread fills one while the pool fits others and a
+ * writer thread stores fitted ones in file order; the pool's hand-over
+ * callback passes each fitted batch on (docs/architecture.md, "Import").
  */
 #ifndef SL_INGEST_POOL_H
 #define SL_INGEST_POOL_H

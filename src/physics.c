@@ -311,13 +311,13 @@ const sl_material *sl_physics_material_find(const char *name)
     return NULL;
 }
 
-/* Closest built-in material name within edit distance 2, or NULL. */
-static const char *nearest_material(const char *name)
+/* " (did you mean 'X'?)" for the built-in material nearest to name, or "". */
+static const char *material_hint(char *buf, size_t size, const char *name)
 {
     const char *names[sizeof material_table / sizeof material_table[0]];
     for (size_t i = 0; i < sl_physics_material_count(); i++)
         names[i] = material_table[i].name;
-    return sl_text_nearest(name, names, sl_physics_material_count(), 2);
+    return sl_text_did_you_mean(buf, size, name, names, sl_physics_material_count());
 }
 
 static sl_status parse_layer(sl_layer *layer, char *item, sl_diag *diag)
@@ -332,11 +332,8 @@ static sl_status parse_layer(sl_layer *layer, char *item, sl_diag *diag)
     }
     const sl_material *m = sl_physics_material_find(name);
     if (!m) {
-        const char *near = nearest_material(name);
-        if (near)
-            sl_diag_error(diag, "unknown material '%s' (did you mean '%s'?)", name, near);
-        else
-            sl_diag_error(diag, "unknown material '%s'", name);
+        char hint[96];
+        sl_diag_error(diag, "unknown material '%s'%s", name, material_hint(hint, sizeof hint, name));
         return SL_EINPUT;
     }
     char *end;

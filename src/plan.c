@@ -473,6 +473,21 @@ sl_status sl_plan_stack(const sl_plan *plan, size_t dielectric, sl_layer *out, s
     return SL_OK;
 }
 
+double sl_plan_level_tolerance_per_cm2(const sl_plan *plan, size_t factor, size_t level)
+{
+    long ref = plan->factors[factor].level_ref[level];
+    if (factor == 0) {
+        const sl_plan_dielectric *d = &plan->dielectrics[ref];
+        return isnan(d->doping_tolerance_per_cm2) ? d->doping_per_cm2.sigma
+                                                  : d->doping_tolerance_per_cm2;
+    }
+    if (ref < 0)
+        return 0.0;
+    const sl_plan_treatment *t = &plan->treatments[ref];
+    return isnan(t->doping_tolerance_per_cm2) ? t->doping_per_cm2.sigma
+                                              : t->doping_tolerance_per_cm2;
+}
+
 sl_est sl_plan_split_doping_per_cm2(const sl_plan *plan, size_t split)
 {
     const sl_plan_split *s = &plan->splits[split];

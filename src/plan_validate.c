@@ -1,5 +1,5 @@
 /* SPDX-License-Identifier: MIT
- * The meaning of a plan's keys (DESIGN.md section 4): the node tree from
+ * The meaning of a plan's keys (docs/formats.md): the node tree from
  * plan.c turned into an sl_plan, every problem reported at its line:col with a
  * did-you-mean where a near name exists, both design kinds normalised, and the
  * physics warnings (neutrality point outside the gate range, thermal floor).
@@ -67,21 +67,13 @@ static long find_named(const void *base, size_t n, size_t stride, const char *na
     return -1;
 }
 
-static size_t suggestion_distance(const char *name)
-{
-    size_t d = strlen(name) / 3;
-    return d < 1 ? 1 : (d > 4 ? 4 : d);
-}
-
-/* "unknown <what> 'name'", with "(did you mean 'x'?)" for a near candidate. */
+/* "unknown <what> 'name'", with the did-you-mean of sl_text_did_you_mean. */
 static void unknown_name(plan_ctx *c, const yn *at, const char *what, const char *const *names,
                          size_t n)
 {
-    const char *near = sl_text_nearest(at->text, names, n, suggestion_distance(at->text));
-    if (near)
-        plan_error(c, at, "unknown %s '%s' (did you mean '%s'?)", what, at->text, near);
-    else
-        plan_error(c, at, "unknown %s '%s'", what, at->text);
+    char hint[96];
+    plan_error(c, at, "unknown %s '%s'%s", what, at->text,
+               sl_text_did_you_mean(hint, sizeof hint, at->text, names, n));
 }
 
 static void unknown_named(plan_ctx *c, const yn *at, const char *what, const void *base,
@@ -205,12 +197,12 @@ static long unknown_key(plan_ctx *c, const yn *key, const char *what, const fiel
     const char *names[K_COUNT];
     for (size_t i = 0; i < n && i < K_COUNT; i++)
         names[i] = fields[i].key;
-    const char *near = sl_text_nearest(key->text, names, n, suggestion_distance(key->text));
-    if (!near) {
-        plan_error(c, key, "unknown key '%s' in %s", key->text, what);
+    const char *near = sl_text_suggest(key->text, names, n);
+    char hint[96];
+    plan_error(c, key, "unknown key '%s' in %s%s", key->text, what,
+               sl_text_did_you_mean(hint, sizeof hint, key->text, names, n));
+    if (!near)
         return -1;
-    }
-    plan_error(c, key, "unknown key '%s' in %s (did you mean '%s'?)", key->text, what, near);
     for (size_t i = 0; i < n; i++)
         if (names[i] == near)
             return (long)i;
@@ -256,16 +248,28 @@ static int read_map(plan_ctx *c, const yn *node, const char *what, const field *
     return 0;
 }
 
-static void read_estimate(plan_ctx *c, const yn *v, const char *what, sl_est *out)
+/* { mean, sigma } and, where tolerance is not NULL, an optional tolerance
+ * (NaN when not given: the level's sigma stands in). */
+static void read_estimate_tol(plan_ctx *c, const yn *v, const char *what, sl_est *out,
+                              double *tolerance)
 {
-    static const field fields[] = { { "mean", 1 }, { "sigma", 0 } };
-    const yn *f[2];
+    static const field fields[] = { { "mean", 1 }, { "sigma", 0 }, { "tolerance", 0 } };
+    const yn *f[3] = { NULL, NULL, NULL };
     *out = (sl_est){ 0.0, 0.0 };
-    if (read_map(c, v, what, fields, 2, f) != 0)
+    if (tolerance)
+        *tolerance = NAN;
+    if (read_map(c, v, what, fields, tolerance ? 3 : 2, f) != 0)
         return;
     if (f[0])
         read_number(c, f[0], "mean", NUM_ANY, &out->val);
     read_number_or(c, f[1], "sigma", NUM_NONNEG, 0.0, &out->sigma);
+    if (tolerance && f[2])
+        read_number(c, f[2], "tolerance", NUM_NONNEG, tolerance);
+}
+
+static void read_estimate(plan_ctx *c, const yn *v, const char *what, sl_est *out)
+{
+    read_estimate_tol(c, v, what, out, NULL);
 }
 
 /* A name for a dielectric, treatment or split: not empty, unique; no '+' in
@@ -499,8 +503,10 @@ static void read_dielectric(conv *v, const yn *item, size_t index)
             read_layer(v, f[1]->items[j], &d->layers[j]);
         }
     }
+    d->doping_tolerance_per_cm2 = NAN;
     if (f[2])
-        read_estimate(v->c, f[2], "doping_per_cm2", &d->doping_per_cm2);
+        read_estimate_tol(v->c, f[2], "doping_per_cm2", &d->doping_per_cm2,
+                          &d->doping_tolerance_per_cm2);
     if (f[3]) {
         v->gate_range_at[index] = f[3];
         read_gate_range(v, f[3], d);
@@ -534,8 +540,10 @@ static void read_treatment(conv *v, const yn *item, size_t index)
         t->name = read_name(v->c, f[0], "treatment", p->treatments, index, sizeof *t);
     if (t->name && strcmp(t->name, "none") == 0)
         plan_error(v->c, f[0], "'none' is reserved for the level without a treatment");
+    t->doping_tolerance_per_cm2 = NAN;
     if (f[1])
-        read_estimate(v->c, f[1], "doping_per_cm2", &t->doping_per_cm2);
+        read_estimate_tol(v->c, f[1], "doping_per_cm2", &t->doping_per_cm2,
+                          &t->doping_tolerance_per_cm2);
 }
 
 static void read_treatments(conv *v)

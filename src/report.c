@@ -128,13 +128,14 @@ static void verdict_open(sl_chart_buf *b, const char *key, size_t count, const c
                         count ? " bad" : "", key, count, count, what);
 }
 
-static void verdict_off_plan(report_ctx *c)
+/* The levels of one verdict, named after the count. */
+static void verdict_levels(report_ctx *c, sl_stats_verdict_kind verdict, const char *what)
 {
     const sl_analysis *a = c->a;
-    verdict_open(c->buf, "off-plan", a->n_off_plan, "treatment or dielectric levels off plan");
+    verdict_open(c->buf, sl_stats_verdict_name(verdict), a->n_verdict[verdict], what);
     const char *sep = ": ";
     for (size_t i = 0; i < a->n_effects; i++)
-        if (a->effects[i].off_plan && !a->effects[i].is_intercept) { /* as n_off_plan counts */
+        if (a->effects[i].verdict == verdict && !a->effects[i].is_intercept) {
             sl_chart_buf_append(c->buf, sep);
             sl_chart_buf_escape(c->buf, a->effects[i].level);
             sep = ", ";
@@ -142,6 +143,14 @@ static void verdict_off_plan(report_ctx *c)
     if (a->effects_status != SL_OK)
         sl_chart_buf_append(c->buf, " (effects could not be estimated)");
     sl_chart_buf_append(c->buf, "</li>\n");
+}
+
+static void verdict_off_plan(report_ctx *c)
+{
+    verdict_levels(c, SL_VERDICT_OFF_PLAN,
+                   "levels off-plan (95&nbsp;% interval beyond the tolerance)");
+    verdict_levels(c, SL_VERDICT_DIFFERS,
+                   "levels that differ from plan (interval excludes it, within tolerance in part)");
 }
 
 static void verdict_flagged(report_ctx *c)

@@ -42,10 +42,13 @@ static void level_chart(report_ctx *c, const sl_history_level *l)
     if (l->n_points > 6)
         frame.margin_bottom_px = 64.0; /* lot names may slant */
     sl_chart_buf_append(c->buf, "<figure class=\"history\">");
-    sl_chart_control(c->buf, &frame, values, labels, l->n_points, l->chart.center, l->chart.lcl,
-                     l->chart.ucl, "lot", "doping (cm\xe2\x81\xbb\xc2\xb2)");
-    sl_chart_buf_printf(c->buf, "<figcaption>%zu lots, %zu outside the limits</figcaption>"
-                        "</figure>\n", l->n_points, l->n_drift);
+    sl_chart_control_planned(c->buf, &frame, values, labels, l->n_points, l->chart.center,
+                             l->chart.lcl, l->chart.ucl, l->planned_per_cm2, "lot",
+                             "doping (cm\xe2\x81\xbb\xc2\xb2)");
+    sl_chart_buf_printf(c->buf, "<figcaption>%zu lots, %zu outside the limits; planned "
+                        "%.3g cm<sup>&minus;2</sup>, pooled %.3g, between-lot &sigma; %.2g"
+                        "</figcaption></figure>\n", l->n_points, l->n_drift, l->planned_per_cm2,
+                        l->pooled.value, l->pooled.tau);
     c->sum->n_history_levels++;
     free(values);
     free(labels);
@@ -54,7 +57,8 @@ static void level_chart(report_ctx *c, const sl_history_level *l)
 static const char pooled_headings[] =
     "<table class=\"history\"><thead><tr><th>factor</th><th>level</th><th>lots</th>"
     "<th>planned (cm<sup>&minus;2</sup>)</th><th>pooled (cm<sup>&minus;2</sup>)</th>"
-    "<th>SE (cm<sup>&minus;2</sup>)</th><th>drifting lots</th></tr></thead><tbody>\n";
+    "<th>SE (cm<sup>&minus;2</sup>)</th><th>between-lot &sigma; (cm<sup>&minus;2</sup>)</th>"
+    "<th>drifting lots</th></tr></thead><tbody>\n";
 
 static void pooled_table(report_ctx *c, const sl_history *h)
 {
@@ -68,6 +72,7 @@ static void pooled_table(report_ctx *c, const sl_history *h)
         sl_report_cell_density(c->buf, l->planned_per_cm2);
         sl_report_cell_density(c->buf, l->pooled.value);
         sl_report_cell_density(c->buf, l->pooled.se);
+        sl_report_cell_density(c->buf, l->pooled.tau);
         sl_report_cell_long(c->buf, (long)l->n_drift);
         sl_chart_buf_append(c->buf, "</tr>\n");
     }
@@ -80,9 +85,12 @@ static void history_body(report_ctx *c, const sl_history *h)
     sl_report_section_open(c->buf, "history", "History across lots");
     sl_chart_buf_printf(c->buf,
                         "<p>Each level's estimated doping in the %zu lots of the database with "
-                        "estimates, in creation order, on an individuals chart: centre line and "
-                        "limits at &plusmn;3&nbsp;&sigma; from the average moving range / "
-                        "1.128. Diamonds: lots outside the limits of the lots before them.</p>\n"
+                        "estimates, in creation order, on an individuals chart: centre line "
+                        "at the random-effects pooled value (DerSimonian and Laird) and limits "
+                        "at &plusmn;3&nbsp;&radic;(&tau;&sup2; + SE&sup2;), &tau; the "
+                        "between-lot &sigma;, for a lot of the median SE. Diamonds: lots "
+                        "outside the limits of the lots before them (each judged with its own "
+                        "SE, from the second lot on).</p>\n"
                         "<div class=\"charts\">\n", h->n_lots);
     for (size_t i = 0; i < h->n_levels; i++)
         if (chartable(&h->levels[i]))

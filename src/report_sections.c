@@ -169,7 +169,9 @@ sl_status sl_report_section_splits(report_ctx *c)
                         "and &plusmn;3&nbsp;&sigma; bands. Flagged devices are diamonds; devices "
                         "without a usable neutrality point have no point here (see the failure "
                         "list). One chart per dielectric, as the stacks differ in voltage "
-                        "scale. Interval: 95&nbsp;% Student&nbsp;t of the mean.</p>\n");
+                        "scale. Split mean and interval come from the wafer means (the wafer "
+                        "is the unit): 95&nbsp;% Student&nbsp;t with wafers&nbsp;&minus;&nbsp;1 "
+                        "degrees of freedom, none for a split of one wafer.</p>\n");
     for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
         strip_chart(c, &d, cats, k);
     sl_report_section_close(c->buf);
@@ -218,10 +220,14 @@ sl_status sl_report_section_effects(report_ctx *c)
     sl_chart_buf_append(c->buf,
                         "<p>Each level's doping as a difference from its factor's reference "
                         "level (the baseline row is baseline plus the reference levels), "
-                        "estimated from wafer means. Error bars: &plusmn;1&nbsp;&sigma; of the "
-                        "plan and &plusmn;1 standard error of the estimate. A level is off plan "
-                        "when its planned value lies outside the estimate &plusmn;3&nbsp;SE and "
-                        "differs from it by more than twice the plan's own &sigma;.</p>\n");
+                        "estimated from wafer means by weighted least squares (weights from "
+                        "the wafer and device scatter). Error bars: &plusmn;1&nbsp;&sigma; of "
+                        "the plan and &plusmn;1 standard error of the estimate. The verdict "
+                        "rests on the 95&nbsp;% interval (t with the residual df) of estimate "
+                        "&minus; planned against the level's tolerance T: <em>as-planned</em> "
+                        "inside [&minus;T,&nbsp;T], <em>off-plan</em> entirely outside, "
+                        "<em>differs</em> when it only excludes the plan, "
+                        "<em>inconclusive</em> otherwise.</p>\n");
     effects_chart(c);
     sl_report_effects_table(c);
     sl_report_section_close(c->buf);

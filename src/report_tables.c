@@ -22,8 +22,9 @@ static void table_close(sl_chart_buf *buf) { sl_chart_buf_append(buf, "</tbody><
 /* ---- split summaries ---- */
 
 static const char *const split_headings[] = {
-    "split", "devices", "usable", "predicted (V)", "&plusmn;&sigma; (V)", "mean (V)",
-    "SD (V)", "95&nbsp;% CI (V)", "bias (V)", "gate range (V)", "flagged",
+    "split", "devices", "usable", "predicted (V)", "&plusmn;&sigma; (V)",
+    "mean of wafers (V)", "wafer SD (V)", "95&nbsp;% CI of wafers (V)", "bias (V)",
+    "gate range (V)", "flagged",
 };
 
 static int split_mean_outside(const sl_analysis *a, size_t s)
@@ -44,8 +45,10 @@ static void split_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
     sl_report_cell_fixed(buf, sp->cnp_predicted_sigma_V, 2);
     sl_report_cell_fixed(buf, sp->cnp.mean, 2);
     sl_report_cell_fixed(buf, sp->cnp.sd, 2);
-    if (sp->n_usable >= 2)
+    if (sp->n_wafers >= 2)
         sl_report_cell_range(buf, sp->cnp.ci_low, sp->cnp.ci_high, 2, NULL);
+    else if (sp->n_wafers == 1)
+        sl_report_cell_text(buf, "one wafer: no interval");
     else
         sl_report_cell_range(buf, NAN, NAN, 2, NULL);
     sl_report_cell_fixed(buf, sp->bias_V, 2);
@@ -68,9 +71,19 @@ void sl_report_splits_table(report_ctx *c, size_t dielectric)
 
 static const char *const effect_headings[] = {
     "factor", "level", "versus", "planned (cm<sup>&minus;2</sup>)",
-    "&plusmn;&sigma; (cm<sup>&minus;2</sup>)", "estimated (cm<sup>&minus;2</sup>)",
-    "SE (cm<sup>&minus;2</sup>)", "wafers", "verdict",
+    "&plusmn;&sigma; (cm<sup>&minus;2</sup>)", "tolerance (cm<sup>&minus;2</sup>)",
+    "estimated (cm<sup>&minus;2</sup>)", "SE (cm<sup>&minus;2</sup>)", "df",
+    "95&nbsp;% CI (cm<sup>&minus;2</sup>)", "wafers", "verdict",
 };
+
+/* A 95 % interval of densities as "lo .. hi" in the report's density style. */
+static void cell_density_range(sl_chart_buf *buf, double lo, double hi)
+{
+    char text[64] = "";
+    if (isfinite(lo) && isfinite(hi))
+        snprintf(text, sizeof text, "%.3g .. %.3g", lo, hi);
+    sl_report_cell_text(buf, text);
+}
 
 static void effect_row(sl_chart_buf *buf, const sl_analyze_effect *e)
 {
@@ -80,10 +93,16 @@ static void effect_row(sl_chart_buf *buf, const sl_analyze_effect *e)
     sl_report_cell_text(buf, e->is_intercept ? "-" : e->reference);
     sl_report_cell_density(buf, e->planned_per_cm2);
     sl_report_cell_density(buf, e->planned_sigma_per_cm2);
+    sl_report_cell_density(buf, e->tolerance_per_cm2);
     sl_report_cell_density(buf, e->estimated_per_cm2);
     sl_report_cell_density(buf, e->stderr_per_cm2);
+    if (isfinite(e->estimated_per_cm2))
+        sl_report_cell_long(buf, (long)e->df);
+    else
+        sl_report_cell_text(buf, "");
+    cell_density_range(buf, e->ci_low_per_cm2, e->ci_high_per_cm2);
     sl_report_cell_long(buf, (long)e->n_wafers);
-    sl_report_cell_text(buf, e->off_plan ? "off plan" : "as planned");
+    sl_report_cell_text(buf, sl_stats_verdict_name(e->verdict));
     sl_chart_buf_append(buf, "</tr>\n");
 }
 

@@ -86,6 +86,8 @@ static void blocks_extensions(uint32_t h[8], const unsigned char *data, size_t n
     __m128i cdgh = _mm_blend_epi16(efgh, cdab, 0xF0);
     for (; n > 0; n--, data += 64) {
         __m128i abef_in = abef, cdgh_in = cdgh, w[4];
+        /* unrolled, so the four message registers stay registers */
+#pragma GCC unroll 16
         for (int i = 0; i < 16; i++) {
             if (i < 4)
                 w[i] = _mm_shuffle_epi8(_mm_loadu_si128((const __m128i *)(data + 16 * i)), byte_swap);

@@ -28,11 +28,14 @@ typedef struct {
     const sl_layout *layout;
     const sl_simulate_options *opt;
     gsl_rng *rng;
+    gsl_rng *rng_later;     /* noise of the plan's later temperatures: the first
+                               temperature's files stay as one temperature made them */
     double baseline_true;
     double *dielectric_true, *treatment_true; /* cm^-2 */
     FILE *results, *sweeps, *truth;
     sl_simulate_summary *sum;
     long fault_counter;
+    size_t first_t, end_t;  /* the plan temperatures measured: [first_t, end_t) */
 } sim_ctx;
 
 /* One wafer's drawn stack and offsets. */
@@ -180,51 +183,78 @@ static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
     dev->p.r_contact_ohm = 400.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
 }
 
-static double sweep_point_ohm(sim_ctx *c, const sim_wafer *w, const sim_device *dev, double vg)
+static double sweep_point_ohm(gsl_rng *rng, const sim_ctx *c, const sim_wafer *w,
+                              const sl_fit_params *p, device_kind kind, double vg)
 {
-    double noise = 1.0 + gsl_ran_gaussian(c->rng, c->opt->noise_rel);
-    switch (dev->kind) {
+    double noise = 1.0 + gsl_ran_gaussian(rng, c->opt->noise_rel);
+    switch (kind) {
     case DEV_SHORT: return 5.0 * noise;
     case DEV_OPEN: return 5.0e10 * noise;
-    case DEV_POOR: return 1.0e4 * (1.0 + gsl_ran_gaussian(c->rng, 0.3));
-    default: return sl_fit_model_ohm(&dev->p, &w->fit, vg) * noise;
+    case DEV_POOR: return 1.0e4 * (1.0 + gsl_ran_gaussian(rng, 0.3));
+    default: return sl_fit_model_ohm(p, &w->fit, vg) * noise;
     }
 }
 
-static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
+/* The device at the plan's temperature t: the same neutrality point, its
+ * residual density the drawn one at the first temperature with the thermal
+ * floor of the other in its place, n0(T)^2 = n0(T0)^2 - n_th(T0)^2 +
+ * n_th(T)^2 (the floor adds in quadrature to the puddles' density, common
+ * practice), never below the floor. */
+static sl_fit_params params_at(const sim_ctx *c, const sim_device *dev, size_t t)
 {
+    sl_fit_params p = dev->p;
+    if (t == 0)
+        return p;
+    double v = c->plan->fermi_velocity_m_s;
+    double first = sl_physics_thermal_floor_per_m2(c->plan->temperatures_K[0], v) *
+                   SL_PER_CM2_PER_PER_M2;
+    double here = sl_physics_thermal_floor_per_m2(c->plan->temperatures_K[t], v) *
+                  SL_PER_CM2_PER_PER_M2;
+    double puddles2 = fmax(p.n0_per_cm2 * p.n0_per_cm2 - first * first, 0.0);
+    p.n0_per_cm2 = sqrt(puddles2 + here * here);
+    return p;
+}
+
+static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev, size_t t)
+{
+    gsl_rng *rng = t == 0 ? c->rng : c->rng_later;
+    sl_fit_params p = params_at(c, dev, t);
     const char *wafer = c->plan->wafers[w->index];
     long n = c->opt->points_per_sweep;
     for (long i = 0; i < n; i++) {
         double vg = w->gate_min_V + (w->gate_max_V - w->gate_min_V) * (double)i / (double)(n - 1);
-        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g\n", wafer, dev->number, dev->die_x,
-                dev->die_y, vg, sweep_point_ohm(c, w, dev, vg));
+        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g,%g\n", wafer, dev->number, dev->die_x,
+                dev->die_y, vg, sweep_point_ohm(rng, c, w, &p, dev->kind, vg),
+                c->plan->temperatures_K[t]);
     }
     c->sum->sweep_rows += n;
 }
 
-/* The device's results row: measured values when usable, an empty
- * neutrality voltage for a faulty device (probed, no neutrality point). */
-static void write_result(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
+/* The device's results row at temperature t: measured values when usable,
+ * an empty neutrality voltage for a faulty device (probed, no neutrality
+ * point). */
+static void write_result(sim_ctx *c, const sim_wafer *w, const sim_device *dev, size_t t)
 {
+    gsl_rng *rng = t == 0 ? c->rng : c->rng_later;
+    sl_fit_params p = params_at(c, dev, t);
     fprintf(c->results, "%s,D%03ld,%ld,%ld,", c->plan->wafers[w->index], dev->number, dev->die_x,
             dev->die_y);
     if (dev->kind == DEV_GOOD || dev->kind == DEV_SHIFTED)
-        fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g\n",
-                dev->p.cnp_V + gsl_ran_gaussian(c->rng, 0.02),
-                dev->p.mobility_cm2_per_Vs * (1.0 + gsl_ran_gaussian(c->rng, 0.02)),
-                dev->p.n0_per_cm2, dev->p.r_contact_ohm, c->plan->temperatures_K[0]);
+        fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g\n", p.cnp_V + gsl_ran_gaussian(rng, 0.02),
+                p.mobility_cm2_per_Vs * (1.0 + gsl_ran_gaussian(rng, 0.02)), p.n0_per_cm2,
+                p.r_contact_ohm, c->plan->temperatures_K[t]);
     else
-        fprintf(c->results, ",,,,%g\n", c->plan->temperatures_K[0]);
+        fprintf(c->results, ",,,,%g\n", c->plan->temperatures_K[t]);
 }
 
 static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
 {
-    /* a device lost to yield was never probed: it is in the truth only */
-    if (dev->kind != DEV_UNPROBED) {
-        write_result(c, w, dev);
+    /* a device lost to yield was never probed: it is in the truth only;
+     * a probed one is measured at every temperature of the plan */
+    for (size_t t = c->first_t; dev->kind != DEV_UNPROBED && t < c->end_t; t++) {
+        write_result(c, w, dev, t);
         if (c->opt->write_sweeps)
-            write_sweep(c, w, dev);
+            write_sweep(c, w, dev, t);
     }
     fprintf(c->truth, "%s,D%03ld,%ld,%ld,%s,%s,%.6g,%.6g,%.6g,%.6g,%.6g,%.6g\n",
             c->plan->wafers[w->index], dev->number, dev->die_x, dev->die_y,
@@ -280,6 +310,24 @@ static sl_status close_out(FILE *f, sl_status st)
     return st;
 }
 
+/* Every plan temperature, or the one asked for (within 0.5 K). */
+static sl_status choose_temperatures(sim_ctx *c, sl_diag *diag)
+{
+    c->first_t = 0;
+    c->end_t = c->plan->n_temperatures;
+    double only = c->opt->only_temperature_K;
+    if (only == 0.0 || isnan(only))
+        return SL_OK;
+    for (size_t t = 0; t < c->plan->n_temperatures; t++)
+        if (fabs(c->plan->temperatures_K[t] - only) <= 0.5) {
+            c->first_t = t;
+            c->end_t = t + 1;
+            return SL_OK;
+        }
+    sl_diag_error(diag, "temperature %g K is not one of the plan's temperatures", only);
+    return SL_EINPUT;
+}
+
 sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const sl_layout *layout,
                           const sl_simulate_options *options, const char *out_dir,
                           sl_diag *diag)
@@ -287,15 +335,24 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
     memset(out, 0, sizeof *out);
     sim_ctx c = { .plan = plan, .layout = layout, .opt = options, .sum = out };
     c.rng = gsl_rng_alloc(gsl_rng_mt19937);
-    if (!c.rng)
+    c.rng_later = gsl_rng_alloc(gsl_rng_mt19937);
+    if (!c.rng || !c.rng_later) {
+        gsl_rng_free(c.rng);
+        gsl_rng_free(c.rng_later);
         return SL_ENOMEM;
+    }
     gsl_rng_set(c.rng, (unsigned long)(options->seed & 0xffffffffu));
-    sl_status st = draw_levels(&c, out_dir, diag);
+    gsl_rng_set(c.rng_later, (unsigned long)((options->seed >> 32) ^ (options->seed & 0xffffffffu) ^
+                                             0x5bd1e995u));
+    sl_status st = choose_temperatures(&c, diag);
+    if (st == SL_OK)
+        st = draw_levels(&c, out_dir, diag);
     if (st == SL_OK) {
         c.results = open_out(out_dir, "results.csv",
             "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,temperature_K\n", diag);
         c.sweeps = options->write_sweeps
-                       ? open_out(out_dir, "sweeps.csv", "wafer,device,die_x,die_y,vg_V,r_ohm\n", diag)
+                       ? open_out(out_dir, "sweeps.csv",
+                                  "wafer,device,die_x,die_y,vg_V,r_ohm,temperature_K\n", diag)
                        : NULL;
         c.truth = open_out(out_dir, "truth.csv",
             "wafer,device,die_x,die_y,split,kind,cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,"
@@ -310,5 +367,6 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
     free(c.dielectric_true);
     free(c.treatment_true);
     gsl_rng_free(c.rng);
+    gsl_rng_free(c.rng_later);
     return st;
 }

@@ -577,6 +577,7 @@ sl_status sl_stats_pool_inverse_variance(sl_stats_pooled *out, const double *est
     out->q = gsl_stats_wtss_m(w, 1, est, 1, k, out->value);
     out->df = (double)(k - 1);
     out->p = k > 1 ? gsl_cdf_chisq_Q(out->q, out->df) : NAN;
+    out->tau = 0.0;
     free(w);
     return SL_OK;
 }

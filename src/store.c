@@ -1,8 +1,11 @@
 /* SPDX-License-Identifier: MIT
  * The store (see include/splitlot/store.h): connection set-up on either
- * backend, forward migrations from the compiled-in db scripts, transactions,
- * plan revisions with predictions, and device/sweep rows. Analysis reads live
- * in store_read.c; the PostgreSQL set-up in store_pg.c.
+ * backend (an SQLite file or a PostgreSQL server; the server's set-up in
+ * store_pg.c), forward migrations from the compiled-in db scripts,
+ * transactions, error mapping and plan revisions with their predictions.
+ * Devices live in store_device.c, the packed sweeps in store_sweep.c, an
+ * import's lookups in store_import.c, analysis reads in store_read.c and an
+ * analysis's scratch tables in store_scan.c (docs/store.md).
  */
 #include "splitlot/store.h"
 
@@ -29,6 +32,7 @@ static const char *constraint_kind(sl__db_errkind kind)
 {
     switch (kind) {
     case SL__DBE_UNIQUE: return "a UNIQUE constraint (the row exists already)";
+    case SL__DBE_PRIMARYKEY: return "a PRIMARY KEY constraint (the row exists already)";
     case SL__DBE_FOREIGNKEY:
         return "a FOREIGN KEY constraint (a row it refers to is missing, or rows refer to it)";
     case SL__DBE_CHECK: return "a CHECK constraint (a value out of its allowed range)";

@@ -752,6 +752,13 @@ START_TEST(test_control_chart)
     sl_chart_buf_free(&b);
     ck_assert_int_eq(sl_chart_control(&b, &f, v, NULL, 8, 1.0, 2.0, 0.0, NULL, "x"), SL_EINPUT);
     ck_assert_int_eq(sl_chart_control(&b, &f, v, NULL, 8, NAN, 0.0, 2.0, NULL, "x"), SL_EINPUT);
+    /* the planned value as its own line, labelled, inside the drawn range */
+    ck_assert_int_eq(sl_chart_control_planned(&b, &f, v, lots, 8, 1.0, 0.0, 2.0, 3.5, "lot", "x"),
+                     SL_OK);
+    assert_svg_sane(sl_chart_buf_str(&b));
+    ck_assert_uint_eq(count_of(sl_chart_buf_str(&b), "class=\"predicted\""), 1);
+    ck_assert_ptr_nonnull(strstr(sl_chart_buf_str(&b), ">planned 3.5</text>"));
+    sl_chart_buf_free(&b);
 }
 END_TEST
 

@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Command-line tests of `splitlot carriers`, --help and --version: the JSON
- * keys of DESIGN.md section 5, exit codes, one clear line per bad option.
+ * keys of docs/formats.md, exit codes, one clear line per bad option.
  */
 #include <math.h>
 #include <stdio.h>

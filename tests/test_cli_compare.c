@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Command-line tests of `splitlot compare` and `splitlot history`: the JSON
- * keys of DESIGN.md section 5, --only-flagged, --fail-on-flags (exit 3),
+ * keys of docs/formats.md, --only-flagged, --fail-on-flags (exit 3),
  * unknown lots and missing databases (exit 2, nothing created), and compare's
  * peak memory, which must not grow with the lot. The numbers themselves are
  * checked in test_analyze.c. Lots are simulated, invented data.
@@ -25,7 +25,9 @@
  *   DEMO-01   the demo plan, seed 11, the simulator's default 2 % faulty devices;
  *   CLEAN-01  the demo plan, seed 3, --fault-fraction 0: no device flagged
  *             (regression value: seed 3 also draws no shifted device);
- *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2. */
+ *   OFF-01    as CLEAN-01 but anneal-350 delivers 0.2e12 of 1.2e12 cm^-2;
+ *   DIFF-01   as CLEAN-01 but anneal-350 delivers 0.85e12: its interval
+ *             excludes the plan yet reaches inside the tolerance (differs). */
 static char *dir;
 
 static sl_run_result run_in(const char *const *argv) { return sl_test_run(dir, NULL, argv); }
@@ -70,6 +72,7 @@ static void setup(void)
     add_lot("DEMO-01", "11", "0.02", NULL);
     add_lot("CLEAN-01", "3", "0", NULL);
     add_lot("OFF-01", "3", "0", "anneal-350=0.2e12");
+    add_lot("DIFF-01", "3", "0", "anneal-350=0.85e12");
 }
 
 static void teardown(void)
@@ -147,15 +150,16 @@ static void run_keys(const char *row)
 
 static void split_keys(const char *row)
 {
-    static const char *const keys[] = { "split", "devices", "usable", "cnp_predicted_V",
-                                        "cnp_mean_V", "cnp_ci95_V", "flagged" };
+    static const char *const keys[] = { "split", "devices", "usable", "wafers", "censored",
+                                        "cnp_predicted_V", "cnp_mean_V", "cnp_ci95_V", "flagged" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void effect_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "planned_per_cm2",
-                                        "estimated_per_cm2", "stderr_per_cm2", "flags" };
+                                        "estimated_per_cm2", "stderr_per_cm2", "df",
+                                        "ci95_per_cm2", "tolerance_per_cm2", "verdict", "flags" };
     has_keys(row, keys, N_OF(keys));
 }
 
@@ -228,6 +232,15 @@ START_TEST(test_fail_on_flags)
     ck_assert_int_eq(top_number(r.out, "flagged"), 0); /* regression value, seed 3 */
     ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 1);
     sl_run_result_free(&r);
+
+    /* nothing off-plan, one level that differs from plan: a flag as well */
+    r = compare_json("DIFF-01", "--fail-on-flags", 3);
+    ck_assert_int_eq(top_number(r.out, "flagged"), 0);          /* regression value, seed 3 */
+    ck_assert_int_eq(top_number(r.out, "levels_off_plan"), 0);  /* estimate 8.27e11 +/- 5.4e10 */
+    ck_assert_int_eq(top_number(r.out, "levels_differing"), 1);
+    ck_assert(strstr(r.out, "\"level\": \"anneal-350\"") &&
+              strstr(r.out, "\"verdict\": \"differs\""));
+    sl_run_result_free(&r);
 }
 END_TEST
 
@@ -263,7 +276,7 @@ START_TEST(test_missing_database)
 }
 END_TEST
 
-/* The database from SPLITLOT_DB when --db is not given (DESIGN.md section 5). */
+/* The database from SPLITLOT_DB when --db is not given (docs/formats.md). */
 START_TEST(test_database_from_environment)
 {
     static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--format", "json", NULL };
@@ -275,7 +288,7 @@ START_TEST(test_database_from_environment)
     sl_run_result_free(&r);
     r = run_in(history);
     ck_assert_int_eq(r.exit_code, 0);
-    ck_assert_int_eq(top_number(r.out, "lots"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots"), 4);
     sl_run_result_free(&r);
     ck_assert_int_eq(setenv("SPLITLOT_DB", "elsewhere.db", 1), 0);
     r = run_in(compare);
@@ -315,7 +328,7 @@ START_TEST(test_table_and_csv)
     sl_run_result r = run_in(table);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert(strstr(r.out, "failure analysis, most severe first") != NULL);
-    ck_assert(strstr(r.out, "ANOVA of measured doping across 8 splits") != NULL);
+    ck_assert(strstr(r.out, "ANOVA of wafer-mean doping across 8 splits") != NULL);
     sl_run_result_free(&r);
     static const char *const csv[] = { "compare", "--lot", "DEMO-01", "--db", "t.db",
                                        "--format", "csv", NULL };
@@ -330,15 +343,16 @@ END_TEST
 static void level_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "lots", "planned_per_cm2",
-                                        "pooled_per_cm2", "pooled_stderr_per_cm2",
-                                        "center_per_cm2", "limits_per_cm2", "drift_lots" };
+                                        "pooled_per_cm2", "pooled_se_per_cm2",
+                                        "between_lot_sigma_per_cm2", "center_per_cm2",
+                                        "limits_per_cm2", "drift_lots" };
     has_keys(row, keys, N_OF(keys));
 }
 
 static void estimate_keys(const char *row)
 {
     static const char *const keys[] = { "factor", "level", "lot", "estimated_per_cm2",
-                                        "stderr_per_cm2", "flags" };
+                                        "stderr_per_cm2", "limits_per_cm2", "flags" };
     has_keys(row, keys, N_OF(keys));
 }
 
@@ -347,10 +361,10 @@ START_TEST(test_history_json_and_yaml)
     static const char *const json[] = { "history", "--db", "t.db", "--format", "json", NULL };
     sl_run_result r = run_in(json);
     ck_assert_int_eq(r.exit_code, 0);
-    ck_assert_int_eq(top_number(r.out, "lots"), 3);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    ck_assert_int_eq(top_number(r.out, "lots"), 4);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4);
     ck_assert_uint_eq(for_rows(r.out, "levels", level_keys), 4);
-    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 12); /* 4 levels x 3 lots */
+    ck_assert_uint_eq(for_rows(r.out, "estimates", estimate_keys), 16); /* 4 levels x 4 lots */
     sl_run_result_free(&r);
     static const char *const yaml[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
     r = run_in(yaml);
@@ -388,7 +402,8 @@ START_TEST(test_history_without_measurements)
     r = run_in(compare);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert_int_eq(top_number(r.out, "device_count"), 0);
-    ck_assert(strstr(r.out, "\"anova_F\": null") != NULL);
+    ck_assert(strstr(r.out, "\"anova\": {\"F\": null, \"df_between\": 0, \"df_within\": 0, "
+                            "\"p\": null}") != NULL);
     sl_run_result_free(&r);
     free(empty);
     free(plan);
@@ -532,7 +547,7 @@ START_TEST(test_plan_revisions_after_measurement)
     sl_run_result_free(&r);
     after = compare_in(folder, "REV-01");
     ck_assert_int_eq(top_number(after, "plan_revision"), 2);
-    ck_assert_uint_eq(for_rows(after, "runs", run_keys), 2);
+    ck_assert_uint_eq(for_rows(after, "runs", run_keys), 4); /* two imports at 300 and 77 K */
     free(after);
 
     /* the stored prediction of revision 2 moved by +5 V: compare follows it */
@@ -563,14 +578,16 @@ START_TEST(test_compare_views)
 {
     sl_run_result r = compare_json("DEMO-01", NULL, 0);
     ck_assert(strstr(r.out, "\n  \"step\": \"final\",\n  \"temperature_K\": 300,\n") != NULL);
-    ck_assert_uint_ge(for_rows(r.out, "runs", run_keys), 1);
+    ck_assert_uint_eq(for_rows(r.out, "runs", run_keys), 2); /* 300 K and 77 K */
+    long warm = top_number(r.out, "device_count");
     sl_run_result_free(&r);
     r = compare_json("DEMO-01", "--temperature-K=4", 2);
     ck_assert_msg(strstr(r.err, "4 K is not one of its plan's temperatures (300, 77 K)"), "%s", r.err);
     sl_run_result_free(&r);
     r = compare_json("DEMO-01", "--temperature-K=77", 0);
     ck_assert(strstr(r.out, "\"temperature_K\": 77,\n") != NULL);
-    ck_assert_int_eq(top_number(r.out, "device_count"), 0); /* no run at 77 K */
+    /* the simulated sweeps hold every device at both temperatures */
+    ck_assert_int_eq(top_number(r.out, "device_count"), warm);
     sl_run_result_free(&r);
     r = compare_json("DEMO-01", "--step=after-anneal", 0);
     ck_assert(strstr(r.out, "\"step\": \"after-anneal\"") != NULL);
@@ -583,15 +600,16 @@ END_TEST
 START_TEST(test_history_and_report_views)
 {
     const char *history[] = { "history", "--db", "t.db", "--format", "json", "--temperature-K",
-                              "77", NULL };
+                              "77", NULL, NULL };
     sl_run_result r = run_in(history);
     ck_assert_msg(r.exit_code == 0, "%s", r.err);
     ck_assert(strstr(r.out, "\"step\": \"\",\n  \"temperature_K\": 77,\n") != NULL);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 0); /* no lot measured at 77 K */
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 4); /* every fixture lot has 77 K data */
     sl_run_result_free(&r);
-    history[6] = "300";
+    history[7] = "--step=after-anneal"; /* no lot measured after that step */
     r = run_in(history);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 3);
+    ck_assert(strstr(r.out, "\"step\": \"after-anneal\",\n") != NULL);
+    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 0);
     sl_run_result_free(&r);
     const char *report[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "v.html",
                              "--no-history", "--step", "final", NULL };

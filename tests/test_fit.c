@@ -22,7 +22,7 @@
 #define NOISE_REL 0.005
 
 /* 90 nm SiO2 back gate (relative permittivity 3.9: typical handbook value,
- * DESIGN.md section 2) under a 20 um x 10 um channel. */
+ * docs/physics.md) under a 20 um x 10 um channel. */
 static sl_fit_config test_config(void)
 {
     sl_fit_config cfg;
@@ -54,7 +54,7 @@ static void synth(double *r_ohm, const double *vg_V, const sl_fit_params *p,
     }
 }
 
-/* Truths over the ranges of issue 4 (realistic devices, common practice):
+/* Truths over the ranges of docs/physics.md, "Transfer-curve fit" (realistic devices, common practice):
  * V_cnp -20..30 V, mu 500..5000 cm^2/Vs, n0 5e10..5e11 cm^-2 (log-uniform),
  * R_c 100..2000 ohm. */
 static sl_fit_params draw_truth(gsl_rng *rng)
@@ -84,7 +84,7 @@ START_TEST(model_matches_hand_value)
     sl_fit_params p = { 5.0, 1000.0, 1e11, 300.0 };
     /* At the neutrality point n_g = 0: R = R_c + (L/W) / (e mu n0) with
      * mu = 0.1 m^2/Vs, n0 = 1e15 m^-2: 2 / (1.602176634e-19 * 0.1 * 1e15)
-     * = 124830.1... ohm (hand calculation from the model of DESIGN.md 2). */
+     * = 124830.1... ohm (hand calculation from the model of docs/physics.md). */
     double expect = 300.0 + 2.0 / (1.602176634e-19 * 0.1 * 1e15);
     ck_assert_double_eq_tol(sl_fit_model_ohm(&p, &cfg, 5.0), expect, 1e-9 * expect);
     /* Symmetric about V_cnp (model property). */
@@ -143,7 +143,7 @@ START_TEST(noise_free_recovers_exactly)
 END_TEST
 
 /* ~1000 noisy good devices: at least 99 % within 0.05 V and 5 % mobility
- * (acceptance figures of issue 4), and the pulls (fit - truth)/sigma
+ * (acceptance figures of docs/physics.md, "Transfer-curve fit"), and the pulls (fit - truth)/sigma
  * have SD near 1 (the definition of an honest standard error). */
 START_TEST(noisy_population_recovered)
 {

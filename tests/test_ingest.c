@@ -47,9 +47,12 @@ static void drop_dir(char *dir)
 }
 
 /* `splitlot simulate PLAN --out sim --seed N` inside dir, plus extra options. */
+/* Simulated files at the plan's first temperature (300 K) only: one sweep
+ * per device, as these tests expect. */
 static void simulate_into(const char *dir, const char *plan, const char *seed, const char *extra)
 {
-    const char *argv[] = { "simulate", plan, "--out", "sim", "--seed", seed, extra, NULL };
+    const char *argv[] = { "simulate", plan, "--out", "sim", "--seed", seed, "--temperature-K",
+                           "300", extra, NULL };
     sl_run_result r = sl_test_run(dir, NULL, argv);
     ck_assert_msg(r.exit_code == 0, "simulate: %s", r.err);
     sl_run_result_free(&r);
@@ -272,11 +275,16 @@ START_TEST(bad_rows_in_simulated_file)
     size_t len = 0;
     char *text = sl_test_read_file(good, &len);
     ck_assert_ptr_nonnull(text);
-    /* line 50001 is a data row; replace its r_ohm by a bad token */
+    /* line 50001 is a data row; replace its r_ohm (before temperature_K) by
+     * a bad token */
     char *p = text;
     for (int line = 1; line < 50001; line++)
         p = strchr(p, '\n') + 1;
     char *end = strchr(p, '\n'), *comma = end;
+    while (comma[-1] != ',')
+        comma--;
+    end = comma - 1;
+    comma = end;
     while (comma[-1] != ',')
         comma--;
     char *bad = sl_test_path(dir, "bad.csv");
@@ -665,7 +673,7 @@ START_TEST(two_temperatures)
     char *text = sl_test_read_file(src, NULL);
     char *out = malloc(3 * strlen(text) + 64), *o = out;
     char *save = NULL, *line = strtok_r(text, "\n", &save);
-    o += sprintf(o, "%s,temperature_K\n", line);
+    o += sprintf(o, "wafer,device,die_x,die_y,vg_V,r_ohm,temperature_K\n");
     char *rows[2000];
     size_t n = 0;
     while (n < 2000 && (line = strtok_r(NULL, "\n", &save)) && strncmp(line, "W01,", 4) == 0)
@@ -867,7 +875,7 @@ static const char quality_plan[] =
     "devices_per_wafer: 64\n"
     "seed: 99\n";
 
-/* SiO2 90 nm, eps 3.9 (DESIGN.md table): C_g = 8.8541878128e-12 * 3.9 / 90e-9
+/* SiO2 90 nm, eps 3.9 (docs/physics.md, built-in materials): C_g = 8.8541878128e-12 * 3.9 / 90e-9
  * = 3.83681e-4 F/m^2 = 38.3681 nF/cm^2 (hand arithmetic). */
 #define OX90_NF_PER_CM2 38.36814719
 
@@ -970,7 +978,12 @@ START_TEST(library_summary_counts)
     sl_ingest_options opt = { .lot = "DEMO-01", .path = sweeps, .kind = SL_INGEST_SWEEPS,
                               .threads = 2 };
     sl_ingest_summary sum;
+    /* what the caller collected before stays: the library never clears it */
+    sl_diag_add(diag, SL_SEV_WARNING, "earlier.yaml", 3, 1, "a warning of the caller's");
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_OK);
+    ck_assert_uint_eq(sl_diag_size(diag), 1);
+    ck_assert_str_eq(sl_diag_get(diag, 0)->text, "a warning of the caller's");
+    sl_diag_clear(diag);
     /* 201 points per probed device (simulate's default) */
     ck_assert_int_eq(sum.rows, 201 * sum.devices);
     long classes = 0;

@@ -49,7 +49,7 @@ START_TEST(test_f1_against_mpmath)
 END_TEST
 
 /* Exact identity n + p = (mu^2 + (pi k T)^2 / 3) / (pi (hbar v)^2), from
- * F1(x) + F1(-x) = x^2/2 + pi^2/6 (DESIGN.md section 2). */
+ * F1(x) + F1(-x) = x^2/2 + pi^2/6 (docs/physics.md). */
 START_TEST(test_total_density_identity)
 {
     static const double temps[] = { 0.0, 4.2, 77.0, 300.0, 600.0, 2000.0 };
@@ -289,7 +289,7 @@ START_TEST(test_disorder_crossover)
 END_TEST
 
 /* 1e13 cm^-2 is about 3 carriers per 1000 carbon atoms; atom density
- * 4 / (sqrt(3) a^2) with a = 2.46 angstrom = 3.82e15 cm^-2 (DESIGN.md section 2,
+ * 4 / (sqrt(3) a^2) with a = 2.46 angstrom = 3.82e15 cm^-2 (docs/physics.md,
  * common practice figure). */
 START_TEST(test_carrier_per_atom_scale)
 {

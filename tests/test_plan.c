@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
  * Tests of the plan module: the example plans parse and normalise as
- * DESIGN.md section 4 says, the broken-plan corpus reports each problem at its
+ * docs/formats.md says, the broken-plan corpus reports each problem at its
  * line:col, hostile YAML is refused cleanly, and `splitlot check` exit codes.
  */
 #include <check.h>
@@ -123,7 +123,7 @@ START_TEST(stack_layers_in_si)
     size_t n = 0;
     ck_assert_int_eq(sl_plan_stack(p, 1, layers, 4, &n), SL_OK);
     ck_assert_uint_eq(n, 2);
-    /* Al2O3 9 and SiO2 3.9, 7 and 10 MV/cm: the built-in table of DESIGN.md section 2 */
+    /* Al2O3 9 and SiO2 3.9, 7 and 10 MV/cm: the built-in table of docs/physics.md */
     ck_assert_double_eq_tol(layers[0].relative_permittivity, 9.0, 1e-12);
     ck_assert_double_eq_tol(layers[0].thickness_m, 20e-9, 1e-18);
     ck_assert_double_eq_tol(layers[0].thickness_sigma_m, 1e-9, 1e-18);
@@ -228,6 +228,45 @@ START_TEST(defaults_overrides_and_order)
 }
 END_TEST
 
+
+/* `tolerance` of a doping block, else its sigma; 'none' has none; the
+ * baseline takes no tolerance (it is not a level). */
+START_TEST(level_tolerance_defaults_to_sigma)
+{
+    static const char text[] =
+        "lot: T-2\n"
+        "temperatures_K: [300]\n"
+        "dielectrics:\n"
+        "  - { name: a, layers: [ { material: SiO2, thickness_nm: 50 } ],\n"
+        "      doping_per_cm2: { mean: 0, sigma: 2e11, tolerance: 3e11 } }\n"
+        "treatments: [ { name: t1, doping_per_cm2: { mean: 2e11, sigma: 1e11 } } ]\n"
+        "design: { kind: full-factorial, factors: { dielectric: [a], step: [none, t1] },\n"
+        "          wafers_per_split: 1 }\n"
+        "wafers: 2\n"
+        "devices_per_wafer: 4\n";
+    sl_plan *p = parse_ok(text);
+    ck_assert_double_eq(sl_plan_level_tolerance_per_cm2(p, 0, 0), 3e11);
+    ck_assert_double_eq(sl_plan_level_tolerance_per_cm2(p, 1, 1), 1e11);
+    ck_assert_double_eq(sl_plan_level_tolerance_per_cm2(p, 1, 0), 0.0);
+    sl_plan_free(p);
+    static const char baseline[] =
+        "lot: T-3\n"
+        "temperatures_K: [300]\n"
+        "baseline_doping_per_cm2: { mean: 0, tolerance: 1e11 }\n"
+        "dielectrics: [ { name: a, layers: [ { material: SiO2, thickness_nm: 50 } ] } ]\n"
+        "design: { kind: full-factorial, factors: { dielectric: [a] }, wafers_per_split: 1 }\n"
+        "wafers: 1\n"
+        "devices_per_wafer: 4\n";
+    sl_diag *diag = sl_diag_new();
+    sl_plan *q = NULL;
+    ck_assert_int_eq(sl_plan_parse(&q, baseline, strlen(baseline), "b.yaml", diag), SL_EINPUT);
+    ck_assert_ptr_null(q);
+    ck_assert_int_eq(sl_diag_get(diag, 0)->line, 3);
+    ck_assert_ptr_nonnull(strstr(sl_diag_get(diag, 0)->text, "unknown key 'tolerance'"));
+    sl_diag_free(diag);
+}
+END_TEST
+
 START_TEST(hash_is_fnv1a)
 {
     char text[] = "a";
@@ -278,6 +317,7 @@ static const located_case bad_cases[] = {
     { "duplicate_key.yaml", 15, 1, "duplicate key 'wafers'" },
     { "nonpositive_thickness.yaml", 5, 47, "'thickness_nm' must be > 0, got '0'" },
     { "negative_sigma.yaml", 7, 64, "'sigma' must be >= 0, got '-0.3e12'" },
+    { "negative_tolerance.yaml", 7, 83, "'tolerance' must be >= 0, got '-1e11'" },
     { "negative_temperature.yaml", 2, 23, "'temperatures_K' must be >= 0, got '-4'" },
     { "yield_range.yaml", 15, 17, "'expected_yield' must be in (0, 1], got '1.2'" },
     { "too_few_wafers.yaml", 14, 9, "3 wafers are fewer than 2 splits x 2 wafers_per_split = 4" },
@@ -540,6 +580,7 @@ static Suite *plan_suite(void)
     tcase_add_test(tc, stack_layers_in_si);
     tcase_add_test(tc, explicit_design_normalised);
     tcase_add_test(tc, defaults_overrides_and_order);
+    tcase_add_test(tc, level_tolerance_defaults_to_sigma);
     tcase_add_test(tc, hash_is_fnv1a);
     suite_add_tcase(s, tc);
     TCase *bad = tcase_create("broken");

@@ -17,7 +17,7 @@
 
 /* Two stacks without a gate range in the plan, so the safe range is derived:
  * 90 nm SiO2, and 20 nm Al2O3 on 10 nm SiO2. Permittivities and breakdown
- * fields are the built-in table of DESIGN.md section 2: SiO2 3.9 / 10 MV/cm,
+ * fields are the built-in table of docs/physics.md: SiO2 3.9 / 10 MV/cm,
  * Al2O3 9 / 7 MV/cm. */
 static const char two_stacks[] =
     "lot: HAND-01\n"
@@ -85,7 +85,7 @@ static const sl_prediction *find(const sl_plan *plan, const sl_prediction *pred,
                   (double)(got), (double)(want))
 
 /* n - p (cm^-2) and E_F (eV) at an end of the range must satisfy the charge
- * balance of DESIGN.md section 2: C_g (V_g - V_cnp) = e (n - p) + C_g E_F. */
+ * balance of docs/physics.md: C_g (V_g - V_cnp) = e (n - p) + C_g E_F. */
 static void assert_charge_balance(const sl_prediction *p)
 {
     double cg = p->gate_capacitance_F_per_m2, e = SL_SI_ELEMENTARY_CHARGE;
@@ -253,7 +253,7 @@ START_TEST(cli_json_keys)
     ck_assert_int_eq(sl_test_write_file(path, two_stacks), 0);
     sl_run_result r = predict(dir, "hand.yaml", "t.db", "json");
     ck_assert_msg(r.exit_code == 0, "%s", r.err);
-    /* DESIGN.md section 5, predict */
+    /* docs/formats.md, predict */
     static const char *const keys[] = {
         "\"lot\": \"HAND-01\"", "\"splits\": [", "\"split\": ", "\"dielectric\": ",
         "\"treatments\": ", "\"temperature_K\": ", "\"gate_capacitance_nF_per_cm2\": ",
@@ -268,7 +268,7 @@ START_TEST(cli_json_keys)
     ck_assert(strstr(r.out, "\"gate_range_V\": [-45, 45]") != NULL);
     ck_assert_str_eq(r.err, "splitlot: lot HAND-01: stored plan as revision 1 in t.db\n");
     sl_run_result_free(&r);
-    /* the terminal form carries the safety caution of DESIGN.md section 7 */
+    /* the terminal form carries the safety caution of docs/design.md, "Safety" */
     r = predict(dir, "hand.yaml", "t.db", NULL);
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert(strstr(r.out, "caution:") != NULL);

@@ -373,10 +373,12 @@ static int mount_tmpfs(const char *dir, long size_kib)
     return mount("tmpfs", dir, "tmpfs", 0, opts) == 0 ? 0 : errno;
 }
 
+/* Reported to ctest as skipped (these cases run as test_reliability_root). */
 static void skip_note(const char *test, const char *why, int err)
 {
-    printf("test_reliability: %s skipped: %s (%s)\n", test, why, strerror(err));
-    fflush(stdout);
+    char text[256];
+    snprintf(text, sizeof text, "%s (%s)", why, strerror(err));
+    sl_test_skip(test, text);
 }
 
 /* Copy a database (and its WAL, if one was left) out of dir to the rig
@@ -731,10 +733,7 @@ static Suite *reliability_suite(void)
     tcase_add_unchecked_fixture(tc, rig_setup, rig_teardown);
     tcase_set_timeout(tc, 900);
     tcase_add_test(tc, kill_during_import_keeps_database_whole);
-    tcase_add_test(tc, full_disk_refused_cleanly);
     tcase_add_test(tc, file_size_limit_refused_cleanly);
-    tcase_add_test(tc, read_only_file_system_refused);
-    tcase_add_test(tc, immutable_database_refused);
     tcase_add_test(tc, concurrent_imports_and_compare);
     tcase_add_loop_test(tc, hostile_file_refused_at_its_line, 0,
                         (int)(sizeof hostile / sizeof hostile[0]));
@@ -742,6 +741,14 @@ static Suite *reliability_suite(void)
                         (int)(sizeof self_referencing_plans / sizeof self_referencing_plans[0]));
     tcase_add_test(tc, negative_zero_and_subnormal_import);
     suite_add_tcase(s, tc);
+    /* mounts and chattr: need root (or CAP_SYS_ADMIN), skipped otherwise */
+    TCase *root = tcase_create("root");
+    tcase_add_unchecked_fixture(root, rig_setup, rig_teardown);
+    tcase_set_timeout(root, 900);
+    tcase_add_test(root, full_disk_refused_cleanly);
+    tcase_add_test(root, read_only_file_system_refused);
+    tcase_add_test(root, immutable_database_refused);
+    suite_add_tcase(s, root);
     return s;
 }
 

@@ -466,7 +466,10 @@ START_TEST(test_off_plan_verdict)
     const char *v_end = strstr(v, "</li>");
     ck_assert_uint_eq(count_in(v, v_end, "anneal-350"), 1);
     ck_assert_ptr_nonnull(strstr(g_html[_i], "data-verdict=\"cnp-outside\" data-count=\"0\""));
-    ck_assert_ptr_nonnull(strstr(g_html[_i], "<td>off plan</td>"));
+    ck_assert_ptr_nonnull(strstr(g_html[_i], "<td>off-plan</td>"));
+    long differing = json_number(g_json[_i], "levels_differing");
+    snprintf(verdict, sizeof verdict, "data-verdict=\"differs\" data-count=\"%ld\"", differing);
+    ck_assert_ptr_nonnull(strstr(g_html[_i], verdict));
 }
 END_TEST
 
@@ -491,6 +494,9 @@ START_TEST(test_history_with_two_lots)
     ck_assert_ptr_nonnull(sec);
     ck_assert_ptr_nonnull(strstr(g_html[1], "<a href=\"#history\">"));
     ck_assert_uint_ge(count_in(sec, end, "<figure class=\"history\">"), 1);
+    /* every history chart names the planned value beside the pool */
+    ck_assert_uint_eq(count_in(sec, end, "; planned "), count_in(sec, end, "<figure class=\"history\">"));
+    ck_assert_uint_eq(count_in(sec, end, "dy=\".32em\">planned "), count_in(sec, end, "<figure class=\"history\">"));
     ck_assert_uint_eq(count_in(sec, end, "<tr><td>anneal</td><td>anneal-350</td><td class=\"num\">2</td>"), 1);
     const char *rep[] = { "report", "--lot", "DEMO-02", "--out", "nh.html", "--db", "t.db",
                           "--no-history", NULL };
@@ -577,7 +583,7 @@ START_TEST(test_fitted_curve_of_an_outlier)
     ck_assert_uint_eq(s.n_curves, (size_t)flagged);
     ck_assert_uint_eq(count(h, "<figure class=\"curve\">"), (size_t)flagged);
     ck_assert_uint_ge(count(h, ">fitted model</text>"), 1);
-    ck_assert_uint_ge(count(h, "far above its split"), 1);
+    ck_assert_uint_ge(count(h, "far above the other devices of its wafer"), 1);
     free(h);
 }
 END_TEST

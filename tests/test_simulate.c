@@ -4,6 +4,7 @@
  * level is refused, and the files hold every wafer x device of the plan.
  */
 #include <check.h>
+#include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -195,14 +196,15 @@ START_TEST(counts_match_plan)
     ck_assert_uint_eq(data_lines(dir, "s/truth.csv", "W04", &w), 576);
     ck_assert_uint_eq(w, 0); /* W04 is a spare in the demo layout */
     /* devices lost to yield (kind 'unprobed' in the truth) were never probed:
-     * results.csv and sweeps.csv hold every other device, 201 points each */
+     * results.csv and sweeps.csv hold every other device at each of the
+     * plan's two temperatures, 201 points a sweep */
     size_t unprobed = kind_lines(dir, "s/truth.csv", "unprobed", "W01", &w01);
     ck_assert_uint_gt(unprobed, 0); /* expected yield 0.85 */
-    ck_assert_uint_eq(data_lines(dir, "s/results.csv", "W01", &w), 576 - unprobed);
-    ck_assert_uint_eq(w, 36 - w01);
+    ck_assert_uint_eq(data_lines(dir, "s/results.csv", "W01", &w), 2 * (576 - unprobed));
+    ck_assert_uint_eq(w, 2 * (36 - w01));
     size_t sweeps = data_lines(dir, "s/sweeps.csv", "W01", &w);
-    ck_assert_uint_eq(sweeps, 201 * (576 - unprobed));
-    ck_assert_uint_eq(w, 201 * (36 - w01));
+    ck_assert_uint_eq(sweeps, 2 * 201 * (576 - unprobed));
+    ck_assert_uint_eq(w, 2 * 201 * (36 - w01));
 
     r = simulate(dir, "t", "3", "--devices-per-wafer", "20");
     ck_assert_int_eq(r.exit_code, 0);
@@ -219,6 +221,76 @@ START_TEST(counts_match_plan)
 }
 END_TEST
 
+/* Every probed device at both of the demo plan's temperatures, 300 then 77
+ * K: the same neutrality point (within the 0.02 V noise of a results row),
+ * the residual density with the 77 K thermal floor in place of the 300 K
+ * one, n0(77)^2 = n0(300)^2 - n_th(300)^2 + n_th(77)^2; --temperature-K
+ * keeps one temperature, and one the plan lacks is refused. */
+START_TEST(every_plan_temperature)
+{
+    /* n_th(T) = (pi/6)(k_B T / hbar v_F)^2 (Fang et al., Appl. Phys. Lett. 91,
+     * 092109 (2007)) at v_F = 1e6 m/s, with CODATA 2018 k_B and hbar:
+     * 8.0771e10 cm^-2 at 300 K, times (77/300)^2 at 77 K */
+    const double floor300 = 8.07710e10, floor77 = floor300 * (77.0 / 300.0) * (77.0 / 300.0);
+    char *dir = sl_test_tmpdir();
+    sl_run_result r = simulate(dir, "s", "3", "--no-sweeps", NULL);
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    char *path = sl_test_path(dir, "s/results.csv");
+    char *text = sl_test_read_file(path, NULL);
+    char *save = NULL, *line = strtok_r(text, "\n", &save);
+    size_t pairs = 0, checked = 0;
+    char prev[128] = "";
+    double prev_v = NAN, prev_n0 = NAN;
+    while ((line = strtok_r(NULL, "\n", &save))) {
+        char id[128];
+        double v = NAN, mu, n0 = NAN, rc, t;
+        int k = sscanf(line, "%127[^,],%*[^,],%*[^,],%*[^,],%lf,%lf,%lf,%lf,%lf", id, &v, &mu, &n0,
+                       &rc, &t);
+        snprintf(id, sizeof id, "%.*s", (int)(strchr(strchr(line, ',') + 1, ',') - line), line);
+        if (k < 6) { /* a faulty device: no numbers, at both temperatures too */
+            ck_assert(strstr(line, ",,,,300") || strstr(line, ",,,,77"));
+            continue;
+        }
+        if (t == 77.0) {
+            ck_assert_str_eq(id, prev); /* right after its 300 K row */
+            ck_assert_double_eq_tol(v, prev_v, 0.2);
+            if (prev_n0 > 1.2 * floor300) {
+                double want = sqrt(prev_n0 * prev_n0 - floor300 * floor300 + floor77 * floor77);
+                ck_assert_double_eq_tol(n0 / want, 1.0, 2e-3);
+                checked++;
+            }
+            pairs++;
+        } else {
+            ck_assert_double_eq(t, 300.0);
+            snprintf(prev, sizeof prev, "%s", id);
+            prev_v = v;
+            prev_n0 = n0;
+        }
+    }
+    ck_assert_uint_gt(pairs, 400);
+    ck_assert_uint_gt(checked, 300);
+    free(text);
+    free(path);
+    r = simulate(dir, "o", "3", "--temperature-K", "77");
+    ck_assert_int_eq(r.exit_code, 0);
+    sl_run_result_free(&r);
+    path = sl_test_path(dir, "o/results.csv");
+    text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_null(strstr(text, ",300\n"));
+    ck_assert_ptr_nonnull(strstr(text, ",77\n"));
+    free(text);
+    free(path);
+    r = simulate(dir, "x", "3", "--temperature-K", "4");
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "temperature 4 K is not one of the plan's temperatures"), "%s",
+                  r.err);
+    sl_run_result_free(&r);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 static Suite *simulate_suite(void)
 {
     Suite *s = suite_create("simulate");
@@ -228,6 +300,7 @@ static Suite *simulate_suite(void)
     tcase_add_test(tc, true_doping_overrides);
     tcase_add_test(tc, unknown_level_refused);
     tcase_add_test(tc, counts_match_plan);
+    tcase_add_test(tc, every_plan_temperature);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -1,5 +1,6 @@
 /* SPDX-License-Identifier: MIT
- * Unit tests of the statistics module (src/stats.c, src/stats_median.c)
+ * Unit tests of the statistics module (src/stats.c, src/stats_median.c,
+ * src/stats_wafer_means.c, src/stats_verdict.c)
  * against SciPy 1.10.1 and NumPy 1.24.2 (each call written beside its value),
  * Iglewicz and Hoaglin's modified z-score, hand arithmetic for the
  * individuals chart, and the median found in passes against GSL's median of
@@ -792,6 +793,122 @@ START_TEST(test_sample_size_bad_input)
 }
 END_TEST
 
+
+/* ---- Wafer means: variance components, censoring, verdict, pooling -------- */
+
+/* Seven wafer means (two factors, unbalanced) with their sampling variances;
+ * the reference is NumPy 1.24.2 following the moments estimate of the header:
+ *   X = [[1,0,0],[1,0,0],[1,0,1],[1,0,1],[1,1,0],[1,1,1],[1,1,1]]
+ *   y = [1.0,1.3,2.1,2.6,1.9,3.4,2.9]; v = [.01,.04,.02,.01,.03,.02,.05]
+ *   b, rss = numpy.linalg.lstsq(X, y)[:2]; h = diag(X inv(X'X) X')
+ *   su2 = max(0, (rss - sum((1 - h) v)) / (n - p)); w = 1 / (su2 + v)
+ *   cov0 = inv(X' W X); bw = cov0 X' W y; s2 = sum(w r^2) / (n - p)
+ *   se = sqrt(diag(cov0) s2) */
+START_TEST(test_components_fit_against_numpy)
+{
+    static const double x[] = { 1, 0, 0, 1, 0, 0, 1, 0, 1, 1, 0, 1, 1, 1, 0, 1, 1, 1, 1, 1, 1 };
+    static const double y[] = { 1.0, 1.3, 2.1, 2.6, 1.9, 3.4, 2.9 };
+    static const double v[] = { 0.01, 0.04, 0.02, 0.01, 0.03, 0.02, 0.05 };
+    static const double b[] = { 1.1109254586270658, 0.8079360354427529, 1.2663409762103155 };
+    static const double se[] = { 0.17079261023061204, 0.21223838722753532, 0.20905878992263527 };
+    sl_stats_fit *fit = NULL;
+    double su2 = 0.0;
+    ck_assert_int_eq(sl_stats_fit_components(&fit, &su2, x, y, v, 7, 3, NULL), SL_OK);
+    check_near("sigma_u^2", su2, 0.04849999999999986, 1e-12); /* numpy above */
+    check_array_near("b", fit->coef, b, 3, 1e-12);
+    check_array_near("se", fit->se, se, 3, 1e-12);
+    ck_assert_uint_eq(fit->df_resid, 4);
+    sl_stats_fit_free(fit);
+    /* no sampling variance at all: the ordinary fit */
+    ck_assert_int_eq(sl_stats_fit_components(&fit, &su2, x, y, NULL, 7, 3, NULL), SL_OK);
+    check_near("sigma_u^2 = s^2", su2, fit->resid_var, 0.0);
+    sl_stats_fit_free(fit);
+    double bad[7] = { 0.01, -0.01, 0.01, 0.01, 0.01, 0.01, 0.01 };
+    ck_assert_int_eq(sl_stats_fit_components(&fit, &su2, x, y, bad, 7, 3, NULL), SL_EINPUT);
+    ck_assert_ptr_null(fit);
+}
+END_TEST
+
+/* Censored-normal ML mean against scipy.optimize.minimize_scalar of
+ *   n (xbar - mu)^2 / (2 s^2) - na scipy.stats.norm.logsf((a - mu) / s)
+ *     - nb scipy.stats.norm.logcdf((b - mu) / s)      (tol=1e-12) */
+START_TEST(test_censored_mean_against_scipy)
+{
+    double mean = 0.0, se = 0.0;
+    ck_assert_int_eq(sl_stats_censored_mean(&mean, &se, 5, 1.0, 0.5, 2, 1.4, 1, 0.3), SL_OK);
+    check_near("both sides", mean, 1.0596521106484544, 1e-6);
+    /* 1 / sqrt of the central second difference of the same function, h = 1e-4 */
+    check_near("se", se, 0.18417019464128115, 1e-5);
+    ck_assert_int_eq(sl_stats_censored_mean(&mean, NULL, 8, 7.2, 0.6, 3, 7.5, 0, 0.0), SL_OK);
+    check_near("above only", mean, 7.403242865143219, 1e-6);
+    /* nothing censored: the sample mean, sigma / sqrt(n) */
+    ck_assert_int_eq(sl_stats_censored_mean(&mean, &se, 4, 2.5, 0.4, 0, 0.0, 0, 0.0), SL_OK);
+    check_near("plain mean", mean, 2.5, 0.0);
+    check_near("plain se", se, 0.2, 1e-15);
+    ck_assert_int_eq(sl_stats_censored_mean(&mean, &se, 0, 0.0, 0.4, 3, 1.0, 0, 0.0), SL_EINPUT);
+    ck_assert_int_eq(sl_stats_censored_mean(&mean, &se, 3, 1.0, 0.0, 1, 1.0, 0, 0.0), SL_EINPUT);
+}
+END_TEST
+
+/* The four verdicts at df = 8, se = 0.1, T = 0.5: t = 2.3060041350333704
+ * (scipy.stats.t.ppf(0.975, 8)), so the interval is d -/+ 0.2306; the
+ * rule of include/splitlot/stats.h (equivalence logic as in Schuirmann,
+ * J. Pharmacokinet. Biopharm. 15, 657 (1987)). */
+START_TEST(test_verdict_table)
+{
+    static const struct {
+        double d, se, df, tol;
+        sl_stats_verdict_kind want;
+    } table[] = {
+        { 0.0, 0.1, 8, 0.5, SL_VERDICT_AS_PLANNED },     /* [-0.23, 0.23] inside */
+        { 0.26, 0.1, 8, 0.5, SL_VERDICT_AS_PLANNED },    /* [0.03, 0.49]: inside, not 0 */
+        { 0.4, 0.1, 8, 0.5, SL_VERDICT_DIFFERS },        /* [0.17, 0.63] */
+        { -0.4, 0.1, 8, 0.5, SL_VERDICT_DIFFERS },       /* [-0.63, -0.17] */
+        { 0.8, 0.1, 8, 0.5, SL_VERDICT_OFF_PLAN },       /* [0.57, 1.03] */
+        { -0.8, 0.1, 8, 0.5, SL_VERDICT_OFF_PLAN },      /* [-1.03, -0.57] */
+        { 0.1, 0.3, 8, 0.5, SL_VERDICT_INCONCLUSIVE },   /* [-0.59, 0.79] */
+        { 0.0, 0.1, 0, 0.5, SL_VERDICT_INCONCLUSIVE },   /* no df */
+        { 0.0, NAN, 8, 0.5, SL_VERDICT_INCONCLUSIVE },   /* no SE */
+        { 0.3, 0.1, 8, 0.0, SL_VERDICT_OFF_PLAN },       /* T = 0: excludes 0 */
+        /* t at 4 df, 2.7764451051977987 (scipy.stats.t.ppf(0.975, 4)): [0.02, 0.58] */
+        { 0.3, 0.1, 4, 0.5, SL_VERDICT_DIFFERS },
+    };
+    for (size_t i = 0; i < N_OF(table); i++) {
+        sl_stats_verdict_kind v = sl_stats_verdict(table[i].d, table[i].se, table[i].df,
+                                                   table[i].tol, 0.05);
+        ck_assert_msg(v == table[i].want, "row %zu: %s", i, sl_stats_verdict_name(v));
+    }
+    ck_assert_str_eq(sl_stats_verdict_name(SL_VERDICT_OFF_PLAN), "off-plan");
+    ck_assert_str_eq(sl_stats_verdict_name(SL_VERDICT_AS_PLANNED), "as-planned");
+    ck_assert_str_eq(sl_stats_verdict_name(SL_VERDICT_DIFFERS), "differs");
+    ck_assert_str_eq(sl_stats_verdict_name(SL_VERDICT_INCONCLUSIVE), "inconclusive");
+}
+END_TEST
+
+/* DerSimonian and Laird (1986), their formulas by hand (Python, no library):
+ *   w = 1/se^2; fe = sum(w y)/sum(w); Q = sum(w (y - fe)^2)
+ *   tau2 = max(0, (Q - (k-1)) / (sum(w) - sum(w^2)/sum(w)))
+ *   w* = 1/(se^2 + tau2); value = sum(w* y)/sum(w*); se = 1/sqrt(sum(w*)) */
+START_TEST(test_random_effects_pool_by_hand)
+{
+    static const double est[] = { 1.0, 1.8, 0.6, 1.3 }, se[] = { 0.2, 0.3, 0.25, 0.15 };
+    sl_stats_pooled r;
+    ck_assert_int_eq(sl_stats_pool_random_effects(&r, est, se, 4), SL_OK);
+    check_near("Q", r.q, 11.078378723948346, 1e-12);
+    check_near("tau", r.tau, 0.3506680495359625, 1e-12);
+    check_near("value", r.value, 1.1585444865747836, 1e-12);
+    check_near("se", r.se, 0.2080723504481151, 1e-12);
+    /* estimates that agree within their errors: tau = 0, the fixed pool */
+    static const double close[] = { 1.0, 1.05, 0.98 }, close_se[] = { 0.2, 0.2, 0.2 };
+    ck_assert_int_eq(sl_stats_pool_random_effects(&r, close, close_se, 3), SL_OK);
+    check_near("tau 0", r.tau, 0.0, 0.0);
+    check_near("fixed se", r.se, 0.2 / sqrt(3.0), 1e-15);
+    ck_assert_int_eq(sl_stats_pool_random_effects(&r, est, se, 1), SL_OK);
+    ck_assert(isnan(r.tau));
+    check_near("one", r.value, 1.0, 0.0);
+}
+END_TEST
+
 static Suite *stats_suite(void)
 {
     Suite *s = suite_create("stats");
@@ -827,6 +944,10 @@ static Suite *stats_suite(void)
     tcase_add_test(tc, test_ichart_short_series);
     tcase_add_test(tc, test_sample_size_against_scipy);
     tcase_add_test(tc, test_sample_size_bad_input);
+    tcase_add_test(tc, test_components_fit_against_numpy);
+    tcase_add_test(tc, test_censored_mean_against_scipy);
+    tcase_add_test(tc, test_verdict_table);
+    tcase_add_test(tc, test_random_effects_pool_by_hand);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -1282,6 +1282,43 @@ START_TEST(migration_from_version_3_keeps_every_device)
 }
 END_TEST
 
+/* ---- what a failed statement says ---- */
+
+/* Each kind of constraint failure is named as what it is, never as a
+ * duplicate; nothing is written. */
+START_TEST(constraint_failures_say_which)
+{
+    stored_demo s = demo_store();
+    static const struct { const char *sql, *kind; } cases[] = {
+        { "INSERT INTO lot (name, created_utc) VALUES ('DEMO-01', 'now')", "a UNIQUE constraint" },
+        { "INSERT INTO lot (name) VALUES ('OTHER')", "a NOT NULL constraint" },
+        { "INSERT INTO measurement_run (lot_id, step, temperature_K, revision_id, kind, "
+          "source_name, rows, devices, created_utc) VALUES (1, 'final', -4, 1, 'results', "
+          "'x.csv', 0, 0, 'now')", "a CHECK constraint" },
+        { "INSERT INTO measurement_run (lot_id, step, temperature_K, revision_id, kind, "
+          "source_name, rows, devices, created_utc) VALUES (99, 'final', 4, 1, 'results', "
+          "'x.csv', 0, 0, 'now')", "a FOREIGN KEY constraint" },
+        { "INSERT INTO split (id, revision_id, split_index, name, dielectric, treatments, "
+          "planned_doping_per_cm2, planned_doping_sigma_per_cm2, devices_needed, "
+          "devices_available) SELECT id, revision_id, 99, 'x', 'x', '', 0, 0, 0, 0 FROM split "
+          "LIMIT 1", "a PRIMARY KEY constraint" },
+    };
+    long runs = query_long(s.store, "SELECT count(*) FROM measurement_run");
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        sl_diag *diag = sl_diag_new();
+        ck_assert_int_eq(sl_store_exec(s.store, cases[i].sql, diag, "store a row"), SL_EDB);
+        ck_assert_msg(strstr(sl_diag_last(diag), cases[i].kind) &&
+                      strstr(sl_diag_last(diag), "cannot store a row: ") &&
+                      !strstr(sl_diag_last(diag), "duplicate device"),
+                      "%zu: %s", i, sl_diag_last(diag));
+        sl_diag_free(diag);
+    }
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement_run"), runs);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM lot"), 1);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* ---- the checksum of a run's file ---- */
 
 /* SHA-256 of the FIPS 180-2 appendix B examples ("abc"; the 448-bit
@@ -1338,6 +1375,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, measurements_reprobes_and_identity);
     tcase_add_test(tc, migration_from_version_3_keeps_every_device);
     tcase_add_test(tc, sha256_fips_examples);
+    tcase_add_test(tc, constraint_failures_say_which);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);

@@ -17,10 +17,15 @@
 #include "splitlot/store.h"
 
 /* Device flags (bits). */
-#define SL_FLAG_OUTLIER        0x01u /* |modified z| within the split > 3.5 */
+#define SL_FLAG_OUTLIER        0x01u /* |modified z| from its wafer's median > 3.5 */
 #define SL_FLAG_OFF_PREDICTION 0x02u /* outside the 99.7 % prediction interval */
 #define SL_FLAG_FIT_CLASS      0x04u /* extraction failed (short, open, ...) */
 #define SL_FLAG_UNMEASURED     0x08u /* probed, no neutrality point reported */
+
+/* Share of censored devices in a split above which the output warns. */
+#define SL_ANALYZE_CENSORED_WARN 0.10
+/* Level of the effect intervals and the verdicts. */
+#define SL_ANALYZE_ALPHA 0.05
 
 /* Half-width of the off-prediction interval in combined sigmas (99.7 %). */
 #define SL_ANALYZE_INTERVAL_SIGMAS 3.0
@@ -36,7 +41,8 @@ typedef struct {
     double deviation_V;          /* measured - predicted */
     double z;                    /* deviation / sqrt(pred sigma^2 + device spread^2);
                                     +/-inf when both are 0 and the deviation is not */
-    double modified_z;           /* within the split */
+    double modified_z;           /* of its residual from its wafer's median, with
+                                    the MAD pooled over its dielectric's wafers */
     double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
     double mobility_cm2_per_Vs;
     unsigned flags;
@@ -54,9 +60,15 @@ typedef struct {
 typedef struct {
     size_t split;
     size_t n_devices, n_usable;  /* usable: measured, extraction ok */
+    size_t n_censored;           /* neutrality point beyond the sweep */
+    size_t n_wafers;             /* wafers with a mean */
     double cnp_predicted_V, cnp_predicted_sigma_V;
-    sl_stats_summary cnp;        /* measured V_cnp of usable devices, 95 % CI */
-    double spread_V;             /* robust device spread (1.4826 MAD, else SD) */
+    sl_stats_summary cnp;        /* of the wafer means of V_cnp (n = wafers):
+                                    mean of wafer means, their SD, 95 % CI by
+                                    Student t with wafers - 1 df (NaN with
+                                    one wafer) */
+    double spread_V;             /* device spread about the wafer medians: its
+                                    dielectric's pooled MAD / 0.6745 */
     double bias_V;               /* mean - predicted */
     int prediction_in_ci;
     size_t n_flagged;
@@ -67,7 +79,11 @@ typedef struct {
     int is_intercept;            /* baseline + reference levels */
     double planned_per_cm2, planned_sigma_per_cm2;  /* difference from reference */
     double estimated_per_cm2, stderr_per_cm2;
-    int off_plan;
+    double df;                   /* residual df of the wafer-mean fit; 0: none */
+    double ci_low_per_cm2, ci_high_per_cm2; /* 95 %: estimate -/+ t_{0.975, df} SE */
+    double tolerance_per_cm2;    /* the plan's, default its sigma */
+    sl_stats_verdict_kind verdict; /* of estimate - planned against the tolerance */
+    int off_plan;                /* flagged: verdict off-plan or differs */
     size_t n_wafers;             /* wafers at this level with usable devices */
 } sl_analyze_effect;
 
@@ -82,12 +98,22 @@ typedef struct sl_analysis {
     size_t n_effects;
     int effects_status;          /* SL_OK, or why no effects could be estimated */
     char effects_note[256];
-    sl_stats_anova anova;        /* of measured doping across splits */
+    sl_stats_anova anova;        /* of wafer-mean doping across splits,
+                                    F(splits - 1, wafers - splits) */
     size_t *flagged;             /* device indices, most severe first; NULL in a
                                     stream's summary */
     size_t n_flagged;
     size_t n_usable;
-    size_t n_off_plan;
+    size_t n_off_plan;           /* levels flagged: off-plan or differs */
+    size_t n_verdict[4];         /* levels (not the intercept) per verdict */
+    size_t n_censored;           /* devices with V_cnp beyond the sweep */
+    size_t n_splits_censored;    /* splits with more than 10 % censored */
+    size_t n_outlier_scored;     /* devices the outlier rule scored */
+    double outliers_expected;    /* good devices it flags by chance: 2 Q(3.5) n */
+    double device_sigma_V;       /* pooled within-wafer SD of V_cnp (NaN: none) */
+    double wafer_sigma_per_cm2;  /* wafer-to-wafer SD of doping, from the fit */
+    char intercept_name[256];    /* "baseline + <reference levels>", the
+                                    intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
     double *split_gate_min_V, *split_gate_max_V;
     double *split_capacitance_F_per_m2;
@@ -173,7 +199,8 @@ typedef struct {
     const char *lot;             /* owned by the history */
     const char *created_utc;
     double estimated_per_cm2, stderr_per_cm2;
-    int drift;                   /* outside the individuals-chart limits */
+    int drift;                   /* outside the limits of the lots before it */
+    double lcl_per_cm2, ucl_per_cm2; /* those limits; NaN for the first lot */
 } sl_history_point;
 
 typedef struct {
@@ -182,9 +209,14 @@ typedef struct {
     double planned_per_cm2, planned_sigma_per_cm2; /* from the newest lot's plan */
     sl_history_point *points;    /* in lot creation order */
     size_t n_points;
-    sl_stats_pooled pooled;      /* inverse-variance pooled over the lots that
-                                    did not drift */
-    sl_stats_ichart chart;       /* individuals chart of the estimates */
+    sl_stats_pooled pooled;      /* random-effects pool (DerSimonian and Laird)
+                                    of the lots that did not drift: value, SE
+                                    including tau, tau the between-lot sigma */
+    sl_stats_ichart chart;       /* the chart shown: centre = pooled value,
+                                    limits centre -/+ 3 sqrt(tau^2 + SE^2 +
+                                    SE_pooled^2) for a lot of the median SE
+                                    (each lot was judged with its own SE);
+                                    mr_bar unused */
     size_t n_drift;
 } sl_history_level;
 
@@ -196,6 +228,10 @@ typedef struct sl_history {
     char **lot_created;
     size_t n_lot_names;
     sl_plan *newest_plan;        /* for calibrated YAML */
+    double wafer_sigma_per_cm2;  /* RMS over the lots of their wafer sigma */
+    double device_sigma_V;       /* RMS over the lots of their device sigma */
+    double wafer_var_sum, device_var_sum;
+    size_t n_wafer_sigma, n_device_sigma;
 } sl_history;
 
 /* Effects of every lot in the store, grouped by level. */
@@ -206,7 +242,8 @@ sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_an
 void sl_history_free(sl_history *history);
 
 /* Calibrated plan YAML (baseline, dielectrics with layers, treatments) from
- * the pooled estimates, into a malloc'd string. */
+ * the pooled estimates, sigma sqrt(tau^2 + SE^2), and a `variation` block
+ * of the measured wafer and device scatter, into a malloc'd string. */
 sl_status sl_history_emit_yaml(char **yaml, const sl_history *history);
 
 #endif

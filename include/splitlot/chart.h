@@ -410,4 +410,11 @@ sl_status sl_chart_control(sl_chart_buf *buf, const sl_chart_frame *frame,
                            double center, double lower_limit, double upper_limit,
                            const char *x_title, const char *y_title);
 
+/* The same with the planned value drawn as a solid line labelled "planned"
+ * (class "predicted"); planned NaN draws none, as sl_chart_control. */
+sl_status sl_chart_control_planned(sl_chart_buf *buf, const sl_chart_frame *frame,
+                                   const double *values, const char *const *labels, size_t count,
+                                   double center, double lower_limit, double upper_limit,
+                                   double planned, const char *x_title, const char *y_title);
+
 #endif

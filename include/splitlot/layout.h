@@ -57,7 +57,7 @@ long sl_layout_split_of_wafer(const sl_layout *layout, const char *wafer);
 
 /* Devices per group for a two-sided two-sample comparison of means that
  * detects a shift of shift_V with probability power at level alpha, when
- * devices scatter with sigma_V (DESIGN.md section 3):
+ * devices scatter with sigma_V (docs/statistics.md):
  *   n = 2 sigma^2 (z_{1-alpha/2} + z_{1-power})^2 / shift^2,
  * then refined with Student t quantiles at df = 2 (n - 1) until n (rounded up)
  * is stable (if rounding makes it alternate between two values, the larger);

@@ -1,5 +1,5 @@
 /* SPDX-License-Identifier: MIT
- * The lot plan: the YAML file of DESIGN.md section 4 parsed (libyaml) into
+ * The lot plan: the YAML file of docs/formats.md parsed (libyaml) into
  * plain structs, validated with every problem reported at file:line:col, and
  * normalised so both design kinds look alike to the rest of the library:
  * factor 0 is always "dielectric", every split names its level per factor.
@@ -35,6 +35,7 @@ typedef struct {
     sl_plan_layer *layers;   /* top (channel side) first */
     size_t n_layers;
     sl_est doping_per_cm2;   /* default {0, 0} */
+    double doping_tolerance_per_cm2; /* `tolerance`; NaN when not given */
     int has_gate_range;      /* gate_range_V given in the plan */
     double gate_range_V[2];  /* [min, max] when given */
 } sl_plan_dielectric;
@@ -42,6 +43,7 @@ typedef struct {
 typedef struct {
     char *name;
     sl_est doping_per_cm2;
+    double doping_tolerance_per_cm2; /* `tolerance`; NaN when not given */
 } sl_plan_treatment;
 
 /* A factor and its levels. Factor 0 is "dielectric" with dielectric names as
@@ -130,6 +132,11 @@ sl_status sl_plan_stack(const sl_plan *plan, size_t dielectric, sl_layer *out,
 /* Planned net doping of a split: baseline + dielectric + its treatments,
  * sigmas added in quadrature (independent sources), cm^-2. */
 sl_est sl_plan_split_doping_per_cm2(const sl_plan *plan, size_t split);
+
+/* Tolerance (cm^-2) of a level's delivered doping against its plan: the
+ * `tolerance` of its doping block, else its sigma. factor and level as in
+ * plan->factors (level 'none' of a treatment factor: 0). */
+double sl_plan_level_tolerance_per_cm2(const sl_plan *plan, size_t factor, size_t level);
 
 /* Index of a split by name, of a wafer id by name; -1 when absent. */
 long sl_plan_split_index(const sl_plan *plan, const char *name);

@@ -34,6 +34,8 @@ typedef struct {
     int write_sweeps;              /* write sweeps.csv (default on) */
     int draw_levels;               /* draw each level's true doping from the plan's
                                       sigma (default off: the planned mean) */
+    double only_temperature_K;     /* measure at this plan temperature only (0, the
+                                      default: at every temperature of the plan) */
     const sl_simulate_override *overrides;
     size_t n_overrides;
 } sl_simulate_options;
@@ -44,8 +46,12 @@ typedef struct {
     long wafers, devices, sweep_rows, faulty, shifted;
 } sl_simulate_summary;
 
-/* Draw a lot and write the files into the existing folder out_dir.
- * Returns SL_OK, SL_EINPUT (an override names no level), SL_EIO, SL_ENOMEM. */
+/* Draw a lot and write the files into the existing folder out_dir: every
+ * probed device measured at every temperature of the plan (a temperature_K
+ * column), the same neutrality point at each, the residual density with
+ * the temperature's thermal floor.
+ * Returns SL_OK, SL_EINPUT (an override names no level, only_temperature_K
+ * is not a plan temperature), SL_EIO, SL_ENOMEM. */
 sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const sl_layout *layout,
                           const sl_simulate_options *options, const char *out_dir,
                           sl_diag *diag);

@@ -275,11 +275,14 @@ sl_status sl_stats_anova_moments(sl_stats_anova *out, const size_t *group_sizes,
 
 typedef struct {
     size_t k;
-    double value;  /* sum w_i e_i / sum w_i, w_i = 1 / se_i^2 */
+    double value;  /* sum w_i e_i / sum w_i, w_i = 1 / (se_i^2 + tau^2) */
     double se;     /* 1 / sqrt(sum w_i) */
-    double q;      /* Cochran's Q = sum w_i (e_i - value)^2 */
+    double q;      /* Cochran's Q = sum (e_i - fixed)^2 / se_i^2 about the
+                      fixed-effect (tau = 0) pooled value */
     double df;     /* k - 1 */
     double p;      /* chi-square upper tail of q with df (gsl_cdf_chisq_Q); NaN for k = 1 */
+    double tau;    /* between-estimate SD: 0 for the fixed-effect pool; NaN
+                      for a random-effects pool of one estimate */
 } sl_stats_pooled;
 
 /* Fixed-effect inverse-variance pooled estimate of k estimates e_i with
@@ -289,6 +292,74 @@ typedef struct {
  * Returns SL_OK, SL_EINPUT for k = 0, a non-finite estimate or se_i <= 0. */
 sl_status sl_stats_pool_inverse_variance(sl_stats_pooled *out, const double *est,
                                          const double *se, size_t k);
+
+/* Random-effects pooled estimate (DerSimonian and Laird, Controlled Clinical
+ * Trials 7, 177 (1986)): with w_i = 1/se_i^2, Q about the fixed-effect mean,
+ * tau^2 = max(0, (Q - (k - 1)) / (sum w_i - sum w_i^2 / sum w_i)), then
+ * w*_i = 1/(se_i^2 + tau^2), value = sum w*_i e_i / sum w*_i and
+ * se = 1/sqrt(sum w*_i), which includes tau. One estimate: tau NaN (no
+ * between-estimate spread can be seen), value and se those of the estimate.
+ * Returns SL_OK, SL_EINPUT as sl_stats_pool_inverse_variance. */
+sl_status sl_stats_pool_random_effects(sl_stats_pooled *out, const double *est,
+                                       const double *se, size_t k);
+
+/* ---- Wafer means: variance components, censoring ------------------------ */
+
+/* Weighted least squares of unit means (wafer means) y on X with variance
+ * components: Var(y_i) = sigma_u^2 + v_i, v_i the known sampling variance of
+ * the mean of unit i (device variance / devices behind it), sigma_u^2 the
+ * unit-to-unit variance estimated by moments from the ordinary least-squares
+ * residuals: E[RSS] = sum (1 - h_ii)(sigma_u^2 + v_i), so sigma_u^2 =
+ * max(0, (RSS - sum (1 - h_ii) v_i) / (n - p)) (h_ii the hat diagonal;
+ * Searle, Casella and McCulloch, Variance Components (1992), the ANOVA
+ * method). The fit then takes weights 1/(sigma_u^2 + v_i) as relative
+ * precisions (sl_stats_linear_fit), so its SEs carry the residual variance
+ * and df_resid = n - p is the df of a t interval. v = NULL or all v_i = 0
+ * gives the ordinary fit. *unit_var gets sigma_u^2 (NaN when n = p).
+ * Returns as sl_stats_linear_fit; SL_EINPUT also for a negative or
+ * non-finite v_i. */
+sl_status sl_stats_fit_components(sl_stats_fit **out, double *unit_var, const double *x,
+                                  const double *y, const double *v, size_t n_obs,
+                                  size_t n_coef, sl_diag *diag);
+
+/* Maximum-likelihood mean of a normal sample with known sigma > 0, some of
+ * whose values are censored: n values seen, with mean xbar; n_above values
+ * known only to lie above `above`, n_below only below `below` (Tobin,
+ * Econometrica 26, 24 (1958); Cohen, Truncated and Censored Samples (1991)).
+ * Minimises -log L = n (xbar - mu)^2 / (2 sigma^2)
+ *   - n_above log Q((above - mu)/sigma) - n_below log P((below - mu)/sigma)
+ * with GSL's Brent minimiser (gsl_min_fminimizer_brent) inside a bracket
+ * that must hold the minimum (log Q by gsl_sf_log_erfc), to |step| <
+ * 1e-6 sigma. *se gets 1/sqrt(observed information) (may be NULL).
+ * Without censored values the result is xbar exactly, se sigma/sqrt(n).
+ * Returns SL_OK; SL_EINPUT for sigma <= 0, a value not finite, or n = 0
+ * (with censored values on one side only the likelihood has no maximum);
+ * SL_ENUM when the minimiser fails. */
+sl_status sl_stats_censored_mean(double *mean, double *se, size_t n, double xbar, double sigma,
+                                 size_t n_above, double above, size_t n_below, double below);
+
+/* ---- Verdict of a level against its plan (src/stats_verdict.c) ------------ */
+
+/* Verdict of a level against its plan (equivalence logic), from the
+ * difference d = estimate - planned, its standard error se, df and the
+ * tolerance T > 0, with the two-sided (1 - alpha) interval d +/- t se,
+ * t = t_{1-alpha/2, df}:
+ *   AS_PLANNED   the interval lies inside [-T, T]
+ *   OFF_PLAN     the interval lies entirely outside [-T, T]
+ *   DIFFERS      the interval excludes 0 but is neither of those
+ *   INCONCLUSIVE otherwise, or without df (df < 1) or a finite se. */
+typedef enum {
+    SL_VERDICT_INCONCLUSIVE = 0,
+    SL_VERDICT_AS_PLANNED,
+    SL_VERDICT_OFF_PLAN,
+    SL_VERDICT_DIFFERS
+} sl_stats_verdict_kind;
+
+sl_stats_verdict_kind sl_stats_verdict(double d, double se, double df, double tolerance,
+                                       double alpha);
+
+/* "as-planned", "off-plan", "differs", "inconclusive". */
+const char *sl_stats_verdict_name(sl_stats_verdict_kind verdict);
 
 /* ---- Individuals control chart -------------------------------------------- */
 

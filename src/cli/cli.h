@@ -7,7 +7,8 @@
  *      usage text beside its option table, thin over the library;
  *   2. a line in the table of commands.c and a prototype below;
  *   3. tests: tests/test_cli_<name>.c or cases in an existing CLI suite;
- *   4. a line in README.md (tour) and DEVELOPERS.md (map).
+ *   4. a line in README.md (tour) and DEVELOPERS.md (map);
+ *   5. the command and every option in man/splitlot.1.scd (ctest man_drift).
  */
 #ifndef SL_CLI_H
 #define SL_CLI_H
@@ -17,7 +18,7 @@
 #include "output.h"
 #include "splitlot/error.h"
 
-/* Exit codes of DESIGN.md section 5. */
+/* Exit codes (docs/formats.md, "The command line"). */
 enum { CLI_EXIT_OK = 0, CLI_EXIT_RUNTIME = 1, CLI_EXIT_USAGE = 2, CLI_EXIT_FLAGGED = 3 };
 
 typedef struct {
@@ -42,6 +43,7 @@ int cmd_ingest(int argc, char **argv);
 int cmd_compare(int argc, char **argv);
 int cmd_history(int argc, char **argv);
 int cmd_report(int argc, char **argv);
+int cmd_lots(int argc, char **argv);
 
 /* "splitlot: error: <message>" on stderr; returns CLI_EXIT_USAGE. */
 int cli_usage_error(const char *fmt, ...)
@@ -96,7 +98,7 @@ int cli_split_treatment_names(const struct sl_plan *plan, size_t split, const ch
 /* Reset getopt state so a command can be called more than once in a process. */
 void cli_reset_getopt(void);
 
-/* The caution printed with layout and predict output (DESIGN.md section 7). */
+/* The caution printed with layout and predict output (docs/design.md, "Safety"). */
 extern const char cli_safety_caution[];
 
 #endif

@@ -17,18 +17,21 @@
 static const char usage[] =
     "usage: splitlot compare --lot ID [options]\n\n"
     "Compare every measured device of a lot with its split's prediction: deviation,\n"
-    "z against the prediction interval, flags (outlier: modified z within the split\n"
-    "beyond 3.5; off-prediction: outside the 99.7 % interval; extraction failures).\n"
-    "Then split summaries, each level's estimated doping against the plan (wafer\n"
-    "means as the experimental unit), a one-way ANOVA across splits and the list\n"
-    "of flagged devices for failure analysis, most severe first.\n\n"
+    "z against the prediction interval, flags (outlier: modified z of the residual\n"
+    "from its wafer's median beyond 3.5; off-prediction: outside the 99.7 %\n"
+    "interval; extraction failures). Then, with the wafer as the unit: split\n"
+    "summaries and intervals from wafer means, each level's estimated doping with\n"
+    "its 95 % interval and verdict against the plan's tolerance (as-planned,\n"
+    "differs, off-plan, inconclusive), a one-way ANOVA of wafer means across\n"
+    "splits; and the flagged devices for failure analysis, most severe first.\n\n"
     "  --lot ID                  the lot\n"
     "  --step NAME               measurements after this process step (default: the\n"
     "                            step of the lot's newest measurement run)\n"
     "  --temperature-K T         measurements at this plan temperature (default: the\n"
     "                            plan's first temperature with measurements)\n"
     "  --only-flagged            devices: only the flagged ones\n"
-    "  --fail-on-flags           exit 3 when any device or level is flagged\n"
+    "  --fail-on-flags           exit 3 when a device is flagged or a level is\n"
+    "                            off-plan or differs\n"
     "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
     "  --format table|csv|json   output format (default table)\n"
     "  --help                    this text\n";
@@ -168,13 +171,17 @@ static void runs_table(cli_doc *doc, const sl_analysis *a, int table)
 
 static void splits_table(cli_doc *doc, const sl_analysis *a)
 {
-    cli_table *t = cli_doc_table(doc, "splits", "splits (neutrality voltage, V; 95 % CI by Student t)");
+    cli_table *t = cli_doc_table(doc, "splits",
+                                 "splits (neutrality voltage, V, from wafer means; 95 % CI by "
+                                 "Student t with wafers - 1 df)");
     cli_table_col_str(t, "split", "split");
     cli_table_col_int(t, "devices", "dev");
     cli_table_col_int(t, "usable", "ok");
+    cli_table_col_int(t, "censored", "cens");
+    cli_table_col_int(t, "wafers", "wafers");
     cli_table_col_fixed(t, "cnp_predicted_V", "pred", 2);
     cli_table_col_fixed(t, "cnp_mean_V", "mean", 2);
-    cli_table_col_fixed(t, "cnp_sd_V", "sd", 2);
+    cli_table_col_fixed(t, "cnp_wafer_sd_V", "wafer sd", 2);
     cli_table_col_range(t, "cnp_ci95_V", "95% CI", 3);
     cli_table_col_fixed(t, "bias_V", "bias", 2);
     cli_table_col_bool(t, "prediction_in_ci", "in CI");
@@ -185,12 +192,14 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
         cli_cell_str(t, a->plan->splits[s].name);
         cli_cell_int(t, (long)sp->n_devices);
         cli_cell_int(t, (long)sp->n_usable);
+        cli_cell_int(t, (long)sp->n_censored);
+        cli_cell_int(t, (long)sp->n_wafers);
         cli_cell_num(t, sp->cnp_predicted_V);
         cli_cell_num(t, sp->cnp.mean);
         cli_cell_num(t, sp->cnp.sd);
         cli_cell_range(t, sp->cnp.ci_low, sp->cnp.ci_high);
         cli_cell_num(t, sp->bias_V);
-        if (sp->n_usable >= 2)
+        if (sp->n_wafers >= 2)
             cli_cell_bool(t, sp->prediction_in_ci);
         else
             cli_cell_num(t, NAN);
@@ -201,27 +210,36 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
 static void effects_table(cli_doc *doc, const sl_analysis *a)
 {
     cli_table *t = cli_doc_table(doc, "effects",
-                                 "level effects (doping, cm^-2, difference from the reference level)");
+                                 "level effects (doping, cm^-2, difference from the reference level; "
+                                 "wafer means, 95 % CI with the residual df)");
     cli_table_col_str(t, "factor", "factor");
     cli_table_col_str(t, "level", "level");
     cli_table_col_str(t, "reference", "vs");
     cli_table_col_num(t, "planned_per_cm2", "planned", 3);
     cli_table_col_num(t, "planned_sigma_per_cm2", "+/-", 2);
+    cli_table_col_num(t, "tolerance_per_cm2", "tol", 2);
     cli_table_col_num(t, "estimated_per_cm2", "estimated", 3);
     cli_table_col_num(t, "stderr_per_cm2", "SE", 2);
+    cli_table_col_num(t, "df", "df", 3);
+    cli_table_col_range(t, "ci95_per_cm2", "95% CI", 3);
+    cli_table_col_str(t, "verdict", "verdict");
     cli_table_col_int(t, "wafers", "wafers");
     cli_table_col_list(t, "flags", "flags");
     for (size_t i = 0; i < a->n_effects; i++) {
         const sl_analyze_effect *e = &a->effects[i];
-        const char *flag = "off-plan";
+        const char *flag = sl_stats_verdict_name(e->verdict);
         cli_table_row(t);
         cli_cell_str(t, e->factor);
         cli_cell_str(t, e->level);
         cli_cell_str(t, e->is_intercept ? "-" : e->reference);
         cli_cell_num(t, e->planned_per_cm2);
         cli_cell_num(t, e->planned_sigma_per_cm2);
+        cli_cell_num(t, e->tolerance_per_cm2);
         cli_cell_num(t, e->estimated_per_cm2);
         cli_cell_num(t, e->stderr_per_cm2);
+        cli_cell_num(t, isfinite(e->estimated_per_cm2) ? e->df : NAN);
+        cli_cell_range(t, e->ci_low_per_cm2, e->ci_high_per_cm2);
+        cli_cell_str(t, flag);
         cli_cell_int(t, (long)e->n_wafers);
         cli_cell_list(t, &flag, e->off_plan ? 1 : 0);
     }
@@ -258,27 +276,71 @@ static void failure_table(cli_doc *doc, compare_rows *rows)
     cli_table_col_str(t, "reason", "reason");
 }
 
-static void add_summary(cli_doc *doc, const sl_analysis *a)
+/* Notes on what an interval rests on, censoring and the outlier rule. */
+static void add_notes(cli_doc *doc, const sl_analysis *a)
 {
     char text[512];
+    const sl_stats_anova *an = &a->anova;
+    snprintf(text, sizeof text,
+             "ANOVA of wafer-mean doping across %zu splits (%zu wafers): F(%g, %g) = %.4g, p = %.3g.",
+             an->n_groups, an->n_total, an->df_between, an->df_within, an->f, an->p);
+    cli_doc_note(doc, text);
+    for (size_t s = 0; s < a->n_splits; s++)
+        if (a->splits[s].n_wafers == 1) {
+            snprintf(text, sizeof text, "split %s: one wafer: no interval.", a->plan->splits[s].name);
+            cli_doc_note(doc, text);
+        }
+    snprintf(text, sizeof text,
+             "verdicts: the 95 %% interval of estimate - planned against the tolerance T: "
+             "as-planned inside [-T, T], off-plan entirely outside, differs excludes 0 only, "
+             "inconclusive otherwise.");
+    cli_doc_note(doc, text);
+    snprintf(text, sizeof text,
+             "outliers: |modified z| > 3.5 of the residual from the wafer median (MAD pooled per "
+             "dielectric) flags about %.2g of these %zu devices by chance even when all are good.",
+             a->outliers_expected, a->n_outlier_scored);
+    cli_doc_note(doc, text);
+}
+
+/* Splits with more than 10 % of their devices beyond the sweep, on stderr. */
+static void warn_censored(const sl_analysis *a)
+{
+    for (size_t s = 0; s < a->n_splits; s++) {
+        const sl_analyze_split *sp = &a->splits[s];
+        size_t seen = sp->n_usable + sp->n_censored;
+        if (seen && (double)sp->n_censored > SL_ANALYZE_CENSORED_WARN * (double)seen)
+            fprintf(stderr,
+                    "splitlot: warning: split %s: %zu of %zu devices have their neutrality point "
+                    "beyond the sweep; its wafer means are censored-normal maximum-likelihood "
+                    "estimates\n",
+                    a->plan->splits[s].name, sp->n_censored, seen);
+    }
+}
+
+static void add_summary(cli_doc *doc, const sl_analysis *a)
+{
     cli_doc_str(doc, "lot", a->lot.lot);
     cli_doc_num(doc, "plan_revision", a->revision, 6);
     cli_doc_str(doc, "step", a->step);
     cli_doc_num(doc, "temperature_K", a->temperature_K, 6);
     cli_doc_num(doc, "device_count", (double)a->n_devices, 15); /* "devices" is the table */
     cli_doc_num(doc, "usable", (double)a->n_usable, 15);
+    cli_doc_num(doc, "censored", (double)a->n_censored, 15);
     cli_doc_num(doc, "flagged", (double)a->n_flagged, 15);
-    cli_doc_num(doc, "levels_off_plan", (double)a->n_off_plan, 15);
-    cli_doc_num(doc, "anova_F", a->anova.f, 5);
-    cli_doc_num(doc, "anova_p", a->anova.p, 3);
+    cli_doc_num(doc, "outliers_expected", a->outliers_expected, 3);
+    cli_doc_num(doc, "levels_off_plan", (double)a->n_verdict[SL_VERDICT_OFF_PLAN], 15);
+    cli_doc_num(doc, "levels_differing", (double)a->n_verdict[SL_VERDICT_DIFFERS], 15);
+    cli_doc_num(doc, "device_sigma_V", a->device_sigma_V, 3);
+    cli_doc_num(doc, "wafer_sigma_per_cm2", a->wafer_sigma_per_cm2, 3);
+    cli_doc_num(doc, "anova.F", a->anova.f, 5);
+    cli_doc_num(doc, "anova.df_between", a->anova.df_between, 15);
+    cli_doc_num(doc, "anova.df_within", a->anova.df_within, 15);
+    cli_doc_num(doc, "anova.p", a->anova.p, 3);
     if (a->effects_status != SL_OK) {
         cli_doc_str(doc, "effects_note", a->effects_note);
         cli_doc_note(doc, a->effects_note);
     }
-    snprintf(text, sizeof text,
-             "ANOVA of measured doping across %zu splits: F(%g, %g) = %.4g, p = %.3g.",
-             a->anova.n_groups, a->anova.df_between, a->anova.df_within, a->anova.f, a->anova.p);
-    cli_doc_note(doc, text);
+    add_notes(doc, a);
 }
 
 /* Print the analysis; the devices and the failure list are read as printed. */
@@ -287,6 +349,7 @@ static int print_compare(const compare_args *args, sl_analysis_stream *stream, s
     compare_rows rows = { args, stream, sl_analysis_stream_summary(stream), SL_OK, diag };
     const sl_analysis *a = rows.a;
     cli_doc *doc = cli_doc_new();
+    warn_censored(a);
     add_summary(doc, a);
     runs_table(doc, a, args->format == CLI_FORMAT_TABLE);
     devices_table(doc, &rows);

@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
- * `splitlot history`: every level's estimate per lot in time order, pooled
- * values, individuals-chart limits and drift flags; --emit-yaml prints the
- * calibrated dopings as plan YAML for the next lot.
+ * `splitlot history`: every level's estimate per lot in time order, the
+ * random-effects pooled value with the between-lot sigma, the limits each
+ * lot was judged against and drift flags; --emit-yaml prints the calibrated
+ * dopings and measured scatter as plan YAML for the next lot.
  */
 #include "cli.h"
 
@@ -14,10 +15,12 @@
 static const char usage[] =
     "usage: splitlot history [--db FILE] [--format table|csv|json] [--emit-yaml]\n\n"
     "For every dielectric and treatment level: its estimated doping in each lot\n"
-    "(creation order), the inverse-variance pooled value, an individuals chart\n"
-    "(centre and limits from the average moving range / 1.128) and a drift flag\n"
-    "for lots outside the limits.\n\n"
-    "  --emit-yaml               print calibrated doping as plan YAML instead\n"
+    "(creation order), the random-effects pooled value (DerSimonian and Laird)\n"
+    "with its SE and the between-lot sigma tau, and from the second lot on a\n"
+    "drift flag for a lot outside centre +/- 3 sqrt(tau^2 + SE^2) of the lots\n"
+    "before it.\n\n"
+    "  --emit-yaml               print calibrated doping (sigma sqrt(tau^2 + SE^2))\n"
+    "                            and the measured variation as plan YAML instead\n"
     "  --step NAME               each lot's measurements after this process step\n"
     "                            (default: the step of the lot's newest run)\n"
     "  --temperature-K T         each lot's measurements at this temperature (default:\n"
@@ -48,7 +51,8 @@ static void levels_table(cli_doc *doc, const sl_history *h)
     cli_table_col_int(t, "lots", "lots");
     cli_table_col_num(t, "planned_per_cm2", "planned", 3);
     cli_table_col_num(t, "pooled_per_cm2", "pooled", 3);
-    cli_table_col_num(t, "pooled_stderr_per_cm2", "SE", 2);
+    cli_table_col_num(t, "pooled_se_per_cm2", "SE", 2);
+    cli_table_col_num(t, "between_lot_sigma_per_cm2", "tau", 2);
     cli_table_col_num(t, "center_per_cm2", "centre", 3);
     cli_table_col_range(t, "limits_per_cm2", "limits", 3);
     cli_table_col_int(t, "drift_lots", "drift");
@@ -62,6 +66,7 @@ static void levels_table(cli_doc *doc, const sl_history *h)
         cli_cell_num(t, l->planned_per_cm2);
         cli_cell_num(t, l->pooled.value);
         cli_cell_num(t, l->pooled.se);
+        cli_cell_num(t, l->pooled.tau);
         cli_cell_num(t, l->chart.center);
         cli_cell_range(t, l->chart.lcl, l->chart.ucl);
         cli_cell_int(t, (long)l->n_drift);
@@ -77,6 +82,7 @@ static void points_table(cli_doc *doc, const sl_history *h)
     cli_table_col_str(t, "created_utc", "created");
     cli_table_col_num(t, "estimated_per_cm2", "estimated", 3);
     cli_table_col_num(t, "stderr_per_cm2", "SE", 2);
+    cli_table_col_range(t, "limits_per_cm2", "limits", 3);
     cli_table_col_list(t, "flags", "flags");
     for (size_t i = 0; i < h->n_levels; i++)
         for (size_t k = 0; k < h->levels[i].n_points; k++) {
@@ -89,6 +95,7 @@ static void points_table(cli_doc *doc, const sl_history *h)
             cli_cell_str(t, p->created_utc);
             cli_cell_num(t, p->estimated_per_cm2);
             cli_cell_num(t, p->stderr_per_cm2);
+            cli_cell_range(t, p->lcl_per_cm2, p->ucl_per_cm2);
             cli_cell_list(t, &drift, p->drift ? 1 : 0);
         }
 }
@@ -110,6 +117,8 @@ static int print_history(const sl_history *h, cli_format format, int emit_yaml,
     cli_doc *doc = cli_doc_new();
     cli_doc_num(doc, "lots", (double)h->n_lot_names, 15);
     cli_doc_num(doc, "lots_with_estimates", (double)h->n_lots, 15);
+    cli_doc_num(doc, "wafer_sigma_per_cm2", h->wafer_sigma_per_cm2, 3);
+    cli_doc_num(doc, "device_sigma_V", h->device_sigma_V, 3);
     /* the view each lot was read in: as asked, else ("" and null) each
      * lot's own default, the newest step and the first temperature with data */
     cli_doc_str(doc, "step", view->step ? view->step : "");
@@ -119,8 +128,11 @@ static int print_history(const sl_history *h, cli_format format, int emit_yaml,
                           "with measurements, where not given");
     levels_table(doc, h);
     points_table(doc, h);
-    cli_doc_note(doc, "limits: individuals chart, centre +/- 3 x (average moving range / 1.128); "
-                      "a lot outside them is flagged as drift.");
+    cli_doc_note(doc, "pooled: random effects (DerSimonian and Laird, 1986) over the lots in "
+                      "control; tau: the between-lot sigma (none from one lot). Each lot from the "
+                      "second on is judged against the lots before it: centre +/- 3 sqrt(tau^2 + "
+                      "SE_lot^2 + SE_centre^2); outside is drift. The levels table shows the "
+                      "limits for a lot of the median SE.");
     int rc = cli_doc_print(doc, format, stdout) == 0 ? CLI_EXIT_OK
                                                      : cli_runtime_error("cannot write output");
     cli_doc_free(doc);

@@ -1,7 +1,7 @@
 /* SPDX-License-Identifier: MIT
  * `splitlot layout PLAN`: the splits with their wafers and the devices needed
  * against those available, and every wafer with its split and processing
- * order, as a table, CSV or JSON (keys of DESIGN.md section 5).
+ * order, as a table, CSV or JSON (keys of docs/formats.md).
  */
 #include "cli.h"
 

@@ -42,7 +42,7 @@ typedef struct {
     size_t n_pred;
 } predict_run;
 
-/* The flat splits[] of DESIGN.md section 5: one row per split and temperature. */
+/* The flat splits[] of docs/formats.md: one row per split and temperature. */
 static void machine_table(cli_doc *doc, const predict_run *r)
 {
     cli_table *t = cli_doc_table(doc, "splits", "predictions");

@@ -32,9 +32,11 @@ static const char usage[] =
     "  --draw-levels             draw each level's true doping from the plan's sigma\n"
     "                            (default: levels deliver their planned means)\n"
     "  --no-sweeps               write results.csv and the truth only\n"
+    "  --temperature-K T         measure at this plan temperature only (default:\n"
+    "                            every device at every temperature of the plan)\n"
     "  --help                    this text\n";
 
-enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_SHIFTED, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_DRAW, OPT_HELP };
+enum { OPT_OUT = 1, OPT_SEED, OPT_POINTS, OPT_NOISE, OPT_FAULT, OPT_SHIFTED, OPT_DEVICES, OPT_TRUE, OPT_NO_SWEEPS, OPT_DRAW, OPT_TEMPERATURE, OPT_HELP };
 
 static const struct option options[] = {
     { "out", required_argument, NULL, OPT_OUT },
@@ -47,6 +49,7 @@ static const struct option options[] = {
     { "true-doping", required_argument, NULL, OPT_TRUE },
     { "no-sweeps", no_argument, NULL, OPT_NO_SWEEPS },
     { "draw-levels", no_argument, NULL, OPT_DRAW },
+    { "temperature-K", required_argument, NULL, OPT_TEMPERATURE },
     { "help", no_argument, NULL, OPT_HELP },
     { NULL, 0, NULL, 0 },
 };
@@ -118,6 +121,7 @@ static int parse_option(simulate_args *a, int opt, const char *val)
     case OPT_TRUE: return parse_override(a, val);
     case OPT_NO_SWEEPS: a->sim.write_sweeps = 0; return 0;
     case OPT_DRAW: a->sim.draw_levels = 1; return 0;
+    case OPT_TEMPERATURE: return cli_parse_temperature(val, &a->sim.only_temperature_K);
     }
     return -1;
 }

@@ -7,6 +7,7 @@
 #include <string.h>
 
 #include "splitlot/physics.h"
+#include "splitlot/text.h"
 
 const cli_command cli_commands[] = {
     { "carriers", cmd_carriers, "the carrier physics at one point (Fermi level or gate voltage)" },
@@ -18,6 +19,7 @@ const cli_command cli_commands[] = {
     { "compare", cmd_compare, "every device against its prediction, flags, effects, failure list" },
     { "history", cmd_history, "level estimates across lots, pooled values, drift, calibrated YAML" },
     { "report", cmd_report, "one self-contained HTML report of a lot, with charts" },
+    { "lots", cmd_lots, "the lot ids in the database" },
     { NULL, NULL, NULL },
 };
 
@@ -56,8 +58,15 @@ int cli_main(int argc, char **argv)
         return CLI_EXIT_OK;
     }
     const cli_command *cmd = cli_command_find(name);
-    if (!cmd)
-        return cli_usage_error("unknown command '%s' (see 'splitlot --help')", name);
+    if (!cmd) {
+        const char *names[sizeof cli_commands / sizeof cli_commands[0]];
+        size_t n = 0;
+        for (const cli_command *c = cli_commands; c->name; c++)
+            names[n++] = c->name;
+        char hint[96];
+        return cli_usage_error("unknown command '%s'%s (see 'splitlot --help')", name,
+                               sl_text_did_you_mean(hint, sizeof hint, name, names, n));
+    }
     if (argc == 3 && strcmp(argv[2], "--version") == 0) { /* --version everywhere */
         printf("splitlot %s\n", SL_VERSION);
         return CLI_EXIT_OK;

@@ -403,6 +403,10 @@ static void json_cell(FILE *out, const cell *c, const column *col)
         break;
     }
     case COL_RANGE:
+        if (isnan(c->num) && isnan(c->num2)) { /* no interval at all */
+            fputs("null", out);
+            break;
+        }
         fputc('[', out);
         json_number(out, c->num);
         fputs(", ", out);
@@ -453,18 +457,49 @@ static void json_row(row_visitor *v, const cli_table *t, const cell *cells)
     fputc('}', v->out);
 }
 
+/* Length of the "group." part of a scalar's key (0 without a dot). */
+static size_t group_len(const scalar *s)
+{
+    const char *dot = strchr(s->key, '.');
+    return dot ? (size_t)(dot - s->key) + 1 : 0;
+}
+
+static int same_group(const scalar *a, const scalar *b)
+{
+    size_t n = group_len(a);
+    return n && n == group_len(b) && strncmp(a->key, b->key, n) == 0;
+}
+
+/* A scalar's key, opening its group's object when it is the group's first. */
+static void json_scalar_key(FILE *out, const cli_doc *doc, int i, int first)
+{
+    const scalar *s = &doc->scalars[i];
+    size_t n = group_len(s);
+    if (n && i > 0 && same_group(&doc->scalars[i - 1], s)) {
+        fputs(", ", out);
+    } else {
+        fputs(first ? "\n  " : ",\n  ", out);
+        if (n) {
+            fprintf(out, "\"%.*s\": {", (int)(n - 1), s->key);
+        }
+    }
+    json_string(out, s->key + n);
+    fputs(": ", out);
+}
+
 static int print_json(const cli_doc *doc, FILE *out)
 {
     fputs("{", out);
     int first = 1;
     for (int i = 0; i < doc->nscalars; i++, first = 0) {
-        fputs(first ? "\n  " : ",\n  ", out);
-        json_string(out, doc->scalars[i].key);
-        fputs(": ", out);
+        json_scalar_key(out, doc, i, first);
         if (doc->scalars[i].digits < 0)
             json_string(out, doc->scalars[i].text);
         else
             json_number(out, doc->scalars[i].num);
+        if (group_len(&doc->scalars[i]) &&
+            (i + 1 == doc->nscalars || !same_group(&doc->scalars[i], &doc->scalars[i + 1])))
+            fputc('}', out);
     }
     for (int i = 0; i < doc->ntables; i++, first = 0) {
         cli_table *t = doc->tables[i];

@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
  * Output of the commands: a document of named scalars and named tables,
- * rendered as an aligned terminal table, CSV or JSON (keys of DESIGN.md
- * section 5). Commands fill a document; this file decides the layout.
+ * rendered as an aligned terminal table, CSV or JSON (keys in
+ * docs/formats.md, "JSON"). Commands fill a document; this file decides the
+ * layout.
  */
 #ifndef SL_CLI_OUTPUT_H
 #define SL_CLI_OUTPUT_H
@@ -20,7 +21,8 @@ typedef struct cli_table cli_table;
 cli_doc *cli_doc_new(void);
 void cli_doc_free(cli_doc *doc);
 
-/* Top-level scalars (JSON members; a "key: value" line in table/CSV form). */
+/* Top-level scalars (JSON members; a "key: value" line in table/CSV form).
+ * Consecutive keys "group.name" become one JSON object "group": {"name": ..}. */
 void cli_doc_str(cli_doc *doc, const char *key, const char *value);
 void cli_doc_num(cli_doc *doc, const char *key, double value, int digits);
 /* A note printed under the tables in table form only (cautions, verdicts). */
@@ -49,7 +51,8 @@ void cli_table_col_int(cli_table *t, const char *key, const char *header);
 void cli_table_col_bool(cli_table *t, const char *key, const char *header);
 /* A list of strings: JSON array, ';'-joined in CSV, ','-joined in a table. */
 void cli_table_col_list(cli_table *t, const char *key, const char *header);
-/* A pair [lo, hi]: JSON array of two numbers, "lo..hi" in table/CSV form. */
+/* A pair [lo, hi]: JSON array of two numbers, "lo..hi" in table/CSV form;
+ * both NaN (no interval): JSON null, empty in table/CSV form. */
 void cli_table_col_range(cli_table *t, const char *key, const char *header, int digits);
 
 /* Start a row, then give one cell per column in order. NaN numbers are

@@ -62,7 +62,16 @@ sl_status sl_test_store_open(sl_store **out, const char *path, sl_diag *diag);
             return;                                                            \
     } while (0)
 
-/* Run one suite with CK_NORMAL output; returns the process exit status. */
+/* ctest's skip code (SKIP_RETURN_CODE in tests/CMakeLists.txt). */
+#define SL_TEST_SKIPPED 77
+
+/* A test that cannot run here (it needs root, say): prints "<test> skipped:
+ * <why>" and returns normally; the test should then return. */
+void sl_test_skip(const char *test, const char *why);
+
+/* Run one suite with CK_NORMAL output; returns the process exit status:
+ * failure when a test failed, SL_TEST_SKIPPED when none failed but one
+ * skipped, else success. */
 int sl_test_main(Suite *suite);
 
 #endif
