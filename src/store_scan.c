@@ -115,6 +115,12 @@ static const char ranked_sql[] =
     "SELECT " KEPT_COLUMNS " FROM sl_scratch_rank k "
     "CROSS JOIN sl_scratch_kept c ON c.rowid = k.kept_id "
     "ORDER BY k.severity DESC, k.wafer, k.device";
+/* PostgreSQL has no CROSS JOIN ... ON (SQLite's way of keeping the ranked
+ * table the outer loop); its planner chooses the order itself */
+static const char ranked_pg_sql[] =
+    "SELECT " KEPT_COLUMNS " FROM sl_scratch_rank k "
+    "JOIN sl_scratch_kept c ON c.rowid = k.kept_id "
+    "ORDER BY k.severity DESC, k.wafer, k.device";
 
 /* A text column into a buffer, cut to fit (names are at most 64 bytes). */
 static void copy_text(char *dst, size_t size, sl__stmt *st, int col)
@@ -190,7 +196,9 @@ static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
     if (s == SL_OK)
         s = sl_store_prepare(store, &x->rank, rank_sql, diag);
     if (s == SL_OK)
-        s = sl_store_prepare_flags(store, &x->ranked, ranked_sql, SL__DB_STREAM, diag);
+        s = sl_store_prepare_flags(store, &x->ranked,
+                                   sl_store_is_pg(store) ? ranked_pg_sql : ranked_sql,
+                                   SL__DB_STREAM, diag);
     return s;
 }
 

@@ -15,7 +15,7 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
-#include <sqlite3.h>
+#include "store_internal.h"
 
 #include "test_support.h"
 
@@ -258,6 +258,7 @@ END_TEST
 
 START_TEST(test_missing_database)
 {
+    SL_TEST_SQLITE_ONLY(); /* a missing file; a server's database always exists */
     static const char *const cases[][8] = {
         { "compare", "--lot", "DEMO-01", "--db", "missing.db", NULL },
         { "history", "--db", "missing.db", NULL },
@@ -290,6 +291,8 @@ START_TEST(test_database_from_environment)
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert_int_eq(top_number(r.out, "lots"), 4);
     sl_run_result_free(&r);
+    if (sl_test_pg()) /* the rest is about a missing SQLite file */
+        return;
     ck_assert_int_eq(setenv("SPLITLOT_DB", "elsewhere.db", 1), 0);
     r = run_in(compare);
     ck_assert_int_eq(r.exit_code, 2);
@@ -422,8 +425,9 @@ END_TEST
 
 /* Peak resident size (KiB) of `splitlot compare --lot MANY-01` on db in a
  * format, output thrown away: the child's own ru_maxrss from wait4. */
-static long compare_peak_kib(const char *db, const char *format)
+static long compare_peak_kib(const char *db_path, const char *format)
 {
+    char *db = sl_test_db(db_path);
     pid_t pid = fork();
     ck_assert_int_ge(pid, 0);
     if (pid == 0) {
@@ -438,6 +442,7 @@ static long compare_peak_kib(const char *db, const char *format)
     struct rusage usage;
     ck_assert_int_eq(wait4(pid, &status, 0, &usage), pid);
     ck_assert_msg(WIFEXITED(status) && WEXITSTATUS(status) == 0, "compare on %s failed", db);
+    free(db);
     return usage.ru_maxrss;
 }
 
@@ -552,13 +557,15 @@ START_TEST(test_plan_revisions_after_measurement)
 
     /* the stored prediction of revision 2 moved by +5 V: compare follows it */
     char *db_path = sl_test_path(folder, "t.db");
-    sqlite3 *db = NULL;
-    ck_assert_int_eq(sqlite3_open(db_path, &db), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_exec(db, "UPDATE prediction SET cnp_V = cnp_V + 5 WHERE split_id IN "
-                                      "(SELECT s.id FROM split s JOIN plan_revision r ON "
-                                      "r.id = s.revision_id WHERE r.revision = 2)",
-                                  NULL, NULL, NULL), SQLITE_OK);
-    sqlite3_close(db);
+    sl_store *store = NULL;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_test_store_open(&store, db_path, diag), SL_OK);
+    ck_assert_int_eq(sl__db_exec(store->db, "UPDATE prediction SET cnp_V = cnp_V + 5 WHERE split_id "
+                                            "IN (SELECT s.id FROM split s JOIN plan_revision r ON "
+                                            "r.id = s.revision_id WHERE r.revision = 2)"),
+                     SL__DB_OK);
+    sl_store_close(store);
+    sl_diag_free(diag);
     char *moved = compare_in(folder, "REV-01");
     const char *p = strstr(before, "\"cnp_predicted_V\": "), *q = strstr(moved, "\"cnp_predicted_V\": ");
     ck_assert(p && q);

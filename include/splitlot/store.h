@@ -40,6 +40,25 @@ sl_status sl_store_begin(sl_store *store, sl_diag *diag);
 sl_status sl_store_commit(sl_store *store, sl_diag *diag);
 void sl_store_rollback(sl_store *store);
 
+/* A read-only transaction over one snapshot (for a copy's source or a
+ * checksum); end it with sl_store_rollback. */
+sl_status sl_store_begin_read(sl_store *store, sl_diag *diag);
+
+/* ---- lots moved between stores, whatever their backends ---- */
+
+/* Copy one lot with every row it has (plan revisions, splits, wafers,
+ * predictions, wafer loads, runs, devices, measurements, sweeps) from src
+ * into dst, in the source's order under new row ids. Call inside a
+ * transaction of dst (and a read of src). SL_ENOTFOUND when src lacks the
+ * lot, SL_EINPUT when dst has it already (nothing written). */
+sl_status sl_store_copy_lot(sl_store *dst, sl_store *src, const char *lot, sl_diag *diag);
+
+/* SHA-256 (64 hex digits) of everything a store holds of a lot (lot NULL:
+ * of every lot): names, plan texts, numbers to 17 digits, sweep blobs and
+ * the order of runs and measurements, but not row ids, so a copy has its
+ * source's checksum on either backend. */
+sl_status sl_store_checksum(sl_store *store, char hex[65], const char *lot, sl_diag *diag);
+
 /* Save a validated plan, its layout and predictions under the plan's lot.
  * Same text as the newest revision: nothing is written, *created = 0.
  * Otherwise the next revision number (1, 2, ...) is given, *created = 1: to a

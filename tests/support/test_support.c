@@ -25,7 +25,7 @@ int sl_test_pg(void)
 }
 
 /* A schema of the test server per database file name, made on first use. */
-static int make_schema(const char *base, const char *schema)
+static int make_schema(const char *base, const char *schema, int fresh)
 {
     static PGconn *conn;
     if (!conn)
@@ -34,9 +34,10 @@ static int make_schema(const char *base, const char *schema)
         fprintf(stderr, "test support: cannot reach SPLITLOT_TEST_DB: %s", PQerrorMessage(conn));
         return -1;
     }
-    char sql[128];
-    snprintf(sql, sizeof sql, "SET client_min_messages = warning; "
-                              "CREATE SCHEMA IF NOT EXISTS %s", schema);
+    char sql[192];
+    snprintf(sql, sizeof sql, "SET client_min_messages = warning; %s%s%s"
+                              "CREATE SCHEMA IF NOT EXISTS %s", fresh ? "DROP SCHEMA IF EXISTS " : "",
+             fresh ? schema : "", fresh ? " CASCADE; " : "", schema);
     PGresult *res = PQexec(conn, sql);
     int ok = PQresultStatus(res) == PGRES_COMMAND_OK;
     PQclear(res);
@@ -58,7 +59,7 @@ char *sl_test_db_in(const char *cwd, const char *path)
     char schema[40];
     snprintf(schema, sizeof schema, "t_%016llx", h);
     const char *base = getenv("SPLITLOT_TEST_DB");
-    if (make_schema(base, schema) != 0)
+    if (make_schema(base, schema, 0) != 0)
         return strdup(path);
     size_t n = strlen(base) + 64;
     char *url = malloc(n);
@@ -151,8 +152,70 @@ int sl_test_write_file(const char *path, const char *text)
     return (fclose(f) == 0 && ok) ? 0 : -1;
 }
 
+/* ---- databases on the test server, where the suites copy files ---- */
+
+/* A database path that is a schema of the test server (no such file). */
+static int server_db(const char *path)
+{
+    size_t n = strlen(path);
+    return sl_test_pg() && n > 3 && strcmp(path + n - 3, ".db") == 0 && access(path, F_OK) != 0;
+}
+
+static int db_checksum(const char *path, char hex[65])
+{
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_status s = sl_test_store_open(&store, path, diag);
+    if (s == SL_OK)
+        s = sl_store_checksum(store, hex, NULL, diag);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    return s == SL_OK ? 0 : -1;
+}
+
+/* Every lot of one server database into another, emptied first. */
+static int db_copy(const char *from, const char *to)
+{
+    char *url = sl_test_db(to);
+    const char *opt = url ? strstr(url, "search_path%3D") : NULL;
+    if (!opt || make_schema(getenv("SPLITLOT_TEST_DB"), opt + 14, 1) != 0) {
+        free(url);
+        return -1;
+    }
+    sl_diag *diag = sl_diag_new();
+    sl_store *src = NULL, *dst = NULL;
+    char **names = NULL;
+    size_t n = 0;
+    sl_status s = sl_test_store_open(&src, from, diag);
+    if (s == SL_OK)
+        s = sl_store_open(&dst, url, diag);
+    if (s == SL_OK)
+        s = sl_store_begin_read(src, diag);
+    if (s == SL_OK)
+        s = sl_store_list_lots(src, &names, &n, diag);
+    if (s == SL_OK)
+        s = sl_store_begin(dst, diag);
+    for (size_t i = 0; s == SL_OK && i < n; i++)
+        s = sl_store_copy_lot(dst, src, names[i], diag);
+    if (s == SL_OK)
+        s = sl_store_commit(dst, diag);
+    if (s != SL_OK)
+        fprintf(stderr, "test support: copying %s to %s failed: %s\n", from, to,
+                sl_diag_last(diag) ? sl_diag_last(diag) : "?");
+    sl_store_free_names(names, n);
+    sl_store_close(src);
+    sl_store_close(dst);
+    sl_diag_free(diag);
+    free(url);
+    return s == SL_OK ? 0 : -1;
+}
+
 int sl_test_files_equal(const char *a, const char *b)
 {
+    if (server_db(a) && server_db(b)) {
+        char x[65], y[65];
+        return db_checksum(a, x) == 0 && db_checksum(b, y) == 0 && strcmp(x, y) == 0;
+    }
     size_t na = 0, nb = 0;
     char *x = sl_test_read_file(a, &na), *y = sl_test_read_file(b, &nb);
     int eq = x && y && na == nb && memcmp(x, y, na) == 0;
@@ -163,6 +226,8 @@ int sl_test_files_equal(const char *a, const char *b)
 
 int sl_test_copy_file(const char *from, const char *to)
 {
+    if (server_db(from) && server_db(to))
+        return db_copy(from, to);
     size_t n;
     char *x = sl_test_read_file(from, &n);
     if (!x)
