@@ -744,6 +744,168 @@ START_TEST(negative_zero_and_subnormal_import)
 }
 END_TEST
 
+/* ---- a PostgreSQL server that fails (make check-pg) ---- */
+
+/* Run a shell command as the server's owner (postgres when we are root). */
+static int as_server_owner(const char *cmd)
+{
+    char line[8192];
+    if (geteuid() == 0)
+        snprintf(line, sizeof line, "runuser -u postgres -- sh -c '%s' >/dev/null 2>&1", cmd);
+    else
+        snprintf(line, sizeof line, "sh -c '%s' >/dev/null 2>&1", cmd);
+    return system(line);
+}
+
+typedef struct {
+    char dir[4096];
+    char url[4200];
+} private_server;
+
+static int server_start(private_server *srv)
+{
+    char cmd[8192];
+    snprintf(cmd, sizeof cmd, "%s/pg_ctl -D %s/data -l %s/log -w -t 30 -o \"-k %s -c "
+             "listen_addresses= -c fsync=off\" start", getenv("SL_PG_BINDIR"), srv->dir, srv->dir,
+             srv->dir);
+    return as_server_owner(cmd);
+}
+
+static void server_stop(private_server *srv, const char *mode)
+{
+    char cmd[8192];
+    snprintf(cmd, sizeof cmd, "%s/pg_ctl -D %s/data -m %s -w stop", getenv("SL_PG_BINDIR"),
+             srv->dir, mode);
+    as_server_owner(cmd);
+}
+
+/* A server of this test's own (it is stopped, which the other suites'
+ * server must not be), with a database for splitlot. 0 when it runs. */
+static int server_make(private_server *srv)
+{
+    const char *user = geteuid() == 0 ? "postgres" : getenv("USER");
+    snprintf(srv->dir, sizeof srv->dir, "%s", rig.dir);
+    strncat(srv->dir, "/pg", sizeof srv->dir - strlen(srv->dir) - 1);
+    ck_assert_int_eq(mkdir(srv->dir, 0700), 0);
+    char cmd[8192];
+    if (geteuid() == 0) {
+        snprintf(cmd, sizeof cmd, "chown postgres: %s && chmod 755 %s", srv->dir, rig.dir);
+        ck_assert_int_eq(system(cmd), 0);
+    }
+    snprintf(cmd, sizeof cmd, "%s/initdb -D %s/data -A trust -U %s --no-locale -E UTF8",
+             getenv("SL_PG_BINDIR"), srv->dir, user ? user : "postgres");
+    if (as_server_owner(cmd) != 0 || server_start(srv) != 0)
+        return -1;
+    snprintf(cmd, sizeof cmd, "%s/createdb -h %s -U %s lots", getenv("SL_PG_BINDIR"), srv->dir,
+             user ? user : "postgres");
+    if (as_server_owner(cmd) != 0)
+        return -1;
+    snprintf(srv->url, sizeof srv->url, "postgresql:///lots?host=%s&user=%s", srv->dir,
+             user ? user : "postgres");
+    return 0;
+}
+
+/* 1 once an import holds a lot's lock on the server (it is writing). */
+static int import_under_way(const char *url)
+{
+    sl_store *store = db_open(url);
+    sl__stmt *st = NULL;
+    long n = 0;
+    if (sl__db_prepare(store->db, "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' "
+                                  "AND classid = 21324 AND granted", 0, &st) == SL__DB_OK &&
+        sl__db_step(st) == SL__DB_ROW)
+        n = (long)sl__db_column_int64(st, 0);
+    sl__db_finalize(st);
+    sl_store_close(store);
+    return n > 0;
+}
+
+/* The server stopped while an import writes: the import ends with exit 1
+ * and one line naming the lost server; after a restart nothing of the lot
+ * is there and the earlier lot is whole. */
+START_TEST(server_stopped_mid_import)
+{
+    if (!sl_test_pg() || !getenv("SL_PG_BINDIR"))
+        return;
+    private_server srv;
+    ck_assert_msg(server_make(&srv) == 0, "the test's own PostgreSQL server did not start");
+    predict_ok("early.yaml", srv.url);
+    predict_ok(DEMO_PLAN, srv.url);
+    ingest_ok(srv.url, "EARLY-01", "small/sweeps.csv");
+    lot_digest early = digest_lot(srv.url, "EARLY-01");
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--sweeps", rig.big_csv, "--db", srv.url,
+                           NULL };
+    child c = spawn(argv, "stop.err", 0);
+    int seen = 0;
+    for (int i = 0; i < 2000 && !seen && !reap_within(&c, 10); i++)
+        seen = import_under_way(srv.url);
+    ck_assert_msg(seen, "the import ended before it was seen writing");
+    sleep_ms(100);
+    server_stop(&srv, "fast");
+    int code = wait_child(&c);
+    char *err = child_err(&c);
+    ck_assert_msg(code == 1 && count_lines(err) == 1 &&
+                  strstr(err, "cannot be reached or closed the connection"), "exit %d: %s", code, err);
+    ck_assert_int_eq(server_start(&srv), 0);
+    assert_same_lot(digest_lot(srv.url, "EARLY-01"), early, "earlier lot after the restart");
+    ck_assert_int_eq(digest_lot(srv.url, "DEMO-01").devices, 0);
+    server_stop(&srv, "immediate");
+    free(err);
+}
+END_TEST
+
+/* A statement past the server's statement_timeout (here the wait for a lot
+ * another client holds), an unreachable server and a refused login: exit 1,
+ * one line saying which, nothing written. */
+START_TEST(server_failures_are_one_clear_line)
+{
+    if (!sl_test_pg())
+        return;
+    char *db = work_db("timeout.db");
+    sl_store *holder = db_open(db);
+    sl_store_lot lot;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_store_find_lot(holder, &lot, "DEMO-01", diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin(holder, diag), SL_OK);
+    ck_assert_int_eq(sl_store_lock_lot(holder, lot.lot_id, diag), SL_OK);
+    /* the test URL's options (its schema) and a 300 ms statement_timeout */
+    char *url = sl_test_db(db), timed[4300];
+    snprintf(timed, sizeof timed, "%s%%20-cstatement_timeout%%3D300", url);
+    free(url);
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--sweeps", rig.small_csv, "--db",
+                           timed, NULL };
+    child c = spawn(argv, "timeout.err", 0);
+    int code = wait_child(&c);
+    char *err = child_err(&c);
+    ck_assert_msg(code == 1 && count_lines(err) == 1 && strstr(err, "statement_timeout") &&
+                  strstr(err, "nothing was changed"), "exit %d: %s", code, err);
+    free(err);
+    sl_store_rollback(holder);
+    sl_store_close(holder);
+    ck_assert_int_eq(digest_lot(db, "DEMO-01").devices, 0);
+
+    static const char *const urls[][2] = {
+        { "postgresql:///lots?host=/nonexistent-folder", "cannot be reached" },
+        { NULL, "refused the login" },
+    };
+    char refused[4200];
+    char *base = sl_test_db(db);
+    snprintf(refused, sizeof refused, "%s&user=no_such_role", base);
+    free(base);
+    for (int i = 0; i < 2; i++) {
+        const char *lots[] = { "lots", "--db", urls[i][0] ? urls[i][0] : refused, NULL };
+        sl_run_result r = sl_test_run(rig.dir, NULL, lots);
+        ck_assert_msg(r.exit_code == 1 && count_lines(r.err) == 1 && strstr(r.err, urls[i][1]),
+                      "exit %d: %s", r.exit_code, r.err);
+        ck_assert_str_eq(r.out, "");
+        sl_run_result_free(&r);
+    }
+    sl_store_lot_clear(&lot);
+    sl_diag_free(diag);
+    free(db);
+}
+END_TEST
+
 static Suite *reliability_suite(void)
 {
     Suite *s = suite_create("reliability");
@@ -758,6 +920,8 @@ static Suite *reliability_suite(void)
     tcase_add_loop_test(tc, self_referencing_plan_refused, 0,
                         (int)(sizeof self_referencing_plans / sizeof self_referencing_plans[0]));
     tcase_add_test(tc, negative_zero_and_subnormal_import);
+    tcase_add_test(tc, server_stopped_mid_import);
+    tcase_add_test(tc, server_failures_are_one_clear_line);
     suite_add_tcase(s, tc);
     /* mounts and chattr: need root (or CAP_SYS_ADMIN), skipped otherwise */
     TCase *root = tcase_create("root");

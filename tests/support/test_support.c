@@ -46,8 +46,10 @@ static int make_schema(const char *base, const char *schema, int fresh)
 
 char *sl_test_db_in(const char *cwd, const char *path)
 {
-    if (!sl_test_pg() || strncmp(path, "postgres", 8) == 0)
-        return strdup(path);
+    size_t len = strlen(path);
+    if (!sl_test_pg() || strncmp(path, "postgres", 8) == 0 || len < 3 ||
+        strcmp(path + len - 3, ".db") != 0)
+        return strdup(path); /* a URL, or a file that is no database name (*.sqlite) */
     char here[4096], full[8192];
     if (path[0] == '/')
         snprintf(full, sizeof full, "%s", path);
@@ -310,7 +312,9 @@ sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *c
     for (size_t i = 0; i < argc; i++) {
         args[i + 1] = (char *)argv[i];
         /* a database file names a schema of the test server instead */
-        if (i > 0 && strcmp(argv[i - 1], "--db") == 0 && sl_test_pg())
+        if (i > 0 && sl_test_pg() &&
+            (strcmp(argv[i - 1], "--db") == 0 || strcmp(argv[i - 1], "--from") == 0 ||
+             strcmp(argv[i - 1], "--to") == 0))
             args[i + 1] = mapped[i] = sl_test_db_in(cwd, argv[i]);
     }
     const char *env_db = getenv("SPLITLOT_DB");

@@ -49,7 +49,8 @@ int sl_test_pg(void);
 /* Where a database named by a file path lives: the path itself on SQLite;
  * on PostgreSQL the URL of a schema of the test server made for that path
  * (relative paths from cwd, NULL: the current folder). The splitlot runs of
- * sl_test_run map --db FILE and SPLITLOT_DB the same way. Malloc'd. */
+ * sl_test_run map --db, --from and --to FILE and SPLITLOT_DB the same way;
+ * only names ending in .db are databases there. Malloc'd. */
 char *sl_test_db(const char *path);
 char *sl_test_db_in(const char *cwd, const char *path);
 /* sl_store_open of the database a file path names (see sl_test_db). */
