@@ -59,11 +59,12 @@ static int is_usable(const sl_store_device_row *r)
 
 /* ---- the view, the plan and what its revision stored ---- */
 
-/* The view's temperature among the stored ones: its index, or -1. */
+/* A temperature among the stored ones (within 0.5 K, as an import takes
+ * them): its index, or -1. */
 static long temperature_index(const sl_store_revision *rev, double temperature_K)
 {
     for (size_t t = 0; t < rev->n_temperatures; t++)
-        if (rev->temperatures_K[t] == temperature_K)
+        if (fabs(rev->temperatures_K[t] - temperature_K) <= 0.5)
             return (long)t;
     return -1;
 }
@@ -78,15 +79,12 @@ static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
     if (st != SL_OK)
         return st;
     st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
-                               newest.temperatures_K, newest.n_temperatures, diag);
-    if (st == SL_OK && view && view->step)
-        snprintf(a->step, sizeof a->step, "%s", view->step);
+                               view ? view->step : NULL, newest.temperatures_K,
+                               newest.n_temperatures, diag);
     if (st == SL_OK && view && !isnan(view->temperature_K)) {
-        a->temperature_K = view->temperature_K;
-        if (view->step == NULL)
-            st = sl_store_default_view(store, a->step, &(double){ 0 }, a->lot.lot_id,
-                                       &a->temperature_K, 1, diag);
-        if (st == SL_OK && temperature_index(&newest, a->temperature_K) < 0) {
+        long t = temperature_index(&newest, view->temperature_K);
+        a->temperature_K = t >= 0 ? newest.temperatures_K[t] : view->temperature_K;
+        if (t < 0) {
             char allowed[256];
             size_t k = 0;
             for (size_t t = 0; t < newest.n_temperatures && k < sizeof allowed; t++)
@@ -151,6 +149,32 @@ static sl_status stored_layout(sl_layout **out, const sl_store_revision *rev)
     return SL_OK;
 }
 
+/* Each wafer's load in every batched step of the plan, as the revision
+ * stored them (layout wafers' load, 1-based, 0 for none). */
+static sl_status stored_loads(sl_layout *l, const sl_plan *plan, sl_store *store,
+                              const sl_store_revision *rev, sl_diag *diag)
+{
+    size_t nb = plan->n_batches;
+    if (nb == 0)
+        return SL_OK;
+    long *loads = calloc(rev->n_wafers * nb + 1, sizeof *loads);
+    const char **steps = calloc(nb, sizeof *steps);
+    sl_status st = loads && steps ? SL_OK : SL_ENOMEM;
+    for (size_t b = 0; st == SL_OK && b < nb; b++)
+        steps[b] = plan->batches[b].step;
+    if (st == SL_OK)
+        st = sl_store_load_wafer_loads(store, loads, rev, steps, nb, diag);
+    for (size_t w = 0; st == SL_OK && w < l->n_wafers; w++) {
+        if (!(l->wafers[w].load = calloc(nb, sizeof *l->wafers[w].load)))
+            st = SL_ENOMEM;
+        for (size_t b = 0; st == SL_OK && b < nb; b++)
+            l->wafers[w].load[b] = loads[w * nb + b] > 0 ? (size_t)loads[w * nb + b] : 0;
+    }
+    free(loads);
+    free(steps);
+    return st;
+}
+
 /* Predicted neutrality point, gate range, C_g and thermal floor per split,
  * as stored for the view's temperature. */
 static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
@@ -204,6 +228,8 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
     if (st == SL_OK)
         st = stored_layout(&s->layout, &rev);
     if (st == SL_OK)
+        st = stored_loads(s->layout, a->plan, store, &rev, diag);
+    if (st == SL_OK)
         st = load_predictions(a, &rev);
     sl_store_revision_clear(&rev);
     return st;
@@ -251,11 +277,13 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->n0_per_cm2 = r->n0_per_cm2;
     d->r_contact_ohm = r->r_contact_ohm;
     d->hysteresis_V = r->hysteresis_V;
-    d->floor_predicted_per_cm2 = a->split_floor_per_cm2[split];
+    d->floor_predicted_per_cm2 = hypot(a->split_floor_per_cm2[split],
+                                       a->plan->disorder_density_per_cm2);
     d->channel_length_um = isnan(r->channel_length_um) ? a->plan->channel_length_um
                                                        : r->channel_length_um;
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
                                                      : r->channel_width_um;
+    d->n_points = r->n_points;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
@@ -311,8 +339,10 @@ static const char *class_reason(const char *cls)
     return "extraction failed";
 }
 
-/* The flag in words, and the severity that orders the failure analysis. */
-static void describe(sl_analyze_device *d)
+/* The flag in words, and the severity that orders the failure analysis
+ * (a residual density below the floor ranks after the off-prediction and
+ * outlier flags, before nothing). */
+static void describe(sl_analyze_device *d, double floor_per_cm2, double temperature_K)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
         snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
@@ -330,10 +360,18 @@ static void describe(sl_analyze_device *d)
                               "the split gives a spread)",
                               fabs(d->deviation_V), d->deviation_V > 0 ? "above" : "below");
     if (d->flags & SL_FLAG_OUTLIER)
-        snprintf(d->reason + k, sizeof d->reason - k, "%s%s the other devices of its wafer (modified z %.1f)",
-                 k ? "; " : "", d->modified_z > 0 ? "far above" : "far below", d->modified_z);
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "%s%s the other devices of its wafer (modified z %.1f)", k ? "; " : "",
+                              d->modified_z > 0 ? "far above" : "far below", d->modified_z);
+    if (d->flags & SL_FLAG_BELOW_FLOOR && k < sizeof d->reason)
+        snprintf(d->reason + k, sizeof d->reason - k,
+                 "%sresidual density %.3g cm^-2 below the thermal floor %.3g cm^-2 at %g K "
+                 "(the fit or the temperature is wrong)",
+                 k ? "; " : "", d->n0_per_cm2, floor_per_cm2, temperature_K);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
+    if (d->flags == SL_FLAG_BELOW_FLOOR)
+        d->severity = 1.0 - d->n0_per_cm2 / floor_per_cm2; /* 0..1: after the others */
     if (d->flags & SL_FLAG_OFF_PREDICTION)
         d->severity += 100.0;
 }
@@ -348,8 +386,11 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     fill_device(a, d, r, split);
     if (isfinite(d->cnp_measured_V))
         score_device(s, d, wafer);
+    /* below the thermal floor no sample can be: n = p = n_th at neutrality */
+    if (isfinite(d->n0_per_cm2) && d->n0_per_cm2 < a->split_floor_per_cm2[split])
+        d->flags |= SL_FLAG_BELOW_FLOOR;
     if (d->flags)
-        describe(d);
+        describe(d, a->split_floor_per_cm2[split], a->temperature_K);
     s->row = r;
 }
 
@@ -517,8 +558,14 @@ static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
             sl_stats_robust_from(&g->robust, g->n, 0.0, g->mad_V, g->sum_abs_V / (double)g->n);
     }
     /* the device spread of the off-prediction interval: about the wafer medians */
-    for (size_t k = 0; k < a->n_splits; k++)
-        a->splits[k].spread_V = dielectric_of(s, (long)k)->robust.scale;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        sl_analyze_split *sp = &a->splits[k];
+        sp->spread_V = dielectric_of(s, (long)k)->robust.scale;
+        /* the interval score_device flags against, for the report to draw */
+        double half = SL_ANALYZE_INTERVAL_SIGMAS * hypot(sp->cnp_predicted_sigma_V, sp->spread_V);
+        sp->flag_low_V = sp->cnp_predicted_V - half;
+        sp->flag_high_V = sp->cnp_predicted_V + half;
+    }
     return st;
 }
 

@@ -30,6 +30,8 @@ static const char stylesheet[] =
     ".sl-chart .band{stroke:none}"
     ".sl-chart .sigma3{color:#9cbbdc;fill:currentColor;fill-opacity:.25}"
     ".sl-chart .sigma1{color:#6f98c6;fill:currentColor;fill-opacity:.4}"
+    ".sl-chart .density,.sl-chart .swatch.density{fill:#3d5f85;fill-opacity:.75;stroke:none}"
+    ".sl-chart .die-axis{font-size:9px;fill:#555}"
     ".sl-chart .predicted{stroke:#1c416b;stroke-width:1.5}"
     ".sl-chart .center{stroke:#333;stroke-width:1.2}"
     ".sl-chart .limit{stroke:#a6431a;stroke-width:1.2;stroke-dasharray:6 3}"
@@ -44,6 +46,7 @@ static const char stylesheet[] =
     ".sl-chart .notch{fill:#777}"
     ".sl-chart .die{stroke:#fff;stroke-width:.6}"
     ".sl-chart .die.flagged{stroke:#000;stroke-width:2.2}"
+    ".sl-chart .fine .die{stroke:none}.sl-chart .fine .die.flagged{stroke:#000;stroke-width:1}"
     ".sl-chart .nd{fill:#a9a9a9}.sl-chart .ndx{stroke:#2b2b2b;stroke-width:1.2}"
     ".sl-chart .flag-cell{fill:#fff;stroke:#000;stroke-width:2.2}"
     ".sl-chart .note{fill:#666;font-style:italic}";

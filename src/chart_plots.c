@@ -12,6 +12,7 @@
 #include "chart_internal.h"
 
 #define LEGEND_STRIP_PX 130.0
+#define STRIP_LEGEND_PX 170.0  /* the strip chart's legend names its flag interval */
 #define LIMIT_STRIP_PX 90.0
 #define Y_TICK_TARGET 6
 #define X_TICK_TARGET 8
@@ -103,31 +104,91 @@ static sl_status draw_category_axis(sl_chart_buf *buf, const sl_chart_rect *plot
 
 /* ---- strip chart ---------------------------------------------------------- */
 
+static int has_flag_band(const sl_chart_category *cat)
+{
+    return cat->has_flag_interval && isfinite(cat->flag_low) && isfinite(cat->flag_high);
+}
+
+static int has_bins(const sl_chart_category *cat)
+{
+    return cat->bins && cat->n_bins > 0 && isfinite(cat->bins_low) && isfinite(cat->bins_high)
+           && cat->bins_high > cat->bins_low;
+}
+
 static data_range strip_range(const sl_chart_category *cats, size_t count)
 {
     data_range r = range_empty();
     for (size_t c = 0; c < count; c++) {
         for (size_t i = 0; i < cats[c].count; i++)
             range_add(&r, cats[c].values[i]);
-        range_add_interval(&r, cats[c].predicted.val, 3.0 * cats[c].predicted.sigma);
+        if (has_flag_band(&cats[c])) {
+            range_add(&r, cats[c].flag_low);
+            range_add(&r, cats[c].flag_high);
+            range_add_interval(&r, cats[c].predicted.val, cats[c].predicted.sigma);
+        } else {
+            range_add_interval(&r, cats[c].predicted.val, 3.0 * cats[c].predicted.sigma);
+        }
+        if (has_bins(&cats[c]))
+            for (size_t b = 0; b < cats[c].n_bins; b++)
+                if (cats[c].bins[b] > 0) {
+                    double w = (cats[c].bins_high - cats[c].bins_low) / (double)cats[c].n_bins;
+                    range_add(&r, cats[c].bins_low + w * (double)b);
+                    range_add(&r, cats[c].bins_low + w * (double)(b + 1));
+                }
     }
     return r;
 }
 
+/* The outer band: the flag interval when the category has one, else
+ * +/-3 sigma of the prediction; then +/-1 sigma and the predicted line. */
 static void strip_bands(sl_chart_buf *buf, const sl_chart_scale *y, double cx, double half_w,
-                        sl_est predicted)
+                        const sl_chart_category *cat)
 {
+    sl_est predicted = cat->predicted;
+    if (has_flag_band(cat))
+        sl_chart_band(buf, cx - half_w, cx + half_w, sl_chart_scale_px(y, cat->flag_low),
+                      sl_chart_scale_px(y, cat->flag_high), "sigma3 flag-interval");
     if (!isfinite(predicted.val))
         return;
     double s = predicted.sigma;
     if (isfinite(s) && s > 0.0) {
-        sl_chart_band(buf, cx - half_w, cx + half_w, sl_chart_scale_px(y, predicted.val - 3 * s),
-                      sl_chart_scale_px(y, predicted.val + 3 * s), "sigma3");
+        if (!has_flag_band(cat))
+            sl_chart_band(buf, cx - half_w, cx + half_w,
+                          sl_chart_scale_px(y, predicted.val - 3 * s),
+                          sl_chart_scale_px(y, predicted.val + 3 * s), "sigma3");
         sl_chart_band(buf, cx - half_w, cx + half_w, sl_chart_scale_px(y, predicted.val - s),
                       sl_chart_scale_px(y, predicted.val + s), "sigma1");
     }
     double py = sl_chart_scale_px(y, predicted.val);
     sl_chart_segment(buf, cx - half_w, py, cx + half_w, py, "predicted");
+}
+
+/* A column of bars, one per non-empty bin, as wide as the count allows
+ * (the fullest bin spans half_w on each side of the centre). */
+static void strip_density(sl_chart_buf *buf, const sl_chart_scale *y, double cx, double half_w,
+                          const sl_chart_category *cat)
+{
+    size_t top = 0;
+    for (size_t b = 0; b < cat->n_bins; b++)
+        top = cat->bins[b] > top ? cat->bins[b] : top;
+    if (top == 0)
+        return;
+    double w = (cat->bins_high - cat->bins_low) / (double)cat->n_bins;
+    sl_chart_buf_append(buf, "<g class=\"density\">");
+    for (size_t b = 0; b < cat->n_bins; b++) {
+        if (cat->bins[b] == 0)
+            continue;
+        double lo = cat->bins_low + w * (double)b, hi = lo + w;
+        double y0 = sl_chart_scale_px(y, hi), y1 = sl_chart_scale_px(y, lo);
+        double half = fmax(half_w * (double)cat->bins[b] / (double)top, 0.6);
+        sl_chart_buf_printf(buf, "<rect class=\"bin\" x=\"%s\" y=\"%s\" width=\"%s\" "
+                            "height=\"%s\"><title>%zu devices, %s to ",
+                            sl_chart_px_text(cx - half).s, sl_chart_px_text(y0).s,
+                            sl_chart_px_text(2.0 * half).s, sl_chart_px_text(y1 - y0).s,
+                            cat->bins[b], sl_chart_value_text(lo).s);
+        sl_chart_buf_printf(buf, "%s</title></rect>", sl_chart_value_text(hi).s);
+    }
+    sl_chart_buf_append(buf, "</g>");
 }
 
 /* Deterministic sideways spread: golden-ratio fractions fill [-0.5, 0.5)
@@ -157,23 +218,39 @@ static void strip_points(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
     }
 }
 
-static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot)
+/* The legend names the outer band for what it is: the flag interval of
+ * the first category that has one, else +/-3 sigma of the prediction. */
+static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot,
+                         const sl_chart_category *cats, size_t count)
 {
-    const sl_chart_legend_item items[5] = {
-        { SL_CHART_SWATCH_CIRCLE, NULL, NULL, "measured" },
-        { SL_CHART_SWATCH_DIAMOND, "flagged", NULL, "flagged" },
-        { SL_CHART_SWATCH_LINE, "predicted", NULL, "predicted" },
-        { SL_CHART_SWATCH_BAND, "sigma1", NULL, "predicted \xc2\xb1" "1\xcf\x83" },
-        { SL_CHART_SWATCH_BAND, "sigma3", NULL, "predicted \xc2\xb1" "3\xcf\x83" },
-    };
-    sl_chart_legend(buf, legend_x(plot), plot->y_px, items, 5);
+    const char *outer = "predicted \xc2\xb1" "3\xcf\x83";
+    int any_bins = 0, any_points = 0;
+    for (size_t c = count; c-- > 0;) {
+        if (has_flag_band(&cats[c]))
+            outer = cats[c].flag_label ? cats[c].flag_label : "flag interval";
+        any_bins |= has_bins(&cats[c]);
+        any_points |= !has_bins(&cats[c]);
+    }
+    sl_chart_legend_item items[6];
+    size_t n = 0;
+    if (any_points)
+        items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_CIRCLE, NULL, NULL, "measured" };
+    if (any_bins)
+        items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "density", NULL,
+                                             "devices per bin" };
+    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_DIAMOND, "flagged", NULL, "flagged" };
+    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_LINE, "predicted", NULL, "predicted" };
+    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "sigma1", NULL,
+                                         "predicted \xc2\xb1" "1\xcf\x83" };
+    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "sigma3", NULL, outer };
+    sl_chart_legend(buf, legend_x(plot), plot->y_px, items, n);
 }
 
 sl_status sl_chart_strip(sl_chart_buf *buf, const sl_chart_frame *frame,
                          const sl_chart_category *categories, size_t count,
                          const char *x_title, const char *y_title)
 {
-    sl_chart_frame f = widen_right(frame, LEGEND_STRIP_PX);
+    sl_chart_frame f = widen_right(frame, STRIP_LEGEND_PX);
     sl_status st = sl_chart_frame_open(buf, &f);
     if (st != SL_OK)
         return st;
@@ -187,14 +264,16 @@ sl_status sl_chart_strip(sl_chart_buf *buf, const sl_chart_frame *frame,
     double spread = fmin(0.5 * band_w, 60.0);
     for (size_t c = 0; c < count; c++) {
         double cx = sl_chart_band_center_px(&plot, count, c);
-        strip_bands(buf, &y, cx, 0.4 * band_w, categories[c].predicted);
+        strip_bands(buf, &y, cx, 0.4 * band_w, &categories[c]);
+        if (has_bins(&categories[c]))
+            strip_density(buf, &y, cx, spread / 2.0, &categories[c]);
     }
     for (int pass = 0; pass < 2; pass++)
         for (size_t c = 0; c < count; c++)
             strip_points(buf, &y, sl_chart_band_center_px(&plot, count, c), spread,
                          &categories[c], pass);
     note_no_data(buf, &plot, isfinite(r.lo));
-    strip_legend(buf, &plot);
+    strip_legend(buf, &plot, categories, count);
     return sl_chart_frame_close(buf);
 }
 

@@ -16,6 +16,9 @@
 #define WAFER_TITLE_PX 30.0
 #define WAFER_DEFAULT_CELL_PX 14.0
 #define WAFER_MAX_GRID 4096
+#define WAFER_AXIS_LEFT_PX 22.0  /* row labels left of the wafer */
+#define WAFER_AXIS_TOP_PX 12.0   /* column labels above it */
+#define WAFER_AXIS_LABELS 8      /* about this many labels per side */
 
 /* Where things go, computed once from the grid size. */
 typedef struct {
@@ -31,11 +34,13 @@ static wafer_layout layout_for(const sl_chart_wafer_map *map)
     wafer_layout l;
     l.cell = map->cell_px > 0.0 ? map->cell_px : WAFER_DEFAULT_CELL_PX;
     double gw = map->cols * l.cell, gh = map->rows * l.cell;
+    double axis_left = map->die_axes ? WAFER_AXIS_LEFT_PX : 0.0;
+    double axis_top = map->die_axes ? WAFER_AXIS_TOP_PX : 0.0;
     l.radius = 0.5 * hypot(gw, gh) + 4.0;
-    double content_w = fmax(2.0 * l.radius, 200.0);
-    l.width = content_w + 2.0 * WAFER_PAD_PX;
-    l.centre_x = WAFER_PAD_PX + content_w / 2.0;
-    l.centre_y = WAFER_TITLE_PX + l.radius;
+    double content_w = fmax(2.0 * l.radius, map->no_legend ? 0.0 : 200.0);
+    l.width = content_w + 2.0 * WAFER_PAD_PX + axis_left;
+    l.centre_x = WAFER_PAD_PX + axis_left + content_w / 2.0;
+    l.centre_y = WAFER_TITLE_PX + axis_top + l.radius;
     /* Whole-pixel grid origin: crisp cell edges and shorter numbers. */
     l.grid_x = round(l.centre_x - gw / 2.0);
     l.grid_y = round(l.centre_y - gh / 2.0);
@@ -44,8 +49,43 @@ static wafer_layout layout_for(const sl_chart_wafer_map *map)
     l.bar.width_px = fmin(content_w, 220.0);
     l.bar.height_px = 10.0;
     l.legend_y = l.bar.y_px + l.bar.height_px + 18.0;
-    l.height = l.legend_y + 2.0 * 16.0 + 8.0;
+    l.height = map->no_legend ? l.centre_y + l.radius + 8.0 : l.legend_y + 2.0 * 16.0 + 8.0;
     return l;
+}
+
+/* Every k-th die labelled, k a 1-2-5 step giving about WAFER_AXIS_LABELS
+ * labels; the labels are prober coordinates (index + first die). */
+static int axis_step(int count)
+{
+    static const int steps[] = { 1, 2, 5, 10, 20, 50, 100, 200, 500, 1000, 2000, 5000 };
+    for (size_t i = 0; i < sizeof steps / sizeof steps[0]; i++)
+        if (count <= steps[i] * WAFER_AXIS_LABELS)
+            return steps[i];
+    return 10000;
+}
+
+static void draw_die_axes(sl_chart_buf *buf, const sl_chart_wafer_map *map, const wafer_layout *l)
+{
+    sl_chart_buf_append(buf, "<g class=\"die-axis\">");
+    int step = axis_step(map->cols);
+    double top = l->centre_y - l->radius - 3.0;
+    for (int x = 0; x < map->cols; x++) {
+        if ((x + map->first_die_x) % step != 0)
+            continue;
+        sl_chart_buf_printf(buf, "<text class=\"die-axis\" x=\"%s\" y=\"%s\" "
+                            "text-anchor=\"middle\">%d</text>",
+                            PX(l->grid_x + (x + 0.5) * l->cell), PX(top), x + map->first_die_x);
+    }
+    step = axis_step(map->rows);
+    double left = l->centre_x - l->radius - 3.0;
+    for (int y = 0; y < map->rows; y++) {
+        if ((y + map->first_die_y) % step != 0)
+            continue;
+        sl_chart_buf_printf(buf, "<text class=\"die-axis\" x=\"%s\" y=\"%s\" "
+                            "text-anchor=\"end\" dy=\".32em\">%d</text>",
+                            PX(left), PX(l->grid_y + (y + 0.5) * l->cell), y + map->first_die_y);
+    }
+    sl_chart_buf_append(buf, "</g>");
 }
 
 static int map_ok(const sl_chart_wafer_map *map)
@@ -177,6 +217,29 @@ static void draw_wafer_legends(sl_chart_buf *buf, const sl_chart_wafer_map *map,
     sl_chart_legend(buf, WAFER_PAD_PX, l->legend_y, items, 2);
 }
 
+sl_status sl_chart_wafer_legend_svg(sl_chart_buf *buf, double max_abs, const char *value_title)
+{
+    if (!isfinite(max_abs) || !(max_abs > 0.0))
+        return SL_EINPUT;
+    sl_chart_frame frame;
+    sl_chart_frame_default(&frame, 560.0, 76.0, NULL);
+    frame.embed_style = 0;
+    sl_status st = sl_chart_frame_open(buf, &frame);
+    if (st != SL_OK)
+        return st;
+    sl_chart_buf_append(buf, "<g class=\"wafer-legend\">");
+    sl_chart_rect bar = { WAFER_PAD_PX, 26.0, 240.0, 10.0 };
+    sl_chart_color_legend(buf, &bar, max_abs, 9, value_title ? value_title : "value");
+    const sl_chart_legend_item cells[3] = {
+        { SL_CHART_SWATCH_UNUSABLE, NULL, NULL, "no usable device" },
+        { SL_CHART_SWATCH_BAND, "wafer", NULL, "no device at this die" },
+        { SL_CHART_SWATCH_BAND, "flag-cell", NULL, "flagged device (heavy outline)" },
+    };
+    sl_chart_legend(buf, 290.0, 8.0, cells, 3);
+    sl_chart_buf_append(buf, "</g>");
+    return sl_chart_frame_close(buf);
+}
+
 sl_status sl_chart_wafer_map_svg(sl_chart_buf *buf, const sl_chart_wafer_map *map,
                                  const sl_chart_die *dies, size_t count)
 {
@@ -193,10 +256,14 @@ sl_status sl_chart_wafer_map_svg(sl_chart_buf *buf, const sl_chart_wafer_map *ma
     if (st != SL_OK)
         return st;
     draw_outline(buf, &l);
-    sl_chart_buf_append(buf, "<g class=\"dies\">");
+    if (map->die_axes)
+        draw_die_axes(buf, map, &l);
+    /* cells too small for an outline of their own: no white seams */
+    sl_chart_buf_append(buf, l.cell < 6.0 ? "<g class=\"dies fine\">" : "<g class=\"dies\">");
     draw_dies(buf, map, &l, dies, count, max_abs, 0);
     draw_dies(buf, map, &l, dies, count, max_abs, 1);
     sl_chart_buf_append(buf, "</g>");
-    draw_wafer_legends(buf, map, &l, max_abs);
+    if (!map->no_legend)
+        draw_wafer_legends(buf, map, &l, max_abs);
     return sl_chart_frame_close(buf);
 }

@@ -3,7 +3,10 @@
  * the model is R = R_c + K s(V), s = g / h, g = 1 / sqrt(d^2 + (V - V0)^2),
  * d = n0 e / C_g, K = (L/W) / (C_g mu) and h the mobility weight of the
  * two-mobility variant (h = 1 in the symmetric model). R_c and K enter
- * linearly and are projected out of the nonlinear search.
+ * linearly and are projected out of the nonlinear search. With the charge
+ * balance as density model, V - V0 is replaced everywhere by the gate
+ * offset as charge y(V - V0) = e n_g / C_g from the config's table, and the
+ * derivatives by V0 take the factor dy/dx.
  */
 #include "splitlot/fit.h"
 
@@ -53,6 +56,9 @@ struct sl_fit_workspace {
     size_t max_points, n;
     double *vg, *r, *u, *g, *s, *smooth, *col, *jac, *rank_work;
     double *ds;                  /* ds/dtheta_j per point, rows of MAX_NONLINEAR */
+    double *y, *dy;              /* charge offset y(V - V0) and dy/dx per point,
+                                    at the projected shape (density table only) */
+    const sl_physics_density_table *density; /* of the sweep being fitted */
     gsl_multilarge_nlinear_workspace *nl;   /* projected search */
     gsl_multifit_nlinear_workspace *nl_full;
     solver_size nl_size, nl_full_size;
@@ -106,13 +112,29 @@ void sl_fit_config_default(sl_fit_config *cfg, double gate_capacitance_F_per_m2,
     cfg->max_iterations = 100;
     cfg->method = SL_FIT_METHOD_PROJECTED;
     cfg->model = SL_FIT_MODEL_SYMMETRIC;
+    cfg->density_table = NULL;
 }
 
-double sl_fit_model_two_mobility_ohm(const sl_fit_params *p, double electron_hole_mobility_ratio,
-                                     const sl_fit_config *cfg, double vg_V)
+const char *sl_fit_density_model_name(const sl_fit_config *cfg)
+{
+    return cfg->density_table ? "qc" : "short";
+}
+
+/* Gate offset as charge, e n_g / C_g in V, at x = V - V0, and dy/dx. */
+static inline double charge_offset_V(const sl_physics_density_table *density, double x,
+                                     double *slope)
+{
+    if (!density) {
+        *slope = 1.0;
+        return x;
+    }
+    return sl_physics_density_table_charge_V(density, x, slope);
+}
+
+static double model_at_density_ohm(const sl_fit_params *p, double electron_hole_mobility_ratio,
+                                   const sl_fit_config *cfg, double ng_per_m2)
 {
     double n0_per_m2 = p->n0_per_cm2 * SL_PER_M2_PER_PER_CM2;
-    double ng_per_m2 = cfg->gate_capacitance_F_per_m2 * (vg_V - p->cnp_V) / SL_SI_ELEMENTARY_CHARGE;
     double mobility_m2_per_Vs = p->mobility_cm2_per_Vs * SL_M2_PER_CM2;
     double density = hypot(n0_per_m2, ng_per_m2);
     double electron_share = density > 0.0 ? ng_per_m2 / density : 0.0;
@@ -122,9 +144,24 @@ double sl_fit_model_two_mobility_ohm(const sl_fit_params *p, double electron_hol
                                                         density * weight);
 }
 
+double sl_fit_model_two_mobility_ohm(const sl_fit_params *p, double electron_hole_mobility_ratio,
+                                     const sl_fit_config *cfg, double vg_V)
+{
+    double slope;
+    double y = charge_offset_V(cfg->density_table, vg_V - p->cnp_V, &slope);
+    double ng_per_m2 = cfg->gate_capacitance_F_per_m2 * y / SL_SI_ELEMENTARY_CHARGE;
+    return model_at_density_ohm(p, electron_hole_mobility_ratio, cfg, ng_per_m2);
+}
+
 double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V)
 {
     return sl_fit_model_two_mobility_ohm(p, 1.0, cfg, vg_V);
+}
+
+double sl_fit_model_at_density_ohm(const sl_fit_params *p, const sl_fit_config *cfg,
+                                   double net_density_per_m2)
+{
+    return model_at_density_ohm(p, 1.0, cfg, net_density_per_m2);
 }
 
 /* ---- workspace ---- */
@@ -137,7 +174,8 @@ sl_fit_workspace *sl_fit_workspace_new(size_t max_points)
     if (!ws)
         return NULL;
     ws->max_points = max_points;
-    double **arrays[] = { &ws->vg, &ws->r, &ws->u, &ws->g, &ws->s, &ws->smooth, &ws->col };
+    double **arrays[] = { &ws->vg, &ws->r, &ws->u, &ws->g, &ws->s, &ws->smooth, &ws->col,
+                          &ws->y, &ws->dy };
     bool ok = true;
     for (size_t i = 0; i < sizeof arrays / sizeof arrays[0]; i++)
         ok = ok && (*arrays[i] = malloc(max_points * sizeof(double))) != NULL;
@@ -163,6 +201,8 @@ void sl_fit_workspace_free(sl_fit_workspace *ws)
     free(ws->s);
     free(ws->smooth);
     free(ws->col);
+    free(ws->y);
+    free(ws->dy);
     free(ws->jac);
     free(ws->ds);
     free(ws->rank_work);
@@ -248,10 +288,10 @@ static inline double shape_from_g(const shape_at *a, double x, double g, bool tw
     return two_mobility ? g / (a->ch + x * g * a->sh) : g;
 }
 
-static inline double shape_value(const shape_at *a, double vg, bool two_mobility)
+static inline double shape_value(const sl_fit_workspace *ws, const shape_at *a, double vg)
 {
-    double x = vg - a->v0;
-    return shape_from_g(a, x, 1.0 / sqrt(a->d2 + x * x), two_mobility);
+    double slope, y = charge_offset_V(ws->density, vg - a->v0, &slope);
+    return shape_from_g(a, y, 1.0 / sqrt(a->d2 + y * y), ws->two_mobility);
 }
 
 typedef struct {
@@ -279,10 +319,14 @@ static inline shape_grad shape_gradient_at(const shape_at *a, double x, double g
     return r;
 }
 
-static inline shape_grad shape_gradient(const shape_at *a, double vg, bool two_mobility)
+/* At a gate voltage, through the density model: the offset as charge y
+ * takes the place of x, and d/dV0 takes the factor dy/dx. */
+static inline shape_grad shape_gradient(const sl_fit_workspace *ws, const shape_at *a, double vg)
 {
-    double x = vg - a->v0;
-    return shape_gradient_at(a, x, 1.0 / sqrt(a->d2 + x * x), two_mobility);
+    double slope, y = charge_offset_V(ws->density, vg - a->v0, &slope);
+    shape_grad r = shape_gradient_at(a, y, 1.0 / sqrt(a->d2 + y * y), ws->two_mobility);
+    r.ds[0] *= slope;
+    return r;
 }
 
 static shape_at shape_of_vector(const sl_fit_workspace *ws, const gsl_vector *x)
@@ -340,6 +384,18 @@ static void keep_gradient(sl_fit_workspace *ws, const gradient_sums *sums)
     memcpy(ws->du_c, sums->du_c, sizeof ws->du_c);
 }
 
+/* The offset as charge y, its slope and g = 1 / sqrt(d^2 + y^2) of every
+ * point at the shape *at, through the density table. */
+static void charge_pass(sl_fit_workspace *ws, const shape_at *at, bool with_gradient)
+{
+    sl_physics_density_table_charge_n(ws->density, ws->y, with_gradient ? ws->dy : NULL,
+                                      ws->vg, at->v0, ws->n);
+    const double d2 = at->d2, *restrict y = ws->y;
+    double *restrict gv = ws->g;
+    for (size_t i = 0; i < ws->n; i++) /* vectorised, as the short form's */
+        gv[i] = 1.0 / sqrt(d2 + y[i] * y[i]);
+}
+
 /* One pass over the points at the shape *at: g and s of every point, the
  * Gram matrix and its right-hand side, and with_gradient also the sums
  * du_a, du_c and the values ws->ds that Kaufman's Jacobian needs (a fused
@@ -353,15 +409,21 @@ static inline void projection_pass(sl_fit_workspace *ws, const shape_at *at, boo
     const double v0 = at->v0, d2 = at->d2;
     const double *restrict vg = ws->vg;
     double *restrict gv = ws->g;
-    for (size_t i = 0; i < ws->n; i++) { /* no sums: a loop the compiler vectorises */
-        double x = vg[i] - v0;
-        gv[i] = 1.0 / sqrt(d2 + x * x);
-    }
+    const bool table = ws->density != NULL;
+    if (table)
+        charge_pass(ws, at, with_gradient);
+    else
+        for (size_t i = 0; i < ws->n; i++) { /* no sums: a loop the compiler vectorises */
+            double x = vg[i] - v0;
+            gv[i] = 1.0 / sqrt(d2 + x * x);
+        }
     for (size_t i = 0; i < ws->n; i++) {
-        double x = ws->vg[i] - at->v0, g = ws->g[i], u = ws->u[i];
+        double x = table ? ws->y[i] : ws->vg[i] - at->v0, g = ws->g[i], u = ws->u[i];
         shape_grad sg = { shape_from_g(at, x, g, two_mobility), { 0 } };
         if (with_gradient)
             sg = shape_gradient_at(at, x, g, two_mobility);
+        if (with_gradient && table)
+            sg.ds[0] *= ws->dy[i];
         double c = sg.s * u;
         ws->s[i] = sg.s;
         sac += u * c;
@@ -379,13 +441,20 @@ static inline void projection_pass(sl_fit_workspace *ws, const shape_at *at, boo
 }
 
 /* The gradient sums alone, from g and s kept by a projection at this shape
- * (the same numbers projection_pass would add up). */
+ * (the same numbers projection_pass would add up); the slopes dy/dx of the
+ * density table are taken now, as that projection did not need them. */
 static inline void gradient_pass(sl_fit_workspace *ws, bool two_mobility)
 {
     gradient_sums sums = { { 0 }, { 0 } };
+    const bool table = ws->density != NULL;
+    if (table)
+        sl_physics_density_table_charge_n(ws->density, ws->y, ws->dy, ws->vg, ws->at.v0, ws->n);
     for (size_t i = 0; i < ws->n; i++) {
         double u = ws->u[i], c = ws->s[i] * u;
-        shape_grad sg = shape_gradient_at(&ws->at, ws->vg[i] - ws->at.v0, ws->g[i], two_mobility);
+        double x = table ? ws->y[i] : ws->vg[i] - ws->at.v0;
+        shape_grad sg = shape_gradient_at(&ws->at, x, ws->g[i], two_mobility);
+        if (table)
+            sg.ds[0] *= ws->dy[i];
         add_gradient(ws, &sums, i, u, c, &sg, two_mobility);
     }
     keep_gradient(ws, &sums);
@@ -627,7 +696,7 @@ static int full_residual(const gsl_vector *x, void *data, gsl_vector *f)
     sl_fit_workspace *ws = data;
     full_point p = unpack_full(ws, x);
     for (size_t i = 0; i < ws->n; i++) {
-        double s = shape_value(&p.at, ws->vg[i], ws->two_mobility);
+        double s = shape_value(ws, &p.at, ws->vg[i]);
         ws->s[i] = s;
         f->data[i * f->stride] = 1.0 - (p.rho * p.rho + p.k * s) * ws->u[i];
     }
@@ -639,7 +708,7 @@ static int full_jacobian(const gsl_vector *x, void *data, gsl_matrix *jac)
     sl_fit_workspace *ws = data;
     full_point p = unpack_full(ws, x);
     for (size_t i = 0; i < ws->n; i++) {
-        shape_grad sg = shape_gradient(&p.at, ws->vg[i], ws->two_mobility);
+        shape_grad sg = shape_gradient(ws, &p.at, ws->vg[i]);
         double u = ws->u[i], ku = p.k * u;
         double *row = jac->data + i * jac->tda;
         row[0] = -ku * sg.ds[0];
@@ -706,27 +775,38 @@ static double peak_half_width_V(const sl_fit_workspace *ws, const double *curve,
 /* ln d to start from at the peak: half height is reached at |V - V0| =
  * sqrt(3) d; the best of a few multiples of that guess by projected cost,
  * which goes to *cost. The guess itself, the usual winner, is tried last,
- * so that the search starts where the projection was just made. */
+ * so that the search starts where the projection was just made. The
+ * candidates are ranked with the short form of the density, whose shape
+ * pass is the cheap one; the winner is then turned into charge, y(d), the
+ * unit of the density table's d. */
 static double start_log_width(sl_fit_workspace *ws, const double *curve, double floor_ohm,
                               size_t peak, double *cost)
 {
     double span = ws->vg[ws->n - 1] - ws->vg[0];
     double d = peak_half_width_V(ws, curve, floor_ohm, peak) / M_SQRT3;
     d = GSL_MIN(GSL_MAX(d, 1e-4 * span), span);
+    const sl_physics_density_table *density = ws->density;
+    ws->density = NULL;
+    ws->have_state = false;
     static const double factors[] = { 0.5, 2.0, 1.0 };
-    double best_b = log(d);
+    double best = d;
     *cost = HUGE_VAL;
     for (size_t i = 0; i < sizeof factors / sizeof factors[0]; i++) {
-        double b = log(d * factors[i]);
-        shape_at at = shape_setup(ws->vg[peak], b, 0.0);
+        shape_at at = shape_setup(ws->vg[peak], log(d * factors[i]), 0.0);
         project(ws, &at, false);
         double chisq = projected_chisq_from_sums(ws);
         if (chisq < *cost && ws->k > 0.0) {
             *cost = chisq;
-            best_b = b;
+            best = d * factors[i];
         }
     }
-    return best_b;
+    if (density) {
+        double slope;
+        ws->density = density;
+        ws->have_state = false;   /* the projection kept was the short form's */
+        best = fabs(charge_offset_V(density, best, &slope));
+    }
+    return log(best);
 }
 
 static bool interior(size_t index, size_t n)
@@ -910,7 +990,7 @@ static gsl_matrix_view natural_jacobian(sl_fit_workspace *ws, const shape_at *at
     gsl_matrix_view jac = gsl_matrix_view_array(ws->jac, ws->n, p);
     gsl_matrix_set_zero(jtj);
     for (size_t i = 0; i < ws->n; i++) {
-        shape_grad sg = shape_gradient(at, ws->vg[i], ws->two_mobility);
+        shape_grad sg = shape_gradient(ws, at, ws->vg[i]);
         double u = ws->u[i], ku = ws->k * u;
         double *row = ws->jac + i * p;
         row[0] = -ku * sg.ds[0];
@@ -1084,6 +1164,11 @@ static sl_status check_input(const sl_fit_workspace *ws, const sl_fit_config *cf
     if (!(cfg->gate_capacitance_F_per_m2 > 0.0) || !(cfg->length_over_width > 0.0) ||
         cfg->max_iterations < 1)
         return SL_EINPUT;
+    /* a table made for another gate stack would bias every parameter */
+    if (cfg->density_table &&
+        !(fabs(sl_physics_density_table_capacitance_F_per_m2(cfg->density_table) /
+                   cfg->gate_capacitance_F_per_m2 - 1.0) <= 1e-9))
+        return SL_EINPUT;
     bool distinct = false;
     for (size_t i = 0; i < n; i++) {
         if (!isfinite(vg_V[i]))
@@ -1168,6 +1253,7 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
         return SL_OK;
     }
     ws->two_mobility = cfg->model == SL_FIT_MODEL_TWO_MOBILITY;
+    ws->density = cfg->density_table;
     if (ensure_solvers(ws, n_points) != SL_OK)
         return SL_ENOMEM;
     prepare(ws, vg_V, r_ohm, n_points);

@@ -436,6 +436,7 @@ static void ctx_free(ingest_ctx *c)
     ingest_hasher_free(c->hasher, NULL);
     ingest_batch_free(c->batch);
     free(c->wafers);
+    ingest_density_free(c->densities);
     free(c->run_ids);
     free(c->run_rows);
     sl_store_revision_clear(&c->revision);

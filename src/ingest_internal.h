@@ -41,6 +41,7 @@ typedef struct {
 } ingest_row;
 
 typedef struct ingest_batch ingest_batch;
+typedef struct ingest_density ingest_density;
 
 /* The SHA-256 of the file as read, on a thread of its own (ingest_hash.c):
  * add every block in order (0, or -1 when out of memory), then free, which
@@ -70,7 +71,17 @@ typedef struct {
     sl_ingest_summary *summary;
     double started_s;
     ingest_batch *batch;
+    ingest_density *densities; /* fit configs per gate stack and temperature */
 } ingest_ctx;
+
+/* The fit configuration of a device on the plan wafer wafer_index measured
+ * at temperature_K (NaN: the plan's first temperature), with the density
+ * model the import asked for; made on first use, kept until the import
+ * ends. NULL with *status set when the table cannot be made. Not
+ * thread-safe: the reading thread asks. */
+const sl_fit_config *ingest_fit_for(ingest_ctx *c, size_t wafer_index, double temperature_K,
+                                    sl_status *status);
+void ingest_density_free(ingest_density *list);
 
 /* Parse and check the identity columns of the current row. */
 sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);

@@ -131,9 +131,15 @@ static ingest_batch *batch_new(ingest_ctx *c, int threads)
 
 /* ---- writing fitted devices ---- */
 
-static const char *model_name(sl_fit_model model)
+/* The fit model and, after a slash, the density model when it is the
+ * charge balance ("symmetric/qc"); no suffix for the short form, which is
+ * what every fit stored before the charge balance was. */
+static const char *model_name(const sl_fit_config *cfg)
 {
-    return model == SL_FIT_MODEL_TWO_MOBILITY ? "two-mobility" : "symmetric";
+    bool qc = cfg->density_table != NULL;
+    if (cfg->model == SL_FIT_MODEL_TWO_MOBILITY)
+        return qc ? "two-mobility/qc" : "two-mobility";
+    return qc ? "symmetric/qc" : "symmetric";
 }
 
 /* Fill what the fit found (the device starts from sl_store_device_init). */
@@ -145,7 +151,7 @@ static void result_to_device(sl_store_device *dev, const sl_fit_result *r, sl_st
         return;
     }
     dev->fit_class = sl_fit_class_name(r->cls);
-    dev->fit_model = model_name(cfg->model);
+    dev->fit_model = model_name(cfg);
     dev->rel_rms = r->rel_rms;
     dev->r_squared = r->r_squared;
     dev->n_spikes = (long)r->n_spikes;
@@ -319,8 +325,12 @@ static sl_status end_run(ingest_ctx *c)
         return SL_OK;
     b->in_run = 0;
     fit_batch *f = &b->buf[b->filling];
-    const ingest_wafer *w = &c->wafers[b->run_wafer_index];
-    fit_item item = { .offset = b->run_offset, .n = f->n_points - b->run_offset, .cfg = &w->fit,
+    sl_status st = SL_OK;
+    const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index,
+                                              c->plan->temperatures_K[b->run_temperature], &st);
+    if (!cfg)
+        return st;
+    fit_item item = { .offset = b->run_offset, .n = f->n_points - b->run_offset, .cfg = cfg,
                       .run_id = c->run_ids[b->run_temperature], .die_x = b->run_x,
                       .die_y = b->run_y, .first_line = b->run_first_line };
     snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
@@ -463,10 +473,20 @@ static sl_status gather_points(ingest_ctx *c, double **vg, double **r, size_t *n
     return st;
 }
 
-static const sl_fit_config *wafer_fit(const ingest_ctx *c, const char *wafer)
+/* A device met again is fitted at its run's temperature, with the
+ * import's density model. */
+static const sl_fit_config *wafer_fit(ingest_ctx *c, const char *wafer, long run_id,
+                                      sl_status *status)
 {
+    *status = SL_OK;
     long w = ingest_wafer_index(c, wafer);
-    return w >= 0 && c->wafers[w].split >= 0 ? &c->wafers[w].fit : NULL;
+    if (w < 0 || c->wafers[w].split < 0)
+        return NULL;
+    double temperature_K = NAN;
+    for (size_t t = 0; t < c->plan->n_temperatures; t++)
+        if (c->run_ids[t] == run_id)
+            temperature_K = c->plan->temperatures_K[t];
+    return ingest_fit_for(c, (size_t)w, temperature_K, status);
 }
 
 /* Why the gathered points of a device cannot be fitted, or SL_OK. */
@@ -488,7 +508,10 @@ static sl_status check_gathered(ingest_ctx *c, const sl_store_import_device *d, 
 
 static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
 {
-    const sl_fit_config *cfg = wafer_fit(c, d->wafer);
+    sl_status cfg_st;
+    const sl_fit_config *cfg = wafer_fit(c, d->wafer, d->run_id, &cfg_st);
+    if (!cfg && cfg_st != SL_OK)
+        return cfg_st;
     if (!cfg) {
         sl_diag_error(c->diag, "device '%s' is on a wafer this import does not know", d->name);
         return SL_EDB;

@@ -8,6 +8,7 @@
 
 #include <float.h>
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include <gsl/gsl_errno.h>
@@ -249,6 +250,216 @@ double sl_physics_charge_balance_residual(double mu_J, double gate_V, double cnp
                          gate_V - cnp_V };
     double r = balance_V(mu_J / SL_SI_ELEMENTARY_CHARGE, &b);
     return b.dv != 0.0 ? fabs(r / b.dv) : fabs(r);
+}
+
+/* ---- the density table ---- */
+
+/* Grid step in s = sqrt(|x|) (V^1/2): at most this, and at most an eighth
+ * of sqrt(k_B T / e), the scale over which the Fermi level turns from linear
+ * in x (C_q = C_q(0) near neutrality) to sqrt-like; the node count is
+ * capped. With these the interpolated Fermi level stays within 1e-6 of the
+ * offset (1 nV below 1 mV) of the solved one, and the slope within 2e-3
+ * (checked in tests/test_physics.c). */
+#define SL_DENSITY_TABLE_MAX_STEP 0.005
+#define SL_DENSITY_TABLE_MAX_NODES 65536
+
+struct sl_physics_density_table {
+    double cg, temperature_K, vf, max_offset_V;
+    double step, inv_step;   /* grid step in s */
+    size_t nodes;
+    double *u, *du_ds;       /* Fermi level (V) and its slope in s at s = k step */
+    double *du_dx;           /* and in x, C_g / (C_g + C_q) */
+};
+
+void sl_physics_density_table_free(sl_physics_density_table *table)
+{
+    if (!table)
+        return;
+    free(table->u);
+    free(table->du_ds);
+    free(table->du_dx);
+    free(table);
+}
+
+/* du/dx = C_g / (C_g + C_q) at the Fermi level u (V): the balance's slope. */
+static double fermi_slope(const sl_physics_density_table *t, double u_V)
+{
+    double cq = sl_physics_quantum_capacitance_F_per_m2(SL_SI_ELEMENTARY_CHARGE * u_V,
+                                                        t->temperature_K, t->vf);
+    return t->cg / (t->cg + cq);
+}
+
+/* The balance of sl_physics_solve_fermi_J in volts and its slope
+ * 1 + C_q/C_g, for GSL's derivative solvers. */
+static double balance_slope(double u_V, void *p)
+{
+    const balance_params *b = p;
+    return 1.0 + sl_physics_quantum_capacitance_F_per_m2(SL_SI_ELEMENTARY_CHARGE * u_V,
+                                                         b->temperature_K, b->vf) / b->cg;
+}
+
+static void balance_both(double u_V, void *p, double *f, double *df)
+{
+    *f = balance_V(u_V, p);
+    *df = balance_slope(u_V, p);
+}
+
+/* The Fermi level at offset x by GSL's Newton solver from the guess (the
+ * previous node carried along its slope: a few steps suffice), or by the
+ * bracketing Brent solve when Newton does not settle. */
+static sl_status table_node_V(double *u, gsl_root_fdfsolver *newton, balance_params *b,
+                              double guess)
+{
+    gsl_function_fdf fdf = { balance_V, balance_slope, balance_both, b };
+    if (gsl_root_fdfsolver_set(newton, &fdf, guess) == GSL_SUCCESS) {
+        double before = guess;
+        for (int iter = 0; iter < 20; iter++) {
+            if (gsl_root_fdfsolver_iterate(newton) != GSL_SUCCESS)
+                break;
+            double now = gsl_root_fdfsolver_root(newton);
+            if (gsl_root_test_delta(now, before, 0.0, 4.0 * DBL_EPSILON) == GSL_SUCCESS) {
+                *u = now;
+                return SL_OK;
+            }
+            before = now;
+        }
+    }
+    double mu = 0.0;
+    sl_status st = sl_physics_solve_fermi_J(&mu, b->dv, 0.0, b->cg, b->temperature_K, b->vf);
+    *u = mu / SL_SI_ELEMENTARY_CHARGE;
+    return st;
+}
+
+/* The Fermi level and its slope in s at every node s_k = k step,
+ * x_k = s_k^2. */
+static sl_status fill_density_table(sl_physics_density_table *t)
+{
+    gsl_root_fdfsolver *newton = gsl_root_fdfsolver_alloc(gsl_root_fdfsolver_newton);
+    if (!newton)
+        return SL_ENOMEM;
+    sl_status st = SL_OK;
+    double u = 0.0, slope = fermi_slope(t, 0.0), x_before = 0.0;
+    t->u[0] = t->du_ds[0] = 0.0;
+    t->du_dx[0] = slope;
+    for (size_t k = 1; k < t->nodes && st == SL_OK; k++) {
+        double s = t->step * (double)k;
+        balance_params b = { t->cg, t->temperature_K, t->vf, s * s };
+        st = table_node_V(&u, newton, &b, u + slope * (b.dv - x_before));
+        slope = fermi_slope(t, u);
+        x_before = b.dv;
+        t->u[k] = u;
+        t->du_ds[k] = 2.0 * s * slope;
+        t->du_dx[k] = slope;
+    }
+    gsl_root_fdfsolver_free(newton);
+    return st;
+}
+
+sl_status sl_physics_density_table_new(sl_physics_density_table **out,
+                                       double gate_capacitance_F_per_m2, double temperature_K,
+                                       double fermi_velocity_m_s, double max_offset_V)
+{
+    *out = NULL;
+    if (!(gate_capacitance_F_per_m2 > 0.0) || !(temperature_K > 0.0) ||
+        !isfinite(temperature_K) || !(fermi_velocity_m_s > 0.0) || !(max_offset_V > 0.0) ||
+        !isfinite(max_offset_V))
+        return SL_EINPUT;
+    sl_physics_density_table *t = calloc(1, sizeof *t);
+    if (!t)
+        return SL_ENOMEM;
+    double thermal_V = SL_SI_BOLTZMANN * temperature_K / SL_SI_ELEMENTARY_CHARGE;
+    double s_max = sqrt(max_offset_V);
+    double step = fmin(SL_DENSITY_TABLE_MAX_STEP, sqrt(thermal_V) / 8.0);
+    size_t intervals = (size_t)ceil(s_max / step);
+    if (intervals < 2)
+        intervals = 2;
+    if (intervals > SL_DENSITY_TABLE_MAX_NODES - 1)
+        intervals = SL_DENSITY_TABLE_MAX_NODES - 1;
+    *t = (sl_physics_density_table){ .cg = gate_capacitance_F_per_m2,
+                                      .temperature_K = temperature_K, .vf = fermi_velocity_m_s,
+                                      .max_offset_V = max_offset_V,
+                                      .step = s_max / (double)intervals,
+                                      .nodes = intervals + 1 };
+    t->inv_step = 1.0 / t->step;
+    t->u = malloc(t->nodes * sizeof *t->u);
+    t->du_ds = malloc(t->nodes * sizeof *t->du_ds);
+    t->du_dx = malloc(t->nodes * sizeof *t->du_dx);
+    sl_status st = t->u && t->du_ds && t->du_dx ? fill_density_table(t) : SL_ENOMEM;
+    if (st != SL_OK) {
+        sl_physics_density_table_free(t);
+        return st;
+    }
+    *out = t;
+    return SL_OK;
+}
+
+/* Beyond the table: the balance solved at this offset, the slope from C_q. */
+static double charge_V_direct(const sl_physics_density_table *t, double offset_V, double *slope)
+{
+    double mu = 0.0;
+    if (sl_physics_solve_fermi_J(&mu, offset_V, 0.0, t->cg, t->temperature_K, t->vf) != SL_OK)
+        mu = NAN;
+    double u = mu / SL_SI_ELEMENTARY_CHARGE;
+    if (slope)
+        *slope = 1.0 - fermi_slope(t, u);
+    return offset_V - u;
+}
+
+/* Cubic Hermite interpolation in s = sqrt(|x|) with the solved slopes at
+ * both nodes, where the lookup is one multiplication on the uniform grid:
+ * GSL's interpolation types take no given slopes and look an abscissa up
+ * by bisection, which cost more than the rest of a fit's model evaluation.
+ * In s the Fermi level is smooth at both ends: u ~ s^2 near neutrality at
+ * T > 0 and u ~ s where C_q << C_g, where a grid in x would need ever finer
+ * steps. */
+static inline double table_charge_V(const sl_physics_density_table *t, double offset_V,
+                                    double *slope)
+{
+    double x = fabs(offset_V);
+    if (!(x <= t->max_offset_V))
+        return charge_V_direct(t, offset_V, slope);
+    double s = sqrt(x), pos = s * t->inv_step;
+    size_t k = (size_t)pos;
+    if (k > t->nodes - 2)
+        k = t->nodes - 2;
+    double f = pos - (double)k, g = 1.0 - f, h = t->step;
+    double u0 = t->u[k], u1 = t->u[k + 1], m0 = h * t->du_ds[k], m1 = h * t->du_ds[k + 1];
+    double u = (1.0 + 2.0 * f) * g * g * u0 + f * g * g * m0 + f * f * (3.0 - 2.0 * f) * u1 -
+               f * f * g * m1;
+    /* the slope linear between the nodes' exact ones: it serves Jacobians,
+     * where an error of order step^2 only moves the path of a search, and
+     * it spares a division (the costliest step of this function) */
+    if (slope)
+        *slope = 1.0 - (t->du_dx[k] + f * (t->du_dx[k + 1] - t->du_dx[k]));
+    return offset_V < 0.0 ? -(x - u) : x - u;
+}
+
+double sl_physics_density_table_charge_V(const sl_physics_density_table *t, double offset_V,
+                                         double *slope)
+{
+    return table_charge_V(t, offset_V, slope);
+}
+
+void sl_physics_density_table_charge_n(const sl_physics_density_table *t, double *charge_V,
+                                       double *slope, const double *gate_V, double cnp_V,
+                                       size_t n)
+{
+    if (slope)
+        for (size_t i = 0; i < n; i++)
+            charge_V[i] = table_charge_V(t, gate_V[i] - cnp_V, &slope[i]);
+    else
+        for (size_t i = 0; i < n; i++)
+            charge_V[i] = table_charge_V(t, gate_V[i] - cnp_V, NULL);
+}
+
+double sl_physics_density_table_capacitance_F_per_m2(const sl_physics_density_table *t)
+{
+    return t->cg;
+}
+
+double sl_physics_density_table_temperature_K(const sl_physics_density_table *t)
+{
+    return t->temperature_K;
 }
 
 double sl_physics_gate_efficiency_per_m2_V(double mu_J, double temperature_K,

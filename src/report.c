@@ -128,11 +128,23 @@ static void verdict_open(sl_chart_buf *b, const char *key, size_t count, const c
                         count ? " bad" : "", key, count, count, what);
 }
 
+/* The same for a count that is no finding (levels as planned, or too
+ * uncertain to tell): never marked bad. */
+static void verdict_open_plain(sl_chart_buf *b, const char *key, size_t count, const char *what)
+{
+    sl_chart_buf_printf(b, "<li class=\"verdict\" data-verdict=\"%s\" data-count=\"%zu\">"
+                        "<span class=\"count\">%zu</span>%s", key, count, count, what);
+}
+
 /* The levels of one verdict, named after the count. */
 static void verdict_levels(report_ctx *c, sl_stats_verdict_kind verdict, const char *what)
 {
     const sl_analysis *a = c->a;
-    verdict_open(c->buf, sl_stats_verdict_name(verdict), a->n_verdict[verdict], what);
+    size_t n = a->n_verdict[verdict];
+    if (verdict == SL_VERDICT_AS_PLANNED || verdict == SL_VERDICT_INCONCLUSIVE)
+        verdict_open_plain(c->buf, sl_stats_verdict_name(verdict), n, what);
+    else
+        verdict_open(c->buf, sl_stats_verdict_name(verdict), n, what);
     const char *sep = ": ";
     for (size_t i = 0; i < a->n_effects; i++)
         if (a->effects[i].verdict == verdict && !a->effects[i].is_intercept) {
@@ -151,6 +163,10 @@ static void verdict_off_plan(report_ctx *c)
                    "levels off-plan (95&nbsp;% interval beyond the tolerance)");
     verdict_levels(c, SL_VERDICT_DIFFERS,
                    "levels that differ from plan (interval excludes it, within tolerance in part)");
+    verdict_levels(c, SL_VERDICT_AS_PLANNED,
+                   "levels as planned (95&nbsp;% interval within the tolerance)");
+    verdict_levels(c, SL_VERDICT_INCONCLUSIVE,
+                   "levels inconclusive (interval too wide to tell)");
 }
 
 static void verdict_flagged(report_ctx *c)
@@ -175,6 +191,26 @@ static void verdict_cnp_outside(report_ctx *c)
             sep = ", ";
         }
     }
+    sl_chart_buf_append(c->buf, "</li>\n");
+}
+
+/* Splits whose predicted neutrality voltage lies outside the 95 % CI of
+ * their measured mean (the splits table's "in CI" column), named. */
+static void verdict_prediction_outside_ci(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    size_t n = 0;
+    for (size_t s = 0; s < a->n_splits; s++)
+        n += a->splits[s].n_usable >= 2 && !a->splits[s].prediction_in_ci;
+    verdict_open(c->buf, "prediction-outside-ci", n,
+                 "splits whose prediction lies outside the 95 % CI of their mean");
+    const char *sep = ": ";
+    for (size_t s = 0; s < a->n_splits; s++)
+        if (a->splits[s].n_usable >= 2 && !a->splits[s].prediction_in_ci) {
+            sl_chart_buf_append(c->buf, sep);
+            sl_chart_buf_escape(c->buf, a->plan->splits[s].name);
+            sep = ", ";
+        }
     sl_chart_buf_append(c->buf, "</li>\n");
 }
 
@@ -208,17 +244,19 @@ static void page_header(report_ctx *c)
     verdict_off_plan(c);
     verdict_flagged(c);
     verdict_cnp_outside(c);
+    verdict_prediction_outside_ci(c);
     sl_chart_buf_append(b, "</ul>\n");
     sl_chart_buf_append(b, caution_html);
     contents(c);
     sl_chart_buf_append(b, "</header>\n");
 }
 
-static void failure_section(report_ctx *c)
+static sl_status failure_section(report_ctx *c)
 {
     sl_report_section_open(c->buf, "failure-analysis", "Failure analysis, most severe first");
-    sl_report_failure_table(c);
+    sl_status st = sl_report_failure_table(c);
     sl_report_section_close(c->buf);
+    return st;
 }
 
 static void page_close(report_ctx *c)
@@ -231,7 +269,9 @@ static void page_close(report_ctx *c)
  * names only the sections that were drawn. */
 static sl_status render_sections(report_ctx *c)
 {
-    sl_status st = sl_report_section_runs(c);
+    sl_status st = report_collect(c);
+    if (st == SL_OK)
+        st = sl_report_section_runs(c);
     if (st == SL_OK)
         st = sl_report_section_splits(c);
     if (st == SL_OK)
@@ -245,9 +285,11 @@ static sl_status render_sections(report_ctx *c)
     return st;
 }
 
-sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
-                           const sl_analysis *analysis, const sl_report_options *opts,
-                           sl_diag *diag)
+/* The page of an analysis whose devices are in memory (stream NULL) or
+ * read from a stream. */
+static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
+                        const sl_analysis *analysis, sl_analysis_stream *stream,
+                        const sl_history *history, const sl_report_options *opts, sl_diag *diag)
 {
     sl_report_summary local;
     sl_report_options defaults;
@@ -257,13 +299,16 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
     }
     sl_chart_buf body;
     sl_chart_buf_init(&body);
-    report_ctx c = { &body, analysis, store, opts, summary ? summary : &local, diag, 0, 0 };
+    report_ctx c = { .buf = &body, .a = analysis, .stream = stream, .store = store,
+                     .opts = opts, .sum = summary ? summary : &local, .diag = diag,
+                     .history = history, .history_loaded = stream != NULL };
     memset(c.sum, 0, sizeof *c.sum);
+    report_rewind(&c);
     snprintf(c.sum->step, sizeof c.sum->step, "%s", analysis->step);
     c.sum->temperature_K = analysis->temperature_K;
     sl_status st = render_sections(&c);
     if (st == SL_OK)
-        failure_section(&c);
+        st = failure_section(&c);
     size_t start = buf->len;
     c.buf = buf;
     if (st == SL_OK) {
@@ -274,22 +319,44 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
         st = body.status != SL_OK ? body.status : buf->status;
     }
     sl_chart_buf_free(&body);
+    report_data_free(&c.data);
     c.sum->bytes = buf->len - start;
     return st;
+}
+
+sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_store *store,
+                           const sl_analysis *analysis, const sl_report_options *opts,
+                           sl_diag *diag)
+{
+    return render(buf, summary, store, analysis, NULL, NULL, opts, diag);
+}
+
+sl_status sl_report_render_stream(sl_chart_buf *buf, sl_report_summary *summary,
+                                  sl_store *store, sl_analysis_stream *stream,
+                                  const sl_report_options *opts, sl_diag *diag)
+{
+    return render(buf, summary, store, sl_analysis_stream_summary(stream), stream, NULL, opts,
+                  diag);
 }
 
 sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char *lot,
                         const char *path, const sl_report_options *opts, sl_diag *diag)
 {
-    sl_analysis *a = NULL;
+    sl_analysis_stream *s = NULL;
+    sl_history *h = NULL;
     sl_chart_buf buf;
     sl_chart_buf_init(&buf);
-    sl_status st = sl_analyze_lot_view(&a, store, lot, opts ? &opts->view : NULL, diag);
+    sl_status st = SL_OK;
+    if (!opts || opts->with_history) /* before the stream takes the scratch */
+        st = report_load_history(&h, store, diag);
     if (st == SL_OK)
-        st = sl_report_render(&buf, summary, store, a, opts, diag);
+        st = sl_analyze_lot_stream_view(&s, store, lot, opts ? &opts->view : NULL, diag);
+    if (st == SL_OK)
+        st = render(&buf, summary, store, sl_analysis_stream_summary(s), s, h, opts, diag);
+    sl_analysis_stream_free(s);
+    sl_history_free(h);
     if (st == SL_OK)
         st = sl_report_write_file(path, sl_chart_buf_str(&buf), buf.len, diag);
     sl_chart_buf_free(&buf);
-    sl_analysis_free(a);
     return st;
 }

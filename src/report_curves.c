@@ -23,26 +23,24 @@ typedef struct {
     size_t n_model;
 } curve_data;
 
-static const sl_store_device_row *find_row(const sl_store_device_row *rows, size_t n, long id)
+static int has_fit(const sl_analyze_device *d)
 {
-    for (size_t i = 0; i < n; i++)
-        if (rows[i].id == id)
-            return &rows[i];
-    return NULL;
+    return strcmp(d->fit_class, "ok") == 0 && isfinite(d->cnp_measured_V)
+           && isfinite(d->mobility_cm2_per_Vs) && isfinite(d->n0_per_cm2)
+           && isfinite(d->r_contact_ohm);
 }
 
-static int has_fit(const sl_store_device_row *row)
+/* "symmetric/qc": fitted with the charge balance; no suffix: short form. */
+static int uses_charge_balance(const sl_analyze_device *d)
 {
-    return strcmp(row->fit_class, "ok") == 0 && isfinite(row->cnp_V)
-           && isfinite(row->mobility_cm2_per_Vs) && isfinite(row->n0_per_cm2)
-           && isfinite(row->r_contact_ohm);
+    size_t n = d->fit_model ? strlen(d->fit_model) : 0;
+    return n >= 3 && strcmp(d->fit_model + n - 3, "/qc") == 0;
 }
 
-static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_device *d,
-                        const sl_store_device_row *row)
+static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_device *d)
 {
     cd->n_model = 0;
-    if (!has_fit(row) || cd->n == 0)
+    if (!has_fit(d) || cd->n == 0)
         return;
     double lo = cd->vg_V[0], hi = cd->vg_V[0];
     for (size_t i = 1; i < cd->n; i++) {
@@ -52,18 +50,31 @@ static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_d
     sl_fit_config cfg;
     sl_fit_config_default(&cfg, a->split_capacitance_F_per_m2[d->split],
                           a->plan->channel_length_um, a->plan->channel_width_um);
-    sl_fit_params p = { row->cnp_V, row->mobility_cm2_per_Vs, row->n0_per_cm2, row->r_contact_ohm };
+    sl_fit_params p = { d->cnp_measured_V, d->mobility_cm2_per_Vs, d->n0_per_cm2, d->r_contact_ohm };
+    /* the density model the device was fitted with, as stored */
+    sl_physics_density_table *table = NULL;
+    if (uses_charge_balance(d)) {
+        double t = isfinite(a->temperature_K)      ? a->temperature_K /* the view's */
+                   : a->plan->n_temperatures > 0 ? a->plan->temperatures_K[0]
+                                                 : 300.0;
+        double reach = 2.0 * (fabs(lo) + fabs(hi) + fabs(p.cnp_V)) + 1.0;
+        if (sl_physics_density_table_new(&table, cfg.gate_capacitance_F_per_m2, t,
+                                         a->plan->fermi_velocity_m_s, reach) != SL_OK)
+            return; /* no curve rather than the wrong one */
+        cfg.density_table = table;
+    }
     for (size_t i = 0; i < CURVE_MODEL_POINTS; i++) {
         double vg = lo + (hi - lo) * (double)i / (CURVE_MODEL_POINTS - 1);
         cd->model_vg_V[i] = vg;
         cd->model_r_ohm[i] = sl_fit_model_ohm(&p, &cfg, vg);
     }
+    sl_physics_density_table_free(table);
     cd->n_model = CURVE_MODEL_POINTS;
 }
 
-static int wants_log_y(const curve_data *cd, const sl_store_device_row *row)
+static int wants_log_y(const curve_data *cd, const sl_analyze_device *d)
 {
-    if (strcmp(row->fit_class, "short") == 0 || strcmp(row->fit_class, "open") == 0)
+    if (strcmp(d->fit_class, "short") == 0 || strcmp(d->fit_class, "open") == 0)
         return 1;
     double lo = INFINITY, hi = 0.0;
     for (size_t i = 0; i < cd->n; i++)
@@ -74,8 +85,7 @@ static int wants_log_y(const curve_data *cd, const sl_store_device_row *row)
     return isfinite(lo) && hi / lo > LOG_Y_RATIO;
 }
 
-static void curve_chart(report_ctx *c, const curve_data *cd, const sl_analyze_device *d,
-                        const sl_store_device_row *row)
+static void curve_chart(report_ctx *c, const curve_data *cd, const sl_analyze_device *d)
 {
     char title[200];
     snprintf(title, sizeof title, "%s %s (%s)", d->wafer, d->device,
@@ -90,7 +100,7 @@ static void curve_chart(report_ctx *c, const curve_data *cd, const sl_analyze_de
     frame.embed_style = 0;
     sl_chart_buf_append(c->buf, "<figure class=\"curve\">");
     sl_chart_xy(c->buf, &frame, series, cd->n_model ? 2 : 1, "gate voltage (V)",
-                "resistance (\xce\xa9)", wants_log_y(cd, row));
+                "resistance (\xce\xa9)", wants_log_y(cd, d));
     sl_chart_buf_append(c->buf, "<figcaption>");
     sl_chart_buf_escape(c->buf, d->reason);
     if (!cd->n_model)
@@ -100,31 +110,30 @@ static void curve_chart(report_ctx *c, const curve_data *cd, const sl_analyze_de
 }
 
 /* Draw one device's curve; SL_OK also when it has no sweep to draw. */
-static sl_status device_curve(report_ctx *c, const sl_analyze_device *d,
-                              const sl_store_device_row *row)
+static sl_status device_curve(report_ctx *c, const sl_analyze_device *d)
 {
     curve_data cd = { 0 };
     sl_status st = sl_store_load_sweep(c->store, &cd.vg_V, &cd.r_ohm, &cd.n, d->device_id, c->diag);
     if (st == SL_OK && cd.n > 0) {
-        model_curve(&cd, c->a, d, row);
-        curve_chart(c, &cd, d, row);
+        model_curve(&cd, c->a, d);
+        curve_chart(c, &cd, d);
     }
     free(cd.vg_V);
     free(cd.r_ohm);
     return st;
 }
 
-static sl_status draw_curves(report_ctx *c, const sl_store_device_row *rows, size_t n_rows)
+/* The most severe flagged devices with a stored sweep (results rows have
+ * none: n_points 0). */
+static sl_status draw_curves(report_ctx *c)
 {
     sl_status st = SL_OK;
-    for (size_t k = 0; st == SL_OK && k < c->a->n_flagged; k++) {
-        if (c->sum->n_curves >= c->opts->max_curves)
-            break;
-        const sl_analyze_device *d = &c->a->devices[c->a->flagged[k]];
-        const sl_store_device_row *row = find_row(rows, n_rows, d->device_id);
-        if (row && row->n_points > 0)
-            st = device_curve(c, d, row);
-    }
+    const sl_analyze_device *d;
+    while (c->sum->n_curves < c->opts->max_curves &&
+           (st = report_next_flagged(c, &d)) == SL_OK && d)
+        if (d->n_points > 0)
+            st = device_curve(c, d);
+    report_rewind(c);
     return st;
 }
 
@@ -132,12 +141,6 @@ sl_status sl_report_section_curves(report_ctx *c)
 {
     if (c->a->n_flagged == 0 || c->opts->max_curves == 0)
         return SL_OK;
-    sl_store_device_row *rows = NULL;
-    size_t n_rows = 0;
-    sl_status st = sl_store_load_devices(c->store, &rows, &n_rows, c->a->lot.lot_id, c->a->step,
-                                         c->a->temperature_K, c->diag);
-    if (st != SL_OK)
-        return st;
     c->has_curves = 1;
     sl_report_section_open(c->buf, "curves", "Transfer curves of flagged devices");
     sl_chart_buf_printf(c->buf,
@@ -146,11 +149,10 @@ sl_status sl_report_section_curves(report_ctx *c)
                         "where the extraction succeeded. Opens and shorts on a logarithmic "
                         "resistance axis.</p>\n<div class=\"curves\">\n",
                         c->opts->max_curves);
-    st = draw_curves(c, rows, n_rows);
+    sl_status st = draw_curves(c);
     if (st == SL_OK && c->sum->n_curves == 0)
         sl_report_note(c->buf, "None of the flagged devices has a stored sweep.");
     sl_chart_buf_append(c->buf, "</div>\n");
     sl_report_section_close(c->buf);
-    free(rows);
     return st == SL_OK ? c->buf->status : st;
 }

@@ -100,19 +100,31 @@ static void history_body(report_ctx *c, const sl_history *h)
     sl_report_section_close(c->buf);
 }
 
-/* The history re-analyses every lot: skipped outright for a single-lot store. */
-sl_status sl_report_section_history(report_ctx *c)
+sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag)
 {
+    *out = NULL;
     char **names = NULL;
     size_t n_lots = 0;
-    sl_status st = sl_store_list_lots(c->store, &names, &n_lots, c->diag);
+    sl_status st = sl_store_list_lots(store, &names, &n_lots, diag);
     sl_store_free_names(names, n_lots);
     if (st != SL_OK || n_lots < 2)
         return st;
-    sl_history *h = NULL;
-    st = sl_analyze_history(&h, c->store, c->diag);
-    if (st == SL_OK && h->n_lots > 1)
+    return sl_analyze_history(out, store, diag);
+}
+
+/* The history re-analyses every lot (skipped outright for a single-lot
+ * store), unless it was loaded before the lot's stream was opened. */
+sl_status sl_report_section_history(report_ctx *c)
+{
+    sl_history *own = NULL;
+    const sl_history *h = c->history;
+    sl_status st = SL_OK;
+    if (!c->history_loaded) {
+        st = report_load_history(&own, c->store, c->diag);
+        h = own;
+    }
+    if (st == SL_OK && h && h->n_lots > 1)
         history_body(c, h);
-    sl_history_free(h);
+    sl_history_free(own);
     return st == SL_OK ? c->buf->status : st;
 }

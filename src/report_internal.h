@@ -8,15 +8,77 @@
 
 #include "splitlot/report.h"
 
+/* Above this many usable devices a split's strip is a density strip
+ * (binned, flagged devices on top as points); the page then grows with the
+ * splits, not the devices. */
+#define SL_REPORT_STRIP_POINTS_MAX 3000
+#define SL_REPORT_STRIP_BINS 60
+/* Flagged devices drawn as points over one density strip, at most. */
+#define SL_REPORT_STRIP_OUTLIERS_MAX 400
+/* Rows of the failure-analysis list on the page (compare lists them all). */
+#define SL_REPORT_FAILURE_ROWS_MAX 1000
+#define SL_REPORT_LABEL_BYTES 136 /* wafer and device names of at most 64 bytes */
+
+/* What one split's strip shows: every usable device as a point, or bins
+ * and the flagged devices as points. */
+typedef struct {
+    int binned;
+    size_t n_points, cap_points;
+    double *values_V;
+    unsigned char *flagged;
+    char (*labels)[SL_REPORT_LABEL_BYTES];
+    const char **label_ptrs;
+    double min_V, max_V;          /* range of the bins */
+    size_t bins[SL_REPORT_STRIP_BINS];
+    size_t n_flagged_not_drawn;   /* flagged beyond SL_REPORT_STRIP_OUTLIERS_MAX */
+} report_strip;
+
+/* One die position of one wafer: devices averaged. */
+typedef struct {
+    double sum_V;
+    unsigned n_values, n_devices, n_flagged;
+    char device[65];              /* the first device's name */
+} report_die;
+
+/* What the page needs of the devices, gathered in passes over them, in
+ * memory that grows with splits, wafers and dies, not devices. */
+typedef struct {
+    report_strip *strips;         /* per split */
+    report_die *dies;             /* per plan wafer, rows x cols each */
+    long *wafer_split;            /* per plan wafer: split of its devices, or -1 */
+    size_t n_slots;               /* rows x cols */
+    size_t n_off_grid;            /* devices whose die lies outside the grid */
+    double colour_max_abs_V;      /* one colour half-range for every wafer map */
+} report_data;
+
 typedef struct {
     sl_chart_buf *buf;
-    const sl_analysis *a;
+    const sl_analysis *a;         /* the summary; a->devices NULL when streamed */
+    sl_analysis_stream *stream;   /* the devices, or NULL: a->devices */
     sl_store *store;
     const sl_report_options *opts;
     sl_report_summary *sum;
     sl_diag *diag;
     int has_curves, has_history; /* sections present, for the contents */
+    size_t next_device, next_flagged; /* cursors over a->devices */
+    report_data data;
+    /* The history when it was read before a stream took the store's
+     * scratch (one per connection), else read by its section. */
+    const sl_history *history;
+    int history_loaded;
 } report_ctx;
+
+/* ---- report_collect.c: the devices, one at a time ---- */
+
+/* The next device in the analysis' order, NULL after the last (the next
+ * call starts over); the next flagged one, most severe first. */
+sl_status report_next_device(report_ctx *c, const sl_analyze_device **device);
+sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device);
+/* Both readings start over. */
+void report_rewind(report_ctx *c);
+/* Gather c->data in one pass over the devices. */
+sl_status report_collect(report_ctx *c);
+void report_data_free(report_data *data);
 
 /* ---- report_format.c: numbers with units, escaped text ---- */
 
@@ -45,7 +107,7 @@ void sl_report_note(sl_chart_buf *buf, const char *text);
 /* ---- report_tables.c ---- */
 void sl_report_splits_table(report_ctx *c, size_t dielectric);
 void sl_report_effects_table(report_ctx *c);
-void sl_report_failure_table(report_ctx *c);
+sl_status sl_report_failure_table(report_ctx *c);
 
 /* ---- report_runs.c: the lot's measurement runs ---- */
 sl_status sl_report_section_runs(report_ctx *c);
@@ -62,5 +124,7 @@ sl_status sl_report_section_curves(report_ctx *c);
 
 /* ---- report_history.c ---- */
 sl_status sl_report_section_history(report_ctx *c);
+/* Every lot's estimates across lots, or NULL for a store of one lot. */
+sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag);
 
 #endif

@@ -15,89 +15,50 @@
 #define STRIP_MIN_BAND_PX 110.0
 #define STRIP_MIN_WIDTH_PX 420.0
 #define STRIP_MAX_WIDTH_PX 1000.0
-#define STRIP_LEGEND_PX 130.0 /* the strip the chart takes from the plot for its legend */
+#define STRIP_LEGEND_PX 170.0 /* the strip the chart takes from the plot for its legend */
 #define LABEL_CHAR_PX 6.0    /* the chart module's estimate of a label character */
 #define LABEL_SLANT_SIN 0.5  /* slanted category labels run at 30 degrees */
 #define LABEL_SLANT_COS 0.866
-#define DEVICE_LABEL_BYTES 136 /* wafer and device names of at most 64 bytes each */
 
-/* Every device's value, flag and label, grouped by split: split s owns the
- * entries first[s] .. first[s + 1] - 1. */
-typedef struct {
-    double *values_V;
-    unsigned char *flagged;
-    const char **labels;
-    char (*label_text)[DEVICE_LABEL_BYTES];
-    size_t *first;
-} strip_data;
-
-static void strip_data_free(strip_data *d)
-{
-    free(d->values_V);
-    free(d->flagged);
-    free(d->labels);
-    free(d->label_text);
-    free(d->first);
-}
-
-static sl_status strip_data_alloc(strip_data *d, size_t n_devices, size_t n_splits)
-{
-    size_t n = n_devices ? n_devices : 1;
-    d->values_V = malloc(n * sizeof *d->values_V);
-    d->flagged = malloc(n);
-    d->labels = malloc(n * sizeof *d->labels);
-    d->label_text = malloc(n * sizeof *d->label_text);
-    d->first = calloc(n_splits + 2, sizeof *d->first);
-    if (d->values_V && d->flagged && d->labels && d->label_text && d->first)
-        return SL_OK;
-    strip_data_free(d);
-    return SL_ENOMEM;
-}
-
-/* Counting sort of the devices by split, keeping import order inside one. */
-static sl_status strip_data_build(strip_data *d, const sl_analysis *a)
-{
-    if (strip_data_alloc(d, a->n_devices, a->n_splits) != SL_OK)
-        return SL_ENOMEM;
-    for (size_t i = 0; i < a->n_devices; i++)
-        d->first[a->devices[i].split + 2]++;
-    for (size_t s = 0; s < a->n_splits; s++)
-        d->first[s + 2] += d->first[s + 1];
-    for (size_t i = 0; i < a->n_devices; i++) {
-        const sl_analyze_device *dev = &a->devices[i];
-        size_t k = d->first[dev->split + 1]++;
-        d->values_V[k] = dev->cnp_measured_V;
-        d->flagged[k] = dev->flags != 0;
-        snprintf(d->label_text[k], DEVICE_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
-        d->labels[k] = d->label_text[k];
-    }
-    return SL_OK;
-}
-
-static size_t flagged_markers(const strip_data *d, size_t split)
+static size_t flagged_markers(const report_strip *st)
 {
     size_t n = 0;
-    for (size_t k = d->first[split]; k < d->first[split + 1]; k++)
-        n += d->flagged[k] && isfinite(d->values_V[k]);
+    for (size_t k = 0; k < st->n_points; k++)
+        n += st->flagged[k] && isfinite(st->values_V[k]);
     return n;
 }
 
-static size_t fill_categories(sl_chart_category *cats, report_ctx *c, const strip_data *d,
-                              size_t dielectric)
+/* The flag interval as the legend names it. */
+static const char flag_label[] = "flag interval";
+
+static size_t fill_categories(sl_chart_category *cats, report_ctx *c, size_t dielectric)
 {
     size_t count = 0;
     for (size_t s = 0; s < c->a->n_splits; s++) {
         if (c->a->plan->splits[s].dielectric != dielectric)
             continue;
+        const report_strip *st = &c->data.strips[s];
+        const sl_analyze_split *sp = &c->a->splits[s];
         sl_chart_category *cat = &cats[count++];
+        memset(cat, 0, sizeof *cat);
         cat->name = c->a->plan->splits[s].name;
-        cat->values = d->values_V + d->first[s];
-        cat->flagged = d->flagged + d->first[s];
-        cat->labels = d->labels + d->first[s];
-        cat->count = d->first[s + 1] - d->first[s];
-        cat->predicted = (sl_est){ c->a->splits[s].cnp_predicted_V,
-                                   c->a->splits[s].cnp_predicted_sigma_V };
-        c->sum->n_flagged_markers += flagged_markers(d, s);
+        cat->values = st->values_V;
+        cat->flagged = st->flagged;
+        cat->labels = st->label_ptrs;
+        cat->count = st->n_points;
+        cat->predicted = (sl_est){ sp->cnp_predicted_V, sp->cnp_predicted_sigma_V };
+        cat->has_flag_interval = 1;
+        cat->flag_low = sp->flag_low_V;
+        cat->flag_high = sp->flag_high_V;
+        cat->flag_label = flag_label;
+        if (st->binned) {
+            cat->bins = st->bins;
+            cat->n_bins = SL_REPORT_STRIP_BINS;
+            cat->bins_low = st->min_V;
+            cat->bins_high = st->max_V > st->min_V ? st->max_V : st->min_V + 1e-6;
+        /* the bins take what is not flagged; points the rest */
+        }
+        c->sum->n_flagged_markers += flagged_markers(st);
     }
     return count;
 }
@@ -132,10 +93,32 @@ static void strip_frame(sl_chart_frame *frame, const sl_chart_category *cats, si
     frame->height_px = frame->margin_top_px + STRIP_PLOT_HEIGHT_PX + frame->margin_bottom_px;
 }
 
-static void strip_chart(report_ctx *c, const strip_data *d, sl_chart_category *cats,
-                        size_t dielectric)
+/* Flagged devices of density strips left off the chart, as a sentence. */
+static void strip_notes(report_ctx *c, size_t dielectric)
 {
-    size_t count = fill_categories(cats, c, d, dielectric);
+    size_t binned = 0, left_off = 0;
+    for (size_t s = 0; s < c->a->n_splits; s++)
+        if (c->a->plan->splits[s].dielectric == dielectric && c->data.strips[s].binned) {
+            binned++;
+            left_off += c->data.strips[s].n_flagged_not_drawn;
+        }
+    if (binned == 0)
+        return;
+    sl_chart_buf_printf(c->buf, "<p class=\"small\">%zu split%s with more than %d usable "
+                        "devices drawn as a density strip (%d bins over the measured range; "
+                        "bar width: devices per bin); flagged devices drawn on top as points",
+                        binned, binned == 1 ? "" : "s", SL_REPORT_STRIP_POINTS_MAX,
+                        SL_REPORT_STRIP_BINS);
+    if (left_off)
+        sl_chart_buf_printf(c->buf, ", the first %d per split; %zu more are in the "
+                            "failure-analysis list and in <code>splitlot compare</code>",
+                            SL_REPORT_STRIP_OUTLIERS_MAX, left_off);
+    sl_chart_buf_append(c->buf, ".</p>\n");
+}
+
+static void strip_chart(report_ctx *c, sl_chart_category *cats, size_t dielectric)
+{
+    size_t count = fill_categories(cats, c, dielectric);
     if (count == 0)
         return;
     const char *name = c->a->plan->dielectrics[dielectric].name;
@@ -149,6 +132,7 @@ static void strip_chart(report_ctx *c, const strip_data *d, sl_chart_category *c
     sl_chart_buf_append(c->buf, "</h3>\n<figure class=\"strip\">");
     sl_chart_strip(c->buf, &frame, cats, count, "split", "neutrality voltage (V)");
     sl_chart_buf_append(c->buf, "</figure>\n");
+    strip_notes(c, dielectric);
     sl_report_splits_table(c, dielectric);
     sl_chart_buf_append(c->buf, "</div>\n");
     c->sum->n_strip_charts++;
@@ -156,26 +140,27 @@ static void strip_chart(report_ctx *c, const strip_data *d, sl_chart_category *c
 
 sl_status sl_report_section_splits(report_ctx *c)
 {
-    strip_data d;
     sl_chart_category *cats = malloc((c->a->n_splits + 1) * sizeof *cats);
-    if (!cats || strip_data_build(&d, c->a) != SL_OK) {
-        free(cats);
+    if (!cats)
         return SL_ENOMEM;
-    }
     sl_report_section_open(c->buf, "splits", "Splits against prediction");
     sl_chart_buf_append(c->buf,
                         "<p>Measured neutrality (Dirac) voltage of every usable device, per "
                         "split, over the predicted value (line) with its &plusmn;1&nbsp;&sigma; "
-                        "and &plusmn;3&nbsp;&sigma; bands. Flagged devices are diamonds; devices "
-                        "without a usable neutrality point have no point here (see the failure "
-                        "list). One chart per dielectric, as the stacks differ in voltage "
-                        "scale. Split mean and interval come from the wafer means (the wafer "
-                        "is the unit): 95&nbsp;% Student&nbsp;t with wafers&nbsp;&minus;&nbsp;1 "
-                        "degrees of freedom, none for a split of one wafer.</p>\n");
+                        "band and the <strong>flag interval</strong>: the band outside which a "
+                        "device is flagged off-prediction, predicted &plusmn;3&nbsp;"
+                        "&radic;(&sigma;<sub>pred</sub><sup>2</sup> + "
+                        "spread<sup>2</sup>), spread the device spread about the wafer medians "
+                        "pooled over the dielectric. Flagged devices are diamonds (also those "
+                        "flagged as outliers about their wafer's median); devices without a "
+                        "usable neutrality point have no point here (see the failure list). One "
+                        "chart per dielectric, as the stacks differ in voltage scale. Split mean "
+                        "and interval in the table come from the wafer means (the wafer is the "
+                        "unit): 95&nbsp;% Student&nbsp;t with wafers&nbsp;&minus;&nbsp;1 degrees "
+                        "of freedom, none for a split of one wafer.</p>\n");
     for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
-        strip_chart(c, &d, cats, k);
+        strip_chart(c, cats, k);
     sl_report_section_close(c->buf);
-    strip_data_free(&d);
     free(cats);
     return c->buf->status;
 }

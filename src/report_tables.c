@@ -120,9 +120,9 @@ static const char *const failure_headings[] = {
     "rank", "wafer", "device", "die x", "die y", "split", "reason",
 };
 
-static void failure_row(sl_chart_buf *buf, const sl_analysis *a, size_t rank)
+static void failure_row(sl_chart_buf *buf, const sl_analysis *a, const sl_analyze_device *d,
+                        size_t rank)
 {
-    const sl_analyze_device *d = &a->devices[a->flagged[rank]];
     sl_chart_buf_append(buf, "<tr class=\"fa\">");
     sl_report_cell_long(buf, (long)rank + 1);
     sl_report_cell_text(buf, d->wafer);
@@ -134,15 +134,31 @@ static void failure_row(sl_chart_buf *buf, const sl_analysis *a, size_t rank)
     sl_chart_buf_append(buf, "</tr>\n");
 }
 
-void sl_report_failure_table(report_ctx *c)
+/* The most severe SL_REPORT_FAILURE_ROWS_MAX flagged devices; the page
+ * says how many more there are and where to find them all. */
+sl_status sl_report_failure_table(report_ctx *c)
 {
     if (c->a->n_flagged == 0) {
         sl_report_note(c->buf, "No device is flagged: nothing to send to failure analysis.");
-        return;
+        return c->buf->status;
     }
     table_open(c->buf, "failures", failure_headings,
                sizeof failure_headings / sizeof *failure_headings);
-    for (size_t k = 0; k < c->a->n_flagged; k++)
-        failure_row(c->buf, c->a, k);
+    const sl_analyze_device *d;
+    size_t rank = 0;
+    sl_status st = SL_OK;
+    while (rank < SL_REPORT_FAILURE_ROWS_MAX && (st = report_next_flagged(c, &d)) == SL_OK && d)
+        failure_row(c->buf, c->a, d, rank++);
+    report_rewind(c);
     table_close(c->buf);
+    rank = c->a->n_flagged;
+    if (st == SL_OK && rank > SL_REPORT_FAILURE_ROWS_MAX)
+        sl_chart_buf_printf(c->buf, "<p class=\"note\">The %d most severe of %zu flagged "
+                            "devices; <code>splitlot compare --lot ",
+                            SL_REPORT_FAILURE_ROWS_MAX, rank);
+    if (st == SL_OK && rank > SL_REPORT_FAILURE_ROWS_MAX) {
+        sl_chart_buf_escape(c->buf, c->a->lot.lot);
+        sl_chart_buf_append(c->buf, " --format csv</code> lists them all.</p>\n");
+    }
+    return st == SL_OK ? c->buf->status : st;
 }

@@ -674,6 +674,84 @@ START_TEST(test_strip_chart_counts)
 }
 END_TEST
 
+/* The width attribute of the last rect opened before position at. */
+static double bar_width_before(const char *s, const char *at)
+{
+    const char *w = NULL;
+    for (const char *p = strstr(s, "width=\""); p && p < at; p = strstr(p + 1, "width=\""))
+        w = p;
+    return w ? strtod(w + 7, NULL) : -1.0;
+}
+
+/* A density strip: one bar per non-empty bin with its count in the
+ * tooltip, width proportional to the count; the points given drawn on top; the
+ * flag interval replaces the 3 sigma band and the legend names it. */
+START_TEST(test_strip_density_and_flag_interval)
+{
+    const size_t bins[4] = { 2, 0, 8, 4 };
+    const double out[2] = { 3.5, -2.0 };
+    const unsigned char fo[2] = { 1, 1 };
+    sl_chart_category cats[2] = {
+        { "big", out, fo, NULL, 2, { 0.5, 0.2 }, 1, -0.4, 1.4, "flag interval", bins, 4, 0.0, 1.0 },
+        { "small", out, NULL, NULL, 1, { 0.4, 0.1 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+    };
+    sl_chart_frame f = demo_frame("density");
+    sl_chart_buf b;
+    sl_chart_buf_init(&b);
+    ck_assert_int_eq(sl_chart_strip(&b, &f, cats, 2, "split", "neutrality voltage (V)"), SL_OK);
+    const char *s = sl_chart_buf_str(&b);
+    assert_svg_sane(s);
+    ck_assert_uint_eq(count_of(s, "<rect class=\"bin\""), 3); /* the empty bin is not drawn */
+    ck_assert_ptr_nonnull(strstr(s, "<title>8 devices, 0.5 to 0.75</title>"));
+    ck_assert_ptr_nonnull(strstr(s, "<title>2 devices, 0 to 0.25</title>"));
+    ck_assert_uint_eq(count_of(s, "class=\"point flagged\""), 2);
+    ck_assert_uint_eq(count_of(s, "class=\"point\""), 1);
+    ck_assert_uint_eq(count_of(s, "class=\"band sigma3 flag-interval\""), 1);
+    ck_assert_uint_eq(count_of(s, "class=\"band sigma3\""), 1); /* the plain split's */
+    ck_assert_ptr_nonnull(strstr(s, ">flag interval</text>"));
+    ck_assert_ptr_nonnull(strstr(s, ">devices per bin</text>"));
+    /* the fullest bin is the widest: 2 x 0.5 x the spread of the band */
+    double w_full = bar_width_before(s, strstr(s, "<title>8 devices"));
+    double w_half = bar_width_before(s, strstr(s, "<title>4 devices"));
+    ck_assert_msg(w_full > 0.0 && fabs(w_full / w_half - 2.0) < 0.02, "widths %g %g", w_full,
+                  w_half);
+    sl_chart_buf_free(&b);
+}
+END_TEST
+
+/* Maps for one legend: no legend of their own, die coordinates counted
+ * from the first die; the shared legend names every kind of cell. */
+START_TEST(test_wafer_map_axes_and_shared_legend)
+{
+    sl_chart_die dies[36];
+    size_t n = demo_dies(dies);
+    sl_chart_wafer_map map = { "W02", 6, 6, 0.0, 1.0, "deviation (V)", "V", 0, 1, 1, -3, 1 };
+    sl_chart_buf b;
+    sl_chart_buf_init(&b);
+    ck_assert_int_eq(sl_chart_wafer_map_svg(&b, &map, dies, n), SL_OK);
+    const char *s = sl_chart_buf_str(&b);
+    assert_svg_sane(s);
+    ck_assert_ptr_null(strstr(s, ">no usable device</text>"));
+    ck_assert_ptr_null(strstr(s, "class=\"legend\""));
+    /* columns -3..2 and rows 1..6, every one labelled on a 6 x 6 grid */
+    ck_assert_uint_eq(count_of(s, "<text class=\"die-axis\""), 12);
+    ck_assert_ptr_nonnull(strstr(s, "text-anchor=\"middle\">-3</text>"));
+    ck_assert_ptr_nonnull(strstr(s, "text-anchor=\"end\" dy=\".32em\">6</text>"));
+    sl_chart_buf_free(&b);
+    sl_chart_buf_init(&b);
+    ck_assert_int_eq(sl_chart_wafer_legend_svg(&b, 0.5, "deviation (V)"), SL_OK);
+    s = sl_chart_buf_str(&b);
+    assert_svg_sane(s);
+    ck_assert_ptr_nonnull(strstr(s, ">no usable device</text>"));
+    ck_assert_ptr_nonnull(strstr(s, ">no device at this die</text>"));
+    ck_assert_ptr_nonnull(strstr(s, ">flagged device (heavy outline)</text>"));
+    ck_assert_ptr_nonnull(strstr(s, ">deviation (V)</text>"));
+    ck_assert_int_eq(sl_chart_wafer_legend_svg(&b, 0.0, "x"), SL_EINPUT);
+    ck_assert_int_eq(sl_chart_wafer_legend_svg(&b, NAN, "x"), SL_EINPUT);
+    sl_chart_buf_free(&b);
+}
+END_TEST
+
 START_TEST(test_xy_chart)
 {
     const double vg[6] = { -20.0, -10.0, 0.0, 10.0, 20.0, 30.0 };
@@ -868,6 +946,8 @@ static Suite *chart_suite(void)
     suite_add_tcase(s, wafer);
     TCase *charts = tcase_create("charts");
     tcase_add_test(charts, test_strip_chart_counts);
+    tcase_add_test(charts, test_strip_density_and_flag_interval);
+    tcase_add_test(charts, test_wafer_map_axes_and_shared_legend);
     tcase_add_test(charts, test_xy_chart);
     tcase_add_test(charts, test_effects_chart);
     tcase_add_test(charts, test_control_chart);

@@ -11,6 +11,7 @@
 #include <string.h>
 #include <unistd.h>
 
+#include "splitlot/analyze.h"
 #include "splitlot/report.h"
 #include "test_support.h"
 
@@ -551,6 +552,76 @@ START_TEST(test_render_is_deterministic)
 }
 END_TEST
 
+/* The page of a streamed analysis equals the page of the same analysis in
+ * memory, byte for byte (history off: the stream holds the store's
+ * scratch), for both lots. */
+START_TEST(test_stream_renders_the_same_page)
+{
+    sl_report_options opts;
+    sl_report_options_default(&opts);
+    opts.generated_utc = FIXED_DATE;
+    opts.with_history = 0;
+    sl_store *store = NULL;
+    sl_analysis *a = analyse(_i, &store);
+    sl_chart_buf mem, str;
+    sl_chart_buf_init(&mem);
+    sl_chart_buf_init(&str);
+    sl_report_summary s_mem, s_str;
+    ck_assert_int_eq(sl_report_render(&mem, &s_mem, store, a, &opts, NULL), SL_OK);
+    sl_analysis_free(a);
+    sl_diag *diag = sl_diag_new();
+    sl_analysis_stream *stream = NULL;
+    ck_assert_int_eq(sl_analyze_lot_stream(&stream, store, g_lots[_i], diag), SL_OK);
+    ck_assert_int_eq(sl_report_render_stream(&str, &s_str, store, stream, &opts, diag), SL_OK);
+    sl_analysis_stream_free(stream);
+    ck_assert_str_eq(sl_chart_buf_str(&mem), sl_chart_buf_str(&str));
+    ck_assert_uint_eq(s_mem.n_dies, s_str.n_dies);
+    ck_assert_uint_eq(s_mem.n_curves, s_str.n_curves);
+    sl_chart_buf_free(&mem);
+    sl_chart_buf_free(&str);
+    sl_diag_free(diag);
+    sl_store_close(store);
+}
+END_TEST
+
+/* The band drawn is the interval the flags use: one flag-interval band per
+ * split, named in every strip's legend; a usable device lies outside its
+ * split's interval exactly when it is flagged off-prediction. */
+START_TEST(test_band_is_the_flag_interval)
+{
+    lot_view v = view_open(_i, "splits");
+    ck_assert_uint_eq(count_in(v.sec, v.end, "class=\"band sigma3 flag-interval\""),
+                      v.a->n_splits);
+    ck_assert_uint_eq(count_in(v.sec, v.end, ">flag interval</text>"), v.a->plan->n_dielectrics);
+    ck_assert_ptr_null(strstr(v.sec, "3\xcf\x83</text>")); /* no +/-3 sigma band anywhere */
+    size_t outside = 0;
+    for (size_t i = 0; i < v.a->n_devices; i++) {
+        const sl_analyze_device *d = &v.a->devices[i];
+        if (!isfinite(d->cnp_measured_V))
+            continue;
+        const sl_analyze_split *sp = &v.a->splits[d->split];
+        int out = d->cnp_measured_V < sp->flag_low_V || d->cnp_measured_V > sp->flag_high_V;
+        ck_assert_int_eq(out, (d->flags & SL_FLAG_OFF_PREDICTION) != 0);
+        outside += out;
+    }
+    ck_assert_uint_ge(outside, _i == 0 ? 1 : 3);
+    view_close(&v);
+}
+END_TEST
+
+/* One colour scale and one legend for every wafer map: the lot's. */
+START_TEST(test_one_colour_scale_per_lot)
+{
+    lot_view v = view_open(_i, "wafers");
+    ck_assert_uint_eq(count_in(v.sec, v.end, "<figure class=\"wafer-legend\""), 1);
+    ck_assert_uint_eq(count_in(v.sec, v.end, ">no device at this die</text>"), 1);
+    ck_assert_uint_eq(count_in(v.sec, v.end, ">no usable device</text>"), 1);
+    ck_assert_uint_eq(count_in(v.sec, v.end, "<g class=\"die-axis\">"),
+                      count_in(v.sec, v.end, "<figure class=\"wafer\">"));
+    view_close(&v);
+}
+END_TEST
+
 START_TEST(test_no_curves_when_capped_at_zero)
 {
     sl_report_options opts;
@@ -669,6 +740,98 @@ START_TEST(test_command_summary)
 }
 END_TEST
 
+/* ---- a lot too large for a point per device ------------------------------ */
+
+static const char large_plan[] =
+    "lot: LARGE-01\n"
+    "title: one split of many devices (invented)\n"
+    "graphene: { fermi_velocity_m_s: 1.0e6, disorder_density_per_cm2: 1.5e11 }\n"
+    "temperatures_K: [300]\n"
+    "device: { channel_length_um: 20, channel_width_um: 10 }\n"
+    "wafer_map: { rows: 8, cols: 8 }\n"
+    "expected_yield: 1.0\n"
+    "baseline_doping_per_cm2: { mean: -2.0e12, sigma: 0.8e12 }\n"
+    "dielectrics:\n"
+    "  - name: ox90\n"
+    "    layers: [ { material: SiO2, thickness_nm: 90, sigma_nm: 2 } ]\n"
+    "    gate_range_V: [-40, 40]\n"
+    "design:\n"
+    "  kind: full-factorial\n"
+    "  factors:\n"
+    "    dielectric: [ox90]\n"
+    "  wafers_per_split: 2\n"
+    "wafers: 2\n"
+    "devices_per_wafer: 64\n"
+    "seed: 3\n";
+
+/* Sum of the counts in the density bars' tooltips ("N devices, ..."). */
+static size_t binned_devices(const char *html)
+{
+    size_t n = 0;
+    for (const char *p = strstr(html, "<rect class=\"bin\""); p; p = strstr(p + 1, "<rect class=\"bin\""))
+        n += (size_t)strtoul(strstr(p, "<title>") + 7, NULL, 10);
+    return n;
+}
+
+/* 4,800 devices on 2 wafers of 64 dies, 30 % of them faulty: the split's
+ * strip is binned (every usable device either in a bin or drawn as a
+ * flagged point), the maps keep one cell per die, the failure list stops
+ * at 1,000 rows and says where the rest are. */
+START_TEST(test_large_split_is_binned)
+{
+    char *dir = sl_test_tmpdir();
+    char *plan = sl_test_path(dir, "large.yaml");
+    ck_assert_int_eq(sl_test_write_file(plan, large_plan), 0);
+    const char *steps[][14] = {
+        { "predict", "large.yaml", "--db", "l.db", NULL },
+        { "simulate", "large.yaml", "--out", "sim", "--seed", "5", "--no-sweeps",
+          "--devices-per-wafer", "2400", "--fault-fraction", "0.3", NULL },
+        { "ingest", "--lot", "LARGE-01", "--results", "sim/results.csv", "--db", "l.db", NULL },
+        { "report", "--lot", "LARGE-01", "--out", "l.html", "--db", "l.db", NULL },
+    };
+    for (size_t i = 0; i < sizeof steps / sizeof steps[0]; i++) {
+        sl_run_result r = sl_test_run(dir, NULL, steps[i]);
+        ck_assert_msg(r.exit_code == 0, "%s: %s", steps[i][0], r.err);
+        sl_run_result_free(&r);
+    }
+    char *path = sl_test_path(dir, "l.html");
+    size_t len = 0;
+    char *html = sl_test_read_file(path, &len);
+    char *db = sl_test_path(dir, "l.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "LARGE-01", diag), SL_OK);
+    size_t usable_flagged = 0;
+    for (size_t i = 0; i < a->n_devices; i++)
+        usable_flagged += isfinite(a->devices[i].cnp_measured_V) && a->devices[i].flags;
+    ck_assert_uint_gt(a->splits[0].n_usable, 3000);
+    ck_assert_uint_le(usable_flagged, 400);
+    ck_assert_uint_gt(count(html, "<rect class=\"bin\""), 10);
+    ck_assert_uint_eq(binned_devices(html) + count(html, "class=\"point flagged\""),
+                      a->splits[0].n_usable);
+    ck_assert_uint_eq(count(html, "class=\"point flagged\""), usable_flagged);
+    ck_assert_uint_eq(count(html, "class=\"point\""), 0);
+    ck_assert_uint_eq(count_dies(html, NULL), 128);
+    ck_assert_uint_gt(a->n_flagged, 1000);
+    ck_assert_uint_eq(count(html, "<tr class=\"fa\">"), 1000);
+    char note[96];
+    snprintf(note, sizeof note, "The 1000 most severe of %zu flagged devices", a->n_flagged);
+    ck_assert_ptr_nonnull(strstr(html, note));
+    ck_assert_uint_lt(len, 1000000);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(html);
+    free(path);
+    free(db);
+    free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 static Suite *report_suite(void)
 {
     Suite *s = suite_create("report");
@@ -688,11 +851,18 @@ static Suite *report_suite(void)
     tcase_add_test(tc, test_fitted_curve_of_an_outlier);
     tcase_add_test(tc, test_effects_note_when_not_estimable);
     tcase_add_test(tc, test_render_is_deterministic);
+    tcase_add_loop_test(tc, test_stream_renders_the_same_page, 0, 2);
+    tcase_add_loop_test(tc, test_band_is_the_flag_interval, 0, 2);
+    tcase_add_loop_test(tc, test_one_colour_scale_per_lot, 0, 2);
     tcase_add_test(tc, test_no_curves_when_capped_at_zero);
     tcase_add_test(tc, test_write_file_is_atomic);
     tcase_add_test(tc, test_command_errors);
     tcase_add_test(tc, test_command_summary);
     suite_add_tcase(s, tc);
+    TCase *large = tcase_create("large");
+    tcase_set_timeout(large, 300);
+    tcase_add_test(large, test_large_split_is_binned);
+    suite_add_tcase(s, large);
     return s;
 }
 

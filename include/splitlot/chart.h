@@ -321,7 +321,18 @@ typedef struct {
     const char *value_title; /* legend title with unit, e.g. "deviation (V)" */
     const char *value_unit;  /* unit for tooltips, e.g. "V" (may be NULL) */
     int embed_style;         /* as in sl_chart_frame */
+    int no_legend;           /* nonzero: no legend below the wafer (one legend
+                                for many maps: sl_chart_wafer_legend_svg) */
+    int die_axes;            /* nonzero: die coordinates along the top and the
+                                left of the grid, counted from first_die */
+    int first_die_x, first_die_y; /* prober coordinates of column 0, row 0 */
 } sl_chart_wafer_map;
+
+/* The legend of wafer maps drawn with no_legend, as its own small <svg>:
+ * the colour bar over +/- max_abs with title (unit inside), and the cells:
+ * "no usable device" (grey with an x), "no device at this die" (bare wafer)
+ * and "flagged device". SL_EINPUT for a non-finite or non-positive max_abs. */
+sl_status sl_chart_wafer_legend_svg(sl_chart_buf *buf, double max_abs, const char *value_title);
 
 /* A complete <svg> wafer map: circular wafer outline with a notch at the
  * bottom, one element per non-empty die (a <path>, or a <g> holding the grey
@@ -350,15 +361,30 @@ typedef struct {
     size_t count;
     sl_est predicted;             /* centre and sigma of the predicted band;
                                      a non-finite val draws no band */
+    /* The interval the values are flagged against (has_flag_interval
+     * nonzero, both ends finite): drawn instead of the +/-3 sigma band, and
+     * named in the legend by flag_label (NULL: "flag interval"). */
+    int has_flag_interval;
+    double flag_low, flag_high;
+    const char *flag_label;
+    /* A density strip instead of a point per value (bins non-NULL): counts
+     * of the values in n_bins equal bins from bins_low to bins_high, drawn
+     * as a violin-like column of bars; the values above are then only the
+     * ones drawn on top as points (the flagged, say). */
+    const size_t *bins;
+    size_t n_bins;
+    double bins_low, bins_high;
 } sl_chart_category;
 
 /* Strip chart: per category the predicted value as a line with +/-1 sigma and
- * +/-3 sigma bands, and the values as points spread sideways by a fixed
- * low-discrepancy offset of their index (no randomness: same input, same
- * picture). Points get class="point" or "point flagged" (diamond, drawn on
- * top). The y axis covers data and bands with nice bounds; a legend takes a
- * 130 px strip added to the frame's right margin. Buffer status or
- * SL_EINPUT for a bad frame. */
+ * +/-3 sigma bands (or the flag interval, see sl_chart_category), and the
+ * values as points spread sideways by a fixed low-discrepancy offset of their
+ * index (no randomness: same input, same picture). Points get class="point"
+ * or "point flagged" (diamond, drawn on top). A category with bins draws
+ * them first as bars of class "density" (width proportional to the count,
+ * a <title> with the count and the bin's range). The y axis covers data,
+ * bins and bands with nice bounds; a legend takes a 170 px strip added to
+ * the frame's right margin. Buffer status or SL_EINPUT for a bad frame. */
 sl_status sl_chart_strip(sl_chart_buf *buf, const sl_chart_frame *frame,
                          const sl_chart_category *categories, size_t count,
                          const char *x_title, const char *y_title);

@@ -10,6 +10,7 @@
 #include <stddef.h>
 
 #include "splitlot/error.h"
+#include "splitlot/physics.h"
 #include "splitlot/units.h"
 
 /* What a sweep turned out to be. Only SL_FIT_OK carries fitted parameters. */
@@ -49,6 +50,12 @@ typedef enum {
                                    (see sl_fit_model_two_mobility_ohm) */
 } sl_fit_model;
 
+/* Which carrier density a fit takes for the gate (see sl_fit_params). */
+typedef enum {
+    SL_FIT_DENSITY_CHARGE_BALANCE = 0, /* charge balance with quantum capacitance */
+    SL_FIT_DENSITY_SHORT               /* n_g = C_g (V_g - V_cnp) / e, for comparison */
+} sl_fit_density_model;
+
 /* Device geometry, gate and classification thresholds. */
 typedef struct {
     double gate_capacitance_F_per_m2; /* C_g per area, > 0 */
@@ -63,7 +70,17 @@ typedef struct {
     int max_iterations;         /* trust-region iterations per search (100) */
     sl_fit_method method;       /* default SL_FIT_METHOD_PROJECTED */
     sl_fit_model model;         /* default SL_FIT_MODEL_SYMMETRIC */
+    /* Carrier density of the gate: the charge balance with quantum
+     * capacitance at the device's temperature, from a table made for this
+     * C_g (sl_physics_density_table_new; the caller keeps it alive while
+     * fitting), or NULL for the short form n_g = C_g (V_g - V_cnp) / e,
+     * which overstates n_g on thin high-k stacks (default NULL). */
+    const sl_physics_density_table *density_table;
 } sl_fit_config;
+
+/* Name of the density model a config fits with: "qc" (charge balance with
+ * quantum capacitance) or "short"; stored beside the fit model. */
+const char *sl_fit_density_model_name(const sl_fit_config *cfg);
 
 /* Defaults for a channel of the given size on a gate of capacitance C_g.
  * The thresholds are common practice for two-terminal graphene sweeps, not
@@ -73,8 +90,11 @@ typedef struct {
 void sl_fit_config_default(sl_fit_config *cfg, double gate_capacitance_F_per_m2,
                            double channel_length_um, double channel_width_um);
 
-/* Parameters of R(V_g) = R_c + (L/W) / (e mu sqrt(n0^2 + n_g^2)),
- * n_g = C_g (V_g - V_cnp) / e (Kim et al., Appl. Phys. Lett. 94, 062107 (2009)). */
+/* Parameters of R(V_g) = R_c + (L/W) / (e mu sqrt(n0^2 + n_g^2)), n_g the
+ * net density the gate induces: from the charge balance with quantum
+ * capacitance, or the short form C_g (V_g - V_cnp) / e (see
+ * sl_fit_config.density_table; Kim et al., Appl. Phys. Lett. 94, 062107
+ * (2009)). */
 typedef struct {
     double cnp_V;               /* neutrality point V_cnp */
     double mobility_cm2_per_Vs; /* effective mobility mu */
@@ -143,19 +163,26 @@ void sl_fit_workspace_free(sl_fit_workspace *ws);
  *
  * Returns SL_OK with *out filled (check out->cls), SL_EINPUT for fewer than
  * SL_FIT_MIN_POINTS or more than the workspace's points, a non-finite gate
- * voltage, a sweep without two distinct voltages, or a bad config; SL_ENOMEM. */
+ * voltage, a sweep without two distinct voltages, or a bad config (a density
+ * table made for another C_g among them); SL_ENOMEM. */
 sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_config *cfg,
                        const double *vg_V, const double *r_ohm, size_t n_points);
 
 /* The model resistance in ohm at gate voltage vg_V (for simulation and
- * report curves). */
+ * report curves), with the config's density model. */
 double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V);
+
+/* The same at a given gate-induced net density n_g (m^-2), however it was
+ * found (a simulation solves the charge balance at every point). */
+double sl_fit_model_at_density_ohm(const sl_fit_params *p, const sl_fit_config *cfg,
+                                   double net_density_per_m2);
 
 /* The two-mobility variant: electrons and holes take the densities
  * n, p = (n_t +- n_g) / 2 of n_t = sqrt(n0^2 + n_g^2) (n - p = n_g as the
  * gate demands; the split of the residual n0 evenly between them is this
  * program's phenomenological choice, not a published law) and conduct in
- * parallel: R = R_c + (L/W) / (e (n mu_e + p mu_h)). With mu = p->mobility
+ * parallel: R = R_c + (L/W) / (e (n mu_e + p mu_h)), n_g from the config's
+ * density model. With mu = p->mobility
  * the geometric mean and ratio = mu_e / mu_h (> 0):
  * n mu_e + p mu_h = n_t mu (cosh(ln(ratio)/2) + (n_g/n_t) sinh(ln(ratio)/2)).
  * Ratio 1 gives sl_fit_model_ohm exactly. */

@@ -38,6 +38,10 @@ typedef struct {
                                   the plan's first temperature */
     int threads;               /* fitting threads, >= 1 (sweeps only) */
     sl_fit_model fit_model;    /* sweeps: symmetric (default) or two mobilities */
+    /* sweeps: the gate's carrier density from the charge balance with
+     * quantum capacitance at each device's temperature (default), or the
+     * short form C_g (V_g - V_cnp) / e */
+    sl_fit_density_model density_model;
     /* called now and then from the importing thread; may be NULL */
     void (*progress)(const sl_ingest_progress *progress, void *ctx);
     void *progress_ctx;

@@ -4,7 +4,8 @@
  * quantum capacitance, gate stacks, the charge-balance solve of the Fermi level
  * for a gate voltage, and the built-in dielectric material table.
  * SI units throughout (J, m^-2, F/m^2, K, V); conversions live in units.h.
- * Pure functions of numbers; no I/O, no allocation.
+ * Pure functions of numbers and no I/O; the density table is the one object
+ * that allocates.
  */
 #ifndef SPLITLOT_PHYSICS_H
 #define SPLITLOT_PHYSICS_H
@@ -80,6 +81,43 @@ sl_status sl_physics_solve_fermi_J(double *mu_J, double gate_V, double cnp_V,
 double sl_physics_charge_balance_residual(double mu_J, double gate_V, double cnp_V,
                                           double gate_capacitance_F_per_m2,
                                           double temperature_K, double fermi_velocity_m_s);
+
+/* Net carrier density against gate offset, tabulated once for one gate
+ * stack and temperature so that a fit can ask for it at every point of every
+ * iteration: the charge balance above is solved (GSL Brent) on a grid
+ * uniform in s = sqrt(|x|), x = V_g - V_cnp, and the Fermi level in volts
+ * u(x) = mu / e is interpolated by cubic Hermite polynomials in s with the
+ * exact slopes du/dx = C_g / (C_g + C_q) (u is odd: tabulated for x >= 0),
+ * its slope linearly between the nodes' exact ones.
+ * The net density is n - p = C_g (x - u(x)) / e and its slope C_g (1 -
+ * u'(x)) / e, the gate efficiency (C_g/e) C_q/(C_g + C_q). Beyond the table
+ * the balance is solved directly. The only allocating object of this
+ * module; read-only once made, so one table serves any number of threads. */
+typedef struct sl_physics_density_table sl_physics_density_table;
+
+/* Table for |V_g - V_cnp| up to max_offset_V (> 0) on a stack of C_g at
+ * temperature_K (> 0) with Fermi velocity v_F. SL_OK, SL_EINPUT for a bad
+ * domain, SL_ENOMEM, SL_ENUM if a solve fails. */
+sl_status sl_physics_density_table_new(sl_physics_density_table **out,
+                                       double gate_capacitance_F_per_m2, double temperature_K,
+                                       double fermi_velocity_m_s, double max_offset_V);
+void sl_physics_density_table_free(sl_physics_density_table *table);
+
+/* Gate offset converted to charge, y = e (n - p) / C_g in V, at the offset
+ * x = V_g - V_cnp in V, with dy/dx = C_q / (C_g + C_q) into *slope (may be
+ * NULL). The short form of the density is y = x, slope 1. */
+double sl_physics_density_table_charge_V(const sl_physics_density_table *table, double offset_V,
+                                         double *slope);
+
+/* The same at the n offsets gate_V[i] - cnp_V, into charge_V[i] and
+ * slope[i] (slope may be NULL): one call per sweep and model evaluation. */
+void sl_physics_density_table_charge_n(const sl_physics_density_table *table, double *charge_V,
+                                       double *slope, const double *gate_V, double cnp_V,
+                                       size_t n);
+
+/* What the table was made for. */
+double sl_physics_density_table_capacitance_F_per_m2(const sl_physics_density_table *table);
+double sl_physics_density_table_temperature_K(const sl_physics_density_table *table);
 
 /* Gate efficiency dn/dV_g = (C_g/e) C_q/(C_g + C_q), m^-2 V^-1 (series capacitance). */
 double sl_physics_gate_efficiency_per_m2_V(double mu_J, double temperature_K,

@@ -54,14 +54,25 @@ sl_status sl_report_render(sl_chart_buf *buf, sl_report_summary *summary, sl_sto
                            const sl_analysis *analysis, const sl_report_options *opts,
                            sl_diag *diag);
 
+/* The same for an analysis streamed in flat memory (sl_analyze_lot_stream):
+ * the devices are read once (splits of more than 3,000 usable devices get
+ * density strips) and the flagged ones most severe first; memory grows with splits, wafers and dies, the page
+ * with them too (at most 1,000 failure rows, 400 flagged points per density
+ * strip). Renders the same page as sl_report_render of sl_analyze_lot but
+ * for the history, which needs the store's scratch the stream holds: it is
+ * left out here (sl_report_lot reads it before it opens the stream). */
+sl_status sl_report_render_stream(sl_chart_buf *buf, sl_report_summary *summary,
+                                  sl_store *store, sl_analysis_stream *stream,
+                                  const sl_report_options *opts, sl_diag *diag);
+
 /* Write len bytes of text to path atomically: to "path.tmp" first, flushed
  * and fsync'ed, then renamed over path, so a reader sees the old file or the
  * whole new one, never a part. Returns SL_OK, or SL_EIO naming the file (the
  * temporary file is removed on failure). */
 sl_status sl_report_write_file(const char *path, const char *text, size_t len, sl_diag *diag);
 
-/* Analyse a lot of an open store, render its report and write it to path
- * atomically. summary may be NULL. Returns the statuses of sl_analyze_lot,
+/* Analyse a lot of an open store in flat memory, render its report and
+ * write it to path atomically. summary may be NULL. Returns the statuses of sl_analyze_lot,
  * sl_report_render and sl_report_write_file. */
 sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char *lot,
                         const char *path, const sl_report_options *opts, sl_diag *diag);

@@ -13,6 +13,7 @@
 #include <unistd.h>
 
 #include "splitlot/plan.h"
+#include "splitlot/store.h"
 
 const char cli_safety_caution[] =
     "caution: gate bias near breakdown destroys devices and doping treatments can be "

@@ -33,12 +33,15 @@ static const char usage[] =
     "  --model symmetric|two-mobility\n"
     "                            transfer-curve model for sweeps: one mobility, or\n"
     "                            electrons and holes each their own (default symmetric)\n"
+    "  --density-model qc|short  carrier density of the gate for sweeps: the charge\n"
+    "                            balance with quantum capacitance at the device's\n"
+    "                            temperature (default qc), or C_g (V_g - V_cnp)/e\n"
     "  --db FILE                 database (default $SPLITLOT_DB or splitlot.db)\n"
     "  --format table|csv|json   summary format (default table)\n"
     "  --help                    this text\n";
 
 enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_STEP, OPT_TEMPERATURE, OPT_THREADS,
-       OPT_MODEL, OPT_DB, OPT_FORMAT, OPT_HELP };
+       OPT_MODEL, OPT_DENSITY, OPT_DB, OPT_FORMAT, OPT_HELP };
 
 static const struct option options[] = {
     { "lot", required_argument, NULL, OPT_LOT },
@@ -49,6 +52,7 @@ static const struct option options[] = {
     { "temperature-K", required_argument, NULL, OPT_TEMPERATURE },
     { "threads", required_argument, NULL, OPT_THREADS },
     { "model", required_argument, NULL, OPT_MODEL },
+    { "density-model", required_argument, NULL, OPT_DENSITY },
     { "db", required_argument, NULL, OPT_DB },
     { "format", required_argument, NULL, OPT_FORMAT },
     { "help", no_argument, NULL, OPT_HELP },
@@ -108,6 +112,14 @@ static int parse_args(ingest_args *a, int argc, char **argv)
                 a->opt.fit_model = SL_FIT_MODEL_TWO_MOBILITY;
             else
                 return cli_usage_error("--model: '%s' is not one of symmetric, two-mobility", optarg);
+            break;
+        case OPT_DENSITY:
+            if (strcmp(optarg, "qc") == 0)
+                a->opt.density_model = SL_FIT_DENSITY_CHARGE_BALANCE;
+            else if (strcmp(optarg, "short") == 0)
+                a->opt.density_model = SL_FIT_DENSITY_SHORT;
+            else
+                return cli_usage_error("--density-model: '%s' is not one of qc, short", optarg);
             break;
         case OPT_FORMAT:
             if (cli_format_parse(optarg, &a->format) != 0)

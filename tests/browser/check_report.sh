@@ -2,7 +2,8 @@
 # SPDX-License-Identifier: MIT
 # The lot report in a real browser: builds a lot with three devices moved far
 # off, renders its report, has headless Chromium parse it (--dump-dom) and
-# take a screenshot, and checks the parsed page against compare's JSON.
+# take a screenshot, and checks the parsed page against compare's JSON: die and
+# flag counts, the flag interval as the band, every verdict card, one colour scale.
 # Usage: check_report.sh SPLITLOT SOURCE_DIR. Without Chromium it reports
 # itself skipped (exit 77, ctest's skip code), unless SL_REQUIRE_BROWSER=1
 # (CI sets it: there a missing browser is a failure); SL_SKIP_BROWSER=1 skips
@@ -81,6 +82,35 @@ n=$(count 'class="point flagged"')
 grep -q "data-verdict=\"flagged\" data-count=\"$flagged\"" dom.html ||
     fail "the flagged verdict does not say $flagged"
 [ "$(count '<script')" -eq 0 ] || fail "the page has a script"
+
+# the band drawn is the flag interval: one per split, named in each strip's legend
+splits=$(grep -c '"prediction_in_ci"' compare.json)
+n=$(count 'class="band sigma3 flag-interval"')
+[ "$n" -eq "$splits" ] || fail "$n flag-interval bands, $splits splits"
+dielectrics=$(count '<figure class="strip">')
+n=$(count '>flag interval</text>')
+[ "$n" -eq "$dielectrics" ] || fail "$n legends name the flag interval, $dielectrics strip charts"
+
+# every verdict card: the four verdicts of the levels (not the intercept) with
+# compare's counts,
+# flagged devices, splits out of range and predictions outside the CI
+for v in off-plan differs as-planned inconclusive; do
+    k=$(awk -v v="\"$v\"" '/"factor": / { level = ($2 != "\"intercept\",") }
+                             /"verdict": / && level && index($0, v) { n++ } END { print n + 0 }' \
+        compare.json)
+    grep -q "data-verdict=\"$v\" data-count=\"$k\"" dom.html || fail "the $v card does not say $k"
+done
+outside_ci=$(grep -c '"prediction_in_ci": false' compare.json || true)
+grep -q "data-verdict=\"prediction-outside-ci\" data-count=\"$outside_ci\"" dom.html ||
+    fail "the prediction-outside-ci card does not say $outside_ci"
+grep -q 'data-verdict="cnp-outside" data-count="' dom.html || fail "no cnp-outside card"
+[ "$(count '<li class="verdict')" -eq 7 ] || fail "$(count '<li class="verdict') verdict cards, 7 expected"
+
+# one colour scale: one legend for every wafer map, each map with die coordinates
+[ "$(count '<figure class="wafer-legend"')" -eq 1 ] || fail "not exactly one wafer-map legend"
+grep -q '>no device at this die</text>' dom.html || fail "the legend lacks the bare-wafer cell"
+maps=$(count '<figure class="wafer">')
+[ "$(count '<g class="die-axis">')" -eq "$maps" ] || fail "maps without die coordinates"
 
 size=$(wc -c <shot.png | tr -d ' ')
 [ "$size" -gt 20000 ] || fail "screenshot of $size bytes: nothing rendered"

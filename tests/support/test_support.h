@@ -63,6 +63,11 @@ sl_status sl_test_store_open(sl_store **out, const char *path, sl_diag *diag);
             return;                                                            \
     } while (0)
 
+/* A golden output: got must equal the file at path byte for byte (a Check
+ * failure naming what and path otherwise). With SL_REGENERATE_GOLDEN=1 in the
+ * environment (make golden) got is written to path instead. */
+void sl_test_golden(const char *path, const char *got, const char *what);
+
 /* ctest's skip code (SKIP_RETURN_CODE in tests/CMakeLists.txt). */
 #define SL_TEST_SKIPPED 77
 
