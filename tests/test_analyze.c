@@ -463,7 +463,7 @@ static stats_store open_stats_store(void)
     t.json = stats_compare_json(&t.dir);
     t.db = sl_test_path(t.dir, "t.db");
     t.diag = sl_diag_new();
-    ck_assert_int_eq(sl_store_open(&t.store, t.db, t.diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&t.store, t.db, t.diag), SL_OK);
     return t;
 }
 

@@ -10,7 +10,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include <sqlite3.h>
+#include "store_internal.h"
 
 #include "splitlot/ingest.h"
 #include "splitlot/store.h"
@@ -90,7 +90,7 @@ static lot_devices load_lot_at(const char *db, double temperature_K)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_store_lot lot;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_store_find_lot(store, &lot, "DEMO-01", diag), SL_OK);
     ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, "final",
                                            temperature_K, diag), SL_OK);
@@ -816,14 +816,17 @@ START_TEST(unknown_lot_and_usage)
     ck_assert_int_eq(r.exit_code, 2);
     ck_assert_int_eq(count_lines(r.err), 1);
     sl_run_result_free(&r);
-    const char *nodb[] = { "ingest", "--lot", "DEMO-01", "--results", "a", "--db", "none.db", NULL };
-    r = sl_test_run(dir, NULL, nodb);
-    ck_assert_int_eq(r.exit_code, 2);
-    ck_assert(strstr(r.err, "does not exist") != NULL);
-    sl_run_result_free(&r);
-    char *none = sl_test_path(dir, "none.db");
-    ck_assert_ptr_null(fopen(none, "rb"));   /* not created */
-    free(none);
+    if (!sl_test_pg()) { /* a missing SQLite file (a server's database always exists) */
+        const char *nodb[] = { "ingest", "--lot", "DEMO-01", "--results", "a", "--db", "none.db",
+                               NULL };
+        r = sl_test_run(dir, NULL, nodb);
+        ck_assert_int_eq(r.exit_code, 2);
+        ck_assert(strstr(r.err, "does not exist") != NULL);
+        sl_run_result_free(&r);
+        char *none = sl_test_path(dir, "none.db");
+        ck_assert_ptr_null(fopen(none, "rb")); /* not created */
+        free(none);
+    }
     const char *missing[] = { "ingest", "--lot", "DEMO-01", "--results", "missing.csv", "--db",
                               "t.db", NULL };
     r = sl_test_run(dir, NULL, missing);
@@ -1100,17 +1103,19 @@ static void tally_split(density_tally *t, const char *compare_csv, const char *t
 /* Fitted measurements of the lot stored with the fit model given. */
 static long count_fit_model(const char *db_path, const char *fit_model)
 {
-    sqlite3 *db = NULL;
-    sqlite3_stmt *q = NULL;
-    ck_assert_int_eq(sqlite3_open_v2(db_path, &db, SQLITE_OPEN_READONLY, NULL), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_prepare_v2(db, "SELECT count(*) FROM measurement "
-                                            "WHERE fit_class = 'ok' AND fit_model = ?1",
-                                        -1, &q, NULL), SQLITE_OK);
-    sqlite3_bind_text(q, 1, fit_model, -1, SQLITE_STATIC);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
-    long n = (long)sqlite3_column_int64(q, 0);
-    sqlite3_finalize(q);
-    sqlite3_close(db);
+    sl_store *store = NULL;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_test_store_open(&store, db_path, diag), SL_OK);
+    sl__stmt *q = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db, "SELECT count(*) FROM measurement "
+                                               "WHERE fit_class = 'ok' AND fit_model = ?1", 0, &q),
+                     SL__DB_OK);
+    sl__db_bind_text(q, 1, fit_model, -1);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_ROW);
+    long n = (long)sl__db_column_int64(q, 0);
+    sl__db_finalize(q);
+    sl_store_close(store);
+    sl_diag_free(diag);
     return n;
 }
 
@@ -1216,7 +1221,7 @@ START_TEST(library_summary_counts)
     char *db = sl_test_path(dir, "t.db"), *sweeps = sl_test_path(dir, "sim/sweeps.csv");
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     sl_ingest_options opt = { .lot = "DEMO-01", .path = sweeps, .kind = SL_INGEST_SWEEPS,
                               .threads = 2 };
     sl_ingest_summary sum;
@@ -1238,33 +1243,33 @@ START_TEST(library_summary_counts)
     ck_assert_int_eq(sl_store_count_devices(store, &stored, lot.lot_id, diag), SL_OK);
     ck_assert_int_eq(stored, sum.devices);
     /* the import is on record as a run with its counts and the file's SHA-256 */
-    sqlite3_stmt *q = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "SELECT kind, rows, devices, source_name, step, "
-                                        "temperature_K, source_sha256 FROM measurement_run", -1,
-                                        &q, NULL), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 0), "sweeps");
-    ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.rows);
-    ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 3), sweeps);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 4), "final");
-    ck_assert_double_eq(sqlite3_column_double(q, 5), 300.0);
-    ck_assert_str_eq((const char *)sqlite3_column_text(q, 6), sum.sha256);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_DONE);
-    sqlite3_finalize(q);
+    sl__stmt *q = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db,
+                                    "SELECT kind, rows, devices, source_name, step, "
+                                    "temperature_K, source_sha256 FROM measurement_run", 0, &q),
+                     SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_ROW);
+    ck_assert_str_eq(sl__db_column_text(q, 0), "sweeps");
+    ck_assert_int_eq(sl__db_column_int64(q, 1), sum.rows);
+    ck_assert_int_eq(sl__db_column_int64(q, 2), sum.devices);
+    ck_assert_str_eq(sl__db_column_text(q, 3), sweeps);
+    ck_assert_str_eq(sl__db_column_text(q, 4), "final");
+    ck_assert_double_eq(sl__db_column_double(q, 5), 300.0);
+    ck_assert_str_eq(sl__db_column_text(q, 6), sum.sha256);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_DONE);
+    sl__db_finalize(q);
     ck_assert_uint_eq(sum.n_runs, 1);
     /* each device knows the line of its first row: 2, 203, 404, ... in a
      * simulated file, whose devices come one after another */
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "SELECT min(source_line), count(*), "
-                                        "sum((source_line - 2) % 201 = 0) FROM measurement", -1, &q,
-                                        NULL), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_step(q), SQLITE_ROW);
-    ck_assert_int_eq(sqlite3_column_int64(q, 0), 2);
-    ck_assert_int_eq(sqlite3_column_int64(q, 1), sum.devices);
-    ck_assert_int_eq(sqlite3_column_int64(q, 2), sum.devices);
-    sqlite3_finalize(q);
+    ck_assert_int_eq(sl__db_prepare(store->db,
+                                    "SELECT min(source_line), count(*), sum(CASE WHEN "
+                                    "(source_line - 2) % 201 = 0 THEN 1 ELSE 0 END) "
+                                    "FROM measurement", 0, &q), SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(q), SL__DB_ROW);
+    ck_assert_int_eq(sl__db_column_int64(q, 0), 2);
+    ck_assert_int_eq(sl__db_column_int64(q, 1), sum.devices);
+    ck_assert_int_eq(sl__db_column_int64(q, 2), sum.devices);
+    sl__db_finalize(q);
     /* unknown lot: SL_ENOTFOUND, and the store still usable */
     opt.lot = "NOPE";
     ck_assert_int_eq(sl_ingest_run(&sum, store, &opt, diag), SL_ENOTFOUND);

@@ -293,7 +293,7 @@ static sl_analysis *analyse(int k, sl_store **store)
 {
     sl_diag *diag = sl_diag_new();
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(store, g_db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(store, g_db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, *store, g_lots[k], diag), SL_OK);
     sl_diag_free(diag);
     return a;
