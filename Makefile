@@ -8,8 +8,8 @@
 #   make bench  build in Release and run the benchmarks (figures, not tests)
 #   make bench-reference  splitlot against the pandas + SciPy script, 1k/12.5k/50k devices
 #   make tsan   the threaded import's suites (ingest, reliability) under ThreadSanitizer
-#   make golden rewrite tests/data/analyze's golden outputs from this build (only for an
-#               intended output change, reviewed in the diff; DEVELOPERS.md)
+#   make golden rewrite the golden outputs under tests/data/analyze from this build (only
+#               for an intended output change, reviewed in the diff; DEVELOPERS.md)
 #   make install  build and install under PREFIX (default /usr/local), staged
 #                 under DESTDIR when given (docs/install.md)
 BUILD ?= build
@@ -60,7 +60,7 @@ asan: deps-test
 
 # the import's reading, fitting and writing threads (tests spawn the TSan-built binary);
 # a race makes the program exit 66, which fails the test
-TSAN_SUITES ?= test_ingest|test_reliability
+TSAN_SUITES ?= test_ingest|test_reliability|test_layout
 tsan: deps-test
 	@echo "building in build-tsan/ (log: build-tsan/build.log)"
 	@mkdir -p build-tsan
@@ -70,8 +70,11 @@ tsan: deps-test
 	@cd build-tsan && TSAN_OPTIONS="halt_on_error=1 exitcode=66 second_deadlock_stack=1" \
 	  ctest --output-on-failure -j$(JOBS) -R '^($(TSAN_SUITES))$$'
 
+# the golden files are written by the very tests that check them
+GOLDEN_SUITES ?= test_analyze
 golden: build
-	@tests/regenerate_golden.sh $(SPLITLOT)
+	@for t in $(GOLDEN_SUITES); do SL_REGENERATE_GOLDEN=1 $(BUILD)/tests/$$t >/dev/null || exit 1; done
+	@git status --short tests/data
 
 fuzz:
 	@./.ci/fuzz

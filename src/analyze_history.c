@@ -131,7 +131,7 @@ static void pool_level(sl_history_level *l, double *x, double *se)
     l->chart.sigma = w / SL_STATS_CHART_SIGMAS;
 }
 
-static sl_status chart_level(sl_history_level *l)
+sl_status sl_analyze_history_level(sl_history_level *l)
 {
     size_t n = l->n_points;
     double *x = malloc((n + 1) * sizeof *x), *se = malloc((n + 1) * sizeof *se);
@@ -159,6 +159,10 @@ static void add_variation(sl_history *h, const sl_analysis *a)
     if (isfinite(a->device_sigma_V)) {
         h->device_var_sum += a->device_sigma_V * a->device_sigma_V;
         h->n_device_sigma++;
+    }
+    if (isfinite(a->load_sigma_per_cm2)) {
+        h->batch_var_sum += a->load_sigma_per_cm2 * a->load_sigma_per_cm2;
+        h->n_batch_sigma++;
     }
 }
 
@@ -215,10 +219,12 @@ sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_an
         return SL_ENOMEM;
     sl_status st = collect_lots(h, store, view, diag);
     for (size_t i = 0; st == SL_OK && i < h->n_levels; i++)
-        st = chart_level(&h->levels[i]);
+        st = sl_analyze_history_level(&h->levels[i]);
     /* root mean square over the lots that measured it */
     h->wafer_sigma_per_cm2 = h->n_wafer_sigma ? sqrt(h->wafer_var_sum / (double)h->n_wafer_sigma) : NAN;
     h->device_sigma_V = h->n_device_sigma ? sqrt(h->device_var_sum / (double)h->n_device_sigma) : NAN;
+    h->batch_sigma_per_cm2 = h->n_batch_sigma ? sqrt(h->batch_var_sum / (double)h->n_batch_sigma)
+                                              : NAN;
     if (st != SL_OK) {
         sl_history_free(h);
         return st;

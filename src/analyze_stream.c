@@ -59,11 +59,12 @@ static int is_usable(const sl_store_device_row *r)
 
 /* ---- the view, the plan and what its revision stored ---- */
 
-/* The view's temperature among the stored ones: its index, or -1. */
+/* A temperature among the stored ones (within 0.5 K, as an import takes
+ * them): its index, or -1. */
 static long temperature_index(const sl_store_revision *rev, double temperature_K)
 {
     for (size_t t = 0; t < rev->n_temperatures; t++)
-        if (rev->temperatures_K[t] == temperature_K)
+        if (fabs(rev->temperatures_K[t] - temperature_K) <= 0.5)
             return (long)t;
     return -1;
 }
@@ -78,15 +79,12 @@ static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
     if (st != SL_OK)
         return st;
     st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
-                               newest.temperatures_K, newest.n_temperatures, diag);
-    if (st == SL_OK && view && view->step)
-        snprintf(a->step, sizeof a->step, "%s", view->step);
+                               view ? view->step : NULL, newest.temperatures_K,
+                               newest.n_temperatures, diag);
     if (st == SL_OK && view && !isnan(view->temperature_K)) {
-        a->temperature_K = view->temperature_K;
-        if (view->step == NULL)
-            st = sl_store_default_view(store, a->step, &(double){ 0 }, a->lot.lot_id,
-                                       &a->temperature_K, 1, diag);
-        if (st == SL_OK && temperature_index(&newest, a->temperature_K) < 0) {
+        long t = temperature_index(&newest, view->temperature_K);
+        a->temperature_K = t >= 0 ? newest.temperatures_K[t] : view->temperature_K;
+        if (t < 0) {
             char allowed[256];
             size_t k = 0;
             for (size_t t = 0; t < newest.n_temperatures && k < sizeof allowed; t++)
@@ -151,6 +149,32 @@ static sl_status stored_layout(sl_layout **out, const sl_store_revision *rev)
     return SL_OK;
 }
 
+/* Each wafer's load in every batched step of the plan, as the revision
+ * stored them (layout wafers' load, 1-based, 0 for none). */
+static sl_status stored_loads(sl_layout *l, const sl_plan *plan, sl_store *store,
+                              const sl_store_revision *rev, sl_diag *diag)
+{
+    size_t nb = plan->n_batches;
+    if (nb == 0)
+        return SL_OK;
+    long *loads = calloc(rev->n_wafers * nb + 1, sizeof *loads);
+    const char **steps = calloc(nb, sizeof *steps);
+    sl_status st = loads && steps ? SL_OK : SL_ENOMEM;
+    for (size_t b = 0; st == SL_OK && b < nb; b++)
+        steps[b] = plan->batches[b].step;
+    if (st == SL_OK)
+        st = sl_store_load_wafer_loads(store, loads, rev, steps, nb, diag);
+    for (size_t w = 0; st == SL_OK && w < l->n_wafers; w++) {
+        if (!(l->wafers[w].load = calloc(nb, sizeof *l->wafers[w].load)))
+            st = SL_ENOMEM;
+        for (size_t b = 0; st == SL_OK && b < nb; b++)
+            l->wafers[w].load[b] = loads[w * nb + b] > 0 ? (size_t)loads[w * nb + b] : 0;
+    }
+    free(loads);
+    free(steps);
+    return st;
+}
+
 /* Predicted neutrality point, gate range, C_g and thermal floor per split,
  * as stored for the view's temperature. */
 static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
@@ -203,6 +227,8 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
         st = load_plan(a, &rev, diag);
     if (st == SL_OK)
         st = stored_layout(&s->layout, &rev);
+    if (st == SL_OK)
+        st = stored_loads(s->layout, a->plan, store, &rev, diag);
     if (st == SL_OK)
         st = load_predictions(a, &rev);
     sl_store_revision_clear(&rev);

@@ -103,21 +103,24 @@ static void pooled_device_sd(sl_analysis *a, const sl_layout *layout, const sl_a
  * inside the sweep. Censored devices enter by maximum likelihood with the
  * dielectric's pooled device SD (the lot's when it has none); without any
  * SD the plain mean of the devices inside the sweep stands, biased. */
-static void wafer_mean(double *mean_V, double *var_V2, const sl_analyze_wafer *w, double sd_V)
+static int wafer_mean(double *mean_V, double *var_V2, const sl_analyze_wafer *w, double sd_V)
 {
     *mean_V = *var_V2 = NAN;
     if (w->n == 0)
-        return;
+        return 1;
     *mean_V = w->mean_V;
     *var_V2 = isfinite(sd_V) ? sd_V * sd_V / (double)w->n : 0.0;
-    if ((w->n_above || w->n_below) && isfinite(sd_V) && sd_V > 0.0) {
-        double m, se;
-        if (sl_stats_censored_mean(&m, &se, w->n, w->mean_V, sd_V, w->n_above, w->above_V,
-                                   w->n_below, w->below_V) == SL_OK && isfinite(se)) {
-            *mean_V = m;
-            *var_V2 = se * se;
-        }
+    if (!w->n_above && !w->n_below)
+        return 1;
+    double m, se;
+    if (isfinite(sd_V) && sd_V > 0.0 &&
+        sl_stats_censored_mean(&m, &se, w->n, w->mean_V, sd_V, w->n_above, w->above_V,
+                               w->n_below, w->below_V) == SL_OK && isfinite(se)) {
+        *mean_V = m;
+        *var_V2 = se * se;
+        return 1;
     }
+    return 0; /* the plain mean of the devices inside the sweep: biased */
 }
 
 static void wafer_means(sl_analysis *a, const sl_layout *layout, const sl_analyze_wafer *wf,
@@ -129,7 +132,8 @@ static void wafer_means(sl_analysis *a, const sl_layout *layout, const sl_analyz
         if (split < 0)
             continue;
         double sd = k->sd_V[a->plan->splits[split].dielectric];
-        wafer_mean(&k->mean_V[w], &k->var_V2[w], &wf[w], isfinite(sd) ? sd : a->device_sigma_V);
+        if (!wafer_mean(&k->mean_V[w], &k->var_V2[w], &wf[w], isfinite(sd) ? sd : a->device_sigma_V))
+            a->n_wafers_censored_biased++;
         double g = per_cm2_per_V(a, split);
         k->mean_per_cm2[w] = g * k->mean_V[w];
         k->var_per_cm4[w] = g * g * k->var_V2[w];

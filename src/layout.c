@@ -1,63 +1,15 @@
 /* SPDX-License-Identifier: MIT
- * Wafer assignment and processing order, randomised from the plan's seed with
- * GSL's Mersenne Twister so a layout can be rebuilt anywhere, and the devices
- * needed per split from the normal/Student-t sample-size formula (GSL cdf).
+ * Wafer assignment, processing order and the loads of batched steps,
+ * randomised from the plan's seed with GSL's Mersenne Twister so a layout can
+ * be rebuilt anywhere. The power per level is in layout_power.c.
  */
 #include "splitlot/layout.h"
 
-#include <gsl/gsl_cdf.h>
 #include <gsl/gsl_randist.h>
 #include <gsl/gsl_rng.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
-
-#define MAX_SAMPLE_SIZE 1.0e9
-#define MAX_REFINEMENTS 100
-
-/* ---- sample size ---- */
-
-static double devices_for(double quantile_sum, double shift_V, double sigma_V)
-{
-    double r = sigma_V / shift_V;
-    return 2.0 * r * r * quantile_sum * quantile_sum;
-}
-
-static sl_status round_up(size_t *n_out, double n)
-{
-    if (!(n <= MAX_SAMPLE_SIZE))
-        return SL_ENUM;
-    *n_out = n < 2.0 ? 2 : (size_t)ceil(n);
-    return SL_OK;
-}
-
-sl_status sl_layout_sample_size(size_t *n_out, double shift_V, double sigma_V, double alpha,
-                                double power)
-{
-    *n_out = 0;
-    if (!(shift_V > 0.0) || !(sigma_V > 0.0) || !(alpha > 0.0 && alpha < 1.0) ||
-        !(power > 0.0 && power < 1.0) || !isfinite(shift_V) || !isfinite(sigma_V))
-        return SL_EINPUT;
-    double z = gsl_cdf_ugaussian_Pinv(1.0 - alpha / 2.0) + gsl_cdf_ugaussian_Pinv(power);
-    size_t n = 0, before = 0;
-    if (round_up(&n, devices_for(z, shift_V, sigma_V)) != SL_OK)
-        return SL_ENUM;
-    for (int i = 0; i < MAX_REFINEMENTS; i++) {
-        double df = 2.0 * ((double)n - 1.0);
-        double t = gsl_cdf_tdist_Pinv(1.0 - alpha / 2.0, df) + gsl_cdf_tdist_Pinv(power, df);
-        size_t next = 0;
-        if (round_up(&next, devices_for(t, shift_V, sigma_V)) != SL_OK)
-            return SL_ENUM;
-        if (next == n || next == before) {
-            /* settled, or rounding flips between two values: keep the larger */
-            *n_out = next > n ? next : n;
-            return SL_OK;
-        }
-        before = n;
-        n = next;
-    }
-    return SL_ENUM;
-}
 
 /* ---- layout ---- */
 
@@ -65,12 +17,18 @@ void sl_layout_free(sl_layout *layout)
 {
     if (!layout)
         return;
-    for (size_t i = 0; i < layout->n_wafers; i++)
+    for (size_t i = 0; i < layout->n_wafers; i++) {
         free(layout->wafers[i].wafer);
+        free(layout->wafers[i].load);
+    }
     for (size_t i = 0; i < layout->n_splits; i++)
         free(layout->splits[i].wafers);
+    for (size_t i = 0; i < layout->n_loads; i++)
+        free(layout->loads[i].wafers);
     free(layout->wafers);
     free(layout->splits);
+    free(layout->loads);
+    free(layout->levels);
     free(layout);
 }
 
@@ -106,7 +64,9 @@ static sl_layout *layout_new(const sl_plan *plan)
     for (size_t i = 0; i < plan->n_wafers; i++, l->n_wafers++) {
         l->wafers[i].split = -1;
         l->wafers[i].wafer = copy_text(plan->wafers[i]);
-        if (!l->wafers[i].wafer) {
+        if (plan->n_batches)
+            l->wafers[i].load = calloc(plan->n_batches, sizeof(size_t));
+        if (!l->wafers[i].wafer || (plan->n_batches && !l->wafers[i].load)) {
             sl_layout_free(l);
             return NULL;
         }
@@ -181,31 +141,97 @@ static sl_status order_processing(sl_layout *l, gsl_rng *rng)
     return SL_OK;
 }
 
-static sl_status count_devices(sl_layout *l, const sl_plan *plan, sl_diag *diag)
+static void count_devices(sl_layout *l, const sl_plan *plan)
 {
-    size_t needed = 0;
-    if (plan->resolve.present) {
-        const sl_plan_resolve *r = &plan->resolve;
-        sl_status st = sl_layout_sample_size(&needed, r->shift_V, r->device_sigma_V, r->alpha,
-                                             r->power);
-        if (st != SL_OK) {
-            sl_diag_error(diag, "plan '%s': no sample size for shift %g V, sigma %g V (%s)",
-                          plan->path, r->shift_V, r->device_sigma_V, sl_status_str(st));
-            return st;
+    for (size_t s = 0; s < l->n_splits; s++)
+        l->splits[s].devices_available = (double)l->splits[s].n_wafers *
+                                         (double)plan->devices_per_wafer * plan->expected_yield;
+}
+
+/* ---- loads of batched steps ---- */
+
+static int split_gets_step(const sl_plan *plan, size_t split, const sl_plan_batch *b)
+{
+    const sl_plan_split *s = &plan->splits[split];
+    if (b->is_dielectric)
+        return s->dielectric == b->ref;
+    for (size_t i = 0; i < s->n_treatments; i++)
+        if (s->treatments[i] == b->ref)
+            return 1;
+    return 0;
+}
+
+/* The step's wafers, split by split in a shuffled split order, each split's
+ * wafers shuffled; returns how many. */
+static size_t step_wafers(size_t *out, const sl_layout *l, const sl_plan *plan,
+                          const sl_plan_batch *b, gsl_rng *rng, size_t *split_order)
+{
+    size_t n = 0;
+    for (size_t s = 0; s < l->n_splits; s++)
+        split_order[s] = s;
+    gsl_ran_shuffle(rng, split_order, l->n_splits, sizeof *split_order);
+    for (size_t k = 0; k < l->n_splits; k++) {
+        size_t s = split_order[k];
+        if (!split_gets_step(plan, s, b) || l->splits[s].n_wafers == 0)
+            continue;
+        memcpy(out + n, l->splits[s].wafers, l->splits[s].n_wafers * sizeof *out);
+        gsl_ran_shuffle(rng, out + n, l->splits[s].n_wafers, sizeof *out);
+        n += l->splits[s].n_wafers;
+    }
+    return n;
+}
+
+/* Deal the step's wafers round-robin to its loads, numbered in a shuffled order. */
+static sl_status fill_loads(sl_layout *l, size_t batch, const size_t *wafers, size_t n,
+                            size_t n_loads, gsl_rng *rng)
+{
+    size_t *number = malloc(n_loads * sizeof *number);
+    if (!number)
+        return SL_ENOMEM;
+    for (size_t k = 0; k < n_loads; k++)
+        number[k] = k + 1;
+    gsl_ran_shuffle(rng, number, n_loads, sizeof *number);
+    size_t first = l->n_loads;
+    for (size_t k = 0; k < n_loads; k++) {
+        sl_layout_load *load = &l->loads[first + number[k] - 1];
+        load->batch = batch;
+        load->number = number[k];
+        load->wafers = malloc((n / n_loads + 1) * sizeof *load->wafers);
+        if (!load->wafers) {
+            free(number);
+            return SL_ENOMEM;
         }
     }
-    for (size_t s = 0; s < l->n_splits; s++) {
-        sl_layout_split *sp = &l->splits[s];
-        sp->devices_needed = needed;
-        sp->devices_available =
-            (double)sp->n_wafers * (double)plan->devices_per_wafer * plan->expected_yield;
-        if (!plan->resolve.present)
-            sp->verdict = SL_LAYOUT_NOT_ASKED;
-        else
-            sp->verdict = sp->devices_available >= (double)needed ? SL_LAYOUT_ENOUGH
-                                                                  : SL_LAYOUT_TOO_FEW;
+    l->n_loads += n_loads;
+    for (size_t i = 0; i < n; i++) {
+        sl_layout_load *load = &l->loads[first + number[i % n_loads] - 1];
+        load->wafers[load->n_wafers++] = wafers[i];
+        l->wafers[wafers[i]].load[batch] = load->number;
     }
+    for (size_t k = 0; k < n_loads; k++) /* a load's wafers in plan order */
+        qsort(l->loads[first + k].wafers, l->loads[first + k].n_wafers, sizeof(size_t),
+              compare_index);
+    free(number);
     return SL_OK;
+}
+
+static sl_status assign_loads(sl_layout *l, const sl_plan *plan, gsl_rng *rng)
+{
+    if (plan->n_batches == 0)
+        return SL_OK;
+    size_t *wafers = malloc((l->n_wafers + 1) * sizeof *wafers);
+    size_t *order = malloc((l->n_splits + 1) * sizeof *order);
+    l->loads = calloc(plan->n_batches * (l->n_wafers + 1), sizeof *l->loads);
+    sl_status st = wafers && order && l->loads ? SL_OK : SL_ENOMEM;
+    for (size_t b = 0; st == SL_OK && b < plan->n_batches; b++) {
+        size_t n = step_wafers(wafers, l, plan, &plan->batches[b], rng, order);
+        size_t cap = (size_t)plan->batches[b].capacity;
+        if (n > 0)
+            st = fill_loads(l, b, wafers, n, (n + cap - 1) / cap, rng);
+    }
+    free(wafers);
+    free(order);
+    return st;
 }
 
 sl_status sl_layout_build(sl_layout **out, const sl_plan *plan, sl_diag *diag)
@@ -223,7 +249,17 @@ sl_status sl_layout_build(sl_layout **out, const sl_plan *plan, sl_diag *diag)
     if (st == SL_OK)
         st = order_processing(l, rng);
     if (st == SL_OK)
-        st = count_devices(l, plan, diag);
+        st = assign_loads(l, plan, rng);
+    if (st == SL_OK) {
+        count_devices(l, plan);
+        st = sl_layout_power(l, plan);
+        if (st == SL_ENUM)
+            sl_diag_error(diag, "plan '%s': the design cannot estimate every level apart",
+                          plan->path);
+        else if (st != SL_OK)
+            sl_diag_error(diag, "plan '%s': no power per level (%s)", plan->path,
+                          sl_status_str(st));
+    }
     gsl_rng_free(rng);
     if (st != SL_OK) {
         sl_layout_free(l);

@@ -351,6 +351,13 @@ void sl_plan_free(sl_plan *plan)
     free_dielectrics(plan);
     free_factors(plan);
     free_splits(plan);
+    for (size_t i = 0; i < plan->n_batches; i++)
+        free(plan->batches[i].step);
+    for (size_t i = 0; i < plan->n_generators; i++)
+        free(plan->generators[i].of);
+    free(plan->batches);
+    free(plan->generators);
+    free(plan->processed);
     free(plan->wafers);
     free(plan->treatments);
     free(plan->materials);
@@ -517,6 +524,14 @@ long sl_plan_wafer_index(const sl_plan *plan, const char *wafer)
         if (strcmp(plan->wafers[i], wafer) == 0)
             return (long)i;
     return -1;
+}
+
+const sl_plan_batch *sl_plan_batch_of(const sl_plan *plan, int is_dielectric, size_t ref)
+{
+    for (size_t i = 0; i < plan->n_batches; i++)
+        if (plan->batches[i].is_dielectric == is_dielectric && plan->batches[i].ref == ref)
+            return &plan->batches[i];
+    return NULL;
 }
 
 void sl_plan_hash_hex(const sl_plan *plan, char out[17])

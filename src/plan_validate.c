@@ -28,7 +28,7 @@ typedef struct {
 enum {
     K_LOT, K_TITLE, K_GRAPHENE, K_TEMPERATURES, K_DEVICE, K_WAFER_MAP, K_YIELD, K_BASELINE,
     K_MATERIALS, K_DIELECTRICS, K_TREATMENTS, K_DESIGN, K_WAFERS, K_DEVICES, K_SEED,
-    K_RESOLVE, K_COUNT
+    K_RESOLVE, K_PROCESSED, K_BATCHES, K_VARIATION, K_COUNT
 };
 
 static const field root_fields[K_COUNT] = {
@@ -36,6 +36,7 @@ static const field root_fields[K_COUNT] = {
     { "wafer_map", 0 }, { "expected_yield", 0 }, { "baseline_doping_per_cm2", 0 },
     { "materials", 0 }, { "dielectrics", 1 }, { "treatments", 0 }, { "design", 1 },
     { "wafers", 1 }, { "devices_per_wafer", 1 }, { "seed", 0 }, { "resolve", 0 },
+    { "processed", 0 }, { "batches", 0 }, { "variation", 0 },
 };
 
 /* Where things were written, for messages found after the conversion. */
@@ -46,6 +47,9 @@ typedef struct {
     const yn **gate_range_at; /* per dielectric, NULL when not given */
     const yn **split_at;      /* per split */
     const yn *shift_at;
+    const yn *root;
+    const yn *generators_at;
+    const yn *batch_sigma_at;
 } conv;
 
 /* ---- names: every named struct of plan.h starts with its char *name ---- */
@@ -605,7 +609,7 @@ static void read_wafers(conv *v)
 
 /* ---- design ---- */
 
-enum { D_KIND, D_FACTORS, D_WAFERS_PER_SPLIT, D_SPLITS, D_COUNT };
+enum { D_KIND, D_FACTORS, D_WAFERS_PER_SPLIT, D_SPLITS, D_GENERATORS, D_COUNT };
 
 static int add_level(conv *v, sl_plan_factor *f, const char *level, long ref)
 {
@@ -741,6 +745,14 @@ static void read_factors(conv *v, const yn *map, const yn **dielectric_at)
         plan_error(v->c, map, "missing required key 'dielectric' in factors");
 }
 
+static int memchr_size(const size_t *a, size_t n, size_t x)
+{
+    for (size_t i = 0; i < n; i++)
+        if (a[i] == x)
+            return 1;
+    return 0;
+}
+
 static int make_split(conv *v, sl_plan_split *s, size_t dielectric, const size_t *levels)
 {
     sl_plan *p = v->p;
@@ -776,10 +788,22 @@ static void factorial_split(conv *v, sl_plan_split *s, const size_t *levels)
     }
 }
 
+/* Factors whose level a generator sets: bit f for factor f. */
+static unsigned long generated_mask(const sl_plan *p)
+{
+    unsigned long mask = 0;
+    for (size_t g = 0; g < p->n_generators; g++)
+        mask |= 1ul << p->generators[g].factor;
+    return mask;
+}
+
 static size_t count_combinations(const sl_plan *p)
 {
     size_t n = 1;
+    unsigned long generated = generated_mask(p);
     for (size_t f = 0; f < p->n_factors; f++) {
+        if (generated >> f & 1ul)
+            continue;
         n *= p->factors[f].n_levels;
         if (n > MAX_SPLITS)
             return MAX_SPLITS + 1;
@@ -787,11 +811,25 @@ static size_t count_combinations(const sl_plan *p)
     return n;
 }
 
-/* Every combination of levels, the last factor changing fastest. */
+/* The generated factors' levels: code -1 for level 0, +1 for level 1, the
+ * generated code the product of its factors' codes. */
+static void set_generated_levels(const sl_plan *p, size_t *levels)
+{
+    for (size_t g = 0; g < p->n_generators; g++) {
+        int sign = 1;
+        for (size_t j = 0; j < p->generators[g].n_of; j++)
+            sign *= levels[p->generators[g].of[j]] ? 1 : -1;
+        levels[p->generators[g].factor] = sign > 0 ? 1 : 0;
+    }
+}
+
+/* Every combination of the free factors' levels, the last factor changing
+ * fastest; generated factors follow their generators. */
 static void enumerate_splits(conv *v, const yn *factors_at, const yn **dielectric_at)
 {
     sl_plan *p = v->p;
     size_t n = count_combinations(p);
+    unsigned long generated = generated_mask(p);
     if (n > MAX_SPLITS) {
         plan_error(v->c, factors_at, "the factors make more than %d splits", MAX_SPLITS);
         return;
@@ -800,10 +838,13 @@ static void enumerate_splits(conv *v, const yn *factors_at, const yn **dielectri
     p->splits = plan_calloc(v->c, n, sizeof *p->splits);
     v->split_at = plan_calloc(v->c, n, sizeof *v->split_at);
     for (size_t i = 0; p->splits && v->split_at && i < n && !v->c->nomem; i++) {
+        set_generated_levels(p, levels);
         factorial_split(v, &p->splits[i], levels);
         v->split_at[i] = dielectric_at[levels[0]];
         p->n_splits++;
         for (size_t f = p->n_factors; f-- > 0;) {
+            if (generated >> f & 1ul)
+                continue;
             if (++levels[f] < p->factors[f].n_levels)
                 break;
             levels[f] = 0;
@@ -821,13 +862,110 @@ static int factors_complete(const sl_plan *p)
     return 1;
 }
 
-static void full_factorial(conv *v, const yn **d)
+static long factor_named(conv *v, const yn *name)
 {
+    sl_plan *p = v->p;
+    if (want_kind(v->c, name, YN_SCALAR, "generators") != 0)
+        return -1;
+    long f = find_named(p->factors, p->n_factors, sizeof *p->factors, name->text);
+    if (f < 0)
+        unknown_named(v->c, name, "factor", p->factors, p->n_factors, sizeof *p->factors);
+    else if (p->factors[f].n_levels != 2) {
+        plan_error(v->c, name, "factor '%s' has %zu levels; a generator takes two-level factors",
+                   name->text, p->factors[f].n_levels);
+        f = -1;
+    }
+    return f;
+}
+
+/* One generator "factor: [a, b, ...]": every name a two-level factor, at
+ * least two of them, none generated, none twice. used[] marks factors met. */
+static void read_generator(conv *v, const yn *key, const yn *list, unsigned char *used)
+{
+    sl_plan *p = v->p;
+    long target = factor_named(v, key);
+    if (target < 0 || want_kind(v->c, list, YN_SEQ, key->text) != 0)
+        return;
+    if (used[target]) {
+        plan_error(v->c, key, "factor '%s' is already in another generator", key->text);
+        return;
+    }
+    if (list->n_items < 2 || list->n_items >= p->n_factors) {
+        plan_error(v->c, list, "generator of '%s' must list 2 to %zu other factors, got %zu",
+                   key->text, p->n_factors - 1, list->n_items);
+        return;
+    }
+    sl_plan_generator *g = &p->generators[p->n_generators];
+    g->factor = (size_t)target;
+    g->of = plan_calloc(v->c, list->n_items, sizeof *g->of);
+    for (size_t j = 0; g->of && j < list->n_items; j++) {
+        long f = factor_named(v, list->items[j]);
+        if (f >= 0 && (f == target || (used[f] & 2u) || memchr_size(g->of, g->n_of, (size_t)f))) {
+            plan_error(v->c, list->items[j], "factor '%s' cannot be in the generator of '%s'",
+                       list->items[j]->text, key->text);
+            f = -1;
+        }
+        if (f < 0) { /* the generator is dropped: the error is out */
+            free(g->of);
+            g->of = NULL;
+            g->n_of = 0;
+            return;
+        }
+        g->of[g->n_of++] = (size_t)f;
+        used[f] |= 1u;
+    }
+    used[target] |= 2u;
+    p->n_generators++;
+}
+
+static void read_generators(conv *v, const yn *map)
+{
+    sl_plan *p = v->p;
+    if (want_kind(v->c, map, YN_MAP, "generators") != 0)
+        return;
+    if (map->n_items / 2 > SL_PLAN_MAX_GENERATORS) {
+        plan_error(v->c, map, "'generators' may have at most %d generators, got %zu",
+                   SL_PLAN_MAX_GENERATORS, map->n_items / 2);
+        return;
+    }
+    p->generators = plan_calloc(v->c, map->n_items / 2 + 1, sizeof *p->generators);
+    unsigned char used[MAX_FACTORS + 1] = { 0 };
+    for (size_t k = 0; p->generators && k + 1 < map->n_items; k += 2)
+        read_generator(v, map->items[k], map->items[k + 1], used);
+    /* a factor used as a base after being generated is caught here */
+    for (size_t g = 0; g < p->n_generators; g++)
+        for (size_t j = 0; j < p->generators[g].n_of; j++)
+            if (used[p->generators[g].of[j]] & 2u)
+                plan_error(v->c, map, "factor '%s' is generated and also generates '%s'",
+                           p->factors[p->generators[g].of[j]].name,
+                           p->factors[p->generators[g].factor].name);
+    if (map->n_items == 0)
+        plan_error(v->c, map, "a fractional-factorial design needs at least one generator");
+}
+
+/* Main effects must stay apart: no word of length 1 or 2 in the defining relation. */
+static void check_resolution(conv *v)
+{
+    sl_plan_fraction fr;
+    if (sl_plan_fraction_info(&fr, v->p) == SL_OK && fr.resolution < 3)
+        plan_error(v->c, v->generators_at,
+                   "the generators make two main effects the same column (resolution %d): "
+                   "give each generator a different set of factors",
+                   fr.resolution);
+}
+
+static void factorial_design(conv *v, const yn **d, int fractional)
+{
+    const char *kind = fractional ? "fractional-factorial" : "full-factorial";
     if (d[D_SPLITS])
-        plan_error(v->c, d[D_SPLITS], "'splits' belongs to an explicit design, not full-factorial");
-    if (!d[D_FACTORS] || !d[D_WAFERS_PER_SPLIT]) {
-        plan_error(v->c, v->at[K_DESIGN], "a full-factorial design needs '%s'",
-                   d[D_FACTORS] ? "wafers_per_split" : "factors");
+        plan_error(v->c, d[D_SPLITS], "'splits' belongs to an explicit design, not %s", kind);
+    if (d[D_GENERATORS] && !fractional)
+        plan_error(v->c, d[D_GENERATORS],
+                   "'generators' belongs to a fractional-factorial design, not full-factorial");
+    if (!d[D_FACTORS] || !d[D_WAFERS_PER_SPLIT] || (fractional && !d[D_GENERATORS])) {
+        plan_error(v->c, v->at[K_DESIGN], "a %s design needs '%s'", kind,
+                   !d[D_FACTORS] ? "factors"
+                                 : (!d[D_WAFERS_PER_SPLIT] ? "wafers_per_split" : "generators"));
         return;
     }
     read_whole(v->c, d[D_WAFERS_PER_SPLIT], "wafers_per_split", 1, MAX_WAFERS,
@@ -837,6 +975,12 @@ static void full_factorial(conv *v, const yn **d)
         return;
     size_t errors = v->c->n_errors;
     read_factors(v, d[D_FACTORS], dielectric_at);
+    if (fractional && errors == v->c->n_errors && factors_complete(v->p)) {
+        v->generators_at = d[D_GENERATORS];
+        read_generators(v, d[D_GENERATORS]);
+        if (errors == v->c->n_errors)
+            check_resolution(v);
+    }
     if (errors == v->c->n_errors && factors_complete(v->p))
         enumerate_splits(v, d[D_FACTORS], dielectric_at);
     free(dielectric_at);
@@ -973,10 +1117,11 @@ static void explicit_levels(conv *v)
 static void explicit_design(conv *v, const yn **d)
 {
     sl_plan *p = v->p;
-    for (int k = D_FACTORS; k <= D_WAFERS_PER_SPLIT; k++)
-        if (d[k])
-            plan_error(v->c, d[k], "'%s' belongs to a full-factorial design, not explicit",
-                       k == D_FACTORS ? "factors" : "wafers_per_split");
+    static const char *const keys[] = { "", "factors", "wafers_per_split", "", "generators" };
+    for (int k = D_FACTORS; k < D_COUNT; k++)
+        if (d[k] && k != D_SPLITS)
+            plan_error(v->c, d[k], "'%s' belongs to a %s design, not explicit", keys[k],
+                       k == D_GENERATORS ? "fractional-factorial" : "full-factorial");
     if (!d[D_SPLITS]) {
         plan_error(v->c, v->at[K_DESIGN], "an explicit design needs 'splits'");
         return;
@@ -1002,27 +1147,31 @@ static void read_design(conv *v)
 {
     static const field fields[D_COUNT] = {
         { "kind", 1 }, { "factors", 0 }, { "wafers_per_split", 0 }, { "splits", 0 },
+        { "generators", 0 },
     };
-    static const char *const kinds[] = { "full-factorial", "explicit" };
+    static const char *const kinds[] = { "full-factorial", "explicit", "fractional-factorial" };
     const yn *d[D_COUNT];
     if (!v->at[K_DESIGN] || read_map(v->c, v->at[K_DESIGN], "design", fields, D_COUNT, d) != 0 ||
         !d[D_KIND] || want_kind(v->c, d[D_KIND], YN_SCALAR, "kind") != 0)
         return;
     if (strcmp(d[D_KIND]->text, kinds[0]) == 0) {
         v->p->design_kind = SL_DESIGN_FULL_FACTORIAL;
-        full_factorial(v, d);
+        factorial_design(v, d, 0);
     } else if (strcmp(d[D_KIND]->text, kinds[1]) == 0) {
         v->p->design_kind = SL_DESIGN_EXPLICIT;
         explicit_design(v, d);
+    } else if (strcmp(d[D_KIND]->text, kinds[2]) == 0) {
+        v->p->design_kind = SL_DESIGN_FRACTIONAL_FACTORIAL;
+        factorial_design(v, d, 1);
     } else {
-        unknown_name(v->c, d[D_KIND], "design kind", kinds, 2);
+        unknown_name(v->c, d[D_KIND], "design kind", kinds, 3);
     }
 }
 
 static void check_wafer_count(conv *v)
 {
     const sl_plan *p = v->p;
-    if (p->design_kind != SL_DESIGN_FULL_FACTORIAL || p->n_splits == 0 || !v->at[K_WAFERS])
+    if (p->design_kind == SL_DESIGN_EXPLICIT || p->n_splits == 0 || !v->at[K_WAFERS])
         return;
     size_t needed = p->n_splits * (size_t)p->wafers_per_split;
     if (p->n_wafers < needed)
@@ -1034,20 +1183,139 @@ static void check_wafer_count(conv *v)
 static void read_resolve(conv *v)
 {
     static const field fields[] = {
-        { "shift_V", 1 }, { "device_sigma_V", 1 }, { "alpha", 0 }, { "power", 0 },
+        { "shift_per_cm2", 0 }, { "shift_V", 0 }, { "device_sigma_V", 0 }, { "alpha", 0 },
+        { "power", 0 },
     };
-    const yn *f[4];
+    const yn *f[5];
     sl_plan_resolve *r = &v->p->resolve;
-    if (!v->at[K_RESOLVE] || read_map(v->c, v->at[K_RESOLVE], "resolve", fields, 4, f) != 0)
+    if (!v->at[K_RESOLVE] || read_map(v->c, v->at[K_RESOLVE], "resolve", fields, 5, f) != 0)
         return;
     r->present = 1;
-    v->shift_at = f[0];
+    if (f[0] && f[1])
+        plan_error(v->c, f[1], "give 'shift_per_cm2' or 'shift_V' in resolve, not both");
+    else if (!f[0] && !f[1])
+        plan_error(v->c, v->at[K_RESOLVE], "missing required key 'shift_per_cm2' in resolve");
+    v->shift_at = f[0] ? f[0] : f[1];
     if (f[0])
-        read_number(v->c, f[0], "shift_V", NUM_POSITIVE, &r->shift_V);
+        read_number(v->c, f[0], "shift_per_cm2", NUM_POSITIVE, &r->shift_per_cm2);
+    else if (f[1])
+        read_number(v->c, f[1], "shift_V", NUM_POSITIVE, &r->shift_V);
+    if (f[2])
+        read_number(v->c, f[2], "device_sigma_V", NUM_POSITIVE, &r->device_sigma_V);
+    read_number_or(v->c, f[3], "alpha", NUM_PROBABILITY, 0.05, &r->alpha);
+    read_number_or(v->c, f[4], "power", NUM_PROBABILITY, 0.9, &r->power);
+}
+
+static void read_variation(conv *v)
+{
+    static const field fields[] = {
+        { "wafer_sigma_per_cm2", 1 }, { "device_sigma_V", 1 }, { "batch_sigma_per_cm2", 0 },
+    };
+    const yn *f[3];
+    sl_plan_variation *var = &v->p->variation;
+    const yn *node = v->at[K_VARIATION];
+    if (!node) {
+        const yn *at = v->at[K_RESOLVE] ? v->at[K_RESOLVE] : v->root;
+        plan_warning(v->c, at, "no 'variation' block: whether the lot is big enough is unknown "
+                               "(give wafer_sigma_per_cm2 and device_sigma_V)");
+        return;
+    }
+    if (read_map(v->c, node, "variation", fields, 3, f) != 0)
+        return;
+    var->present = 1;
+    if (f[0])
+        read_number(v->c, f[0], "wafer_sigma_per_cm2", NUM_NONNEG, &var->wafer_sigma_per_cm2);
     if (f[1])
-        read_number(v->c, f[1], "device_sigma_V", NUM_POSITIVE, &r->device_sigma_V);
-    read_number_or(v->c, f[2], "alpha", NUM_PROBABILITY, 0.05, &r->alpha);
-    read_number_or(v->c, f[3], "power", NUM_PROBABILITY, 0.9, &r->power);
+        read_number(v->c, f[1], "device_sigma_V", NUM_NONNEG, &var->device_sigma_V);
+    read_number_or(v->c, f[2], "batch_sigma_per_cm2", NUM_NONNEG, 0.0,
+                   &var->batch_sigma_per_cm2);
+    v->batch_sigma_at = f[2];
+    if (f[0] && f[1] && var->wafer_sigma_per_cm2 == 0.0 && var->device_sigma_V == 0.0)
+        plan_warning(v->c, node, "wafer_sigma_per_cm2 and device_sigma_V are both 0: a wafer "
+                                 "mean would have no scatter, so no power can be computed");
+}
+
+/* A batched step names a treatment or a dielectric of the plan. */
+static void batch_step(conv *v, const yn *name, sl_plan_batch *b)
+{
+    sl_plan *p = v->p;
+    long t = find_named(p->treatments, p->n_treatments, sizeof *p->treatments, name->text);
+    long d = find_named(p->dielectrics, p->n_dielectrics, sizeof *p->dielectrics, name->text);
+    if (t < 0 && d < 0) {
+        size_t n = p->n_treatments + p->n_dielectrics;
+        const char **names = plan_calloc(v->c, n, sizeof *names);
+        for (size_t i = 0; names && i < n; i++)
+            names[i] = i < p->n_treatments
+                           ? name_at(p->treatments, sizeof *p->treatments, i)
+                           : name_at(p->dielectrics, sizeof *p->dielectrics, i - p->n_treatments);
+        if (names)
+            unknown_name(v->c, name, "step (a treatment or dielectric)", names, n);
+        free(names);
+        return;
+    }
+    b->is_dielectric = t < 0;
+    b->ref = (size_t)(t < 0 ? d : t);
+    if (sl_plan_batch_of(p, b->is_dielectric, b->ref))
+        plan_error(v->c, name, "step '%s' is batched twice", name->text);
+    else
+        b->step = plan_strdup(v->c, name->text);
+}
+
+static void read_batches(conv *v)
+{
+    static const field fields[] = { { "step", 1 }, { "capacity", 1 } };
+    sl_plan *p = v->p;
+    const yn *node = v->at[K_BATCHES];
+    if (!node) {
+        if (v->batch_sigma_at && p->variation.batch_sigma_per_cm2 > 0.0)
+            plan_warning(v->c, v->batch_sigma_at,
+                         "batch_sigma_per_cm2 is not used: the plan has no batches");
+        return;
+    }
+    if (read_list(v->c, node, "batches", MAX_LIST) != 0)
+        return;
+    p->batches = plan_calloc(v->c, node->n_items, sizeof *p->batches);
+    for (size_t i = 0; p->batches && i < node->n_items && !v->c->nomem; i++) {
+        const yn *f[2];
+        sl_plan_batch b = { 0 };
+        if (read_map(v->c, node->items[i], "batch", fields, 2, f) != 0 || !f[0] || !f[1] ||
+            want_kind(v->c, f[0], YN_SCALAR, "step") != 0)
+            continue;
+        batch_step(v, f[0], &b);
+        if (read_whole(v->c, f[1], "capacity", 1, MAX_WAFERS, &b.capacity) != 0 || !b.step) {
+            free(b.step);
+            continue;
+        }
+        p->batches[p->n_batches++] = b;
+    }
+    if (p->variation.present && !v->batch_sigma_at)
+        plan_warning(v->c, v->at[K_VARIATION],
+                     "batches without variation.batch_sigma_per_cm2: no load-to-load scatter "
+                     "is assumed");
+}
+
+static int leap_year(long y)
+{
+    return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0;
+}
+
+/* processed: a calendar date YYYY-MM-DD. */
+static void read_processed(conv *v)
+{
+    static const int days[] = { 31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31 };
+    const yn *node = v->at[K_PROCESSED];
+    if (!node || want_kind(v->c, node, YN_SCALAR, "processed") != 0)
+        return;
+    long y = 0, m = 0, d = 0;
+    int used = 0;
+    const char *t = node->text;
+    int ok = strlen(t) == 10 && sscanf(t, "%4ld-%2ld-%2ld%n", &y, &m, &d, &used) == 3 &&
+             used == 10 && t[4] == '-' && t[7] == '-' && y >= 1900 && m >= 1 && m <= 12 &&
+             d >= 1 && d <= days[m - 1] + (m == 2 && leap_year(y));
+    if (!ok)
+        plan_error(v->c, node, "'processed' must be a date YYYY-MM-DD, got '%s'", t);
+    else
+        v->p->processed = plan_strdup(v->c, t);
 }
 
 /* ---- physics warnings, on a plan without errors ---- */
@@ -1115,6 +1383,13 @@ static void warn_thermal_floor(conv *v)
     for (size_t i = 1; i < p->n_temperatures; i++)
         t_max = p->temperatures_K[i] > t_max ? p->temperatures_K[i] : t_max;
     double n_th = sl_physics_thermal_floor_per_m2(t_max, p->fermi_velocity_m_s);
+    if (p->resolve.shift_per_cm2 > 0.0) {
+        if (p->resolve.shift_per_cm2 * SL_PER_M2_PER_PER_CM2 < n_th)
+            plan_warning(v->c, v->shift_at,
+                         "shift_per_cm2 %g is below the thermal floor at %g K, %.3g cm^-2",
+                         p->resolve.shift_per_cm2, t_max, n_th / SL_PER_M2_PER_PER_CM2);
+        return;
+    }
     for (size_t d = 0; d < p->factors[0].n_levels; d++) {
         stack_info s;
         size_t di = (size_t)p->factors[0].level_ref[d];
@@ -1133,7 +1408,7 @@ static void warn_thermal_floor(conv *v)
 
 void plan_convert(plan_ctx *c, const yn *root)
 {
-    conv v = { .c = c, .p = c->plan };
+    conv v = { .c = c, .p = c->plan, .root = root };
     if (read_map(c, root, "the plan", root_fields, K_COUNT, v.at) == 0) {
         read_scalars(&v);
         read_materials(&v);
@@ -1143,6 +1418,9 @@ void plan_convert(plan_ctx *c, const yn *root)
         read_design(&v);
         check_wafer_count(&v);
         read_resolve(&v);
+        read_variation(&v);
+        read_batches(&v);
+        read_processed(&v);
         if (c->n_errors == 0 && !c->nomem) {
             warn_gate_ranges(&v);
             warn_cnp_outside(&v);

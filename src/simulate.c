@@ -32,6 +32,8 @@ typedef struct {
                                temperature's files stay as one temperature made them */
     double baseline_true;
     double *dielectric_true, *treatment_true; /* cm^-2 */
+    double *load_offset;    /* per layout load, cm^-2 */
+    double wafer_sigma_per_cm2, device_sigma_V;
     FILE *results, *sweeps, *truth;
     sl_simulate_summary *sum;
     long fault_counter;
@@ -127,6 +129,43 @@ static sl_status draw_levels(sim_ctx *c, const char *out_dir, sl_diag *diag)
     return fclose(f) == 0 ? SL_OK : SL_EIO;
 }
 
+/* The scatter of the plan's variation block; without it the options' wafer
+ * scatter and the resolve block's device scatter (or 1.5e11 cm^-2). */
+static void scatter_model(sim_ctx *c)
+{
+    const sl_plan *p = c->plan;
+    c->wafer_sigma_per_cm2 = p->variation.present ? p->variation.wafer_sigma_per_cm2
+                                                  : c->opt->wafer_doping_sigma_per_cm2;
+    c->device_sigma_V = p->variation.present ? p->variation.device_sigma_V
+                                             : (p->resolve.device_sigma_V > 0.0
+                                                    ? p->resolve.device_sigma_V : -1.0);
+}
+
+/* One offset per load of a batched step (load-to-load scatter). */
+static sl_status draw_loads(sim_ctx *c)
+{
+    const sl_layout *l = c->layout;
+    if (l->n_loads == 0)
+        return SL_OK;
+    c->load_offset = malloc(l->n_loads * sizeof *c->load_offset);
+    if (!c->load_offset)
+        return SL_ENOMEM;
+    for (size_t k = 0; k < l->n_loads; k++)
+        c->load_offset[k] = gsl_ran_gaussian(c->rng, c->plan->variation.batch_sigma_per_cm2);
+    return SL_OK;
+}
+
+/* The offsets of the loads a wafer went through. */
+static double load_offsets(const sim_ctx *c, size_t wafer)
+{
+    const sl_layout *l = c->layout;
+    double sum = 0.0;
+    for (size_t k = 0; k < l->n_loads; k++)
+        if (l->wafers[wafer].load[l->loads[k].batch] == l->loads[k].number)
+            sum += c->load_offset[k];
+    return sum;
+}
+
 static sl_status draw_wafer(sim_ctx *c, sim_wafer *w)
 {
     const sl_plan *p = c->plan;
@@ -141,7 +180,7 @@ static sl_status draw_wafer(sim_ctx *c, sim_wafer *w)
         layers[i].thickness_m = fmax(t, 0.2 * layers[i].thickness_m);
     }
     w->cg = sl_physics_stack_capacitance_F_per_m2(layers, n);
-    w->doping_offset = gsl_ran_gaussian(c->rng, c->opt->wafer_doping_sigma_per_cm2);
+    w->doping_offset = gsl_ran_gaussian(c->rng, c->wafer_sigma_per_cm2) + load_offsets(c, w->index);
     int from_plan;
     sl_predict_gate_range(&w->gate_min_V, &w->gate_max_V, &from_plan, p, d);
     sl_fit_config_default(&w->fit, w->cg, p->channel_length_um, p->channel_width_um);
@@ -168,7 +207,7 @@ static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
     for (size_t i = 0; i < s->n_treatments; i++)
         n += c->treatment_true[s->treatments[i]];
     double per_cm2_per_V = w->cg / SL_SI_ELEMENTARY_CHARGE * SL_PER_CM2_PER_PER_M2;
-    double device_sigma = p->resolve.present ? p->resolve.device_sigma_V * per_cm2_per_V : 1.5e11;
+    double device_sigma = c->device_sigma_V >= 0.0 ? c->device_sigma_V * per_cm2_per_V : 1.5e11;
     n += gsl_ran_gaussian(c->rng, device_sigma);
     dev->kind = draw_kind(c);
     dev->doping_per_cm2 = n;
@@ -361,9 +400,12 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
     gsl_rng_set(c.rng, (unsigned long)(options->seed & 0xffffffffu));
     gsl_rng_set(c.rng_later, (unsigned long)((options->seed >> 32) ^ (options->seed & 0xffffffffu) ^
                                              0x5bd1e995u));
+    scatter_model(&c);
     sl_status st = choose_temperatures(&c, diag);
     if (st == SL_OK)
         st = draw_levels(&c, out_dir, diag);
+    if (st == SL_OK)
+        st = draw_loads(&c);
     if (st == SL_OK) {
         c.results = open_out(out_dir, "results.csv",
             "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,temperature_K\n", diag);
@@ -383,6 +425,7 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
     st = close_out(c.truth, st);
     free(c.dielectric_true);
     free(c.treatment_true);
+    free(c.load_offset);
     gsl_rng_free(c.rng);
     gsl_rng_free(c.rng_later);
     return st;

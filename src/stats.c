@@ -17,11 +17,6 @@
 #include <gsl/gsl_statistics_double.h>
 #include <gsl/gsl_vector.h>
 
-/* Largest sample size per group we report; beyond it the effect is too small
- * next to sigma to be worth planning for. */
-#define SL_STATS_MAX_SAMPLE_SIZE 1e9
-/* The t refinement moves n by a few units; this bounds a pathological loop. */
-#define SL_STATS_MAX_SIZE_ITERATIONS 100
 
 static int all_finite(const double *x, size_t n)
 {
@@ -623,52 +618,5 @@ sl_status sl_stats_individuals_chart(sl_stats_ichart *out, int *flags, const dou
         if (flags)
             flags[i] = flag;
     }
-    return SL_OK;
-}
-
-/* ---- Sample size ----------------------------------------------------------- */
-
-static int sample_size_args_valid(double sigma, double delta, double alpha, double power)
-{
-    return isfinite(sigma) && sigma > 0.0 && isfinite(delta) && delta != 0.0 &&
-           is_probability(alpha) && is_probability(power);
-}
-
-double sl_stats_sample_size_normal(double sigma, double delta, double alpha, double power)
-{
-    if (!sample_size_args_valid(sigma, delta, alpha, power))
-        return NAN;
-    double z = gsl_cdf_ugaussian_Pinv(1.0 - 0.5 * alpha) + gsl_cdf_ugaussian_Pinv(power);
-    return 2.0 * sigma * sigma * z * z / (delta * delta);
-}
-
-/* ceil(2 sigma^2 (t_{1-alpha/2,df} + t_{power,df})^2 / delta^2), df = 2(n-1), >= 2. */
-static double t_refined_size(double n, double sigma, double delta, double alpha,
-                             double power)
-{
-    double df = 2.0 * (n - 1.0);
-    double t = gsl_cdf_tdist_Pinv(1.0 - 0.5 * alpha, df) + gsl_cdf_tdist_Pinv(power, df);
-    return fmax(2.0, ceil(2.0 * sigma * sigma * t * t / (delta * delta)));
-}
-
-sl_status sl_stats_sample_size_per_group(size_t *n, double sigma, double delta,
-                                         double alpha, double power)
-{
-    double start = sl_stats_sample_size_normal(sigma, delta, alpha, power);
-    if (isnan(start) || start > SL_STATS_MAX_SAMPLE_SIZE)
-        return SL_EINPUT;
-    double prev = NAN, cur = fmax(2.0, ceil(start));
-    for (int it = 0; it < SL_STATS_MAX_SIZE_ITERATIONS; it++) {
-        double next = t_refined_size(cur, sigma, delta, alpha, power);
-        if (next == cur)
-            break;
-        if (next == prev) { /* alternating pair: keep the larger */
-            cur = fmax(cur, next);
-            break;
-        }
-        prev = cur;
-        cur = next;
-    }
-    *n = (size_t)cur;
     return SL_OK;
 }

@@ -423,7 +423,9 @@ static sl_status insert_splits(sl_store *store, long *split_ids, long revision_i
         sqlite3_bind_text(st, 5, treatments, -1, SQLITE_TRANSIENT);
         sqlite3_bind_double(st, 6, doping.val);
         sqlite3_bind_double(st, 7, doping.sigma);
-        sqlite3_bind_int64(st, 8, (sqlite3_int64)layout->splits[i].devices_needed);
+        /* devices_needed: no longer computed (the layout's power per level
+         * replaces the device count), kept as 0 until a migration drops it */
+        sqlite3_bind_int64(st, 8, 0);
         sqlite3_bind_double(st, 9, layout->splits[i].devices_available);
         s = sl_store_step_done(store, st, diag, "store a split");
         split_ids[i] = (long)sqlite3_last_insert_rowid(store->db);
@@ -452,6 +454,30 @@ static sl_status insert_wafers(sl_store *store, const long *split_ids, long revi
         }
         s = sl_store_step_done(store, st, diag, "store a wafer");
     }
+    sqlite3_finalize(st);
+    return s;
+}
+
+/* The load of each wafer in each batched step (table wafer_load). */
+static sl_status insert_wafer_loads(sl_store *store, long revision_id, const sl_plan *plan,
+                                    const sl_layout *layout, sl_diag *diag)
+{
+    if (plan->n_batches == 0)
+        return SL_OK;
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "INSERT INTO wafer_load (wafer_id, step, load) "
+        "SELECT id, ?3, ?4 FROM wafer WHERE revision_id = ?1 AND name = ?2", diag);
+    for (size_t i = 0; s == SL_OK && i < layout->n_wafers; i++)
+        for (size_t b = 0; s == SL_OK && layout->wafers[i].load && b < plan->n_batches; b++) {
+            if (layout->wafers[i].load[b] == 0)
+                continue;
+            sqlite3_bind_int64(st, 1, revision_id);
+            sqlite3_bind_text(st, 2, layout->wafers[i].wafer, -1, SQLITE_TRANSIENT);
+            sqlite3_bind_text(st, 3, plan->batches[b].step, -1, SQLITE_TRANSIENT);
+            sqlite3_bind_int64(st, 4, (sqlite3_int64)layout->wafers[i].load[b]);
+            s = sl_store_step_done(store, st, diag, "store a wafer's load");
+        }
     sqlite3_finalize(st);
     return s;
 }
@@ -519,6 +545,8 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
         s = insert_splits(store, split_ids, revision_id, plan, layout, diag);
     if (s == SL_OK)
         s = insert_wafers(store, split_ids, revision_id, layout, diag);
+    if (s == SL_OK)
+        s = insert_wafer_loads(store, revision_id, plan, layout, diag);
     if (s == SL_OK)
         s = insert_predictions(store, split_ids, predictions, n_predictions, diag);
     free(split_ids);

@@ -44,7 +44,6 @@ static void bind_count_or_null(sqlite3_stmt *st, int index, long v)
     "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, r_squared, " \
     "n_points, electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs, n_spikes, " \
     "hysteresis_V, points_dropped"
-enum { N_MEASUREMENT_COLUMNS = 18 };
 
 static void bind_extraction(sqlite3_stmt *st, int first, const sl_store_device *d)
 {

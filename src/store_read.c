@@ -34,6 +34,8 @@ static void read_device_row(sqlite3_stmt *st, sl_store_device_row *r)
         *numbers[i] = sl_store_column_real_or_nan(st, 10 + i);
     r->n_points = (long)sqlite3_column_int64(st, 21);
     r->measurements = (long)sqlite3_column_int64(st, 22);
+    r->electron_mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 23);
+    r->hole_mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 24);
 }
 
 sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
@@ -50,7 +52,8 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
         "coalesce(m.fit_model, ''), ?3, m.cnp_V, m.cnp_sigma_V, m.mobility_cm2_per_Vs, "
         "m.n0_per_cm2, m.r_contact_ohm, m.hysteresis_V, d.channel_length_um, d.channel_width_um, "
         "m.rel_rms, m.r_squared, coalesce(m.n_points, 0), "
-        "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id AND c.run_id IN runs) "
+        "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id AND c.run_id IN runs), "
+        "m.electron_mobility_cm2_per_Vs, m.hole_mobility_cm2_per_Vs "
         "FROM device d JOIN measurement m ON m.id = (SELECT c.id FROM measurement c "
         "WHERE c.device_id = d.id AND c.run_id IN runs ORDER BY c.run_id DESC LIMIT 1) "
         "WHERE d.lot_id = ?1 ORDER BY d.wafer, d.die_y, d.die_x, d.name", diag);

@@ -169,12 +169,10 @@ static int has_run(sl_store *store, long lot_id, const char *step, double temper
     return found;
 }
 
-sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
-                                long lot_id, const double *temperatures_K, size_t n_temperatures,
-                                sl_diag *diag)
+/* The step of the lot's newest run into step; "final" without runs. */
+static sl_status newest_step(sl_store *store, char step[65], long lot_id, sl_diag *diag)
 {
     snprintf(step, 65, "final");
-    *temperature_K = n_temperatures ? temperatures_K[0] : 300.0;
     sqlite3_stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT step FROM measurement_run WHERE lot_id = ?1 ORDER BY id DESC LIMIT 1", diag);
@@ -185,8 +183,23 @@ sl_status sl_store_default_view(sl_store *store, char step[65], double *temperat
     if (rc == SQLITE_ROW)
         snprintf(step, 65, "%s", (const char *)sqlite3_column_text(st, 0));
     sqlite3_finalize(st);
-    if (rc != SQLITE_ROW)
-        return rc == SQLITE_DONE ? SL_OK : sl_store_db_error(store, diag, "look up the lot's runs");
+    return rc == SQLITE_ROW || rc == SQLITE_DONE ? SL_OK
+                                                 : sl_store_db_error(store, diag, "look up the lot's runs");
+}
+
+sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
+                                long lot_id, const char *want_step,
+                                const double *temperatures_K, size_t n_temperatures,
+                                sl_diag *diag)
+{
+    *temperature_K = n_temperatures ? temperatures_K[0] : 300.0;
+    sl_status s = SL_OK;
+    if (want_step)
+        snprintf(step, 65, "%s", want_step);
+    else
+        s = newest_step(store, step, lot_id, diag);
+    if (s != SL_OK)
+        return s;
     for (size_t i = 0; i < n_temperatures; i++) {
         int found = has_run(store, lot_id, step, temperatures_K[i], diag);
         if (found < 0)
@@ -374,6 +387,50 @@ sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long r
     }
     if (s != SL_OK)
         sl_store_revision_clear(out);
+    return s;
+}
+
+/* Index of a stored wafer by name, -1 when absent. */
+static long wafer_index(const sl_store_revision *rev, const char *name)
+{
+    for (size_t w = 0; w < rev->n_wafers; w++)
+        if (strcmp(rev->wafers[w].name, name) == 0)
+            return (long)w;
+    return -1;
+}
+
+/* Index of a step by name, -1 when absent. */
+static long step_index(const char *const *steps, size_t n_steps, const char *name)
+{
+    for (size_t k = 0; k < n_steps; k++)
+        if (strcmp(steps[k], name) == 0)
+            return (long)k;
+    return -1;
+}
+
+sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store_revision *rev,
+                                    const char *const *steps, size_t n_steps, sl_diag *diag)
+{
+    memset(loads, 0, rev->n_wafers * n_steps * sizeof *loads);
+    sqlite3_stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT w.name, l.step, l.load FROM wafer_load l JOIN wafer w ON w.id = l.wafer_id "
+        "WHERE w.revision_id = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sqlite3_bind_int64(st, 1, rev->revision_id);
+    int rc;
+    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
+        const char *wafer = (const char *)sqlite3_column_text(st, 0);
+        const char *step = (const char *)sqlite3_column_text(st, 1);
+        long w = wafer_index(rev, wafer ? wafer : "");
+        long k = step_index(steps, n_steps, step ? step : "");
+        if (w >= 0 && k >= 0)
+            loads[(size_t)w * n_steps + (size_t)k] = (long)sqlite3_column_int64(st, 2);
+    }
+    if (rc != SQLITE_DONE)
+        s = sl_store_db_error(store, diag, "read the wafers' loads");
+    sqlite3_finalize(st);
     return s;
 }
 

@@ -109,6 +109,7 @@ static void read_kept(sl_store_scratch *x, sqlite3_stmt *st, long *group, long *
     memset(r, 0, sizeof *r);
     r->temperature_K = x->temperature_K;
     r->cnp_sigma_V = r->rel_rms = r->r_squared = NAN;
+    r->electron_mobility_cm2_per_Vs = r->hole_mobility_cm2_per_Vs = NAN;
     *group = (long)sqlite3_column_int64(st, 0);
     *tag = (long)sqlite3_column_int64(st, 1);
     x->last_kept = (long)sqlite3_column_int64(st, 2);

@@ -565,6 +565,42 @@ START_TEST(test_plan_revisions_after_measurement)
     double was = strtod(p + 19, NULL), now = strtod(q + 19, NULL);
     ck_assert_msg(now - was > 4.999 && now - was < 5.001, "%g -> %g", was, now);
     free(moved);
+
+    /* a later step measured at 77 K only: the default view is that step at
+     * 77 K (its first temperature with data); --step final goes back to
+     * 300 K, and a temperature is matched within 0.5 K */
+    char *src = sl_test_path(folder, "sim/results.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *cold = malloc(strlen(text) + 1), *o = cold;
+    char *save = NULL, *line = strtok_r(text, "\n", &save);
+    o += sprintf(o, "%s\n", line);
+    while ((line = strtok_r(NULL, "\n", &save)))
+        if (strlen(line) > 3 && strcmp(line + strlen(line) - 3, ",77") == 0)
+            o += sprintf(o, "%s\n", line);
+    char *cold_path = sl_test_path(folder, "cold.csv");
+    ck_assert_int_eq(sl_test_write_file(cold_path, cold), 0);
+    const char *later[] = { "ingest", "--lot", "REV-01", "--results", "cold.csv", "--db", "t.db",
+                            "--step", "after-anneal", NULL };
+    r = sl_test_run(folder, NULL, later);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    char *view = compare_in(folder, "REV-01");
+    ck_assert(strstr(view, "\"step\": \"after-anneal\",\n  \"temperature_K\": 77,\n"));
+    free(view);
+    const char *final_view[] = { "compare", "--lot", "REV-01", "--db", "t.db", "--format", "json",
+                                 "--step", "final", NULL };
+    r = sl_test_run(folder, NULL, final_view);
+    ck_assert(r.exit_code == 0 && strstr(r.out, "\"step\": \"final\",\n  \"temperature_K\": 300,\n"));
+    sl_run_result_free(&r);
+    const char *near[] = { "compare", "--lot", "REV-01", "--db", "t.db", "--format", "json",
+                           "--temperature-K", "77.2", NULL };
+    r = sl_test_run(folder, NULL, near);
+    ck_assert(r.exit_code == 0 && strstr(r.out, "\"temperature_K\": 77,\n"));
+    sl_run_result_free(&r);
+    free(cold_path);
+    free(cold);
+    free(text);
+    free(src);
     free(db_path);
     free(before);
     sl_test_rmtree(folder);

@@ -145,11 +145,11 @@ END_TEST
 
 /* A curve drawn with the charge balance solved at every point (no table),
  * on 20 nm Al2O3 at 300 K (C_g = 0.398 uF/cm^2, relative permittivity 9:
- * typical handbook value, DESIGN.md section 2), gate -6..6 V: the fit with
+ * typical handbook value, docs/physics.md), gate -6..6 V: the fit with
  * the density table recovers every parameter, noise-free, with the full
  * search too and with two mobilities (ratio 1); the short form
- * C_g (V_g - V0)/e reads the mobility well over 10 % low (DESIGN.md section
- * 2 puts it near 18 % on this stack) and n0 high. */
+ * C_g (V_g - V0)/e reads the mobility well over 10 % low (docs/physics.md
+ * puts it near 18 % on this stack) and n0 high. */
 START_TEST(charge_balance_recovered)
 {
     double cg = 9.0 * SL_SI_EPS0 / 20e-9, vg[N_SWEEP], r[N_SWEEP];

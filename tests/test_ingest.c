@@ -688,6 +688,21 @@ START_TEST(two_temperatures)
             o += sprintf(o, "%s,S%s,%ld,%ld,%.4f,%.3f,%s\n", wafer, device, x, y,
                          pass ? vg + 2.0 : vg, ohm, pass ? "77" : "300");
         }
+    /* the first device again as T...: its 300 K rows cut in two around its
+     * 77 K rows, so the second half comes back after another run's rows */
+    size_t first_n = 0;
+    while (first_n < n && strncmp(rows[first_n], rows[0], strcspn(rows[0], ",") + 5) == 0)
+        first_n++;
+    for (int part = 0; part < 3; part++)
+        for (size_t i = part == 2 ? first_n / 2 : 0; i < (part == 0 ? first_n / 2 : first_n); i++) {
+            char wafer[16], device[16];
+            long x, y;
+            double vg, ohm;
+            ck_assert_int_eq(sscanf(rows[i], "%15[^,],%15[^,],%ld,%ld,%lf,%lf", wafer, device, &x,
+                                    &y, &vg, &ohm), 6);
+            o += sprintf(o, "%s,T%s,%ld,%ld,%.4f,%.3f,%s\n", wafer, device, x, y,
+                         part == 1 ? vg + 2.0 : vg, ohm, part == 1 ? "77" : "300");
+        }
     char *sweeps = sl_test_path(dir, "sweeps2.csv");
     ck_assert_int_eq(sl_test_write_file(sweeps, out), 0);
     r = ingest(dir, "t.db", "sweeps", "sweeps2.csv", NULL, 0);
@@ -706,8 +721,29 @@ START_TEST(two_temperatures)
                 pairs++;
             }
     ck_assert_uint_gt(pairs, 0);
+    /* the device cut in two: its 300 K fit saw the same points, in order */
+    const sl_store_device_row *s_first = NULL, *t_first = NULL;
+    for (size_t i = 0; i < warm.n; i++) {
+        if (warm.rows[i].name[0] == 'T')
+            t_first = &warm.rows[i];
+        else if (t_first == NULL && warm.rows[i].name[0] == 'S' && !s_first)
+            s_first = &warm.rows[i];
+    }
+    ck_assert(s_first && t_first && strcmp(s_first->name + 1, t_first->name + 1) == 0);
+    ck_assert(s_first->cnp_V == t_first->cnp_V || (isnan(s_first->cnp_V) && isnan(t_first->cnp_V)));
+    ck_assert_str_eq(s_first->fit_class, t_first->fit_class);
+    ck_assert_int_eq(s_first->n_points, t_first->n_points);
     lot_devices_free(&warm);
     lot_devices_free(&cold);
+
+    /* a device keeps its die: another die in a later file is refused */
+    char *moved = sl_test_path(dir, "moved.csv");
+    ck_assert_int_eq(sl_test_write_file(moved, "wafer,device,die_x,die_y,v_cnp_V\nW01,A,5,5,1.0\n"),
+                     0);
+    assert_refused(dir, moved, "results", "2:3",
+                   "device 'A' on wafer 'W01' is at die (5, 5) here but lot 'DEMO-01' has it at "
+                   "(0, 0) since measurement run 1; a device keeps its die");
+    free(moved);
     free(sweeps);
     free(out);
     free(text);
@@ -1105,7 +1141,7 @@ static double median_bias(density_tally *t)
  * 10 % of the truth for 95 % of the good devices of both stacks, and the
  * store records the model as 'symmetric/qc';
  * the short form (--density-model short) reads the Al2O3 mobility more than
- * 10 % low (median; DESIGN.md section 2 puts it near 18 %). */
+ * 10 % low (median; docs/physics.md puts it near 18 %). */
 START_TEST(density_model_on_two_stacks)
 {
     char *dir = sl_test_tmpdir();

@@ -73,7 +73,11 @@ START_TEST(demo_plan_values)
     ck_assert_uint_eq(p->seed, 2026);
     ck_assert_double_eq(p->gate_derating, 0.5);
     ck_assert_int_eq(p->resolve.present, 1);
-    ck_assert_double_eq(p->resolve.shift_V, 0.5);
+    ck_assert_double_eq(p->resolve.shift_per_cm2, 3.0e11);
+    ck_assert_double_eq(p->resolve.shift_V, 0.0);
+    ck_assert_int_eq(p->variation.present, 1);
+    ck_assert_double_eq(p->variation.wafer_sigma_per_cm2, 1.0e11);
+    ck_assert_double_eq(p->variation.device_sigma_V, 0.6);
     /* 2 dielectrics x anneal (none, anneal-350) x cap (none, cap-pmma) */
     ck_assert_uint_eq(p->n_factors, 3);
     ck_assert_uint_eq(p->n_splits, 8);
@@ -507,6 +511,157 @@ START_TEST(thermal_floor_figure)
 }
 END_TEST
 
+/* ---- second-wave keys: variation, batches, resolve shift, processed,
+ * fractional designs ---- */
+
+/* A plan whose line 7 is the design and line 10 the key under test. */
+static const char key_base[] =
+    "lot: K-1\n"
+    "temperatures_K: [300]\n"
+    "dielectrics: [ { name: ox, layers: [ { material: SiO2, thickness_nm: 90 } ] },\n"
+    "               { name: ox2, layers: [ { material: SiO2, thickness_nm: 60 } ] } ]\n"
+    "treatments: [ { name: anneal, doping_per_cm2: { mean: 1e12 } },\n"
+    "              { name: cap, doping_per_cm2: { mean: 1e11 } } ]\n"
+    "%s\n"
+    "wafers: 8\n"
+    "devices_per_wafer: 10\n"
+    "%s\n";
+
+static const char full_design[] =
+    "design: { kind: full-factorial, factors: { dielectric: [ox, ox2], anneal: [none, anneal] }, "
+    "wafers_per_split: 2 }";
+
+typedef struct {
+    const char *design;   /* NULL: full_design */
+    const char *line9;
+    const char *token;    /* where the message points: first occurrence on its line */
+    const char *fragment;
+} key_case;
+
+static const key_case key_cases[] = {
+    { NULL, "variation: { wafer_sigma_per_cm2: 1e11, device_sigma: 0.5 }", "device_sigma:",
+      "unknown key 'device_sigma' in variation (did you mean 'device_sigma_V'?)" },
+    { NULL, "variation: { wafer_sigma_per_cm2: -1, device_sigma_V: 0.5 }", "-1",
+      "'wafer_sigma_per_cm2' must be >= 0, got '-1'" },
+    { NULL, "variaton: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5 }", "variaton",
+      "unknown key 'variaton' in the plan (did you mean 'variation'?)" },
+    { NULL, "batches: [ { step: aneal, capacity: 6 } ]", "aneal",
+      "unknown step (a treatment or dielectric) 'aneal' (did you mean 'anneal'?)" },
+    { NULL, "batches: [ { step: anneal, capacity: 0 } ]", "0 }",
+      "'capacity' must be a whole number from 1 to 9999, got '0'" },
+    { NULL, "batches: [ { step: anneal, capacity: 6 }, { step: anneal, capacity: 3 } ]",
+      "anneal, capacity: 3", "step 'anneal' is batched twice" },
+    { NULL, "resolve: { shift_per_cm2: 3e11, shift_V: 0.5 }", "0.5",
+      "give 'shift_per_cm2' or 'shift_V' in resolve, not both" },
+    { NULL, "resolve: { shift_per_cm: 3e11 }", "shift_per_cm:",
+      "unknown key 'shift_per_cm' in resolve (did you mean 'shift_per_cm2'?)" },
+    { NULL, "processed: 2026-02-30", "2026", "'processed' must be a date YYYY-MM-DD" },
+    { "design: { kind: fractional-factorial, factors: { dielectric: [ox, ox2], anneal: [none, "
+      "anneal], cap: [none, cap] }, wafers_per_split: 1, generators: { cap: [dielectric, aneal] } }",
+      "seed: 1", "aneal]", "unknown factor 'aneal' (did you mean 'anneal'?)" },
+    { "design: { kind: full-factorial, factors: { dielectric: [ox, ox2] }, wafers_per_split: 1, "
+      "generators: { cap: [dielectric] } }",
+      "seed: 1", "{ cap", "'generators' belongs to a fractional-factorial design" },
+    { "design: { kind: fractional-factorial, factors: { dielectric: [ox, ox2] }, "
+      "wafers_per_split: 1 }",
+      "seed: 1", "{ kind", "a fractional-factorial design needs 'generators'" },
+    { "design: { kind: fractional-factorail, factors: { dielectric: [ox, ox2] }, "
+      "wafers_per_split: 1 }",
+      "seed: 1", "fractional-factorail",
+      "unknown design kind 'fractional-factorail' (did you mean 'fractional-factorial'?)" },
+};
+
+static char *key_plan(const key_case *c)
+{
+    size_t n = sizeof key_base + strlen(c->design ? c->design : full_design) + strlen(c->line9);
+    char *text = malloc(n);
+    snprintf(text, n, key_base, c->design ? c->design : full_design, c->line9);
+    return text;
+}
+
+START_TEST(new_keys_located_errors)
+{
+    const key_case *c = &key_cases[_i];
+    char *text = key_plan(c);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    ck_assert_int_eq(sl_plan_parse(&plan, text, strlen(text), "k.yaml", diag), SL_EINPUT);
+    const char *line = c->design ? strstr(text, "design:") : strstr(text, c->line9);
+    long line_no = c->design ? 7 : 10;
+    long col = (long)(strstr(line, c->token) - line) + 1;
+    int found = 0;
+    for (size_t i = 0; i < sl_diag_size(diag); i++) {
+        const sl_diag_msg *m = sl_diag_get(diag, i);
+        found |= m->severity == SL_SEV_ERROR && m->line == line_no && m->col == col &&
+                 strstr(m->text, c->fragment) != NULL;
+    }
+    ck_assert_msg(found, "case %d: no error '%s' at %ld:%ld; last: %s", _i, c->fragment, line_no,
+                  col, sl_diag_last(diag));
+    sl_diag_free(diag);
+    free(text);
+}
+END_TEST
+
+START_TEST(new_keys_read)
+{
+    key_case c = { NULL, "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5, "
+                         "batch_sigma_per_cm2: 2e11 }\nbatches: [ { step: anneal, capacity: 3 } ]\n"
+                         "resolve: { shift_V: 0.4 }\nprocessed: 2024-02-29", NULL, NULL };
+    char *text = key_plan(&c);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *p = NULL;
+    ck_assert_int_eq(sl_plan_parse(&p, text, strlen(text), "k.yaml", diag), SL_OK);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    ck_assert_double_eq(p->variation.batch_sigma_per_cm2, 2e11);
+    ck_assert_uint_eq(p->n_batches, 1);
+    ck_assert_int_eq(p->batches[0].capacity, 3);
+    ck_assert_int_eq(p->batches[0].is_dielectric, 0);
+    ck_assert_ptr_eq(sl_plan_batch_of(p, 0, p->batches[0].ref), &p->batches[0]);
+    ck_assert_double_eq(p->resolve.shift_V, 0.4);
+    ck_assert_double_eq(p->resolve.alpha, 0.05);
+    ck_assert_str_eq(p->processed, "2024-02-29"); /* a leap day */
+    sl_plan_free(p);
+    free(text);
+    /* no variation block: one warning, at the top of the plan */
+    c.line9 = "seed: 3";
+    text = key_plan(&c);
+    sl_diag_clear(diag);
+    ck_assert_int_eq(sl_plan_parse(&p, text, strlen(text), "k.yaml", diag), SL_OK);
+    ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_WARNING), 1);
+    ck_assert_int_eq(sl_diag_get(diag, 0)->line, 1);
+    ck_assert_ptr_nonnull(strstr(sl_diag_get(diag, 0)->text, "no 'variation' block"));
+    sl_plan_free(p);
+    free(text);
+    /* a load scatter without batches, and batches without a load scatter */
+    static const char *const lines[][2] = {
+        { "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5, batch_sigma_per_cm2: 1e11 }",
+          "batch_sigma_per_cm2 is not used: the plan has no batches" },
+        { "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5 }\n"
+          "batches: [ { step: ox2, capacity: 4 } ]",
+          "batches without variation.batch_sigma_per_cm2" },
+        { "variation: { wafer_sigma_per_cm2: 0, device_sigma_V: 0 }",
+          "a wafer mean would have no scatter" },
+    };
+    for (size_t i = 0; i < 3; i++) {
+        c.line9 = lines[i][0];
+        text = key_plan(&c);
+        sl_diag_clear(diag);
+        ck_assert_int_eq(sl_plan_parse(&p, text, strlen(text), "k.yaml", diag), SL_OK);
+        ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_WARNING), 1);
+        ck_assert_int_eq(sl_diag_get(diag, 0)->line, 10);
+        ck_assert_ptr_nonnull(strstr(sl_diag_get(diag, 0)->text, lines[i][1]));
+        if (i == 1)
+            ck_assert_int_eq(p->batches[0].is_dielectric, 1);
+        sl_plan_free(p);
+        free(text);
+    }
+    text = NULL;
+    sl_diag_free(diag);
+    free(text);
+}
+END_TEST
+
+
 /* ---- the command ---- */
 
 static sl_run_result run_check(const char *path)
@@ -591,6 +746,9 @@ static Suite *plan_suite(void)
     tcase_add_test(bad, too_many_nodes_refused);
     tcase_add_test(bad, missing_file_is_io_error);
     tcase_add_loop_test(bad, warning_plans_load, 0, (int)(sizeof warn_cases / sizeof warn_cases[0]));
+    tcase_add_loop_test(bad, new_keys_located_errors, 0,
+                        (int)(sizeof key_cases / sizeof key_cases[0]));
+    tcase_add_test(bad, new_keys_read);
     tcase_add_test(bad, thermal_floor_figure);
     suite_add_tcase(s, bad);
     TCase *cli = tcase_create("cli");

@@ -47,6 +47,7 @@ static const char two_stacks[] =
     "  wafers_per_split: 1\n"
     "wafers: 4\n"
     "devices_per_wafer: 16\n"
+    "variation: { wafer_sigma_per_cm2: 1.0e11, device_sigma_V: 0.5 }\n"
     "seed: 5\n";
 
 static void drop_dir(char *dir)
@@ -259,7 +260,7 @@ START_TEST(cli_json_keys)
         "\"treatments\": ", "\"temperature_K\": ", "\"gate_capacitance_nF_per_cm2\": ",
         "\"doping_per_cm2\": ", "\"cnp_V\": ", "\"cnp_sigma_V\": ", "\"gate_range_V\": [",
         "\"max_electron_density_per_cm2\": ", "\"max_hole_density_per_cm2\": ",
-        "\"thermal_floor_per_cm2\": ", "\"cnp_in_range\": ", "\"devices_needed\": ",
+        "\"thermal_floor_per_cm2\": ", "\"cnp_in_range\": ",
     };
     for (size_t i = 0; i < sizeof keys / sizeof keys[0]; i++)
         ck_assert_msg(strstr(r.out, keys[i]) != NULL, "missing %s", keys[i]);

@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
  * Tests of `splitlot simulate`: a seed reproduces the files exactly and
  * another seed does not, --true-doping overrides reach levels.csv, an unknown
- * level is refused, and the files hold every wafer x device of the plan.
+ * level is refused, the files hold every wafer x device of the plan, and
+ * the variation block's load, wafer and device scatter reach the truth.
  */
 #include <check.h>
 #include <math.h>
@@ -9,6 +10,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "splitlot/layout.h"
+#include "splitlot/plan.h"
 #include "test_support.h"
 
 #define DEMO_PLAN SL_SOURCE_DIR "/plans/demo.yaml"
@@ -221,6 +224,94 @@ START_TEST(counts_match_plan)
 }
 END_TEST
 
+/* Only load-to-load scatter (wafer sigma 1 cm^-2, device sigma 0, no thickness scatter):
+ * the wafers of one load share their doping, loads differ, and wafers that
+ * skip the batched step all have the planned doping. */
+static const char batched_plan[] =
+    "lot: SIM-B\n"
+    "temperatures_K: [300]\n"
+    "dielectrics: [ { name: ox, layers: [ { material: SiO2, thickness_nm: 90 } ] } ]\n"
+    "treatments: [ { name: t, doping_per_cm2: { mean: 1e12 } } ]\n"
+    "design: { kind: full-factorial, factors: { dielectric: [ox], step: [none, t] },\n"
+    "          wafers_per_split: 4 }\n"
+    "batches: [ { step: t, capacity: 2 } ]\n"
+    "variation: { wafer_sigma_per_cm2: 1, device_sigma_V: 0, batch_sigma_per_cm2: 3e11 }\n"
+    "wafers: 8\n"
+    "devices_per_wafer: 3\n"
+    "seed: 5\n";
+
+/* Doping of each wafer from truth.csv (column 11), -1e30 where devices disagree. */
+static void wafer_doping(const char *truth, const sl_plan *plan, double *doping)
+{
+    for (size_t w = 0; w < plan->n_wafers; w++)
+        doping[w] = NAN;
+    const char *line = strchr(truth, '\n');
+    while (line && line[1]) {
+        line++;
+        char wafer[32] = "";
+        double value = 0.0;
+        const char *field = line;
+        sscanf(field, "%31[^,]", wafer);
+        for (int k = 0; k < 10 && field; k++)
+            field = strchr(field, ',') ? strchr(field, ',') + 1 : NULL;
+        ck_assert_ptr_nonnull(field);
+        value = strtod(field, NULL);
+        long w = sl_plan_wafer_index(plan, wafer);
+        ck_assert_int_ge(w, 0);
+        if (isnan(doping[w]))
+            doping[w] = value;
+        else if (fabs(doping[w] - value) > 1e6)
+            doping[w] = -1e30;
+        line = strchr(line, '\n');
+    }
+}
+
+START_TEST(load_scatter_shared_by_a_load)
+{
+    char *dir = sl_test_tmpdir();
+    char *plan_path = sl_test_path(dir, "b.yaml");
+    FILE *f = fopen(plan_path, "w");
+    fputs(batched_plan, f);
+    fclose(f);
+    const char *argv[] = { "simulate", plan_path, "--out", "o", "--seed", "3", NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *plan = NULL;
+    sl_layout *l = NULL;
+    ck_assert_int_eq(sl_plan_load(&plan, plan_path, diag), SL_OK);
+    ck_assert_int_eq(sl_layout_build(&l, plan, diag), SL_OK);
+    char *truth_path = sl_test_path(dir, "o/truth.csv");
+    char *truth = sl_test_read_file(truth_path, NULL);
+    double doping[8];
+    wafer_doping(truth, plan, doping);
+    /* baseline 0 + dielectric 0 + t 1e12 = 1e12, plus the load's offset */
+    double load_doping[3] = { NAN, NAN, NAN };
+    for (size_t w = 0; w < 8; w++) {
+        ck_assert(doping[w] > -1e29); /* one value per wafer: no device scatter */
+        size_t load = l->wafers[w].load[0];
+        if (load == 0) {
+            ck_assert_double_eq_tol(doping[w], 0.0, 1e6);
+            continue;
+        }
+        ck_assert_uint_le(load, 2);
+        if (isnan(load_doping[load]))
+            load_doping[load] = doping[w];
+        ck_assert_double_eq_tol(doping[w], load_doping[load], 1e6);
+    }
+    ck_assert(fabs(load_doping[1] - load_doping[2]) > 1e9);
+    ck_assert(fabs(load_doping[1] - 1e12) > 1e9); /* an offset was drawn */
+    free(truth);
+    free(truth_path);
+    sl_layout_free(l);
+    sl_plan_free(plan);
+    sl_diag_free(diag);
+    free(plan_path);
+    drop_dir(dir);
+}
+END_TEST
+
 /* Every probed device at both of the demo plan's temperatures, 300 then 77
  * K: the same neutrality point (within the 0.02 V noise of a results row),
  * the residual density with the 77 K thermal floor in place of the 300 K
@@ -301,6 +392,7 @@ static Suite *simulate_suite(void)
     tcase_add_test(tc, unknown_level_refused);
     tcase_add_test(tc, counts_match_plan);
     tcase_add_test(tc, every_plan_temperature);
+    tcase_add_test(tc, load_scatter_shared_by_a_load);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -11,6 +11,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <gsl/gsl_cdf.h>
 #include <gsl/gsl_randist.h>
 #include <gsl/gsl_rng.h>
 #include <gsl/gsl_statistics_double.h>
@@ -751,45 +752,185 @@ START_TEST(test_ichart_short_series)
 }
 END_TEST
 
-/* ---- Sample size ----------------------------------------------------------- */
+/* ---- Noncentral t, verdicts, power ------------------------------------------ */
 
-/* Reference iteration in SciPy, the same rule as the header:
- * nnorm = 2*s**2*(norm.ppf(1-a/2) + norm.ppf(pw))**2/d**2; n = max(2, ceil(nnorm))
- * repeat: df = 2*(n-1); nx = max(2, ceil(2*s**2*(t.ppf(1-a/2, df) + t.ppf(pw, df))**2/d**2))
- * until nx == n (or nx equals the value before n: take max(n, nx)),
- * with t = scipy.stats.t, norm = scipy.stats.norm. */
-START_TEST(test_sample_size_against_scipy)
+typedef struct {
+    double t, df, nc, sf;
+} nct_case;
+
+/* Each sf is scipy.stats.nct.sf(t, df, nc) in SciPy 1.10.1, e.g.
+ * scipy.stats.nct.sf(2.0, 5, 1.0) = 0.221925337384 (the call on each row with
+ * that row's three arguments). */
+static const nct_case nct_cases[] = {
+    { 2.0, 5, 1.0, 0.221925337384 },
+    { 1.5, 1, 2.5, 0.835511570087 },
+    { 0.5, 30, -1.0, 0.0677476396683 },
+    { 2.1009, 18, 3.0, 0.809712027997 },
+    { -1.0, 3, 0.5, 0.907878790186 },
+    { 3.0, 2.5, 4.0, 0.790354992308 },
+    { 2.0, 100, 2.0, 0.501985541213 },
+    { 2.0, 800, 2.5, 0.691462769753 },
+    { 0.0, 10, 0.0, 0.5 },
+    { 5.0, 4, 8.0, 0.945201718526 },
+    { -2.0, 7, -3.0, 0.171545757192 },
+    { 2.2281, 10, 0.25, 0.0415728038905 },
+    { 2.0, 12, 12.0, 1.0 },
+};
+
+START_TEST(test_nct_against_scipy)
 {
-    static const struct { double sigma, delta, alpha, power, n_normal; size_t n; } table[] = {
-        { 0.6, 0.3, 0.05, 0.9, 84.05938449152495, 86 },   /* V: shift 0.3, device sigma 0.6 */
-        { 0.6, -0.3, 0.05, 0.9, 84.05938449152495, 86 },  /* the sign of delta does not matter */
-        { 1.0, 1.0, 0.05, 0.8, 15.697759468698177, 17 },
-        { 0.25, 0.1, 0.01, 0.95, 222.67705499771515, 225 },
-        { 0.5, 2.0, 0.05, 0.8, 0.981109966793636, 4 },    /* alternates 2, 4: larger kept */
-    };
-    for (size_t i = 0; i < N_OF(table); i++) {
-        size_t n = 0;
-        double nn = sl_stats_sample_size_normal(table[i].sigma, table[i].delta, table[i].alpha,
-                                                table[i].power);
-        check_near("normal n", nn, table[i].n_normal, 1e-9);
-        ck_assert_int_eq(sl_stats_sample_size_per_group(&n, table[i].sigma, table[i].delta,
-                                                        table[i].alpha, table[i].power),
-                         SL_OK);
-        ck_assert_uint_eq(n, table[i].n);
+    for (size_t i = 0; i < sizeof nct_cases / sizeof nct_cases[0]; i++) {
+        const nct_case *c = &nct_cases[i];
+        double sf = sl_stats_nct_sf(c->t, c->df, c->nc);
+        ck_assert_msg(fabs(sf - c->sf) < 1e-6, "row %zu: %.10g vs %.10g", i, sf, c->sf);
+        ck_assert_double_eq_tol(sl_stats_nct_cdf(c->t, c->df, c->nc), 1.0 - c->sf, 1e-6);
     }
+    /* nc = 0 is Student t: gsl_cdf_tdist_Q(1.3, 6) */
+    ck_assert_double_eq_tol(sl_stats_nct_sf(1.3, 6, 0.0), gsl_cdf_tdist_Q(1.3, 6), 1e-9);
+    ck_assert(isnan(sl_stats_nct_sf(1.0, 0.0, 1.0)));
+    ck_assert(isnan(sl_stats_nct_sf(NAN, 3.0, 1.0)));
 }
 END_TEST
 
-START_TEST(test_sample_size_bad_input)
+START_TEST(test_verdicts)
 {
-    size_t n = 99;
-    ck_assert_int_eq(sl_stats_sample_size_per_group(&n, 0.0, 0.3, 0.05, 0.9), SL_EINPUT);
-    ck_assert_int_eq(sl_stats_sample_size_per_group(&n, 0.6, 0.0, 0.05, 0.9), SL_EINPUT);
-    ck_assert_int_eq(sl_stats_sample_size_per_group(&n, 0.6, 0.3, 1.0, 0.9), SL_EINPUT);
-    ck_assert_int_eq(sl_stats_sample_size_per_group(&n, 0.6, 0.3, 0.05, 0.0), SL_EINPUT);
-    ck_assert_int_eq(sl_stats_sample_size_per_group(&n, 1.0, 1e-6, 0.05, 0.9), SL_EINPUT);
-    ck_assert_uint_eq(n, 99);
-    ck_assert(isnan(sl_stats_sample_size_normal(-1.0, 0.3, 0.05, 0.9)));
+    /* t_{0.975, 10} = 2.228139 (gsl_cdf_tdist_Pinv); T = 1 */
+    double t = gsl_cdf_tdist_Pinv(0.975, 10);
+    ck_assert_int_eq(sl_stats_verdict(0.1, 0.1, 10, 1.0, 0.05), SL_VERDICT_AS_PLANNED);
+    ck_assert_int_eq(sl_stats_verdict(1.0 + t * 0.1 + 1e-6, 0.1, 10, 1.0, 0.05),
+                     SL_VERDICT_OFF_PLAN);
+    ck_assert_int_eq(sl_stats_verdict(-2.0, 0.1, 10, 1.0, 0.05), SL_VERDICT_OFF_PLAN);
+    ck_assert_int_eq(sl_stats_verdict(1.0, 0.1, 10, 1.0, 0.05), SL_VERDICT_DIFFERS);
+    ck_assert_int_eq(sl_stats_verdict(0.3, 0.5, 10, 1.0, 0.05), SL_VERDICT_INCONCLUSIVE);
+    ck_assert_int_eq(sl_stats_verdict(5.0, 0.1, 0.0, 1.0, 0.05), SL_VERDICT_INCONCLUSIVE);
+    ck_assert_int_eq(sl_stats_verdict(5.0, NAN, 4.0, 1.0, 0.05), SL_VERDICT_INCONCLUSIVE);
+    ck_assert_str_eq(sl_stats_verdict_name(SL_VERDICT_OFF_PLAN), "off-plan");
+}
+END_TEST
+
+/* Power = P[t'(df, shift/se) > t_{1-a/2,df}] + P[t'(df, (2T+shift)/se) < -t_{1-a/2,df}];
+ * se 0.1, T 0.3, shift 0.25, df 12, alpha 0.05: t_{0.975,12} = 2.17881283
+ * (scipy.stats.t.ppf(0.975, 12)); scipy.stats.nct.sf(2.1788128296634177, 12, 2.5)
+ * = 0.6319957846836533 and scipy.stats.nct.cdf(-2.1788128296634177, 12, 8.5)
+ * = 0.0 (below double precision there). */
+START_TEST(test_offplan_power)
+{
+    double t = gsl_cdf_tdist_Pinv(0.975, 12);
+    double power = sl_stats_offplan_power(0.1, 12, 0.3, 0.25, 0.05);
+    ck_assert_double_eq_tol(power, sl_stats_nct_sf(t, 12, 2.5), 1e-12);
+    ck_assert_double_eq_tol(power, 0.6319957846836533, 1e-6);
+    /* at T = 0 the false rate is the two-sided alpha */
+    ck_assert_double_eq_tol(sl_stats_offplan_false_rate(0.1, 12, 0.0, 0.05), 0.05, 1e-8);
+    ck_assert(sl_stats_offplan_false_rate(0.1, 12, 0.3, 0.05) < 1e-3);
+    ck_assert_double_eq(sl_stats_offplan_power(0.1, 0.0, 0.3, 0.25, 0.05), 0.0);
+    ck_assert(isnan(sl_stats_offplan_power(0.0, 12, 0.3, 0.25, 0.05)));
+}
+END_TEST
+
+/* ---- GLS covariance ------------------------------------------------------- */
+
+/* 2 x 2 factorial, two wafers per cell, columns intercept, A, B (A slowest). */
+static const double design_2x2[8 * 3] = {
+    1, 0, 0, 1, 0, 0, 1, 0, 1, 1, 0, 1, 1, 1, 0, 1, 1, 0, 1, 1, 1, 1, 1, 1,
+};
+
+static void check_gls_se(const sl_stats_gls_model *m, const double *se, double cov01)
+{
+    double cov[9];
+    ck_assert_int_eq(sl_stats_gls_cov(cov, m), SL_OK);
+    for (size_t k = 0; k < 3; k++)
+        ck_assert_double_eq_tol(sqrt(cov[k * 3 + k]), se[k], 1e-10 * se[k]);
+    ck_assert_double_eq_tol(cov[1], cov01, 1e-10);
+}
+
+/* Reference: numpy, C = np.linalg.inv(X.T @ np.linalg.inv(V) @ X) with
+ * V = np.diag(v) + load_var * Z @ Z.T; se = np.sqrt(np.diag(C)). */
+START_TEST(test_gls_cov_against_numpy)
+{
+    double v8[8] = { 2, 2, 2, 2, 2, 2, 2, 2 };
+    sl_stats_gls_model balanced = { 8, 3, 0, 0, design_2x2, v8, NULL, 0.0 };
+    check_gls_se(&balanced, (const double[]){ 0.866025403784, 1.0, 1.0 }, -0.5);
+
+    /* a spare wafer added to cell (1, 1); var = 1 + 0.5 / m, m usable devices
+     * 30, 25, 30, 31, 20, 30, 28, 30, 15 */
+    double x9[9 * 3];
+    memcpy(x9, design_2x2, sizeof design_2x2);
+    x9[24] = 1, x9[25] = 1, x9[26] = 1;
+    const double m[9] = { 30, 25, 30, 31, 20, 30, 28, 30, 15 };
+    double v9[9];
+    for (size_t i = 0; i < 9; i++)
+        v9[i] = 1.0 + 0.5 / m[i];
+    sl_stats_gls_model unbalanced = { 9, 3, 0, 0, x9, v9, NULL, 0.0 };
+    check_gls_se(&unbalanced, (const double[]){ 0.608627490399, 0.68063682899, 0.680782995347 },
+                 -0.231350885464);
+
+    /* the B = 1 wafers (rows 2, 3, 6, 7) in two loads balanced over A, load_var 0.7 */
+    const long load[8] = { -1, -1, 0, 1, -1, -1, 0, 1 };
+    sl_stats_gls_model batched = { 8, 3, 2, 1, design_2x2, v8, load, 0.7 };
+    check_gls_se(&batched, (const double[]){ 0.866025403784, 1.0, 1.16189500386 }, -0.5);
+
+    /* a load scatter 1e22 times the wafers': exact rational arithmetic
+     * (python3 fractions.Fraction, Gauss-Jordan on the same X and V) gives
+     * se 0.866025403784, 1 and 70710678118.7 */
+    sl_stats_gls_model wide = { 8, 3, 2, 1, design_2x2, v8, load, 1e22 };
+    check_gls_se(&wide, (const double[]){ 0.866025403784, 1.0, 70710678118.7 }, -0.5);
+
+    /* two batched steps (the loads' block no longer diagonal): step 2 takes
+     * rows 0, 1, 4, 5 in load 2 and rows 2, 3 in load 3 */
+    const long load2[8 * 2] = { -1, 2, -1, 2, 0, 3, 1, 3, -1, 2, -1, 2, 0, -1, 1, -1 };
+    sl_stats_gls_model two_steps = { 8, 3, 4, 2, design_2x2, v8, load2, 0.7 };
+    check_gls_se(&two_steps, (const double[]){ 1.21952205497, 1.07188440152, 1.48288103711 },
+                 -0.574468085106);
+
+    /* B is carried by the loads: 2 loads + 4 wafers outside = 6 units - 3 */
+    double df[3];
+    sl_stats_coef_df(df, &batched);
+    ck_assert_double_eq(df[1], 5.0);
+    ck_assert_double_eq(df[2], 3.0);
+    v8[0] = 0.0;
+    ck_assert_int_eq(sl_stats_gls_cov(df, &balanced), SL_EINPUT);
+}
+END_TEST
+
+/* Balanced wafers with equal devices: the wafer-level least squares is
+ * ordinary least squares of the means, whatever the variance components, so
+ * coef and se must equal sl_stats_linear_fit's, without loads (the moments
+ * estimator) and with loads of one wafer each and no load scatter found. */
+START_TEST(test_wafer_effects_balanced_is_ols)
+{
+    const double y[8] = { 1.0e12, 1.2e12, 2.1e12, 1.8e12, 0.4e12, 0.7e12, 1.6e12, 1.3e12 };
+    double var[8];
+    for (size_t i = 0; i < 8; i++)
+        var[i] = 0.04 * 2.0e11 * 2.0e11 / 25; /* 0.2 V over 25 devices at 2e11 cm^-2/V */
+    sl_stats_wafer_data in = { 8, 3, 0, 0, design_2x2, y, var, NULL };
+    sl_stats_wafer_fit fit;
+    ck_assert_int_eq(sl_stats_wafer_effects(&fit, &in), SL_OK);
+    sl_stats_fit *ols = NULL;
+    ck_assert_int_eq(sl_stats_linear_fit(&ols, design_2x2, y, NULL, 8, 3, NULL), SL_OK);
+    for (size_t k = 0; k < 3; k++) {
+        ck_assert_double_eq_tol(fit.coef[k], ols->coef[k], 1e-6 * 1e12);
+        ck_assert_double_eq_tol(fit.se[k], ols->se[k], 1e-6 * ols->se[k]);
+        ck_assert_double_eq(fit.df[k], 5.0);
+    }
+    /* moments: sigma_w^2 = RSS / (n - p) - v for equal v (balanced) */
+    double expect = ols->resid_var - var[0];
+    ck_assert_double_eq_tol(fit.wafer_sigma_per_cm2 * fit.wafer_sigma_per_cm2, expect,
+                            1e-6 * expect);
+    /* REML with every wafer its own load: the components share out the same
+     * total, and the balanced fit is still ordinary least squares */
+    const long own[8] = { 0, 1, 2, 3, 4, 5, 6, 7 };
+    sl_stats_wafer_data loaded = { 8, 3, 8, 1, design_2x2, y, var, own };
+    ck_assert_int_eq(sl_stats_wafer_effects(&fit, &loaded), SL_OK);
+    for (size_t k = 0; k < 3; k++) {
+        ck_assert_double_eq_tol(fit.coef[k], ols->coef[k], 1e-6 * 1e12);
+        ck_assert_double_eq_tol(fit.se[k], ols->se[k], 1e-4 * ols->se[k]);
+    }
+    double total = fit.wafer_sigma_per_cm2 * fit.wafer_sigma_per_cm2 +
+                   fit.load_sigma_per_cm2 * fit.load_sigma_per_cm2;
+    ck_assert_double_eq_tol(total, expect, 1e-2 * expect);
+    sl_stats_fit_free(ols);
+    in.n_wafers = 3; /* not more wafers than coefficients */
+    ck_assert_int_eq(sl_stats_wafer_effects(&fit, &in), SL_EINPUT);
 }
 END_TEST
 
@@ -942,8 +1083,11 @@ static Suite *stats_suite(void)
     tcase_add_test(tc, test_pool_edges);
     tcase_add_test(tc, test_ichart_by_hand);
     tcase_add_test(tc, test_ichart_short_series);
-    tcase_add_test(tc, test_sample_size_against_scipy);
-    tcase_add_test(tc, test_sample_size_bad_input);
+    tcase_add_test(tc, test_nct_against_scipy);
+    tcase_add_test(tc, test_verdicts);
+    tcase_add_test(tc, test_offplan_power);
+    tcase_add_test(tc, test_gls_cov_against_numpy);
+    tcase_add_test(tc, test_wafer_effects_balanced_is_ols);
     tcase_add_test(tc, test_components_fit_against_numpy);
     tcase_add_test(tc, test_censored_mean_against_scipy);
     tcase_add_test(tc, test_verdict_table);

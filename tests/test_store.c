@@ -435,6 +435,10 @@ START_TEST(sweep_round_trip_exact)
     const size_t n = sizeof vg / sizeof vg[0];
     sl_diag *diag = sl_diag_new();
     sl_store_device d = device_named("W01", "D007");
+    d.fit_model = "two-mobility";
+    d.electron_mobility_cm2_per_Vs = 2500.0;
+    d.hole_mobility_cm2_per_Vs = 1800.0;
+    d.hysteresis_V = 0.25;
     d.vg_V = vg;
     d.r_ohm = r;
     d.n_points = n;
@@ -487,6 +491,10 @@ START_TEST(sweep_round_trip_exact)
     ck_assert_double_eq(rows[0].cnp_V, 1.25);
     ck_assert_double_eq(rows[0].r_contact_ohm, 0.0);
     ck_assert(isnan(rows[0].cnp_sigma_V) && isnan(rows[0].rel_rms) && isnan(rows[0].r_squared));
+    ck_assert_str_eq(rows[0].fit_model, "two-mobility");
+    ck_assert(rows[0].electron_mobility_cm2_per_Vs == 2500.0 &&
+              rows[0].hole_mobility_cm2_per_Vs == 1800.0 && rows[0].hysteresis_V == 0.25);
+    ck_assert(isnan(rows[0].channel_length_um) && rows[0].measurements == 1);
     free(rows);
     ck_assert_int_eq(sl_store_load_sweep(s.store, &vg2, &r2, &n2, id + 1000, diag), SL_ENOTFOUND);
     sl_diag_free(diag);
@@ -1257,8 +1265,8 @@ START_TEST(migration_from_version_3_keeps_every_device)
     char step[65];
     double t = 0;
     const double temperatures[] = { 300.0 };
-    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, temperatures, 1, diag),
-                     SL_OK);
+    ck_assert_int_eq(sl_store_default_view(store, step, &t, lot.lot_id, NULL, temperatures, 1,
+                                           diag), SL_OK);
     ck_assert(strcmp(step, "final") == 0 && t == 300.0);
     sl_store_device_row *rows = NULL;
     ck_assert_int_eq(sl_store_load_devices(store, &rows, &n, lot.lot_id, step, t, diag), SL_OK);
@@ -1306,6 +1314,36 @@ START_TEST(constraint_failures_say_which)
     }
     ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement_run"), runs);
     ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM lot"), 1);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* A query that fails is an error naming what was asked, never a value: a
+ * count of devices, the list of lots, and an unknown lot whose known lots
+ * cannot be listed. */
+START_TEST(failed_queries_are_errors)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    long count = 12345;
+    ck_assert_int_eq(sl_store_exec(s.store, "PRAGMA foreign_keys = OFF; DROP VIEW measurement_view; "
+                                            "ALTER TABLE device RENAME TO device_gone",
+                                   diag, "break the schema"), SL_OK);
+    ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_EDB);
+    ck_assert_int_eq(count, 12345);
+    ck_assert_msg(strstr(sl_diag_last(diag), "no such table: device"), "%s", sl_diag_last(diag));
+    sl_diag_clear(diag);
+    ck_assert_int_eq(sl_store_exec(s.store, "ALTER TABLE lot RENAME TO lot_gone", diag,
+                                   "break the schema"), SL_OK);
+    char **names = NULL;
+    size_t n = 7;
+    ck_assert_int_eq(sl_store_list_lots(s.store, &names, &n, diag), SL_EDB);
+    ck_assert(names == NULL && n == 0);
+    sl_diag_clear(diag);
+    sl_store_lot lot;
+    ck_assert_int_eq(sl_store_find_lot(s.store, &lot, "NOPE", diag), SL_EDB);
+    ck_assert_msg(!strstr(sl_diag_last(diag), "not in the database"), "%s", sl_diag_last(diag));
+    sl_diag_free(diag);
     demo_store_free(&s);
 }
 END_TEST
@@ -1367,6 +1405,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, migration_from_version_3_keeps_every_device);
     tcase_add_test(tc, sha256_fips_examples);
     tcase_add_test(tc, constraint_failures_say_which);
+    tcase_add_test(tc, failed_queries_are_errors);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);

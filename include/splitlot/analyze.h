@@ -120,10 +120,15 @@ typedef struct sl_analysis {
     size_t n_verdict[4];         /* levels (not the intercept) per verdict */
     size_t n_censored;           /* devices with V_cnp beyond the sweep */
     size_t n_splits_censored;    /* splits with more than 10 % censored */
+    size_t n_wafers_censored_biased; /* wafers with censored devices whose mean
+                                    is the plain mean of the rest (no device
+                                    scatter to fit with): biased */
     size_t n_outlier_scored;     /* devices the outlier rule scored */
     double outliers_expected;    /* good devices it flags by chance: 2 Q(3.5) n */
     double device_sigma_V;       /* pooled within-wafer SD of V_cnp (NaN: none) */
     double wafer_sigma_per_cm2;  /* wafer-to-wafer SD of doping, from the fit */
+    double load_sigma_per_cm2;   /* load-to-load SD of a batched step (REML);
+                                    NaN without batches */
     char intercept_name[256];    /* "baseline + <reference levels>", the
                                     intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
@@ -163,14 +168,18 @@ void sl_analysis_free(sl_analysis *analysis);
 
 typedef struct sl_analysis_stream sl_analysis_stream;
 
-/* Analyse a lot in passes over its devices, holding state per split and per
- * wafer only. The devices on the plan's wafers are copied, wafer by wafer in
- * the order of sl_store_load_devices, into the store's scratch (a temporary
- * table in a file); one pass over their usable V_cnp gives each split's
- * count, mean and SD (gsl_rstat), more passes each split's exact median and
- * MAD (sl_stats_median_search); a last pass scores every device, lists the
- * flagged ones by severity in the scratch and sums the wafer means; then the
- * effects and the ANOVA (from each split's moments, sl_stats_anova_moments).
+/* Analyse a lot in passes over its devices, holding state per wafer, split
+ * and dielectric only. The devices on the plan's wafers are copied, wafer by
+ * wafer in the order of sl_store_load_devices, into the store's scratch (a
+ * temporary table in a file); one pass over their usable V_cnp gives each
+ * wafer's count and range, more passes each wafer's exact median and each
+ * dielectric's MAD of the residuals from the wafer medians
+ * (sl_stats_median_search); a last pass scores every device, lists the
+ * flagged ones by severity in the scratch, keeps each wafer's running
+ * moments of its usable non-outliers and the bounds of its devices beyond
+ * the sweep (read from their stored sweeps); then, with the wafer as the
+ * unit, the wafer means (censored-normal maximum likelihood where needed),
+ * split summaries, the ANOVA of wafer means, the effects and verdicts.
  * The results are those of sl_analyze_lot: the summary has everything but
  * the devices, which are read back one at a time, in the same order, with
  * sl_analysis_stream_next_device, and the failure-analysis list with
@@ -243,8 +252,10 @@ typedef struct sl_history {
     sl_plan *newest_plan;        /* for calibrated YAML */
     double wafer_sigma_per_cm2;  /* RMS over the lots of their wafer sigma */
     double device_sigma_V;       /* RMS over the lots of their device sigma */
-    double wafer_var_sum, device_var_sum;
-    size_t n_wafer_sigma, n_device_sigma;
+    double batch_sigma_per_cm2;  /* RMS over the lots with batches of their load
+                                    sigma; NaN when none had batches */
+    double wafer_var_sum, device_var_sum, batch_var_sum;
+    size_t n_wafer_sigma, n_device_sigma, n_batch_sigma;
 } sl_history;
 
 /* Effects of every lot in the store, grouped by level. */

@@ -15,7 +15,11 @@
 #include "splitlot/physics.h"
 #include "splitlot/units.h"
 
-typedef enum { SL_DESIGN_FULL_FACTORIAL = 0, SL_DESIGN_EXPLICIT } sl_design_kind;
+typedef enum {
+    SL_DESIGN_FULL_FACTORIAL = 0,
+    SL_DESIGN_EXPLICIT,
+    SL_DESIGN_FRACTIONAL_FACTORIAL /* 2^(k-p): the splits of the generators' fraction */
+} sl_design_kind;
 
 /* A material: built-in (physics.h table) or added/overridden by the plan. */
 typedef struct {
@@ -70,10 +74,42 @@ typedef struct {
     size_t n_wafers;
 } sl_plan_split;
 
+/* What the lot must resolve: a level that misses its plan by its tolerance
+ * plus shift is to be judged off-plan with probability power at level alpha.
+ * The shift is given per cm^2 (shift_per_cm2 > 0), or in volts per split
+ * (shift_V > 0, converted with each split's planned gate capacitance); the
+ * other one is 0. device_sigma_V is the older way to give the device scatter
+ * (0 when absent); the variation block supersedes it. */
 typedef struct {
     int present;
-    double shift_V, device_sigma_V, alpha, power;
+    double shift_per_cm2, shift_V, device_sigma_V, alpha, power;
 } sl_plan_resolve;
+
+/* The scatter the power calculation and the analysis assume: wafer to wafer
+ * within a split (cm^-2), device to device within a wafer (volts of neutrality
+ * point), load to load of a batched step (cm^-2, 0 without batches). */
+typedef struct {
+    int present;
+    double wafer_sigma_per_cm2, device_sigma_V, batch_sigma_per_cm2;
+} sl_plan_variation;
+
+/* A process step done in loads of at most capacity wafers: a treatment (or a
+ * dielectric's deposition) named by step. */
+typedef struct {
+    char *step;
+    int is_dielectric;       /* step names a dielectric, else a treatment */
+    size_t ref;              /* index into plan->dielectrics or plan->treatments */
+    long capacity;           /* >= 1 */
+} sl_plan_batch;
+
+/* Fractional factorial: factor `factor` takes the level whose +/-1 code
+ * (level 0 = -1, level 1 = +1) is the product of the codes of the factors in
+ * `of` (all two-level, none itself generated). */
+typedef struct {
+    size_t factor;
+    size_t *of;
+    size_t n_of;
+} sl_plan_generator;
 
 typedef struct sl_plan {
     char *path;              /* as given to sl_plan_load, for messages */
@@ -81,6 +117,7 @@ typedef struct sl_plan {
     size_t text_len;
     char *lot;
     char *title;             /* "" when absent */
+    char *processed;         /* process date YYYY-MM-DD, NULL when absent */
     double fermi_velocity_m_s;        /* default 1.0e6 */
     double disorder_density_per_cm2;  /* default 0 (none given) */
     double *temperatures_K;
@@ -106,6 +143,11 @@ typedef struct sl_plan {
     long devices_per_wafer;
     uint64_t seed;
     sl_plan_resolve resolve;
+    sl_plan_variation variation;
+    sl_plan_batch *batches;
+    size_t n_batches;
+    sl_plan_generator *generators;    /* fractional-factorial only */
+    size_t n_generators;
     double gate_derating;             /* 0.5: safe range from breakdown */
 } sl_plan;
 
@@ -141,6 +183,42 @@ double sl_plan_level_tolerance_per_cm2(const sl_plan *plan, size_t factor, size_
 /* Index of a split by name, of a wafer id by name; -1 when absent. */
 long sl_plan_split_index(const sl_plan *plan, const char *name);
 long sl_plan_wafer_index(const sl_plan *plan, const char *wafer);
+
+/* The batch of a step: the batch whose step is that dielectric (is_dielectric
+ * 1) or treatment, or NULL when the step is not batched. */
+const sl_plan_batch *sl_plan_batch_of(const sl_plan *plan, int is_dielectric, size_t ref);
+
+/* ---- fractional factorials (src/plan_fraction.c) ---- */
+
+#define SL_PLAN_MAX_GENERATORS 10
+
+/* The defining relation of a fractional design: every product of generator
+ * words I = factor * its generating factors, as factor bit masks (bit f for
+ * plan->factors[f]), and the resolution, the length of the shortest word
+ * (Box and Hunter; Montgomery, Design and Analysis of Experiments, ch. 8).
+ * A design without generators has no words and resolution 0. */
+typedef struct {
+    size_t n_words;
+    unsigned long words[(1u << SL_PLAN_MAX_GENERATORS) - 1];
+    int resolution;
+} sl_plan_fraction;
+
+/* Fill the defining relation of the plan's generators.
+ * Returns SL_OK, SL_EINPUT (more than SL_PLAN_MAX_GENERATORS generators). */
+sl_status sl_plan_fraction_info(sl_plan_fraction *out, const sl_plan *plan);
+
+/* An effect's name from its factor mask: factor names joined by '*' in factor
+ * order ("dielectric*anneal"); "I" for 0. Returns the length it needs. */
+size_t sl_plan_effect_name(char *buf, size_t size, const sl_plan *plan, unsigned long mask);
+
+/* The alias chains of the main effects and two-factor interactions, each
+ * once, as "cap = dielectric*anneal" (an effect, then its aliases of up to
+ * three factors, shortest first; higher interactions are left out), and
+ * whether some main effect is aliased with a two-factor interaction. *out is
+ * a malloc'd array of malloc'd strings (free each, then the array); none for
+ * a design without generators. Returns SL_OK, SL_EINPUT, SL_ENOMEM. */
+sl_status sl_plan_fraction_aliases(char ***out, size_t *n, int *main_with_2fi,
+                                   const sl_plan *plan);
 
 /* 64-bit FNV-1a hash of the plan text, as 16 lowercase hex digits + NUL. */
 void sl_plan_hash_hex(const sl_plan *plan, char out[17]);

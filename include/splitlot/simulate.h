@@ -1,8 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Synthetic lots for demos, tests and benchmarks, drawn from a plan's own
  * model: true level dopings (the planned means, drawn from the plan's sigmas
- * on request, or set by overrides), per-wafer layer thicknesses and doping,
- * per-device doping scatter, mobility, residual density and contact
+ * on request, or set by overrides), per-wafer layer thicknesses, per-load,
+ * per-wafer and per-device doping scatter from the plan's variation block,
+ * mobility, residual density and contact
  * resistance, measurement noise, and a few faulty devices of each kind.
  * Sweeps follow the transfer curve with the gate's density from the charge
  * balance with quantum capacitance, solved at every point at the
@@ -32,7 +33,8 @@ typedef struct {
     double fault_fraction;         /* devices made faulty, default 0.02 */
     double shifted_fraction;       /* good devices given an odd extra shift, default 0.005 */
     double shift_V;                /* that extra shift, default 3 V */
-    double wafer_doping_sigma_per_cm2; /* wafer-to-wafer scatter, default 1e11 */
+    double wafer_doping_sigma_per_cm2; /* wafer-to-wafer scatter for a plan without
+                                          a variation block, default 1e11 */
     long devices_per_wafer;        /* 0: the plan's */
     int write_sweeps;              /* write sweeps.csv (default on) */
     int draw_levels;               /* draw each level's true doping from the plan's

@@ -1,7 +1,8 @@
 /* SPDX-License-Identifier: MIT
  * Statistics for split-lot analysis: robust outlier scores, sample summaries,
  * t and normal quantiles, main-effects least squares, one-way ANOVA, pooling
- * of estimates across lots, the individuals control chart and sample size.
+ * of estimates across lots, the individuals control chart, the noncentral t,
+ * verdicts against a plan, their power, and wafer-level GLS of effects.
  * Numbers in, numbers out: no I/O, no knowledge of plans, lots or databases.
  * Heavy lifting is done by GSL; call sl_physics_init() (GSL errors off) first.
  */
@@ -27,6 +28,8 @@
 #define SL_STATS_CHART_SIGMAS 3.0
 /* Relative singular value below which a design column counts as dependent. */
 #define SL_STATS_RANK_TOL 1e-10
+/* Most coefficients a wafer-level fit takes. */
+#define SL_STATS_MAX_COEF 64
 /* sl_stats_column.factor of the intercept column. */
 #define SL_STATS_INTERCEPT ((size_t)-1)
 
@@ -381,22 +384,94 @@ typedef struct {
 sl_status sl_stats_individuals_chart(sl_stats_ichart *out, int *flags, const double *x,
                                      size_t n);
 
-/* ---- Sample size ----------------------------------------------------------- */
+/* ---- Noncentral t and power (src/stats_power.c) ----------------------------- */
 
-/* Normal-approximation size per group of a two-sided two-sample comparison of
- * means, n = 2 sigma^2 (z_{1-alpha/2} + z_{power})^2 / delta^2, not rounded.
- * NaN unless sigma > 0, delta != 0, 0 < alpha < 1, 0 < power < 1. */
-double sl_stats_sample_size_normal(double sigma, double delta, double alpha, double power);
+/* Survival function P[T' > t] of the noncentral t with df > 0 degrees of
+ * freedom and noncentrality nc: T' = (Z + nc) / sqrt(V / df), Z standard
+ * normal, V chi-square with df. GSL has no noncentral t; this integrates
+ * P[Z > t sqrt(v/df) - nc] against the chi-square density of v
+ * (gsl_integration_qags/qagiu, gsl_cdf_ugaussian_Q, gsl_ran_chisq_pdf),
+ * absolute error below 1e-10. NaN for df <= 0 or a NaN argument. */
+double sl_stats_nct_sf(double t, double df, double nc);
 
-/* Size per group for the two-sided two-sample t test to detect a difference
- * delta between means with common SD sigma at significance alpha and the given
- * power (= 1 - beta): start from the normal approximation rounded up (at least
- * 2) and iterate n <- ceil(2 sigma^2 (t_{1-alpha/2,df} + t_{power,df})^2 / delta^2)
- * with df = 2 (n - 1) until n repeats (at least 2; if it alternates between two
- * values the larger is taken). Same units for sigma and delta. This is the
- * canonical implementation for the whole tool.
- * Returns SL_OK, SL_EINPUT for a bad argument or a size above 1e9. */
-sl_status sl_stats_sample_size_per_group(size_t *n, double sigma, double delta,
-                                         double alpha, double power);
+/* Distribution function P[T' <= t] = 1 - sl_stats_nct_sf(t, df, nc). */
+double sl_stats_nct_cdf(double t, double df, double nc);
+
+/* Probability that sl_stats_verdict says OFF_PLAN for a level whose true
+ * difference from plan is tolerance + shift, when its estimate is normal with
+ * standard error se and se is estimated with df degrees of freedom:
+ *   P[t'(df, shift/se) > t_{1-alpha/2,df}] + P[t'(df, (2T+shift)/se) < -t_{1-alpha/2,df}]
+ * (the second term, the interval beyond -T, is tiny). 0 for df < 1; NaN for
+ * se <= 0, tolerance < 0, shift < 0 or alpha outside (0, 1). */
+double sl_stats_offplan_power(double se, double df, double tolerance, double shift,
+                              double alpha);
+
+/* The same for a level exactly as planned (true difference 0): the rate of a
+ * false off-plan verdict, 2 P[t'(df, -T/se) > t_{1-alpha/2,df}]. */
+double sl_stats_offplan_false_rate(double se, double df, double tolerance, double alpha);
+
+/* ---- Generalised least squares of wafer means ------------------------------ */
+
+/* The variance model of n_obs wafer means in a linear model y = X b + e:
+ * Var(y) = V = diag(var) + load_var Z Z^T, var[i] the wafer's own variance
+ * (wafer scatter plus its devices' scatter / devices), Z (n_obs x n_loads,
+ * 0/1) the loads each wafer went through, given as load[i * n_steps + s]:
+ * the index (0 .. n_loads - 1) of wafer i's load in batched step s, or -1
+ * when the wafer skips that step; load_var the variance of a load's offset. */
+typedef struct {
+    size_t n_obs, n_coef, n_loads, n_steps;
+    const double *x;   /* n_obs x n_coef row-major */
+    const double *var; /* n_obs, > 0 */
+    const long *load;  /* n_obs x n_steps, or NULL when n_loads = 0 */
+    double load_var;   /* >= 0 */
+} sl_stats_gls_model;
+
+/* Covariance of the GLS estimate, cov = (X^T V^-1 X)^-1 (n_coef x n_coef,
+ * row-major, caller's array), V^-1 by the Woodbury identity so the cost is
+ * linear in n_obs (gsl_linalg_cholesky_decomp1, gsl_linalg_cholesky_invert;
+ * with one batched step the loads' block is diagonal and needs neither).
+ * Returns SL_OK, SL_EINPUT (bad sizes or variances), SL_ENUM (X^T V^-1 X is
+ * singular: a coefficient the design cannot estimate), SL_ENOMEM. */
+sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model);
+
+/* Residual df of each coefficient: n_obs - n_coef, except for a coefficient
+ * whose column is constant within every load and non-zero in some load of
+ * two or more wafers (a batched step's level: the load is its unit); it gets
+ * units - n_coef with every load counted once and every wafer outside loads
+ * once. df (n_coef entries) may come out <= 0: no interval then. */
+void sl_stats_coef_df(double *df, const sl_stats_gls_model *model);
+
+/* Wafer-level data of a measured lot for sl_stats_wafer_effects. */
+typedef struct {
+    size_t n_wafers, n_coef, n_loads, n_steps;
+    const double *x;             /* design, n_wafers x n_coef row-major */
+    const double *mean;          /* wafer mean of its devices' doping, cm^-2 */
+    const double *var;           /* its known sampling variance (device scatter /
+                                    devices behind it), cm^-4, >= 0 */
+    const long *load;            /* loads as in sl_stats_gls_model, or NULL */
+} sl_stats_wafer_data;
+
+/* Effects estimated from wafer means (the wafer, or the load, as the unit). */
+typedef struct {
+    size_t n_coef;
+    double coef[SL_STATS_MAX_COEF];
+    double se[SL_STATS_MAX_COEF];
+    double df[SL_STATS_MAX_COEF];   /* sl_stats_coef_df */
+    double wafer_sigma_per_cm2;     /* estimated, >= 0 */
+    double load_sigma_per_cm2;      /* estimated, 0 without loads */
+} sl_stats_wafer_fit;
+
+/* Main effects from wafer means, the analysis of a lot as the planner
+ * assumes it. Without loads: sl_stats_fit_components (wafer variance by
+ * moments, weights 1/(sigma_w^2 + v_i), scale from the residuals, n - p df).
+ * With loads: the wafer and load variance components by restricted maximum
+ * likelihood (Patterson and Thompson, Biometrika 58, 545 (1971); GSL
+ * minimisers), then generalised least squares with V = diag(sigma_w^2 + v_i)
+ * + sigma_b^2 Z Z^T as relative weights and the scale from the residuals;
+ * df per coefficient by sl_stats_coef_df. Balanced data without loads give
+ * exactly the classical t-test. Needs n_wafers > n_coef and n_coef <=
+ * SL_STATS_MAX_COEF. Returns SL_OK, SL_EINPUT (sizes, non-finite data),
+ * SL_ENUM (singular design or a minimiser failure), SL_ENOMEM. */
+sl_status sl_stats_wafer_effects(sl_stats_wafer_fit *out, const sl_stats_wafer_data *data);
 
 #endif

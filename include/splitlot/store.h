@@ -104,6 +104,14 @@ sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long r
                                  sl_diag *diag);
 void sl_store_revision_clear(sl_store_revision *revision);
 
+/* The load (1-based) of each of a stored revision's wafers in each batched
+ * step, as predict stored them: loads[w * n_steps + s] for rev->wafers[w]
+ * and the step named steps[s], 0 where the wafer went through no load of it
+ * (a spare, a step not batched). loads holds rev->n_wafers x n_steps.
+ * SL_OK, SL_EDB. */
+sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store_revision *rev,
+                                    const char *const *steps, size_t n_steps, sl_diag *diag);
+
 /* ---- measurement runs ---- */
 
 /* One run: a file's measurements at one step and temperature. */
@@ -139,11 +147,13 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
                              sl_diag *diag);
 void sl_store_runs_free(sl_store_run *runs, size_t count);
 
-/* The view an analysis shows by default: the step of the lot's newest run
- * and, of temperatures (plan order), the first with a run of that step.
- * Without runs: "final" and temperatures[0]. step gets at most 64 bytes. */
+/* The view an analysis shows by default: want_step, or (NULL) the step of
+ * the lot's newest run, and of temperatures (plan order) the first with a
+ * run of that step. Without runs: "final" (or want_step) and
+ * temperatures[0]. step gets at most 64 bytes. */
 sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
-                                long lot_id, const double *temperatures_K, size_t n_temperatures,
+                                long lot_id, const char *want_step,
+                                const double *temperatures_K, size_t n_temperatures,
                                 sl_diag *diag);
 
 /* The plan revision of the newest run of a view, or the lot's newest
@@ -266,6 +276,8 @@ typedef struct {
     double rel_rms, r_squared;
     long n_points;               /* 0 for results rows */
     long measurements;           /* the device's measurements in the view's runs */
+    /* the two-mobility fit's carriers (sl_store_load_devices only; NaN else) */
+    double electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs;
 } sl_store_device_row;
 
 /* The current measurement of every device of a lot in a view (step and

@@ -295,6 +295,13 @@ static void add_notes(cli_doc *doc, const sl_analysis *a)
              "as-planned inside [-T, T], off-plan entirely outside, differs excludes 0 only, "
              "inconclusive otherwise.");
     cli_doc_note(doc, text);
+    if (a->n_wafers_censored_biased) {
+        snprintf(text, sizeof text,
+                 "%zu wafer(s) with devices beyond the sweep have no device scatter to fit a "
+                 "censored mean with: their means are those of the devices inside the sweep, "
+                 "biased towards it.", a->n_wafers_censored_biased);
+        cli_doc_note(doc, text);
+    }
     snprintf(text, sizeof text,
              "outliers: |modified z| > 3.5 of the residual from the wafer median (MAD pooled per "
              "dielectric) flags about %.2g of these %zu devices by chance even when all are good.",
@@ -332,6 +339,8 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
     cli_doc_num(doc, "levels_differing", (double)a->n_verdict[SL_VERDICT_DIFFERS], 15);
     cli_doc_num(doc, "device_sigma_V", a->device_sigma_V, 3);
     cli_doc_num(doc, "wafer_sigma_per_cm2", a->wafer_sigma_per_cm2, 3);
+    if (a->plan->n_batches) /* the load as a random effect */
+        cli_doc_num(doc, "batch_sigma_per_cm2", a->load_sigma_per_cm2, 3);
     cli_doc_num(doc, "anova.F", a->anova.f, 5);
     cli_doc_num(doc, "anova.df_between", a->anova.df_between, 15);
     cli_doc_num(doc, "anova.df_within", a->anova.df_within, 15);

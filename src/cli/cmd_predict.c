@@ -65,7 +65,6 @@ static void machine_table(cli_doc *doc, const predict_run *r)
     cli_table_col_num(t, "thermal_floor_V", "nthV", 6);
     cli_table_col_num(t, "disorder_crossover_K", "Tstar", 6);
     cli_table_col_bool(t, "cnp_in_range", "in");
-    cli_table_col_int(t, "devices_needed", "needed");
     const char *names[64];
     for (size_t i = 0; i < r->n_pred; i++) {
         const sl_prediction *p = &r->pred[i];
@@ -89,7 +88,6 @@ static void machine_table(cli_doc *doc, const predict_run *r)
         cli_cell_num(t, p->thermal_floor_V);
         cli_cell_num(t, p->disorder_crossover_K);
         cli_cell_bool(t, p->cnp_in_range);
-        cli_cell_int(t, (long)r->layout->splits[p->split].devices_needed);
     }
 }
 
@@ -106,7 +104,6 @@ static void split_table(cli_doc *doc, const predict_run *r)
     cli_table_col_fixed(t, "vs", "+/-", 2);
     cli_table_col_range(t, "g", "gate V", 4);
     cli_table_col_bool(t, "in", "inside");
-    cli_table_col_int(t, "d", "need");
     size_t nt = r->plan->n_temperatures;
     for (size_t s = 0; s < r->plan->n_splits; s++) {
         const sl_prediction *p = &r->pred[s * nt];
@@ -119,7 +116,6 @@ static void split_table(cli_doc *doc, const predict_run *r)
         cli_cell_num(t, p->cnp_V.sigma);
         cli_cell_range(t, p->gate_min_V, p->gate_max_V);
         cli_cell_bool(t, p->cnp_in_range);
-        cli_cell_int(t, (long)r->layout->splits[s].devices_needed);
     }
 }
 

@@ -12,7 +12,7 @@
 const cli_command cli_commands[] = {
     { "carriers", cmd_carriers, "the carrier physics at one point (Fermi level or gate voltage)" },
     { "check", cmd_check, "validate a lot plan; every problem at PLAN:LINE:COL" },
-    { "layout", cmd_layout, "splits, wafer assignment, processing order, devices needed" },
+    { "layout", cmd_layout, "splits, wafers, loads, processing order, power per level" },
     { "predict", cmd_predict, "per split and temperature predictions, stored as a plan revision" },
     { "simulate", cmd_simulate, "write a synthetic lot drawn from the plan (demo data)" },
     { "ingest", cmd_ingest, "import device results or transfer sweeps (fitted) into a lot" },

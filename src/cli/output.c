@@ -12,7 +12,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-typedef enum { COL_STR, COL_NUM, COL_FIXED, COL_INT, COL_BOOL, COL_LIST, COL_RANGE } col_kind;
+typedef enum { COL_STR, COL_NUM, COL_FIXED, COL_INT, COL_BOOL, COL_LIST, COL_RANGE, COL_OBJECT } col_kind;
 
 typedef struct {
     char *key, *header;
@@ -63,8 +63,11 @@ struct row_visitor {
 typedef struct {
     char *key, *text;
     double num;
-    int digits; /* < 0: text value */
+    int digits; /* < 0: text value; SCALAR_LIST: '\x1f'-separated strings */
+    int count;  /* items of a list */
 } scalar;
+
+#define SCALAR_LIST (-2)
 
 struct cli_doc {
     scalar *scalars;
@@ -174,6 +177,41 @@ void cli_doc_num(cli_doc *doc, const char *key, double value, int digits)
     s->digits = digits;
 }
 
+/* Items joined with '\x1f' (the list cells' form). */
+static char *join_items(const char *const *items, int count)
+{
+    size_t n = 1;
+    for (int i = 0; i < count; i++)
+        n += strlen(items[i]) + 1;
+    char *text = xrealloc(NULL, n);
+    text[0] = '\0';
+    for (int i = 0; i < count; i++) {
+        if (i)
+            strcat(text, "\x1f");
+        strcat(text, items[i]);
+    }
+    return text;
+}
+
+void cli_doc_list(cli_doc *doc, const char *key, const char *const *items, int count)
+{
+    scalar *s = add_scalar(doc, key);
+    s->text = join_items(items, count);
+    s->count = count;
+    s->digits = SCALAR_LIST;
+}
+
+/* A list scalar in plain form: items separated by sep. */
+static void print_list_plain(FILE *out, const scalar *s, const char *sep)
+{
+    for (const char *p = s->text; *p; p++) {
+        if (*p == '\x1f')
+            fputs(sep, out);
+        else
+            fputc(*p, out);
+    }
+}
+
 void cli_doc_note(cli_doc *doc, const char *text)
 {
     doc->notes = xrealloc(doc->notes, (size_t)(doc->nnotes + 1) * sizeof(char *));
@@ -217,6 +255,7 @@ void cli_table_col_int(cli_table *t, const char *k, const char *h) { add_col(t, 
 void cli_table_col_bool(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_BOOL, 0); }
 void cli_table_col_list(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_LIST, 0); }
 void cli_table_col_range(cli_table *t, const char *k, const char *h, int d) { add_col(t, k, h, COL_RANGE, d); }
+void cli_table_col_object(cli_table *t, const char *k, const char *h) { add_col(t, k, h, COL_OBJECT, 0); }
 
 static void internal_error(const char *what)
 {
@@ -288,6 +327,20 @@ void cli_cell_list(cli_table *t, const char *const *items, int count)
     c->count = count;
 }
 
+void cli_cell_object(cli_table *t, const char *const *keys, const long *values, int count)
+{
+    cell *c = next_cell(t);
+    size_t n = 1;
+    for (int i = 0; i < count; i++)
+        n += strlen(keys[i]) + 24;
+    c->text = xrealloc(NULL, n);
+    size_t k = 0;
+    c->text[0] = '\0';
+    for (int i = 0; i < count; i++)
+        k += (size_t)snprintf(c->text + k, n - k, "%s%s\x1e%ld", i ? "\x1f" : "", keys[i], values[i]);
+    c->count = count;
+}
+
 /* ---- formatting of one cell as plain text (table and CSV) ---- */
 
 static void format_number(char *buf, size_t n, double v, const column *col)
@@ -311,16 +364,17 @@ static void format_plain(char *buf, size_t n, const cell *c, const column *col, 
     case COL_BOOL:
         snprintf(buf, n, "%s", isnan(c->num) ? "" : (c->num != 0.0 ? "yes" : "no"));
         break;
-    case COL_LIST: {
+    case COL_LIST:
+    case COL_OBJECT: {
         size_t k = 0;
         for (const char *p = c->text ? c->text : ""; *p && k + 4 < n; p++) {
             if (*p == '\x1f')
                 k += (size_t)snprintf(buf + k, n - k, "%s", sep);
             else
-                buf[k++] = *p;
+                buf[k++] = *p == '\x1e' ? '=' : *p;
         }
         buf[k] = '\0';
-        if (k == 0 && col->kind == COL_LIST)
+        if (k == 0)
             snprintf(buf, n, "-");
         break;
     }
@@ -402,6 +456,24 @@ static void json_cell(FILE *out, const cell *c, const column *col)
         fputc(']', out);
         break;
     }
+    case COL_OBJECT: {
+        fputc('{', out);
+        const char *p = c->text ? c->text : "";
+        for (int i = 0; i < c->count; i++) {
+            const char *mid = strchr(p, '\x1e'), *end = strchr(p, '\x1f');
+            size_t len = (size_t)(mid - p);
+            char *name = xrealloc(NULL, len + 1);
+            memcpy(name, p, len);
+            name[len] = '\0';
+            fputs(i ? ", " : "", out);
+            json_string(out, name);
+            fprintf(out, ": %ld", strtol(mid + 1, NULL, 10));
+            free(name);
+            p = end ? end + 1 : mid + strlen(mid);
+        }
+        fputc('}', out);
+        break;
+    }
     case COL_RANGE:
         if (isnan(c->num) && isnan(c->num2)) { /* no interval at all */
             fputs("null", out);
@@ -457,6 +529,24 @@ static void json_row(row_visitor *v, const cli_table *t, const cell *cells)
     fputc('}', v->out);
 }
 
+static void json_list(FILE *out, const scalar *s)
+{
+    fputc('[', out);
+    const char *p = s->text;
+    for (int i = 0; i < s->count; i++) {
+        const char *end = strchr(p, '\x1f');
+        size_t len = end ? (size_t)(end - p) : strlen(p);
+        char *item = xrealloc(NULL, len + 1);
+        memcpy(item, p, len);
+        item[len] = '\0';
+        fputs(i ? ", " : "", out);
+        json_string(out, item);
+        free(item);
+        p += len + (end ? 1 : 0);
+    }
+    fputc(']', out);
+}
+
 /* Length of the "group." part of a scalar's key (0 without a dot). */
 static size_t group_len(const scalar *s)
 {
@@ -493,7 +583,9 @@ static int print_json(const cli_doc *doc, FILE *out)
     int first = 1;
     for (int i = 0; i < doc->nscalars; i++, first = 0) {
         json_scalar_key(out, doc, i, first);
-        if (doc->scalars[i].digits < 0)
+        if (doc->scalars[i].digits == SCALAR_LIST)
+            json_list(out, &doc->scalars[i]);
+        else if (doc->scalars[i].digits < 0)
             json_string(out, doc->scalars[i].text);
         else
             json_number(out, doc->scalars[i].num);
@@ -563,7 +655,10 @@ static int print_csv(const cli_doc *doc, FILE *out)
 {
     for (int i = 0; i < doc->nscalars; i++) {
         fprintf(out, "# %s: ", doc->scalars[i].key);
-        if (doc->scalars[i].digits < 0)
+        if (doc->scalars[i].digits == SCALAR_LIST) {
+            print_list_plain(out, &doc->scalars[i], "; ");
+            fputc('\n', out);
+        } else if (doc->scalars[i].digits < 0)
             fprintf(out, "%s\n", doc->scalars[i].text);
         else
             fprintf(out, "%.10g\n", doc->scalars[i].num);
@@ -691,7 +786,11 @@ static int print_text_table(cli_table *t, FILE *out)
 static int print_table(const cli_doc *doc, FILE *out)
 {
     for (int i = 0; i < doc->nscalars; i++) {
-        if (doc->scalars[i].digits < 0)
+        if (doc->scalars[i].digits == SCALAR_LIST) {
+            fprintf(out, "%s:\n  ", doc->scalars[i].key);
+            print_list_plain(out, &doc->scalars[i], "\n  ");
+            fputc('\n', out);
+        } else if (doc->scalars[i].digits < 0)
             fprintf(out, "%s: %s\n", doc->scalars[i].key, doc->scalars[i].text);
         else
             fprintf(out, "%s: %.*g\n", doc->scalars[i].key, doc->scalars[i].digits, doc->scalars[i].num);

@@ -25,6 +25,9 @@ void cli_doc_free(cli_doc *doc);
  * Consecutive keys "group.name" become one JSON object "group": {"name": ..}. */
 void cli_doc_str(cli_doc *doc, const char *key, const char *value);
 void cli_doc_num(cli_doc *doc, const char *key, double value, int digits);
+/* A top-level list of strings: JSON array; "key: a; b" in CSV; in table form
+ * the key and one item per line. */
+void cli_doc_list(cli_doc *doc, const char *key, const char *const *items, int count);
 /* A note printed under the tables in table form only (cautions, verdicts). */
 void cli_doc_note(cli_doc *doc, const char *text);
 
@@ -54,6 +57,9 @@ void cli_table_col_list(cli_table *t, const char *key, const char *header);
 /* A pair [lo, hi]: JSON array of two numbers, "lo..hi" in table/CSV form;
  * both NaN (no interval): JSON null, empty in table/CSV form. */
 void cli_table_col_range(cli_table *t, const char *key, const char *header, int digits);
+/* An object of whole numbers by name: JSON {"k": n, ...}, "k=n" items joined
+ * by ',' in a table and ';' in CSV, "-" when empty. */
+void cli_table_col_object(cli_table *t, const char *key, const char *header);
 
 /* Start a row, then give one cell per column in order. NaN numbers are
  * written as JSON null and left empty in table and CSV form. */
@@ -64,6 +70,7 @@ void cli_cell_int(cli_table *t, long value);
 void cli_cell_bool(cli_table *t, bool value);
 void cli_cell_list(cli_table *t, const char *const *items, int count);
 void cli_cell_range(cli_table *t, double lo, double hi);
+void cli_cell_object(cli_table *t, const char *const *keys, const long *values, int count);
 
 /* Render the whole document; returns 0, or -1 on a write error or when a
  * streamed table's fill stopped. */

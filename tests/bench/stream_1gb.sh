@@ -16,7 +16,7 @@ cd "$work"
 
 # One simulated lot, repeated with renamed devices (a suffix per copy) until
 # the stream reaches the wanted size; the header is written once.
-"$bin" simulate "$here/plans/demo.yaml" --out sim --devices-per-wafer 400 >/dev/null
+"$bin" simulate "$here/plans/demo.yaml" --out sim --devices-per-wafer 400 --temperature-K 300 >/dev/null
 piece=$(wc -c <sim/sweeps.csv)
 stream() {
     copies=$(( ($1 * 1048576 + piece - 1) / piece ))

@@ -189,6 +189,33 @@ void sl_run_result_free(sl_run_result *r)
     r->out = r->err = NULL;
 }
 
+void sl_test_golden(const char *path, const char *got, const char *what)
+{
+    const char *regenerate = getenv("SL_REGENERATE_GOLDEN");
+    if (regenerate && strcmp(regenerate, "1") == 0) {
+        ck_assert_msg(sl_test_write_file(path, got) == 0, "cannot write %s", path);
+        printf("wrote %s\n", path);
+        return;
+    }
+    char *want = sl_test_read_file(path, NULL);
+    ck_assert_msg(want != NULL, "cannot read %s", path);
+    if (strcmp(got, want) != 0) {
+        /* the first line that differs, short enough for Check's message */
+        size_t line = 1, at = 0, start = 0;
+        for (; got[at] && got[at] == want[at]; at++)
+            if (got[at] == '\n') {
+                line++;
+                start = at + 1;
+            }
+        int got_len = (int)strcspn(got + start, "\n"), want_len = (int)strcspn(want + start, "\n");
+        ck_abort_msg("%s differs from %s at line %zu:\n  got:  %.*s\n  want: %.*s\n"
+                     "(make golden rewrites the file when the change is intended)",
+                     what, path, line, got_len < 160 ? got_len : 160, got + start,
+                     want_len < 160 ? want_len : 160, want + start);
+    }
+    free(want);
+}
+
 /* Skips are counted in a file named by SL_TEST_SKIP_FILE, which sl_test_main
  * sets before the tests run: Check runs each test in a child process. */
 void sl_test_skip(const char *test, const char *why)

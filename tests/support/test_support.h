@@ -41,6 +41,11 @@ int sl_test_files_equal(const char *a, const char *b);
 /* Copy a file; returns 0 on success. */
 int sl_test_copy_file(const char *from, const char *to);
 
+/* A golden output: got must equal the file at path byte for byte (a Check
+ * failure naming what and path otherwise). With SL_REGENERATE_GOLDEN=1 in the
+ * environment (make golden) got is written to path instead. */
+void sl_test_golden(const char *path, const char *got, const char *what);
+
 /* ctest's skip code (SKIP_RETURN_CODE in tests/CMakeLists.txt). */
 #define SL_TEST_SKIPPED 77
 
