@@ -119,6 +119,7 @@ void sl_report_note(sl_chart_buf *buf, const char *text);
 
 /* ---- report_tables.c ---- */
 void sl_report_splits_table(report_ctx *c, size_t dielectric);
+void sl_report_window_table(report_ctx *c, size_t dielectric);
 void sl_report_effects_table(report_ctx *c);
 sl_status sl_report_failure_table(report_ctx *c);
 

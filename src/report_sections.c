@@ -134,6 +134,7 @@ static void strip_chart(report_ctx *c, sl_chart_category *cats, size_t dielectri
     sl_chart_buf_append(c->buf, "</figure>\n");
     strip_notes(c, dielectric);
     sl_report_splits_table(c, dielectric);
+    sl_report_window_table(c, dielectric);
     sl_chart_buf_append(c->buf, "</div>\n");
     c->sum->n_strip_charts++;
 }
