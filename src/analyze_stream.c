@@ -18,6 +18,7 @@
 #include <string.h>
 
 #include "analyze_internal.h"
+#include "splitlot/physics.h"
 
 /* Fewest usable devices for modified z-scores to mean anything (common
  * practice: a median and MAD of fewer points are too unstable): on the
@@ -201,6 +202,8 @@ static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
         a->split_gate_max_V[s] = p->gate_max_V;
         a->split_capacitance_F_per_m2[s] = p->gate_capacitance_F_per_m2;
         a->split_floor_per_cm2[s] = p->thermal_floor_per_cm2;
+        a->splits[s].window_predicted_per_cm2[0] = p->max_electron_density_per_cm2;
+        a->splits[s].window_predicted_per_cm2[1] = p->max_hole_density_per_cm2;
     }
     return SL_OK;
 }
@@ -669,6 +672,33 @@ sl_status sl_analyze_lot_stream(sl_analysis_stream **out, sl_store *store, const
     return sl_analyze_lot_stream_view(out, store, lot, NULL, diag);
 }
 
+/* Net density n - p (cm^-2) at gate_V for a neutrality point at cnp_V. */
+static double net_density_at(const sl_analysis *a, size_t split, double gate_V, double cnp_V)
+{
+    double vf = a->plan->fermi_velocity_m_s, mu = 0.0;
+    if (sl_physics_solve_fermi_J(&mu, gate_V, cnp_V, a->split_capacitance_F_per_m2[split],
+                                 a->temperature_K, vf) != SL_OK)
+        return NAN;
+    return sl_physics_net_density_per_m2(mu, a->temperature_K, vf) * SL_PER_CM2_PER_PER_M2;
+}
+
+/* Each split's window at the ends of its gate range from its measured mean
+ * V_cnp (the wafer means'), and the share of its devices inside the sweep. */
+static void windows_reached(sl_analysis *a)
+{
+    for (size_t k = 0; k < a->n_splits; k++) {
+        sl_analyze_split *sp = &a->splits[k];
+        double mean = sp->cnp.mean;
+        sp->window_reached_per_cm2[0] = sp->window_reached_per_cm2[1] = NAN;
+        if (isfinite(mean)) {
+            sp->window_reached_per_cm2[0] = net_density_at(a, k, a->split_gate_max_V[k], mean);
+            sp->window_reached_per_cm2[1] = -net_density_at(a, k, a->split_gate_min_V[k], mean);
+        }
+        size_t seen = sp->n_usable + sp->n_censored;
+        sp->inside_share = seen ? (double)sp->n_usable / (double)seen : NAN;
+    }
+}
+
 sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, const char *lot,
                                      const sl_analyze_view *view, sl_diag *diag)
 {
@@ -686,6 +716,8 @@ sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, 
         st = sl_store_scratch_open(&s->scratch, store, diag);
     if (st == SL_OK)
         st = run_passes(s, diag);
+    if (st == SL_OK)
+        windows_reached(&s->owner->pub);
     if (st != SL_OK) {
         sl_analysis_stream_free(s);
         return st;

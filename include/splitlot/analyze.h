@@ -82,6 +82,14 @@ typedef struct {
      * predicted +/- SL_ANALYZE_INTERVAL_SIGMAS sqrt(sigma_pred^2 +
      * spread^2), spread as above. */
     double flag_low_V, flag_high_V;
+    /* The carrier-density window within the split's gate range: predicted
+     * (stored: electrons n - p at the top end, holes p - n at the bottom,
+     * from the predicted V_cnp) and reached (the same from the measured mean
+     * V_cnp, by the charge balance at the view's temperature; NaN without
+     * a mean), cm^-2; and the share of the devices with a fitted or
+     * censored V_cnp whose neutrality point stayed inside the sweep. */
+    double window_predicted_per_cm2[2], window_reached_per_cm2[2]; /* electrons, holes */
+    double inside_share;
     int prediction_in_ci;
     size_t n_flagged;
 } sl_analyze_split;
