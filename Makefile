@@ -2,6 +2,7 @@
 # Thin wrapper over CMake for the README's commands:
 #   make demo   install what is missing, build, run the demo plan end to end
 #   make check  install what is missing, build, run the whole test suite
+#   make check-pg  the whole test suite against a throwaway PostgreSQL server
 #   make asan   the test suite under AddressSanitizer + UndefinedBehaviorSanitizer
 #   make fuzz   the libFuzzer targets, FUZZ_SECONDS (default 60) each
 #   make valgrind  the test suite under valgrind memcheck (Debug build)
@@ -19,7 +20,7 @@ SPLITLOT = $(BUILD)/splitlot
 PREFIX ?= /usr/local
 DESTDIR ?=
 
-.PHONY: all deps deps-test build install demo check asan tsan golden fuzz valgrind bench bench-reference clean
+.PHONY: all deps deps-test build install demo check check-pg asan tsan golden fuzz valgrind bench bench-reference clean
 
 all: build
 
@@ -49,6 +50,11 @@ install: deps
 check: deps-test build
 	@cd $(BUILD) && ctest --output-on-failure -j$(JOBS)
 
+# .ci/pg-start starts a throwaway server, sets SPLITLOT_TEST_DB for
+# tests/support and stops the server afterwards
+check-pg: deps-test build
+	@./.ci/pg-start sh -c 'cd $(BUILD) && ctest --output-on-failure -j$(JOBS)'
+
 asan: deps-test
 	@echo "building in build-asan/ (log: build-asan/build.log)"
 	@mkdir -p build-asan
@@ -60,7 +66,7 @@ asan: deps-test
 
 # the import's reading, fitting and writing threads (tests spawn the TSan-built binary);
 # a race makes the program exit 66, which fails the test
-TSAN_SUITES ?= test_ingest|test_reliability
+TSAN_SUITES ?= test_ingest|test_reliability|test_layout
 tsan: deps-test
 	@echo "building in build-tsan/ (log: build-tsan/build.log)"
 	@mkdir -p build-tsan

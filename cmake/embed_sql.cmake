@@ -1,8 +1,12 @@
 # SPDX-License-Identifier: MIT
 # Turns the migration scripts db/NNN_*.sql into a C array of strings so the
 # schema travels inside the binary. Called by the build, not by hand.
+# NAME (default sl_schema) names the arrays: NAME_migrations, NAME_migration_count.
 separate_arguments(files NATIVE_COMMAND "${SQL_FILES}")
-set(body "/* Generated from the db folder by cmake/embed_sql.cmake; do not edit. */\n#include <stddef.h>\nconst char *const sl_schema_migrations[] = {\n")
+if(NOT NAME)
+  set(NAME sl_schema)
+endif()
+set(body "/* Generated from the db folder by cmake/embed_sql.cmake; do not edit. */\n#include <stddef.h>\nconst char *const ${NAME}_migrations[] = {\n")
 set(count 0)
 foreach(f ${files})
   file(READ ${f} text)
@@ -12,5 +16,5 @@ foreach(f ${files})
   string(APPEND body "  \"${text}\",\n")
   math(EXPR count "${count} + 1")
 endforeach()
-string(APPEND body "  NULL\n};\nconst size_t sl_schema_migration_count = ${count};\n")
+string(APPEND body "  NULL\n};\nconst size_t ${NAME}_migration_count = ${count};\n")
 file(WRITE ${OUT} "${body}")

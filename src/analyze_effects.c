@@ -3,8 +3,11 @@
  * wafer means of measured doping as the experimental unit, treatment-coded
  * against each factor's reference level, fitted by weighted least squares
  * with weights 1/var(wafer mean) from the variance components
- * (sl_stats_fit_components); each level's estimate, SE, residual df, 95 %
- * interval and its verdict against the plan (sl_stats_verdict).
+ * (sl_stats_fit_components), or, where the plan has batched steps, by
+ * generalised least squares with the load as a random effect
+ * (sl_stats_wafer_effects, the load the unit of a batched level); each
+ * level's estimate, SE, df, 95 % interval and its verdict against the plan
+ * (sl_stats_verdict).
  */
 #include <math.h>
 #include <stdio.h>
@@ -28,7 +31,14 @@ typedef struct {
     size_t *levels;      /* n_obs x n_factors */
     double *mean;        /* wafer mean doping, cm^-2 */
     double *var;         /* its sampling variance, cm^-4 */
+    size_t *wafer;       /* its layout wafer */
 } wafer_means;
+
+/* The coefficients of whichever fit was made, each with its own df. */
+typedef struct {
+    const double *coef, *se;
+    double *df;
+} effects_fit;
 
 /* Levels that have wafers, per factor, renumbered in plan order: a level
  * without usable wafers cannot be estimated, but must not stop the others;
@@ -50,6 +60,7 @@ static void wafer_means_free(wafer_means *m)
     free(m->levels);
     free(m->mean);
     free(m->var);
+    free(m->wafer);
 }
 
 static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const sl_layout *layout,
@@ -60,7 +71,8 @@ static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const
     m->levels = calloc(nw * nf + 1, sizeof *m->levels);
     m->mean = calloc(nw + 1, sizeof *m->mean);
     m->var = calloc(nw + 1, sizeof *m->var);
-    if (!m->levels || !m->mean || !m->var)
+    m->wafer = calloc(nw + 1, sizeof *m->wafer);
+    if (!m->levels || !m->mean || !m->var || !m->wafer)
         return SL_ENOMEM;
     for (size_t w = 0; w < nw; w++) {
         long split = layout->wafers[w].split;
@@ -70,6 +82,7 @@ static sl_status collect_wafer_means(wafer_means *m, const sl_analysis *a, const
             m->levels[m->n_obs * nf + f] = plan->splits[split].levels[f];
         m->mean[m->n_obs] = wafer_mean_per_cm2[w];
         m->var[m->n_obs] = isfinite(wafer_var_per_cm4[w]) ? wafer_var_per_cm4[w] : 0.0;
+        m->wafer[m->n_obs] = w;
         m->n_obs++;
     }
     return SL_OK;
@@ -120,11 +133,11 @@ static size_t wafers_at(const wafer_means *m, size_t nf, size_t factor, size_t l
 }
 
 void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
-                               const size_t *reference_levels)
+                               const size_t *reference_levels, size_t stride)
 {
     size_t k = (size_t)snprintf(buf, size, "baseline");
     for (size_t f = 0; f < plan->n_factors && k < size; f++) {
-        size_t l = reference_levels[f];
+        size_t l = reference_levels ? reference_levels[f * stride] : 0;
         if (f > 0 && plan->factors[f].level_ref[l] < 0)
             continue; /* 'none' adds nothing */
         k += (size_t)snprintf(buf + k, size - k, " + %s", plan->factors[f].levels[l]);
@@ -132,20 +145,18 @@ void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
 }
 
 static void intercept_effect(sl_analysis *a, sl_analyze_effect *e, const level_map *map,
-                             const sl_stats_fit *fit)
+                             const effects_fit *fit)
 {
     const sl_plan *plan = a->plan;
     double planned = plan->baseline_doping_per_cm2.val;
     double var = plan->baseline_doping_per_cm2.sigma * plan->baseline_doping_per_cm2.sigma;
-    size_t refs[64] = { 0 };
     for (size_t f = 0; f < plan->n_factors; f++) {
         sl_est ref = sl_analyze_planned_level(plan, f, plan_level(map, f, 0));
         planned += ref.val;
         var += ref.sigma * ref.sigma;
-        if (f < sizeof refs / sizeof refs[0])
-            refs[f] = plan_level(map, f, 0);
     }
-    sl_analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan, refs);
+    sl_analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan,
+                              map->old_of_new, map->stride);
     e->factor = "intercept";
     e->level = a->intercept_name;
     e->reference = plan->factors[0].levels[plan_level(map, 0, 0)];
@@ -218,7 +229,7 @@ static void fill_absent(sl_analysis *a, const level_map *map)
         }
 }
 
-static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, const sl_stats_fit *fit,
+static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, const effects_fit *fit,
                               const wafer_means *m, const level_map *map)
 {
     a->effects = calloc(design->n_coef + count_absent(a->plan, map), sizeof *a->effects);
@@ -237,7 +248,7 @@ static sl_status fill_effects(sl_analysis *a, const sl_stats_design *design, con
             e->stderr_per_cm2 = fit->se[c];
             e->n_wafers = wafers_at(m, a->plan->n_factors, col->factor, col->level);
         }
-        judge(a, e, (double)fit->df_resid);
+        judge(a, e, fit->df[c]);
     }
     fill_absent(a, map);
     return SL_OK;
@@ -256,18 +267,106 @@ static void note_failure(sl_analysis *a, sl_status st, const sl_diag *fit_diag, 
                  sl_diag_size(fit_diag) ? sl_diag_last(fit_diag) : sl_status_str(st));
 }
 
+/* Each wafer's load in each batched step as one index over every step's
+ * loads (-1: none), from the stored layout; the number of loads. */
+static size_t load_indices(long *load, const sl_plan *plan, const sl_layout *layout,
+                           const wafer_means *m)
+{
+    size_t steps = plan->n_batches, offset = 0;
+    for (size_t b = 0; b < steps; b++) {
+        size_t most = 0;
+        for (size_t i = 0; i < m->n_obs; i++) {
+            const size_t *l = layout->wafers[m->wafer[i]].load;
+            most = l && l[b] > most ? l[b] : most;
+        }
+        for (size_t i = 0; i < m->n_obs; i++) {
+            const size_t *l = layout->wafers[m->wafer[i]].load;
+            load[i * steps + b] = l && l[b] > 0 ? (long)(offset + l[b] - 1) : -1;
+        }
+        offset += most;
+    }
+    return offset;
+}
+
+/* With loads: generalised least squares with the load as a random effect
+ * (sl_stats_wafer_effects: REML components, df per coefficient). */
+static sl_status fit_with_loads(sl_stats_wafer_fit *out, sl_analysis *a, const sl_layout *layout,
+                                const wafer_means *m, const sl_stats_design *design)
+{
+    size_t steps = a->plan->n_batches;
+    long *load = malloc((m->n_obs * steps + 1) * sizeof *load);
+    if (!load)
+        return SL_ENOMEM;
+    size_t n_loads = load_indices(load, a->plan, layout, m);
+    sl_stats_wafer_data in = { m->n_obs, design->n_coef, n_loads, steps, design->x, m->mean,
+                               m->var, n_loads ? load : NULL };
+    if (!n_loads)
+        in.n_steps = 0;
+    sl_status st = sl_stats_wafer_effects(out, &in);
+    free(load);
+    if (st == SL_OK) {
+        a->wafer_sigma_per_cm2 = out->wafer_sigma_per_cm2;
+        a->load_sigma_per_cm2 = n_loads ? out->load_sigma_per_cm2 : NAN;
+    }
+    return st;
+}
+
+/* Without loads: weighted least squares with the wafer variance by moments. */
+static sl_status fit_wafers(sl_stats_fit **fit, sl_analysis *a, const wafer_means *m,
+                            const sl_stats_design *design, sl_diag *fit_diag)
+{
+    double unit_var = NAN;
+    sl_status st = sl_stats_fit_components(fit, &unit_var, design->x, m->mean, m->var, m->n_obs,
+                                           design->n_coef, fit_diag);
+    if (st == SL_OK)
+        a->wafer_sigma_per_cm2 = sqrt(unit_var);
+    return st;
+}
+
+/* Fit the design by whichever model the plan calls for; the effects. */
+static sl_status fit_and_fill(sl_analysis *a, const sl_layout *layout, const wafer_means *m,
+                              const level_map *map, const sl_stats_design *design,
+                              sl_diag *fit_diag)
+{
+    sl_stats_fit *fit = NULL;
+    sl_stats_wafer_fit *wfit = NULL;
+    double *df = calloc(design->n_coef + 1, sizeof *df);
+    effects_fit ef = { NULL, NULL, df };
+    sl_status st = df ? SL_OK : SL_ENOMEM;
+    if (st == SL_OK && a->plan->n_batches && design->n_coef <= SL_STATS_MAX_COEF) {
+        st = (wfit = malloc(sizeof *wfit)) ? fit_with_loads(wfit, a, layout, m, design) : SL_ENOMEM;
+        if (st == SL_OK) {
+            ef.coef = wfit->coef;
+            ef.se = wfit->se;
+            for (size_t c = 0; c < design->n_coef; c++)
+                df[c] = wfit->df[c];
+        }
+    } else if (st == SL_OK && (st = fit_wafers(&fit, a, m, design, fit_diag)) == SL_OK) {
+        ef.coef = fit->coef;
+        ef.se = fit->se;
+        for (size_t c = 0; c < design->n_coef; c++)
+            df[c] = (double)fit->df_resid;
+    }
+    if (st == SL_OK)
+        st = fill_effects(a, design, &ef, m, map);
+    else if (st != SL_ENOMEM)
+        note_failure(a, st, fit_diag, m->n_obs, design->n_coef);
+    sl_stats_fit_free(fit);
+    free(wfit);
+    free(df);
+    return st == SL_ENOMEM ? st : SL_OK;
+}
+
 sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
                              const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4)
 {
     wafer_means m = { 0 };
     level_map map = { 0 };
     sl_stats_design *design = NULL;
-    sl_stats_fit *fit = NULL;
     sl_diag *fit_diag = sl_diag_new();
     sl_status st = fit_diag ? collect_wafer_means(&m, a, layout, wafer_mean_per_cm2, wafer_var_per_cm4)
                             : SL_ENOMEM;
-    double unit_var = NAN;
-    a->wafer_sigma_per_cm2 = NAN;
+    a->wafer_sigma_per_cm2 = a->load_sigma_per_cm2 = NAN;
     if (st == SL_OK && m.n_obs == 0) {
         note_failure(a, SL_EINPUT, fit_diag, 0, 1);
     } else if (st == SL_OK && (st = compact_levels(&map, &m, a->plan)) == SL_OK) {
@@ -275,19 +374,13 @@ sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
                                                   map.n_present, fit_diag);
         if (fst == SL_OK && m.n_obs <= design->n_coef)
             fst = SL_EINPUT;
-        else if (fst == SL_OK)
-            fst = sl_stats_fit_components(&fit, &unit_var, design->x, m.mean, m.var, m.n_obs,
-                                          design->n_coef, fit_diag);
         if (fst == SL_OK)
-            a->wafer_sigma_per_cm2 = sqrt(unit_var);
-        if (fst == SL_OK)
-            st = fill_effects(a, design, fit, &m, &map);
+            st = fit_and_fill(a, layout, &m, &map, design, fit_diag);
         else if (fst == SL_ENOMEM)
             st = fst;
         else
             note_failure(a, fst, fit_diag, m.n_obs, design ? design->n_coef : 0);
     }
-    sl_stats_fit_free(fit);
     sl_stats_design_free(design);
     wafer_means_free(&m);
     level_map_free(&map);

@@ -160,6 +160,10 @@ static void add_variation(sl_history *h, const sl_analysis *a)
         h->device_var_sum += a->device_sigma_V * a->device_sigma_V;
         h->n_device_sigma++;
     }
+    if (isfinite(a->load_sigma_per_cm2)) {
+        h->batch_var_sum += a->load_sigma_per_cm2 * a->load_sigma_per_cm2;
+        h->n_batch_sigma++;
+    }
 }
 
 static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_view *view,
@@ -219,6 +223,8 @@ sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_an
     /* root mean square over the lots that measured it */
     h->wafer_sigma_per_cm2 = h->n_wafer_sigma ? sqrt(h->wafer_var_sum / (double)h->n_wafer_sigma) : NAN;
     h->device_sigma_V = h->n_device_sigma ? sqrt(h->device_var_sum / (double)h->n_device_sigma) : NAN;
+    h->batch_sigma_per_cm2 = h->n_batch_sigma ? sqrt(h->batch_var_sum / (double)h->n_batch_sigma)
+                                              : NAN;
     if (st != SL_OK) {
         sl_history_free(h);
         return st;

@@ -57,9 +57,11 @@ sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
 sl_status sl_analyze_history_level(sl_history_level *l);
 
 /* "baseline + ox90" (+ each other factor's reference level but 'none'):
- * the name of the intercept, levels given per factor. */
+ * the name of the intercept; factor f's reference level is
+ * reference_levels[f * stride], or level 0 of every factor when
+ * reference_levels is NULL. */
 void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
-                               const size_t *reference_levels);
+                               const size_t *reference_levels, size_t stride);
 
 /* Planned doping of a factor's level (cm^-2) and its own sigma. */
 sl_est sl_analyze_planned_level(const sl_plan *plan, size_t factor, size_t level);

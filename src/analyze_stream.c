@@ -18,6 +18,7 @@
 #include <string.h>
 
 #include "analyze_internal.h"
+#include "splitlot/physics.h"
 
 /* Fewest usable devices for modified z-scores to mean anything (common
  * practice: a median and MAD of fewer points are too unstable): on the
@@ -149,6 +150,32 @@ static sl_status stored_layout(sl_layout **out, const sl_store_revision *rev)
     return SL_OK;
 }
 
+/* Each wafer's load in every batched step of the plan, as the revision
+ * stored them (layout wafers' load, 1-based, 0 for none). */
+static sl_status stored_loads(sl_layout *l, const sl_plan *plan, sl_store *store,
+                              const sl_store_revision *rev, sl_diag *diag)
+{
+    size_t nb = plan->n_batches;
+    if (nb == 0)
+        return SL_OK;
+    long *loads = calloc(rev->n_wafers * nb + 1, sizeof *loads);
+    const char **steps = calloc(nb, sizeof *steps);
+    sl_status st = loads && steps ? SL_OK : SL_ENOMEM;
+    for (size_t b = 0; st == SL_OK && b < nb; b++)
+        steps[b] = plan->batches[b].step;
+    if (st == SL_OK)
+        st = sl_store_load_wafer_loads(store, loads, rev, steps, nb, diag);
+    for (size_t w = 0; st == SL_OK && w < l->n_wafers; w++) {
+        if (!(l->wafers[w].load = calloc(nb, sizeof *l->wafers[w].load)))
+            st = SL_ENOMEM;
+        for (size_t b = 0; st == SL_OK && b < nb; b++)
+            l->wafers[w].load[b] = loads[w * nb + b] > 0 ? (size_t)loads[w * nb + b] : 0;
+    }
+    free(loads);
+    free(steps);
+    return st;
+}
+
 /* Predicted neutrality point, gate range, C_g and thermal floor per split,
  * as stored for the view's temperature. */
 static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
@@ -175,6 +202,8 @@ static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
         a->split_gate_max_V[s] = p->gate_max_V;
         a->split_capacitance_F_per_m2[s] = p->gate_capacitance_F_per_m2;
         a->split_floor_per_cm2[s] = p->thermal_floor_per_cm2;
+        a->splits[s].window_predicted_per_cm2[0] = p->max_electron_density_per_cm2;
+        a->splits[s].window_predicted_per_cm2[1] = p->max_hole_density_per_cm2;
     }
     return SL_OK;
 }
@@ -201,6 +230,8 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
         st = load_plan(a, &rev, diag);
     if (st == SL_OK)
         st = stored_layout(&s->layout, &rev);
+    if (st == SL_OK)
+        st = stored_loads(s->layout, a->plan, store, &rev, diag);
     if (st == SL_OK)
         st = load_predictions(a, &rev);
     sl_store_revision_clear(&rev);
@@ -249,7 +280,8 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->n0_per_cm2 = r->n0_per_cm2;
     d->r_contact_ohm = r->r_contact_ohm;
     d->hysteresis_V = r->hysteresis_V;
-    d->floor_predicted_per_cm2 = a->split_floor_per_cm2[split];
+    d->floor_predicted_per_cm2 = hypot(a->split_floor_per_cm2[split],
+                                       a->plan->disorder_density_per_cm2);
     d->channel_length_um = isnan(r->channel_length_um) ? a->plan->channel_length_um
                                                        : r->channel_length_um;
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
@@ -312,8 +344,11 @@ static const char *class_reason(const char *cls)
     return "extraction failed";
 }
 
-/* The flag in words, and the severity that orders the failure analysis. */
-static void describe(sl_analyze_device *d, double max_hysteresis_V)
+/* The flag in words, and the severity that orders the failure analysis
+ * (a residual density below the floor ranks after the off-prediction and
+ * outlier flags, before nothing). */
+static void describe(sl_analyze_device *d, double floor_per_cm2, double temperature_K,
+                     double max_hysteresis_V)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
         snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
@@ -332,14 +367,20 @@ static void describe(sl_analyze_device *d, double max_hysteresis_V)
                               fabs(d->deviation_V), d->deviation_V > 0 ? "above" : "below");
     if (d->flags & SL_FLAG_OUTLIER)
         k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
-                              "%s%s the other devices of its wafer (modified z %.1f)",
-                              k ? "; " : "", d->modified_z > 0 ? "far above" : "far below",
-                              d->modified_z);
+                              "%s%s the other devices of its wafer (modified z %.1f)", k ? "; " : "",
+                              d->modified_z > 0 ? "far above" : "far below", d->modified_z);
+    if (d->flags & SL_FLAG_BELOW_FLOOR && k < sizeof d->reason)
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "%sresidual density %.3g cm^-2 below the thermal floor %.3g cm^-2 "
+                              "at %g K (the fit or the temperature is wrong)",
+                              k ? "; " : "", d->n0_per_cm2, floor_per_cm2, temperature_K);
     if (d->flags & SL_FLAG_HYSTERESIS && k < sizeof d->reason)
         snprintf(d->reason + k, sizeof d->reason - k, "%shysteresis %.2f V, beyond the plan's %.2f V",
                  k ? "; " : "", d->hysteresis_V, max_hysteresis_V);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
+    if (d->flags == SL_FLAG_BELOW_FLOOR)
+        d->severity = 1.0 - d->n0_per_cm2 / floor_per_cm2; /* 0..1: after the others */
     if (d->flags & SL_FLAG_OFF_PREDICTION)
         d->severity += 100.0;
     if (d->flags == SL_FLAG_HYSTERESIS) /* by how far beyond the limit */
@@ -356,8 +397,11 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     fill_device(a, d, r, split);
     if (isfinite(d->cnp_measured_V))
         score_device(s, d, wafer);
+    /* below the thermal floor no sample can be: n = p = n_th at neutrality */
+    if (isfinite(d->n0_per_cm2) && d->n0_per_cm2 < a->split_floor_per_cm2[split])
+        d->flags |= SL_FLAG_BELOW_FLOOR;
     if (d->flags)
-        describe(d, a->plan->max_hysteresis_V);
+        describe(d, a->split_floor_per_cm2[split], a->temperature_K, a->plan->max_hysteresis_V);
     s->row = r;
 }
 
@@ -637,6 +681,33 @@ sl_status sl_analyze_lot_stream(sl_analysis_stream **out, sl_store *store, const
     return sl_analyze_lot_stream_view(out, store, lot, NULL, diag);
 }
 
+/* Net density n - p (cm^-2) at gate_V for a neutrality point at cnp_V. */
+static double net_density_at(const sl_analysis *a, size_t split, double gate_V, double cnp_V)
+{
+    double vf = a->plan->fermi_velocity_m_s, mu = 0.0;
+    if (sl_physics_solve_fermi_J(&mu, gate_V, cnp_V, a->split_capacitance_F_per_m2[split],
+                                 a->temperature_K, vf) != SL_OK)
+        return NAN;
+    return sl_physics_net_density_per_m2(mu, a->temperature_K, vf) * SL_PER_CM2_PER_PER_M2;
+}
+
+/* Each split's window at the ends of its gate range from its measured mean
+ * V_cnp (the wafer means'), and the share of its devices inside the sweep. */
+static void windows_reached(sl_analysis *a)
+{
+    for (size_t k = 0; k < a->n_splits; k++) {
+        sl_analyze_split *sp = &a->splits[k];
+        double mean = sp->cnp.mean;
+        sp->window_reached_per_cm2[0] = sp->window_reached_per_cm2[1] = NAN;
+        if (isfinite(mean)) {
+            sp->window_reached_per_cm2[0] = net_density_at(a, k, a->split_gate_max_V[k], mean);
+            sp->window_reached_per_cm2[1] = -net_density_at(a, k, a->split_gate_min_V[k], mean);
+        }
+        size_t seen = sp->n_usable + sp->n_censored;
+        sp->inside_share = seen ? (double)sp->n_usable / (double)seen : NAN;
+    }
+}
+
 sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, const char *lot,
                                      const sl_analyze_view *view, sl_diag *diag)
 {
@@ -654,6 +725,8 @@ sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, 
         st = sl_store_scratch_open(&s->scratch, store, diag);
     if (st == SL_OK)
         st = run_passes(s, diag);
+    if (st == SL_OK)
+        windows_reached(&s->owner->pub);
     if (st != SL_OK) {
         sl_analysis_stream_free(s);
         return st;

@@ -85,11 +85,8 @@ static void emit_baseline(FILE *out, const sl_history *h)
 {
     const sl_plan *p = h->newest_plan;
     char name[256];
-    size_t refs[64] = { 0 }; /* every factor's level 0 */
-    sl_analyze_intercept_name(name, sizeof name, p, refs);
-    const sl_history_level *l = p->n_factors <= 64 ? history_level(h, "intercept", name,
-                                                                   p->factors[0].levels[0])
-                                                   : NULL;
+    sl_analyze_intercept_name(name, sizeof name, p, NULL, 0); /* every factor's level 0 */
+    const sl_history_level *l = history_level(h, "intercept", name, p->factors[0].levels[0]);
     sl_est v = p->baseline_doping_per_cm2;
     if (l) {
         v.val = l->pooled.value;
@@ -112,6 +109,8 @@ static void emit_variation(FILE *out, const sl_history *h)
         fprintf(out, "  wafer_sigma_per_cm2: %.4g\n", h->wafer_sigma_per_cm2);
     if (isfinite(h->device_sigma_V))
         fprintf(out, "  device_sigma_V: %.4g\n", h->device_sigma_V);
+    if (isfinite(h->batch_sigma_per_cm2))
+        fprintf(out, "  batch_sigma_per_cm2: %.4g\n", h->batch_sigma_per_cm2);
 }
 
 static void emit_materials(FILE *out, const sl_plan *p)

@@ -220,7 +220,8 @@ static void contents(report_ctx *c)
                                 "<li><a href=\"#splits\">Splits</a></li>");
     if (c->has_hysteresis)
         sl_chart_buf_append(c->buf, "<li><a href=\"#hysteresis\">Hysteresis</a></li>");
-    sl_chart_buf_append(c->buf, "<li><a href=\"#wafers\">Wafer maps</a></li>"
+    sl_chart_buf_append(c->buf, "<li><a href=\"#parameters\">Device parameters</a></li>"
+                                "<li><a href=\"#wafers\">Wafer maps</a></li>"
                                 "<li><a href=\"#effects\">Level effects</a></li>");
     if (c->has_curves)
         sl_chart_buf_append(c->buf, "<li><a href=\"#curves\">Transfer curves</a></li>");
@@ -278,6 +279,8 @@ static sl_status render_sections(report_ctx *c)
         st = sl_report_section_splits(c);
     if (st == SL_OK)
         st = sl_report_section_hysteresis(c);
+    if (st == SL_OK)
+        st = sl_report_section_parameters(c);
     if (st == SL_OK)
         st = sl_report_section_wafers(c);
     if (st == SL_OK)

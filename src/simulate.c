@@ -218,7 +218,11 @@ static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
         dev->p.cnp_V = w->gate_max_V + 0.3 * (w->gate_max_V - w->gate_min_V);
     double disorder = p->disorder_density_per_cm2 > 0 ? p->disorder_density_per_cm2 : 1.5e11;
     dev->p.mobility_cm2_per_Vs = 2000.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
-    dev->p.n0_per_cm2 = disorder * exp(gsl_ran_gaussian(c->rng, 0.3));
+    /* the puddles' density and the thermal floor of the first temperature
+     * in quadrature: no device below the floor (see params_at) */
+    double floor = sl_physics_thermal_floor_per_m2(p->temperatures_K[0], p->fermi_velocity_m_s) *
+                   SL_PER_CM2_PER_PER_M2;
+    dev->p.n0_per_cm2 = hypot(disorder * exp(gsl_ran_gaussian(c->rng, 0.3)), floor);
     dev->p.r_contact_ohm = 400.0 * exp(gsl_ran_gaussian(c->rng, 0.3));
 }
 

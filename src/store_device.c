@@ -22,20 +22,20 @@ void sl_store_device_init(sl_store_device *d)
     d->n_spikes = d->points_dropped = -1;
 }
 
-static void bind_text_or_null(sqlite3_stmt *st, int index, const char *text)
+static void bind_text_or_null(sl__stmt *st, int index, const char *text)
 {
     if (text)
-        sqlite3_bind_text(st, index, text, -1, SQLITE_STATIC);
+        sl__db_bind_text(st, index, text, -1);
     else
-        sqlite3_bind_null(st, index);
+        sl__db_bind_null(st, index);
 }
 
-static void bind_count_or_null(sqlite3_stmt *st, int index, long v)
+static void bind_count_or_null(sl__stmt *st, int index, long v)
 {
     if (v >= 0)
-        sqlite3_bind_int64(st, index, v);
+        sl__db_bind_int64(st, index, v);
     else
-        sqlite3_bind_null(st, index);
+        sl__db_bind_null(st, index);
 }
 
 /* The extraction columns, in MEASUREMENT_COLUMNS order, from index first. */
@@ -45,9 +45,9 @@ static void bind_count_or_null(sqlite3_stmt *st, int index, long v)
     "n_points, electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs, n_spikes, " \
     "hysteresis_V, points_dropped"
 
-static void bind_extraction(sqlite3_stmt *st, int first, const sl_store_device *d)
+static void bind_extraction(sl__stmt *st, int first, const sl_store_device *d)
 {
-    sqlite3_bind_text(st, first, d->fit_class, -1, SQLITE_STATIC);
+    sl__db_bind_text(st, first, d->fit_class, -1);
     bind_text_or_null(st, first + 1, d->fit_model);
     double values[] = { d->cnp_V, d->cnp_sigma_V, d->mobility_cm2_per_Vs,
                         d->mobility_sigma_cm2_per_Vs, d->n0_per_cm2, d->n0_sigma_per_cm2,
@@ -55,9 +55,9 @@ static void bind_extraction(sqlite3_stmt *st, int first, const sl_store_device *
     for (int i = 0; i < 10; i++)
         sl_store_bind_real_or_null(st, first + 2 + i, values[i]);
     if (d->vg_V)
-        sqlite3_bind_int64(st, first + 12, (sqlite3_int64)d->n_points);
+        sl__db_bind_int64(st, first + 12, (long long)d->n_points);
     else
-        sqlite3_bind_null(st, first + 12);
+        sl__db_bind_null(st, first + 12);
     sl_store_bind_real_or_null(st, first + 13, d->electron_mobility_cm2_per_Vs);
     sl_store_bind_real_or_null(st, first + 14, d->hole_mobility_cm2_per_Vs);
     bind_count_or_null(st, first + 15, d->n_spikes);
@@ -65,8 +65,21 @@ static void bind_extraction(sqlite3_stmt *st, int first, const sl_store_device *
     bind_count_or_null(st, first + 17, d->points_dropped);
 }
 
+/* Step an INSERT ... ON CONFLICT DO NOTHING RETURNING id: *added 1 and *id
+ * for a new row, *added 0 when a unique key turned it away. */
+static sl_status step_returning(sl_store *store, sl__stmt *st, int *added, long *id,
+                                sl_diag *diag, const char *what)
+{
+    int rc = sl__db_step(st);
+    *added = rc == SL__DB_ROW;
+    if (rc == SL__DB_ROW)
+        *id = (long)sl__db_column_int64(st, 0);
+    sl__db_reset(st);
+    return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK : sl_store_db_error(store, diag, what);
+}
+
 /* A cached statement of the import path, prepared on first use. */
-static sl_status cached(sl_store *store, sqlite3_stmt **st, const char *sql, sl_diag *diag)
+static sl_status cached(sl_store *store, sl__stmt **st, const char *sql, sl_diag *diag)
 {
     return *st ? SL_OK : sl_store_prepare(store, st, sql, diag);
 }
@@ -74,7 +87,9 @@ static sl_status cached(sl_store *store, sqlite3_stmt **st, const char *sql, sl_
 sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag)
 {
     long devices = 0;
-    sl_status s = sl_store_count_devices(store, &devices, lot_id, diag);
+    sl_status s = sl_store_lock_lot(store, lot_id, diag);
+    if (s == SL_OK)
+        s = sl_store_count_devices(store, &devices, lot_id, diag);
     store->new_lot_id = s == SL_OK && devices == 0 ? lot_id : 0;
     return s;
 }
@@ -88,71 +103,64 @@ static sl_status find_device(sl_store *store, sl_store_insert *out, long lot_id,
                          "AND name = ?3", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_stmt *st = store->find_device;
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_text(st, 2, d->wafer, -1, SQLITE_STATIC);
-    sqlite3_bind_text(st, 3, d->name, -1, SQLITE_STATIC);
-    int rc = sqlite3_step(st);
-    if (rc == SQLITE_ROW) {
-        out->device_id = (long)sqlite3_column_int64(st, 0);
-        out->die_x = (long)sqlite3_column_int64(st, 1);
-        out->die_y = (long)sqlite3_column_int64(st, 2);
+    sl__stmt *st = store->find_device;
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_text(st, 2, d->wafer, -1);
+    sl__db_bind_text(st, 3, d->name, -1);
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_ROW) {
+        out->device_id = (long)sl__db_column_int64(st, 0);
+        out->die_x = (long)sl__db_column_int64(st, 1);
+        out->die_y = (long)sl__db_column_int64(st, 2);
     }
-    sqlite3_reset(st);
-    if (rc == SQLITE_ROW)
+    sl__db_reset(st);
+    if (rc == SL__DB_ROW)
         return SL_OK;
-    return rc == SQLITE_DONE ? SL_ENOTFOUND : sl_store_db_error(store, diag, "look up a device");
+    return rc == SL__DB_DONE ? SL_ENOTFOUND : sl_store_db_error(store, diag, "look up a device");
 }
 
-/* Insert the device; SL_ENOTFOUND-free: *added 0 when the lot has it already
- * (the unique key refused it), and nothing was written. */
+/* Insert the device; *added 0 when the lot has it already (the unique key
+ * turned it away: ON CONFLICT DO NOTHING, which leaves a PostgreSQL
+ * transaction usable), and nothing was written. */
 static sl_status add_device(sl_store *store, int *added, long lot_id, const sl_store_device *d,
                             long *device_id, sl_diag *diag)
 {
     sl_status s = cached(store, &store->insert_device,
                          "INSERT INTO device (lot_id, wafer, name, die_x, die_y, device_type, "
                          "channel_length_um, channel_width_um) "
-                         "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)", diag);
+                         "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8) ON CONFLICT DO NOTHING "
+                         "RETURNING id", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_stmt *st = store->insert_device;
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_text(st, 2, d->wafer, -1, SQLITE_STATIC);
-    sqlite3_bind_text(st, 3, d->name, -1, SQLITE_STATIC);
-    sqlite3_bind_int64(st, 4, d->die_x);
-    sqlite3_bind_int64(st, 5, d->die_y);
+    sl__stmt *st = store->insert_device;
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_text(st, 2, d->wafer, -1);
+    sl__db_bind_text(st, 3, d->name, -1);
+    sl__db_bind_int64(st, 4, d->die_x);
+    sl__db_bind_int64(st, 5, d->die_y);
     bind_text_or_null(st, 6, d->device_type);
     sl_store_bind_real_or_null(st, 7, d->channel_length_um);
     sl_store_bind_real_or_null(st, 8, d->channel_width_um);
-    int rc = sqlite3_step(st);
-    sqlite3_reset(st);
-    *added = rc == SQLITE_DONE;
-    if (rc == SQLITE_DONE) {
-        *device_id = (long)sqlite3_last_insert_rowid(store->db);
-        return SL_OK;
-    }
-    if (sqlite3_extended_errcode(store->db) == SQLITE_CONSTRAINT_UNIQUE)
-        return SL_OK;
-    return sl_store_db_error(store, diag, "store a device");
+    return step_returning(store, st, added, device_id, diag, "store a device");
 }
 
 /* The device's first measurement (its line and run), for a die that differs. */
 static sl_status first_measurement(sl_store *store, sl_store_insert *out, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT run_id, coalesce(source_line, 0) FROM measurement WHERE device_id = ?1 "
         "ORDER BY run_id LIMIT 1", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, out->device_id);
-    int rc = sqlite3_step(st);
-    if (rc == SQLITE_ROW) {
-        out->run_id = (long)sqlite3_column_int64(st, 0);
-        out->source_line = (long)sqlite3_column_int64(st, 1);
+    sl__db_bind_int64(st, 1, out->device_id);
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_ROW) {
+        out->run_id = (long)sl__db_column_int64(st, 0);
+        out->source_line = (long)sl__db_column_int64(st, 1);
     }
-    sqlite3_finalize(st);
-    return rc == SQLITE_ROW || rc == SQLITE_DONE ? SL_OK
+    sl__db_finalize(st);
+    return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK
                                                  : sl_store_db_error(store, diag, "look up a device");
 }
 
@@ -160,49 +168,43 @@ static sl_status first_measurement(sl_store *store, sl_store_insert *out, sl_dia
 static sl_status measurement_in_run(sl_store *store, sl_store_insert *out, long run_id,
                                     sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT id, coalesce(source_line, 0) FROM measurement WHERE run_id = ?1 AND device_id = ?2",
         diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, run_id);
-    sqlite3_bind_int64(st, 2, out->device_id);
-    int rc = sqlite3_step(st);
-    if (rc == SQLITE_ROW) {
-        out->measurement_id = (long)sqlite3_column_int64(st, 0);
-        out->source_line = (long)sqlite3_column_int64(st, 1);
+    sl__db_bind_int64(st, 1, run_id);
+    sl__db_bind_int64(st, 2, out->device_id);
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_ROW) {
+        out->measurement_id = (long)sl__db_column_int64(st, 0);
+        out->source_line = (long)sl__db_column_int64(st, 1);
     }
-    sqlite3_finalize(st);
-    if (rc == SQLITE_ROW)
+    sl__db_finalize(st);
+    if (rc == SL__DB_ROW)
         return SL_OK;
-    return rc == SQLITE_DONE ? sl_store_db_error(store, diag, "find a device's measurement")
+    return rc == SL__DB_DONE ? sl_store_db_error(store, diag, "find a device's measurement")
                              : sl_store_db_error(store, diag, "look up a device's measurement");
 }
 
 /* Insert the measurement row; *added 0 when the run has the device already. */
-static sl_status add_measurement(sl_store *store, int *added, long run_id, long device_id,
-                                 const sl_store_device *d, sl_diag *diag)
+static sl_status add_measurement(sl_store *store, int *added, long *measurement_id, long run_id,
+                                 long device_id, const sl_store_device *d, sl_diag *diag)
 {
     sl_status s = cached(store, &store->insert_measurement,
         "INSERT INTO measurement (device_id, run_id, source, source_line, " MEASUREMENT_COLUMNS
         ") VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, "
-        "?18, ?19, ?20, ?21, ?22)", diag);
+        "?18, ?19, ?20, ?21, ?22) ON CONFLICT DO NOTHING RETURNING id", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_stmt *st = store->insert_measurement;
-    sqlite3_bind_int64(st, 1, device_id);
-    sqlite3_bind_int64(st, 2, run_id);
-    sqlite3_bind_text(st, 3, d->source, -1, SQLITE_STATIC);
+    sl__stmt *st = store->insert_measurement;
+    sl__db_bind_int64(st, 1, device_id);
+    sl__db_bind_int64(st, 2, run_id);
+    sl__db_bind_text(st, 3, d->source, -1);
     bind_count_or_null(st, 4, d->source_line > 0 ? d->source_line : -1);
     bind_extraction(st, 5, d);
-    int rc = sqlite3_step(st);
-    sqlite3_reset(st);
-    *added = rc == SQLITE_DONE;
-    if (rc == SQLITE_DONE ||
-        sqlite3_extended_errcode(store->db) == SQLITE_CONSTRAINT_UNIQUE)
-        return SL_OK;
-    return sl_store_db_error(store, diag, "store a measurement");
+    return step_returning(store, st, added, measurement_id, diag, "store a measurement");
 }
 
 /* The device of the measurement: added (a lot without devices tries the
@@ -238,14 +240,13 @@ sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, lon
     if (s != SL_OK || out->outcome != SL_STORE_ADDED)
         return s;
     int added = 0;
-    s = add_measurement(store, &added, run_id, out->device_id, d, diag);
+    s = add_measurement(store, &added, &out->measurement_id, run_id, out->device_id, d, diag);
     if (s != SL_OK)
         return s;
     if (!added) {
         out->outcome = SL_STORE_IN_RUN;
         return measurement_in_run(store, out, run_id, diag);
     }
-    out->measurement_id = (long)sqlite3_last_insert_rowid(store->db);
     if (!d->vg_V || d->n_points == 0)
         return SL_OK;
     return sl_store_insert_sweep(store, out->measurement_id, d, diag);
@@ -254,13 +255,13 @@ sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, lon
 sl_status sl_store_update_measurement(sl_store *store, long measurement_id,
                                       const sl_store_device *dev, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "UPDATE measurement SET (" MEASUREMENT_COLUMNS ") = (?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, "
         "?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19) WHERE id = ?1", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, measurement_id);
+    sl__db_bind_int64(st, 1, measurement_id);
     bind_extraction(st, 2, dev);
     s = sl_store_step_once(store, st, diag, "update a measurement");
     if (s == SL_OK && dev->vg_V)

@@ -1,43 +1,63 @@
 /* SPDX-License-Identifier: MIT
  * Private parts of the store shared by its source files (store.c,
  * store_device.c, store_run.c, store_sweep.c, store_read.c, ...): the handle
- * and small SQLite helpers.
+ * and small helpers over the database layer (db_driver.h).
  */
 #ifndef SL_STORE_INTERNAL_H
 #define SL_STORE_INTERNAL_H
 
-#include <sqlite3.h>
+#include "db_driver.h"
 
 #include "splitlot/store.h"
 
 struct sl_store {
-    sqlite3 *db;
-    char *path;
-    sqlite3_stmt *insert_device; /* cached: the hot path of an import */
-    sqlite3_stmt *find_device;
-    sqlite3_stmt *insert_measurement;
+    sl__db *db;
+    char *path;                  /* shown in messages: a URL without its password */
+    sl__stmt *insert_device; /* cached: the hot path of an import */
+    sl__stmt *find_device;
+    sl__stmt *insert_measurement;
     long new_lot_id;             /* a lot with no devices before this import, or 0 */
-    sqlite3_stmt *insert_sweep;
-    sqlite3_stmt *stage_point;
-    int has_stage;               /* temp.stage created on this connection */
+    sl__stmt *insert_sweep;
+    sl__stmt *stage_point;
+    int has_stage;               /* the stage table created on this connection */
+    long *tx_runs;               /* runs added in the open transaction (an import's) */
+    size_t n_tx_runs, cap_tx_runs;
 };
 
 /* Add a located message for the connection's last error; returns SL_EDB. */
 sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what);
 sl_status sl_store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what);
-sl_status sl_store_prepare(sl_store *store, sqlite3_stmt **stmt, const char *sql, sl_diag *diag);
-sl_status sl_store_step_done(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what);
+sl_status sl_store_prepare(sl_store *store, sl__stmt **stmt, const char *sql, sl_diag *diag);
+/* flags: SL__DB_STREAM for a long read (db_driver.h) */
+sl_status sl_store_prepare_flags(sl_store *store, sl__stmt **stmt, const char *sql, int flags,
+                                 sl_diag *diag);
+/* Step an INSERT ... RETURNING id once: *id, and the statement reset. */
+sl_status sl_store_step_id(sl_store *store, sl__stmt *st, long *id, sl_diag *diag,
+                           const char *what);
+/* 1 on a PostgreSQL server (the few dialect differences go through this). */
+int sl_store_is_pg(const sl_store *store);
+/* Opening on PostgreSQL: session settings and migrations (store_pg.c). */
+sl_status sl_store_pg_setup(sl_store *store, sl_diag *diag);
+/* Hold the lot for the rest of the transaction (PostgreSQL: an advisory
+ * lock, so imports of one lot take turns and of different lots do not). */
+sl_status sl_store_lock_lot(sl_store *store, long lot_id, sl_diag *diag);
+/* SL_EDB naming a schema version newer than this build. */
+sl_status sl_store_refuse_newer(sl_store *store, int version, sl_diag *diag);
+/* Location of a database for messages: a URL's password left out (malloc'd). */
+char *sl__db_display_name(const char *location);
+void sl__db_sqlite_busy_timeout(sl__db *db, int ms);
+sl_status sl_store_step_done(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
 /* The same for a statement used once: stepped, then finalized. */
-sl_status sl_store_step_once(sl_store *store, sqlite3_stmt *st, sl_diag *diag, const char *what);
-void sl_store_bind_real_or_null(sqlite3_stmt *st, int index, double v);
-double sl_store_column_real_or_nan(sqlite3_stmt *st, int col);
+sl_status sl_store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
+void sl_store_bind_real_or_null(sl__stmt *st, int index, double v);
+double sl_store_column_real_or_nan(sl__stmt *st, int col);
 void sl_store_now_utc(char out[32]);
 /* A query of one count with ?1 bound to id: a failed query is an error
  * naming what, never a count. */
 sl_status sl_store_count_query(sl_store *store, long *count, const char *sql, long id,
                                sl_diag *diag, const char *what);
 /* A text column as a malloc'd string ("" for NULL); NULL when out of memory. */
-char *sl_store_column_strdup(sqlite3_stmt *st, int col);
+char *sl_store_column_strdup(sl__stmt *st, int col);
 /* Pack a sweep into the compact blob described in store_sweep.c: malloc'd,
  * its length in *bytes; NULL when out of memory. */
 unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,

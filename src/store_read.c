@@ -8,21 +8,21 @@
 
 #include "store_internal.h"
 
-static void copy_text(char *dst, size_t size, sqlite3_stmt *st, int col)
+static void copy_text(char *dst, size_t size, sl__stmt *st, int col)
 {
-    const unsigned char *t = sqlite3_column_text(st, col);
+    const char *t = sl__db_column_text(st, col);
     snprintf(dst, size, "%s", t ? (const char *)t : "");
 }
 
-static void read_device_row(sqlite3_stmt *st, sl_store_device_row *r)
+static void read_device_row(sl__stmt *st, sl_store_device_row *r)
 {
-    r->id = (long)sqlite3_column_int64(st, 0);
-    r->device_id = (long)sqlite3_column_int64(st, 1);
-    r->run_id = (long)sqlite3_column_int64(st, 2);
+    r->id = (long)sl__db_column_int64(st, 0);
+    r->device_id = (long)sl__db_column_int64(st, 1);
+    r->run_id = (long)sl__db_column_int64(st, 2);
     copy_text(r->wafer, sizeof r->wafer, st, 3);
     copy_text(r->name, sizeof r->name, st, 4);
-    r->die_x = (long)sqlite3_column_int64(st, 5);
-    r->die_y = (long)sqlite3_column_int64(st, 6);
+    r->die_x = (long)sl__db_column_int64(st, 5);
+    r->die_y = (long)sl__db_column_int64(st, 6);
     copy_text(r->fit_class, sizeof r->fit_class, st, 7);
     copy_text(r->source, sizeof r->source, st, 8);
     copy_text(r->fit_model, sizeof r->fit_model, st, 9);
@@ -32,8 +32,8 @@ static void read_device_row(sqlite3_stmt *st, sl_store_device_row *r)
                           &r->r_squared };
     for (int i = 0; i < 11; i++)
         *numbers[i] = sl_store_column_real_or_nan(st, 10 + i);
-    r->n_points = (long)sqlite3_column_int64(st, 21);
-    r->measurements = (long)sqlite3_column_int64(st, 22);
+    r->n_points = (long)sl__db_column_int64(st, 21);
+    r->measurements = (long)sl__db_column_int64(st, 22);
     r->electron_mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 23);
     r->hole_mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 24);
 }
@@ -44,7 +44,7 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
 {
     *rows = NULL;
     *count = 0;
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "WITH runs AS (SELECT id FROM measurement_run WHERE lot_id = ?1 AND step = ?2 "
         "AND temperature_K = ?3) "
@@ -52,19 +52,19 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
         "coalesce(m.fit_model, ''), ?3, m.cnp_V, m.cnp_sigma_V, m.mobility_cm2_per_Vs, "
         "m.n0_per_cm2, m.r_contact_ohm, m.hysteresis_V, d.channel_length_um, d.channel_width_um, "
         "m.rel_rms, m.r_squared, coalesce(m.n_points, 0), "
-        "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id AND c.run_id IN runs), "
+        "(SELECT count(*) FROM measurement c WHERE c.device_id = d.id AND c.run_id IN (SELECT id FROM runs)), "
         "m.electron_mobility_cm2_per_Vs, m.hole_mobility_cm2_per_Vs "
         "FROM device d JOIN measurement m ON m.id = (SELECT c.id FROM measurement c "
-        "WHERE c.device_id = d.id AND c.run_id IN runs ORDER BY c.run_id DESC LIMIT 1) "
+        "WHERE c.device_id = d.id AND c.run_id IN (SELECT id FROM runs) ORDER BY c.run_id DESC LIMIT 1) "
         "WHERE d.lot_id = ?1 ORDER BY d.wafer, d.die_y, d.die_x, d.name", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_text(st, 2, step, -1, SQLITE_STATIC);
-    sqlite3_bind_double(st, 3, temperature_K);
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_text(st, 2, step, -1);
+    sl__db_bind_double(st, 3, temperature_K);
     size_t cap = 0;
     int rc;
-    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
+    while ((rc = sl__db_step(st)) == SL__DB_ROW) {
         if (*count == cap) {
             cap = cap ? 2 * cap : 1024;
             sl_store_device_row *grown = realloc(*rows, cap * sizeof **rows);
@@ -76,9 +76,9 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
         }
         read_device_row(st, &(*rows)[(*count)++]);
     }
-    if (s == SL_OK && rc != SQLITE_DONE)
+    if (s == SL_OK && rc != SL__DB_DONE)
         s = sl_store_db_error(store, diag, "read the lot's devices");
-    sqlite3_finalize(st);
+    sl__db_finalize(st);
     return s;
 }
 

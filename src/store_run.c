@@ -13,27 +13,46 @@
 
 /* ---- runs ---- */
 
+/* The runs of the open transaction: an import's, whatever other clients add
+ * to the same server at the same time. */
+static sl_status remember_run(sl_store *store, long run_id)
+{
+    if (store->n_tx_runs == store->cap_tx_runs) {
+        size_t cap = store->cap_tx_runs ? 2 * store->cap_tx_runs : 8;
+        long *grown = realloc(store->tx_runs, cap * sizeof *grown);
+        if (!grown)
+            return SL_ENOMEM;
+        store->tx_runs = grown;
+        store->cap_tx_runs = cap;
+    }
+    store->tx_runs[store->n_tx_runs++] = run_id;
+    return SL_OK;
+}
+
 sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revision_id,
                            const char *step, double temperature_K, const char *kind,
                            const char *source_name, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "INSERT INTO measurement_run (lot_id, step, temperature_K, revision_id, kind, "
-        "source_name, rows, devices, created_utc) VALUES (?1, ?2, ?3, ?4, ?5, ?6, 0, 0, ?7)", diag);
+        "source_name, rows, devices, created_utc) VALUES (?1, ?2, ?3, ?4, ?5, ?6, 0, 0, ?7) "
+        "RETURNING id", diag);
     if (s != SL_OK)
         return s;
     char now[32];
     sl_store_now_utc(now);
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_text(st, 2, step, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_double(st, 3, temperature_K);
-    sqlite3_bind_int64(st, 4, revision_id);
-    sqlite3_bind_text(st, 5, kind, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_text(st, 6, source_name, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_text(st, 7, now, -1, SQLITE_TRANSIENT);
-    s = sl_store_step_once(store, st, diag, "start a measurement run");
-    *run_id = s == SL_OK ? (long)sqlite3_last_insert_rowid(store->db) : 0;
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_text(st, 2, step, -1);
+    sl__db_bind_double(st, 3, temperature_K);
+    sl__db_bind_int64(st, 4, revision_id);
+    sl__db_bind_text(st, 5, kind, -1);
+    sl__db_bind_text(st, 6, source_name, -1);
+    sl__db_bind_text(st, 7, now, -1);
+    s = sl_store_step_id(store, st, run_id, diag, "start a measurement run");
+    sl__db_finalize(st);
+    if (s == SL_OK)
+        s = remember_run(store, *run_id);
     return s;
 }
 
@@ -43,38 +62,30 @@ sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const cha
     sl_status s = sl_store_count_query(store, devices,
                                        "SELECT count(*) FROM measurement WHERE run_id = ?1",
                                        run_id, diag, "count the run's devices");
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     if (s == SL_OK)
         s = sl_store_prepare(store, &st, *devices
             ? "UPDATE measurement_run SET rows = ?2, source_sha256 = ?3, devices = ?4 WHERE id = ?1"
             : "DELETE FROM measurement_run WHERE id = ?1", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, run_id);
+    sl__db_bind_int64(st, 1, run_id);
     if (*devices) {
-        sqlite3_bind_int64(st, 2, rows);
+        sl__db_bind_int64(st, 2, rows);
         if (sha256_hex && *sha256_hex)
-            sqlite3_bind_text(st, 3, sha256_hex, -1, SQLITE_TRANSIENT);
+            sl__db_bind_text(st, 3, sha256_hex, -1);
         else
-            sqlite3_bind_null(st, 3);
-        sqlite3_bind_int64(st, 4, *devices);
+            sl__db_bind_null(st, 3);
+        sl__db_bind_int64(st, 4, *devices);
     }
     return sl_store_step_once(store, st, diag, "record the measurement run");
 }
 
 sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
-                                   "SELECT coalesce(max(id), 0) + 1 FROM measurement_run", diag);
-    if (s != SL_OK)
-        return s;
-    if (sqlite3_step(st) == SQLITE_ROW)
-        *id = (long)sqlite3_column_int64(st, 0);
-    else
-        s = sl_store_db_error(store, diag, "read the run ids");
-    sqlite3_finalize(st);
-    return s;
+    return sl_store_count_query(store, id,
+                                "SELECT coalesce(max(id), 0) + 1 + 0 * ?1 FROM measurement_run",
+                                0, diag, "read the run ids");
 }
 
 void sl_store_runs_free(sl_store_run *runs, size_t count)
@@ -89,18 +100,18 @@ void sl_store_runs_free(sl_store_run *runs, size_t count)
     free(runs);
 }
 
-static int read_run(sqlite3_stmt *st, sl_store_run *r)
+static int read_run(sl__stmt *st, sl_store_run *r)
 {
-    r->id = (long)sqlite3_column_int64(st, 0);
+    r->id = (long)sl__db_column_int64(st, 0);
     r->step = sl_store_column_strdup(st, 1);
-    r->temperature_K = sqlite3_column_double(st, 2);
-    r->revision_id = (long)sqlite3_column_int64(st, 3);
-    r->revision = sqlite3_column_int(st, 4);
+    r->temperature_K = sl__db_column_double(st, 2);
+    r->revision_id = (long)sl__db_column_int64(st, 3);
+    r->revision = sl__db_column_int64(st, 4);
     r->kind = sl_store_column_strdup(st, 5);
     r->source_name = sl_store_column_strdup(st, 6);
     r->source_sha256 = sl_store_column_strdup(st, 7);
-    r->rows = (long)sqlite3_column_int64(st, 8);
-    r->devices = (long)sqlite3_column_int64(st, 9);
+    r->rows = (long)sl__db_column_int64(st, 8);
+    r->devices = (long)sl__db_column_int64(st, 9);
     r->created_utc = sl_store_column_strdup(st, 10);
     return r->step && r->kind && r->source_name && r->source_sha256 && r->created_utc;
 }
@@ -110,17 +121,17 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
 {
     *runs = NULL;
     *count = 0;
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT r.id, r.step, r.temperature_K, r.revision_id, p.revision, r.kind, r.source_name, "
         "r.source_sha256, r.rows, r.devices, r.created_utc FROM measurement_run r "
         "JOIN plan_revision p ON p.id = r.revision_id WHERE r.lot_id = ?1 ORDER BY r.id", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, lot_id);
+    sl__db_bind_int64(st, 1, lot_id);
     size_t cap = 0;
     int rc;
-    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
+    while ((rc = sl__db_step(st)) == SL__DB_ROW) {
         if (*count == cap) {
             size_t grown_cap = cap ? 2 * cap : 8;
             sl_store_run *grown = realloc(*runs, grown_cap * sizeof *grown);
@@ -138,9 +149,9 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
             break;
         }
     }
-    if (s == SL_OK && rc != SQLITE_DONE)
+    if (s == SL_OK && rc != SL__DB_DONE)
         s = sl_store_db_error(store, diag, "list the lot's measurement runs");
-    sqlite3_finalize(st);
+    sl__db_finalize(st);
     if (s != SL_OK) {
         sl_store_runs_free(*runs, *count);
         *runs = NULL;
@@ -154,18 +165,18 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
 static int has_run(sl_store *store, long lot_id, const char *step, double temperature_K,
                    sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     if (sl_store_prepare(store, &st,
                          "SELECT EXISTS (SELECT 1 FROM measurement_run WHERE lot_id = ?1 AND "
                          "step = ?2 AND temperature_K = ?3)", diag) != SL_OK)
         return -1;
-    sqlite3_bind_int64(st, 1, lot_id);
-    sqlite3_bind_text(st, 2, step, -1, SQLITE_STATIC);
-    sqlite3_bind_double(st, 3, temperature_K);
-    int found = sqlite3_step(st) == SQLITE_ROW ? sqlite3_column_int(st, 0) : -1;
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_text(st, 2, step, -1);
+    sl__db_bind_double(st, 3, temperature_K);
+    int found = sl__db_step(st) == SL__DB_ROW ? sl__db_column_int64(st, 0) : -1;
     if (found < 0)
         sl_store_db_error(store, diag, "look up the lot's measurement runs");
-    sqlite3_finalize(st);
+    sl__db_finalize(st);
     return found;
 }
 
@@ -173,17 +184,17 @@ static int has_run(sl_store *store, long lot_id, const char *step, double temper
 static sl_status newest_step(sl_store *store, char step[65], long lot_id, sl_diag *diag)
 {
     snprintf(step, 65, "final");
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT step FROM measurement_run WHERE lot_id = ?1 ORDER BY id DESC LIMIT 1", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, lot_id);
-    int rc = sqlite3_step(st);
-    if (rc == SQLITE_ROW)
-        snprintf(step, 65, "%s", (const char *)sqlite3_column_text(st, 0));
-    sqlite3_finalize(st);
-    return rc == SQLITE_ROW || rc == SQLITE_DONE ? SL_OK
+    sl__db_bind_int64(st, 1, lot_id);
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_ROW)
+        snprintf(step, 65, "%s", (const char *)sl__db_column_text(st, 0));
+    sl__db_finalize(st);
+    return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK
                                                  : sl_store_db_error(store, diag, "look up the lot's runs");
 }
 
@@ -215,19 +226,19 @@ sl_status sl_store_default_view(sl_store *store, char step[65], double *temperat
 sl_status sl_store_view_revision(sl_store *store, long *revision_id, const sl_store_lot *lot,
                                  const char *step, double temperature_K, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT revision_id FROM measurement_run WHERE lot_id = ?1 AND step = ?2 AND "
         "temperature_K = ?3 ORDER BY id DESC LIMIT 1", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, lot->lot_id);
-    sqlite3_bind_text(st, 2, step, -1, SQLITE_STATIC);
-    sqlite3_bind_double(st, 3, temperature_K);
-    int rc = sqlite3_step(st);
-    *revision_id = rc == SQLITE_ROW ? (long)sqlite3_column_int64(st, 0) : lot->revision_id;
-    sqlite3_finalize(st);
-    return rc == SQLITE_ROW || rc == SQLITE_DONE
+    sl__db_bind_int64(st, 1, lot->lot_id);
+    sl__db_bind_text(st, 2, step, -1);
+    sl__db_bind_double(st, 3, temperature_K);
+    int rc = sl__db_step(st);
+    *revision_id = rc == SL__DB_ROW ? (long)sl__db_column_int64(st, 0) : lot->revision_id;
+    sl__db_finalize(st);
+    return rc == SL__DB_ROW || rc == SL__DB_DONE
                ? SL_OK
                : sl_store_db_error(store, diag, "look up the view's plan revision");
 }
@@ -253,7 +264,7 @@ void sl_store_revision_clear(sl_store_revision *r)
 
 /* Rows of a query with ?1 = revision id, each handed to read (which returns
  * 0 when out of memory) into a growing array of elements of size bytes. */
-typedef int (*row_reader)(sqlite3_stmt *st, void *element);
+typedef int (*row_reader)(sl__stmt *st, void *element);
 
 static sl_status read_rows(sl_store *store, void **items, size_t *count, size_t size,
                            const char *sql, long revision_id, row_reader read, sl_diag *diag,
@@ -261,14 +272,14 @@ static sl_status read_rows(sl_store *store, void **items, size_t *count, size_t 
 {
     *items = NULL;
     *count = 0;
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st, sql, diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, revision_id);
+    sl__db_bind_int64(st, 1, revision_id);
     size_t cap = 0;
     int rc;
-    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
+    while ((rc = sl__db_step(st)) == SL__DB_ROW) {
         if (*count == cap) {
             cap = cap ? 2 * cap : 16;
             void *grown = realloc(*items, cap * size);
@@ -286,43 +297,43 @@ static sl_status read_rows(sl_store *store, void **items, size_t *count, size_t 
             break;
         }
     }
-    if (s == SL_OK && rc != SQLITE_DONE)
+    if (s == SL_OK && rc != SL__DB_DONE)
         s = sl_store_db_error(store, diag, what);
-    sqlite3_finalize(st);
+    sl__db_finalize(st);
     return s;
 }
 
-static int read_split(sqlite3_stmt *st, void *element)
+static int read_split(sl__stmt *st, void *element)
 {
     sl_store_split *p = element;
     p->name = sl_store_column_strdup(st, 0);
     p->dielectric = sl_store_column_strdup(st, 1);
     p->treatments = sl_store_column_strdup(st, 2);
     p->levels = sl_store_column_strdup(st, 3);
-    p->planned_doping_per_cm2 = sqlite3_column_double(st, 4);
-    p->planned_doping_sigma_per_cm2 = sqlite3_column_double(st, 5);
+    p->planned_doping_per_cm2 = sl__db_column_double(st, 4);
+    p->planned_doping_sigma_per_cm2 = sl__db_column_double(st, 5);
     return p->name && p->dielectric && p->treatments && p->levels;
 }
 
-static int read_wafer(sqlite3_stmt *st, void *element)
+static int read_wafer(sl__stmt *st, void *element)
 {
     sl_store_wafer *w = element;
     w->name = sl_store_column_strdup(st, 0);
-    w->split = sqlite3_column_type(st, 1) == SQLITE_NULL ? -1 : (long)sqlite3_column_int64(st, 1);
-    w->process_order = (long)sqlite3_column_int64(st, 2);
+    w->split = sl__db_column_is_null(st, 1) ? -1 : (long)sl__db_column_int64(st, 1);
+    w->process_order = (long)sl__db_column_int64(st, 2);
     return w->name != NULL;
 }
 
-static int read_temperature(sqlite3_stmt *st, void *element)
+static int read_temperature(sl__stmt *st, void *element)
 {
-    *(double *)element = sqlite3_column_double(st, 0);
+    *(double *)element = sl__db_column_double(st, 0);
     return 1;
 }
 
-static int read_prediction(sqlite3_stmt *st, void *element)
+static int read_prediction(sl__stmt *st, void *element)
 {
     sl_prediction *p = element;
-    p->split = (size_t)sqlite3_column_int64(st, 0);
+    p->split = (size_t)sl__db_column_int64(st, 0);
     double *fields[] = { &p->temperature_K, &p->gate_capacitance_F_per_m2, &p->eot_nm,
                          &p->doping_per_cm2.val, &p->doping_per_cm2.sigma, &p->cnp_V.val,
                          &p->cnp_V.sigma, &p->gate_min_V, &p->gate_max_V,
@@ -331,9 +342,9 @@ static int read_prediction(sqlite3_stmt *st, void *element)
                          &p->gate_efficiency_per_cm2_V, &p->thermal_floor_per_cm2,
                          &p->thermal_floor_V, &p->disorder_crossover_K };
     for (int i = 0; i < (int)(sizeof fields / sizeof fields[0]); i++)
-        *fields[i] = sqlite3_column_double(st, 1 + i);
+        *fields[i] = sl__db_column_double(st, 1 + i);
     p->gate_capacitance_F_per_m2 /= SL_NF_CM2_PER_F_M2;
-    p->cnp_in_range = sqlite3_column_int(st, 18);
+    p->cnp_in_range = sl__db_column_int64(st, 18);
     return 1;
 }
 
@@ -390,6 +401,50 @@ sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long r
     return s;
 }
 
+/* Index of a stored wafer by name, -1 when absent. */
+static long wafer_index(const sl_store_revision *rev, const char *name)
+{
+    for (size_t w = 0; w < rev->n_wafers; w++)
+        if (strcmp(rev->wafers[w].name, name) == 0)
+            return (long)w;
+    return -1;
+}
+
+/* Index of a step by name, -1 when absent. */
+static long step_index(const char *const *steps, size_t n_steps, const char *name)
+{
+    for (size_t k = 0; k < n_steps; k++)
+        if (strcmp(steps[k], name) == 0)
+            return (long)k;
+    return -1;
+}
+
+sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store_revision *rev,
+                                    const char *const *steps, size_t n_steps, sl_diag *diag)
+{
+    memset(loads, 0, rev->n_wafers * n_steps * sizeof *loads);
+    sl__stmt *st = NULL;
+    sl_status s = sl_store_prepare(store, &st,
+        "SELECT w.name, l.step, l.load FROM wafer_load l JOIN wafer w ON w.id = l.wafer_id "
+        "WHERE w.revision_id = ?1", diag);
+    if (s != SL_OK)
+        return s;
+    sl__db_bind_int64(st, 1, rev->revision_id);
+    int rc;
+    while ((rc = sl__db_step(st)) == SL__DB_ROW) {
+        const char *wafer = (const char *)sl__db_column_text(st, 0);
+        const char *step = (const char *)sl__db_column_text(st, 1);
+        long w = wafer_index(rev, wafer ? wafer : "");
+        long k = step_index(steps, n_steps, step ? step : "");
+        if (w >= 0 && k >= 0)
+            loads[(size_t)w * n_steps + (size_t)k] = (long)sl__db_column_int64(st, 2);
+    }
+    if (rc != SL__DB_DONE)
+        s = sl_store_db_error(store, diag, "read the wafers' loads");
+    sl__db_finalize(st);
+    return s;
+}
+
 /* ---- a new revision against the measured wafers ---- */
 
 /* What a wafer belongs to in the new layout, in the stored split's words:
@@ -423,7 +478,7 @@ static void append_moved(char *list, size_t size, size_t *used, const char *wafe
 sl_status sl_store_check_measured_wafers(sl_store *store, long lot_id, const sl_plan *plan,
                                          const sl_layout *layout, sl_diag *diag)
 {
-    sqlite3_stmt *st = NULL;
+    sl__stmt *st = NULL;
     sl_status s = sl_store_prepare(store, &st,
         "SELECT w.name, s.name, s.name || '|' || s.dielectric || '|' || s.treatments "
         "FROM wafer w JOIN split s ON s.id = w.split_id "
@@ -433,14 +488,14 @@ sl_status sl_store_check_measured_wafers(sl_store *store, long lot_id, const sl_
         "ORDER BY w.id", diag);
     if (s != SL_OK)
         return s;
-    sqlite3_bind_int64(st, 1, lot_id);
+    sl__db_bind_int64(st, 1, lot_id);
     char moved[1024] = "", key[4096];
     size_t used = 0, n_moved = 0;
     int rc;
-    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
-        const char *wafer = (const char *)sqlite3_column_text(st, 0);
-        const char *before = (const char *)sqlite3_column_text(st, 1);
-        const char *stored = (const char *)sqlite3_column_text(st, 2);
+    while ((rc = sl__db_step(st)) == SL__DB_ROW) {
+        const char *wafer = (const char *)sl__db_column_text(st, 0);
+        const char *before = (const char *)sl__db_column_text(st, 1);
+        const char *stored = (const char *)sl__db_column_text(st, 2);
         new_split_key(key, sizeof key, plan, layout, wafer);
         if (strcmp(key, stored) == 0)
             continue;
@@ -449,9 +504,9 @@ sl_status sl_store_check_measured_wafers(sl_store *store, long lot_id, const sl_
                      split >= 0 ? plan->splits[split].name : "");
         n_moved++;
     }
-    if (rc != SQLITE_DONE)
+    if (rc != SL__DB_DONE)
         s = sl_store_db_error(store, diag, "read the lot's measured wafers");
-    sqlite3_finalize(st);
+    sl__db_finalize(st);
     if (s != SL_OK || n_moved == 0)
         return s;
     sl_diag_add(diag, SL_SEV_ERROR, plan->path, 0, 0,

@@ -463,7 +463,7 @@ static stats_store open_stats_store(void)
     t.json = stats_compare_json(&t.dir);
     t.db = sl_test_path(t.dir, "t.db");
     t.diag = sl_diag_new();
-    ck_assert_int_eq(sl_store_open(&t.store, t.db, t.diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&t.store, t.db, t.diag), SL_OK);
     return t;
 }
 
@@ -586,6 +586,117 @@ START_TEST(test_off_prediction_without_spread)
                    "neutrality point 2.68 V below the prediction (13.9 sigma)", row, sizeof row);
     ck_assert(strstr(row, "\"wafer\": \"W03\", \"device\": \"D1\"") != NULL);
     free(json);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* ---- the residual density against the thermal floor -------------------------- */
+
+static size_t count_of(const char *text, const char *needle)
+{
+    size_t n = 0;
+    for (const char *p = strstr(text, needle); p; p = strstr(p + 1, needle))
+        n++;
+    return n;
+}
+
+/* The stats lot with residual densities: S01/D1 fitted at 3e10 cm^-2, below
+ * the thermal floor at 300 K, n_th = (pi/6)(k_B T / hbar v_F)^2 = 8.077e10
+ * cm^-2 (Fang et al., Appl. Phys. Lett. 91, 092109 (2007), about 8e10 at
+ * 300 K); S01/D2 at 8.2e10, just above; every other device at 2e11. Only
+ * D1 is flagged "below-floor", it keeps its place in its wafer's mean, and
+ * every device's floor_predicted_per_cm2 is sqrt(n_th^2 + n*^2) with the
+ * plan's n* = 1.5e11: 1.7036e11 (hand arithmetic). */
+START_TEST(test_residual_below_thermal_floor_flagged)
+{
+    char *dir = sl_test_tmpdir();
+    char *src = sl_test_data("analyze/stats-results.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *path = sl_test_path(dir, "results.csv");
+    size_t cap = strlen(text) * 2 + 64, n = 0;
+    char *out = malloc(cap);
+    char *save = NULL;
+    for (char *line = strtok_r(text, "\n", &save); line; line = strtok_r(NULL, "\n", &save)) {
+        const char *n0 = strncmp(line, "wafer,", 6) == 0   ? "n0_per_cm2"
+                         : strncmp(line, "S01,D1,", 7) == 0 ? "3e10"
+                         : strncmp(line, "S01,D2,", 7) == 0 ? "8.2e10"
+                                                            : "2e11";
+        n += (size_t)snprintf(out + n, cap - n, "%s,%s\n", line, n0);
+    }
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    char *plan = sl_test_data("analyze/stats-lot.yaml");
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", "results.csv", "--db",
+                             "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result r = run_ok(dir, compare);
+    char row[4096];
+    json_row_where(r.out, "devices", "device", "D1", row, sizeof row); /* S01 comes first */
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\""));
+    ck_assert_ptr_nonnull(strstr(row, "\"below-floor\""));
+    check_rel("floor_predicted_per_cm2", json_num(row, "floor_predicted_per_cm2"), 1.7036e11, 1e-4);
+    json_row_where(r.out, "devices", "device", "D2", row, sizeof row);
+    ck_assert_ptr_null(strstr(row, "below-floor"));
+    ck_assert_int_eq((int)count_of(r.out, "\"below-floor\""), 1);
+    json_row_where(r.out, "failure_analysis", "reason",
+                   "residual density 3e+10 cm^-2 below the thermal floor 8.08e+10 cm^-2 at 300 K "
+                   "(the fit or the temperature is wrong)", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\", \"device\": \"D1\""));
+    sl_run_result_free(&r);
+    free(out);
+    free(text);
+    free(src);
+    free(path);
+    free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* The density window reached from the measured mean V_cnp: on 90 nm SiO2
+ * (C_g / e = 2.395e11 cm^-2 per volt, eps 3.9: hand arithmetic) tens of
+ * volts from neutrality the quantum capacitance takes about 1 % (E_F of
+ * 0.3 eV out of 30 V), so n - p at the top of the gate range is within 3 %
+ * of C_g (V_max - V_mean) / e; it exceeds the predicted window exactly when
+ * the mean lies below the prediction (textbook electrostatics). No device
+ * of the fixture lies beyond its sweep: every share inside is 1. */
+START_TEST(test_density_window_reached)
+{
+    char *dir = NULL;
+    free(stats_compare_json(&dir));
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    size_t checked = 0;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        ck_assert(sp->inside_share == 1.0);
+        if (!isfinite(sp->cnp.mean))
+            continue;
+        double top = a->split_gate_max_V[k], per_V = a->split_capacitance_F_per_m2[k] /
+                                                     SL_SI_ELEMENTARY_CHARGE * 1e-4;
+        if (strcmp(a->plan->dielectrics[a->plan->splits[k].dielectric].name, "ox90") == 0)
+            check_rel("electrons reached", sp->window_reached_per_cm2[0],
+                      2.395e11 * (top - sp->cnp.mean), 0.03);
+        check_rel("electrons reached", sp->window_reached_per_cm2[0], per_V * (top - sp->cnp.mean),
+                  0.05);
+        int below = sp->cnp.mean < sp->cnp_predicted_V;
+        ck_assert_int_eq(sp->window_reached_per_cm2[0] > sp->window_predicted_per_cm2[0], below);
+        ck_assert_int_eq(sp->window_reached_per_cm2[1] < sp->window_predicted_per_cm2[1], below);
+        checked++;
+    }
+    ck_assert_uint_ge(checked, 4);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
     sl_test_rmtree(dir);
     free(dir);
 }
@@ -839,6 +950,52 @@ START_TEST(test_censored_lot_end_to_end)
     ck_assert_uint_gt(warned, 0);
     ck_assert_uint_eq(lines, warned);
     sl_run_result_free(&r);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* A plan with a batched step (plans/rf-highk-topgate.yaml: the anneal
+ * pda-400 in furnace loads of six wafers): compare fits the loads as a
+ * random effect, so each level's df is the one layout planned from the same
+ * assignment (the load the unit of the batched level: 10, the wafer of the
+ * others: 20), the load scatter is reported, and --emit-yaml measures it. */
+START_TEST(test_batched_lot_df_as_planned)
+{
+    char *dir = sl_test_tmpdir(), *plan = sl_test_path(SL_SOURCE_DIR, "plans/rf-highk-topgate.yaml");
+    char row[2048], lrow[2048];
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *simulate[] = { "simulate", plan, "--out", "sim", "--no-sweeps", NULL };
+    run_quiet(dir, simulate);
+    const char *ingest[] = { "ingest", "--lot", "RFTG-07", "--results", "sim/results.csv", "--db",
+                             "t.db", NULL };
+    run_quiet(dir, ingest);
+    const char *compare[] = { "compare", "--lot", "RFTG-07", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result c = run_ok(dir, compare);
+    const char *layout[] = { "layout", plan, "--format", "json", NULL };
+    sl_run_result l = run_ok(dir, layout);
+    static const char *const levels[] = { "zro8", "uv-ozone-60s", "pda-400" };
+    for (size_t i = 0; i < N_OF(levels); i++) {
+        json_row_where(c.out, "effects", "level", levels[i], row, sizeof row);
+        json_row_where(l.out, "levels", "level", levels[i], lrow, sizeof lrow);
+        ck_assert_msg(json_num(row, "df") == json_num(lrow, "df"), "%s: df %g, planned %g",
+                      levels[i], json_num(row, "df"), json_num(lrow, "df"));
+    }
+    json_row_where(c.out, "effects", "level", "pda-400", row, sizeof row);
+    /* 12 annealed wafers in 2 loads + 12 wafers outside loads = 14 units - 4 coefficients */
+    ck_assert_double_eq(json_num(row, "df"), 10.0);
+    json_row_where(c.out, "effects", "level", "zro8", row, sizeof row);
+    ck_assert_double_eq(json_num(row, "df"), 20.0); /* 24 wafers - 4 coefficients */
+    ck_assert(json_num(c.out, "batch_sigma_per_cm2") >= 0.0);
+    const char *emit[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
+    sl_run_result y = run_ok(dir, emit);
+    ck_assert_ptr_nonnull(strstr(y.out, "\n  batch_sigma_per_cm2: "));
+    sl_run_result_free(&y);
+    sl_run_result_free(&l);
+    sl_run_result_free(&c);
+    free(plan);
     sl_test_rmtree(dir);
     free(dir);
 }
@@ -1540,6 +1697,8 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);
+    tcase_add_test(stats, test_residual_below_thermal_floor_flagged);
+    tcase_add_test(stats, test_density_window_reached);
     tcase_add_test(stats, test_stream_reads_back_the_lot);
     suite_add_tcase(s, stats);
     TCase *mc = tcase_create("monte carlo");
@@ -1555,6 +1714,7 @@ static Suite *analyze_suite(void)
     tcase_set_timeout(lots, 300);
     tcase_add_test(lots, test_end_to_end_off_plan_and_faults);
     tcase_add_test(lots, test_censored_lot_end_to_end);
+    tcase_add_test(lots, test_batched_lot_df_as_planned);
     tcase_add_test(lots, test_history_flags_drift);
     tcase_add_test(lots, test_emit_yaml_round_trip);
     tcase_add_test(lots, test_emit_yaml_quotes_names);

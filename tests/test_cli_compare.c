@@ -15,7 +15,7 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
-#include <sqlite3.h>
+#include "store_internal.h"
 
 #include "test_support.h"
 
@@ -258,6 +258,7 @@ END_TEST
 
 START_TEST(test_missing_database)
 {
+    SL_TEST_SQLITE_ONLY(); /* a missing file; a server's database always exists */
     static const char *const cases[][8] = {
         { "compare", "--lot", "DEMO-01", "--db", "missing.db", NULL },
         { "history", "--db", "missing.db", NULL },
@@ -290,6 +291,8 @@ START_TEST(test_database_from_environment)
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert_int_eq(top_number(r.out, "lots"), 4);
     sl_run_result_free(&r);
+    if (sl_test_pg()) /* the rest is about a missing SQLite file */
+        return;
     ck_assert_int_eq(setenv("SPLITLOT_DB", "elsewhere.db", 1), 0);
     r = run_in(compare);
     ck_assert_int_eq(r.exit_code, 2);
@@ -422,8 +425,9 @@ END_TEST
 
 /* Peak resident size (KiB) of `splitlot compare --lot MANY-01` on db in a
  * format, output thrown away: the child's own ru_maxrss from wait4. */
-static long compare_peak_kib(const char *db, const char *format)
+static long compare_peak_kib(const char *db_path, const char *format)
 {
+    char *db = sl_test_db(db_path);
     pid_t pid = fork();
     ck_assert_int_ge(pid, 0);
     if (pid == 0) {
@@ -438,6 +442,7 @@ static long compare_peak_kib(const char *db, const char *format)
     struct rusage usage;
     ck_assert_int_eq(wait4(pid, &status, 0, &usage), pid);
     ck_assert_msg(WIFEXITED(status) && WEXITSTATUS(status) == 0, "compare on %s failed", db);
+    free(db);
     return usage.ru_maxrss;
 }
 
@@ -552,13 +557,15 @@ START_TEST(test_plan_revisions_after_measurement)
 
     /* the stored prediction of revision 2 moved by +5 V: compare follows it */
     char *db_path = sl_test_path(folder, "t.db");
-    sqlite3 *db = NULL;
-    ck_assert_int_eq(sqlite3_open(db_path, &db), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_exec(db, "UPDATE prediction SET cnp_V = cnp_V + 5 WHERE split_id IN "
-                                      "(SELECT s.id FROM split s JOIN plan_revision r ON "
-                                      "r.id = s.revision_id WHERE r.revision = 2)",
-                                  NULL, NULL, NULL), SQLITE_OK);
-    sqlite3_close(db);
+    sl_store *store = NULL;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_test_store_open(&store, db_path, diag), SL_OK);
+    ck_assert_int_eq(sl__db_exec(store->db, "UPDATE prediction SET cnp_V = cnp_V + 5 WHERE split_id "
+                                            "IN (SELECT s.id FROM split s JOIN plan_revision r ON "
+                                            "r.id = s.revision_id WHERE r.revision = 2)"),
+                     SL__DB_OK);
+    sl_store_close(store);
+    sl_diag_free(diag);
     char *moved = compare_in(folder, "REV-01");
     const char *p = strstr(before, "\"cnp_predicted_V\": "), *q = strstr(moved, "\"cnp_predicted_V\": ");
     ck_assert(p && q);
@@ -681,6 +688,92 @@ START_TEST(test_compare_memory_is_flat)
 }
 END_TEST
 
+static size_t count_nl(const char *s)
+{
+    size_t n = 0;
+    for (; *s; s++)
+        n += *s == '\n';
+    return n;
+}
+
+/* The output of a command on a database (stdout; exit 0 asserted). */
+static char *output_on(const char *db, const char *const *argv_with_db_last)
+{
+    const char *argv[16];
+    size_t n = 0;
+    for (; argv_with_db_last[n]; n++)
+        argv[n] = argv_with_db_last[n];
+    argv[n++] = "--db";
+    argv[n++] = db;
+    argv[n] = NULL;
+    sl_run_result r = run_in(argv);
+    ck_assert_msg(r.exit_code == 0, "%s on %s: exit %d: %s", argv[0], db, r.exit_code, r.err);
+    char *out = r.out;
+    free(r.err);
+    return out;
+}
+
+/* The checksum db copy printed for one lot (csv: lot,sha256). */
+static void copy_checksum(char sum[65], const char *from, const char *to, const char *lot)
+{
+    const char *argv[] = { "db", "copy", "--from", from, "--to", to, "--lot", lot, "--format",
+                           "csv", NULL };
+    sl_run_result r = run_in(argv);
+    ck_assert_msg(r.exit_code == 0, "db copy %s -> %s: %s", from, to, r.err);
+    const char *row = strchr(r.out, '\n');
+    ck_assert(row && strlen(row) > strlen(lot) + 66);
+    snprintf(sum, 65, "%s", row + 1 + strlen(lot) + 1);
+    sl_run_result_free(&r);
+}
+
+/* The same lots give the same answers byte for byte on either backend: t.db
+ * (a PostgreSQL server under make check-pg) copied into an SQLite file and
+ * back, compare, history and report read from each; each copy has its
+ * source's checksum, and a lot the destination holds already is refused. */
+START_TEST(test_same_answers_on_both_backends)
+{
+    static const char *const lots[] = { "DEMO-01", "CLEAN-01", "OFF-01", "DIFF-01" };
+    char sums[3][65];
+    for (size_t i = 0; i < N_OF(lots); i++) {
+        copy_checksum(sums[0], "t.db", "same.sqlite", lots[i]);
+        copy_checksum(sums[1], "same.sqlite", "back.db", lots[i]);
+        ck_assert_str_eq(sums[0], sums[1]);
+    }
+    static const char *const history[] = { "history", "--format", "json", NULL };
+    static const char *const report[] = { "report", "--lot", "OFF-01", "--out", "same.html", NULL };
+    const char *const dbs[] = { "t.db", "same.sqlite", "back.db" };
+    char *first[6] = { NULL };
+    for (size_t d = 0; d < N_OF(dbs); d++) {
+        char *got[6];
+        for (size_t i = 0; i < N_OF(lots); i++) {
+            const char *compare[] = { "compare", "--lot", lots[i], "--format", "json", NULL };
+            got[i] = output_on(dbs[d], compare);
+        }
+        got[4] = output_on(dbs[d], history);
+        free(output_on(dbs[d], report));
+        char *html = sl_test_path(dir, "same.html");
+        got[5] = sl_test_read_file(html, NULL);
+        free(html);
+        ck_assert_ptr_nonnull(got[5]);
+        for (size_t k = 0; k < 6; k++) {
+            if (d == 0) {
+                first[k] = got[k];
+                continue;
+            }
+            ck_assert_msg(strcmp(first[k], got[k]) == 0, "output %zu differs on %s", k, dbs[d]);
+            free(got[k]);
+        }
+    }
+    for (size_t k = 0; k < 6; k++)
+        free(first[k]);
+    const char *again[] = { "db", "copy", "--from", "t.db", "--to", "same.sqlite", NULL };
+    sl_run_result r = run_in(again);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert(strstr(r.err, "is in same.sqlite already; nothing was copied") && count_nl(r.err) == 1);
+    sl_run_result_free(&r);
+}
+END_TEST
+
 static Suite *cli_compare_suite(void)
 {
     Suite *s = suite_create("cli_compare");
@@ -701,6 +794,7 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_compare_views);
     tcase_add_test(tc, test_history_and_report_views);
     tcase_add_test(tc, test_plan_revisions_after_measurement);
+    tcase_add_test(tc, test_same_answers_on_both_backends);
     suite_add_tcase(s, tc);
     return s;
 }

@@ -62,6 +62,7 @@ END_TEST
 
 START_TEST(test_missing_database)
 {
+    SL_TEST_SQLITE_ONLY(); /* a missing file; a server's database always exists */
     char *dir = sl_test_tmpdir();
     const char *argv[] = { "lots", "--db", "none.db", NULL };
     sl_run_result r = sl_test_run(dir, NULL, argv);

@@ -232,30 +232,84 @@ START_TEST(df_and_power_per_level)
 }
 END_TEST
 
-/* wafers_per_split_needed is the smallest: a plan with that many wafers per
- * split reaches the wanted power, one fewer does not. */
-START_TEST(wafers_needed_is_smallest)
+/* Give a full-factorial plan enough wafers for w per split. */
+static void wafers_for(sl_plan *plan, long w)
 {
-    sl_plan *plan = load_example("rf-highk-topgate.yaml");
-    sl_layout *l = build(plan);
-    long need = l->levels[2].wafers_per_split_needed;
-    ck_assert_int_gt(need, 3);
-    sl_layout_free(l);
-    plan->wafers_per_split = need;
-    plan->n_wafers = 8 * (size_t)need; /* the first wafers of the list suffice */
-    char **more = realloc(plan->wafers, plan->n_wafers * sizeof *more);
+    size_t need = plan->n_splits * (size_t)w;
+    plan->wafers_per_split = w;
+    if (need <= plan->n_wafers)
+        return;
+    char **more = realloc(plan->wafers, need * sizeof *more);
     ck_assert_ptr_nonnull(more);
     plan->wafers = more;
-    for (size_t i = 25; i < plan->n_wafers; i++) {
+    for (size_t i = plan->n_wafers; i < need; i++) {
         plan->wafers[i] = malloc(32);
         snprintf(plan->wafers[i], 32, "X%02zu", i);
     }
-    l = build(plan);
-    ck_assert(l->levels[2].power >= 0.9);
-    sl_layout_free(l);
-    plan->wafers_per_split = need - 1;
-    l = build(plan);
-    ck_assert(l->levels[2].power < 0.9);
+    plan->n_wafers = need;
+}
+
+/* wafers_per_split_needed is the smallest: a plan with that many wafers per
+ * split reaches the wanted power, one fewer does not. rf: the batched level
+ * (loads rebuilt for each count); demo with twice its wafer scatter: every
+ * level (the 1/w scaling of an unbatched design). */
+START_TEST(wafers_needed_is_smallest)
+{
+    static const struct {
+        const char *plan;
+        size_t level;
+        double wafer_sigma; /* 0: the plan's */
+    } cases[] = { { "rf-highk-topgate.yaml", 2, 0 }, { "demo.yaml", 0, 2e11 },
+                  { "demo.yaml", 1, 2e11 }, { "demo.yaml", 2, 2e11 } };
+    for (size_t c = 0; c < sizeof cases / sizeof cases[0]; c++) {
+        sl_plan *plan = load_example(cases[c].plan);
+        if (cases[c].wafer_sigma > 0)
+            plan->variation.wafer_sigma_per_cm2 = cases[c].wafer_sigma;
+        size_t k = cases[c].level;
+        sl_layout *l = build(plan);
+        long need = l->levels[k].wafers_per_split_needed;
+        ck_assert_int_gt(need, (long)plan->wafers_per_split);
+        ck_assert(l->levels[k].power < plan->resolve.power);
+        sl_layout_free(l);
+        wafers_for(plan, need);
+        l = build(plan);
+        ck_assert_msg(l->levels[k].power >= plan->resolve.power, "%s level %zu at %ld: %.4f",
+                      cases[c].plan, k, need, l->levels[k].power);
+        ck_assert_int_eq(l->levels[k].wafers_per_split_needed, need);
+        sl_layout_free(l);
+        wafers_for(plan, need - 1);
+        l = build(plan);
+        ck_assert(l->levels[k].power < plan->resolve.power);
+        sl_layout_free(l);
+        sl_plan_free(plan);
+    }
+}
+END_TEST
+
+/* Two batched steps of one-wafer loads over 1100 wafers: 2200 loads, beyond
+ * what the dense GLS of several steps takes; the layout is still made and
+ * the power says unknown. */
+START_TEST(too_many_loads_unknown)
+{
+    sl_plan *plan = parse_text(
+        "lot: L-2\n"
+        "temperatures_K: [300]\n"
+        "dielectrics: [ { name: ox, layers: [ { material: SiO2, thickness_nm: 90 } ] },\n"
+        "               { name: ox2, layers: [ { material: SiO2, thickness_nm: 60 } ] } ]\n"
+        "treatments: [ { name: a, doping_per_cm2: { mean: 1e12 } },\n"
+        "              { name: b, doping_per_cm2: { mean: 1e12 } } ]\n"
+        "design: { kind: full-factorial, factors: { dielectric: [ox, ox2], s1: [a], s2: [b] },\n"
+        "          wafers_per_split: 550 }\n"
+        "batches: [ { step: a, capacity: 1 }, { step: b, capacity: 1 } ]\n"
+        "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5, batch_sigma_per_cm2: 1e11 }\n"
+        "resolve: { shift_per_cm2: 3e11 }\n"
+        "wafers: 1100\n"
+        "devices_per_wafer: 10\n");
+    sl_layout *l = build(plan);
+    ck_assert_uint_eq(l->n_loads, 2200);
+    ck_assert_uint_eq(l->n_levels, 1);
+    ck_assert_int_eq(l->levels[0].verdict, SL_LAYOUT_UNKNOWN);
+    ck_assert(isnan(l->levels[0].power));
     sl_layout_free(l);
     sl_plan_free(plan);
 }
@@ -589,6 +643,7 @@ static Suite *layout_suite(void)
     tcase_add_test(tc, df_and_power_per_level);
     tcase_add_test(tc, wafers_needed_is_smallest);
     tcase_add_test(tc, loads_capacity_and_balance);
+    tcase_add_test(tc, too_many_loads_unknown);
     tcase_add_test(tc, fraction_montgomery_2_4_1);
     tcase_add_test(tc, fraction_resolution_three_said_plainly);
     tcase_add_test(tc, simulated_power_agrees);

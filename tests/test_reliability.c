@@ -1,8 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * Reliability of the splitlot binary under abuse: imports killed with SIGKILL,
  * a full disk, a file size limit, a read-only database, concurrent writers and
- * readers, and hostile input files. Each case checks the database afterwards
- * with the SQLite C API (integrity, earlier lots intact, no half-written lot).
+ * readers, hostile input files, and on PostgreSQL (make check-pg) a server
+ * that stops mid-import, a statement timeout, an unreachable server and a
+ * refused login. Each case checks the database afterwards (SQLite's
+ * integrity check, earlier lots intact, no half-written lot).
  */
 #define _GNU_SOURCE /* mount(2), umount2(2) */
 #include <check.h>
@@ -24,6 +26,7 @@
 #include <time.h>
 #include <unistd.h>
 
+#include "store_internal.h"
 #include "test_support.h"
 
 #define DEMO_PLAN SL_SOURCE_DIR "/plans/demo.yaml"
@@ -62,20 +65,25 @@ static void mix(uint64_t *h, const void *bytes, size_t n)
         *h = (*h ^ p[i]) * 1099511628211ULL;
 }
 
-/* Open a database file directly with SQLite (read-write, so a WAL left by a
+/* Open a database through the store (SQLite: read-write, so a WAL left by a
  * killed process is recovered the way the next splitlot would). */
-static sqlite3 *db_open(const char *path)
+static sl_store *db_open(const char *path)
 {
-    sqlite3 *db = NULL;
-    int rc = sqlite3_open_v2(path, &db, SQLITE_OPEN_READWRITE, NULL);
-    ck_assert_msg(rc == SQLITE_OK, "open %s: %s", path, db ? sqlite3_errmsg(db) : "?");
-    sqlite3_busy_timeout(db, 60000);
-    return db;
+    sl_store *store = NULL;
+    sl_diag *diag = sl_diag_new();
+    sl_status s = sl_test_store_open(&store, path, diag);
+    ck_assert_msg(s == SL_OK, "open %s: %s", path, sl_diag_last(diag) ? sl_diag_last(diag) : "?");
+    sl_diag_free(diag);
+    return store;
 }
 
 static void assert_integrity(const char *path)
 {
-    sqlite3 *db = db_open(path);
+    if (sl_test_pg()) /* the server keeps its own pages */
+        return;
+    sqlite3 *db = NULL;
+    ck_assert_int_eq(sqlite3_open_v2(path, &db, SQLITE_OPEN_READWRITE, NULL), SQLITE_OK);
+    sqlite3_busy_timeout(db, 60000);
     sqlite3_stmt *st = NULL;
     ck_assert_int_eq(sqlite3_prepare_v2(db, "PRAGMA integrity_check", -1, &st, NULL), SQLITE_OK);
     ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
@@ -96,22 +104,22 @@ static lot_digest digest_lot(const char *path, const char *lot)
         "LEFT JOIN sweep s ON s.measurement_id = m.id WHERE l.name = ?1 AND m.current "
         "ORDER BY d.wafer, d.name, m.step, m.temperature_K";
     lot_digest dg = { 14695981039346656037ULL, 0 }; /* FNV-1a offset basis */
-    sqlite3 *db = db_open(path);
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(db, sql, -1, &st, NULL), SQLITE_OK);
-    sqlite3_bind_text(st, 1, lot, -1, SQLITE_STATIC);
+    sl_store *store = db_open(path);
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db, sql, 0, &st), SL__DB_OK);
+    sl__db_bind_text(st, 1, lot, -1);
     int rc;
-    while ((rc = sqlite3_step(st)) == SQLITE_ROW) {
-        for (int i = 0; i < sqlite3_column_count(st); i++) {
-            const void *b = sqlite3_column_blob(st, i);
-            mix(&dg.hash, b ? b : "", (size_t)sqlite3_column_bytes(st, i));
+    while ((rc = sl__db_step(st)) == SL__DB_ROW) {
+        for (int i = 0; i < 17; i++) {
+            const void *b = i == 16 ? sl__db_column_blob(st, i) : sl__db_column_text(st, i);
+            mix(&dg.hash, b ? b : "", b ? sl__db_column_bytes(st, i) : 0);
             mix(&dg.hash, "|", 1);
         }
         dg.devices++;
     }
-    ck_assert_int_eq(rc, SQLITE_DONE);
-    sqlite3_finalize(st);
-    sqlite3_close(db);
+    ck_assert_int_eq(rc, SL__DB_DONE);
+    sl__db_finalize(st);
+    sl_store_close(store);
     return dg;
 }
 
@@ -239,6 +247,10 @@ static child spawn(const char *const *argv, const char *tag, rlim_t fsize_limit)
     const char **args = calloc(argc + 2, sizeof *args);
     args[0] = SL_BINARY;
     memcpy(args + 1, argv, argc * sizeof *argv);
+    char *mapped = NULL; /* a database file names a schema of the test server */
+    for (size_t i = 1; i < argc; i++)
+        if (strcmp(argv[i - 1], "--db") == 0)
+            args[i + 1] = mapped = sl_test_db_in(rig.dir, argv[i]);
     c.pid = fork();
     if (c.pid == 0) {
         int err = open(c.err_path, O_WRONLY | O_CREAT | O_TRUNC, 0644);
@@ -258,6 +270,7 @@ static child spawn(const char *const *argv, const char *tag, rlim_t fsize_limit)
         _exit(127);
     }
     free(args);
+    free(mapped);
     ck_assert_int_gt(c.pid, 0);
     return c;
 }
@@ -419,6 +432,7 @@ static int import_big_into(const char *db, rlim_t fsize_limit, char **err)
 
 START_TEST(full_disk_refused_cleanly)
 {
+    SL_TEST_SQLITE_ONLY(); /* the file system under an SQLite file */
     char *mnt = rig_path("full");
     long kib = file_size(rig.base_db) / 1024 + 512; /* room for the start, not the lot */
     int e = mount_tmpfs(mnt, kib);
@@ -518,6 +532,7 @@ END_TEST
 
 START_TEST(file_size_limit_refused_cleanly)
 {
+    SL_TEST_SQLITE_ONLY(); /* the file system under an SQLite file */
     char *db = work_db("fsize.db");
     rlim_t limit = (rlim_t)file_size(db) + 1024 * 1024;
     char *err = NULL;
@@ -541,6 +556,7 @@ static void assert_read_only_refused(const char *db, const char *what)
 
 START_TEST(read_only_file_system_refused)
 {
+    SL_TEST_SQLITE_ONLY(); /* the file system under an SQLite file */
     char *mnt = rig_path("ro");
     int e = mount_tmpfs(mnt, 65536);
     if (e != 0) {
@@ -581,6 +597,7 @@ static int set_immutable(const char *path, int on)
 
 START_TEST(immutable_database_refused)
 {
+    SL_TEST_SQLITE_ONLY(); /* the file system under an SQLite file */
     char *db = work_db("immutable.db");
     int e = set_immutable(db, 1);
     if (e != 0) {
@@ -780,22 +797,185 @@ START_TEST(negative_zero_and_subnormal_import)
     const char *argv[] = { "ingest", "--lot", "DEMO-01", "--results", "numbers.csv", "--db", db,
                            NULL };
     run_ok(argv);
-    sqlite3 *s = db_open(db);
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(s, "SELECT cnp_V, mobility_cm2_per_Vs FROM measurement m "
+    sl_store *s = db_open(db);
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(s->db, "SELECT cnp_V, mobility_cm2_per_Vs FROM measurement m "
                                            "JOIN device d ON d.id = m.device_id JOIN lot l ON "
-                                           "l.id = d.lot_id WHERE l.name = 'DEMO-01' ORDER BY d.name", -1, &st, NULL), SQLITE_OK);
+                                           "l.id = d.lot_id WHERE l.name = 'DEMO-01' ORDER BY d.name",
+                                    0, &st), SL__DB_OK);
     double want[2][2] = { { 0.0, 1e-320 }, { 1e-320, 0.0 } };
     for (int i = 0; i < 2; i++) {
-        ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
-        ck_assert(sqlite3_column_double(st, 0) == want[i][0]);
-        ck_assert(sqlite3_column_double(st, 1) == want[i][1]);
+        ck_assert_int_eq(sl__db_step(st), SL__DB_ROW);
+        ck_assert(sl__db_column_double(st, 0) == want[i][0]);
+        ck_assert(sl__db_column_double(st, 1) == want[i][1]);
     }
-    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
-    sqlite3_finalize(st);
-    sqlite3_close(s);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_DONE);
+    sl__db_finalize(st);
+    sl_store_close(s);
     assert_integrity(db);
     free(path);
+    free(db);
+}
+END_TEST
+
+/* ---- a PostgreSQL server that fails (make check-pg) ---- */
+
+/* Run a shell command as the server's owner (postgres when we are root). */
+static int as_server_owner(const char *cmd)
+{
+    char line[8192];
+    if (geteuid() == 0)
+        snprintf(line, sizeof line, "runuser -u postgres -- sh -c '%s' >/dev/null 2>&1", cmd);
+    else
+        snprintf(line, sizeof line, "sh -c '%s' >/dev/null 2>&1", cmd);
+    return system(line);
+}
+
+typedef struct {
+    char dir[4096];
+    char url[4200];
+} private_server;
+
+static int server_start(private_server *srv)
+{
+    char cmd[8192];
+    snprintf(cmd, sizeof cmd, "%s/pg_ctl -D %s/data -l %s/log -w -t 30 -o \"-k %s -c "
+             "listen_addresses= -c fsync=off\" start", getenv("SL_PG_BINDIR"), srv->dir, srv->dir,
+             srv->dir);
+    return as_server_owner(cmd);
+}
+
+static void server_stop(private_server *srv, const char *mode)
+{
+    char cmd[8192];
+    snprintf(cmd, sizeof cmd, "%s/pg_ctl -D %s/data -m %s -w stop", getenv("SL_PG_BINDIR"),
+             srv->dir, mode);
+    as_server_owner(cmd);
+}
+
+/* A server of this test's own (it is stopped, which the other suites'
+ * server must not be), with a database for splitlot. 0 when it runs. */
+static int server_make(private_server *srv)
+{
+    const char *user = geteuid() == 0 ? "postgres" : getenv("USER");
+    snprintf(srv->dir, sizeof srv->dir, "%s", rig.dir);
+    strncat(srv->dir, "/pg", sizeof srv->dir - strlen(srv->dir) - 1);
+    ck_assert_int_eq(mkdir(srv->dir, 0700), 0);
+    char cmd[8192];
+    if (geteuid() == 0) {
+        snprintf(cmd, sizeof cmd, "chown postgres: %s && chmod 755 %s", srv->dir, rig.dir);
+        ck_assert_int_eq(system(cmd), 0);
+    }
+    snprintf(cmd, sizeof cmd, "%s/initdb -D %s/data -A trust -U %s --no-locale -E UTF8",
+             getenv("SL_PG_BINDIR"), srv->dir, user ? user : "postgres");
+    if (as_server_owner(cmd) != 0 || server_start(srv) != 0)
+        return -1;
+    snprintf(cmd, sizeof cmd, "%s/createdb -h %s -U %s lots", getenv("SL_PG_BINDIR"), srv->dir,
+             user ? user : "postgres");
+    if (as_server_owner(cmd) != 0)
+        return -1;
+    snprintf(srv->url, sizeof srv->url, "postgresql:///lots?host=%s&user=%s", srv->dir,
+             user ? user : "postgres");
+    return 0;
+}
+
+/* 1 once an import holds a lot's lock on the server (it is writing). */
+static int import_under_way(const char *url)
+{
+    sl_store *store = db_open(url);
+    sl__stmt *st = NULL;
+    long n = 0;
+    if (sl__db_prepare(store->db, "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' "
+                                  "AND classid = 21324 AND granted", 0, &st) == SL__DB_OK &&
+        sl__db_step(st) == SL__DB_ROW)
+        n = (long)sl__db_column_int64(st, 0);
+    sl__db_finalize(st);
+    sl_store_close(store);
+    return n > 0;
+}
+
+/* The server stopped while an import writes: the import ends with exit 1
+ * and one line naming the lost server; after a restart nothing of the lot
+ * is there and the earlier lot is whole. */
+START_TEST(server_stopped_mid_import)
+{
+    if (!sl_test_pg() || !getenv("SL_PG_BINDIR"))
+        return;
+    private_server srv;
+    ck_assert_msg(server_make(&srv) == 0, "the test's own PostgreSQL server did not start");
+    predict_ok("early.yaml", srv.url);
+    predict_ok(DEMO_PLAN, srv.url);
+    ingest_ok(srv.url, "EARLY-01", "small/sweeps.csv");
+    lot_digest early = digest_lot(srv.url, "EARLY-01");
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--sweeps", rig.big_csv, "--db", srv.url,
+                           NULL };
+    child c = spawn(argv, "stop.err", 0);
+    int seen = 0;
+    for (int i = 0; i < 2000 && !seen && !reap_within(&c, 10); i++)
+        seen = import_under_way(srv.url);
+    ck_assert_msg(seen, "the import ended before it was seen writing");
+    sleep_ms(100);
+    server_stop(&srv, "fast");
+    int code = wait_child(&c);
+    char *err = child_err(&c);
+    ck_assert_msg(code == 1 && count_lines(err) == 1 &&
+                  strstr(err, "cannot be reached or closed the connection"), "exit %d: %s", code, err);
+    ck_assert_int_eq(server_start(&srv), 0);
+    assert_same_lot(digest_lot(srv.url, "EARLY-01"), early, "earlier lot after the restart");
+    ck_assert_int_eq(digest_lot(srv.url, "DEMO-01").devices, 0);
+    server_stop(&srv, "immediate");
+    free(err);
+}
+END_TEST
+
+/* A statement past the server's statement_timeout (here the wait for a lot
+ * another client holds), an unreachable server and a refused login: exit 1,
+ * one line saying which, nothing written. */
+START_TEST(server_failures_are_one_clear_line)
+{
+    if (!sl_test_pg())
+        return;
+    char *db = work_db("timeout.db");
+    sl_store *holder = db_open(db);
+    sl_store_lot lot;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_store_find_lot(holder, &lot, "DEMO-01", diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin(holder, diag), SL_OK);
+    ck_assert_int_eq(sl_store_lock_lot(holder, lot.lot_id, diag), SL_OK);
+    /* the test URL's options (its schema) and a 300 ms statement_timeout */
+    char *url = sl_test_db(db), timed[4300];
+    snprintf(timed, sizeof timed, "%s%%20-cstatement_timeout%%3D300", url);
+    free(url);
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--sweeps", rig.small_csv, "--db",
+                           timed, NULL };
+    child c = spawn(argv, "timeout.err", 0);
+    int code = wait_child(&c);
+    char *err = child_err(&c);
+    ck_assert_msg(code == 1 && count_lines(err) == 1 && strstr(err, "statement_timeout") &&
+                  strstr(err, "nothing was changed"), "exit %d: %s", code, err);
+    free(err);
+    sl_store_rollback(holder);
+    sl_store_close(holder);
+    ck_assert_int_eq(digest_lot(db, "DEMO-01").devices, 0);
+
+    static const char *const urls[][2] = {
+        { "postgresql:///lots?host=/nonexistent-folder", "cannot be reached" },
+        { NULL, "refused the login" },
+    };
+    char refused[4200];
+    char *base = sl_test_db(db);
+    snprintf(refused, sizeof refused, "%s&user=no_such_role", base);
+    free(base);
+    for (int i = 0; i < 2; i++) {
+        const char *lots[] = { "lots", "--db", urls[i][0] ? urls[i][0] : refused, NULL };
+        sl_run_result r = sl_test_run(rig.dir, NULL, lots);
+        ck_assert_msg(r.exit_code == 1 && count_lines(r.err) == 1 && strstr(r.err, urls[i][1]),
+                      "exit %d: %s", r.exit_code, r.err);
+        ck_assert_str_eq(r.out, "");
+        sl_run_result_free(&r);
+    }
+    sl_store_lot_clear(&lot);
+    sl_diag_free(diag);
     free(db);
 }
 END_TEST
@@ -814,6 +994,8 @@ static Suite *reliability_suite(void)
     tcase_add_loop_test(tc, self_referencing_plan_refused, 0,
                         (int)(sizeof self_referencing_plans / sizeof self_referencing_plans[0]));
     tcase_add_test(tc, negative_zero_and_subnormal_import);
+    tcase_add_test(tc, server_stopped_mid_import);
+    tcase_add_test(tc, server_failures_are_one_clear_line);
     suite_add_tcase(s, tc);
     /* mounts and chattr: need root (or CAP_SYS_ADMIN), skipped otherwise */
     TCase *root = tcase_create("root");

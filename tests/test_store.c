@@ -12,6 +12,8 @@
 #include <math.h>
 #include <pwd.h>
 #include <sqlite3.h>
+
+#include "store_internal.h"
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -34,7 +36,7 @@ static sl_store *open_ok(const char *path)
 {
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    sl_status st = sl_store_open(&store, path, diag);
+    sl_status st = sl_test_store_open(&store, path, diag);
     ck_assert_msg(st == SL_OK, "%s: %s", path, sl_diag_last(diag));
     sl_diag_free(diag);
     return store;
@@ -43,11 +45,11 @@ static sl_store *open_ok(const char *path)
 /* A single-value query on the store's own connection. */
 static char *query_text(sl_store *store, const char *sql)
 {
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store), sql, -1, &st, NULL), SQLITE_OK);
-    ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
-    char *v = strdup((const char *)sqlite3_column_text(st, 0));
-    sqlite3_finalize(st);
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db, sql, 0, &st), SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_ROW);
+    char *v = strdup((const char *)sl__db_column_text(st, 0));
+    sl__db_finalize(st);
     return v;
 }
 
@@ -84,6 +86,7 @@ static int count_migrations(void)
 
 START_TEST(open_creates_schema)
 {
+    SL_TEST_SQLITE_ONLY(); /* SQLite's own files and pragmas */
     char *dir = sl_test_tmpdir();
     char *db = sl_test_path(dir, "new.db");
     sl_store *store = open_ok(db);
@@ -99,10 +102,9 @@ START_TEST(open_creates_schema)
                                        "'prediction', 'device', 'sweep', 'measurement_run', "
                                        "'measurement', 'wafer_load')"), 10);
     /* foreign keys are enforced: a revision of a lot that does not exist */
-    ck_assert_int_ne(sqlite3_exec(sl_store_db(store),
+    ck_assert_int_ne(sl__db_exec(store->db,
                                   "INSERT INTO plan_revision (lot_id, revision, plan_hash, plan_text, "
-                                  "plan_name, created_utc) VALUES (42, 1, 'h', 't', 'n', 'now')",
-                                  NULL, NULL, NULL), SQLITE_OK);
+                                  "plan_name, created_utc) VALUES (42, 1, 'h', 't', 'n', 'now')"), SL__DB_OK);
     sl_store_close(store);
     free(db);
     drop_dir(dir);
@@ -111,12 +113,12 @@ END_TEST
 
 START_TEST(reopen_does_not_migrate_again)
 {
+    SL_TEST_SQLITE_ONLY(); /* SQLite's own files and pragmas */
     char *dir = sl_test_tmpdir();
     char *db = sl_test_path(dir, "t.db"), *copy = sl_test_path(dir, "copy.db");
     sl_store *store = open_ok(db);
-    ck_assert_int_eq(sqlite3_exec(sl_store_db(store),
-                                  "INSERT INTO lot (name, created_utc) VALUES ('KEEP-1', 'x')",
-                                  NULL, NULL, NULL), SQLITE_OK);
+    ck_assert_int_eq(sl__db_exec(store->db,
+                                  "INSERT INTO lot (name, created_utc) VALUES ('KEEP-1', 'x')"), SL__DB_OK);
     long objects = query_long(store, "SELECT count(*) FROM sqlite_master");
     sl_store_close(store);
     ck_assert_int_eq(sl_test_copy_file(db, copy), 0);
@@ -135,6 +137,7 @@ END_TEST
 
 START_TEST(newer_schema_refused)
 {
+    SL_TEST_SQLITE_ONLY(); /* SQLite's own files and pragmas */
     char *dir = sl_test_tmpdir();
     char *db = sl_test_path(dir, "future.db");
     sqlite3 *raw = NULL;
@@ -145,7 +148,7 @@ START_TEST(newer_schema_refused)
     sqlite3_close(raw);
     sl_diag *diag = sl_diag_new();
     sl_store *store = (sl_store *)1;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_EDB);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_EDB);
     ck_assert_ptr_null(store);
     const sl_diag_msg *m = sl_diag_get(diag, 0);
     ck_assert_str_eq(m->file, db);
@@ -172,6 +175,7 @@ END_TEST
 
 START_TEST(not_a_database_refused)
 {
+    SL_TEST_SQLITE_ONLY(); /* SQLite's own files and pragmas */
     char *dir = sl_test_tmpdir();
     char *db = sl_test_path(dir, "notes.db");
     const char *text = "These are lab notes, not a database. They are long enough to fill the\n"
@@ -179,7 +183,7 @@ START_TEST(not_a_database_refused)
     ck_assert_int_eq(sl_test_write_file(db, text), 0);
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_EDB);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_EDB);
     ck_assert_ptr_null(store);
     const sl_diag_msg *m = sl_diag_get(diag, 0);
     ck_assert_str_eq(m->file, db);
@@ -201,7 +205,7 @@ static int readonly_check(const char *db)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     int rc = 10;
-    sl_status st = sl_store_open(&store, db, diag);
+    sl_status st = sl_test_store_open(&store, db, diag);
     if (st == SL_OK)
         st = sl_store_begin(store, diag);
     /* in WAL mode the transaction may start; the first write must fail */
@@ -218,12 +222,12 @@ static int readonly_check(const char *db)
 
 START_TEST(read_only_database)
 {
+    SL_TEST_SQLITE_ONLY(); /* SQLite's own files and pragmas */
     char *dir = sl_test_tmpdir();
     char *db = sl_test_path(dir, "ro.db");
     sl_store *store = open_ok(db);
-    ck_assert_int_eq(sqlite3_exec(sl_store_db(store),
-                                  "INSERT INTO lot (name, created_utc) VALUES ('RO-1', 'x')",
-                                  NULL, NULL, NULL), SQLITE_OK);
+    ck_assert_int_eq(sl__db_exec(store->db,
+                                  "INSERT INTO lot (name, created_utc) VALUES ('RO-1', 'x')"), SL__DB_OK);
     sl_store_close(store);
     char *copy = sl_test_path(dir, "copy.db");
     ck_assert_int_eq(sl_test_copy_file(db, copy), 0);
@@ -460,20 +464,19 @@ START_TEST(sweep_round_trip_exact)
      * keeps both raw (mode 0), 1 + 2 * (1 + 8 n) bytes, and its doubles are
      * little-endian whatever the host: point 0's vg is -0.0 =
      * 0x8000000000000000, so the last of its bytes 2..9 is 0x80 */
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(s.store),
-                                        "SELECT points FROM sweep WHERE measurement_id = ?1", -1, &st,
-                                        NULL), SQLITE_OK);
-    sqlite3_bind_int64(st, 1, id);
-    ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
-    ck_assert_int_eq(sqlite3_column_bytes(st, 0), (int)(1 + 2 * (1 + 8 * n)));
-    const unsigned char *blob = sqlite3_column_blob(st, 0);
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(s.store->db,
+                                        "SELECT points FROM sweep WHERE measurement_id = ?1", 0, &st), SL__DB_OK);
+    sl__db_bind_int64(st, 1, id);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_ROW);
+    ck_assert_int_eq((long)sl__db_column_bytes(st, 0), (long)(1 + 2 * (1 + 8 * n)));
+    const unsigned char *blob = sl__db_column_blob(st, 0);
     ck_assert_int_eq(blob[0], 1);
     ck_assert_int_eq(blob[1], 0);
     ck_assert_int_eq(blob[2], 0x00);
     ck_assert_int_eq(blob[9], 0x80);
     ck_assert_int_eq(blob[2 + 8 * n], 0); /* r's mode */
-    sqlite3_finalize(st);
+    sl__db_finalize(st);
 
     /* NaN numbers come back as NaN (stored NULL); the row as inserted */
     sl_store_device_row *rows = NULL;
@@ -911,15 +914,16 @@ static long device_without_sweep(stored_demo *s, const char *name)
 static void put_sweep_row(sl_store *store, long device_id, long n_points, const void *blob,
                           int bytes)
 {
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-                                        "INSERT OR REPLACE INTO sweep (measurement_id, n_points, points) "
-                                        "VALUES (?1, ?2, ?3)", -1, &st, NULL), SQLITE_OK);
-    sqlite3_bind_int64(st, 1, device_id);
-    sqlite3_bind_int64(st, 2, n_points);
-    sqlite3_bind_blob(st, 3, blob, bytes, SQLITE_TRANSIENT);
-    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
-    sqlite3_finalize(st);
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db,
+                                        "INSERT INTO sweep (measurement_id, n_points, points) "
+                                        "VALUES (?1, ?2, ?3) ON CONFLICT (measurement_id) DO UPDATE "
+                                        "SET n_points = excluded.n_points, points = excluded.points", 0, &st), SL__DB_OK);
+    sl__db_bind_int64(st, 1, device_id);
+    sl__db_bind_int64(st, 2, n_points);
+    sl__db_bind_blob(st, 3, blob, (size_t)bytes);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_DONE);
+    sl__db_finalize(st);
 }
 
 START_TEST(old_raw_sweep_still_loads)
@@ -1007,9 +1011,12 @@ START_TEST(damaged_staged_points_are_a_database_error)
     sl_diag *diag = sl_diag_new();
     const double vg[] = { 1.0, 2.0 }, r[] = { 10.0, 20.0 };
     ck_assert_int_eq(sl_store_stage_points(s.store, 7, vg, r, 2, diag), SL_OK);
-    ck_assert_int_eq(sqlite3_exec(sl_store_db(s.store),
-                                  "UPDATE temp.stage SET points = x'010105'", NULL, NULL, NULL),
-                     SQLITE_OK);
+    sl__stmt *st = NULL;
+    const unsigned char damaged[] = { 0x01, 0x01, 0x05 };
+    ck_assert_int_eq(sl__db_prepare(s.store->db, "UPDATE stage SET points = ?1", 0, &st), SL__DB_OK);
+    sl__db_bind_blob(st, 1, damaged, sizeof damaged);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_DONE);
+    sl__db_finalize(st);
     double *vg2 = NULL, *r2 = NULL;
     size_t n = 99;
     ck_assert_int_eq(sl_store_staged_points(s.store, &vg2, &r2, &n, 7, diag), SL_EDB);
@@ -1069,7 +1076,7 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     size_t n = 0;
     ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, "final", 300.0, diag), SL_OK);
     ck_assert_uint_eq(n, 5);
-    long cache_before = query_long(s.store, "PRAGMA cache_size");
+    long cache_before = sl_test_pg() ? 0 : query_long(s.store, "PRAGMA cache_size");
 
     sl_store_scratch *x = NULL;
     ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
@@ -1126,10 +1133,12 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
                       strcmp(r->name, want_ranked[i][1]) == 0 && group == (i < 3 ? 7 : 8));
     }
     sl_store_scratch_close(x);
-    ck_assert_int_eq(query_long(s.store, "PRAGMA cache_size"), cache_before);
-    ck_assert_int_eq(query_long(s.store, "SELECT (SELECT count(*) FROM temp.sl_scratch_kept) + "
-                                         "(SELECT count(*) FROM temp.sl_scratch_value) + "
-                                         "(SELECT count(*) FROM temp.sl_scratch_rank)"), 0);
+    if (!sl_test_pg()) { /* PostgreSQL: the snapshot transaction took them with it */
+        ck_assert_int_eq(query_long(s.store, "PRAGMA cache_size"), cache_before);
+        ck_assert_int_eq(query_long(s.store, "SELECT (SELECT count(*) FROM temp.sl_scratch_kept) + "
+                                             "(SELECT count(*) FROM temp.sl_scratch_value) + "
+                                             "(SELECT count(*) FROM temp.sl_scratch_rank)"), 0);
+    }
     free(rows);
     ck_assert_int_eq(sl_store_load_devices(s.store, &rows, &n, s.lot.lot_id, "final", 300.0, diag), SL_OK);
     ck_assert_uint_eq(n, 7); /* the other connection's devices, now the scratch is gone */
@@ -1161,14 +1170,14 @@ static size_t split_fields(char *line, char **fields, size_t max)
 }
 
 /* A dumped number to 17 digits against a stored REAL ("NULL" for NULL). */
-static void check_real(sqlite3_stmt *st, int col, const char *want, const char *what)
+static void check_real(sl__stmt *st, int col, const char *want, const char *what)
 {
     if (strcmp(want, "NULL") == 0)
-        ck_assert_msg(sqlite3_column_type(st, col) == SQLITE_NULL, "%s: not NULL", what);
+        ck_assert_msg(sl__db_column_is_null(st, col), "%s: not NULL", what);
     else
-        ck_assert_msg(sqlite3_column_type(st, col) != SQLITE_NULL &&
-                      sqlite3_column_double(st, col) == strtod(want, NULL),
-                      "%s: %.17g, dumped %s", what, sqlite3_column_double(st, col), want);
+        ck_assert_msg(!sl__db_column_is_null(st, col) &&
+                      sl__db_column_double(st, col) == strtod(want, NULL),
+                      "%s: %.17g, dumped %s", what, sl__db_column_double(st, col), want);
 }
 
 /* tests/data/store/v3.db was written by the release before measurement runs
@@ -1178,6 +1187,7 @@ static void check_real(sqlite3_stmt *st, int col, const char *want, const char *
  * temperature, step final; and the analysis reads them. */
 START_TEST(migration_from_version_3_keeps_every_device)
 {
+    SL_TEST_SQLITE_ONLY(); /* SQLite's own files and pragmas */
     char *dir = sl_test_tmpdir();
     char *db = sl_test_path(dir, "v3.db");
     char *fixture = sl_test_data("store/v3.db");
@@ -1195,59 +1205,58 @@ START_TEST(migration_from_version_3_keeps_every_device)
 
     char *path = sl_test_data("store/v3-devices.csv");
     char *text = sl_test_read_file(path, NULL);
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(store->db,
         "SELECT l.name, d.wafer, d.name, m.id, d.die_x, d.die_y, m.source, m.fit_class, "
         "quote(m.fit_model), m.cnp_V, m.cnp_sigma_V, m.mobility_cm2_per_Vs, "
         "m.mobility_sigma_cm2_per_Vs, m.n0_per_cm2, m.n0_sigma_per_cm2, m.r_contact_ohm, "
         "m.r_contact_sigma_ohm, m.rel_rms, m.r_squared, quote(m.n_points), quote(m.n_spikes), "
         "quote(m.source_line), m.current FROM measurement_view m JOIN device d ON d.id = m.device_id "
-        "JOIN lot l ON l.id = d.lot_id ORDER BY m.id", -1, &st, NULL), SQLITE_OK);
+        "JOIN lot l ON l.id = d.lot_id ORDER BY m.id", 0, &st), SL__DB_OK);
     char *save = NULL, *line = strtok_r(text, "\n", &save); /* the header */
     size_t devices = 0;
     while ((line = strtok_r(NULL, "\n", &save))) {
         char *f[22];
         ck_assert_uint_eq(split_fields(line, f, 22), 22);
-        ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
+        ck_assert_int_eq(sl__db_step(st), SL__DB_ROW);
         for (int c = 0; c < 9; c++)
             if (c != 3 && c != 4 && c != 5)
-                ck_assert_str_eq((const char *)sqlite3_column_text(st, c),
+                ck_assert_str_eq((const char *)sl__db_column_text(st, c),
                                  c == 8 && strcmp(f[c], "NULL") ? "'symmetric'" : f[c]);
-        ck_assert_int_eq(sqlite3_column_int64(st, 3), strtol(f[3], NULL, 10));
-        ck_assert_int_eq(sqlite3_column_int64(st, 4), strtol(f[4], NULL, 10));
-        ck_assert_int_eq(sqlite3_column_int64(st, 5), strtol(f[5], NULL, 10));
+        ck_assert_int_eq(sl__db_column_int64(st, 3), strtol(f[3], NULL, 10));
+        ck_assert_int_eq(sl__db_column_int64(st, 4), strtol(f[4], NULL, 10));
+        ck_assert_int_eq(sl__db_column_int64(st, 5), strtol(f[5], NULL, 10));
         for (int c = 9; c < 19; c++)
             check_real(st, c, f[c], f[2]);
         for (int c = 19; c < 22; c++)
-            ck_assert_str_eq((const char *)sqlite3_column_text(st, c), f[c]);
-        ck_assert_int_eq(sqlite3_column_int(st, 22), 1); /* current in its view */
+            ck_assert_str_eq((const char *)sl__db_column_text(st, c), f[c]);
+        ck_assert_int_eq(sl__db_column_int64(st, 22), 1); /* current in its view */
         devices++;
     }
-    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
-    sqlite3_finalize(st);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_DONE);
+    sl__db_finalize(st);
     ck_assert_uint_eq(devices, 70);
     free(text);
     free(path);
 
     path = sl_test_data("store/v3-sweeps.csv");
     text = sl_test_read_file(path, NULL);
-    ck_assert_int_eq(sqlite3_prepare_v2(sl_store_db(store),
-        "SELECT measurement_id, n_points, hex(points) FROM sweep ORDER BY measurement_id", -1, &st,
-        NULL), SQLITE_OK);
+    ck_assert_int_eq(sl__db_prepare(store->db,
+        "SELECT measurement_id, n_points, hex(points) FROM sweep ORDER BY measurement_id", 0, &st), SL__DB_OK);
     save = NULL;
     line = strtok_r(text, "\n", &save);
     size_t sweeps = 0;
     while ((line = strtok_r(NULL, "\n", &save))) {
         char *f[3];
         ck_assert_uint_eq(split_fields(line, f, 3), 3);
-        ck_assert_int_eq(sqlite3_step(st), SQLITE_ROW);
-        ck_assert_int_eq(sqlite3_column_int64(st, 0), strtol(f[0], NULL, 10));
-        ck_assert_int_eq(sqlite3_column_int64(st, 1), strtol(f[1], NULL, 10));
-        ck_assert_str_eq((const char *)sqlite3_column_text(st, 2), f[2]);
+        ck_assert_int_eq(sl__db_step(st), SL__DB_ROW);
+        ck_assert_int_eq(sl__db_column_int64(st, 0), strtol(f[0], NULL, 10));
+        ck_assert_int_eq(sl__db_column_int64(st, 1), strtol(f[1], NULL, 10));
+        ck_assert_str_eq((const char *)sl__db_column_text(st, 2), f[2]);
         sweeps++;
     }
-    ck_assert_int_eq(sqlite3_step(st), SQLITE_DONE);
-    sqlite3_finalize(st);
+    ck_assert_int_eq(sl__db_step(st), SL__DB_DONE);
+    sl__db_finalize(st);
     ck_assert_uint_eq(sweeps, 16);
     free(text);
     free(path);
@@ -1318,6 +1327,36 @@ START_TEST(constraint_failures_say_which)
 }
 END_TEST
 
+/* A query that fails is an error naming what was asked, never a value: a
+ * count of devices, the list of lots, and an unknown lot whose known lots
+ * cannot be listed. */
+START_TEST(failed_queries_are_errors)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    long count = 12345;
+    ck_assert_int_eq(sl_store_exec(s.store, "PRAGMA foreign_keys = OFF; DROP VIEW measurement_view; "
+                                            "ALTER TABLE device RENAME TO device_gone",
+                                   diag, "break the schema"), SL_OK);
+    ck_assert_int_eq(sl_store_count_devices(s.store, &count, s.lot.lot_id, diag), SL_EDB);
+    ck_assert_int_eq(count, 12345);
+    ck_assert_msg(strstr(sl_diag_last(diag), "no such table: device"), "%s", sl_diag_last(diag));
+    sl_diag_clear(diag);
+    ck_assert_int_eq(sl_store_exec(s.store, "ALTER TABLE lot RENAME TO lot_gone", diag,
+                                   "break the schema"), SL_OK);
+    char **names = NULL;
+    size_t n = 7;
+    ck_assert_int_eq(sl_store_list_lots(s.store, &names, &n, diag), SL_EDB);
+    ck_assert(names == NULL && n == 0);
+    sl_diag_clear(diag);
+    sl_store_lot lot;
+    ck_assert_int_eq(sl_store_find_lot(s.store, &lot, "NOPE", diag), SL_EDB);
+    ck_assert_msg(!strstr(sl_diag_last(diag), "not in the database"), "%s", sl_diag_last(diag));
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* ---- the checksum of a run's file ---- */
 
 /* SHA-256 of the FIPS 180-2 appendix B examples ("abc"; the 448-bit
@@ -1375,6 +1414,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, migration_from_version_3_keeps_every_device);
     tcase_add_test(tc, sha256_fips_examples);
     tcase_add_test(tc, constraint_failures_say_which);
+    tcase_add_test(tc, failed_queries_are_errors);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);

@@ -21,7 +21,9 @@
 #define SL_FLAG_OFF_PREDICTION 0x02u /* outside the 99.7 % prediction interval */
 #define SL_FLAG_FIT_CLASS      0x04u /* extraction failed (short, open, ...) */
 #define SL_FLAG_UNMEASURED     0x08u /* probed, no neutrality point reported */
-#define SL_FLAG_HYSTERESIS     0x10u /* |hysteresis| above the plan's device.max_hysteresis_V */
+#define SL_FLAG_BELOW_FLOOR    0x10u /* fitted n0 below the thermal floor at the view's
+                                        temperature: the fit or the temperature is wrong */
+#define SL_FLAG_HYSTERESIS     0x20u /* |hysteresis| above the plan's device.max_hysteresis_V */
 
 /* Share of censored devices in a split above which the output warns. */
 #define SL_ANALYZE_CENSORED_WARN 0.10
@@ -56,7 +58,11 @@ typedef struct {
     const char *fit_model;       /* "symmetric", "two-mobility", with "/qc" when
                                     fitted with the charge balance; "" for results */
     double n0_per_cm2, r_contact_ohm, hysteresis_V;   /* NaN when not measured */
-    double floor_predicted_per_cm2; /* the split's thermal floor at the view's temperature */
+    /* The residual density expected at the view's temperature: the stored
+     * thermal floor n_th and the plan's disorder density n* combined in
+     * quadrature, sqrt(n_th^2 + n*^2) (a common approximation, the way n0
+     * and n_g combine in the transfer curve); n_th alone without n*. */
+    double floor_predicted_per_cm2;
     double channel_length_um, channel_width_um;       /* the device's, else the plan's */
 } sl_analyze_device;
 
@@ -77,6 +83,14 @@ typedef struct {
      * predicted +/- SL_ANALYZE_INTERVAL_SIGMAS sqrt(sigma_pred^2 +
      * spread^2), spread as above. */
     double flag_low_V, flag_high_V;
+    /* The carrier-density window within the split's gate range: predicted
+     * (stored: electrons n - p at the top end, holes p - n at the bottom,
+     * from the predicted V_cnp) and reached (the same from the measured mean
+     * V_cnp, by the charge balance at the view's temperature; NaN without
+     * a mean), cm^-2; and the share of the devices with a fitted or
+     * censored V_cnp whose neutrality point stayed inside the sweep. */
+    double window_predicted_per_cm2[2], window_reached_per_cm2[2]; /* electrons, holes */
+    double inside_share;
     int prediction_in_ci;
     size_t n_flagged;
 } sl_analyze_split;
@@ -123,6 +137,8 @@ typedef struct sl_analysis {
     double outliers_expected;    /* good devices it flags by chance: 2 Q(3.5) n */
     double device_sigma_V;       /* pooled within-wafer SD of V_cnp (NaN: none) */
     double wafer_sigma_per_cm2;  /* wafer-to-wafer SD of doping, from the fit */
+    double load_sigma_per_cm2;   /* load-to-load SD of a batched step (REML);
+                                    NaN without batches */
     char intercept_name[256];    /* "baseline + <reference levels>", the
                                     intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
@@ -204,9 +220,9 @@ sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
 void sl_analysis_stream_rewind(sl_analysis_stream *stream);
 void sl_analysis_stream_free(sl_analysis_stream *stream);
 
-/* Flag names of a device, in a fixed order, into names (at most 4: the fit
- * class and "unmeasured" never come together); returns the count:
- * "outlier", "off-prediction", the fit class, "unmeasured", "hysteresis". */
+/* Flag names of a device, in a fixed order, into names (at most 6); returns
+ * the count: "outlier", "off-prediction", the fit class, "unmeasured",
+ * "below-floor", "hysteresis". */
 int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
 
 /* ---- history across lots ---- */
@@ -246,8 +262,10 @@ typedef struct sl_history {
     sl_plan *newest_plan;        /* for calibrated YAML */
     double wafer_sigma_per_cm2;  /* RMS over the lots of their wafer sigma */
     double device_sigma_V;       /* RMS over the lots of their device sigma */
-    double wafer_var_sum, device_var_sum;
-    size_t n_wafer_sigma, n_device_sigma;
+    double batch_sigma_per_cm2;  /* RMS over the lots with batches of their load
+                                    sigma; NaN when none had batches */
+    double wafer_var_sum, device_var_sum, batch_var_sum;
+    size_t n_wafer_sigma, n_device_sigma, n_batch_sigma;
 } sl_history;
 
 /* Effects of every lot in the store, grouped by level. */

@@ -1,8 +1,9 @@
 /* SPDX-License-Identifier: MIT
- * The embedded SQLite store: opening with migrations (PRAGMA user_version),
- * WAL, foreign keys and a busy timeout; one transaction per command; and the
- * reads and writes of lots, plan revisions, predictions, devices and sweeps.
- * All SQL of splitlot lives here; other modules see plain structs.
+ * The store, on an SQLite file (the embedded default: WAL, foreign keys, a
+ * busy timeout) or a PostgreSQL server (a postgresql:// URL): opening with
+ * migrations; one transaction per command; and the reads and writes of lots,
+ * plan revisions, predictions, devices and sweeps. All SQL of splitlot lives
+ * here; other modules see plain structs and never know the backend.
  */
 #ifndef SPLITLOT_STORE_H
 #define SPLITLOT_STORE_H
@@ -19,18 +20,44 @@ typedef struct sl_store sl_store;
 /* Schema version this build writes (number of db/NNN_*.sql migrations). */
 int sl_store_schema_version(void);
 
-/* Open (creating if needed) and migrate the database at path. A database
- * written by a newer splitlot is refused. Returns SL_OK, SL_EDB with a message
- * naming the file (unreadable, read-only for a needed migration, not a
- * database, too new). */
+/* 1 when a location names a PostgreSQL server (a postgresql:// or
+ * postgres:// URL) rather than an SQLite file. */
+int sl_store_is_server(const char *location);
+
+/* Open (creating if needed) and migrate the database at path: an SQLite
+ * file, or a PostgreSQL server when path is a postgresql:// or postgres://
+ * URL (libpq's; the password from ~/.pgpass or PGPASSWORD, never shown). A
+ * database written by a newer splitlot is refused. Returns SL_OK, SL_EDB with
+ * a message naming the file or the URL (unreadable, read-only for a needed
+ * migration, not a database, too new, server unreachable, login refused). */
 sl_status sl_store_open(sl_store **out, const char *path, sl_diag *diag);
 void sl_store_close(sl_store *store);
 
-/* One write transaction per command: BEGIN IMMEDIATE (waits up to the busy
- * timeout for other writers), COMMIT, ROLLBACK. */
+/* One write transaction per command: on SQLite BEGIN IMMEDIATE (waits up to
+ * the busy timeout for other writers), on PostgreSQL a transaction in which
+ * an import or a plan holds its lot's lock; COMMIT, ROLLBACK. */
 sl_status sl_store_begin(sl_store *store, sl_diag *diag);
 sl_status sl_store_commit(sl_store *store, sl_diag *diag);
 void sl_store_rollback(sl_store *store);
+
+/* A read-only transaction over one snapshot (for a copy's source or a
+ * checksum); end it with sl_store_rollback. */
+sl_status sl_store_begin_read(sl_store *store, sl_diag *diag);
+
+/* ---- lots moved between stores, whatever their backends ---- */
+
+/* Copy one lot with every row it has (plan revisions, splits, wafers,
+ * predictions, wafer loads, runs, devices, measurements, sweeps) from src
+ * into dst, in the source's order under new row ids. Call inside a
+ * transaction of dst (and a read of src). SL_ENOTFOUND when src lacks the
+ * lot, SL_EINPUT when dst has it already (nothing written). */
+sl_status sl_store_copy_lot(sl_store *dst, sl_store *src, const char *lot, sl_diag *diag);
+
+/* SHA-256 (64 hex digits) of everything a store holds of a lot (lot NULL:
+ * of every lot): names, plan texts, numbers to 17 digits, sweep blobs and
+ * the order of runs and measurements, but not row ids, so a copy has its
+ * source's checksum on either backend. */
+sl_status sl_store_checksum(sl_store *store, char hex[65], const char *lot, sl_diag *diag);
 
 /* Save a validated plan, its layout and predictions under the plan's lot.
  * Same text as the newest revision: nothing is written, *created = 0.
@@ -103,6 +130,14 @@ typedef struct {
 sl_status sl_store_load_revision(sl_store *store, sl_store_revision *out, long revision_id,
                                  sl_diag *diag);
 void sl_store_revision_clear(sl_store_revision *revision);
+
+/* The load (1-based) of each of a stored revision's wafers in each batched
+ * step, as predict stored them: loads[w * n_steps + s] for rev->wafers[w]
+ * and the step named steps[s], 0 where the wafer went through no load of it
+ * (a spare, a step not batched). loads holds rev->n_wafers x n_steps.
+ * SL_OK, SL_EDB. */
+sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store_revision *rev,
+                                    const char *const *steps, size_t n_steps, sl_diag *diag);
 
 /* ---- measurement runs ---- */
 
@@ -285,12 +320,13 @@ sl_status sl_store_load_lots(sl_store *store, sl_store_lot **lots, size_t *count
 
 /* ---- the scratch space of an analysis (flat memory, whatever the lot) ---- */
 
-/* Temporary tables on the store's connection, which SQLite keeps in a file
- * (temp_store FILE), so they do not grow the process: a lot's devices kept
- * for passes over them, and devices listed by severity. While a scratch is
- * open, the connection reads one snapshot of the database (a savepoint:
- * another process's import is never seen half way) and its page caches are
- * held small. One scratch per connection at a time. */
+/* Temporary tables on the store's connection, kept by the database (SQLite
+ * in a file, temp_store FILE; PostgreSQL on the server), so they do not grow
+ * the process: a lot's devices kept for passes over them, and devices listed
+ * by severity. While a scratch is open, the connection reads one snapshot of
+ * the database (SQLite: a savepoint; PostgreSQL: a REPEATABLE READ
+ * transaction, read back in chunks through cursors): another process's import
+ * is never seen half way. One scratch per connection at a time. */
 typedef struct sl_store_scratch sl_store_scratch;
 
 sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag *diag);
@@ -332,9 +368,5 @@ sl_status sl_store_scratch_next_ranked(sl_store_scratch *scratch, long *group, l
 
 /* Start every read-back over. */
 void sl_store_scratch_rewind(sl_store_scratch *scratch);
-
-/* Low-level access for the analysis queries of this module's other files. */
-struct sqlite3;
-struct sqlite3 *sl_store_db(sl_store *store);
 
 #endif

@@ -44,6 +44,7 @@ int cmd_compare(int argc, char **argv);
 int cmd_history(int argc, char **argv);
 int cmd_report(int argc, char **argv);
 int cmd_lots(int argc, char **argv);
+int cmd_db(int argc, char **argv);
 
 /* "splitlot: error: <message>" on stderr; returns CLI_EXIT_USAGE. */
 int cli_usage_error(const char *fmt, ...)

@@ -13,6 +13,7 @@
 #include <unistd.h>
 
 #include "splitlot/plan.h"
+#include "splitlot/store.h"
 
 const char cli_safety_caution[] =
     "caution: gate bias near breakdown destroys devices and doping treatments can be "
@@ -150,8 +151,8 @@ int cli_split_treatment_names(const sl_plan *plan, size_t split, const char **na
 
 int cli_require_db(const char *path)
 {
-    if (access(path, F_OK) == 0)
-        return 0;
+    if (sl_store_is_server(path) || access(path, F_OK) == 0)
+        return 0; /* a server's database is checked by connecting to it */
     cli_usage_error("database '%s' does not exist; run 'splitlot predict PLAN' first "
                     "(or give --db / SPLITLOT_DB)", path);
     return -1;

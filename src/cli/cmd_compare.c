@@ -69,7 +69,7 @@ typedef struct {
 
 static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_device *d, int table)
 {
-    const char *names[4];
+    const char *names[6];
     cli_table_row(t);
     cli_cell_str(t, d->wafer);
     cli_cell_str(t, d->device);
@@ -343,6 +343,8 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
     cli_doc_num(doc, "levels_differing", (double)a->n_verdict[SL_VERDICT_DIFFERS], 15);
     cli_doc_num(doc, "device_sigma_V", a->device_sigma_V, 3);
     cli_doc_num(doc, "wafer_sigma_per_cm2", a->wafer_sigma_per_cm2, 3);
+    if (a->plan->n_batches) /* the load as a random effect */
+        cli_doc_num(doc, "batch_sigma_per_cm2", a->load_sigma_per_cm2, 3);
     cli_doc_num(doc, "anova.F", a->anova.f, 5);
     cli_doc_num(doc, "anova.df_between", a->anova.df_between, 15);
     cli_doc_num(doc, "anova.df_within", a->anova.df_within, 15);

@@ -119,6 +119,8 @@ static int print_history(const sl_history *h, cli_format format, int emit_yaml,
     cli_doc_num(doc, "lots_with_estimates", (double)h->n_lots, 15);
     cli_doc_num(doc, "wafer_sigma_per_cm2", h->wafer_sigma_per_cm2, 3);
     cli_doc_num(doc, "device_sigma_V", h->device_sigma_V, 3);
+    if (h->n_batch_sigma)
+        cli_doc_num(doc, "batch_sigma_per_cm2", h->batch_sigma_per_cm2, 3);
     /* the view each lot was read in: as asked, else ("" and null) each
      * lot's own default, the newest step and the first temperature with data */
     cli_doc_str(doc, "step", view->step ? view->step : "");

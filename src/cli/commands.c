@@ -20,6 +20,7 @@ const cli_command cli_commands[] = {
     { "history", cmd_history, "level estimates across lots, pooled values, drift, calibrated YAML" },
     { "report", cmd_report, "one self-contained HTML report of a lot, with charts" },
     { "lots", cmd_lots, "the lot ids in the database" },
+    { "db", cmd_db, "copy a lot or every lot between databases (SQLite files, PostgreSQL)" },
     { NULL, NULL, NULL },
 };
 

@@ -12,7 +12,74 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <libpq-fe.h>
+
 #include "splitlot/physics.h"
+
+/* ---- the backend under test ---- */
+
+int sl_test_pg(void)
+{
+    const char *url = getenv("SPLITLOT_TEST_DB");
+    return url && *url;
+}
+
+/* A schema of the test server per database file name, made on first use. */
+static int make_schema(const char *base, const char *schema, int fresh)
+{
+    static PGconn *conn;
+    if (!conn)
+        conn = PQconnectdb(base);
+    if (PQstatus(conn) != CONNECTION_OK) {
+        fprintf(stderr, "test support: cannot reach SPLITLOT_TEST_DB: %s", PQerrorMessage(conn));
+        return -1;
+    }
+    char sql[192];
+    snprintf(sql, sizeof sql, "SET client_min_messages = warning; %s%s%s"
+                              "CREATE SCHEMA IF NOT EXISTS %s", fresh ? "DROP SCHEMA IF EXISTS " : "",
+             fresh ? schema : "", fresh ? " CASCADE; " : "", schema);
+    PGresult *res = PQexec(conn, sql);
+    int ok = PQresultStatus(res) == PGRES_COMMAND_OK;
+    PQclear(res);
+    return ok ? 0 : -1;
+}
+
+char *sl_test_db_in(const char *cwd, const char *path)
+{
+    size_t len = strlen(path);
+    if (!sl_test_pg() || strncmp(path, "postgres", 8) == 0 || len < 3 ||
+        strcmp(path + len - 3, ".db") != 0)
+        return strdup(path); /* a URL, or a file that is no database name (*.sqlite) */
+    char here[4096], full[8192];
+    if (path[0] == '/')
+        snprintf(full, sizeof full, "%s", path);
+    else
+        snprintf(full, sizeof full, "%s/%s", cwd ? cwd : getcwd(here, sizeof here), path);
+    unsigned long long h = 1469598103934665603ULL; /* FNV-1a, 64 bits */
+    for (const char *p = full; *p; p++)
+        h = (h ^ (unsigned char)*p) * 1099511628211ULL;
+    char schema[40];
+    snprintf(schema, sizeof schema, "t_%016llx", h);
+    const char *base = getenv("SPLITLOT_TEST_DB");
+    if (make_schema(base, schema, 0) != 0)
+        return strdup(path);
+    size_t n = strlen(base) + 64;
+    char *url = malloc(n);
+    if (url)
+        snprintf(url, n, "%s%soptions=-csearch_path%%3D%s", base, strchr(base, '?') ? "&" : "?",
+                 schema);
+    return url;
+}
+
+char *sl_test_db(const char *path) { return sl_test_db_in(NULL, path); }
+
+sl_status sl_test_store_open(sl_store **out, const char *path, sl_diag *diag)
+{
+    char *location = sl_test_db(path);
+    sl_status s = location ? sl_store_open(out, location, diag) : SL_ENOMEM;
+    free(location);
+    return s;
+}
 
 char *sl_test_path(const char *dir, const char *name)
 {
@@ -87,8 +154,70 @@ int sl_test_write_file(const char *path, const char *text)
     return (fclose(f) == 0 && ok) ? 0 : -1;
 }
 
+/* ---- databases on the test server, where the suites copy files ---- */
+
+/* A database path that is a schema of the test server (no such file). */
+static int server_db(const char *path)
+{
+    size_t n = strlen(path);
+    return sl_test_pg() && n > 3 && strcmp(path + n - 3, ".db") == 0 && access(path, F_OK) != 0;
+}
+
+static int db_checksum(const char *path, char hex[65])
+{
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_status s = sl_test_store_open(&store, path, diag);
+    if (s == SL_OK)
+        s = sl_store_checksum(store, hex, NULL, diag);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    return s == SL_OK ? 0 : -1;
+}
+
+/* Every lot of one server database into another, emptied first. */
+static int db_copy(const char *from, const char *to)
+{
+    char *url = sl_test_db(to);
+    const char *opt = url ? strstr(url, "search_path%3D") : NULL;
+    if (!opt || make_schema(getenv("SPLITLOT_TEST_DB"), opt + 14, 1) != 0) {
+        free(url);
+        return -1;
+    }
+    sl_diag *diag = sl_diag_new();
+    sl_store *src = NULL, *dst = NULL;
+    char **names = NULL;
+    size_t n = 0;
+    sl_status s = sl_test_store_open(&src, from, diag);
+    if (s == SL_OK)
+        s = sl_store_open(&dst, url, diag);
+    if (s == SL_OK)
+        s = sl_store_begin_read(src, diag);
+    if (s == SL_OK)
+        s = sl_store_list_lots(src, &names, &n, diag);
+    if (s == SL_OK)
+        s = sl_store_begin(dst, diag);
+    for (size_t i = 0; s == SL_OK && i < n; i++)
+        s = sl_store_copy_lot(dst, src, names[i], diag);
+    if (s == SL_OK)
+        s = sl_store_commit(dst, diag);
+    if (s != SL_OK)
+        fprintf(stderr, "test support: copying %s to %s failed: %s\n", from, to,
+                sl_diag_last(diag) ? sl_diag_last(diag) : "?");
+    sl_store_free_names(names, n);
+    sl_store_close(src);
+    sl_store_close(dst);
+    sl_diag_free(diag);
+    free(url);
+    return s == SL_OK ? 0 : -1;
+}
+
 int sl_test_files_equal(const char *a, const char *b)
 {
+    if (server_db(a) && server_db(b)) {
+        char x[65], y[65];
+        return db_checksum(a, x) == 0 && db_checksum(b, y) == 0 && strcmp(x, y) == 0;
+    }
     size_t na = 0, nb = 0;
     char *x = sl_test_read_file(a, &na), *y = sl_test_read_file(b, &nb);
     int eq = x && y && na == nb && memcmp(x, y, na) == 0;
@@ -99,6 +228,8 @@ int sl_test_files_equal(const char *a, const char *b)
 
 int sl_test_copy_file(const char *from, const char *to)
 {
+    if (server_db(from) && server_db(to))
+        return db_copy(from, to);
     size_t n;
     char *x = sl_test_read_file(from, &n);
     if (!x)
@@ -132,6 +263,30 @@ static char *slurp_fd(int fd)
     return buf;
 }
 
+/* Every from in *text replaced by to (a new malloc'd string). */
+static void replace_all(char **text, const char *from, const char *to)
+{
+    if (!*text || !*from || !strstr(*text, from))
+        return;
+    size_t nf = strlen(from), nt = strlen(to), n = 0;
+    for (const char *p = *text; (p = strstr(p, from)); p += nf)
+        n++;
+    char *out = malloc(strlen(*text) + n * nt + 1), *o = out;
+    if (!out)
+        return;
+    const char *p = *text, *q;
+    while ((q = strstr(p, from))) {
+        memcpy(o, p, (size_t)(q - p));
+        o += q - p;
+        memcpy(o, to, nt);
+        o += nt;
+        p = q + nf;
+    }
+    strcpy(o, p);
+    free(*text);
+    *text = out;
+}
+
 sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *const *argv)
 {
     sl_run_result r = { -1, NULL, NULL };
@@ -152,13 +307,24 @@ sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *c
     while (argv[argc])
         argc++;
     char **args = calloc(argc + 2, sizeof *args);
+    char **mapped = calloc(argc + 1, sizeof *mapped);
     args[0] = (char *)SL_BINARY;
-    for (size_t i = 0; i < argc; i++)
+    for (size_t i = 0; i < argc; i++) {
         args[i + 1] = (char *)argv[i];
+        /* a database file names a schema of the test server instead */
+        if (i > 0 && sl_test_pg() &&
+            (strcmp(argv[i - 1], "--db") == 0 || strcmp(argv[i - 1], "--from") == 0 ||
+             strcmp(argv[i - 1], "--to") == 0))
+            args[i + 1] = mapped[i] = sl_test_db_in(cwd, argv[i]);
+    }
+    const char *env_db = getenv("SPLITLOT_DB");
+    char *mapped_env = env_db && *env_db ? sl_test_db_in(cwd, env_db) : NULL;
     pid_t pid = fork();
     if (pid == 0) {
         if (cwd && chdir(cwd) != 0)
             _exit(126);
+        if (mapped_env)
+            setenv("SPLITLOT_DB", mapped_env, 1);
         dup2(in_fd, 0);
         dup2(out_fd, 1);
         dup2(err_fd, 2);
@@ -173,6 +339,20 @@ sl_run_result sl_test_run(const char *cwd, const char *stdin_text, const char *c
     lseek(err_fd, 0, SEEK_SET);
     r.out = slurp_fd(out_fd);
     r.err = slurp_fd(err_fd);
+    /* messages name the database as the test gave it, whatever the backend */
+    for (size_t i = 0; i < argc; i++)
+        if (mapped[i]) {
+            replace_all(&r.out, mapped[i], argv[i]);
+            replace_all(&r.err, mapped[i], argv[i]);
+        }
+    if (mapped_env) {
+        replace_all(&r.out, mapped_env, env_db);
+        replace_all(&r.err, mapped_env, env_db);
+    }
+    for (size_t i = 0; i < argc; i++)
+        free(mapped[i]);
+    free(mapped);
+    free(mapped_env);
     close(out_fd);
     close(err_fd);
     close(in_fd);

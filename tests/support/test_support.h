@@ -9,6 +9,8 @@
 #include <check.h>
 #include <stddef.h>
 
+#include "splitlot/store.h"
+
 /* Result of running the splitlot binary. */
 typedef struct {
     int exit_code;  /* process exit code, or 128 + signal */
@@ -40,6 +42,26 @@ int sl_test_write_file(const char *path, const char *text);
 int sl_test_files_equal(const char *a, const char *b);
 /* Copy a file; returns 0 on success. */
 int sl_test_copy_file(const char *from, const char *to);
+
+/* The backend under test: SPLITLOT_TEST_DB set to a postgresql:// URL runs
+ * every suite against that server (make check-pg), else SQLite files. */
+int sl_test_pg(void);
+/* Where a database named by a file path lives: the path itself on SQLite;
+ * on PostgreSQL the URL of a schema of the test server made for that path
+ * (relative paths from cwd, NULL: the current folder). The splitlot runs of
+ * sl_test_run map --db, --from and --to FILE and SPLITLOT_DB the same way;
+ * only names ending in .db are databases there. Malloc'd. */
+char *sl_test_db(const char *path);
+char *sl_test_db_in(const char *cwd, const char *path);
+/* sl_store_open of the database a file path names (see sl_test_db). */
+sl_status sl_test_store_open(sl_store **out, const char *path, sl_diag *diag);
+/* A test of SQLite's own files (copies, permissions, fixtures): skipped on
+ * PostgreSQL. */
+#define SL_TEST_SQLITE_ONLY()                                                  \
+    do {                                                                       \
+        if (sl_test_pg())                                                      \
+            return;                                                            \
+    } while (0)
 
 /* A golden output: got must equal the file at path byte for byte (a Check
  * failure naming what and path otherwise). With SL_REGENERATE_GOLDEN=1 in the

@@ -1,0 +1,151 @@
+/* SPDX-License-Identifier: MIT
+ * The SQLite driver of the store's database layer (see db_driver.h): a file
+ * opened read-write (created when missing) with extended result codes, and
+ * statements passed straight to SQLite.
+ */
+#include <stdlib.h>
+
+#include <sqlite3.h>
+
+#include "db_driver.h"
+
+typedef struct {
+    sl__db base;
+    sqlite3 *handle;
+} sqlite_db;
+
+typedef struct {
+    sl__stmt base;
+    sqlite3_stmt *handle;
+} sqlite_stmt;
+
+static sqlite3 *H(sl__db *db) { return ((sqlite_db *)db)->handle; }
+static sqlite3_stmt *S(sl__stmt *st) { return ((sqlite_stmt *)st)->handle; }
+
+static void db_close(sl__db *db)
+{
+    sqlite3_close(H(db));
+    free(db);
+}
+
+static const char *db_errmsg(sl__db *db)
+{
+    return H(db) ? sqlite3_errmsg(H(db)) : "out of memory";
+}
+
+static sl__db_errkind db_errkind(sl__db *db)
+{
+    int extended = sqlite3_extended_errcode(H(db));
+    switch (extended) {
+    case SQLITE_CONSTRAINT_UNIQUE: return SL__DBE_UNIQUE;
+    case SQLITE_CONSTRAINT_PRIMARYKEY: return SL__DBE_PRIMARYKEY;
+    case SQLITE_CONSTRAINT_FOREIGNKEY: return SL__DBE_FOREIGNKEY;
+    case SQLITE_CONSTRAINT_CHECK: return SL__DBE_CHECK;
+    case SQLITE_CONSTRAINT_NOTNULL: return SL__DBE_NOTNULL;
+    default: break;
+    }
+    switch (extended & 0xff) {
+    case SQLITE_CONSTRAINT: return SL__DBE_CONSTRAINT;
+    case SQLITE_READONLY: return SL__DBE_READONLY;
+    case SQLITE_FULL: return SL__DBE_FULL;
+    case SQLITE_IOERR: return SL__DBE_IOERR;
+    case SQLITE_CANTOPEN: return SL__DBE_CANTOPEN;
+    case SQLITE_NOTADB:
+    case SQLITE_CORRUPT: return SL__DBE_NOTADB;
+    case SQLITE_BUSY: return SL__DBE_BUSY;
+    default: return SL__DBE_OTHER;
+    }
+}
+
+static int db_syserr(sl__db *db) { return sqlite3_system_errno(H(db)); }
+static int db_readonly(sl__db *db) { return sqlite3_db_readonly(H(db), "main") == 1; }
+static int db_in_transaction(sl__db *db) { return !sqlite3_get_autocommit(H(db)); }
+static long db_changes(sl__db *db) { return (long)sqlite3_changes(H(db)); }
+
+static int db_exec(sl__db *db, const char *sql)
+{
+    return sqlite3_exec(H(db), sql, NULL, NULL, NULL) == SQLITE_OK ? SL__DB_OK : SL__DB_FAIL;
+}
+
+static const sl__db_ops sqlite_ops;
+
+static int db_prepare(sl__db *db, const char *sql, int flags, sl__stmt **out)
+{
+    (void)flags; /* SQLite reads rows as they are stepped anyway */
+    sqlite_stmt *st = calloc(1, sizeof *st);
+    if (!st)
+        return SL__DB_FAIL;
+    st->base.ops = &sqlite_ops;
+    if (sqlite3_prepare_v2(H(db), sql, -1, &st->handle, NULL) != SQLITE_OK) {
+        free(st);
+        return SL__DB_FAIL;
+    }
+    *out = &st->base;
+    return SL__DB_OK;
+}
+
+static int st_step(sl__stmt *st)
+{
+    int rc = sqlite3_step(S(st));
+    return rc == SQLITE_ROW ? SL__DB_ROW : rc == SQLITE_DONE ? SL__DB_DONE : SL__DB_FAIL;
+}
+
+static void st_reset(sl__stmt *st) { sqlite3_reset(S(st)); }
+
+static void st_finalize(sl__stmt *st)
+{
+    sqlite3_finalize(S(st));
+    free(st);
+}
+
+static void bind_int64(sl__stmt *st, int i, long long v) { sqlite3_bind_int64(S(st), i, v); }
+static void bind_double(sl__stmt *st, int i, double v) { sqlite3_bind_double(S(st), i, v); }
+static void bind_text(sl__stmt *st, int i, const char *text, int len)
+{
+    sqlite3_bind_text(S(st), i, text, len, SQLITE_TRANSIENT);
+}
+static void bind_blob(sl__stmt *st, int i, const void *data, size_t bytes)
+{
+    sqlite3_bind_blob64(S(st), i, data, bytes, SQLITE_TRANSIENT);
+}
+static void bind_null(sl__stmt *st, int i) { sqlite3_bind_null(S(st), i); }
+
+static int column_is_null(sl__stmt *st, int c) { return sqlite3_column_type(S(st), c) == SQLITE_NULL; }
+static long long column_int64(sl__stmt *st, int c) { return sqlite3_column_int64(S(st), c); }
+static double column_double(sl__stmt *st, int c) { return sqlite3_column_double(S(st), c); }
+static const char *column_text(sl__stmt *st, int c)
+{
+    return (const char *)sqlite3_column_text(S(st), c);
+}
+static const void *column_blob(sl__stmt *st, int c) { return sqlite3_column_blob(S(st), c); }
+static size_t column_bytes(sl__stmt *st, int c) { return (size_t)sqlite3_column_bytes(S(st), c); }
+
+static const sl__db_ops sqlite_ops = {
+    db_close, db_errmsg, db_errkind, db_syserr, db_readonly, db_in_transaction, db_changes,
+    db_exec, db_prepare, st_step, st_reset, st_finalize, bind_int64, bind_double, bind_text,
+    bind_blob, bind_null, column_is_null, column_int64, column_double, column_text,
+    column_blob, column_bytes,
+};
+
+int sl__db_sqlite_open(sl__db **out, const char *path)
+{
+    sqlite_db *db = calloc(1, sizeof *db);
+    if (!db)
+        return SL__DB_FAIL;
+    db->base.ops = &sqlite_ops;
+    db->base.kind = SL__DB_SQLITE;
+    *out = &db->base;
+    int rc = sqlite3_open_v2(path, &db->handle, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE, NULL);
+    if (rc != SQLITE_OK)
+        return SL__DB_FAIL;
+    sqlite3_extended_result_codes(db->handle, 1);
+    return SL__DB_OK;
+}
+
+/* The busy timeout is SQLite's alone: the store sets it through this. */
+void sl__db_sqlite_busy_timeout(sl__db *db, int ms);
+void sl__db_sqlite_busy_timeout(sl__db *db, int ms)
+{
+    if (db->kind == SL__DB_SQLITE)
+        sqlite3_busy_timeout(H(db), ms);
+}
