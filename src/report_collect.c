@@ -10,6 +10,9 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <gsl/gsl_sort.h>
+#include <gsl/gsl_statistics_double.h>
+
 #include "report_internal.h"
 
 #define COLOUR_PERCENTILE 0.99
@@ -164,19 +167,21 @@ static void add_die(report_data *d, const sl_plan *plan, long w, const sl_analyz
 {
     if (w < 0)
         return;
-    if (dev->die_x < 0 || dev->die_y < 0 || dev->die_x >= plan->wafer_cols ||
-        dev->die_y >= plan->wafer_rows) {
+    /* the prober's coordinates, counted from wafer_map.first_die */
+    long col = dev->die_x - plan->first_die_x, row = dev->die_y - plan->first_die_y;
+    if (col < 0 || row < 0 || col >= plan->wafer_cols || row >= plan->wafer_rows) {
         d->n_off_grid++;
         return;
     }
     if (d->wafer_split[w] < 0)
         d->wafer_split[w] = dev->split;
-    report_die *die = &d->dies[(size_t)w * d->n_slots +
-                               (size_t)(dev->die_y * plan->wafer_cols + dev->die_x)];
+    report_die *die = &d->dies[(size_t)w * d->n_slots + (size_t)(row * plan->wafer_cols + col)];
     if (die->n_devices++ == 0)
         snprintf(die->device, sizeof die->device, "%s", dev->device);
     die->n_flagged += dev->flags != 0;
     if (isfinite(dev->deviation_V)) {
+        if (die->n_values < SL_REPORT_DIE_VALUES)
+            die->values_V[die->n_values] = dev->deviation_V;
         die->sum_V += dev->deviation_V;
         die->n_values++;
     }
@@ -265,6 +270,18 @@ static sl_status collect_pass(report_ctx *c)
     return st;
 }
 
+double report_die_value(const report_die *die)
+{
+    if (die->n_values == 0)
+        return NAN;
+    if (die->n_values > SL_REPORT_DIE_VALUES)
+        return die->sum_V / (double)die->n_values;
+    double v[SL_REPORT_DIE_VALUES];
+    memcpy(v, die->values_V, die->n_values * sizeof *v);
+    gsl_sort(v, 1, die->n_values);
+    return gsl_stats_median_from_sorted_data(v, 1, die->n_values);
+}
+
 static int by_value(const void *pa, const void *pb)
 {
     double a = *(const double *)pa, b = *(const double *)pb;
@@ -272,7 +289,7 @@ static int by_value(const void *pa, const void *pb)
 }
 
 /* One symmetric colour half-range for every wafer map of the lot: the 99th
- * percentile of |mean deviation| of its dies, rounded up to a 1-2-5
+ * percentile of |deviation| of its dies (report_die_value), rounded up to a 1-2-5
  * number, so one wild die does not wash out every other colour. */
 static sl_status colour_range(report_data *d, const sl_plan *plan)
 {
@@ -282,7 +299,7 @@ static sl_status colour_range(report_data *d, const sl_plan *plan)
         return SL_ENOMEM;
     for (size_t i = 0; i < n_all; i++)
         if (d->dies[i].n_values > 0)
-            v[n++] = fabs(d->dies[i].sum_V / (double)d->dies[i].n_values);
+            v[n++] = fabs(report_die_value(&d->dies[i]));
     d->colour_max_abs_V = 1.0;
     if (n > 0) {
         qsort(v, n, sizeof *v, by_value);
