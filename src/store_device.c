@@ -295,13 +295,16 @@ sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, lon
                                       long run_id, const sl_store_device *d, sl_diag *diag)
 {
     memset(out, 0, sizeof *out);
-    if (sl_store_is_pg(store) && lot_id == store->new_lot_id) {
+    long new_lot_id = store->new_lot_id;
+    if (sl_store_is_pg(store) && lot_id == new_lot_id) {
         int added = 0;
         sl_status s = add_new_device_pg(store, &added, out, lot_id, run_id, d, diag);
         if (s != SL_OK || added)
             return s;
+        store->new_lot_id = 0; /* the device exists: look it up, do not try to add it */
     }
     sl_status s = resolve_device(store, out, lot_id, d, diag);
+    store->new_lot_id = new_lot_id;
     if (s != SL_OK || out->outcome != SL_STORE_ADDED)
         return s;
     int added = 0;
