@@ -21,6 +21,8 @@ int sl_analyze_flag_names(const sl_analyze_device *d, const char **names)
         names[n++] = "unmeasured";
     if (d->flags & SL_FLAG_BELOW_FLOOR)
         names[n++] = "below-floor";
+    if (d->flags & SL_FLAG_HYSTERESIS)
+        names[n++] = "hysteresis";
     return n;
 }
 

@@ -18,6 +18,7 @@
 #include <string.h>
 
 #include "analyze_internal.h"
+#include "splitlot/physics.h"
 
 /* Fewest usable devices for modified z-scores to mean anything (common
  * practice: a median and MAD of fewer points are too unstable): on the
@@ -201,6 +202,8 @@ static sl_status load_predictions(sl_analysis *a, const sl_store_revision *rev)
         a->split_gate_max_V[s] = p->gate_max_V;
         a->split_capacitance_F_per_m2[s] = p->gate_capacitance_F_per_m2;
         a->split_floor_per_cm2[s] = p->thermal_floor_per_cm2;
+        a->splits[s].window_predicted_per_cm2[0] = p->max_electron_density_per_cm2;
+        a->splits[s].window_predicted_per_cm2[1] = p->max_hole_density_per_cm2;
     }
     return SL_OK;
 }
@@ -285,6 +288,8 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
                                                      : r->channel_width_um;
     d->n_points = r->n_points;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
+    if (fabs(r->hysteresis_V) > a->plan->max_hysteresis_V) /* NaN: no limit, or none */
+        d->flags |= SL_FLAG_HYSTERESIS;
     if (is_usable(r)) {
         d->cnp_measured_V = r->cnp_V;
         d->deviation_V = r->cnp_V - d->cnp_predicted_V;
@@ -342,7 +347,8 @@ static const char *class_reason(const char *cls)
 /* The flag in words, and the severity that orders the failure analysis
  * (a residual density below the floor ranks after the off-prediction and
  * outlier flags, before nothing). */
-static void describe(sl_analyze_device *d, double floor_per_cm2, double temperature_K)
+static void describe(sl_analyze_device *d, double floor_per_cm2, double temperature_K,
+                     double max_hysteresis_V)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
         snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
@@ -364,16 +370,21 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
                               "%s%s the other devices of its wafer (modified z %.1f)", k ? "; " : "",
                               d->modified_z > 0 ? "far above" : "far below", d->modified_z);
     if (d->flags & SL_FLAG_BELOW_FLOOR && k < sizeof d->reason)
-        snprintf(d->reason + k, sizeof d->reason - k,
-                 "%sresidual density %.3g cm^-2 below the thermal floor %.3g cm^-2 at %g K "
-                 "(the fit or the temperature is wrong)",
-                 k ? "; " : "", d->n0_per_cm2, floor_per_cm2, temperature_K);
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "%sresidual density %.3g cm^-2 below the thermal floor %.3g cm^-2 "
+                              "at %g K (the fit or the temperature is wrong)",
+                              k ? "; " : "", d->n0_per_cm2, floor_per_cm2, temperature_K);
+    if (d->flags & SL_FLAG_HYSTERESIS && k < sizeof d->reason)
+        snprintf(d->reason + k, sizeof d->reason - k, "%shysteresis %.2f V, beyond the plan's %.2f V",
+                 k ? "; " : "", d->hysteresis_V, max_hysteresis_V);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
     if (d->flags == SL_FLAG_BELOW_FLOOR)
         d->severity = 1.0 - d->n0_per_cm2 / floor_per_cm2; /* 0..1: after the others */
     if (d->flags & SL_FLAG_OFF_PREDICTION)
         d->severity += 100.0;
+    if (d->flags == SL_FLAG_HYSTERESIS) /* by how far beyond the limit */
+        d->severity = fabs(d->hysteresis_V) / max_hysteresis_V;
 }
 
 /* Every field of a device, from its row and its wafer's and dielectric's
@@ -390,7 +401,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     if (isfinite(d->n0_per_cm2) && d->n0_per_cm2 < a->split_floor_per_cm2[split])
         d->flags |= SL_FLAG_BELOW_FLOOR;
     if (d->flags)
-        describe(d, a->split_floor_per_cm2[split], a->temperature_K);
+        describe(d, a->split_floor_per_cm2[split], a->temperature_K, a->plan->max_hysteresis_V);
     s->row = r;
 }
 
@@ -609,6 +620,7 @@ static sl_status add_flags(sl_analysis_stream *s, long wafer, sl_diag *diag)
     sl_analyze_split *sp = &a->splits[d->split];
     a->n_devices++;
     sp->n_devices++;
+    a->n_with_hysteresis += isfinite(d->hysteresis_V);
     if (isfinite(d->cnp_measured_V)) {
         sp->n_usable++;
         a->n_usable++;
@@ -669,6 +681,33 @@ sl_status sl_analyze_lot_stream(sl_analysis_stream **out, sl_store *store, const
     return sl_analyze_lot_stream_view(out, store, lot, NULL, diag);
 }
 
+/* Net density n - p (cm^-2) at gate_V for a neutrality point at cnp_V. */
+static double net_density_at(const sl_analysis *a, size_t split, double gate_V, double cnp_V)
+{
+    double vf = a->plan->fermi_velocity_m_s, mu = 0.0;
+    if (sl_physics_solve_fermi_J(&mu, gate_V, cnp_V, a->split_capacitance_F_per_m2[split],
+                                 a->temperature_K, vf) != SL_OK)
+        return NAN;
+    return sl_physics_net_density_per_m2(mu, a->temperature_K, vf) * SL_PER_CM2_PER_PER_M2;
+}
+
+/* Each split's window at the ends of its gate range from its measured mean
+ * V_cnp (the wafer means'), and the share of its devices inside the sweep. */
+static void windows_reached(sl_analysis *a)
+{
+    for (size_t k = 0; k < a->n_splits; k++) {
+        sl_analyze_split *sp = &a->splits[k];
+        double mean = sp->cnp.mean;
+        sp->window_reached_per_cm2[0] = sp->window_reached_per_cm2[1] = NAN;
+        if (isfinite(mean)) {
+            sp->window_reached_per_cm2[0] = net_density_at(a, k, a->split_gate_max_V[k], mean);
+            sp->window_reached_per_cm2[1] = -net_density_at(a, k, a->split_gate_min_V[k], mean);
+        }
+        size_t seen = sp->n_usable + sp->n_censored;
+        sp->inside_share = seen ? (double)sp->n_usable / (double)seen : NAN;
+    }
+}
+
 sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, const char *lot,
                                      const sl_analyze_view *view, sl_diag *diag)
 {
@@ -686,6 +725,8 @@ sl_status sl_analyze_lot_stream_view(sl_analysis_stream **out, sl_store *store, 
         st = sl_store_scratch_open(&s->scratch, store, diag);
     if (st == SL_OK)
         st = run_passes(s, diag);
+    if (st == SL_OK)
+        windows_reached(&s->owner->pub);
     if (st != SL_OK) {
         sl_analysis_stream_free(s);
         return st;

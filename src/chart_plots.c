@@ -218,18 +218,22 @@ static void strip_points(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
     }
 }
 
-/* The legend names the outer band for what it is: the flag interval of
- * the first category that has one, else +/-3 sigma of the prediction. */
+/* The legend names what is drawn, and the outer band for what it is: the
+ * flag interval of the first category that has one, else +/-3 sigma of the
+ * prediction. */
 static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot,
                          const sl_chart_category *cats, size_t count)
 {
     const char *outer = "predicted \xc2\xb1" "3\xcf\x83";
-    int any_bins = 0, any_points = 0;
+    int any_bins = 0, any_points = 0, any_line = 0, any_sigma = 0, any_flag = 0;
     for (size_t c = count; c-- > 0;) {
         if (has_flag_band(&cats[c]))
             outer = cats[c].flag_label ? cats[c].flag_label : "flag interval";
         any_bins |= has_bins(&cats[c]);
         any_points |= !has_bins(&cats[c]);
+        any_line |= isfinite(cats[c].predicted.val);
+        any_sigma |= isfinite(cats[c].predicted.val) && cats[c].predicted.sigma > 0.0;
+        any_flag |= has_flag_band(&cats[c]);
     }
     sl_chart_legend_item items[6];
     size_t n = 0;
@@ -239,10 +243,13 @@ static void strip_legend(sl_chart_buf *buf, const sl_chart_rect *plot,
         items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "density", NULL,
                                              "devices per bin" };
     items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_DIAMOND, "flagged", NULL, "flagged" };
-    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_LINE, "predicted", NULL, "predicted" };
-    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "sigma1", NULL,
-                                         "predicted \xc2\xb1" "1\xcf\x83" };
-    items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "sigma3", NULL, outer };
+    if (any_line)
+        items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_LINE, "predicted", NULL, "predicted" };
+    if (any_sigma)
+        items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "sigma1", NULL,
+                                             "predicted \xc2\xb1" "1\xcf\x83" };
+    if (any_sigma || any_flag)
+        items[n++] = (sl_chart_legend_item){ SL_CHART_SWATCH_BAND, "sigma3", NULL, outer };
     sl_chart_legend(buf, legend_x(plot), plot->y_px, items, n);
 }
 

@@ -42,6 +42,9 @@ struct sl_csv {
     char **columns;
     size_t n_columns;
     sl_status sticky;
+    char sep;               /* ',', ';' or '\t', detected from the header */
+    bool decimal_comma;     /* "1,5" accepted (separator ';' or tab) */
+    const unsigned char *stop; /* stop bytes of unquoted runs for sep */
     sl_csv_tap tap;         /* sees every byte read, in order; may be NULL */
     void *tap_ctx;
 };
@@ -56,12 +59,21 @@ typedef struct {
     bool finished;   /* fields unescaped and NUL-terminated already */
 } scan_state;
 
-/* Bytes that end an unquoted run: separator, line ends, quote, NUL. All are
- * below STOP_BYTE_LIMIT, which the word-at-a-time scan relies on. */
-static const unsigned char stop_byte[256] = {
+/* Bytes that end an unquoted run: separator, line ends, quote, NUL; one
+ * table per separator. Line ends, quote and NUL are below QUOTE_LIMIT; with
+ * a comma all stop bytes are below COMMA_LIMIT, which the comma scan relies
+ * on (one comparison per word); a semicolon is found by equality. */
+static const unsigned char stop_comma[256] = {
     [','] = 1, ['\n'] = 1, ['\r'] = 1, ['"'] = 1, [0] = 1,
 };
-#define STOP_BYTE_LIMIT (',' + 1u)
+static const unsigned char stop_semicolon[256] = {
+    [';'] = 1, ['\n'] = 1, ['\r'] = 1, ['"'] = 1, [0] = 1,
+};
+static const unsigned char stop_tab[256] = {
+    ['\t'] = 1, ['\n'] = 1, ['\r'] = 1, ['"'] = 1, [0] = 1,
+};
+#define COMMA_LIMIT (',' + 1u)
+#define QUOTE_LIMIT ('"' + 1u)
 
 /* Keeps a rarely taken path out of its caller, so the caller's common path
  * needs no stack frame. */
@@ -211,7 +223,7 @@ static step_result scan_quoted(sl_csv *csv, scan_state *s, const char **why)
 static step_result scan_unquoted(sl_csv *csv, scan_state *s, const char **why)
 {
     const char *p = s->p;
-    while (p < s->limit && !stop_byte[(unsigned char)*p])
+    while (p < s->limit && !csv->stop[(unsigned char)*p])
         p++;
     if (p == s->limit && !csv->eof)
         return STEP_MORE;
@@ -240,7 +252,7 @@ static step_result scan_separator(sl_csv *csv, scan_state *s, bool *done, const 
         return STEP_OK;
     }
     char c = *s->p;
-    if (c == ',') {
+    if (c == csv->sep) {
         s->p++;
         return STEP_OK;
     }
@@ -266,11 +278,11 @@ static step_result scan_separator(sl_csv *csv, scan_state *s, bool *done, const 
     return STEP_ERROR;
 }
 
-/* Put back the commas scan_plain_record replaced by NULs in its first n fields. */
+/* Put back the separators scan_plain_record replaced by NULs in its first n fields. */
 static void restore_separators(sl_csv *csv, size_t n)
 {
     for (size_t i = 0; i < n; i++)
-        csv->buf[csv->fields[i].off + csv->fields[i].len] = ',';
+        csv->buf[csv->fields[i].off + csv->fields[i].len] = csv->sep;
 }
 
 static void set_plain_span(field_span *f, const unsigned char *buf, const unsigned char *from,
@@ -281,23 +293,44 @@ static void set_plain_span(field_span *f, const unsigned char *buf, const unsign
     f->quoted = false;
 }
 
+/* Candidate stop bytes of a word for separator sep (a constant once
+ * inlined): with a comma every stop byte is below COMMA_LIMIT; with a tab
+ * below QUOTE_LIMIT; a semicolon is flagged by equality (a zero byte after
+ * the exclusive or), the rest below QUOTE_LIMIT. Candidates that are no stop
+ * byte (a space, say) are passed over by the caller. */
+#if defined(__GNUC__)
+__attribute__((always_inline))
+#endif
+static inline uint64_t candidates(uint64_t word, unsigned char sep)
+{
+    if (sep == ',')
+        return bytes_below(word, COMMA_LIMIT);
+    if (sep == '\t')
+        return bytes_below(word, QUOTE_LIMIT);
+    return bytes_below(word, QUOTE_LIMIT) | bytes_below(word ^ (BYTES_01 * sep), 1u);
+}
+
 /* The common record in one pass: unquoted fields ending in LF or CRLF,
- * wholly in the buffer. Eight bytes at a time, the bytes below
- * STOP_BYTE_LIMIT are found at once and taken in order: a comma ends a field
- * (and becomes its NUL), another stop byte ends the record, a candidate that
- * is no stop (a space, say) is passed over. The sentinel after the data
- * guarantees an end. For anything but LF or CRLF there (a quote, a lone CR, a
- * NUL, the sentinel) or too many fields, the commas are put back and false
- * returned: the general scan starts over. */
-static bool scan_plain_record(sl_csv *csv, scan_state *s)
+ * wholly in the buffer. Eight bytes at a time, the candidate stop bytes are
+ * found at once and taken in order: a separator ends a field (and becomes
+ * its NUL), another stop byte ends the record, a candidate that is no stop is
+ * passed over. The sentinel after the data guarantees an end. For anything
+ * but LF or CRLF there (a quote, a lone CR, a NUL, the sentinel) or too many
+ * fields, the separators are put back and false returned: the general scan
+ * starts over. Inlined once per separator, so each has its own constants. */
+#if defined(__GNUC__)
+__attribute__((always_inline))
+#endif
+static inline bool scan_plain_with(sl_csv *csv, scan_state *s, unsigned char sep,
+                                   const unsigned char *stop_byte)
 {
     unsigned char *const buf = (unsigned char *)csv->buf;
     field_span *f = csv->fields, *const last = csv->fields + SL_CSV_MAX_FIELDS - 1;
     unsigned char *from = buf + csv->pos, *stop = NULL;
     for (unsigned char *word = from; !stop; word += 8) {
-        for (uint64_t c = bytes_below(load_word(word), STOP_BYTE_LIMIT); c; c &= c - 1) {
+        for (uint64_t c = candidates(load_word(word), sep); c; c &= c - 1) {
             unsigned char *q = word + first_flagged_byte(c);
-            if (*q != ',') {
+            if (*q != sep) {
                 if (!stop_byte[*q])
                     continue;
                 stop = q;
@@ -325,6 +358,15 @@ static bool scan_plain_record(sl_csv *csv, scan_state *s)
     s->n_fields = n;
     s->finished = true;
     return true;
+}
+
+static bool scan_plain_record(sl_csv *csv, scan_state *s)
+{
+    switch (csv->sep) {
+    case ';': return scan_plain_with(csv, s, ';', stop_semicolon);
+    case '\t': return scan_plain_with(csv, s, '\t', stop_tab);
+    default: return scan_plain_with(csv, s, ',', stop_comma);
+    }
 }
 
 static scan_result scan_record(sl_csv *csv, scan_state *s, const char **why)
@@ -460,12 +502,66 @@ static sl_status check_header_name(sl_csv *csv, size_t i, sl_diag *diag)
     return SL_OK;
 }
 
+/* Lines before the header that start with '#' (an instrument's notes) are
+ * passed over, as are blank lines; only those wholly in the first buffer. */
+static void skip_preamble(sl_csv *csv)
+{
+    for (;;) {
+        const char *p = csv->buf + csv->pos, *end = csv->buf + csv->end;
+        if (p < end && (*p == '\n' || (*p == '\r' && p + 1 < end && p[1] == '\n'))) {
+            csv->pos += *p == '\n' ? 1 : 2;
+            csv->next_line++;
+            continue;
+        }
+        if (p == end || *p != '#')
+            return;
+        const char *nl = memchr(p, '\n', (size_t)(end - p));
+        if (!nl)
+            return;
+        csv->pos += (size_t)(nl + 1 - p);
+        csv->next_line++;
+    }
+}
+
+/* The separator of the header line: the one of comma, semicolon and tab
+ * found most often outside quotes; a comma on a tie or when none is. */
+static char detect_separator(const sl_csv *csv)
+{
+    size_t comma = 0, semicolon = 0, tab = 0;
+    bool quoted = false;
+    for (const char *p = csv->buf + csv->pos, *end = csv->buf + csv->end; p < end; p++) {
+        if (*p == '"')
+            quoted = !quoted;
+        else if (!quoted && *p == '\n')
+            break;
+        else if (!quoted) {
+            comma += *p == ',';
+            semicolon += *p == ';';
+            tab += *p == '\t';
+        }
+    }
+    if (semicolon > comma && semicolon >= tab)
+        return ';';
+    if (tab > comma && tab > semicolon)
+        return '\t';
+    return ',';
+}
+
+static void set_separator(sl_csv *csv, char sep)
+{
+    csv->sep = sep;
+    csv->stop = sep == ';' ? stop_semicolon : sep == '\t' ? stop_tab : stop_comma;
+    csv->decimal_comma = sep != ',';
+}
+
 static sl_status read_header(sl_csv *csv, sl_diag *diag)
 {
     sl_status st = refill(csv, diag);
     if (st != SL_OK)
         return st;
     skip_bom(csv);
+    skip_preamble(csv);
+    set_separator(csv, detect_separator(csv));
     bool has = false;
     st = read_record(&has, csv, diag);
     if (st != SL_OK)
@@ -499,6 +595,7 @@ static sl_csv *reader_new(FILE *stream, bool owns, const char *name)
     csv->buf = calloc(1, BUFFER_BYTES);   /* word loads may read past the data */
     csv->fields = malloc(SL_CSV_MAX_FIELDS * sizeof *csv->fields);
     csv->next_line = 1;
+    set_separator(csv, ',');
     if (!csv->name || !csv->buf || !csv->fields) {
         csv->owns_stream = false;
         sl_csv_free(csv);
@@ -573,6 +670,7 @@ void sl_csv_free(sl_csv *csv)
 }
 
 const char *sl_csv_name(const sl_csv *csv) { return csv->name; }
+char sl_csv_separator(const sl_csv *csv) { return csv->sep; }
 size_t sl_csv_column_count(const sl_csv *csv) { return csv->n_columns; }
 long sl_csv_line(const sl_csv *csv) { return csv->record_line; }
 size_t sl_csv_field_count(const sl_csv *csv) { return csv->n_fields; }
@@ -723,23 +821,70 @@ static bool fast_value(double *out, const decimal *d)
 #endif
 }
 
-static num_status parse_number(double *out, const char *s, size_t len)
+/* strtod of a grammar-checked token scaled by 10^exp10, rounded once: the
+ * exponent is rewritten (mantissa text, then the file's exponent plus
+ * exp10), so the scale never adds a second rounding. */
+static double strtod_scaled(const char *s, size_t len, int exp10)
+{
+    if (exp10 == 0)
+        return strtod(s, NULL); /* stops at the blank or NUL after the token */
+    size_t mant = 0;
+    while (mant < len && s[mant] != 'e' && s[mant] != 'E')
+        mant++;
+    long e = mant < len ? strtol(s + mant + 1, NULL, 10) : 0;
+    e = e > 100000 ? 100000 : e < -100000 ? -100000 : e;
+    char *text = malloc(mant + 32);
+    if (!text)
+        return NAN;
+    snprintf(text, mant + 32, "%.*se%ld", (int)mant, s, e + exp10);
+    double v = strtod(text, NULL);
+    free(text);
+    return v;
+}
+
+/* Parse a number given in a unit 10^exp10 of its SI unit; with
+ * decimal_comma one comma (and no point) stands for the decimal point. */
+static num_status parse_number_e(double *out, const char *s, size_t len, int exp10,
+                                 bool decimal_comma)
 {
     s = trim(s, &len);
     if (len == 0)
         return NUM_EMPTY;
+    char local[64], *copy = NULL;
+    if (decimal_comma && memchr(s, ',', len)) {
+        if (memchr(s, '.', len))
+            return NUM_JUNK; /* "1.234,5": no thousands separators */
+        copy = len < sizeof local ? local : malloc(len + 1);
+        if (!copy)
+            return NUM_JUNK;
+        for (size_t i = 0; i < len; i++)
+            copy[i] = s[i] == ',' ? '.' : s[i];
+        copy[len] = '\0';
+        s = copy;
+    }
     decimal d;
-    if (!scan_decimal(&d, s, s + len))
-        return NUM_JUNK;
-    if (fast_value(out, &d))
-        return NUM_OK;
-    /* The grammar was checked, so strtod reads exactly this token; it stops
-     * at the trailing blank or the NUL that ends every field. */
-    double v = strtod(s, NULL);
-    if (v == HUGE_VAL || v == -HUGE_VAL || (v == 0.0 && d.mantissa != 0))
-        return NUM_RANGE;
-    *out = v;
-    return NUM_OK;
+    num_status st = NUM_OK;
+    if (!scan_decimal(&d, s, s + len)) {
+        st = NUM_JUNK;
+    } else {
+        d.exp10 += exp10;
+        if (!fast_value(out, &d)) {
+            /* the grammar was checked, so strtod reads exactly this token */
+            double v = strtod_scaled(s, len, exp10);
+            if (isnan(v) || v == HUGE_VAL || v == -HUGE_VAL || (v == 0.0 && d.mantissa != 0))
+                st = NUM_RANGE;
+            else
+                *out = v;
+        }
+    }
+    if (copy && copy != local)
+        free(copy);
+    return st;
+}
+
+static num_status parse_number(double *out, const char *s, size_t len)
+{
+    return parse_number_e(out, s, len, 0, false);
 }
 
 /* ---- numbers: the short-token path ---- */
@@ -812,6 +957,27 @@ static bool short_number(double *out, const char *s, size_t len)
     *out = (double)(int64_t)eight_digits_value(v) / signed_pow10[negative][n_frac];
     return true;
 }
+
+/* short_number for a value in a unit 10^exp10 of its SI unit: the scale
+ * joins the division (or becomes a multiplication) by one exact power of
+ * ten, so the SI value is still rounded once. */
+static bool short_number_e(double *out, const char *s, size_t len, int exp10)
+{
+    unsigned shift = 64u - 8u * (unsigned)len, n_frac;
+    uint64_t v = (load_word((const unsigned char *)s) ^ (BYTES_01 * '0')) << shift;
+    bool negative = s[0] == '-', has_sign = negative || s[0] == '+';
+    v &= ~((uint64_t)(has_sign ? 0xFFu : 0u) << shift);
+    int points = take_out_point(&v, &n_frac);
+    if (points < 0 || len == (size_t)has_sign + (size_t)points)
+        return false;
+    long e = (long)exp10 - (long)n_frac;
+    if (e < -22 || e > 22)
+        return false;
+    double m = (double)(int64_t)eight_digits_value(v);
+    double x = e < 0 ? m / exact_pow10[-e] : m * exact_pow10[e];
+    *out = negative ? -x : x;
+    return true;
+}
 #else
 /* Where double operations are evaluated wider, one division is not one
  * rounding: parse_number decides every token. */
@@ -822,7 +988,106 @@ static bool short_number(double *out, const char *s, size_t len)
     (void)len;
     return false;
 }
+
+static bool short_number_e(double *out, const char *s, size_t len, int exp10)
+{
+    (void)out;
+    (void)s;
+    (void)len;
+    (void)exp10;
+    return false;
+}
 #endif
+
+/* A token of up to 24 bytes, [+-] digits [point digits] [(e|E) [+-] d{1,3}]
+ * with at most 15 significant digits (so the integer of its digits is
+ * exact) and a power of ten within 10^22 once the exponent, the point and
+ * exp10 are joined: one exact multiplication or division, rounded once.
+ * comma_point lets ',' stand for the point. Returns false for any other
+ * token, which parse_number_e then decides (blanks, long mantissas). */
+static bool plain_number(double *out, const char *s, size_t len, int exp10, bool comma_point)
+{
+#if FLT_EVAL_METHOD != 0
+    return false; /* one division is not one rounding where doubles are evaluated wider */
+#endif
+    if (len == 0 || len > 24)
+        return false;
+    size_t i = 0;
+    bool negative = s[0] == '-';
+    i += negative || s[0] == '+';
+    uint64_t m = 0;
+    int sig = 0, frac = 0, digits = 0;
+    bool point = false;
+    for (; i < len; i++) {
+        unsigned d = digit_value(s[i]);
+        if (d < 10) {
+            digits++;
+            frac += point;
+            if (m == 0 && d == 0)
+                continue; /* a leading zero is no significant digit */
+            if (++sig > 15)
+                return false;
+            m = 10u * m + d;
+        } else if (!point && (s[i] == '.' || (comma_point && s[i] == ','))) {
+            point = true;
+        } else {
+            break;
+        }
+    }
+    if (digits == 0)
+        return false;
+    long e = (long)exp10 - frac;
+    if (i < len) {
+        if (s[i] != 'e' && s[i] != 'E')
+            return false;
+        i++;
+        bool neg_exp = i < len && s[i] == '-';
+        i += i < len && (s[i] == '-' || s[i] == '+');
+        size_t start = i;
+        long x = 0;
+        for (; i < len && i - start < 3 && digit_value(s[i]) < 10; i++)
+            x = 10 * x + (long)digit_value(s[i]);
+        if (i == start || i != len)
+            return false;
+        e += neg_exp ? -x : x;
+    }
+    if (e < -22 || e > 22)
+        return false;
+    double v = (double)m;
+    v = e < 0 ? v / exact_pow10[-e] : v * exact_pow10[e];
+    *out = negative ? -v : v;
+    return true;
+}
+
+/* A token of the form M e X, M a short_number token of at most 8 bytes and X
+ * an exponent of at most three digits ("1.234567e-05", the way meters write
+ * currents): the exponent joins the scale of short_number_e, so the value is
+ * still rounded once. Returns false for any other token. */
+static bool short_exp_number(double *out, const char *s, size_t len, int exp10)
+{
+    size_t k = 1;
+    while (k < len && k <= WORD_BYTES && s[k] != 'e' && s[k] != 'E')
+        k++;
+    if (k > WORD_BYTES || k + 1 >= len)
+        return false;
+    const char *e = s + k + 1;
+    size_t n = len - k - 1;
+    bool negative = *e == '-';
+    if (*e == '+' || *e == '-') {
+        e++;
+        n--;
+    }
+    if (n == 0 || n > 3)
+        return false;
+    int x = 0;
+    for (size_t i = 0; i < n; i++) {
+        unsigned d = digit_value(e[i]);
+        if (d > 9)
+            return false;
+        x = 10 * x + (int)d;
+    }
+    return short_number_e(out, s, k, exp10 + (negative ? -x : x));
+}
 
 bool sl_csv_parse_double(double *out, const char *token, size_t len)
 {
@@ -835,14 +1100,33 @@ bool sl_csv_parse_double(double *out, const char *token, size_t len)
     return parse_number(out, token, len) == NUM_OK;
 }
 
+bool sl_csv_parse_double_e(double *out, const char *token, size_t len, int exp10,
+                           bool decimal_comma)
+{
+    char word[2 * WORD_BYTES] = { 0 };
+    if (len - 1u < WORD_BYTES) {
+        memcpy(word, token, len);
+        if (short_number_e(out, word, len, exp10))
+            return true;
+    }
+    if (len - 1u < 2 * WORD_BYTES - 1u) {
+        memcpy(word, token, len);
+        if (short_exp_number(out, word, len, exp10))
+            return true;
+    }
+    if (plain_number(out, token, len, exp10, decimal_comma))
+        return true;
+    return parse_number_e(out, token, len, exp10, decimal_comma) == NUM_OK;
+}
+
 /* sl_csv_number for the tokens short_number leaves, and its errors; out of
  * line, so that the short path needs no stack frame. */
 OUT_OF_LINE static sl_status general_number(double *out, const sl_csv *csv, size_t field,
-                                            sl_diag *diag)
+                                            int exp10, sl_diag *diag)
 {
     size_t len;
     const char *s = sl_csv_field(csv, field, &len);
-    num_status st = parse_number(out, s, len);
+    num_status st = parse_number_e(out, s, len, exp10, csv->decimal_comma);
     if (st == NUM_OK)
         return SL_OK;
     const char *col = field < csv->n_columns ? csv->columns[field] : "?";
@@ -868,8 +1152,27 @@ sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *d
         /* a field lies in the buffer, so a word from its start is readable */
         if (f->len - 1u < WORD_BYTES && short_number(out, csv->buf + f->off, f->len))
             return SL_OK;
+        if (short_exp_number(out, csv->buf + f->off, f->len, 0) ||
+            plain_number(out, csv->buf + f->off, f->len, 0, csv->decimal_comma))
+            return SL_OK;
     }
-    return general_number(out, csv, field, diag);
+    return general_number(out, csv, field, 0, diag);
+}
+
+sl_status sl_csv_number_e(double *out, const sl_csv *csv, size_t field, int exp10,
+                          sl_diag *diag)
+{
+    if (exp10 == 0)
+        return sl_csv_number(out, csv, field, diag);
+    if (field < csv->n_fields) {
+        const field_span *f = &csv->fields[field];
+        if (f->len - 1u < WORD_BYTES && short_number_e(out, csv->buf + f->off, f->len, exp10))
+            return SL_OK;
+        if (short_exp_number(out, csv->buf + f->off, f->len, exp10) ||
+            plain_number(out, csv->buf + f->off, f->len, exp10, csv->decimal_comma))
+            return SL_OK;
+    }
+    return general_number(out, csv, field, exp10, diag);
 }
 
 /* ---- text ---- */

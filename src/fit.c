@@ -1281,3 +1281,127 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
         fill_parameters(out, ws, cfg, &at);
     return SL_OK;
 }
+
+/* ---- double sweeps: a forward and a reverse branch, fitted apart ---- */
+
+size_t sl_fit_sweep_turn(const double *vg_V, size_t n_points)
+{
+    int way = 0, turns = 0;
+    size_t turn = 0;
+    for (size_t i = 1; i < n_points; i++) {
+        double d = vg_V[i] - vg_V[i - 1];
+        int s = (d > 0) - (d < 0); /* 0 for a repeated voltage (or NaN) */
+        if (s == 0)
+            continue;
+        if (way != 0 && s != way) {
+            turns++;
+            turn = i;
+        }
+        way = s;
+    }
+    return turns == 1 ? turn : 0;
+}
+
+/* Two estimates of one quantity from independent branches: their mean. */
+static double mean2(double a, double b) { return 0.5 * (a + b); }
+static double mean2_se(double a, double b) { return 0.5 * hypot(a, b); }
+
+static void combine_params(sl_fit_params *out, const sl_fit_params *a, const sl_fit_params *b,
+                           int is_sigma)
+{
+    double (*f)(double, double) = is_sigma ? mean2_se : mean2;
+    out->cnp_V = f(a->cnp_V, b->cnp_V);
+    out->mobility_cm2_per_Vs = f(a->mobility_cm2_per_Vs, b->mobility_cm2_per_Vs);
+    out->n0_per_cm2 = f(a->n0_per_cm2, b->n0_per_cm2);
+    out->r_contact_ohm = f(a->r_contact_ohm, b->r_contact_ohm);
+}
+
+static sl_est combine_est(sl_est a, sl_est b)
+{
+    return (sl_est){ mean2(a.val, b.val), mean2_se(a.sigma, b.sigma) };
+}
+
+static void combine_branches(sl_fit_double_result *d, size_t n_points)
+{
+    const sl_fit_result *f = &d->forward, *r = &d->reverse;
+    if (f->cls != SL_FIT_OK || r->cls != SL_FIT_OK) {
+        d->device = f->cls != SL_FIT_OK ? *f : *r;
+        d->device.n_points = n_points;
+        return;
+    }
+    sl_fit_result *o = &d->device;
+    *o = *f;
+    combine_params(&o->p, &f->p, &r->p, 0);
+    combine_params(&o->sigma, &f->sigma, &r->sigma, 1);
+    o->electron_mobility_cm2_per_Vs =
+        combine_est(f->electron_mobility_cm2_per_Vs, r->electron_mobility_cm2_per_Vs);
+    o->hole_mobility_cm2_per_Vs = combine_est(f->hole_mobility_cm2_per_Vs, r->hole_mobility_cm2_per_Vs);
+    o->electron_hole_mobility_ratio =
+        combine_est(f->electron_hole_mobility_ratio, r->electron_hole_mobility_ratio);
+    o->rel_rms = fmax(f->rel_rms, r->rel_rms);
+    o->r_squared = fmin(f->r_squared, r->r_squared);
+    o->iterations = f->iterations + r->iterations;
+    o->n_spikes = f->n_spikes + r->n_spikes;
+    o->n_points = n_points;
+    d->hysteresis_V = r->p.cnp_V - f->p.cnp_V;
+}
+
+/* Split by the direction of each point: forward points first in buf, then
+ * reverse; *n_forward of them. False when a point has none or a branch is
+ * empty. */
+static bool split_by_direction(double *buf, size_t *n_forward, const double *vg_V,
+                               const double *r_ohm, const signed char *direction, size_t n)
+{
+    size_t nf = 0, nr = 0;
+    for (size_t i = 0; i < n; i++) {
+        if (direction[i] == 0)
+            return false;
+        nf += direction[i] > 0;
+    }
+    if (nf == 0 || nf == n)
+        return false;
+    double *vg = buf, *r = buf + n;
+    for (size_t i = 0, k = 0; i < n; i++) {
+        size_t at = direction[i] > 0 ? k++ : nf + nr++;
+        vg[at] = vg_V[i];
+        r[at] = r_ohm[i];
+    }
+    *n_forward = nf;
+    return true;
+}
+
+sl_status sl_fit_double_sweep(sl_fit_double_result *out, sl_fit_workspace *ws,
+                              const sl_fit_config *cfg, const double *vg_V, const double *r_ohm,
+                              const signed char *direction, size_t n_points)
+{
+    memset(out, 0, sizeof *out);
+    out->hysteresis_V = NAN;
+    double *buf = NULL;
+    const double *vg = vg_V, *r = r_ohm;
+    size_t n_forward = 0;
+    if (direction) {
+        buf = malloc(2 * (n_points ? n_points : 1) * sizeof *buf);
+        if (!buf)
+            return SL_ENOMEM;
+        if (split_by_direction(buf, &n_forward, vg_V, r_ohm, direction, n_points)) {
+            vg = buf;
+            r = buf + n_points;
+        }
+    } else {
+        n_forward = sl_fit_sweep_turn(vg_V, n_points);
+    }
+    size_t n_reverse = n_points - n_forward;
+    sl_status st;
+    if (n_forward < SL_FIT_MIN_POINTS || n_reverse < SL_FIT_MIN_POINTS) {
+        st = sl_fit_sweep(&out->device, ws, cfg, vg_V, r_ohm, n_points);
+    } else {
+        out->is_double = 1;
+        st = sl_fit_sweep(&out->forward, ws, cfg, vg, r, n_forward);
+        if (st == SL_OK)
+            st = sl_fit_sweep(&out->reverse, ws, cfg, vg + n_forward, r + n_forward, n_reverse);
+        if (st == SL_OK)
+            combine_branches(out, n_points);
+    }
+    free(buf);
+    return st;
+}

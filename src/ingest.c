@@ -8,6 +8,7 @@
 #include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
+#include <unistd.h>
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
@@ -43,7 +44,7 @@ void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
 {
     va_list ap;
     va_start(ap, fmt);
-    error_at_v(c, c->diag, sl_csv_line(c->csv), column, fmt, ap);
+    error_at_v(c, c->diag, sl_rowsrc_line(c->src), column, fmt, ap);
     va_end(ap);
 }
 
@@ -175,54 +176,80 @@ static sl_status load_lot(ingest_ctx *c)
 static void map_columns(ingest_ctx *c)
 {
     ingest_columns *k = &c->col;
-    k->wafer = sl_csv_column(c->csv, "wafer");
-    k->device = sl_csv_column(c->csv, "device");
-    k->die_x = sl_csv_column(c->csv, "die_x");
-    k->die_y = sl_csv_column(c->csv, "die_y");
-    k->vg = sl_csv_column(c->csv, "vg_V");
-    k->r = sl_csv_column(c->csv, "r_ohm");
-    k->vcnp = sl_csv_column(c->csv, "v_cnp_V");
-    k->mobility = sl_csv_column(c->csv, "mobility_cm2_per_Vs");
-    k->n0 = sl_csv_column(c->csv, "n0_per_cm2");
-    k->r_contact = sl_csv_column(c->csv, "r_contact_ohm");
-    k->temperature = sl_csv_column(c->csv, "temperature_K");
+    k->wafer = sl_rowsrc_column(c->src, SL_ROW_WAFER);
+    k->device = sl_rowsrc_column(c->src, SL_ROW_DEVICE);
+    k->die_x = sl_rowsrc_column(c->src, SL_ROW_DIE_X);
+    k->die_y = sl_rowsrc_column(c->src, SL_ROW_DIE_Y);
+    k->vg = sl_rowsrc_column(c->src, SL_ROW_VG);
+    k->r = sl_rowsrc_column(c->src, SL_ROW_R);
+    k->id = sl_rowsrc_column(c->src, SL_ROW_ID);
+    k->vd = sl_rowsrc_column(c->src, SL_ROW_VD);
+    k->vcnp = sl_rowsrc_column(c->src, SL_ROW_VCNP);
+    k->temperature = sl_rowsrc_column(c->src, SL_ROW_TEMPERATURE);
+    k->device_type = sl_rowsrc_column(c->src, SL_ROW_DEVICE_TYPE);
+    k->length = sl_rowsrc_column(c->src, SL_ROW_LENGTH);
 }
+
+#define ROWS_IDENTITY                                                                        \
+    (SL_ROW_BIT(SL_ROW_WAFER) | SL_ROW_BIT(SL_ROW_DEVICE) | SL_ROW_BIT(SL_ROW_DIE_X) |       \
+     SL_ROW_BIT(SL_ROW_DIE_Y))
+#define ROWS_DEVICE                                                                          \
+    (SL_ROW_BIT(SL_ROW_TEMPERATURE) | SL_ROW_BIT(SL_ROW_DEVICE_TYPE) |                       \
+     SL_ROW_BIT(SL_ROW_LENGTH) | SL_ROW_BIT(SL_ROW_WIDTH))
 
 static sl_status require_columns(ingest_ctx *c)
 {
-    static const char *const results[] = { "wafer", "device", "die_x", "die_y", "v_cnp_V" };
-    static const char *const sweeps[] = { "wafer", "device", "die_x", "die_y", "vg_V", "r_ohm" };
-    int is_sweeps = c->opt->kind == SL_INGEST_SWEEPS;
-    const char *const *need = is_sweeps ? sweeps : results;
-    size_t n_need = is_sweeps ? 6 : 5;
-    sl_status st = SL_OK;
-    for (size_t i = 0; i < n_need; i++)
-        if (sl_csv_column(c->csv, need[i]) < 0) {
-            sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_csv_line(c->csv), 0,
-                        "missing column '%s' (a %s file needs %s%s)", need[i],
-                        is_sweeps ? "sweeps" : "results",
-                        is_sweeps ? "wafer,device,die_x,die_y,vg_V,r_ohm"
-                                  : "wafer,device,die_x,die_y,v_cnp_V",
-                        !is_sweeps && sl_csv_column(c->csv, "vg_V") >= 0
-                            ? "; this looks like a sweeps file: use --sweeps" : "");
-            st = SL_EINPUT;
-        }
+    sl_row_set need = ROWS_IDENTITY, want = ROWS_IDENTITY | ROWS_DEVICE;
+    const char *needs;
+    if (c->opt->kind == SL_INGEST_SWEEPS) {
+        /* r_ohm, or the drain current at a drain bias */
+        bool by_current = !sl_rowsrc_has(c->src, SL_ROW_R) &&
+                          (sl_rowsrc_has(c->src, SL_ROW_ID) || sl_rowsrc_has(c->src, SL_ROW_VD));
+        need |= SL_ROW_BIT(SL_ROW_VG) |
+                (by_current ? SL_ROW_BIT(SL_ROW_ID) | SL_ROW_BIT(SL_ROW_VD) : SL_ROW_BIT(SL_ROW_R));
+        want |= need | SL_ROW_BIT(SL_ROW_DIRECTION) | SL_ROW_BIT(SL_ROW_COMPLIANCE);
+        needs = "a sweeps file needs wafer, device, die_x, die_y, vg_V and r_ohm or id_A with vd_V";
+    } else {
+        need |= SL_ROW_BIT(SL_ROW_VCNP);
+        want |= need | SL_ROW_BIT(SL_ROW_MOBILITY) | SL_ROW_BIT(SL_ROW_N0) |
+                SL_ROW_BIT(SL_ROW_R_CONTACT) | SL_ROW_BIT(SL_ROW_HYSTERESIS);
+        needs = sl_rowsrc_has(c->src, SL_ROW_VG)
+                    ? "a results file needs wafer, device, die_x, die_y, v_cnp_V; this looks like "
+                      "a sweeps file: use --sweeps"
+                    : "a results file needs wafer, device, die_x, die_y, v_cnp_V";
+    }
+    if (sl_rowsrc_has(c->src, SL_ROW_LENGTH) != sl_rowsrc_has(c->src, SL_ROW_WIDTH))
+        need |= SL_ROW_BIT(SL_ROW_LENGTH) | SL_ROW_BIT(SL_ROW_WIDTH);
+    sl_status st = sl_rowsrc_require(c->src, need, want, needs, c->diag);
     map_columns(c);
+    c->summary->separator = sl_rowsrc_separator(c->src);
+    size_t used = 0;
+    for (size_t i = 0; i < sl_rowsrc_unused_count(c->src); i++) {
+        int n = snprintf(c->summary->unused_columns + used, sizeof c->summary->unused_columns - used,
+                         "%s%s", i ? ", " : "", sl_rowsrc_unused(c->src, i));
+        used += n > 0 ? (size_t)n : 0;
+        if (used >= sizeof c->summary->unused_columns)
+            break;
+    }
     return st;
 }
 
 /* ---- rows ---- */
 
-static sl_status read_die(ingest_ctx *c, long *out, long column, long size, const char *axis)
+static sl_status read_die(ingest_ctx *c, long *out, sl_row_quantity q, long column, long first,
+                          long size, const char *axis)
 {
     double v;
-    sl_status st = sl_csv_number(&v, c->csv, (size_t)column, c->diag);
+    sl_status st = sl_rowsrc_number(&v, c->src, q, c->diag);
     if (st != SL_OK)
         return st;
-    if (v != floor(v) || v < 0 || v >= (double)size) {
-        ingest_error_at_row(c, column, "%s '%s' is not a die index from 0 to %ld (wafer map %ld x %ld)",
-                            axis, sl_csv_field(c->csv, (size_t)column, NULL), size - 1,
-                            c->plan->wafer_rows, c->plan->wafer_cols);
+    if (v != floor(v) || v < (double)first || v > (double)(first + size - 1)) {
+        ingest_error_at_row(c, column,
+                            "%s '%s' is not a die coordinate from %ld to %ld (wafer map %ld x %ld, "
+                            "first_die [%ld, %ld])",
+                            axis, sl_rowsrc_field(c->src, q, NULL), first, first + size - 1,
+                            c->plan->wafer_rows, c->plan->wafer_cols, c->plan->first_die_x,
+                            c->plan->first_die_y);
         return SL_EINPUT;
     }
     *out = (long)v;
@@ -251,12 +278,9 @@ static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
     return SL_OK;
 }
 
-sl_status ingest_optional_number(ingest_ctx *c, double *out, long column)
+sl_status ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q)
 {
-    *out = NAN;
-    if (column < 0 || sl_csv_is_empty(c->csv, (size_t)column))
-        return SL_OK;
-    return sl_csv_number(out, c->csv, (size_t)column, c->diag);
+    return sl_rowsrc_optional(out, c->src, q, c->diag);
 }
 
 /* The row's plan temperature: its temperature_K value, or the default. */
@@ -264,7 +288,7 @@ static sl_status read_temperature(ingest_ctx *c, ingest_row *row)
 {
     double t = NAN;
     row->temperature = c->default_temperature;
-    sl_status st = ingest_optional_number(c, &t, c->col.temperature);
+    sl_status st = ingest_optional_number(c, &t, SL_ROW_TEMPERATURE);
     if (st != SL_OK || isnan(t))
         return st;
     long k = match_temperature(c, t);
@@ -273,35 +297,185 @@ static sl_status read_temperature(ingest_ctx *c, ingest_row *row)
         list_temperatures(allowed, sizeof allowed, c);
         ingest_error_at_row(c, c->col.temperature,
                             "temperature '%s' is not one of the plan's temperatures (%s)",
-                            sl_csv_field(c->csv, (size_t)c->col.temperature, NULL), allowed);
+                            sl_rowsrc_field(c->src, SL_ROW_TEMPERATURE, NULL), allowed);
         return SL_EINPUT;
     }
     row->temperature = (size_t)k;
     return SL_OK;
 }
 
+/* The device's type (a plan device type) and channel: from device_type,
+ * else from channel_length_um and channel_width_um, else the plan's device. */
+static sl_status read_geometry(ingest_ctx *c, ingest_row *row)
+{
+    const sl_plan *p = c->plan;
+    row->device_type = -1;
+    row->channel_length_um = p->channel_length_um;
+    row->channel_width_um = p->channel_width_um;
+    size_t len = 0;
+    const char *type = sl_rowsrc_field(c->src, SL_ROW_DEVICE_TYPE, &len);
+    if (len > 0) {
+        sl_status st = sl_rowsrc_text(&type, &len, c->src, SL_ROW_DEVICE_TYPE,
+                                      SL_INGEST_MAX_NAME_BYTES, c->diag);
+        if (st != SL_OK)
+            return st;
+        row->device_type = sl_plan_device_type_index(p, type);
+        if (row->device_type < 0) {
+            const char *names[64];
+            for (size_t i = 0; i < p->n_device_types && i < 64; i++)
+                names[i] = p->device_types[i].name;
+            const char *near = sl_text_nearest(type, names, p->n_device_types < 64 ? p->n_device_types : 64, 2);
+            ingest_error_at_row(c, c->col.device_type, "unknown device_type '%s'%s%s%s%s", type,
+                                p->n_device_types ? "" : " (the plan has no device_types)",
+                                near ? " (did you mean '" : "", near ? near : "", near ? "'?)" : "");
+            return SL_EINPUT;
+        }
+        row->channel_length_um = p->device_types[row->device_type].channel_length_um;
+        row->channel_width_um = p->device_types[row->device_type].channel_width_um;
+    }
+    double l_um, w_um;
+    sl_status st = ingest_optional_number(c, &l_um, SL_ROW_LENGTH);
+    if (st == SL_OK)
+        st = ingest_optional_number(c, &w_um, SL_ROW_WIDTH);
+    if (st != SL_OK || (isnan(l_um) && isnan(w_um)))
+        return st;
+    if (!(l_um > 0) || !(w_um > 0)) {
+        ingest_error_at_row(c, c->col.length, "channel_length_um and channel_width_um must both "
+                            "be given and positive, got '%s' and '%s'",
+                            sl_rowsrc_field(c->src, SL_ROW_LENGTH, NULL),
+                            sl_rowsrc_field(c->src, SL_ROW_WIDTH, NULL));
+        return SL_EINPUT;
+    }
+    row->channel_length_um = l_um;
+    row->channel_width_um = w_um;
+    return SL_OK;
+}
+
+void ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row)
+{
+    *cfg = c->wafers[row->wafer_index].fit;
+    cfg->length_over_width = row->channel_length_um / row->channel_width_um;
+}
+
+void ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
+                         double *length_um, double *width_um)
+{
+    const sl_plan *p = c->plan;
+    bool own = row->channel_length_um != p->channel_length_um ||
+               row->channel_width_um != p->channel_width_um || row->device_type >= 0;
+    *type = row->device_type >= 0 ? p->device_types[row->device_type].name : NULL;
+    *length_um = own ? row->channel_length_um : NAN;
+    *width_um = own ? row->channel_width_um : NAN;
+}
+
 sl_status ingest_read_row(ingest_ctx *c, ingest_row *row)
 {
     size_t len;
-    sl_status st = sl_csv_text(&row->wafer, &len, c->csv, (size_t)c->col.wafer,
-                               SL_INGEST_MAX_NAME_BYTES, c->diag);
+    sl_status st = sl_rowsrc_text(&row->wafer, &len, c->src, SL_ROW_WAFER,
+                                  SL_INGEST_MAX_NAME_BYTES, c->diag);
     if (st == SL_OK)
-        st = sl_csv_text(&row->device, &len, c->csv, (size_t)c->col.device,
-                         SL_INGEST_MAX_NAME_BYTES, c->diag);
+        st = sl_rowsrc_text(&row->device, &len, c->src, SL_ROW_DEVICE, SL_INGEST_MAX_NAME_BYTES,
+                            c->diag);
     if (st == SL_OK && (!*row->wafer || !*row->device)) {
         ingest_error_at_row(c, *row->wafer ? c->col.device : c->col.wafer,
                             "empty %s name", *row->wafer ? "device" : "wafer");
         return SL_EINPUT;
     }
+    const sl_plan *p = c->plan;
     if (st == SL_OK)
         st = check_wafer(c, row);
     if (st == SL_OK)
-        st = read_die(c, &row->die_x, c->col.die_x, c->plan->wafer_cols, "die_x");
+        st = read_die(c, &row->die_x, SL_ROW_DIE_X, c->col.die_x, p->first_die_x, p->wafer_cols,
+                      "die_x");
     if (st == SL_OK)
-        st = read_die(c, &row->die_y, c->col.die_y, c->plan->wafer_rows, "die_y");
+        st = read_die(c, &row->die_y, SL_ROW_DIE_Y, c->col.die_y, p->first_die_y, p->wafer_rows,
+                      "die_y");
     if (st == SL_OK)
         st = read_temperature(c, row);
+    if (st == SL_OK)
+        st = read_geometry(c, row);
     return st;
+}
+
+/* ---- problems, and rows of rejected devices ---- */
+
+static void flush_errors(ingest_ctx *c, bool all)
+{
+    for (size_t i = 0; i < sl_diag_size(c->diag); i++) {
+        const sl_diag_msg *m = sl_diag_get(c->diag, i);
+        if (m->severity == SL_SEV_ERROR && ++c->n_errors > SL_INGEST_MAX_ERRORS && !all)
+            continue;
+        sl_diag_add(c->user_diag, m->severity, m->file, m->line, m->col, "%s", m->text);
+    }
+    sl_diag_clear(c->diag);
+}
+
+void ingest_flush_errors(ingest_ctx *c) { flush_errors(c, false); }
+
+sl_status ingest_keep_row(ingest_ctx *c)
+{
+    if (!c->rejects)
+        return SL_OK;
+    return sl_rowsrc_format(&c->reject_buf, &c->reject_len, &c->reject_cap, c->src, 1, NULL) == 0
+               ? SL_OK
+               : SL_ENOMEM;
+}
+
+void ingest_forget_kept(ingest_ctx *c) { c->reject_len = 0; }
+
+/* Each line of rows (as the file had them) with the reason as one more
+ * field, into the rejects file; the device counted as rejected. */
+sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason)
+{
+    c->summary->rejected_devices++;
+    if (!c->rejects)
+        return SL_OK;
+    char sep = sl_rowsrc_separator(c->src);
+    size_t quoted_cap = 2 * strlen(reason) + 3;
+    char *quoted = malloc(quoted_cap);
+    if (!quoted)
+        return SL_ENOMEM;
+    size_t q = 0;
+    quoted[q++] = '"';
+    for (const char *r = reason; *r; r++) {
+        if (*r == '"')
+            quoted[q++] = '"';
+        quoted[q++] = *r == '\n' || *r == '\r' ? ' ' : *r;
+    }
+    quoted[q++] = '"';
+    int ok = 1;
+    for (size_t at = 0; ok && at < len;) {
+        const char *nl = memchr(rows + at, '\n', len - at);
+        size_t n = nl ? (size_t)(nl - (rows + at)) : len - at;
+        ok = fwrite(rows + at, 1, n, c->rejects) == n && fputc(sep, c->rejects) != EOF &&
+             fwrite(quoted, 1, q, c->rejects) == q && fputc('\n', c->rejects) != EOF;
+        c->summary->rejected_rows += ok;
+        at += n + 1;
+    }
+    free(quoted);
+    if (!ok) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->opt->rejects_path, 0, 0, "cannot write the rejects file");
+        return SL_EIO;
+    }
+    return SL_OK;
+}
+
+sl_status ingest_reject_kept(ingest_ctx *c, const char *reason)
+{
+    sl_status st = ingest_reject_rows(c, c->reject_buf, c->reject_len, reason);
+    c->reject_len = 0;
+    return st;
+}
+
+/* The first error message of the current problem, as a reason. */
+const char *ingest_current_reason(const ingest_ctx *c)
+{
+    for (size_t i = 0; i < sl_diag_size(c->diag); i++) {
+        const sl_diag_msg *m = sl_diag_get(c->diag, i);
+        if (m->severity == SL_SEV_ERROR)
+            return m->text;
+    }
+    return "rejected";
 }
 
 /* ---- device results ---- */
@@ -318,7 +492,7 @@ static sl_status refused_row(ingest_ctx *c, const ingest_row *row, const sl_stor
         return SL_EINPUT;
     }
     const long here[2] = { row->die_x, row->die_y };
-    return ingest_die_moved(c, c->diag, sl_csv_line(c->csv), row->device, row->wafer, here, ins);
+    return ingest_die_moved(c, c->diag, sl_rowsrc_line(c->src), row->device, row->wafer, here, ins);
 }
 
 static sl_status results_row(ingest_ctx *c)
@@ -335,11 +509,14 @@ static sl_status results_row(ingest_ctx *c)
     dev.die_x = row.die_x;
     dev.die_y = row.die_y;
     dev.source = "results";
-    dev.source_line = sl_csv_line(c->csv);
-    double *numbers[] = { &dev.cnp_V, &dev.mobility_cm2_per_Vs, &dev.n0_per_cm2, &dev.r_contact_ohm };
-    long columns[] = { c->col.vcnp, c->col.mobility, c->col.n0, c->col.r_contact };
-    for (int i = 0; st == SL_OK && i < 4; i++)
-        st = ingest_optional_number(c, numbers[i], columns[i]);
+    dev.source_line = sl_rowsrc_line(c->src);
+    ingest_row_geometry(c, &row, &dev.device_type, &dev.channel_length_um, &dev.channel_width_um);
+    double *numbers[] = { &dev.cnp_V, &dev.mobility_cm2_per_Vs, &dev.n0_per_cm2,
+                          &dev.r_contact_ohm, &dev.hysteresis_V };
+    const sl_row_quantity quantities[] = { SL_ROW_VCNP, SL_ROW_MOBILITY, SL_ROW_N0,
+                                           SL_ROW_R_CONTACT, SL_ROW_HYSTERESIS };
+    for (int i = 0; st == SL_OK && i < 5; i++)
+        st = ingest_optional_number(c, numbers[i], quantities[i]);
     if (st != SL_OK)
         return st;
     dev.fit_class = isnan(dev.cnp_V) ? "unmeasured" : "ok";
@@ -350,6 +527,18 @@ static sl_status results_row(ingest_ctx *c)
         st = refused_row(c, &row, &ins);
     c->summary->unmeasured += st == SL_OK && isnan(dev.cnp_V);
     c->summary->devices += st == SL_OK;
+    c->summary->hysteresis_flagged += st == SL_OK &&
+                                      fabs(dev.hysteresis_V) > c->plan->max_hysteresis_V;
+    return st;
+}
+
+/* A row with a problem: reported, its device rejected, reading goes on. */
+static sl_status results_problem(ingest_ctx *c)
+{
+    sl_status st = ingest_keep_row(c);
+    if (st == SL_OK)
+        st = ingest_reject_kept(c, ingest_current_reason(c));
+    ingest_flush_errors(c);
     return st;
 }
 
@@ -357,9 +546,11 @@ static sl_status ingest_results(ingest_ctx *c)
 {
     bool has = false;
     sl_status st;
-    while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
+    while ((st = sl_rowsrc_next(&has, c->src, c->diag)) == SL_OK && has) {
         c->summary->rows++;
         st = results_row(c);
+        if (st == SL_EINPUT)
+            st = results_problem(c);
         if (st != SL_OK)
             return st;
         if ((c->summary->rows & 0xffff) == 0)
@@ -411,9 +602,43 @@ static sl_status finish_runs(ingest_ctx *c)
     return st;
 }
 
+static sl_status open_rejects(ingest_ctx *c)
+{
+    if (!c->opt->keep_going || !c->opt->rejects_path)
+        return SL_OK;
+    c->rejects = fopen(c->opt->rejects_path, "w");
+    if (!c->rejects) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->opt->rejects_path, 0, 0,
+                    "cannot open the rejects file for writing");
+        return SL_EIO;
+    }
+    sl_status st = sl_rowsrc_format(&c->reject_buf, &c->reject_len, &c->reject_cap, c->src, 0,
+                                    "reason") == 0 ? SL_OK : SL_ENOMEM;
+    if (st == SL_OK && fwrite(c->reject_buf, 1, c->reject_len, c->rejects) != c->reject_len)
+        st = SL_EIO;
+    c->reject_len = 0;
+    return st;
+}
+
+/* Everything on disk before the store commits: a full disk fails the import. */
+static sl_status close_rejects(ingest_ctx *c)
+{
+    FILE *f = c->rejects;
+    c->rejects = NULL;
+    int bad = fflush(f) != 0 || ferror(f) || fsync(fileno(f)) != 0;
+    bad |= fclose(f) != 0;
+    if (!bad)
+        return SL_OK;
+    sl_diag_add(c->diag, SL_SEV_ERROR, c->opt->rejects_path, 0, 0,
+                "cannot write the rejects file; nothing was imported");
+    return SL_EIO;
+}
+
 static sl_status import_body(ingest_ctx *c)
 {
     sl_status st = require_columns(c);
+    if (st == SL_OK)
+        st = open_rejects(c);
     if (st == SL_OK)
         st = sl_store_begin_lot_inserts(c->store, c->lot.lot_id, c->diag);
     if (st == SL_OK)
@@ -421,10 +646,16 @@ static sl_status import_body(ingest_ctx *c)
     if (st == SL_OK)
         st = c->opt->kind == SL_INGEST_SWEEPS ? ingest_sweeps(c) : ingest_results(c);
     if (st == SL_OK && c->summary->rows == 0) {
-        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_csv_line(c->csv), 0,
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_rowsrc_line(c->src), 0,
                     "the file has a header but no data rows");
         st = SL_EINPUT;
     }
+    if (st == SL_OK || st == SL_EINPUT)
+        ingest_flush_errors(c); /* any other failure is said past the limit */
+    if (st == SL_OK && c->n_errors > 0 && !c->opt->keep_going)
+        st = SL_EINPUT; /* every problem reported; nothing of the file kept */
+    if (st == SL_OK && c->rejects)
+        st = close_rejects(c);
     if (st == SL_OK)
         st = finish_runs(c);
     return st;
@@ -432,7 +663,10 @@ static sl_status import_body(ingest_ctx *c)
 
 static void ctx_free(ingest_ctx *c)
 {
-    sl_csv_free(c->csv);
+    sl_rowsrc_free(c->src);
+    free(c->reject_buf);
+    if (c->rejects)
+        fclose(c->rejects);
     ingest_hasher_free(c->hasher, NULL);
     ingest_batch_free(c->batch);
     free(c->wafers);
@@ -455,24 +689,45 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
                         const sl_ingest_options *options, sl_diag *diag)
 {
     memset(out, 0, sizeof *out);
-    ingest_ctx c = { .store = store, .diag = diag, .opt = options, .summary = out,
-                     .started_s = ingest_now_s() };
+    size_t errors_before = sl_diag_count(diag, SL_SEV_ERROR);
+    sl_diag *scratch = sl_diag_new();
+    if (!scratch) {
+        sl_diag_error(diag, "out of memory");
+        return SL_ENOMEM;
+    }
+    ingest_ctx c = { .store = store, .diag = scratch, .user_diag = diag, .opt = options,
+                     .summary = out, .started_s = ingest_now_s() };
     c.file = strcmp(options->path, "-") == 0 ? "<stdin>" : options->path;
-    sl_status st = sl_store_begin(store, diag);
+    sl_status st = sl_store_begin(store, c.diag);
     if (st == SL_OK)
         st = load_lot(&c);
     if (st == SL_OK && !(c.hasher = ingest_hasher_new()))
         st = SL_ENOMEM;
     if (st == SL_OK)
-        st = sl_csv_open_tapped(&c.csv, options->path, hash_bytes, &c, diag);
+        st = sl_rowsrc_open_tapped(&c.src, options->path, options->columns, hash_bytes, &c,
+                                   c.diag);
     if (st == SL_OK)
         st = import_body(&c);
     if (st == SL_OK)
-        st = sl_store_commit(store, diag);
+        st = sl_store_commit(store, c.diag);
     else
         sl_store_rollback(store);
+    if (st != SL_OK && c.rejects) {
+        fclose(c.rejects);
+        c.rejects = NULL;
+        remove(options->rejects_path); /* no rejects file of an import that did not happen */
+    }
     ingest_progress(&c);
+    /* what stopped an import other than its rows (the disk, the store) is
+     * always said, past the limit too */
+    flush_errors(&c, st != SL_OK && st != SL_EINPUT);
+    long shown = (long)(sl_diag_count(diag, SL_SEV_ERROR) - errors_before);
+    if (c.n_errors > shown) /* after the rest, at the last line read */
+        sl_diag_add(diag, SL_SEV_ERROR, c.file, c.src ? sl_rowsrc_line(c.src) : 0, 0,
+                    "%ld more problems not shown (%ld in all)", c.n_errors - shown, c.n_errors);
+    out->errors = c.n_errors;
     ctx_free(&c);
+    sl_diag_free(scratch);
     out->seconds = ingest_now_s() - c.started_s;
     return st;
 }

@@ -9,17 +9,19 @@
 #include <pthread.h>
 #include <stdbool.h>
 
-#include "splitlot/csv.h"
 #include "splitlot/fit.h"
 #include "splitlot/ingest.h"
 #include "splitlot/layout.h"
 #include "splitlot/plan.h"
+#include "splitlot/rowsrc.h"
 #include "splitlot/store.h"
 #include "sha256.h"
 
 #define SL_INGEST_MAX_NAME_BYTES 64
 #define SL_INGEST_MAX_POINTS 100000
 #define SL_INGEST_BATCH_DEVICES 256
+/* Problems reported one by one per file; the rest are counted. */
+#define SL_INGEST_MAX_ERRORS 20
 
 /* What the store says about one wafer of the lot's plan. */
 typedef struct {
@@ -27,17 +29,19 @@ typedef struct {
     sl_fit_config fit;       /* the stored gate capacitance of its split */
 } ingest_wafer;
 
-/* Columns of the file, -1 when absent. */
+/* Columns of the file (0-based, for messages), -1 when absent. */
 typedef struct {
-    long wafer, device, die_x, die_y, vg, r, vcnp, mobility, n0, r_contact, temperature;
+    long wafer, device, die_x, die_y, vg, r, id, vd, vcnp, temperature, device_type, length;
 } ingest_columns;
 
 /* One row's device identity, checked. */
 typedef struct {
     const char *wafer, *device;
     size_t wafer_index;
-    long die_x, die_y;
-    size_t temperature;      /* index into the plan's temperatures */
+    long die_x, die_y;           /* as the prober wrote them */
+    size_t temperature;          /* index into the plan's temperatures */
+    long device_type;            /* plan device type, -1 for none */
+    double channel_length_um, channel_width_um; /* the device's own channel */
 } ingest_row;
 
 typedef struct ingest_batch ingest_batch;
@@ -65,8 +69,13 @@ typedef struct {
     long first_run_id;       /* this import's runs have ids from this on */
     ingest_hasher *hasher;   /* the file's SHA-256 as it is read */
     int hash_failed;         /* a block could not be handed over */
-    sl_csv *csv;
+    sl_rowsrc *src;
     const char *file;        /* name for messages */
+    sl_diag *user_diag;      /* the caller's: at most SL_INGEST_MAX_ERRORS errors */
+    long n_errors;           /* problems found in the file */
+    FILE *rejects;           /* --keep-going --rejects: rows of rejected devices */
+    char *reject_buf;        /* rows of the device being read (with rejects) */
+    size_t reject_len, reject_cap;
     ingest_columns col;
     sl_ingest_summary *summary;
     double started_s;
@@ -85,8 +94,27 @@ void ingest_density_free(ingest_density *list);
 
 /* Parse and check the identity columns of the current row. */
 sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);
-/* An optional numeric column: NaN when absent or empty. */
-sl_status ingest_optional_number(ingest_ctx *c, double *out, long column);
+/* An optional quantity in SI: NaN when absent or empty. */
+sl_status ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q);
+/* The fit configuration of a device: its wafer's gate with its own channel. */
+void ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row);
+/* The store's device type and channel of a row: NULL and NaN when the row
+ * gives the plan's device. */
+void ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
+                         double *length_um, double *width_um);
+/* Move the messages found so far to the caller's diagnostics, the first
+ * SL_INGEST_MAX_ERRORS errors of the file in full, later ones counted. */
+void ingest_flush_errors(ingest_ctx *c);
+/* With --rejects: keep the current row's text for the device being read;
+ * write the kept rows with reason (the first message of the device's
+ * problems) and forget them. */
+sl_status ingest_keep_row(ingest_ctx *c);
+sl_status ingest_reject_kept(ingest_ctx *c, const char *reason);
+/* The same for rows kept elsewhere (len bytes of lines). */
+sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason);
+void ingest_forget_kept(ingest_ctx *c);
+/* The first error message found for the current row, as a reason. */
+const char *ingest_current_reason(const ingest_ctx *c);
 /* Report progress every so many rows. */
 void ingest_progress(ingest_ctx *c);
 double ingest_now_s(void);

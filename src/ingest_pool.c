@@ -5,6 +5,7 @@
  */
 #include "ingest_pool.h"
 
+#include <math.h>
 #include <pthread.h>
 #include <stdatomic.h>
 #include <stdlib.h>
@@ -18,6 +19,8 @@ void fit_batch_free(fit_batch *b)
     free(b->items);
     free(b->vg);
     free(b->r);
+    free(b->dir);
+    free(b->text);
     memset(b, 0, sizeof *b);
 }
 
@@ -25,6 +28,27 @@ void fit_batch_clear(fit_batch *b)
 {
     b->n_items = 0;
     b->n_points = 0;
+    b->text_len = 0;
+}
+
+int fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t len)
+{
+    if (b->text_len + len > b->text_cap) {
+        size_t cap = b->text_cap ? b->text_cap : 65536;
+        while (cap < b->text_len + len)
+            cap *= 2;
+        char *grown = realloc(b->text, cap);
+        if (!grown)
+            return -1;
+        b->text = grown;
+        b->text_cap = cap;
+    }
+    if (len)
+        memcpy(b->text + b->text_len, text, len);
+    item->text_off = b->text_len;
+    item->text_len = len;
+    b->text_len += len;
+    return 0;
 }
 
 int fit_batch_reserve_points(fit_batch *b, size_t need)
@@ -38,9 +62,12 @@ int fit_batch_reserve_points(fit_batch *b, size_t need)
     if (vg)
         b->vg = vg;
     double *r = vg ? realloc(b->r, cap * sizeof *r) : NULL;
-    if (!vg || !r)
+    if (r)
+        b->r = r;
+    signed char *dir = r ? realloc(b->dir, cap * sizeof *dir) : NULL;
+    if (!vg || !r || !dir)
         return -1;
-    b->r = r;
+    b->dir = dir;
     b->cap_points = cap;
     return 0;
 }
@@ -81,13 +108,38 @@ struct fit_pool {
 
 static void fit_pool_wait(fit_pool *p);
 
+/* A device whose readings were mostly the meter's overflow code: open. */
+static void open_result(sl_fit_result *r, size_t n_points)
+{
+    const double nan = NAN;
+    const sl_fit_params none = { nan, nan, nan, nan };
+    const sl_est no_est = { nan, nan };
+    *r = (sl_fit_result){ .cls = SL_FIT_OPEN, .p = none, .sigma = none,
+                          .electron_mobility_cm2_per_Vs = no_est,
+                          .hole_mobility_cm2_per_Vs = no_est,
+                          .electron_hole_mobility_ratio = no_est, .rel_rms = nan,
+                          .r_squared = nan, .n_points = n_points };
+}
+
 static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
 {
+    it->hysteresis_V = NAN;
+    it->is_double = 0;
+    if (it->open_by_overflow) {
+        open_result(&it->result, it->n);
+        it->status = SL_OK;
+        return;
+    }
     if (it->n < SL_FIT_MIN_POINTS) {
         it->status = SL_EINPUT; /* rows may still come further down the file */
         return;
     }
-    it->status = sl_fit_sweep(&it->result, ws, it->cfg, b->vg + it->offset, b->r + it->offset, it->n);
+    sl_fit_double_result d;
+    it->status = sl_fit_double_sweep(&d, ws, &it->cfg, b->vg + it->offset, b->r + it->offset,
+                                     it->has_direction ? b->dir + it->offset : NULL, it->n);
+    it->result = d.device;
+    it->is_double = d.is_double;
+    it->hysteresis_V = d.hysteresis_V;
 }
 
 static void work_on(fit_pool *p, fit_batch *b, sl_fit_workspace *ws)

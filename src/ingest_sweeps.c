@@ -40,8 +40,18 @@ struct ingest_batch {
      * does again once drain_all has seen every buffer written */
     int write_failed;        /* the writer's: later buffers are skipped */
     int reported;            /* a writer failure is already in the diagnostics */
+    /* what the file gives for a point */
+    int by_current, has_direction, has_compliance;
     /* the run being read (in buf[filling]) and its device */
     int in_run;
+    int run_bad;             /* a problem in its rows: the device is rejected */
+    int run_identity_bad;    /* the problem is its identity: rows not read */
+    char run_reason[512];
+    long run_overflow, run_compliance;
+    sl_fit_config run_cfg;
+    const char *run_type;    /* the store's device type and channel (NULL, NaN:
+                                the plan's device) */
+    double run_length_um, run_width_um;
     size_t run_offset, run_wafer_index;
     long run_first_line, run_x, run_y;
     size_t run_temperature;  /* index into the plan's temperatures */
@@ -198,7 +208,12 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     dev.r_ohm = b->r + it->offset;
     dev.n_points = it->n;
     dev.source_line = it->first_line;
-    result_to_device(&dev, &it->result, it->status, it->cfg);
+    dev.device_type = it->device_type;
+    dev.channel_length_um = it->channel_length_um;
+    dev.channel_width_um = it->channel_width_um;
+    dev.hysteresis_V = it->hysteresis_V;
+    dev.points_dropped = it->overflow + it->compliance;
+    result_to_device(&dev, &it->result, it->status, &it->cfg);
     sl_store_insert ins;
     sl_status st = sl_store_insert_measurement(c->store, &ins, c->lot.lot_id, it->run_id, &dev,
                                                b->diag);
@@ -207,7 +222,9 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     it->measurement_id = ins.measurement_id;
     if (ins.outcome == SL_STORE_DIE_DIFFERS) {
         const long here[2] = { it->die_x, it->die_y };
-        return ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
+        st = ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
+        it->rejected = c->opt->keep_going; /* left out, the rest goes on */
+        return it->rejected ? SL_OK : st;
     }
     if (ins.outcome == SL_STORE_IN_RUN)
         return sl_store_stage_points(c->store, ins.measurement_id, b->vg + it->offset,
@@ -250,6 +267,37 @@ static void set_state(ingest_batch *b, int i, buffer_state st)
     pthread_mutex_unlock(&b->lock);
 }
 
+/* What the summary says of a device besides its class. */
+static void count_item(ingest_ctx *c, const fit_item *it)
+{
+    sl_ingest_summary *s = c->summary;
+    s->points_overflow += it->overflow;
+    s->devices_with_overflow += it->overflow > 0;
+    s->points_compliance += it->compliance;
+    s->double_sweeps += it->is_double;
+    s->hysteresis_flagged += fabs(it->hysteresis_V) > c->plan->max_hysteresis_V;
+}
+
+/* --keep-going: the devices the writer left out (one message each, in
+ * order) are reported and their rows go to the rejects file. */
+static sl_status reject_left_out(ingest_ctx *c, fit_batch *done)
+{
+    size_t message = 0;
+    sl_status st = SL_OK;
+    for (size_t k = 0; st == SL_OK && k < done->n_items; k++) {
+        const fit_item *it = &done->items[k];
+        if (!it->rejected)
+            continue;
+        const sl_diag_msg *m = message < sl_diag_size(done->diag)
+                                   ? sl_diag_get(done->diag, message++) : NULL;
+        st = ingest_reject_rows(c, done->text ? done->text + it->text_off : "", it->text_len,
+                                m ? m->text : "rejected");
+    }
+    take_messages(c->diag, done->diag);
+    ingest_flush_errors(c);
+    return st;
+}
+
 /* Wait until the oldest submitted buffer is written, then count its devices
  * for the progress report and free the buffer. */
 static sl_status drain_oldest(ingest_ctx *c)
@@ -265,9 +313,14 @@ static sl_status drain_oldest(ingest_ctx *c)
     if (st != SL_OK && !b->reported) /* the first failure says what went wrong */
         take_messages(c->diag, done->diag);
     b->reported |= st != SL_OK;
+    if (st == SL_OK)
+        st = reject_left_out(c, done);
     sl_diag_clear(done->diag);
     if (st == SL_OK)
         c->summary->devices += (long)done->n_items; /* exact once the import ends */
+    for (size_t k = 0; st == SL_OK && k < done->n_items; k++)
+        if (!done->items[k].rejected)
+            count_item(c, &done->items[k]);
     fit_batch_clear(done);
     set_state(b, i, BUF_FREE);
     b->oldest = (i + 1) % SL_INGEST_BUFFERS;
@@ -325,17 +378,36 @@ static sl_status end_run(ingest_ctx *c)
         return SL_OK;
     b->in_run = 0;
     fit_batch *f = &b->buf[b->filling];
+    if (b->run_bad) {
+        b->run_bad = b->run_identity_bad = 0;
+        f->n_points = b->run_offset; /* none of its points is kept */
+        return ingest_reject_kept(c, b->run_reason);
+    }
     sl_status st = SL_OK;
     const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index,
                                               c->plan->temperatures_K[b->run_temperature], &st);
     if (!cfg)
         return st;
-    fit_item item = { .offset = b->run_offset, .n = f->n_points - b->run_offset, .cfg = cfg,
+    size_t n = f->n_points - b->run_offset;
+    fit_item item = { .offset = b->run_offset, .n = n, .cfg = *cfg,
+                      .has_direction = b->has_direction,
+                      .overflow = b->run_overflow, .compliance = b->run_compliance,
+                      .device_type = b->run_type, .channel_length_um = b->run_length_um,
+                      .channel_width_um = b->run_width_um,
                       .run_id = c->run_ids[b->run_temperature], .die_x = b->run_x,
                       .die_y = b->run_y, .first_line = b->run_first_line };
+    /* the gate and temperature's, with the device's own channel */
+    item.cfg.length_over_width = b->run_cfg.length_over_width;
+    /* an open device reads the overflow code most of the time: it is open,
+     * not a sweep too short to fit */
+    item.open_by_overflow = n < SL_FIT_MIN_POINTS && b->run_overflow > 0 &&
+                            n + (size_t)b->run_overflow >= SL_FIT_MIN_POINTS;
     snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
     snprintf(item.name, sizeof item.name, "%s", b->run_name);
-    if (fit_batch_push(f, &item) != 0)
+    /* its rows stay with it until stored: the store may still refuse it */
+    int fail = c->rejects && fit_batch_push_text(f, &item, c->reject_buf, c->reject_len) != 0;
+    ingest_forget_kept(c);
+    if (fail || fit_batch_push(f, &item) != 0)
         return SL_ENOMEM;
     return f->n_items >= SL_INGEST_BATCH_DEVICES ? rotate(c) : SL_OK;
 }
@@ -347,7 +419,7 @@ static sl_status check_same_die(ingest_ctx *c, const ingest_row *row)
     if (b->run_x == row->die_x && b->run_y == row->die_y)
         return SL_OK;
     const long here[2] = { row->die_x, row->die_y }, before[2] = { b->run_x, b->run_y };
-    return die_moved(c, c->diag, sl_csv_line(c->csv), row->device, row->wafer, here, before,
+    return die_moved(c, c->diag, sl_rowsrc_line(c->src), row->device, row->wafer, here, before,
                      b->run_first_line);
 }
 
@@ -361,33 +433,44 @@ static size_t remember(char *dst, size_t size, const char *text)
     return n < size ? n : (size_t)-1;
 }
 
-static sl_status start_run(ingest_ctx *c, const ingest_row *row)
+/* A run's identity as written, for the fast comparison of the rows after. */
+static void remember_identity(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
     b->in_run = 1;
-    b->run_first_line = sl_csv_line(c->csv);
+    b->run_first_line = sl_rowsrc_line(c->src);
+    b->run_offset = b->buf[b->filling].n_points;
+    b->run_overflow = b->run_compliance = 0;
+    b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer,
+                                sl_rowsrc_field(c->src, SL_ROW_WAFER, NULL));
+    b->run_name_len = remember(b->run_name, sizeof b->run_name,
+                               sl_rowsrc_field(c->src, SL_ROW_DEVICE, NULL));
+    b->run_die_x_len = remember(b->run_die_x, sizeof b->run_die_x,
+                                sl_rowsrc_field(c->src, SL_ROW_DIE_X, NULL));
+    b->run_die_y_len = remember(b->run_die_y, sizeof b->run_die_y,
+                                sl_rowsrc_field(c->src, SL_ROW_DIE_Y, NULL));
+    b->run_t_len = remember(b->run_t, sizeof b->run_t,
+                            sl_rowsrc_field(c->src, SL_ROW_TEMPERATURE, NULL));
+}
+
+static sl_status start_run(ingest_ctx *c, const ingest_row *row)
+{
+    ingest_batch *b = c->batch;
+    remember_identity(c);
     b->run_x = row->die_x;
     b->run_y = row->die_y;
     b->run_wafer_index = row->wafer_index;
     b->run_temperature = row->temperature;
-    b->run_offset = b->buf[b->filling].n_points;
-    b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer, row->wafer);
-    b->run_name_len = remember(b->run_name, sizeof b->run_name, row->device);
-    b->run_die_x_len = remember(b->run_die_x, sizeof b->run_die_x,
-                                sl_csv_field(c->csv, (size_t)c->col.die_x, NULL));
-    b->run_die_y_len = remember(b->run_die_y, sizeof b->run_die_y,
-                                sl_csv_field(c->csv, (size_t)c->col.die_y, NULL));
-    if (c->col.temperature >= 0)
-        b->run_t_len = remember(b->run_t, sizeof b->run_t,
-                                sl_csv_field(c->csv, (size_t)c->col.temperature, NULL));
+    ingest_device_fit(c, &b->run_cfg, row);
+    ingest_row_geometry(c, row, &b->run_type, &b->run_length_um, &b->run_width_um);
     return SL_OK;
 }
 
 /* Same device as the run, with the same die text: the fast path of a row. */
-static bool field_is(const ingest_ctx *c, long column, const char *text, size_t len)
+static bool field_is(const ingest_ctx *c, sl_row_quantity q, const char *text, size_t len)
 {
     size_t n;
-    const char *f = sl_csv_field(c->csv, (size_t)column, &n);
+    const char *f = sl_rowsrc_field(c->src, q, &n);
     if (n != len)
         return false;
     /* names and die indices are a few bytes: a plain loop, not a call to
@@ -401,43 +484,141 @@ static bool field_is(const ingest_ctx *c, long column, const char *text, size_t 
 static bool continues_run(const ingest_ctx *c)
 {
     const ingest_batch *b = c->batch;
-    return b->in_run && field_is(c, c->col.device, b->run_name, b->run_name_len) &&
-           field_is(c, c->col.wafer, b->run_wafer, b->run_wafer_len) &&
-           field_is(c, c->col.die_x, b->run_die_x, b->run_die_x_len) &&
-           field_is(c, c->col.die_y, b->run_die_y, b->run_die_y_len) &&
-           (c->col.temperature < 0 || field_is(c, c->col.temperature, b->run_t, b->run_t_len));
+    return b->in_run && field_is(c, SL_ROW_DEVICE, b->run_name, b->run_name_len) &&
+           field_is(c, SL_ROW_WAFER, b->run_wafer, b->run_wafer_len) &&
+           field_is(c, SL_ROW_DIE_X, b->run_die_x, b->run_die_x_len) &&
+           field_is(c, SL_ROW_DIE_Y, b->run_die_y, b->run_die_y_len) &&
+           field_is(c, SL_ROW_TEMPERATURE, b->run_t, b->run_t_len);
+}
+
+/* A problem in the run's rows (its message is in c->diag): the device is
+ * rejected, its points dropped; the row is kept for the rejects file. */
+static sl_status run_problem(ingest_ctx *c)
+{
+    ingest_batch *b = c->batch;
+    if (!b->run_bad) {
+        b->run_bad = 1;
+        snprintf(b->run_reason, sizeof b->run_reason, "%s", ingest_current_reason(c));
+        b->buf[b->filling].n_points = b->run_offset;
+    }
+    sl_status st = ingest_keep_row(c);
+    ingest_flush_errors(c);
+    return st;
+}
+
+/* One point into the batch, in SI; overflow and compliance points are
+ * counted and left out. */
+static sl_status read_point(ingest_ctx *c, fit_batch *f)
+{
+    ingest_batch *b = c->batch;
+    double vg, r, id, vd;
+    sl_status st = sl_rowsrc_number(&vg, c->src, SL_ROW_VG, c->diag);
+    if (st != SL_OK)
+        return st;
+    bool overflow = sl_rowsrc_is_overflow(c->src, SL_ROW_VG, vg);
+    if (b->by_current) {
+        st = sl_rowsrc_number(&id, c->src, SL_ROW_ID, c->diag);
+        if (st == SL_OK)
+            st = sl_rowsrc_number_repeated(&vd, c->src, SL_ROW_VD, c->diag);
+        if (st != SL_OK)
+            return st;
+        overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_ID, id) ||
+                    sl_rowsrc_is_overflow(c->src, SL_ROW_VD, vd);
+        /* R = V_d / I_d; the sign of a current depends on the meter's
+         * convention, the channel's resistance does not (common practice) */
+        r = fabs(vd / id);
+    } else {
+        st = sl_rowsrc_number(&r, c->src, SL_ROW_R, c->diag);
+        if (st != SL_OK)
+            return st;
+        overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_R, r);
+    }
+    int dir = 0;
+    bool at_compliance = false;
+    if (b->has_compliance && (st = sl_rowsrc_flag(&at_compliance, c->src, SL_ROW_COMPLIANCE,
+                                                  c->diag)) != SL_OK)
+        return st;
+    if (b->has_direction && (st = sl_rowsrc_direction(&dir, c->src, c->diag)) != SL_OK)
+        return st;
+    if (at_compliance || overflow) {
+        b->run_compliance += at_compliance;
+        b->run_overflow += !at_compliance;
+        return SL_OK;
+    }
+    size_t k = f->n_points++;
+    f->vg[k] = vg;
+    f->r[k] = r;
+    f->dir[k] = (signed char)dir;
+    return SL_OK;
+}
+
+/* A row whose identity does not read: the rows after it with the same text
+ * belong to the same rejected device. */
+static sl_status identity_problem(ingest_ctx *c)
+{
+    sl_status st = end_run(c);
+    if (st != SL_OK)
+        return st;
+    remember_identity(c);
+    c->batch->run_identity_bad = 1;
+    return run_problem(c);
+}
+
+/* The first row of a run, or a row of the run's device written differently;
+ * *reported when the row had a problem (reported and kept already). */
+static sl_status next_row_of_run(ingest_ctx *c, bool *reported)
+{
+    ingest_batch *b = c->batch;
+    ingest_row row;
+    *reported = false;
+    sl_status st = ingest_read_row(c, &row);
+    if (st == SL_EINPUT) {
+        *reported = true;
+        return identity_problem(c);
+    }
+    if (st != SL_OK)
+        return st;
+    /* the same device at another temperature is a run of its own */
+    if (b->in_run && !b->run_identity_bad && strcmp(row.device, b->run_name) == 0 &&
+        strcmp(row.wafer, b->run_wafer) == 0 && row.temperature == b->run_temperature) {
+        if (b->run_bad)
+            return SL_OK; /* rejected already: one message for the device */
+        st = check_same_die(c, &row);
+        *reported = st == SL_EINPUT;
+        return *reported ? run_problem(c) : st;
+    }
+    st = end_run(c);
+    return st == SL_OK ? start_run(c, &row) : st;
 }
 
 static sl_status sweep_row(ingest_ctx *c)
 {
     ingest_batch *b = c->batch;
-    sl_status st = SL_OK;
     if (!continues_run(c)) {
-        ingest_row row;
-        st = ingest_read_row(c, &row);
-        /* the same device at another temperature is a run of its own */
-        if (st == SL_OK && b->in_run && strcmp(row.device, b->run_name) == 0 &&
-            strcmp(row.wafer, b->run_wafer) == 0 && row.temperature == b->run_temperature)
-            st = check_same_die(c, &row);
-        else if (st == SL_OK && (st = end_run(c)) == SL_OK)
-            st = start_run(c, &row);
-        if (st != SL_OK)
+        bool reported = false;
+        sl_status st = next_row_of_run(c, &reported);
+        if (st != SL_OK || reported)
             return st;
     }
+    if (b->run_identity_bad)
+        return ingest_keep_row(c);
     c->run_rows[b->run_temperature]++;
     fit_batch *f = &b->buf[b->filling];
-    if (f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
+    if (!b->run_bad && f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
         ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
                             SL_INGEST_MAX_POINTS);
-        return SL_EINPUT;
+        return run_problem(c);
     }
     if (fit_batch_reserve_points(f, f->n_points + 1) != 0)
         return SL_ENOMEM;
-    st = sl_csv_number(&f->vg[f->n_points], c->csv, (size_t)c->col.vg, c->diag);
-    if (st == SL_OK)
-        st = sl_csv_number(&f->r[f->n_points], c->csv, (size_t)c->col.r, c->diag);
-    f->n_points += st == SL_OK;
-    return st;
+    sl_status st = read_point(c, f);
+    if (st == SL_EINPUT)
+        return run_problem(c);
+    if (st != SL_OK)
+        return st;
+    if (b->run_bad)
+        f->n_points = b->run_offset; /* its values are checked, never kept */
+    return ingest_keep_row(c);       /* for the rejects file, if any */
 }
 
 /* ---- devices with rows in several places or too few points so far ---- */
@@ -508,6 +689,8 @@ static sl_status check_gathered(ingest_ctx *c, const sl_store_import_device *d, 
 
 static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
 {
+    /* rows of the device in several places: the wafer's gate and the plan's
+     * channel (the device's own channel is known only while its rows are read) */
     sl_status cfg_st;
     const sl_fit_config *cfg = wafer_fit(c, d->wafer, d->run_id, &cfg_st);
     if (!cfg && cfg_st != SL_OK)
@@ -521,11 +704,15 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
     sl_status st = gather_points(c, &vg, &r, &n, d->id);
     if (st == SL_OK)
         st = check_gathered(c, d, n);
+    sl_fit_double_result both = { 0 };
     sl_fit_result res = { 0 };
     sl_status fit_st = SL_EINPUT;
     if (st == SL_OK) {
+        /* the turn of the gate tells a double sweep here: a direction
+         * column is not kept with the staged rows */
         sl_fit_workspace *ws = sl_fit_workspace_new(n);
-        fit_st = ws ? sl_fit_sweep(&res, ws, cfg, vg, r, n) : SL_ENOMEM;
+        fit_st = ws ? sl_fit_double_sweep(&both, ws, cfg, vg, r, NULL, n) : SL_ENOMEM;
+        res = both.device;
         sl_fit_workspace_free(ws);
         st = fit_st == SL_ENOMEM ? SL_ENOMEM : SL_OK;
         if (fit_st == SL_EINPUT) {
@@ -544,6 +731,7 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
         dev.vg_V = vg;
         dev.r_ohm = r;
         dev.n_points = n;
+        dev.hysteresis_V = both.hysteresis_V;
         result_to_device(&dev, &res, fit_st, cfg);
         st = sl_store_update_measurement(c->store, d->id, &dev, c->diag);
     }
@@ -586,9 +774,13 @@ sl_status ingest_sweeps(ingest_ctx *c)
 {
     if (!batch_new(c, c->opt->threads))
         return SL_ENOMEM;
+    ingest_batch *b = c->batch;
+    b->by_current = !sl_rowsrc_has(c->src, SL_ROW_R);
+    b->has_direction = sl_rowsrc_has(c->src, SL_ROW_DIRECTION);
+    b->has_compliance = sl_rowsrc_has(c->src, SL_ROW_COMPLIANCE);
     bool has = false;
     sl_status st;
-    while ((st = sl_csv_next(&has, c->csv, c->diag)) == SL_OK && has) {
+    while ((st = sl_rowsrc_next(&has, c->src, c->diag)) == SL_OK && has) {
         c->summary->rows++;
         if ((st = sweep_row(c)) != SL_OK)
             break;

@@ -458,6 +458,10 @@ sl_status sl_layout_power(sl_layout *l, const sl_plan *plan)
     st = sl_layout_model_build(&m, plan, l, (double)plan->devices_per_wafer);
     if (st == SL_OK)
         st = model_stats(&s, &m);
+    if (st == SL_EINPUT) { /* a model out of reach (too many loads): power unknown */
+        st = SL_OK;
+        m.n_coef = 0;
+    }
     for (size_t c = 1; st == SL_OK && c < m.n_coef; c++) {
         for (size_t k = 0; k < l->n_levels; k++) {
             sl_layout_level *lv = &l->levels[k];

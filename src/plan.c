@@ -348,6 +348,9 @@ void sl_plan_free(sl_plan *plan)
         free(plan->treatments[i].name);
     for (size_t i = 0; i < plan->n_wafers; i++)
         free(plan->wafers[i]);
+    for (size_t i = 0; i < plan->n_device_types; i++)
+        free(plan->device_types[i].name);
+    free(plan->device_types);
     free_dielectrics(plan);
     free_factors(plan);
     free_splits(plan);
@@ -367,6 +370,14 @@ void sl_plan_free(sl_plan *plan)
     free(plan->text);
     free(plan->path);
     free(plan);
+}
+
+long sl_plan_device_type_index(const sl_plan *plan, const char *name)
+{
+    for (size_t i = 0; i < plan->n_device_types; i++)
+        if (strcmp(plan->device_types[i].name, name) == 0)
+            return (long)i;
+    return -1;
 }
 
 static sl_status finish(plan_ctx *c, sl_plan **out)

@@ -28,7 +28,7 @@ typedef struct {
 enum {
     K_LOT, K_TITLE, K_GRAPHENE, K_TEMPERATURES, K_DEVICE, K_WAFER_MAP, K_YIELD, K_BASELINE,
     K_MATERIALS, K_DIELECTRICS, K_TREATMENTS, K_DESIGN, K_WAFERS, K_DEVICES, K_SEED,
-    K_RESOLVE, K_PROCESSED, K_BATCHES, K_VARIATION, K_COUNT
+    K_RESOLVE, K_PROCESSED, K_BATCHES, K_VARIATION, K_DEVICE_TYPES, K_COUNT
 };
 
 static const field root_fields[K_COUNT] = {
@@ -36,7 +36,7 @@ static const field root_fields[K_COUNT] = {
     { "wafer_map", 0 }, { "expected_yield", 0 }, { "baseline_doping_per_cm2", 0 },
     { "materials", 0 }, { "dielectrics", 1 }, { "treatments", 0 }, { "design", 1 },
     { "wafers", 1 }, { "devices_per_wafer", 1 }, { "seed", 0 }, { "resolve", 0 },
-    { "processed", 0 }, { "batches", 0 }, { "variation", 0 },
+    { "processed", 0 }, { "batches", 0 }, { "variation", 0 }, { "device_types", 0 },
 };
 
 /* Where things were written, for messages found after the conversion. */
@@ -322,19 +322,65 @@ static void read_temperatures(conv *v)
 
 static void read_device(conv *v)
 {
-    static const field fields[] = { { "channel_length_um", 1 }, { "channel_width_um", 1 } };
-    const yn *f[2] = { NULL, NULL };
+    static const field fields[] = { { "channel_length_um", 1 }, { "channel_width_um", 1 },
+                                    { "max_hysteresis_V", 0 } };
+    const yn *f[3] = { NULL, NULL, NULL };
     /* Without a device block the channel is taken as square, 10 um x 10 um. */
     if (v->at[K_DEVICE])
-        read_map(v->c, v->at[K_DEVICE], "device", fields, 2, f);
+        read_map(v->c, v->at[K_DEVICE], "device", fields, 3, f);
     read_number_or(v->c, f[0], "channel_length_um", NUM_POSITIVE, 10.0, &v->p->channel_length_um);
     read_number_or(v->c, f[1], "channel_width_um", NUM_POSITIVE, 10.0, &v->p->channel_width_um);
+    read_number_or(v->c, f[2], "max_hysteresis_V", NUM_POSITIVE, NAN, &v->p->max_hysteresis_V);
+}
+
+static void read_device_type(conv *v, const yn *item, size_t index)
+{
+    static const field fields[] = { { "name", 1 }, { "channel_length_um", 1 },
+                                    { "channel_width_um", 1 } };
+    const yn *f[3];
+    sl_plan_device_type *t = &v->p->device_types[index];
+    if (read_map(v->c, item, "a device type", fields, 3, f) != 0)
+        return;
+    if (f[0])
+        t->name = read_name(v->c, f[0], "device type", v->p->device_types, index, sizeof *t);
+    if (f[1])
+        read_number(v->c, f[1], "channel_length_um", NUM_POSITIVE, &t->channel_length_um);
+    if (f[2])
+        read_number(v->c, f[2], "channel_width_um", NUM_POSITIVE, &t->channel_width_um);
+}
+
+static void read_device_types(conv *v)
+{
+    const yn *node = v->at[K_DEVICE_TYPES];
+    if (!node || read_list(v->c, node, "device_types", 64) != 0)
+        return;
+    v->p->device_types = plan_calloc(v->c, node->n_items, sizeof *v->p->device_types);
+    if (!v->p->device_types)
+        return;
+    v->p->n_device_types = node->n_items;
+    for (size_t i = 0; i < node->n_items; i++)
+        read_device_type(v, node->items[i], i);
+}
+
+/* wafer_map.first_die: two whole numbers [die_x, die_y], negative allowed. */
+static void read_first_die(conv *v, const yn *node)
+{
+    if (want_kind(v->c, node, YN_SEQ, "first_die") != 0)
+        return;
+    if (node->n_items != 2) {
+        plan_error(v->c, node, "'first_die' must be [die_x, die_y], got %zu items", node->n_items);
+        return;
+    }
+    read_whole(v->c, node->items[0], "first_die", -100000, 100000, &v->p->first_die_x);
+    read_whole(v->c, node->items[1], "first_die", -100000, 100000, &v->p->first_die_y);
 }
 
 static void read_devices_and_map(conv *v)
 {
-    static const field fields[] = { { "rows", 1 }, { "cols", 1 } };
+    static const field fields[] = { { "rows", 1 }, { "cols", 1 }, { "first_die", 0 },
+                                    { "devices_per_die", 0 } };
     sl_plan *p = v->p;
+    p->devices_per_die = 1;
     if (v->at[K_DEVICES])
         read_whole(v->c, v->at[K_DEVICES], "devices_per_wafer", 1, 1000000, &p->devices_per_wafer);
     if (!v->at[K_WAFER_MAP]) {
@@ -342,17 +388,23 @@ static void read_devices_and_map(conv *v)
         p->wafer_rows = p->wafer_cols = (long)ceil(sqrt((double)p->devices_per_wafer));
         return;
     }
-    const yn *f[2];
-    if (read_map(v->c, v->at[K_WAFER_MAP], "wafer_map", fields, 2, f) != 0 || !f[0] || !f[1])
+    const yn *f[4];
+    if (read_map(v->c, v->at[K_WAFER_MAP], "wafer_map", fields, 4, f) != 0 || !f[0] || !f[1])
         return;
+    if (f[2])
+        read_first_die(v, f[2]);
+    if (f[3])
+        read_whole(v->c, f[3], "devices_per_die", 1, 1000, &p->devices_per_die);
     if (read_whole(v->c, f[0], "rows", 1, 1000, &p->wafer_rows) != 0 ||
         read_whole(v->c, f[1], "cols", 1, 1000, &p->wafer_cols) != 0)
         return;
-    if (p->devices_per_wafer > p->wafer_rows * p->wafer_cols)
+    long sites = p->wafer_rows * p->wafer_cols * p->devices_per_die;
+    if (p->devices_per_wafer > sites)
         plan_error(v->c, v->at[K_DEVICES],
-                   "devices_per_wafer %ld is more than the %ld sites of the %ld x %ld wafer_map",
-                   p->devices_per_wafer, p->wafer_rows * p->wafer_cols, p->wafer_rows,
-                   p->wafer_cols);
+                   "devices_per_wafer %ld is more than the %ld sites of the %ld x %ld wafer_map "
+                   "with %ld device%s per die",
+                   p->devices_per_wafer, sites, p->wafer_rows, p->wafer_cols,
+                   p->devices_per_die, p->devices_per_die == 1 ? "" : "s");
 }
 
 static void read_seed(conv *v)
@@ -387,6 +439,7 @@ static void read_scalars(conv *v)
     read_graphene(v);
     read_temperatures(v);
     read_device(v);
+    read_device_types(v);
     read_devices_and_map(v);
     read_number_or(v->c, v->at[K_YIELD], "expected_yield", NUM_YIELD, 1.0, &p->expected_yield);
     if (v->at[K_BASELINE])

@@ -217,7 +217,10 @@ static void verdict_prediction_outside_ci(report_ctx *c)
 static void contents(report_ctx *c)
 {
     sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#runs\">Measurement runs</a></li>"
-                                "<li><a href=\"#splits\">Splits</a></li>"
+                                "<li><a href=\"#splits\">Splits</a></li>");
+    if (c->has_hysteresis)
+        sl_chart_buf_append(c->buf, "<li><a href=\"#hysteresis\">Hysteresis</a></li>");
+    sl_chart_buf_append(c->buf, "<li><a href=\"#parameters\">Device parameters</a></li>"
                                 "<li><a href=\"#wafers\">Wafer maps</a></li>"
                                 "<li><a href=\"#effects\">Level effects</a></li>");
     if (c->has_curves)
@@ -274,6 +277,10 @@ static sl_status render_sections(report_ctx *c)
         st = sl_report_section_runs(c);
     if (st == SL_OK)
         st = sl_report_section_splits(c);
+    if (st == SL_OK)
+        st = sl_report_section_hysteresis(c);
+    if (st == SL_OK)
+        st = sl_report_section_parameters(c);
     if (st == SL_OK)
         st = sl_report_section_wafers(c);
     if (st == SL_OK)

@@ -10,6 +10,9 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <gsl/gsl_sort.h>
+#include <gsl/gsl_statistics_double.h>
+
 #include "report_internal.h"
 
 #define COLOUR_PERCENTILE 0.99
@@ -47,43 +50,62 @@ void report_rewind(report_ctx *c)
     c->next_device = c->next_flagged = 0;
 }
 
+static void strips_free(report_strip *strips)
+{
+    if (strips)
+        for (size_t s = 0; strips[s].cap_points != (size_t)-1; s++) {
+            free(strips[s].values_V);
+            free(strips[s].flagged);
+            free(strips[s].labels);
+            free(strips[s].label_ptrs);
+        }
+    free(strips);
+}
+
 void report_data_free(report_data *data)
 {
-    if (data->strips)
-        for (size_t s = 0; data->strips[s].cap_points != (size_t)-1; s++) {
-            free(data->strips[s].values_V);
-            free(data->strips[s].flagged);
-            free(data->strips[s].labels);
-            free(data->strips[s].label_ptrs);
-        }
-    free(data->strips);
+    strips_free(data->strips);
+    for (int q = 0; q < REPORT_QUANTITIES; q++)
+        strips_free(data->quantity[q]);
     free(data->dies);
     free(data->wafer_split);
     memset(data, 0, sizeof *data);
 }
 
 /* Room for a split's points: every usable device, or the outliers drawn
- * over its bins. The strips array ends with a cap of (size_t)-1. */
-static sl_status strips_alloc(report_data *d, const sl_analysis *a)
+ * over its bins; labels only with_labels. The array ends with a cap of
+ * (size_t)-1. */
+static report_strip *strips_new(const sl_analysis *a, int with_labels)
 {
-    d->strips = calloc(a->n_splits + 1, sizeof *d->strips);
-    if (!d->strips)
-        return SL_ENOMEM;
-    d->strips[a->n_splits].cap_points = (size_t)-1;
+    report_strip *strips = calloc(a->n_splits + 1, sizeof *strips);
+    if (!strips)
+        return NULL;
+    strips[a->n_splits].cap_points = (size_t)-1;
     for (size_t s = 0; s < a->n_splits; s++) {
-        report_strip *st = &d->strips[s];
+        report_strip *st = &strips[s];
         size_t usable = a->splits[s].n_usable;
         st->binned = usable > SL_REPORT_STRIP_POINTS_MAX;
         st->cap_points = st->binned ? SL_REPORT_STRIP_OUTLIERS_MAX : usable;
         size_t n = st->cap_points ? st->cap_points : 1;
         st->values_V = malloc(n * sizeof *st->values_V);
         st->flagged = malloc(n);
-        st->labels = malloc(n * sizeof *st->labels);
-        st->label_ptrs = malloc(n * sizeof *st->label_ptrs);
-        if (!st->values_V || !st->flagged || !st->labels || !st->label_ptrs)
-            return SL_ENOMEM;
+        st->labels = with_labels ? malloc(n * sizeof *st->labels) : NULL;
+        st->label_ptrs = with_labels ? malloc(n * sizeof *st->label_ptrs) : NULL;
+        if (!st->values_V || !st->flagged || (with_labels && (!st->labels || !st->label_ptrs))) {
+            strips_free(strips);
+            return NULL;
+        }
     }
-    return SL_OK;
+    return strips;
+}
+
+static sl_status strips_alloc(report_data *d, const sl_analysis *a)
+{
+    d->strips = strips_new(a, 1);
+    for (int q = 0; d->strips && q < REPORT_QUANTITIES; q++)
+        if (!(d->quantity[q] = strips_new(a, 0)))
+            return SL_ENOMEM;
+    return d->strips ? SL_OK : SL_ENOMEM;
 }
 
 static sl_status dies_alloc(report_data *d, const sl_plan *plan)
@@ -99,17 +121,36 @@ static sl_status dies_alloc(report_data *d, const sl_plan *plan)
     return SL_OK;
 }
 
-static void add_point(report_strip *st, const sl_analyze_device *dev)
+static void add_value(report_strip *st, const sl_analyze_device *dev, double value)
 {
     if (st->n_points >= st->cap_points) {
         st->n_flagged_not_drawn += st->binned;
         return;
     }
     size_t k = st->n_points++;
-    st->values_V[k] = dev->cnp_measured_V;
+    st->values_V[k] = value;
     st->flagged[k] = dev->flags != 0;
-    snprintf(st->labels[k], SL_REPORT_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
-    st->label_ptrs[k] = st->labels[k];
+    if (st->labels) {
+        snprintf(st->labels[k], SL_REPORT_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
+        st->label_ptrs[k] = st->labels[k];
+    }
+}
+
+static void add_point(report_strip *st, const sl_analyze_device *dev)
+{
+    add_value(st, dev, dev->cnp_measured_V);
+}
+
+/* A device parameter as charted: logarithms of mobility and n0 (their
+ * spread is multiplicative), hysteresis in volts; NaN when not measured. */
+double report_quantity_value(const sl_analyze_device *d, report_quantity q)
+{
+    switch (q) {
+    case REPORT_MOBILITY: return d->mobility_cm2_per_Vs > 0.0 ? log10(d->mobility_cm2_per_Vs) : NAN;
+    case REPORT_N0: return d->n0_per_cm2 > 0.0 ? log10(d->n0_per_cm2) : NAN;
+    case REPORT_HYSTERESIS: return isfinite(d->hysteresis_V) ? d->hysteresis_V : NAN;
+    default: return NAN;
+    }
 }
 
 /* The plan index of a device's wafer; devices come wafer by wafer, so the
@@ -126,19 +167,21 @@ static void add_die(report_data *d, const sl_plan *plan, long w, const sl_analyz
 {
     if (w < 0)
         return;
-    if (dev->die_x < 0 || dev->die_y < 0 || dev->die_x >= plan->wafer_cols ||
-        dev->die_y >= plan->wafer_rows) {
+    /* the prober's coordinates, counted from wafer_map.first_die */
+    long col = dev->die_x - plan->first_die_x, row = dev->die_y - plan->first_die_y;
+    if (col < 0 || row < 0 || col >= plan->wafer_cols || row >= plan->wafer_rows) {
         d->n_off_grid++;
         return;
     }
     if (d->wafer_split[w] < 0)
         d->wafer_split[w] = dev->split;
-    report_die *die = &d->dies[(size_t)w * d->n_slots +
-                               (size_t)(dev->die_y * plan->wafer_cols + dev->die_x)];
+    report_die *die = &d->dies[(size_t)w * d->n_slots + (size_t)(row * plan->wafer_cols + col)];
     if (die->n_devices++ == 0)
         snprintf(die->device, sizeof die->device, "%s", dev->device);
     die->n_flagged += dev->flags != 0;
     if (isfinite(dev->deviation_V)) {
+        if (die->n_values < SL_REPORT_DIE_VALUES)
+            die->values_V[die->n_values] = dev->deviation_V;
         die->sum_V += dev->deviation_V;
         die->n_values++;
     }
@@ -170,6 +213,38 @@ static void bin_range(report_strip *st, const sl_analyze_split *sp)
     st->max_V = isfinite(hi) && hi > st->min_V ? hi : st->min_V;
 }
 
+/* The bins of a parameter's density strip cover what devices plausibly
+ * take, fixed before the pass: 10 to 1e6 cm^2/Vs, 1e9 to 3e13 cm^-2, and
+ * a quarter of the split's gate range either way for hysteresis; values
+ * beyond count in an end bin. */
+static void quantity_bin_range(report_strip *st, const sl_analysis *a, size_t split,
+                               report_quantity q)
+{
+    double quarter = 0.25 * (a->split_gate_max_V[split] - a->split_gate_min_V[split]);
+    st->min_V = q == REPORT_MOBILITY ? 1.0 : q == REPORT_N0 ? 9.0 : -quarter;
+    st->max_V = q == REPORT_MOBILITY ? 6.0 : q == REPORT_N0 ? 13.5 : quarter;
+    if (!(st->max_V > st->min_V))
+        st->max_V = st->min_V + 1.0;
+}
+
+static size_t bin_of(const report_strip *s, double v);
+
+/* A device's parameters into their strips, as its V_cnp into its own. */
+static void add_quantities(report_data *d, const sl_analyze_device *dev)
+{
+    for (int q = 0; q < REPORT_QUANTITIES; q++) {
+        double v = report_quantity_value(dev, (report_quantity)q);
+        if (!isfinite(v))
+            continue;
+        d->n_quantity_values[q]++;
+        report_strip *s = &d->quantity[q][dev->split];
+        if (!s->binned || dev->flags)
+            add_value(s, dev, v);
+        else
+            s->bins[bin_of(s, v)]++;
+    }
+}
+
 /* One pass: every usable device of a small split as a point; in a large
  * one the flagged devices as points (the first SL_REPORT_STRIP_OUTLIERS_MAX
  * met) and the others binned; every device on its die. */
@@ -185,6 +260,7 @@ static sl_status collect_pass(report_ctx *c)
         if (dev->split < 0 || (size_t)dev->split >= c->a->n_splits ||
             !isfinite(dev->cnp_measured_V))
             continue;
+        add_quantities(d, dev);
         report_strip *s = &d->strips[dev->split];
         if (!s->binned || dev->flags)
             add_point(s, dev);
@@ -194,6 +270,18 @@ static sl_status collect_pass(report_ctx *c)
     return st;
 }
 
+double report_die_value(const report_die *die)
+{
+    if (die->n_values == 0)
+        return NAN;
+    if (die->n_values > SL_REPORT_DIE_VALUES)
+        return die->sum_V / (double)die->n_values;
+    double v[SL_REPORT_DIE_VALUES];
+    memcpy(v, die->values_V, die->n_values * sizeof *v);
+    gsl_sort(v, 1, die->n_values);
+    return gsl_stats_median_from_sorted_data(v, 1, die->n_values);
+}
+
 static int by_value(const void *pa, const void *pb)
 {
     double a = *(const double *)pa, b = *(const double *)pb;
@@ -201,7 +289,7 @@ static int by_value(const void *pa, const void *pb)
 }
 
 /* One symmetric colour half-range for every wafer map of the lot: the 99th
- * percentile of |mean deviation| of its dies, rounded up to a 1-2-5
+ * percentile of |deviation| of its dies (report_die_value), rounded up to a 1-2-5
  * number, so one wild die does not wash out every other colour. */
 static sl_status colour_range(report_data *d, const sl_plan *plan)
 {
@@ -211,7 +299,7 @@ static sl_status colour_range(report_data *d, const sl_plan *plan)
         return SL_ENOMEM;
     for (size_t i = 0; i < n_all; i++)
         if (d->dies[i].n_values > 0)
-            v[n++] = fabs(d->dies[i].sum_V / (double)d->dies[i].n_values);
+            v[n++] = fabs(report_die_value(&d->dies[i]));
     d->colour_max_abs_V = 1.0;
     if (n > 0) {
         qsort(v, n, sizeof *v, by_value);
@@ -232,8 +320,11 @@ sl_status report_collect(report_ctx *c)
     if (st == SL_OK)
         st = dies_alloc(d, c->a->plan);
     for (size_t s = 0; st == SL_OK && s < c->a->n_splits; s++)
-        if (d->strips[s].binned)
+        if (d->strips[s].binned) {
             bin_range(&d->strips[s], &c->a->splits[s]);
+            for (int q = 0; q < REPORT_QUANTITIES; q++)
+                quantity_bin_range(&d->quantity[q][s], c->a, s, (report_quantity)q);
+        }
     if (st == SL_OK)
         st = collect_pass(c);
     if (st == SL_OK)

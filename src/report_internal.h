@@ -33,17 +33,32 @@ typedef struct {
     size_t n_flagged_not_drawn;   /* flagged beyond SL_REPORT_STRIP_OUTLIERS_MAX */
 } report_strip;
 
-/* One die position of one wafer: devices averaged. */
+/* Deviations kept per die for its median; a die with more usable devices
+ * shows their mean. */
+#define SL_REPORT_DIE_VALUES 16
+
+/* One die position of one wafer: one device, or several (their median). */
 typedef struct {
     double sum_V;
     unsigned n_values, n_devices, n_flagged;
+    double values_V[SL_REPORT_DIE_VALUES]; /* the first usable deviations */
     char device[65];              /* the first device's name */
 } report_die;
 
 /* What the page needs of the devices, gathered in passes over them, in
  * memory that grows with splits, wafers and dies, not devices. */
+/* The device parameters charted per split besides V_cnp. */
+typedef enum {
+    REPORT_MOBILITY = 0,          /* log10 of cm^2/Vs */
+    REPORT_N0,                    /* log10 of cm^-2 */
+    REPORT_HYSTERESIS,            /* V */
+    REPORT_QUANTITIES
+} report_quantity;
+
 typedef struct {
     report_strip *strips;         /* per split */
+    report_strip *quantity[REPORT_QUANTITIES]; /* per split, no labels */
+    size_t n_quantity_values[REPORT_QUANTITIES]; /* over the lot */
     report_die *dies;             /* per plan wafer, rows x cols each */
     long *wafer_split;            /* per plan wafer: split of its devices, or -1 */
     size_t n_slots;               /* rows x cols */
@@ -60,6 +75,7 @@ typedef struct {
     sl_report_summary *sum;
     sl_diag *diag;
     int has_curves, has_history; /* sections present, for the contents */
+    int has_hysteresis;
     size_t next_device, next_flagged; /* cursors over a->devices */
     report_data data;
     /* The history when it was read before a stream took the store's
@@ -76,9 +92,16 @@ sl_status report_next_device(report_ctx *c, const sl_analyze_device **device);
 sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device);
 /* Both readings start over. */
 void report_rewind(report_ctx *c);
+/* What a die shows: its device's deviation; for several devices their
+ * median (the mean beyond SL_REPORT_DIE_VALUES usable ones); NaN without
+ * a usable device. */
+double report_die_value(const report_die *die);
 /* Gather c->data in one pass over the devices. */
 sl_status report_collect(report_ctx *c);
 void report_data_free(report_data *data);
+/* The value a parameter's chart shows of a device (log10 for mobility and
+ * n0), NaN when it has none. */
+double report_quantity_value(const sl_analyze_device *d, report_quantity q);
 
 /* ---- report_format.c: numbers with units, escaped text ---- */
 
@@ -106,6 +129,7 @@ void sl_report_note(sl_chart_buf *buf, const char *text);
 
 /* ---- report_tables.c ---- */
 void sl_report_splits_table(report_ctx *c, size_t dielectric);
+void sl_report_window_table(report_ctx *c, size_t dielectric);
 void sl_report_effects_table(report_ctx *c);
 sl_status sl_report_failure_table(report_ctx *c);
 
@@ -115,6 +139,12 @@ sl_status sl_report_section_runs(report_ctx *c);
 /* ---- report_sections.c: splits and effects ---- */
 sl_status sl_report_section_splits(report_ctx *c);
 sl_status sl_report_section_effects(report_ctx *c);
+
+/* ---- report_hysteresis.c: per split, for lots with double sweeps ---- */
+sl_status sl_report_section_hysteresis(report_ctx *c);
+
+/* ---- report_sections.c: device parameters ---- */
+sl_status sl_report_section_parameters(report_ctx *c);
 
 /* ---- report_wafers.c ---- */
 sl_status sl_report_section_wafers(report_ctx *c);

@@ -134,6 +134,7 @@ static void strip_chart(report_ctx *c, sl_chart_category *cats, size_t dielectri
     sl_chart_buf_append(c->buf, "</figure>\n");
     strip_notes(c, dielectric);
     sl_report_splits_table(c, dielectric);
+    sl_report_window_table(c, dielectric);
     sl_chart_buf_append(c->buf, "</div>\n");
     c->sum->n_strip_charts++;
 }
@@ -160,6 +161,91 @@ sl_status sl_report_section_splits(report_ctx *c)
                         "of freedom, none for a split of one wafer.</p>\n");
     for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
         strip_chart(c, cats, k);
+    sl_report_section_close(c->buf);
+    free(cats);
+    return c->buf->status;
+}
+
+/* ---- device parameters ---- */
+
+static const struct {
+    const char *id, *title, *axis;
+} parameter_charts[REPORT_QUANTITIES] = {
+    { "mobility", "Mobility by split", "mobility (log\xe2\x82\x81\xe2\x82\x80 cm\xc2\xb2/V s)" },
+    { "n0", "Residual density n\xe2\x82\x80 by split",
+      "n\xe2\x82\x80 (log\xe2\x82\x81\xe2\x82\x80 cm\xe2\x81\xbb\xc2\xb2)" },
+    { "hysteresis", "Hysteresis by split", "hysteresis (V)" },
+};
+
+/* The line a parameter is drawn against: for n0 the residual density
+ * expected at the view's temperature (floor_predicted_per_cm2); none for
+ * the others. */
+static sl_est parameter_reference(const report_ctx *c, size_t split, report_quantity q)
+{
+    sl_est none = { NAN, NAN };
+    if (q != REPORT_N0 || !c->a->split_floor_per_cm2)
+        return none;
+    double floor = hypot(c->a->split_floor_per_cm2[split], c->a->plan->disorder_density_per_cm2);
+    return floor > 0.0 ? (sl_est){ log10(floor), 0.0 } : none;
+}
+
+static void parameter_chart(report_ctx *c, sl_chart_category *cats, report_quantity q)
+{
+    size_t count = 0;
+    for (size_t s = 0; s < c->a->n_splits; s++) {
+        const report_strip *st = &c->data.quantity[q][s];
+        sl_chart_category *cat = &cats[count++];
+        memset(cat, 0, sizeof *cat);
+        cat->name = c->a->plan->splits[s].name;
+        cat->values = st->values_V;
+        cat->flagged = st->flagged;
+        cat->count = st->n_points;
+        cat->predicted = parameter_reference(c, s, q);
+        if (st->binned) {
+            cat->bins = st->bins;
+            cat->n_bins = SL_REPORT_STRIP_BINS;
+            cat->bins_low = st->min_V;
+            cat->bins_high = st->max_V;
+        }
+    }
+    sl_chart_frame frame;
+    strip_frame(&frame, cats, count, parameter_charts[q].title);
+    sl_chart_buf_printf(c->buf, "<figure class=\"strip parameter\" data-parameter=\"%s\">",
+                        parameter_charts[q].id);
+    sl_chart_strip(c->buf, &frame, cats, count, "split", parameter_charts[q].axis);
+    sl_chart_buf_append(c->buf, "</figure>\n");
+}
+
+/* Mobility, n0 and hysteresis of the usable devices per split, as strips
+ * (density strips for large splits, as the neutrality voltage's); a
+ * parameter no device has is named, not drawn. */
+sl_status sl_report_section_parameters(report_ctx *c)
+{
+    sl_chart_category *cats = malloc((c->a->n_splits + 1) * sizeof *cats);
+    if (!cats)
+        return SL_ENOMEM;
+    sl_report_section_open(c->buf, "parameters", "Device parameters by split");
+    sl_chart_buf_append(c->buf,
+                        "<p>Fitted mobility and residual density n<sub>0</sub> (logarithmic: "
+                        "their spread is multiplicative) and hysteresis of the usable devices, "
+                        "per split; flagged devices are diamonds. The line on the n<sub>0</sub> "
+                        "chart is the residual density expected at the measurement temperature, "
+                        "&radic;(n<sub>th</sub><sup>2</sup> + n*<sup>2</sup>) of the thermal "
+                        "floor and the plan's disorder density (a common approximation); a "
+                        "device below the thermal floor itself is flagged.</p>\n"
+                        "<div class=\"charts\">\n");
+    for (int q = 0; q < REPORT_QUANTITIES; q++) {
+        if (c->data.n_quantity_values[q] > 0) {
+            parameter_chart(c, cats, (report_quantity)q);
+        } else {
+            char text[128];
+            snprintf(text, sizeof text, "No device of this view has a %s.",
+                     q == REPORT_MOBILITY ? "mobility" : q == REPORT_N0 ? "residual density"
+                                                                        : "hysteresis");
+            sl_report_note(c->buf, text);
+        }
+    }
+    sl_chart_buf_append(c->buf, "</div>\n");
     sl_report_section_close(c->buf);
     free(cats);
     return c->buf->status;

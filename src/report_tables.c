@@ -67,6 +67,42 @@ void sl_report_splits_table(report_ctx *c, size_t dielectric)
     table_close(c->buf);
 }
 
+/* ---- density window and sweep coverage ---- */
+
+static const char *const window_headings[] = {
+    "split", "V<sub>cnp</sub> inside the sweep",
+    "electrons at the top of the range, predicted (cm<sup>&minus;2</sup>)", "reached",
+    "holes at the bottom, predicted (cm<sup>&minus;2</sup>)", "reached",
+};
+
+static void window_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
+{
+    const sl_analyze_split *sp = &a->splits[s];
+    sl_chart_buf_append(buf, "<tr>");
+    sl_report_cell_text(buf, a->plan->splits[s].name);
+    if (isfinite(sp->inside_share))
+        sl_chart_buf_printf(buf, "<td class=\"num\">%.1f&nbsp;%%</td>", 100.0 * sp->inside_share);
+    else
+        sl_report_cell_text(buf, "n/a");
+    for (int k = 0; k < 2; k++) {
+        sl_report_cell_density(buf, sp->window_predicted_per_cm2[k]);
+        sl_report_cell_density(buf, sp->window_reached_per_cm2[k]);
+    }
+    sl_chart_buf_append(buf, "</tr>\n");
+}
+
+/* The density window the gate range reaches from the measured mean V_cnp
+ * against the one predicted from the predicted V_cnp, and the share of
+ * devices whose neutrality point stayed inside their sweep. */
+void sl_report_window_table(report_ctx *c, size_t dielectric)
+{
+    table_open(c->buf, "window", window_headings, sizeof window_headings / sizeof *window_headings);
+    for (size_t s = 0; s < c->a->n_splits; s++)
+        if (c->a->plan->splits[s].dielectric == dielectric)
+            window_row(c->buf, c->a, s);
+    table_close(c->buf);
+}
+
 /* ---- effects ---- */
 
 static const char *const effect_headings[] = {

@@ -1,9 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * Wafer maps of the lot report: one small map per wafer on the plan's die
- * grid with die coordinates, dies coloured by mean deviation from prediction
- * (V) on one symmetric range for the whole lot, unusable and flagged dies
- * marked, and one legend above all maps. The dies come gathered by
- * src/report_collect.c: one cell per die, whatever the devices per die.
+ * grid with the prober's die coordinates (from wafer_map.first_die), dies
+ * coloured by deviation from prediction (V; a die of several devices: their
+ * median, with the count in its tooltip) on one symmetric range for the
+ * whole lot, unusable and flagged dies marked, and one legend above all
+ * maps. The dies come gathered by src/report_collect.c.
  */
 #include <math.h>
 #include <stdio.h>
@@ -24,8 +25,12 @@ static int die_flagged(const report_die *die)
     return die->n_flagged > 0 && 2 * die->n_flagged >= die->n_devices;
 }
 
-/* The dies of wafer w as the chart takes them, into dies (n_slots room). */
-static size_t wafer_dies(const report_data *d, const sl_plan *plan, size_t w, sl_chart_die *dies)
+#define DIE_LABEL_BYTES 64
+
+/* The dies of wafer w as the chart takes them, into dies (n_slots room);
+ * a die of several devices says how many in labels (n_slots room). */
+static size_t wafer_dies(const report_data *d, const sl_plan *plan, size_t w, sl_chart_die *dies,
+                         char (*labels)[DIE_LABEL_BYTES], size_t *n_shared)
 {
     size_t n = 0;
     for (size_t k = 0; k < d->n_slots; k++) {
@@ -38,7 +43,14 @@ static size_t wafer_dies(const report_data *d, const sl_plan *plan, size_t w, sl
                                die_flagged(die), die->device };
         if (die->n_values > 0) {
             out->state = SL_CHART_DIE_VALUE;
-            out->value = die->sum_V / (double)die->n_values;
+            out->value = report_die_value(die);
+        }
+        if (die->n_devices > 1) {
+            snprintf(labels[n - 1], DIE_LABEL_BYTES, "%s of %u usable of %u devices",
+                     die->n_values > SL_REPORT_DIE_VALUES ? "mean" : "median", die->n_values,
+                     die->n_devices);
+            out->device = labels[n - 1];
+            (*n_shared)++;
         }
     }
     return n;
@@ -50,14 +62,21 @@ static double cell_px(const sl_plan *plan)
     return fmin(fmax(floor(MAP_GRID_PX / (double)edge), MAP_MIN_CELL_PX), MAP_MAX_CELL_PX);
 }
 
-static void wafer_map(report_ctx *c, size_t w, sl_chart_die *dies)
+typedef struct {
+    sl_chart_die *dies;
+    char (*labels)[DIE_LABEL_BYTES];
+    size_t n_shared;     /* dies drawn with several devices */
+} die_scratch;
+
+static void wafer_map(report_ctx *c, size_t w, die_scratch *ds)
 {
     const sl_analysis *a = c->a;
-    size_t n_dies = wafer_dies(&c->data, a->plan, w, dies);
+    sl_chart_die *dies = ds->dies;
+    size_t n_dies = wafer_dies(&c->data, a->plan, w, dies, ds->labels, &ds->n_shared);
     sl_chart_wafer_map map = { a->plan->wafers[w], (int)a->plan->wafer_rows,
                                (int)a->plan->wafer_cols, cell_px(a->plan),
                                c->data.colour_max_abs_V, "deviation from prediction (V)", "V", 0,
-                               1, 1, 0, 0 };
+                               1, 1, (int)a->plan->first_die_x, (int)a->plan->first_die_y };
     sl_chart_buf_append(c->buf, "<figure class=\"wafer\">");
     if (sl_chart_wafer_map_svg(c->buf, &map, dies, n_dies) != SL_OK && c->buf->status == SL_OK)
         sl_report_note(c->buf, "this wafer's map could not be drawn");
@@ -74,7 +93,7 @@ static int wafer_in_dielectric(const report_ctx *c, size_t w, size_t k)
     return s >= 0 && c->a->plan->splits[s].dielectric == k;
 }
 
-static void dielectric_maps(report_ctx *c, size_t k, sl_chart_die *dies)
+static void dielectric_maps(report_ctx *c, size_t k, die_scratch *dies)
 {
     const sl_analysis *a = c->a;
     size_t n_wafers = 0;
@@ -108,23 +127,39 @@ static void maps_legend(report_ctx *c)
 
 sl_status sl_report_section_wafers(report_ctx *c)
 {
-    sl_chart_die *dies = malloc((c->data.n_slots ? c->data.n_slots : 1) * sizeof *dies);
-    if (!dies)
+    size_t slots = c->data.n_slots ? c->data.n_slots : 1;
+    die_scratch ds = { malloc(slots * sizeof *ds.dies), malloc(slots * sizeof *ds.labels), 0 };
+    if (!ds.dies || !ds.labels) {
+        free(ds.dies);
+        free(ds.labels);
         return SL_ENOMEM;
+    }
     c->sum->n_dies_off_grid = c->data.n_off_grid;
     sl_report_section_open(c->buf, "wafers", "Wafer maps");
     sl_chart_buf_printf(c->buf,
-                        "<p>Each die on the plan's %ld &times; %ld grid, coloured by the mean "
-                        "deviation of its devices' measured neutrality voltage from their "
-                        "split's prediction (V; blue below, orange above). Die coordinates "
-                        "along the top (column) and the left (row). Grey with a cross: no usable "
+                        "<p>Each die on the plan's %ld &times; %ld grid, coloured by the "
+                        "deviation of its device's measured neutrality voltage from its "
+                        "split's prediction (V; blue below, orange above). Die coordinates as "
+                        "the prober counts them, from (%ld, %ld), along the top (column) and "
+                        "the left (row). Grey with a cross: no usable "
                         "device; bare wafer: no device at that die. Heavy outline: a flagged "
                         "device (on a die of several devices: half of them or more flagged). "
                         "Notch at the bottom.</p>\n",
-                        c->a->plan->wafer_rows, c->a->plan->wafer_cols);
+                        c->a->plan->wafer_rows, c->a->plan->wafer_cols, c->a->plan->first_die_x,
+                        c->a->plan->first_die_y);
+    if (c->a->plan->devices_per_die > 1)
+        sl_chart_buf_printf(c->buf, "<p id=\"wafer-dies-shared\">%ld devices per die "
+                            "(<code>wafer_map.devices_per_die</code>): a die shows the median "
+                            "deviation of its usable devices, not each device; its tooltip says "
+                            "how many devices it has.</p>\n", c->a->plan->devices_per_die);
     maps_legend(c);
     for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
-        dielectric_maps(c, k, dies);
+        dielectric_maps(c, k, &ds);
+    if (ds.n_shared > 0 && c->a->plan->devices_per_die == 1) /* known once drawn */
+        sl_chart_buf_printf(c->buf, "<p class=\"note\" id=\"wafer-dies-shared\">%zu dies hold "
+                            "several devices though the plan has one per die: each shows the "
+                            "median deviation of its usable devices, its tooltip how many "
+                            "devices it has.</p>\n", ds.n_shared);
     if (c->sum->n_dies_off_grid > 0) {
         char text[160];
         snprintf(text, sizeof text, "%zu devices have a die position outside the %ld x %ld grid "
@@ -133,6 +168,7 @@ sl_status sl_report_section_wafers(report_ctx *c)
         sl_report_note(c->buf, text);
     }
     sl_report_section_close(c->buf);
-    free(dies);
+    free(ds.dies);
+    free(ds.labels);
     return c->buf->status;
 }

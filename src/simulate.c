@@ -336,8 +336,11 @@ static sl_status simulate_wafers(sim_ctx *c)
             return st;
         c->sum->wafers++;
         for (long k = 0; k < per_wafer; k++) {
-            sim_device dev = { .number = k + 1, .die_x = (k % cells) % p->wafer_cols,
-                               .die_y = (k % cells) / p->wafer_cols };
+            /* devices_per_die neighbours share a die; coordinates as the
+             * prober counts them, from wafer_map.first_die */
+            long die = (k / p->devices_per_die) % cells;
+            sim_device dev = { .number = k + 1, .die_x = p->first_die_x + die % p->wafer_cols,
+                               .die_y = p->first_die_y + die / p->wafer_cols };
             draw_device(c, &w, &dev);
             write_device(c, &w, &dev);
         }

@@ -28,8 +28,8 @@ int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, con
 
 /* The work matrix stats_gls_gram needs for these loads and q columns:
  * L x (1 + q) with one step, L x (L + q) otherwise; NULL without loads, and
- * on allocation failure or with more than 4096 loads over several steps
- * (check loads->n). */
+ * on allocation failure or with more than SL_STATS_MAX_DENSE_LOADS loads
+ * over several steps (check loads->n). */
 gsl_matrix *stats_gls_work_alloc(const stats_loads *loads, size_t q);
 
 #endif

@@ -97,8 +97,9 @@ double sl_stats_offplan_false_rate(double se, double df, double tolerance, doubl
 
 gsl_matrix *stats_gls_work_alloc(const stats_loads *loads, size_t q)
 {
-    /* the dense block of several steps grows as loads^2: refuse beyond 4096 */
-    if (loads->n == 0 || (loads->steps > 1 && loads->n > 4096))
+    /* the dense block of several steps grows as loads^2 (and its Cholesky as
+     * loads^3): refused beyond SL_STATS_MAX_DENSE_LOADS */
+    if (loads->n == 0 || (loads->steps > 1 && loads->n > SL_STATS_MAX_DENSE_LOADS))
         return NULL;
     return gsl_matrix_alloc(loads->n, (loads->steps == 1 ? 1 : loads->n) + q);
 }
@@ -263,7 +264,8 @@ static int model_ok(const sl_stats_gls_model *m)
 
 sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model)
 {
-    if (!model_ok(model))
+    if (!model_ok(model) ||
+        (model->n_steps > 1 && model->n_loads > SL_STATS_MAX_DENSE_LOADS))
         return SL_EINPUT;
     size_t p = model->n_coef, L = model->n_loads;
     stats_loads loads = { model->load, L, model->n_steps };

@@ -657,6 +657,51 @@ START_TEST(test_residual_below_thermal_floor_flagged)
 }
 END_TEST
 
+/* The density window reached from the measured mean V_cnp: on 90 nm SiO2
+ * (C_g / e = 2.395e11 cm^-2 per volt, eps 3.9: hand arithmetic) tens of
+ * volts from neutrality the quantum capacitance takes about 1 % (E_F of
+ * 0.3 eV out of 30 V), so n - p at the top of the gate range is within 3 %
+ * of C_g (V_max - V_mean) / e; it exceeds the predicted window exactly when
+ * the mean lies below the prediction (textbook electrostatics). No device
+ * of the fixture lies beyond its sweep: every share inside is 1. */
+START_TEST(test_density_window_reached)
+{
+    char *dir = NULL;
+    free(stats_compare_json(&dir));
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    size_t checked = 0;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        ck_assert(sp->inside_share == 1.0);
+        if (!isfinite(sp->cnp.mean))
+            continue;
+        double top = a->split_gate_max_V[k], per_V = a->split_capacitance_F_per_m2[k] /
+                                                     SL_SI_ELEMENTARY_CHARGE * 1e-4;
+        if (strcmp(a->plan->dielectrics[a->plan->splits[k].dielectric].name, "ox90") == 0)
+            check_rel("electrons reached", sp->window_reached_per_cm2[0],
+                      2.395e11 * (top - sp->cnp.mean), 0.03);
+        check_rel("electrons reached", sp->window_reached_per_cm2[0], per_V * (top - sp->cnp.mean),
+                  0.05);
+        int below = sp->cnp.mean < sp->cnp_predicted_V;
+        ck_assert_int_eq(sp->window_reached_per_cm2[0] > sp->window_predicted_per_cm2[0], below);
+        ck_assert_int_eq(sp->window_reached_per_cm2[1] < sp->window_predicted_per_cm2[1], below);
+        checked++;
+    }
+    ck_assert_uint_ge(checked, 4);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 /* ---- the streamed analysis gives what the in-memory one gave ------------------- */
 
 /* compare of the two fixture lots in every format, byte for byte against
@@ -1653,6 +1698,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);
     tcase_add_test(stats, test_residual_below_thermal_floor_flagged);
+    tcase_add_test(stats, test_density_window_reached);
     tcase_add_test(stats, test_stream_reads_back_the_lot);
     suite_add_tcase(s, stats);
     TCase *mc = tcase_create("monte carlo");

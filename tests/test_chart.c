@@ -539,7 +539,7 @@ START_TEST(test_wafer_map_counts)
     sl_chart_die dies[36];
     size_t n = demo_dies(dies);
     dies[7].device = "D<7>";
-    sl_chart_wafer_map map = { "W01", 6, 6, 0.0, 0.0, "deviation (V)", "V", 1 };
+    sl_chart_wafer_map map = { "W01", 6, 6, 0.0, 0.0, "deviation (V)", "V", 1, 0, 0, 0, 0 };
     sl_chart_buf b;
     sl_chart_buf_init(&b);
     ck_assert_int_eq(sl_chart_wafer_map_svg(&b, &map, dies, n), SL_OK);
@@ -584,7 +584,7 @@ START_TEST(test_wafer_map_bytes_per_die)
         dies[i].flagged = i % 17 == 0;
         dies[i].device = "D123";
     }
-    sl_chart_wafer_map map = { "W12", SIDE, SIDE, 0.0, 2.0, "deviation (V)", "V", 0 };
+    sl_chart_wafer_map map = { "W12", SIDE, SIDE, 0.0, 2.0, "deviation (V)", "V", 0, 0, 0, 0, 0 };
     sl_chart_buf empty, full;
     sl_chart_buf_init(&empty);
     sl_chart_buf_init(&full);
@@ -606,7 +606,7 @@ START_TEST(test_wafer_map_bad_input)
 {
     sl_chart_die outside = { 6, 0, SL_CHART_DIE_VALUE, 1.0, 0, NULL };
     sl_chart_die negative = { 0, -1, SL_CHART_DIE_VALUE, 1.0, 0, NULL };
-    sl_chart_wafer_map map = { "W01", 6, 6, 0.0, 0.0, "deviation (V)", "V", 1 };
+    sl_chart_wafer_map map = { "W01", 6, 6, 0.0, 0.0, "deviation (V)", "V", 1, 0, 0, 0, 0 };
     sl_chart_buf b;
     sl_chart_buf_init(&b);
     ck_assert_int_eq(sl_chart_wafer_map_svg(&b, &map, &outside, 1), SL_EINPUT);
@@ -648,9 +648,9 @@ START_TEST(test_strip_chart_counts)
     const unsigned char fc[3] = { 0, 0, 1 };
     const char *const names_c[3] = { "W03/D1", "W03/D2", "W04/D9" };
     const sl_chart_category cats[3] = {
-        { "ox90 / none", a, fa, NULL, 5, { -1.0, 0.2 } },
-        { "ox90 / <anneal>", b_, NULL, NULL, 4, { 0.5, 0.3 } },
-        { "alox20 / anneal", c, fc, names_c, 3, { NAN, 0.0 } },
+        { "ox90 / none", a, fa, NULL, 5, { -1.0, 0.2 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+        { "ox90 / <anneal>", b_, NULL, NULL, 4, { 0.5, 0.3 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+        { "alox20 / anneal", c, fc, names_c, 3, { NAN, 0.0 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
     };
     sl_chart_frame f = demo_frame("neutrality point by split");
     sl_chart_buf b1, b2;
@@ -845,8 +845,8 @@ START_TEST(test_degenerate_inputs_stay_clean)
     const double nans[3] = { NAN, INFINITY, -INFINITY };
     const double same[3] = { 4.0, 4.0, 4.0 };
     const sl_chart_category cats[2] = {
-        { "all missing", nans, NULL, NULL, 3, { NAN, NAN } },
-        { "constant", same, NULL, NULL, 3, { 4.0, 0.0 } },
+        { "all missing", nans, NULL, NULL, 3, { NAN, NAN }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+        { "constant", same, NULL, NULL, 3, { 4.0, 0.0 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
     };
     const sl_chart_series series[2] = { { "bad", nans, nans, 3, 1, 1 },
                                         { NULL, same, same, 3, 1, 1 } };

@@ -287,6 +287,35 @@ START_TEST(wafers_needed_is_smallest)
 }
 END_TEST
 
+/* Two batched steps of one-wafer loads over 1100 wafers: 2200 loads, beyond
+ * what the dense GLS of several steps takes; the layout is still made and
+ * the power says unknown. */
+START_TEST(too_many_loads_unknown)
+{
+    sl_plan *plan = parse_text(
+        "lot: L-2\n"
+        "temperatures_K: [300]\n"
+        "dielectrics: [ { name: ox, layers: [ { material: SiO2, thickness_nm: 90 } ] },\n"
+        "               { name: ox2, layers: [ { material: SiO2, thickness_nm: 60 } ] } ]\n"
+        "treatments: [ { name: a, doping_per_cm2: { mean: 1e12 } },\n"
+        "              { name: b, doping_per_cm2: { mean: 1e12 } } ]\n"
+        "design: { kind: full-factorial, factors: { dielectric: [ox, ox2], s1: [a], s2: [b] },\n"
+        "          wafers_per_split: 550 }\n"
+        "batches: [ { step: a, capacity: 1 }, { step: b, capacity: 1 } ]\n"
+        "variation: { wafer_sigma_per_cm2: 1e11, device_sigma_V: 0.5, batch_sigma_per_cm2: 1e11 }\n"
+        "resolve: { shift_per_cm2: 3e11 }\n"
+        "wafers: 1100\n"
+        "devices_per_wafer: 10\n");
+    sl_layout *l = build(plan);
+    ck_assert_uint_eq(l->n_loads, 2200);
+    ck_assert_uint_eq(l->n_levels, 1);
+    ck_assert_int_eq(l->levels[0].verdict, SL_LAYOUT_UNKNOWN);
+    ck_assert(isnan(l->levels[0].power));
+    sl_layout_free(l);
+    sl_plan_free(plan);
+}
+END_TEST
+
 /* Loads: every pda-400 wafer in one load of at most 6, no other wafer in a
  * load, and each load holds 3 wafers of each dielectric (balanced). */
 START_TEST(loads_capacity_and_balance)
@@ -616,6 +645,7 @@ static Suite *layout_suite(void)
     tcase_add_test(tc, df_and_power_per_level);
     tcase_add_test(tc, wafers_needed_is_smallest);
     tcase_add_test(tc, loads_capacity_and_balance);
+    tcase_add_test(tc, too_many_loads_unknown);
     tcase_add_test(tc, fraction_montgomery_2_4_1);
     tcase_add_test(tc, fraction_resolution_three_said_plainly);
     tcase_add_test(tc, simulated_power_agrees);

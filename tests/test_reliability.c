@@ -456,6 +456,80 @@ START_TEST(full_disk_refused_cleanly)
 }
 END_TEST
 
+/* The small lot with one bad r_ohm in every fiftieth row: with
+ * --keep-going about half its devices are rejected. */
+static char *write_half_bad_csv(void)
+{
+    char *text = sl_test_read_file(rig.small_csv, NULL);
+    ck_assert_ptr_nonnull(text);
+    char *path = rig_path("half-bad.csv");
+    FILE *f = fopen(path, "wb");
+    ck_assert_ptr_nonnull(f);
+    long line = 0;
+    for (char *p = text; *p;) {
+        char *nl = strchr(p, '\n');
+        size_t n = nl ? (size_t)(nl - p) : strlen(p);
+        size_t at = 0, end, commas = 0; /* the sixth field, r_ohm */
+        while (at < n && commas < 5)
+            commas += p[at++] == ',';
+        for (end = at; end < n && p[end] != ',';)
+            end++;
+        if (++line % 50 == 0 && commas == 5)
+            fprintf(f, "%.*sbad%.*s\n", (int)at, p, (int)(n - end), p + end);
+        else
+            fprintf(f, "%.*s\n", (int)n, p);
+        p += n + (nl != NULL);
+    }
+    ck_assert_int_eq(fclose(f), 0);
+    free(text);
+    return path;
+}
+
+/* --keep-going with the rejects file on a full disk: the import fails with
+ * exit 1 and leaves the database as it was (the good devices are not kept
+ * without their rejects) and no half-written rejects file. */
+START_TEST(rejects_on_full_disk_leave_database_unchanged)
+{
+    char *mnt = rig_path("rejects-full");
+    int e = mount_tmpfs(mnt, 64);
+    if (e != 0) {
+        skip_note("rejects_on_full_disk_leave_database_unchanged", "cannot mount a small tmpfs", e);
+        free(mnt);
+        return;
+    }
+    char *db = work_db("rejects.db");
+    char *bad = write_half_bad_csv();
+    char *rejects = sl_test_path(mnt, "rejects.csv");
+    const char *argv[] = { "ingest", "--lot", "DEMO-01", "--sweeps", bad, "--db", db,
+                           "--keep-going", "--rejects", rejects, NULL };
+    sl_run_result r = sl_test_run(rig.dir, NULL, argv);
+    int left = access(rejects, F_OK) == 0;
+    umount2(mnt, MNT_DETACH);
+    ck_assert_msg(r.exit_code == 1, "exit %d: %s", r.exit_code, r.err);
+    ck_assert_msg(strstr(r.err, "cannot write the rejects file"), "stderr: %s", r.err);
+    ck_assert_msg(!left, "a half-written rejects file was left");
+    assert_integrity(db);
+    assert_same_lot(digest_lot(db, "EARLY-01"), rig.early, "earlier lot");
+    ck_assert_int_eq(digest_lot(db, "DEMO-01").devices, 0);
+    /* the same import with room for the rejects keeps the good devices */
+    char *room = rig_path("rejects.csv");
+    const char *again[] = { "ingest", "--lot", "DEMO-01", "--sweeps", bad, "--db", db,
+                            "--keep-going", "--rejects", room, NULL };
+    sl_run_result_free(&r);
+    r = sl_test_run(rig.dir, NULL, again);
+    ck_assert_msg(r.exit_code == 0, "exit %d: %s", r.exit_code, r.err);
+    long stored = digest_lot(db, "DEMO-01").devices;
+    ck_assert_msg(stored > 0 && file_size(room) > 64 * 1024, "%ld devices, rejects %ld bytes",
+                  stored, file_size(room));
+    sl_run_result_free(&r);
+    free(room);
+    free(rejects);
+    free(bad);
+    free(db);
+    free(mnt);
+}
+END_TEST
+
 START_TEST(file_size_limit_refused_cleanly)
 {
     SL_TEST_SQLITE_ONLY(); /* the file system under an SQLite file */
@@ -928,6 +1002,7 @@ static Suite *reliability_suite(void)
     tcase_add_unchecked_fixture(root, rig_setup, rig_teardown);
     tcase_set_timeout(root, 900);
     tcase_add_test(root, full_disk_refused_cleanly);
+    tcase_add_test(root, rejects_on_full_disk_leave_database_unchanged);
     tcase_add_test(root, read_only_file_system_refused);
     tcase_add_test(root, immutable_database_refused);
     suite_add_tcase(s, root);

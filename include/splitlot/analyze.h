@@ -23,6 +23,7 @@
 #define SL_FLAG_UNMEASURED     0x08u /* probed, no neutrality point reported */
 #define SL_FLAG_BELOW_FLOOR    0x10u /* fitted n0 below the thermal floor at the view's
                                         temperature: the fit or the temperature is wrong */
+#define SL_FLAG_HYSTERESIS     0x20u /* |hysteresis| above the plan's device.max_hysteresis_V */
 
 /* Share of censored devices in a split above which the output warns. */
 #define SL_ANALYZE_CENSORED_WARN 0.10
@@ -82,6 +83,14 @@ typedef struct {
      * predicted +/- SL_ANALYZE_INTERVAL_SIGMAS sqrt(sigma_pred^2 +
      * spread^2), spread as above. */
     double flag_low_V, flag_high_V;
+    /* The carrier-density window within the split's gate range: predicted
+     * (stored: electrons n - p at the top end, holes p - n at the bottom,
+     * from the predicted V_cnp) and reached (the same from the measured mean
+     * V_cnp, by the charge balance at the view's temperature; NaN without
+     * a mean), cm^-2; and the share of the devices with a fitted or
+     * censored V_cnp whose neutrality point stayed inside the sweep. */
+    double window_predicted_per_cm2[2], window_reached_per_cm2[2]; /* electrons, holes */
+    double inside_share;
     int prediction_in_ci;
     size_t n_flagged;
 } sl_analyze_split;
@@ -116,6 +125,7 @@ typedef struct sl_analysis {
                                     stream's summary */
     size_t n_flagged;
     size_t n_usable;
+    size_t n_with_hysteresis;    /* devices with a hysteresis (double sweeps) */
     size_t n_off_plan;           /* levels flagged: off-plan or differs */
     size_t n_verdict[4];         /* levels (not the intercept) per verdict */
     size_t n_censored;           /* devices with V_cnp beyond the sweep */
@@ -210,9 +220,9 @@ sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
 void sl_analysis_stream_rewind(sl_analysis_stream *stream);
 void sl_analysis_stream_free(sl_analysis_stream *stream);
 
-/* Flag names of a device, in a fixed order, into names (at most 5); returns
+/* Flag names of a device, in a fixed order, into names (at most 6); returns
  * the count: "outlier", "off-prediction", the fit class, "unmeasured",
- * "below-floor". */
+ * "below-floor", "hysteresis". */
 int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
 
 /* ---- history across lots ---- */

@@ -49,6 +49,12 @@ void sl_csv_free(sl_csv *csv);
 /* Name used in messages: the path, "<stdin>" or the stream name. */
 const char *sl_csv_name(const sl_csv *csv);
 
+/* The field separator, detected from the header row: the one of ',', ';'
+ * and '\t' found there most often outside quotes (',' on a tie or when there
+ * is none). Lines starting with '#' before the header are passed over. With
+ * ';' or '\t' numbers may use a decimal comma ("1,5"). */
+char sl_csv_separator(const sl_csv *csv);
+
 /* Header columns: count, the i-th name (NULL past the end), and the index of
  * a column by exact name, or -1 when the file has no such column. */
 size_t sl_csv_column_count(const sl_csv *csv);
@@ -88,8 +94,15 @@ bool sl_csv_is_empty(const sl_csv *csv, size_t field);
  * values (1e-320) are kept. Rejected with SL_EINPUT, message at
  * file:line:field quoting the token: empty field, junk, hexadecimal, nan, inf,
  * a value too large for a double (1e999) and a non-zero value that rounds to
- * zero (1e-999). */
+ * zero (1e-999). With a ';' or tab separator a decimal comma is accepted
+ * ("-0,25"; not with a point as well). */
 sl_status sl_csv_number(double *out, const sl_csv *csv, size_t field, sl_diag *diag);
+
+/* sl_csv_number for a value written in a unit 10^exp10 times its SI unit
+ * (exp10 -6 for uA): the SI value, rounded once from the decimal text, so
+ * "2.5" at -6 gives exactly the double nearest 2.5e-6. Same errors. */
+sl_status sl_csv_number_e(double *out, const sl_csv *csv, size_t field, int exp10,
+                          sl_diag *diag);
 
 /* The field as text for keeping (names, ids): checks it is valid UTF-8
  * (no overlong forms, surrogates or code points past U+10FFFF), has no control
@@ -106,5 +119,10 @@ bool sl_csv_utf8_valid(const char *bytes, size_t len);
 /* Parse a whole NUL-terminated token with the rules of sl_csv_number; returns
  * false (and leaves *out alone) when it is not a valid finite number. */
 bool sl_csv_parse_double(double *out, const char *token, size_t len);
+
+/* The same scaled by 10^exp10 and rounded once, with a decimal comma
+ * accepted when decimal_comma is true. */
+bool sl_csv_parse_double_e(double *out, const char *token, size_t len, int exp10,
+                           bool decimal_comma);
 
 #endif

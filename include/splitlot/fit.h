@@ -168,6 +168,35 @@ void sl_fit_workspace_free(sl_fit_workspace *ws);
 sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_config *cfg,
                        const double *vg_V, const double *r_ohm, size_t n_points);
 
+/* Double sweeps: a forward and a reverse branch of one device, fitted each on
+ * its own. Where the gate voltage of a sweep in file order turns back: the
+ * index of the first point of the second branch when the voltage runs one
+ * way and then the other, turning exactly once (repeated voltages, such as
+ * the end point measured twice, do not count as a turn); 0 for a sweep that
+ * runs one way only or turns more than once. */
+size_t sl_fit_sweep_turn(const double *vg_V, size_t n_points);
+
+typedef struct {
+    int is_double;        /* two branches of at least SL_FIT_MIN_POINTS each */
+    sl_fit_result forward, reverse; /* each branch's fit (is_double only) */
+    double hysteresis_V;  /* V_cnp(reverse) - V_cnp(forward); NaN unless both ok */
+    /* The device: a single sweep's fit; for a double sweep, when both
+     * branches are ok, each parameter the mean of the two branches, its
+     * standard error half the root sum of squares (independent branches),
+     * rel_rms the larger, r_squared the smaller, spikes and iterations
+     * summed; else the first branch that is not ok, as it is. */
+    sl_fit_result device;
+} sl_fit_double_result;
+
+/* Fit a sweep that may be a double sweep. direction (NULL, or per point +1
+ * forward, -1 reverse, 0 unknown) splits the points when it names both
+ * branches; without it sl_fit_sweep_turn decides. A branch with fewer than
+ * SL_FIT_MIN_POINTS points, or points with no direction among named ones,
+ * make the sweep a single one, fitted whole. Statuses of sl_fit_sweep. */
+sl_status sl_fit_double_sweep(sl_fit_double_result *out, sl_fit_workspace *ws,
+                              const sl_fit_config *cfg, const double *vg_V, const double *r_ohm,
+                              const signed char *direction, size_t n_points);
+
 /* The model resistance in ohm at gate voltage vg_V (for simulation and
  * report curves), with the config's density model. */
 double sl_fit_model_ohm(const sl_fit_params *p, const sl_fit_config *cfg, double vg_V);

@@ -38,6 +38,11 @@ typedef struct {
                                   the plan's first temperature */
     int threads;               /* fitting threads, >= 1 (sweeps only) */
     sl_fit_model fit_model;    /* sweeps: symmetric (default) or two mobilities */
+    const char *columns;       /* extra column mappings "vg_V=GateVoltage,..." or NULL
+                                  (see sl_rowsrc_open) */
+    int keep_going;            /* store the good devices of a file with problems */
+    const char *rejects_path;  /* with keep_going: the rejected devices' rows, as
+                                  the file wrote them, plus a reason column; or NULL */
     /* sweeps: the gate's carrier density from the charge balance with
      * quantum capacitance at each device's temperature (default), or the
      * short form C_g (V_g - V_cnp) / e */
@@ -60,6 +65,16 @@ typedef struct {
     } runs[SL_INGEST_MAX_RUNS];
     char sha256[65];           /* of the file's bytes, hex */
     double seconds;
+    char separator;            /* of the file: ',', ';' or '\t' */
+    char unused_columns[256];  /* header names nobody read, ", "-separated */
+    long errors;               /* problems found in the file */
+    long rejected_devices;     /* --keep-going: devices not stored */
+    long rejected_rows;        /* their rows written to the rejects file */
+    long points_overflow;      /* sweeps: instrument overflow values, dropped */
+    long devices_with_overflow;
+    long points_compliance;    /* sweeps: points at compliance, dropped */
+    long double_sweeps;        /* sweeps: devices fitted branch by branch */
+    long hysteresis_flagged;   /* above the plan's device.max_hysteresis_V */
 } sl_ingest_summary;
 
 /* Import a file into a lot of an open store, in one transaction, as one
@@ -72,8 +87,13 @@ typedef struct {
  * or Inf, unknown or spare wafer, die outside the wafer map or other than
  * the device's stored die, a device twice at one temperature, a temperature
  * not in the plan, a sweep with fewer than SL_FIT_MIN_POINTS points),
- * SL_ENOTFOUND for an unknown lot, SL_EIO, SL_EDB, SL_ENOMEM. On any error
- * nothing of the import is kept. */
+ * SL_ENOTFOUND for an unknown lot, SL_EIO, SL_EDB, SL_ENOMEM. Problems of
+ * rows are all looked for: the first 20 of the file are reported one by one,
+ * then their count. Without keep_going, on any error nothing of the import is
+ * kept; with it, devices with a problem in their rows are left out (their
+ * rows written to rejects_path) and the rest stored; a problem the store
+ * finds (a device at another die than stored) still fails the whole import,
+ * as does a rejects file that cannot be written. */
 sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
                         const sl_ingest_options *options, sl_diag *diag);
 

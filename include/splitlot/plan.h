@@ -50,6 +50,12 @@ typedef struct {
     double doping_tolerance_per_cm2; /* `tolerance`; NaN when not given */
 } sl_plan_treatment;
 
+/* A transistor of the die (plan key device_types): its channel. */
+typedef struct {
+    char *name;
+    double channel_length_um, channel_width_um;
+} sl_plan_device_type;
+
 /* A factor and its levels. Factor 0 is "dielectric" with dielectric names as
  * levels; other factors' levels are treatment names or "none". For an explicit
  * design every treatment used becomes a two-level factor named after it:
@@ -149,7 +155,18 @@ typedef struct sl_plan {
     sl_plan_generator *generators;    /* fractional-factorial only */
     size_t n_generators;
     double gate_derating;             /* 0.5: safe range from breakdown */
+    /* wafer_map.first_die: the prober's coordinates [die_x, die_y] of the
+     * first die (default [0, 0], negative allowed); die_x runs over
+     * first_die_x .. first_die_x + wafer_cols - 1, die_y likewise */
+    long first_die_x, first_die_y;
+    long devices_per_die;             /* wafer_map.devices_per_die, default 1 */
+    sl_plan_device_type *device_types; /* device_types, none when absent */
+    size_t n_device_types;
+    double max_hysteresis_V;          /* device.max_hysteresis_V; NaN: no limit */
 } sl_plan;
+
+/* Device type by name, or -1. */
+long sl_plan_device_type_index(const sl_plan *plan, const char *name);
 
 /* Read, parse and validate a plan file ("-" is not accepted). Every problem is
  * added to diag as "path:line:col" errors; warnings (exit 0 in `check`) too.

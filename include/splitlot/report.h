@@ -33,6 +33,7 @@ typedef struct {
 typedef struct {
     size_t bytes;              /* length of the HTML */
     size_t n_strip_charts;     /* one per dielectric */
+    size_t n_hysteresis_charts; /* one per dielectric with double sweeps */
     size_t n_wafer_maps;       /* one per wafer with devices */
     size_t n_dies;             /* die elements over all wafer maps */
     size_t n_dies_off_grid;    /* devices whose die lies outside the plan's grid */

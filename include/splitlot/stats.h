@@ -28,6 +28,9 @@
 #define SL_STATS_CHART_SIGMAS 3.0
 /* Relative singular value below which a design column counts as dependent. */
 #define SL_STATS_RANK_TOL 1e-10
+/* Most loads a GLS over several batched steps takes (its dense block of the
+ * loads grows as their square). */
+#define SL_STATS_MAX_DENSE_LOADS 1024
 /* Most coefficients a wafer-level fit takes. */
 #define SL_STATS_MAX_COEF 64
 /* sl_stats_column.factor of the intercept column. */
@@ -389,9 +392,10 @@ sl_status sl_stats_individuals_chart(sl_stats_ichart *out, int *flags, const dou
 /* Survival function P[T' > t] of the noncentral t with df > 0 degrees of
  * freedom and noncentrality nc: T' = (Z + nc) / sqrt(V / df), Z standard
  * normal, V chi-square with df. GSL has no noncentral t; this integrates
- * P[Z > t sqrt(v/df) - nc] against the chi-square density of v
- * (gsl_integration_qags/qagiu, gsl_cdf_ugaussian_Q, gsl_ran_chisq_pdf),
- * absolute error below 1e-10. NaN for df <= 0 or a NaN argument. */
+ * P[Z > t sqrt(v/df) - nc] against the chi-square density of v over
+ * df +/- 40 standard deviations (gsl_integration_qags, gsl_cdf_ugaussian_Q,
+ * gsl_ran_chisq_pdf), absolute error below 1e-10. NaN for df <= 0 or a NaN
+ * argument. */
 double sl_stats_nct_sf(double t, double df, double nc);
 
 /* Distribution function P[T' <= t] = 1 - sl_stats_nct_sf(t, df, nc). */
@@ -430,7 +434,8 @@ typedef struct {
  * row-major, caller's array), V^-1 by the Woodbury identity so the cost is
  * linear in n_obs (gsl_linalg_cholesky_decomp1, gsl_linalg_cholesky_invert;
  * with one batched step the loads' block is diagonal and needs neither).
- * Returns SL_OK, SL_EINPUT (bad sizes or variances), SL_ENUM (X^T V^-1 X is
+ * Returns SL_OK, SL_EINPUT (bad sizes or variances, more than
+ * SL_STATS_MAX_DENSE_LOADS loads over several steps), SL_ENUM (X^T V^-1 X is
  * singular: a coefficient the design cannot estimate), SL_ENOMEM. */
 sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model);
 

@@ -6,6 +6,9 @@
 #ifndef SPLITLOT_UNITS_H
 #define SPLITLOT_UNITS_H
 
+#include <stdbool.h>
+#include <stddef.h>
+
 #define SL_SI_ELEMENTARY_CHARGE 1.602176634e-19  /* C, exact (CODATA 2018) */
 #define SL_SI_PLANCK 6.62607015e-34              /* J s, exact (CODATA 2018) */
 #define SL_SI_HBAR (SL_SI_PLANCK / (2.0 * 3.14159265358979323846)) /* J s */
@@ -21,6 +24,23 @@
 #define SL_M_PER_NM 1.0e-9            /* length: nm -> m */
 #define SL_V_PER_M_PER_MV_CM 1.0e8    /* field: MV/cm -> V/m */
 #define SL_M2_PER_CM2 1.0e-4          /* area: cm^2 -> m^2 (mobility cm^2/Vs -> m^2/Vs) */
+
+/* Dimensions of the quantities measurement files give with a unit. */
+typedef enum { SL_DIM_VOLT = 0, SL_DIM_AMPERE, SL_DIM_OHM, SL_DIM_KELVIN } sl_dimension;
+
+/* The unit a file writes a quantity in, as a power of ten of its SI unit
+ * (the one conversion table; src/units.c): V, mV, uV, kV; A, mA, uA, nA, pA;
+ * ohm, kohm, Mohm, Gohm (also written with the ohm sign); K. The micro prefix
+ * may be 'u' or the micro or mu sign. The spelling is matched exactly first,
+ * then without regard to case when that names one unit ("OHM", "MOhm", "mv"),
+ * except that an 'm' and an 'M' prefix are never taken for one another
+ * ("MV" is refused). Returns true with *exp10 set (the SI
+ * value is the written value times 10^exp10), false for a unit not in the
+ * table or of another dimension. */
+bool sl_units_exp10(int *exp10, sl_dimension dim, const char *unit, size_t len);
+
+/* The SI unit's name of a dimension ("V", "A", "ohm", "K"). */
+const char *sl_units_si_name(sl_dimension dim);
 
 /* A value with its one-standard-deviation uncertainty, same unit for both. */
 typedef struct {

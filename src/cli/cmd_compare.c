@@ -69,7 +69,7 @@ typedef struct {
 
 static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_device *d, int table)
 {
-    const char *names[5];
+    const char *names[6];
     cli_table_row(t);
     cli_cell_str(t, d->wafer);
     cli_cell_str(t, d->device);
@@ -87,6 +87,8 @@ static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_devi
     if (!table)
         cli_cell_num(t, d->modified_z);
     cli_cell_list(t, names, sl_analyze_flag_names(d, names));
+    if (table && a->n_with_hysteresis > 0)
+        cli_cell_num(t, d->hysteresis_V);
     if (table)
         return;
     double numbers[] = { d->mobility_cm2_per_Vs, d->n0_per_cm2, d->r_contact_ohm, d->hysteresis_V,
@@ -127,6 +129,8 @@ static void devices_table(cli_doc *doc, compare_rows *rows)
     if (!table)
         cli_table_col_fixed(t, "modified_z", "M", 2);
     cli_table_col_list(t, "flags", "flags");
+    if (table && rows->a->n_with_hysteresis > 0) /* a lot of double sweeps */
+        cli_table_col_fixed(t, "hysteresis_V", "hyst", 2);
     if (table)
         return;
     cli_table_col_int(t, "measurements", "n");

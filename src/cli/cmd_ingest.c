@@ -17,18 +17,25 @@ static const char usage[] =
     "usage: splitlot ingest --lot ID (--results FILE | --sweeps FILE) [options]\n\n"
     "Import measurements of a lot whose plan was stored by 'splitlot predict'.\n"
     "Results: one row per device (wafer,device,die_x,die_y,v_cnp_V[,mobility_cm2_per_Vs,\n"
-    "n0_per_cm2,r_contact_ohm,temperature_K]). Sweeps: one row per point\n"
-    "(wafer,device,die_x,die_y,vg_V,r_ohm[,temperature_K]); each device's transfer\n"
-    "curve is fitted, one temperature at a time. FILE '-' reads standard input.\n"
+    "n0_per_cm2,r_contact_ohm,hysteresis_V,temperature_K]). Sweeps: one row per point\n"
+    "(wafer,device,die_x,die_y,vg_V and r_ohm or id_A with vd_V[,temperature_K,\n"
+    "direction,compliance]); each device's transfer curve is fitted, one temperature\n"
+    "at a time, a double sweep branch by branch. Columns may carry their unit\n"
+    "(\"Vg [V]\", \"Id (uA)\", \"R [kOhm]\"); the separator (comma, semicolon, tab) is\n"
+    "found from the header. FILE '-' reads standard input.\n"
     "Each import is a measurement run per temperature; a device measured again at\n"
     "the same step and temperature (a re-probe) supersedes its earlier measurement,\n"
-    "which stays stored. Nothing is kept of an import that fails.\n\n"
+    "which stays stored. Nothing is kept of an import with problems, unless\n"
+    "--keep-going.\n\n"
     "  --lot ID                  the lot\n"
     "  --results FILE            device results CSV\n"
     "  --sweeps FILE             transfer sweeps CSV\n"
     "  --step NAME               process step measured after (default final)\n"
     "  --temperature-K T         temperature of rows without a temperature_K value\n"
     "                            (one of the plan's; default the plan's first)\n"
+    "  --columns Q=COL[,...]     read quantity Q (vg_V, id_uA, ...) from column COL\n"
+    "  --keep-going              store the good devices of a file with problems\n"
+    "  --rejects FILE            with --keep-going: the rejected devices' rows and why\n"
     "  --threads N               fitting threads (default: the machine's cores)\n"
     "  --model symmetric|two-mobility\n"
     "                            transfer-curve model for sweeps: one mobility, or\n"
@@ -41,7 +48,8 @@ static const char usage[] =
     "  --help                    this text\n";
 
 enum { OPT_LOT = 1, OPT_RESULTS, OPT_SWEEPS, OPT_REPLACE, OPT_STEP, OPT_TEMPERATURE, OPT_THREADS,
-       OPT_MODEL, OPT_DENSITY, OPT_DB, OPT_FORMAT, OPT_HELP };
+       OPT_MODEL, OPT_DENSITY, OPT_DB, OPT_FORMAT, OPT_HELP, OPT_COLUMNS, OPT_KEEP_GOING,
+       OPT_REJECTS };
 
 static const struct option options[] = {
     { "lot", required_argument, NULL, OPT_LOT },
@@ -56,6 +64,9 @@ static const struct option options[] = {
     { "db", required_argument, NULL, OPT_DB },
     { "format", required_argument, NULL, OPT_FORMAT },
     { "help", no_argument, NULL, OPT_HELP },
+    { "columns", required_argument, NULL, OPT_COLUMNS },
+    { "keep-going", no_argument, NULL, OPT_KEEP_GOING },
+    { "rejects", required_argument, NULL, OPT_REJECTS },
     { NULL, 0, NULL, 0 },
 };
 
@@ -66,9 +77,13 @@ typedef struct {
     int n_sources;
 } ingest_args;
 
+/* Shown only once an import has run for 2 s: short ones stay quiet. */
 static void progress_line(const sl_ingest_progress *p, void *ctx)
 {
-    (void)ctx;
+    int *shown = ctx;
+    if (p->seconds < 2.0)
+        return;
+    *shown = 1;
     double rate = p->seconds > 0 ? (double)p->rows / p->seconds : 0.0;
     fprintf(stderr, "\r%ld rows, %ld devices, %.0f rows/s, %.1f s   ", p->rows, p->devices, rate,
             p->seconds);
@@ -100,6 +115,9 @@ static int parse_args(ingest_args *a, int argc, char **argv)
                 return CLI_EXIT_USAGE;
             break;
         case OPT_DB: a->db = optarg; break;
+        case OPT_COLUMNS: a->opt.columns = optarg; break;
+        case OPT_KEEP_GOING: a->opt.keep_going = 1; break;
+        case OPT_REJECTS: a->opt.rejects_path = optarg; break;
         case OPT_THREADS:
             if (cli_parse_long("--threads", optarg, 1, &threads) != 0)
                 return CLI_EXIT_USAGE;
@@ -134,6 +152,8 @@ static int parse_args(ingest_args *a, int argc, char **argv)
         return cli_usage_error("ingest: --lot is required (see 'splitlot ingest --help')");
     if (a->n_sources != 1)
         return cli_usage_error("ingest: give exactly one of --results FILE or --sweeps FILE");
+    if (a->opt.rejects_path && !a->opt.keep_going)
+        return cli_usage_error("ingest: --rejects FILE goes with --keep-going");
     return 0;
 }
 
@@ -146,6 +166,21 @@ static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
     cli_doc_num(doc, "devices", (double)s->devices, 15);
     cli_doc_str(doc, "step", a->opt.step ? a->opt.step : "final");
     cli_doc_str(doc, "source_sha256", s->sha256);
+    char sep[2] = { s->separator ? s->separator : ',', '\0' };
+    cli_doc_str(doc, "separator", sep[0] == '\t' ? "tab" : sep);
+    cli_doc_str(doc, "unused_columns", s->unused_columns);
+    if (a->opt.kind == SL_INGEST_SWEEPS) {
+        cli_doc_num(doc, "double_sweeps", (double)s->double_sweeps, 15);
+        cli_doc_num(doc, "hysteresis_above_plan", (double)s->hysteresis_flagged, 15);
+        cli_doc_num(doc, "points_dropped_overflow", (double)s->points_overflow, 15);
+        cli_doc_num(doc, "devices_with_overflow", (double)s->devices_with_overflow, 15);
+        cli_doc_num(doc, "points_dropped_compliance", (double)s->points_compliance, 15);
+    }
+    if (a->opt.keep_going) {
+        cli_doc_num(doc, "devices_rejected", (double)s->rejected_devices, 15);
+        cli_doc_num(doc, "rows_rejected", (double)s->rejected_rows, 15);
+        cli_doc_num(doc, "problems", (double)s->errors, 15);
+    }
     cli_doc_num(doc, "seconds", s->seconds, 3);
     cli_doc_num(doc, "rows_per_second", s->seconds > 0 ? (double)s->rows / s->seconds : 0.0, 4);
     cli_table *r = cli_doc_table(doc, "runs", "measurement runs");
@@ -191,8 +226,11 @@ int cmd_ingest(int argc, char **argv)
     int rc = parse_args(&a, argc, argv);
     if (rc != 0)
         return rc < 0 ? CLI_EXIT_OK : rc;
-    if (isatty(STDERR_FILENO))
+    int progress_shown = 0;
+    if (isatty(STDERR_FILENO)) {
         a.opt.progress = progress_line;
+        a.opt.progress_ctx = &progress_shown;
+    }
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_ingest_summary summary;
@@ -204,8 +242,10 @@ int cmd_ingest(int argc, char **argv)
     sl_status st = sl_store_open(&store, db, diag);
     if (st == SL_OK)
         st = sl_ingest_run(&summary, store, &a.opt, diag);
-    if (a.opt.progress)
+    if (progress_shown)
         fputs("\n", stderr);
+    if (st == SL_OK)
+        cli_print_diag(diag); /* --keep-going: the problems of the devices left out */
     rc = st == SL_OK ? print_summary(&a, &summary) : cli_fail(st, diag);
     sl_store_close(store);
     sl_diag_free(diag);

@@ -250,9 +250,15 @@ static void add_notes(cli_doc *doc, const layout_view *v)
                           "the unit is the wafer");
         cli_doc_note(doc, "(the load for a level done in loads of a batched step)");
     }
-    for (size_t k = 0; k < v->layout->n_levels; k++)
+    int unknown = 0;
+    for (size_t k = 0; k < v->layout->n_levels; k++) {
+        unknown |= v->layout->levels[k].verdict == SL_LAYOUT_UNKNOWN;
         if (v->layout->levels[k].verdict == SL_LAYOUT_TOO_FEW)
             suggestion(doc, plan, &v->layout->levels[k]);
+    }
+    if (unknown && plan->variation.present && plan->resolve.present)
+        cli_doc_note(doc, "power unknown: no wafer-level scatter in 'variation', or more loads "
+                          "over several batched steps than the model takes");
     if (v->mc) {
         snprintf(text, sizeof text,
                  "simulated %zu lots: 'seen' are the observed off-plan rates with a miss of",

@@ -790,8 +790,11 @@ static int print_table(const cli_doc *doc, FILE *out)
             fprintf(out, "%s:\n  ", doc->scalars[i].key);
             print_list_plain(out, &doc->scalars[i], "\n  ");
             fputc('\n', out);
-        } else if (doc->scalars[i].digits < 0)
-            fprintf(out, "%s: %s\n", doc->scalars[i].key, doc->scalars[i].text);
+        } else if (doc->scalars[i].digits < 0) /* a reader sees '-' for no value */
+            fprintf(out, "%s: %s\n", doc->scalars[i].key,
+                    doc->scalars[i].text && *doc->scalars[i].text ? doc->scalars[i].text : "-");
+        else if (isnan(doc->scalars[i].num))
+            fprintf(out, "%s: -\n", doc->scalars[i].key);
         else
             fprintf(out, "%s: %.*g\n", doc->scalars[i].key, doc->scalars[i].digits, doc->scalars[i].num);
     }

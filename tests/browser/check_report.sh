@@ -77,8 +77,11 @@ dies=$(($(count 'class="die"') + $(count 'class="die ')))
 [ "$dies" -eq "$devices" ] || fail "$dies die elements, the analysis has $devices devices"
 n=$(count 'class="die flagged"')
 [ "$n" -eq "$flagged" ] || fail "$n flagged dies, compare flags $flagged devices"
-n=$(count 'class="point flagged"')
+# the splits section alone: the device-parameter charts mark flagged devices too
+awk 'BEGIN { RS = "<section id=\"" } /^splits"/ { print }' dom.html > splits.html
+n=$(grep -o 'class="point flagged"' splits.html | wc -l | tr -d ' ')
 [ "$n" -eq "$flagged_usable" ] || fail "$n flagged markers, $flagged_usable flagged usable devices"
+[ "$(count '<figure class="strip parameter"')" -ge 2 ] || fail "no mobility and n0 charts"
 grep -q "data-verdict=\"flagged\" data-count=\"$flagged\"" dom.html ||
     fail "the flagged verdict does not say $flagged"
 [ "$(count '<script')" -eq 0 ] || fail "the page has a script"
