@@ -324,10 +324,12 @@ static sl_status read_geometry(ingest_ctx *c, ingest_row *row)
             const char *names[64];
             for (size_t i = 0; i < p->n_device_types && i < 64; i++)
                 names[i] = p->device_types[i].name;
-            const char *near = sl_text_nearest(type, names, p->n_device_types < 64 ? p->n_device_types : 64, 2);
-            ingest_error_at_row(c, c->col.device_type, "unknown device_type '%s'%s%s%s%s", type,
+            char hint[96];
+            ingest_error_at_row(c, c->col.device_type, "unknown device_type '%s'%s%s", type,
                                 p->n_device_types ? "" : " (the plan has no device_types)",
-                                near ? " (did you mean '" : "", near ? near : "", near ? "'?)" : "");
+                                sl_text_did_you_mean(hint, sizeof hint, type, names,
+                                                     p->n_device_types < 64 ? p->n_device_types
+                                                                            : 64));
             return SL_EINPUT;
         }
         row->channel_length_um = p->device_types[row->device_type].channel_length_um;
