@@ -24,7 +24,6 @@
  * practice: a median and MAD of fewer points are too unstable): on the
  * device's wafer, and pooled over its dielectric's wafers. */
 #define SL_ANALYZE_MIN_PER_WAFER 3
-#define SL_ANALYZE_MIN_FOR_OUTLIERS 5
 
 /* Running state of one dielectric: the MAD of the residuals from the wafer
  * medians, pooled over its wafers. */
@@ -45,6 +44,7 @@ struct sl_analysis_stream {
     sl_analyze_wafer *wafer;      /* per plan wafer */
     sl_stats_median_search **wafer_search;
     dielectric_state *dielectric;
+    analyze_param_state *params;  /* per split: mobility, n0, hysteresis */
     int first_pass;               /* of a phase of median searches */
     const sl_store_device_row *row; /* behind device */
     sl_analyze_device device;       /* the one last given */
@@ -244,7 +244,8 @@ static sl_status alloc_state(sl_analysis_stream *s)
     s->wafer = calloc(nw + 1, sizeof *s->wafer);
     s->wafer_search = calloc(nw + 1, sizeof *s->wafer_search);
     s->dielectric = calloc(nd + 1, sizeof *s->dielectric);
-    if (!s->wafer || !s->wafer_search || !s->dielectric)
+    s->params = calloc((s->layout->n_splits + 1) * SL_ANALYZE_N_PARAMS, sizeof *s->params);
+    if (!s->wafer || !s->wafer_search || !s->dielectric || !s->params)
         return SL_ENOMEM;
     for (size_t w = 0; w < nw; w++)
         s->wafer[w].split = s->layout->wafers[w].split;
@@ -669,6 +670,8 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
     if (st == SL_OK)
         st = dielectric_mads(s, diag);
     if (st == SL_OK)
+        st = analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
+    if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)
         st = sl_analyze_wafer_statistics(&s->owner->pub, s->layout, s->wafer);
@@ -789,6 +792,9 @@ static void free_state(sl_analysis_stream *s)
     for (size_t d = 0; s->dielectric && d < s->owner->pub.plan->n_dielectrics; d++)
         sl_stats_median_search_free(s->dielectric[d].search);
     free(s->wafer_search);
+    for (size_t i = 0; s->params && i < s->layout->n_splits * SL_ANALYZE_N_PARAMS; i++)
+        sl_stats_median_search_free(s->params[i].search);
+    free(s->params);
     free(s->dielectric);
     free(s->wafer);
 }

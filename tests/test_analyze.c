@@ -7,12 +7,14 @@
  * is invented.
  */
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include <gsl/gsl_randist.h>
 #include <gsl/gsl_rng.h>
+#include <gsl/gsl_statistics_double.h>
 
 #include "analyze_internal.h"
 #include "splitlot/analyze.h"
@@ -652,6 +654,118 @@ START_TEST(test_residual_below_thermal_floor_flagged)
     free(src);
     free(path);
     free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* The stats fixture with invented mobility, n0 and hysteresis columns (a
+ * pattern by row index, spread enough to have a MAD), imported as lot
+ * STATS-01 into dir/t.db; low, when not NULL, names a row ("S01,D3,") whose
+ * mobility is set to low_mobility. */
+static char *params_lot(const char *low, const char *low_mobility)
+{
+    char *dir = sl_test_tmpdir();
+    char *src = sl_test_data("analyze/stats-results.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *path = sl_test_path(dir, "results.csv");
+    size_t cap = strlen(text) * 3 + 128, n = 0, i = 0;
+    char *out = malloc(cap);
+    char *save = NULL;
+    for (char *line = strtok_r(text, "\n", &save); line; line = strtok_r(NULL, "\n", &save), i++) {
+        if (i == 0) {
+            n += (size_t)snprintf(out + n, cap - n,
+                                  "%s,mobility_cm2_per_Vs,n0_per_cm2,hysteresis_V\n", line);
+            continue;
+        }
+        char mobility[32];
+        snprintf(mobility, sizeof mobility, "%g", 2000.0 + 37.0 * (double)((i * 7) % 13));
+        if (low && strncmp(line, low, strlen(low)) == 0)
+            snprintf(mobility, sizeof mobility, "%s", low_mobility);
+        n += (size_t)snprintf(out + n, cap - n, "%s,%s,%g,%g\n", line, mobility,
+                              1e11 * (1.0 + (double)((i * 5) % 11) / 10.0),
+                              0.01 * (double)((i * 3) % 7));
+    }
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    char *plan = sl_test_data("analyze/stats-lot.yaml");
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", "results.csv", "--db",
+                             "t.db", NULL };
+    run_quiet(dir, ingest);
+    free(out);
+    free(text);
+    free(src);
+    free(path);
+    free(plan);
+    return dir;
+}
+
+/* Median and spread of one parameter of split k over its usable devices,
+ * by GSL on the values held (gsl_stats_median, and gsl_stats_mad: 1.482602
+ * times the unscaled MAD, the same scaling as the analysis). */
+static void gsl_median_spread(const sl_analysis *a, size_t k, size_t offset, double *median,
+                              double *spread)
+{
+    double *x = malloc((a->n_devices + 1) * sizeof *x), *work = malloc((a->n_devices + 1) * sizeof *work);
+    size_t n = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        double v = *(const double *)((const char *)d + offset);
+        if ((size_t)d->split == k && isfinite(d->cnp_measured_V) && isfinite(v))
+            x[n++] = v;
+    }
+    *spread = n ? gsl_stats_mad(x, 1, n, work) : NAN;
+    *median = n ? gsl_stats_median(x, 1, n) : NAN;
+    free(x);
+    free(work);
+}
+
+/* Per split, the median and spread (1.4826 MAD) of mobility, n0 and
+ * hysteresis found in passes over the stream equal those GSL finds on the
+ * values held; the same numbers reach compare's JSON splits[]. */
+START_TEST(test_split_parameter_medians)
+{
+    char *dir = params_lot(NULL, NULL);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    const size_t offsets[3] = { offsetof(sl_analyze_device, mobility_cm2_per_Vs),
+                                offsetof(sl_analyze_device, n0_per_cm2),
+                                offsetof(sl_analyze_device, hysteresis_V) };
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        const double got[3][2] = { { sp->mobility_median_cm2_per_Vs, sp->mobility_spread_cm2_per_Vs },
+                                   { sp->n0_median_per_cm2, sp->n0_spread_per_cm2 },
+                                   { sp->hysteresis_median_V, sp->hysteresis_spread_V } };
+        for (int q = 0; q < 3; q++) {
+            double median, spread;
+            gsl_median_spread(a, k, offsets[q], &median, &spread);
+            ck_assert(isfinite(median) && spread > 0.0);
+            check_rel("median", got[q][0], median, 1e-12);
+            check_rel("spread", got[q][1], spread, 1e-12);
+        }
+    }
+    /* 11 usable devices of ox90-plain with one value each: JSON as the library */
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result r = run_ok(dir, compare);
+    char row[4096];
+    json_row_where(r.out, "splits", "split", "ox90-plain", row, sizeof row);
+    check_rel("json mobility median", json_num(row, "mobility_median_cm2_per_Vs"),
+              a->splits[0].mobility_median_cm2_per_Vs, 1e-9);
+    check_rel("json n0 spread", json_num(row, "n0_spread_per_cm2"), a->splits[0].n0_spread_per_cm2,
+              1e-9);
+    check_rel("json hysteresis median", json_num(row, "hysteresis_median_V"),
+              a->splits[0].hysteresis_median_V, 1e-9);
+    sl_run_result_free(&r);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
     sl_test_rmtree(dir);
     free(dir);
 }
@@ -1694,6 +1808,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_anova_and_ci_against_scipy);
     tcase_add_test(stats, test_lot_with_a_wafer_missing);
     tcase_add_test(stats, test_library_analysis);
+    tcase_add_test(stats, test_split_parameter_medians);
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);

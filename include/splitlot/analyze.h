@@ -93,6 +93,12 @@ typedef struct {
     double inside_share;
     int prediction_in_ci;
     size_t n_flagged;
+    /* Over the split's usable devices that have the value: the median and
+     * the robust spread 1.4826 MAD (MAD = median |x - median|, scaled to
+     * estimate a normal sigma); NaN when no device has the value. */
+    double mobility_median_cm2_per_Vs, mobility_spread_cm2_per_Vs;
+    double n0_median_per_cm2, n0_spread_per_cm2;
+    double hysteresis_median_V, hysteresis_spread_V;
 } sl_analyze_split;
 
 typedef struct {

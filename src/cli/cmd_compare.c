@@ -177,7 +177,9 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
 {
     cli_table *t = cli_doc_table(doc, "splits",
                                  "splits (neutrality voltage, V, from wafer means; 95 % CI by "
-                                 "Student t with wafers - 1 df)");
+                                 "Student t with wafers - 1 df; mobility cm^2/Vs, n0 cm^-2 and "
+                                 "hysteresis V: median and spread = 1.4826 MAD of the usable "
+                                 "devices)");
     cli_table_col_str(t, "split", "split");
     cli_table_col_int(t, "devices", "dev");
     cli_table_col_int(t, "usable", "ok");
@@ -190,6 +192,12 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
     cli_table_col_fixed(t, "bias_V", "bias", 2);
     cli_table_col_bool(t, "prediction_in_ci", "in CI");
     cli_table_col_int(t, "flagged", "flagged");
+    cli_table_col_num(t, "mobility_median_cm2_per_Vs", "mu med", 4);
+    cli_table_col_num(t, "mobility_spread_cm2_per_Vs", "mu spr", 2);
+    cli_table_col_num(t, "n0_median_per_cm2", "n0 med", 3);
+    cli_table_col_num(t, "n0_spread_per_cm2", "n0 spr", 2);
+    cli_table_col_num(t, "hysteresis_median_V", "hyst med", 3);
+    cli_table_col_num(t, "hysteresis_spread_V", "hyst spr", 2);
     for (size_t s = 0; s < a->n_splits; s++) {
         const sl_analyze_split *sp = &a->splits[s];
         cli_table_row(t);
@@ -208,6 +216,12 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
         else
             cli_cell_num(t, NAN);
         cli_cell_int(t, (long)sp->n_flagged);
+        cli_cell_num(t, sp->mobility_median_cm2_per_Vs);
+        cli_cell_num(t, sp->mobility_spread_cm2_per_Vs);
+        cli_cell_num(t, sp->n0_median_per_cm2);
+        cli_cell_num(t, sp->n0_spread_per_cm2);
+        cli_cell_num(t, sp->hysteresis_median_V);
+        cli_cell_num(t, sp->hysteresis_spread_V);
     }
 }
 
