@@ -349,7 +349,7 @@ static const char *class_reason(const char *cls)
  * (a residual density below the floor ranks after the off-prediction and
  * outlier flags, before nothing). */
 static void describe(sl_analyze_device *d, double floor_per_cm2, double temperature_K,
-                     double max_hysteresis_V)
+                     double max_hysteresis_V, double mobility_median_cm2_per_Vs)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
         snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
@@ -376,8 +376,14 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
                               "at %g K (the fit or the temperature is wrong)",
                               k ? "; " : "", d->n0_per_cm2, floor_per_cm2, temperature_K);
     if (d->flags & SL_FLAG_HYSTERESIS && k < sizeof d->reason)
-        snprintf(d->reason + k, sizeof d->reason - k, "%shysteresis %.2f V, beyond the plan's %.2f V",
-                 k ? "; " : "", d->hysteresis_V, max_hysteresis_V);
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "%shysteresis %.2f V, beyond the plan's %.2f V", k ? "; " : "",
+                              d->hysteresis_V, max_hysteresis_V);
+    if (d->flags & SL_FLAG_LOW_MOBILITY && k < sizeof d->reason)
+        snprintf(d->reason + k, sizeof d->reason - k,
+                 "%smobility %.4g cm^2/Vs far below its split's median %.4g (modified z %.1f)",
+                 k ? "; " : "", d->mobility_cm2_per_Vs, mobility_median_cm2_per_Vs,
+                 d->mobility_modified_z);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
     if (d->flags == SL_FLAG_BELOW_FLOOR)
@@ -386,6 +392,9 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
         d->severity += 100.0;
     if (d->flags == SL_FLAG_HYSTERESIS) /* by how far beyond the limit */
         d->severity = fabs(d->hysteresis_V) / max_hysteresis_V;
+    if (d->flags & SL_FLAG_LOW_MOBILITY && !(d->flags & SL_FLAG_OFF_PREDICTION))
+        d->severity = fmax(d->flags == SL_FLAG_LOW_MOBILITY ? 0.0 : d->severity,
+                           fabs(d->mobility_modified_z)); /* on the outliers' scale */
 }
 
 /* Every field of a device, from its row and its wafer's and dielectric's
@@ -401,8 +410,16 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     /* below the thermal floor no sample can be: n = p = n_th at neutrality */
     if (isfinite(d->n0_per_cm2) && d->n0_per_cm2 < a->split_floor_per_cm2[split])
         d->flags |= SL_FLAG_BELOW_FLOOR;
+    /* one-sided: a low mobility is the failure (modified z, Iglewicz and Hoaglin 1993) */
+    d->mobility_modified_z = NAN;
+    if (isfinite(d->cnp_measured_V))
+        d->mobility_modified_z = analyze_mobility_modified_z(s->params, split,
+                                                             d->mobility_cm2_per_Vs);
+    if (d->mobility_modified_z < -SL_STATS_MODIFIED_Z_THRESHOLD)
+        d->flags |= SL_FLAG_LOW_MOBILITY;
     if (d->flags)
-        describe(d, a->split_floor_per_cm2[split], a->temperature_K, a->plan->max_hysteresis_V);
+        describe(d, a->split_floor_per_cm2[split], a->temperature_K, a->plan->max_hysteresis_V,
+                 a->splits[split].mobility_median_cm2_per_Vs);
     s->row = r;
 }
 

@@ -504,7 +504,7 @@ START_TEST(test_library_analysis)
     size_t outliers = 0, unmeasured = 0;
     for (size_t i = 0; i < a->n_devices; i++) {
         const sl_analyze_device *d = &a->devices[i];
-        const char *names[4];
+        const char *names[7];
         int n = sl_analyze_flag_names(d, names);
         if (strcmp(d->wafer, "S01") == 0 && strcmp(d->device, "D1") == 0) {
             /* 8.164 V on 90 nm SiO2: C_g = 8.8541878128e-12 * 3.9 / 90e-9 = 3.83681e-4 F/m^2,
@@ -661,9 +661,10 @@ END_TEST
 
 /* The stats fixture with invented mobility, n0 and hysteresis columns (a
  * pattern by row index, spread enough to have a MAD), imported as lot
- * STATS-01 into dir/t.db; low, when not NULL, names a row ("S01,D3,") whose
- * mobility is set to low_mobility. */
-static char *params_lot(const char *low, const char *low_mobility)
+ * STATS-01 into dir/t.db; low and high, when not NULL, name rows
+ * ("S01,D3,") whose mobility is set to low_mobility and high_mobility. */
+static char *params_lot(const char *low, const char *low_mobility, const char *high,
+                        const char *high_mobility)
 {
     char *dir = sl_test_tmpdir();
     char *src = sl_test_data("analyze/stats-results.csv");
@@ -682,6 +683,8 @@ static char *params_lot(const char *low, const char *low_mobility)
         snprintf(mobility, sizeof mobility, "%g", 2000.0 + 37.0 * (double)((i * 7) % 13));
         if (low && strncmp(line, low, strlen(low)) == 0)
             snprintf(mobility, sizeof mobility, "%s", low_mobility);
+        if (high && strncmp(line, high, strlen(high)) == 0)
+            snprintf(mobility, sizeof mobility, "%s", high_mobility);
         n += (size_t)snprintf(out + n, cap - n, "%s,%s,%g,%g\n", line, mobility,
                               1e11 * (1.0 + (double)((i * 5) % 11) / 10.0),
                               0.01 * (double)((i * 3) % 7));
@@ -726,7 +729,7 @@ static void gsl_median_spread(const sl_analysis *a, size_t k, size_t offset, dou
  * values held; the same numbers reach compare's JSON splits[]. */
 START_TEST(test_split_parameter_medians)
 {
-    char *dir = params_lot(NULL, NULL);
+    char *dir = params_lot(NULL, NULL, NULL, NULL);
     char *db = sl_test_path(dir, "t.db");
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
@@ -768,6 +771,84 @@ START_TEST(test_split_parameter_medians)
     free(db);
     sl_test_rmtree(dir);
     free(dir);
+}
+END_TEST
+
+/* The split of wafer S01, device D1. */
+static long low_split_of(const sl_analysis *a)
+{
+    for (size_t i = 0; i < a->n_devices; i++)
+        if (strcmp(a->devices[i].wafer, "S01") == 0)
+            return a->devices[i].split;
+    return -1;
+}
+
+/* A mobility far below its split is flagged low-mobility: S01/D3 of
+ * ox90-plain at 300 cm^2/Vs among devices at 2000..2444 scores
+ * M = 0.6745 (300 - median) / MAD (Iglewicz and Hoaglin, 1993), MAD and
+ * median by GSL (gsl_stats_mad0, gsl_stats_median) on the split's usable
+ * mobilities; S01/D4 at 9000 is as far above and not flagged (one-sided).
+ * The flag is named in the failure list with its reason and counted in the
+ * lot's flagged devices, which --fail-on-flags exits 3 on. */
+START_TEST(test_low_mobility_flagged)
+{
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    char *plain = params_lot(NULL, NULL, NULL, NULL);
+    sl_run_result r0 = run_ok(plain, compare);
+    double flagged_before = json_num(r0.out, "flagged");
+    ck_assert_ptr_null(strstr(r0.out, "low-mobility"));
+    char *dir = params_lot("S01,D3,", "300", "S01,D4,", "9000");
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    double *x = malloc(a->n_devices * sizeof *x), *work = malloc(a->n_devices * sizeof *work);
+    const sl_analyze_device *low = NULL;
+    size_t n = 0, n_low = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        if (strcmp(d->wafer, "S01") == 0 && strcmp(d->device, "D3") == 0)
+            low = d;
+        if (d->split == low_split_of(a) && isfinite(d->cnp_measured_V))
+            x[n++] = d->mobility_cm2_per_Vs;
+        n_low += (d->flags & SL_FLAG_LOW_MOBILITY) != 0;
+    }
+    ck_assert_ptr_nonnull(low);
+    ck_assert_uint_eq(n_low, 1);
+    ck_assert(low->flags & SL_FLAG_LOW_MOBILITY);
+    double mad = gsl_stats_mad0(x, 1, n, work), median = gsl_stats_median(x, 1, n);
+    check_rel("mobility M", low->mobility_modified_z, 0.6745 * (300.0 - median) / mad, 1e-12);
+    ck_assert(low->mobility_modified_z < -3.5);
+    const char *names[7];
+    int k = sl_analyze_flag_names(low, names);
+    ck_assert_str_eq(names[k - 1], "low-mobility");
+    sl_run_result r = run_ok(dir, compare);
+    ck_assert_double_eq(json_num(r.out, "flagged"), flagged_before + 1.0);
+    char row[4096], reason[256];
+    snprintf(reason, sizeof reason,
+             "mobility 300 cm^2/Vs far below its split's median %.4g (modified z %.1f)", median,
+             low->mobility_modified_z);
+    json_row_where(r.out, "failure_analysis", "reason", reason, row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\", \"device\": \"D3\""));
+    json_row_where(r.out, "devices", "device", "D3", row, sizeof row); /* S01 comes first */
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\""));
+    ck_assert_ptr_nonnull(strstr(row, "\"low-mobility\""));
+    ck_assert_int_eq((int)count_of(r.out, "\"low-mobility\""), 1);
+    sl_run_result_free(&r);
+    sl_run_result_free(&r0);
+    free(x);
+    free(work);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    sl_test_rmtree(dir);
+    free(dir);
+    sl_test_rmtree(plain);
+    free(plain);
 }
 END_TEST
 
@@ -1809,6 +1890,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_lot_with_a_wafer_missing);
     tcase_add_test(stats, test_library_analysis);
     tcase_add_test(stats, test_split_parameter_medians);
+    tcase_add_test(stats, test_low_mobility_flagged);
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);

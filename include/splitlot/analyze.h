@@ -24,6 +24,7 @@
 #define SL_FLAG_BELOW_FLOOR    0x10u /* fitted n0 below the thermal floor at the view's
                                         temperature: the fit or the temperature is wrong */
 #define SL_FLAG_HYSTERESIS     0x20u /* |hysteresis| above the plan's device.max_hysteresis_V */
+#define SL_FLAG_LOW_MOBILITY   0x40u /* mobility's modified z within its split < -3.5 */
 
 /* Share of censored devices in a split above which the output warns. */
 #define SL_ANALYZE_CENSORED_WARN 0.10
@@ -48,6 +49,9 @@ typedef struct {
                                     the MAD pooled over its dielectric's wafers */
     double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
     double mobility_cm2_per_Vs;
+    double mobility_modified_z;  /* 0.6745 (mu - split median) / split MAD over the
+                                    split's usable devices; NaN when not scored
+                                    (no mobility, not usable, fewer than 5) */
     long n_points;               /* of its stored sweep; 0 for results rows */
     unsigned flags;
     double severity;             /* for ordering the failure-analysis list */
@@ -226,9 +230,9 @@ sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
 void sl_analysis_stream_rewind(sl_analysis_stream *stream);
 void sl_analysis_stream_free(sl_analysis_stream *stream);
 
-/* Flag names of a device, in a fixed order, into names (at most 6); returns
+/* Flag names of a device, in a fixed order, into names (at most 7); returns
  * the count: "outlier", "off-prediction", the fit class, "unmeasured",
- * "below-floor", "hysteresis". */
+ * "below-floor", "hysteresis", "low-mobility". */
 int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
 
 /* ---- history across lots ---- */

@@ -69,7 +69,7 @@ typedef struct {
 
 static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_device *d, int table)
 {
-    const char *names[6];
+    const char *names[7];
     cli_table_row(t);
     cli_cell_str(t, d->wafer);
     cli_cell_str(t, d->device);
