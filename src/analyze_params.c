@@ -117,6 +117,24 @@ static void publish(sl_analyze_split *sp, const analyze_param_state *p)
     }
 }
 
+/* The split's median mobility against its dielectric's expected one. */
+static void judge_mobility(sl_analysis *a, size_t k)
+{
+    sl_analyze_split *sp = &a->splits[k];
+    const sl_plan_dielectric *d = &a->plan->dielectrics[a->plan->splits[k].dielectric];
+    sp->mobility_expected_cm2_per_Vs = sp->mobility_expected_sigma_cm2_per_Vs = NAN;
+    sp->mobility_off_plan = -1;
+    if (!d->has_mobility)
+        return;
+    sp->mobility_expected_cm2_per_Vs = d->mobility_cm2_per_Vs.val;
+    sp->mobility_expected_sigma_cm2_per_Vs = d->mobility_cm2_per_Vs.sigma;
+    if (isnan(sp->mobility_median_cm2_per_Vs))
+        return;
+    double half = SL_ANALYZE_MOBILITY_SIGMAS * d->mobility_cm2_per_Vs.sigma;
+    sp->mobility_off_plan = fabs(sp->mobility_median_cm2_per_Vs - d->mobility_cm2_per_Vs.val) > half;
+    a->n_splits_mobility_off += (size_t)sp->mobility_off_plan;
+}
+
 sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
                                sl_store_scratch *scratch, sl_diag *diag)
 {
@@ -137,6 +155,7 @@ sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
                 sl_stats_robust_from(&p[q].robust, p[q].n, p[q].median, p[q].mad,
                                      p[q].sum_abs / (double)p[q].n);
         publish(&a->splits[s], p);
+        judge_mobility(a, s);
     }
     return SL_OK;
 }

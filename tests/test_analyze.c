@@ -663,10 +663,19 @@ END_TEST
  * pattern by row index, spread enough to have a MAD), imported as lot
  * STATS-01 into dir/t.db; low and high, when not NULL, name rows
  * ("S01,D3,") whose mobility is set to low_mobility and high_mobility. */
+static char *params_lot_in(char *dir, const char *low, const char *low_mobility,
+                           const char *high, const char *high_mobility);
+
 static char *params_lot(const char *low, const char *low_mobility, const char *high,
                         const char *high_mobility)
 {
-    char *dir = sl_test_tmpdir();
+    return params_lot_in(sl_test_tmpdir(), low, low_mobility, high, high_mobility);
+}
+
+/* The same into dir, with dir/plan.yaml as the plan when it exists. */
+static char *params_lot_in(char *dir, const char *low, const char *low_mobility,
+                           const char *high, const char *high_mobility)
+{
     char *src = sl_test_data("analyze/stats-results.csv");
     char *text = sl_test_read_file(src, NULL);
     char *path = sl_test_path(dir, "results.csv");
@@ -690,7 +699,14 @@ static char *params_lot(const char *low, const char *low_mobility, const char *h
                               0.01 * (double)((i * 3) % 7));
     }
     ck_assert_int_eq(sl_test_write_file(path, out), 0);
-    char *plan = sl_test_data("analyze/stats-lot.yaml");
+    char *plan = sl_test_path(dir, "plan.yaml");
+    FILE *own = fopen(plan, "r");
+    if (own)
+        fclose(own);
+    else {
+        free(plan);
+        plan = sl_test_data("analyze/stats-lot.yaml");
+    }
     const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
     run_quiet(dir, predict);
     const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", "results.csv", "--db",
@@ -849,6 +865,82 @@ START_TEST(test_low_mobility_flagged)
     free(dir);
     sl_test_rmtree(plain);
     free(plain);
+}
+END_TEST
+
+/* The plan's expected mobility per dielectric against each split's median:
+ * ox90 expects 2200 +/- 100 cm^2/Vs (the lot's 2000..2444 lie within 3
+ * sigma of it), ox285 expects 5000 +/- 100 (far off): the ox285 splits are
+ * judged off plan, the ox90 ones not, each by |median - mean| > 3 sigma,
+ * and --fail-on-flags counts them. A split without an expectation keeps
+ * null. */
+START_TEST(test_mobility_expectation_per_dielectric)
+{
+    char *dir = sl_test_tmpdir();
+    char *src = sl_test_data("analyze/stats-lot.yaml");
+    char *text = sl_test_read_file(src, NULL);
+    char *plan = sl_test_path(dir, "plan.yaml");
+    const char *ox90 = "    doping_per_cm2: { mean: 0, sigma: 0.2e12 }\n";
+    const char *ox285 = "    doping_per_cm2: { mean: 0.3e12, sigma: 0.2e12 }\n";
+    char *a90 = strstr(text, ox90), *a285 = strstr(text, ox285);
+    ck_assert(a90 && a285 && a90 < a285);
+    size_t cap = strlen(text) + 512;
+    char *out = malloc(cap);
+    *a90 = *a285 = '\0';
+    snprintf(out, cap, "%s%s    mobility_cm2_per_Vs: { mean: 2200, sigma: 100 }\n%s%s"
+             "    mobility_cm2_per_Vs: { mean: 5000, sigma: 100 }\n%s",
+             text, ox90, a90 + strlen(ox90), ox285, a285 + strlen(ox285));
+    ck_assert_int_eq(sl_test_write_file(plan, out), 0);
+    params_lot_in(dir, NULL, NULL, NULL, NULL);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    size_t off = 0;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        int is285 = strncmp(a->plan->splits[k].name, "ox285", 5) == 0;
+        ck_assert_double_eq(sp->mobility_expected_cm2_per_Vs, is285 ? 5000.0 : 2200.0);
+        ck_assert_double_eq(sp->mobility_expected_sigma_cm2_per_Vs, 100.0);
+        ck_assert_int_eq(sp->mobility_off_plan, is285);
+        ck_assert_int_eq(sp->mobility_off_plan,
+                         fabs(sp->mobility_median_cm2_per_Vs - sp->mobility_expected_cm2_per_Vs) >
+                             3.0 * 100.0);
+        off += (size_t)sp->mobility_off_plan;
+    }
+    ck_assert_uint_eq(off, 2);
+    ck_assert_uint_eq(a->n_splits_mobility_off, 2);
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result r = run_ok(dir, compare);
+    ck_assert_double_eq(json_num(r.out, "splits_mobility_off_plan"), 2.0);
+    char row[4096];
+    json_row_where(r.out, "splits", "split", "ox285-plain", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_off_plan\": true"));
+    json_row_where(r.out, "splits", "split", "ox90-plain", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_off_plan\": false"));
+    sl_run_result_free(&r);
+    /* the fixture plan has no expectation: null */
+    char *plain = params_lot(NULL, NULL, NULL, NULL);
+    sl_run_result r0 = run_ok(plain, compare);
+    json_row_where(r0.out, "splits", "split", "ox90-plain", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_off_plan\": null"));
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_expected_cm2_per_Vs\": null"));
+    sl_run_result_free(&r0);
+    sl_test_rmtree(plain);
+    free(plain);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    free(out);
+    free(text);
+    free(src);
+    free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
 }
 END_TEST
 
@@ -1891,6 +1983,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_library_analysis);
     tcase_add_test(stats, test_split_parameter_medians);
     tcase_add_test(stats, test_low_mobility_flagged);
+    tcase_add_test(stats, test_mobility_expectation_per_dielectric);
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);

@@ -31,6 +31,10 @@
 /* Level of the effect intervals and the verdicts. */
 #define SL_ANALYZE_ALPHA 0.05
 
+/* Half-width of the interval about a dielectric's expected mobility outside
+ * which a split's median mobility is off plan, in the plan's sigmas. */
+#define SL_ANALYZE_MOBILITY_SIGMAS 3.0
+
 /* Half-width of the off-prediction interval in combined sigmas (99.7 %). */
 #define SL_ANALYZE_INTERVAL_SIGMAS 3.0
 
@@ -103,6 +107,12 @@ typedef struct {
     double mobility_median_cm2_per_Vs, mobility_spread_cm2_per_Vs;
     double n0_median_per_cm2, n0_spread_per_cm2;
     double hysteresis_median_V, hysteresis_spread_V;
+    /* The plan's expected mobility of the split's dielectric (NaN without
+     * one), and the judgement of the measured median against it: 1 when
+     * it lies outside mean +/- SL_ANALYZE_MOBILITY_SIGMAS sigma, 0 inside,
+     * -1 not judged (no expectation or no mobility measured). */
+    double mobility_expected_cm2_per_Vs, mobility_expected_sigma_cm2_per_Vs;
+    int mobility_off_plan;
 } sl_analyze_split;
 
 typedef struct {
@@ -152,6 +162,7 @@ typedef struct sl_analysis {
     char intercept_name[256];    /* "baseline + <reference levels>", the
                                     intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
+    size_t n_splits_mobility_off; /* splits whose median mobility is off plan */
     double *split_gate_min_V, *split_gate_max_V;
     double *split_capacitance_F_per_m2;
     /* the view shown: one step and temperature of the lot's measurement
