@@ -23,6 +23,8 @@ int sl_analyze_flag_names(const sl_analyze_device *d, const char **names)
         names[n++] = "below-floor";
     if (d->flags & SL_FLAG_HYSTERESIS)
         names[n++] = "hysteresis";
+    if (d->flags & SL_FLAG_LOW_MOBILITY)
+        names[n++] = "low-mobility";
     return n;
 }
 

@@ -76,4 +76,33 @@ const sl_store_device_row *sl__analysis_stream_row(const sl_analysis_stream *str
  * sl_analysis_free); the stream is freed. */
 sl_analysis_owner *sl__analysis_stream_release(sl_analysis_stream *stream);
 
+/* ---- per split: mobility, n0 and hysteresis (analyze_params.c) ---- */
+
+/* Fewest usable devices for modified z-scores to mean anything (common
+ * practice: a median and MAD of fewer points are too unstable). */
+#define SL_ANALYZE_MIN_FOR_OUTLIERS 5
+
+enum { SL_ANALYZE_PARAM_MOBILITY, SL_ANALYZE_PARAM_N0, SL_ANALYZE_PARAM_HYSTERESIS,
+       SL_ANALYZE_N_PARAMS };
+
+/* One parameter of one split over its usable devices with the value. */
+typedef struct {
+    size_t n;
+    double min, max, median, mad, sum_abs;
+    int first_mad_pass;
+    sl_stats_median_search *search;
+    sl_stats_robust robust;  /* median, MAD and scale of its modified z */
+} analyze_param_state;
+
+/* Fill state[split * SL_ANALYZE_N_PARAMS + param] (zeroed by the caller)
+ * and each split's medians and spreads (1.4826 MAD) in passes over the
+ * scratch's kept devices. Returns SL_OK, SL_EDB, SL_ENOMEM, SL_EINPUT
+ * (devices changed between passes). */
+sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
+                               sl_store_scratch *scratch, sl_diag *diag);
+
+/* Modified z of a mobility within its split; NaN with fewer than
+ * SL_ANALYZE_MIN_FOR_OUTLIERS devices or no mobility. */
+double analyze_mobility_modified_z(const analyze_param_state *state, long split, double mobility);
+
 #endif

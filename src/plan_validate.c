@@ -541,16 +541,33 @@ static void read_gate_range(conv *v, const yn *node, sl_plan_dielectric *d)
         d->has_gate_range = 1;
 }
 
+/* The expected mobility of a dielectric's devices: { mean > 0, sigma >= 0 }. */
+static void read_mobility(plan_ctx *c, const yn *v, sl_plan_dielectric *d)
+{
+    static const field fields[] = { { "mean", 1 }, { "sigma", 1 } };
+    const yn *f[2] = { NULL, NULL };
+    if (read_map(c, v, "mobility_cm2_per_Vs", fields, 2, f) != 0)
+        return;
+    d->has_mobility = 1;
+    if (f[0])
+        read_number(c, f[0], "mean", NUM_POSITIVE, &d->mobility_cm2_per_Vs.val);
+    if (f[1])
+        read_number(c, f[1], "sigma", NUM_NONNEG, &d->mobility_cm2_per_Vs.sigma);
+}
+
 static void read_dielectric(conv *v, const yn *item, size_t index)
 {
     static const field fields[] = {
         { "name", 1 }, { "layers", 1 }, { "doping_per_cm2", 0 }, { "gate_range_V", 0 },
+        { "mobility_cm2_per_Vs", 0 },
     };
-    const yn *f[4];
+    const yn *f[5];
     sl_plan *p = v->p;
     sl_plan_dielectric *d = &p->dielectrics[index];
-    if (read_map(v->c, item, "dielectric", fields, 4, f) != 0)
+    if (read_map(v->c, item, "dielectric", fields, 5, f) != 0)
         return;
+    if (f[4])
+        read_mobility(v->c, f[4], d);
     if (f[0])
         d->name = read_name(v->c, f[0], "dielectric", p->dielectrics, index, sizeof *d);
     if (f[1] && read_list(v->c, f[1], "layers", MAX_LAYERS) == 0) {
