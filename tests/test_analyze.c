@@ -1295,6 +1295,36 @@ START_TEST(test_emit_yaml_round_trip)
 }
 END_TEST
 
+/* --emit-yaml keeps each level's tolerance from the plan (plans/demo.yaml:
+ * none given, so the planned sigma, anneal 3e11, cap 2e11), and from one
+ * lot, whose standard error alone would be far too confident for the next
+ * lot, keeps the plan's sigma as a floor and says so. */
+START_TEST(test_emit_yaml_one_lot_keeps_tolerance)
+{
+    static const char *const demo[] = { "--true-doping", "anneal-350=0.3e12", NULL };
+    char *dir = sl_test_tmpdir();
+    demo_lot(dir, "TOL-01", "5", demo, 0);
+    const char *emit[] = { "history", "--db", "t.db", "--emit-yaml", NULL };
+    sl_run_result y = run_ok(dir, emit);
+    const char *anneal = strstr(y.out, "name: anneal-350, doping_per_cm2: { mean: ");
+    ck_assert_msg(anneal != NULL, "%s", y.out);
+    const char *end = strchr(anneal, '\n');
+    ck_assert(end != NULL);
+    char line[512];
+    snprintf(line, sizeof line, "%.*s", (int)(end - anneal), anneal);
+    const char *sigma = strstr(line, "sigma: ");
+    ck_assert(sigma != NULL);
+    ck_assert_msg(strtod(sigma + strlen("sigma: "), NULL) >= 3e11, "%s", line);
+    ck_assert_msg(strstr(line, "tolerance: 3e+11") != NULL, "%s", line);
+    ck_assert_msg(strstr(line, "# one lot") != NULL, "%s", line);
+    ck_assert(strstr(y.out, "name: cap-pmma, doping_per_cm2: {") &&
+              strstr(strstr(y.out, "name: cap-pmma"), "tolerance: 2e+11"));
+    sl_run_result_free(&y);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 /* Names a plan may hold in quotes come back from --emit-yaml as the same
  * text (tests/data/analyze/odd-names.yaml: ", ", ": ", " #", '"'). */
 START_TEST(test_emit_yaml_quotes_names)
@@ -1758,6 +1788,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(lots, test_batched_lot_df_as_planned);
     tcase_add_test(lots, test_history_flags_drift);
     tcase_add_test(lots, test_emit_yaml_round_trip);
+    tcase_add_test(lots, test_emit_yaml_one_lot_keeps_tolerance);
     tcase_add_test(lots, test_emit_yaml_quotes_names);
     suite_add_tcase(s, lots);
     return s;
