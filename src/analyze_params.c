@@ -145,7 +145,7 @@ sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
     if (st == SL_OK)
         st = search_all(state, ns, scratch, PASS_MAD, diag);
     if (st == SL_EINPUT)
-        return sl_analyze_lot_changed(a, diag);
+        return sl__analyze_lot_changed(a, diag);
     if (st != SL_OK)
         return st;
     for (size_t s = 0; s < ns; s++) {
