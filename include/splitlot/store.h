@@ -268,6 +268,7 @@ typedef struct {
     long run_id, die_x, die_y;
     long source_line;            /* 0 when unknown */
     char wafer[65], name[65];
+    long points_dropped;         /* overflow and compliance points left out */
 } sl_store_import_device;
 
 /* Measurements in runs >= first_run_id that still need a fit: fit class
