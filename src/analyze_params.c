@@ -121,7 +121,7 @@ static void judge_mobility(sl_analysis *a, size_t k)
     a->n_splits_mobility_off += (size_t)sp->mobility_off_plan;
 }
 
-sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
+sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
                                sl_store_scratch *scratch, sl_diag *diag)
 {
     size_t ns = a->n_splits;
@@ -132,7 +132,7 @@ sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
     if (st == SL_OK)
         st = search_all(state, ns, scratch, PASS_MAD, diag);
     if (st == SL_EINPUT)
-        return sl_analyze_lot_changed(a, diag);
+        return sl__analyze_lot_changed(a, diag);
     if (st != SL_OK)
         return st;
     for (size_t s = 0; s < ns; s++) {
@@ -147,7 +147,8 @@ sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
     return SL_OK;
 }
 
-double analyze_mobility_modified_z(const analyze_param_state *state, long split, double mobility)
+double sl__analyze_mobility_modified_z(const analyze_param_state *state, long split,
+                                       double mobility)
 {
     const analyze_param_state *p = &state[(size_t)split * SL_ANALYZE_N_PARAMS];
     if (!isfinite(mobility) || p->n < SL_ANALYZE_MIN_FOR_OUTLIERS)

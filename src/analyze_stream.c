@@ -413,7 +413,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     /* one-sided: a low mobility is the failure (modified z, Iglewicz and Hoaglin 1993) */
     d->mobility_modified_z = NAN;
     if (isfinite(d->cnp_measured_V))
-        d->mobility_modified_z = analyze_mobility_modified_z(s->params, split,
+        d->mobility_modified_z = sl__analyze_mobility_modified_z(s->params, split,
                                                              d->mobility_cm2_per_Vs);
     if (d->mobility_modified_z < -SL_STATS_MODIFIED_Z_THRESHOLD)
         d->flags |= SL_FLAG_LOW_MOBILITY;
@@ -425,7 +425,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
 
 /* ---- the passes ---- */
 
-sl_status sl_analyze_lot_changed(const sl_analysis *a, sl_diag *diag)
+sl_status sl__analyze_lot_changed(const sl_analysis *a, sl_diag *diag)
 {
     sl_diag_error(diag, "lot '%s': its devices changed during the analysis", a->lot.lot);
     return SL_EINPUT;
@@ -533,7 +533,7 @@ static sl_status search_passes(sl_analysis_stream *s, int residuals, sl_diag *di
         for (size_t d = 0; residuals && st == SL_OK && d < a->plan->n_dielectrics; d++)
             st = end_pass(s->dielectric[d].search, &s->dielectric[d].mad_V, &open);
         if (st == SL_EINPUT)
-            return sl_analyze_lot_changed(a, diag);
+            return sl__analyze_lot_changed(a, diag);
         if (st != SL_OK)
             return st;
     }
@@ -616,11 +616,11 @@ static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d
             hi = vg[i] > vg[hi] ? i : hi;
         }
         int above = r[hi] > r[lo];
-        sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
+        sl__analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
     } else if (st == SL_OK || st == SL_ENOTFOUND) {
         double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
         int above = d->cnp_predicted_V > 0.5 * (lo + hi);
-        sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
+        sl__analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
         st = SL_OK;
     }
     free(vg);
@@ -644,7 +644,7 @@ static sl_status add_flags(sl_analysis_stream *s, long wafer, sl_diag *diag)
         a->n_usable++;
         a->n_outlier_scored += isfinite(d->modified_z);
         if (!(d->flags & SL_FLAG_OUTLIER))
-            sl_analyze_wafer_add(&s->wafer[wafer], d->cnp_measured_V);
+            sl__analyze_wafer_add(&s->wafer[wafer], d->cnp_measured_V);
     } else if (strcmp(d->fit_class, "cnp-outside-sweep") == 0) {
         sl_status st = censor_device(s, d, wafer, diag);
         if (st != SL_OK)
@@ -687,11 +687,11 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
     if (st == SL_OK)
         st = dielectric_mads(s, diag);
     if (st == SL_OK)
-        st = analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
+        st = sl__analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
     if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)
-        st = sl_analyze_wafer_statistics(&s->owner->pub, s->layout, s->wafer);
+        st = sl__analyze_wafer_statistics(&s->owner->pub, s->layout, s->wafer);
     return st;
 }
 
@@ -762,7 +762,7 @@ const sl_analysis *sl_analysis_stream_summary(const sl_analysis_stream *s)
     return &s->owner->pub;
 }
 
-const sl_store_device_row *sl_analysis_stream_row(const sl_analysis_stream *s)
+const sl_store_device_row *sl__analysis_stream_row(const sl_analysis_stream *s)
 {
     return s->row;
 }
@@ -816,7 +816,7 @@ static void free_state(sl_analysis_stream *s)
     free(s->wafer);
 }
 
-sl_analysis_owner *sl_analysis_stream_release(sl_analysis_stream *s)
+sl_analysis_owner *sl__analysis_stream_release(sl_analysis_stream *s)
 {
     sl_analysis_owner *owner = s->owner;
     sl_store_scratch_close(s->scratch);
@@ -829,5 +829,5 @@ sl_analysis_owner *sl_analysis_stream_release(sl_analysis_stream *s)
 void sl_analysis_stream_free(sl_analysis_stream *s)
 {
     if (s)
-        sl_analysis_free(&sl_analysis_stream_release(s)->pub);
+        sl_analysis_free(&sl__analysis_stream_release(s)->pub);
 }

@@ -1625,7 +1625,7 @@ END_TEST
  * (tolerance 0.3e12): two splits, k wafers each, M devices a wafer. The
  * lots are drawn here (gsl_rng mt19937, fixed seed) straight into what the
  * passes over a stored lot keep per wafer, and analysed by the same
- * function as compare (sl_analyze_wafer_statistics). */
+ * function as compare (sl__analyze_wafer_statistics). */
 #define MC_LOTS 2000
 #define MC_DEVICES 20
 #define MC_WAFER_SIGMA 3.0e11  /* cm^-2 */
@@ -1729,15 +1729,15 @@ static void mc_lot_run(mc_lot *m, double t1_true, double censor_above_V, int dro
             double v = wafer_doping / m->per_cm2_per_V + gsl_ran_gaussian(m->rng, MC_DEVICE_SIGMA_V);
             if (m->plan->splits[wf->split].n_treatments && v > censor_above_V) {
                 if (!drop_censored)
-                    sl_analyze_wafer_censor(wf, 1, censor_above_V);
+                    sl__analyze_wafer_censor(wf, 1, censor_above_V);
                 continue;
             }
-            sl_analyze_wafer_add(wf, v);
+            sl__analyze_wafer_add(wf, v);
             wf->n_usable++;
             a->splits[wf->split].n_usable++;
         }
     }
-    ck_assert_int_eq(sl_analyze_wafer_statistics(a, m->layout, m->wafers), SL_OK);
+    ck_assert_int_eq(sl__analyze_wafer_statistics(a, m->layout, m->wafers), SL_OK);
     ck_assert_int_eq(a->effects_status, SL_OK);
 }
 
@@ -1905,19 +1905,19 @@ START_TEST(test_wafer_statistics_by_hand)
         sl_analyze_wafer *wf = &m.wafers[w];
         memset(wf, 0, sizeof *wf);
         wf->split = m.layout->wafers[w].split;
-        sl_analyze_wafer_add(wf, 8.0 + 0.1 * (double)w); /* one device each */
+        sl__analyze_wafer_add(wf, 8.0 + 0.1 * (double)w); /* one device each */
         a->splits[wf->split].n_usable++;
     }
     /* the first wafer of split 0: its device censored too, above 9 V */
     size_t first = m.layout->splits[0].wafers[0], second = m.layout->splits[0].wafers[1];
-    sl_analyze_wafer_censor(&m.wafers[first], 1, 9.0);
+    sl__analyze_wafer_censor(&m.wafers[first], 1, 9.0);
     /* the other wafer of split 0: nothing inside the sweep */
     memset(&m.wafers[second], 0, sizeof m.wafers[second]);
     m.wafers[second].split = 0;
-    sl_analyze_wafer_censor(&m.wafers[second], 1, 9.0);
-    sl_analyze_wafer_censor(&m.wafers[second], 1, 9.5); /* the looser bound is kept */
+    sl__analyze_wafer_censor(&m.wafers[second], 1, 9.0);
+    sl__analyze_wafer_censor(&m.wafers[second], 1, 9.5); /* the looser bound is kept */
     ck_assert_double_eq(m.wafers[second].above_V, 9.0);
-    ck_assert_int_eq(sl_analyze_wafer_statistics(a, m.layout, m.wafers), SL_OK);
+    ck_assert_int_eq(sl__analyze_wafer_statistics(a, m.layout, m.wafers), SL_OK);
     ck_assert(isnan(a->device_sigma_V)); /* one device a wafer: no scatter within wafers */
     ck_assert_uint_eq(a->n_wafers_censored_biased, 1);
     ck_assert_uint_eq(a->splits[0].n_wafers, 1);
@@ -1960,7 +1960,7 @@ START_TEST(test_mc_history_drift_rate)
             points[i] = (sl_history_point){ "L", "", 1e12 + gsl_ran_gaussian(rng, tau) +
                                                          gsl_ran_gaussian(rng, se),
                                             se, 0, NAN, NAN };
-        ck_assert_int_eq(sl_analyze_history_level(&l), SL_OK);
+        ck_assert_int_eq(sl__analyze_history_level(&l), SL_OK);
         drifted += l.n_drift;
         judged += LOTS - 1;
         ck_assert(isnan(points[0].lcl_per_cm2) && isfinite(points[1].lcl_per_cm2));
