@@ -117,7 +117,8 @@ static void judge_mobility(sl_analysis *a, size_t k)
     if (isnan(sp->mobility_median_cm2_per_Vs))
         return;
     double half = SL_ANALYZE_MOBILITY_SIGMAS * d->mobility_cm2_per_Vs.sigma;
-    sp->mobility_off_plan = fabs(sp->mobility_median_cm2_per_Vs - d->mobility_cm2_per_Vs.val) > half;
+    double miss = sp->mobility_median_cm2_per_Vs - d->mobility_cm2_per_Vs.val;
+    sp->mobility_off_plan = fabs(miss) > half;
     a->n_splits_mobility_off += (size_t)sp->mobility_off_plan;
 }
 
