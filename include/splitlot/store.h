@@ -360,6 +360,15 @@ sl_status sl_store_scratch_keep_values(sl_store_scratch *scratch, const char *fi
 sl_status sl_store_scratch_next_value(sl_store_scratch *scratch, int *more, long *group,
                                       double *cnp_V, sl_diag *diag);
 
+/* The split (tag) and mobility, n0 and hysteresis (NaN where none) of the
+ * kept devices of one fit class that have a V_cnp, in the order kept,
+ * without their names: choose the class once, then read as
+ * sl_store_scratch_next_value (*more = 0 after the last, the next call
+ * starts over). */
+void sl_store_scratch_params_class(sl_store_scratch *scratch, const char *fit_class);
+sl_status sl_store_scratch_next_params(sl_store_scratch *scratch, int *more, long *tag,
+                                       double params[3], sl_diag *diag);
+
 /* List the device last read by sl_store_scratch_next_kept with a severity;
  * read the listed ones back as kept devices, most severe first, then by
  * wafer and device name (byte order). */
