@@ -109,11 +109,12 @@ typedef struct {
  * and each split's medians and spreads (1.4826 MAD) in passes over the
  * scratch's kept devices. Returns SL_OK, SL_EDB, SL_ENOMEM, SL_EINPUT
  * (devices changed between passes). */
-sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
+sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
                                sl_store_scratch *scratch, sl_diag *diag);
 
 /* Modified z of a mobility within its split; NaN with fewer than
  * SL_ANALYZE_MIN_FOR_OUTLIERS devices or no mobility. */
-double analyze_mobility_modified_z(const analyze_param_state *state, long split, double mobility);
+double sl__analyze_mobility_modified_z(const analyze_param_state *state, long split,
+                                       double mobility);
 
 #endif

@@ -413,7 +413,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     /* one-sided: a low mobility is the failure (modified z, Iglewicz and Hoaglin 1993) */
     d->mobility_modified_z = NAN;
     if (isfinite(d->cnp_measured_V))
-        d->mobility_modified_z = analyze_mobility_modified_z(s->params, split,
+        d->mobility_modified_z = sl__analyze_mobility_modified_z(s->params, split,
                                                              d->mobility_cm2_per_Vs);
     if (d->mobility_modified_z < -SL_STATS_MODIFIED_Z_THRESHOLD)
         d->flags |= SL_FLAG_LOW_MOBILITY;
@@ -700,7 +700,7 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
     if (st == SL_OK)
         st = dielectric_mads(s, diag);
     if (st == SL_OK)
-        st = analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
+        st = sl__analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
     if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)

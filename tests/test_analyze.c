@@ -14,6 +14,7 @@
 
 #include <gsl/gsl_randist.h>
 #include <gsl/gsl_rng.h>
+#include <gsl/gsl_sort.h>
 #include <gsl/gsl_statistics_double.h>
 
 #include "analyze_internal.h"
@@ -939,6 +940,73 @@ START_TEST(test_mobility_expectation_per_dielectric)
     free(text);
     free(src);
     free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* A simulated demo lot of known truth (seed 16, sweeps fitted with the
+ * charge balance): each split's median fitted mobility lies within 3 % of
+ * the median true mobility of its good devices (simulate's truth.csv; 3 %
+ * is the fit's accuracy the analysis promises per device). The fit reads
+ * the density with the plan's C_g while each wafer has its own thickness,
+ * so a device's fitted mobility is its true one times C_true / C_planned
+ * (sigma = n e mu with n = C V / e: textbook); the truth is taken so. The
+ * low-mobility rule flags at most 2 good devices (a normal sample has
+ * P(M < -3.5) = Q(3.5) = 2.3e-4 per device, scipy.stats.norm.sf(3.5) =
+ * 2.326e-4; about 0.1 of the lot's some 500 good devices). */
+START_TEST(test_split_mobility_against_simulated_truth)
+{
+    char *dir = sl_test_tmpdir();
+    const char *none[] = { NULL };
+    demo_lot(dir, "MU-01", "16", none, 1);
+    char *tpath = sl_test_path(dir, "sim-MU-01/truth.csv");
+    char *text = sl_test_read_file(tpath, NULL);
+    ck_assert(text != NULL);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "MU-01", diag), SL_OK);
+    size_t cap = 1;
+    for (const char *c = text; *c; c++)
+        cap += *c == '\n';
+    double *x = malloc(cap * sizeof *x);
+    size_t checked = 0;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        size_t n = 0;
+        char *copy = strdup(text), *save = NULL;
+        strtok_r(copy, "\n", &save); /* header */
+        for (char *line = strtok_r(NULL, "\n", &save); line; line = strtok_r(NULL, "\n", &save)) {
+            char split[64], kind[24];
+            double cnp, mobility, n0, rc, doping, cg_nF_per_cm2;
+            if (sscanf(line, "%*[^,],%*[^,],%*d,%*d,%63[^,],%23[^,],%lf,%lf,%lf,%lf,%lf,%lf", split,
+                       kind, &cnp, &mobility, &n0, &rc, &doping, &cg_nF_per_cm2) == 8 &&
+                strcmp(split, a->plan->splits[k].name) == 0 && strcmp(kind, "good") == 0)
+                x[n++] = mobility * cg_nF_per_cm2 / (a->split_capacitance_F_per_m2[k] * 1e5);
+        }
+        free(copy);
+        if (n < 5)
+            continue;
+        gsl_sort(x, 1, n);
+        double truth = gsl_stats_median_from_sorted_data(x, 1, n);
+        check_rel(a->plan->splits[k].name, a->splits[k].mobility_median_cm2_per_Vs, truth, 0.03);
+        ck_assert(a->splits[k].mobility_spread_cm2_per_Vs > 0.0);
+        checked++;
+    }
+    ck_assert_uint_ge(checked, 6);
+    size_t low = 0;
+    for (size_t i = 0; i < a->n_devices; i++)
+        low += (a->devices[i].flags & SL_FLAG_LOW_MOBILITY) != 0;
+    ck_assert_uint_le(low, 2);
+    free(x);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    free(text);
+    free(tpath);
     sl_test_rmtree(dir);
     free(dir);
 }
@@ -2054,6 +2122,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_split_parameter_medians);
     tcase_add_test(stats, test_low_mobility_flagged);
     tcase_add_test(stats, test_mobility_expectation_per_dielectric);
+    tcase_add_test(stats, test_split_mobility_against_simulated_truth);
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);
