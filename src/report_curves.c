@@ -123,18 +123,28 @@ static sl_status device_curve(report_ctx *c, const sl_analyze_device *d)
     return st;
 }
 
-/* The most severe flagged devices with a stored sweep (results rows have
- * none: n_points 0). */
-static sl_status draw_curves(report_ctx *c)
+/* One reading of the flagged devices with a stored sweep (results rows
+ * have none: n_points 0), most severe first, drawing those with a fitted
+ * curve (fitted nonzero) or those without. */
+static sl_status draw_pass(report_ctx *c, int fitted)
 {
     sl_status st = SL_OK;
     const sl_analyze_device *d;
     while (c->sum->n_curves < c->opts->max_curves &&
            (st = sl__report_next_flagged(c, &d)) == SL_OK && d)
-        if (d->n_points > 0)
+        if (d->n_points > 0 && has_fit(d) == fitted)
             st = device_curve(c, d);
     sl__report_rewind(c);
     return st;
+}
+
+/* The flagged devices whose curve was fitted (outliers, off-prediction:
+ * the curve shows why) first, then shorts, opens and failed fits, whose
+ * severity ranks them first in the failure-analysis list. */
+static sl_status draw_curves(report_ctx *c)
+{
+    sl_status st = draw_pass(c, 1);
+    return st == SL_OK ? draw_pass(c, 0) : st;
 }
 
 sl_status sl__report_section_curves(report_ctx *c)
@@ -145,7 +155,8 @@ sl_status sl__report_section_curves(report_ctx *c)
     sl__report_section_open(c->buf, "curves", "Transfer curves of flagged devices");
     sl_chart_buf_printf(c->buf,
                         "<p>Resistance against gate voltage of up to %zu flagged devices with a "
-                        "stored sweep, most severe first: measured points, and the fitted model "
+                        "stored sweep, those with a fitted curve (outliers, off the prediction) "
+                        "first, each group most severe first: measured points, and the fitted model "
                         "where the extraction succeeded. Opens and shorts on a logarithmic "
                         "resistance axis.</p>\n<div class=\"curves\">\n",
                         c->opts->max_curves);

@@ -1338,6 +1338,15 @@ START_TEST(test_censored_beyond_outlier_limit)
     }
     ck_assert(seen);
     ck_assert_int_eq((int)json_num(r.out, "censored"), 4);
+    /* all four bounds lie beyond their wafers' limits (the split means equal
+     * those of the lot without them): each is flagged an outlier too */
+    size_t censored_outliers = 0;
+    char flags[128];
+    for (const char *p = json_array(r.out, "devices"); json_next_row(&p, row, sizeof row);) {
+        json_str(row, "flags", flags, sizeof flags);
+        censored_outliers += strstr(flags, "cnp-outside-sweep") && strstr(flags, "outlier");
+    }
+    ck_assert_uint_eq(censored_outliers, 4);
     for (const char *p = json_array(r.out, "effects"); json_next_row(&p, row, sizeof row);) {
         json_str(row, "level", name, sizeof name);
         json_str(row, "verdict", verdict, sizeof verdict);

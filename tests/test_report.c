@@ -482,9 +482,41 @@ START_TEST(test_curves_of_flagged_devices)
                                                              : SL_REPORT_DEFAULT_MAX_CURVES;
     ck_assert_uint_eq(count(g_html[0], "<figure class=\"curve\">"), expected);
     ck_assert_ptr_nonnull(strstr(g_html[0], "gate voltage (V)"));
+    /* the flagged devices with a fitted curve (outliers, off the prediction)
+     * come before the shorts, opens and failed fits, however severe those */
+    const char *first = strstr(g_html[0], "<figure class=\"curve\">");
+    ck_assert_ptr_nonnull(first);
+    const char *caption_end = strstr(first, "</figcaption>");
+    ck_assert_ptr_nonnull(caption_end);
+    char *caption = strndup(first, (size_t)(caption_end - first));
+    ck_assert_msg(strstr(caption, "(no fitted curve)") == NULL, "first curve without a fit");
+    free(caption);
+    ck_assert_uint_lt(count(g_html[0], "(no fitted curve)"), expected);
     /* DEMO-02 came from results only: nothing to draw */
     ck_assert_uint_eq(count(g_html[1], "<figure class=\"curve\">"), 0);
     ck_assert_ptr_nonnull(strstr(g_html[1], "None of the flagged devices has a stored sweep."));
+}
+END_TEST
+
+/* The device parameters' hover text names the device and gives the value
+ * in its own unit (the chart draws log10 of mobility and n0): "W03 D001:
+ * 1523 cm²/V s", as the neutrality-point chart's "W03 D001: 8.451". */
+START_TEST(test_parameter_tooltips_name_devices)
+{
+    const char *end = NULL, *sec = section(g_html[0], "parameters", &end);
+    ck_assert_ptr_nonnull(sec);
+    char *params = strndup(sec, (size_t)(end - sec));
+    const char *mob = strstr(params, "data-parameter=\"mobility\"");
+    const char *n0 = strstr(params, "data-parameter=\"n0\"");
+    ck_assert(mob && n0);
+    size_t with_unit = count_in(mob, n0, " cm\xc2\xb2/V s</title>") +
+                       count_in(mob, n0, " cm\xc2\xb2/V s (flagged)</title>");
+    size_t n0_unit = count_in(n0, NULL, " cm\xe2\x81\xbb\xc2\xb2</title>");
+    ck_assert_uint_gt(with_unit, 0);
+    ck_assert_uint_gt(n0_unit, 0);
+    ck_assert_uint_eq(with_unit, count_in(mob, n0, "<title>W"));
+    ck_assert_ptr_null(strstr(params, "<title>ox90: "));
+    free(params);
 }
 END_TEST
 
@@ -913,6 +945,7 @@ static Suite *report_suite(void)
     tcase_add_loop_test(tc, test_one_marker_per_flagged_usable_device, 0, 2);
     tcase_add_loop_test(tc, test_off_plan_verdict, 0, 2);
     tcase_add_test(tc, test_curves_of_flagged_devices);
+    tcase_add_test(tc, test_parameter_tooltips_name_devices);
     tcase_add_test(tc, test_history_with_two_lots);
     tcase_add_test(tc, test_fitted_curve_of_an_outlier);
     tcase_add_test(tc, test_effects_note_when_not_estimable);
