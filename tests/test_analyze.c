@@ -967,7 +967,7 @@ START_TEST(test_split_mobility_against_simulated_truth)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "MU-01", diag), SL_OK);
     size_t cap = 1;
     for (const char *c = text; *c; c++)
