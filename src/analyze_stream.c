@@ -288,6 +288,8 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
                                                      : r->channel_width_um;
     d->n_points = r->n_points;
+    d->electron_mobility_cm2_per_Vs = r->electron_mobility_cm2_per_Vs;
+    d->hole_mobility_cm2_per_Vs = r->hole_mobility_cm2_per_Vs;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (fabs(r->hysteresis_V) > a->plan->max_hysteresis_V) /* NaN: no limit, or none */
         d->flags |= SL_FLAG_HYSTERESIS;

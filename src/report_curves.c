@@ -37,6 +37,14 @@ static int uses_charge_balance(const sl_analyze_device *d)
     return n >= 3 && strcmp(d->fit_model + n - 3, "/qc") == 0;
 }
 
+/* "two-mobility" (with or without "/qc") and both mobilities stored. */
+static int uses_two_mobilities(const sl_analyze_device *d)
+{
+    return d->fit_model && strncmp(d->fit_model, "two-mobility", 12) == 0
+           && isfinite(d->electron_mobility_cm2_per_Vs) && isfinite(d->hole_mobility_cm2_per_Vs)
+           && d->electron_mobility_cm2_per_Vs > 0.0 && d->hole_mobility_cm2_per_Vs > 0.0;
+}
+
 static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_device *d)
 {
     cd->n_model = 0;
@@ -48,8 +56,9 @@ static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_d
         hi = fmax(hi, cd->vg_V[i]);
     }
     sl_fit_config cfg;
+    /* the device's own channel (its type or its row), as it was fitted */
     sl_fit_config_default(&cfg, a->split_capacitance_F_per_m2[d->split],
-                          a->plan->channel_length_um, a->plan->channel_width_um);
+                          d->channel_length_um, d->channel_width_um);
     sl_fit_params p = { d->cnp_measured_V, d->mobility_cm2_per_Vs, d->n0_per_cm2, d->r_contact_ohm };
     /* the density model the device was fitted with, as stored */
     sl_physics_density_table *table = NULL;
@@ -63,10 +72,14 @@ static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_d
             return; /* no curve rather than the wrong one */
         cfg.density_table = table;
     }
+    /* a two-mobility fit is drawn with its own electron/hole ratio */
+    double ratio = uses_two_mobilities(d) ? d->electron_mobility_cm2_per_Vs / d->hole_mobility_cm2_per_Vs
+                                          : 1.0;
     for (size_t i = 0; i < CURVE_MODEL_POINTS; i++) {
         double vg = lo + (hi - lo) * (double)i / (CURVE_MODEL_POINTS - 1);
         cd->model_vg_V[i] = vg;
-        cd->model_r_ohm[i] = sl_fit_model_ohm(&p, &cfg, vg);
+        cd->model_r_ohm[i] = ratio != 1.0 ? sl_fit_model_two_mobility_ohm(&p, ratio, &cfg, vg)
+                                          : sl_fit_model_ohm(&p, &cfg, vg);
     }
     sl_physics_density_table_free(table);
     cd->n_model = CURVE_MODEL_POINTS;

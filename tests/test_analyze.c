@@ -751,7 +751,7 @@ START_TEST(test_split_parameter_medians)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
     const size_t offsets[3] = { offsetof(sl_analyze_device, mobility_cm2_per_Vs),
                                 offsetof(sl_analyze_device, n0_per_cm2),
@@ -820,7 +820,7 @@ START_TEST(test_low_mobility_flagged)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
     double *x = malloc(a->n_devices * sizeof *x), *work = malloc(a->n_devices * sizeof *work);
     const sl_analyze_device *low = NULL;
@@ -897,7 +897,7 @@ START_TEST(test_mobility_expectation_per_dielectric)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
     size_t off = 0;
     for (size_t k = 0; k < a->n_splits; k++) {
@@ -967,7 +967,7 @@ START_TEST(test_split_mobility_against_simulated_truth)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "MU-01", diag), SL_OK);
     size_t cap = 1;
     for (const char *c = text; *c; c++)

@@ -691,6 +691,52 @@ START_TEST(test_fitted_curve_of_an_outlier)
 }
 END_TEST
 
+/* A lot fitted with the two-mobility model (ingest --model two-mobility):
+ * the analysis carries each device's own electron and hole mobilities, and
+ * the report draws the fitted curve with that model, so a device whose
+ * mobilities differ gets a curve that is not the symmetric one. */
+START_TEST(test_two_mobility_curves_use_their_model)
+{
+    const char *predict[] = { "predict", "lot1.yaml", "--db", "tm.db", NULL };
+    const char *ingest[] = { "ingest", "--lot", "DEMO-01", "--sweeps", "sim1/sweeps.csv",
+                             "--model", "two-mobility", "--db", "tm.db", NULL };
+    run_ok(predict);
+    run_ok(ingest);
+    char *db = sl_test_path(g_dir, "tm.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "DEMO-01", diag), SL_OK);
+    size_t asymmetric = 0, two_mobility = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        if (strcmp(d->fit_class, "ok") != 0)
+            continue;
+        ck_assert_msg(strncmp(d->fit_model, "two-mobility", 12) == 0, "%s", d->fit_model);
+        two_mobility++;
+        ck_assert(isfinite(d->electron_mobility_cm2_per_Vs) && isfinite(d->hole_mobility_cm2_per_Vs));
+        asymmetric += fabs(d->electron_mobility_cm2_per_Vs / d->hole_mobility_cm2_per_Vs - 1.0) > 1e-3;
+    }
+    ck_assert_uint_gt(two_mobility, 0);
+    ck_assert_uint_gt(asymmetric, 0); /* noise alone moves a free ratio off 1 */
+    sl_report_options opts;
+    sl_report_options_default(&opts);
+    opts.max_curves = 1000;
+    sl_chart_buf b;
+    sl_chart_buf_init(&b);
+    sl_report_summary s;
+    ck_assert_int_eq(sl_report_render(&b, &s, store, a, &opts, NULL), SL_OK);
+    char *h = sl_chart_buf_detach(&b);
+    ck_assert_uint_ge(count(h, ">fitted model</text>"), 1);
+    free(h);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+}
+END_TEST
+
 START_TEST(test_effects_note_when_not_estimable)
 {
     char *path = sl_test_path(g_dir, "r3.html");
@@ -948,6 +994,7 @@ static Suite *report_suite(void)
     tcase_add_test(tc, test_parameter_tooltips_name_devices);
     tcase_add_test(tc, test_history_with_two_lots);
     tcase_add_test(tc, test_fitted_curve_of_an_outlier);
+    tcase_add_test(tc, test_two_mobility_curves_use_their_model);
     tcase_add_test(tc, test_effects_note_when_not_estimable);
     tcase_add_test(tc, test_render_is_deterministic);
     tcase_add_loop_test(tc, test_stream_renders_the_same_page, 0, 2);
