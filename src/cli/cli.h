@@ -85,6 +85,14 @@ const char *cli_db_path(const char *option_value);
  * line (and no empty database left behind); returns 0 when it exists. */
 int cli_require_db(const char *path);
 
+/* A "still working" line for long commands: on a terminal only, shown once
+ * the work has run 2 s, wiped by cli_busy_stop (cli_busy.c). Stop before
+ * printing anything else. Start returns NULL off a terminal; stopping NULL
+ * is a no-op. */
+typedef struct cli_busy cli_busy;
+cli_busy *cli_busy_start(const char *what);
+void cli_busy_stop(cli_busy *b);
+
 /* Usage text printed for --help; returns CLI_EXIT_OK. */
 int cli_print_help(const char *text);
 /* Unknown option or missing argument: one line with a hint; returns 2. */

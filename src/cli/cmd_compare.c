@@ -410,8 +410,11 @@ static int run_compare(const compare_args *args)
     sl_store *store = NULL;
     sl_analysis_stream *stream = NULL;
     sl_status st = sl_store_open(&store, args->db, diag);
-    if (st == SL_OK)
+    if (st == SL_OK) {
+        cli_busy *busy = cli_busy_start("compare");
         st = sl_analyze_lot_stream_view(&stream, store, args->lot, &args->view, diag);
+        cli_busy_stop(busy);
+    }
     int rc = st == SL_OK ? print_compare(args, stream, diag) : cli_fail(st, diag);
     sl_analysis_stream_free(stream);
     sl_store_close(store);

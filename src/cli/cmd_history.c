@@ -177,8 +177,11 @@ int cmd_history(int argc, char **argv)
     sl_store *store = NULL;
     sl_history *h = NULL;
     sl_status st = sl_store_open(&store, db, diag);
-    if (st == SL_OK)
+    if (st == SL_OK) {
+        cli_busy *busy = cli_busy_start("history");
         st = sl_analyze_history_view(&h, store, &view, diag);
+        cli_busy_stop(busy);
+    }
     int rc = st == SL_OK ? print_history(h, format, emit_yaml, &view) : cli_fail(st, diag);
     sl_history_free(h);
     sl_store_close(store);

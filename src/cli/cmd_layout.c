@@ -302,8 +302,11 @@ static sl_status simulate_if_asked(sl_layout_mc *mc, const sl_plan *plan, const 
         sl_diag_error(diag, "--simulate needs the plan's 'variation' and 'resolve' blocks");
         return SL_EINPUT;
     }
-    return sl_layout_simulate_power(mc, plan, l, (size_t)lots, (unsigned long)plan->seed,
-                                    (int)threads);
+    cli_busy *busy = cli_busy_start("layout --simulate");
+    sl_status st = sl_layout_simulate_power(mc, plan, l, (size_t)lots, (unsigned long)plan->seed,
+                                            (int)threads);
+    cli_busy_stop(busy);
+    return st;
 }
 
 static int print_layout(const layout_view *v)

@@ -68,8 +68,11 @@ static int run_report(const report_args *args)
     sl_store *store = NULL;
     sl_report_summary summary;
     sl_status st = sl_store_open(&store, args->db, diag);
-    if (st == SL_OK)
+    if (st == SL_OK) {
+        cli_busy *busy = cli_busy_start("report");
         st = sl_report_lot(&summary, store, args->lot, args->out, &args->opts, diag);
+        cli_busy_stop(busy);
+    }
     int rc = st == SL_OK ? CLI_EXIT_OK : cli_fail(st, diag);
     if (st == SL_OK)
         print_summary(args, &summary);
