@@ -189,6 +189,12 @@ static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_v
             continue;
         }
         sl_analysis *a = st == SL_OK ? &sl_analysis_stream_release(stream)->pub : NULL;
+        if (a) { /* the lot as the revision its view was measured against stored it */
+            free(h->lot_created[i]);
+            h->lot_created[i] = dup_or_empty(a->view_revision.created_utc);
+            if (!h->lot_created[i])
+                st = SL_ENOMEM;
+        }
         if (st == SL_OK)
             st = add_lot(h, a, i, n);
         if (st == SL_OK)

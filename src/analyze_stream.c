@@ -102,13 +102,19 @@ static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
     return st;
 }
 
-/* The stored plan text, parsed for its factors, levels and names; its
- * splits must be the stored revision's, in the same order. */
-static sl_status load_plan(sl_analysis *a, const sl_store_revision *rev, sl_diag *diag)
+/* The plan text the view's revision stored (not the lot's newest: planned
+ * levels and tolerances are the revision's), parsed for its factors,
+ * levels and names; its splits must be the stored revision's, in order. */
+static sl_status load_plan(sl_analysis *a, sl_store *store, const sl_store_revision *rev,
+                           sl_diag *diag)
 {
+    sl_status st = sl_store_load_lot_revision(store, &a->view_revision, &a->lot, rev->revision_id,
+                                              diag);
+    if (st != SL_OK)
+        return st;
+    const sl_store_lot *v = &a->view_revision;
     size_t before = sl_diag_size(diag);
-    sl_status st = sl_plan_parse(&a->plan, a->lot.plan_text, strlen(a->lot.plan_text),
-                                 a->lot.plan_name, diag);
+    st = sl_plan_parse(&a->plan, v->plan_text, strlen(v->plan_text), v->plan_name, diag);
     int same = st == SL_OK && a->plan->n_splits == rev->n_splits;
     for (size_t i = 0; same && i < rev->n_splits; i++)
         same = strcmp(a->plan->splits[i].name, rev->splits[i].name) == 0;
@@ -227,7 +233,7 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
         if (a->runs[i].revision_id == revision_id)
             a->revision = a->runs[i].revision;
     if (st == SL_OK)
-        st = load_plan(a, &rev, diag);
+        st = load_plan(a, store, &rev, diag);
     if (st == SL_OK)
         st = stored_layout(&s->layout, &rev);
     if (st == SL_OK)

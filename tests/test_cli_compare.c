@@ -615,6 +615,63 @@ START_TEST(test_plan_revisions_after_measurement)
 }
 END_TEST
 
+/* stdout of a command run in folder, which must exit 0. */
+static char *output_in(const char *folder, const char *const *argv)
+{
+    sl_run_result r = sl_test_run(folder, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s: exit %d: %s", argv[0], r.exit_code, r.err);
+    free(r.err);
+    return r.out;
+}
+
+/* A revision accepted after measurement that changes a planned level (the
+ * anneal's 1.2e12 to 0.4e12, no wafer moved) leaves compare and history
+ * byte for byte as they were: the runs were measured against revision 1,
+ * whose planned levels, tolerances and predictions they keep; a run ingested
+ * under revision 2 is judged against revision 2's planned level. */
+START_TEST(test_old_runs_keep_their_plan)
+{
+    char *folder = sl_test_tmpdir();
+    sl_run_result r = predict_rev(folder, NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *simulate[] = { "simulate", "rev.yaml", "--out", "sim", "--seed", "3", NULL };
+    free(output_in(folder, simulate));
+    const char *ingest[] = { "ingest", "--lot", "REV-01", "--results", "sim/results.csv", "--db",
+                             "t.db", NULL };
+    free(output_in(folder, ingest));
+    const char *text[] = { "compare", "--lot", "REV-01", "--db", "t.db", NULL };
+    const char *history[] = { "history", "--db", "t.db", "--format", "json", NULL };
+    char *json_before = compare_in(folder, "REV-01");
+    char *text_before = output_in(folder, text), *history_before = output_in(folder, history);
+    ck_assert(strstr(json_before, "\"planned_per_cm2\": 1.2e+12") != NULL);
+
+    r = predict_rev(folder, "mean: 1.2e12", "mean: 0.4e12");
+    ck_assert_msg(r.exit_code == 0 && strstr(r.err, "stored plan as revision 2"), "%s", r.err);
+    sl_run_result_free(&r);
+    char *json_after = compare_in(folder, "REV-01");
+    char *text_after = output_in(folder, text), *history_after = output_in(folder, history);
+    ck_assert_str_eq(json_after, json_before);
+    ck_assert_str_eq(text_after, text_before);
+    ck_assert_str_eq(history_after, history_before);
+    free(json_after);
+
+    free(output_in(folder, ingest)); /* a run under revision 2: its plan now */
+    json_after = compare_in(folder, "REV-01");
+    ck_assert_int_eq(top_number(json_after, "plan_revision"), 2);
+    ck_assert(strstr(json_after, "\"planned_per_cm2\": 4e+11") != NULL);
+    ck_assert(strstr(json_after, "\"planned_per_cm2\": 1.2e+12") == NULL);
+    free(json_after);
+    free(text_after);
+    free(history_after);
+    free(json_before);
+    free(text_before);
+    free(history_before);
+    sl_test_rmtree(folder);
+    free(folder);
+}
+END_TEST
+
 /* compare in another view: the 77 K run of a re-probed lot, chosen by
  * --temperature-K, and a temperature the plan lacks refused (exit 2). */
 START_TEST(test_compare_views)
@@ -794,6 +851,7 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_compare_views);
     tcase_add_test(tc, test_history_and_report_views);
     tcase_add_test(tc, test_plan_revisions_after_measurement);
+    tcase_add_test(tc, test_old_runs_keep_their_plan);
     tcase_add_test(tc, test_same_answers_on_both_backends);
     suite_add_tcase(s, tc);
     return s;

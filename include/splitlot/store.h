@@ -90,6 +90,12 @@ sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
                             sl_diag *diag);
 void sl_store_lot_clear(sl_store_lot *lot);
 
+/* One stored revision (by row id) of a found lot, as sl_store_find_lot gives
+ * the newest: what an analysis of a view reads its plan from, whichever
+ * revision is the newest. SL_OK, SL_EDB, SL_ENOMEM. */
+sl_status sl_store_load_lot_revision(sl_store *store, sl_store_lot *out, const sl_store_lot *lot,
+                                     long revision_id, sl_diag *diag);
+
 /* Names of all lots in creation order (malloc'd array of malloc'd strings). */
 sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_diag *diag);
 void sl_store_free_names(char **names, size_t count);
