@@ -18,6 +18,7 @@ struct sl_store {
     sl__stmt *insert_measurement;
     long new_lot_id;             /* a lot with no devices before this import, or 0 */
     sl__stmt *insert_sweep;
+    sl__stmt *insert_new_device; /* PostgreSQL: device, measurement and sweep in one trip */
     sl__stmt *stage_point;
     int has_stage;               /* the stage table created on this connection */
     long *tx_runs;               /* runs added in the open transaction (an import's) */

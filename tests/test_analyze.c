@@ -672,7 +672,7 @@ START_TEST(test_density_window_reached)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
     size_t checked = 0;
     for (size_t k = 0; k < a->n_splits; k++) {

@@ -6,10 +6,11 @@
  */
 #include <check.h>
 #include <math.h>
-#include <sqlite3.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+
+#include "store_internal.h"
 
 #include "splitlot/layout.h"
 #include "splitlot/plan.h"
@@ -603,24 +604,25 @@ START_TEST(predict_stores_loads)
     sl_run_result_free(&r);
     sl_plan *plan = load_example("rf-highk-topgate.yaml");
     sl_layout *l = build(plan);
-    sqlite3 *conn = NULL;
-    ck_assert_int_eq(sqlite3_open(db, &conn), SQLITE_OK);
-    sqlite3_stmt *st = NULL;
-    ck_assert_int_eq(sqlite3_prepare_v2(conn,
+    sl_store *conn = NULL;
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(sl_test_store_open(&conn, db, diag), SL_OK);
+    sl__stmt *st = NULL;
+    ck_assert_int_eq(sl__db_prepare(conn->db,
                          "SELECT w.name, l.step, l.load FROM wafer_load l "
-                         "JOIN wafer w ON w.id = l.wafer_id",
-                         -1, &st, NULL), SQLITE_OK);
+                         "JOIN wafer w ON w.id = l.wafer_id", 0, &st), SL__DB_OK);
     size_t rows = 0;
-    while (sqlite3_step(st) == SQLITE_ROW) {
-        long w = sl_plan_wafer_index(plan, (const char *)sqlite3_column_text(st, 0));
+    while (sl__db_step(st) == SL__DB_ROW) {
+        long w = sl_plan_wafer_index(plan, sl__db_column_text(st, 0));
         ck_assert_int_ge(w, 0);
-        ck_assert_str_eq((const char *)sqlite3_column_text(st, 1), "pda-400");
-        ck_assert_int_eq(sqlite3_column_int64(st, 2), (long)l->wafers[w].load[0]);
+        ck_assert_str_eq(sl__db_column_text(st, 1), "pda-400");
+        ck_assert_int_eq(sl__db_column_int64(st, 2), (long)l->wafers[w].load[0]);
         rows++;
     }
     ck_assert_uint_eq(rows, 12);
-    sqlite3_finalize(st);
-    sqlite3_close(conn);
+    sl__db_finalize(st);
+    sl_store_close(conn);
+    sl_diag_free(diag);
     sl_layout_free(l);
     sl_plan_free(plan);
     sl_test_rmtree(dir);

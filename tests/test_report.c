@@ -855,7 +855,7 @@ START_TEST(test_large_split_is_binned)
     sl_diag *diag = sl_diag_new();
     sl_store *store = NULL;
     sl_analysis *a = NULL;
-    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
     ck_assert_int_eq(sl_analyze_lot(&a, store, "LARGE-01", diag), SL_OK);
     size_t usable_flagged = 0;
     for (size_t i = 0; i < a->n_devices; i++)

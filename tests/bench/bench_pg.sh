@@ -1,0 +1,85 @@
+#!/bin/sh
+# SPDX-License-Identifier: MIT
+# Benchmark (not a test) of the PostgreSQL backend against SQLite: the sweep
+# import of a 12,500-device lot (tests/bench/plan-12500.yaml, 50 wafers x 250
+# devices, 41 points a sweep), compare (json) on it, and compare's peak
+# client memory at 1,000 and 50,000 devices on PostgreSQL. Each import goes
+# into an empty database (a new schema on the server, a new file for SQLite).
+# Prints wall seconds, best of RUNS runs, and the ratios; targets: import and
+# compare within 3x of SQLite, memory flat.
+# Usage: .ci/pg-start tests/bench/bench_pg.sh [BUILD_DIR] [RUNS]   (from the repo root)
+set -eu
+build=${1:-build-release}
+runs=${2:-3}
+bin=$(cd "$build" && pwd)/splitlot
+here=$(cd "$(dirname "$0")" && pwd)
+plan=$here/plan-12500.yaml
+: "${SPLITLOT_TEST_DB:?run under .ci/pg-start (it starts a throwaway server)}"
+command -v psql > /dev/null || { echo "bench_pg: needs psql" >&2; exit 1; }
+work=$(mktemp -d)
+trap 'rm -rf "$work"' EXIT
+cd "$work"
+
+n_schema=0
+fresh_pg() { # a URL of a new, empty schema on the server
+    n_schema=$((n_schema + 1))
+    psql -q "$SPLITLOT_TEST_DB" -c "SET client_min_messages = warning; DROP SCHEMA IF EXISTS b$n_schema CASCADE; CREATE SCHEMA b$n_schema" > /dev/null
+    echo "$SPLITLOT_TEST_DB&options=-csearch_path%3Db$n_schema"
+}
+
+wall() { # wall seconds of a command
+    /usr/bin/time -f '%e' -o time.txt "$@" > /dev/null 2> err.txt || { cat err.txt >&2; exit 1; }
+    cat time.txt
+}
+
+min() { printf '%s\n' "$@" | sort -g | head -n 1; }
+
+# import: best of $runs, each into a new database; sets best and last_db
+import_best() { # backend (sqlite|pg), sweeps file
+    times=""
+    i=0
+    while [ "$i" -lt "$runs" ]; do
+        i=$((i + 1))
+        if [ "$1" = pg ]; then db=$(fresh_pg); else db=$work/i$i.db; rm -f "$db"*; fi
+        "$bin" predict "$plan" --db "$db" > /dev/null 2>&1
+        times="$times $(wall "$bin" ingest --lot BENCH-12500 --sweeps "$2" --db "$db")"
+    done
+    last_db=$db
+    best=$(min $times)
+}
+
+compare_best() { # database
+    times=""
+    i=0
+    while [ "$i" -lt "$runs" ]; do
+        i=$((i + 1))
+        times="$times $(wall "$bin" compare --lot BENCH-12500 --db "$1" --format json)"
+    done
+    min $times
+}
+
+peak_kb() { # database
+    /usr/bin/time -f '%M' -o rss.txt "$bin" compare --lot BENCH-12500 --db "$1" --format json \
+        > /dev/null 2>&1
+    cat rss.txt
+}
+
+"$bin" simulate "$plan" --out s250 --devices-per-wafer 250 --points 41 > /dev/null
+devices=$(($(wc -l < s250/results.csv) - 1))
+echo "lot of $devices devices (sweeps, 41 points); best of $runs; $(nproc) cores"
+import_best sqlite s250/sweeps.csv; t_sqlite=$best; db_sqlite=$last_db
+import_best pg s250/sweeps.csv; t_pg=$best; db_pg=$last_db
+c_sqlite=$(compare_best "$db_sqlite")
+c_pg=$(compare_best "$db_pg")
+awk -v s="$t_sqlite" -v p="$t_pg" 'BEGIN { printf "import:  SQLite %6.3f s  PostgreSQL %6.3f s  ratio %.2f (target < 3: %s)\n", s, p, p / s, p / s < 3 ? "met" : "MISSED" }'
+awk -v s="$c_sqlite" -v p="$c_pg" 'BEGIN { printf "compare: SQLite %6.3f s  PostgreSQL %6.3f s  ratio %.2f (target < 3: %s)\n", s, p, p / s, p / s < 3 ? "met" : "MISSED" }'
+
+# peak client memory of compare on PostgreSQL: 1,000 and 50,000 devices
+for per_wafer in 20 1000; do
+    db=$(fresh_pg)
+    "$bin" predict "$plan" --db "$db" > /dev/null 2>&1
+    "$bin" simulate "$plan" --out r$per_wafer --devices-per-wafer $per_wafer --no-sweeps > /dev/null
+    "$bin" ingest --lot BENCH-12500 --results r$per_wafer/results.csv --db "$db" > /dev/null 2>&1
+    n=$(($(wc -l < r$per_wafer/results.csv) - 1))
+    echo "compare peak memory on PostgreSQL: $(peak_kb "$db") kB at $n devices"
+done
