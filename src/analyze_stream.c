@@ -70,13 +70,38 @@ static long temperature_index(const sl_store_revision *rev, double temperature_K
     return -1;
 }
 
+/* A step asked for that none of the lot's runs measured (a lot with runs):
+ * SL_ENOTFOUND, naming the steps it has. */
+static sl_status step_measured(const sl_analysis *a, const char *step, sl_diag *diag)
+{
+    char steps[256] = "";
+    size_t k = 0;
+    for (size_t i = 0; i < a->n_runs; i++) {
+        if (strcmp(a->runs[i].step, step) == 0)
+            return SL_OK;
+        int seen = 0;
+        for (size_t j = 0; j < i && !seen; j++)
+            seen = strcmp(a->runs[j].step, a->runs[i].step) == 0;
+        if (!seen && k < sizeof steps)
+            k += (size_t)snprintf(steps + k, sizeof steps - k, "%s%s", k ? ", " : "",
+                                  a->runs[i].step);
+    }
+    if (a->n_runs == 0)
+        return SL_OK; /* nothing measured yet: an empty view */
+    sl_diag_error(diag, "lot %s has no measurements at step '%s' (steps: %s)", a->lot.lot, step,
+                  steps);
+    return SL_ENOTFOUND;
+}
+
 /* The step and temperature shown, and the revision of the view's newest
  * run (the lot's newest revision when the view has no run). */
 static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
                              const sl_analyze_view *view, sl_diag *diag)
 {
     sl_store_revision newest;
-    sl_status st = sl_store_load_revision(store, &newest, a->lot.revision_id, diag);
+    sl_status st = view && view->step ? step_measured(a, view->step, diag) : SL_OK;
+    if (st == SL_OK)
+        st = sl_store_load_revision(store, &newest, a->lot.revision_id, diag);
     if (st != SL_OK)
         return st;
     st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
@@ -223,9 +248,9 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
     long revision_id = 0;
     sl_status st = sl_store_find_lot(store, &a->lot, lot, diag);
     if (st == SL_OK)
-        st = choose_view(a, &revision_id, store, view, diag);
-    if (st == SL_OK)
         st = sl_store_list_runs(store, &a->runs, &a->n_runs, a->lot.lot_id, diag);
+    if (st == SL_OK)
+        st = choose_view(a, &revision_id, store, view, diag);
     if (st == SL_OK)
         st = sl_store_load_revision(store, &rev, revision_id, diag);
     a->revision = a->lot.revision;

@@ -689,9 +689,11 @@ START_TEST(test_compare_views)
     /* the simulated sweeps hold every device at both temperatures */
     ck_assert_int_eq(top_number(r.out, "device_count"), warm);
     sl_run_result_free(&r);
-    r = compare_json("DEMO-01", "--step=after-anneal", 0);
-    ck_assert(strstr(r.out, "\"step\": \"after-anneal\"") != NULL);
-    ck_assert_int_eq(top_number(r.out, "device_count"), 0);
+    /* a step the lot has no run of is refused, naming the steps it has */
+    r = compare_json("DEMO-01", "--step=etch", 2);
+    ck_assert_str_eq(r.out, "");
+    ck_assert_str_eq(r.err, "splitlot: error: lot DEMO-01 has no measurements at step 'etch' "
+                            "(steps: final)\n");
     sl_run_result_free(&r);
 }
 END_TEST
@@ -708,8 +710,16 @@ START_TEST(test_history_and_report_views)
     sl_run_result_free(&r);
     history[7] = "--step=after-anneal"; /* no lot measured after that step */
     r = run_in(history);
-    ck_assert(strstr(r.out, "\"step\": \"after-anneal\",\n") != NULL);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 0);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_str_eq(r.out, "");
+    ck_assert_msg(strstr(r.err, "no lot has measurements at step 'after-anneal'"), "%s", r.err);
+    sl_run_result_free(&r);
+    const char *no_step[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "e.html",
+                              "--no-history", "--step", "etch", NULL };
+    r = run_in(no_step);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "lot CLEAN-01 has no measurements at step 'etch' (steps: final)"),
+                  "%s", r.err);
     sl_run_result_free(&r);
     const char *report[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "v.html",
                              "--no-history", "--step", "final", NULL };
