@@ -599,6 +599,11 @@ static sl_status finish_runs(ingest_ctx *c)
         c->summary->runs[k].rows = c->run_rows[t];
         c->summary->runs[k].devices = devices;
     }
+    /* a device measured at two temperatures is one device, two measurements */
+    c->summary->measurements = c->summary->devices;
+    if (st == SL_OK)
+        st = sl_store_count_import_devices(c->store, &c->summary->devices, c->lot.lot_id,
+                                           c->first_run_id, c->diag);
     return st;
 }
 

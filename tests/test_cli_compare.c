@@ -672,6 +672,56 @@ START_TEST(test_old_runs_keep_their_plan)
 }
 END_TEST
 
+/* A 77 K results file ingested twice: the second run measured every device
+ * of the first again, so the first has no current measurement and is not
+ * in the 77 K view; the second is, with all its measurements current. */
+START_TEST(test_superseded_run_not_in_view)
+{
+    char *folder = sl_test_tmpdir();
+    sl_run_result r = predict_rev(folder, NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *simulate[] = { "simulate", "rev.yaml", "--out", "sim", "--seed", "3", NULL };
+    free(output_in(folder, simulate));
+    char *path = sl_test_path(folder, "sim/results.csv");
+    char *text = sl_test_read_file(path, NULL);
+    char *cold = malloc(strlen(text) + 1), *o = cold;
+    char *save = NULL, *line = strtok_r(text, "\n", &save);
+    o += sprintf(o, "%s\n", line);
+    while ((line = strtok_r(NULL, "\n", &save)))
+        if (strlen(line) > 3 && strcmp(line + strlen(line) - 3, ",77") == 0)
+            o += sprintf(o, "%s\n", line);
+    char *cold_path = sl_test_path(folder, "cold.csv");
+    ck_assert_int_eq(sl_test_write_file(cold_path, cold), 0);
+    const char *ingest[] = { "ingest", "--lot", "REV-01", "--results", "cold.csv", "--db", "t.db",
+                             "--format", "json", NULL };
+    char *first = output_in(folder, ingest);
+    long devices = top_number(first, "devices");
+    ck_assert_int_gt(devices, 0);
+    free(first);
+    free(output_in(folder, ingest));
+    const char *compare[] = { "compare", "--lot", "REV-01", "--db", "t.db", "--format", "json",
+                              "--temperature-K", "77", NULL };
+    char *out = output_in(folder, compare);
+    ck_assert_uint_eq(for_rows(out, "runs", run_keys), 2);
+    const char *runs = strstr(out, "\"runs\": [\n");
+    ck_assert(runs != NULL);
+    const char *row1 = strchr(runs, '\n') + 1, *row2 = strchr(row1, '\n') + 1;
+    ck_assert_msg(strstr(row1, "\"current\": 0,") && strstr(row1, "\"in_view\": false") &&
+                  strstr(row1, "\"in_view\": false") < row2, "%s", runs);
+    char want[64];
+    snprintf(want, sizeof want, "\"current\": %ld,", devices);
+    ck_assert_msg(strstr(row2, want) && strstr(row2, "\"in_view\": true"), "%s", runs);
+    free(out);
+    free(cold_path);
+    free(cold);
+    free(text);
+    free(path);
+    sl_test_rmtree(folder);
+    free(folder);
+}
+END_TEST
+
 /* compare in another view: the 77 K run of a re-probed lot, chosen by
  * --temperature-K, and a temperature the plan lacks refused (exit 2). */
 START_TEST(test_compare_views)
@@ -862,6 +912,7 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_history_and_report_views);
     tcase_add_test(tc, test_plan_revisions_after_measurement);
     tcase_add_test(tc, test_old_runs_keep_their_plan);
+    tcase_add_test(tc, test_superseded_run_not_in_view);
     tcase_add_test(tc, test_same_answers_on_both_backends);
     suite_add_tcase(s, tc);
     return s;

@@ -159,6 +159,9 @@ typedef struct {
     char *source_sha256;         /* 64 hex digits; "" for runs migrated from version 3 */
     long rows, devices;
     char *created_utc;
+    long current;                /* of its measurements, those still current: no later
+                                    run of its step and temperature measured the device
+                                    again (0: superseded, out of every view) */
 } sl_store_run;
 
 /* Start a run of a lot (inside the import's transaction); rows and devices
@@ -171,6 +174,11 @@ sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revi
  * into *devices; a run without measurements is removed. */
 sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sha256_hex,
                               long *devices, sl_diag *diag);
+
+/* The distinct devices measured by a lot's runs with ids >= first_run_id
+ * (an import's runs: a device at two temperatures counts once). */
+sl_status sl_store_count_import_devices(sl_store *store, long *devices, long lot_id,
+                                        long first_run_id, sl_diag *diag);
 
 /* Row id the next run gets: an import's runs have ids >= it. */
 sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag);
