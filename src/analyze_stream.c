@@ -632,7 +632,9 @@ static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d
         sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
     } else if (st == SL_OK || st == SL_ENOTFOUND) {
         double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
-        int above = d->cnp_predicted_V > 0.5 * (lo + hi);
+        /* a results file's reported value says which end; else the prediction's side */
+        double cnp_V = s->row && isfinite(s->row->cnp_V) ? s->row->cnp_V : d->cnp_predicted_V;
+        int above = cnp_V > 0.5 * (lo + hi);
         sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
         st = SL_OK;
     }
