@@ -23,6 +23,8 @@ int sl_analyze_flag_names(const sl_analyze_device *d, const char **names)
         names[n++] = "below-floor";
     if (d->flags & SL_FLAG_HYSTERESIS)
         names[n++] = "hysteresis";
+    if (d->flags & SL_FLAG_LOW_MOBILITY)
+        names[n++] = "low-mobility";
     return n;
 }
 
@@ -65,7 +67,7 @@ static sl_status collect_devices(collected *c, sl_analysis_stream *s, sl_diag *d
     const sl_analyze_device *d = NULL;
     sl_status st;
     while ((st = sl_analysis_stream_next_device(s, &d, diag)) == SL_OK && d && i < a->n_devices) {
-        c->rows[i] = *sl_analysis_stream_row(s);
+        c->rows[i] = *sl__analysis_stream_row(s);
         c->devices[i] = *d;
         c->devices[i].wafer = c->rows[i].wafer;
         c->devices[i].device = c->rows[i].name;
@@ -75,7 +77,7 @@ static sl_status collect_devices(collected *c, sl_analysis_stream *s, sl_diag *d
     }
     if (st == SL_OK && (d || i != a->n_devices)) {
         sl_analysis_stream_rewind(s);
-        st = sl_analyze_lot_changed(a, diag);
+        st = sl__analyze_lot_changed(a, diag);
     }
     return st;
 }
@@ -116,7 +118,7 @@ static sl_status collect_flagged(collected *c, sl_analysis_stream *s, sl_diag *d
     free(ids);
     if (st == SL_OK && (d || k != a->n_flagged)) {
         sl_analysis_stream_rewind(s);
-        st = sl_analyze_lot_changed(a, diag);
+        st = sl__analyze_lot_changed(a, diag);
     }
     return st;
 }
@@ -144,7 +146,7 @@ sl_status sl_analyze_lot_view(sl_analysis **out, sl_store *store, const char *lo
         sl_analysis_stream_free(s);
         return st;
     }
-    sl_analysis_owner *o = sl_analysis_stream_release(s);
+    sl_analysis_owner *o = sl__analysis_stream_release(s);
     o->rows = c.rows;
     o->pub.devices = c.devices;
     o->pub.flagged = c.flagged;

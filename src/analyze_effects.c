@@ -17,7 +17,7 @@
 #include "analyze_internal.h"
 
 
-sl_est sl_analyze_planned_level(const sl_plan *plan, size_t factor, size_t level)
+sl_est sl__analyze_planned_level(const sl_plan *plan, size_t factor, size_t level)
 {
     sl_est none = { 0.0, 0.0 };
     long ref = plan->factors[factor].level_ref[level];
@@ -132,7 +132,7 @@ static size_t wafers_at(const wafer_means *m, size_t nf, size_t factor, size_t l
     return n;
 }
 
-void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
+void sl__analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
                                const size_t *reference_levels, size_t stride)
 {
     size_t k = (size_t)snprintf(buf, size, "baseline");
@@ -151,11 +151,11 @@ static void intercept_effect(sl_analysis *a, sl_analyze_effect *e, const level_m
     double planned = plan->baseline_doping_per_cm2.val;
     double var = plan->baseline_doping_per_cm2.sigma * plan->baseline_doping_per_cm2.sigma;
     for (size_t f = 0; f < plan->n_factors; f++) {
-        sl_est ref = sl_analyze_planned_level(plan, f, plan_level(map, f, 0));
+        sl_est ref = sl__analyze_planned_level(plan, f, plan_level(map, f, 0));
         planned += ref.val;
         var += ref.sigma * ref.sigma;
     }
-    sl_analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan,
+    sl__analyze_intercept_name(a->intercept_name, sizeof a->intercept_name, plan,
                               map->old_of_new, map->stride);
     e->factor = "intercept";
     e->level = a->intercept_name;
@@ -173,11 +173,11 @@ static void planned_effect(sl_analyze_effect *e, const sl_plan *plan, size_t fac
                            size_t reference)
 {
     const sl_plan_factor *f = &plan->factors[factor];
-    sl_est planned = sl_analyze_planned_level(plan, factor, level);
+    sl_est planned = sl__analyze_planned_level(plan, factor, level);
     e->factor = f->name;
     e->level = f->levels[level];
     e->reference = f->levels[reference];
-    e->planned_per_cm2 = planned.val - sl_analyze_planned_level(plan, factor, reference).val;
+    e->planned_per_cm2 = planned.val - sl__analyze_planned_level(plan, factor, reference).val;
     e->planned_sigma_per_cm2 = planned.sigma;
     e->tolerance_per_cm2 = sl_plan_level_tolerance_per_cm2(plan, factor, level);
     e->estimated_per_cm2 = e->stderr_per_cm2 = NAN;
@@ -357,7 +357,7 @@ static sl_status fit_and_fill(sl_analysis *a, const sl_layout *layout, const waf
     return st == SL_ENOMEM ? st : SL_OK;
 }
 
-sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
+sl_status sl__analyze_effects(sl_analysis *a, const sl_layout *layout,
                              const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4)
 {
     wafer_means m = { 0 };

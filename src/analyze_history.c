@@ -131,7 +131,7 @@ static void pool_level(sl_history_level *l, double *x, double *se)
     l->chart.sigma = w / SL_STATS_CHART_SIGMAS;
 }
 
-sl_status sl_analyze_history_level(sl_history_level *l)
+sl_status sl__analyze_history_level(sl_history_level *l)
 {
     size_t n = l->n_points;
     double *x = malloc((n + 1) * sizeof *x), *se = malloc((n + 1) * sizeof *se);
@@ -190,7 +190,7 @@ static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_v
             skipped++;
             continue;
         }
-        sl_analysis *a = st == SL_OK ? &sl_analysis_stream_release(stream)->pub : NULL;
+        sl_analysis *a = st == SL_OK ? &sl__analysis_stream_release(stream)->pub : NULL;
         if (a) { /* the lot as the revision its view was measured against stored it */
             free(h->lot_created[i]);
             h->lot_created[i] = dup_or_empty(a->view_revision.created_utc);
@@ -231,7 +231,7 @@ sl_status sl_analyze_history_view(sl_history **out, sl_store *store, const sl_an
         return SL_ENOMEM;
     sl_status st = collect_lots(h, store, view, diag);
     for (size_t i = 0; st == SL_OK && i < h->n_levels; i++)
-        st = sl_analyze_history_level(&h->levels[i]);
+        st = sl__analyze_history_level(&h->levels[i]);
     /* root mean square over the lots that measured it */
     h->wafer_sigma_per_cm2 = h->n_wafer_sigma ? sqrt(h->wafer_var_sum / (double)h->n_wafer_sigma) : NAN;
     h->device_sigma_V = h->n_device_sigma ? sqrt(h->device_var_sum / (double)h->n_device_sigma) : NAN;

@@ -30,10 +30,10 @@ typedef struct {
 } sl_analyze_wafer;
 
 /* Add a usable, non-outlier V_cnp to a wafer (Welford's running moments). */
-void sl_analyze_wafer_add(sl_analyze_wafer *w, double cnp_V);
+void sl__analyze_wafer_add(sl_analyze_wafer *w, double cnp_V);
 
 /* Add a censored device whose V_cnp lies above (above = 1) or below bound_V. */
-void sl_analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V);
+void sl__analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V);
 
 /* Everything that speaks for a split or a level, from the wafers (layout
  * order, layout->n_wafers entries) with the wafer as the unit: the pooled
@@ -41,39 +41,68 @@ void sl_analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V);
  * has censored devices), split summaries, the ANOVA of wafer-mean doping,
  * the effects and their verdicts. Needs a->plan, a->splits (predictions,
  * device counts) and a->split_capacitance_F_per_m2. */
-sl_status sl_analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
+sl_status sl__analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
                                       const sl_analyze_wafer *wafers);
 
 /* Estimate every level's effect from wafer means of measured doping
  * (cm^-2, NaN for a wafer without a mean) and the sampling variance of
  * each (cm^-4); fills a->effects, the verdict counts, a->wafer_sigma_per_cm2
  * and a->effects_status / effects_note. */
-sl_status sl_analyze_effects(sl_analysis *a, const sl_layout *layout,
+sl_status sl__analyze_effects(sl_analysis *a, const sl_layout *layout,
                              const double *wafer_mean_per_cm2, const double *wafer_var_per_cm4);
 
 /* A level's lots judged in order (drift from the second lot on, against the
  * random-effects pool of the lots before it that did not drift), its pool
  * and its chart: points[] (estimates and SEs) in, everything else out. */
-sl_status sl_analyze_history_level(sl_history_level *l);
+sl_status sl__analyze_history_level(sl_history_level *l);
 
 /* "baseline + ox90" (+ each other factor's reference level but 'none'):
  * the name of the intercept; factor f's reference level is
  * reference_levels[f * stride], or level 0 of every factor when
  * reference_levels is NULL. */
-void sl_analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
+void sl__analyze_intercept_name(char *buf, size_t size, const sl_plan *plan,
                                const size_t *reference_levels, size_t stride);
 
 /* Planned doping of a factor's level (cm^-2) and its own sigma. */
-sl_est sl_analyze_planned_level(const sl_plan *plan, size_t factor, size_t level);
+sl_est sl__analyze_planned_level(const sl_plan *plan, size_t factor, size_t level);
 
 /* "lot 'X': its devices changed during the analysis" into diag; SL_EINPUT. */
-sl_status sl_analyze_lot_changed(const sl_analysis *a, sl_diag *diag);
+sl_status sl__analyze_lot_changed(const sl_analysis *a, sl_diag *diag);
 
 /* The stored row behind the device last given by the stream. */
-const sl_store_device_row *sl_analysis_stream_row(const sl_analysis_stream *stream);
+const sl_store_device_row *sl__analysis_stream_row(const sl_analysis_stream *stream);
 
 /* The stream's summary, which the caller now owns (free with
  * sl_analysis_free); the stream is freed. */
-sl_analysis_owner *sl_analysis_stream_release(sl_analysis_stream *stream);
+sl_analysis_owner *sl__analysis_stream_release(sl_analysis_stream *stream);
+
+/* ---- per split: mobility, n0 and hysteresis (analyze_params.c) ---- */
+
+/* Fewest usable devices for modified z-scores to mean anything (common
+ * practice: a median and MAD of fewer points are too unstable). */
+#define SL_ANALYZE_MIN_FOR_OUTLIERS 5
+
+enum { SL_ANALYZE_PARAM_MOBILITY, SL_ANALYZE_PARAM_N0, SL_ANALYZE_PARAM_HYSTERESIS,
+       SL_ANALYZE_N_PARAMS };
+
+/* One parameter of one split over its usable devices with the value. */
+typedef struct {
+    size_t n;
+    double min, max, median, mad, sum_abs;
+    int first_mad_pass;
+    sl_stats_median_search *search;
+    sl_stats_robust robust;  /* median, MAD and scale of its modified z */
+} analyze_param_state;
+
+/* Fill state[split * SL_ANALYZE_N_PARAMS + param] (zeroed by the caller)
+ * and each split's medians and spreads (1.4826 MAD) in passes over the
+ * scratch's kept devices. Returns SL_OK, SL_EDB, SL_ENOMEM, SL_EINPUT
+ * (devices changed between passes). */
+sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
+                               sl_store_scratch *scratch, sl_diag *diag);
+
+/* Modified z of a mobility within its split; NaN with fewer than
+ * SL_ANALYZE_MIN_FOR_OUTLIERS devices or no mobility. */
+double analyze_mobility_modified_z(const analyze_param_state *state, long split, double mobility);
 
 #endif

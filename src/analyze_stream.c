@@ -24,7 +24,6 @@
  * practice: a median and MAD of fewer points are too unstable): on the
  * device's wafer, and pooled over its dielectric's wafers. */
 #define SL_ANALYZE_MIN_PER_WAFER 3
-#define SL_ANALYZE_MIN_FOR_OUTLIERS 5
 
 /* Running state of one dielectric: the MAD of the residuals from the wafer
  * medians, pooled over its wafers. */
@@ -45,6 +44,7 @@ struct sl_analysis_stream {
     sl_analyze_wafer *wafer;      /* per plan wafer */
     sl_stats_median_search **wafer_search;
     dielectric_state *dielectric;
+    analyze_param_state *params;  /* per split: mobility, n0, hysteresis */
     int first_pass;               /* of a phase of median searches */
     const sl_store_device_row *row; /* behind device */
     sl_analyze_device device;       /* the one last given */
@@ -275,7 +275,8 @@ static sl_status alloc_state(sl_analysis_stream *s)
     s->wafer = calloc(nw + 1, sizeof *s->wafer);
     s->wafer_search = calloc(nw + 1, sizeof *s->wafer_search);
     s->dielectric = calloc(nd + 1, sizeof *s->dielectric);
-    if (!s->wafer || !s->wafer_search || !s->dielectric)
+    s->params = calloc((s->layout->n_splits + 1) * SL_ANALYZE_N_PARAMS, sizeof *s->params);
+    if (!s->wafer || !s->wafer_search || !s->dielectric || !s->params)
         return SL_ENOMEM;
     for (size_t w = 0; w < nw; w++)
         s->wafer[w].split = s->layout->wafers[w].split;
@@ -379,7 +380,7 @@ static const char *class_reason(const char *cls)
  * (a residual density below the floor ranks after the off-prediction and
  * outlier flags, before nothing). */
 static void describe(sl_analyze_device *d, double floor_per_cm2, double temperature_K,
-                     double max_hysteresis_V)
+                     double max_hysteresis_V, double mobility_median_cm2_per_Vs)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
         snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
@@ -406,8 +407,14 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
                               "at %g K (the fit or the temperature is wrong)",
                               k ? "; " : "", d->n0_per_cm2, floor_per_cm2, temperature_K);
     if (d->flags & SL_FLAG_HYSTERESIS && k < sizeof d->reason)
-        snprintf(d->reason + k, sizeof d->reason - k, "%shysteresis %.2f V, beyond the plan's %.2f V",
-                 k ? "; " : "", d->hysteresis_V, max_hysteresis_V);
+        k += (size_t)snprintf(d->reason + k, sizeof d->reason - k,
+                              "%shysteresis %.2f V, beyond the plan's %.2f V", k ? "; " : "",
+                              d->hysteresis_V, max_hysteresis_V);
+    if (d->flags & SL_FLAG_LOW_MOBILITY && k < sizeof d->reason)
+        snprintf(d->reason + k, sizeof d->reason - k,
+                 "%smobility %.4g cm^2/Vs far below its split's median %.4g (modified z %.1f)",
+                 k ? "; " : "", d->mobility_cm2_per_Vs, mobility_median_cm2_per_Vs,
+                 d->mobility_modified_z);
     d->severity = fmax(isfinite(d->z) ? fabs(d->z) : 0.0,
                        isfinite(d->modified_z) ? fabs(d->modified_z) : 0.0);
     if (d->flags == SL_FLAG_BELOW_FLOOR)
@@ -416,6 +423,9 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
         d->severity += 100.0;
     if (d->flags == SL_FLAG_HYSTERESIS) /* by how far beyond the limit */
         d->severity = fabs(d->hysteresis_V) / max_hysteresis_V;
+    if (d->flags & SL_FLAG_LOW_MOBILITY && !(d->flags & SL_FLAG_OFF_PREDICTION))
+        d->severity = fmax(d->flags == SL_FLAG_LOW_MOBILITY ? 0.0 : d->severity,
+                           fabs(d->mobility_modified_z)); /* on the outliers' scale */
 }
 
 /* Every field of a device, from its row and its wafer's and dielectric's
@@ -431,14 +441,22 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     /* below the thermal floor no sample can be: n = p = n_th at neutrality */
     if (isfinite(d->n0_per_cm2) && d->n0_per_cm2 < a->split_floor_per_cm2[split])
         d->flags |= SL_FLAG_BELOW_FLOOR;
+    /* one-sided: a low mobility is the failure (modified z, Iglewicz and Hoaglin 1993) */
+    d->mobility_modified_z = NAN;
+    if (isfinite(d->cnp_measured_V))
+        d->mobility_modified_z = analyze_mobility_modified_z(s->params, split,
+                                                             d->mobility_cm2_per_Vs);
+    if (d->mobility_modified_z < -SL_STATS_MODIFIED_Z_THRESHOLD)
+        d->flags |= SL_FLAG_LOW_MOBILITY;
     if (d->flags)
-        describe(d, a->split_floor_per_cm2[split], a->temperature_K, a->plan->max_hysteresis_V);
+        describe(d, a->split_floor_per_cm2[split], a->temperature_K, a->plan->max_hysteresis_V,
+                 a->splits[split].mobility_median_cm2_per_Vs);
     s->row = r;
 }
 
 /* ---- the passes ---- */
 
-sl_status sl_analyze_lot_changed(const sl_analysis *a, sl_diag *diag)
+sl_status sl__analyze_lot_changed(const sl_analysis *a, sl_diag *diag)
 {
     sl_diag_error(diag, "lot '%s': its devices changed during the analysis", a->lot.lot);
     return SL_EINPUT;
@@ -546,7 +564,7 @@ static sl_status search_passes(sl_analysis_stream *s, int residuals, sl_diag *di
         for (size_t d = 0; residuals && st == SL_OK && d < a->plan->n_dielectrics; d++)
             st = end_pass(s->dielectric[d].search, &s->dielectric[d].mad_V, &open);
         if (st == SL_EINPUT)
-            return sl_analyze_lot_changed(a, diag);
+            return sl__analyze_lot_changed(a, diag);
         if (st != SL_OK)
             return st;
     }
@@ -629,13 +647,13 @@ static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d
             hi = vg[i] > vg[hi] ? i : hi;
         }
         int above = r[hi] > r[lo];
-        sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
+        sl__analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
     } else if (st == SL_OK || st == SL_ENOTFOUND) {
         double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
         /* a results file's reported value says which end; else the prediction's side */
         double cnp_V = s->row && isfinite(s->row->cnp_V) ? s->row->cnp_V : d->cnp_predicted_V;
         int above = cnp_V > 0.5 * (lo + hi);
-        sl_analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
+        sl__analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
         st = SL_OK;
     }
     free(vg);
@@ -659,7 +677,7 @@ static sl_status add_flags(sl_analysis_stream *s, long wafer, sl_diag *diag)
         a->n_usable++;
         a->n_outlier_scored += isfinite(d->modified_z);
         if (!(d->flags & SL_FLAG_OUTLIER))
-            sl_analyze_wafer_add(&s->wafer[wafer], d->cnp_measured_V);
+            sl__analyze_wafer_add(&s->wafer[wafer], d->cnp_measured_V);
     } else if (strcmp(d->fit_class, "cnp-outside-sweep") == 0) {
         sl_status st = censor_device(s, d, wafer, diag);
         if (st != SL_OK)
@@ -702,9 +720,11 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
     if (st == SL_OK)
         st = dielectric_mads(s, diag);
     if (st == SL_OK)
+        st = analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
+    if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)
-        st = sl_analyze_wafer_statistics(&s->owner->pub, s->layout, s->wafer);
+        st = sl__analyze_wafer_statistics(&s->owner->pub, s->layout, s->wafer);
     return st;
 }
 
@@ -775,7 +795,7 @@ const sl_analysis *sl_analysis_stream_summary(const sl_analysis_stream *s)
     return &s->owner->pub;
 }
 
-const sl_store_device_row *sl_analysis_stream_row(const sl_analysis_stream *s)
+const sl_store_device_row *sl__analysis_stream_row(const sl_analysis_stream *s)
 {
     return s->row;
 }
@@ -822,11 +842,14 @@ static void free_state(sl_analysis_stream *s)
     for (size_t d = 0; s->dielectric && d < s->owner->pub.plan->n_dielectrics; d++)
         sl_stats_median_search_free(s->dielectric[d].search);
     free(s->wafer_search);
+    for (size_t i = 0; s->params && i < s->layout->n_splits * SL_ANALYZE_N_PARAMS; i++)
+        sl_stats_median_search_free(s->params[i].search);
+    free(s->params);
     free(s->dielectric);
     free(s->wafer);
 }
 
-sl_analysis_owner *sl_analysis_stream_release(sl_analysis_stream *s)
+sl_analysis_owner *sl__analysis_stream_release(sl_analysis_stream *s)
 {
     sl_analysis_owner *owner = s->owner;
     sl_store_scratch_close(s->scratch);
@@ -839,5 +862,5 @@ sl_analysis_owner *sl_analysis_stream_release(sl_analysis_stream *s)
 void sl_analysis_stream_free(sl_analysis_stream *s)
 {
     if (s)
-        sl_analysis_free(&sl_analysis_stream_release(s)->pub);
+        sl_analysis_free(&sl__analysis_stream_release(s)->pub);
 }

@@ -1,5 +1,5 @@
 /* SPDX-License-Identifier: MIT
- * The wafer as the unit (see sl_analyze_wafer_statistics in
+ * The wafer as the unit (see sl__analyze_wafer_statistics in
  * src/analyze_internal.h): from what the passes over a lot keep per wafer,
  * each wafer's mean (censored-normal maximum likelihood where devices lie
  * beyond the sweep), split summaries from the wafer means, the one-way
@@ -14,7 +14,7 @@
 #include "analyze_internal.h"
 #include "splitlot/units.h"
 
-void sl_analyze_wafer_add(sl_analyze_wafer *w, double cnp_V)
+void sl__analyze_wafer_add(sl_analyze_wafer *w, double cnp_V)
 {
     w->n++;
     double delta = cnp_V - w->mean_V;
@@ -22,7 +22,7 @@ void sl_analyze_wafer_add(sl_analyze_wafer *w, double cnp_V)
     w->m2_V2 += delta * (cnp_V - w->mean_V);
 }
 
-void sl_analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V)
+void sl__analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V)
 {
     /* V > b_i >= min b: the smallest bound is a true (if weaker) statement
      * for every device above, and so the largest for those below */
@@ -187,7 +187,7 @@ static void anova_wafers(sl_analysis *a, const sl_layout *layout, const sl_analy
         a->anova.f = a->anova.p = NAN;
 }
 
-sl_status sl_analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
+sl_status sl__analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
                                       const sl_analyze_wafer *wafers)
 {
     wafer_work k = { 0 };
@@ -198,7 +198,7 @@ sl_status sl_analyze_wafer_statistics(sl_analysis *a, const sl_layout *layout,
         for (size_t s = 0; s < a->n_splits; s++)
             summarize_split(a, s, layout, wafers, &k);
         anova_wafers(a, layout, wafers, &k);
-        st = sl_analyze_effects(a, layout, k.mean_per_cm2, k.var_per_cm4);
+        st = sl__analyze_effects(a, layout, k.mean_per_cm2, k.var_per_cm4);
     }
     work_free(&k);
     return st;

@@ -39,7 +39,7 @@ static sl_est calibrated(const sl_history *h, size_t factor, size_t level, int *
 {
     const sl_plan *p = h->newest_plan;
     const sl_plan_factor *f = &p->factors[factor];
-    sl_est planned = sl_analyze_planned_level(p, factor, level);
+    sl_est planned = sl__analyze_planned_level(p, factor, level);
     *measured = 0;
     if (level == 0)
         return planned;
@@ -47,7 +47,7 @@ static sl_est calibrated(const sl_history *h, size_t factor, size_t level, int *
     if (!l)
         return planned;
     *measured = 1;
-    return (sl_est){ sl_analyze_planned_level(p, factor, 0).val + l->pooled.value,
+    return (sl_est){ sl__analyze_planned_level(p, factor, 0).val + l->pooled.value,
                      calibrated_sigma(l) };
 }
 
@@ -85,13 +85,13 @@ static void emit_baseline(FILE *out, const sl_history *h)
 {
     const sl_plan *p = h->newest_plan;
     char name[256];
-    sl_analyze_intercept_name(name, sizeof name, p, NULL, 0); /* every factor's level 0 */
+    sl__analyze_intercept_name(name, sizeof name, p, NULL, 0); /* every factor's level 0 */
     const sl_history_level *l = history_level(h, "intercept", name, p->factors[0].levels[0]);
     sl_est v = p->baseline_doping_per_cm2;
     if (l) {
         v.val = l->pooled.value;
         for (size_t f = 0; f < p->n_factors; f++)
-            v.val -= sl_analyze_planned_level(p, f, 0).val;
+            v.val -= sl__analyze_planned_level(p, f, 0).val;
         v.sigma = calibrated_sigma(l);
     }
     fprintf(out, "baseline_doping_per_cm2: ");

@@ -130,7 +130,7 @@ sl_status sl_chart_buf_escape(sl_chart_buf *buf, const char *text)
     return sl_chart_buf_append(buf, run);
 }
 
-sl_chart_num sl_chart_px_text(double value_px)
+sl_chart_num sl__chart_px_text(double value_px)
 {
     /* Two decimals are far below a screen pixel; the clamp keeps text short. */
     sl_chart_num out;
@@ -151,5 +151,5 @@ sl_chart_num sl_chart_px_text(double value_px)
 
 sl_status sl_chart_buf_px(sl_chart_buf *buf, double value_px)
 {
-    return sl_chart_buf_append(buf, sl_chart_px_text(value_px).s);
+    return sl_chart_buf_append(buf, sl__chart_px_text(value_px).s);
 }

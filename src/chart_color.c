@@ -92,8 +92,8 @@ sl_status sl_chart_color_legend(sl_chart_buf *buf, const sl_chart_rect *bar, dou
         char hex[8];
         sl_chart_diverging_hex(hex, value, max_abs);
         sl_chart_buf_printf(buf, "<rect x=\"%s\" y=\"%s\" width=\"%s\" height=\"%s\" fill=\"%s\"/>",
-                            sl_chart_px_text(bar->x_px + (double)i * w).s, sl_chart_px_text(bar->y_px).s,
-                            sl_chart_px_text(w + 0.3).s, sl_chart_px_text(bar->height_px).s, hex);
+                            sl__chart_px_text(bar->x_px + (double)i * w).s, sl__chart_px_text(bar->y_px).s,
+                            sl__chart_px_text(w + 0.3).s, sl__chart_px_text(bar->height_px).s, hex);
     }
     double label_y = bar->y_px + bar->height_px + 11.0;
     const double at[3] = { -max_abs, 0.0, max_abs };

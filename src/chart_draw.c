@@ -11,7 +11,7 @@
 
 #include "chart_internal.h"
 
-#define PX(v) (sl_chart_px_text(v).s)
+#define PX(v) (sl__chart_px_text(v).s)
 
 /* Series colours use `color` and currentColor, so one class colours a point,
  * its line, its error bar and its legend swatch alike. */
@@ -382,7 +382,7 @@ sl_status sl_chart_band(sl_chart_buf *buf, double x0_px, double x1_px, double y0
 /* ---- legend ---------------------------------------------------------------- */
 
 /* The wafer map's "no usable device" cell: grey square with an x. */
-sl_status sl_chart_unusable_cell(sl_chart_buf *buf, double x_px, double y_px, double size_px)
+sl_status sl__chart_unusable_cell(sl_chart_buf *buf, double x_px, double y_px, double size_px)
 {
     double s = size_px, m = size_px * 0.2;
     sl_chart_buf_printf(buf, "<path class=\"nd\" d=\"M%s %sh%sv%sh-%sz\"/>", PX(x_px), PX(y_px),
@@ -420,7 +420,7 @@ static void legend_swatch(sl_chart_buf *buf, double x, double cy, const sl_chart
         sl_chart_buf_append(buf, "/>");
         break;
     case SL_CHART_SWATCH_UNUSABLE:
-        sl_chart_unusable_cell(buf, x, cy - 6.0, 12.0);
+        sl__chart_unusable_cell(buf, x, cy - 6.0, 12.0);
         break;
     }
 }

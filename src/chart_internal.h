@@ -15,15 +15,15 @@ typedef struct {
 
 /* A px coordinate with at most two decimals, no trailing zeros, "0" for
  * non-finite values. */
-sl_chart_num sl_chart_px_text(double value_px);
+sl_chart_num sl__chart_px_text(double value_px);
 
 /* A data value for a tooltip: up to 4 significant digits, "n/a" when
  * non-finite. */
-sl_chart_num sl_chart_value_text(double value);
+sl_chart_num sl__chart_value_text(double value);
 
 /* The wafer map's "no usable device" cell at (x, y): a grey square of
  * size_px with an x across it (classes nd and ndx). Buffer status. */
-sl_status sl_chart_unusable_cell(sl_chart_buf *buf, double x_px, double y_px, double size_px);
+sl_status sl__chart_unusable_cell(sl_chart_buf *buf, double x_px, double y_px, double size_px);
 
 /* Number of series colours the stylesheet defines (classes s0..s5). */
 #define SL_CHART_SERIES_COLORS 6

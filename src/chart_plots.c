@@ -183,10 +183,10 @@ static void strip_density(sl_chart_buf *buf, const sl_chart_scale *y, double cx,
         double half = fmax(half_w * (double)cat->bins[b] / (double)top, 0.6);
         sl_chart_buf_printf(buf, "<rect class=\"bin\" x=\"%s\" y=\"%s\" width=\"%s\" "
                             "height=\"%s\"><title>%zu devices, %s to ",
-                            sl_chart_px_text(cx - half).s, sl_chart_px_text(y0).s,
-                            sl_chart_px_text(2.0 * half).s, sl_chart_px_text(y1 - y0).s,
-                            cat->bins[b], sl_chart_value_text(lo).s);
-        sl_chart_buf_printf(buf, "%s</title></rect>", sl_chart_value_text(hi).s);
+                            sl__chart_px_text(cx - half).s, sl__chart_px_text(y0).s,
+                            sl__chart_px_text(2.0 * half).s, sl__chart_px_text(y1 - y0).s,
+                            cat->bins[b], sl__chart_value_text(lo).s);
+        sl_chart_buf_printf(buf, "%s</title></rect>", sl__chart_value_text(hi).s);
     }
     sl_chart_buf_append(buf, "</g>");
 }
@@ -208,7 +208,7 @@ static void strip_points(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
             continue;
         const char *who = cat->labels && cat->labels[i] ? cat->labels[i] : cat->name;
         char tip[160];
-        snprintf(tip, sizeof tip, "%s: %s%s", who ? who : "", sl_chart_value_text(cat->values[i]).s,
+        snprintf(tip, sizeof tip, "%s: %s%s", who ? who : "", sl__chart_value_text(cat->values[i]).s,
                  flagged ? " (flagged)" : "");
         double px = cx + spread_offset(i, spread), py = sl_chart_scale_px(y, cat->values[i]);
         if (flagged)
@@ -357,8 +357,8 @@ static void xy_points(sl_chart_buf *buf, const sl_chart_scale *x, const sl_chart
         if (!xy_point_usable(s, i, log_y))
             continue;
         char tip[96];
-        snprintf(tip, sizeof tip, "%s, %s", sl_chart_value_text(s->x[i]).s,
-                 sl_chart_value_text(s->y[i]).s);
+        snprintf(tip, sizeof tip, "%s, %s", sl__chart_value_text(s->x[i]).s,
+                 sl__chart_value_text(s->y[i]).s);
         sl_chart_marker(buf, sl_chart_scale_px(x, s->x[i]), sl_chart_scale_px(y, s->y[i]), 2.5,
                         SL_CHART_MARKER_CIRCLE, css, tip);
     }
@@ -454,11 +454,11 @@ static void effect_level(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
 {
     char tip[192];
     snprintf(tip, sizeof tip, "%s planned: %s \xc2\xb1 %s", e->level ? e->level : "",
-             sl_chart_value_text(e->planned.val).s, sl_chart_value_text(k * e->planned.sigma).s);
+             sl__chart_value_text(e->planned.val).s, sl__chart_value_text(k * e->planned.sigma).s);
     value_with_bar(buf, y, cx - offset, e->planned, k, SL_CHART_MARKER_CROSS, "planned s1", tip);
     snprintf(tip, sizeof tip, "%s estimate: %s \xc2\xb1 %s%s", e->level ? e->level : "",
-             sl_chart_value_text(e->estimated.val).s,
-             sl_chart_value_text(k * e->estimated.sigma).s, e->off_plan ? " (off plan)" : "");
+             sl__chart_value_text(e->estimated.val).s,
+             sl__chart_value_text(k * e->estimated.sigma).s, e->off_plan ? " (off plan)" : "");
     if (e->off_plan)
         value_with_bar(buf, y, cx + offset, e->estimated, k, SL_CHART_MARKER_DIAMOND,
                        "estimate flagged", tip);
@@ -470,8 +470,8 @@ static void effect_level(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
 static void effects_legend(sl_chart_buf *buf, const sl_chart_rect *plot, double k)
 {
     char planned[48], estimate[48];
-    snprintf(planned, sizeof planned, "planned \xc2\xb1 %s\xcf\x83", sl_chart_value_text(k).s);
-    snprintf(estimate, sizeof estimate, "estimate \xc2\xb1 %s SE", sl_chart_value_text(k).s);
+    snprintf(planned, sizeof planned, "planned \xc2\xb1 %s\xcf\x83", sl__chart_value_text(k).s);
+    snprintf(estimate, sizeof estimate, "estimate \xc2\xb1 %s SE", sl__chart_value_text(k).s);
     const sl_chart_legend_item items[3] = {
         { SL_CHART_SWATCH_CROSS, "s1", NULL, planned },
         { SL_CHART_SWATCH_CIRCLE, "s0", NULL, estimate },
@@ -534,10 +534,10 @@ static void limit_line(sl_chart_buf *buf, const sl_chart_rect *plot, const sl_ch
     double py = sl_chart_scale_px(y, value);
     sl_chart_segment(buf, plot->x_px, py, plot->x_px + plot->width_px, py, css);
     char label[64];
-    snprintf(label, sizeof label, "%s %s", name, sl_chart_value_text(value).s);
+    snprintf(label, sizeof label, "%s %s", name, sl__chart_value_text(value).s);
     sl_chart_buf_printf(buf, "<text x=\"%s\" y=\"%s\" dy=\".32em\">",
-                        sl_chart_px_text(plot->x_px + plot->width_px + 6.0).s,
-                        sl_chart_px_text(py).s);
+                        sl__chart_px_text(plot->x_px + plot->width_px + 6.0).s,
+                        sl__chart_px_text(py).s);
     sl_chart_buf_escape(buf, label);
     sl_chart_buf_append(buf, "</text>");
 }
@@ -553,10 +553,10 @@ static void control_points(sl_chart_buf *buf, const sl_chart_scale *x, const sl_
         int out = v < lower || v > upper;
         char tip[128];
         if (labels && labels[i])
-            snprintf(tip, sizeof tip, "%s: %s%s", labels[i], sl_chart_value_text(v).s,
+            snprintf(tip, sizeof tip, "%s: %s%s", labels[i], sl__chart_value_text(v).s,
                      out ? " (outside limits)" : "");
         else
-            snprintf(tip, sizeof tip, "#%zu: %s%s", i + 1, sl_chart_value_text(v).s,
+            snprintf(tip, sizeof tip, "#%zu: %s%s", i + 1, sl__chart_value_text(v).s,
                      out ? " (outside limits)" : "");
         double px = sl_chart_scale_px(x, (double)(i + 1)), py = sl_chart_scale_px(y, v);
         if (out)

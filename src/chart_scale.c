@@ -233,7 +233,7 @@ int sl_chart_tick_label(char *out, size_t size, double value, const sl_chart_tic
     if (!isfinite(value))
         return snprintf(out, size, "n/a");
     if (!ticks)
-        return snprintf(out, size, "%s", sl_chart_value_text(value).s);
+        return snprintf(out, size, "%s", sl__chart_value_text(value).s);
     if (ticks->log10 && value > 0.0)
         return log_tick_label(out, size, value);
     double step = ticks->step;
@@ -248,7 +248,7 @@ int sl_chart_tick_label(char *out, size_t size, double value, const sl_chart_tic
     return snprintf(out, size, "%.*f", decimals, rounded);
 }
 
-sl_chart_num sl_chart_value_text(double value)
+sl_chart_num sl__chart_value_text(double value)
 {
     sl_chart_num out;
     if (!isfinite(value))

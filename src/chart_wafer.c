@@ -10,7 +10,7 @@
 
 #include "chart_internal.h"
 
-#define PX(v) (sl_chart_px_text(v).s)
+#define PX(v) (sl__chart_px_text(v).s)
 
 #define WAFER_PAD_PX 12.0
 #define WAFER_TITLE_PX 30.0
@@ -136,7 +136,7 @@ static void die_tooltip(sl_chart_buf *buf, const sl_chart_wafer_map *map, const 
     if (die->state == SL_CHART_DIE_UNUSABLE) {
         sl_chart_buf_append(buf, ": no usable device");
     } else {
-        sl_chart_buf_printf(buf, ": %s", sl_chart_value_text(die->value).s);
+        sl_chart_buf_printf(buf, ": %s", sl__chart_value_text(die->value).s);
         if (map->value_unit) {
             sl_chart_buf_append(buf, " ");
             sl_chart_buf_escape(buf, map->value_unit);
@@ -174,7 +174,7 @@ static void draw_unusable_die(sl_chart_buf *buf, const sl_chart_wafer_map *map,
     die_open(buf, "g", die, "unusable");
     sl_chart_buf_append(buf, ">");
     die_tooltip(buf, map, die);
-    sl_chart_unusable_cell(buf, x, y, cell);
+    sl__chart_unusable_cell(buf, x, y, cell);
     sl_chart_buf_append(buf, "</g>");
 }
 

@@ -16,7 +16,7 @@
 #include "ingest_internal.h"
 #include "splitlot/text.h"
 
-double ingest_now_s(void)
+double sl__ingest_now_s(void)
 {
     struct timespec ts;
     clock_gettime(CLOCK_MONOTONIC, &ts);
@@ -31,7 +31,7 @@ static void error_at_v(const ingest_ctx *c, sl_diag *diag, long line, long colum
     sl_diag_add(diag, SL_SEV_ERROR, c->file, line, column >= 0 ? column + 1 : 0, "%s", text);
 }
 
-void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
+void sl__ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
                      const char *fmt, ...)
 {
     va_list ap;
@@ -40,7 +40,7 @@ void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
     va_end(ap);
 }
 
-void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
+void sl__ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
 {
     va_list ap;
     va_start(ap, fmt);
@@ -48,16 +48,16 @@ void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
     va_end(ap);
 }
 
-sl_status ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
+sl_status sl__ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
                            const char *wafer, const long here[2], const sl_store_insert *stored)
 {
     if (stored->run_id >= c->first_run_id)
-        ingest_error_at(c, diag, line, c->col.die_x,
+        sl__ingest_error_at(c, diag, line, c->col.die_x,
                         "device '%s' on wafer '%s' is at die (%ld, %ld) here but at (%ld, %ld) on "
                         "line %ld", device, wafer, here[0], here[1], stored->die_x, stored->die_y,
                         stored->source_line);
     else
-        ingest_error_at(c, diag, line, c->col.die_x,
+        sl__ingest_error_at(c, diag, line, c->col.die_x,
                         "device '%s' on wafer '%s' is at die (%ld, %ld) here but lot '%s' has it "
                         "at (%ld, %ld) since measurement run %ld; a device keeps its die",
                         device, wafer, here[0], here[1], c->lot.lot, stored->die_x, stored->die_y,
@@ -65,18 +65,18 @@ sl_status ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const 
     return SL_EINPUT;
 }
 
-void ingest_progress(ingest_ctx *c)
+void sl__ingest_progress(ingest_ctx *c)
 {
     if (!c->opt->progress)
         return;
     sl_ingest_progress p = { c->summary->rows, c->summary->devices,
-                             ingest_now_s() - c->started_s };
+                             sl__ingest_now_s() - c->started_s };
     c->opt->progress(&p, c->opt->progress_ctx);
 }
 
 /* ---- set-up: the lot's plan, its stored revision, wafers and runs ---- */
 
-long ingest_wafer_index(const ingest_ctx *c, const char *wafer)
+long sl__ingest_wafer_index(const ingest_ctx *c, const char *wafer)
 {
     return sl_plan_wafer_index(c->plan, wafer);
 }
@@ -244,7 +244,7 @@ static sl_status read_die(ingest_ctx *c, long *out, sl_row_quantity q, long colu
     if (st != SL_OK)
         return st;
     if (v != floor(v) || v < (double)first || v > (double)(first + size - 1)) {
-        ingest_error_at_row(c, column,
+        sl__ingest_error_at_row(c, column,
                             "%s '%s' is not a die coordinate from %ld to %ld (wafer map %ld x %ld, "
                             "first_die [%ld, %ld])",
                             axis, sl_rowsrc_field(c->src, q, NULL), first, first + size - 1,
@@ -258,10 +258,10 @@ static sl_status read_die(ingest_ctx *c, long *out, sl_row_quantity q, long colu
 
 static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
 {
-    long w = ingest_wafer_index(c, row->wafer);
+    long w = sl__ingest_wafer_index(c, row->wafer);
     if (w < 0) {
         char hint[96];
-        ingest_error_at_row(c, c->col.wafer, "unknown wafer '%s' in lot '%s'%s", row->wafer,
+        sl__ingest_error_at_row(c, c->col.wafer, "unknown wafer '%s' in lot '%s'%s", row->wafer,
                             c->lot.lot,
                             sl_text_did_you_mean(hint, sizeof hint, row->wafer,
                                                  (const char *const *)c->plan->wafers,
@@ -269,7 +269,7 @@ static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
         return SL_EINPUT;
     }
     if (c->wafers[w].split < 0) {
-        ingest_error_at_row(c, c->col.wafer,
+        sl__ingest_error_at_row(c, c->col.wafer,
                             "wafer '%s' is a spare in the layout of lot '%s': it belongs to no split",
                             row->wafer, c->lot.lot);
         return SL_EINPUT;
@@ -278,7 +278,7 @@ static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
     return SL_OK;
 }
 
-sl_status ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q)
+sl_status sl__ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q)
 {
     return sl_rowsrc_optional(out, c->src, q, c->diag);
 }
@@ -288,11 +288,11 @@ static sl_status read_temperature(ingest_ctx *c, ingest_row *row)
 {
     double t = NAN;
     row->temperature = c->default_temperature;
-    sl_status st = ingest_optional_number(c, &t, SL_ROW_TEMPERATURE);
+    sl_status st = sl__ingest_optional_number(c, &t, SL_ROW_TEMPERATURE);
     if (st != SL_OK || isnan(t))
         return st;
     if (!(t > 0.0)) {
-        ingest_error_at_row(c, c->col.temperature, "temperature '%s' is not above 0 K",
+        sl__ingest_error_at_row(c, c->col.temperature, "temperature '%s' is not above 0 K",
                             sl_rowsrc_field(c->src, SL_ROW_TEMPERATURE, NULL));
         return SL_EINPUT;
     }
@@ -300,7 +300,7 @@ static sl_status read_temperature(ingest_ctx *c, ingest_row *row)
     if (k < 0) {
         char allowed[256];
         list_temperatures(allowed, sizeof allowed, c);
-        ingest_error_at_row(c, c->col.temperature,
+        sl__ingest_error_at_row(c, c->col.temperature,
                             "temperature '%s' is not one of the plan's temperatures (%s)",
                             sl_rowsrc_field(c->src, SL_ROW_TEMPERATURE, NULL), allowed);
         return SL_EINPUT;
@@ -329,23 +329,25 @@ static sl_status read_geometry(ingest_ctx *c, ingest_row *row)
             const char *names[64];
             for (size_t i = 0; i < p->n_device_types && i < 64; i++)
                 names[i] = p->device_types[i].name;
-            const char *near = sl_text_nearest(type, names, p->n_device_types < 64 ? p->n_device_types : 64, 2);
-            ingest_error_at_row(c, c->col.device_type, "unknown device_type '%s'%s%s%s%s", type,
+            char hint[96];
+            sl__ingest_error_at_row(c, c->col.device_type, "unknown device_type '%s'%s%s", type,
                                 p->n_device_types ? "" : " (the plan has no device_types)",
-                                near ? " (did you mean '" : "", near ? near : "", near ? "'?)" : "");
+                                sl_text_did_you_mean(hint, sizeof hint, type, names,
+                                                     p->n_device_types < 64 ? p->n_device_types
+                                                                            : 64));
             return SL_EINPUT;
         }
         row->channel_length_um = p->device_types[row->device_type].channel_length_um;
         row->channel_width_um = p->device_types[row->device_type].channel_width_um;
     }
     double l_um, w_um;
-    sl_status st = ingest_optional_number(c, &l_um, SL_ROW_LENGTH);
+    sl_status st = sl__ingest_optional_number(c, &l_um, SL_ROW_LENGTH);
     if (st == SL_OK)
-        st = ingest_optional_number(c, &w_um, SL_ROW_WIDTH);
+        st = sl__ingest_optional_number(c, &w_um, SL_ROW_WIDTH);
     if (st != SL_OK || (isnan(l_um) && isnan(w_um)))
         return st;
     if (!(l_um > 0) || !(w_um > 0)) {
-        ingest_error_at_row(c, c->col.length, "channel_length_um and channel_width_um must both "
+        sl__ingest_error_at_row(c, c->col.length, "channel_length_um and channel_width_um must both "
                             "be given and positive, got '%s' and '%s'",
                             sl_rowsrc_field(c->src, SL_ROW_LENGTH, NULL),
                             sl_rowsrc_field(c->src, SL_ROW_WIDTH, NULL));
@@ -356,13 +358,13 @@ static sl_status read_geometry(ingest_ctx *c, ingest_row *row)
     return SL_OK;
 }
 
-void ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row)
+void sl__ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row)
 {
     *cfg = c->wafers[row->wafer_index].fit;
     cfg->length_over_width = row->channel_length_um / row->channel_width_um;
 }
 
-void ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
+void sl__ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
                          double *length_um, double *width_um)
 {
     const sl_plan *p = c->plan;
@@ -373,7 +375,7 @@ void ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char 
     *width_um = own ? row->channel_width_um : NAN;
 }
 
-sl_status ingest_read_row(ingest_ctx *c, ingest_row *row)
+sl_status sl__ingest_read_row(ingest_ctx *c, ingest_row *row)
 {
     size_t len;
     sl_status st = sl_rowsrc_text(&row->wafer, &len, c->src, SL_ROW_WAFER,
@@ -382,7 +384,7 @@ sl_status ingest_read_row(ingest_ctx *c, ingest_row *row)
         st = sl_rowsrc_text(&row->device, &len, c->src, SL_ROW_DEVICE, SL_INGEST_MAX_NAME_BYTES,
                             c->diag);
     if (st == SL_OK && (!*row->wafer || !*row->device)) {
-        ingest_error_at_row(c, *row->wafer ? c->col.device : c->col.wafer,
+        sl__ingest_error_at_row(c, *row->wafer ? c->col.device : c->col.wafer,
                             "empty %s name", *row->wafer ? "device" : "wafer");
         return SL_EINPUT;
     }
@@ -415,9 +417,9 @@ static void flush_errors(ingest_ctx *c, bool all)
     sl_diag_clear(c->diag);
 }
 
-void ingest_flush_errors(ingest_ctx *c) { flush_errors(c, false); }
+void sl__ingest_flush_errors(ingest_ctx *c) { flush_errors(c, false); }
 
-sl_status ingest_keep_row(ingest_ctx *c)
+sl_status sl__ingest_keep_row(ingest_ctx *c)
 {
     if (!c->rejects)
         return SL_OK;
@@ -426,11 +428,11 @@ sl_status ingest_keep_row(ingest_ctx *c)
                : SL_ENOMEM;
 }
 
-void ingest_forget_kept(ingest_ctx *c) { c->reject_len = 0; }
+void sl__ingest_forget_kept(ingest_ctx *c) { c->reject_len = 0; }
 
 /* Each line of rows (as the file had them) with the reason as one more
  * field, into the rejects file; the device counted as rejected. */
-sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason)
+sl_status sl__ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason)
 {
     c->summary->rejected_devices++;
     if (!c->rejects)
@@ -465,15 +467,15 @@ sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const 
     return SL_OK;
 }
 
-sl_status ingest_reject_kept(ingest_ctx *c, const char *reason)
+sl_status sl__ingest_reject_kept(ingest_ctx *c, const char *reason)
 {
-    sl_status st = ingest_reject_rows(c, c->reject_buf, c->reject_len, reason);
+    sl_status st = sl__ingest_reject_rows(c, c->reject_buf, c->reject_len, reason);
     c->reject_len = 0;
     return st;
 }
 
 /* The first error message of the current problem, as a reason. */
-const char *ingest_current_reason(const ingest_ctx *c)
+const char *sl__ingest_current_reason(const ingest_ctx *c)
 {
     for (size_t i = 0; i < sl_diag_size(c->diag); i++) {
         const sl_diag_msg *m = sl_diag_get(c->diag, i);
@@ -490,14 +492,14 @@ const char *ingest_current_reason(const ingest_ctx *c)
 static sl_status refused_row(ingest_ctx *c, const ingest_row *row, const sl_store_insert *ins)
 {
     if (ins->outcome == SL_STORE_IN_RUN) {
-        ingest_error_at_row(c, c->col.device,
+        sl__ingest_error_at_row(c, c->col.device,
                             "duplicate device '%s' on wafer '%s' at %g K (first on line %ld)",
                             row->device, row->wafer,
                             c->revision.temperatures_K[row->temperature], ins->source_line);
         return SL_EINPUT;
     }
     const long here[2] = { row->die_x, row->die_y };
-    return ingest_die_moved(c, c->diag, sl_rowsrc_line(c->src), row->device, row->wafer, here, ins);
+    return sl__ingest_die_moved(c, c->diag, sl_rowsrc_line(c->src), row->device, row->wafer, here, ins);
 }
 
 /* A results value no device can have (a negative mobility, residual
@@ -516,7 +518,7 @@ static sl_status check_physical(ingest_ctx *c, const sl_store_device *dev)
     sl_status st = SL_OK;
     for (size_t i = 0; i < sizeof checks / sizeof checks[0]; i++)
         if (checks[i].value < 0.0) {
-            ingest_error_at_row(c, sl_rowsrc_column(c->src, checks[i].q),
+            sl__ingest_error_at_row(c, sl_rowsrc_column(c->src, checks[i].q),
                                 "'%s' is negative, which %s cannot be",
                                 sl_rowsrc_field(c->src, checks[i].q, NULL), checks[i].what);
             st = SL_EINPUT;
@@ -542,7 +544,7 @@ static const char *results_class(const ingest_ctx *c, const ingest_row *row, dou
 static sl_status results_row(ingest_ctx *c)
 {
     ingest_row row;
-    sl_status st = ingest_read_row(c, &row);
+    sl_status st = sl__ingest_read_row(c, &row);
     if (st != SL_OK)
         return st;
     c->run_rows[row.temperature]++;
@@ -554,13 +556,13 @@ static sl_status results_row(ingest_ctx *c)
     dev.die_y = row.die_y;
     dev.source = "results";
     dev.source_line = sl_rowsrc_line(c->src);
-    ingest_row_geometry(c, &row, &dev.device_type, &dev.channel_length_um, &dev.channel_width_um);
+    sl__ingest_row_geometry(c, &row, &dev.device_type, &dev.channel_length_um, &dev.channel_width_um);
     double *numbers[] = { &dev.cnp_V, &dev.mobility_cm2_per_Vs, &dev.n0_per_cm2,
                           &dev.r_contact_ohm, &dev.hysteresis_V };
     const sl_row_quantity quantities[] = { SL_ROW_VCNP, SL_ROW_MOBILITY, SL_ROW_N0,
                                            SL_ROW_R_CONTACT, SL_ROW_HYSTERESIS };
     for (int i = 0; st == SL_OK && i < 5; i++)
-        st = ingest_optional_number(c, numbers[i], quantities[i]);
+        st = sl__ingest_optional_number(c, numbers[i], quantities[i]);
     if (st == SL_OK)
         st = check_physical(c, &dev);
     if (st != SL_OK)
@@ -581,10 +583,10 @@ static sl_status results_row(ingest_ctx *c)
 /* A row with a problem: reported, its device rejected, reading goes on. */
 static sl_status results_problem(ingest_ctx *c)
 {
-    sl_status st = ingest_keep_row(c);
+    sl_status st = sl__ingest_keep_row(c);
     if (st == SL_OK)
-        st = ingest_reject_kept(c, ingest_current_reason(c));
-    ingest_flush_errors(c);
+        st = sl__ingest_reject_kept(c, sl__ingest_current_reason(c));
+    sl__ingest_flush_errors(c);
     return st;
 }
 
@@ -600,7 +602,7 @@ static sl_status ingest_results(ingest_ctx *c)
         if (st != SL_OK)
             return st;
         if ((c->summary->rows & 0xffff) == 0)
-            ingest_progress(c);
+            sl__ingest_progress(c);
     }
     return st;
 }
@@ -628,7 +630,7 @@ static sl_status start_runs(ingest_ctx *c)
 
 static sl_status finish_runs(ingest_ctx *c)
 {
-    ingest_hasher_free(c->hasher, c->summary->sha256);
+    sl__ingest_hasher_free(c->hasher, c->summary->sha256);
     c->hasher = NULL;
     if (c->hash_failed)
         return SL_ENOMEM;
@@ -695,14 +697,14 @@ static sl_status import_body(ingest_ctx *c)
     if (st == SL_OK)
         st = start_runs(c);
     if (st == SL_OK)
-        st = c->opt->kind == SL_INGEST_SWEEPS ? ingest_sweeps(c) : ingest_results(c);
+        st = c->opt->kind == SL_INGEST_SWEEPS ? sl__ingest_sweeps(c) : ingest_results(c);
     if (st == SL_OK && c->summary->rows == 0) {
         sl_diag_add(c->diag, SL_SEV_ERROR, c->file, sl_rowsrc_line(c->src), 0,
                     "the file has a header but no data rows");
         st = SL_EINPUT;
     }
     if (st == SL_OK || st == SL_EINPUT)
-        ingest_flush_errors(c); /* any other failure is said past the limit */
+        sl__ingest_flush_errors(c); /* any other failure is said past the limit */
     if (st == SL_OK && c->n_errors > 0 && !c->opt->keep_going)
         st = SL_EINPUT; /* every problem reported; nothing of the file kept */
     if (st == SL_OK && c->rejects)
@@ -718,10 +720,10 @@ static void ctx_free(ingest_ctx *c)
     free(c->reject_buf);
     if (c->rejects)
         fclose(c->rejects);
-    ingest_hasher_free(c->hasher, NULL);
-    ingest_batch_free(c->batch);
+    sl__ingest_hasher_free(c->hasher, NULL);
+    sl__ingest_batch_free(c->batch);
     free(c->wafers);
-    ingest_density_free(c->densities);
+    sl__ingest_density_free(c->densities);
     free(c->run_ids);
     free(c->run_rows);
     sl_store_revision_clear(&c->revision);
@@ -732,7 +734,7 @@ static void ctx_free(ingest_ctx *c)
 static void hash_bytes(void *ctx, const char *bytes, size_t n)
 {
     ingest_ctx *c = ctx;
-    if (!c->hash_failed && ingest_hasher_add(c->hasher, bytes, n) != 0)
+    if (!c->hash_failed && sl__ingest_hasher_add(c->hasher, bytes, n) != 0)
         c->hash_failed = 1;
 }
 
@@ -747,12 +749,12 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
         return SL_ENOMEM;
     }
     ingest_ctx c = { .store = store, .diag = scratch, .user_diag = diag, .opt = options,
-                     .summary = out, .started_s = ingest_now_s() };
+                     .summary = out, .started_s = sl__ingest_now_s() };
     c.file = strcmp(options->path, "-") == 0 ? "<stdin>" : options->path;
     sl_status st = sl_store_begin(store, c.diag);
     if (st == SL_OK)
         st = load_lot(&c);
-    if (st == SL_OK && !(c.hasher = ingest_hasher_new()))
+    if (st == SL_OK && !(c.hasher = sl__ingest_hasher_new()))
         st = SL_ENOMEM;
     if (st == SL_OK)
         st = sl_rowsrc_open_tapped(&c.src, options->path, options->columns, hash_bytes, &c,
@@ -768,7 +770,7 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
         c.rejects = NULL;
         remove(options->rejects_path); /* no rejects file of an import that did not happen */
     }
-    ingest_progress(&c);
+    sl__ingest_progress(&c);
     /* what stopped an import other than its rows (the disk, the store) is
      * always said, past the limit too */
     flush_errors(&c, st != SL_OK && st != SL_EINPUT);
@@ -779,6 +781,6 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
     out->errors = c.n_errors;
     ctx_free(&c);
     sl_diag_free(scratch);
-    out->seconds = ingest_now_s() - c.started_s;
+    out->seconds = sl__ingest_now_s() - c.started_s;
     return st;
 }

@@ -17,7 +17,7 @@ struct ingest_density {
     ingest_density *next;
 };
 
-void ingest_density_free(ingest_density *list)
+void sl__ingest_density_free(ingest_density *list)
 {
     while (list) {
         ingest_density *next = list->next;
@@ -41,7 +41,7 @@ static double table_reach_V(const ingest_ctx *c, size_t wafer_index)
     return isfinite(reach) && reach > 20.0 ? reach : 20.0;
 }
 
-const sl_fit_config *ingest_fit_for(ingest_ctx *c, size_t wafer_index, double temperature_K,
+const sl_fit_config *sl__ingest_fit_for(ingest_ctx *c, size_t wafer_index, double temperature_K,
                                     sl_status *status)
 {
     const sl_fit_config *base = &c->wafers[wafer_index].fit;

@@ -32,7 +32,7 @@ static void *hasher_main(void *arg)
             break; /* quit, and every block hashed */
         int i = h->hash;
         pthread_mutex_unlock(&h->lock);
-        sha256_update(&h->sha, h->buf[i], h->len[i]);
+        sl__sha256_update(&h->sha, h->buf[i], h->len[i]);
         pthread_mutex_lock(&h->lock);
         h->full[i] = 0;
         h->hash = 1 - i;
@@ -42,12 +42,12 @@ static void *hasher_main(void *arg)
     return NULL;
 }
 
-ingest_hasher *ingest_hasher_new(void)
+ingest_hasher *sl__ingest_hasher_new(void)
 {
     ingest_hasher *h = calloc(1, sizeof *h);
     if (!h)
         return NULL;
-    sha256_init(&h->sha);
+    sl__sha256_init(&h->sha);
     pthread_mutex_init(&h->lock, NULL);
     pthread_cond_init(&h->changed, NULL);
     if (pthread_create(&h->thread, NULL, hasher_main, h) != 0) {
@@ -65,7 +65,7 @@ ingest_hasher *ingest_hasher_new(void)
 
 static int add_piece(ingest_hasher *h, const char *bytes, size_t n);
 
-int ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n)
+int sl__ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n)
 {
     for (size_t at = 0; at < n; at += HASH_PIECE_BYTES)
         if (add_piece(h, bytes + at, n - at < HASH_PIECE_BYTES ? n - at : HASH_PIECE_BYTES) != 0)
@@ -97,7 +97,7 @@ static int add_piece(ingest_hasher *h, const char *bytes, size_t n)
     return 0;
 }
 
-void ingest_hasher_free(ingest_hasher *h, char hex[65])
+void sl__ingest_hasher_free(ingest_hasher *h, char hex[65])
 {
     if (!h)
         return;
@@ -108,8 +108,8 @@ void ingest_hasher_free(ingest_hasher *h, char hex[65])
     pthread_join(h->thread, NULL);
     if (hex) {
         unsigned char digest[32];
-        sha256_final(&h->sha, digest);
-        sha256_hex(digest, hex);
+        sl__sha256_final(&h->sha, digest);
+        sl__sha256_hex(digest, hex);
     }
     free(h->buf[0]);
     free(h->buf[1]);

@@ -51,9 +51,9 @@ typedef struct ingest_density ingest_density;
  * add every block in order (0, or -1 when out of memory), then free, which
  * waits for the last block and gives the digest in hex (hex may be NULL). */
 typedef struct ingest_hasher ingest_hasher;
-ingest_hasher *ingest_hasher_new(void);
-int ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
-void ingest_hasher_free(ingest_hasher *h, char hex[65]);
+ingest_hasher *sl__ingest_hasher_new(void);
+int sl__ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
+void sl__ingest_hasher_free(ingest_hasher *h, char hex[65]);
 
 typedef struct {
     sl_store *store;
@@ -88,57 +88,57 @@ typedef struct {
  * model the import asked for; made on first use, kept until the import
  * ends. NULL with *status set when the table cannot be made. Not
  * thread-safe: the reading thread asks. */
-const sl_fit_config *ingest_fit_for(ingest_ctx *c, size_t wafer_index, double temperature_K,
+const sl_fit_config *sl__ingest_fit_for(ingest_ctx *c, size_t wafer_index, double temperature_K,
                                     sl_status *status);
-void ingest_density_free(ingest_density *list);
+void sl__ingest_density_free(ingest_density *list);
 
 /* Parse and check the identity columns of the current row. */
-sl_status ingest_read_row(ingest_ctx *c, ingest_row *row);
+sl_status sl__ingest_read_row(ingest_ctx *c, ingest_row *row);
 /* An optional quantity in SI: NaN when absent or empty. */
-sl_status ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q);
+sl_status sl__ingest_optional_number(ingest_ctx *c, double *out, sl_row_quantity q);
 /* The fit configuration of a device: its wafer's gate with its own channel. */
-void ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row);
+void sl__ingest_device_fit(const ingest_ctx *c, sl_fit_config *cfg, const ingest_row *row);
 /* The store's device type and channel of a row: NULL and NaN when the row
  * gives the plan's device. */
-void ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
+void sl__ingest_row_geometry(const ingest_ctx *c, const ingest_row *row, const char **type,
                          double *length_um, double *width_um);
 /* Move the messages found so far to the caller's diagnostics, the first
  * SL_INGEST_MAX_ERRORS errors of the file in full, later ones counted. */
-void ingest_flush_errors(ingest_ctx *c);
+void sl__ingest_flush_errors(ingest_ctx *c);
 /* With --rejects: keep the current row's text for the device being read;
  * write the kept rows with reason (the first message of the device's
  * problems) and forget them. */
-sl_status ingest_keep_row(ingest_ctx *c);
-sl_status ingest_reject_kept(ingest_ctx *c, const char *reason);
+sl_status sl__ingest_keep_row(ingest_ctx *c);
+sl_status sl__ingest_reject_kept(ingest_ctx *c, const char *reason);
 /* The same for rows kept elsewhere (len bytes of lines). */
-sl_status ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason);
-void ingest_forget_kept(ingest_ctx *c);
+sl_status sl__ingest_reject_rows(ingest_ctx *c, const char *rows, size_t len, const char *reason);
+void sl__ingest_forget_kept(ingest_ctx *c);
 /* The first error message found for the current row, as a reason. */
-const char *ingest_current_reason(const ingest_ctx *c);
+const char *sl__ingest_current_reason(const ingest_ctx *c);
 /* Report progress every so many rows. */
-void ingest_progress(ingest_ctx *c);
-double ingest_now_s(void);
+void sl__ingest_progress(ingest_ctx *c);
+double sl__ingest_now_s(void);
 /* A located error at the current row; column is the file's (0-based, -1
  * for none). */
-void ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
+void sl__ingest_error_at_row(ingest_ctx *c, long column, const char *fmt, ...)
 #if defined(__GNUC__)
     __attribute__((format(printf, 3, 4)))
 #endif
     ;
 /* The same at any line, into any diagnostics (the writer thread has its own). */
-void ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
+void sl__ingest_error_at(const ingest_ctx *c, sl_diag *diag, long line, long column,
                      const char *fmt, ...)
 #if defined(__GNUC__)
     __attribute__((format(printf, 5, 6)))
 #endif
     ;
 /* The one message for a device stored at another die than in this row. */
-sl_status ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
+sl_status sl__ingest_die_moved(const ingest_ctx *c, sl_diag *diag, long line, const char *device,
                            const char *wafer, const long here[2], const sl_store_insert *stored);
 /* Index of a plan wafer by name, -1 when the plan has none. */
-long ingest_wafer_index(const ingest_ctx *c, const char *wafer);
+long sl__ingest_wafer_index(const ingest_ctx *c, const char *wafer);
 
-sl_status ingest_sweeps(ingest_ctx *c);
-void ingest_batch_free(ingest_batch *b);
+sl_status sl__ingest_sweeps(ingest_ctx *c);
+void sl__ingest_batch_free(ingest_batch *b);
 
 #endif

@@ -13,7 +13,7 @@
 
 #define SL_POOL_MAX_THREADS 64
 
-void fit_batch_free(fit_batch *b)
+void sl__fit_batch_free(fit_batch *b)
 {
     sl_diag_free(b->diag);
     free(b->items);
@@ -24,14 +24,14 @@ void fit_batch_free(fit_batch *b)
     memset(b, 0, sizeof *b);
 }
 
-void fit_batch_clear(fit_batch *b)
+void sl__fit_batch_clear(fit_batch *b)
 {
     b->n_items = 0;
     b->n_points = 0;
     b->text_len = 0;
 }
 
-int fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t len)
+int sl__fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t len)
 {
     if (b->text_len + len > b->text_cap) {
         size_t cap = b->text_cap ? b->text_cap : 65536;
@@ -51,7 +51,7 @@ int fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t l
     return 0;
 }
 
-int fit_batch_reserve_points(fit_batch *b, size_t need)
+int sl__fit_batch_reserve_points(fit_batch *b, size_t need)
 {
     if (need <= b->cap_points)
         return 0;
@@ -72,7 +72,7 @@ int fit_batch_reserve_points(fit_batch *b, size_t need)
     return 0;
 }
 
-int fit_batch_push(fit_batch *b, const fit_item *item)
+int sl__fit_batch_push(fit_batch *b, const fit_item *item)
 {
     if (b->n_items == b->cap_items) {
         size_t cap = b->cap_items ? 2 * b->cap_items : 256;
@@ -182,7 +182,7 @@ static void *worker_main(void *arg)
     return NULL;
 }
 
-fit_pool *fit_pool_new(int threads, fit_batch_done done, void *done_ctx)
+fit_pool *sl__fit_pool_new(int threads, fit_batch_done done, void *done_ctx)
 {
     fit_pool *p = calloc(1, sizeof *p);
     if (!p)
@@ -201,13 +201,13 @@ fit_pool *fit_pool_new(int threads, fit_batch_done done, void *done_ctx)
         p->started++;
     }
     if (p->started == 0) {
-        fit_pool_free(p);
+        sl__fit_pool_free(p);
         return NULL;
     }
     return p;
 }
 
-void fit_pool_free(fit_pool *p)
+void sl__fit_pool_free(fit_pool *p)
 {
     if (!p)
         return;
@@ -247,7 +247,7 @@ static sl_status size_workspaces(fit_pool *p, const fit_batch *b)
     return SL_OK;
 }
 
-sl_status fit_pool_submit(fit_pool *p, fit_batch *b)
+sl_status sl__fit_pool_submit(fit_pool *p, fit_batch *b)
 {
     fit_pool_wait(p);
     sl_status st = size_workspaces(p, b);

@@ -45,14 +45,14 @@ typedef struct {
     sl_diag *diag;           /* the writer's messages, read after the wait */
 } fit_batch;
 
-void fit_batch_free(fit_batch *b);
-void fit_batch_clear(fit_batch *b);
+void sl__fit_batch_free(fit_batch *b);
+void sl__fit_batch_clear(fit_batch *b);
 /* Room for need points; returns 0, or -1 when out of memory. */
-int fit_batch_reserve_points(fit_batch *b, size_t need);
+int sl__fit_batch_reserve_points(fit_batch *b, size_t need);
 /* Append the rows text of an item; returns 0, or -1 when out of memory. */
-int fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t len);
+int sl__fit_batch_push_text(fit_batch *b, fit_item *item, const char *text, size_t len);
 /* Append an item; returns 0, or -1 when out of memory. */
-int fit_batch_push(fit_batch *b, const fit_item *item);
+int sl__fit_batch_push(fit_batch *b, const fit_item *item);
 
 typedef struct fit_pool fit_pool;
 
@@ -61,11 +61,11 @@ typedef struct fit_pool fit_pool;
 typedef void (*fit_batch_done)(fit_batch *batch, void *ctx);
 
 /* A pool of threads (>= 1) waiting for batches; NULL when out of resources. */
-fit_pool *fit_pool_new(int threads, fit_batch_done done, void *done_ctx);
-void fit_pool_free(fit_pool *pool);
+fit_pool *sl__fit_pool_new(int threads, fit_batch_done done, void *done_ctx);
+void sl__fit_pool_free(fit_pool *pool);
 /* Start fitting every item of the batch on the pool's threads, once the
  * previous batch is fitted and handed over; the batch must stay untouched
  * until the hand-over callback has run for it. One batch at a time. */
-sl_status fit_pool_submit(fit_pool *pool, fit_batch *batch);
+sl_status sl__fit_pool_submit(fit_pool *pool, fit_batch *batch);
 
 #endif

@@ -98,11 +98,11 @@ static void fitted(fit_batch *batch, void *ctx)
     pthread_mutex_unlock(&b->lock);
 }
 
-void ingest_batch_free(ingest_batch *b)
+void sl__ingest_batch_free(ingest_batch *b)
 {
     if (!b)
         return;
-    fit_pool_free(b->pool); /* no more hand-overs after this */
+    sl__fit_pool_free(b->pool); /* no more hand-overs after this */
     if (b->writer_started) {
         pthread_mutex_lock(&b->lock);
         b->quit = 1;
@@ -111,7 +111,7 @@ void ingest_batch_free(ingest_batch *b)
         pthread_join(b->writer, NULL);
     }
     for (int i = 0; i < SL_INGEST_BUFFERS; i++)
-        fit_batch_free(&b->buf[i]);
+        sl__fit_batch_free(&b->buf[i]);
     pthread_cond_destroy(&b->changed);
     pthread_mutex_destroy(&b->lock);
     free(b);
@@ -129,10 +129,10 @@ static ingest_batch *batch_new(ingest_ctx *c, int threads)
         ok = ok && (b->buf[i].diag = sl_diag_new()) != NULL;
     b->state[0] = BUF_FILLING;
     c->batch = b;
-    b->pool = ok ? fit_pool_new(threads, fitted, c) : NULL;
+    b->pool = ok ? sl__fit_pool_new(threads, fitted, c) : NULL;
     b->writer_started = b->pool && pthread_create(&b->writer, NULL, writer_main, c) == 0;
     if (!b->writer_started) {
-        ingest_batch_free(b);
+        sl__ingest_batch_free(b);
         c->batch = NULL;
         return NULL;
     }
@@ -188,7 +188,7 @@ static sl_status die_moved(const ingest_ctx *c, sl_diag *diag, long line, const 
 {
     sl_store_insert stored = { .die_x = before[0], .die_y = before[1],
                                .source_line = before_line, .run_id = c->first_run_id };
-    return ingest_die_moved(c, diag, line, device, wafer, here, &stored);
+    return sl__ingest_die_moved(c, diag, line, device, wafer, here, &stored);
 }
 
 /* Store one fitted device; runs on the writer thread, so it reads only the
@@ -222,7 +222,7 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     it->measurement_id = ins.measurement_id;
     if (ins.outcome == SL_STORE_DIE_DIFFERS) {
         const long here[2] = { it->die_x, it->die_y };
-        st = ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
+        st = sl__ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
         it->rejected = c->opt->keep_going; /* left out, the rest goes on */
         return it->rejected ? SL_OK : st;
     }
@@ -290,11 +290,11 @@ static sl_status reject_left_out(ingest_ctx *c, fit_batch *done)
             continue;
         const sl_diag_msg *m = message < sl_diag_size(done->diag)
                                    ? sl_diag_get(done->diag, message++) : NULL;
-        st = ingest_reject_rows(c, done->text ? done->text + it->text_off : "", it->text_len,
+        st = sl__ingest_reject_rows(c, done->text ? done->text + it->text_off : "", it->text_len,
                                 m ? m->text : "rejected");
     }
     take_messages(c->diag, done->diag);
-    ingest_flush_errors(c);
+    sl__ingest_flush_errors(c);
     return st;
 }
 
@@ -321,11 +321,11 @@ static sl_status drain_oldest(ingest_ctx *c)
     for (size_t k = 0; st == SL_OK && k < done->n_items; k++)
         if (!done->items[k].rejected)
             count_item(c, &done->items[k]);
-    fit_batch_clear(done);
+    sl__fit_batch_clear(done);
     set_state(b, i, BUF_FREE);
     b->oldest = (i + 1) % SL_INGEST_BUFFERS;
     b->in_flight--;
-    ingest_progress(c);
+    sl__ingest_progress(c);
     return st;
 }
 
@@ -353,7 +353,7 @@ static sl_status rotate(ingest_ctx *c)
     if (b->in_flight == 0)
         b->oldest = b->filling;
     set_state(b, b->filling, BUF_SUBMITTED);
-    sl_status st = fit_pool_submit(b->pool, &b->buf[b->filling]);
+    sl_status st = sl__fit_pool_submit(b->pool, &b->buf[b->filling]);
     if (st != SL_OK) { /* never reached the pool: drain reports it */
         b->buf[b->filling].write_status = st;
         set_state(b, b->filling, BUF_WRITTEN);
@@ -381,10 +381,10 @@ static sl_status end_run(ingest_ctx *c)
     if (b->run_bad) {
         b->run_bad = b->run_identity_bad = 0;
         f->n_points = b->run_offset; /* none of its points is kept */
-        return ingest_reject_kept(c, b->run_reason);
+        return sl__ingest_reject_kept(c, b->run_reason);
     }
     sl_status st = SL_OK;
-    const sl_fit_config *cfg = ingest_fit_for(c, b->run_wafer_index,
+    const sl_fit_config *cfg = sl__ingest_fit_for(c, b->run_wafer_index,
                                               c->plan->temperatures_K[b->run_temperature], &st);
     if (!cfg)
         return st;
@@ -405,9 +405,9 @@ static sl_status end_run(ingest_ctx *c)
     snprintf(item.wafer, sizeof item.wafer, "%s", b->run_wafer);
     snprintf(item.name, sizeof item.name, "%s", b->run_name);
     /* its rows stay with it until stored: the store may still refuse it */
-    int fail = c->rejects && fit_batch_push_text(f, &item, c->reject_buf, c->reject_len) != 0;
-    ingest_forget_kept(c);
-    if (fail || fit_batch_push(f, &item) != 0)
+    int fail = c->rejects && sl__fit_batch_push_text(f, &item, c->reject_buf, c->reject_len) != 0;
+    sl__ingest_forget_kept(c);
+    if (fail || sl__fit_batch_push(f, &item) != 0)
         return SL_ENOMEM;
     return f->n_items >= SL_INGEST_BATCH_DEVICES ? rotate(c) : SL_OK;
 }
@@ -461,8 +461,8 @@ static sl_status start_run(ingest_ctx *c, const ingest_row *row)
     b->run_y = row->die_y;
     b->run_wafer_index = row->wafer_index;
     b->run_temperature = row->temperature;
-    ingest_device_fit(c, &b->run_cfg, row);
-    ingest_row_geometry(c, row, &b->run_type, &b->run_length_um, &b->run_width_um);
+    sl__ingest_device_fit(c, &b->run_cfg, row);
+    sl__ingest_row_geometry(c, row, &b->run_type, &b->run_length_um, &b->run_width_um);
     return SL_OK;
 }
 
@@ -498,11 +498,11 @@ static sl_status run_problem(ingest_ctx *c)
     ingest_batch *b = c->batch;
     if (!b->run_bad) {
         b->run_bad = 1;
-        snprintf(b->run_reason, sizeof b->run_reason, "%s", ingest_current_reason(c));
+        snprintf(b->run_reason, sizeof b->run_reason, "%s", sl__ingest_current_reason(c));
         b->buf[b->filling].n_points = b->run_offset;
     }
-    sl_status st = ingest_keep_row(c);
-    ingest_flush_errors(c);
+    sl_status st = sl__ingest_keep_row(c);
+    sl__ingest_flush_errors(c);
     return st;
 }
 
@@ -571,7 +571,7 @@ static sl_status next_row_of_run(ingest_ctx *c, bool *reported)
     ingest_batch *b = c->batch;
     ingest_row row;
     *reported = false;
-    sl_status st = ingest_read_row(c, &row);
+    sl_status st = sl__ingest_read_row(c, &row);
     if (st == SL_EINPUT) {
         *reported = true;
         return identity_problem(c);
@@ -601,15 +601,15 @@ static sl_status sweep_row(ingest_ctx *c)
             return st;
     }
     if (b->run_identity_bad)
-        return ingest_keep_row(c);
+        return sl__ingest_keep_row(c);
     c->run_rows[b->run_temperature]++;
     fit_batch *f = &b->buf[b->filling];
     if (!b->run_bad && f->n_points - b->run_offset >= SL_INGEST_MAX_POINTS) {
-        ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
+        sl__ingest_error_at_row(c, -1, "device '%s' has more than %d points", b->run_name,
                             SL_INGEST_MAX_POINTS);
         return run_problem(c);
     }
-    if (fit_batch_reserve_points(f, f->n_points + 1) != 0)
+    if (sl__fit_batch_reserve_points(f, f->n_points + 1) != 0)
         return SL_ENOMEM;
     sl_status st = read_point(c, f);
     if (st == SL_EINPUT)
@@ -618,7 +618,7 @@ static sl_status sweep_row(ingest_ctx *c)
         return st;
     if (b->run_bad)
         f->n_points = b->run_offset; /* its values are checked, never kept */
-    return ingest_keep_row(c);       /* for the rejects file, if any */
+    return sl__ingest_keep_row(c);       /* for the rejects file, if any */
 }
 
 /* ---- devices with rows in several places or too few points so far ---- */
@@ -660,14 +660,14 @@ static const sl_fit_config *wafer_fit(ingest_ctx *c, const char *wafer, long run
                                       sl_status *status)
 {
     *status = SL_OK;
-    long w = ingest_wafer_index(c, wafer);
+    long w = sl__ingest_wafer_index(c, wafer);
     if (w < 0 || c->wafers[w].split < 0)
         return NULL;
     double temperature_K = NAN;
     for (size_t t = 0; t < c->plan->n_temperatures; t++)
         if (c->run_ids[t] == run_id)
             temperature_K = c->plan->temperatures_K[t];
-    return ingest_fit_for(c, (size_t)w, temperature_K, status);
+    return sl__ingest_fit_for(c, (size_t)w, temperature_K, status);
 }
 
 /* Why the gathered points of a device cannot be fitted, or SL_OK. */
@@ -770,7 +770,7 @@ static sl_status count_stored(ingest_ctx *c)
     return SL_OK;
 }
 
-sl_status ingest_sweeps(ingest_ctx *c)
+sl_status sl__ingest_sweeps(ingest_ctx *c)
 {
     if (!batch_new(c, c->opt->threads))
         return SL_ENOMEM;

@@ -22,7 +22,7 @@ static void add_message(plan_ctx *c, sl_severity sev, const yn *at, const char *
     sl_diag_add(c->diag, sev, c->file, at ? at->line : 0, at ? at->col : 0, "%s", text);
 }
 
-void plan_error(plan_ctx *c, const yn *at, const char *fmt, ...)
+void sl__plan_error(plan_ctx *c, const yn *at, const char *fmt, ...)
 {
     c->n_errors++;
     if (c->n_errors > SL_PLAN_MAX_ERRORS)
@@ -37,7 +37,7 @@ void plan_error(plan_ctx *c, const yn *at, const char *fmt, ...)
     va_end(ap);
 }
 
-void plan_warning(plan_ctx *c, const yn *at, const char *fmt, ...)
+void sl__plan_warning(plan_ctx *c, const yn *at, const char *fmt, ...)
 {
     va_list ap;
     va_start(ap, fmt);
@@ -45,7 +45,7 @@ void plan_warning(plan_ctx *c, const yn *at, const char *fmt, ...)
     va_end(ap);
 }
 
-char *plan_strdup(plan_ctx *c, const char *s)
+char *sl__plan_strdup(plan_ctx *c, const char *s)
 {
     size_t n = strlen(s) + 1;
     char *d = malloc(n);
@@ -57,7 +57,7 @@ char *plan_strdup(plan_ctx *c, const char *s)
     return d;
 }
 
-void *plan_calloc(plan_ctx *c, size_t n, size_t size)
+void *sl__plan_calloc(plan_ctx *c, size_t n, size_t size)
 {
     void *p = calloc(n ? n : 1, size);
     if (!p)
@@ -149,7 +149,7 @@ static int add_anchor(tree *t, const yaml_char_t *name, yn *node)
         t->anchors = a;
         t->cap_anchors = cap;
     }
-    char *copy = plan_strdup(t->c, (const char *)name);
+    char *copy = sl__plan_strdup(t->c, (const char *)name);
     if (!copy)
         return -1;
     t->anchors[t->n_anchors].name = copy;
@@ -170,7 +170,7 @@ static yn *find_anchor(const tree *t, const char *name)
 static void refuse(tree *t, yaml_mark_t mark, const char *fmt, const char *token)
 {
     yn where = { .line = (long)mark.line + 1, .col = (long)mark.column + 1 };
-    plan_error(t->c, &where, fmt, token);
+    sl__plan_error(t->c, &where, fmt, token);
     t->failed = 1;
 }
 
@@ -191,7 +191,7 @@ static int on_scalar(tree *t, const yaml_event_t *e)
     yn *n = new_node(t, YN_SCALAR, e->start_mark);
     if (!n || attach(t, n) != 0)
         return -1;
-    n->text = plan_strdup(t->c, (const char *)e->data.scalar.value);
+    n->text = sl__plan_strdup(t->c, (const char *)e->data.scalar.value);
     n->quoted = e->data.scalar.style != YAML_PLAIN_SCALAR_STYLE;
     if (!n->text || add_anchor(t, e->data.scalar.anchor, n) != 0)
         return -1;
@@ -402,9 +402,9 @@ static void read_text(plan_ctx *c, const char *text, size_t len)
     if (!t.failed && !c->nomem) {
         if (!t.root) {
             yn start = { .line = 1, .col = 1 };
-            plan_error(c, &start, "the plan is empty");
+            sl__plan_error(c, &start, "the plan is empty");
         } else {
-            plan_convert(c, t.root);
+            sl__plan_convert(c, t.root);
         }
     }
     tree_free(&t);
@@ -420,10 +420,10 @@ sl_status sl_plan_parse(sl_plan **out, const char *text, size_t len, const char 
                     "the file is larger than the 1 MiB a plan may have (%zu bytes)", len);
         return SL_EINPUT;
     }
-    c.plan = plan_calloc(&c, 1, sizeof *c.plan);
+    c.plan = sl__plan_calloc(&c, 1, sizeof *c.plan);
     if (c.plan) {
-        c.plan->path = plan_strdup(&c, c.file);
-        c.plan->text = plan_calloc(&c, len + 1, 1);
+        c.plan->path = sl__plan_strdup(&c, c.file);
+        c.plan->text = sl__plan_calloc(&c, len + 1, 1);
         if (c.plan->text) {
             memcpy(c.plan->text, text, len);
             c.plan->text_len = len;

@@ -42,23 +42,23 @@ typedef struct {
 #define SL_PLAN_MAX_NODES 200000            /* nodes with aliases expanded */
 #define SL_PLAN_MAX_ERRORS 100
 
-void plan_error(plan_ctx *c, const yn *at, const char *fmt, ...)
+void sl__plan_error(plan_ctx *c, const yn *at, const char *fmt, ...)
 #if defined(__GNUC__)
     __attribute__((format(printf, 3, 4)))
 #endif
     ;
-void plan_warning(plan_ctx *c, const yn *at, const char *fmt, ...)
+void sl__plan_warning(plan_ctx *c, const yn *at, const char *fmt, ...)
 #if defined(__GNUC__)
     __attribute__((format(printf, 3, 4)))
 #endif
     ;
 
 /* Duplicate a string, noting an allocation failure in the context. */
-char *plan_strdup(plan_ctx *c, const char *s);
+char *sl__plan_strdup(plan_ctx *c, const char *s);
 /* calloc that notes a failure in the context; n may be 0. */
-void *plan_calloc(plan_ctx *c, size_t n, size_t size);
+void *sl__plan_calloc(plan_ctx *c, size_t n, size_t size);
 
 /* Fill c->plan from the root node: every value, every check, every warning. */
-void plan_convert(plan_ctx *c, const yn *root);
+void sl__plan_convert(plan_ctx *c, const yn *root);
 
 #endif

@@ -76,14 +76,14 @@ static void unknown_name(plan_ctx *c, const yn *at, const char *what, const char
                          size_t n)
 {
     char hint[96];
-    plan_error(c, at, "unknown %s '%s'%s", what, at->text,
+    sl__plan_error(c, at, "unknown %s '%s'%s", what, at->text,
                sl_text_did_you_mean(hint, sizeof hint, at->text, names, n));
 }
 
 static void unknown_named(plan_ctx *c, const yn *at, const char *what, const void *base,
                           size_t n, size_t stride)
 {
-    const char **names = plan_calloc(c, n, sizeof *names);
+    const char **names = sl__plan_calloc(c, n, sizeof *names);
     if (!names)
         return;
     for (size_t i = 0; i < n; i++)
@@ -103,7 +103,7 @@ static int want_kind(plan_ctx *c, const yn *v, yn_kind kind, const char *name)
 {
     if (v->kind == kind)
         return 0;
-    plan_error(c, v, "'%s' must be a %s, not a %s", name, kind_name(kind), kind_name(v->kind));
+    sl__plan_error(c, v, "'%s' must be a %s, not a %s", name, kind_name(kind), kind_name(v->kind));
     return -1;
 }
 
@@ -132,11 +132,11 @@ static int read_number(plan_ctx *c, const yn *v, const char *name, num_rule rule
     errno = 0;
     double x = strtod(v->text, &end);
     if (v->quoted || end == v->text || *end != '\0' || errno == ERANGE || !isfinite(x)) {
-        plan_error(c, v, "'%s' must be a number, got '%s'", name, v->text);
+        sl__plan_error(c, v, "'%s' must be a number, got '%s'", name, v->text);
         return -1;
     }
     if (!rule_holds(rule, x)) {
-        plan_error(c, v, "'%s' %s, got '%s'", name, rule_text[rule], v->text);
+        sl__plan_error(c, v, "'%s' %s, got '%s'", name, rule_text[rule], v->text);
         return -1;
     }
     *out = x;
@@ -160,7 +160,7 @@ static int read_whole(plan_ctx *c, const yn *v, const char *name, long min, long
     errno = 0;
     long x = strtol(v->text, &end, 10);
     if (v->quoted || end == v->text || *end != '\0' || errno == ERANGE || x < min || x > max) {
-        plan_error(c, v, "'%s' must be a whole number from %ld to %ld, got '%s'", name, min, max,
+        sl__plan_error(c, v, "'%s' must be a whole number from %ld to %ld, got '%s'", name, min, max,
                    v->text);
         return -1;
     }
@@ -173,10 +173,10 @@ static int read_text(plan_ctx *c, const yn *v, const char *name, char **out)
     if (want_kind(c, v, YN_SCALAR, name) != 0)
         return -1;
     if (v->text[0] == '\0') {
-        plan_error(c, v, "'%s' must not be empty", name);
+        sl__plan_error(c, v, "'%s' must not be empty", name);
         return -1;
     }
-    *out = plan_strdup(c, v->text);
+    *out = sl__plan_strdup(c, v->text);
     return *out ? 0 : -1;
 }
 
@@ -186,7 +186,7 @@ static int read_list(plan_ctx *c, const yn *v, const char *name, size_t max)
     if (want_kind(c, v, YN_SEQ, name) != 0)
         return -1;
     if (v->n_items == 0 || v->n_items > max) {
-        plan_error(c, v, "'%s' must list 1 to %zu items, got %zu", name, max, v->n_items);
+        sl__plan_error(c, v, "'%s' must list 1 to %zu items, got %zu", name, max, v->n_items);
         return -1;
     }
     return 0;
@@ -203,7 +203,7 @@ static long unknown_key(plan_ctx *c, const yn *key, const char *what, const fiel
         names[i] = fields[i].key;
     const char *near = sl_text_suggest(key->text, names, n);
     char hint[96];
-    plan_error(c, key, "unknown key '%s' in %s%s", key->text, what,
+    sl__plan_error(c, key, "unknown key '%s' in %s%s", key->text, what,
                sl_text_did_you_mean(hint, sizeof hint, key->text, names, n));
     if (!near)
         return -1;
@@ -223,14 +223,14 @@ static int read_map(plan_ctx *c, const yn *node, const char *what, const field *
     for (size_t i = 0; i < n; i++)
         values[i] = NULL;
     if (node->kind != YN_MAP) {
-        plan_error(c, node, "%s must be a mapping of keys, not a %s", what, kind_name(node->kind));
+        sl__plan_error(c, node, "%s must be a mapping of keys, not a %s", what, kind_name(node->kind));
         return -1;
     }
     for (size_t k = 0; k + 1 < node->n_items; k += 2) {
         const yn *key = node->items[k];
         long f = -1;
         if (key->kind != YN_SCALAR) {
-            plan_error(c, key, "a key in %s must be plain text, not a %s", what,
+            sl__plan_error(c, key, "a key in %s must be plain text, not a %s", what,
                        kind_name(key->kind));
             continue;
         }
@@ -242,13 +242,13 @@ static int read_map(plan_ctx *c, const yn *node, const char *what, const field *
             if (near >= 0)
                 suggested[near] = 1;
         } else if (values[f])
-            plan_error(c, key, "duplicate key '%s' in %s", key->text, what);
+            sl__plan_error(c, key, "duplicate key '%s' in %s", key->text, what);
         else
             values[f] = node->items[k + 1];
     }
     for (size_t i = 0; i < n; i++)
         if (fields[i].required && !values[i] && !suggested[i])
-            plan_error(c, node, "missing required key '%s' in %s", fields[i].key, what);
+            sl__plan_error(c, node, "missing required key '%s' in %s", fields[i].key, what);
     return 0;
 }
 
@@ -285,10 +285,10 @@ static char *read_name(plan_ctx *c, const yn *v, const char *what, const void *b
     if (read_text(c, v, "name", &name) != 0)
         return NULL;
     if (strcmp(what, "split") != 0 && strchr(name, '+'))
-        plan_error(c, v, "%s name '%s' must not contain '+' (split names join names with '+')",
+        sl__plan_error(c, v, "%s name '%s' must not contain '+' (split names join names with '+')",
                    what, name);
     else if (find_named(base, n, stride, name) >= 0)
-        plan_error(c, v, "duplicate %s name '%s'", what, name);
+        sl__plan_error(c, v, "duplicate %s name '%s'", what, name);
     return name;
 }
 
@@ -312,7 +312,7 @@ static void read_temperatures(conv *v)
     const yn *node = v->at[K_TEMPERATURES];
     if (!node || read_list(v->c, node, "temperatures_K", 64) != 0)
         return;
-    v->p->temperatures_K = plan_calloc(v->c, node->n_items, sizeof(double));
+    v->p->temperatures_K = sl__plan_calloc(v->c, node->n_items, sizeof(double));
     if (!v->p->temperatures_K)
         return;
     v->p->n_temperatures = node->n_items;
@@ -354,7 +354,7 @@ static void read_device_types(conv *v)
     const yn *node = v->at[K_DEVICE_TYPES];
     if (!node || read_list(v->c, node, "device_types", 64) != 0)
         return;
-    v->p->device_types = plan_calloc(v->c, node->n_items, sizeof *v->p->device_types);
+    v->p->device_types = sl__plan_calloc(v->c, node->n_items, sizeof *v->p->device_types);
     if (!v->p->device_types)
         return;
     v->p->n_device_types = node->n_items;
@@ -368,7 +368,7 @@ static void read_first_die(conv *v, const yn *node)
     if (want_kind(v->c, node, YN_SEQ, "first_die") != 0)
         return;
     if (node->n_items != 2) {
-        plan_error(v->c, node, "'first_die' must be [die_x, die_y], got %zu items", node->n_items);
+        sl__plan_error(v->c, node, "'first_die' must be [die_x, die_y], got %zu items", node->n_items);
         return;
     }
     read_whole(v->c, node->items[0], "first_die", -100000, 100000, &v->p->first_die_x);
@@ -400,7 +400,7 @@ static void read_devices_and_map(conv *v)
         return;
     long sites = p->wafer_rows * p->wafer_cols * p->devices_per_die;
     if (p->devices_per_wafer > sites)
-        plan_error(v->c, v->at[K_DEVICES],
+        sl__plan_error(v->c, v->at[K_DEVICES],
                    "devices_per_wafer %ld is more than the %ld sites of the %ld x %ld wafer_map "
                    "with %ld device%s per die",
                    p->devices_per_wafer, sites, p->wafer_rows, p->wafer_cols,
@@ -419,7 +419,7 @@ static void read_seed(conv *v)
     /* 32 bits: the generator uses no more, so larger seeds would repeat layouts */
     if (node->quoted || end == node->text || *end != '\0' || errno == ERANGE ||
         node->text[0] == '-' || s > 4294967295ULL)
-        plan_error(v->c, node, "'seed' must be a whole number from 0 to 4294967295, got '%s'",
+        sl__plan_error(v->c, node, "'seed' must be a whole number from 0 to 4294967295, got '%s'",
                    node->text);
     else
         v->p->seed = (uint64_t)s;
@@ -431,11 +431,11 @@ static void read_scalars(conv *v)
     if (v->at[K_LOT])
         read_text(v->c, v->at[K_LOT], "lot", &p->lot);
     if (v->at[K_TITLE] && v->at[K_TITLE]->kind == YN_SCALAR)
-        p->title = plan_strdup(v->c, v->at[K_TITLE]->text);
+        p->title = sl__plan_strdup(v->c, v->at[K_TITLE]->text);
     else if (v->at[K_TITLE])
         want_kind(v->c, v->at[K_TITLE], YN_SCALAR, "title");
     if (!p->title)
-        p->title = plan_strdup(v->c, "");
+        p->title = sl__plan_strdup(v->c, "");
     read_graphene(v);
     read_temperatures(v);
     read_device(v);
@@ -464,7 +464,7 @@ static void read_material(conv *v, const yn *item, unsigned char *from_plan)
         return;
     long at = find_named(p->materials, p->n_materials, sizeof *p->materials, name);
     if (at >= 0 && from_plan[at]) {
-        plan_error(v->c, f[0], "duplicate material name '%s'", name);
+        sl__plan_error(v->c, f[0], "duplicate material name '%s'", name);
         free(name);
         return;
     }
@@ -490,15 +490,15 @@ static void read_materials(conv *v)
     size_t extra = 0;
     if (node && read_list(v->c, node, "materials", MAX_LIST) == 0)
         extra = node->n_items;
-    p->materials = plan_calloc(v->c, n_builtin + extra, sizeof *p->materials);
-    unsigned char *from_plan = plan_calloc(v->c, n_builtin + extra, 1);
+    p->materials = sl__plan_calloc(v->c, n_builtin + extra, sizeof *p->materials);
+    unsigned char *from_plan = sl__plan_calloc(v->c, n_builtin + extra, 1);
     if (!p->materials || !from_plan) {
         free(from_plan);
         return;
     }
     for (size_t i = 0; i < n_builtin; i++) {
         const sl_material *m = sl_physics_material_at(i);
-        p->materials[i].name = plan_strdup(v->c, m->name);
+        p->materials[i].name = sl__plan_strdup(v->c, m->name);
         p->materials[i].relative_permittivity = m->relative_permittivity;
         p->materials[i].breakdown_MV_per_cm = m->breakdown_MV_per_cm;
         p->n_materials++;
@@ -528,33 +528,50 @@ static void read_gate_range(conv *v, const yn *node, sl_plan_dielectric *d)
     if (want_kind(v->c, node, YN_SEQ, "gate_range_V") != 0)
         return;
     if (node->n_items != 2) {
-        plan_error(v->c, node, "'gate_range_V' must be [min, max], got %zu values", node->n_items);
+        sl__plan_error(v->c, node, "'gate_range_V' must be [min, max], got %zu values", node->n_items);
         return;
     }
     if (read_number(v->c, node->items[0], "gate_range_V", NUM_ANY, &d->gate_range_V[0]) != 0 ||
         read_number(v->c, node->items[1], "gate_range_V", NUM_ANY, &d->gate_range_V[1]) != 0)
         return;
     if (!(d->gate_range_V[0] < 0.0 && d->gate_range_V[1] > 0.0))
-        plan_error(v->c, node, "gate_range_V [%g, %g] does not contain 0 V", d->gate_range_V[0],
+        sl__plan_error(v->c, node, "gate_range_V [%g, %g] does not contain 0 V", d->gate_range_V[0],
                    d->gate_range_V[1]);
     else
         d->has_gate_range = 1;
+}
+
+/* The expected mobility of a dielectric's devices: { mean > 0, sigma >= 0 }. */
+static void read_mobility(plan_ctx *c, const yn *v, sl_plan_dielectric *d)
+{
+    static const field fields[] = { { "mean", 1 }, { "sigma", 1 } };
+    const yn *f[2] = { NULL, NULL };
+    if (read_map(c, v, "mobility_cm2_per_Vs", fields, 2, f) != 0)
+        return;
+    d->has_mobility = 1;
+    if (f[0])
+        read_number(c, f[0], "mean", NUM_POSITIVE, &d->mobility_cm2_per_Vs.val);
+    if (f[1])
+        read_number(c, f[1], "sigma", NUM_NONNEG, &d->mobility_cm2_per_Vs.sigma);
 }
 
 static void read_dielectric(conv *v, const yn *item, size_t index)
 {
     static const field fields[] = {
         { "name", 1 }, { "layers", 1 }, { "doping_per_cm2", 0 }, { "gate_range_V", 0 },
+        { "mobility_cm2_per_Vs", 0 },
     };
-    const yn *f[4];
+    const yn *f[5];
     sl_plan *p = v->p;
     sl_plan_dielectric *d = &p->dielectrics[index];
-    if (read_map(v->c, item, "dielectric", fields, 4, f) != 0)
+    if (read_map(v->c, item, "dielectric", fields, 5, f) != 0)
         return;
+    if (f[4])
+        read_mobility(v->c, f[4], d);
     if (f[0])
         d->name = read_name(v->c, f[0], "dielectric", p->dielectrics, index, sizeof *d);
     if (f[1] && read_list(v->c, f[1], "layers", MAX_LAYERS) == 0) {
-        d->layers = plan_calloc(v->c, f[1]->n_items, sizeof *d->layers);
+        d->layers = sl__plan_calloc(v->c, f[1]->n_items, sizeof *d->layers);
         for (size_t j = 0; d->layers && j < f[1]->n_items; j++) {
             d->n_layers++;
             read_layer(v, f[1]->items[j], &d->layers[j]);
@@ -575,8 +592,8 @@ static void read_dielectrics(conv *v)
     const yn *node = v->at[K_DIELECTRICS];
     if (!node || read_list(v->c, node, "dielectrics", MAX_LIST) != 0)
         return;
-    v->p->dielectrics = plan_calloc(v->c, node->n_items, sizeof *v->p->dielectrics);
-    v->gate_range_at = plan_calloc(v->c, node->n_items, sizeof *v->gate_range_at);
+    v->p->dielectrics = sl__plan_calloc(v->c, node->n_items, sizeof *v->p->dielectrics);
+    v->gate_range_at = sl__plan_calloc(v->c, node->n_items, sizeof *v->gate_range_at);
     if (!v->p->dielectrics || !v->gate_range_at)
         return;
     for (size_t i = 0; i < node->n_items && !v->c->nomem; i++) {
@@ -596,7 +613,7 @@ static void read_treatment(conv *v, const yn *item, size_t index)
     if (f[0])
         t->name = read_name(v->c, f[0], "treatment", p->treatments, index, sizeof *t);
     if (t->name && strcmp(t->name, "none") == 0)
-        plan_error(v->c, f[0], "'none' is reserved for the level without a treatment");
+        sl__plan_error(v->c, f[0], "'none' is reserved for the level without a treatment");
     t->doping_tolerance_per_cm2 = NAN;
     if (f[1])
         read_estimate_tol(v->c, f[1], "doping_per_cm2", &t->doping_per_cm2,
@@ -608,7 +625,7 @@ static void read_treatments(conv *v)
     const yn *node = v->at[K_TREATMENTS];
     if (!node || read_list(v->c, node, "treatments", MAX_LIST) != 0)
         return;
-    v->p->treatments = plan_calloc(v->c, node->n_items, sizeof *v->p->treatments);
+    v->p->treatments = sl__plan_calloc(v->c, node->n_items, sizeof *v->p->treatments);
     for (size_t i = 0; v->p->treatments && i < node->n_items && !v->c->nomem; i++) {
         v->p->n_treatments++;
         read_treatment(v, node->items[i], i);
@@ -620,11 +637,11 @@ static void read_treatments(conv *v)
 static void number_wafers(conv *v, long count)
 {
     sl_plan *p = v->p;
-    p->wafers = plan_calloc(v->c, (size_t)count, sizeof *p->wafers);
+    p->wafers = sl__plan_calloc(v->c, (size_t)count, sizeof *p->wafers);
     for (long i = 0; p->wafers && i < count; i++) {
         char id[24];
         snprintf(id, sizeof id, "W%02ld", i + 1); /* W01..W99, then W100.. */
-        p->wafers[i] = plan_strdup(v->c, id);
+        p->wafers[i] = sl__plan_strdup(v->c, id);
         p->n_wafers++;
     }
 }
@@ -634,13 +651,13 @@ static void list_wafers(conv *v, const yn *node)
     sl_plan *p = v->p;
     if (read_list(v->c, node, "wafers", MAX_WAFERS) != 0)
         return;
-    p->wafers = plan_calloc(v->c, node->n_items, sizeof *p->wafers);
+    p->wafers = sl__plan_calloc(v->c, node->n_items, sizeof *p->wafers);
     for (size_t i = 0; p->wafers && i < node->n_items; i++) {
         char *id = NULL;
         if (read_text(v->c, node->items[i], "wafers", &id) != 0)
             continue;
         if (sl_plan_wafer_index(p, id) >= 0) {
-            plan_error(v->c, node->items[i], "duplicate wafer '%s'", id);
+            sl__plan_error(v->c, node->items[i], "duplicate wafer '%s'", id);
             free(id);
             continue;
         }
@@ -666,7 +683,7 @@ enum { D_KIND, D_FACTORS, D_WAFERS_PER_SPLIT, D_SPLITS, D_GENERATORS, D_COUNT };
 
 static int add_level(conv *v, sl_plan_factor *f, const char *level, long ref)
 {
-    f->levels[f->n_levels] = plan_strdup(v->c, level);
+    f->levels[f->n_levels] = sl__plan_strdup(v->c, level);
     f->level_ref[f->n_levels] = ref;
     f->n_levels++;
     return f->levels[f->n_levels - 1] ? 0 : -1;
@@ -674,9 +691,9 @@ static int add_level(conv *v, sl_plan_factor *f, const char *level, long ref)
 
 static int alloc_levels(conv *v, sl_plan_factor *f, const char *name, size_t max)
 {
-    f->name = plan_strdup(v->c, name);
-    f->levels = plan_calloc(v->c, max, sizeof *f->levels);
-    f->level_ref = plan_calloc(v->c, max, sizeof *f->level_ref);
+    f->name = sl__plan_strdup(v->c, name);
+    f->levels = sl__plan_calloc(v->c, max, sizeof *f->levels);
+    f->level_ref = sl__plan_calloc(v->c, max, sizeof *f->level_ref);
     return (f->name && f->levels && f->level_ref) ? 0 : -1;
 }
 
@@ -717,14 +734,14 @@ static int read_level(conv *v, sl_plan_factor *f, size_t index, const yn *level)
         return -1;
     for (size_t j = 0; j < f->n_levels; j++)
         if (strcmp(f->levels[j], level->text) == 0) {
-            plan_error(v->c, level, "duplicate level '%s' in factor '%s'", level->text, f->name);
+            sl__plan_error(v->c, level, "duplicate level '%s' in factor '%s'", level->text, f->name);
             return -1;
         }
     long ref = level_reference(v, level, index == 0);
     if (ref == -2)
         return -1;
     if (index > 0 && ref >= 0 && treatment_in_other_factor(v->p, index, ref)) {
-        plan_error(v->c, level, "treatment '%s' is already a level of another factor",
+        sl__plan_error(v->c, level, "treatment '%s' is already a level of another factor",
                    level->text);
         return -1;
     }
@@ -762,12 +779,12 @@ static void read_factor(conv *v, size_t index, const yn *key, const yn *levels,
 static int factor_key_ok(conv *v, const yn *key, const yn *map, size_t k)
 {
     if (key->kind != YN_SCALAR) {
-        plan_error(v->c, key, "a factor name must be plain text, not a %s", kind_name(key->kind));
+        sl__plan_error(v->c, key, "a factor name must be plain text, not a %s", kind_name(key->kind));
         return 0;
     }
     for (size_t j = 0; j < k; j += 2)
         if (map->items[j]->kind == YN_SCALAR && strcmp(map->items[j]->text, key->text) == 0) {
-            plan_error(v->c, key, "duplicate factor '%s'", key->text);
+            sl__plan_error(v->c, key, "duplicate factor '%s'", key->text);
             return 0;
         }
     return 1;
@@ -780,10 +797,10 @@ static void read_factors(conv *v, const yn *map, const yn **dielectric_at)
         return;
     size_t n = map->n_items / 2;
     if (n > MAX_FACTORS) {
-        plan_error(v->c, map, "'factors' may have at most %d factors, got %zu", MAX_FACTORS, n);
+        sl__plan_error(v->c, map, "'factors' may have at most %d factors, got %zu", MAX_FACTORS, n);
         return;
     }
-    v->p->factors = plan_calloc(v->c, n + 1, sizeof *v->p->factors);
+    v->p->factors = sl__plan_calloc(v->c, n + 1, sizeof *v->p->factors);
     size_t next = 1;
     int seen_dielectric = 0;
     for (size_t k = 0; v->p->factors && k + 1 < map->n_items && !v->c->nomem; k += 2) {
@@ -795,7 +812,7 @@ static void read_factors(conv *v, const yn *map, const yn **dielectric_at)
         read_factor(v, is_dielectric ? 0 : next++, key, map->items[k + 1], dielectric_at);
     }
     if (!seen_dielectric)
-        plan_error(v->c, map, "missing required key 'dielectric' in factors");
+        sl__plan_error(v->c, map, "missing required key 'dielectric' in factors");
 }
 
 static int memchr_size(const size_t *a, size_t n, size_t x)
@@ -810,8 +827,8 @@ static int make_split(conv *v, sl_plan_split *s, size_t dielectric, const size_t
 {
     sl_plan *p = v->p;
     s->dielectric = dielectric;
-    s->levels = plan_calloc(v->c, p->n_factors, sizeof *s->levels);
-    s->treatments = plan_calloc(v->c, p->n_factors, sizeof *s->treatments);
+    s->levels = sl__plan_calloc(v->c, p->n_factors, sizeof *s->levels);
+    s->treatments = sl__plan_calloc(v->c, p->n_factors, sizeof *s->treatments);
     if (!s->levels || !s->treatments)
         return -1;
     memcpy(s->levels, levels, p->n_factors * sizeof *levels);
@@ -827,7 +844,7 @@ static void factorial_split(conv *v, sl_plan_split *s, const size_t *levels)
         len += strlen(p->factors[f].levels[levels[f]]) + 1;
     if (make_split(v, s, (size_t)p->factors[0].level_ref[levels[0]], levels) != 0)
         return;
-    s->name = plan_calloc(v->c, len, 1);
+    s->name = sl__plan_calloc(v->c, len, 1);
     if (!s->name)
         return;
     strcpy(s->name, p->factors[0].levels[levels[0]]);
@@ -884,12 +901,12 @@ static void enumerate_splits(conv *v, const yn *factors_at, const yn **dielectri
     size_t n = count_combinations(p);
     unsigned long generated = generated_mask(p);
     if (n > MAX_SPLITS) {
-        plan_error(v->c, factors_at, "the factors make more than %d splits", MAX_SPLITS);
+        sl__plan_error(v->c, factors_at, "the factors make more than %d splits", MAX_SPLITS);
         return;
     }
     size_t levels[MAX_FACTORS + 1] = { 0 };
-    p->splits = plan_calloc(v->c, n, sizeof *p->splits);
-    v->split_at = plan_calloc(v->c, n, sizeof *v->split_at);
+    p->splits = sl__plan_calloc(v->c, n, sizeof *p->splits);
+    v->split_at = sl__plan_calloc(v->c, n, sizeof *v->split_at);
     for (size_t i = 0; p->splits && v->split_at && i < n && !v->c->nomem; i++) {
         set_generated_levels(p, levels);
         factorial_split(v, &p->splits[i], levels);
@@ -924,7 +941,7 @@ static long factor_named(conv *v, const yn *name)
     if (f < 0)
         unknown_named(v->c, name, "factor", p->factors, p->n_factors, sizeof *p->factors);
     else if (p->factors[f].n_levels != 2) {
-        plan_error(v->c, name, "factor '%s' has %zu levels; a generator takes two-level factors",
+        sl__plan_error(v->c, name, "factor '%s' has %zu levels; a generator takes two-level factors",
                    name->text, p->factors[f].n_levels);
         f = -1;
     }
@@ -940,21 +957,21 @@ static void read_generator(conv *v, const yn *key, const yn *list, unsigned char
     if (target < 0 || want_kind(v->c, list, YN_SEQ, key->text) != 0)
         return;
     if (used[target]) {
-        plan_error(v->c, key, "factor '%s' is already in another generator", key->text);
+        sl__plan_error(v->c, key, "factor '%s' is already in another generator", key->text);
         return;
     }
     if (list->n_items < 2 || list->n_items >= p->n_factors) {
-        plan_error(v->c, list, "generator of '%s' must list 2 to %zu other factors, got %zu",
+        sl__plan_error(v->c, list, "generator of '%s' must list 2 to %zu other factors, got %zu",
                    key->text, p->n_factors - 1, list->n_items);
         return;
     }
     sl_plan_generator *g = &p->generators[p->n_generators];
     g->factor = (size_t)target;
-    g->of = plan_calloc(v->c, list->n_items, sizeof *g->of);
+    g->of = sl__plan_calloc(v->c, list->n_items, sizeof *g->of);
     for (size_t j = 0; g->of && j < list->n_items; j++) {
         long f = factor_named(v, list->items[j]);
         if (f >= 0 && (f == target || (used[f] & 2u) || memchr_size(g->of, g->n_of, (size_t)f))) {
-            plan_error(v->c, list->items[j], "factor '%s' cannot be in the generator of '%s'",
+            sl__plan_error(v->c, list->items[j], "factor '%s' cannot be in the generator of '%s'",
                        list->items[j]->text, key->text);
             f = -1;
         }
@@ -977,11 +994,11 @@ static void read_generators(conv *v, const yn *map)
     if (want_kind(v->c, map, YN_MAP, "generators") != 0)
         return;
     if (map->n_items / 2 > SL_PLAN_MAX_GENERATORS) {
-        plan_error(v->c, map, "'generators' may have at most %d generators, got %zu",
+        sl__plan_error(v->c, map, "'generators' may have at most %d generators, got %zu",
                    SL_PLAN_MAX_GENERATORS, map->n_items / 2);
         return;
     }
-    p->generators = plan_calloc(v->c, map->n_items / 2 + 1, sizeof *p->generators);
+    p->generators = sl__plan_calloc(v->c, map->n_items / 2 + 1, sizeof *p->generators);
     unsigned char used[MAX_FACTORS + 1] = { 0 };
     for (size_t k = 0; p->generators && k + 1 < map->n_items; k += 2)
         read_generator(v, map->items[k], map->items[k + 1], used);
@@ -989,11 +1006,11 @@ static void read_generators(conv *v, const yn *map)
     for (size_t g = 0; g < p->n_generators; g++)
         for (size_t j = 0; j < p->generators[g].n_of; j++)
             if (used[p->generators[g].of[j]] & 2u)
-                plan_error(v->c, map, "factor '%s' is generated and also generates '%s'",
+                sl__plan_error(v->c, map, "factor '%s' is generated and also generates '%s'",
                            p->factors[p->generators[g].of[j]].name,
                            p->factors[p->generators[g].factor].name);
     if (map->n_items == 0)
-        plan_error(v->c, map, "a fractional-factorial design needs at least one generator");
+        sl__plan_error(v->c, map, "a fractional-factorial design needs at least one generator");
 }
 
 /* Main effects must stay apart: no word of length 1 or 2 in the defining relation. */
@@ -1001,7 +1018,7 @@ static void check_resolution(conv *v)
 {
     sl_plan_fraction fr;
     if (sl_plan_fraction_info(&fr, v->p) == SL_OK && fr.resolution < 3)
-        plan_error(v->c, v->generators_at,
+        sl__plan_error(v->c, v->generators_at,
                    "the generators make two main effects the same column (resolution %d): "
                    "give each generator a different set of factors",
                    fr.resolution);
@@ -1011,19 +1028,19 @@ static void factorial_design(conv *v, const yn **d, int fractional)
 {
     const char *kind = fractional ? "fractional-factorial" : "full-factorial";
     if (d[D_SPLITS])
-        plan_error(v->c, d[D_SPLITS], "'splits' belongs to an explicit design, not %s", kind);
+        sl__plan_error(v->c, d[D_SPLITS], "'splits' belongs to an explicit design, not %s", kind);
     if (d[D_GENERATORS] && !fractional)
-        plan_error(v->c, d[D_GENERATORS],
+        sl__plan_error(v->c, d[D_GENERATORS],
                    "'generators' belongs to a fractional-factorial design, not full-factorial");
     if (!d[D_FACTORS] || !d[D_WAFERS_PER_SPLIT] || (fractional && !d[D_GENERATORS])) {
-        plan_error(v->c, v->at[K_DESIGN], "a %s design needs '%s'", kind,
+        sl__plan_error(v->c, v->at[K_DESIGN], "a %s design needs '%s'", kind,
                    !d[D_FACTORS] ? "factors"
                                  : (!d[D_WAFERS_PER_SPLIT] ? "wafers_per_split" : "generators"));
         return;
     }
     read_whole(v->c, d[D_WAFERS_PER_SPLIT], "wafers_per_split", 1, MAX_WAFERS,
                &v->p->wafers_per_split);
-    const yn **dielectric_at = plan_calloc(v->c, MAX_LIST, sizeof *dielectric_at);
+    const yn **dielectric_at = sl__plan_calloc(v->c, MAX_LIST, sizeof *dielectric_at);
     if (!dielectric_at)
         return;
     size_t errors = v->c->n_errors;
@@ -1078,7 +1095,7 @@ static void split_treatments(conv *v, sl_plan_split *s, const yn *list)
     sl_plan *p = v->p;
     if (want_kind(v->c, list, YN_SEQ, "treatments") != 0)
         return;
-    s->treatments = plan_calloc(v->c, list->n_items, sizeof *s->treatments);
+    s->treatments = sl__plan_calloc(v->c, list->n_items, sizeof *s->treatments);
     for (size_t j = 0; s->treatments && j < list->n_items; j++) {
         const yn *item = list->items[j];
         if (want_kind(v->c, item, YN_SCALAR, "treatments") != 0 || strcmp(item->text, "none") == 0)
@@ -1088,7 +1105,7 @@ static void split_treatments(conv *v, sl_plan_split *s, const yn *list)
             unknown_named(v->c, item, "treatment", p->treatments, p->n_treatments,
                           sizeof *p->treatments);
         else if (split_has(s, (size_t)t))
-            plan_error(v->c, item, "treatment '%s' is listed twice in split '%s'", item->text,
+            sl__plan_error(v->c, item, "treatment '%s' is listed twice in split '%s'", item->text,
                        name_at(s, sizeof *s, 0));
         else if (treatment_factor(v, t) >= 0)
             s->treatments[s->n_treatments++] = (size_t)t;
@@ -1110,19 +1127,19 @@ static void split_wafers(conv *v, size_t index, const yn *list)
     sl_plan_split *s = &p->splits[index];
     if (read_list(v->c, list, "wafers", MAX_WAFERS) != 0)
         return;
-    s->wafers = plan_calloc(v->c, list->n_items, sizeof *s->wafers);
+    s->wafers = sl__plan_calloc(v->c, list->n_items, sizeof *s->wafers);
     for (size_t j = 0; s->wafers && j < list->n_items; j++) {
         const yn *item = list->items[j];
         if (want_kind(v->c, item, YN_SCALAR, "wafers") != 0)
             continue;
         long owner = wafer_owner(p, index + 1, item->text);
         if (sl_plan_wafer_index(p, item->text) < 0)
-            plan_error(v->c, item, "unknown wafer '%s' (not in 'wafers')", item->text);
+            sl__plan_error(v->c, item, "unknown wafer '%s' (not in 'wafers')", item->text);
         else if (owner >= 0)
-            plan_error(v->c, item, "wafer '%s' is already in split '%s'", item->text,
+            sl__plan_error(v->c, item, "wafer '%s' is already in split '%s'", item->text,
                        name_at(p->splits, sizeof *p->splits, (size_t)owner));
         else
-            s->wafers[s->n_wafers++] = plan_strdup(v->c, item->text);
+            s->wafers[s->n_wafers++] = sl__plan_strdup(v->c, item->text);
     }
 }
 
@@ -1158,7 +1175,7 @@ static void explicit_levels(conv *v)
     sl_plan *p = v->p;
     for (size_t i = 0; i < p->n_splits && !v->c->nomem; i++) {
         sl_plan_split *s = &p->splits[i];
-        s->levels = plan_calloc(v->c, p->n_factors, sizeof *s->levels);
+        s->levels = sl__plan_calloc(v->c, p->n_factors, sizeof *s->levels);
         for (size_t j = 0; s->levels && j < p->factors[0].n_levels; j++)
             if (p->factors[0].level_ref[j] == (long)s->dielectric)
                 s->levels[0] = j;
@@ -1173,18 +1190,18 @@ static void explicit_design(conv *v, const yn **d)
     static const char *const keys[] = { "", "factors", "wafers_per_split", "", "generators" };
     for (int k = D_FACTORS; k < D_COUNT; k++)
         if (d[k] && k != D_SPLITS)
-            plan_error(v->c, d[k], "'%s' belongs to a %s design, not explicit", keys[k],
+            sl__plan_error(v->c, d[k], "'%s' belongs to a %s design, not explicit", keys[k],
                        k == D_GENERATORS ? "fractional-factorial" : "full-factorial");
     if (!d[D_SPLITS]) {
-        plan_error(v->c, v->at[K_DESIGN], "an explicit design needs 'splits'");
+        sl__plan_error(v->c, v->at[K_DESIGN], "an explicit design needs 'splits'");
         return;
     }
     if (read_list(v->c, d[D_SPLITS], "splits", MAX_SPLITS) != 0)
         return;
     size_t n = d[D_SPLITS]->n_items;
-    p->factors = plan_calloc(v->c, p->n_treatments + 1, sizeof *p->factors);
-    p->splits = plan_calloc(v->c, n, sizeof *p->splits);
-    v->split_at = plan_calloc(v->c, n, sizeof *v->split_at);
+    p->factors = sl__plan_calloc(v->c, p->n_treatments + 1, sizeof *p->factors);
+    p->splits = sl__plan_calloc(v->c, n, sizeof *p->splits);
+    v->split_at = sl__plan_calloc(v->c, n, sizeof *v->split_at);
     if (!p->factors || !p->splits || !v->split_at ||
         alloc_levels(v, &p->factors[0], "dielectric", p->n_dielectrics) != 0)
         return;
@@ -1228,7 +1245,7 @@ static void check_wafer_count(conv *v)
         return;
     size_t needed = p->n_splits * (size_t)p->wafers_per_split;
     if (p->n_wafers < needed)
-        plan_error(v->c, v->at[K_WAFERS],
+        sl__plan_error(v->c, v->at[K_WAFERS],
                    "%zu wafers are fewer than %zu splits x %ld wafers_per_split = %zu",
                    p->n_wafers, p->n_splits, p->wafers_per_split, needed);
 }
@@ -1245,9 +1262,9 @@ static void read_resolve(conv *v)
         return;
     r->present = 1;
     if (f[0] && f[1])
-        plan_error(v->c, f[1], "give 'shift_per_cm2' or 'shift_V' in resolve, not both");
+        sl__plan_error(v->c, f[1], "give 'shift_per_cm2' or 'shift_V' in resolve, not both");
     else if (!f[0] && !f[1])
-        plan_error(v->c, v->at[K_RESOLVE], "missing required key 'shift_per_cm2' in resolve");
+        sl__plan_error(v->c, v->at[K_RESOLVE], "missing required key 'shift_per_cm2' in resolve");
     v->shift_at = f[0] ? f[0] : f[1];
     if (f[0])
         read_number(v->c, f[0], "shift_per_cm2", NUM_POSITIVE, &r->shift_per_cm2);
@@ -1269,7 +1286,7 @@ static void read_variation(conv *v)
     const yn *node = v->at[K_VARIATION];
     if (!node) {
         const yn *at = v->at[K_RESOLVE] ? v->at[K_RESOLVE] : v->root;
-        plan_warning(v->c, at, "no 'variation' block: whether the lot is big enough is unknown "
+        sl__plan_warning(v->c, at, "no 'variation' block: whether the lot is big enough is unknown "
                                "(give wafer_sigma_per_cm2 and device_sigma_V)");
         return;
     }
@@ -1284,7 +1301,7 @@ static void read_variation(conv *v)
                    &var->batch_sigma_per_cm2);
     v->batch_sigma_at = f[2];
     if (f[0] && f[1] && var->wafer_sigma_per_cm2 == 0.0 && var->device_sigma_V == 0.0)
-        plan_warning(v->c, node, "wafer_sigma_per_cm2 and device_sigma_V are both 0: a wafer "
+        sl__plan_warning(v->c, node, "wafer_sigma_per_cm2 and device_sigma_V are both 0: a wafer "
                                  "mean would have no scatter, so no power can be computed");
 }
 
@@ -1296,7 +1313,7 @@ static void batch_step(conv *v, const yn *name, sl_plan_batch *b)
     long d = find_named(p->dielectrics, p->n_dielectrics, sizeof *p->dielectrics, name->text);
     if (t < 0 && d < 0) {
         size_t n = p->n_treatments + p->n_dielectrics;
-        const char **names = plan_calloc(v->c, n, sizeof *names);
+        const char **names = sl__plan_calloc(v->c, n, sizeof *names);
         for (size_t i = 0; names && i < n; i++)
             names[i] = i < p->n_treatments
                            ? name_at(p->treatments, sizeof *p->treatments, i)
@@ -1309,9 +1326,9 @@ static void batch_step(conv *v, const yn *name, sl_plan_batch *b)
     b->is_dielectric = t < 0;
     b->ref = (size_t)(t < 0 ? d : t);
     if (sl_plan_batch_of(p, b->is_dielectric, b->ref))
-        plan_error(v->c, name, "step '%s' is batched twice", name->text);
+        sl__plan_error(v->c, name, "step '%s' is batched twice", name->text);
     else
-        b->step = plan_strdup(v->c, name->text);
+        b->step = sl__plan_strdup(v->c, name->text);
 }
 
 static void read_batches(conv *v)
@@ -1321,13 +1338,13 @@ static void read_batches(conv *v)
     const yn *node = v->at[K_BATCHES];
     if (!node) {
         if (v->batch_sigma_at && p->variation.batch_sigma_per_cm2 > 0.0)
-            plan_warning(v->c, v->batch_sigma_at,
+            sl__plan_warning(v->c, v->batch_sigma_at,
                          "batch_sigma_per_cm2 is not used: the plan has no batches");
         return;
     }
     if (read_list(v->c, node, "batches", MAX_LIST) != 0)
         return;
-    p->batches = plan_calloc(v->c, node->n_items, sizeof *p->batches);
+    p->batches = sl__plan_calloc(v->c, node->n_items, sizeof *p->batches);
     for (size_t i = 0; p->batches && i < node->n_items && !v->c->nomem; i++) {
         const yn *f[2];
         sl_plan_batch b = { 0 };
@@ -1342,7 +1359,7 @@ static void read_batches(conv *v)
         p->batches[p->n_batches++] = b;
     }
     if (p->variation.present && !v->batch_sigma_at)
-        plan_warning(v->c, v->at[K_VARIATION],
+        sl__plan_warning(v->c, v->at[K_VARIATION],
                      "batches without variation.batch_sigma_per_cm2: no load-to-load scatter "
                      "is assumed");
 }
@@ -1366,9 +1383,9 @@ static void read_processed(conv *v)
              used == 10 && t[4] == '-' && t[7] == '-' && y >= 1900 && m >= 1 && m <= 12 &&
              d >= 1 && d <= days[m - 1] + (m == 2 && leap_year(y));
     if (!ok)
-        plan_error(v->c, node, "'processed' must be a date YYYY-MM-DD, got '%s'", t);
+        sl__plan_error(v->c, node, "'processed' must be a date YYYY-MM-DD, got '%s'", t);
     else
-        v->p->processed = plan_strdup(v->c, t);
+        v->p->processed = sl__plan_strdup(v->c, t);
 }
 
 /* ---- physics warnings, on a plan without errors ---- */
@@ -1398,7 +1415,7 @@ static void warn_gate_ranges(conv *v)
         if (!di->has_gate_range || stack_of(p, d, &s) != 0)
             continue;
         if (-di->gate_range_V[0] > s.safe_V || di->gate_range_V[1] > s.safe_V)
-            plan_warning(v->c, v->gate_range_at[d],
+            sl__plan_warning(v->c, v->gate_range_at[d],
                          "gate_range_V [%g, %g] of '%s' goes beyond +/-%.3g V, where the field "
                          "reaches half the breakdown field of the stack",
                          di->gate_range_V[0], di->gate_range_V[1], di->name, s.safe_V);
@@ -1420,7 +1437,7 @@ static void warn_cnp_outside(conv *v)
         double lo = d->has_gate_range ? d->gate_range_V[0] : -s.safe_V;
         double hi = d->has_gate_range ? d->gate_range_V[1] : s.safe_V;
         if (cnp.val < lo || cnp.val > hi)
-            plan_warning(v->c, v->split_at[i],
+            sl__plan_warning(v->c, v->split_at[i],
                          "split '%s': predicted neutrality point %.3g V lies outside the gate "
                          "range [%.3g, %.3g] V",
                          sp->name, cnp.val, lo, hi);
@@ -1438,7 +1455,7 @@ static void warn_thermal_floor(conv *v)
     double n_th = sl_physics_thermal_floor_per_m2(t_max, p->fermi_velocity_m_s);
     if (p->resolve.shift_per_cm2 > 0.0) {
         if (p->resolve.shift_per_cm2 * SL_PER_M2_PER_PER_CM2 < n_th)
-            plan_warning(v->c, v->shift_at,
+            sl__plan_warning(v->c, v->shift_at,
                          "shift_per_cm2 %g is below the thermal floor at %g K, %.3g cm^-2",
                          p->resolve.shift_per_cm2, t_max, n_th / SL_PER_M2_PER_PER_CM2);
         return;
@@ -1450,7 +1467,7 @@ static void warn_thermal_floor(conv *v)
             continue;
         double floor_V = SL_SI_ELEMENTARY_CHARGE * n_th / s.cg_F_per_m2;
         if (p->resolve.shift_V < floor_V)
-            plan_warning(v->c, v->shift_at,
+            sl__plan_warning(v->c, v->shift_at,
                          "shift_V %g V is below the thermal floor of '%s' at %g K, %.3g V in "
                          "gate voltage",
                          p->resolve.shift_V, p->dielectrics[di].name, t_max, floor_V);
@@ -1459,7 +1476,7 @@ static void warn_thermal_floor(conv *v)
 
 /* ---- the whole plan ---- */
 
-void plan_convert(plan_ctx *c, const yn *root)
+void sl__plan_convert(plan_ctx *c, const yn *root)
 {
     conv v = { .c = c, .p = c->plan, .root = root };
     if (read_map(c, root, "the plan", root_fields, K_COUNT, v.at) == 0) {

@@ -256,9 +256,9 @@ static void page_header(report_ctx *c)
 
 static sl_status failure_section(report_ctx *c)
 {
-    sl_report_section_open(c->buf, "failure-analysis", "Failure analysis, most severe first");
-    sl_status st = sl_report_failure_table(c);
-    sl_report_section_close(c->buf);
+    sl__report_section_open(c->buf, "failure-analysis", "Failure analysis, most severe first");
+    sl_status st = sl__report_failure_table(c);
+    sl__report_section_close(c->buf);
     return st;
 }
 
@@ -272,23 +272,23 @@ static void page_close(report_ctx *c)
  * names only the sections that were drawn. */
 static sl_status render_sections(report_ctx *c)
 {
-    sl_status st = report_collect(c);
+    sl_status st = sl__report_collect(c);
     if (st == SL_OK)
-        st = sl_report_section_runs(c);
+        st = sl__report_section_runs(c);
     if (st == SL_OK)
-        st = sl_report_section_splits(c);
+        st = sl__report_section_splits(c);
     if (st == SL_OK)
-        st = sl_report_section_hysteresis(c);
+        st = sl__report_section_hysteresis(c);
     if (st == SL_OK)
-        st = sl_report_section_parameters(c);
+        st = sl__report_section_parameters(c);
     if (st == SL_OK)
-        st = sl_report_section_wafers(c);
+        st = sl__report_section_wafers(c);
     if (st == SL_OK)
-        st = sl_report_section_effects(c);
+        st = sl__report_section_effects(c);
     if (st == SL_OK)
-        st = sl_report_section_curves(c);
+        st = sl__report_section_curves(c);
     if (st == SL_OK && c->opts->with_history)
-        st = sl_report_section_history(c);
+        st = sl__report_section_history(c);
     return st;
 }
 
@@ -310,7 +310,7 @@ static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store 
                      .opts = opts, .sum = summary ? summary : &local, .diag = diag,
                      .history = history, .history_loaded = stream != NULL };
     memset(c.sum, 0, sizeof *c.sum);
-    report_rewind(&c);
+    sl__report_rewind(&c);
     snprintf(c.sum->step, sizeof c.sum->step, "%s", analysis->step);
     c.sum->temperature_K = analysis->temperature_K;
     sl_status st = render_sections(&c);
@@ -326,7 +326,7 @@ static sl_status render(sl_chart_buf *buf, sl_report_summary *summary, sl_store 
         st = body.status != SL_OK ? body.status : buf->status;
     }
     sl_chart_buf_free(&body);
-    report_data_free(&c.data);
+    sl__report_data_free(&c.data);
     c.sum->bytes = buf->len - start;
     return st;
 }
@@ -355,7 +355,7 @@ sl_status sl_report_lot(sl_report_summary *summary, sl_store *store, const char 
     sl_chart_buf_init(&buf);
     sl_status st = SL_OK;
     if (!opts || opts->with_history) /* before the stream takes the scratch */
-        st = report_load_history(&h, store, diag);
+        st = sl__report_load_history(&h, store, diag);
     if (st == SL_OK)
         st = sl_analyze_lot_stream_view(&s, store, lot, opts ? &opts->view : NULL, diag);
     if (st == SL_OK)

@@ -17,7 +17,7 @@
 
 #define COLOUR_PERCENTILE 0.99
 
-sl_status report_next_device(report_ctx *c, const sl_analyze_device **device)
+sl_status sl__report_next_device(report_ctx *c, const sl_analyze_device **device)
 {
     if (c->stream)
         return sl_analysis_stream_next_device(c->stream, device, c->diag);
@@ -30,7 +30,7 @@ sl_status report_next_device(report_ctx *c, const sl_analyze_device **device)
     return SL_OK;
 }
 
-sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device)
+sl_status sl__report_next_flagged(report_ctx *c, const sl_analyze_device **device)
 {
     if (c->stream)
         return sl_analysis_stream_next_flagged(c->stream, device, c->diag);
@@ -43,7 +43,7 @@ sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device)
     return SL_OK;
 }
 
-void report_rewind(report_ctx *c)
+void sl__report_rewind(report_ctx *c)
 {
     if (c->stream)
         sl_analysis_stream_rewind(c->stream);
@@ -62,7 +62,7 @@ static void strips_free(report_strip *strips)
     free(strips);
 }
 
-void report_data_free(report_data *data)
+void sl__report_data_free(report_data *data)
 {
     strips_free(data->strips);
     for (int q = 0; q < REPORT_QUANTITIES; q++)
@@ -143,7 +143,7 @@ static void add_point(report_strip *st, const sl_analyze_device *dev)
 
 /* A device parameter as charted: logarithms of mobility and n0 (their
  * spread is multiplicative), hysteresis in volts; NaN when not measured. */
-double report_quantity_value(const sl_analyze_device *d, report_quantity q)
+double sl__report_quantity_value(const sl_analyze_device *d, report_quantity q)
 {
     switch (q) {
     case REPORT_MOBILITY: return d->mobility_cm2_per_Vs > 0.0 ? log10(d->mobility_cm2_per_Vs) : NAN;
@@ -233,7 +233,7 @@ static size_t bin_of(const report_strip *s, double v);
 static void add_quantities(report_data *d, const sl_analyze_device *dev)
 {
     for (int q = 0; q < REPORT_QUANTITIES; q++) {
-        double v = report_quantity_value(dev, (report_quantity)q);
+        double v = sl__report_quantity_value(dev, (report_quantity)q);
         if (!isfinite(v))
             continue;
         d->n_quantity_values[q]++;
@@ -255,7 +255,7 @@ static sl_status collect_pass(report_ctx *c)
     long last_wafer = -1;
     const sl_analyze_device *dev;
     sl_status st;
-    while ((st = report_next_device(c, &dev)) == SL_OK && dev) {
+    while ((st = sl__report_next_device(c, &dev)) == SL_OK && dev) {
         add_die(d, plan, wafer_index(plan, dev->wafer, &last_wafer), dev);
         if (dev->split < 0 || (size_t)dev->split >= c->a->n_splits ||
             !isfinite(dev->cnp_measured_V))
@@ -270,7 +270,7 @@ static sl_status collect_pass(report_ctx *c)
     return st;
 }
 
-double report_die_value(const report_die *die)
+double sl__report_die_value(const report_die *die)
 {
     if (die->n_values == 0)
         return NAN;
@@ -289,7 +289,7 @@ static int by_value(const void *pa, const void *pb)
 }
 
 /* One symmetric colour half-range for every wafer map of the lot: the 99th
- * percentile of |deviation| of its dies (report_die_value), rounded up to a 1-2-5
+ * percentile of |deviation| of its dies (sl__report_die_value), rounded up to a 1-2-5
  * number, so one wild die does not wash out every other colour. */
 static sl_status colour_range(report_data *d, const sl_plan *plan)
 {
@@ -299,7 +299,7 @@ static sl_status colour_range(report_data *d, const sl_plan *plan)
         return SL_ENOMEM;
     for (size_t i = 0; i < n_all; i++)
         if (d->dies[i].n_values > 0)
-            v[n++] = fabs(report_die_value(&d->dies[i]));
+            v[n++] = fabs(sl__report_die_value(&d->dies[i]));
     d->colour_max_abs_V = 1.0;
     if (n > 0) {
         qsort(v, n, sizeof *v, by_value);
@@ -313,7 +313,7 @@ static sl_status colour_range(report_data *d, const sl_plan *plan)
     return SL_OK;
 }
 
-sl_status report_collect(report_ctx *c)
+sl_status sl__report_collect(report_ctx *c)
 {
     report_data *d = &c->data;
     sl_status st = strips_alloc(d, c->a);

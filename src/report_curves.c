@@ -130,19 +130,19 @@ static sl_status draw_curves(report_ctx *c)
     sl_status st = SL_OK;
     const sl_analyze_device *d;
     while (c->sum->n_curves < c->opts->max_curves &&
-           (st = report_next_flagged(c, &d)) == SL_OK && d)
+           (st = sl__report_next_flagged(c, &d)) == SL_OK && d)
         if (d->n_points > 0)
             st = device_curve(c, d);
-    report_rewind(c);
+    sl__report_rewind(c);
     return st;
 }
 
-sl_status sl_report_section_curves(report_ctx *c)
+sl_status sl__report_section_curves(report_ctx *c)
 {
     if (c->a->n_flagged == 0 || c->opts->max_curves == 0)
         return SL_OK;
     c->has_curves = 1;
-    sl_report_section_open(c->buf, "curves", "Transfer curves of flagged devices");
+    sl__report_section_open(c->buf, "curves", "Transfer curves of flagged devices");
     sl_chart_buf_printf(c->buf,
                         "<p>Resistance against gate voltage of up to %zu flagged devices with a "
                         "stored sweep, most severe first: measured points, and the fitted model "
@@ -151,8 +151,8 @@ sl_status sl_report_section_curves(report_ctx *c)
                         c->opts->max_curves);
     sl_status st = draw_curves(c);
     if (st == SL_OK && c->sum->n_curves == 0)
-        sl_report_note(c->buf, "None of the flagged devices has a stored sweep.");
+        sl__report_note(c->buf, "None of the flagged devices has a stored sweep.");
     sl_chart_buf_append(c->buf, "</div>\n");
-    sl_report_section_close(c->buf);
+    sl__report_section_close(c->buf);
     return st == SL_OK ? c->buf->status : st;
 }

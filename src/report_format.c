@@ -8,7 +8,7 @@
 
 #include "report_internal.h"
 
-const char sl_report_per_cm2_html[] = "cm<sup>&minus;2</sup>";
+const char sl__report_per_cm2_html[] = "cm<sup>&minus;2</sup>";
 
 /* Non-finite numbers print as "n/a": a NaN must never reach the page. */
 static int put_missing(sl_chart_buf *buf, double value)
@@ -30,14 +30,14 @@ static void put_fixed(sl_chart_buf *buf, double value, int decimals)
     sl_chart_buf_printf(buf, "%s%s", negative ? "&minus;" : "", text);
 }
 
-void sl_report_volts(sl_chart_buf *buf, double value_V)
+void sl__report_volts(sl_chart_buf *buf, double value_V)
 {
     put_fixed(buf, value_V, 2);
     if (isfinite(value_V))
         sl_chart_buf_append(buf, " V");
 }
 
-void sl_report_density(sl_chart_buf *buf, double value_per_cm2)
+void sl__report_density(sl_chart_buf *buf, double value_per_cm2)
 {
     if (put_missing(buf, value_per_cm2))
         return;
@@ -55,14 +55,14 @@ void sl_report_density(sl_chart_buf *buf, double value_per_cm2)
     sl_chart_buf_printf(buf, "&times;10<sup>%d</sup>", exponent);
 }
 
-void sl_report_cell_fixed(sl_chart_buf *buf, double value, int decimals)
+void sl__report_cell_fixed(sl_chart_buf *buf, double value, int decimals)
 {
     sl_chart_buf_append(buf, "<td class=\"num\">");
     put_fixed(buf, value, decimals);
     sl_chart_buf_append(buf, "</td>");
 }
 
-void sl_report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
+void sl__report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
                           const char *suffix_html)
 {
     sl_chart_buf_append(buf, "<td class=\"num\">");
@@ -76,35 +76,35 @@ void sl_report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
     sl_chart_buf_printf(buf, "%s</td>", suffix_html ? suffix_html : "");
 }
 
-void sl_report_cell_density(sl_chart_buf *buf, double value_per_cm2)
+void sl__report_cell_density(sl_chart_buf *buf, double value_per_cm2)
 {
     sl_chart_buf_append(buf, "<td class=\"num\">");
-    sl_report_density(buf, value_per_cm2);
+    sl__report_density(buf, value_per_cm2);
     sl_chart_buf_append(buf, "</td>");
 }
 
-void sl_report_cell_text(sl_chart_buf *buf, const char *text)
+void sl__report_cell_text(sl_chart_buf *buf, const char *text)
 {
     sl_chart_buf_append(buf, "<td>");
     sl_chart_buf_escape(buf, text);
     sl_chart_buf_append(buf, "</td>");
 }
 
-void sl_report_cell_long(sl_chart_buf *buf, long value)
+void sl__report_cell_long(sl_chart_buf *buf, long value)
 {
     sl_chart_buf_printf(buf, "<td class=\"num\">%ld</td>", value);
 }
 
-void sl_report_section_open(sl_chart_buf *buf, const char *id, const char *heading)
+void sl__report_section_open(sl_chart_buf *buf, const char *id, const char *heading)
 {
     sl_chart_buf_printf(buf, "<section id=\"%s\">\n<h2>", id);
     sl_chart_buf_escape(buf, heading);
     sl_chart_buf_append(buf, "</h2>\n");
 }
 
-void sl_report_section_close(sl_chart_buf *buf) { sl_chart_buf_append(buf, "</section>\n"); }
+void sl__report_section_close(sl_chart_buf *buf) { sl_chart_buf_append(buf, "</section>\n"); }
 
-void sl_report_note(sl_chart_buf *buf, const char *text)
+void sl__report_note(sl_chart_buf *buf, const char *text)
 {
     sl_chart_buf_append(buf, "<p class=\"note\">");
     sl_chart_buf_escape(buf, text);

@@ -66,14 +66,14 @@ static void pooled_table(report_ctx *c, const sl_history *h)
     for (size_t i = 0; i < h->n_levels; i++) {
         const sl_history_level *l = &h->levels[i];
         sl_chart_buf_append(c->buf, "<tr>");
-        sl_report_cell_text(c->buf, l->factor);
-        sl_report_cell_text(c->buf, l->level);
-        sl_report_cell_long(c->buf, (long)l->n_points);
-        sl_report_cell_density(c->buf, l->planned_per_cm2);
-        sl_report_cell_density(c->buf, l->pooled.value);
-        sl_report_cell_density(c->buf, l->pooled.se);
-        sl_report_cell_density(c->buf, l->pooled.tau);
-        sl_report_cell_long(c->buf, (long)l->n_drift);
+        sl__report_cell_text(c->buf, l->factor);
+        sl__report_cell_text(c->buf, l->level);
+        sl__report_cell_long(c->buf, (long)l->n_points);
+        sl__report_cell_density(c->buf, l->planned_per_cm2);
+        sl__report_cell_density(c->buf, l->pooled.value);
+        sl__report_cell_density(c->buf, l->pooled.se);
+        sl__report_cell_density(c->buf, l->pooled.tau);
+        sl__report_cell_long(c->buf, (long)l->n_drift);
         sl_chart_buf_append(c->buf, "</tr>\n");
     }
     sl_chart_buf_append(c->buf, "</tbody></table>\n");
@@ -82,7 +82,7 @@ static void pooled_table(report_ctx *c, const sl_history *h)
 static void history_body(report_ctx *c, const sl_history *h)
 {
     c->has_history = 1;
-    sl_report_section_open(c->buf, "history", "History across lots");
+    sl__report_section_open(c->buf, "history", "History across lots");
     sl_chart_buf_printf(c->buf,
                         "<p>Each level's estimated doping in the %zu lots of the database with "
                         "estimates, in creation order, on an individuals chart: centre line "
@@ -97,10 +97,10 @@ static void history_body(report_ctx *c, const sl_history *h)
             level_chart(c, &h->levels[i]);
     sl_chart_buf_append(c->buf, "</div>\n");
     pooled_table(c, h);
-    sl_report_section_close(c->buf);
+    sl__report_section_close(c->buf);
 }
 
-sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag)
+sl_status sl__report_load_history(sl_history **out, sl_store *store, sl_diag *diag)
 {
     *out = NULL;
     char **names = NULL;
@@ -114,13 +114,13 @@ sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag)
 
 /* The history re-analyses every lot (skipped outright for a single-lot
  * store), unless it was loaded before the lot's stream was opened. */
-sl_status sl_report_section_history(report_ctx *c)
+sl_status sl__report_section_history(report_ctx *c)
 {
     sl_history *own = NULL;
     const sl_history *h = c->history;
     sl_status st = SL_OK;
     if (!c->history_loaded) {
-        st = report_load_history(&own, c->store, c->diag);
+        st = sl__report_load_history(&own, c->store, c->diag);
         h = own;
     }
     if (st == SL_OK && h && h->n_lots > 1)

@@ -63,7 +63,7 @@ static sl_status hyst_build(hyst_data *d, report_ctx *c)
     const sl_analysis *a = c->a;
     sl_status st = hyst_alloc(d, a);
     const sl_analyze_device *dev;
-    while (st == SL_OK && (st = report_next_device(c, &dev)) == SL_OK && dev) {
+    while (st == SL_OK && (st = sl__report_next_device(c, &dev)) == SL_OK && dev) {
         if (dev->split < 0 || (size_t)dev->split >= a->n_splits || !isfinite(dev->hysteresis_V))
             continue;
         size_t s = (size_t)dev->split;
@@ -124,7 +124,7 @@ static void chart(report_ctx *c, const hyst_data *d, sl_chart_category *cats, si
     c->sum->n_hysteresis_charts++;
 }
 
-sl_status sl_report_section_hysteresis(report_ctx *c)
+sl_status sl__report_section_hysteresis(report_ctx *c)
 {
     const sl_analysis *a = c->a;
     if (a->n_with_hysteresis == 0)
@@ -139,7 +139,7 @@ sl_status sl_report_section_hysteresis(report_ctx *c)
         return st;
     }
     c->has_hysteresis = 1;
-    sl_report_section_open(c->buf, "hysteresis", "Hysteresis of double sweeps");
+    sl__report_section_open(c->buf, "hysteresis", "Hysteresis of double sweeps");
     sl_chart_buf_printf(c->buf,
                         "<p>Neutrality voltage of the reverse sweep minus that of the forward "
                         "sweep, per device, for the %zu devices measured with a double sweep "
@@ -158,7 +158,7 @@ sl_status sl_report_section_hysteresis(report_ctx *c)
         sl_chart_buf_printf(c->buf, "<p class=\"note\">%zu devices beyond the first %d of "
                             "their split are not drawn.</p>\n", d.not_drawn,
                             SL_REPORT_STRIP_POINTS_MAX);
-    sl_report_section_close(c->buf);
+    sl__report_section_close(c->buf);
     hyst_free(&d);
     free(cats);
     return c->buf->status;

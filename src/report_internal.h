@@ -88,73 +88,73 @@ typedef struct {
 
 /* The next device in the analysis' order, NULL after the last (the next
  * call starts over); the next flagged one, most severe first. */
-sl_status report_next_device(report_ctx *c, const sl_analyze_device **device);
-sl_status report_next_flagged(report_ctx *c, const sl_analyze_device **device);
+sl_status sl__report_next_device(report_ctx *c, const sl_analyze_device **device);
+sl_status sl__report_next_flagged(report_ctx *c, const sl_analyze_device **device);
 /* Both readings start over. */
-void report_rewind(report_ctx *c);
+void sl__report_rewind(report_ctx *c);
 /* What a die shows: its device's deviation; for several devices their
  * median (the mean beyond SL_REPORT_DIE_VALUES usable ones); NaN without
  * a usable device. */
-double report_die_value(const report_die *die);
+double sl__report_die_value(const report_die *die);
 /* Gather c->data in one pass over the devices. */
-sl_status report_collect(report_ctx *c);
-void report_data_free(report_data *data);
+sl_status sl__report_collect(report_ctx *c);
+void sl__report_data_free(report_data *data);
 /* The value a parameter's chart shows of a device (log10 for mobility and
  * n0), NaN when it has none. */
-double report_quantity_value(const sl_analyze_device *d, report_quantity q);
+double sl__report_quantity_value(const sl_analyze_device *d, report_quantity q);
 
 /* ---- report_format.c: numbers with units, escaped text ---- */
 
 /* A voltage with two decimals and " V"; "n/a" when non-finite. */
-void sl_report_volts(sl_chart_buf *buf, double value_V);
+void sl__report_volts(sl_chart_buf *buf, double value_V);
 /* A density as "1.20&times;10<sup>12</sup>" (HTML), no unit; "n/a" when
  * non-finite. */
-void sl_report_density(sl_chart_buf *buf, double value_per_cm2);
+void sl__report_density(sl_chart_buf *buf, double value_per_cm2);
 /* The HTML text of the unit cm^-2. */
-extern const char sl_report_per_cm2_html[];
+extern const char sl__report_per_cm2_html[];
 /* A table cell with a number of the given decimals (class "num"). */
-void sl_report_cell_fixed(sl_chart_buf *buf, double value, int decimals);
-void sl_report_cell_density(sl_chart_buf *buf, double value_per_cm2);
+void sl__report_cell_fixed(sl_chart_buf *buf, double value, int decimals);
+void sl__report_cell_density(sl_chart_buf *buf, double value_per_cm2);
 /* "lo &ndash; hi" with the given decimals and an optional HTML suffix;
  * "n/a" when a bound is non-finite. */
-void sl_report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
+void sl__report_cell_range(sl_chart_buf *buf, double lo, double hi, int decimals,
                           const char *suffix_html);
-void sl_report_cell_text(sl_chart_buf *buf, const char *text);
-void sl_report_cell_long(sl_chart_buf *buf, long value);
+void sl__report_cell_text(sl_chart_buf *buf, const char *text);
+void sl__report_cell_long(sl_chart_buf *buf, long value);
 /* Open <section id="id"> with its <h2> heading (escaped). */
-void sl_report_section_open(sl_chart_buf *buf, const char *id, const char *heading);
-void sl_report_section_close(sl_chart_buf *buf);
+void sl__report_section_open(sl_chart_buf *buf, const char *id, const char *heading);
+void sl__report_section_close(sl_chart_buf *buf);
 /* <p class="note"> with escaped text. */
-void sl_report_note(sl_chart_buf *buf, const char *text);
+void sl__report_note(sl_chart_buf *buf, const char *text);
 
 /* ---- report_tables.c ---- */
-void sl_report_splits_table(report_ctx *c, size_t dielectric);
-void sl_report_window_table(report_ctx *c, size_t dielectric);
-void sl_report_effects_table(report_ctx *c);
-sl_status sl_report_failure_table(report_ctx *c);
+void sl__report_splits_table(report_ctx *c, size_t dielectric);
+void sl__report_window_table(report_ctx *c, size_t dielectric);
+void sl__report_effects_table(report_ctx *c);
+sl_status sl__report_failure_table(report_ctx *c);
 
 /* ---- report_runs.c: the lot's measurement runs ---- */
-sl_status sl_report_section_runs(report_ctx *c);
+sl_status sl__report_section_runs(report_ctx *c);
 
 /* ---- report_sections.c: splits and effects ---- */
-sl_status sl_report_section_splits(report_ctx *c);
-sl_status sl_report_section_effects(report_ctx *c);
+sl_status sl__report_section_splits(report_ctx *c);
+sl_status sl__report_section_effects(report_ctx *c);
 
 /* ---- report_hysteresis.c: per split, for lots with double sweeps ---- */
-sl_status sl_report_section_hysteresis(report_ctx *c);
+sl_status sl__report_section_hysteresis(report_ctx *c);
 
 /* ---- report_sections.c: device parameters ---- */
-sl_status sl_report_section_parameters(report_ctx *c);
+sl_status sl__report_section_parameters(report_ctx *c);
 
 /* ---- report_wafers.c ---- */
-sl_status sl_report_section_wafers(report_ctx *c);
+sl_status sl__report_section_wafers(report_ctx *c);
 
 /* ---- report_curves.c ---- */
-sl_status sl_report_section_curves(report_ctx *c);
+sl_status sl__report_section_curves(report_ctx *c);
 
 /* ---- report_history.c ---- */
-sl_status sl_report_section_history(report_ctx *c);
+sl_status sl__report_section_history(report_ctx *c);
 /* Every lot's estimates across lots, or NULL for a store of one lot. */
-sl_status report_load_history(sl_history **out, sl_store *store, sl_diag *diag);
+sl_status sl__report_load_history(sl_history **out, sl_store *store, sl_diag *diag);
 
 #endif

@@ -20,24 +20,24 @@ static void run_row(sl_chart_buf *buf, const sl_analysis *a, const sl_store_run 
     char sha[16];
     snprintf(sha, sizeof sha, "%.12s", r->source_sha256); /* enough to tell files apart */
     sl_chart_buf_printf(buf, "<tr%s>", shown ? " class=\"shown\"" : "");
-    sl_report_cell_long(buf, r->id);
-    sl_report_cell_text(buf, r->step);
-    sl_report_cell_fixed(buf, r->temperature_K, 0);
-    sl_report_cell_long(buf, r->devices);
-    sl_report_cell_long(buf, r->current);
-    sl_report_cell_long(buf, r->revision);
-    sl_report_cell_text(buf, r->source_name);
-    sl_report_cell_text(buf, *sha ? sha : "n/a");
-    sl_report_cell_text(buf, r->created_utc);
-    sl_report_cell_text(buf, shown ? "yes" : "");
+    sl__report_cell_long(buf, r->id);
+    sl__report_cell_text(buf, r->step);
+    sl__report_cell_fixed(buf, r->temperature_K, 0);
+    sl__report_cell_long(buf, r->devices);
+    sl__report_cell_long(buf, r->current);
+    sl__report_cell_long(buf, r->revision);
+    sl__report_cell_text(buf, r->source_name);
+    sl__report_cell_text(buf, *sha ? sha : "n/a");
+    sl__report_cell_text(buf, r->created_utc);
+    sl__report_cell_text(buf, shown ? "yes" : "");
     sl_chart_buf_append(buf, "</tr>\n");
 }
 
-sl_status sl_report_section_runs(report_ctx *c)
+sl_status sl__report_section_runs(report_ctx *c)
 {
     const sl_analysis *a = c->a;
     sl_chart_buf *buf = c->buf;
-    sl_report_section_open(buf, "runs", "Measurement runs");
+    sl__report_section_open(buf, "runs", "Measurement runs");
     sl_chart_buf_append(buf, "<p>Every import of the lot is a run of its own. The report shows "
                              "the measurements at step <strong>");
     sl_chart_buf_escape(buf, a->step);
@@ -46,7 +46,7 @@ sl_status sl_report_section_runs(report_ctx *c)
                         "measurement is shown and the earlier stay on record.</p>\n",
                         a->temperature_K, a->revision);
     if (a->n_runs == 0) {
-        sl_report_note(buf, "The lot has no measurements yet.");
+        sl__report_note(buf, "The lot has no measurements yet.");
     } else {
         size_t n = sizeof run_headings / sizeof *run_headings;
         sl_chart_buf_append(buf, "<table class=\"runs\"><thead><tr>");
@@ -57,6 +57,6 @@ sl_status sl_report_section_runs(report_ctx *c)
             run_row(buf, a, &a->runs[i]);
         sl_chart_buf_append(buf, "</tbody></table>\n");
     }
-    sl_report_section_close(buf);
+    sl__report_section_close(buf);
     return buf->status;
 }

@@ -133,18 +133,18 @@ static void strip_chart(report_ctx *c, sl_chart_category *cats, size_t dielectri
     sl_chart_strip(c->buf, &frame, cats, count, "split", "neutrality voltage (V)");
     sl_chart_buf_append(c->buf, "</figure>\n");
     strip_notes(c, dielectric);
-    sl_report_splits_table(c, dielectric);
-    sl_report_window_table(c, dielectric);
+    sl__report_splits_table(c, dielectric);
+    sl__report_window_table(c, dielectric);
     sl_chart_buf_append(c->buf, "</div>\n");
     c->sum->n_strip_charts++;
 }
 
-sl_status sl_report_section_splits(report_ctx *c)
+sl_status sl__report_section_splits(report_ctx *c)
 {
     sl_chart_category *cats = malloc((c->a->n_splits + 1) * sizeof *cats);
     if (!cats)
         return SL_ENOMEM;
-    sl_report_section_open(c->buf, "splits", "Splits against prediction");
+    sl__report_section_open(c->buf, "splits", "Splits against prediction");
     sl_chart_buf_append(c->buf,
                         "<p>Measured neutrality (Dirac) voltage of every usable device, per "
                         "split, over the predicted value (line) with its &plusmn;1&nbsp;&sigma; "
@@ -161,7 +161,7 @@ sl_status sl_report_section_splits(report_ctx *c)
                         "of freedom, none for a split of one wafer.</p>\n");
     for (size_t k = 0; k < c->a->plan->n_dielectrics; k++)
         strip_chart(c, cats, k);
-    sl_report_section_close(c->buf);
+    sl__report_section_close(c->buf);
     free(cats);
     return c->buf->status;
 }
@@ -219,12 +219,12 @@ static void parameter_chart(report_ctx *c, sl_chart_category *cats, report_quant
 /* Mobility, n0 and hysteresis of the usable devices per split, as strips
  * (density strips for large splits, as the neutrality voltage's); a
  * parameter no device has is named, not drawn. */
-sl_status sl_report_section_parameters(report_ctx *c)
+sl_status sl__report_section_parameters(report_ctx *c)
 {
     sl_chart_category *cats = malloc((c->a->n_splits + 1) * sizeof *cats);
     if (!cats)
         return SL_ENOMEM;
-    sl_report_section_open(c->buf, "parameters", "Device parameters by split");
+    sl__report_section_open(c->buf, "parameters", "Device parameters by split");
     sl_chart_buf_append(c->buf,
                         "<p>Fitted mobility and residual density n<sub>0</sub> (logarithmic: "
                         "their spread is multiplicative) and hysteresis of the usable devices, "
@@ -242,11 +242,11 @@ sl_status sl_report_section_parameters(report_ctx *c)
             snprintf(text, sizeof text, "No device of this view has a %s.",
                      q == REPORT_MOBILITY ? "mobility" : q == REPORT_N0 ? "residual density"
                                                                         : "hysteresis");
-            sl_report_note(c->buf, text);
+            sl__report_note(c->buf, text);
         }
     }
     sl_chart_buf_append(c->buf, "</div>\n");
-    sl_report_section_close(c->buf);
+    sl__report_section_close(c->buf);
     free(cats);
     return c->buf->status;
 }
@@ -279,13 +279,13 @@ static void effects_chart(report_ctx *c)
     free(levels);
 }
 
-sl_status sl_report_section_effects(report_ctx *c)
+sl_status sl__report_section_effects(report_ctx *c)
 {
-    sl_report_section_open(c->buf, "effects", "Level effects against the plan");
+    sl__report_section_open(c->buf, "effects", "Level effects against the plan");
     if (c->a->effects_status != SL_OK || c->a->n_effects == 0) {
-        sl_report_note(c->buf, c->a->effects_note[0] ? c->a->effects_note
+        sl__report_note(c->buf, c->a->effects_note[0] ? c->a->effects_note
                                                      : "No level effects could be estimated.");
-        sl_report_section_close(c->buf);
+        sl__report_section_close(c->buf);
         return c->buf->status;
     }
     sl_chart_buf_append(c->buf,
@@ -300,7 +300,7 @@ sl_status sl_report_section_effects(report_ctx *c)
                         "<em>differs</em> when it only excludes the plan, "
                         "<em>inconclusive</em> otherwise.</p>\n");
     effects_chart(c);
-    sl_report_effects_table(c);
-    sl_report_section_close(c->buf);
+    sl__report_effects_table(c);
+    sl__report_section_close(c->buf);
     return c->buf->status;
 }

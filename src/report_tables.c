@@ -38,27 +38,27 @@ static void split_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
     const sl_analyze_split *sp = &a->splits[s];
     int outside = split_mean_outside(a, s);
     sl_chart_buf_printf(buf, "<tr%s>", outside ? " class=\"bad\"" : "");
-    sl_report_cell_text(buf, a->plan->splits[s].name);
-    sl_report_cell_long(buf, (long)sp->n_devices);
-    sl_report_cell_long(buf, (long)sp->n_usable);
-    sl_report_cell_fixed(buf, sp->cnp_predicted_V, 2);
-    sl_report_cell_fixed(buf, sp->cnp_predicted_sigma_V, 2);
-    sl_report_cell_fixed(buf, sp->cnp.mean, 2);
-    sl_report_cell_fixed(buf, sp->cnp.sd, 2);
+    sl__report_cell_text(buf, a->plan->splits[s].name);
+    sl__report_cell_long(buf, (long)sp->n_devices);
+    sl__report_cell_long(buf, (long)sp->n_usable);
+    sl__report_cell_fixed(buf, sp->cnp_predicted_V, 2);
+    sl__report_cell_fixed(buf, sp->cnp_predicted_sigma_V, 2);
+    sl__report_cell_fixed(buf, sp->cnp.mean, 2);
+    sl__report_cell_fixed(buf, sp->cnp.sd, 2);
     if (sp->n_wafers >= 2)
-        sl_report_cell_range(buf, sp->cnp.ci_low, sp->cnp.ci_high, 2, NULL);
+        sl__report_cell_range(buf, sp->cnp.ci_low, sp->cnp.ci_high, 2, NULL);
     else if (sp->n_wafers == 1)
-        sl_report_cell_text(buf, "one wafer: no interval");
+        sl__report_cell_text(buf, "one wafer: no interval");
     else
-        sl_report_cell_range(buf, NAN, NAN, 2, NULL);
-    sl_report_cell_fixed(buf, sp->bias_V, 2);
-    sl_report_cell_range(buf, a->split_gate_min_V[s], a->split_gate_max_V[s], 1,
+        sl__report_cell_range(buf, NAN, NAN, 2, NULL);
+    sl__report_cell_fixed(buf, sp->bias_V, 2);
+    sl__report_cell_range(buf, a->split_gate_min_V[s], a->split_gate_max_V[s], 1,
                          outside ? " (mean outside)" : NULL);
-    sl_report_cell_long(buf, (long)sp->n_flagged);
+    sl__report_cell_long(buf, (long)sp->n_flagged);
     sl_chart_buf_append(buf, "</tr>\n");
 }
 
-void sl_report_splits_table(report_ctx *c, size_t dielectric)
+void sl__report_splits_table(report_ctx *c, size_t dielectric)
 {
     table_open(c->buf, "splits", split_headings, sizeof split_headings / sizeof *split_headings);
     for (size_t s = 0; s < c->a->n_splits; s++)
@@ -79,14 +79,14 @@ static void window_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
 {
     const sl_analyze_split *sp = &a->splits[s];
     sl_chart_buf_append(buf, "<tr>");
-    sl_report_cell_text(buf, a->plan->splits[s].name);
+    sl__report_cell_text(buf, a->plan->splits[s].name);
     if (isfinite(sp->inside_share))
         sl_chart_buf_printf(buf, "<td class=\"num\">%.1f&nbsp;%%</td>", 100.0 * sp->inside_share);
     else
-        sl_report_cell_text(buf, "n/a");
+        sl__report_cell_text(buf, "n/a");
     for (int k = 0; k < 2; k++) {
-        sl_report_cell_density(buf, sp->window_predicted_per_cm2[k]);
-        sl_report_cell_density(buf, sp->window_reached_per_cm2[k]);
+        sl__report_cell_density(buf, sp->window_predicted_per_cm2[k]);
+        sl__report_cell_density(buf, sp->window_reached_per_cm2[k]);
     }
     sl_chart_buf_append(buf, "</tr>\n");
 }
@@ -94,7 +94,7 @@ static void window_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
 /* The density window the gate range reaches from the measured mean V_cnp
  * against the one predicted from the predicted V_cnp, and the share of
  * devices whose neutrality point stayed inside their sweep. */
-void sl_report_window_table(report_ctx *c, size_t dielectric)
+void sl__report_window_table(report_ctx *c, size_t dielectric)
 {
     table_open(c->buf, "window", window_headings, sizeof window_headings / sizeof *window_headings);
     for (size_t s = 0; s < c->a->n_splits; s++)
@@ -118,31 +118,31 @@ static void cell_density_range(sl_chart_buf *buf, double lo, double hi)
     char text[64] = "";
     if (isfinite(lo) && isfinite(hi))
         snprintf(text, sizeof text, "%.3g .. %.3g", lo, hi);
-    sl_report_cell_text(buf, text);
+    sl__report_cell_text(buf, text);
 }
 
 static void effect_row(sl_chart_buf *buf, const sl_analyze_effect *e)
 {
     sl_chart_buf_printf(buf, "<tr%s>", e->off_plan ? " class=\"bad\"" : "");
-    sl_report_cell_text(buf, e->factor);
-    sl_report_cell_text(buf, e->level);
-    sl_report_cell_text(buf, e->is_intercept ? "-" : e->reference);
-    sl_report_cell_density(buf, e->planned_per_cm2);
-    sl_report_cell_density(buf, e->planned_sigma_per_cm2);
-    sl_report_cell_density(buf, e->tolerance_per_cm2);
-    sl_report_cell_density(buf, e->estimated_per_cm2);
-    sl_report_cell_density(buf, e->stderr_per_cm2);
+    sl__report_cell_text(buf, e->factor);
+    sl__report_cell_text(buf, e->level);
+    sl__report_cell_text(buf, e->is_intercept ? "-" : e->reference);
+    sl__report_cell_density(buf, e->planned_per_cm2);
+    sl__report_cell_density(buf, e->planned_sigma_per_cm2);
+    sl__report_cell_density(buf, e->tolerance_per_cm2);
+    sl__report_cell_density(buf, e->estimated_per_cm2);
+    sl__report_cell_density(buf, e->stderr_per_cm2);
     if (isfinite(e->estimated_per_cm2))
-        sl_report_cell_long(buf, (long)e->df);
+        sl__report_cell_long(buf, (long)e->df);
     else
-        sl_report_cell_text(buf, "");
+        sl__report_cell_text(buf, "");
     cell_density_range(buf, e->ci_low_per_cm2, e->ci_high_per_cm2);
-    sl_report_cell_long(buf, (long)e->n_wafers);
-    sl_report_cell_text(buf, sl_stats_verdict_name(e->verdict));
+    sl__report_cell_long(buf, (long)e->n_wafers);
+    sl__report_cell_text(buf, sl_stats_verdict_name(e->verdict));
     sl_chart_buf_append(buf, "</tr>\n");
 }
 
-void sl_report_effects_table(report_ctx *c)
+void sl__report_effects_table(report_ctx *c)
 {
     table_open(c->buf, "effects", effect_headings, sizeof effect_headings / sizeof *effect_headings);
     for (size_t i = 0; i < c->a->n_effects; i++)
@@ -160,22 +160,22 @@ static void failure_row(sl_chart_buf *buf, const sl_analysis *a, const sl_analyz
                         size_t rank)
 {
     sl_chart_buf_append(buf, "<tr class=\"fa\">");
-    sl_report_cell_long(buf, (long)rank + 1);
-    sl_report_cell_text(buf, d->wafer);
-    sl_report_cell_text(buf, d->device);
-    sl_report_cell_long(buf, d->die_x);
-    sl_report_cell_long(buf, d->die_y);
-    sl_report_cell_text(buf, a->plan->splits[d->split].name);
-    sl_report_cell_text(buf, d->reason);
+    sl__report_cell_long(buf, (long)rank + 1);
+    sl__report_cell_text(buf, d->wafer);
+    sl__report_cell_text(buf, d->device);
+    sl__report_cell_long(buf, d->die_x);
+    sl__report_cell_long(buf, d->die_y);
+    sl__report_cell_text(buf, a->plan->splits[d->split].name);
+    sl__report_cell_text(buf, d->reason);
     sl_chart_buf_append(buf, "</tr>\n");
 }
 
 /* The most severe SL_REPORT_FAILURE_ROWS_MAX flagged devices; the page
  * says how many more there are and where to find them all. */
-sl_status sl_report_failure_table(report_ctx *c)
+sl_status sl__report_failure_table(report_ctx *c)
 {
     if (c->a->n_flagged == 0) {
-        sl_report_note(c->buf, "No device is flagged: nothing to send to failure analysis.");
+        sl__report_note(c->buf, "No device is flagged: nothing to send to failure analysis.");
         return c->buf->status;
     }
     table_open(c->buf, "failures", failure_headings,
@@ -183,9 +183,9 @@ sl_status sl_report_failure_table(report_ctx *c)
     const sl_analyze_device *d;
     size_t rank = 0;
     sl_status st = SL_OK;
-    while (rank < SL_REPORT_FAILURE_ROWS_MAX && (st = report_next_flagged(c, &d)) == SL_OK && d)
+    while (rank < SL_REPORT_FAILURE_ROWS_MAX && (st = sl__report_next_flagged(c, &d)) == SL_OK && d)
         failure_row(c->buf, c->a, d, rank++);
-    report_rewind(c);
+    sl__report_rewind(c);
     table_close(c->buf);
     rank = c->a->n_flagged;
     if (st == SL_OK && rank > SL_REPORT_FAILURE_ROWS_MAX)

@@ -43,7 +43,7 @@ static size_t wafer_dies(const report_data *d, const sl_plan *plan, size_t w, sl
                                die_flagged(die), die->device };
         if (die->n_values > 0) {
             out->state = SL_CHART_DIE_VALUE;
-            out->value = report_die_value(die);
+            out->value = sl__report_die_value(die);
         }
         if (die->n_devices > 1) {
             snprintf(labels[n - 1], DIE_LABEL_BYTES, "%s of %u usable of %u devices",
@@ -79,7 +79,7 @@ static void wafer_map(report_ctx *c, size_t w, die_scratch *ds)
                                1, 1, (int)a->plan->first_die_x, (int)a->plan->first_die_y };
     sl_chart_buf_append(c->buf, "<figure class=\"wafer\">");
     if (sl_chart_wafer_map_svg(c->buf, &map, dies, n_dies) != SL_OK && c->buf->status == SL_OK)
-        sl_report_note(c->buf, "this wafer's map could not be drawn");
+        sl__report_note(c->buf, "this wafer's map could not be drawn");
     sl_chart_buf_append(c->buf, "<figcaption>split ");
     sl_chart_buf_escape(c->buf, a->plan->splits[c->data.wafer_split[w]].name);
     sl_chart_buf_append(c->buf, "</figcaption></figure>\n");
@@ -125,7 +125,7 @@ static void maps_legend(report_ctx *c)
                         "</figure>\n", m, m);
 }
 
-sl_status sl_report_section_wafers(report_ctx *c)
+sl_status sl__report_section_wafers(report_ctx *c)
 {
     size_t slots = c->data.n_slots ? c->data.n_slots : 1;
     die_scratch ds = { malloc(slots * sizeof *ds.dies), malloc(slots * sizeof *ds.labels), 0 };
@@ -135,7 +135,7 @@ sl_status sl_report_section_wafers(report_ctx *c)
         return SL_ENOMEM;
     }
     c->sum->n_dies_off_grid = c->data.n_off_grid;
-    sl_report_section_open(c->buf, "wafers", "Wafer maps");
+    sl__report_section_open(c->buf, "wafers", "Wafer maps");
     sl_chart_buf_printf(c->buf,
                         "<p>Each die on the plan's %ld &times; %ld grid, coloured by the "
                         "deviation of its device's measured neutrality voltage from its "
@@ -165,9 +165,9 @@ sl_status sl_report_section_wafers(report_ctx *c)
         snprintf(text, sizeof text, "%zu devices have a die position outside the %ld x %ld grid "
                  "and are not drawn.", c->sum->n_dies_off_grid, c->a->plan->wafer_rows,
                  c->a->plan->wafer_cols);
-        sl_report_note(c->buf, text);
+        sl__report_note(c->buf, text);
     }
-    sl_report_section_close(c->buf);
+    sl__report_section_close(c->buf);
     free(ds.dies);
     free(ds.labels);
     return c->buf->status;

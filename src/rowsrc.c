@@ -263,11 +263,10 @@ static sl_status apply_mapping(sl_rowsrc *src, const char *item, size_t len, sl_
         const char *names[SL_ROW_COUNT];
         for (int k = 0; k < SL_ROW_COUNT; k++)
             names[k] = specs[k].canonical;
-        const char *near = sl_text_nearest(q, names, SL_ROW_COUNT, 3);
-        char why[160];
-        snprintf(why, sizeof why, "%s%s%s%s",
+        char why[160], hint[96];
+        snprintf(why, sizeof why, "%s%s",
                  m == NAME_BAD_UNIT ? "has a unit not in the table" : "names no quantity",
-                 near ? " (did you mean '" : "", near ? near : "", near ? "'?)" : "");
+                 sl_text_did_you_mean(hint, sizeof hint, q, names, SL_ROW_COUNT));
         return mapping_error(diag, item, qlen, why);
     }
     long column = find_column(src, eq + 1, clen);
@@ -379,31 +378,25 @@ const char *sl_rowsrc_unused(const sl_rowsrc *src, size_t i)
 
 /* ---- what the caller needs ---- */
 
-/* An unmapped column whose name is near the quantity's names, or NULL. */
+/* An unmapped column that is the quantity without its unit, else the one
+ * sl_text_suggest finds nearest to the canonical name, or NULL. */
 static const char *suggest(const sl_rowsrc *src, sl_row_quantity q)
 {
-    const char *best = NULL;
-    size_t best_d = 3;
-    for (size_t i = 0; i < src->n_columns; i++) {
+    const char *names[64];
+    size_t n = 0;
+    for (size_t i = 0; i < src->n_columns && n < 64; i++) {
         if (src->quantity_of[i] >= 0)
             continue;
+        const char *column = sl_csv_column_name(src->csv, i);
         char name[NAME_MAX_BYTES + 1];
-        snprintf(name, sizeof name, "%s", sl_csv_column_name(src->csv, i));
+        snprintf(name, sizeof name, "%s", column);
         for (char *p = name; *p; p++)
             *p = (char)lower((unsigned char)*p);
-        char cand[NAME_MAX_BYTES + 1];
-        snprintf(cand, sizeof cand, "%s", specs[q].canonical);
-        for (char *p = cand; *p; p++)
-            *p = (char)lower((unsigned char)*p);
-        size_t d = sl_text_edit_distance(name, cand);
         if (specs[q].dim != NO_DIM && is_base(&specs[q], name, strlen(name)))
-            d = 0; /* the quantity without its unit */
-        if (d < best_d) {
-            best_d = d;
-            best = sl_csv_column_name(src->csv, i);
-        }
+            return column; /* the quantity without its unit */
+        names[n++] = column;
     }
-    return best;
+    return sl_text_suggest(specs[q].canonical, names, n);
 }
 
 static void note_columns(const sl_rowsrc *src, sl_diag *diag)
@@ -432,8 +425,8 @@ sl_status sl_rowsrc_require(sl_rowsrc *src, sl_row_set need, sl_row_set want, co
             continue;
         const char *near = suggest(src, (sl_row_quantity)q);
         char hint[200] = "";
-        if (near)
-            snprintf(hint, sizeof hint, "; did you mean \"%s\"? (--columns %s=%s)", near,
+        if (near) /* the did-you-mean of sl_text_did_you_mean, and how to map it */
+            snprintf(hint, sizeof hint, " (did you mean '%s'?); map it with --columns %s=%s", near,
                      specs[q].canonical, near);
         sl_diag_add(diag, SL_SEV_ERROR, sl_csv_name(src->csv), sl_csv_line(src->csv), 0,
                     "missing column '%s' (%s)%s", specs[q].canonical, needs, hint);

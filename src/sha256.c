@@ -110,7 +110,7 @@ static void blocks_extensions(uint32_t h[8], const unsigned char *data, size_t n
     _mm_storeu_si128((__m128i *)&h[4], _mm_alignr_epi8(dchg, feba, 8));
 }
 
-int sha256_has_extensions(void)
+int sl__sha256_has_extensions(void)
 {
     unsigned a, b, c, d;
     if (!__get_cpuid(1, &a, &b, &c, &d) || !(c & (1u << 19)) || !(c & (1u << 9)))
@@ -120,7 +120,7 @@ int sha256_has_extensions(void)
     return (b >> 29) & 1; /* SHA */
 }
 #else
-int sha256_has_extensions(void) { return 0; }
+int sl__sha256_has_extensions(void) { return 0; }
 #endif
 
 static void compress(sha256_ctx *ctx, const unsigned char *data, size_t blocks)
@@ -134,7 +134,7 @@ static void compress(sha256_ctx *ctx, const unsigned char *data, size_t blocks)
     blocks_portable(ctx->h, data, blocks);
 }
 
-void sha256_init_portable(sha256_ctx *ctx)
+void sl__sha256_init_portable(sha256_ctx *ctx)
 {
     /* FIPS 180-4 section 5.3.3 */
     static const uint32_t h0[8] = { 0x6a09e667, 0xbb67ae85, 0x3c6ef372, 0xa54ff53a,
@@ -143,16 +143,16 @@ void sha256_init_portable(sha256_ctx *ctx)
     memcpy(ctx->h, h0, sizeof h0);
 }
 
-void sha256_init(sha256_ctx *ctx)
+void sl__sha256_init(sha256_ctx *ctx)
 {
     static int extensions = -1; /* benign race: every thread finds the same */
     if (extensions < 0)
-        extensions = sha256_has_extensions();
-    sha256_init_portable(ctx);
+        extensions = sl__sha256_has_extensions();
+    sl__sha256_init_portable(ctx);
     ctx->use_extensions = extensions;
 }
 
-void sha256_update(sha256_ctx *ctx, const void *data, size_t n)
+void sl__sha256_update(sha256_ctx *ctx, const void *data, size_t n)
 {
     const unsigned char *p = data;
     ctx->bytes += n;
@@ -176,7 +176,7 @@ void sha256_update(sha256_ctx *ctx, const void *data, size_t n)
     ctx->fill = n;
 }
 
-void sha256_final(sha256_ctx *ctx, unsigned char digest[32])
+void sl__sha256_final(sha256_ctx *ctx, unsigned char digest[32])
 {
     /* FIPS 180-4 section 5.1.1: a 1 bit, zeros, the length in bits */
     uint64_t bits = ctx->bytes * 8;
@@ -184,13 +184,13 @@ void sha256_final(sha256_ctx *ctx, unsigned char digest[32])
     size_t zeros = (ctx->fill < 56 ? 56 : 120) - ctx->fill;
     for (int i = 0; i < 8; i++)
         pad[zeros + i] = (unsigned char)(bits >> (56 - 8 * i));
-    sha256_update(ctx, pad, zeros + 8);
+    sl__sha256_update(ctx, pad, zeros + 8);
     for (int i = 0; i < 8; i++)
         for (int j = 0; j < 4; j++)
             digest[4 * i + j] = (unsigned char)(ctx->h[i] >> (24 - 8 * j));
 }
 
-void sha256_hex(const unsigned char digest[32], char hex[65])
+void sl__sha256_hex(const unsigned char digest[32], char hex[65])
 {
     static const char digits[] = "0123456789abcdef";
     for (int i = 0; i < 32; i++) {

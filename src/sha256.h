@@ -18,15 +18,15 @@ typedef struct {
     int use_extensions;         /* the x86 SHA instructions */
 } sha256_ctx;
 
-/* Start a digest; sha256_init_portable never uses the processor's SHA
+/* Start a digest; sl__sha256_init_portable never uses the processor's SHA
  * instructions (so the tests can check both ways). */
-void sha256_init(sha256_ctx *ctx);
-void sha256_init_portable(sha256_ctx *ctx);
-/* 1 when sha256_init uses the processor's SHA instructions. */
-int sha256_has_extensions(void);
-void sha256_update(sha256_ctx *ctx, const void *data, size_t n);
+void sl__sha256_init(sha256_ctx *ctx);
+void sl__sha256_init_portable(sha256_ctx *ctx);
+/* 1 when sl__sha256_init uses the processor's SHA instructions. */
+int sl__sha256_has_extensions(void);
+void sl__sha256_update(sha256_ctx *ctx, const void *data, size_t n);
 /* The digest, then its 64 lower-case hex digits and a NUL. */
-void sha256_final(sha256_ctx *ctx, unsigned char digest[32]);
-void sha256_hex(const unsigned char digest[32], char hex[65]);
+void sl__sha256_final(sha256_ctx *ctx, unsigned char digest[32]);
+void sl__sha256_hex(const unsigned char digest[32], char hex[65]);
 
 #endif

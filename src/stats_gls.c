@@ -40,7 +40,7 @@ static double reml_objective(reml *r, double a, double b)
     double logdet_v = 0.0;
     for (size_t i = 0; i < r->n; i++)
         r->d[i] = a + r->dev[i];
-    if (stats_gls_gram(r->g, &logdet_v, r->m, r->q, r->d, r->n, &r->loads, b, r->work) != 0)
+    if (sl__stats_gls_gram(r->g, &logdet_v, r->m, r->q, r->d, r->n, &r->loads, b, r->work) != 0)
         return INFINITY;
     gsl_matrix_view xx = gsl_matrix_submatrix(r->g, 0, 0, r->p, r->p);
     gsl_vector_view xy = gsl_matrix_subcolumn(r->g, r->p, 0, r->p);
@@ -144,7 +144,7 @@ static sl_status reml_init(reml *r, const sl_stats_wafer_data *in)
     r->d = malloc(r->n * sizeof *r->d);
     r->g = gsl_matrix_alloc(r->q, r->q);
     r->loads = (stats_loads){ in->load, in->n_loads, in->n_steps };
-    r->work = stats_gls_work_alloc(&r->loads, r->q);
+    r->work = sl__stats_gls_work_alloc(&r->loads, r->q);
     if (!r->m || !r->dev || !r->d || !r->g || (r->L && !r->work))
         return SL_ENOMEM;
     for (size_t i = 0; i < r->n; i++) {
@@ -160,7 +160,7 @@ static sl_status final_fit(sl_stats_wafer_fit *out, reml *r, double a, double b)
 {
     for (size_t i = 0; i < r->n; i++)
         r->d[i] = a + r->dev[i];
-    if (stats_gls_gram(r->g, NULL, r->m, r->q, r->d, r->n, &r->loads, b, r->work) != 0)
+    if (sl__stats_gls_gram(r->g, NULL, r->m, r->q, r->d, r->n, &r->loads, b, r->work) != 0)
         return SL_ENUM;
     gsl_matrix_view xx = gsl_matrix_submatrix(r->g, 0, 0, r->p, r->p);
     gsl_vector_view xy = gsl_matrix_subcolumn(r->g, r->p, 0, r->p);

@@ -23,13 +23,13 @@ typedef struct {
  * log det V = sum log d + L log s2b + log det B. work: a matrix of at least
  * L x (L + q) (may be NULL when there are no loads or s2b = 0).
  * Returns 0, or -1 when B is not positive definite. */
-int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, const double *d,
+int sl__stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, const double *d,
                    size_t n, const stats_loads *loads, double s2b, gsl_matrix *work);
 
-/* The work matrix stats_gls_gram needs for these loads and q columns:
+/* The work matrix sl__stats_gls_gram needs for these loads and q columns:
  * L x (1 + q) with one step, L x (L + q) otherwise; NULL without loads, and
  * on allocation failure or with more than SL_STATS_MAX_DENSE_LOADS loads
  * over several steps (check loads->n). */
-gsl_matrix *stats_gls_work_alloc(const stats_loads *loads, size_t q);
+gsl_matrix *sl__stats_gls_work_alloc(const stats_loads *loads, size_t q);
 
 #endif

@@ -95,7 +95,7 @@ double sl_stats_offplan_false_rate(double se, double df, double tolerance, doubl
 
 /* ---- generalised least squares ---- */
 
-gsl_matrix *stats_gls_work_alloc(const stats_loads *loads, size_t q)
+gsl_matrix *sl__stats_gls_work_alloc(const stats_loads *loads, size_t q)
 {
     /* the dense block of several steps grows as loads^2 (and its Cholesky as
      * loads^3): refused beyond SL_STATS_MAX_DENSE_LOADS */
@@ -215,7 +215,7 @@ static double subtract_dense(gsl_matrix *g, gsl_matrix *work, size_t L, size_t q
     return ld;
 }
 
-int stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, const double *d,
+int sl__stats_gls_gram(gsl_matrix *g, double *logdet, const double *m, size_t q, const double *d,
                    size_t n, const stats_loads *loads, double s2b, gsl_matrix *work)
 {
     double ld = 0.0;
@@ -270,14 +270,14 @@ sl_status sl_stats_gls_cov(double *cov, const sl_stats_gls_model *model)
     size_t p = model->n_coef, L = model->n_loads;
     stats_loads loads = { model->load, L, model->n_steps };
     gsl_matrix *g = gsl_matrix_alloc(p, p);
-    gsl_matrix *work = stats_gls_work_alloc(&loads, p);
+    gsl_matrix *work = sl__stats_gls_work_alloc(&loads, p);
     if (!g || (L && !work)) {
         gsl_matrix_free(g);
         gsl_matrix_free(work);
         return SL_ENOMEM;
     }
     sl_status st = SL_OK;
-    if (stats_gls_gram(g, NULL, model->x, p, model->var, model->n_obs, &loads, model->load_var,
+    if (sl__stats_gls_gram(g, NULL, model->x, p, model->var, model->n_obs, &loads, model->load_var,
                        work) != 0 ||
         gsl_linalg_cholesky_decomp1(g) != GSL_SUCCESS ||
         gsl_linalg_cholesky_invert(g) != GSL_SUCCESS)

@@ -18,12 +18,12 @@
 
 #include "store_internal.h"
 
-extern const char *const sl_schema_migrations[];
-extern const size_t sl_schema_migration_count;
+extern const char *const sl__schema_migrations[];
+extern const size_t sl__schema_migration_count;
 
 #define SL_BUSY_TIMEOUT_MS 30000
 
-int sl_store_schema_version(void) { return (int)sl_schema_migration_count; }
+int sl_store_schema_version(void) { return (int)sl__schema_migration_count; }
 
 int sl_store_is_server(const char *location) { return sl__db_is_url(location); }
 
@@ -96,7 +96,7 @@ static void describe_db_error(char *buf, size_t size, sl_store *store, const cha
         snprintf(buf, size, "cannot %s: %s", what, msg);
 }
 
-sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what)
+sl_status sl__store_db_error(sl_store *store, sl_diag *diag, const char *what)
 {
     char text[768];
     describe_db_error(text, sizeof text, store, what);
@@ -104,32 +104,32 @@ sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what)
     return SL_EDB;
 }
 
-sl_status sl_store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what)
+sl_status sl__store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what)
 {
     if (sl__db_exec(store->db, sql) != SL__DB_OK)
-        return sl_store_db_error(store, diag, what);
+        return sl__store_db_error(store, diag, what);
     return SL_OK;
 }
 
-sl_status sl_store_prepare(sl_store *store, sl__stmt **stmt, const char *sql, sl_diag *diag)
+sl_status sl__store_prepare(sl_store *store, sl__stmt **stmt, const char *sql, sl_diag *diag)
 {
-    return sl_store_prepare_flags(store, stmt, sql, 0, diag);
+    return sl__store_prepare_flags(store, stmt, sql, 0, diag);
 }
 
-sl_status sl_store_prepare_flags(sl_store *store, sl__stmt **stmt, const char *sql, int flags,
+sl_status sl__store_prepare_flags(sl_store *store, sl__stmt **stmt, const char *sql, int flags,
                                  sl_diag *diag)
 {
     if (sl__db_prepare(store->db, sql, flags, stmt) != SL__DB_OK)
-        return sl_store_db_error(store, diag, "prepare a query");
+        return sl__store_db_error(store, diag, "prepare a query");
     return SL_OK;
 }
 
-int sl_store_is_pg(const sl_store *store) { return sl__db_kind_of(store->db) == SL__DB_PG; }
+int sl__store_is_pg(const sl_store *store) { return sl__db_kind_of(store->db) == SL__DB_PG; }
 
 /* The time records are stamped with: now, or SOURCE_DATE_EPOCH (seconds
  * since 1970, the reproducible-builds convention) when it is set, so that
  * a test or a reproducible demo gets the same database twice. */
-void sl_store_now_utc(char out[32])
+void sl__store_now_utc(char out[32])
 {
     time_t now = time(NULL);
     const char *fixed = getenv("SOURCE_DATE_EPOCH");
@@ -159,23 +159,23 @@ static sl_status apply_migration(sl_store *store, size_t index, sl_diag *diag)
 {
     char pragma[64];
     snprintf(pragma, sizeof pragma, "PRAGMA user_version = %zu", index + 1);
-    sl_status st = sl_store_exec(store, "BEGIN IMMEDIATE", diag, "start a schema migration");
+    sl_status st = sl__store_exec(store, "BEGIN IMMEDIATE", diag, "start a schema migration");
     if (st == SL_OK)
-        st = sl_store_exec(store, sl_schema_migrations[index], diag, "migrate the schema");
+        st = sl__store_exec(store, sl__schema_migrations[index], diag, "migrate the schema");
     if (st == SL_OK)
-        st = sl_store_exec(store, pragma, diag, "record the schema version");
+        st = sl__store_exec(store, pragma, diag, "record the schema version");
     if (st == SL_OK)
-        st = sl_store_exec(store, "COMMIT", diag, "commit a schema migration");
+        st = sl__store_exec(store, "COMMIT", diag, "commit a schema migration");
     if (st != SL_OK)
         sl__db_exec(store->db, "ROLLBACK");
     return st;
 }
 
-sl_status sl_store_refuse_newer(sl_store *store, int version, sl_diag *diag)
+sl_status sl__store_refuse_newer(sl_store *store, int version, sl_diag *diag)
 {
     sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0,
                 "database schema version %d is newer than this splitlot (%zu); upgrade splitlot",
-                version, sl_schema_migration_count);
+                version, sl__schema_migration_count);
     return SL_EDB;
 }
 
@@ -183,10 +183,10 @@ static sl_status migrate(sl_store *store, sl_diag *diag)
 {
     int v = read_user_version(store);
     if (v < 0)
-        return sl_store_db_error(store, diag, "read the schema version");
-    if ((size_t)v > sl_schema_migration_count)
-        return sl_store_refuse_newer(store, v, diag);
-    for (size_t i = (size_t)v; i < sl_schema_migration_count; i++) {
+        return sl__store_db_error(store, diag, "read the schema version");
+    if ((size_t)v > sl__schema_migration_count)
+        return sl__store_refuse_newer(store, v, diag);
+    for (size_t i = (size_t)v; i < sl__schema_migration_count; i++) {
         sl_status st = apply_migration(store, i, diag);
         if (st != SL_OK)
             return st;
@@ -197,17 +197,17 @@ static sl_status migrate(sl_store *store, sl_diag *diag)
 static sl_status configure(sl_store *store, sl_diag *diag)
 {
     sl__db_sqlite_busy_timeout(store->db, SL_BUSY_TIMEOUT_MS);
-    sl_status st = sl_store_exec(store, "PRAGMA foreign_keys = ON", diag, "enable foreign keys");
+    sl_status st = sl__store_exec(store, "PRAGMA foreign_keys = ON", diag, "enable foreign keys");
     /* Every command streams through its rows (an import appends, the
      * analyses scan a lot once or twice): 1 MiB of page cache holds the
      * indexes' working pages, and the process stays the same size for a lot
      * of a thousand devices or of a million. */
     if (st == SL_OK)
-        st = sl_store_exec(store, "PRAGMA cache_size = -1024", diag, "set the page cache size");
+        st = sl__store_exec(store, "PRAGMA cache_size = -1024", diag, "set the page cache size");
     /* temporary tables (an import's staged runs, an analysis's scratch) in a
      * file whatever SQLite's build default, so they do not grow the process */
     if (st == SL_OK)
-        st = sl_store_exec(store, "PRAGMA temp_store = FILE", diag, "keep temporary tables in a file");
+        st = sl__store_exec(store, "PRAGMA temp_store = FILE", diag, "keep temporary tables in a file");
     if (st != SL_OK)
         return st;
     /* WAL needs a write the first time only; a read-only file keeps its mode.
@@ -215,11 +215,11 @@ static sl_status configure(sl_store *store, sl_diag *diag)
      * its own): a lot's rows and sweeps go out in a quarter of the writes,
      * and an import's closing checkpoint takes 15 ms instead of 50. */
     if (!sl__db_readonly(store->db)) {
-        st = sl_store_exec(store, "PRAGMA page_size = 16384", diag, "set the page size");
+        st = sl__store_exec(store, "PRAGMA page_size = 16384", diag, "set the page size");
         if (st == SL_OK)
-            st = sl_store_exec(store, "PRAGMA journal_mode = WAL", diag, "switch to WAL");
+            st = sl__store_exec(store, "PRAGMA journal_mode = WAL", diag, "switch to WAL");
         if (st == SL_OK)
-            st = sl_store_exec(store, "PRAGMA synchronous = FULL", diag, "set synchronous");
+            st = sl__store_exec(store, "PRAGMA synchronous = FULL", diag, "set synchronous");
     }
     return st;
 }
@@ -239,13 +239,13 @@ sl_status sl_store_open(sl_store **out, const char *path, sl_diag *diag)
     sl_status st = SL_OK;
     if (rc != SL__DB_OK) {
         if (store->db && sl__db_kind_of(store->db) == SL__DB_PG)
-            sl_store_db_error(store, diag, "connect to the database");
+            sl__store_db_error(store, diag, "connect to the database");
         else
             sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0, "cannot open database: %s",
                         store->db ? sl__db_errmsg(store->db) : "out of memory");
         st = SL_EDB;
-    } else if (sl_store_is_pg(store)) {
-        st = sl_store_pg_setup(store, diag);
+    } else if (sl__store_is_pg(store)) {
+        st = sl__store_pg_setup(store, diag);
     } else {
         st = configure(store, diag);
         if (st == SL_OK)
@@ -278,13 +278,13 @@ void sl_store_close(sl_store *store)
 sl_status sl_store_begin(sl_store *store, sl_diag *diag)
 {
     store->n_tx_runs = 0;
-    return sl_store_exec(store, sl_store_is_pg(store) ? "BEGIN" : "BEGIN IMMEDIATE", diag,
+    return sl__store_exec(store, sl__store_is_pg(store) ? "BEGIN" : "BEGIN IMMEDIATE", diag,
                          "start a transaction");
 }
 
 sl_status sl_store_commit(sl_store *store, sl_diag *diag)
 {
-    sl_status st = sl_store_exec(store, "COMMIT", diag, "commit");
+    sl_status st = sl__store_exec(store, "COMMIT", diag, "commit");
     if (st != SL_OK)
         sl_store_rollback(store);
     return st;
@@ -302,7 +302,7 @@ void sl_store_rollback(sl_store *store)
 
 /* ---- binding helpers ---- */
 
-void sl_store_bind_real_or_null(sl__stmt *st, int index, double v)
+void sl__store_bind_real_or_null(sl__stmt *st, int index, double v)
 {
     if (isfinite(v))
         sl__db_bind_double(st, index, v);
@@ -310,33 +310,33 @@ void sl_store_bind_real_or_null(sl__stmt *st, int index, double v)
         sl__db_bind_null(st, index);
 }
 
-double sl_store_column_real_or_nan(sl__stmt *st, int col)
+double sl__store_column_real_or_nan(sl__stmt *st, int col)
 {
     return sl__db_column_is_null(st, col) ? NAN : sl__db_column_double(st, col);
 }
 
 /* Run a prepared statement to completion (no rows expected) and reset it. */
-sl_status sl_store_step_done(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what)
+sl_status sl__store_step_done(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what)
 {
     int rc = sl__db_step(st);
     sl__db_reset(st);
     if (rc != SL__DB_DONE)
-        return sl_store_db_error(store, diag, what);
+        return sl__store_db_error(store, diag, what);
     return SL_OK;
 }
 
-sl_status sl_store_step_id(sl_store *store, sl__stmt *st, long *id, sl_diag *diag,
+sl_status sl__store_step_id(sl_store *store, sl__stmt *st, long *id, sl_diag *diag,
                            const char *what)
 {
     int rc = sl__db_step(st);
     *id = rc == SL__DB_ROW ? (long)sl__db_column_int64(st, 0) : 0;
     sl__db_reset(st);
-    return rc == SL__DB_ROW ? SL_OK : sl_store_db_error(store, diag, what);
+    return rc == SL__DB_ROW ? SL_OK : sl__store_db_error(store, diag, what);
 }
 
-sl_status sl_store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what)
+sl_status sl__store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what)
 {
-    sl_status s = sl_store_step_done(store, st, diag, what);
+    sl_status s = sl__store_step_done(store, st, diag, what);
     sl__db_finalize(st);
     return s;
 }
@@ -346,7 +346,7 @@ sl_status sl_store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const
 static sl_status lot_id_of(sl_store *store, long *lot_id, const char *lot, int create, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, "SELECT id FROM lot WHERE name = ?1", diag);
+    sl_status s = sl__store_prepare(store, &st, "SELECT id FROM lot WHERE name = ?1", diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_text(st, 1, lot, -1);
@@ -356,17 +356,17 @@ static sl_status lot_id_of(sl_store *store, long *lot_id, const char *lot, int c
     if (rc == SL__DB_ROW)
         return SL_OK;
     if (rc != SL__DB_DONE)
-        return sl_store_db_error(store, diag, "look up the lot");
+        return sl__store_db_error(store, diag, "look up the lot");
     if (!create)
         return SL_ENOTFOUND;
     char now[32];
-    sl_store_now_utc(now);
-    s = sl_store_prepare(store, &st, "INSERT INTO lot (name, created_utc) VALUES (?1, ?2) RETURNING id", diag);
+    sl__store_now_utc(now);
+    s = sl__store_prepare(store, &st, "INSERT INTO lot (name, created_utc) VALUES (?1, ?2) RETURNING id", diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_text(st, 1, lot, -1);
     sl__db_bind_text(st, 2, now, -1);
-    s = sl_store_step_id(store, st, lot_id, diag, "add the lot");
+    s = sl__store_step_id(store, st, lot_id, diag, "add the lot");
     sl__db_finalize(st);
     return s;
 }
@@ -376,7 +376,7 @@ static sl_status newest_revision(sl_store *store, int *revision, char hash[17], 
                                  sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT revision, plan_hash FROM plan_revision WHERE lot_id = ?1 "
         "ORDER BY revision DESC LIMIT 1", diag);
     if (s != SL_OK)
@@ -391,27 +391,27 @@ static sl_status newest_revision(sl_store *store, int *revision, char hash[17], 
     }
     sl__db_finalize(st);
     return (rc == SL__DB_ROW || rc == SL__DB_DONE) ? SL_OK
-                                                  : sl_store_db_error(store, diag, "read revisions");
+                                                  : sl__store_db_error(store, diag, "read revisions");
 }
 
 static sl_status insert_revision(sl_store *store, long *revision_id, long lot_id, int revision,
                                  const char *hash, const sl_plan *plan, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "INSERT INTO plan_revision (lot_id, revision, plan_hash, plan_text, plan_name, created_utc) "
         "VALUES (?1, ?2, ?3, ?4, ?5, ?6) RETURNING id", diag);
     if (s != SL_OK)
         return s;
     char now[32];
-    sl_store_now_utc(now);
+    sl__store_now_utc(now);
     sl__db_bind_int64(st, 1, lot_id);
     sl__db_bind_int64(st, 2, revision);
     sl__db_bind_text(st, 3, hash, -1);
     sl__db_bind_text(st, 4, plan->text, (int)plan->text_len);
     sl__db_bind_text(st, 5, plan->path ? plan->path : "", -1);
     sl__db_bind_text(st, 6, now, -1);
-    s = sl_store_step_id(store, st, revision_id, diag, "store the plan revision");
+    s = sl__store_step_id(store, st, revision_id, diag, "store the plan revision");
     sl__db_finalize(st);
     return s;
 }
@@ -424,18 +424,18 @@ static sl_status revive_revision(sl_store *store, int *revived, long lot_id, int
                                  const char *hash, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "UPDATE plan_revision SET revision = ?1, created_utc = ?2 "
         "WHERE lot_id = ?3 AND plan_hash = ?4", diag);
     if (s != SL_OK)
         return s;
     char now[32];
-    sl_store_now_utc(now);
+    sl__store_now_utc(now);
     sl__db_bind_int64(st, 1, revision);
     sl__db_bind_text(st, 2, now, -1);
     sl__db_bind_int64(st, 3, lot_id);
     sl__db_bind_text(st, 4, hash, -1);
-    s = sl_store_step_once(store, st, diag, "store the plan revision");
+    s = sl__store_step_once(store, st, diag, "store the plan revision");
     *revived = s == SL_OK && sl__db_changes(store->db) == 1;
     return s;
 }
@@ -464,7 +464,7 @@ static sl_status insert_splits(sl_store *store, long *split_ids, long revision_i
                                const sl_plan *plan, const sl_layout *layout, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "INSERT INTO split (revision_id, split_index, name, dielectric, treatments, "
         "planned_doping_per_cm2, planned_doping_sigma_per_cm2, devices_needed, devices_available, "
         "levels) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10) RETURNING id", diag);
@@ -486,7 +486,7 @@ static sl_status insert_splits(sl_store *store, long *split_ids, long revision_i
          * replaces the device count), kept as 0 until a migration drops it */
         sl__db_bind_int64(st, 8, 0);
         sl__db_bind_double(st, 9, layout->splits[i].devices_available);
-        s = sl_store_step_id(store, st, &split_ids[i], diag, "store a split");
+        s = sl__store_step_id(store, st, &split_ids[i], diag, "store a split");
     }
     sl__db_finalize(st);
     return s;
@@ -496,7 +496,7 @@ static sl_status insert_wafers(sl_store *store, const long *split_ids, long revi
                                const sl_layout *layout, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "INSERT INTO wafer (revision_id, name, split_id, process_order) VALUES (?1, ?2, ?3, ?4)",
         diag);
     for (size_t i = 0; s == SL_OK && i < layout->n_wafers; i++) {
@@ -510,7 +510,7 @@ static sl_status insert_wafers(sl_store *store, const long *split_ids, long revi
             sl__db_bind_null(st, 3);
             sl__db_bind_null(st, 4);
         }
-        s = sl_store_step_done(store, st, diag, "store a wafer");
+        s = sl__store_step_done(store, st, diag, "store a wafer");
     }
     sl__db_finalize(st);
     return s;
@@ -523,7 +523,7 @@ static sl_status insert_wafer_loads(sl_store *store, long revision_id, const sl_
     if (plan->n_batches == 0)
         return SL_OK;
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "INSERT INTO wafer_load (wafer_id, step, load) "
         "SELECT id, ?3, ?4 FROM wafer WHERE revision_id = ?1 AND name = ?2", diag);
     for (size_t i = 0; s == SL_OK && i < layout->n_wafers; i++)
@@ -534,7 +534,7 @@ static sl_status insert_wafer_loads(sl_store *store, long revision_id, const sl_
             sl__db_bind_text(st, 2, layout->wafers[i].wafer, -1);
             sl__db_bind_text(st, 3, plan->batches[b].step, -1);
             sl__db_bind_int64(st, 4, (long long)layout->wafers[i].load[b]);
-            s = sl_store_step_done(store, st, diag, "store a wafer's load");
+            s = sl__store_step_done(store, st, diag, "store a wafer's load");
         }
     sl__db_finalize(st);
     return s;
@@ -560,12 +560,12 @@ static sl_status insert_predictions(sl_store *store, const long *split_ids,
                                     const sl_prediction *pred, size_t n, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "INSERT INTO prediction VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, "
         "?13, ?14, ?15, ?16, ?17, ?18, ?19)", diag);
     for (size_t i = 0; s == SL_OK && i < n; i++) {
         bind_prediction(st, split_ids[pred[i].split], &pred[i]);
-        s = sl_store_step_done(store, st, diag, "store a prediction");
+        s = sl__store_step_done(store, st, diag, "store a prediction");
     }
     sl__db_finalize(st);
     return s;
@@ -582,12 +582,12 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
     *created = 0;
     sl_status s = lot_id_of(store, &lot_id, plan->lot, 1, diag);
     if (s == SL_OK)
-        s = sl_store_lock_lot(store, lot_id, diag);
+        s = sl__store_lock_lot(store, lot_id, diag);
     if (s == SL_OK)
         s = newest_revision(store, revision, newest_hash, lot_id, diag);
     if (s != SL_OK || strcmp(hash, newest_hash) == 0)
         return s;
-    s = sl_store_check_measured_wafers(store, lot_id, plan, layout, diag);
+    s = sl__store_check_measured_wafers(store, lot_id, plan, layout, diag);
     if (s != SL_OK)
         return s;
     (*revision)++;
@@ -614,24 +614,24 @@ sl_status sl_store_save_plan(sl_store *store, int *revision, int *created,
     return s;
 }
 
-char *sl_store_column_strdup(sl__stmt *st, int col)
+char *sl__store_column_strdup(sl__stmt *st, int col)
 {
     const char *t = sl__db_column_text(st, col);
     return strdup(t ? (const char *)t : "");
 }
 
-sl_status sl_store_count_query(sl_store *store, long *count, const char *sql, long id,
+sl_status sl__store_count_query(sl_store *store, long *count, const char *sql, long id,
                                sl_diag *diag, const char *what)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    sl_status s = sl__store_prepare(store, &st, sql, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, id);
     if (sl__db_step(st) == SL__DB_ROW)
         *count = (long)sl__db_column_int64(st, 0);
     else
-        s = sl_store_db_error(store, diag, what);
+        s = sl__store_db_error(store, diag, what);
     sl__db_finalize(st);
     return s;
 }
@@ -662,7 +662,7 @@ sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
 {
     memset(out, 0, sizeof *out);
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT l.id, r.id, r.revision, l.name, r.plan_text, r.plan_name, r.created_utc "
         "FROM lot l JOIN plan_revision r ON r.lot_id = l.id WHERE l.name = ?1 "
         "ORDER BY r.revision DESC LIMIT 1", diag);
@@ -674,16 +674,16 @@ sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
         out->lot_id = (long)sl__db_column_int64(st, 0);
         out->revision_id = (long)sl__db_column_int64(st, 1);
         out->revision = sl__db_column_int64(st, 2);
-        out->lot = sl_store_column_strdup(st, 3);
-        out->plan_text = sl_store_column_strdup(st, 4);
-        out->plan_name = sl_store_column_strdup(st, 5);
-        out->created_utc = sl_store_column_strdup(st, 6);
+        out->lot = sl__store_column_strdup(st, 3);
+        out->plan_text = sl__store_column_strdup(st, 4);
+        out->plan_name = sl__store_column_strdup(st, 5);
+        out->created_utc = sl__store_column_strdup(st, 6);
     }
     sl__db_finalize(st);
     if (rc == SL__DB_ROW)
         return (out->lot && out->plan_text && out->plan_name && out->created_utc) ? SL_OK : SL_ENOMEM;
     if (rc != SL__DB_DONE)
-        return sl_store_db_error(store, diag, "look up the lot");
+        return sl__store_db_error(store, diag, "look up the lot");
     return list_known_lots(store, lot, diag);
 }
 
@@ -692,7 +692,7 @@ sl_status sl_store_load_lot_revision(sl_store *store, sl_store_lot *out, const s
 {
     memset(out, 0, sizeof *out);
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT revision, plan_text, plan_name, created_utc FROM plan_revision "
         "WHERE id = ?1 AND lot_id = ?2", diag);
     if (s != SL_OK)
@@ -705,16 +705,16 @@ sl_status sl_store_load_lot_revision(sl_store *store, sl_store_lot *out, const s
         out->revision_id = revision_id;
         out->revision = sl__db_column_int64(st, 0);
         out->lot = strdup(lot->lot);
-        out->plan_text = sl_store_column_strdup(st, 1);
-        out->plan_name = sl_store_column_strdup(st, 2);
-        out->created_utc = sl_store_column_strdup(st, 3);
+        out->plan_text = sl__store_column_strdup(st, 1);
+        out->plan_name = sl__store_column_strdup(st, 2);
+        out->created_utc = sl__store_column_strdup(st, 3);
         s = out->lot && out->plan_text && out->plan_name && out->created_utc ? SL_OK : SL_ENOMEM;
     } else if (rc == SL__DB_DONE) {
         sl_diag_error(diag, "lot '%s': plan revision %ld is not in the database", lot->lot,
                       revision_id);
         s = SL_EDB;
     } else {
-        s = sl_store_db_error(store, diag, "read a stored plan");
+        s = sl__store_db_error(store, diag, "read a stored plan");
     }
     sl__db_finalize(st);
     if (s != SL_OK)
@@ -736,7 +736,7 @@ sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_d
     *names = NULL;
     *count = 0;
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, "SELECT name FROM lot ORDER BY id", diag);
+    sl_status s = sl__store_prepare(store, &st, "SELECT name FROM lot ORDER BY id", diag);
     if (s != SL_OK)
         return s;
     size_t cap = 0;
@@ -751,14 +751,14 @@ sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_d
             }
             *names = grown;
         }
-        if (!((*names)[*count] = sl_store_column_strdup(st, 0))) {
+        if (!((*names)[*count] = sl__store_column_strdup(st, 0))) {
             s = SL_ENOMEM;
             break;
         }
         (*count)++;
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "list the lots");
+        s = sl__store_db_error(store, diag, "list the lots");
     sl__db_finalize(st);
     return s;
 }

@@ -25,8 +25,8 @@ static void put(digest *d, const char *kind, const void *bytes, size_t n)
 {
     char head[32];
     int k = snprintf(head, sizeof head, "%s%zu:", kind, n);
-    sha256_update(&d->sha, head, (size_t)k);
-    sha256_update(&d->sha, bytes, n);
+    sl__sha256_update(&d->sha, head, (size_t)k);
+    sl__sha256_update(&d->sha, bytes, n);
 }
 
 static long run_place(const digest *d, long run_id)
@@ -65,7 +65,7 @@ static sl_status hash_query(sl_store *store, digest *d, const char *sql, const c
                             long id, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare_flags(store, &st, sql, SL__DB_STREAM, diag);
+    sl_status s = sl__store_prepare_flags(store, &st, sql, SL__DB_STREAM, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, id);
@@ -77,7 +77,7 @@ static sl_status hash_query(sl_store *store, digest *d, const char *sql, const c
         rows++;
     }
     if (rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "read the lot for its checksum");
+        s = sl__store_db_error(store, diag, "read the lot for its checksum");
     sl__db_finalize(st);
     char count[32];
     put(d, "#", count, (size_t)snprintf(count, sizeof count, "%zu", rows));
@@ -156,7 +156,7 @@ static sl_status lot_runs(sl_store *store, long **ids, size_t *n, long lot_id, s
 static sl_status hash_revisions(sl_store *store, digest *d, long lot_id, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, revisions_sql, diag);
+    sl_status s = sl__store_prepare(store, &st, revisions_sql, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, lot_id);
@@ -178,7 +178,7 @@ static sl_status hash_revisions(sl_store *store, digest *d, long lot_id, sl_diag
             ids[n++] = (long)sl__db_column_int64(st, 0);
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "read the lot for its checksum");
+        s = sl__store_db_error(store, diag, "read the lot for its checksum");
     sl__db_finalize(st);
     for (size_t i = 0; s == SL_OK && i < n; i++) {
         s = hash_query(store, d, splits_sql, split_kinds, ids[i], diag);
@@ -215,9 +215,9 @@ static sl_status hash_lot(sl_store *store, digest *d, long lot_id, const char *n
 sl_status sl_store_checksum(sl_store *store, char hex[65], const char *lot, sl_diag *diag)
 {
     digest d = { 0 };
-    sha256_init(&d.sha);
+    sl__sha256_init(&d.sha);
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, lot
+    sl_status s = sl__store_prepare(store, &st, lot
         ? "SELECT id, name, created_utc FROM lot WHERE name = ?1"
         : "SELECT id, name, created_utc FROM lot ORDER BY name", diag);
     if (s != SL_OK)
@@ -240,12 +240,12 @@ sl_status sl_store_checksum(sl_store *store, char hex[65], const char *lot, sl_d
         }
         memset(&lots[n], 0, sizeof lots[n]);
         lots[n].lot_id = (long)sl__db_column_int64(st, 0);
-        lots[n].lot = sl_store_column_strdup(st, 1);
-        lots[n].created_utc = sl_store_column_strdup(st, 2);
+        lots[n].lot = sl__store_column_strdup(st, 1);
+        lots[n].created_utc = sl__store_column_strdup(st, 2);
         n++;
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "list the lots");
+        s = sl__store_db_error(store, diag, "list the lots");
     sl__db_finalize(st);
     if (s == SL_OK && lot && n == 0) {
         sl_diag_error(diag, "lot '%s' is not in %s", lot, store->path);
@@ -258,8 +258,8 @@ sl_status sl_store_checksum(sl_store *store, char hex[65], const char *lot, sl_d
     free(lots);
     free(d.run_ids);
     unsigned char digest_bytes[32];
-    sha256_final(&d.sha, digest_bytes);
-    sha256_hex(digest_bytes, hex);
+    sl__sha256_final(&d.sha, digest_bytes);
+    sl__sha256_hex(digest_bytes, hex);
     return s;
 }
 
@@ -359,9 +359,9 @@ static sl_status copy_rows(copy_ctx *c, const char *select_sql, long id, const c
                            const char *kinds, id_map *ids)
 {
     sl__stmt *row = NULL, *ins = NULL;
-    sl_status s = sl_store_prepare_flags(c->src, &row, select_sql, SL__DB_STREAM, c->diag);
+    sl_status s = sl__store_prepare_flags(c->src, &row, select_sql, SL__DB_STREAM, c->diag);
     if (s == SL_OK)
-        s = sl_store_prepare(c->dst, &ins, insert_sql, c->diag);
+        s = sl__store_prepare(c->dst, &ins, insert_sql, c->diag);
     if (s == SL_OK)
         sl__db_bind_int64(row, 1, id);
     int rc = SL__DB_DONE;
@@ -370,15 +370,15 @@ static sl_status copy_rows(copy_ctx *c, const char *select_sql, long id, const c
             bind_copied(c, ins, k, row, k, kinds[k]);
         if (ids) {
             long new_id = 0;
-            s = sl_store_step_id(c->dst, ins, &new_id, c->diag, "copy a row");
+            s = sl__store_step_id(c->dst, ins, &new_id, c->diag, "copy a row");
             if (s == SL_OK && !map_add(ids, (long)sl__db_column_int64(row, 0), new_id))
                 s = SL_ENOMEM;
         } else {
-            s = sl_store_step_done(c->dst, ins, c->diag, "copy a row");
+            s = sl__store_step_done(c->dst, ins, c->diag, "copy a row");
         }
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(c->src, c->diag, "read the lot to copy");
+        s = sl__store_db_error(c->src, c->diag, "read the lot to copy");
     sl__db_finalize(row);
     sl__db_finalize(ins);
     return s;
@@ -473,7 +473,7 @@ static sl_status copy_measurements(copy_ctx *c)
 static sl_status source_lot(copy_ctx *c, const char *lot, char created[64])
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(c->src, &st, "SELECT id, created_utc FROM lot WHERE name = ?1",
+    sl_status s = sl__store_prepare(c->src, &st, "SELECT id, created_utc FROM lot WHERE name = ?1",
                                    c->diag);
     if (s != SL_OK)
         return s;
@@ -487,7 +487,7 @@ static sl_status source_lot(copy_ctx *c, const char *lot, char created[64])
     if (rc == SL__DB_ROW)
         return SL_OK;
     if (rc != SL__DB_DONE)
-        return sl_store_db_error(c->src, c->diag, "look up the lot");
+        return sl__store_db_error(c->src, c->diag, "look up the lot");
     sl_diag_error(c->diag, "lot '%s' is not in %s", lot, c->src->path);
     return SL_ENOTFOUND;
 }
@@ -496,7 +496,7 @@ static sl_status source_lot(copy_ctx *c, const char *lot, char created[64])
 static sl_status destination_lot(copy_ctx *c, const char *lot, const char *created)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(c->dst, &st,
+    sl_status s = sl__store_prepare(c->dst, &st,
         "INSERT INTO lot (name, created_utc) VALUES (?1, ?2) ON CONFLICT DO NOTHING RETURNING id",
         c->diag);
     if (s != SL_OK)
@@ -511,8 +511,8 @@ static sl_status destination_lot(copy_ctx *c, const char *lot, const char *creat
         return SL_EINPUT;
     }
     if (rc != SL__DB_ROW)
-        return sl_store_db_error(c->dst, c->diag, "copy the lot");
-    return sl_store_lock_lot(c->dst, c->dst_lot, c->diag);
+        return sl__store_db_error(c->dst, c->diag, "copy the lot");
+    return sl__store_lock_lot(c->dst, c->dst_lot, c->diag);
 }
 
 sl_status sl_store_copy_lot(sl_store *dst, sl_store *src, const char *lot, sl_diag *diag)
@@ -536,7 +536,7 @@ sl_status sl_store_copy_lot(sl_store *dst, sl_store *src, const char *lot, sl_di
 
 sl_status sl_store_begin_read(sl_store *store, sl_diag *diag)
 {
-    return sl_store_exec(store, sl_store_is_pg(store) ? "BEGIN ISOLATION LEVEL REPEATABLE READ"
+    return sl__store_exec(store, sl__store_is_pg(store) ? "BEGIN ISOLATION LEVEL REPEATABLE READ"
                                                       : "BEGIN",
                          diag, "start reading the database");
 }

@@ -54,15 +54,15 @@ static void bind_extraction(sl__stmt *st, int first, const sl_store_device *d)
                         d->mobility_sigma_cm2_per_Vs, d->n0_per_cm2, d->n0_sigma_per_cm2,
                         d->r_contact_ohm, d->r_contact_sigma_ohm, d->rel_rms, d->r_squared };
     for (int i = 0; i < 10; i++)
-        sl_store_bind_real_or_null(st, first + 2 + i, values[i]);
+        sl__store_bind_real_or_null(st, first + 2 + i, values[i]);
     if (d->vg_V)
         sl__db_bind_int64(st, first + 12, (long long)d->n_points);
     else
         sl__db_bind_null(st, first + 12);
-    sl_store_bind_real_or_null(st, first + 13, d->electron_mobility_cm2_per_Vs);
-    sl_store_bind_real_or_null(st, first + 14, d->hole_mobility_cm2_per_Vs);
+    sl__store_bind_real_or_null(st, first + 13, d->electron_mobility_cm2_per_Vs);
+    sl__store_bind_real_or_null(st, first + 14, d->hole_mobility_cm2_per_Vs);
     bind_count_or_null(st, first + 15, d->n_spikes);
-    sl_store_bind_real_or_null(st, first + 16, d->hysteresis_V);
+    sl__store_bind_real_or_null(st, first + 16, d->hysteresis_V);
     bind_count_or_null(st, first + 17, d->points_dropped);
 }
 
@@ -76,19 +76,19 @@ static sl_status step_returning(sl_store *store, sl__stmt *st, int *added, long 
     if (rc == SL__DB_ROW)
         *id = (long)sl__db_column_int64(st, 0);
     sl__db_reset(st);
-    return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK : sl_store_db_error(store, diag, what);
+    return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK : sl__store_db_error(store, diag, what);
 }
 
 /* A cached statement of the import path, prepared on first use. */
 static sl_status cached(sl_store *store, sl__stmt **st, const char *sql, sl_diag *diag)
 {
-    return *st ? SL_OK : sl_store_prepare(store, st, sql, diag);
+    return *st ? SL_OK : sl__store_prepare(store, st, sql, diag);
 }
 
 sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag)
 {
     long devices = 0;
-    sl_status s = sl_store_lock_lot(store, lot_id, diag);
+    sl_status s = sl__store_lock_lot(store, lot_id, diag);
     if (s == SL_OK)
         s = sl_store_count_devices(store, &devices, lot_id, diag);
     store->new_lot_id = s == SL_OK && devices == 0 ? lot_id : 0;
@@ -117,7 +117,7 @@ static sl_status find_device(sl_store *store, sl_store_insert *out, long lot_id,
     sl__db_reset(st);
     if (rc == SL__DB_ROW)
         return SL_OK;
-    return rc == SL__DB_DONE ? SL_ENOTFOUND : sl_store_db_error(store, diag, "look up a device");
+    return rc == SL__DB_DONE ? SL_ENOTFOUND : sl__store_db_error(store, diag, "look up a device");
 }
 
 /* Insert the device; *added 0 when the lot has it already (the unique key
@@ -140,8 +140,8 @@ static sl_status add_device(sl_store *store, int *added, long lot_id, const sl_s
     sl__db_bind_int64(st, 4, d->die_x);
     sl__db_bind_int64(st, 5, d->die_y);
     bind_text_or_null(st, 6, d->device_type);
-    sl_store_bind_real_or_null(st, 7, d->channel_length_um);
-    sl_store_bind_real_or_null(st, 8, d->channel_width_um);
+    sl__store_bind_real_or_null(st, 7, d->channel_length_um);
+    sl__store_bind_real_or_null(st, 8, d->channel_width_um);
     return step_returning(store, st, added, device_id, diag, "store a device");
 }
 
@@ -149,7 +149,7 @@ static sl_status add_device(sl_store *store, int *added, long lot_id, const sl_s
 static sl_status first_measurement(sl_store *store, sl_store_insert *out, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT run_id, coalesce(source_line, 0) FROM measurement WHERE device_id = ?1 "
         "ORDER BY run_id LIMIT 1", diag);
     if (s != SL_OK)
@@ -162,7 +162,7 @@ static sl_status first_measurement(sl_store *store, sl_store_insert *out, sl_dia
     }
     sl__db_finalize(st);
     return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK
-                                                 : sl_store_db_error(store, diag, "look up a device");
+                                                 : sl__store_db_error(store, diag, "look up a device");
 }
 
 /* The measurement the run has of the device already. */
@@ -170,7 +170,7 @@ static sl_status measurement_in_run(sl_store *store, sl_store_insert *out, long 
                                     sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT id, coalesce(source_line, 0) FROM measurement WHERE run_id = ?1 AND device_id = ?2",
         diag);
     if (s != SL_OK)
@@ -185,8 +185,8 @@ static sl_status measurement_in_run(sl_store *store, sl_store_insert *out, long 
     sl__db_finalize(st);
     if (rc == SL__DB_ROW)
         return SL_OK;
-    return rc == SL__DB_DONE ? sl_store_db_error(store, diag, "find a device's measurement")
-                             : sl_store_db_error(store, diag, "look up a device's measurement");
+    return rc == SL__DB_DONE ? sl__store_db_error(store, diag, "find a device's measurement")
+                             : sl__store_db_error(store, diag, "look up a device's measurement");
 }
 
 /* Insert the measurement row; *added 0 when the run has the device already. */
@@ -223,7 +223,7 @@ static sl_status resolve_device(sl_store *store, sl_store_insert *out, long lot_
     if (s == SL_ENOTFOUND) {
         s = add_device(store, &added, lot_id, d, &out->device_id, diag);
         if (s == SL_OK && !added)
-            s = sl_store_db_error(store, diag, "store a device");
+            s = sl__store_db_error(store, diag, "store a device");
         return s;
     }
     if (s == SL_OK && (out->die_x != d->die_x || out->die_y != d->die_y)) {
@@ -263,8 +263,8 @@ static sl_status add_new_device_pg(sl_store *store, int *added, sl_store_insert 
     sl__db_bind_int64(st, 4, d->die_x);
     sl__db_bind_int64(st, 5, d->die_y);
     bind_text_or_null(st, 6, d->device_type);
-    sl_store_bind_real_or_null(st, 7, d->channel_length_um);
-    sl_store_bind_real_or_null(st, 8, d->channel_width_um);
+    sl__store_bind_real_or_null(st, 7, d->channel_length_um);
+    sl__store_bind_real_or_null(st, 8, d->channel_width_um);
     sl__db_bind_int64(st, 9, run_id);
     sl__db_bind_text(st, 10, d->source, -1);
     bind_count_or_null(st, 11, d->source_line > 0 ? d->source_line : -1);
@@ -272,7 +272,7 @@ static sl_status add_new_device_pg(sl_store *store, int *added, sl_store_insert 
     unsigned char *blob = NULL;
     size_t bytes = 0;
     if (d->vg_V && d->n_points > 0 &&
-        !(blob = sl_store_pack_sweep(d->vg_V, d->r_ohm, d->n_points, &bytes)))
+        !(blob = sl__store_pack_sweep(d->vg_V, d->r_ohm, d->n_points, &bytes)))
         return SL_ENOMEM;
     sl__db_bind_int64(st, 30, (long long)d->n_points);
     if (blob)
@@ -288,7 +288,7 @@ static sl_status add_new_device_pg(sl_store *store, int *added, sl_store_insert 
     }
     sl__db_reset(st);
     return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK
-                                                 : sl_store_db_error(store, diag, "store a device");
+                                                 : sl__store_db_error(store, diag, "store a device");
 }
 
 sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, long lot_id,
@@ -296,7 +296,7 @@ sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, lon
 {
     memset(out, 0, sizeof *out);
     long new_lot_id = store->new_lot_id;
-    if (sl_store_is_pg(store) && lot_id == new_lot_id) {
+    if (sl__store_is_pg(store) && lot_id == new_lot_id) {
         int added = 0;
         sl_status s = add_new_device_pg(store, &added, out, lot_id, run_id, d, diag);
         if (s != SL_OK || added)
@@ -317,28 +317,28 @@ sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, lon
     }
     if (!d->vg_V || d->n_points == 0)
         return SL_OK;
-    return sl_store_insert_sweep(store, out->measurement_id, d, diag);
+    return sl__store_insert_sweep(store, out->measurement_id, d, diag);
 }
 
 sl_status sl_store_update_measurement(sl_store *store, long measurement_id,
                                       const sl_store_device *dev, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "UPDATE measurement SET (" MEASUREMENT_COLUMNS ") = (?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, "
         "?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19) WHERE id = ?1", diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, measurement_id);
     bind_extraction(st, 2, dev);
-    s = sl_store_step_once(store, st, diag, "update a measurement");
+    s = sl__store_step_once(store, st, diag, "update a measurement");
     if (s == SL_OK && dev->vg_V)
-        s = sl_store_insert_sweep(store, measurement_id, dev, diag);
+        s = sl__store_insert_sweep(store, measurement_id, dev, diag);
     return s;
 }
 
 sl_status sl_store_count_devices(sl_store *store, long *count, long lot_id, sl_diag *diag)
 {
-    return sl_store_count_query(store, count, "SELECT count(*) FROM device WHERE lot_id = ?1",
+    return sl__store_count_query(store, count, "SELECT count(*) FROM device WHERE lot_id = ?1",
                                 lot_id, diag, "count the lot's devices");
 }

@@ -75,7 +75,7 @@ sl_status sl_store_open_devices(sl_store *store, sl_store_import_device **device
                                 "ORDER BY m.id"
                               : " AND m.fit_class = 'pending' ORDER BY m.id");
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    sl_status s = sl__store_prepare(store, &st, sql, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, first_run_id);
@@ -84,7 +84,7 @@ sl_status sl_store_open_devices(sl_store *store, sl_store_import_device **device
     while (s == SL_OK && (rc = sl__db_step(st)) == SL__DB_ROW)
         s = append_device(devices, count, &cap, st);
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "list the devices still to be fitted");
+        s = sl__store_db_error(store, diag, "list the devices still to be fitted");
     sl__db_finalize(st);
     if (s != SL_OK) {
         free(*devices);
@@ -119,7 +119,7 @@ sl_status sl_store_count_classes(sl_store *store, long *counts, const char *cons
         return SL_EINPUT;
     }
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    sl_status s = sl__store_prepare(store, &st, sql, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, first_run_id);
@@ -130,7 +130,7 @@ sl_status sl_store_count_classes(sl_store *store, long *counts, const char *cons
         for (size_t i = 0; i < n_names; i++)
             counts[i] = (long)sl__db_column_int64(st, (int)i + 1);
     } else {
-        s = sl_store_db_error(store, diag, "count the imported devices");
+        s = sl__store_db_error(store, diag, "count the imported devices");
     }
     sl__db_finalize(st);
     return s;

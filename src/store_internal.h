@@ -26,54 +26,54 @@ struct sl_store {
 };
 
 /* Add a located message for the connection's last error; returns SL_EDB. */
-sl_status sl_store_db_error(sl_store *store, sl_diag *diag, const char *what);
-sl_status sl_store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what);
-sl_status sl_store_prepare(sl_store *store, sl__stmt **stmt, const char *sql, sl_diag *diag);
+sl_status sl__store_db_error(sl_store *store, sl_diag *diag, const char *what);
+sl_status sl__store_exec(sl_store *store, const char *sql, sl_diag *diag, const char *what);
+sl_status sl__store_prepare(sl_store *store, sl__stmt **stmt, const char *sql, sl_diag *diag);
 /* flags: SL__DB_STREAM for a long read (db_driver.h) */
-sl_status sl_store_prepare_flags(sl_store *store, sl__stmt **stmt, const char *sql, int flags,
+sl_status sl__store_prepare_flags(sl_store *store, sl__stmt **stmt, const char *sql, int flags,
                                  sl_diag *diag);
 /* Step an INSERT ... RETURNING id once: *id, and the statement reset. */
-sl_status sl_store_step_id(sl_store *store, sl__stmt *st, long *id, sl_diag *diag,
+sl_status sl__store_step_id(sl_store *store, sl__stmt *st, long *id, sl_diag *diag,
                            const char *what);
 /* 1 on a PostgreSQL server (the few dialect differences go through this). */
-int sl_store_is_pg(const sl_store *store);
+int sl__store_is_pg(const sl_store *store);
 /* Opening on PostgreSQL: session settings and migrations (store_pg.c). */
-sl_status sl_store_pg_setup(sl_store *store, sl_diag *diag);
+sl_status sl__store_pg_setup(sl_store *store, sl_diag *diag);
 /* Hold the lot for the rest of the transaction (PostgreSQL: an advisory
  * lock, so imports of one lot take turns and of different lots do not). */
-sl_status sl_store_lock_lot(sl_store *store, long lot_id, sl_diag *diag);
+sl_status sl__store_lock_lot(sl_store *store, long lot_id, sl_diag *diag);
 /* SL_EDB naming a schema version newer than this build. */
-sl_status sl_store_refuse_newer(sl_store *store, int version, sl_diag *diag);
+sl_status sl__store_refuse_newer(sl_store *store, int version, sl_diag *diag);
 /* Location of a database for messages: a URL's password left out (malloc'd). */
 char *sl__db_display_name(const char *location);
 void sl__db_sqlite_busy_timeout(sl__db *db, int ms);
-sl_status sl_store_step_done(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
+sl_status sl__store_step_done(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
 /* The same for a statement used once: stepped, then finalized. */
-sl_status sl_store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
-void sl_store_bind_real_or_null(sl__stmt *st, int index, double v);
-double sl_store_column_real_or_nan(sl__stmt *st, int col);
-void sl_store_now_utc(char out[32]);
+sl_status sl__store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
+void sl__store_bind_real_or_null(sl__stmt *st, int index, double v);
+double sl__store_column_real_or_nan(sl__stmt *st, int col);
+void sl__store_now_utc(char out[32]);
 /* A query of one count with ?1 bound to id: a failed query is an error
  * naming what, never a count. */
-sl_status sl_store_count_query(sl_store *store, long *count, const char *sql, long id,
+sl_status sl__store_count_query(sl_store *store, long *count, const char *sql, long id,
                                sl_diag *diag, const char *what);
 /* A text column as a malloc'd string ("" for NULL); NULL when out of memory. */
-char *sl_store_column_strdup(sl__stmt *st, int col);
+char *sl__store_column_strdup(sl__stmt *st, int col);
 /* Pack a sweep into the compact blob described in store_sweep.c: malloc'd,
  * its length in *bytes; NULL when out of memory. */
-unsigned char *sl_store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
+unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
                                    size_t *bytes);
 /* Unpack a blob of n points, compact or raw (exactly 16 * n bytes), into
  * vg_V and r_ohm (n each). A damaged blob gives SL_EDB and *damage says
  * what is wrong (a static string), else *damage is NULL. */
-sl_status sl_store_unpack_sweep(double *vg_V, double *r_ohm, size_t n,
+sl_status sl__store_unpack_sweep(double *vg_V, double *r_ohm, size_t n,
                                 const unsigned char *blob, size_t bytes, const char **damage);
 /* SL_EINPUT naming them when a new revision (plan, layout) of a lot would
  * move wafers that have devices (see sl_store_save_plan). */
-sl_status sl_store_check_measured_wafers(sl_store *store, long lot_id, const sl_plan *plan,
+sl_status sl__store_check_measured_wafers(sl_store *store, long lot_id, const sl_plan *plan,
                                          const sl_layout *layout, sl_diag *diag);
 /* Store (or replace) the sweep of a device row: dev->vg_V, r_ohm, n_points. */
-sl_status sl_store_insert_sweep(sl_store *store, long measurement_id, const sl_store_device *dev,
+sl_status sl__store_insert_sweep(sl_store *store, long measurement_id, const sl_store_device *dev,
                                 sl_diag *diag);
 
 #endif

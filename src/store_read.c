@@ -31,11 +31,11 @@ static void read_device_row(sl__stmt *st, sl_store_device_row *r)
                           &r->channel_length_um, &r->channel_width_um, &r->rel_rms,
                           &r->r_squared };
     for (int i = 0; i < 11; i++)
-        *numbers[i] = sl_store_column_real_or_nan(st, 10 + i);
+        *numbers[i] = sl__store_column_real_or_nan(st, 10 + i);
     r->n_points = (long)sl__db_column_int64(st, 21);
     r->measurements = (long)sl__db_column_int64(st, 22);
-    r->electron_mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 23);
-    r->hole_mobility_cm2_per_Vs = sl_store_column_real_or_nan(st, 24);
+    r->electron_mobility_cm2_per_Vs = sl__store_column_real_or_nan(st, 23);
+    r->hole_mobility_cm2_per_Vs = sl__store_column_real_or_nan(st, 24);
 }
 
 sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, size_t *count,
@@ -45,7 +45,7 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
     *rows = NULL;
     *count = 0;
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "WITH runs AS (SELECT id FROM measurement_run WHERE lot_id = ?1 AND step = ?2 "
         "AND temperature_K = ?3) "
         "SELECT m.id, d.id, m.run_id, d.wafer, d.name, d.die_x, d.die_y, m.fit_class, m.source, "
@@ -77,7 +77,7 @@ sl_status sl_store_load_devices(sl_store *store, sl_store_device_row **rows, siz
         read_device_row(st, &(*rows)[(*count)++]);
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "read the lot's devices");
+        s = sl__store_db_error(store, diag, "read the lot's devices");
     sl__db_finalize(st);
     return s;
 }

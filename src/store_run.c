@@ -34,14 +34,14 @@ sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revi
                            const char *source_name, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "INSERT INTO measurement_run (lot_id, step, temperature_K, revision_id, kind, "
         "source_name, rows, devices, created_utc) VALUES (?1, ?2, ?3, ?4, ?5, ?6, 0, 0, ?7) "
         "RETURNING id", diag);
     if (s != SL_OK)
         return s;
     char now[32];
-    sl_store_now_utc(now);
+    sl__store_now_utc(now);
     sl__db_bind_int64(st, 1, lot_id);
     sl__db_bind_text(st, 2, step, -1);
     sl__db_bind_double(st, 3, temperature_K);
@@ -49,22 +49,22 @@ sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revi
     sl__db_bind_text(st, 5, kind, -1);
     sl__db_bind_text(st, 6, source_name, -1);
     sl__db_bind_text(st, 7, now, -1);
-    s = sl_store_step_id(store, st, run_id, diag, "start a measurement run");
+    s = sl__store_step_id(store, st, run_id, diag, "start a measurement run");
     sl__db_finalize(st);
     if (s == SL_OK)
         s = remember_run(store, *run_id);
     return s;
 }
 
-sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sha256_hex,
+sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sl__sha256_hex,
                               long *devices, sl_diag *diag)
 {
-    sl_status s = sl_store_count_query(store, devices,
+    sl_status s = sl__store_count_query(store, devices,
                                        "SELECT count(*) FROM measurement WHERE run_id = ?1",
                                        run_id, diag, "count the run's devices");
     sl__stmt *st = NULL;
     if (s == SL_OK)
-        s = sl_store_prepare(store, &st, *devices
+        s = sl__store_prepare(store, &st, *devices
             ? "UPDATE measurement_run SET rows = ?2, source_sha256 = ?3, devices = ?4 WHERE id = ?1"
             : "DELETE FROM measurement_run WHERE id = ?1", diag);
     if (s != SL_OK)
@@ -72,13 +72,13 @@ sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const cha
     sl__db_bind_int64(st, 1, run_id);
     if (*devices) {
         sl__db_bind_int64(st, 2, rows);
-        if (sha256_hex && *sha256_hex)
-            sl__db_bind_text(st, 3, sha256_hex, -1);
+        if (sl__sha256_hex && *sl__sha256_hex)
+            sl__db_bind_text(st, 3, sl__sha256_hex, -1);
         else
             sl__db_bind_null(st, 3);
         sl__db_bind_int64(st, 4, *devices);
     }
-    return sl_store_step_once(store, st, diag, "record the measurement run");
+    return sl__store_step_once(store, st, diag, "record the measurement run");
 }
 
 sl_status sl_store_count_import_devices(sl_store *store, long *devices, long lot_id,
@@ -86,7 +86,7 @@ sl_status sl_store_count_import_devices(sl_store *store, long *devices, long lot
 {
     *devices = 0;
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT count(DISTINCT m.device_id) FROM measurement m JOIN measurement_run r "
         "ON r.id = m.run_id WHERE r.lot_id = ?1 AND r.id >= ?2", diag);
     if (s != SL_OK)
@@ -97,12 +97,12 @@ sl_status sl_store_count_import_devices(sl_store *store, long *devices, long lot
     if (rc == SL__DB_ROW)
         *devices = (long)sl__db_column_int64(st, 0);
     sl__db_finalize(st);
-    return rc == SL__DB_ROW ? SL_OK : sl_store_db_error(store, diag, "count the import's devices");
+    return rc == SL__DB_ROW ? SL_OK : sl__store_db_error(store, diag, "count the import's devices");
 }
 
 sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag)
 {
-    return sl_store_count_query(store, id,
+    return sl__store_count_query(store, id,
                                 "SELECT coalesce(max(id), 0) + 1 + 0 * ?1 FROM measurement_run",
                                 0, diag, "read the run ids");
 }
@@ -122,16 +122,16 @@ void sl_store_runs_free(sl_store_run *runs, size_t count)
 static int read_run(sl__stmt *st, sl_store_run *r)
 {
     r->id = (long)sl__db_column_int64(st, 0);
-    r->step = sl_store_column_strdup(st, 1);
+    r->step = sl__store_column_strdup(st, 1);
     r->temperature_K = sl__db_column_double(st, 2);
     r->revision_id = (long)sl__db_column_int64(st, 3);
     r->revision = sl__db_column_int64(st, 4);
-    r->kind = sl_store_column_strdup(st, 5);
-    r->source_name = sl_store_column_strdup(st, 6);
-    r->source_sha256 = sl_store_column_strdup(st, 7);
+    r->kind = sl__store_column_strdup(st, 5);
+    r->source_name = sl__store_column_strdup(st, 6);
+    r->source_sha256 = sl__store_column_strdup(st, 7);
     r->rows = (long)sl__db_column_int64(st, 8);
     r->devices = (long)sl__db_column_int64(st, 9);
-    r->created_utc = sl_store_column_strdup(st, 10);
+    r->created_utc = sl__store_column_strdup(st, 10);
     r->current = (long)sl__db_column_int64(st, 11);
     return r->step && r->kind && r->source_name && r->source_sha256 && r->created_utc;
 }
@@ -142,7 +142,7 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
     *runs = NULL;
     *count = 0;
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT r.id, r.step, r.temperature_K, r.revision_id, p.revision, r.kind, r.source_name, "
         "r.source_sha256, r.rows, r.devices, r.created_utc, "
         "(SELECT count(*) FROM measurement m WHERE m.run_id = r.id AND NOT EXISTS "
@@ -175,7 +175,7 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
         }
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "list the lot's measurement runs");
+        s = sl__store_db_error(store, diag, "list the lot's measurement runs");
     sl__db_finalize(st);
     if (s != SL_OK) {
         sl_store_runs_free(*runs, *count);
@@ -191,7 +191,7 @@ static int has_run(sl_store *store, long lot_id, const char *step, double temper
                    sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    if (sl_store_prepare(store, &st,
+    if (sl__store_prepare(store, &st,
                          "SELECT EXISTS (SELECT 1 FROM measurement_run WHERE lot_id = ?1 AND "
                          "step = ?2 AND temperature_K = ?3)", diag) != SL_OK)
         return -1;
@@ -200,7 +200,7 @@ static int has_run(sl_store *store, long lot_id, const char *step, double temper
     sl__db_bind_double(st, 3, temperature_K);
     int found = sl__db_step(st) == SL__DB_ROW ? sl__db_column_int64(st, 0) : -1;
     if (found < 0)
-        sl_store_db_error(store, diag, "look up the lot's measurement runs");
+        sl__store_db_error(store, diag, "look up the lot's measurement runs");
     sl__db_finalize(st);
     return found;
 }
@@ -210,7 +210,7 @@ static sl_status newest_step(sl_store *store, char step[65], long lot_id, sl_dia
 {
     snprintf(step, 65, "final");
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT step FROM measurement_run WHERE lot_id = ?1 ORDER BY id DESC LIMIT 1", diag);
     if (s != SL_OK)
         return s;
@@ -220,7 +220,7 @@ static sl_status newest_step(sl_store *store, char step[65], long lot_id, sl_dia
         snprintf(step, 65, "%s", (const char *)sl__db_column_text(st, 0));
     sl__db_finalize(st);
     return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK
-                                                 : sl_store_db_error(store, diag, "look up the lot's runs");
+                                                 : sl__store_db_error(store, diag, "look up the lot's runs");
 }
 
 sl_status sl_store_default_view(sl_store *store, char step[65], double *temperature_K,
@@ -252,7 +252,7 @@ sl_status sl_store_view_revision(sl_store *store, long *revision_id, const sl_st
                                  const char *step, double temperature_K, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT revision_id FROM measurement_run WHERE lot_id = ?1 AND step = ?2 AND "
         "temperature_K = ?3 ORDER BY id DESC LIMIT 1", diag);
     if (s != SL_OK)
@@ -265,7 +265,7 @@ sl_status sl_store_view_revision(sl_store *store, long *revision_id, const sl_st
     sl__db_finalize(st);
     return rc == SL__DB_ROW || rc == SL__DB_DONE
                ? SL_OK
-               : sl_store_db_error(store, diag, "look up the view's plan revision");
+               : sl__store_db_error(store, diag, "look up the view's plan revision");
 }
 
 /* ---- a stored revision ---- */
@@ -298,7 +298,7 @@ static sl_status read_rows(sl_store *store, void **items, size_t *count, size_t 
     *items = NULL;
     *count = 0;
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    sl_status s = sl__store_prepare(store, &st, sql, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, revision_id);
@@ -323,7 +323,7 @@ static sl_status read_rows(sl_store *store, void **items, size_t *count, size_t 
         }
     }
     if (s == SL_OK && rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, what);
+        s = sl__store_db_error(store, diag, what);
     sl__db_finalize(st);
     return s;
 }
@@ -331,10 +331,10 @@ static sl_status read_rows(sl_store *store, void **items, size_t *count, size_t 
 static int read_split(sl__stmt *st, void *element)
 {
     sl_store_split *p = element;
-    p->name = sl_store_column_strdup(st, 0);
-    p->dielectric = sl_store_column_strdup(st, 1);
-    p->treatments = sl_store_column_strdup(st, 2);
-    p->levels = sl_store_column_strdup(st, 3);
+    p->name = sl__store_column_strdup(st, 0);
+    p->dielectric = sl__store_column_strdup(st, 1);
+    p->treatments = sl__store_column_strdup(st, 2);
+    p->levels = sl__store_column_strdup(st, 3);
     p->planned_doping_per_cm2 = sl__db_column_double(st, 4);
     p->planned_doping_sigma_per_cm2 = sl__db_column_double(st, 5);
     return p->name && p->dielectric && p->treatments && p->levels;
@@ -343,7 +343,7 @@ static int read_split(sl__stmt *st, void *element)
 static int read_wafer(sl__stmt *st, void *element)
 {
     sl_store_wafer *w = element;
-    w->name = sl_store_column_strdup(st, 0);
+    w->name = sl__store_column_strdup(st, 0);
     w->split = sl__db_column_is_null(st, 1) ? -1 : (long)sl__db_column_int64(st, 1);
     w->process_order = (long)sl__db_column_int64(st, 2);
     return w->name != NULL;
@@ -449,7 +449,7 @@ sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store
 {
     memset(loads, 0, rev->n_wafers * n_steps * sizeof *loads);
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT w.name, l.step, l.load FROM wafer_load l JOIN wafer w ON w.id = l.wafer_id "
         "WHERE w.revision_id = ?1", diag);
     if (s != SL_OK)
@@ -465,7 +465,7 @@ sl_status sl_store_load_wafer_loads(sl_store *store, long *loads, const sl_store
             loads[(size_t)w * n_steps + (size_t)k] = (long)sl__db_column_int64(st, 2);
     }
     if (rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "read the wafers' loads");
+        s = sl__store_db_error(store, diag, "read the wafers' loads");
     sl__db_finalize(st);
     return s;
 }
@@ -500,11 +500,11 @@ static void append_moved(char *list, size_t size, size_t *used, const char *wafe
         *used = size - 1;
 }
 
-sl_status sl_store_check_measured_wafers(sl_store *store, long lot_id, const sl_plan *plan,
+sl_status sl__store_check_measured_wafers(sl_store *store, long lot_id, const sl_plan *plan,
                                          const sl_layout *layout, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st,
+    sl_status s = sl__store_prepare(store, &st,
         "SELECT w.name, s.name, s.name || '|' || s.dielectric || '|' || s.treatments "
         "FROM wafer w JOIN split s ON s.id = w.split_id "
         "WHERE w.revision_id = (SELECT id FROM plan_revision WHERE lot_id = ?1 "
@@ -530,7 +530,7 @@ sl_status sl_store_check_measured_wafers(sl_store *store, long lot_id, const sl_
         n_moved++;
     }
     if (rc != SL__DB_DONE)
-        s = sl_store_db_error(store, diag, "read the lot's measured wafers");
+        s = sl__store_db_error(store, diag, "read the lot's measured wafers");
     sl__db_finalize(st);
     if (s != SL_OK || n_moved == 0)
         return s;

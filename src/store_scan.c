@@ -150,13 +150,13 @@ static void read_kept(sl_store_scratch *x, sl__stmt *st, long *group, long *tag)
     copy_text(r->name, sizeof r->name, st, 7);
     copy_text(r->fit_class, sizeof r->fit_class, st, 8);
     copy_text(r->fit_model, sizeof r->fit_model, st, 9);
-    r->cnp_V = sl_store_column_real_or_nan(st, 10);
+    r->cnp_V = sl__store_column_real_or_nan(st, 10);
     r->die_x = (long)sl__db_column_int64(st, 11);
     r->die_y = (long)sl__db_column_int64(st, 12);
     double *numbers[] = { &r->mobility_cm2_per_Vs, &r->n0_per_cm2, &r->r_contact_ohm,
                           &r->hysteresis_V, &r->channel_length_um, &r->channel_width_um };
     for (int i = 0; i < 6; i++)
-        *numbers[i] = sl_store_column_real_or_nan(st, 13 + i);
+        *numbers[i] = sl__store_column_real_or_nan(st, 13 + i);
     r->measurements = (long)sl__db_column_int64(st, 19);
     r->n_points = (long)sl__db_column_int64(st, 20);
 }
@@ -164,13 +164,13 @@ static void read_kept(sl_store_scratch *x, sl__stmt *st, long *group, long *tag)
 static sl_status pragma_value(sl_store *store, long *value, const char *sql, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(store, &st, sql, diag);
+    sl_status s = sl__store_prepare(store, &st, sql, diag);
     if (s != SL_OK)
         return s;
     if (sl__db_step(st) == SL__DB_ROW)
         *value = (long)sl__db_column_int64(st, 0);
     else
-        s = sl_store_db_error(store, diag, "read a setting of the database");
+        s = sl__store_db_error(store, diag, "read a setting of the database");
     sl__db_finalize(st);
     return s;
 }
@@ -179,28 +179,28 @@ static sl_status set_cache(sl_store *store, const char *schema, long size, sl_di
 {
     char sql[64];
     snprintf(sql, sizeof sql, "PRAGMA %s.cache_size = %ld", schema, size);
-    return sl_store_exec(store, sql, diag, "set the page cache size");
+    return sl__store_exec(store, sql, diag, "set the page cache size");
 }
 
 static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
 {
     sl_store *store = x->store;
-    sl_status s = sl_store_exec(store, sl_store_is_pg(store) ? scratch_tables_pg_sql
+    sl_status s = sl__store_exec(store, sl__store_is_pg(store) ? scratch_tables_pg_sql
                                                              : scratch_tables_sql,
                                 diag, "create the scratch tables");
     if (s == SL_OK)
-        s = sl_store_exec(store, empty_tables_sql, diag, "empty the scratch tables");
+        s = sl__store_exec(store, empty_tables_sql, diag, "empty the scratch tables");
     if (s == SL_OK)
-        s = sl_store_prepare(store, &x->keep, keep_sql, diag);
+        s = sl__store_prepare(store, &x->keep, keep_sql, diag);
     if (s == SL_OK)
-        s = sl_store_prepare_flags(store, &x->kept, kept_sql, SL__DB_STREAM, diag);
+        s = sl__store_prepare_flags(store, &x->kept, kept_sql, SL__DB_STREAM, diag);
     if (s == SL_OK)
-        s = sl_store_prepare_flags(store, &x->values, values_sql, SL__DB_STREAM, diag);
+        s = sl__store_prepare_flags(store, &x->values, values_sql, SL__DB_STREAM, diag);
     if (s == SL_OK)
-        s = sl_store_prepare(store, &x->rank, rank_sql, diag);
+        s = sl__store_prepare(store, &x->rank, rank_sql, diag);
     if (s == SL_OK)
-        s = sl_store_prepare_flags(store, &x->ranked,
-                                   sl_store_is_pg(store) ? ranked_pg_sql : ranked_sql,
+        s = sl__store_prepare_flags(store, &x->ranked,
+                                   sl__store_is_pg(store) ? ranked_pg_sql : ranked_sql,
                                    SL__DB_STREAM, diag);
     return s;
 }
@@ -208,7 +208,7 @@ static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
 /* Small page caches for the scratch's lifetime. */
 static sl_status hold_caches(sl_store_scratch *x, sl_diag *diag)
 {
-    if (sl_store_is_pg(x->store)) /* the server's caches are its own */
+    if (sl__store_is_pg(x->store)) /* the server's caches are its own */
         return SL_OK;
     sl_status s = pragma_value(x->store, &x->main_cache, "PRAGMA main.cache_size", diag);
     if (s == SL_OK)
@@ -227,8 +227,8 @@ static sl_status hold_caches(sl_store_scratch *x, sl_diag *diag)
 static sl_status begin_snapshot(sl_store_scratch *x, sl_diag *diag)
 {
     sl_store *store = x->store;
-    x->own_transaction = sl_store_is_pg(store) && !sl__db_in_transaction(store->db);
-    sl_status s = sl_store_exec(store, x->own_transaction
+    x->own_transaction = sl__store_is_pg(store) && !sl__db_in_transaction(store->db);
+    sl_status s = sl__store_exec(store, x->own_transaction
                                     ? "BEGIN ISOLATION LEVEL REPEATABLE READ"
                                     : "SAVEPOINT sl_scratch",
                                 diag, "start reading the lot");
@@ -262,17 +262,17 @@ sl_status sl_store_scratch_view(sl_store_scratch *x, long lot_id, const char *st
                                 double temperature_K, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_exec(x->store, "DELETE FROM sl_scratch_run", diag,
+    sl_status s = sl__store_exec(x->store, "DELETE FROM sl_scratch_run", diag,
                                 "empty the scratch tables");
     if (s == SL_OK)
-        s = sl_store_prepare(x->store, &st, view_sql, diag);
+        s = sl__store_prepare(x->store, &st, view_sql, diag);
     if (s != SL_OK)
         return s;
     x->temperature_K = temperature_K;
     sl__db_bind_int64(st, 1, lot_id);
     sl__db_bind_text(st, 2, step, -1);
     sl__db_bind_double(st, 3, temperature_K);
-    return sl_store_step_once(x->store, st, diag, "choose the view's runs");
+    return sl__store_step_once(x->store, st, diag, "choose the view's runs");
 }
 
 sl_status sl_store_scratch_keep_wafer(sl_store_scratch *x, long lot_id, const char *wafer,
@@ -282,7 +282,7 @@ sl_status sl_store_scratch_keep_wafer(sl_store_scratch *x, long lot_id, const ch
     sl__db_bind_text(x->keep, 2, wafer, -1);
     sl__db_bind_int64(x->keep, 3, group);
     sl__db_bind_int64(x->keep, 4, tag);
-    return sl_store_step_done(x->store, x->keep, diag, "read the lot's devices");
+    return sl__store_step_done(x->store, x->keep, diag, "read the lot's devices");
 }
 
 /* Step a read-back statement: 1 with a row, 0 at the end (reset, so the next
@@ -295,7 +295,7 @@ static int step_back(sl_store_scratch *x, sl__stmt *st, sl_diag *diag, const cha
     sl__db_reset(st);
     if (rc == SL__DB_DONE)
         return 0;
-    sl_store_db_error(x->store, diag, what);
+    sl__store_db_error(x->store, diag, what);
     return -1;
 }
 
@@ -321,11 +321,11 @@ sl_status sl_store_scratch_next_kept(sl_store_scratch *x, long *group, long *tag
 sl_status sl_store_scratch_keep_values(sl_store_scratch *x, const char *fit_class, sl_diag *diag)
 {
     sl__stmt *st = NULL;
-    sl_status s = sl_store_prepare(x->store, &st, keep_values_sql, diag);
+    sl_status s = sl__store_prepare(x->store, &st, keep_values_sql, diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_text(st, 1, fit_class, -1);
-    return sl_store_step_once(x->store, st, diag, "keep the devices' values");
+    return sl__store_step_once(x->store, st, diag, "keep the devices' values");
 }
 
 sl_status sl_store_scratch_next_value(sl_store_scratch *x, int *more, long *group, double *cnp_V,
@@ -346,7 +346,7 @@ sl_status sl_store_scratch_rank(sl_store_scratch *x, double severity, sl_diag *d
     sl__db_bind_text(x->rank, 2, x->row.wafer, -1);
     sl__db_bind_text(x->rank, 3, x->row.name, -1);
     sl__db_bind_int64(x->rank, 4, x->last_kept);
-    return sl_store_step_done(x->store, x->rank, diag, "list a flagged device");
+    return sl__store_step_done(x->store, x->rank, diag, "list a flagged device");
 }
 
 sl_status sl_store_scratch_next_ranked(sl_store_scratch *x, long *group, long *tag,

@@ -1,6 +1,6 @@
 /* SPDX-License-Identifier: MIT
- * Edit distance, nearest-name lookup and the program's one did-you-mean rule
- * and message (see include/splitlot/text.h).
+ * Edit distance and the program's one did-you-mean rule and message (see
+ * include/splitlot/text.h).
  */
 #include "splitlot/text.h"
 
@@ -43,21 +43,6 @@ static size_t text_distance(const char *a, const char *b, int fold)
 }
 
 size_t sl_text_edit_distance(const char *a, const char *b) { return text_distance(a, b, 0); }
-
-const char *sl_text_nearest(const char *name, const char *const *candidates,
-                            size_t count, size_t max_distance)
-{
-    const char *best = NULL;
-    size_t best_d = max_distance + 1;
-    for (size_t i = 0; i < count; i++) {
-        size_t d = sl_text_edit_distance(name, candidates[i]);
-        if (d < best_d) {
-            best_d = d;
-            best = candidates[i];
-        }
-    }
-    return best;
-}
 
 size_t sl_text_suggest_limit(const char *name)
 {

@@ -7,12 +7,14 @@
  * is invented.
  */
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include <gsl/gsl_randist.h>
 #include <gsl/gsl_rng.h>
+#include <gsl/gsl_statistics_double.h>
 
 #include "analyze_internal.h"
 #include "splitlot/analyze.h"
@@ -502,7 +504,7 @@ START_TEST(test_library_analysis)
     size_t outliers = 0, unmeasured = 0;
     for (size_t i = 0; i < a->n_devices; i++) {
         const sl_analyze_device *d = &a->devices[i];
-        const char *names[4];
+        const char *names[7];
         int n = sl_analyze_flag_names(d, names);
         if (strcmp(d->wafer, "S01") == 0 && strcmp(d->device, "D1") == 0) {
             /* 8.164 V on 90 nm SiO2: C_g = 8.8541878128e-12 * 3.9 / 90e-9 = 3.83681e-4 F/m^2,
@@ -651,6 +653,291 @@ START_TEST(test_residual_below_thermal_floor_flagged)
     free(text);
     free(src);
     free(path);
+    free(plan);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* The stats fixture with invented mobility, n0 and hysteresis columns (a
+ * pattern by row index, spread enough to have a MAD), imported as lot
+ * STATS-01 into dir/t.db; low and high, when not NULL, name rows
+ * ("S01,D3,") whose mobility is set to low_mobility and high_mobility. */
+static char *params_lot_in(char *dir, const char *low, const char *low_mobility,
+                           const char *high, const char *high_mobility);
+
+static char *params_lot(const char *low, const char *low_mobility, const char *high,
+                        const char *high_mobility)
+{
+    return params_lot_in(sl_test_tmpdir(), low, low_mobility, high, high_mobility);
+}
+
+/* The same into dir, with dir/plan.yaml as the plan when it exists. */
+static char *params_lot_in(char *dir, const char *low, const char *low_mobility,
+                           const char *high, const char *high_mobility)
+{
+    char *src = sl_test_data("analyze/stats-results.csv");
+    char *text = sl_test_read_file(src, NULL);
+    char *path = sl_test_path(dir, "results.csv");
+    size_t cap = strlen(text) * 3 + 128, n = 0, i = 0;
+    char *out = malloc(cap);
+    char *save = NULL;
+    for (char *line = strtok_r(text, "\n", &save); line; line = strtok_r(NULL, "\n", &save), i++) {
+        if (i == 0) {
+            n += (size_t)snprintf(out + n, cap - n,
+                                  "%s,mobility_cm2_per_Vs,n0_per_cm2,hysteresis_V\n", line);
+            continue;
+        }
+        char mobility[32];
+        snprintf(mobility, sizeof mobility, "%g", 2000.0 + 37.0 * (double)((i * 7) % 13));
+        if (low && strncmp(line, low, strlen(low)) == 0)
+            snprintf(mobility, sizeof mobility, "%s", low_mobility);
+        if (high && strncmp(line, high, strlen(high)) == 0)
+            snprintf(mobility, sizeof mobility, "%s", high_mobility);
+        n += (size_t)snprintf(out + n, cap - n, "%s,%s,%g,%g\n", line, mobility,
+                              1e11 * (1.0 + (double)((i * 5) % 11) / 10.0),
+                              0.01 * (double)((i * 3) % 7));
+    }
+    ck_assert_int_eq(sl_test_write_file(path, out), 0);
+    char *plan = sl_test_path(dir, "plan.yaml");
+    FILE *own = fopen(plan, "r");
+    if (own)
+        fclose(own);
+    else {
+        free(plan);
+        plan = sl_test_data("analyze/stats-lot.yaml");
+    }
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    run_quiet(dir, predict);
+    const char *ingest[] = { "ingest", "--lot", "STATS-01", "--results", "results.csv", "--db",
+                             "t.db", NULL };
+    run_quiet(dir, ingest);
+    free(out);
+    free(text);
+    free(src);
+    free(path);
+    free(plan);
+    return dir;
+}
+
+/* Median and spread of one parameter of split k over its usable devices,
+ * by GSL on the values held (gsl_stats_median, and gsl_stats_mad: 1.482602
+ * times the unscaled MAD, the same scaling as the analysis). */
+static void gsl_median_spread(const sl_analysis *a, size_t k, size_t offset, double *median,
+                              double *spread)
+{
+    double *x = malloc((a->n_devices + 1) * sizeof *x), *work = malloc((a->n_devices + 1) * sizeof *work);
+    size_t n = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        double v = *(const double *)((const char *)d + offset);
+        if ((size_t)d->split == k && isfinite(d->cnp_measured_V) && isfinite(v))
+            x[n++] = v;
+    }
+    *spread = n ? gsl_stats_mad(x, 1, n, work) : NAN;
+    *median = n ? gsl_stats_median(x, 1, n) : NAN;
+    free(x);
+    free(work);
+}
+
+/* Per split, the median and spread (1.4826 MAD) of mobility, n0 and
+ * hysteresis found in passes over the stream equal those GSL finds on the
+ * values held; the same numbers reach compare's JSON splits[]. */
+START_TEST(test_split_parameter_medians)
+{
+    char *dir = params_lot(NULL, NULL, NULL, NULL);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    const size_t offsets[3] = { offsetof(sl_analyze_device, mobility_cm2_per_Vs),
+                                offsetof(sl_analyze_device, n0_per_cm2),
+                                offsetof(sl_analyze_device, hysteresis_V) };
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        const double got[3][2] = { { sp->mobility_median_cm2_per_Vs, sp->mobility_spread_cm2_per_Vs },
+                                   { sp->n0_median_per_cm2, sp->n0_spread_per_cm2 },
+                                   { sp->hysteresis_median_V, sp->hysteresis_spread_V } };
+        for (int q = 0; q < 3; q++) {
+            double median, spread;
+            gsl_median_spread(a, k, offsets[q], &median, &spread);
+            ck_assert(isfinite(median) && spread > 0.0);
+            check_rel("median", got[q][0], median, 1e-12);
+            check_rel("spread", got[q][1], spread, 1e-12);
+        }
+    }
+    /* 11 usable devices of ox90-plain with one value each: JSON as the library */
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result r = run_ok(dir, compare);
+    char row[4096];
+    json_row_where(r.out, "splits", "split", "ox90-plain", row, sizeof row);
+    check_rel("json mobility median", json_num(row, "mobility_median_cm2_per_Vs"),
+              a->splits[0].mobility_median_cm2_per_Vs, 1e-9);
+    check_rel("json n0 spread", json_num(row, "n0_spread_per_cm2"), a->splits[0].n0_spread_per_cm2,
+              1e-9);
+    check_rel("json hysteresis median", json_num(row, "hysteresis_median_V"),
+              a->splits[0].hysteresis_median_V, 1e-9);
+    sl_run_result_free(&r);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
+/* The split of wafer S01, device D1. */
+static long low_split_of(const sl_analysis *a)
+{
+    for (size_t i = 0; i < a->n_devices; i++)
+        if (strcmp(a->devices[i].wafer, "S01") == 0)
+            return a->devices[i].split;
+    return -1;
+}
+
+/* A mobility far below its split is flagged low-mobility: S01/D3 of
+ * ox90-plain at 300 cm^2/Vs among devices at 2000..2444 scores
+ * M = 0.6745 (300 - median) / MAD (Iglewicz and Hoaglin, 1993), MAD and
+ * median by GSL (gsl_stats_mad0, gsl_stats_median) on the split's usable
+ * mobilities; S01/D4 at 9000 is as far above and not flagged (one-sided).
+ * The flag is named in the failure list with its reason and counted in the
+ * lot's flagged devices, which --fail-on-flags exits 3 on. */
+START_TEST(test_low_mobility_flagged)
+{
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    char *plain = params_lot(NULL, NULL, NULL, NULL);
+    sl_run_result r0 = run_ok(plain, compare);
+    double flagged_before = json_num(r0.out, "flagged");
+    ck_assert_ptr_null(strstr(r0.out, "low-mobility"));
+    char *dir = params_lot("S01,D3,", "300", "S01,D4,", "9000");
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    double *x = malloc(a->n_devices * sizeof *x), *work = malloc(a->n_devices * sizeof *work);
+    const sl_analyze_device *low = NULL;
+    size_t n = 0, n_low = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        if (strcmp(d->wafer, "S01") == 0 && strcmp(d->device, "D3") == 0)
+            low = d;
+        if (d->split == low_split_of(a) && isfinite(d->cnp_measured_V))
+            x[n++] = d->mobility_cm2_per_Vs;
+        n_low += (d->flags & SL_FLAG_LOW_MOBILITY) != 0;
+    }
+    ck_assert_ptr_nonnull(low);
+    ck_assert_uint_eq(n_low, 1);
+    ck_assert(low->flags & SL_FLAG_LOW_MOBILITY);
+    double mad = gsl_stats_mad0(x, 1, n, work), median = gsl_stats_median(x, 1, n);
+    check_rel("mobility M", low->mobility_modified_z, 0.6745 * (300.0 - median) / mad, 1e-12);
+    ck_assert(low->mobility_modified_z < -3.5);
+    const char *names[7];
+    int k = sl_analyze_flag_names(low, names);
+    ck_assert_str_eq(names[k - 1], "low-mobility");
+    sl_run_result r = run_ok(dir, compare);
+    ck_assert_double_eq(json_num(r.out, "flagged"), flagged_before + 1.0);
+    char row[4096], reason[256];
+    snprintf(reason, sizeof reason,
+             "mobility 300 cm^2/Vs far below its split's median %.4g (modified z %.1f)", median,
+             low->mobility_modified_z);
+    json_row_where(r.out, "failure_analysis", "reason", reason, row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\", \"device\": \"D3\""));
+    json_row_where(r.out, "devices", "device", "D3", row, sizeof row); /* S01 comes first */
+    ck_assert_ptr_nonnull(strstr(row, "\"wafer\": \"S01\""));
+    ck_assert_ptr_nonnull(strstr(row, "\"low-mobility\""));
+    ck_assert_int_eq((int)count_of(r.out, "\"low-mobility\""), 1);
+    sl_run_result_free(&r);
+    sl_run_result_free(&r0);
+    free(x);
+    free(work);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    sl_test_rmtree(dir);
+    free(dir);
+    sl_test_rmtree(plain);
+    free(plain);
+}
+END_TEST
+
+/* The plan's expected mobility per dielectric against each split's median:
+ * ox90 expects 2200 +/- 100 cm^2/Vs (the lot's 2000..2444 lie within 3
+ * sigma of it), ox285 expects 5000 +/- 100 (far off): the ox285 splits are
+ * judged off plan, the ox90 ones not, each by |median - mean| > 3 sigma,
+ * and --fail-on-flags counts them. A split without an expectation keeps
+ * null. */
+START_TEST(test_mobility_expectation_per_dielectric)
+{
+    char *dir = sl_test_tmpdir();
+    char *src = sl_test_data("analyze/stats-lot.yaml");
+    char *text = sl_test_read_file(src, NULL);
+    char *plan = sl_test_path(dir, "plan.yaml");
+    const char *ox90 = "    doping_per_cm2: { mean: 0, sigma: 0.2e12 }\n";
+    const char *ox285 = "    doping_per_cm2: { mean: 0.3e12, sigma: 0.2e12 }\n";
+    char *a90 = strstr(text, ox90), *a285 = strstr(text, ox285);
+    ck_assert(a90 && a285 && a90 < a285);
+    size_t cap = strlen(text) + 512;
+    char *out = malloc(cap);
+    *a90 = *a285 = '\0';
+    snprintf(out, cap, "%s%s    mobility_cm2_per_Vs: { mean: 2200, sigma: 100 }\n%s%s"
+             "    mobility_cm2_per_Vs: { mean: 5000, sigma: 100 }\n%s",
+             text, ox90, a90 + strlen(ox90), ox285, a285 + strlen(ox285));
+    ck_assert_int_eq(sl_test_write_file(plan, out), 0);
+    params_lot_in(dir, NULL, NULL, NULL, NULL);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "STATS-01", diag), SL_OK);
+    size_t off = 0;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        int is285 = strncmp(a->plan->splits[k].name, "ox285", 5) == 0;
+        ck_assert_double_eq(sp->mobility_expected_cm2_per_Vs, is285 ? 5000.0 : 2200.0);
+        ck_assert_double_eq(sp->mobility_expected_sigma_cm2_per_Vs, 100.0);
+        ck_assert_int_eq(sp->mobility_off_plan, is285);
+        ck_assert_int_eq(sp->mobility_off_plan,
+                         fabs(sp->mobility_median_cm2_per_Vs - sp->mobility_expected_cm2_per_Vs) >
+                             3.0 * 100.0);
+        off += (size_t)sp->mobility_off_plan;
+    }
+    ck_assert_uint_eq(off, 2);
+    ck_assert_uint_eq(a->n_splits_mobility_off, 2);
+    const char *compare[] = { "compare", "--lot", "STATS-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    sl_run_result r = run_ok(dir, compare);
+    ck_assert_double_eq(json_num(r.out, "splits_mobility_off_plan"), 2.0);
+    char row[4096];
+    json_row_where(r.out, "splits", "split", "ox285-plain", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_off_plan\": true"));
+    json_row_where(r.out, "splits", "split", "ox90-plain", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_off_plan\": false"));
+    sl_run_result_free(&r);
+    /* the fixture plan has no expectation: null */
+    char *plain = params_lot(NULL, NULL, NULL, NULL);
+    sl_run_result r0 = run_ok(plain, compare);
+    json_row_where(r0.out, "splits", "split", "ox90-plain", row, sizeof row);
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_off_plan\": null"));
+    ck_assert_ptr_nonnull(strstr(row, "\"mobility_expected_cm2_per_Vs\": null"));
+    sl_run_result_free(&r0);
+    sl_test_rmtree(plain);
+    free(plain);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    free(out);
+    free(text);
+    free(src);
     free(plan);
     sl_test_rmtree(dir);
     free(dir);
@@ -1338,7 +1625,7 @@ END_TEST
  * (tolerance 0.3e12): two splits, k wafers each, M devices a wafer. The
  * lots are drawn here (gsl_rng mt19937, fixed seed) straight into what the
  * passes over a stored lot keep per wafer, and analysed by the same
- * function as compare (sl_analyze_wafer_statistics). */
+ * function as compare (sl__analyze_wafer_statistics). */
 #define MC_LOTS 2000
 #define MC_DEVICES 20
 #define MC_WAFER_SIGMA 3.0e11  /* cm^-2 */
@@ -1442,15 +1729,15 @@ static void mc_lot_run(mc_lot *m, double t1_true, double censor_above_V, int dro
             double v = wafer_doping / m->per_cm2_per_V + gsl_ran_gaussian(m->rng, MC_DEVICE_SIGMA_V);
             if (m->plan->splits[wf->split].n_treatments && v > censor_above_V) {
                 if (!drop_censored)
-                    sl_analyze_wafer_censor(wf, 1, censor_above_V);
+                    sl__analyze_wafer_censor(wf, 1, censor_above_V);
                 continue;
             }
-            sl_analyze_wafer_add(wf, v);
+            sl__analyze_wafer_add(wf, v);
             wf->n_usable++;
             a->splits[wf->split].n_usable++;
         }
     }
-    ck_assert_int_eq(sl_analyze_wafer_statistics(a, m->layout, m->wafers), SL_OK);
+    ck_assert_int_eq(sl__analyze_wafer_statistics(a, m->layout, m->wafers), SL_OK);
     ck_assert_int_eq(a->effects_status, SL_OK);
 }
 
@@ -1618,19 +1905,19 @@ START_TEST(test_wafer_statistics_by_hand)
         sl_analyze_wafer *wf = &m.wafers[w];
         memset(wf, 0, sizeof *wf);
         wf->split = m.layout->wafers[w].split;
-        sl_analyze_wafer_add(wf, 8.0 + 0.1 * (double)w); /* one device each */
+        sl__analyze_wafer_add(wf, 8.0 + 0.1 * (double)w); /* one device each */
         a->splits[wf->split].n_usable++;
     }
     /* the first wafer of split 0: its device censored too, above 9 V */
     size_t first = m.layout->splits[0].wafers[0], second = m.layout->splits[0].wafers[1];
-    sl_analyze_wafer_censor(&m.wafers[first], 1, 9.0);
+    sl__analyze_wafer_censor(&m.wafers[first], 1, 9.0);
     /* the other wafer of split 0: nothing inside the sweep */
     memset(&m.wafers[second], 0, sizeof m.wafers[second]);
     m.wafers[second].split = 0;
-    sl_analyze_wafer_censor(&m.wafers[second], 1, 9.0);
-    sl_analyze_wafer_censor(&m.wafers[second], 1, 9.5); /* the looser bound is kept */
+    sl__analyze_wafer_censor(&m.wafers[second], 1, 9.0);
+    sl__analyze_wafer_censor(&m.wafers[second], 1, 9.5); /* the looser bound is kept */
     ck_assert_double_eq(m.wafers[second].above_V, 9.0);
-    ck_assert_int_eq(sl_analyze_wafer_statistics(a, m.layout, m.wafers), SL_OK);
+    ck_assert_int_eq(sl__analyze_wafer_statistics(a, m.layout, m.wafers), SL_OK);
     ck_assert(isnan(a->device_sigma_V)); /* one device a wafer: no scatter within wafers */
     ck_assert_uint_eq(a->n_wafers_censored_biased, 1);
     ck_assert_uint_eq(a->splits[0].n_wafers, 1);
@@ -1673,7 +1960,7 @@ START_TEST(test_mc_history_drift_rate)
             points[i] = (sl_history_point){ "L", "", 1e12 + gsl_ran_gaussian(rng, tau) +
                                                          gsl_ran_gaussian(rng, se),
                                             se, 0, NAN, NAN };
-        ck_assert_int_eq(sl_analyze_history_level(&l), SL_OK);
+        ck_assert_int_eq(sl__analyze_history_level(&l), SL_OK);
         drifted += l.n_drift;
         judged += LOTS - 1;
         ck_assert(isnan(points[0].lcl_per_cm2) && isfinite(points[1].lcl_per_cm2));
@@ -1694,6 +1981,9 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_anova_and_ci_against_scipy);
     tcase_add_test(stats, test_lot_with_a_wafer_missing);
     tcase_add_test(stats, test_library_analysis);
+    tcase_add_test(stats, test_split_parameter_medians);
+    tcase_add_test(stats, test_low_mobility_flagged);
+    tcase_add_test(stats, test_mobility_expectation_per_dielectric);
     tcase_add_test(stats, test_off_prediction_without_spread);
     tcase_add_test(stats, test_level_without_wafers);
     tcase_add_test(stats, test_compare_output_unchanged);

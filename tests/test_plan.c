@@ -271,6 +271,56 @@ START_TEST(level_tolerance_defaults_to_sigma)
 }
 END_TEST
 
+/* A dielectric's expected mobility: read when given; a negative mean, a
+ * missing sigma and an unknown key are located errors. */
+static void mobility_error(const char *block, int col, const char *message)
+{
+    char text[1024];
+    snprintf(text, sizeof text,
+             "lot: T-4\n"
+             "temperatures_K: [300]\n"
+             "dielectrics:\n"
+             "  - { name: a, layers: [ { material: SiO2, thickness_nm: 50 } ],\n"
+             "      mobility_cm2_per_Vs: %s }\n"
+             "design: { kind: full-factorial, factors: { dielectric: [a] }, wafers_per_split: 1 }\n"
+             "wafers: 1\n"
+             "devices_per_wafer: 4\n",
+             block);
+    sl_diag *diag = sl_diag_new();
+    sl_plan *q = NULL;
+    ck_assert_int_eq(sl_plan_parse(&q, text, strlen(text), "m.yaml", diag), SL_EINPUT);
+    ck_assert_ptr_null(q);
+    ck_assert_int_eq(sl_diag_get(diag, 0)->line, 5);
+    ck_assert_int_eq(sl_diag_get(diag, 0)->col, col);
+    ck_assert_msg(strstr(sl_diag_get(diag, 0)->text, message), "%s", sl_diag_get(diag, 0)->text);
+    sl_diag_free(diag);
+}
+
+START_TEST(dielectric_mobility_expectation)
+{
+    static const char text[] =
+        "lot: T-4\n"
+        "temperatures_K: [300]\n"
+        "dielectrics:\n"
+        "  - { name: a, layers: [ { material: SiO2, thickness_nm: 50 } ],\n"
+        "      mobility_cm2_per_Vs: { mean: 3000, sigma: 400 } }\n"
+        "  - { name: b, layers: [ { material: SiO2, thickness_nm: 90 } ] }\n"
+        "design: { kind: full-factorial, factors: { dielectric: [a, b] }, wafers_per_split: 1 }\n"
+        "wafers: 2\n"
+        "devices_per_wafer: 4\n";
+    sl_plan *p = parse_ok(text);
+    ck_assert_int_eq(p->dielectrics[0].has_mobility, 1);
+    ck_assert_double_eq(p->dielectrics[0].mobility_cm2_per_Vs.val, 3000.0);
+    ck_assert_double_eq(p->dielectrics[0].mobility_cm2_per_Vs.sigma, 400.0);
+    ck_assert_int_eq(p->dielectrics[1].has_mobility, 0);
+    sl_plan_free(p);
+    /* columns: "      mobility_cm2_per_Vs: " is 27 characters */
+    mobility_error("{ mean: -5, sigma: 1 }", 36, "mean");
+    mobility_error("{ mean: 3000 }", 28, "missing required key 'sigma'");
+    mobility_error("{ mean: 3000, sigma: 1, sigm: 2 }", 52, "unknown key 'sigm'");
+}
+END_TEST
+
 START_TEST(hash_is_fnv1a)
 {
     char text[] = "a";
@@ -736,6 +786,7 @@ static Suite *plan_suite(void)
     tcase_add_test(tc, explicit_design_normalised);
     tcase_add_test(tc, defaults_overrides_and_order);
     tcase_add_test(tc, level_tolerance_defaults_to_sigma);
+    tcase_add_test(tc, dielectric_mobility_expectation);
     tcase_add_test(tc, hash_is_fnv1a);
     suite_add_tcase(s, tc);
     TCase *bad = tcase_create("broken");

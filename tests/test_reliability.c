@@ -941,7 +941,7 @@ START_TEST(server_failures_are_one_clear_line)
     sl_diag *diag = sl_diag_new();
     ck_assert_int_eq(sl_store_find_lot(holder, &lot, "DEMO-01", diag), SL_OK);
     ck_assert_int_eq(sl_store_begin(holder, diag), SL_OK);
-    ck_assert_int_eq(sl_store_lock_lot(holder, lot.lot_id, diag), SL_OK);
+    ck_assert_int_eq(sl__store_lock_lot(holder, lot.lot_id, diag), SL_OK);
     /* the test URL's options (its schema) and a 300 ms statement_timeout */
     char *url = sl_test_db(db), timed[4300];
     snprintf(timed, sizeof timed, "%s%%20-cstatement_timeout%%3D300", url);

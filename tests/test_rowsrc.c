@@ -269,8 +269,8 @@ START_TEST(header_messages)
     ck_assert_uint_eq(sl_diag_count(diag, SL_SEV_ERROR), 2);
     const sl_diag_msg *m = sl_diag_get(diag, 0);
     ck_assert_int_eq(m->line, 1);
-    ck_assert_msg(strstr(m->text, "missing column 'vg_V' (a sweeps file needs ...); did you mean "
-                                  "\"Vg\"? (--columns vg_V=Vg)"), "%s", m->text);
+    ck_assert_msg(strstr(m->text, "missing column 'vg_V' (a sweeps file needs ...) (did you mean "
+                                  "'Vg'?); map it with --columns vg_V=Vg"), "%s", m->text);
     m = sl_diag_get(diag, 2);
     ck_assert_int_eq(m->severity, SL_SEV_NOTE);
     ck_assert_msg(strstr(m->text, "columns found: \"wafer\", \"device\", \"die_x\", \"die_y\", \"Vg\", "

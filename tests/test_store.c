@@ -713,13 +713,13 @@ static void sprinkle_specials(double *v, size_t n, uint64_t *rng)
 static size_t round_trip(const double *vg, const double *r, size_t n)
 {
     size_t bytes = 0;
-    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
     ck_assert_ptr_nonnull(blob);
     ck_assert_uint_ne(bytes % 16, 0);
     ck_assert_uint_le(bytes, 16 * n + 4);
     double *vg2 = calloc(n + 1, sizeof *vg2), *r2 = calloc(n + 1, sizeof *r2);
     const char *damage = "not set";
-    ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, n, blob, bytes, &damage), SL_OK);
+    ck_assert_int_eq(sl__store_unpack_sweep(vg2, r2, n, blob, bytes, &damage), SL_OK);
     ck_assert_ptr_null(damage);
     ck_assert_int_eq(memcmp(vg, vg2, n * sizeof *vg), 0);
     ck_assert_int_eq(memcmp(r, r2, n * sizeof *r), 0);
@@ -770,7 +770,7 @@ START_TEST(blob_is_compact_for_a_csv_sweep)
     size_t n = csv_like_sweep(vg, r, 201);
     ck_assert_uint_le(round_trip(vg, r, n), 16 * n / 4);
     size_t bytes = 0;
-    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
     ck_assert_int_eq(blob[0], 1);
     ck_assert(blob[1] == 1 || blob[1] == 2); /* a decimal mode */
     ck_assert_int_eq(blob[2], 1);            /* in tenths of a volt */
@@ -784,7 +784,7 @@ static int vg_mode_of(double v, int *scale)
 {
     const double vg[] = { v, v, v, v }, r[] = { 1, 1, 1, 1 };
     size_t bytes = 0;
-    unsigned char *blob = sl_store_pack_sweep(vg, r, 4, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, 4, &bytes);
     ck_assert_ptr_nonnull(blob);
     int mode = blob[1];
     *scale = blob[2];
@@ -827,16 +827,16 @@ START_TEST(blob_pads_a_multiple_of_16)
     /* vg 0..4 and r 1000 five times: 1 + (2 + 5) + (2 + 2 + 4) = 16 bytes */
     const double vg[] = { 0, 1, 2, 3, 4 }, r[] = { 1000, 1000, 1000, 1000, 1000 };
     size_t bytes = 0;
-    unsigned char *blob = sl_store_pack_sweep(vg, r, 5, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, 5, &bytes);
     ck_assert_uint_eq(bytes, 17);
     ck_assert_int_eq(blob[16], 0);
     round_trip(vg, r, 5);
     double vg2[5], r2[5];
     const char *damage = NULL;
-    ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, 5, blob, 16, &damage), SL_EDB);
+    ck_assert_int_eq(sl__store_unpack_sweep(vg2, r2, 5, blob, 16, &damage), SL_EDB);
     ck_assert_str_eq(damage, "its length does not match its points");
     blob[16] = 1;
-    ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, 5, blob, 17, &damage), SL_EDB);
+    ck_assert_int_eq(sl__store_unpack_sweep(vg2, r2, 5, blob, 17, &damage), SL_EDB);
     ck_assert_str_eq(damage, "its length does not match its points");
     free(blob);
 }
@@ -847,7 +847,7 @@ static const char *damage_of(const unsigned char *blob, size_t bytes, size_t n)
     double vg[4], r[4];
     const char *damage = NULL;
     ck_assert_uint_le(n, 4);
-    sl_status st = sl_store_unpack_sweep(vg, r, n, blob, bytes, &damage);
+    sl_status st = sl__store_unpack_sweep(vg, r, n, blob, bytes, &damage);
     ck_assert_int_eq(st, damage ? SL_EDB : SL_OK);
     return damage ? damage : "";
 }
@@ -880,12 +880,12 @@ START_TEST(blob_truncated_or_mutated_never_crashes)
 {
     double vg[201], r[201], vg2[201], r2[201];
     size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
-    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
     const char *damage = NULL;
     for (size_t cut = 0; cut < bytes; cut++) {
         unsigned char *part = malloc(cut ? cut : 1); /* exact size: ASan sees overreads */
         memcpy(part, blob, cut);
-        ck_assert_int_eq(sl_store_unpack_sweep(vg2, r2, n, part, cut, &damage), SL_EDB);
+        ck_assert_int_eq(sl__store_unpack_sweep(vg2, r2, n, part, cut, &damage), SL_EDB);
         ck_assert_ptr_nonnull(damage);
         free(part);
     }
@@ -896,7 +896,7 @@ START_TEST(blob_truncated_or_mutated_never_crashes)
         for (long long hits = 1 + random_below(&rng, 3); hits > 0; hits--)
             copy[random_below(&rng, (long long)bytes)] = (unsigned char)next_random(&rng);
         size_t length = bytes - (size_t)random_below(&rng, 2);
-        sl_status st = sl_store_unpack_sweep(vg2, r2, n, copy, length, &damage);
+        sl_status st = sl__store_unpack_sweep(vg2, r2, n, copy, length, &damage);
         ck_assert_int_eq(st, damage ? SL_EDB : SL_OK);
     }
     free(copy);
@@ -975,7 +975,7 @@ START_TEST(damaged_sweep_is_a_database_error)
     stored_demo s = demo_store();
     double vg[201], r[201];
     size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
-    unsigned char *blob = sl_store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
     long id = device_without_sweep(&s, "D001");
     char expected[160], *message;
 
@@ -1314,7 +1314,7 @@ START_TEST(constraint_failures_say_which)
     long runs = query_long(s.store, "SELECT count(*) FROM measurement_run");
     for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
         sl_diag *diag = sl_diag_new();
-        ck_assert_int_eq(sl_store_exec(s.store, cases[i].sql, diag, "store a row"), SL_EDB);
+        ck_assert_int_eq(sl__store_exec(s.store, cases[i].sql, diag, "store a row"), SL_EDB);
         ck_assert_msg(strstr(sl_diag_last(diag), cases[i].kind) &&
                       strstr(sl_diag_last(diag), "cannot store a row: ") &&
                       !strstr(sl_diag_last(diag), "duplicate device"),
@@ -1335,7 +1335,7 @@ START_TEST(failed_queries_are_errors)
     stored_demo s = demo_store();
     sl_diag *diag = sl_diag_new();
     long count = 12345;
-    ck_assert_int_eq(sl_store_exec(s.store, sl_test_pg()
+    ck_assert_int_eq(sl__store_exec(s.store, sl_test_pg()
                                        ? "DROP VIEW measurement_view; "
                                          "ALTER TABLE device RENAME TO device_gone"
                                        : "PRAGMA foreign_keys = OFF; DROP VIEW measurement_view; "
@@ -1347,7 +1347,7 @@ START_TEST(failed_queries_are_errors)
                                                           : "no such table: device"),
                   "%s", sl_diag_last(diag));
     sl_diag_clear(diag);
-    ck_assert_int_eq(sl_store_exec(s.store, "ALTER TABLE lot RENAME TO lot_gone", diag,
+    ck_assert_int_eq(sl__store_exec(s.store, "ALTER TABLE lot RENAME TO lot_gone", diag,
                                    "break the schema"), SL_OK);
     char **names = NULL;
     size_t n = 7;
@@ -1383,19 +1383,19 @@ START_TEST(sha256_fips_examples)
         for (size_t k = 0; k < total; k++)
             buf[k] = cases[i].text[k % (len ? len : 1)];
         for (int way = 0; way < 2; way++) {
-            if (way == 1 && !sha256_has_extensions())
+            if (way == 1 && !sl__sha256_has_extensions())
                 continue;
             sha256_ctx c;
             if (way == 0)
-                sha256_init_portable(&c);
+                sl__sha256_init_portable(&c);
             else
-                sha256_init(&c);
+                sl__sha256_init(&c);
             for (size_t at = 0, piece = 1; at < total; at += piece, piece = piece * 3 + 1)
-                sha256_update(&c, buf + at, piece < total - at ? piece : total - at);
+                sl__sha256_update(&c, buf + at, piece < total - at ? piece : total - at);
             unsigned char digest[32];
             char hex[65];
-            sha256_final(&c, digest);
-            sha256_hex(digest, hex);
+            sl__sha256_final(&c, digest);
+            sl__sha256_hex(digest, hex);
             ck_assert_msg(strcmp(hex, cases[i].digest) == 0, "case %zu way %d: %s", i, way, hex);
         }
     }

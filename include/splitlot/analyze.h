@@ -24,11 +24,16 @@
 #define SL_FLAG_BELOW_FLOOR    0x10u /* fitted n0 below the thermal floor at the view's
                                         temperature: the fit or the temperature is wrong */
 #define SL_FLAG_HYSTERESIS     0x20u /* |hysteresis| above the plan's device.max_hysteresis_V */
+#define SL_FLAG_LOW_MOBILITY   0x40u /* mobility's modified z within its split < -3.5 */
 
 /* Share of censored devices in a split above which the output warns. */
 #define SL_ANALYZE_CENSORED_WARN 0.10
 /* Level of the effect intervals and the verdicts. */
 #define SL_ANALYZE_ALPHA 0.05
+
+/* Half-width of the interval about a dielectric's expected mobility outside
+ * which a split's median mobility is off plan, in the plan's sigmas. */
+#define SL_ANALYZE_MOBILITY_SIGMAS 3.0
 
 /* Half-width of the off-prediction interval in combined sigmas (99.7 %). */
 #define SL_ANALYZE_INTERVAL_SIGMAS 3.0
@@ -48,6 +53,9 @@ typedef struct {
                                     the MAD pooled over its dielectric's wafers */
     double doping_measured_per_cm2; /* -C_g V / e with the split's planned C_g */
     double mobility_cm2_per_Vs;
+    double mobility_modified_z;  /* 0.6745 (mu - split median) / split MAD over the
+                                    split's usable devices; NaN when not scored
+                                    (no mobility, not usable, fewer than 5) */
     long n_points;               /* of its stored sweep; 0 for results rows */
     unsigned flags;
     double severity;             /* for ordering the failure-analysis list */
@@ -93,6 +101,18 @@ typedef struct {
     double inside_share;
     int prediction_in_ci;
     size_t n_flagged;
+    /* Over the split's usable devices that have the value: the median and
+     * the robust spread 1.4826 MAD (MAD = median |x - median|, scaled to
+     * estimate a normal sigma); NaN when no device has the value. */
+    double mobility_median_cm2_per_Vs, mobility_spread_cm2_per_Vs;
+    double n0_median_per_cm2, n0_spread_per_cm2;
+    double hysteresis_median_V, hysteresis_spread_V;
+    /* The plan's expected mobility of the split's dielectric (NaN without
+     * one), and the judgement of the measured median against it: 1 when
+     * it lies outside mean +/- SL_ANALYZE_MOBILITY_SIGMAS sigma, 0 inside,
+     * -1 not judged (no expectation or no mobility measured). */
+    double mobility_expected_cm2_per_Vs, mobility_expected_sigma_cm2_per_Vs;
+    int mobility_off_plan;
 } sl_analyze_split;
 
 typedef struct {
@@ -142,6 +162,7 @@ typedef struct sl_analysis {
     char intercept_name[256];    /* "baseline + <reference levels>", the
                                     intercept effect's level */
     size_t n_splits_cnp_outside; /* splits whose measured mean left the gate range */
+    size_t n_splits_mobility_off; /* splits whose median mobility is off plan */
     double *split_gate_min_V, *split_gate_max_V;
     double *split_capacitance_F_per_m2;
     /* the view shown: one step and temperature of the lot's measurement
@@ -223,9 +244,9 @@ sl_status sl_analysis_stream_next_flagged(sl_analysis_stream *stream,
 void sl_analysis_stream_rewind(sl_analysis_stream *stream);
 void sl_analysis_stream_free(sl_analysis_stream *stream);
 
-/* Flag names of a device, in a fixed order, into names (at most 6); returns
+/* Flag names of a device, in a fixed order, into names (at most 7); returns
  * the count: "outlier", "off-prediction", the fit class, "unmeasured",
- * "below-floor", "hysteresis". */
+ * "below-floor", "hysteresis", "low-mobility". */
 int sl_analyze_flag_names(const sl_analyze_device *device, const char **names);
 
 /* ---- history across lots ---- */

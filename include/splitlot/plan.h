@@ -42,6 +42,8 @@ typedef struct {
     double doping_tolerance_per_cm2; /* `tolerance`; NaN when not given */
     int has_gate_range;      /* gate_range_V given in the plan */
     double gate_range_V[2];  /* [min, max] when given */
+    int has_mobility;        /* mobility_cm2_per_Vs given in the plan */
+    sl_est mobility_cm2_per_Vs; /* expected mobility of its devices: mean > 0, sigma >= 0 */
 } sl_plan_dielectric;
 
 typedef struct {

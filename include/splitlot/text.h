@@ -12,11 +12,6 @@
  * strings longer than 64 bytes, where a suggestion makes no sense anyway. */
 size_t sl_text_edit_distance(const char *a, const char *b);
 
-/* The candidate closest to name within max_distance edits (ties: first), or
- * NULL. Exact matches are returned too. */
-const char *sl_text_nearest(const char *name, const char *const *candidates,
-                            size_t count, size_t max_distance);
-
 /* The suggestion for a name that is not known, the same everywhere (plan keys
  * and names, materials, wafers, device types, columns): the candidate nearest
  * to name by edit distance with letter case ignored, if it is within

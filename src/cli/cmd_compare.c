@@ -69,7 +69,7 @@ typedef struct {
 
 static void device_row(cli_table *t, const sl_analysis *a, const sl_analyze_device *d, int table)
 {
-    const char *names[6];
+    const char *names[7];
     cli_table_row(t);
     cli_cell_str(t, d->wafer);
     cli_cell_str(t, d->device);
@@ -181,7 +181,10 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
 {
     cli_table *t = cli_doc_table(doc, "splits",
                                  "splits (neutrality voltage, V, from wafer means; 95 % CI by "
-                                 "Student t with wafers - 1 df)");
+                                 "Student t with wafers - 1 df; mobility cm^2/Vs, n0 cm^-2 and "
+                                 "hysteresis V: median and spread = 1.4826 MAD of the usable "
+                                 "devices; mu off: median outside the plan's expected mobility "
+                                 "+/- 3 sigma)");
     cli_table_col_str(t, "split", "split");
     cli_table_col_int(t, "devices", "dev");
     cli_table_col_int(t, "usable", "ok");
@@ -194,6 +197,15 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
     cli_table_col_fixed(t, "bias_V", "bias", 2);
     cli_table_col_bool(t, "prediction_in_ci", "in CI");
     cli_table_col_int(t, "flagged", "flagged");
+    cli_table_col_num(t, "mobility_median_cm2_per_Vs", "mu med", 4);
+    cli_table_col_num(t, "mobility_spread_cm2_per_Vs", "mu spr", 2);
+    cli_table_col_num(t, "n0_median_per_cm2", "n0 med", 3);
+    cli_table_col_num(t, "n0_spread_per_cm2", "n0 spr", 2);
+    cli_table_col_num(t, "hysteresis_median_V", "hyst med", 3);
+    cli_table_col_num(t, "hysteresis_spread_V", "hyst spr", 2);
+    cli_table_col_num(t, "mobility_expected_cm2_per_Vs", "mu exp", 4);
+    cli_table_col_num(t, "mobility_expected_sigma_cm2_per_Vs", "+/-", 2);
+    cli_table_col_bool(t, "mobility_off_plan", "mu off");
     for (size_t s = 0; s < a->n_splits; s++) {
         const sl_analyze_split *sp = &a->splits[s];
         cli_table_row(t);
@@ -212,6 +224,18 @@ static void splits_table(cli_doc *doc, const sl_analysis *a)
         else
             cli_cell_num(t, NAN);
         cli_cell_int(t, (long)sp->n_flagged);
+        cli_cell_num(t, sp->mobility_median_cm2_per_Vs);
+        cli_cell_num(t, sp->mobility_spread_cm2_per_Vs);
+        cli_cell_num(t, sp->n0_median_per_cm2);
+        cli_cell_num(t, sp->n0_spread_per_cm2);
+        cli_cell_num(t, sp->hysteresis_median_V);
+        cli_cell_num(t, sp->hysteresis_spread_V);
+        cli_cell_num(t, sp->mobility_expected_cm2_per_Vs);
+        cli_cell_num(t, sp->mobility_expected_sigma_cm2_per_Vs);
+        if (sp->mobility_off_plan >= 0)
+            cli_cell_bool(t, sp->mobility_off_plan);
+        else
+            cli_cell_num(t, NAN);
     }
 }
 
@@ -345,6 +369,7 @@ static void add_summary(cli_doc *doc, const sl_analysis *a)
     cli_doc_num(doc, "outliers_expected", a->outliers_expected, 3);
     cli_doc_num(doc, "levels_off_plan", (double)a->n_verdict[SL_VERDICT_OFF_PLAN], 15);
     cli_doc_num(doc, "levels_differing", (double)a->n_verdict[SL_VERDICT_DIFFERS], 15);
+    cli_doc_num(doc, "splits_mobility_off_plan", (double)a->n_splits_mobility_off, 15);
     cli_doc_num(doc, "device_sigma_V", a->device_sigma_V, 3);
     cli_doc_num(doc, "wafer_sigma_per_cm2", a->wafer_sigma_per_cm2, 3);
     if (a->plan->n_batches) /* the load as a random effect */
@@ -377,7 +402,7 @@ static int print_compare(const compare_args *args, sl_analysis_stream *stream, s
     if (cli_doc_print(doc, args->format, stdout) != 0)
         rc = rows.status != SL_OK ? cli_fail(rows.status, diag)
                                   : cli_runtime_error("cannot write output");
-    else if (args->fail_on_flags && (a->n_flagged || a->n_off_plan))
+    else if (args->fail_on_flags && (a->n_flagged || a->n_off_plan || a->n_splits_mobility_off))
         rc = CLI_EXIT_FLAGGED;
     cli_doc_free(doc);
     return rc;
