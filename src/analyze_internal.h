@@ -27,6 +27,7 @@ typedef struct {
     double mean_V, m2_V2;    /* their mean and sum of squared deviations */
     size_t n_above, n_below; /* censored: V_cnp above / below the sweep */
     double above_V, below_V; /* the least extreme bound of each side */
+    size_t n_censored_outliers; /* censored beyond the outlier limit: not in the mean */
 } sl_analyze_wafer;
 
 /* Add a usable, non-outlier V_cnp to a wafer (Welford's running moments). */
@@ -34,6 +35,16 @@ void sl__analyze_wafer_add(sl_analyze_wafer *w, double cnp_V);
 
 /* Add a censored device whose V_cnp lies above (above = 1) or below bound_V. */
 void sl__analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V);
+
+/* A censored device scored as a measured one would be: when its bound
+ * already lies beyond the outlier limit (|modified z| of bound - wafer
+ * median above SL_STATS_MODIFIED_Z_THRESHOLD, robust the dielectric's
+ * pooled residual scale) the device is a known outlier, counted but kept
+ * out of the wafer mean (returns 1); otherwise, or without a robust scale
+ * (robust NULL: too few devices to score), it enters the censored
+ * likelihood through sl__analyze_wafer_censor (returns 0). */
+int sl__analyze_wafer_censor_scored(sl_analyze_wafer *w, const sl_stats_robust *robust, int above,
+                                   double bound_V);
 
 /* Everything that speaks for a split or a level, from the wafers (layout
  * order, layout->n_wafers entries) with the wafer as the unit: the pooled
@@ -98,11 +109,12 @@ typedef struct {
  * and each split's medians and spreads (1.4826 MAD) in passes over the
  * scratch's kept devices. Returns SL_OK, SL_EDB, SL_ENOMEM, SL_EINPUT
  * (devices changed between passes). */
-sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
+sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
                                sl_store_scratch *scratch, sl_diag *diag);
 
 /* Modified z of a mobility within its split; NaN with fewer than
  * SL_ANALYZE_MIN_FOR_OUTLIERS devices or no mobility. */
-double analyze_mobility_modified_z(const analyze_param_state *state, long split, double mobility);
+double sl__analyze_mobility_modified_z(const analyze_param_state *state, long split,
+                                       double mobility);
 
 #endif

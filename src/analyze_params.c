@@ -7,7 +7,6 @@
  */
 #include <math.h>
 #include <stdlib.h>
-#include <string.h>
 
 #include "analyze_internal.h"
 
@@ -16,16 +15,6 @@
 #define MAD_TO_SIGMA 1.482602218505602
 
 typedef enum { PASS_RANGE, PASS_MEDIAN, PASS_MAD } param_pass;
-
-/* The value of parameter q of a row (NaN when it has none). */
-static double param_of(const sl_store_device_row *r, int q)
-{
-    switch (q) {
-    case SL_ANALYZE_PARAM_MOBILITY: return r->mobility_cm2_per_Vs;
-    case SL_ANALYZE_PARAM_N0: return r->n0_per_cm2;
-    default: return r->hysteresis_V;
-    }
-}
 
 static void visit(analyze_param_state *p, param_pass pass, double x)
 {
@@ -48,25 +37,22 @@ static void visit(analyze_param_state *p, param_pass pass, double x)
     }
 }
 
-/* One pass over the kept devices: each usable one's parameters visited. */
+/* One pass over the kept usable devices: each one's parameters (in the order of
+ * the SL_ANALYZE_PARAM_ indices) visited. */
 static sl_status one_pass(analyze_param_state *state, size_t n_splits, sl_store_scratch *scratch,
                           param_pass pass, sl_diag *diag)
 {
-    const sl_store_device_row *r = NULL;
-    long wafer, split;
+    double x[SL_ANALYZE_N_PARAMS];
+    long split;
+    int more;
     sl_status st;
-    while ((st = sl_store_scratch_next_kept(scratch, &wafer, &split, &r, diag)) == SL_OK && r) {
-        if (split < 0 || (size_t)split >= n_splits || strcmp(r->fit_class, "ok") != 0 ||
-            !isfinite(r->cnp_V))
+    while ((st = sl_store_scratch_next_params(scratch, &more, &split, x, diag)) == SL_OK && more) {
+        if (split < 0 || (size_t)split >= n_splits)
             continue;
-        for (int q = 0; q < SL_ANALYZE_N_PARAMS; q++) {
-            double x = param_of(r, q);
-            if (isfinite(x))
-                visit(&state[(size_t)split * SL_ANALYZE_N_PARAMS + (size_t)q], pass, x);
-        }
+        for (int q = 0; q < SL_ANALYZE_N_PARAMS; q++)
+            if (isfinite(x[q]))
+                visit(&state[(size_t)split * SL_ANALYZE_N_PARAMS + (size_t)q], pass, x[q]);
     }
-    if (r)
-        sl_store_scratch_rewind(scratch);
     return st;
 }
 
@@ -131,14 +117,16 @@ static void judge_mobility(sl_analysis *a, size_t k)
     if (isnan(sp->mobility_median_cm2_per_Vs))
         return;
     double half = SL_ANALYZE_MOBILITY_SIGMAS * d->mobility_cm2_per_Vs.sigma;
-    sp->mobility_off_plan = fabs(sp->mobility_median_cm2_per_Vs - d->mobility_cm2_per_Vs.val) > half;
+    double miss = sp->mobility_median_cm2_per_Vs - d->mobility_cm2_per_Vs.val;
+    sp->mobility_off_plan = fabs(miss) > half;
     a->n_splits_mobility_off += (size_t)sp->mobility_off_plan;
 }
 
-sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
+sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
                                sl_store_scratch *scratch, sl_diag *diag)
 {
     size_t ns = a->n_splits;
+    sl_store_scratch_params_class(scratch, "ok");
     sl_status st = one_pass(state, ns, scratch, PASS_RANGE, diag);
     if (st == SL_OK)
         st = search_all(state, ns, scratch, PASS_MEDIAN, diag);
@@ -160,7 +148,8 @@ sl_status analyze_split_params(analyze_param_state *state, sl_analysis *a,
     return SL_OK;
 }
 
-double analyze_mobility_modified_z(const analyze_param_state *state, long split, double mobility)
+double sl__analyze_mobility_modified_z(const analyze_param_state *state, long split,
+                                       double mobility)
 {
     const analyze_param_state *p = &state[(size_t)split * SL_ANALYZE_N_PARAMS];
     if (!isfinite(mobility) || p->n < SL_ANALYZE_MIN_FOR_OUTLIERS)

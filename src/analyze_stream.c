@@ -444,7 +444,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     /* one-sided: a low mobility is the failure (modified z, Iglewicz and Hoaglin 1993) */
     d->mobility_modified_z = NAN;
     if (isfinite(d->cnp_measured_V))
-        d->mobility_modified_z = analyze_mobility_modified_z(s->params, split,
+        d->mobility_modified_z = sl__analyze_mobility_modified_z(s->params, split,
                                                              d->mobility_cm2_per_Vs);
     if (d->mobility_modified_z < -SL_STATS_MODIFIED_Z_THRESHOLD)
         d->flags |= SL_FLAG_LOW_MOBILITY;
@@ -629,10 +629,21 @@ static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
     return st;
 }
 
+/* The robust scale a device of this wafer is scored with, NULL when the
+ * wafer or its dielectric has too few devices for the outlier rule. */
+static const sl_stats_robust *outlier_scale(sl_analysis_stream *s, long wafer)
+{
+    const dielectric_state *g = dielectric_of(s, s->wafer[wafer].split);
+    return s->wafer[wafer].n_usable >= SL_ANALYZE_MIN_PER_WAFER && g->n >= SL_ANALYZE_MIN_FOR_OUTLIERS
+               ? &g->robust
+               : NULL;
+}
+
 /* A censored device: which end of its sweep the neutrality point lies
  * beyond (the end where the resistance is higher, the curve still rising
  * towards its peak). Without a stored sweep, the split's gate range and
- * the side of its prediction stand in. */
+ * the side of its prediction stand in. A bound already beyond the wafer's
+ * outlier limit makes it a known outlier, out of the wafer mean. */
 static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d, long wafer,
                                sl_diag *diag)
 {
@@ -647,13 +658,15 @@ static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d
             hi = vg[i] > vg[hi] ? i : hi;
         }
         int above = r[hi] > r[lo];
-        sl__analyze_wafer_censor(&s->wafer[wafer], above, above ? vg[hi] : vg[lo]);
+        sl__analyze_wafer_censor_scored(&s->wafer[wafer], outlier_scale(s, wafer), above,
+                                       above ? vg[hi] : vg[lo]);
     } else if (st == SL_OK || st == SL_ENOTFOUND) {
         double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
         /* a results file's reported value says which end; else the prediction's side */
         double cnp_V = s->row && isfinite(s->row->cnp_V) ? s->row->cnp_V : d->cnp_predicted_V;
         int above = cnp_V > 0.5 * (lo + hi);
-        sl__analyze_wafer_censor(&s->wafer[wafer], above, above ? hi : lo);
+        sl__analyze_wafer_censor_scored(&s->wafer[wafer], outlier_scale(s, wafer), above,
+                                        above ? hi : lo);
         st = SL_OK;
     }
     free(vg);
@@ -720,7 +733,7 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
     if (st == SL_OK)
         st = dielectric_mads(s, diag);
     if (st == SL_OK)
-        st = analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
+        st = sl__analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
     if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)

@@ -33,6 +33,20 @@ void sl__analyze_wafer_censor(sl_analyze_wafer *w, int above, double bound_V)
     }
 }
 
+int sl__analyze_wafer_censor_scored(sl_analyze_wafer *w, const sl_stats_robust *robust, int above,
+                                   double bound_V)
+{
+    /* V > bound (or V < bound) with the bound itself beyond the limit: the
+     * device's modified z is beyond it too (Iglewicz and Hoaglin 1993) */
+    double m = robust ? sl_stats_modified_z_of(robust, bound_V - w->median_V) : 0.0;
+    if (above ? m > SL_STATS_MODIFIED_Z_THRESHOLD : m < -SL_STATS_MODIFIED_Z_THRESHOLD) {
+        w->n_censored_outliers++;
+        return 1;
+    }
+    sl__analyze_wafer_censor(w, above, bound_V);
+    return 0;
+}
+
 /* Doping per cm^2 of a V_cnp in a split, with its planned C_g: -C_g V / e. */
 static double per_cm2_per_V(const sl_analysis *a, long split)
 {
@@ -137,8 +151,9 @@ static void wafer_means(sl_analysis *a, const sl_layout *layout, const sl_analyz
         double g = per_cm2_per_V(a, split);
         k->mean_per_cm2[w] = g * k->mean_V[w];
         k->var_per_cm4[w] = g * g * k->var_V2[w];
-        a->splits[split].n_censored += wf[w].n_above + wf[w].n_below;
-        a->n_censored += wf[w].n_above + wf[w].n_below;
+        size_t censored = wf[w].n_above + wf[w].n_below + wf[w].n_censored_outliers;
+        a->splits[split].n_censored += censored;
+        a->n_censored += censored;
     }
 }
 

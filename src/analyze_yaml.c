@@ -4,7 +4,9 @@
  * turned back into absolute values with the newest plan's reference levels,
  * as baseline, materials, dielectrics and treatments blocks, and the
  * measured wafer and device scatter as a `variation` block, to be pasted
- * into the next plan.
+ * into the next plan. Each level keeps its plan's tolerance; a level pooled
+ * from fewer than two lots keeps its plan's sigma as a floor (see
+ * docs/statistics.md).
  */
 #include <ctype.h>
 #include <math.h>
@@ -26,29 +28,46 @@ static const sl_history_level *history_level(const sl_history *h, const char *fa
     return NULL;
 }
 
+/* Fewest lots whose pool gives the between-lot sigma. */
+#define EMIT_MIN_LOTS 2
+
 /* What a lot of this level will deliver: sigma = sqrt(tau^2 + SE^2), tau
- * the between-lot sigma (unknown from one lot: SE alone). */
-static double calibrated_sigma(const sl_history_level *l)
+ * the between-lot sigma. From one lot tau is unknown and the lot's SE alone
+ * says nothing of how the next lot scatters, so the plan's sigma stays as a
+ * floor: max(planned sigma, SE). */
+static double calibrated_sigma(const sl_history_level *l, double planned_sigma)
 {
+    if (l->pooled.k < EMIT_MIN_LOTS)
+        return fmax(fabs(planned_sigma), l->pooled.se);
     double tau = isfinite(l->pooled.tau) ? l->pooled.tau : 0.0;
     return sqrt(tau * tau + l->pooled.se * l->pooled.se);
 }
 
-/* Calibrated absolute doping of a factor's level; planned when unmeasured. */
-static sl_est calibrated(const sl_history *h, size_t factor, size_t level, int *measured)
+/* The note of a calibrated value, "" when nothing needs saying. */
+static const char *calibrated_note(const sl_history_level *l)
+{
+    return l->pooled.k < EMIT_MIN_LOTS
+               ? "   # one lot: between-lot scatter unknown, the plan's sigma kept as a floor"
+               : "";
+}
+
+/* Calibrated absolute doping of a factor's level; planned when unmeasured
+ * (*from NULL). */
+static sl_est calibrated(const sl_history *h, size_t factor, size_t level,
+                         const sl_history_level **from)
 {
     const sl_plan *p = h->newest_plan;
     const sl_plan_factor *f = &p->factors[factor];
     sl_est planned = sl__analyze_planned_level(p, factor, level);
-    *measured = 0;
+    *from = NULL;
     if (level == 0)
         return planned;
     const sl_history_level *l = history_level(h, f->name, f->levels[level], f->levels[0]);
     if (!l)
         return planned;
-    *measured = 1;
+    *from = l;
     return (sl_est){ sl__analyze_planned_level(p, factor, 0).val + l->pooled.value,
-                     calibrated_sigma(l) };
+                     calibrated_sigma(l, planned.sigma) };
 }
 
 /* A name as a YAML scalar: plain when it is made of letters, digits and
@@ -81,6 +100,15 @@ static void emit_doping(FILE *out, sl_est v)
     fprintf(out, "{ mean: %.4g, sigma: %.4g }", v.val, fabs(v.sigma));
 }
 
+/* A level's doping with the tolerance its plan judged it by (the plan's
+ * `tolerance`, else its planned sigma), so a calibrated sigma does not
+ * silently become the next plan's tolerance. */
+static void emit_level_doping(FILE *out, sl_est v, double tolerance, sl_est planned)
+{
+    fprintf(out, "{ mean: %.4g, sigma: %.4g, tolerance: %.4g }", v.val, fabs(v.sigma),
+            isnan(tolerance) ? fabs(planned.sigma) : tolerance);
+}
+
 static void emit_baseline(FILE *out, const sl_history *h)
 {
     const sl_plan *p = h->newest_plan;
@@ -92,11 +120,12 @@ static void emit_baseline(FILE *out, const sl_history *h)
         v.val = l->pooled.value;
         for (size_t f = 0; f < p->n_factors; f++)
             v.val -= sl__analyze_planned_level(p, f, 0).val;
-        v.sigma = calibrated_sigma(l);
+        v.sigma = calibrated_sigma(l, p->baseline_doping_per_cm2.sigma);
     }
     fprintf(out, "baseline_doping_per_cm2: ");
     emit_doping(out, v);
-    fprintf(out, "%s\n", l ? "   # with the reference levels as planned" : "   # not measured: planned value");
+    fprintf(out, "%s%s\n", l ? "   # with the reference levels as planned" : "   # not measured: planned value",
+            l && l->pooled.k < EMIT_MIN_LOTS ? "; one lot: the plan's sigma kept as a floor" : "");
 }
 
 /* The scatter the lots showed, for the next plan's power and analysis. */
@@ -146,8 +175,8 @@ static void emit_dielectrics(FILE *out, const sl_history *h)
     for (size_t d = 0; d < p->n_dielectrics; d++) {
         const sl_plan_dielectric *di = &p->dielectrics[d];
         long level = level_of(&p->factors[0], (long)d);
-        int measured = 0;
-        sl_est v = level >= 0 ? calibrated(h, 0, (size_t)level, &measured) : di->doping_per_cm2;
+        const sl_history_level *from = NULL;
+        sl_est v = level >= 0 ? calibrated(h, 0, (size_t)level, &from) : di->doping_per_cm2;
         fputs("  - name: ", out);
         emit_name(out, di->name);
         fputs("\n    layers:\n", out);
@@ -158,9 +187,10 @@ static void emit_dielectrics(FILE *out, const sl_history *h)
                     di->layers[i].sigma_nm);
         }
         fprintf(out, "    doping_per_cm2: ");
-        emit_doping(out, v);
-        fprintf(out, "%s\n", measured ? "" : level == 0 ? "   # reference level: planned value"
-                                                        : "   # not measured: planned value");
+        emit_level_doping(out, v, di->doping_tolerance_per_cm2, di->doping_per_cm2);
+        fprintf(out, "%s\n", from ? calibrated_note(from)
+                                  : level == 0 ? "   # reference level: planned value"
+                                               : "   # not measured: planned value");
         if (di->has_gate_range)
             fprintf(out, "    gate_range_V: [%.6g, %.6g]\n", di->gate_range_V[0], di->gate_range_V[1]);
     }
@@ -173,18 +203,19 @@ static void emit_treatments(FILE *out, const sl_history *h)
         return;
     fprintf(out, "treatments:\n");
     for (size_t t = 0; t < p->n_treatments; t++) {
-        sl_est v = p->treatments[t].doping_per_cm2;
-        int measured = 0;
-        for (size_t f = 1; f < p->n_factors && !measured; f++) {
+        const sl_plan_treatment *tr = &p->treatments[t];
+        sl_est v = tr->doping_per_cm2;
+        const sl_history_level *from = NULL;
+        for (size_t f = 1; f < p->n_factors && !from; f++) {
             long level = level_of(&p->factors[f], (long)t);
             if (level >= 0)
-                v = calibrated(h, f, (size_t)level, &measured);
+                v = calibrated(h, f, (size_t)level, &from);
         }
         fputs("  - { name: ", out);
-        emit_name(out, p->treatments[t].name);
+        emit_name(out, tr->name);
         fputs(", doping_per_cm2: ", out);
-        emit_doping(out, v);
-        fprintf(out, " }%s\n", measured ? "" : "   # not measured: planned value");
+        emit_level_doping(out, v, tr->doping_tolerance_per_cm2, tr->doping_per_cm2);
+        fprintf(out, " }%s\n", from ? calibrated_note(from) : "   # not measured: planned value");
     }
 }
 
@@ -199,8 +230,9 @@ sl_status sl_history_emit_yaml(char **yaml, const sl_history *h)
         return SL_ENOMEM;
     fprintf(out, "# Calibrated doping from %zu lot(s) with effect estimates; means are\n"
                  "# random-effects pooled (DerSimonian and Laird) over the lots that did\n"
-                 "# not drift, sigmas sqrt(between-lot sigma^2 + pooled SE^2). Paste over\n"
-                 "# the same keys of the next plan.\n",
+                 "# not drift, sigmas sqrt(between-lot sigma^2 + pooled SE^2) (from one\n"
+                 "# lot: the plan's sigma kept as a floor), tolerances the plan's. Paste\n"
+                 "# over the same keys of the next plan.\n",
             h->n_lots);
     emit_baseline(out, h);
     emit_materials(out, h->newest_plan);

@@ -23,6 +23,26 @@
 
 typedef enum { BUF_FREE = 0, BUF_FILLING, BUF_SUBMITTED, BUF_WRITTEN } buffer_state;
 
+/* Directions of stored points, run-length coded: entry k is the points of
+ * measurement ids[k], segments first[k] .. first[k + 1]. */
+typedef struct {
+    long *ids;
+    size_t *first;           /* n_ids + 1 once closed */
+    size_t n_ids, cap_ids;
+    signed char *seg_dir;
+    size_t *seg_len;
+    size_t n_segs, cap_segs;
+} dir_log;
+
+/* A later run of a device already stored: its channel and dropped points. */
+typedef struct {
+    long measurement_id;
+    double length_over_width;
+    long points_dropped;
+} revisit;
+
+static void dir_log_free(dir_log *log);
+
 struct ingest_batch {
     fit_batch buf[SL_INGEST_BUFFERS];
     buffer_state state[SL_INGEST_BUFFERS]; /* guarded by lock */
@@ -58,6 +78,13 @@ struct ingest_batch {
     char run_wafer[SL_INGEST_MAX_NAME_BYTES + 1], run_name[SL_INGEST_MAX_NAME_BYTES + 1];
     char run_die_x[32], run_die_y[32], run_t[32];
     size_t run_wafer_len, run_name_len, run_die_x_len, run_die_y_len, run_t_len;
+    /* written by the writer thread, read once drain_all is done: what the
+     * refit of a device met again needs and the store does not keep */
+    revisit *revisits;       /* one per later run of a device, in write order */
+    size_t n_revisits, cap_revisits;
+    dir_log first_dirs;      /* directions of each device's first run (a
+                                direction column only), by measurement id */
+    dir_log later_dirs;      /* directions of the later runs, in write order */
 };
 
 static void write_batch(fit_batch *batch, void *ctx);
@@ -112,6 +139,9 @@ void sl__ingest_batch_free(ingest_batch *b)
     }
     for (int i = 0; i < SL_INGEST_BUFFERS; i++)
         sl__fit_batch_free(&b->buf[i]);
+    free(b->revisits);
+    dir_log_free(&b->first_dirs);
+    dir_log_free(&b->later_dirs);
     pthread_cond_destroy(&b->changed);
     pthread_mutex_destroy(&b->lock);
     free(b);
@@ -191,6 +221,142 @@ static sl_status die_moved(const ingest_ctx *c, sl_diag *diag, long line, const 
     return sl__ingest_die_moved(c, diag, line, device, wafer, here, &stored);
 }
 
+/* ---- what a refit needs that the store does not keep ---- */
+
+static void dir_log_free(dir_log *log)
+{
+    free(log->ids);
+    free(log->first);
+    free(log->seg_dir);
+    free(log->seg_len);
+}
+
+static int dir_log_grow(dir_log *log, size_t segs)
+{
+    if (log->n_ids + 2 > log->cap_ids) {
+        size_t cap = log->cap_ids ? 2 * log->cap_ids : 256;
+        long *ids = realloc(log->ids, cap * sizeof *ids);
+        if (ids)
+            log->ids = ids;
+        size_t *first = ids ? realloc(log->first, cap * sizeof *first) : NULL;
+        if (!first)
+            return -1;
+        log->first = first;
+        log->cap_ids = cap;
+    }
+    if (log->n_segs + segs > log->cap_segs) {
+        size_t cap = 2 * log->cap_segs > log->n_segs + segs ? 2 * log->cap_segs
+                                                             : log->n_segs + segs + 256;
+        signed char *dir = realloc(log->seg_dir, cap * sizeof *dir);
+        if (dir)
+            log->seg_dir = dir;
+        size_t *len = dir ? realloc(log->seg_len, cap * sizeof *len) : NULL;
+        if (!len)
+            return -1;
+        log->seg_len = len;
+        log->cap_segs = cap;
+    }
+    return 0;
+}
+
+/* The directions of n stored points of measurement id, run-length coded. */
+static int dir_log_add(dir_log *log, long id, const signed char *dir, size_t n)
+{
+    size_t segs = 0;
+    for (size_t i = 0; i < n; i++)
+        segs += i == 0 || dir[i] != dir[i - 1];
+    if (dir_log_grow(log, segs) != 0)
+        return -1;
+    log->ids[log->n_ids] = id;
+    log->first[log->n_ids++] = log->n_segs;
+    log->first[log->n_ids] = log->n_segs + segs;
+    for (size_t i = 0; i < n; i++) {
+        if (i == 0 || dir[i] != dir[i - 1]) {
+            log->seg_dir[log->n_segs] = dir[i];
+            log->seg_len[log->n_segs++] = 0;
+        }
+        log->seg_len[log->n_segs - 1]++;
+    }
+    return 0;
+}
+
+/* Write entry k's directions at out[*at ...], at most n in all. */
+static void dir_log_put(const dir_log *log, size_t k, signed char *out, size_t *at, size_t n)
+{
+    for (size_t s = log->first[k]; s < log->first[k + 1]; s++)
+        for (size_t i = 0; i < log->seg_len[s] && *at < n; i++)
+            out[(*at)++] = log->seg_dir[s];
+}
+
+/* The directions of a device's gathered points (its first run, then its
+ * later runs in file order); false when the logs do not cover all n. */
+static bool gathered_directions(const ingest_batch *b, long id, signed char *out, size_t n)
+{
+    const dir_log *first = &b->first_dirs, *later = &b->later_dirs;
+    size_t lo = 0, hi = first->n_ids, at = 0;
+    while (lo < hi) { /* first runs are written in id order */
+        size_t mid = lo + (hi - lo) / 2;
+        if (first->ids[mid] < id)
+            lo = mid + 1;
+        else
+            hi = mid;
+    }
+    if (lo == first->n_ids || first->ids[lo] != id)
+        return false;
+    dir_log_put(first, lo, out, &at, n);
+    for (size_t k = 0; k < later->n_ids; k++)
+        if (later->ids[k] == id)
+            dir_log_put(later, k, out, &at, n);
+    return at == n;
+}
+
+/* A later run of a stored device: its channel and dropped points, added to
+ * its first run's at the refit. */
+static int note_revisit(ingest_batch *b, const fit_item *it, long measurement_id)
+{
+    if (b->n_revisits == b->cap_revisits) {
+        size_t cap = b->cap_revisits ? 2 * b->cap_revisits : 64;
+        revisit *grown = realloc(b->revisits, cap * sizeof *grown);
+        if (!grown)
+            return -1;
+        b->revisits = grown;
+        b->cap_revisits = cap;
+    }
+    b->revisits[b->n_revisits++] = (revisit){ .measurement_id = measurement_id,
+                                              .length_over_width = it->cfg.length_over_width,
+                                              .points_dropped = it->overflow + it->compliance };
+    return 0;
+}
+
+/* The device's channel (NaN when no later run was noted) and the points its
+ * later runs dropped. */
+static double revisited_channel(const ingest_batch *b, long id, long *dropped)
+{
+    double length_over_width = NAN;
+    *dropped = 0;
+    for (size_t k = 0; k < b->n_revisits; k++) {
+        if (b->revisits[k].measurement_id != id)
+            continue;
+        length_over_width = b->revisits[k].length_over_width;
+        *dropped += b->revisits[k].points_dropped;
+    }
+    return length_over_width;
+}
+
+/* The writer's notes of a stored run (first or later) for a refit. */
+static sl_status note_written(ingest_batch *b, fit_batch *f, const fit_item *it,
+                              const sl_store_insert *ins)
+{
+    int fail = 0;
+    if (ins->outcome == SL_STORE_IN_RUN)
+        fail = note_revisit(b, it, ins->measurement_id);
+    if (!fail && b->has_direction && ins->outcome == SL_STORE_ADDED)
+        fail = dir_log_add(&b->first_dirs, ins->measurement_id, f->dir + it->offset, it->n);
+    if (!fail && b->has_direction && ins->outcome == SL_STORE_IN_RUN)
+        fail = dir_log_add(&b->later_dirs, ins->measurement_id, f->dir + it->offset, it->n);
+    return fail ? SL_ENOMEM : SL_OK;
+}
+
 /* Store one fitted device; runs on the writer thread, so it reads only the
  * item and what does not change during the import. A device the run has
  * already (its rows came back later in the file) gets these rows staged
@@ -220,6 +386,8 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     if (st != SL_OK)
         return st;
     it->measurement_id = ins.measurement_id;
+    if ((st = note_written(c->batch, b, it, &ins)) != SL_OK)
+        return st;
     if (ins.outcome == SL_STORE_DIE_DIFFERS) {
         const long here[2] = { it->die_x, it->die_y };
         st = sl__ingest_die_moved(c, b->diag, it->first_line, it->name, it->wafer, here, &ins);
@@ -687,31 +855,57 @@ static sl_status check_gathered(ingest_ctx *c, const sl_store_import_device *d, 
     return SL_OK;
 }
 
+/* The device's own channel and directions, where its later runs were
+ * noted (an open device met once has neither: the plan's channel, the turn
+ * of the gate). *dir is malloc'd or NULL. */
+static sl_status refit_config(ingest_ctx *c, sl_fit_config *cfg, signed char **dir,
+                              long *dropped, const sl_store_import_device *d, size_t n)
+{
+    *dir = NULL;
+    double length_over_width = revisited_channel(c->batch, d->id, dropped);
+    if (!isnan(length_over_width))
+        cfg->length_over_width = length_over_width;
+    if (!c->batch->has_direction || n == 0)
+        return SL_OK;
+    *dir = malloc(n);
+    if (!*dir)
+        return SL_ENOMEM;
+    if (!gathered_directions(c->batch, d->id, *dir, n)) {
+        free(*dir); /* not all noted: the turn of the gate decides */
+        *dir = NULL;
+    }
+    return SL_OK;
+}
+
 static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
 {
-    /* rows of the device in several places: the wafer's gate and the plan's
-     * channel (the device's own channel is known only while its rows are read) */
+    /* rows of the device in several places: the wafer's gate, the device's
+     * own channel and directions as its rows gave them */
     sl_status cfg_st;
-    const sl_fit_config *cfg = wafer_fit(c, d->wafer, d->run_id, &cfg_st);
-    if (!cfg && cfg_st != SL_OK)
+    const sl_fit_config *wafer_cfg = wafer_fit(c, d->wafer, d->run_id, &cfg_st);
+    if (!wafer_cfg && cfg_st != SL_OK)
         return cfg_st;
-    if (!cfg) {
+    if (!wafer_cfg) {
         sl_diag_error(c->diag, "device '%s' is on a wafer this import does not know", d->name);
         return SL_EDB;
     }
+    sl_fit_config own = *wafer_cfg;
+    const sl_fit_config *cfg = &own;
     double *vg = NULL, *r = NULL;
+    signed char *dir = NULL;
+    long later_dropped = 0;
     size_t n = 0;
     sl_status st = gather_points(c, &vg, &r, &n, d->id);
     if (st == SL_OK)
         st = check_gathered(c, d, n);
+    if (st == SL_OK)
+        st = refit_config(c, &own, &dir, &later_dropped, d, n);
     sl_fit_double_result both = { 0 };
     sl_fit_result res = { 0 };
     sl_status fit_st = SL_EINPUT;
     if (st == SL_OK) {
-        /* the turn of the gate tells a double sweep here: a direction
-         * column is not kept with the staged rows */
         sl_fit_workspace *ws = sl_fit_workspace_new(n);
-        fit_st = ws ? sl_fit_double_sweep(&both, ws, cfg, vg, r, NULL, n) : SL_ENOMEM;
+        fit_st = ws ? sl_fit_double_sweep(&both, ws, cfg, vg, r, dir, n) : SL_ENOMEM;
         res = both.device;
         sl_fit_workspace_free(ws);
         st = fit_st == SL_ENOMEM ? SL_ENOMEM : SL_OK;
@@ -732,11 +926,13 @@ static sl_status refit_device(ingest_ctx *c, const sl_store_import_device *d)
         dev.r_ohm = r;
         dev.n_points = n;
         dev.hysteresis_V = both.hysteresis_V;
+        dev.points_dropped = d->points_dropped + later_dropped;
         result_to_device(&dev, &res, fit_st, cfg);
         st = sl_store_update_measurement(c->store, d->id, &dev, c->diag);
     }
     free(vg);
     free(r);
+    free(dir);
     return st;
 }
 

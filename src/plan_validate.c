@@ -1474,6 +1474,27 @@ static void warn_thermal_floor(conv *v)
     }
 }
 
+/* A level judged against a tolerance of 0 (no `tolerance` and doping sigma
+ * 0, or no doping block at all): no interval lies inside it, so the level
+ * can never be 'as-planned'. Located at the dielectric or treatment. */
+static void warn_zero_tolerance(conv *v)
+{
+    const sl_plan *p = v->p;
+    for (size_t f = 0; f < p->n_factors; f++)
+        for (size_t l = 1; l < p->factors[f].n_levels; l++) {
+            long ref = p->factors[f].level_ref[l];
+            if (ref < 0 || sl_plan_level_tolerance_per_cm2(p, f, l) > 0.0)
+                continue;
+            const yn *list = v->at[f == 0 ? K_DIELECTRICS : K_TREATMENTS];
+            const yn *at = list && (size_t)ref < list->n_items ? list->items[ref] : list;
+            sl__plan_warning(v->c, at,
+                             "%s '%s' has doping sigma 0 and no tolerance: its level is judged "
+                             "against a tolerance of 0 and can never be 'as-planned'; give "
+                             "doping_per_cm2 a sigma or a tolerance",
+                             f == 0 ? "dielectric" : "treatment", p->factors[f].levels[l]);
+        }
+}
+
 /* ---- the whole plan ---- */
 
 void sl__plan_convert(plan_ctx *c, const yn *root)
@@ -1495,6 +1516,7 @@ void sl__plan_convert(plan_ctx *c, const yn *root)
             warn_gate_ranges(&v);
             warn_cnp_outside(&v);
             warn_thermal_floor(&v);
+            warn_zero_tolerance(&v);
         }
     }
     free(v.gate_range_at);

@@ -12,7 +12,8 @@
 #include "store_internal.h"
 
 #define IMPORT_DEVICE_COLUMNS \
-    "m.id, m.run_id, d.die_x, d.die_y, coalesce(m.source_line, 0), d.wafer, d.name"
+    "m.id, m.run_id, d.die_x, d.die_y, coalesce(m.source_line, 0), d.wafer, d.name, " \
+    "coalesce(m.points_dropped, 0)"
 
 static void read_import_device(sl__stmt *st, sl_store_import_device *d)
 {
@@ -24,6 +25,7 @@ static void read_import_device(sl__stmt *st, sl_store_import_device *d)
     const char *wafer = sl__db_column_text(st, 5), *name = sl__db_column_text(st, 6);
     snprintf(d->wafer, sizeof d->wafer, "%s", wafer ? (const char *)wafer : "");
     snprintf(d->name, sizeof d->name, "%s", name ? (const char *)name : "");
+    d->points_dropped = (long)sl__db_column_int64(st, 7);
 }
 
 static sl_status append_device(sl_store_import_device **devices, size_t *count, size_t *cap,

@@ -26,6 +26,7 @@ struct sl_store_scratch {
     sl__stmt *keep;          /* a wafer's devices into the kept table */
     sl__stmt *kept, *values; /* kept devices read back: whole, or V_cnp only */
     sl__stmt *rank, *ranked; /* ranked devices: insert, read back */
+    sl__stmt *params;        /* split, mobility, n0 and hysteresis of one class */
     long last_kept;              /* rowid of the kept device last read */
     double temperature_K;        /* the view's */
     sl_store_device_row row;
@@ -110,6 +111,9 @@ static const char keep_values_sql[] =
     "INSERT INTO sl_scratch_value (grp, cnp_V) SELECT grp, cnp_V "
     "FROM sl_scratch_kept WHERE fit_class = ?1 AND cnp_V IS NOT NULL ORDER BY rowid";
 static const char values_sql[] = "SELECT grp, cnp_V FROM sl_scratch_value ORDER BY rowid";
+static const char params_sql[] =
+    "SELECT c.tag, c.mobility_cm2_per_Vs, c.n0_per_cm2, c.hysteresis_V FROM sl_scratch_kept c "
+    "WHERE c.fit_class = ?1 AND c.cnp_V IS NOT NULL ORDER BY c.rowid";
 static const char rank_sql[] =
     "INSERT INTO sl_scratch_rank (severity, wafer, device, kept_id) VALUES (?1, ?2, ?3, ?4)";
 static const char ranked_sql[] =
@@ -196,6 +200,8 @@ static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
         s = sl__store_prepare_flags(store, &x->kept, kept_sql, SL__DB_STREAM, diag);
     if (s == SL_OK)
         s = sl__store_prepare_flags(store, &x->values, values_sql, SL__DB_STREAM, diag);
+    if (s == SL_OK)
+        s = sl__store_prepare_flags(store, &x->params, params_sql, SL__DB_STREAM, diag);
     if (s == SL_OK)
         s = sl__store_prepare(store, &x->rank, rank_sql, diag);
     if (s == SL_OK)
@@ -340,6 +346,25 @@ sl_status sl_store_scratch_next_value(sl_store_scratch *x, int *more, long *grou
     return got < 0 ? SL_EDB : SL_OK;
 }
 
+void sl_store_scratch_params_class(sl_store_scratch *x, const char *fit_class)
+{
+    sl__db_reset(x->params);
+    sl__db_bind_text(x->params, 1, fit_class, -1);
+}
+
+sl_status sl_store_scratch_next_params(sl_store_scratch *x, int *more, long *tag,
+                                       double params[3], sl_diag *diag)
+{
+    int got = step_back(x, x->params, diag, "read the kept devices' parameters");
+    *more = got > 0;
+    if (got > 0) {
+        *tag = (long)sl__db_column_int64(x->params, 0);
+        for (int i = 0; i < 3; i++)
+            params[i] = sl__store_column_real_or_nan(x->params, 1 + i);
+    }
+    return got < 0 ? SL_EDB : SL_OK;
+}
+
 sl_status sl_store_scratch_rank(sl_store_scratch *x, double severity, sl_diag *diag)
 {
     sl__db_bind_double(x->rank, 1, severity);
@@ -359,6 +384,7 @@ void sl_store_scratch_rewind(sl_store_scratch *x)
 {
     sl__db_reset(x->kept);
     sl__db_reset(x->values);
+    sl__db_reset(x->params);
     sl__db_reset(x->ranked);
 }
 
@@ -369,6 +395,7 @@ void sl_store_scratch_close(sl_store_scratch *x)
     sl__db_finalize(x->keep);
     sl__db_finalize(x->kept);
     sl__db_finalize(x->values);
+    sl__db_finalize(x->params);
     sl__db_finalize(x->rank);
     sl__db_finalize(x->ranked);
     if (x->cache_set) {

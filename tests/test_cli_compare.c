@@ -398,7 +398,7 @@ START_TEST(test_history_without_measurements)
     ck_assert_int_eq(r.exit_code, 0);
     ck_assert(strstr(r.out, "baseline_doping_per_cm2: { mean: -2e+12, sigma: 8e+11 }   "
                             "# not measured: planned value") != NULL);
-    ck_assert(strstr(r.out, "name: anneal-350, doping_per_cm2: { mean: 1.2e+12, sigma: 3e+11 }") != NULL);
+    ck_assert(strstr(r.out, "name: anneal-350, doping_per_cm2: { mean: 1.2e+12, sigma: 3e+11, tolerance: 3e+11 }") != NULL);
     sl_run_result_free(&r);
     static const char *const compare[] = { "compare", "--lot", "DEMO-01", "--db", "empty/e.db",
                                            "--format", "json", NULL };

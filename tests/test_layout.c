@@ -547,6 +547,22 @@ START_TEST(layout_table_fits_and_cautions)
 }
 END_TEST
 
+/* The suggestion for a level without enough power reads as a sentence
+ * (plans/rf-highk-topgate.yaml: the anneal in furnace loads needs 4 wafers
+ * per split, and then fewer devices per wafer do), and the splits table
+ * says its device count is the expected usable devices. */
+START_TEST(layout_suggestion_reads)
+{
+    sl_run_result r = run_layout("rf-highk-topgate.yaml", "table");
+    ck_assert_int_eq(r.exit_code, 0);
+    ck_assert_msg(strstr(r.out, "pda-400: with 4 wafers per split, ") &&
+                      strstr(r.out, " devices per wafer would do"), "%s", r.out);
+    ck_assert_msg(strstr(r.out, "devices each do") == NULL, "%s", r.out);
+    ck_assert_msg(strstr(r.out, "usable devices (expected)") != NULL, "%s", r.out);
+    sl_run_result_free(&r);
+}
+END_TEST
+
 START_TEST(layout_csv_and_errors)
 {
     sl_run_result r = run_layout("hall-hbn-lowtemp.yaml", "csv");
@@ -656,6 +672,7 @@ static Suite *layout_suite(void)
     tcase_add_test(cli, layout_json_keys);
     tcase_add_test(cli, layout_table_fits_and_cautions);
     tcase_add_test(cli, layout_csv_and_errors);
+    tcase_add_test(cli, layout_suggestion_reads);
     tcase_add_test(cli, predict_stores_loads);
     tcase_add_test(cli, layout_fraction_and_simulate_cli);
     suite_add_tcase(s, cli);

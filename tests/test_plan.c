@@ -521,6 +521,9 @@ static const located_case warn_cases[] = {
     { "cnp_outside.yaml", 11, 18, "split 'ox90+anneal-350': predicted neutrality point" },
     /* n_th(300 K) e / C_g for 90 nm SiO2 is about 0.34 V, above shift_V 0.1 */
     { "shift_below_floor.yaml", 16, 21, "shift_V 0.1 V is below the thermal floor of 'ox90'" },
+    /* alox20 gives no doping block: sigma 0, tolerance 0 (plan.h:
+     * sl_plan_level_tolerance_per_cm2), so no interval can lie inside it */
+    { "zero_tolerance.yaml", 6, 5, "dielectric 'alox20' has doping sigma 0 and no tolerance" },
 };
 
 START_TEST(warning_plans_load)
@@ -569,9 +572,10 @@ static const char key_base[] =
     "lot: K-1\n"
     "temperatures_K: [300]\n"
     "dielectrics: [ { name: ox, layers: [ { material: SiO2, thickness_nm: 90 } ] },\n"
-    "               { name: ox2, layers: [ { material: SiO2, thickness_nm: 60 } ] } ]\n"
-    "treatments: [ { name: anneal, doping_per_cm2: { mean: 1e12 } },\n"
-    "              { name: cap, doping_per_cm2: { mean: 1e11 } } ]\n"
+    "               { name: ox2, layers: [ { material: SiO2, thickness_nm: 60 } ], "
+    "doping_per_cm2: { mean: 0, sigma: 1e11 } } ]\n"
+    "treatments: [ { name: anneal, doping_per_cm2: { mean: 1e12, sigma: 3e11 } },\n"
+    "              { name: cap, doping_per_cm2: { mean: 1e11, sigma: 1e11 } } ]\n"
     "%s\n"
     "wafers: 8\n"
     "devices_per_wafer: 10\n"

@@ -282,6 +282,7 @@ typedef struct {
     long run_id, die_x, die_y;
     long source_line;            /* 0 when unknown */
     char wafer[65], name[65];
+    long points_dropped;         /* overflow and compliance points left out */
 } sl_store_import_device;
 
 /* Measurements in runs >= first_run_id that still need a fit: fit class
@@ -372,6 +373,15 @@ sl_status sl_store_scratch_keep_values(sl_store_scratch *scratch, const char *fi
                                        sl_diag *diag);
 sl_status sl_store_scratch_next_value(sl_store_scratch *scratch, int *more, long *group,
                                       double *cnp_V, sl_diag *diag);
+
+/* The split (tag) and mobility, n0 and hysteresis (NaN where none) of the
+ * kept devices of one fit class that have a V_cnp, in the order kept,
+ * without their names: choose the class once, then read as
+ * sl_store_scratch_next_value (*more = 0 after the last, the next call
+ * starts over). */
+void sl_store_scratch_params_class(sl_store_scratch *scratch, const char *fit_class);
+sl_status sl_store_scratch_next_params(sl_store_scratch *scratch, int *more, long *tag,
+                                       double params[3], sl_diag *diag);
 
 /* List the device last read by sl_store_scratch_next_kept with a severity;
  * read the listed ones back as kept devices, most severe first, then by

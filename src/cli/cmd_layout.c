@@ -66,7 +66,7 @@ static void splits_table(cli_doc *doc, const sl_plan *plan, const sl_layout *l)
     cli_table *t = cli_doc_table(doc, "splits", "splits");
     split_columns(t);
     cli_table_col_list(t, "wafers", "wafers");
-    cli_table_col_fixed(t, "devices_available", "devices", 1);
+    cli_table_col_fixed(t, "devices_available", "usable devices (expected)", 1);
     const char **names = calloc(plan->n_treatments + l->n_wafers + 1, sizeof *names);
     if (!names)
         return;
@@ -209,7 +209,7 @@ static void levels_table(cli_doc *doc, const layout_view *v)
 /* One line per level that is not enough: what would make it so. */
 static void suggestion(cli_doc *doc, const sl_plan *plan, const sl_layout_level *lv)
 {
-    char text[512], each[64] = "";
+    char text[512];
     const char *name = plan->factors[lv->factor].levels[lv->level];
     if (lv->wafers_per_split_needed < 0) {
         snprintf(text, sizeof text,
@@ -220,16 +220,16 @@ static void suggestion(cli_doc *doc, const sl_plan *plan, const sl_layout_level 
         cli_doc_note(doc, text);
         return;
     }
-    int fewer = lv->devices_per_wafer_enough > 0 &&
-                lv->devices_per_wafer_enough < plan->devices_per_wafer;
-    if (fewer)
-        snprintf(each, sizeof each, lv->devices_cannot_help ? " (%ld each do)"
-                                                           : " (%ld devices each do)",
-                 lv->devices_per_wafer_enough);
-    snprintf(text, sizeof text, "%s: power %.2f < %.2f: needs %ld wafers per split%s%s", name,
+    snprintf(text, sizeof text, "%s: power %.2f < %.2f: needs %ld wafers per split%s", name,
              lv->power, plan->resolve.power, lv->wafers_per_split_needed,
-             lv->devices_cannot_help ? ", not more devices" : "", each);
+             lv->devices_cannot_help ? "; more devices would not do it" : "");
     cli_doc_note(doc, text);
+    /* the devices per wafer that suffice once the wafers are there */
+    if (lv->devices_per_wafer_enough > 0 && lv->devices_per_wafer_enough < plan->devices_per_wafer) {
+        snprintf(text, sizeof text, "%s: with %ld wafers per split, %ld devices per wafer would do",
+                 name, lv->wafers_per_split_needed, lv->devices_per_wafer_enough);
+        cli_doc_note(doc, text);
+    }
 }
 
 static void add_notes(cli_doc *doc, const layout_view *v)
