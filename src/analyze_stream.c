@@ -319,6 +319,8 @@ static void fill_device(const sl_analysis *a, sl_analyze_device *d, const sl_sto
     d->channel_width_um = isnan(r->channel_width_um) ? a->plan->channel_width_um
                                                      : r->channel_width_um;
     d->n_points = r->n_points;
+    d->electron_mobility_cm2_per_Vs = r->electron_mobility_cm2_per_Vs;
+    d->hole_mobility_cm2_per_Vs = r->hole_mobility_cm2_per_Vs;
     d->cnp_measured_V = d->deviation_V = d->z = d->modified_z = d->doping_measured_per_cm2 = NAN;
     if (fabs(r->hysteresis_V) > a->plan->max_hysteresis_V) /* NaN: no limit, or none */
         d->flags |= SL_FLAG_HYSTERESIS;
@@ -383,7 +385,12 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
                      double max_hysteresis_V, double mobility_median_cm2_per_Vs)
 {
     if (d->flags & (SL_FLAG_FIT_CLASS | SL_FLAG_UNMEASURED)) {
-        snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
+        int k = snprintf(d->reason, sizeof d->reason, "%s", class_reason(d->fit_class));
+        if (d->flags & SL_FLAG_OUTLIER && k > 0 && (size_t)k < sizeof d->reason)
+            snprintf(d->reason + k, sizeof d->reason - (size_t)k,
+                     "; already at the sweep's end %s the other devices of its wafer (modified "
+                     "z %.1f), left out of the wafer mean",
+                     d->modified_z > 0 ? "far above" : "far below", d->modified_z);
         d->severity = (d->flags & SL_FLAG_FIT_CLASS) ? 1000.0 : 500.0;
         return;
     }
@@ -430,14 +437,19 @@ static void describe(sl_analyze_device *d, double floor_per_cm2, double temperat
 
 /* Every field of a device, from its row and its wafer's and dielectric's
  * statistics. */
+static void score_censored(sl_analysis_stream *s, sl_analyze_device *d, long wafer);
+
 static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long wafer)
 {
     const sl_analysis *a = &s->owner->pub;
     sl_analyze_device *d = &s->device;
     long split = s->wafer[wafer].split;
+    s->row = r; /* before scoring: a censored device's side reads it */
     fill_device(a, d, r, split);
     if (isfinite(d->cnp_measured_V))
         score_device(s, d, wafer);
+    else if (strcmp(d->fit_class, "cnp-outside-sweep") == 0)
+        score_censored(s, d, wafer);
     /* below the thermal floor no sample can be: n = p = n_th at neutrality */
     if (isfinite(d->n0_per_cm2) && d->n0_per_cm2 < a->split_floor_per_cm2[split])
         d->flags |= SL_FLAG_BELOW_FLOOR;
@@ -644,8 +656,8 @@ static const sl_stats_robust *outlier_scale(sl_analysis_stream *s, long wafer)
  * towards its peak). Without a stored sweep, the split's gate range and
  * the side of its prediction stand in. A bound already beyond the wafer's
  * outlier limit makes it a known outlier, out of the wafer mean. */
-static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d, long wafer,
-                               sl_diag *diag)
+static sl_status censor_bound(sl_analysis_stream *s, const sl_analyze_device *d, int *above,
+                              double *bound_V, sl_diag *diag)
 {
     double *vg = NULL, *r = NULL;
     size_t n = 0;
@@ -657,21 +669,47 @@ static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d
             lo = vg[i] < vg[lo] ? i : lo;
             hi = vg[i] > vg[hi] ? i : hi;
         }
-        int above = r[hi] > r[lo];
-        sl__analyze_wafer_censor_scored(&s->wafer[wafer], outlier_scale(s, wafer), above,
-                                       above ? vg[hi] : vg[lo]);
+        *above = r[hi] > r[lo];
+        *bound_V = *above ? vg[hi] : vg[lo];
     } else if (st == SL_OK || st == SL_ENOTFOUND) {
         double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
         /* a results file's reported value says which end; else the prediction's side */
         double cnp_V = s->row && isfinite(s->row->cnp_V) ? s->row->cnp_V : d->cnp_predicted_V;
-        int above = cnp_V > 0.5 * (lo + hi);
-        sl__analyze_wafer_censor_scored(&s->wafer[wafer], outlier_scale(s, wafer), above,
-                                        above ? hi : lo);
+        *above = cnp_V > 0.5 * (lo + hi);
+        *bound_V = *above ? hi : lo;
         st = SL_OK;
     }
     free(vg);
     free(r);
     return st;
+}
+
+static sl_status censor_device(sl_analysis_stream *s, const sl_analyze_device *d, long wafer,
+                               sl_diag *diag)
+{
+    int above = 0;
+    double bound_V = NAN;
+    sl_status st = censor_bound(s, d, &above, &bound_V, diag);
+    if (st == SL_OK)
+        sl__analyze_wafer_censor_scored(&s->wafer[wafer], outlier_scale(s, wafer), above, bound_V);
+    return st;
+}
+
+/* The same rule for the device itself: flagged an outlier, with the
+ * modified z of its bound (its own lies further out), when the bound is
+ * beyond the limit; as censor_device decides, from the same inputs. */
+static void score_censored(sl_analysis_stream *s, sl_analyze_device *d, long wafer)
+{
+    const sl_stats_robust *robust = outlier_scale(s, wafer);
+    int above = 0;
+    double bound_V = NAN;
+    if (!robust || censor_bound(s, d, &above, &bound_V, NULL) != SL_OK)
+        return;
+    double m = sl_stats_modified_z_of(robust, bound_V - s->wafer[wafer].median_V);
+    if (above ? m > SL_STATS_MODIFIED_Z_THRESHOLD : m < -SL_STATS_MODIFIED_Z_THRESHOLD) {
+        d->flags |= SL_FLAG_OUTLIER;
+        d->modified_z = m;
+    }
 }
 
 /* The last pass before the devices are read back: each device counted and

@@ -207,9 +207,12 @@ static void strip_points(sl_chart_buf *buf, const sl_chart_scale *y, double cx, 
         if (flagged != flagged_pass || !isfinite(cat->values[i]))
             continue;
         const char *who = cat->labels && cat->labels[i] ? cat->labels[i] : cat->name;
-        char tip[160];
-        snprintf(tip, sizeof tip, "%s: %s%s", who ? who : "", sl__chart_value_text(cat->values[i]).s,
-                 flagged ? " (flagged)" : "");
+        char tip[256];
+        if (cat->tips && cat->tips[i])
+            snprintf(tip, sizeof tip, "%s%s", cat->tips[i], flagged ? " (flagged)" : "");
+        else
+            snprintf(tip, sizeof tip, "%s: %s%s", who ? who : "",
+                     sl__chart_value_text(cat->values[i]).s, flagged ? " (flagged)" : "");
         double px = cx + spread_offset(i, spread), py = sl_chart_scale_px(y, cat->values[i]);
         if (flagged)
             sl_chart_marker(buf, px, py, 4.0, SL_CHART_MARKER_DIAMOND, "flagged", tip);

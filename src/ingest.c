@@ -81,6 +81,12 @@ long sl__ingest_wafer_index(const ingest_ctx *c, const char *wafer)
     return sl_plan_wafer_index(c->plan, wafer);
 }
 
+/* Dies of every plan wafer. */
+static size_t die_count(const sl_plan *plan)
+{
+    return plan->n_wafers * (size_t)plan->wafer_rows * (size_t)plan->wafer_cols;
+}
+
 /* Each plan wafer's split and gate capacitance as the store has them. */
 static sl_status load_wafers(ingest_ctx *c)
 {
@@ -88,6 +94,9 @@ static sl_status load_wafers(ingest_ctx *c)
     const sl_store_revision *rev = &c->revision;
     c->wafers = calloc(plan->n_wafers ? plan->n_wafers : 1, sizeof *c->wafers);
     if (!c->wafers)
+        return SL_ENOMEM;
+    c->dies = calloc(die_count(plan) ? die_count(plan) : 1, sizeof *c->dies);
+    if (!c->dies)
         return SL_ENOMEM;
     for (size_t i = 0; i < plan->n_wafers; i++) {
         ingest_wafer *w = &c->wafers[i];
@@ -256,6 +265,52 @@ static sl_status read_die(ingest_ctx *c, long *out, sl_row_quantity q, long colu
     return SL_OK;
 }
 
+/* 64-bit FNV-1a of a device name (the FNV reference parameters, common
+ * practice for a table key) */
+static uint64_t name_hash(const char *name)
+{
+    uint64_t h = 14695981039346656037ull;
+    for (const unsigned char *p = (const unsigned char *)name; *p; p++)
+        h = (h ^ *p) * 1099511628211ull;
+    return h;
+}
+
+/* A die holds at most the devices_per_die the plan gives: a device new to
+ * a full die is an error at its row. A plan without the key puts no limit
+ * (simulate --devices-per-wafer past the map's dies shares dies). */
+static sl_status check_die_devices(ingest_ctx *c, const ingest_row *row)
+{
+    const sl_plan *p = c->plan;
+    if (!p->devices_per_die_given)
+        return SL_OK;
+    size_t at = (row->wafer_index * (size_t)p->wafer_rows +
+                 (size_t)(row->die_y - p->first_die_y)) * (size_t)p->wafer_cols +
+                (size_t)(row->die_x - p->first_die_x);
+    ingest_die *d = &c->dies[at];
+    uint64_t h = name_hash(row->device);
+    for (uint32_t i = 0; i < d->n; i++)
+        if (d->names[i] == h)
+            return SL_OK;
+    if ((long)d->n >= p->devices_per_die) {
+        sl__ingest_error_at_row(c, c->col.device,
+                                "device '%s' is one device too many at die (%ld, %ld) of wafer "
+                                "'%s': the plan's wafer_map.devices_per_die is %ld",
+                                row->device, row->die_x, row->die_y, row->wafer,
+                                p->devices_per_die);
+        return SL_EINPUT;
+    }
+    if (d->n == d->cap) {
+        uint32_t cap = d->cap ? 2 * d->cap : 4;
+        uint64_t *grown = realloc(d->names, cap * sizeof *grown);
+        if (!grown)
+            return SL_ENOMEM;
+        d->names = grown;
+        d->cap = cap;
+    }
+    d->names[d->n++] = h;
+    return SL_OK;
+}
+
 static sl_status check_wafer(ingest_ctx *c, ingest_row *row)
 {
     long w = sl__ingest_wafer_index(c, row->wafer);
@@ -401,6 +456,8 @@ sl_status sl__ingest_read_row(ingest_ctx *c, ingest_row *row)
         st = read_temperature(c, row);
     if (st == SL_OK)
         st = read_geometry(c, row);
+    if (st == SL_OK)
+        st = check_die_devices(c, row);
     return st;
 }
 
@@ -723,6 +780,10 @@ static void ctx_free(ingest_ctx *c)
     sl__ingest_hasher_free(c->hasher, NULL);
     sl__ingest_batch_free(c->batch);
     free(c->wafers);
+    if (c->dies)
+        for (size_t i = 0; i < die_count(c->plan); i++)
+            free(c->dies[i].names);
+    free(c->dies);
     sl__ingest_density_free(c->densities);
     free(c->run_ids);
     free(c->run_rows);

@@ -8,6 +8,7 @@
 
 #include <pthread.h>
 #include <stdbool.h>
+#include <stdint.h>
 
 #include "splitlot/fit.h"
 #include "splitlot/ingest.h"
@@ -55,6 +56,13 @@ ingest_hasher *sl__ingest_hasher_new(void);
 int sl__ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
 void sl__ingest_hasher_free(ingest_hasher *h, char hex[65]);
 
+/* The devices met at one die (FNV-1a hashes of their names), to hold a die
+ * to the plan's wafer_map.devices_per_die. */
+typedef struct {
+    uint64_t *names;
+    uint32_t n, cap;
+} ingest_die;
+
 typedef struct {
     sl_store *store;
     sl_diag *diag;
@@ -63,6 +71,7 @@ typedef struct {
     sl_plan *plan;           /* the stored plan text: names, wafer map, geometry */
     sl_store_revision revision; /* what predict stored: splits, wafers, C_g */
     ingest_wafer *wafers;    /* per plan wafer */
+    ingest_die *dies;        /* per plan wafer, die row and die column */
     long *run_ids;           /* per plan temperature: its run of this import */
     long *run_rows;          /* rows read per plan temperature */
     size_t default_temperature; /* for rows without a temperature */

@@ -395,6 +395,7 @@ static void read_devices_and_map(conv *v)
         read_first_die(v, f[2]);
     if (f[3])
         read_whole(v->c, f[3], "devices_per_die", 1, 1000, &p->devices_per_die);
+    p->devices_per_die_given = f[3] != NULL;
     if (read_whole(v->c, f[0], "rows", 1, 1000, &p->wafer_rows) != 0 ||
         read_whole(v->c, f[1], "cols", 1, 1000, &p->wafer_cols) != 0)
         return;

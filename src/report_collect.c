@@ -103,7 +103,7 @@ static sl_status strips_alloc(report_data *d, const sl_analysis *a)
 {
     d->strips = strips_new(a, 1);
     for (int q = 0; d->strips && q < REPORT_QUANTITIES; q++)
-        if (!(d->quantity[q] = strips_new(a, 0)))
+        if (!(d->quantity[q] = strips_new(a, 1)))
             return SL_ENOMEM;
     return d->strips ? SL_OK : SL_ENOMEM;
 }
@@ -121,7 +121,21 @@ static sl_status dies_alloc(report_data *d, const sl_plan *plan)
     return SL_OK;
 }
 
-static void add_value(report_strip *st, const sl_analyze_device *dev, double value)
+/* A device parameter in its own unit, as its tooltip shows it (the chart
+ * draws mobility and n0 on a log scale). */
+static void quantity_text(char *out, size_t size, const sl_analyze_device *d, report_quantity q)
+{
+    switch (q) {
+    case REPORT_MOBILITY: snprintf(out, size, "%.4g cm\xc2\xb2/V s", d->mobility_cm2_per_Vs); break;
+    case REPORT_N0: snprintf(out, size, "%.3g cm\xe2\x81\xbb\xc2\xb2", d->n0_per_cm2); break;
+    case REPORT_HYSTERESIS: snprintf(out, size, "%.3g V", d->hysteresis_V); break;
+    default: snprintf(out, size, "-"); break;
+    }
+}
+
+/* value (as charted) of a device; q a parameter, or -1 for V_cnp, whose
+ * label is the device alone (the chart adds the value in volts). */
+static void add_value(report_strip *st, const sl_analyze_device *dev, double value, int q)
 {
     if (st->n_points >= st->cap_points) {
         st->n_flagged_not_drawn += st->binned;
@@ -131,14 +145,19 @@ static void add_value(report_strip *st, const sl_analyze_device *dev, double val
     st->values_V[k] = value;
     st->flagged[k] = dev->flags != 0;
     if (st->labels) {
-        snprintf(st->labels[k], SL_REPORT_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
+        int n = snprintf(st->labels[k], SL_REPORT_LABEL_BYTES, "%s %s", dev->wafer, dev->device);
+        if (q >= 0 && n >= 0 && (size_t)n + 2 < SL_REPORT_LABEL_BYTES) {
+            memcpy(st->labels[k] + n, ": ", 3);
+            quantity_text(st->labels[k] + n + 2, SL_REPORT_LABEL_BYTES - (size_t)n - 2, dev,
+                          (report_quantity)q);
+        }
         st->label_ptrs[k] = st->labels[k];
     }
 }
 
 static void add_point(report_strip *st, const sl_analyze_device *dev)
 {
-    add_value(st, dev, dev->cnp_measured_V);
+    add_value(st, dev, dev->cnp_measured_V, -1);
 }
 
 /* A device parameter as charted: logarithms of mobility and n0 (their
@@ -239,7 +258,7 @@ static void add_quantities(report_data *d, const sl_analyze_device *dev)
         d->n_quantity_values[q]++;
         report_strip *s = &d->quantity[q][dev->split];
         if (!s->binned || dev->flags)
-            add_value(s, dev, v);
+            add_value(s, dev, v, q);
         else
             s->bins[bin_of(s, v)]++;
     }

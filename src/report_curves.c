@@ -37,6 +37,14 @@ static int uses_charge_balance(const sl_analyze_device *d)
     return n >= 3 && strcmp(d->fit_model + n - 3, "/qc") == 0;
 }
 
+/* "two-mobility" (with or without "/qc") and both mobilities stored. */
+static int uses_two_mobilities(const sl_analyze_device *d)
+{
+    return d->fit_model && strncmp(d->fit_model, "two-mobility", 12) == 0
+           && isfinite(d->electron_mobility_cm2_per_Vs) && isfinite(d->hole_mobility_cm2_per_Vs)
+           && d->electron_mobility_cm2_per_Vs > 0.0 && d->hole_mobility_cm2_per_Vs > 0.0;
+}
+
 static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_device *d)
 {
     cd->n_model = 0;
@@ -48,8 +56,9 @@ static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_d
         hi = fmax(hi, cd->vg_V[i]);
     }
     sl_fit_config cfg;
+    /* the device's own channel (its type or its row), as it was fitted */
     sl_fit_config_default(&cfg, a->split_capacitance_F_per_m2[d->split],
-                          a->plan->channel_length_um, a->plan->channel_width_um);
+                          d->channel_length_um, d->channel_width_um);
     sl_fit_params p = { d->cnp_measured_V, d->mobility_cm2_per_Vs, d->n0_per_cm2, d->r_contact_ohm };
     /* the density model the device was fitted with, as stored */
     sl_physics_density_table *table = NULL;
@@ -63,10 +72,14 @@ static void model_curve(curve_data *cd, const sl_analysis *a, const sl_analyze_d
             return; /* no curve rather than the wrong one */
         cfg.density_table = table;
     }
+    /* a two-mobility fit is drawn with its own electron/hole ratio */
+    double ratio = uses_two_mobilities(d) ? d->electron_mobility_cm2_per_Vs / d->hole_mobility_cm2_per_Vs
+                                          : 1.0;
     for (size_t i = 0; i < CURVE_MODEL_POINTS; i++) {
         double vg = lo + (hi - lo) * (double)i / (CURVE_MODEL_POINTS - 1);
         cd->model_vg_V[i] = vg;
-        cd->model_r_ohm[i] = sl_fit_model_ohm(&p, &cfg, vg);
+        cd->model_r_ohm[i] = ratio != 1.0 ? sl_fit_model_two_mobility_ohm(&p, ratio, &cfg, vg)
+                                          : sl_fit_model_ohm(&p, &cfg, vg);
     }
     sl_physics_density_table_free(table);
     cd->n_model = CURVE_MODEL_POINTS;
@@ -123,18 +136,28 @@ static sl_status device_curve(report_ctx *c, const sl_analyze_device *d)
     return st;
 }
 
-/* The most severe flagged devices with a stored sweep (results rows have
- * none: n_points 0). */
-static sl_status draw_curves(report_ctx *c)
+/* One reading of the flagged devices with a stored sweep (results rows
+ * have none: n_points 0), most severe first, drawing those with a fitted
+ * curve (fitted nonzero) or those without. */
+static sl_status draw_pass(report_ctx *c, int fitted)
 {
     sl_status st = SL_OK;
     const sl_analyze_device *d;
     while (c->sum->n_curves < c->opts->max_curves &&
            (st = sl__report_next_flagged(c, &d)) == SL_OK && d)
-        if (d->n_points > 0)
+        if (d->n_points > 0 && has_fit(d) == fitted)
             st = device_curve(c, d);
     sl__report_rewind(c);
     return st;
+}
+
+/* The flagged devices whose curve was fitted (outliers, off-prediction:
+ * the curve shows why) first, then shorts, opens and failed fits, whose
+ * severity ranks them first in the failure-analysis list. */
+static sl_status draw_curves(report_ctx *c)
+{
+    sl_status st = draw_pass(c, 1);
+    return st == SL_OK ? draw_pass(c, 0) : st;
 }
 
 sl_status sl__report_section_curves(report_ctx *c)
@@ -145,7 +168,8 @@ sl_status sl__report_section_curves(report_ctx *c)
     sl__report_section_open(c->buf, "curves", "Transfer curves of flagged devices");
     sl_chart_buf_printf(c->buf,
                         "<p>Resistance against gate voltage of up to %zu flagged devices with a "
-                        "stored sweep, most severe first: measured points, and the fitted model "
+                        "stored sweep, those with a fitted curve (outliers, off the prediction) "
+                        "first, each group most severe first: measured points, and the fitted model "
                         "where the extraction succeeded. Opens and shorts on a logarithmic "
                         "resistance axis.</p>\n<div class=\"curves\">\n",
                         c->opts->max_curves);

@@ -17,7 +17,7 @@
 #define SL_REPORT_STRIP_OUTLIERS_MAX 400
 /* Rows of the failure-analysis list on the page (compare lists them all). */
 #define SL_REPORT_FAILURE_ROWS_MAX 1000
-#define SL_REPORT_LABEL_BYTES 136 /* wafer and device names of at most 64 bytes */
+#define SL_REPORT_LABEL_BYTES 176 /* wafer and device names of at most 64 bytes, a value */
 
 /* What one split's strip shows: every usable device as a point, or bins
  * and the flagged devices as points. */

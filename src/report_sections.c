@@ -199,6 +199,7 @@ static void parameter_chart(report_ctx *c, sl_chart_category *cats, report_quant
         cat->name = c->a->plan->splits[s].name;
         cat->values = st->values_V;
         cat->flagged = st->flagged;
+        cat->tips = st->label_ptrs; /* device and value in its unit, not its log */
         cat->count = st->n_points;
         cat->predicted = parameter_reference(c, s, q);
         if (st->binned) {

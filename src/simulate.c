@@ -55,6 +55,8 @@ typedef struct {
     device_kind kind;
     sl_fit_params p;
     double doping_per_cm2;
+    long type;              /* plan device type, -1 without device_types */
+    sl_fit_config fit;      /* the wafer's gate with the device's own channel */
 } sim_device;
 
 void sl_simulate_options_default(sl_simulate_options *opt, uint64_t seed)
@@ -228,26 +230,26 @@ static void draw_device(sim_ctx *c, const sim_wafer *w, sim_device *dev)
 
 /* The transfer curve with n_g from the charge balance solved at vg, at the
  * measurement temperature (K). */
-static double transfer_ohm(const sim_ctx *c, const sim_wafer *w, const sl_fit_params *p,
-                           double temperature_K, double vg)
+static double transfer_ohm(const sim_ctx *c, const sim_wafer *w, const sl_fit_config *fit,
+                           const sl_fit_params *p, double temperature_K, double vg)
 {
     double vf = c->plan->fermi_velocity_m_s, mu = 0.0;
     if (sl_physics_solve_fermi_J(&mu, vg, p->cnp_V, w->cg, temperature_K, vf) != SL_OK)
         return NAN;
     double ng = sl_physics_net_density_per_m2(mu, temperature_K, vf);
-    return sl_fit_model_at_density_ohm(p, &w->fit, ng);
+    return sl_fit_model_at_density_ohm(p, fit, ng);
 }
 
 static double sweep_point_ohm(gsl_rng *rng, const sim_ctx *c, const sim_wafer *w,
-                              const sl_fit_params *p, device_kind kind, double temperature_K,
-                              double vg)
+                              const sim_device *dev, const sl_fit_params *p,
+                              double temperature_K, double vg)
 {
     double noise = 1.0 + gsl_ran_gaussian(rng, c->opt->noise_rel);
-    switch (kind) {
+    switch (dev->kind) {
     case DEV_SHORT: return 5.0 * noise;
     case DEV_OPEN: return 5.0e10 * noise;
     case DEV_POOR: return 1.0e4 * (1.0 + gsl_ran_gaussian(rng, 0.3));
-    default: return transfer_ohm(c, w, p, temperature_K, vg) * noise;
+    default: return transfer_ohm(c, w, &dev->fit, p, temperature_K, vg) * noise;
     }
 }
 
@@ -271,6 +273,13 @@ static sl_fit_params params_at(const sim_ctx *c, const sim_device *dev, size_t t
     return p;
 }
 
+/* The device_type column's text (with device_types only). */
+static const char *type_sep(const sim_device *dev) { return dev->type >= 0 ? "," : ""; }
+static const char *type_name(const sim_ctx *c, const sim_device *dev)
+{
+    return dev->type >= 0 ? c->plan->device_types[dev->type].name : "";
+}
+
 static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev, size_t t)
 {
     gsl_rng *rng = t == 0 ? c->rng : c->rng_later;
@@ -279,9 +288,10 @@ static void write_sweep(sim_ctx *c, const sim_wafer *w, const sim_device *dev, s
     long n = c->opt->points_per_sweep;
     for (long i = 0; i < n; i++) {
         double vg = w->gate_min_V + (w->gate_max_V - w->gate_min_V) * (double)i / (double)(n - 1);
-        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g,%g\n", wafer, dev->number, dev->die_x,
-                dev->die_y, vg, sweep_point_ohm(rng, c, w, &p, dev->kind, c->plan->temperatures_K[t], vg),
-                c->plan->temperatures_K[t]);
+        fprintf(c->sweeps, "%s,D%03ld,%ld,%ld,%.4f,%.6g,%g%s%s\n", wafer, dev->number,
+                dev->die_x, dev->die_y, vg,
+                sweep_point_ohm(rng, c, w, dev, &p, c->plan->temperatures_K[t], vg),
+                c->plan->temperatures_K[t], type_sep(dev), type_name(c, dev));
     }
     c->sum->sweep_rows += n;
 }
@@ -296,11 +306,12 @@ static void write_result(sim_ctx *c, const sim_wafer *w, const sim_device *dev, 
     fprintf(c->results, "%s,D%03ld,%ld,%ld,", c->plan->wafers[w->index], dev->number, dev->die_x,
             dev->die_y);
     if (dev->kind == DEV_GOOD || dev->kind == DEV_SHIFTED)
-        fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g\n", p.cnp_V + gsl_ran_gaussian(rng, 0.02),
+        fprintf(c->results, "%.4f,%.1f,%.4g,%.1f,%g%s%s\n", p.cnp_V + gsl_ran_gaussian(rng, 0.02),
                 p.mobility_cm2_per_Vs * (1.0 + gsl_ran_gaussian(rng, 0.02)), p.n0_per_cm2,
-                p.r_contact_ohm, c->plan->temperatures_K[t]);
+                p.r_contact_ohm, c->plan->temperatures_K[t], type_sep(dev), type_name(c, dev));
     else
-        fprintf(c->results, ",,,,%g\n", c->plan->temperatures_K[t]);
+        fprintf(c->results, ",,,,%g%s%s\n", c->plan->temperatures_K[t], type_sep(dev),
+                type_name(c, dev));
 }
 
 static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
@@ -312,11 +323,11 @@ static void write_device(sim_ctx *c, const sim_wafer *w, const sim_device *dev)
         if (c->opt->write_sweeps)
             write_sweep(c, w, dev, t);
     }
-    fprintf(c->truth, "%s,D%03ld,%ld,%ld,%s,%s,%.6g,%.6g,%.6g,%.6g,%.6g,%.6g\n",
+    fprintf(c->truth, "%s,D%03ld,%ld,%ld,%s,%s,%.6g,%.6g,%.6g,%.6g,%.6g,%.6g%s%s\n",
             c->plan->wafers[w->index], dev->number, dev->die_x, dev->die_y,
             c->plan->splits[w->split].name, kind_names[dev->kind], dev->p.cnp_V,
             dev->p.mobility_cm2_per_Vs, dev->p.n0_per_cm2, dev->p.r_contact_ohm,
-            dev->doping_per_cm2, w->cg * SL_NF_CM2_PER_F_M2);
+            dev->doping_per_cm2, w->cg * SL_NF_CM2_PER_F_M2, type_sep(dev), type_name(c, dev));
     c->sum->devices++;
     c->sum->faulty += dev->kind >= DEV_SHORT && dev->kind <= DEV_POOR;
     c->sum->shifted += dev->kind == DEV_SHIFTED;
@@ -340,7 +351,13 @@ static sl_status simulate_wafers(sim_ctx *c)
              * prober counts them, from wafer_map.first_die */
             long die = (k / p->devices_per_die) % cells;
             sim_device dev = { .number = k + 1, .die_x = p->first_die_x + die % p->wafer_cols,
-                               .die_y = p->first_die_y + die / p->wafer_cols };
+                               .die_y = p->first_die_y + die / p->wafer_cols, .type = -1,
+                               .fit = w.fit };
+            if (p->n_device_types > 0) { /* the die's transistors in the plan's order */
+                dev.type = (long)((size_t)k % p->n_device_types);
+                const sl_plan_device_type *ty = &p->device_types[dev.type];
+                dev.fit.length_over_width = ty->channel_length_um / ty->channel_width_um;
+            }
             draw_device(c, &w, &dev);
             write_device(c, &w, &dev);
         }
@@ -348,7 +365,10 @@ static sl_status simulate_wafers(sim_ctx *c)
     return SL_OK;
 }
 
-static FILE *open_out(const char *dir, const char *name, const char *header, sl_diag *diag)
+/* A file with its header line, which ends with a device_type column when
+ * typed (plans with device_types). */
+static FILE *open_out(const char *dir, const char *name, const char *header, bool typed,
+                      sl_diag *diag)
 {
     char path[4096];
     snprintf(path, sizeof path, "%s/%s", dir, name);
@@ -358,7 +378,7 @@ static FILE *open_out(const char *dir, const char *name, const char *header, sl_
         return NULL;
     }
     setvbuf(f, NULL, _IOFBF, 1 << 20);
-    fputs(header, f);
+    fprintf(f, "%s%s\n", header, typed ? ",device_type" : "");
     return f;
 }
 
@@ -410,15 +430,17 @@ sl_status sl_simulate_lot(sl_simulate_summary *out, const sl_plan *plan, const s
     if (st == SL_OK)
         st = draw_loads(&c);
     if (st == SL_OK) {
+        bool typed = plan->n_device_types > 0;
         c.results = open_out(out_dir, "results.csv",
-            "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,temperature_K\n", diag);
+            "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,temperature_K", typed, diag);
         c.sweeps = options->write_sweeps
                        ? open_out(out_dir, "sweeps.csv",
-                                  "wafer,device,die_x,die_y,vg_V,r_ohm,temperature_K\n", diag)
+                                  "wafer,device,die_x,die_y,vg_V,r_ohm,temperature_K", typed,
+                                  diag)
                        : NULL;
         c.truth = open_out(out_dir, "truth.csv",
             "wafer,device,die_x,die_y,split,kind,cnp_V,mobility_cm2_per_Vs,n0_per_cm2,r_contact_ohm,"
-            "doping_per_cm2,gate_capacitance_nF_per_cm2\n", diag);
+            "doping_per_cm2,gate_capacitance_nF_per_cm2", typed, diag);
         st = (c.results && c.truth && (c.sweeps || !options->write_sweeps)) ? SL_OK : SL_EIO;
     }
     if (st == SL_OK)

@@ -13,9 +13,12 @@ extern const size_t sl__pg_schema_migration_count;
 
 /* db/pg/004_*.sql makes a server database at version 4 in one step. */
 #define SL_PG_FIRST_VERSION 4
-/* Advisory lock keys: (SL_PG_LOCK_CLASS, lot id) for a lot, and
- * (SL_PG_LOCK_CLASS + 1, 0) for a migration. */
-#define SL_PG_LOCK_CLASS 21324
+/* Advisory locks hold for the whole server, whatever the schema: their
+ * first key is a hash of what they guard and of the schema splitlot's tables
+ * are in (so two splitlot databases as two schemas of one server never wait
+ * for each other), the second a lot's id, or 0 for a migration. */
+#define SL_PG_LOT_LOCK "hashtext('splitlot lot ' || current_schema())"
+#define SL_PG_MIGRATION_LOCK "hashtext('splitlot migration ' || current_schema())"
 
 static sl_status read_version(sl_store *store, int *version, sl_diag *diag)
 {
@@ -55,9 +58,8 @@ static sl_status migrate_locked(sl_store *store, sl_diag *diag)
                     sl_store_schema_version());
         return SL_EDB;
     }
-    char lock[96];
-    snprintf(lock, sizeof lock, "SELECT pg_advisory_xact_lock(%d, 0)", SL_PG_LOCK_CLASS + 1);
-    sl_status s = sl__store_exec(store, lock, diag, "wait for another client's schema migration");
+    sl_status s = sl__store_exec(store, "SELECT pg_advisory_xact_lock(" SL_PG_MIGRATION_LOCK ", 0)",
+                                diag, "wait for another client's schema migration");
     if (s == SL_OK)
         s = sl__store_exec(store, "CREATE TABLE IF NOT EXISTS splitlot_schema (version integer "
                                  "PRIMARY KEY, applied_utc text NOT NULL)",
@@ -98,7 +100,7 @@ sl_status sl__store_lock_lot(sl_store *store, long lot_id, sl_diag *diag)
 {
     if (!sl__store_is_pg(store))
         return SL_OK; /* SQLite's BEGIN IMMEDIATE has the whole file already */
-    char sql[96];
-    snprintf(sql, sizeof sql, "SELECT pg_advisory_xact_lock(%d, %ld)", SL_PG_LOCK_CLASS, lot_id);
+    char sql[128];
+    snprintf(sql, sizeof sql, "SELECT pg_advisory_xact_lock(" SL_PG_LOT_LOCK ", %ld)", lot_id);
     return sl__store_exec(store, sql, diag, "wait for another import of the lot");
 }

@@ -648,9 +648,9 @@ START_TEST(test_strip_chart_counts)
     const unsigned char fc[3] = { 0, 0, 1 };
     const char *const names_c[3] = { "W03/D1", "W03/D2", "W04/D9" };
     const sl_chart_category cats[3] = {
-        { "ox90 / none", a, fa, NULL, 5, { -1.0, 0.2 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
-        { "ox90 / <anneal>", b_, NULL, NULL, 4, { 0.5, 0.3 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
-        { "alox20 / anneal", c, fc, names_c, 3, { NAN, 0.0 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+        { "ox90 / none", a, fa, NULL, 5, { -1.0, 0.2 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0, NULL },
+        { "ox90 / <anneal>", b_, NULL, NULL, 4, { 0.5, 0.3 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0, NULL },
+        { "alox20 / anneal", c, fc, names_c, 3, { NAN, 0.0 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0, NULL },
     };
     sl_chart_frame f = demo_frame("neutrality point by split");
     sl_chart_buf b1, b2;
@@ -692,8 +692,8 @@ START_TEST(test_strip_density_and_flag_interval)
     const double out[2] = { 3.5, -2.0 };
     const unsigned char fo[2] = { 1, 1 };
     sl_chart_category cats[2] = {
-        { "big", out, fo, NULL, 2, { 0.5, 0.2 }, 1, -0.4, 1.4, "flag interval", bins, 4, 0.0, 1.0 },
-        { "small", out, NULL, NULL, 1, { 0.4, 0.1 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+        { "big", out, fo, NULL, 2, { 0.5, 0.2 }, 1, -0.4, 1.4, "flag interval", bins, 4, 0.0, 1.0, NULL },
+        { "small", out, NULL, NULL, 1, { 0.4, 0.1 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0, NULL },
     };
     sl_chart_frame f = demo_frame("density");
     sl_chart_buf b;
@@ -845,8 +845,8 @@ START_TEST(test_degenerate_inputs_stay_clean)
     const double nans[3] = { NAN, INFINITY, -INFINITY };
     const double same[3] = { 4.0, 4.0, 4.0 };
     const sl_chart_category cats[2] = {
-        { "all missing", nans, NULL, NULL, 3, { NAN, NAN }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
-        { "constant", same, NULL, NULL, 3, { 4.0, 0.0 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0 },
+        { "all missing", nans, NULL, NULL, 3, { NAN, NAN }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0, NULL },
+        { "constant", same, NULL, NULL, 3, { 4.0, 0.0 }, 0, 0.0, 0.0, NULL, NULL, 0, 0.0, 0.0, NULL },
     };
     const sl_chart_series series[2] = { { "bad", nans, nans, 3, 1, 1 },
                                         { NULL, same, same, 3, 1, 1 } };

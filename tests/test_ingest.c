@@ -1603,6 +1603,47 @@ START_TEST(refit_keeps_geometry_and_directions)
 }
 END_TEST
 
+/* A fifth device at a die of a plan with wafer_map.devices_per_die 4 is an
+ * error at its first row and device column; nothing is stored. */
+START_TEST(die_with_too_many_devices)
+{
+    char *path = sl_test_data("instrument/types_sweeps.csv");
+    char *text = sl_test_read_file(path, NULL);
+    ck_assert_ptr_nonnull(text);
+    char *dir = instrument_dir("types.yaml");
+    char *extra = sl_test_path(dir, "extra.csv");
+    FILE *f = fopen(extra, "wb");
+    ck_assert_ptr_nonnull(f);
+    fputs(text, f);
+    long lines = 0;
+    for (const char *p = text; *p; p++)
+        lines += *p == '\n';
+    for (int k = 0; k < 12; k++)
+        fprintf(f, "W01,X0Y0-EXTRA,L5,0,0,%d,%g\n", k - 6, 400.0 + k);
+    fclose(f);
+    const char *argv[] = { "ingest", "--lot", "INST-TYPES", "--sweeps", "extra.csv", "--db",
+                           "t.db", NULL };
+    sl_run_result r = sl_test_run(dir, NULL, argv);
+    ck_assert_int_eq(r.exit_code, 2);
+    char want[256];
+    snprintf(want, sizeof want,
+             "extra.csv:%ld:2: error: device 'X0Y0-EXTRA' is one device too many at die (0, 0) "
+             "of wafer 'W01': the plan's wafer_map.devices_per_die is 4",
+             lines + 1);
+    ck_assert_msg(strstr(r.err, want) != NULL, "%s", r.err);
+    sl_run_result_free(&r);
+    char *db = sl_test_path(dir, "t.db");
+    lot_devices L = load_lot_named(db, "INST-TYPES", 300.0);
+    ck_assert_uint_eq(L.n, 0);
+    lot_devices_free(&L);
+    free(db);
+    free(extra);
+    free(text);
+    free(path);
+    drop_dir(dir);
+}
+END_TEST
+
 /* A device the store has at another die: without --keep-going the import
  * fails; with it, that device is left out, reported, and its rows go to the
  * rejects file, the others stored. */
@@ -1910,6 +1951,7 @@ static Suite *ingest_suite(void)
     tcase_add_test(tc, results_edge_rows);
     tcase_add_test(tc, extraction_quality_against_truth);
     tcase_add_test(tc, refit_keeps_geometry_and_directions);
+    tcase_add_test(tc, die_with_too_many_devices);
     tcase_add_test(tc, density_model_on_two_stacks);
     tcase_add_test(tc, library_summary_counts);
     tcase_add_test(tc, instrument_drain_current_semicolon);

@@ -832,8 +832,8 @@ static int as_server_owner(const char *cmd)
 }
 
 typedef struct {
-    char dir[4096];
-    char url[4200];
+    char dir[1024]; /* a folder under the rig's temporary one */
+    char url[1200];
 } private_server;
 
 static int server_start(private_server *srv)
@@ -886,7 +886,7 @@ static int import_under_way(const char *url)
     sl__stmt *st = NULL;
     long n = 0;
     if (sl__db_prepare(store->db, "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' "
-                                  "AND classid = 21324 AND granted", 0, &st) == SL__DB_OK &&
+                                  "AND objsubid = 2 AND objid <> 0 AND granted", 0, &st) == SL__DB_OK &&
         sl__db_step(st) == SL__DB_ROW)
         n = (long)sl__db_column_int64(st, 0);
     sl__db_finalize(st);

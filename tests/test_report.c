@@ -502,9 +502,41 @@ START_TEST(test_curves_of_flagged_devices)
                                                              : SL_REPORT_DEFAULT_MAX_CURVES;
     ck_assert_uint_eq(count(g_html[0], "<figure class=\"curve\">"), expected);
     ck_assert_ptr_nonnull(strstr(g_html[0], "gate voltage (V)"));
+    /* the flagged devices with a fitted curve (outliers, off the prediction)
+     * come before the shorts, opens and failed fits, however severe those */
+    const char *first = strstr(g_html[0], "<figure class=\"curve\">");
+    ck_assert_ptr_nonnull(first);
+    const char *caption_end = strstr(first, "</figcaption>");
+    ck_assert_ptr_nonnull(caption_end);
+    char *caption = strndup(first, (size_t)(caption_end - first));
+    ck_assert_msg(strstr(caption, "(no fitted curve)") == NULL, "first curve without a fit");
+    free(caption);
+    ck_assert_uint_lt(count(g_html[0], "(no fitted curve)"), expected);
     /* DEMO-02 came from results only: nothing to draw */
     ck_assert_uint_eq(count(g_html[1], "<figure class=\"curve\">"), 0);
     ck_assert_ptr_nonnull(strstr(g_html[1], "None of the flagged devices has a stored sweep."));
+}
+END_TEST
+
+/* The device parameters' hover text names the device and gives the value
+ * in its own unit (the chart draws log10 of mobility and n0): "W03 D001:
+ * 1523 cm²/V s", as the neutrality-point chart's "W03 D001: 8.451". */
+START_TEST(test_parameter_tooltips_name_devices)
+{
+    const char *end = NULL, *sec = section(g_html[0], "parameters", &end);
+    ck_assert_ptr_nonnull(sec);
+    char *params = strndup(sec, (size_t)(end - sec));
+    const char *mob = strstr(params, "data-parameter=\"mobility\"");
+    const char *n0 = strstr(params, "data-parameter=\"n0\"");
+    ck_assert(mob && n0);
+    size_t with_unit = count_in(mob, n0, " cm\xc2\xb2/V s</title>") +
+                       count_in(mob, n0, " cm\xc2\xb2/V s (flagged)</title>");
+    size_t n0_unit = count_in(n0, NULL, " cm\xe2\x81\xbb\xc2\xb2</title>");
+    ck_assert_uint_gt(with_unit, 0);
+    ck_assert_uint_gt(n0_unit, 0);
+    ck_assert_uint_eq(with_unit, count_in(mob, n0, "<title>W"));
+    ck_assert_ptr_null(strstr(params, "<title>ox90: "));
+    free(params);
 }
 END_TEST
 
@@ -676,6 +708,52 @@ START_TEST(test_fitted_curve_of_an_outlier)
     ck_assert_uint_ge(count(h, ">fitted model</text>"), 1);
     ck_assert_uint_ge(count(h, "far above the other devices of its wafer"), 1);
     free(h);
+}
+END_TEST
+
+/* A lot fitted with the two-mobility model (ingest --model two-mobility):
+ * the analysis carries each device's own electron and hole mobilities, and
+ * the report draws the fitted curve with that model, so a device whose
+ * mobilities differ gets a curve that is not the symmetric one. */
+START_TEST(test_two_mobility_curves_use_their_model)
+{
+    const char *predict[] = { "predict", "lot1.yaml", "--db", "tm.db", NULL };
+    const char *ingest[] = { "ingest", "--lot", "DEMO-01", "--sweeps", "sim1/sweeps.csv",
+                             "--model", "two-mobility", "--db", "tm.db", NULL };
+    run_ok(predict);
+    run_ok(ingest);
+    char *db = sl_test_path(g_dir, "tm.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "DEMO-01", diag), SL_OK);
+    size_t asymmetric = 0, two_mobility = 0;
+    for (size_t i = 0; i < a->n_devices; i++) {
+        const sl_analyze_device *d = &a->devices[i];
+        if (strcmp(d->fit_class, "ok") != 0)
+            continue;
+        ck_assert_msg(strncmp(d->fit_model, "two-mobility", 12) == 0, "%s", d->fit_model);
+        two_mobility++;
+        ck_assert(isfinite(d->electron_mobility_cm2_per_Vs) && isfinite(d->hole_mobility_cm2_per_Vs));
+        asymmetric += fabs(d->electron_mobility_cm2_per_Vs / d->hole_mobility_cm2_per_Vs - 1.0) > 1e-3;
+    }
+    ck_assert_uint_gt(two_mobility, 0);
+    ck_assert_uint_gt(asymmetric, 0); /* noise alone moves a free ratio off 1 */
+    sl_report_options opts;
+    sl_report_options_default(&opts);
+    opts.max_curves = 1000;
+    sl_chart_buf b;
+    sl_chart_buf_init(&b);
+    sl_report_summary s;
+    ck_assert_int_eq(sl_report_render(&b, &s, store, a, &opts, NULL), SL_OK);
+    char *h = sl_chart_buf_detach(&b);
+    ck_assert_uint_ge(count(h, ">fitted model</text>"), 1);
+    free(h);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
 }
 END_TEST
 
@@ -933,8 +1011,10 @@ static Suite *report_suite(void)
     tcase_add_loop_test(tc, test_one_marker_per_flagged_usable_device, 0, 2);
     tcase_add_loop_test(tc, test_off_plan_verdict, 0, 2);
     tcase_add_test(tc, test_curves_of_flagged_devices);
+    tcase_add_test(tc, test_parameter_tooltips_name_devices);
     tcase_add_test(tc, test_history_with_two_lots);
     tcase_add_test(tc, test_fitted_curve_of_an_outlier);
+    tcase_add_test(tc, test_two_mobility_curves_use_their_model);
     tcase_add_test(tc, test_effects_note_when_not_estimable);
     tcase_add_test(tc, test_render_is_deterministic);
     tcase_add_loop_test(tc, test_stream_renders_the_same_page, 0, 2);

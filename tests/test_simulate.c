@@ -12,6 +12,7 @@
 
 #include "splitlot/layout.h"
 #include "splitlot/plan.h"
+#include "splitlot/store.h"
 #include "test_support.h"
 
 #define DEMO_PLAN SL_SOURCE_DIR "/plans/demo.yaml"
@@ -317,6 +318,77 @@ END_TEST
  * the residual density with the 77 K thermal floor in place of the 300 K
  * one, n0(77)^2 = n0(300)^2 - n_th(300)^2 + n_th(77)^2; --temperature-K
  * keeps one temperature, and one the plan lacks is refused. */
+/* A plan with device_types: each device's type in a device_type column of
+ * sweeps, results and truth, its curve drawn with its type's channel, so
+ * that the imported lot's mobility comes back per type (within 5 % of the
+ * drawn value on 90 nm SiO2, where the fit's density model is the
+ * simulation's). */
+START_TEST(device_types_come_back)
+{
+    char *dir = sl_test_tmpdir();
+    char *plan = sl_test_data("instrument/types.yaml");
+    const char *predict[] = { "predict", plan, "--db", "t.db", NULL };
+    sl_run_result r = sl_test_run(dir, NULL, predict);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *sim[] = { "simulate", plan, "--out", "sim", "--seed", "3", NULL };
+    r = sl_test_run(dir, NULL, sim);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *ingest[] = { "ingest", "--lot", "INST-TYPES", "--sweeps", "sim/sweeps.csv",
+                             "--db", "t.db", NULL };
+    r = sl_test_run(dir, NULL, ingest);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    char *truth_path = sl_test_path(dir, "sim/truth.csv");
+    char *truth = sl_test_read_file(truth_path, NULL);
+    ck_assert_ptr_nonnull(truth);
+    ck_assert_msg(strstr(truth, "gate_capacitance_nF_per_cm2,device_type\n"), "%s", truth);
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_store_lot lot;
+    char *db = sl_test_path(dir, "t.db");
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_store_find_lot(store, &lot, "INST-TYPES", diag), SL_OK);
+    sl_store_device_row *rows = NULL;
+    size_t n = 0, checked = 0, types_seen = 0;
+    ck_assert_int_eq(sl_store_load_devices(store, &rows, &n, lot.lot_id, "final", 300.0, diag),
+                     SL_OK);
+    char seen[4][16] = { "", "", "", "" };
+    for (const char *line = strchr(truth, '\n') + 1; *line; line = strchr(line, '\n') + 1) {
+        char wafer[16], name[16], kind[32], type[16];
+        double mobility;
+        int got = sscanf(line, "%15[^,],%15[^,],%*[^,],%*[^,],%*[^,],%31[^,],%*[^,],%lf,%*[^,],"
+                         "%*[^,],%*[^,],%*[^,],%15[^,\n]", wafer, name, kind, &mobility, type);
+        ck_assert_int_eq(got, 5);
+        for (size_t i = 0; strcmp(kind, "good") == 0 && i < n; i++) {
+            if (strcmp(rows[i].wafer, wafer) != 0 || strcmp(rows[i].name, name) != 0)
+                continue;
+            ck_assert_msg(fabs(rows[i].mobility_cm2_per_Vs / mobility - 1) < 0.05,
+                          "%s/%s (%s): mobility %.0f, drawn %.0f cm^2/Vs", wafer, name, type,
+                          rows[i].mobility_cm2_per_Vs, mobility);
+            checked++;
+        }
+        size_t k = 0;
+        while (k < types_seen && strcmp(seen[k], type) != 0)
+            k++;
+        if (k == types_seen && k < 4)
+            snprintf(seen[types_seen++], sizeof seen[0], "%s", type);
+    }
+    ck_assert_uint_eq(types_seen, 4); /* L5, L10, L20, L40 */
+    ck_assert_msg(checked > 20, "%zu good devices checked", checked);
+    free(rows);
+    sl_store_lot_clear(&lot);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    free(truth);
+    free(truth_path);
+    free(plan);
+    drop_dir(dir);
+}
+END_TEST
+
 START_TEST(every_plan_temperature)
 {
     /* n_th(T) = (pi/6)(k_B T / hbar v_F)^2 (Fang et al., Appl. Phys. Lett. 91,
@@ -392,6 +464,7 @@ static Suite *simulate_suite(void)
     tcase_add_test(tc, unknown_level_refused);
     tcase_add_test(tc, counts_match_plan);
     tcase_add_test(tc, every_plan_temperature);
+    tcase_add_test(tc, device_types_come_back);
     tcase_add_test(tc, load_scatter_shared_by_a_load);
     suite_add_tcase(s, tc);
     return s;

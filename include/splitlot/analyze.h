@@ -72,6 +72,8 @@ typedef struct {
      * and n_g combine in the transfer curve); n_th alone without n*. */
     double floor_predicted_per_cm2;
     double channel_length_um, channel_width_um;       /* the device's, else the plan's */
+    double electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs; /* the two-mobility
+                                    fit's own (NaN for the symmetric model) */
 } sl_analyze_device;
 
 typedef struct {

@@ -374,6 +374,9 @@ typedef struct {
     const size_t *bins;
     size_t n_bins;
     double bins_low, bins_high;
+    const char *const *tips;      /* per value whole tooltip (device and value in
+                                     its own unit, for a value drawn on another
+                                     scale), or NULL: "<label>: <value>" */
 } sl_chart_category;
 
 /* Strip chart: per category the predicted value as a line with +/-1 sigma and

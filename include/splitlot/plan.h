@@ -162,6 +162,7 @@ typedef struct sl_plan {
      * first_die_x .. first_die_x + wafer_cols - 1, die_y likewise */
     long first_die_x, first_die_y;
     long devices_per_die;             /* wafer_map.devices_per_die, default 1 */
+    bool devices_per_die_given;       /* the plan says it: ingest holds a die to it */
     sl_plan_device_type *device_types; /* device_types, none when absent */
     size_t n_device_types;
     double max_hysteresis_V;          /* device.max_hysteresis_V; NaN: no limit */
