@@ -103,7 +103,8 @@ static lot_devices load_lot_named(const char *db, const char *lot_name, double t
     ck_assert_int_eq(sl_store_find_lot(store, &lot, lot_name, diag), SL_OK);
     ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, "final",
                                            temperature_K, diag), SL_OK);
-    qsort(L.rows, L.n, sizeof *L.rows, row_order);
+    if (L.n) /* qsort of a NULL array is undefined, even of 0 rows */
+        qsort(L.rows, L.n, sizeof *L.rows, row_order);
     L.vg = calloc(L.n + 1, sizeof *L.vg);
     L.r = calloc(L.n + 1, sizeof *L.r);
     L.n_points = calloc(L.n + 1, sizeof *L.n_points);
