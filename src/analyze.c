@@ -45,6 +45,7 @@ void sl_analysis_free(sl_analysis *a)
     sl_store_runs_free(a->runs, a->n_runs);
     sl_plan_free(a->plan);
     sl_store_lot_clear(&a->lot);
+    sl_store_lot_clear(&a->view_revision);
     free(o);
 }
 

@@ -170,7 +170,7 @@ static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_v
                               sl_diag *diag)
 {
     sl_store_lot *lots = NULL;
-    size_t n = 0;
+    size_t n = 0, skipped = 0;
     sl_status st = sl_store_load_lots(store, &lots, &n, diag);
     h->lot_names = calloc(n + 1, sizeof *h->lot_names);
     h->lot_created = calloc(n + 1, sizeof *h->lot_created);
@@ -183,12 +183,20 @@ static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_v
         sl_analysis_stream *stream = NULL; /* the effects are all it needs */
         size_t before = sl_diag_size(diag);
         st = sl_analyze_lot_stream_view(&stream, store, lots[i].lot, view, diag);
-        if (st == SL_ENOTFOUND) { /* a lot whose plan lacks the temperature: no estimates */
+        if (st == SL_ENOTFOUND) { /* a lot without the step, or whose plan lacks the
+                                     temperature: no estimates */
             sl_diag_truncate(diag, before);
             st = SL_OK;
+            skipped++;
             continue;
         }
         sl_analysis *a = st == SL_OK ? &sl__analysis_stream_release(stream)->pub : NULL;
+        if (a) { /* the lot as the revision its view was measured against stored it */
+            free(h->lot_created[i]);
+            h->lot_created[i] = dup_or_empty(a->view_revision.created_utc);
+            if (!h->lot_created[i])
+                st = SL_ENOMEM;
+        }
         if (st == SL_OK)
             st = add_lot(h, a, i, n);
         if (st == SL_OK)
@@ -202,6 +210,10 @@ static sl_status collect_lots(sl_history *h, sl_store *store, const sl_analyze_v
     for (size_t i = 0; i < n; i++)
         sl_store_lot_clear(&lots[i]);
     free(lots);
+    if (st == SL_OK && n && skipped == n && view && view->step) {
+        sl_diag_error(diag, "no lot has measurements at step '%s'", view->step);
+        st = SL_ENOTFOUND;
+    }
     return st;
 }
 

@@ -70,13 +70,38 @@ static long temperature_index(const sl_store_revision *rev, double temperature_K
     return -1;
 }
 
+/* A step asked for that none of the lot's runs measured (a lot with runs):
+ * SL_ENOTFOUND, naming the steps it has. */
+static sl_status step_measured(const sl_analysis *a, const char *step, sl_diag *diag)
+{
+    char steps[256] = "";
+    size_t k = 0;
+    for (size_t i = 0; i < a->n_runs; i++) {
+        if (strcmp(a->runs[i].step, step) == 0)
+            return SL_OK;
+        int seen = 0;
+        for (size_t j = 0; j < i && !seen; j++)
+            seen = strcmp(a->runs[j].step, a->runs[i].step) == 0;
+        if (!seen && k < sizeof steps)
+            k += (size_t)snprintf(steps + k, sizeof steps - k, "%s%s", k ? ", " : "",
+                                  a->runs[i].step);
+    }
+    if (a->n_runs == 0)
+        return SL_OK; /* nothing measured yet: an empty view */
+    sl_diag_error(diag, "lot %s has no measurements at step '%s' (steps: %s)", a->lot.lot, step,
+                  steps);
+    return SL_ENOTFOUND;
+}
+
 /* The step and temperature shown, and the revision of the view's newest
  * run (the lot's newest revision when the view has no run). */
 static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
                              const sl_analyze_view *view, sl_diag *diag)
 {
     sl_store_revision newest;
-    sl_status st = sl_store_load_revision(store, &newest, a->lot.revision_id, diag);
+    sl_status st = view && view->step ? step_measured(a, view->step, diag) : SL_OK;
+    if (st == SL_OK)
+        st = sl_store_load_revision(store, &newest, a->lot.revision_id, diag);
     if (st != SL_OK)
         return st;
     st = sl_store_default_view(store, a->step, &a->temperature_K, a->lot.lot_id,
@@ -102,13 +127,19 @@ static sl_status choose_view(sl_analysis *a, long *revision_id, sl_store *store,
     return st;
 }
 
-/* The stored plan text, parsed for its factors, levels and names; its
- * splits must be the stored revision's, in the same order. */
-static sl_status load_plan(sl_analysis *a, const sl_store_revision *rev, sl_diag *diag)
+/* The plan text the view's revision stored (not the lot's newest: planned
+ * levels and tolerances are the revision's), parsed for its factors,
+ * levels and names; its splits must be the stored revision's, in order. */
+static sl_status load_plan(sl_analysis *a, sl_store *store, const sl_store_revision *rev,
+                           sl_diag *diag)
 {
+    sl_status st = sl_store_load_lot_revision(store, &a->view_revision, &a->lot, rev->revision_id,
+                                              diag);
+    if (st != SL_OK)
+        return st;
+    const sl_store_lot *v = &a->view_revision;
     size_t before = sl_diag_size(diag);
-    sl_status st = sl_plan_parse(&a->plan, a->lot.plan_text, strlen(a->lot.plan_text),
-                                 a->lot.plan_name, diag);
+    st = sl_plan_parse(&a->plan, v->plan_text, strlen(v->plan_text), v->plan_name, diag);
     int same = st == SL_OK && a->plan->n_splits == rev->n_splits;
     for (size_t i = 0; same && i < rev->n_splits; i++)
         same = strcmp(a->plan->splits[i].name, rev->splits[i].name) == 0;
@@ -217,9 +248,9 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
     long revision_id = 0;
     sl_status st = sl_store_find_lot(store, &a->lot, lot, diag);
     if (st == SL_OK)
-        st = choose_view(a, &revision_id, store, view, diag);
-    if (st == SL_OK)
         st = sl_store_list_runs(store, &a->runs, &a->n_runs, a->lot.lot_id, diag);
+    if (st == SL_OK)
+        st = choose_view(a, &revision_id, store, view, diag);
     if (st == SL_OK)
         st = sl_store_load_revision(store, &rev, revision_id, diag);
     a->revision = a->lot.revision;
@@ -227,7 +258,7 @@ static sl_status load_lot(sl_analysis_stream *s, sl_store *store, const char *lo
         if (a->runs[i].revision_id == revision_id)
             a->revision = a->runs[i].revision;
     if (st == SL_OK)
-        st = load_plan(a, &rev, diag);
+        st = load_plan(a, store, &rev, diag);
     if (st == SL_OK)
         st = stored_layout(&s->layout, &rev);
     if (st == SL_OK)
@@ -413,6 +444,7 @@ static void evaluate(sl_analysis_stream *s, const sl_store_device_row *r, long w
     const sl_analysis *a = &s->owner->pub;
     sl_analyze_device *d = &s->device;
     long split = s->wafer[wafer].split;
+    s->row = r; /* before scoring: a censored device's side reads it */
     fill_device(a, d, r, split);
     if (isfinite(d->cnp_measured_V))
         score_device(s, d, wafer);
@@ -641,7 +673,9 @@ static sl_status censor_bound(sl_analysis_stream *s, const sl_analyze_device *d,
         *bound_V = *above ? vg[hi] : vg[lo];
     } else if (st == SL_OK || st == SL_ENOTFOUND) {
         double lo = a->split_gate_min_V[d->split], hi = a->split_gate_max_V[d->split];
-        *above = d->cnp_predicted_V > 0.5 * (lo + hi);
+        /* a results file's reported value says which end; else the prediction's side */
+        double cnp_V = s->row && isfinite(s->row->cnp_V) ? s->row->cnp_V : d->cnp_predicted_V;
+        *above = cnp_V > 0.5 * (lo + hi);
         *bound_V = *above ? hi : lo;
         st = SL_OK;
     }

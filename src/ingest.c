@@ -346,6 +346,11 @@ static sl_status read_temperature(ingest_ctx *c, ingest_row *row)
     sl_status st = sl__ingest_optional_number(c, &t, SL_ROW_TEMPERATURE);
     if (st != SL_OK || isnan(t))
         return st;
+    if (!(t > 0.0)) {
+        sl__ingest_error_at_row(c, c->col.temperature, "temperature '%s' is not above 0 K",
+                            sl_rowsrc_field(c->src, SL_ROW_TEMPERATURE, NULL));
+        return SL_EINPUT;
+    }
     long k = match_temperature(c, t);
     if (k < 0) {
         char allowed[256];
@@ -554,6 +559,45 @@ static sl_status refused_row(ingest_ctx *c, const ingest_row *row, const sl_stor
     return sl__ingest_die_moved(c, c->diag, sl_rowsrc_line(c->src), row->device, row->wafer, here, ins);
 }
 
+/* A results value no device can have (a negative mobility, residual
+ * density or contact resistance): reported at its field. */
+static sl_status check_physical(ingest_ctx *c, const sl_store_device *dev)
+{
+    const struct {
+        double value;
+        sl_row_quantity q;
+        const char *what;
+    } checks[] = {
+        { dev->mobility_cm2_per_Vs, SL_ROW_MOBILITY, "a mobility" },
+        { dev->n0_per_cm2, SL_ROW_N0, "a residual carrier density" },
+        { dev->r_contact_ohm, SL_ROW_R_CONTACT, "a contact resistance" },
+    };
+    sl_status st = SL_OK;
+    for (size_t i = 0; i < sizeof checks / sizeof checks[0]; i++)
+        if (checks[i].value < 0.0) {
+            sl__ingest_error_at_row(c, sl_rowsrc_column(c->src, checks[i].q),
+                                "'%s' is negative, which %s cannot be",
+                                sl_rowsrc_field(c->src, checks[i].q, NULL), checks[i].what);
+            st = SL_EINPUT;
+        }
+    return st;
+}
+
+/* A reported neutrality point beyond the gate range the plan stored for
+ * the device's split: kept, classed as outside the sweep (the device may be
+ * damaged), not scored as a plain outlier. */
+static const char *results_class(const ingest_ctx *c, const ingest_row *row, double cnp_V)
+{
+    if (isnan(cnp_V))
+        return "unmeasured";
+    long split = c->wafers[row->wafer_index].split;
+    if (split < 0)
+        return "ok";
+    const sl_prediction *p =
+        &c->revision.predictions[(size_t)split * c->revision.n_temperatures + row->temperature];
+    return cnp_V < p->gate_min_V || cnp_V > p->gate_max_V ? "cnp-outside-sweep" : "ok";
+}
+
 static sl_status results_row(ingest_ctx *c)
 {
     ingest_row row;
@@ -576,9 +620,11 @@ static sl_status results_row(ingest_ctx *c)
                                            SL_ROW_R_CONTACT, SL_ROW_HYSTERESIS };
     for (int i = 0; st == SL_OK && i < 5; i++)
         st = sl__ingest_optional_number(c, numbers[i], quantities[i]);
+    if (st == SL_OK)
+        st = check_physical(c, &dev);
     if (st != SL_OK)
         return st;
-    dev.fit_class = isnan(dev.cnp_V) ? "unmeasured" : "ok";
+    dev.fit_class = results_class(c, &row, dev.cnp_V);
     sl_store_insert ins;
     st = sl_store_insert_measurement(c->store, &ins, c->lot.lot_id, c->run_ids[row.temperature],
                                      &dev, c->diag);
@@ -658,6 +704,11 @@ static sl_status finish_runs(ingest_ctx *c)
         c->summary->runs[k].rows = c->run_rows[t];
         c->summary->runs[k].devices = devices;
     }
+    /* a device measured at two temperatures is one device, two measurements */
+    c->summary->measurements = c->summary->devices;
+    if (st == SL_OK)
+        st = sl_store_count_import_devices(c->store, &c->summary->devices, c->lot.lot_id,
+                                           c->first_run_id, c->diag);
     return st;
 }
 

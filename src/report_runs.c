@@ -9,13 +9,14 @@
 #include "report_internal.h"
 
 static const char *const run_headings[] = {
-    "run", "step", "temperature (K)", "devices", "plan revision", "source", "SHA-256",
+    "run", "step", "temperature (K)", "devices", "current", "plan revision", "source", "SHA-256",
     "imported (UTC)", "shown",
 };
 
 static void run_row(sl_chart_buf *buf, const sl_analysis *a, const sl_store_run *r)
 {
-    int shown = strcmp(r->step, a->step) == 0 && r->temperature_K == a->temperature_K;
+    int shown = strcmp(r->step, a->step) == 0 && r->temperature_K == a->temperature_K &&
+                r->current > 0; /* superseded by later runs of the view: not shown */
     char sha[16];
     snprintf(sha, sizeof sha, "%.12s", r->source_sha256); /* enough to tell files apart */
     sl_chart_buf_printf(buf, "<tr%s>", shown ? " class=\"shown\"" : "");
@@ -23,6 +24,7 @@ static void run_row(sl_chart_buf *buf, const sl_analysis *a, const sl_store_run 
     sl__report_cell_text(buf, r->step);
     sl__report_cell_fixed(buf, r->temperature_K, 0);
     sl__report_cell_long(buf, r->devices);
+    sl__report_cell_long(buf, r->current);
     sl__report_cell_long(buf, r->revision);
     sl__report_cell_text(buf, r->source_name);
     sl__report_cell_text(buf, *sha ? sha : "n/a");

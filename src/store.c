@@ -687,6 +687,41 @@ sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
     return list_known_lots(store, lot, diag);
 }
 
+sl_status sl_store_load_lot_revision(sl_store *store, sl_store_lot *out, const sl_store_lot *lot,
+                                     long revision_id, sl_diag *diag)
+{
+    memset(out, 0, sizeof *out);
+    sl__stmt *st = NULL;
+    sl_status s = sl__store_prepare(store, &st,
+        "SELECT revision, plan_text, plan_name, created_utc FROM plan_revision "
+        "WHERE id = ?1 AND lot_id = ?2", diag);
+    if (s != SL_OK)
+        return s;
+    sl__db_bind_int64(st, 1, revision_id);
+    sl__db_bind_int64(st, 2, lot->lot_id);
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_ROW) {
+        out->lot_id = lot->lot_id;
+        out->revision_id = revision_id;
+        out->revision = sl__db_column_int64(st, 0);
+        out->lot = strdup(lot->lot);
+        out->plan_text = sl__store_column_strdup(st, 1);
+        out->plan_name = sl__store_column_strdup(st, 2);
+        out->created_utc = sl__store_column_strdup(st, 3);
+        s = out->lot && out->plan_text && out->plan_name && out->created_utc ? SL_OK : SL_ENOMEM;
+    } else if (rc == SL__DB_DONE) {
+        sl_diag_error(diag, "lot '%s': plan revision %ld is not in the database", lot->lot,
+                      revision_id);
+        s = SL_EDB;
+    } else {
+        s = sl__store_db_error(store, diag, "read a stored plan");
+    }
+    sl__db_finalize(st);
+    if (s != SL_OK)
+        sl_store_lot_clear(out);
+    return s;
+}
+
 void sl_store_lot_clear(sl_store_lot *lot)
 {
     free(lot->lot);

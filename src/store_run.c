@@ -81,6 +81,25 @@ sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const cha
     return sl__store_step_once(store, st, diag, "record the measurement run");
 }
 
+sl_status sl_store_count_import_devices(sl_store *store, long *devices, long lot_id,
+                                        long first_run_id, sl_diag *diag)
+{
+    *devices = 0;
+    sl__stmt *st = NULL;
+    sl_status s = sl__store_prepare(store, &st,
+        "SELECT count(DISTINCT m.device_id) FROM measurement m JOIN measurement_run r "
+        "ON r.id = m.run_id WHERE r.lot_id = ?1 AND r.id >= ?2", diag);
+    if (s != SL_OK)
+        return s;
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_int64(st, 2, first_run_id);
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_ROW)
+        *devices = (long)sl__db_column_int64(st, 0);
+    sl__db_finalize(st);
+    return rc == SL__DB_ROW ? SL_OK : sl__store_db_error(store, diag, "count the import's devices");
+}
+
 sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag)
 {
     return sl__store_count_query(store, id,
@@ -113,6 +132,7 @@ static int read_run(sl__stmt *st, sl_store_run *r)
     r->rows = (long)sl__db_column_int64(st, 8);
     r->devices = (long)sl__db_column_int64(st, 9);
     r->created_utc = sl__store_column_strdup(st, 10);
+    r->current = (long)sl__db_column_int64(st, 11);
     return r->step && r->kind && r->source_name && r->source_sha256 && r->created_utc;
 }
 
@@ -124,7 +144,12 @@ sl_status sl_store_list_runs(sl_store *store, sl_store_run **runs, size_t *count
     sl__stmt *st = NULL;
     sl_status s = sl__store_prepare(store, &st,
         "SELECT r.id, r.step, r.temperature_K, r.revision_id, p.revision, r.kind, r.source_name, "
-        "r.source_sha256, r.rows, r.devices, r.created_utc FROM measurement_run r "
+        "r.source_sha256, r.rows, r.devices, r.created_utc, "
+        "(SELECT count(*) FROM measurement m WHERE m.run_id = r.id AND NOT EXISTS "
+        "(SELECT 1 FROM measurement n JOIN measurement_run q ON q.id = n.run_id "
+        "WHERE n.device_id = m.device_id AND n.run_id > r.id AND q.step = r.step "
+        "AND q.temperature_K = r.temperature_K)) "
+        "FROM measurement_run r "
         "JOIN plan_revision p ON p.id = r.revision_id WHERE r.lot_id = ?1 ORDER BY r.id", diag);
     if (s != SL_OK)
         return s;

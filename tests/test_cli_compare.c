@@ -615,6 +615,113 @@ START_TEST(test_plan_revisions_after_measurement)
 }
 END_TEST
 
+/* stdout of a command run in folder, which must exit 0. */
+static char *output_in(const char *folder, const char *const *argv)
+{
+    sl_run_result r = sl_test_run(folder, NULL, argv);
+    ck_assert_msg(r.exit_code == 0, "%s: exit %d: %s", argv[0], r.exit_code, r.err);
+    free(r.err);
+    return r.out;
+}
+
+/* A revision accepted after measurement that changes a planned level (the
+ * anneal's 1.2e12 to 0.4e12, no wafer moved) leaves compare and history
+ * byte for byte as they were: the runs were measured against revision 1,
+ * whose planned levels, tolerances and predictions they keep; a run ingested
+ * under revision 2 is judged against revision 2's planned level. */
+START_TEST(test_old_runs_keep_their_plan)
+{
+    char *folder = sl_test_tmpdir();
+    sl_run_result r = predict_rev(folder, NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *simulate[] = { "simulate", "rev.yaml", "--out", "sim", "--seed", "3", NULL };
+    free(output_in(folder, simulate));
+    const char *ingest[] = { "ingest", "--lot", "REV-01", "--results", "sim/results.csv", "--db",
+                             "t.db", NULL };
+    free(output_in(folder, ingest));
+    const char *text[] = { "compare", "--lot", "REV-01", "--db", "t.db", NULL };
+    const char *history[] = { "history", "--db", "t.db", "--format", "json", NULL };
+    char *json_before = compare_in(folder, "REV-01");
+    char *text_before = output_in(folder, text), *history_before = output_in(folder, history);
+    ck_assert(strstr(json_before, "\"planned_per_cm2\": 1.2e+12") != NULL);
+
+    r = predict_rev(folder, "mean: 1.2e12", "mean: 0.4e12");
+    ck_assert_msg(r.exit_code == 0 && strstr(r.err, "stored plan as revision 2"), "%s", r.err);
+    sl_run_result_free(&r);
+    char *json_after = compare_in(folder, "REV-01");
+    char *text_after = output_in(folder, text), *history_after = output_in(folder, history);
+    ck_assert_str_eq(json_after, json_before);
+    ck_assert_str_eq(text_after, text_before);
+    ck_assert_str_eq(history_after, history_before);
+    free(json_after);
+
+    free(output_in(folder, ingest)); /* a run under revision 2: its plan now */
+    json_after = compare_in(folder, "REV-01");
+    ck_assert_int_eq(top_number(json_after, "plan_revision"), 2);
+    ck_assert(strstr(json_after, "\"planned_per_cm2\": 4e+11") != NULL);
+    ck_assert(strstr(json_after, "\"planned_per_cm2\": 1.2e+12") == NULL);
+    free(json_after);
+    free(text_after);
+    free(history_after);
+    free(json_before);
+    free(text_before);
+    free(history_before);
+    sl_test_rmtree(folder);
+    free(folder);
+}
+END_TEST
+
+/* A 77 K results file ingested twice: the second run measured every device
+ * of the first again, so the first has no current measurement and is not
+ * in the 77 K view; the second is, with all its measurements current. */
+START_TEST(test_superseded_run_not_in_view)
+{
+    char *folder = sl_test_tmpdir();
+    sl_run_result r = predict_rev(folder, NULL, NULL);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    sl_run_result_free(&r);
+    const char *simulate[] = { "simulate", "rev.yaml", "--out", "sim", "--seed", "3", NULL };
+    free(output_in(folder, simulate));
+    char *path = sl_test_path(folder, "sim/results.csv");
+    char *text = sl_test_read_file(path, NULL);
+    char *cold = malloc(strlen(text) + 1), *o = cold;
+    char *save = NULL, *line = strtok_r(text, "\n", &save);
+    o += sprintf(o, "%s\n", line);
+    while ((line = strtok_r(NULL, "\n", &save)))
+        if (strlen(line) > 3 && strcmp(line + strlen(line) - 3, ",77") == 0)
+            o += sprintf(o, "%s\n", line);
+    char *cold_path = sl_test_path(folder, "cold.csv");
+    ck_assert_int_eq(sl_test_write_file(cold_path, cold), 0);
+    const char *ingest[] = { "ingest", "--lot", "REV-01", "--results", "cold.csv", "--db", "t.db",
+                             "--format", "json", NULL };
+    char *first = output_in(folder, ingest);
+    long devices = top_number(first, "devices");
+    ck_assert_int_gt(devices, 0);
+    free(first);
+    free(output_in(folder, ingest));
+    const char *compare[] = { "compare", "--lot", "REV-01", "--db", "t.db", "--format", "json",
+                              "--temperature-K", "77", NULL };
+    char *out = output_in(folder, compare);
+    ck_assert_uint_eq(for_rows(out, "runs", run_keys), 2);
+    const char *runs = strstr(out, "\"runs\": [\n");
+    ck_assert(runs != NULL);
+    const char *row1 = strchr(runs, '\n') + 1, *row2 = strchr(row1, '\n') + 1;
+    ck_assert_msg(strstr(row1, "\"current\": 0,") && strstr(row1, "\"in_view\": false") &&
+                  strstr(row1, "\"in_view\": false") < row2, "%s", runs);
+    char want[64];
+    snprintf(want, sizeof want, "\"current\": %ld,", devices);
+    ck_assert_msg(strstr(row2, want) && strstr(row2, "\"in_view\": true"), "%s", runs);
+    free(out);
+    free(cold_path);
+    free(cold);
+    free(text);
+    free(path);
+    sl_test_rmtree(folder);
+    free(folder);
+}
+END_TEST
+
 /* compare in another view: the 77 K run of a re-probed lot, chosen by
  * --temperature-K, and a temperature the plan lacks refused (exit 2). */
 START_TEST(test_compare_views)
@@ -632,9 +739,11 @@ START_TEST(test_compare_views)
     /* the simulated sweeps hold every device at both temperatures */
     ck_assert_int_eq(top_number(r.out, "device_count"), warm);
     sl_run_result_free(&r);
-    r = compare_json("DEMO-01", "--step=after-anneal", 0);
-    ck_assert(strstr(r.out, "\"step\": \"after-anneal\"") != NULL);
-    ck_assert_int_eq(top_number(r.out, "device_count"), 0);
+    /* a step the lot has no run of is refused, naming the steps it has */
+    r = compare_json("DEMO-01", "--step=etch", 2);
+    ck_assert_str_eq(r.out, "");
+    ck_assert_str_eq(r.err, "splitlot: error: lot DEMO-01 has no measurements at step 'etch' "
+                            "(steps: final)\n");
     sl_run_result_free(&r);
 }
 END_TEST
@@ -651,8 +760,16 @@ START_TEST(test_history_and_report_views)
     sl_run_result_free(&r);
     history[7] = "--step=after-anneal"; /* no lot measured after that step */
     r = run_in(history);
-    ck_assert(strstr(r.out, "\"step\": \"after-anneal\",\n") != NULL);
-    ck_assert_int_eq(top_number(r.out, "lots_with_estimates"), 0);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_str_eq(r.out, "");
+    ck_assert_msg(strstr(r.err, "no lot has measurements at step 'after-anneal'"), "%s", r.err);
+    sl_run_result_free(&r);
+    const char *no_step[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "e.html",
+                              "--no-history", "--step", "etch", NULL };
+    r = run_in(no_step);
+    ck_assert_int_eq(r.exit_code, 2);
+    ck_assert_msg(strstr(r.err, "lot CLEAN-01 has no measurements at step 'etch' (steps: final)"),
+                  "%s", r.err);
     sl_run_result_free(&r);
     const char *report[] = { "report", "--lot", "CLEAN-01", "--db", "t.db", "--out", "v.html",
                              "--no-history", "--step", "final", NULL };
@@ -794,6 +911,8 @@ static Suite *cli_compare_suite(void)
     tcase_add_test(tc, test_compare_views);
     tcase_add_test(tc, test_history_and_report_views);
     tcase_add_test(tc, test_plan_revisions_after_measurement);
+    tcase_add_test(tc, test_old_runs_keep_their_plan);
+    tcase_add_test(tc, test_superseded_run_not_in_view);
     tcase_add_test(tc, test_same_answers_on_both_backends);
     suite_add_tcase(s, tc);
     return s;

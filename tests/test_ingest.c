@@ -103,7 +103,8 @@ static lot_devices load_lot_named(const char *db, const char *lot_name, double t
     ck_assert_int_eq(sl_store_find_lot(store, &lot, lot_name, diag), SL_OK);
     ck_assert_int_eq(sl_store_load_devices(store, &L.rows, &L.n, lot.lot_id, "final",
                                            temperature_K, diag), SL_OK);
-    qsort(L.rows, L.n, sizeof *L.rows, row_order);
+    if (L.n) /* qsort of a NULL array is undefined, even of 0 rows */
+        qsort(L.rows, L.n, sizeof *L.rows, row_order);
     L.vg = calloc(L.n + 1, sizeof *L.vg);
     L.r = calloc(L.n + 1, sizeof *L.r);
     L.n_points = calloc(L.n + 1, sizeof *L.n_points);
@@ -663,7 +664,9 @@ START_TEST(two_temperatures)
                                               "W01,B,1,0,1.0,300.2\n"), 0);
     sl_run_result r = ingest(dir, "t.db", "results", "both.csv", NULL, 0);
     ck_assert_msg(r.exit_code == 0, "%s", r.err);
-    ck_assert_msg(strstr(r.out, "devices: 3\n") != NULL, "%s", r.out);
+    /* device A at two temperatures: two devices, three measurements */
+    ck_assert_msg(strstr(r.out, "devices: 2\n") && strstr(r.out, "measurements: 3\n"), "%s",
+                  r.out);
     sl_run_result_free(&r);
     lot_devices warm = load_lot_at(db, 300.0), cold = load_lot_at(db, 77.0);
     ck_assert(warm.n == 2 && warm.rows[0].cnp_V == 1.5 && warm.rows[1].cnp_V == 1.0);
@@ -1741,6 +1744,73 @@ START_TEST(instrument_first_die_range)
 }
 END_TEST
 
+/* Values no device can have (a negative mobility, n0 or contact resistance,
+ * a temperature not above 0 K) are input errors at their field, nothing
+ * kept; --keep-going rejects the device with the reason. A neutrality point
+ * beyond the split's gate range is stored, classed outside the sweep. */
+START_TEST(impossible_values)
+{
+    char *dir = demo_dir();
+    const char *header = "wafer,device,die_x,die_y,v_cnp_V,mobility_cm2_per_Vs,n0_per_cm2,"
+                         "r_contact_ohm,temperature_K\n";
+    char text[512];
+    snprintf(text, sizeof text, "%sW01,D009,2,1,1.5,-5,-1e11,-300,300\n", header);
+    ck_assert_int_eq(write_in_dir(dir, "neg.csv", text), 0);
+    char *neg = sl_test_path(dir, "neg.csv");
+    assert_refused(dir, neg, "results", "2:6", "'-5' is negative, which a mobility cannot be");
+    sl_run_result r = ingest(dir, "t.db", "results", "neg.csv", NULL, 0);
+    ck_assert_msg(count_errors(r.err) == 3 &&
+                      strstr(r.err, "neg.csv:2:7: error: '-1e11' is negative, which a residual "
+                                    "carrier density cannot be") &&
+                      strstr(r.err, "neg.csv:2:8: error: '-300' is negative, which a contact "
+                                    "resistance cannot be"), "%s", r.err);
+    sl_run_result_free(&r);
+    snprintf(text, sizeof text, "%sW01,D009,2,1,1.5,1000,1e11,300,-5\n", header);
+    ck_assert_int_eq(write_in_dir(dir, "cold.csv", text), 0);
+    char *cold = sl_test_path(dir, "cold.csv");
+    assert_refused(dir, cold, "results", "2:9", "temperature '-5' is not above 0 K");
+
+    snprintf(text, sizeof text, "%sW01,A1,0,0,1.5,1000,1e11,300,300\n"
+                                "W01,D009,2,1,1.5,-5,1e11,300,300\n"
+                                "W01,A2,1,0,50,1000,1e11,300,300\n", header);
+    ck_assert_int_eq(write_in_dir(dir, "mixed.csv", text), 0);
+    const char *keep[] = { "ingest", "--lot", "DEMO-01", "--results", "mixed.csv", "--db", "t.db",
+                           "--keep-going", "--rejects", "rej.csv", "--format", "json", NULL };
+    r = sl_test_run(dir, NULL, keep);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    assert_json_count(r.out, "devices", 2);
+    assert_json_count(r.out, "devices_rejected", 1);
+    sl_run_result_free(&r);
+    char *rejects = sl_test_path(dir, "rej.csv");
+    char *got = sl_test_read_file(rejects, NULL);
+    ck_assert_msg(got && strstr(got, "W01,D009,2,1,1.5,-5,1e11,300,300,\"'-5' is negative, which a "
+                                     "mobility cannot be\"\n"), "%s", got);
+    free(got);
+    free(rejects);
+    /* 50 V lies beyond the gate range of every split of the demo plan
+     * (plans/demo.yaml: [-40, 40] V and [-8, 8] V) */
+    char *db = sl_test_path(dir, "t.db");
+    lot_devices L = load_lot(db);
+    ck_assert_uint_eq(L.n, 2);
+    ck_assert_str_eq(L.rows[0].name, "A1");
+    ck_assert_str_eq(L.rows[0].fit_class, "ok");
+    ck_assert_str_eq(L.rows[1].name, "A2");
+    ck_assert_str_eq(L.rows[1].fit_class, "cnp-outside-sweep");
+    ck_assert(L.rows[1].cnp_V == 50.0);
+    lot_devices_free(&L);
+    const char *compare[] = { "compare", "--lot", "DEMO-01", "--db", "t.db", "--format", "json",
+                              NULL };
+    r = sl_test_run(dir, NULL, compare);
+    ck_assert_msg(r.exit_code == 0, "%s", r.err);
+    ck_assert_msg(strstr(r.out, "neutrality point outside the swept gate range"), "%s", r.out);
+    sl_run_result_free(&r);
+    free(db);
+    free(cold);
+    free(neg);
+    drop_dir(dir);
+}
+END_TEST
+
 /* Three empty values and an unknown wafer: four located errors, nothing
  * kept; with --keep-going the other devices are stored and the four rows go
  * to the rejects file with a reason column. */
@@ -1870,6 +1940,7 @@ static Suite *ingest_suite(void)
     TCase *tc = tcase_create("ingest");
     tcase_set_timeout(tc, 300);
     tcase_add_test(tc, bad_corpus);
+    tcase_add_test(tc, impossible_values);
     tcase_add_test(tc, bad_very_long_line);
     tcase_add_test(tc, bad_rows_in_simulated_file);
     tcase_add_test(tc, csv_variants_store_identical_devices);

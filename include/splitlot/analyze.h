@@ -175,6 +175,9 @@ typedef struct sl_analysis {
     double *split_floor_per_cm2; /* stored thermal floor per split at temperature_K */
     sl_store_run *runs;          /* every run of the lot, oldest first */
     size_t n_runs;
+    /* the revision the view is read against (its plan text, name and time);
+     * lot above is the lot's newest */
+    sl_store_lot view_revision;
 } sl_analysis;
 
 /* Which measurements an analysis shows: step NULL for the step of the lot's

@@ -54,7 +54,8 @@ typedef struct {
 
 typedef struct {
     long rows;                 /* data rows read */
-    long devices;              /* devices stored */
+    long devices;              /* devices stored (while importing: measurements) */
+    long measurements;         /* device x temperature measurements stored */
     long unmeasured;           /* results rows with an empty v_cnp_V */
     long per_class[SL_FIT_CLASS_COUNT]; /* sweeps: devices per fit class */
     size_t n_runs;             /* measurement runs made: one per temperature */

@@ -90,6 +90,12 @@ sl_status sl_store_find_lot(sl_store *store, sl_store_lot *out, const char *lot,
                             sl_diag *diag);
 void sl_store_lot_clear(sl_store_lot *lot);
 
+/* One stored revision (by row id) of a found lot, as sl_store_find_lot gives
+ * the newest: what an analysis of a view reads its plan from, whichever
+ * revision is the newest. SL_OK, SL_EDB, SL_ENOMEM. */
+sl_status sl_store_load_lot_revision(sl_store *store, sl_store_lot *out, const sl_store_lot *lot,
+                                     long revision_id, sl_diag *diag);
+
 /* Names of all lots in creation order (malloc'd array of malloc'd strings). */
 sl_status sl_store_list_lots(sl_store *store, char ***names, size_t *count, sl_diag *diag);
 void sl_store_free_names(char **names, size_t count);
@@ -153,6 +159,9 @@ typedef struct {
     char *source_sha256;         /* 64 hex digits; "" for runs migrated from version 3 */
     long rows, devices;
     char *created_utc;
+    long current;                /* of its measurements, those still current: no later
+                                    run of its step and temperature measured the device
+                                    again (0: superseded, out of every view) */
 } sl_store_run;
 
 /* Start a run of a lot (inside the import's transaction); rows and devices
@@ -165,6 +174,11 @@ sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revi
  * into *devices; a run without measurements is removed. */
 sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sha256_hex,
                               long *devices, sl_diag *diag);
+
+/* The distinct devices measured by a lot's runs with ids >= first_run_id
+ * (an import's runs: a device at two temperatures counts once). */
+sl_status sl_store_count_import_devices(sl_store *store, long *devices, long lot_id,
+                                        long first_run_id, sl_diag *diag);
 
 /* Row id the next run gets: an import's runs have ids >= it. */
 sl_status sl_store_next_run_id(sl_store *store, long *id, sl_diag *diag);

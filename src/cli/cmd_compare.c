@@ -151,6 +151,7 @@ static void runs_table(cli_doc *doc, const sl_analysis *a, int table)
     cli_table_col_str(t, "step", "step");
     cli_table_col_num(t, "temperature_K", "T [K]", 6);
     cli_table_col_int(t, "devices", "devices");
+    cli_table_col_int(t, "current", "current");
     cli_table_col_int(t, "plan_revision", "rev");
     cli_table_col_str(t, "source", "source");
     cli_table_col_str(t, "source_sha256", "sha256");
@@ -165,11 +166,14 @@ static void runs_table(cli_doc *doc, const sl_analysis *a, int table)
         cli_cell_str(t, r->step);
         cli_cell_num(t, r->temperature_K);
         cli_cell_int(t, r->devices);
+        cli_cell_int(t, r->current);
         cli_cell_int(t, r->revision);
         cli_cell_str(t, r->source_name);
         cli_cell_str(t, table ? sha : r->source_sha256);
         cli_cell_str(t, r->created_utc);
-        cli_cell_bool(t, strcmp(r->step, a->step) == 0 && r->temperature_K == a->temperature_K);
+        /* in the view: of its step and temperature, with a measurement still current */
+        cli_cell_bool(t, strcmp(r->step, a->step) == 0 && r->temperature_K == a->temperature_K &&
+                             r->current > 0);
     }
 }
 

@@ -164,6 +164,7 @@ static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
     cli_doc_str(doc, "source", a->opt.path);
     cli_doc_num(doc, "rows", (double)s->rows, 15);
     cli_doc_num(doc, "devices", (double)s->devices, 15);
+    cli_doc_num(doc, "measurements", (double)s->measurements, 15);
     cli_doc_str(doc, "step", a->opt.step ? a->opt.step : "final");
     cli_doc_str(doc, "source_sha256", s->sha256);
     char sep[2] = { s->separator ? s->separator : ',', '\0' };
@@ -195,7 +196,7 @@ static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
         cli_cell_int(r, s->runs[i].rows);
         cli_cell_int(r, s->runs[i].devices);
     }
-    cli_table *t = cli_doc_table(doc, "classes", "devices by extraction class");
+    cli_table *t = cli_doc_table(doc, "classes", "measurements by extraction class");
     cli_table_col_str(t, "class", "class");
     cli_table_col_int(t, "devices", "devices");
     if (a->opt.kind == SL_INGEST_SWEEPS) {
@@ -207,7 +208,7 @@ static int print_summary(const ingest_args *a, const sl_ingest_summary *s)
     } else {
         cli_table_row(t);
         cli_cell_str(t, "measured");
-        cli_cell_int(t, s->devices - s->unmeasured);
+        cli_cell_int(t, s->measurements - s->unmeasured);
         cli_table_row(t);
         cli_cell_str(t, "unmeasured");
         cli_cell_int(t, s->unmeasured);
