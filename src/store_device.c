@@ -120,6 +120,20 @@ static sl_status find_device(sl_store *store, sl_store_insert *out, long lot_id,
     return rc == SL__DB_DONE ? SL_ENOTFOUND : sl__store_db_error(store, diag, "look up a device");
 }
 
+/* A device's identity as parameters ?1 to ?8: lot, wafer, name, die,
+ * type and channel (the same order in every insert of a device). */
+static void bind_device_identity(sl__stmt *st, long lot_id, const sl_store_device *d)
+{
+    sl__db_bind_int64(st, 1, lot_id);
+    sl__db_bind_text(st, 2, d->wafer, -1);
+    sl__db_bind_text(st, 3, d->name, -1);
+    sl__db_bind_int64(st, 4, d->die_x);
+    sl__db_bind_int64(st, 5, d->die_y);
+    bind_text_or_null(st, 6, d->device_type);
+    sl__store_bind_real_or_null(st, 7, d->channel_length_um);
+    sl__store_bind_real_or_null(st, 8, d->channel_width_um);
+}
+
 /* Insert the device; *added 0 when the lot has it already (the unique key
  * turned it away: ON CONFLICT DO NOTHING, which leaves a PostgreSQL
  * transaction usable), and nothing was written. */
@@ -134,14 +148,7 @@ static sl_status add_device(sl_store *store, int *added, long lot_id, const sl_s
     if (s != SL_OK)
         return s;
     sl__stmt *st = store->insert_device;
-    sl__db_bind_int64(st, 1, lot_id);
-    sl__db_bind_text(st, 2, d->wafer, -1);
-    sl__db_bind_text(st, 3, d->name, -1);
-    sl__db_bind_int64(st, 4, d->die_x);
-    sl__db_bind_int64(st, 5, d->die_y);
-    bind_text_or_null(st, 6, d->device_type);
-    sl__store_bind_real_or_null(st, 7, d->channel_length_um);
-    sl__store_bind_real_or_null(st, 8, d->channel_width_um);
+    bind_device_identity(st, lot_id, d);
     return step_returning(store, st, added, device_id, diag, "store a device");
 }
 
@@ -257,14 +264,7 @@ static sl_status add_new_device_pg(sl_store *store, int *added, sl_store_insert 
     if (s != SL_OK)
         return s;
     sl__stmt *st = store->insert_new_device;
-    sl__db_bind_int64(st, 1, lot_id);
-    sl__db_bind_text(st, 2, d->wafer, -1);
-    sl__db_bind_text(st, 3, d->name, -1);
-    sl__db_bind_int64(st, 4, d->die_x);
-    sl__db_bind_int64(st, 5, d->die_y);
-    bind_text_or_null(st, 6, d->device_type);
-    sl__store_bind_real_or_null(st, 7, d->channel_length_um);
-    sl__store_bind_real_or_null(st, 8, d->channel_width_um);
+    bind_device_identity(st, lot_id, d);
     sl__db_bind_int64(st, 9, run_id);
     sl__db_bind_text(st, 10, d->source, -1);
     bind_count_or_null(st, 11, d->source_line > 0 ? d->source_line : -1);
