@@ -1,9 +1,12 @@
 /* SPDX-License-Identifier: MIT
  * The SQLite driver of the store's database layer (see db_driver.h): a file
  * opened read-write (created when missing) with extended result codes, and
- * statements passed straight to SQLite.
+ * statements passed straight to SQLite, but for one shape: see
+ * rowid_returning.
  */
+#include <stdio.h>
 #include <stdlib.h>
+#include <string.h>
 
 #include <sqlite3.h>
 
@@ -14,9 +17,16 @@ typedef struct {
     sqlite3 *handle;
 } sqlite_db;
 
+/* Where a statement that gives back the new row's rowid stands. */
+typedef enum { ROWID_UNSTEPPED = 0, ROWID_ROW, ROWID_DONE } rowid_state;
+
 typedef struct {
     sl__stmt base;
     sqlite3_stmt *handle;
+    int rowid_returning;       /* see rowid_returning */
+    rowid_state state;
+    sqlite3_int64 rowid;       /* of the row inserted, in state ROWID_ROW */
+    char rowid_text[24];
 } sqlite_stmt;
 
 static sqlite3 *H(sl__db *db) { return ((sqlite_db *)db)->handle; }
@@ -69,6 +79,30 @@ static int db_exec(sl__db *db, const char *sql)
 
 static const sl__db_ops sqlite_ops;
 
+#define RETURNING_ID " RETURNING id"
+
+/* The length of sql without its RETURNING clause when it is the insert of
+ * one row that gives back its id, "INSERT INTO t (...) VALUES (...) [ON
+ * CONFLICT DO NOTHING] RETURNING id"; 0 for any other statement. Such a
+ * statement is run without the clause and the new row's rowid is handed
+ * back as its one row (none when the insert was turned away): SQLite runs
+ * a statement with RETURNING under a statement journal, which outgrows
+ * its 64 KiB in memory on 16 KiB pages and then costs two writes to a
+ * temporary file for every page the insert touches. Every table of the
+ * schema that an insert gives the id of declares it INTEGER PRIMARY KEY,
+ * the rowid. */
+static size_t rowid_returning(const char *sql)
+{
+    size_t len = strlen(sql), tail = strlen(RETURNING_ID);
+    if (strncmp(sql, "INSERT INTO ", 12) != 0 || len <= tail ||
+        strcmp(sql + len - tail, RETURNING_ID) != 0)
+        return 0;
+    const char *values = strstr(sql, ") VALUES (");
+    if (!values || strstr(sql, "SELECT") || strchr(values + 10, ';'))
+        return 0;
+    return len - tail;
+}
+
 static int db_prepare(sl__db *db, const char *sql, int flags, sl__stmt **out)
 {
     (void)flags; /* SQLite reads rows as they are stepped anyway */
@@ -76,7 +110,10 @@ static int db_prepare(sl__db *db, const char *sql, int flags, sl__stmt **out)
     if (!st)
         return SL__DB_FAIL;
     st->base.ops = &sqlite_ops;
-    if (sqlite3_prepare_v2(H(db), sql, -1, &st->handle, NULL) != SQLITE_OK) {
+    size_t without = rowid_returning(sql);
+    st->rowid_returning = without > 0;
+    if (sqlite3_prepare_v2(H(db), sql, without ? (int)without : -1, &st->handle, NULL) !=
+        SQLITE_OK) {
         free(st);
         return SL__DB_FAIL;
     }
@@ -84,13 +121,42 @@ static int db_prepare(sl__db *db, const char *sql, int flags, sl__stmt **out)
     return SL__DB_OK;
 }
 
+static sqlite_stmt *R(sl__stmt *st) { return (sqlite_stmt *)st; }
+
+/* The insert of rowid_returning: its one row is the new rowid, when the
+ * insert added a row. */
+static int step_rowid(sqlite_stmt *st)
+{
+    if (st->state != ROWID_UNSTEPPED) {
+        st->state = ROWID_DONE;
+        return SL__DB_DONE;
+    }
+    int rc = sqlite3_step(st->handle);
+    if (rc != SQLITE_DONE)
+        return SL__DB_FAIL; /* an insert without RETURNING gives no rows */
+    sqlite3 *db = sqlite3_db_handle(st->handle);
+    if (sqlite3_changes(db) != 1) {
+        st->state = ROWID_DONE;
+        return SL__DB_DONE;
+    }
+    st->rowid = sqlite3_last_insert_rowid(db);
+    st->state = ROWID_ROW;
+    return SL__DB_ROW;
+}
+
 static int st_step(sl__stmt *st)
 {
+    if (R(st)->rowid_returning)
+        return step_rowid(R(st));
     int rc = sqlite3_step(S(st));
     return rc == SQLITE_ROW ? SL__DB_ROW : rc == SQLITE_DONE ? SL__DB_DONE : SL__DB_FAIL;
 }
 
-static void st_reset(sl__stmt *st) { sqlite3_reset(S(st)); }
+static void st_reset(sl__stmt *st)
+{
+    R(st)->state = ROWID_UNSTEPPED;
+    sqlite3_reset(S(st));
+}
 
 static void st_finalize(sl__stmt *st)
 {
@@ -110,15 +176,42 @@ static void bind_blob(sl__stmt *st, int i, const void *data, size_t bytes)
 }
 static void bind_null(sl__stmt *st, int i) { sqlite3_bind_null(S(st), i); }
 
-static int column_is_null(sl__stmt *st, int c) { return sqlite3_column_type(S(st), c) == SQLITE_NULL; }
-static long long column_int64(sl__stmt *st, int c) { return sqlite3_column_int64(S(st), c); }
-static double column_double(sl__stmt *st, int c) { return sqlite3_column_double(S(st), c); }
+/* Column c is the rowid handed back by step_rowid. */
+static int is_rowid(sl__stmt *st, int c)
+{
+    return R(st)->rowid_returning && R(st)->state == ROWID_ROW && c == 0;
+}
+
+static const char *rowid_text(sl__stmt *st)
+{
+    snprintf(R(st)->rowid_text, sizeof R(st)->rowid_text, "%lld", (long long)R(st)->rowid);
+    return R(st)->rowid_text;
+}
+
+static int column_is_null(sl__stmt *st, int c)
+{
+    return !is_rowid(st, c) && sqlite3_column_type(S(st), c) == SQLITE_NULL;
+}
+static long long column_int64(sl__stmt *st, int c)
+{
+    return is_rowid(st, c) ? (long long)R(st)->rowid : sqlite3_column_int64(S(st), c);
+}
+static double column_double(sl__stmt *st, int c)
+{
+    return is_rowid(st, c) ? (double)R(st)->rowid : sqlite3_column_double(S(st), c);
+}
 static const char *column_text(sl__stmt *st, int c)
 {
-    return (const char *)sqlite3_column_text(S(st), c);
+    return is_rowid(st, c) ? rowid_text(st) : (const char *)sqlite3_column_text(S(st), c);
 }
-static const void *column_blob(sl__stmt *st, int c) { return sqlite3_column_blob(S(st), c); }
-static size_t column_bytes(sl__stmt *st, int c) { return (size_t)sqlite3_column_bytes(S(st), c); }
+static const void *column_blob(sl__stmt *st, int c)
+{
+    return is_rowid(st, c) ? rowid_text(st) : sqlite3_column_blob(S(st), c);
+}
+static size_t column_bytes(sl__stmt *st, int c)
+{
+    return is_rowid(st, c) ? strlen(rowid_text(st)) : (size_t)sqlite3_column_bytes(S(st), c);
+}
 
 static const sl__db_ops sqlite_ops = {
     db_close, db_errmsg, db_errkind, db_syserr, db_readonly, db_in_transaction, db_changes,

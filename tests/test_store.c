@@ -1403,6 +1403,52 @@ START_TEST(sha256_fips_examples)
 }
 END_TEST
 
+/* ---- the SQLite driver ---- */
+
+/* An insert of one row with RETURNING id, run by the SQLite driver without
+ * the clause (db_sqlite.c): the new rowid comes back as the one row, an
+ * insert turned away by ON CONFLICT DO NOTHING gives none, the statement
+ * can be reset and stepped again, and an insert of another shape keeps
+ * SQLite's own RETURNING. */
+START_TEST(driver_insert_returning_id)
+{
+    char *dir = sl_test_tmpdir();
+    char *path = sl_test_path(dir, "driver.db");
+    sl__db *db = NULL;
+    ck_assert_int_eq(sl__db_open(&db, path), SL__DB_OK);
+    ck_assert_int_eq(sl__db_exec(db, "CREATE TABLE t (id INTEGER PRIMARY KEY, name TEXT UNIQUE)"),
+                     SL__DB_OK);
+    sl__stmt *ins = NULL, *copy = NULL;
+    ck_assert_int_eq(sl__db_prepare(db, "INSERT INTO t (name) VALUES (?1) ON CONFLICT DO NOTHING "
+                                        "RETURNING id", 0, &ins), SL__DB_OK);
+    const char *names[] = { "a", "b", "a", "c" };
+    const long want[] = { 1, 2, 0, 3 }; /* 0: turned away */
+    for (int i = 0; i < 4; i++) {
+        sl__db_bind_text(ins, 1, names[i], -1);
+        int rc = sl__db_step(ins);
+        ck_assert_int_eq(rc, want[i] ? SL__DB_ROW : SL__DB_DONE);
+        if (want[i]) {
+            ck_assert_int_eq(sl__db_column_int64(ins, 0), want[i]);
+            ck_assert(!sl__db_column_is_null(ins, 0));
+            ck_assert_str_eq(sl__db_column_text(ins, 0), i == 3 ? "3" : i == 1 ? "2" : "1");
+            ck_assert_int_eq(sl__db_step(ins), SL__DB_DONE);
+        }
+        sl__db_reset(ins);
+    }
+    ck_assert_int_eq(sl__db_prepare(db, "INSERT INTO t (name) SELECT name || 'x' FROM t "
+                                        "WHERE id = 1 RETURNING id", 0, &copy), SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(copy), SL__DB_ROW);
+    ck_assert_int_eq(sl__db_column_int64(copy, 0), 4);
+    ck_assert_int_eq(sl__db_step(copy), SL__DB_DONE);
+    sl__db_finalize(copy);
+    sl__db_finalize(ins);
+    sl__db_close(db);
+    sl_test_rmtree(dir);
+    free(path);
+    free(dir);
+}
+END_TEST
+
 static Suite *store_suite(void)
 {
     Suite *s = suite_create("store");
@@ -1425,6 +1471,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, damaged_sweep_is_a_database_error);
     tcase_add_test(tc, damaged_staged_points_are_a_database_error);
     tcase_add_test(tc, scratch_keeps_ranks_and_reads_one_snapshot);
+    tcase_add_test(tc, driver_insert_returning_id);
     suite_add_tcase(s, tc);
     TCase *blob = tcase_create("sweep blob");
     tcase_set_timeout(blob, 300);
