@@ -778,15 +778,30 @@ static double peak_half_width_V(const sl_fit_workspace *ws, const double *curve,
     return best;
 }
 
+/* The gate voltage of the vertex of the parabola through the curve at the
+ * peak and its two neighbours (Lagrange's three-point form), kept between
+ * the neighbours: the peak placed between the grid's points. */
+static double peak_vertex_V(const sl_fit_workspace *ws, const double *curve, size_t peak)
+{
+    const double x0 = ws->vg[peak - 1], x1 = ws->vg[peak], x2 = ws->vg[peak + 1];
+    const double y0 = curve[peak - 1], y1 = curve[peak], y2 = curve[peak + 1];
+    double a = (x1 - x0) * (y1 - y2), b = (x1 - x2) * (y1 - y0);
+    double den = a - b;
+    if (!(den != 0.0))
+        return x1;
+    double v = x1 - 0.5 * ((x1 - x0) * a - (x1 - x2) * b) / den;
+    return v > x0 && v < x2 ? v : x1;
+}
+
 /* ln d to start from at the peak: half height is reached at |V - V0| =
- * sqrt(3) d; the best of a few multiples of that guess by projected cost,
- * which goes to *cost. The guess itself, the usual winner, is tried last,
- * so that the search starts where the projection was just made. The
- * candidates are ranked with the short form of the density, whose shape
- * pass is the cheap one; the winner is then turned into charge, y(d), the
- * unit of the density table's d. */
+ * sqrt(3) d; that guess and its half and double are ranked by projected
+ * cost at V0 = v0, and where the guess costs least the vertex of the
+ * parabola through the three costs (evenly spaced in ln d) is taken; the
+ * least cost goes to *cost. The candidates are ranked with the short form
+ * of the density, whose shape pass is the cheap one; the winner is then
+ * turned into charge, y(d), the unit of the density table's d. */
 static double start_log_width(sl_fit_workspace *ws, const double *curve, double floor_ohm,
-                              size_t peak, double *cost)
+                              size_t peak, double v0, double *cost)
 {
     double span = ws->vg[ws->n - 1] - ws->vg[0];
     double d = peak_half_width_V(ws, curve, floor_ohm, peak) / M_SQRT3;
@@ -795,23 +810,30 @@ static double start_log_width(sl_fit_workspace *ws, const double *curve, double 
     ws->density = NULL;
     ws->have_state = false;
     static const double factors[] = { 0.5, 2.0, 1.0 };
-    double best = d;
+    double costs[3], log_best = log(d);
     *cost = HUGE_VAL;
     for (size_t i = 0; i < sizeof factors / sizeof factors[0]; i++) {
-        shape_at at = shape_setup(ws->vg[peak], log(d * factors[i]), 0.0);
+        shape_at at = shape_setup(v0, log(d * factors[i]), 0.0);
         project(ws, &at, false);
         double chisq = projected_chisq_from_sums(ws);
-        if (chisq < *cost && ws->k > 0.0) {
-            *cost = chisq;
-            best = d * factors[i];
+        costs[i] = ws->k > 0.0 ? chisq : HUGE_VAL;
+        if (costs[i] < *cost) {
+            *cost = costs[i];
+            log_best = at.b;
         }
     }
+    double curvature = costs[0] - 2.0 * costs[2] + costs[1];
+    if (*cost == costs[2] && isfinite(costs[0]) && isfinite(costs[1]) && curvature > 0.0)
+        log_best += 0.5 * M_LN2 * (costs[0] - costs[1]) / curvature;
+    double best = exp(log_best);
     if (density) {
         double slope;
         ws->density = density;
-        ws->have_state = false;   /* the projection kept was the short form's */
-        best = fabs(charge_offset_V(density, best, &slope));
+        /* half height at y = sqrt(3) d in charge, where the gate is at
+         * sqrt(3) times the short form's d */
+        best = fabs(charge_offset_V(density, M_SQRT3 * best, &slope)) / M_SQRT3;
     }
+    ws->have_state = false;   /* the projection kept was at another shape */
     return log(best);
 }
 
@@ -856,10 +878,11 @@ static void choose_start(sl_fit_workspace *ws, const sweep_extremes *e, shape_at
         size_t peak = peaks[c];
         if (!interior(peak, ws->n))
             continue;
-        double cost, width = start_log_width(ws, curves[c], floors[c], peak, &cost);
+        double v0 = peak_vertex_V(ws, curves[c], peak), cost;
+        double width = start_log_width(ws, curves[c], floors[c], peak, v0, &cost);
         if (cost < best_cost || best_cost == HUGE_VAL) {
             best_cost = cost;
-            *start = shape_setup(ws->vg[peak], width, 0.0);
+            *start = shape_setup(v0, width, 0.0);
         }
     }
 }

@@ -304,7 +304,9 @@ START_TEST(full_search_agrees_with_projection)
             ck_assert_msg(fabs(pa[j] - pb[j]) <= tol * scale, "device %d parameter %d: %g vs %g",
                           k, j, pa[j], pb[j]);
         }
-        ck_assert_double_eq_tol(a.rel_rms, b.rel_rms, 1e-6 * a.rel_rms + 1e-9);
+        /* noise-free, the projected search's stop (a relative step of 1e-5,
+         * src/fit.c) leaves relative residuals of a few 1e-9 */
+        ck_assert_double_eq_tol(a.rel_rms, b.rel_rms, 1e-6 * a.rel_rms + 1e-8);
         /* The standard errors: the projected search builds J^T J from the
          * sums it kept, the full one from the rows of J; at one solution
          * they are the same matrix. Not on the noise-free curve, where
