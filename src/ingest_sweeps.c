@@ -62,6 +62,8 @@ struct ingest_batch {
     int reported;            /* a writer failure is already in the diagnostics */
     /* what the file gives for a point */
     int by_current, has_direction, has_compliance;
+    /* the least |SI value| that is an instrument overflow, per quantity */
+    double overflow_vg, overflow_r, overflow_id, overflow_vd;
     /* the run being read (in buf[filling]) and its device */
     int in_run;
     int run_bad;             /* a problem in its rows: the device is rejected */
@@ -683,15 +685,14 @@ static sl_status read_point(ingest_ctx *c, fit_batch *f)
     sl_status st = sl_rowsrc_number(&vg, c->src, SL_ROW_VG, c->diag);
     if (st != SL_OK)
         return st;
-    bool overflow = sl_rowsrc_is_overflow(c->src, SL_ROW_VG, vg);
+    bool overflow = fabs(vg) >= b->overflow_vg; /* sl_rowsrc_is_overflow, inlined */
     if (b->by_current) {
         st = sl_rowsrc_number(&id, c->src, SL_ROW_ID, c->diag);
         if (st == SL_OK)
             st = sl_rowsrc_number_repeated(&vd, c->src, SL_ROW_VD, c->diag);
         if (st != SL_OK)
             return st;
-        overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_ID, id) ||
-                    sl_rowsrc_is_overflow(c->src, SL_ROW_VD, vd);
+        overflow |= fabs(id) >= b->overflow_id || fabs(vd) >= b->overflow_vd;
         /* R = V_d / I_d; the sign of a current depends on the meter's
          * convention, the channel's resistance does not (common practice) */
         r = fabs(vd / id);
@@ -699,7 +700,7 @@ static sl_status read_point(ingest_ctx *c, fit_batch *f)
         st = sl_rowsrc_number(&r, c->src, SL_ROW_R, c->diag);
         if (st != SL_OK)
             return st;
-        overflow |= sl_rowsrc_is_overflow(c->src, SL_ROW_R, r);
+        overflow |= fabs(r) >= b->overflow_r;
     }
     int dir = 0;
     bool at_compliance = false;
@@ -972,6 +973,10 @@ sl_status sl__ingest_sweeps(ingest_ctx *c)
         return SL_ENOMEM;
     ingest_batch *b = c->batch;
     b->by_current = !sl_rowsrc_has(c->src, SL_ROW_R);
+    b->overflow_vg = sl_rowsrc_overflow_si(c->src, SL_ROW_VG);
+    b->overflow_r = sl_rowsrc_overflow_si(c->src, SL_ROW_R);
+    b->overflow_id = sl_rowsrc_overflow_si(c->src, SL_ROW_ID);
+    b->overflow_vd = sl_rowsrc_overflow_si(c->src, SL_ROW_VD);
     b->has_direction = sl_rowsrc_has(c->src, SL_ROW_DIRECTION);
     b->has_compliance = sl_rowsrc_has(c->src, SL_ROW_COMPLIANCE);
     bool has = false;

@@ -487,6 +487,11 @@ bool sl_rowsrc_is_overflow(const sl_rowsrc *src, sl_row_quantity q, double si_va
     return fabs(si_value) >= src->overflow_si[q];
 }
 
+double sl_rowsrc_overflow_si(const sl_rowsrc *src, sl_row_quantity q)
+{
+    return src->overflow_si[q];
+}
+
 static bool field_is(const char *s, size_t len, const char *word)
 {
     s = trim(s, &len);

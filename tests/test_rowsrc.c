@@ -311,6 +311,9 @@ START_TEST(overflow_flags_directions)
         int dir = 7;
         ck_assert_int_eq(sl_rowsrc_number(&id, src, SL_ROW_ID, diag), SL_OK);
         ck_assert_int_eq(sl_rowsrc_is_overflow(src, SL_ROW_ID, id), want[i].overflow);
+        /* the limit a caller checks inline: 9.9e37 in uA, exactly 9.9e31 A */
+        ck_assert_int_eq(fabs(id) >= sl_rowsrc_overflow_si(src, SL_ROW_ID), want[i].overflow);
+        ck_assert(sl_rowsrc_overflow_si(src, SL_ROW_ID) == 9.9e31);
         ck_assert_int_eq(sl_rowsrc_flag(&flag, src, SL_ROW_COMPLIANCE, diag), SL_OK);
         ck_assert_int_eq(flag, want[i].compliance);
         ck_assert_int_eq(sl_rowsrc_direction(&dir, src, diag), want[i].dir_status);

@@ -138,6 +138,9 @@ sl_status sl_rowsrc_optional(double *out, const sl_rowsrc *src, sl_row_quantity 
 /* True when the value just read was an instrument overflow in the unit of
  * the file (|written value| >= SL_ROW_OVERFLOW). */
 bool sl_rowsrc_is_overflow(const sl_rowsrc *src, sl_row_quantity q, double si_value);
+/* The least |SI value| sl_rowsrc_is_overflow takes for an overflow of q,
+ * for a check made by the caller on every point. */
+double sl_rowsrc_overflow_si(const sl_rowsrc *src, sl_row_quantity q);
 
 /* A flag column (compliance): true for "true", "1", "yes"; false for
  * "false", "0", "no" or empty (any case), or when the file lacks it;
