@@ -239,12 +239,20 @@ static bool solver_fits(bool exists, solver_size *have, size_t n, size_t p)
  * Cholesky, fine at p <= 5 with parameters of order one), and its damping
  * copes with the flat direction of d when the peak is sharp. The projected
  * search runs on the driver for large problems, which asks the model for
- * J^T u and J^T J instead of the n x p Jacobian: with two or three
+ * J^T f and J^T J instead of the n x p Jacobian: with two or three
  * parameters, handing the driver J costs more (copies and matrix-vector
- * products over all points) than the model itself. */
-static bool ensure_projected_solver(sl_fit_workspace *ws, size_t n)
+ * products over all points) than the model itself.
+ * That driver's Levenberg-Marquardt method needs the residual vector f
+ * only through its norm (the ratio of actual to predicted reduction, the
+ * latter from J^T J, and the convergence tests) and as the vector J^T
+ * multiplies, which the model forms from its own residuals. So the driver
+ * is given a residual of p entries, (|f|, 0, ...), whatever the sweep's
+ * length: its norms, copies and checks over all points go, and one solver
+ * serves sweeps of any length. */
+static bool ensure_projected_solver(sl_fit_workspace *ws)
 {
-    if (solver_fits(ws->nl != NULL, &ws->nl_size, n, nonlinear_count(ws)))
+    size_t p = nonlinear_count(ws);
+    if (solver_fits(ws->nl != NULL, &ws->nl_size, p, p))
         return true;
     if (ws->nl)
         gsl_multilarge_nlinear_free(ws->nl);
@@ -252,8 +260,7 @@ static bool ensure_projected_solver(sl_fit_workspace *ws, size_t n)
     par.trs = gsl_multilarge_nlinear_trs_lm;
     par.solver = gsl_multilarge_nlinear_solver_cholesky;
     par.scale = gsl_multilarge_nlinear_scale_levenberg;
-    ws->nl = gsl_multilarge_nlinear_alloc(gsl_multilarge_nlinear_trust, &par, n,
-                                          nonlinear_count(ws));
+    ws->nl = gsl_multilarge_nlinear_alloc(gsl_multilarge_nlinear_trust, &par, p, p);
     return ws->nl != NULL;
 }
 
@@ -275,7 +282,7 @@ static bool ensure_full_solver(sl_fit_workspace *ws, size_t n)
 
 static sl_status ensure_solvers(sl_fit_workspace *ws, size_t n)
 {
-    bool ok = ensure_projected_solver(ws, n) && ensure_full_solver(ws, n);
+    bool ok = ensure_projected_solver(ws) && ensure_full_solver(ws, n);
     return ok ? SL_OK : SL_ENOMEM;
 }
 
@@ -517,16 +524,17 @@ static double projected_chisq_from_sums(const sl_fit_workspace *ws)
     return (double)ws->n - ws->rc * ws->sa1 - ws->k * ws->sc1;
 }
 
-/* The residuals of the projected search. The Jacobian sums are gathered in
- * the same pass: the driver asks for the Jacobian at every point whose step
- * it accepts, which is nearly every point it evaluates. */
+/* The residual of the projected search as the driver sees it, (|f|, 0,
+ * ...) (see ensure_projected_solver). The Jacobian sums are gathered in the
+ * same pass: the driver asks for the Jacobian at every point whose step it
+ * accepts, which is nearly every point it evaluates. */
 static int projected_residual(const gsl_vector *x, void *data, gsl_vector *f)
 {
     sl_fit_workspace *ws = data;
     shape_at at = shape_of_vector(ws, x);
     project(ws, &at, true);
-    for (size_t i = 0; i < ws->n; i++)
-        f->data[i * f->stride] = projected_residual_at(ws, i);
+    gsl_vector_set_zero(f);
+    f->data[0] = sqrt(projected_chisq(ws));
     return GSL_SUCCESS;
 }
 
@@ -560,18 +568,18 @@ static inline void kaufman_row(const sl_fit_workspace *ws, const kaufman_coeffic
         row[j] = kc->alpha[j] * u + kc->beta[j] * su - ku * ds[j];
 }
 
-/* v = J^T w and J^T J (either may be NULL), the rows of J formed one at a
- * time and accumulated in the same pass (a fused accumulation in our own
- * model evaluation). Written for a constant two_mobility. */
+/* v = J^T f, f the residuals at the last projection, and J^T J (either may
+ * be NULL), the rows of J formed one at a time and accumulated in the same
+ * pass (a fused accumulation in our own model evaluation). Written for a
+ * constant two_mobility. */
 static inline void jacobian_transpose_products(const sl_fit_workspace *ws, bool two_mobility,
-                                               const gsl_vector *w, gsl_vector *v,
-                                               gsl_matrix *jtj)
+                                               gsl_vector *v, gsl_matrix *jtj)
 {
     kaufman_coefficients kc = kaufman_at_state(ws);
     double w0 = 0.0, w1 = 0.0, w2 = 0.0;
     double s00 = 0.0, s10 = 0.0, s11 = 0.0, s20 = 0.0, s21 = 0.0, s22 = 0.0;
     for (size_t i = 0; i < ws->n; i++) {
-        double r[MAX_NONLINEAR], wi = v ? w->data[i * w->stride] : 0.0;
+        double r[MAX_NONLINEAR], wi = v ? projected_residual_at(ws, i) : 0.0;
         kaufman_row(ws, &kc, i, two_mobility, r);
         w0 += wi * r[0];
         w1 += wi * r[1];
@@ -597,37 +605,25 @@ static inline void jacobian_transpose_products(const sl_fit_workspace *ws, bool 
     }
 }
 
-/* v = J w (w of p) and J^T J when asked for. */
-static void jacobian_times(const sl_fit_workspace *ws, const gsl_vector *w, gsl_vector *v,
-                           gsl_matrix *jtj)
-{
-    kaufman_coefficients kc = kaufman_at_state(ws);
-    for (size_t i = 0; i < ws->n; i++) {
-        double r[MAX_NONLINEAR], jw = 0.0;
-        kaufman_row(ws, &kc, i, ws->two_mobility, r);
-        for (size_t j = 0; j < nonlinear_count(ws); j++)
-            jw += r[j] * w->data[j * w->stride];
-        v->data[i * v->stride] = jw;
-    }
-    if (jtj)
-        jacobian_transpose_products(ws, ws->two_mobility, NULL, NULL, jtj);
-}
-
 /* df of the projected search, GSL's large-problem contract: v = J^T w for
- * CblasTrans (w of n), v = J w for CblasNoTrans (w of p), and J^T J (full,
- * symmetric) into jtj; v or jtj may be NULL. */
+ * CblasTrans and J^T J (full, symmetric) into jtj; v or jtj may be NULL. The
+ * driver's w is the residual it was given at x, so J^T f is formed from the
+ * model's own residuals there (see ensure_projected_solver). The products
+ * J w of CblasNoTrans, which the Levenberg-Marquardt method never asks for,
+ * are refused. */
 static int projected_jacobian(CBLAS_TRANSPOSE_t trans, const gsl_vector *x, const gsl_vector *w,
                               void *data, gsl_vector *v, gsl_matrix *jtj)
 {
     sl_fit_workspace *ws = data;
+    (void)w;
+    if (v && trans == CblasNoTrans)
+        return GSL_EINVAL;
     shape_at at = shape_of_vector(ws, x);
     project(ws, &at, true);
-    if (v && trans == CblasNoTrans)
-        jacobian_times(ws, w, v, jtj);
-    else if (ws->two_mobility)
-        jacobian_transpose_products(ws, true, w, v, jtj);
+    if (ws->two_mobility)
+        jacobian_transpose_products(ws, true, v, jtj);
     else
-        jacobian_transpose_products(ws, false, w, v, jtj);
+        jacobian_transpose_products(ws, false, v, jtj);
     return GSL_SUCCESS;
 }
 
@@ -669,7 +665,7 @@ static int run_search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape_at *
 {
     gsl_multilarge_nlinear_fdf fdf = {
         .f = projected_residual, .df = projected_jacobian, .fvv = NULL,
-        .n = ws->n, .p = nonlinear_count(ws), .params = ws,
+        .n = nonlinear_count(ws), .p = nonlinear_count(ws), .params = ws,
     };
     double x[MAX_NONLINEAR] = { at->v0, at->b, at->beta };
     int st = run_large_driver(ws->nl, &fdf, x, cfg, iterations);
