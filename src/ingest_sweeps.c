@@ -778,7 +778,7 @@ static sl_status sweep_row(ingest_ctx *c)
                             SL_INGEST_MAX_POINTS);
         return run_problem(c);
     }
-    if (sl__fit_batch_reserve_points(f, f->n_points + 1) != 0)
+    if (f->n_points + 1 > f->cap_points && sl__fit_batch_reserve_points(f, f->n_points + 1) != 0)
         return SL_ENOMEM;
     sl_status st = read_point(c, f);
     if (st == SL_EINPUT)
@@ -787,7 +787,7 @@ static sl_status sweep_row(ingest_ctx *c)
         return st;
     if (b->run_bad)
         f->n_points = b->run_offset; /* its values are checked, never kept */
-    return sl__ingest_keep_row(c);       /* for the rejects file, if any */
+    return c->rejects ? sl__ingest_keep_row(c) : SL_OK; /* for the rejects file, if any */
 }
 
 /* ---- devices with rows in several places or too few points so far ---- */

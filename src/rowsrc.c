@@ -452,6 +452,9 @@ sl_status sl_rowsrc_next(bool *has_row, sl_rowsrc *src, sl_diag *diag)
 
 sl_status sl_rowsrc_number(double *out, const sl_rowsrc *src, sl_row_quantity q, sl_diag *diag)
 {
+    /* the unscaled number, the common case, without sl_csv_number_e's hop */
+    if (src->exp10[q] == 0)
+        return sl_csv_number(out, src->csv, (size_t)src->col[q], diag);
     return sl_csv_number_e(out, src->csv, (size_t)src->col[q], src->exp10[q], diag);
 }
 
