@@ -71,6 +71,7 @@ struct sl_fit_workspace {
     gsl_matrix *cov;
     bool two_mobility;           /* model of the sweep being fitted */
     bool fix_rc_zero;
+    bool out_of_memory;          /* the full search's solver could not be made */
     /* Projection state at the last evaluated shape. */
     bool have_state;
     bool state_rc_zero;          /* fix_rc_zero when it was made */
@@ -278,12 +279,6 @@ static bool ensure_full_solver(sl_fit_workspace *ws, size_t n)
     ws->nl_full = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, n,
                                              param_count(ws));
     return ws->nl_full != NULL;
-}
-
-static sl_status ensure_solvers(sl_fit_workspace *ws, size_t n)
-{
-    bool ok = ensure_projected_solver(ws) && ensure_full_solver(ws, n);
-    return ok ? SL_OK : SL_ENOMEM;
 }
 
 /* ---- the shape s = g / h and its derivatives ---- */
@@ -935,6 +930,27 @@ static void moving_median(sl_fit_workspace *ws)
     }
 }
 
+static bool strictly_descending(const double *v, size_t n)
+{
+    for (size_t i = 1; i < n; i++)
+        if (!(v[i - 1] > v[i]))
+            return false;
+    return true;
+}
+
+/* The points in the opposite order, which for a strictly descending gate
+ * is the order gsl_sort2 would give. */
+static void reverse_points(sl_fit_workspace *ws, size_t n)
+{
+    for (size_t i = 0, j = n - 1; i < j; i++, j--) {
+        double vg = ws->vg[i], r = ws->r[i];
+        ws->vg[i] = ws->vg[j];
+        ws->r[i] = ws->r[j];
+        ws->vg[j] = vg;
+        ws->r[j] = r;
+    }
+}
+
 /* Sorted copies of the sweep, weights u = 1/R and the moving median. */
 static void prepare(sl_fit_workspace *ws, const double *vg_V, const double *r_ohm, size_t n)
 {
@@ -946,7 +962,9 @@ static void prepare(sl_fit_workspace *ws, const double *vg_V, const double *r_oh
     bool sorted = true;
     for (size_t i = 1; i < n && sorted; i++)
         sorted = ws->vg[i - 1] <= ws->vg[i];
-    if (!sorted)
+    if (!sorted && strictly_descending(ws->vg, n))
+        reverse_points(ws, n); /* a reverse branch: sorted by turning it round */
+    else if (!sorted)
         gsl_sort2(ws->vg, 1, ws->r, 1, n);
     double saa = 0.0, sa1 = 0.0;
     for (size_t i = 0; i < n; i++) {
@@ -1191,6 +1209,11 @@ static sl_fit_class search(sl_fit_workspace *ws, const sl_fit_config *cfg, shape
     if (cfg->method == SL_FIT_METHOD_PROJECTED)
         st = projected_search(ws, cfg, at, iterations);
     if (st != GSL_SUCCESS || !solution_finite(ws, at)) {
+        /* made when first needed: a fallback, and sized for the sweep */
+        if (!ensure_full_solver(ws, ws->n)) {
+            ws->out_of_memory = true;
+            return SL_FIT_NO_CONVERGENCE;
+        }
         *at = start;
         st = run_full_search(ws, cfg, at, iterations);
     }
@@ -1277,10 +1300,10 @@ static sl_status refit_without_spikes(sl_fit_result *out, sl_fit_workspace *ws,
     if (spikes == 0)
         return SL_OK;
     drop_marked(ws);
-    if (ensure_solvers(ws, ws->n) != SL_OK)
-        return SL_ENOMEM;
     out->n_spikes = spikes;
     out->cls = search(ws, cfg, at, &out->iterations);
+    if (ws->out_of_memory)
+        return SL_ENOMEM;
     if (out->cls != SL_FIT_NO_CONVERGENCE)
         quality(out, ws);
     return SL_OK;
@@ -1299,7 +1322,8 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
     }
     ws->two_mobility = cfg->model == SL_FIT_MODEL_TWO_MOBILITY;
     ws->density = cfg->density_table;
-    if (ensure_solvers(ws, n_points) != SL_OK)
+    ws->out_of_memory = false;
+    if (!ensure_projected_solver(ws))
         return SL_ENOMEM;
     prepare(ws, vg_V, r_ohm, n_points);
     sweep_extremes extremes = find_extremes(ws);
@@ -1309,6 +1333,8 @@ sl_status sl_fit_sweep(sl_fit_result *out, sl_fit_workspace *ws, const sl_fit_co
     shape_at at = shape_setup(ws->vg[n_points / 2], 0.0, 0.0);
     choose_start(ws, &extremes, &at);
     out->cls = search(ws, cfg, &at, &out->iterations);
+    if (ws->out_of_memory)
+        return SL_ENOMEM;
     if (out->cls == SL_FIT_NO_CONVERGENCE)
         return SL_OK;
     quality(out, ws);

@@ -442,12 +442,10 @@ static double charge_V_direct(const sl_physics_density_table *t, double offset_V
  * In s the Fermi level is smooth at both ends: u ~ s^2 near neutrality at
  * T > 0 and u ~ s where C_q << C_g, where a grid in x would need ever finer
  * steps. */
-static inline double table_charge_V(const sl_physics_density_table *t, double offset_V,
-                                    double *slope)
+static inline double table_charge_in_reach_V(const sl_physics_density_table *t, double offset_V,
+                                             double *slope)
 {
     double x = fabs(offset_V);
-    if (!(x <= t->max_offset_V))
-        return charge_V_direct(t, offset_V, slope);
     double s = sqrt(x), pos = s * t->inv_step;
     size_t k = (size_t)pos;
     if (k > t->nodes - 2)
@@ -463,6 +461,35 @@ static inline double table_charge_V(const sl_physics_density_table *t, double of
     return copysign(x - u, offset_V);
 }
 
+static inline double table_charge_V(const sl_physics_density_table *t, double offset_V,
+                                    double *slope)
+{
+    if (!(fabs(offset_V) <= t->max_offset_V))
+        return charge_V_direct(t, offset_V, slope);
+    return table_charge_in_reach_V(t, offset_V, slope);
+}
+
+/* Beyond the table within a sweep: the balance solved by GSL's Newton
+ * solver from the zero-temperature root, which temperature only moves a
+ * little (it adds carriers at a given Fermi level), with Brent's bracketing
+ * solve when Newton does not settle (table_node_V); one solver, made on the
+ * first such point, serves all the points of the call (*newton). */
+static double charge_V_newton(const sl_physics_density_table *t, gsl_root_fdfsolver **newton,
+                              double offset_V, double *slope)
+{
+    if (!*newton && isfinite(offset_V))
+        *newton = gsl_root_fdfsolver_alloc(gsl_root_fdfsolver_newton);
+    if (!*newton || !isfinite(offset_V))
+        return charge_V_direct(t, offset_V, slope);
+    balance_params b = { t->cg, t->temperature_K, t->vf, offset_V };
+    double u = NAN;
+    if (table_node_V(&u, *newton, &b, zero_t_root_V(offset_V, t->cg, t->vf)) != SL_OK)
+        u = NAN;
+    if (slope)
+        *slope = 1.0 - fermi_slope(t, u);
+    return offset_V - u;
+}
+
 double sl_physics_density_table_charge_V(const sl_physics_density_table *t, double offset_V,
                                          double *slope)
 {
@@ -473,12 +500,23 @@ void sl_physics_density_table_charge_n(const sl_physics_density_table *t, double
                                        double *slope, const double *gate_V, double cnp_V,
                                        size_t n)
 {
+    gsl_root_fdfsolver *newton = NULL;
     if (slope)
-        for (size_t i = 0; i < n; i++)
-            charge_V[i] = table_charge_V(t, gate_V[i] - cnp_V, &slope[i]);
+        for (size_t i = 0; i < n; i++) {
+            double offset_V = gate_V[i] - cnp_V;
+            charge_V[i] = fabs(offset_V) <= t->max_offset_V
+                              ? table_charge_in_reach_V(t, offset_V, &slope[i])
+                              : charge_V_newton(t, &newton, offset_V, &slope[i]);
+        }
     else
-        for (size_t i = 0; i < n; i++)
-            charge_V[i] = table_charge_V(t, gate_V[i] - cnp_V, NULL);
+        for (size_t i = 0; i < n; i++) {
+            double offset_V = gate_V[i] - cnp_V;
+            charge_V[i] = fabs(offset_V) <= t->max_offset_V
+                              ? table_charge_in_reach_V(t, offset_V, NULL)
+                              : charge_V_newton(t, &newton, offset_V, NULL);
+        }
+    if (newton)
+        gsl_root_fdfsolver_free(newton);
 }
 
 double sl_physics_density_table_capacitance_F_per_m2(const sl_physics_density_table *t)
