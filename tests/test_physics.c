@@ -310,6 +310,16 @@ START_TEST(test_density_table_matches_solver)
                 ck_assert(y[k] == sl_physics_density_table_charge_V(t, vg[k] - 0.5, &one_slope));
                 ck_assert(dy[k] == one_slope);
             }
+            /* and beyond the reach (100 V) Newton's solve agrees with the
+             * direct one to rounding */
+            double far[4] = { -250.0, 0.25, 150.0, 400.0 }, fy[4], fdy[4];
+            sl_physics_density_table_charge_n(t, fy, fdy, far, 0.5, 4);
+            for (size_t k = 0; k < 4; k++) {
+                double want = sl_physics_density_table_charge_V(t, far[k] - 0.5, &one_slope);
+                ck_assert_msg(fabs(fy[k] - want) <= 1e-12 * fabs(want), "%g: %.17g vs %.17g",
+                              far[k], fy[k], want);
+                ck_assert(fabs(fdy[k] - one_slope) <= 1e-12);
+            }
             sl_physics_density_table_free(t);
         }
     }
