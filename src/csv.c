@@ -688,6 +688,19 @@ long sl_csv_column(const sl_csv *csv, const char *name)
     return -1;
 }
 
+uint64_t sl_csv_field_word(const sl_csv *csv, size_t field, size_t *len)
+{
+    if (field >= csv->n_fields) {
+        *len = 0;
+        return 0;
+    }
+    const field_span *f = &csv->fields[field];
+    *len = f->len;
+    /* a field lies in the buffer, so a word from its start is readable */
+    uint64_t word = load_word((const unsigned char *)csv->buf + f->off);
+    return f->len < WORD_BYTES ? word & ((UINT64_C(1) << (8u * f->len)) - 1u) : word;
+}
+
 const char *sl_csv_field(const sl_csv *csv, size_t field, size_t *len)
 {
     if (field >= csv->n_fields) {

@@ -554,6 +554,15 @@ const char *sl_rowsrc_field(const sl_rowsrc *src, sl_row_quantity q, size_t *len
     return sl_csv_field(src->csv, (size_t)src->col[q], len);
 }
 
+uint64_t sl_rowsrc_field_word(const sl_rowsrc *src, sl_row_quantity q, size_t *len)
+{
+    if (src->col[q] < 0) {
+        *len = 0;
+        return 0;
+    }
+    return sl_csv_field_word(src->csv, (size_t)src->col[q], len);
+}
+
 sl_status sl_rowsrc_text(const char **out, size_t *len, const sl_rowsrc *src, sl_row_quantity q,
                          size_t max_bytes, sl_diag *diag)
 {

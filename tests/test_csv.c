@@ -261,6 +261,32 @@ static void assert_one_error(sl_diag *diag, long line, const char *text)
     ck_assert_ptr_nonnull(m->file);
 }
 
+/* A field's first bytes as a little-endian word, zero past its end: equal
+ * words and lengths for equal short fields, a quoted field unescaped first,
+ * the bytes after a field (separator, next field) never in its word. */
+START_TEST(field_words)
+{
+    const char *text = "a,b,c,d,e\nW01,D001,,\"x\"\"y\",123456789\nW01,D0010,0,12345678,1\n";
+    sl_csv *csv = NULL;
+    ck_assert_int_eq(open_text(&csv, text, strlen(text), NULL), SL_OK);
+    bool has = false;
+    ck_assert_int_eq(sl_csv_next(&has, csv, NULL), SL_OK);
+    size_t len = 99;
+    ck_assert(sl_csv_field_word(csv, 0, &len) == 0x313057u && len == 3);        /* "W01" */
+    ck_assert(sl_csv_field_word(csv, 1, &len) == 0x31303044u && len == 4);      /* "D001" */
+    ck_assert(sl_csv_field_word(csv, 2, &len) == 0 && len == 0);                /* "" */
+    ck_assert(sl_csv_field_word(csv, 3, &len) == 0x792278u && len == 3);        /* x"y */
+    ck_assert(sl_csv_field_word(csv, 4, &len) == 0x3837363534333231u && len == 9);
+    ck_assert(sl_csv_field_word(csv, 9, &len) == 0 && len == 0);                /* no field */
+    uint64_t d001 = sl_csv_field_word(csv, 1, &len);
+    ck_assert_int_eq(sl_csv_next(&has, csv, NULL), SL_OK);
+    ck_assert(sl_csv_field_word(csv, 1, &len) == 0x3031303044u && len == 5);    /* "D0010" */
+    ck_assert(sl_csv_field_word(csv, 1, &len) != d001);
+    ck_assert(sl_csv_field_word(csv, 3, &len) == 0x3837363534333231u && len == 8);
+    sl_csv_free(csv);
+}
+END_TEST
+
 /* Bad numbers name the file, line, field and the token. */
 START_TEST(number_errors_located)
 {
@@ -793,6 +819,7 @@ static Suite *csv_suite(void)
     TCase *tc = tcase_create("csv");
     tcase_add_checked_fixture(tc, make_scratch, drop_scratch);
     tcase_add_test(tc, fixture_lf);
+    tcase_add_test(tc, field_words);
     tcase_add_test(tc, fixture_shuffled_extra_columns_blank_tail);
     tcase_add_test(tc, crlf_bom_no_final_newline);
     tcase_add_test(tc, line_numbers_are_physical);

@@ -11,6 +11,7 @@
 
 #include <stdbool.h>
 #include <stddef.h>
+#include <stdint.h>
 #include <stdio.h>
 
 #include "splitlot/csv.h"
@@ -110,6 +111,9 @@ long sl_rowsrc_line(const sl_rowsrc *src);
 /* The quantity's field in the current row, raw ("" when the file lacks it),
  * and checked as kept text (sl_csv_text's rules, at most max_bytes). */
 const char *sl_rowsrc_field(const sl_rowsrc *src, sl_row_quantity q, size_t *len);
+/* The same as sl_csv_field_word gives it (0 and length 0 when the file
+ * lacks the quantity). */
+uint64_t sl_rowsrc_field_word(const sl_rowsrc *src, sl_row_quantity q, size_t *len);
 sl_status sl_rowsrc_text(const char **out, size_t *len, const sl_rowsrc *src, sl_row_quantity q,
                          size_t max_bytes, sl_diag *diag);
 
