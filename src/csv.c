@@ -1078,10 +1078,19 @@ static bool plain_number(double *out, const char *s, size_t len, int exp10, bool
  * still rounded once. Returns false for any other token. */
 static bool short_exp_number(double *out, const char *s, size_t len, int exp10)
 {
-    size_t k = 1;
-    while (k < len && k <= WORD_BYTES && s[k] != 'e' && s[k] != 'E')
-        k++;
-    if (k > WORD_BYTES || k + 1 >= len)
+    /* the first 'e' or 'E' from byte 1 on, at byte 8 at the latest: bytes 1
+     * to 7 looked at in one word ('E' | 0x20 is 'e', no other byte's is) */
+    uint64_t in_token = len >= WORD_BYTES ? ~UINT64_C(0) : (UINT64_C(1) << (8u * len)) - 1u;
+    uint64_t lowered = load_word((const unsigned char *)s) | BYTES_01 * 0x20u;
+    uint64_t e_bytes = bytes_below(lowered ^ BYTES_01 * 'e', 1u) & in_token & ~UINT64_C(0xFF);
+    size_t k;
+    if (e_bytes)
+        k = first_flagged_byte(e_bytes);
+    else if (len > WORD_BYTES && (s[WORD_BYTES] | 0x20) == 'e')
+        k = WORD_BYTES;
+    else
+        return false;
+    if (k + 1 >= len)
         return false;
     const char *e = s + k + 1;
     size_t n = len - k - 1;

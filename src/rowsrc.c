@@ -54,7 +54,9 @@ struct sl_rowsrc {
     size_t n_columns;
     size_t *unused;             /* file columns nobody reads */
     size_t n_unused;
-    /* sl_rowsrc_number_repeated: the last text read and its value */
+    /* sl_rowsrc_number_repeated: the last text read (its first 8 bytes as
+     * sl_csv_field_word gives them, and all of it) and its value */
+    uint64_t last_word[SL_ROW_COUNT];
     char last_text[SL_ROW_COUNT][16];
     size_t last_len[SL_ROW_COUNT];  /* 0: none */
     double last_value[SL_ROW_COUNT];
@@ -462,14 +464,19 @@ sl_status sl_rowsrc_number_repeated(double *out, sl_rowsrc *src, sl_row_quantity
                                     sl_diag *diag)
 {
     size_t len;
-    const char *text = sl_csv_field(src->csv, (size_t)src->col[q], &len);
-    if (len > 0 && len == src->last_len[q] && memcmp(text, src->last_text[q], len) == 0) {
-        *out = src->last_value[q];
-        return SL_OK;
+    uint64_t word = sl_csv_field_word(src->csv, (size_t)src->col[q], &len);
+    if (len > 0 && len == src->last_len[q] && word == src->last_word[q]) {
+        /* a word holds a short value whole; a longer one is compared on */
+        const char *text = len > 8 ? sl_csv_field(src->csv, (size_t)src->col[q], NULL) : NULL;
+        if (!text || memcmp(text + 8, src->last_text[q] + 8, len - 8) == 0) {
+            *out = src->last_value[q];
+            return SL_OK;
+        }
     }
     sl_status st = sl_rowsrc_number(out, src, q, diag);
     if (st == SL_OK && len < sizeof src->last_text[q]) {
-        memcpy(src->last_text[q], text, len);
+        memcpy(src->last_text[q], sl_csv_field(src->csv, (size_t)src->col[q], NULL), len);
+        src->last_word[q] = word;
         src->last_len[q] = len;
         src->last_value[q] = *out;
     }

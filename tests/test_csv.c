@@ -208,6 +208,27 @@ END_TEST
 
 /* The fast path and strtod must agree bit for bit (glibc strtod rounds
  * correctly: from memory, it uses exact multi-precision arithmetic). */
+/* Meter-style tokens with a short mantissa and an exponent ("1.234567e-05",
+ * "9.9E+37"), read by the scaled path as strtod reads them, bit for bit. */
+START_TEST(exponent_tokens_like_strtod)
+{
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 4181);
+    char token[64];
+    for (int i = 0; i < 100000; i++) {
+        double x = (gsl_rng_uniform(rng) - 0.5) * pow(10.0, (double)gsl_rng_uniform_int(rng, 60) - 30.0);
+        snprintf(token, sizeof token, "%.*e", (int)gsl_rng_uniform_int(rng, 9), x);
+        if (gsl_rng_uniform_int(rng, 2))
+            *strchr(token, 'e') = 'E';
+        double got, want = strtod(token, NULL);
+        ck_assert_msg(sl_csv_parse_double_e(&got, token, strlen(token), 0, false), "rejected %s",
+                      token);
+        ck_assert_msg(memcmp(&got, &want, sizeof got) == 0, "%s: %a vs %a", token, got, want);
+    }
+    gsl_rng_free(rng);
+}
+END_TEST
+
 START_TEST(numbers_round_trip_like_strtod)
 {
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
@@ -820,6 +841,7 @@ static Suite *csv_suite(void)
     tcase_add_checked_fixture(tc, make_scratch, drop_scratch);
     tcase_add_test(tc, fixture_lf);
     tcase_add_test(tc, field_words);
+    tcase_add_test(tc, exponent_tokens_like_strtod);
     tcase_add_test(tc, fixture_shuffled_extra_columns_blank_tail);
     tcase_add_test(tc, crlf_bom_no_final_newline);
     tcase_add_test(tc, line_numbers_are_physical);

@@ -292,6 +292,31 @@ START_TEST(header_messages)
 }
 END_TEST
 
+/* A repeated value (a drain bias on every row) read once and reused while
+ * its text stays the same, short or longer than a word, and read again the
+ * moment it changes: always the value sl_rowsrc_number gives. */
+START_TEST(repeated_number_follows_the_text)
+{
+    const char *text = "wafer,Vd (mV)\nW,100\nW,100\nW,100.0\nW,100\nW,0.123456789\nW,0.123456789\n"
+                       "W,0.123456788\nW,-0.5\nW,-0.5\n";
+    sl_diag *diag = sl_diag_new();
+    sl_rowsrc *src = NULL;
+    ck_assert_int_eq(open_text(&src, text, NULL, diag), SL_OK);
+    bool has = false;
+    int rows = 0;
+    while (sl_rowsrc_next(&has, src, diag) == SL_OK && has) {
+        double again, once;
+        ck_assert_int_eq(sl_rowsrc_number_repeated(&again, src, SL_ROW_VD, diag), SL_OK);
+        ck_assert_int_eq(sl_rowsrc_number(&once, src, SL_ROW_VD, diag), SL_OK);
+        ck_assert_msg(again == once, "row %d: %.17g vs %.17g", rows, again, once);
+        rows++;
+    }
+    ck_assert_int_eq(rows, 9);
+    sl_rowsrc_free(src);
+    sl_diag_free(diag);
+}
+END_TEST
+
 /* Overflow codes in the file's unit, compliance flags, directions. */
 START_TEST(overflow_flags_directions)
 {
@@ -355,6 +380,7 @@ static Suite *rowsrc_suite(void)
     tcase_add_test(tc, column_names_with_units);
     tcase_add_test(tc, column_mappings);
     tcase_add_test(tc, header_messages);
+    tcase_add_test(tc, repeated_number_follows_the_text);
     tcase_add_test(tc, overflow_flags_directions);
     tcase_add_test(tc, rows_written_back);
     suite_add_tcase(s, tc);
