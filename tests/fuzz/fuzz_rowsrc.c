@@ -17,7 +17,7 @@
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
-static void walk_row(const sl_rowsrc *src, sl_diag *diag, char **buf, size_t *len, size_t *cap)
+static void walk_row(sl_rowsrc *src, sl_diag *diag, char **buf, size_t *len, size_t *cap)
 {
     for (int q = 0; q < SL_ROW_COUNT; q++) {
         double v;
@@ -27,10 +27,12 @@ static void walk_row(const sl_rowsrc *src, sl_diag *diag, char **buf, size_t *le
         if (sl_rowsrc_has(src, (sl_row_quantity)q)) {
             if (sl_rowsrc_number(&v, src, (sl_row_quantity)q, diag) == SL_OK)
                 (void)sl_rowsrc_is_overflow(src, (sl_row_quantity)q, v);
+            (void)sl_rowsrc_number_repeated(&v, src, (sl_row_quantity)q, diag);
             (void)sl_rowsrc_text(&text, &n, src, (sl_row_quantity)q, 64, diag);
         }
         (void)sl_rowsrc_optional(&v, src, (sl_row_quantity)q, diag);
         (void)sl_rowsrc_field(src, (sl_row_quantity)q, &n);
+        (void)sl_rowsrc_field_word(src, (sl_row_quantity)q, &n);
         (void)sl_rowsrc_flag(&flag, src, (sl_row_quantity)q, diag);
     }
     int dir = 0;
