@@ -1,7 +1,7 @@
 /* SPDX-License-Identifier: MIT
  * The SHA-256 of an imported file, worked out on a thread of its own while
  * the reading thread parses: each block the CSV reader reads is copied into
- * one of two buffers and hashed there, so the checksum a measurement run
+ * a ring of buffers and hashed there, so the checksum a measurement run
  * keeps does not lengthen the read. Private to the ingest module.
  */
 #include <stdlib.h>
@@ -9,13 +9,18 @@
 
 #include "ingest_internal.h"
 
+/* Buffers in a ring between the reader and the hasher: the hasher may fall
+ * this many pieces behind (while the fitting threads have the cores) before
+ * the reader waits for it. */
+#define HASH_BUFFERS 16
+
 struct ingest_hasher {
     pthread_t thread;
     pthread_mutex_t lock;
     pthread_cond_t changed;
-    unsigned char *buf[2];
-    size_t cap[2], len[2];
-    int full[2];             /* guarded by lock: a block waits to be hashed */
+    unsigned char *buf[HASH_BUFFERS];
+    size_t cap[HASH_BUFFERS], len[HASH_BUFFERS];
+    int full[HASH_BUFFERS];  /* guarded by lock: a block waits to be hashed */
     int fill, hash;          /* the next buffer to fill (reader), to hash (hasher) */
     int quit;
     sha256_ctx sha;
@@ -35,7 +40,7 @@ static void *hasher_main(void *arg)
         sl__sha256_update(&h->sha, h->buf[i], h->len[i]);
         pthread_mutex_lock(&h->lock);
         h->full[i] = 0;
-        h->hash = 1 - i;
+        h->hash = (i + 1) % HASH_BUFFERS;
         pthread_cond_broadcast(&h->changed);
     }
     pthread_mutex_unlock(&h->lock);
@@ -59,7 +64,7 @@ ingest_hasher *sl__ingest_hasher_new(void)
     return h;
 }
 
-/* Blocks are handed over in pieces of at most this many bytes, so the two
+/* Blocks are handed over in pieces of at most this many bytes, so the
  * buffers stay small whatever the reader's block size. */
 #define HASH_PIECE_BYTES ((size_t)256 * 1024)
 
@@ -93,7 +98,7 @@ static int add_piece(ingest_hasher *h, const char *bytes, size_t n)
     h->full[i] = 1;
     pthread_cond_broadcast(&h->changed);
     pthread_mutex_unlock(&h->lock);
-    h->fill = 1 - i;
+    h->fill = (i + 1) % HASH_BUFFERS;
     return 0;
 }
 
@@ -111,8 +116,8 @@ void sl__ingest_hasher_free(ingest_hasher *h, char hex[65])
         sl__sha256_final(&h->sha, digest);
         sl__sha256_hex(digest, hex);
     }
-    free(h->buf[0]);
-    free(h->buf[1]);
+    for (int i = 0; i < HASH_BUFFERS; i++)
+        free(h->buf[i]);
     pthread_cond_destroy(&h->changed);
     pthread_mutex_destroy(&h->lock);
     free(h);
