@@ -1327,6 +1327,86 @@ START_TEST(constraint_failures_say_which)
 }
 END_TEST
 
+/* The first failure of an import of one device into the demo lot: the
+ * insert (SQLite writes at once) or the commit (PostgreSQL stages the row
+ * and stores it by then). The message is left in diag. */
+static sl_status import_one(stored_demo *s, const sl_store_device *d, long run_id, sl_diag *diag)
+{
+    sl_store_insert ins;
+    ck_assert_int_eq(sl_store_begin(s->store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s->store, s->lot.lot_id, diag), SL_OK);
+    sl_status st = sl_store_insert_measurement(s->store, &ins, s->lot.lot_id, run_id, d, diag);
+    if (st == SL_OK)
+        return sl_store_commit(s->store, diag);
+    sl_store_rollback(s->store);
+    return st;
+}
+
+/* A device the import cannot store names the kind of constraint it broke
+ * (as constraint_failures_say_which), on either backend, and nothing of
+ * it stays; a good device then goes in. */
+START_TEST(import_constraint_failures_say_which)
+{
+    stored_demo s = demo_store();
+    sl_store_device d = device_named("W01", "D001");
+    sl_store_device no_class = d, short_channel = d;
+    no_class.fit_class = NULL;
+    short_channel.channel_length_um = -2.0;
+    static const char *const kinds[] = { "a NOT NULL constraint", "a CHECK constraint",
+                                         "a FOREIGN KEY constraint" };
+    const sl_store_device *devices[] = { &no_class, &short_channel, &d };
+    const long runs[] = { s.run_id, s.run_id, s.run_id + 1000 };
+    for (size_t i = 0; i < 3; i++) {
+        sl_diag *diag = sl_diag_new();
+        ck_assert_int_eq(import_one(&s, devices[i], runs[i], diag), SL_EDB);
+        ck_assert_msg(strstr(sl_diag_last(diag), kinds[i]) &&
+                      strstr(sl_diag_last(diag), "nothing was changed") &&
+                      !strstr(sl_diag_last(diag), "duplicate device"),
+                      "%zu: %s", i, sl_diag_last(diag));
+        sl_diag_free(diag);
+        ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM device"), 0);
+        ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 0);
+    }
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(import_one(&s, &d, s.run_id, diag), SL_OK);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 1);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* PostgreSQL: the staged rows go in only where the device sits at their
+ * die. A device another connection adds at another die while the import
+ * runs (it takes no lot lock, as no splitlot command would) makes the
+ * import fail with one message, nothing of it stored. */
+START_TEST(staged_rows_clashing_with_stored_devices_refused)
+{
+    if (!sl_test_pg())
+        return;
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    sl_store_device first = device_named("W01", "D000"), d = device_named("W01", "D001");
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    insert_added(s.store, s.lot.lot_id, s.run_id, &first);
+    insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    sl_store *other = open_ok(s.db);
+    char sql[256];
+    snprintf(sql, sizeof sql, "INSERT INTO device (lot_id, wafer, name, die_x, die_y) VALUES "
+             "(%ld, 'W01', 'D001', 7, 7)", s.lot.lot_id);
+    ck_assert_int_eq(sl__db_exec(other->db, sql), SL__DB_OK);
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_EDB);
+    ck_assert_msg(strstr(sl_diag_last(diag), "cannot store the imported devices: 1 of 2 "
+                                             "measurements name a device the lot has at another die"),
+                  "%s", sl_diag_last(diag));
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 0);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM device"), 1);
+    sl_store_close(other);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* A query that fails is an error naming what was asked, never a value: a
  * count of devices, the list of lots, and an unknown lot whose known lots
  * cannot be listed. */
@@ -1420,6 +1500,8 @@ static Suite *store_suite(void)
     tcase_add_test(tc, sha256_fips_examples);
     tcase_add_test(tc, constraint_failures_say_which);
     tcase_add_test(tc, failed_queries_are_errors);
+    tcase_add_test(tc, import_constraint_failures_say_which);
+    tcase_add_test(tc, staged_rows_clashing_with_stored_devices_refused);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);
