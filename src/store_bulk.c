@@ -55,19 +55,25 @@ static const char stage_sweeps_sql[] =
 #define ID_BLOCK_FIRST 1024
 #define ID_BLOCK_MAX 32768
 
-/* A device of the lot (stored or staged): a 64-bit key of its lot, wafer
- * and name, and its die. Key 0 marks an empty slot. */
+/* A device of the lot (stored or staged) in 16 bytes: a 64-bit key of its
+ * lot, wafer and name (0 marks an empty slot), its die when it fits 16
+ * bits (else DIE_UNKNOWN: every row of it takes the row-by-row path), and
+ * a bit for each of the import's first 32 runs that has it staged. */
 typedef struct {
     uint64_t key;
-    long die_x, die_y;
+    int16_t die_x, die_y;
+    uint32_t runs;
 } device_slot;
+
+#define DIE_UNKNOWN INT16_MIN
+#define TRACKED_RUNS 32
 
 struct sl__bulk {
     long lot_id;
     device_slot *devices;        /* open addressing, a power of two slots */
     size_t n_devices, cap_devices;
-    uint64_t *measured;          /* keys of (run, wafer, name) staged */
-    size_t n_measured, cap_measured;
+    long runs[TRACKED_RUNS];     /* the runs of the device slots' bits */
+    size_t n_runs;
     long long *ids;              /* measurement ids from the server, unused from next_id */
     size_t n_ids, next_id, block;
     long staged;                 /* rows in the staging table */
@@ -97,17 +103,16 @@ static uint64_t finish_key(uint64_t h)
     return h ? h : 1;
 }
 
-static uint64_t key_of(long long number, const char *wafer, const char *name, uint64_t seed)
+static uint64_t key_of(long long number, const char *wafer, const char *name)
 {
-    uint64_t h = fnv(seed, &number, sizeof number);
+    uint64_t h = fnv(0xcbf29ce484222325ULL, &number, sizeof number);
     h = fnv(h, wafer, strlen(wafer) + 1);
     return finish_key(fnv(h, name, strlen(name) + 1));
 }
 
-#define DEVICE_SEED 0xcbf29ce484222325ULL
-#define MEASURED_SEED 0x84222325cbf29ce4ULL
+static int16_t die16(long v) { return v > INT16_MIN && v <= INT16_MAX ? (int16_t)v : DIE_UNKNOWN; }
 
-/* ---- the two key tables ---- */
+/* ---- the table of the lot's devices ---- */
 
 static device_slot *device_find(device_slot *slots, size_t cap, uint64_t key)
 {
@@ -132,46 +137,31 @@ static int devices_grow(sl__bulk *b)
     return 1;
 }
 
-/* The device's slot, the key set and the die not yet when it is new; NULL
- * when out of memory. */
+/* The device's slot (a new one has key 0, to be filled); NULL when out of
+ * memory. Slots stay at most three quarters full. */
 static device_slot *device_slot_for(sl__bulk *b, uint64_t key)
 {
-    if (2 * (b->n_devices + 1) > b->cap_devices && !devices_grow(b))
+    if (4 * (b->n_devices + 1) > 3 * b->cap_devices && !devices_grow(b))
         return NULL;
     return device_find(b->devices, b->cap_devices, key);
 }
 
-static uint64_t *measured_find(uint64_t *keys, size_t cap, uint64_t key)
+static void device_fill(sl__bulk *b, device_slot *slot, uint64_t key, long die_x, long die_y)
 {
-    size_t i = (size_t)key & (cap - 1);
-    while (keys[i] && keys[i] != key)
-        i = (i + 1) & (cap - 1);
-    return &keys[i];
+    *slot = (device_slot){ key, die16(die_x), die16(die_y), 0 };
+    b->n_devices++;
 }
 
-static int measured_add(sl__bulk *b, uint64_t key)
+/* The run's bit in a device slot, 0 past the first TRACKED_RUNS runs. */
+static uint32_t run_bit(sl__bulk *b, long run_id)
 {
-    if (2 * (b->n_measured + 1) > b->cap_measured) {
-        size_t cap = b->cap_measured ? 2 * b->cap_measured : 1024;
-        uint64_t *keys = calloc(cap, sizeof *keys);
-        if (!keys)
-            return 0;
-        for (size_t i = 0; i < b->cap_measured; i++)
-            if (b->measured[i])
-                *measured_find(keys, cap, b->measured[i]) = b->measured[i];
-        free(b->measured);
-        b->measured = keys;
-        b->cap_measured = cap;
-    }
-    uint64_t *slot = measured_find(b->measured, b->cap_measured, key);
-    b->n_measured += *slot == 0;
-    *slot = key;
-    return 1;
-}
-
-static int measured_has(const sl__bulk *b, uint64_t key)
-{
-    return b->cap_measured && *measured_find(b->measured, b->cap_measured, key) == key;
+    for (size_t i = 0; i < b->n_runs; i++)
+        if (b->runs[i] == run_id)
+            return (uint32_t)1 << i;
+    if (b->n_runs == TRACKED_RUNS)
+        return 0;
+    b->runs[b->n_runs] = run_id;
+    return (uint32_t)1 << b->n_runs++;
 }
 
 /* ---- a row in COPY's binary format: big-endian numbers, each field its
@@ -357,7 +347,6 @@ void sl__store_bulk_discard(sl_store *store)
     if (sl__db_pg_copying(store->db))
         sl__db_pg_copy_end(store->db, "the import was abandoned");
     free(b->devices);
-    free(b->measured);
     free(b->ids);
     free(b->row);
     free(b);
@@ -377,15 +366,15 @@ static sl_status load_stored_devices(sl_store *store, long lot_id, sl_diag *diag
     int rc;
     while (s == SL_OK && (rc = sl__db_step(st)) == SL__DB_ROW) {
         const char *wafer = sl__db_column_text(st, 0), *name = sl__db_column_text(st, 1);
-        device_slot *slot = device_slot_for(store->bulk, key_of(lot_id, wafer ? wafer : "",
-                                                                name ? name : "", DEVICE_SEED));
+        uint64_t key = key_of(lot_id, wafer ? wafer : "", name ? name : "");
+        device_slot *slot = device_slot_for(store->bulk, key);
         if (!slot) {
             s = SL_ENOMEM;
             break;
         }
-        store->bulk->n_devices += slot->key == 0;
-        *slot = (device_slot){ key_of(lot_id, wafer ? wafer : "", name ? name : "", DEVICE_SEED),
-                               (long)sl__db_column_int64(st, 2), (long)sl__db_column_int64(st, 3) };
+        if (!slot->key)
+            device_fill(store->bulk, slot, key, (long)sl__db_column_int64(st, 2),
+                        (long)sl__db_column_int64(st, 3));
     }
     if (s == SL_OK && rc != SL__DB_DONE)
         s = sl__store_db_error(store, diag, "read the lot's devices");
@@ -412,10 +401,10 @@ sl_status sl__store_bulk_begin(sl_store *store, long lot_id, long stored_devices
     return SL_OK;
 }
 
-/* Send the row; the keys noted once it is out. */
+/* Send the row; the device and its run noted once it is out. */
 static sl_status stage_row(sl_store *store, sl_store_insert *out, long lot_id, long run_id,
-                           const sl_store_device *d, device_slot *slot, uint64_t measured_key,
-                           sl_diag *diag)
+                           const sl_store_device *d, device_slot *slot, uint64_t key,
+                           uint32_t run, sl_diag *diag)
 {
     sl__bulk *b = store->bulk;
     long long id = 0;
@@ -431,15 +420,14 @@ static sl_status stage_row(sl_store *store, sl_store_insert *out, long lot_id, l
         return SL_ENOMEM;
     int encoded = encode_row(b, id, lot_id, run_id, d, blob, bytes);
     free(blob);
-    if (!encoded || !measured_add(b, measured_key))
+    if (!encoded)
         return SL_ENOMEM;
     if (sl__db_pg_copy_put(store->db, b->row, b->row_len) != SL__DB_OK)
         return sl__store_db_error(store, diag, "send the imported devices");
     b->staged++;
-    if (!slot->key) {
-        *slot = (device_slot){ key_of(lot_id, d->wafer, d->name, DEVICE_SEED), d->die_x, d->die_y };
-        b->n_devices++;
-    }
+    if (!slot->key)
+        device_fill(b, slot, key, d->die_x, d->die_y);
+    slot->runs |= run;
     out->outcome = SL_STORE_ADDED;
     out->measurement_id = (long)id;
     return SL_OK;
@@ -452,19 +440,21 @@ sl_status sl__store_bulk_insert(sl_store *store, int *staged, sl_store_insert *o
     *staged = 0;
     if (lot_id != b->lot_id)
         return move_staged_or_error(store, diag);
-    uint64_t device_key = key_of(lot_id, d->wafer, d->name, DEVICE_SEED);
-    uint64_t measured_key = key_of(run_id, d->wafer, d->name, MEASURED_SEED);
-    device_slot *slot = device_slot_for(b, device_key);
+    uint64_t key = key_of(lot_id, d->wafer, d->name);
+    device_slot *slot = device_slot_for(b, key);
     if (!slot)
         return SL_ENOMEM;
-    int clash = measured_has(b, measured_key) ||
-                (slot->key && (slot->die_x != d->die_x || slot->die_y != d->die_y));
-    /* a device met before in the run or at another die: the staged rows go
-     * in, and the row-by-row path finds the stored measurement or die */
-    if (clash)
+    uint32_t run = run_bit(b, run_id);
+    /* a device met before in the run or at another die (or one the table
+     * cannot tell): the staged rows go in, and the row-by-row path finds
+     * the stored measurement or die */
+    int clash = slot->key && (!run || (slot->runs & run) || slot->die_x == DIE_UNKNOWN ||
+                              slot->die_y == DIE_UNKNOWN || slot->die_x != d->die_x ||
+                              slot->die_y != d->die_y);
+    if (clash || (!slot->key && (die16(d->die_x) == DIE_UNKNOWN || die16(d->die_y) == DIE_UNKNOWN)))
         return move_staged_or_error(store, diag);
     *staged = 1;
-    return stage_row(store, out, lot_id, run_id, d, slot, measured_key, diag);
+    return stage_row(store, out, lot_id, run_id, d, slot, key, run, diag);
 }
 
 int sl__store_bulk_error(const sl_store *store, char *buf, size_t size)

@@ -1375,6 +1375,49 @@ START_TEST(import_constraint_failures_say_which)
 }
 END_TEST
 
+/* Dies far from the wafer's centre and an import of many runs tell a
+ * device met again apart as well as the common case (on PostgreSQL they
+ * leave the staging table's fast path for the row-by-row one). */
+START_TEST(far_dies_and_many_runs_keep_outcomes)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    sl_store_device far = device_named("W01", "FAR");
+    far.die_x = 100000;
+    far.die_y = -40000;
+    sl_store_insert ins;
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    long first = insert_added(s.store, s.lot.lot_id, s.run_id, &far);
+    ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &far, diag),
+                     SL_OK);
+    ck_assert(ins.outcome == SL_STORE_IN_RUN && ins.measurement_id == first);
+    far.die_y = -32768;
+    ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &far, diag),
+                     SL_OK);
+    ck_assert(ins.outcome == SL_STORE_DIE_DIFFERS && ins.die_x == 100000 && ins.die_y == -40000);
+    /* 40 runs of one device, then each run again */
+    long runs[40];
+    sl_store_device d = device_named("W02", "D009");
+    for (int i = 0; i < 40; i++) {
+        ck_assert_int_eq(sl_store_add_run(s.store, &runs[i], s.lot.lot_id, s.lot.revision_id,
+                                          "final", 10.0 + i, "sweeps", "many.csv", diag), SL_OK);
+        insert_added(s.store, s.lot.lot_id, runs[i], &d);
+    }
+    for (int i = 0; i < 40; i++) {
+        ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, runs[i], &d, diag),
+                         SL_OK);
+        ck_assert_int_eq(ins.outcome, SL_STORE_IN_RUN);
+    }
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 41);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM device"), 2);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* PostgreSQL: the staged rows go in only where the device sits at their
  * die. A device another connection adds at another die while the import
  * runs (it takes no lot lock, as no splitlot command would) makes the
@@ -1501,6 +1544,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, constraint_failures_say_which);
     tcase_add_test(tc, failed_queries_are_errors);
     tcase_add_test(tc, import_constraint_failures_say_which);
+    tcase_add_test(tc, far_dies_and_many_runs_keep_outcomes);
     tcase_add_test(tc, staged_rows_clashing_with_stored_devices_refused);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
