@@ -28,6 +28,9 @@ struct sl_store_scratch {
     sl__stmt *rank, *ranked; /* ranked devices: insert, read back */
     sl__stmt *params;        /* split, mobility, n0 and hysteresis of one class */
     long last_kept;              /* rowid of the kept device last read */
+    struct pending_rank *pending; /* PostgreSQL: ranked devices not yet sent */
+    size_t n_pending;
+    sl__stmt *rank_batch;    /* PostgreSQL: RANK_BATCH of them in one INSERT */
     double temperature_K;        /* the view's */
     sl_store_device_row row;
 };
@@ -130,6 +133,59 @@ static const char ranked_pg_sql[] =
     "SELECT " KEPT_COLUMNS " FROM sl_scratch_rank k "
     "JOIN sl_scratch_kept c ON c.rowid = k.kept_id "
     "ORDER BY k.severity DESC, k.wafer, k.device";
+
+/* On PostgreSQL flagged devices go to the ranked table RANK_BATCH at a
+ * time, in one statement (one round trip to the server instead of as many
+ * as devices); the rest before the ranked devices are read back. */
+#define RANK_BATCH 256
+struct pending_rank {
+    double severity;
+    char wafer[65], name[65];
+    long kept_id;
+};
+
+/* "INSERT ... VALUES (?1, ?2, ?3, ?4), (?5, ...)" for n rows (malloc'd). */
+static char *rank_rows_sql(size_t n)
+{
+    size_t size = sizeof rank_sql + n * 48;
+    char *sql = malloc(size);
+    if (!sql)
+        return NULL;
+    size_t k = (size_t)snprintf(sql, size, "%.*s", (int)(strstr(rank_sql, "(?1") - rank_sql),
+                                rank_sql);
+    for (size_t i = 0; i < n; i++)
+        k += (size_t)snprintf(sql + k, size - k, "%s(?%zu, ?%zu, ?%zu, ?%zu)", i ? ", " : "",
+                              4 * i + 1, 4 * i + 2, 4 * i + 3, 4 * i + 4);
+    return sql;
+}
+
+static sl_status send_ranks(sl_store_scratch *x, sl_diag *diag)
+{
+    if (x->n_pending == 0)
+        return SL_OK;
+    sl__stmt *st = x->n_pending == RANK_BATCH ? x->rank_batch : NULL;
+    if (!st) {
+        char *sql = rank_rows_sql(x->n_pending);
+        sl_status s = sql ? sl__store_prepare(x->store, &st, sql, diag) : SL_ENOMEM;
+        free(sql);
+        if (s != SL_OK)
+            return s;
+        if (x->n_pending == RANK_BATCH)
+            x->rank_batch = st;
+    }
+    for (size_t i = 0; i < x->n_pending; i++) {
+        const struct pending_rank *r = &x->pending[i];
+        sl__db_bind_double(st, (int)(4 * i + 1), r->severity);
+        sl__db_bind_text(st, (int)(4 * i + 2), r->wafer, -1);
+        sl__db_bind_text(st, (int)(4 * i + 3), r->name, -1);
+        sl__db_bind_int64(st, (int)(4 * i + 4), r->kept_id);
+    }
+    sl_status s = sl__store_step_done(x->store, st, diag, "list the flagged devices");
+    if (st != x->rank_batch)
+        sl__db_finalize(st);
+    x->n_pending = 0;
+    return s;
+}
 
 /* A text column into a buffer, cut to fit (names are at most 64 bytes). */
 static void copy_text(char *dst, size_t size, sl__stmt *st, int col)
@@ -372,6 +428,16 @@ sl_status sl_store_scratch_next_params(sl_store_scratch *x, int *more, long *tag
 
 sl_status sl_store_scratch_rank(sl_store_scratch *x, double severity, sl_diag *diag)
 {
+    if (sl__store_is_pg(x->store)) {
+        if (!x->pending && !(x->pending = malloc(RANK_BATCH * sizeof *x->pending)))
+            return SL_ENOMEM;
+        struct pending_rank *r = &x->pending[x->n_pending++];
+        r->severity = severity;
+        snprintf(r->wafer, sizeof r->wafer, "%s", x->row.wafer);
+        snprintf(r->name, sizeof r->name, "%s", x->row.name);
+        r->kept_id = x->last_kept;
+        return x->n_pending == RANK_BATCH ? send_ranks(x, diag) : SL_OK;
+    }
     sl__db_bind_double(x->rank, 1, severity);
     sl__db_bind_text(x->rank, 2, x->row.wafer, -1);
     sl__db_bind_text(x->rank, 3, x->row.name, -1);
@@ -382,6 +448,9 @@ sl_status sl_store_scratch_rank(sl_store_scratch *x, double severity, sl_diag *d
 sl_status sl_store_scratch_next_ranked(sl_store_scratch *x, long *group, long *tag,
                                        const sl_store_device_row **row, sl_diag *diag)
 {
+    sl_status s = send_ranks(x, diag);
+    if (s != SL_OK)
+        return s;
     return next_row(x, x->ranked, group, tag, row, diag, "read the flagged devices");
 }
 
@@ -402,7 +471,9 @@ void sl_store_scratch_close(sl_store_scratch *x)
     sl__db_finalize(x->values);
     sl__db_finalize(x->params);
     sl__db_finalize(x->rank);
+    sl__db_finalize(x->rank_batch);
     sl__db_finalize(x->ranked);
+    free(x->pending);
     if (x->cache_set) {
         set_cache(x->store, "main", x->main_cache, NULL);
         set_cache(x->store, "temp", x->temp_cache, NULL);
