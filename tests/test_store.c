@@ -1150,6 +1150,42 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
 }
 END_TEST
 
+/* More flagged devices than go to the server in one statement (600: two
+ * batches of 256 and the rest) come back by severity, the highest first. */
+START_TEST(scratch_ranks_many_in_order)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    static const char *const names[] = { "A", "B", "C" };
+    for (int j = 0; j < 3; j++)
+        add_device(&s, s.store, "W01", names[j], j, 0, "ok", 1.0 + j);
+    sl_store_scratch *x = NULL;
+    ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_view(x, s.lot.lot_id, "final", 300.0, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_keep_wafer(x, s.lot.lot_id, "W01", 1, 1, diag), SL_OK);
+    const sl_store_device_row *r = NULL;
+    long group = 0, tag = 0;
+    for (int pass = 0; pass < 200; pass++) {
+        for (int j = 0; j < 3; j++) {
+            ck_assert_int_eq(sl_store_scratch_next_kept(x, &group, &tag, &r, diag), SL_OK);
+            ck_assert_str_eq(r->name, names[j]); /* kept in die order */
+            ck_assert_int_eq(sl_store_scratch_rank(x, 3.0 * pass + j, diag), SL_OK);
+        }
+        sl_store_scratch_rewind(x);
+    }
+    for (int i = 0; i <= 600; i++) {
+        ck_assert_int_eq(sl_store_scratch_next_ranked(x, &group, &tag, &r, diag), SL_OK);
+        ck_assert_int_eq(r != NULL, i < 600);
+        if (r)
+            ck_assert_msg(strcmp(r->name, names[(599 - i) % 3]) == 0, "%d: %s", i, r->name);
+    }
+    sl_store_scratch_close(x);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* ---- the schema migration from version 3 ---- */
 
 /* One CSV line of a dump (no quoted commas in these dumps) split in place. */
@@ -1551,6 +1587,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, damaged_sweep_is_a_database_error);
     tcase_add_test(tc, damaged_staged_points_are_a_database_error);
     tcase_add_test(tc, scratch_keeps_ranks_and_reads_one_snapshot);
+    tcase_add_test(tc, scratch_ranks_many_in_order);
     suite_add_tcase(s, tc);
     TCase *blob = tcase_create("sweep blob");
     tcase_set_timeout(blob, 300);
