@@ -146,8 +146,10 @@ static int copy_end(pg_db *db, const char *abort_reason)
         return SL__DB_OK;
     db->copying = 0;
     int rc = SL__DB_OK;
-    if (PQputCopyEnd(db->conn, abort_reason) != 1)
+    if (PQputCopyEnd(db->conn, abort_reason) != 1) {
         rc = fail(db, NULL);
+        db->kind = SL__DBE_CONNECTION;
+    }
     /* the COPY's result, then the end of the command */
     PGresult *res;
     while ((res = PQgetResult(db->conn)) != NULL) {
@@ -194,7 +196,11 @@ int sl__db_pg_copy_put(sl__db *base, const void *data, size_t bytes)
         db->kind = SL__DBE_OTHER;
         return SL__DB_FAIL;
     }
-    return PQputCopyData(db->conn, data, (int)bytes) == 1 ? SL__DB_OK : fail(db, NULL);
+    if (PQputCopyData(db->conn, data, (int)bytes) == 1)
+        return SL__DB_OK;
+    fail(db, NULL);
+    db->kind = SL__DBE_CONNECTION; /* only a broken connection refuses the data */
+    return SL__DB_FAIL;
 }
 
 int sl__db_pg_copy_end(sl__db *base, const char *abort_reason)

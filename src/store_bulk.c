@@ -306,34 +306,41 @@ static sl_status open_copy(sl_store *store, sl_diag *diag)
     return SL_OK;
 }
 
-/* The next measurement id, a new block of them from the server when used up. */
+/* A block of measurement ids from the server's sequence, in order. */
+static sl_status fetch_ids(sl_store *store, sl_diag *diag)
+{
+    sl__bulk *b = store->bulk;
+    b->block = b->block ? (2 * b->block < ID_BLOCK_MAX ? 2 * b->block : ID_BLOCK_MAX)
+                        : ID_BLOCK_FIRST;
+    long long *ids = realloc(b->ids, b->block * sizeof *ids);
+    if (!ids)
+        return SL_ENOMEM;
+    b->ids = ids;
+    b->n_ids = b->next_id = 0;
+    sl__stmt *st = NULL;
+    sl_status s = sl__store_prepare(store, &st,
+        "SELECT nextval(pg_get_serial_sequence('measurement', 'id')) FROM generate_series(1, ?1)",
+        diag);
+    if (s != SL_OK)
+        return s;
+    sl__db_bind_int64(st, 1, (long long)b->block);
+    int rc;
+    while ((rc = sl__db_step(st)) == SL__DB_ROW && b->n_ids < b->block)
+        b->ids[b->n_ids++] = sl__db_column_int64(st, 0);
+    sl__db_finalize(st);
+    if (rc != SL__DB_DONE || b->n_ids == 0)
+        return sl__store_db_error(store, diag, "number the imported measurements");
+    return SL_OK;
+}
+
+/* The next measurement id, a new block of them when used up. */
 static sl_status next_id(sl_store *store, long long *id, sl_diag *diag)
 {
     sl__bulk *b = store->bulk;
-    if (b->next_id == b->n_ids) {
-        b->block = b->block ? (2 * b->block < ID_BLOCK_MAX ? 2 * b->block : ID_BLOCK_MAX)
-                            : ID_BLOCK_FIRST;
-        long long *ids = realloc(b->ids, b->block * sizeof *ids);
-        if (!ids)
-            return SL_ENOMEM;
-        b->ids = ids;
-        b->n_ids = b->next_id = 0;
-        sl__stmt *st = NULL;
-        sl_status s = sl__store_prepare(store, &st,
-            "SELECT nextval(pg_get_serial_sequence('measurement', 'id')) FROM generate_series(1, ?1)",
-            diag);
-        if (s != SL_OK)
-            return s;
-        sl__db_bind_int64(st, 1, (long long)b->block);
-        int rc;
-        while ((rc = sl__db_step(st)) == SL__DB_ROW && b->n_ids < b->block)
-            b->ids[b->n_ids++] = sl__db_column_int64(st, 0);
-        sl__db_finalize(st);
-        if (rc != SL__DB_DONE || b->n_ids == 0)
-            return sl__store_db_error(store, diag, "number the imported measurements");
-    }
-    *id = b->ids[b->next_id++];
-    return SL_OK;
+    sl_status s = b->next_id == b->n_ids ? fetch_ids(store, diag) : SL_OK;
+    if (s == SL_OK)
+        *id = b->ids[b->next_id++];
+    return s;
 }
 
 /* ---- an import's life ---- */

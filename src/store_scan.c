@@ -321,6 +321,7 @@ sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag
         sl_store_scratch_close(x);
         return s;
     }
+    sl__store_sweep_memo(store, 1);
     *out = x;
     return SL_OK;
 }
@@ -466,6 +467,7 @@ void sl_store_scratch_close(sl_store_scratch *x)
 {
     if (!x)
         return;
+    sl__store_sweep_memo(x->store, 0);
     sl__db_finalize(x->keep);
     sl__db_finalize(x->kept);
     sl__db_finalize(x->values);

@@ -1186,6 +1186,53 @@ START_TEST(scratch_ranks_many_in_order)
 }
 END_TEST
 
+/* Inside an analysis's scratch a sweep read twice in a row (as the
+ * analysis does) is the same sweep, and reading another in between or a
+ * measurement without one never hands back the wrong points. */
+START_TEST(sweeps_read_again_in_a_scratch)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    const double vg[2][3] = { { -1.0, 0.0, 1.0 }, { -2.0, 0.5, 2.0 } };
+    const double r[2][3] = { { 900.0, 2000.0, 950.0 }, { 800.0, 1500.0, 700.0 } };
+    long ids[3];
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    static const char *const names[] = { "A", "B", "C" };
+    for (int i = 0; i < 3; i++) {
+        sl_store_device d = device_named("W01", names[i]);
+        d.vg_V = i < 2 ? vg[i] : NULL;
+        d.r_ohm = i < 2 ? r[i] : NULL;
+        d.n_points = i < 2 ? 3 : 0;
+        ids[i] = insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    }
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
+    sl_store_scratch *x = NULL;
+    ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    static const int order[] = { 0, 0, 1, 0, 2, 2, 1, 1 };
+    for (size_t k = 0; k < sizeof order / sizeof order[0]; k++) {
+        int i = order[k];
+        double *got_vg = NULL, *got_r = NULL;
+        size_t n = 0;
+        sl_status st = sl_store_load_sweep(s.store, &got_vg, &got_r, &n, ids[i], diag);
+        if (i == 2) {
+            ck_assert_int_eq(st, SL_ENOTFOUND);
+        } else {
+            ck_assert_int_eq(st, SL_OK);
+            ck_assert_uint_eq(n, 3);
+            for (size_t j = 0; j < 3; j++)
+                ck_assert(got_vg[j] == vg[i][j] && got_r[j] == r[i][j]);
+        }
+        free(got_vg);
+        free(got_r);
+    }
+    sl_store_scratch_close(x);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* ---- the schema migration from version 3 ---- */
 
 /* One CSV line of a dump (no quoted commas in these dumps) split in place. */
@@ -1588,6 +1635,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, damaged_staged_points_are_a_database_error);
     tcase_add_test(tc, scratch_keeps_ranks_and_reads_one_snapshot);
     tcase_add_test(tc, scratch_ranks_many_in_order);
+    tcase_add_test(tc, sweeps_read_again_in_a_scratch);
     suite_add_tcase(s, tc);
     TCase *blob = tcase_create("sweep blob");
     tcase_set_timeout(blob, 300);
