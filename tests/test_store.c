@@ -1533,6 +1533,44 @@ START_TEST(staged_rows_clashing_with_stored_devices_refused)
 }
 END_TEST
 
+/* PostgreSQL: the server ends the import's connection while its rows are
+ * streaming (an open COPY): one message naming the lost connection,
+ * "nothing was changed", and nothing of the import on the server. */
+START_TEST(connection_lost_mid_copy_keeps_nothing)
+{
+    if (!sl_test_pg())
+        return;
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    long pid = query_long(s.store, "SELECT pg_backend_pid()");
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    sl_store_device d = device_named("W01", "D000");
+    insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    ck_assert_int_eq(sl__db_pg_copying(s.store->db), 1);
+    sl_store *other = open_ok(s.db);
+    char sql[96];
+    snprintf(sql, sizeof sql, "SELECT pg_terminate_backend(%ld)::int", pid);
+    ck_assert_int_eq(query_long(other, sql), 1);
+    d.name = "D001";
+    sl_store_insert ins;
+    sl_status st = sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &d, diag);
+    if (st == SL_OK) /* the row may still fit the client's buffer */
+        st = sl_store_commit(s.store, diag);
+    else
+        sl_store_rollback(s.store);
+    ck_assert_int_eq(st, SL_EDB);
+    ck_assert_uint_eq(sl_diag_size(diag), 1);
+    ck_assert_msg(strstr(sl_diag_last(diag), "cannot be reached or closed the connection") &&
+                  strstr(sl_diag_last(diag), "nothing was changed"), "%s", sl_diag_last(diag));
+    ck_assert_int_eq(query_long(other, "SELECT count(*) FROM device"), 0);
+    ck_assert_int_eq(query_long(other, "SELECT count(*) FROM measurement"), 0);
+    sl_store_close(other);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* A query that fails is an error naming what was asked, never a value: a
  * count of devices, the list of lots, and an unknown lot whose known lots
  * cannot be listed. */
@@ -1628,6 +1666,7 @@ static Suite *store_suite(void)
     tcase_add_test(tc, failed_queries_are_errors);
     tcase_add_test(tc, import_constraint_failures_say_which);
     tcase_add_test(tc, far_dies_and_many_runs_keep_outcomes);
+    tcase_add_test(tc, connection_lost_mid_copy_keeps_nothing);
     tcase_add_test(tc, staged_rows_clashing_with_stored_devices_refused);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
