@@ -39,12 +39,16 @@ static const char stage_devices_sql[] =
 
 /* The measurements, each joined to its device at the same die: a staged
  * row whose device the lot has at another die finds none, and the count
- * tells (the import looks for such clashes before it stages a row). */
+ * tells (the import looks for such clashes before it stages a row). Each
+ * row looks its device up through the unique index (a LATERAL ... LIMIT 1
+ * the planner keeps as such): a join would read the whole device table of
+ * the server, every lot's, for each batch. */
 static const char stage_measurements_sql[] =
     "INSERT INTO measurement (id, device_id, run_id, source, source_line, " MEASUREMENT_COLUMNS
     ") SELECT s.measurement_id, d.id, s.run_id, s.source, s.source_line, " MEASUREMENT_COLUMNS
-    " FROM " STAGE_TABLE " s JOIN device d ON d.lot_id = s.lot_id AND d.wafer = s.wafer AND "
-    "d.name = s.name AND d.die_x = s.die_x AND d.die_y = s.die_y ORDER BY s.measurement_id";
+    " FROM " STAGE_TABLE " s CROSS JOIN LATERAL (SELECT id FROM device WHERE lot_id = s.lot_id "
+    "AND wafer = s.wafer AND name = s.name AND die_x = s.die_x AND die_y = s.die_y LIMIT 1) d "
+    "ORDER BY s.measurement_id";
 
 static const char stage_sweeps_sql[] =
     "INSERT INTO sweep (measurement_id, n_points, points) SELECT measurement_id, n_points, "
