@@ -578,7 +578,13 @@ sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, si
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, measurement_id);
-    if (sl__db_step(st) != SL__DB_ROW) {
+    int rc = sl__db_step(st);
+    if (rc == SL__DB_FAIL) { /* a failed query is an error, never "no sweep stored" */
+        s = sl__store_db_error(store, diag, "read a stored sweep");
+        sl__db_finalize(st);
+        return s;
+    }
+    if (rc != SL__DB_ROW) {
         sl__db_finalize(st);
         sweep_to_memo(store, measurement_id, SL_ENOTFOUND, NULL);
         return SL_ENOTFOUND;

@@ -1601,6 +1601,15 @@ START_TEST(failed_queries_are_errors)
     sl_store_lot lot;
     ck_assert_int_eq(sl_store_find_lot(s.store, &lot, "NOPE", diag), SL_EDB);
     ck_assert_msg(!strstr(sl_diag_last(diag), "not in the database"), "%s", sl_diag_last(diag));
+    sl_diag_clear(diag);
+    /* a sweep that cannot be read is an error, never "no sweep stored" */
+    ck_assert_int_eq(sl__store_exec(s.store, "ALTER TABLE sweep RENAME TO sweep_gone", diag,
+                                   "break the schema"), SL_OK);
+    double *vg = NULL, *r = NULL;
+    size_t n_points = 3;
+    ck_assert_int_eq(sl_store_load_sweep(s.store, &vg, &r, &n_points, 1, diag), SL_EDB);
+    ck_assert(vg == NULL && r == NULL && n_points == 0);
+    ck_assert_msg(strstr(sl_diag_last(diag), "sweep"), "%s", sl_diag_last(diag));
     sl_diag_free(diag);
     demo_store_free(&s);
 }
