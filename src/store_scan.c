@@ -21,11 +21,12 @@
 #define SL_SCRATCH_CACHE_KIB 256
 
 /* Bytes of packed devices or values a scratch row holds at most: on
- * PostgreSQL fewer, as a cursor reads thousands of rows at a time in text
- * (two hex digits a byte). A packed device takes at most PACKED_MAX (a
- * few hundred bytes). */
+ * PostgreSQL about a device, as a cursor reads thousands of rows at a time
+ * in text (two hex digits a byte), which would otherwise grow the process.
+ * A packed device takes at most PACKED_MAX (a few hundred bytes). */
 #define SL_SCRATCH_CHUNK_BYTES 32768
-#define SL_SCRATCH_CHUNK_BYTES_PG 1024
+#define SL_SCRATCH_CHUNK_BYTES_PG PACKED_MAX
+#define SL_SCRATCH_VALUES_PG 4 /* values a row holds on PostgreSQL */
 
 /* A kept device packed: these numbers (NaN for NULL), then its wafer,
  * name, fit class and fit model, not terminated, of the lengths given. */
@@ -43,8 +44,8 @@ typedef struct {
      ROW_TEXT(fit_model))
 
 _Static_assert(PACKED_MAX <= SL_SCRATCH_CHUNK_BYTES_PG &&
-                   sizeof(sl_store_scratch_value) <= SL_SCRATCH_CHUNK_BYTES_PG,
-               "a packed device or value fits a chunk");
+                   SL_SCRATCH_VALUES_PG * sizeof(sl_store_scratch_value) <= SL_SCRATCH_CHUNK_BYTES_PG,
+               "a packed device or the values of a row fit a chunk");
 
 /* A chunk of packed bytes being written or read back. */
 typedef struct {
@@ -59,10 +60,13 @@ struct sl_store_scratch {
     int cache_set;
     long main_cache, temp_cache; /* cache_size before, restored at the end */
     sl__stmt *select;        /* a wafer's devices from the store */
+    sl__stmt *select_any, *select_one_run; /* select is one of them */
+    long only_run;           /* the view's run when it has one, else 0 */
     sl__stmt *keep, *kept;   /* packed devices: insert, read back */
     sl__stmt *keep_value, *values; /* packed values: insert, read back */
     sl__stmt *rank, *ranked; /* ranked devices: insert, read back */
     size_t chunk_cap;        /* bytes a scratch row holds */
+    size_t values_cap;       /* bytes a row of values holds (at most chunk_cap) */
     chunk_buf out;           /* devices or values being packed */
     chunk_buf in_kept, in_values; /* the chunk a reading is in */
     const unsigned char *last; /* the packed device last read, and its size */
@@ -120,6 +124,17 @@ static const char select_sql[] =
     "ORDER BY c.run_id DESC LIMIT 1) "
     "WHERE d.lot_id = ?1 AND d.wafer = ?2 "
     "ORDER BY d.die_y, d.die_x, d.name";
+/* The same when the view has one run (?3), as it mostly has: a device's
+ * measurement in it is its newest and only one, found by the run's index. */
+static const char select_one_run_sql[] =
+    "SELECT m.id, d.id, m.run_id, d.name, m.fit_class, coalesce(m.fit_model, ''), m.cnp_V, "
+    "d.die_x, d.die_y, m.mobility_cm2_per_Vs, m.n0_per_cm2, m.r_contact_ohm, m.hysteresis_V, "
+    "d.channel_length_um, d.channel_width_um, "
+    "m.electron_mobility_cm2_per_Vs, m.hole_mobility_cm2_per_Vs, 1, coalesce(m.n_points, 0) "
+    "FROM device d JOIN measurement m ON m.run_id = ?3 AND m.device_id = d.id "
+    "WHERE d.lot_id = ?1 AND d.wafer = ?2 "
+    "ORDER BY d.die_y, d.die_x, d.name";
+static const char view_runs_sql[] = "SELECT count(*), min(id) FROM sl_scratch_run";
 static const char keep_sql[] = "INSERT INTO sl_scratch_kept (chunk) VALUES (?1)";
 static const char kept_sql[] = "SELECT chunk FROM sl_scratch_kept ORDER BY rowid";
 static const char keep_value_sql[] = "INSERT INTO sl_scratch_values (chunk) VALUES (?1)";
@@ -231,11 +246,12 @@ static sl_status flush_chunk(sl_store_scratch *x, sl__stmt *insert, sl_diag *dia
     return sl__store_step_done(x->store, insert, diag, what);
 }
 
-/* Room for bytes more in the chunk being packed: flushed first when full. */
-static sl_status chunk_room(sl_store_scratch *x, size_t bytes, sl__stmt *insert, sl_diag *diag,
-                            const char *what)
+/* Room for bytes more in the chunk being packed (cap bytes at most):
+ * flushed first when full. */
+static sl_status chunk_room(sl_store_scratch *x, size_t bytes, size_t cap, sl__stmt *insert,
+                            sl_diag *diag, const char *what)
 {
-    return x->out.len + bytes > x->chunk_cap ? flush_chunk(x, insert, diag, what) : SL_OK;
+    return x->out.len + bytes > cap ? flush_chunk(x, insert, diag, what) : SL_OK;
 }
 
 /* The next row of a chunked reading into in (its bytes copied): 1, 0 at
@@ -291,7 +307,10 @@ static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
     if (s == SL_OK)
         s = sl__store_exec(store, empty_tables_sql, diag, "empty the scratch tables");
     if (s == SL_OK)
-        s = sl__store_prepare_flags(store, &x->select, select_sql, SL__DB_STREAM, diag);
+        s = sl__store_prepare_flags(store, &x->select_any, select_sql, SL__DB_STREAM, diag);
+    if (s == SL_OK)
+        s = sl__store_prepare_flags(store, &x->select_one_run, select_one_run_sql,
+                                   SL__DB_STREAM, diag);
     if (s == SL_OK)
         s = sl__store_prepare(store, &x->keep, keep_sql, diag);
     if (s == SL_OK)
@@ -343,7 +362,9 @@ static sl_status begin_snapshot(sl_store_scratch *x, sl_diag *diag)
 /* The buffers of the chunks, sized for the database. */
 static sl_status chunk_buffers(sl_store_scratch *x)
 {
-    x->chunk_cap = sl__store_is_pg(x->store) ? SL_SCRATCH_CHUNK_BYTES_PG : SL_SCRATCH_CHUNK_BYTES;
+    int pg = sl__store_is_pg(x->store);
+    x->chunk_cap = pg ? SL_SCRATCH_CHUNK_BYTES_PG : SL_SCRATCH_CHUNK_BYTES;
+    x->values_cap = pg ? SL_SCRATCH_VALUES_PG * sizeof(sl_store_scratch_value) : x->chunk_cap;
     x->out.bytes = malloc(x->chunk_cap);
     x->in_kept.bytes = malloc(x->chunk_cap);
     x->in_values.bytes = malloc(x->chunk_cap);
@@ -388,7 +409,21 @@ sl_status sl_store_scratch_view(sl_store_scratch *x, long lot_id, const char *st
     sl__db_bind_int64(st, 1, lot_id);
     sl__db_bind_text(st, 2, step, -1);
     sl__db_bind_double(st, 3, temperature_K);
-    return sl__store_step_once(x->store, st, diag, "choose the view's runs");
+    s = sl__store_step_once(x->store, st, diag, "choose the view's runs");
+    if (s == SL_OK)
+        s = sl__store_prepare(x->store, &st, view_runs_sql, diag);
+    if (s != SL_OK)
+        return s;
+    x->only_run = 0;
+    if (sl__db_step(st) == SL__DB_ROW) {
+        if (sl__db_column_int64(st, 0) == 1)
+            x->only_run = (long)sl__db_column_int64(st, 1);
+    } else {
+        s = sl__store_db_error(x->store, diag, "choose the view's runs");
+    }
+    sl__db_finalize(st);
+    x->select = x->only_run ? x->select_one_run : x->select_any;
+    return s;
 }
 
 /* Step a read-back statement: 1 with a row, 0 at the end (reset, so the next
@@ -409,13 +444,19 @@ sl_status sl_store_scratch_keep_wafer(sl_store_scratch *x, long lot_id, const ch
                                       long group, long tag, sl_diag *diag)
 {
     static const char what[] = "read the lot's devices";
+    if (!x->select) {
+        sl_diag_error(diag, "the analysis' scratch has no view (%s)", what);
+        return SL_EINPUT;
+    }
     sl__db_bind_int64(x->select, 1, lot_id);
     sl__db_bind_text(x->select, 2, wafer, -1);
+    if (x->only_run)
+        sl__db_bind_int64(x->select, 3, x->only_run);
     sl_status s = SL_OK;
     int got;
     x->out.len = 0;
     while ((got = step_back(x, x->select, diag, what)) > 0 && s == SL_OK) {
-        s = chunk_room(x, PACKED_MAX, x->keep, diag, what);
+        s = chunk_room(x, PACKED_MAX, x->chunk_cap, x->keep, diag, what);
         x->out.len += pack_device(x->out.bytes + x->out.len, x->select, wafer, group, tag);
     }
     if (got > 0) /* stopped by a failed insert */
@@ -477,7 +518,7 @@ sl_status sl_store_scratch_keep_values(sl_store_scratch *x, const char *fit_clas
     while ((s = sl_store_scratch_next_kept(x, &group, &tag, &r, diag)) == SL_OK && r) {
         if (!usable_value(&v, r, group, tag, fit_class))
             continue;
-        if ((s = chunk_room(x, sizeof v, x->keep_value, diag, what)) != SL_OK)
+        if ((s = chunk_room(x, sizeof v, x->values_cap, x->keep_value, diag, what)) != SL_OK)
             break;
         memcpy(x->out.bytes + x->out.len, &v, sizeof v);
         x->out.len += sizeof v;
@@ -555,7 +596,8 @@ void sl_store_scratch_close(sl_store_scratch *x)
 {
     if (!x)
         return;
-    sl__db_finalize(x->select);
+    sl__db_finalize(x->select_any);
+    sl__db_finalize(x->select_one_run);
     sl__db_finalize(x->keep);
     sl__db_finalize(x->kept);
     sl__db_finalize(x->keep_value);
