@@ -33,6 +33,8 @@
 #define SL_SCRATCH_CHUNK_BYTES 32768
 #define SL_SCRATCH_CHUNK_BYTES_PG PACKED_MAX
 #define SL_SCRATCH_VALUES_PG 4 /* values a row holds on PostgreSQL */
+/* Rows one insert writes on PostgreSQL (a round trip each insert). */
+#define SL_SCRATCH_BATCH_PG 32
 
 /* A kept device packed: these numbers (NaN for NULL), then its wafer,
  * name, fit class and fit model, not terminated, of the lengths given. */
@@ -74,6 +76,9 @@ struct sl_store_scratch {
     size_t chunk_cap;        /* bytes a scratch row holds */
     size_t values_cap;       /* bytes a row of values holds (at most chunk_cap) */
     chunk_buf out;           /* devices or values being packed */
+    size_t batch, n_batched; /* rows an insert writes, rows waiting */
+    unsigned char *batched;  /* their bytes, chunk_cap apart */
+    size_t *batched_len;
     chunk_buf in_kept, in_values; /* the chunk a reading is in */
     const unsigned char *last; /* the packed device last read, and its size */
     size_t last_len;
@@ -142,6 +147,11 @@ static const char select_one_run_sql[] =
     "ORDER BY d.die_y, d.die_x, d.name";
 static const char view_runs_sql[] = "SELECT count(*), min(id) FROM sl_scratch_run";
 static const char keep_sql[] = "INSERT INTO sl_scratch_kept (chunk) VALUES (?1)";
+/* On PostgreSQL an insert writes SL_SCRATCH_BATCH_PG rows, in order, the
+ * ones bound NULL left out (the last insert of a wafer has fewer). */
+static const char batch_head_sql[] = "INSERT INTO %s (chunk) SELECT c FROM (VALUES ";
+static const char batch_row_sql[] = "%s(%d, ?%d::bytea)";
+static const char batch_tail_sql[] = ") AS v(k, c) WHERE c IS NOT NULL ORDER BY k";
 static const char kept_sql[] = "SELECT chunk FROM sl_scratch_kept ORDER BY rowid";
 static const char keep_value_sql[] = "INSERT INTO sl_scratch_values (chunk) VALUES (?1)";
 static const char values_sql[] = "SELECT chunk FROM sl_scratch_values ORDER BY rowid";
@@ -241,15 +251,45 @@ static size_t unpack_device(sl_store_scratch *x, const unsigned char *src, size_
     return n;
 }
 
-/* Insert the chunk being packed, if any, as one row. */
+/* Insert the rows waiting, if any. */
+static sl_status insert_batch(sl_store_scratch *x, sl__stmt *insert, sl_diag *diag,
+                              const char *what)
+{
+    if (x->n_batched == 0)
+        return SL_OK;
+    for (size_t i = 0; i < x->batch; i++) {
+        if (i < x->n_batched)
+            sl__db_bind_blob(insert, (int)i + 1, x->batched + i * x->chunk_cap,
+                             x->batched_len[i]);
+        else
+            sl__db_bind_null(insert, (int)i + 1);
+    }
+    x->n_batched = 0;
+    return sl__store_step_done(x->store, insert, diag, what);
+}
+
+/* The chunk being packed, if any, to the rows waiting; inserted when they
+ * fill an insert. */
 static sl_status flush_chunk(sl_store_scratch *x, sl__stmt *insert, sl_diag *diag,
                              const char *what)
 {
     if (x->out.len == 0)
         return SL_OK;
-    sl__db_bind_blob(insert, 1, x->out.bytes, x->out.len);
+    memcpy(x->batched + x->n_batched * x->chunk_cap, x->out.bytes, x->out.len);
+    x->batched_len[x->n_batched++] = x->out.len;
     x->out.len = 0;
-    return sl__store_step_done(x->store, insert, diag, what);
+    return x->n_batched == x->batch ? insert_batch(x, insert, diag, what) : SL_OK;
+}
+
+/* The last chunk and the rows waiting inserted. */
+static sl_status flush_all(sl_store_scratch *x, sl__stmt *insert, sl_diag *diag,
+                           const char *what)
+{
+    sl_status s = flush_chunk(x, insert, diag, what);
+    if (s == SL_OK)
+        s = insert_batch(x, insert, diag, what);
+    x->out.len = x->n_batched = 0;
+    return s;
 }
 
 /* Room for bytes more in the chunk being packed (cap bytes at most):
@@ -304,6 +344,22 @@ static sl_status set_cache(sl_store *store, const char *schema, long size, sl_di
     return sl__store_exec(store, sql, diag, "set the page cache size");
 }
 
+/* The insert of packed rows into table: one row, or on PostgreSQL a batch. */
+static sl_status prepare_insert(sl_store_scratch *x, sl__stmt **out, const char *one_row_sql,
+                                const char *table, sl_diag *diag)
+{
+    if (x->batch == 1)
+        return sl__store_prepare(x->store, out, one_row_sql, diag);
+    char sql[64 + SL_SCRATCH_BATCH_PG * 32];
+    size_t n = (size_t)snprintf(sql, sizeof sql, batch_head_sql, table);
+    for (size_t i = 0; i < x->batch && n < sizeof sql; i++)
+        n += (size_t)snprintf(sql + n, sizeof sql - n, batch_row_sql, i ? ", " : "", (int)i + 1,
+                              (int)i + 1);
+    if (n < sizeof sql)
+        snprintf(sql + n, sizeof sql - n, "%s", batch_tail_sql);
+    return sl__store_prepare(x->store, out, sql, diag);
+}
+
 static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
 {
     sl_store *store = x->store;
@@ -318,11 +374,11 @@ static sl_status scratch_statements(sl_store_scratch *x, sl_diag *diag)
         s = sl__store_prepare_flags(store, &x->select_one_run, select_one_run_sql,
                                    SL__DB_STREAM, diag);
     if (s == SL_OK)
-        s = sl__store_prepare(store, &x->keep, keep_sql, diag);
+        s = prepare_insert(x, &x->keep, keep_sql, "sl_scratch_kept", diag);
     if (s == SL_OK)
         s = sl__store_prepare_flags(store, &x->kept, kept_sql, SL__DB_STREAM, diag);
     if (s == SL_OK)
-        s = sl__store_prepare(store, &x->keep_value, keep_value_sql, diag);
+        s = prepare_insert(x, &x->keep_value, keep_value_sql, "sl_scratch_values", diag);
     if (s == SL_OK)
         s = sl__store_prepare_flags(store, &x->values, values_sql, SL__DB_STREAM, diag);
     if (s == SL_OK)
@@ -371,12 +427,17 @@ static sl_status chunk_buffers(sl_store_scratch *x)
     int pg = sl__store_is_pg(x->store);
     x->chunk_cap = pg ? SL_SCRATCH_CHUNK_BYTES_PG : SL_SCRATCH_CHUNK_BYTES;
     x->values_cap = pg ? SL_SCRATCH_VALUES_PG * sizeof(sl_store_scratch_value) : x->chunk_cap;
+    x->batch = pg ? SL_SCRATCH_BATCH_PG : 1;
+    x->batched = malloc(x->batch * x->chunk_cap);
+    x->batched_len = malloc(x->batch * sizeof *x->batched_len);
     x->out.bytes = malloc(x->chunk_cap);
     x->in_kept.bytes = malloc(x->chunk_cap);
     x->in_values.bytes = malloc(x->chunk_cap);
     x->ranked_copy = malloc(x->chunk_cap);
-    return x->out.bytes && x->in_kept.bytes && x->in_values.bytes && x->ranked_copy ? SL_OK
-                                                                                    : SL_ENOMEM;
+    return x->batched && x->batched_len && x->out.bytes && x->in_kept.bytes &&
+                   x->in_values.bytes && x->ranked_copy
+               ? SL_OK
+               : SL_ENOMEM;
 }
 
 sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag *diag)
@@ -470,8 +531,8 @@ sl_status sl_store_scratch_keep_wafer(sl_store_scratch *x, long lot_id, const ch
     if (s == SL_OK && got < 0)
         s = SL_EDB;
     if (s == SL_OK)
-        s = flush_chunk(x, x->keep, diag, what);
-    x->out.len = 0;
+        s = flush_all(x, x->keep, diag, what);
+    x->out.len = x->n_batched = 0;
     return s;
 }
 
@@ -530,8 +591,8 @@ sl_status sl_store_scratch_keep_values(sl_store_scratch *x, const char *fit_clas
         x->out.len += sizeof v;
     }
     if (s == SL_OK)
-        s = flush_chunk(x, x->keep_value, diag, what);
-    x->out.len = 0;
+        s = flush_all(x, x->keep_value, diag, what);
+    x->out.len = x->n_batched = 0;
     sl_store_scratch_rewind(x);
     return s;
 }
@@ -621,6 +682,8 @@ void sl_store_scratch_close(sl_store_scratch *x)
             sl__db_exec(x->store->db, "ROLLBACK TO sl_scratch");
         sl__db_exec(x->store->db, "RELEASE sl_scratch");
     }
+    free(x->batched);
+    free(x->batched_len);
     free(x->out.bytes);
     free(x->in_kept.bytes);
     free(x->in_values.bytes);
