@@ -712,6 +712,9 @@ START_TEST(test_superseded_run_not_in_view)
     char want[64];
     snprintf(want, sizeof want, "\"current\": %ld,", devices);
     ck_assert_msg(strstr(row2, want) && strstr(row2, "\"in_view\": true"), "%s", runs);
+    /* two runs in the view: every device measured in both, its newest shown */
+    ck_assert_ptr_nonnull(strstr(out, "\"measurements\": 2,"));
+    ck_assert_ptr_null(strstr(out, "\"measurements\": 1,"));
     free(out);
     free(cold_path);
     free(cold);

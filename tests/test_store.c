@@ -1108,11 +1108,12 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     ck_assert_int_eq(sl_store_scratch_keep_values(x, "ok", diag), SL_OK);
     for (size_t i = 0; i <= n_values; i++) {
         int more = 0;
-        double v = NAN;
-        ck_assert_int_eq(sl_store_scratch_next_value(x, &more, &group, &v, diag), SL_OK);
+        sl_store_scratch_value v;
+        ck_assert_int_eq(sl_store_scratch_next_value(x, &more, &v, diag), SL_OK);
         ck_assert_int_eq(more, i < n_values);
         if (more)
-            ck_assert(v == want_v[i] && group == want_group[i]);
+            ck_assert(v.cnp_V == want_v[i] && v.group == want_group[i] &&
+                      v.tag == want_group[i] - 6);
     }
 
     /* kept order W01 B, A, C, W02 A, B: severities 3, 5, 3, 3, none */
@@ -1136,7 +1137,7 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     if (!sl_test_pg()) { /* PostgreSQL: the snapshot transaction took them with it */
         ck_assert_int_eq(query_long(s.store, "PRAGMA cache_size"), cache_before);
         ck_assert_int_eq(query_long(s.store, "SELECT (SELECT count(*) FROM temp.sl_scratch_kept) + "
-                                             "(SELECT count(*) FROM temp.sl_scratch_value) + "
+                                             "(SELECT count(*) FROM temp.sl_scratch_values) + "
                                              "(SELECT count(*) FROM temp.sl_scratch_rank)"), 0);
     }
     free(rows);
