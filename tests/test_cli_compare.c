@@ -861,6 +861,7 @@ START_TEST(test_same_answers_on_both_backends)
     }
     static const char *const history[] = { "history", "--format", "json", NULL };
     static const char *const report[] = { "report", "--lot", "OFF-01", "--out", "same.html", NULL };
+    setenv("SOURCE_DATE_EPOCH", "1796083200", 1); /* 2026-12-01 00:00 UTC: no minute turns */
     const char *const dbs[] = { "t.db", "same.sqlite", "back.db" };
     char *first[6] = { NULL };
     for (size_t d = 0; d < N_OF(dbs); d++) {
@@ -884,6 +885,8 @@ START_TEST(test_same_answers_on_both_backends)
             free(got[k]);
         }
     }
+    ck_assert_msg(strstr(first[5], "2026-12-01 00:00 UTC"), "the page's date is SOURCE_DATE_EPOCH's");
+    unsetenv("SOURCE_DATE_EPOCH");
     for (size_t k = 0; k < 6; k++)
         free(first[k]);
     const char *again[] = { "db", "copy", "--from", "t.db", "--to", "same.sqlite", NULL };
