@@ -105,12 +105,25 @@ typedef struct {
     sl_stats_robust robust;  /* median, MAD and scale of its modified z */
 } analyze_param_state;
 
-/* Fill state[split * SL_ANALYZE_N_PARAMS + param] (zeroed by the caller)
- * and each split's medians and spreads (1.4826 MAD) in passes over the
- * scratch's kept devices. Returns SL_OK, SL_EDB, SL_ENOMEM, SL_EINPUT
- * (devices changed between passes). */
-sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
-                               sl_store_scratch *scratch, sl_diag *diag);
+/* The phases of the analysis' passes over the kept values: ranges, then
+ * medians, then MADs (each search phase as many passes as its slowest
+ * search needs). */
+typedef enum { SL__ANALYZE_PASS_RANGE, SL__ANALYZE_PASS_MEDIAN, SL__ANALYZE_PASS_MAD } analyze_pass;
+
+/* state[split * SL_ANALYZE_N_PARAMS + param] (zeroed by the caller) over
+ * the passes: a device's parameters visited in each pass of a phase; the
+ * searches of a median or MAD phase started before its first pass, ended
+ * after each (*open |= a search not done yet; SL_EINPUT when the devices
+ * changed between passes) and stopped (freed) after its last; then each
+ * split's medians, spreads (1.4826 MAD) and mobility against the plan
+ * published into a->splits. */
+void sl__analyze_params_visit(analyze_param_state *state, size_t n_splits, analyze_pass pass,
+                              const sl_store_scratch_value *value);
+sl_status sl__analyze_params_start(analyze_param_state *state, size_t n_splits, analyze_pass pass);
+sl_status sl__analyze_params_end_pass(analyze_param_state *state, size_t n_splits,
+                                      analyze_pass pass, int *open);
+void sl__analyze_params_stop(analyze_param_state *state, size_t n_splits);
+void sl__analyze_params_publish(analyze_param_state *state, sl_analysis *a);
 
 /* Modified z of a mobility within its split; NaN with fewer than
  * SL_ANALYZE_MIN_FOR_OUTLIERS devices or no mobility. */

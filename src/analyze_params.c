@@ -1,9 +1,10 @@
 /* SPDX-License-Identifier: MIT
  * Per split, the median and robust spread of the fitted mobility, residual
- * density n0 and hysteresis over the split's usable devices, found in passes
- * over the kept devices (a range, then exact medians, then exact MADs with
- * sl_stats_median_search), holding three searches per split and nothing per
- * device; and the modified z of a device's mobility within its split.
+ * density n0 and hysteresis over the split's usable devices, found in the
+ * analysis' passes over the kept values (a range, then exact medians, then
+ * exact MADs with sl_stats_median_search), holding three searches per split
+ * and nothing per device; and the modified z of a device's mobility within
+ * its split.
  */
 #include <math.h>
 #include <stdlib.h>
@@ -14,80 +15,76 @@
  * sigma (Rousseeuw and Croux, 1993, JASA 88:1273, the constant b). */
 #define MAD_TO_SIGMA 1.482602218505602
 
-typedef enum { PASS_RANGE, PASS_MEDIAN, PASS_MAD } param_pass;
-
-static void visit(analyze_param_state *p, param_pass pass, double x)
+void sl__analyze_params_visit(analyze_param_state *state, size_t n_splits, analyze_pass pass,
+                              const sl_store_scratch_value *v)
 {
-    switch (pass) {
-    case PASS_RANGE:
-        p->min = p->n ? fmin(p->min, x) : x;
-        p->max = p->n ? fmax(p->max, x) : x;
-        p->n++;
-        break;
-    case PASS_MEDIAN:
-        if (p->search)
-            sl_stats_median_search_add(p->search, x);
-        break;
-    case PASS_MAD:
-        if (p->search)
-            sl_stats_median_search_add(p->search, fabs(x - p->median));
-        if (p->first_mad_pass)
-            p->sum_abs += fabs(x - p->median);
-        break;
-    }
-}
-
-/* One pass over the kept usable devices: each one's parameters (in the order of
- * the SL_ANALYZE_PARAM_ indices) visited. */
-static sl_status one_pass(analyze_param_state *state, size_t n_splits, sl_store_scratch *scratch,
-                          param_pass pass, sl_diag *diag)
-{
-    double x[SL_ANALYZE_N_PARAMS];
-    long split;
-    int more;
-    sl_status st;
-    while ((st = sl_store_scratch_next_params(scratch, &more, &split, x, diag)) == SL_OK && more) {
-        if (split < 0 || (size_t)split >= n_splits)
+    if (v->tag < 0 || (size_t)v->tag >= n_splits)
+        return;
+    const double x[SL_ANALYZE_N_PARAMS] = { v->mobility_cm2_per_Vs, v->n0_per_cm2,
+                                            v->hysteresis_V };
+    analyze_param_state *split = &state[(size_t)v->tag * SL_ANALYZE_N_PARAMS];
+    for (int q = 0; q < SL_ANALYZE_N_PARAMS; q++) {
+        analyze_param_state *p = &split[q];
+        if (!isfinite(x[q]))
             continue;
-        for (int q = 0; q < SL_ANALYZE_N_PARAMS; q++)
-            if (isfinite(x[q]))
-                visit(&state[(size_t)split * SL_ANALYZE_N_PARAMS + (size_t)q], pass, x[q]);
+        switch (pass) {
+        case SL__ANALYZE_PASS_RANGE:
+            p->min = p->n ? fmin(p->min, x[q]) : x[q];
+            p->max = p->n ? fmax(p->max, x[q]) : x[q];
+            p->n++;
+            break;
+        case SL__ANALYZE_PASS_MEDIAN:
+            if (p->search)
+                sl_stats_median_search_add(p->search, x[q]);
+            break;
+        case SL__ANALYZE_PASS_MAD:
+            if (p->search)
+                sl_stats_median_search_add(p->search, fabs(x[q] - p->median));
+            if (p->first_mad_pass)
+                p->sum_abs += fabs(x[q] - p->median);
+            break;
+        }
     }
-    return st;
 }
 
-/* Passes until every search is done; result to median (PASS_MEDIAN) or mad. */
-static sl_status search_all(analyze_param_state *state, size_t n_splits, sl_store_scratch *scratch,
-                            param_pass pass, sl_diag *diag)
+sl_status sl__analyze_params_start(analyze_param_state *state, size_t n_splits, analyze_pass pass)
 {
-    size_t n = n_splits * SL_ANALYZE_N_PARAMS;
     sl_status st = SL_OK;
-    for (size_t i = 0; st == SL_OK && i < n; i++) {
+    for (size_t i = 0; st == SL_OK && i < n_splits * SL_ANALYZE_N_PARAMS; i++) {
         analyze_param_state *p = &state[i];
-        double lo = pass == PASS_MEDIAN ? p->min : 0.0;
-        double hi = pass == PASS_MEDIAN ? p->max : fmax(p->max - p->median, p->median - p->min);
-        p->first_mad_pass = pass == PASS_MAD;
+        int median = pass == SL__ANALYZE_PASS_MEDIAN;
+        double lo = median ? p->min : 0.0;
+        double hi = median ? p->max : fmax(p->max - p->median, p->median - p->min);
+        p->first_mad_pass = pass == SL__ANALYZE_PASS_MAD;
         if (p->n)
             st = sl_stats_median_search_new(&p->search, p->n, lo, hi);
     }
-    for (int open = 1; st == SL_OK && open;) {
-        st = one_pass(state, n_splits, scratch, pass, diag);
-        open = 0;
-        for (size_t i = 0; st == SL_OK && i < n; i++) {
-            analyze_param_state *p = &state[i];
-            int done = 1;
-            p->first_mad_pass = 0;
-            if (p->search)
-                st = sl_stats_median_search_end_pass(p->search, &done,
-                                                     pass == PASS_MEDIAN ? &p->median : &p->mad);
-            open |= !done;
-        }
+    return st;
+}
+
+sl_status sl__analyze_params_end_pass(analyze_param_state *state, size_t n_splits,
+                                      analyze_pass pass, int *open)
+{
+    sl_status st = SL_OK;
+    for (size_t i = 0; st == SL_OK && i < n_splits * SL_ANALYZE_N_PARAMS; i++) {
+        analyze_param_state *p = &state[i];
+        int done = 1;
+        p->first_mad_pass = 0;
+        if (p->search)
+            st = sl_stats_median_search_end_pass(p->search, &done,
+                                                 pass == SL__ANALYZE_PASS_MEDIAN ? &p->median
+                                                                                 : &p->mad);
+        *open |= !done;
     }
-    for (size_t i = 0; i < n; i++) {
+    return st;
+}
+
+void sl__analyze_params_stop(analyze_param_state *state, size_t n_splits)
+{
+    for (size_t i = 0; i < n_splits * SL_ANALYZE_N_PARAMS; i++) {
         sl_stats_median_search_free(state[i].search);
         state[i].search = NULL;
     }
-    return st;
 }
 
 /* The split's public fields from its state. */
@@ -122,21 +119,9 @@ static void judge_mobility(sl_analysis *a, size_t k)
     a->n_splits_mobility_off += (size_t)sp->mobility_off_plan;
 }
 
-sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
-                               sl_store_scratch *scratch, sl_diag *diag)
+void sl__analyze_params_publish(analyze_param_state *state, sl_analysis *a)
 {
-    size_t ns = a->n_splits;
-    sl_store_scratch_params_class(scratch, "ok");
-    sl_status st = one_pass(state, ns, scratch, PASS_RANGE, diag);
-    if (st == SL_OK)
-        st = search_all(state, ns, scratch, PASS_MEDIAN, diag);
-    if (st == SL_OK)
-        st = search_all(state, ns, scratch, PASS_MAD, diag);
-    if (st == SL_EINPUT)
-        return sl__analyze_lot_changed(a, diag);
-    if (st != SL_OK)
-        return st;
-    for (size_t s = 0; s < ns; s++) {
+    for (size_t s = 0; s < a->n_splits; s++) {
         analyze_param_state *p = &state[s * SL_ANALYZE_N_PARAMS];
         for (int q = 0; q < SL_ANALYZE_N_PARAMS; q++)
             if (p[q].n)
@@ -145,7 +130,6 @@ sl_status sl__analyze_split_params(analyze_param_state *state, sl_analysis *a,
         publish(&a->splits[s], p);
         judge_mobility(a, s);
     }
-    return SL_OK;
 }
 
 double sl__analyze_mobility_modified_z(const analyze_param_state *state, long split,

@@ -6,7 +6,9 @@
  * view are kept in the store's scratch, and passes over them give each
  * wafer's exact median, each dielectric's pooled MAD of the residuals from
  * the wafer medians, the flags, and each wafer's running moments and
- * censored devices, holding state per wafer, split and dielectric only;
+ * censored devices, holding state per wafer, split and dielectric only; the
+ * same passes give each split's medians and MADs of mobility, n0 and
+ * hysteresis (src/analyze_params.c);
  * src/analyze_wafers.c turns those into split summaries, ANOVA and effects.
  * Devices and the failure-analysis list are then read back one at a time.
  * Every device is scored by one function (evaluate), whichever pass or
@@ -509,21 +511,6 @@ static sl_status keep_devices(sl_analysis_stream *s, sl_diag *diag)
     return st;
 }
 
-/* Every usable V_cnp, with its wafer, to visit. */
-typedef void (*value_visit)(sl_analysis_stream *s, long wafer, double cnp_V);
-
-static sl_status each_value(sl_analysis_stream *s, value_visit visit, sl_diag *diag)
-{
-    long wafer;
-    double v;
-    int more;
-    sl_status st;
-    while ((st = sl_store_scratch_next_value(s->scratch, &more, &wafer, &v, diag)) == SL_OK && more)
-        if (isfinite(v))
-            visit(s, wafer, v);
-    return st;
-}
-
 /* Pass 1: each wafer's count and range of usable V_cnp. */
 static void add_range(sl_analysis_stream *s, long wafer, double cnp_V)
 {
@@ -555,6 +542,30 @@ static void add_residual(sl_analysis_stream *s, long wafer, double cnp_V)
         sl_stats_median_search_add(g->search, x);
 }
 
+/* One pass over the kept values: each finite V_cnp to its wafer's range or
+ * search (median phase) or, as its residual from the wafer median, to its
+ * dielectric's search (MAD phase); each device's parameters to its split's
+ * state in the same phase. */
+static sl_status each_value(sl_analysis_stream *s, analyze_pass pass, sl_diag *diag)
+{
+    size_t n_splits = s->owner->pub.n_splits;
+    sl_store_scratch_value v;
+    int more;
+    sl_status st;
+    while ((st = sl_store_scratch_next_value(s->scratch, &more, &v, diag)) == SL_OK && more) {
+        if (isfinite(v.cnp_V)) {
+            if (pass == SL__ANALYZE_PASS_RANGE)
+                add_range(s, v.group, v.cnp_V);
+            else if (pass == SL__ANALYZE_PASS_MEDIAN)
+                add_to_wafer_search(s, v.group, v.cnp_V);
+            else
+                add_residual(s, v.group, v.cnp_V);
+        }
+        sl__analyze_params_visit(s->params, n_splits, pass, &v);
+    }
+    return st;
+}
+
 /* End a pass of one search; *open |= not done yet. */
 static sl_status end_pass(sl_stats_median_search *search, double *median, int *open)
 {
@@ -564,17 +575,22 @@ static sl_status end_pass(sl_stats_median_search *search, double *median, int *o
     return st;
 }
 
-/* Passes until every search has its median (a pass at least). */
-static sl_status search_passes(sl_analysis_stream *s, int residuals, sl_diag *diag)
+/* Passes of a median or MAD phase until every search has its median (a
+ * pass at least): the wafers' or dielectrics' and the splits' parameters'
+ * together. */
+static sl_status search_passes(sl_analysis_stream *s, analyze_pass pass, sl_diag *diag)
 {
     sl_analysis *a = &s->owner->pub;
+    int residuals = pass == SL__ANALYZE_PASS_MAD;
     for (int open = 1; open; s->first_pass = 0) {
-        sl_status st = each_value(s, residuals ? add_residual : add_to_wafer_search, diag);
+        sl_status st = each_value(s, pass, diag);
         open = 0;
         for (size_t w = 0; !residuals && st == SL_OK && w < s->layout->n_wafers; w++)
             st = end_pass(s->wafer_search[w], &s->wafer[w].median_V, &open);
         for (size_t d = 0; residuals && st == SL_OK && d < a->plan->n_dielectrics; d++)
             st = end_pass(s->dielectric[d].search, &s->dielectric[d].mad_V, &open);
+        if (st == SL_OK)
+            st = sl__analyze_params_end_pass(s->params, a->n_splits, pass, &open);
         if (st == SL_EINPUT)
             return sl__analyze_lot_changed(a, diag);
         if (st != SL_OK)
@@ -583,7 +599,8 @@ static sl_status search_passes(sl_analysis_stream *s, int residuals, sl_diag *di
     return SL_OK;
 }
 
-/* A median search for every wafer with usable devices, over its range. */
+/* A median search for every wafer with usable devices, over its range, and
+ * for every split's parameters. */
 static sl_status wafer_medians(sl_analysis_stream *s, sl_diag *diag)
 {
     sl_status st = SL_OK;
@@ -591,17 +608,21 @@ static sl_status wafer_medians(sl_analysis_stream *s, sl_diag *diag)
         if (s->wafer[w].n_usable)
             st = sl_stats_median_search_new(&s->wafer_search[w], s->wafer[w].n_usable,
                                             s->wafer[w].min_V, s->wafer[w].max_V);
+    if (st == SL_OK)
+        st = sl__analyze_params_start(s->params, s->owner->pub.n_splits, SL__ANALYZE_PASS_MEDIAN);
     s->first_pass = 1;
     if (st == SL_OK)
-        st = search_passes(s, 0, diag);
+        st = search_passes(s, SL__ANALYZE_PASS_MEDIAN, diag);
     for (size_t w = 0; w < s->layout->n_wafers; w++) {
         sl_stats_median_search_free(s->wafer_search[w]);
         s->wafer_search[w] = NULL;
     }
+    sl__analyze_params_stop(s->params, s->owner->pub.n_splits);
     return st;
 }
 
-/* Each dielectric's MAD of the residuals pooled over its scored wafers. */
+/* Each dielectric's MAD of the residuals pooled over its scored wafers, and
+ * each split's parameters' MADs (their medians and spreads published). */
 static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
 {
     sl_analysis *a = &s->owner->pub;
@@ -619,9 +640,14 @@ static sl_status dielectric_mads(sl_analysis_stream *s, sl_diag *diag)
         if (s->dielectric[d].n)
             st = sl_stats_median_search_new(&s->dielectric[d].search, s->dielectric[d].n, 0.0,
                                             s->dielectric[d].max_distance_V);
+    if (st == SL_OK)
+        st = sl__analyze_params_start(s->params, a->n_splits, SL__ANALYZE_PASS_MAD);
     s->first_pass = 1;
     if (st == SL_OK)
-        st = search_passes(s, 1, diag);
+        st = search_passes(s, SL__ANALYZE_PASS_MAD, diag);
+    sl__analyze_params_stop(s->params, a->n_splits);
+    if (st == SL_OK)
+        sl__analyze_params_publish(s->params, a);
     for (size_t d = 0; d < a->plan->n_dielectrics; d++) {
         dielectric_state *g = &s->dielectric[d];
         sl_stats_median_search_free(g->search);
@@ -765,13 +791,11 @@ static sl_status run_passes(sl_analysis_stream *s, sl_diag *diag)
     if (st == SL_OK)
         st = sl_store_scratch_keep_values(s->scratch, fit_ok, diag);
     if (st == SL_OK)
-        st = each_value(s, add_range, diag);
+        st = each_value(s, SL__ANALYZE_PASS_RANGE, diag);
     if (st == SL_OK)
         st = wafer_medians(s, diag);
     if (st == SL_OK)
         st = dielectric_mads(s, diag);
-    if (st == SL_OK)
-        st = sl__analyze_split_params(s->params, &s->owner->pub, s->scratch, diag);
     if (st == SL_OK)
         st = flags_pass(s, diag);
     if (st == SL_OK)

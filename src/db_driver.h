@@ -35,7 +35,8 @@ typedef enum {
     SL__DBE_CONNECTION,   /* the server cannot be reached or went away */
     SL__DBE_AUTH,         /* the server refused the user or password */
     SL__DBE_TIMEOUT,      /* a statement ran past the server's statement_timeout */
-    SL__DBE_SERIALIZE     /* a snapshot transaction met a concurrent change */
+    SL__DBE_SERIALIZE,    /* a snapshot transaction met a concurrent change */
+    SL__DBE_NODB          /* the server has no database of that name */
 } sl__db_errkind;
 
 /* Statements whose rows are read in chunks (a server-side cursor on
@@ -121,5 +122,20 @@ struct sl__stmt {
 
 int sl__db_sqlite_open(sl__db **out, const char *path);
 int sl__db_pg_open(sl__db **out, const char *url);
+
+/* ---- PostgreSQL only: rows into a table by COPY ... FROM STDIN ---- */
+
+/* Start a COPY (sql is the COPY statement); rows then go in by copy_put,
+ * raw in the COPY's format, and copy_end finishes it (abort_reason NULL) or
+ * abandons it (the server refuses the COPY with that reason). While a COPY
+ * is open, any other statement on the connection first calls the
+ * connection's settle hook (set with sl__db_pg_set_settle), which is to
+ * finish the COPY and whatever goes with it; without a hook the COPY is
+ * just finished. A failing hook fails the statement. */
+int sl__db_pg_copy_begin(sl__db *db, const char *sql);
+int sl__db_pg_copy_put(sl__db *db, const void *data, size_t bytes);
+int sl__db_pg_copy_end(sl__db *db, const char *abort_reason);
+int sl__db_pg_copying(sl__db *db);
+void sl__db_pg_set_settle(sl__db *db, int (*settle)(void *ctx), void *ctx);
 
 #endif

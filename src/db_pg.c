@@ -27,6 +27,9 @@ typedef struct {
     sl__db_errkind kind;
     long changes;
     unsigned long names;         /* prepared statements and cursors made so far */
+    int copying;                 /* a COPY ... FROM STDIN is open */
+    int (*settle)(void *ctx);    /* run before another statement while copying */
+    void *settle_ctx;
 } pg_db;
 
 typedef struct {
@@ -82,6 +85,8 @@ static sl__db_errkind kind_of_sqlstate(const char *state)
         return SL__DBE_SERIALIZE;
     if (strcmp(state, "53100") == 0)
         return SL__DBE_FULL;
+    if (strcmp(state, "3D000") == 0)
+        return SL__DBE_NODB;
     if (strcmp(state, "55P03") == 0)
         return SL__DBE_BUSY;
     if (strcmp(state, "25006") == 0)
@@ -133,10 +138,89 @@ static int check(pg_db *db, const PGresult *res)
     return fail(db, res);
 }
 
+/* ---- COPY ... FROM STDIN ---- */
+
+static int copy_end(pg_db *db, const char *abort_reason)
+{
+    if (!db->copying)
+        return SL__DB_OK;
+    db->copying = 0;
+    int rc = SL__DB_OK;
+    if (PQputCopyEnd(db->conn, abort_reason) != 1) {
+        rc = fail(db, NULL);
+        db->kind = SL__DBE_CONNECTION;
+    }
+    /* the COPY's result, then the end of the command */
+    PGresult *res;
+    while ((res = PQgetResult(db->conn)) != NULL) {
+        if (rc == SL__DB_OK && !abort_reason)
+            rc = check(db, res);
+        PQclear(res);
+    }
+    return rc;
+}
+
+/* Before any other statement: the open COPY finished through the hook. */
+static int settle(pg_db *db)
+{
+    if (!db->copying)
+        return SL__DB_OK;
+    int (*hook)(void *) = db->settle;
+    if (!hook)
+        return copy_end(db, NULL);
+    db->settle = NULL; /* the hook's own statements run plainly */
+    int rc = hook(db->settle_ctx);
+    db->settle = hook;
+    if (db->copying) /* a hook that left it open */
+        rc = copy_end(db, rc == SL__DB_OK ? NULL : "abandoned") == SL__DB_OK ? rc : SL__DB_FAIL;
+    return rc;
+}
+
+int sl__db_pg_copy_begin(sl__db *base, const char *sql)
+{
+    pg_db *db = D(base);
+    if (settle(db) != SL__DB_OK)
+        return SL__DB_FAIL;
+    PGresult *res = PQexec(db->conn, sql);
+    int rc = PQresultStatus(res) == PGRES_COPY_IN ? SL__DB_OK : fail(db, res);
+    PQclear(res);
+    db->copying = rc == SL__DB_OK;
+    return rc;
+}
+
+int sl__db_pg_copy_put(sl__db *base, const void *data, size_t bytes)
+{
+    pg_db *db = D(base);
+    if (!db->copying || bytes > (size_t)0x7fffffff) {
+        snprintf(db->message, sizeof db->message, "no COPY is open for the rows");
+        db->kind = SL__DBE_OTHER;
+        return SL__DB_FAIL;
+    }
+    if (PQputCopyData(db->conn, data, (int)bytes) == 1)
+        return SL__DB_OK;
+    fail(db, NULL);
+    db->kind = SL__DBE_CONNECTION; /* only a broken connection refuses the data */
+    return SL__DB_FAIL;
+}
+
+int sl__db_pg_copy_end(sl__db *base, const char *abort_reason)
+{
+    return copy_end(D(base), abort_reason);
+}
+
+int sl__db_pg_copying(sl__db *base) { return D(base)->copying; }
+
+void sl__db_pg_set_settle(sl__db *base, int (*hook)(void *ctx), void *ctx)
+{
+    D(base)->settle = hook;
+    D(base)->settle_ctx = ctx;
+}
+
 /* ---- the connection ---- */
 
 static void db_close(sl__db *db)
 {
+    copy_end(D(db), "the connection closes");
     PQfinish(D(db)->conn);
     free(db);
 }
@@ -161,6 +245,8 @@ static long db_changes(sl__db *db) { return D(db)->changes; }
 
 static int db_exec(sl__db *db, const char *sql)
 {
+    if (settle(D(db)) != SL__DB_OK)
+        return SL__DB_FAIL;
     PGresult *res = PQexec(D(db)->conn, sql);
     int rc = check(D(db), res);
     PQclear(res);
@@ -295,6 +381,8 @@ static int fetch(pg_stmt *st)
     char sql[64];
     snprintf(sql, sizeof sql, "FETCH %d FROM %s", PG_FETCH_ROWS, st->cursor);
     drop_result(st);
+    if (settle(st->db) != SL__DB_OK)
+        return SL__DB_FAIL;
     st->res = PQexec(st->db->conn, sql);
     if (check(st->db, st->res) != SL__DB_OK)
         return SL__DB_FAIL;
@@ -327,7 +415,9 @@ static int execute(pg_stmt *st)
 {
     param_arrays a = { 0 };
     int rc = SL__DB_FAIL;
-    if (!param_arrays_make(&a, st)) {
+    if (settle(st->db) != SL__DB_OK) {
+        /* the open COPY failed to finish: its failure is noted */
+    } else if (!param_arrays_make(&a, st)) {
         snprintf(st->db->message, sizeof st->db->message, "out of memory");
     } else if ((st->flags & SL__DB_STREAM) &&
                PQtransactionStatus(st->db->conn) == PQTRANS_INTRANS) {
@@ -370,7 +460,7 @@ static void close_cursor(pg_stmt *st)
 {
     if (!st->cursor[0])
         return;
-    if (PQtransactionStatus(st->db->conn) == PQTRANS_INTRANS) {
+    if (!st->db->copying && PQtransactionStatus(st->db->conn) == PQTRANS_INTRANS) {
         char sql[64];
         snprintf(sql, sizeof sql, "CLOSE %s", st->cursor);
         PQclear(PQexec(st->db->conn, sql));
@@ -390,7 +480,7 @@ static void st_finalize(sl__stmt *base)
 {
     pg_stmt *st = P(base);
     st_reset(base);
-    if (st->name[0] && PQstatus(st->db->conn) == CONNECTION_OK &&
+    if (st->name[0] && !st->db->copying && PQstatus(st->db->conn) == CONNECTION_OK &&
         PQtransactionStatus(st->db->conn) != PQTRANS_INERROR) {
         char sql[64];
         snprintf(sql, sizeof sql, "DEALLOCATE %s", st->name);
@@ -575,7 +665,12 @@ static void ignore_notice(void *arg, const char *message)
 static void connect_failure(pg_db *db)
 {
     const char *text = PQerrorMessage(db->conn);
-    first_line(db->message, sizeof db->message, text);
+    const char *fatal = strstr(text, "FATAL:  "); /* the server's own words */
+    first_line(db->message, sizeof db->message, fatal ? fatal : text);
+    if (strstr(text, "FATAL:  database \"") && strstr(text, "\" does not exist")) {
+        db->kind = SL__DBE_NODB;
+        return;
+    }
     db->kind = (PQconnectionNeedsPassword(db->conn) || strstr(text, "authentication failed") ||
                 strstr(text, "password") || (strstr(text, "role") && strstr(text, "does not exist")))
                    ? SL__DBE_AUTH

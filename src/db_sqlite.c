@@ -100,6 +100,9 @@ static size_t rowid_returning(const char *sql)
     const char *values = strstr(sql, ") VALUES (");
     if (!values || strstr(sql, "SELECT") || strchr(values + 10, ';'))
         return 0;
+    for (const char *p = values + 10; *p; p++) /* one row: no "), (" */
+        if (*p == ')' && p[1 + (p[1] == ' ')] == ',')
+            return 0;
     return len - tail;
 }
 

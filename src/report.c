@@ -214,6 +214,29 @@ static void verdict_prediction_outside_ci(report_ctx *c)
     sl_chart_buf_append(c->buf, "</li>\n");
 }
 
+/* Splits whose median mobility lies off their dielectric's planned one,
+ * named; only when the plan expects a mobility of some dielectric. */
+static void verdict_mobility_off_plan(report_ctx *c)
+{
+    const sl_analysis *a = c->a;
+    int expected = 0;
+    for (size_t d = 0; d < a->plan->n_dielectrics; d++)
+        expected |= a->plan->dielectrics[d].has_mobility;
+    if (!expected)
+        return;
+    verdict_open(c->buf, "mobility-off-plan", a->n_splits_mobility_off,
+                 "splits whose median mobility is off the plan's expected mobility "
+                 "(beyond &plusmn;3&nbsp;&sigma;)");
+    const char *sep = ": ";
+    for (size_t s = 0; s < a->n_splits; s++)
+        if (a->splits[s].mobility_off_plan > 0) {
+            sl_chart_buf_append(c->buf, sep);
+            sl_chart_buf_escape(c->buf, a->plan->splits[s].name);
+            sep = ", ";
+        }
+    sl_chart_buf_append(c->buf, "</li>\n");
+}
+
 static void contents(report_ctx *c)
 {
     sl_chart_buf_append(c->buf, "<nav><ol><li><a href=\"#runs\">Measurement runs</a></li>"
@@ -248,6 +271,7 @@ static void page_header(report_ctx *c)
     verdict_flagged(c);
     verdict_cnp_outside(c);
     verdict_prediction_outside_ci(c);
+    verdict_mobility_off_plan(c);
     sl_chart_buf_append(b, "</ul>\n");
     sl_chart_buf_append(b, caution_html);
     contents(c);

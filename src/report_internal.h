@@ -130,6 +130,7 @@ void sl__report_note(sl_chart_buf *buf, const char *text);
 /* ---- report_tables.c ---- */
 void sl__report_splits_table(report_ctx *c, size_t dielectric);
 void sl__report_window_table(report_ctx *c, size_t dielectric);
+void sl__report_parameters_table(report_ctx *c);
 void sl__report_effects_table(report_ctx *c);
 sl_status sl__report_failure_table(report_ctx *c);
 

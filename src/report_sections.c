@@ -177,12 +177,16 @@ static const struct {
     { "hysteresis", "Hysteresis by split", "hysteresis (V)" },
 };
 
-/* The line a parameter is drawn against: for n0 the residual density
- * expected at the view's temperature (floor_predicted_per_cm2); none for
- * the others. */
+/* The line a parameter is drawn against: for mobility the plan's expected
+ * mobility of the split's dielectric (none without one), for n0 the
+ * residual density expected at the view's temperature
+ * (floor_predicted_per_cm2); none for hysteresis. */
 static sl_est parameter_reference(const report_ctx *c, size_t split, report_quantity q)
 {
     sl_est none = { NAN, NAN };
+    double expected = c->a->splits[split].mobility_expected_cm2_per_Vs;
+    if (q == REPORT_MOBILITY)
+        return expected > 0.0 ? (sl_est){ log10(expected), 0.0 } : none;
     if (q != REPORT_N0 || !c->a->split_floor_per_cm2)
         return none;
     double floor = hypot(c->a->split_floor_per_cm2[split], c->a->plan->disorder_density_per_cm2);
@@ -233,8 +237,14 @@ sl_status sl__report_section_parameters(report_ctx *c)
                         "chart is the residual density expected at the measurement temperature, "
                         "&radic;(n<sub>th</sub><sup>2</sup> + n*<sup>2</sup>) of the thermal "
                         "floor and the plan's disorder density (a common approximation); a "
-                        "device below the thermal floor itself is flagged.</p>\n"
-                        "<div class=\"charts\">\n");
+                        "device below the thermal floor itself is flagged. The line on the "
+                        "mobility chart is the plan's expected mobility of the split's "
+                        "dielectric, where the plan gives one. The table gives each split's "
+                        "median and spread (1.4826 times the median absolute deviation) over its "
+                        "usable devices that have the value, and judges the median mobility off "
+                        "plan when it lies outside the planned mean &plusmn;3&nbsp;&sigma;.</p>\n");
+    sl__report_parameters_table(c);
+    sl_chart_buf_append(c->buf, "<div class=\"charts\">\n");
     for (int q = 0; q < REPORT_QUANTITIES; q++) {
         if (c->data.n_quantity_values[q] > 0) {
             parameter_chart(c, cats, (report_quantity)q);

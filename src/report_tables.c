@@ -1,6 +1,7 @@
 /* SPDX-License-Identifier: MIT
- * The lot report's tables: split summaries against prediction, level
- * effects against the plan, and the failure-analysis list. Units sit in the
+ * The lot report's tables: split summaries against prediction, device
+ * parameters per split, level effects against the plan, and the
+ * failure-analysis list. Units sit in the
  * column headings; every text cell is escaped.
  */
 #include <math.h>
@@ -100,6 +101,65 @@ void sl__report_window_table(report_ctx *c, size_t dielectric)
     for (size_t s = 0; s < c->a->n_splits; s++)
         if (c->a->plan->splits[s].dielectric == dielectric)
             window_row(c->buf, c->a, s);
+    table_close(c->buf);
+}
+
+/* ---- device parameters per split ---- */
+
+static const char *const parameter_headings[] = {
+    "split", "mobility median (cm&sup2;/V&nbsp;s)", "spread (cm&sup2;/V&nbsp;s)",
+    "planned mobility (cm&sup2;/V&nbsp;s)", "&plusmn;&sigma; (cm&sup2;/V&nbsp;s)",
+    "mobility against plan", "n<sub>0</sub> median (cm<sup>&minus;2</sup>)",
+    "spread (cm<sup>&minus;2</sup>)", "hysteresis median (V)", "spread (V)",
+};
+
+/* A number to four significant digits (mobility), "n/a" when non-finite. */
+static void cell_general(sl_chart_buf *buf, double value)
+{
+    if (isfinite(value))
+        sl_chart_buf_printf(buf, "<td class=\"num\">%.4g</td>", value);
+    else
+        sl_chart_buf_append(buf, "<td class=\"num\">n/a</td>");
+}
+
+/* The split's median mobility against its dielectric's planned one, in words. */
+static const char *mobility_judgement(const sl_analyze_split *sp)
+{
+    if (sp->mobility_off_plan > 0)
+        return "off plan";
+    if (sp->mobility_off_plan == 0)
+        return "as planned";
+    return isfinite(sp->mobility_expected_cm2_per_Vs) ? "no mobility measured" : "no plan value";
+}
+
+static void parameter_row(sl_chart_buf *buf, const sl_analysis *a, size_t s)
+{
+    const sl_analyze_split *sp = &a->splits[s];
+    sl_chart_buf_printf(buf, "<tr%s data-split=\"", sp->mobility_off_plan > 0 ? " class=\"bad\"" : "");
+    sl_chart_buf_escape(buf, a->plan->splits[s].name);
+    sl_chart_buf_printf(buf, "\" data-mobility-off-plan=\"%d\">", sp->mobility_off_plan);
+    sl__report_cell_text(buf, a->plan->splits[s].name);
+    cell_general(buf, sp->mobility_median_cm2_per_Vs);
+    cell_general(buf, sp->mobility_spread_cm2_per_Vs);
+    cell_general(buf, sp->mobility_expected_cm2_per_Vs);
+    cell_general(buf, sp->mobility_expected_sigma_cm2_per_Vs);
+    sl__report_cell_text(buf, mobility_judgement(sp));
+    sl__report_cell_density(buf, sp->n0_median_per_cm2);
+    sl__report_cell_density(buf, sp->n0_spread_per_cm2);
+    sl__report_cell_fixed(buf, sp->hysteresis_median_V, 3);
+    sl__report_cell_fixed(buf, sp->hysteresis_spread_V, 3);
+    sl_chart_buf_append(buf, "</tr>\n");
+}
+
+/* Per split, the median and spread (1.4826 MAD) of mobility, n0 and
+ * hysteresis over its usable devices, and the median mobility against the
+ * plan's expected one of its dielectric. */
+void sl__report_parameters_table(report_ctx *c)
+{
+    table_open(c->buf, "parameters", parameter_headings,
+               sizeof parameter_headings / sizeof *parameter_headings);
+    for (size_t s = 0; s < c->a->n_splits; s++)
+        parameter_row(c->buf, c->a, s);
     table_close(c->buf);
 }
 

@@ -53,6 +53,9 @@ static int describe_server_error(char *buf, size_t size, sl_store *store, sl__db
     else if (kind == SL__DBE_AUTH)
         snprintf(buf, size, "cannot %s: the database server refused the login (%s); check the "
                             "user in the URL and the password in ~/.pgpass or PGPASSWORD", what, msg);
+    else if (kind == SL__DBE_NODB)
+        snprintf(buf, size, "cannot %s: the server has no such database (%s); create it "
+                            "(createdb NAME) or correct the database name in the URL", what, msg);
     else if (kind == SL__DBE_TIMEOUT)
         snprintf(buf, size, "cannot %s: a statement ran past the server's statement_timeout "
                             "(%s); nothing was changed", what, msg);
@@ -98,7 +101,15 @@ static void describe_db_error(char *buf, size_t size, sl_store *store, const cha
 
 sl_status sl__store_db_error(sl_store *store, sl_diag *diag, const char *what)
 {
-    char text[768];
+    char text[768], own[256];
+    if (sl__store_bulk_error(store, own, sizeof own)) {
+        what = "store the imported devices";
+        if (own[0]) {
+            sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0, "cannot %s: %s; nothing was changed",
+                        what, own);
+            return SL_EDB;
+        }
+    }
     describe_db_error(text, sizeof text, store, what);
     sl_diag_add(diag, SL_SEV_ERROR, store->path, 0, 0, "%s", text);
     return SL_EDB;
@@ -263,11 +274,12 @@ void sl_store_close(sl_store *store)
 {
     if (!store)
         return;
+    sl__store_bulk_discard(store);
+    sl__store_sweep_memo(store, 0);
     sl__db_finalize(store->insert_device);
     sl__db_finalize(store->find_device);
     sl__db_finalize(store->insert_measurement);
     sl__db_finalize(store->insert_sweep);
-    sl__db_finalize(store->insert_new_device);
     sl__db_finalize(store->stage_point);
     sl__db_close(store->db);
     free(store->tx_runs);
@@ -278,20 +290,24 @@ void sl_store_close(sl_store *store)
 sl_status sl_store_begin(sl_store *store, sl_diag *diag)
 {
     store->n_tx_runs = 0;
+    sl__store_bulk_discard(store);
     return sl__store_exec(store, sl__store_is_pg(store) ? "BEGIN" : "BEGIN IMMEDIATE", diag,
                          "start a transaction");
 }
 
 sl_status sl_store_commit(sl_store *store, sl_diag *diag)
 {
+    /* (an import's staged rows go in first: the COMMIT settles them) */
     sl_status st = sl__store_exec(store, "COMMIT", diag, "commit");
     if (st != SL_OK)
         sl_store_rollback(store);
+    sl__store_bulk_discard(store);
     return st;
 }
 
 void sl_store_rollback(sl_store *store)
 {
+    sl__store_bulk_discard(store); /* an open COPY cancelled, not stored */
     if (sl__db_in_transaction(store->db))
         sl__db_exec(store->db, "ROLLBACK");
     /* a stage table created in the transaction is gone with it */

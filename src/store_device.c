@@ -40,12 +40,6 @@ static void bind_count_or_null(sl__stmt *st, int index, long v)
 }
 
 /* The extraction columns, in MEASUREMENT_COLUMNS order, from index first. */
-#define MEASUREMENT_COLUMNS \
-    "fit_class, fit_model, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, " \
-    "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, r_squared, " \
-    "n_points, electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs, n_spikes, " \
-    "hysteresis_V, points_dropped"
-
 static void bind_extraction(sl__stmt *st, int first, const sl_store_device *d)
 {
     sl__db_bind_text(st, first, d->fit_class, -1);
@@ -92,6 +86,9 @@ sl_status sl_store_begin_lot_inserts(sl_store *store, long lot_id, sl_diag *diag
     if (s == SL_OK)
         s = sl_store_count_devices(store, &devices, lot_id, diag);
     store->new_lot_id = s == SL_OK && devices == 0 ? lot_id : 0;
+    /* on a server the rows go in by COPY through a staging table */
+    if (s == SL_OK && sl__store_is_pg(store))
+        s = sl__store_bulk_begin(store, lot_id, devices, diag);
     return s;
 }
 
@@ -240,71 +237,17 @@ static sl_status resolve_device(sl_store *store, sl_store_insert *out, long lot_
     return s;
 }
 
-/* On PostgreSQL a device of a lot without devices before this import goes
- * in with its measurement and sweep in one statement (one round trip to the
- * server instead of three). *added 0 when the lot has the device already
- * (nothing written): then the usual path finds it. */
-static const char new_device_pg_sql[] =
-    "WITH d AS (INSERT INTO device (lot_id, wafer, name, die_x, die_y, device_type, "
-    "channel_length_um, channel_width_um) VALUES (?1, ?2::text, ?3::text, ?4, ?5, ?6::text, "
-    "?7::float8, ?8::float8) ON CONFLICT DO NOTHING RETURNING id), "
-    "m AS (INSERT INTO measurement (device_id, run_id, source, source_line, " MEASUREMENT_COLUMNS
-    ") SELECT d.id, ?9::int8, ?10::text, ?11::int8, ?12::text, ?13::text, ?14::float8, "
-    "?15::float8, ?16::float8, ?17::float8, ?18::float8, ?19::float8, ?20::float8, ?21::float8, "
-    "?22::float8, ?23::float8, ?24::int8, ?25::float8, ?26::float8, ?27::int8, ?28::float8, "
-    "?29::int8 FROM d RETURNING id), "
-    "w AS (INSERT INTO sweep (measurement_id, n_points, points) SELECT m.id, ?30::int8, ?31::bytea "
-    "FROM m WHERE ?31::bytea IS NOT NULL) "
-    "SELECT d.id, m.id FROM d, m";
-
-static sl_status add_new_device_pg(sl_store *store, int *added, sl_store_insert *out, long lot_id,
-                                   long run_id, const sl_store_device *d, sl_diag *diag)
-{
-    sl_status s = cached(store, &store->insert_new_device, new_device_pg_sql, diag);
-    if (s != SL_OK)
-        return s;
-    sl__stmt *st = store->insert_new_device;
-    bind_device_identity(st, lot_id, d);
-    sl__db_bind_int64(st, 9, run_id);
-    sl__db_bind_text(st, 10, d->source, -1);
-    bind_count_or_null(st, 11, d->source_line > 0 ? d->source_line : -1);
-    bind_extraction(st, 12, d);
-    unsigned char *blob = NULL;
-    size_t bytes = 0;
-    if (d->vg_V && d->n_points > 0 &&
-        !(blob = sl__store_pack_sweep(d->vg_V, d->r_ohm, d->n_points, &bytes)))
-        return SL_ENOMEM;
-    sl__db_bind_int64(st, 30, (long long)d->n_points);
-    if (blob)
-        sl__db_bind_blob(st, 31, blob, bytes);
-    else
-        sl__db_bind_null(st, 31);
-    free(blob);
-    int rc = sl__db_step(st);
-    *added = rc == SL__DB_ROW;
-    if (rc == SL__DB_ROW) {
-        out->device_id = (long)sl__db_column_int64(st, 0);
-        out->measurement_id = (long)sl__db_column_int64(st, 1);
-    }
-    sl__db_reset(st);
-    return rc == SL__DB_ROW || rc == SL__DB_DONE ? SL_OK
-                                                 : sl__store_db_error(store, diag, "store a device");
-}
-
 sl_status sl_store_insert_measurement(sl_store *store, sl_store_insert *out, long lot_id,
                                       long run_id, const sl_store_device *d, sl_diag *diag)
 {
     memset(out, 0, sizeof *out);
-    long new_lot_id = store->new_lot_id;
-    if (sl__store_is_pg(store) && lot_id == new_lot_id) {
-        int added = 0;
-        sl_status s = add_new_device_pg(store, &added, out, lot_id, run_id, d, diag);
-        if (s != SL_OK || added)
+    if (store->bulk) {
+        int staged = 0;
+        sl_status s = sl__store_bulk_insert(store, &staged, out, lot_id, run_id, d, diag);
+        if (s != SL_OK || staged)
             return s;
-        store->new_lot_id = 0; /* the device exists: look it up, do not try to add it */
     }
     sl_status s = resolve_device(store, out, lot_id, d, diag);
-    store->new_lot_id = new_lot_id;
     if (s != SL_OK || out->outcome != SL_STORE_ADDED)
         return s;
     int added = 0;

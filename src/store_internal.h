@@ -18,12 +18,41 @@ struct sl_store {
     sl__stmt *insert_measurement;
     long new_lot_id;             /* a lot with no devices before this import, or 0 */
     sl__stmt *insert_sweep;
-    sl__stmt *insert_new_device; /* PostgreSQL: device, measurement and sweep in one trip */
     sl__stmt *stage_point;
     int has_stage;               /* the stage table created on this connection */
     long *tx_runs;               /* runs added in the open transaction (an import's) */
     size_t n_tx_runs, cap_tx_runs;
+    struct sl__bulk *bulk;       /* PostgreSQL: an import's rows going in by COPY */
+    struct sl__sweep_memo *sweep_memo; /* the last sweep read, while a scratch is open */
 };
+
+/* While an analysis's scratch reads one snapshot (nothing changes under
+ * it), keep the last sweep read: an analysis reads a device's sweep twice
+ * in a row (store_sweep.c). on 0 forgets it. */
+void sl__store_sweep_memo(sl_store *store, int on);
+
+/* The extraction columns of a measurement, in the order every insert and
+ * update of them binds them (store_device.c, store_bulk.c). */
+#define MEASUREMENT_COLUMNS \
+    "fit_class, fit_model, cnp_V, cnp_sigma_V, mobility_cm2_per_Vs, mobility_sigma_cm2_per_Vs, " \
+    "n0_per_cm2, n0_sigma_per_cm2, r_contact_ohm, r_contact_sigma_ohm, rel_rms, r_squared, " \
+    "n_points, electron_mobility_cm2_per_Vs, hole_mobility_cm2_per_Vs, n_spikes, " \
+    "hysteresis_V, points_dropped"
+
+/* ---- PostgreSQL imports by COPY through a staging table (store_bulk.c) ---- */
+typedef struct sl__bulk sl__bulk;
+/* Start staging an import's rows into the lot (which has stored_devices). */
+sl_status sl__store_bulk_begin(sl_store *store, long lot_id, long stored_devices, sl_diag *diag);
+/* Stage a measurement: *staged 1 and out set (SL_STORE_ADDED), or *staged 0
+ * when the device was met before in the run or at another die: then the
+ * staged rows are stored and the row-by-row path is to take this one. */
+sl_status sl__store_bulk_insert(sl_store *store, int *staged, sl_store_insert *out, long lot_id,
+                                long run_id, const sl_store_device *d, sl_diag *diag);
+/* Abandon the staging (an open COPY cancelled) and free it; NULL-safe. */
+void sl__store_bulk_discard(sl_store *store);
+/* 1 when storing the staged rows failed; buf gets the store's own reason
+ * ("" when the server's error says it). */
+int sl__store_bulk_error(const sl_store *store, char *buf, size_t size);
 
 /* Add a located message for the connection's last error; returns SL_EDB. */
 sl_status sl__store_db_error(sl_store *store, sl_diag *diag, const char *what);

@@ -791,6 +791,47 @@ START_TEST(test_split_parameter_medians)
 }
 END_TEST
 
+/* The same on a lot large enough that the values come back in many packed
+ * rows and each split's median takes a counting pass before the values
+ * are held (1,400 devices a wafer, two wafers a split: beyond the 2,048 the
+ * median search holds): mobility and n0 medians and spreads equal GSL's on
+ * the values held. */
+START_TEST(test_split_parameter_medians_large_lot)
+{
+    char *dir = sl_test_tmpdir();
+    const char *extra[] = { "--devices-per-wafer", "1400", NULL };
+    demo_lot(dir, "BIG-01", "5", extra, 0);
+    char *db = sl_test_path(dir, "t.db");
+    sl_diag *diag = sl_diag_new();
+    sl_store *store = NULL;
+    sl_analysis *a = NULL;
+    ck_assert_int_eq(sl_test_store_open(&store, db, diag), SL_OK);
+    ck_assert_int_eq(sl_analyze_lot(&a, store, "BIG-01", diag), SL_OK);
+    const size_t offsets[2] = { offsetof(sl_analyze_device, mobility_cm2_per_Vs),
+                                offsetof(sl_analyze_device, n0_per_cm2) };
+    size_t largest = 0;
+    for (size_t k = 0; k < a->n_splits; k++) {
+        const sl_analyze_split *sp = &a->splits[k];
+        const double got[2][2] = { { sp->mobility_median_cm2_per_Vs, sp->mobility_spread_cm2_per_Vs },
+                                   { sp->n0_median_per_cm2, sp->n0_spread_per_cm2 } };
+        largest = sp->n_usable > largest ? sp->n_usable : largest;
+        for (int q = 0; q < 2; q++) {
+            double median, spread;
+            gsl_median_spread(a, k, offsets[q], &median, &spread);
+            check_rel("median", got[q][0], median, 1e-12);
+            check_rel("spread", got[q][1], spread, 1e-12);
+        }
+    }
+    ck_assert_uint_gt(largest, SL_STATS_MEDIAN_HELD);
+    sl_analysis_free(a);
+    sl_store_close(store);
+    sl_diag_free(diag);
+    free(db);
+    sl_test_rmtree(dir);
+    free(dir);
+}
+END_TEST
+
 /* The split of wafer S01, device D1. */
 static long low_split_of(const sl_analysis *a)
 {
@@ -2129,6 +2170,7 @@ static Suite *analyze_suite(void)
     tcase_add_test(stats, test_lot_with_a_wafer_missing);
     tcase_add_test(stats, test_library_analysis);
     tcase_add_test(stats, test_split_parameter_medians);
+    tcase_add_test(stats, test_split_parameter_medians_large_lot);
     tcase_add_test(stats, test_low_mobility_flagged);
     tcase_add_test(stats, test_mobility_expectation_per_dielectric);
     tcase_add_test(stats, test_split_mobility_against_simulated_truth);

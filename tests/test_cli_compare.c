@@ -712,6 +712,9 @@ START_TEST(test_superseded_run_not_in_view)
     char want[64];
     snprintf(want, sizeof want, "\"current\": %ld,", devices);
     ck_assert_msg(strstr(row2, want) && strstr(row2, "\"in_view\": true"), "%s", runs);
+    /* two runs in the view: every device measured in both, its newest shown */
+    ck_assert_ptr_nonnull(strstr(out, "\"measurements\": 2,"));
+    ck_assert_ptr_null(strstr(out, "\"measurements\": 1,"));
     free(out);
     free(cold_path);
     free(cold);
@@ -858,6 +861,7 @@ START_TEST(test_same_answers_on_both_backends)
     }
     static const char *const history[] = { "history", "--format", "json", NULL };
     static const char *const report[] = { "report", "--lot", "OFF-01", "--out", "same.html", NULL };
+    setenv("SOURCE_DATE_EPOCH", "1796083200", 1); /* 2026-12-01 00:00 UTC: no minute turns */
     const char *const dbs[] = { "t.db", "same.sqlite", "back.db" };
     char *first[6] = { NULL };
     for (size_t d = 0; d < N_OF(dbs); d++) {
@@ -881,6 +885,8 @@ START_TEST(test_same_answers_on_both_backends)
             free(got[k]);
         }
     }
+    ck_assert_msg(strstr(first[5], "2026-12-01 00:00 UTC"), "the page's date is SOURCE_DATE_EPOCH's");
+    unsetenv("SOURCE_DATE_EPOCH");
     for (size_t k = 0; k < 6; k++)
         free(first[k]);
     const char *again[] = { "db", "copy", "--from", "t.db", "--to", "same.sqlite", NULL };

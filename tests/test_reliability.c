@@ -2,8 +2,8 @@
  * Reliability of the splitlot binary under abuse: imports killed with SIGKILL,
  * a full disk, a file size limit, a read-only database, concurrent writers and
  * readers, hostile input files, and on PostgreSQL (make check-pg) a server
- * that stops mid-import, a statement timeout, an unreachable server and a
- * refused login. Each case checks the database afterwards (SQLite's
+ * that stops mid-import, a statement timeout, an unreachable server, a
+ * refused login (no password, a wrong one) and an unknown database. Each case checks the database afterwards (SQLite's
  * integrity check, earlier lots intact, no half-written lot).
  */
 #define _GNU_SOURCE /* mount(2), umount2(2) */
@@ -823,7 +823,7 @@ END_TEST
 /* Run a shell command as the server's owner (postgres when we are root). */
 static int as_server_owner(const char *cmd)
 {
-    char line[8192];
+    char line[8400];
     if (geteuid() == 0)
         snprintf(line, sizeof line, "runuser -u postgres -- sh -c '%s' >/dev/null 2>&1", cmd);
     else
@@ -853,13 +853,29 @@ static void server_stop(private_server *srv, const char *mode)
     as_server_owner(cmd);
 }
 
-/* A server of this test's own (it is stopped, which the other suites'
- * server must not be), with a database for splitlot. 0 when it runs. */
-static int server_make(private_server *srv)
+/* Put a line first in the server's pg_hba.conf (the first match decides). */
+static int hba_put_first(const private_server *srv, const char *rule)
+{
+    char path[1100];
+    snprintf(path, sizeof path, "%s/data/pg_hba.conf", srv->dir);
+    size_t n = 0;
+    char *old = sl_test_read_file(path, &n);
+    FILE *f = old ? fopen(path, "w") : NULL; /* truncated in place: its owner stays */
+    int ok = f && fprintf(f, "%s\n", rule) > 0 && fwrite(old, 1, n, f) == n;
+    ok = f && fclose(f) == 0 && ok;
+    free(old);
+    return ok ? 0 : -1;
+}
+
+/* A server of this test's own in the rig's folder name (it is stopped, or
+ * its logins ruled by hba_first, a pg_hba.conf line put first, or NULL,
+ * which the other suites' server must not be), with a database for
+ * splitlot. 0 when it runs. */
+static int server_make(private_server *srv, const char *name, const char *hba_first)
 {
     const char *user = geteuid() == 0 ? "postgres" : getenv("USER");
-    snprintf(srv->dir, sizeof srv->dir, "%s", rig.dir);
-    strncat(srv->dir, "/pg", sizeof srv->dir - strlen(srv->dir) - 1);
+    snprintf(srv->dir, sizeof srv->dir, "%s/", rig.dir);
+    strncat(srv->dir, name, sizeof srv->dir - strlen(srv->dir) - 1);
     ck_assert_int_eq(mkdir(srv->dir, 0700), 0);
     char cmd[8192];
     if (geteuid() == 0) {
@@ -868,7 +884,8 @@ static int server_make(private_server *srv)
     }
     snprintf(cmd, sizeof cmd, "%s/initdb -D %s/data -A trust -U %s --no-locale -E UTF8",
              getenv("SL_PG_BINDIR"), srv->dir, user ? user : "postgres");
-    if (as_server_owner(cmd) != 0 || server_start(srv) != 0)
+    if (as_server_owner(cmd) != 0 || (hba_first && hba_put_first(srv, hba_first) != 0) ||
+        server_start(srv) != 0)
         return -1;
     snprintf(cmd, sizeof cmd, "%s/createdb -h %s -U %s lots", getenv("SL_PG_BINDIR"), srv->dir,
              user ? user : "postgres");
@@ -902,7 +919,8 @@ START_TEST(server_stopped_mid_import)
     if (!sl_test_pg() || !getenv("SL_PG_BINDIR"))
         return;
     private_server srv;
-    ck_assert_msg(server_make(&srv) == 0, "the test's own PostgreSQL server did not start");
+    ck_assert_msg(server_make(&srv, "pg", NULL) == 0,
+                  "the test's own PostgreSQL server did not start");
     predict_ok("early.yaml", srv.url);
     predict_ok(DEMO_PLAN, srv.url);
     ingest_ok(srv.url, "EARLY-01", "small/sweeps.csv");
@@ -980,6 +998,70 @@ START_TEST(server_failures_are_one_clear_line)
 }
 END_TEST
 
+/* `splitlot lots` against url with PGPASSWORD set to password (NULL:
+ * unset): its exit code and error output (malloc'd) in *err. */
+static int lots_with_password(const char *url, const char *password, char **err)
+{
+    if (password)
+        setenv("PGPASSWORD", password, 1);
+    else
+        unsetenv("PGPASSWORD");
+    const char *argv[] = { "lots", "--db", url, NULL };
+    sl_run_result r = sl_test_run(rig.dir, NULL, argv);
+    unsetenv("PGPASSWORD");
+    int code = r.exit_code;
+    *err = strdup(r.err ? r.err : "");
+    if (code != 0)
+        ck_assert_str_eq(r.out, "");
+    sl_run_result_free(&r);
+    return code;
+}
+
+/* A login the server refuses (no password, a wrong one) and a database
+ * the server does not have: exit 1, one line saying which, never "cannot
+ * be reached"; the right password (from PGPASSWORD, as libpq reads it)
+ * gets in. The test's own server asks this role for a password. */
+START_TEST(server_login_failures_say_which)
+{
+    if (!sl_test_pg() || !getenv("SL_PG_BINDIR"))
+        return;
+    private_server srv;
+    ck_assert_msg(server_make(&srv, "pg-auth", "local all sl_pw_user scram-sha-256") == 0,
+                  "the test's own PostgreSQL server did not start");
+    sl_store *owner = db_open(srv.url);
+    ck_assert_int_eq(sl__db_exec(owner->db, "CREATE ROLE sl_pw_user LOGIN SUPERUSER PASSWORD "
+                                            "'right horse'"), SL__DB_OK);
+    sl_store_close(owner);
+    char url[1300];
+    snprintf(url, sizeof url, "postgresql:///lots?host=%s&user=sl_pw_user", srv.dir);
+    static const struct { const char *password, *needle; } logins[] = {
+        { "wrong horse", "password authentication failed" },
+        { NULL, "no password supplied" },
+    };
+    for (size_t i = 0; i < sizeof logins / sizeof logins[0]; i++) {
+        char *err = NULL;
+        int code = lots_with_password(url, logins[i].password, &err);
+        ck_assert_msg(code == 1 && count_lines(err) == 1 && strstr(err, "refused the login") &&
+                      strstr(err, logins[i].needle) && !strstr(err, "cannot be reached"),
+                      "%zu: exit %d: %s", i, code, err);
+        free(err);
+    }
+    char *err = NULL;
+    ck_assert_msg(lots_with_password(url, "right horse", &err) == 0, "right password: %s", err);
+    free(err);
+
+    snprintf(url, sizeof url, "postgresql:///no_such_lots?host=%s", srv.dir);
+    strncat(url, strstr(srv.url, "&user="), sizeof url - strlen(url) - 1);
+    int code = lots_with_password(url, NULL, &err);
+    ck_assert_msg(code == 1 && count_lines(err) == 1 &&
+                  strstr(err, "database \"no_such_lots\" does not exist") &&
+                  strstr(err, "has no such database") && !strstr(err, "cannot be reached"),
+                  "exit %d: %s", code, err);
+    free(err);
+    server_stop(&srv, "immediate");
+}
+END_TEST
+
 static Suite *reliability_suite(void)
 {
     Suite *s = suite_create("reliability");
@@ -996,6 +1078,7 @@ static Suite *reliability_suite(void)
     tcase_add_test(tc, negative_zero_and_subnormal_import);
     tcase_add_test(tc, server_stopped_mid_import);
     tcase_add_test(tc, server_failures_are_one_clear_line);
+    tcase_add_test(tc, server_login_failures_say_which);
     suite_add_tcase(s, tc);
     /* mounts and chattr: need root (or CAP_SYS_ADMIN), skipped otherwise */
     TCase *root = tcase_create("root");

@@ -3,7 +3,8 @@
  * (one from fitted sweeps, one from results with three devices moved far
  * off), their HTML checked against the analysis and compare's JSON: self-
  * contained, escaped, one die element per die, flag counts, verdicts,
- * curves, history, determinism, the atomic write and the command's errors.
+ * per-split parameters against the plan, curves, history, determinism, the
+ * atomic write and the command's errors.
  */
 #include <math.h>
 #include <stdio.h>
@@ -540,6 +541,109 @@ START_TEST(test_parameter_tooltips_name_devices)
 }
 END_TEST
 
+/* The parameters table: a row per split with its median and spread of
+ * mobility as the analysis found them (four significant digits), the
+ * units in the headings, n0 as a density; without a planned mobility in the
+ * plan (plans/demo.yaml has none) every split says so and no mobility card
+ * is drawn. */
+START_TEST(test_parameters_table_per_split)
+{
+    lot_view v = view_open(_i, "parameters");
+    const char *table = strstr(v.sec, "<table class=\"parameters\">");
+    ck_assert(table && table < v.end);
+    const char *table_end = strstr(table, "</table>");
+    ck_assert_uint_eq(count_in(table, table_end, "<tr data-split=\""), v.a->n_splits);
+    const char *units[] = { "mobility median (cm&sup2;/V&nbsp;s)",
+                            "n<sub>0</sub> median (cm<sup>&minus;2</sup>)",
+                            "hysteresis median (V)", "planned mobility (cm&sup2;/V&nbsp;s)" };
+    for (size_t u = 0; u < sizeof units / sizeof *units; u++)
+        ck_assert_ptr_nonnull(strstr(table, units[u]));
+    for (size_t k = 0; k < v.a->n_splits; k++) {
+        const sl_analyze_split *sp = &v.a->splits[k];
+        char row[512];
+        snprintf(row, sizeof row,
+                 "<tr data-split=\"%s\" data-mobility-off-plan=\"-1\"><td>%s</td>"
+                 "<td class=\"num\">%.4g</td><td class=\"num\">%.4g</td>"
+                 "<td class=\"num\">n/a</td><td class=\"num\">n/a</td><td>no plan value</td>"
+                 "<td class=\"num\">",
+                 v.a->plan->splits[k].name, v.a->plan->splits[k].name,
+                 sp->mobility_median_cm2_per_Vs, sp->mobility_spread_cm2_per_Vs);
+        const char *at = strstr(table, row);
+        ck_assert_msg(at && at < table_end, "no row %s", row);
+        ck_assert(isfinite(sp->n0_median_per_cm2));
+        ck_assert_ptr_eq(strstr(at + strlen(row), "&times;10<sup>"), at + strlen(row) + 4);
+    }
+    ck_assert_ptr_null(strstr(g_html[_i], "data-verdict=\"mobility-off-plan\""));
+    view_close(&v);
+}
+END_TEST
+
+/* The demo plan with a planned mobility for each dielectric: ox90 at the
+ * simulator's median (2000 cm^2/Vs, src/simulate.c) with sigma 300, alox20
+ * at 5000 +/- 500, which the simulated devices miss by far. */
+static int mobility_plan_line(char *out, size_t cap, const char *line, size_t row, void *ctx)
+{
+    (void)row;
+    (void)ctx;
+    if (strncmp(line, "lot:", 4) == 0)
+        return snprintf(out, cap, "lot: MU-01\n") > 0;
+    if (strstr(line, "doping_per_cm2: { mean: 0, sigma: 0.2e12 }"))
+        return snprintf(out, cap, "%s\n    mobility_cm2_per_Vs: { mean: 2000, sigma: 300 }\n",
+                        line) > 0;
+    if (strstr(line, "doping_per_cm2: { mean: 0.5e12, sigma: 0.3e12 }"))
+        return snprintf(out, cap, "%s\n    mobility_cm2_per_Vs: { mean: 5000, sigma: 500 }\n",
+                        line) > 0;
+    return 0;
+}
+
+/* With planned mobilities: the mobility card counts the splits compare
+ * judges off plan and names them, their rows are marked, each row shows
+ * its dielectric's planned value, and the mobility chart draws it. */
+START_TEST(test_planned_mobility_card_and_rows)
+{
+    char *demo = sl_test_path(SL_SOURCE_DIR, "plans/demo.yaml");
+    char *path = sl_test_path(g_dir, "mu.yaml");
+    ck_assert_uint_eq(edit_lines(demo, path, mobility_plan_line, NULL), 3);
+    const char *steps[][12] = {
+        { "predict", "mu.yaml", "--db", "mu.db", NULL },
+        { "simulate", "mu.yaml", "--out", "sim-mu", "--seed", "4", "--no-sweeps", NULL },
+        { "ingest", "--lot", "MU-01", "--results", "sim-mu/results.csv", "--db", "mu.db", NULL },
+        { "report", "--lot", "MU-01", "--out", "mu.html", "--db", "mu.db", NULL },
+    };
+    for (size_t i = 0; i < sizeof steps / sizeof steps[0]; i++)
+        run_ok(steps[i]);
+    const char *cmp[] = { "compare", "--lot", "MU-01", "--db", "mu.db", "--format", "json", NULL };
+    sl_run_result r = sl_test_run(g_dir, NULL, cmp);
+    ck_assert_int_eq(r.exit_code, 0);
+    long off = json_number(r.out, "splits_mobility_off_plan");
+    ck_assert_int_eq(off, 4); /* the four alox20 splits */
+    char *html_path = sl_test_path(g_dir, "mu.html");
+    char *html = sl_test_read_file(html_path, NULL);
+    char card[96];
+    snprintf(card, sizeof card, "data-verdict=\"mobility-off-plan\" data-count=\"%ld\"", off);
+    const char *at = strstr(html, card);
+    ck_assert_ptr_nonnull(at);
+    const char *card_end = strstr(at, "</li>");
+    ck_assert_uint_eq(count_in(at, card_end, "alox20"), 4);
+    ck_assert_uint_eq(count(html, "data-mobility-off-plan=\"1\""), (size_t)off);
+    ck_assert_uint_eq(count(html, "<tr class=\"bad\" data-split=\"alox20"), (size_t)off);
+    ck_assert_uint_eq(count(html, "data-mobility-off-plan=\"0\""), 4);
+    ck_assert_uint_eq(count(html, "<td class=\"num\">5000</td><td class=\"num\">500</td>"
+                                  "<td>off plan</td>"), 4);
+    ck_assert_uint_eq(count(html, "<td class=\"num\">2000</td><td class=\"num\">300</td>"
+                                  "<td>as planned</td>"), 4);
+    const char *mob = strstr(html, "data-parameter=\"mobility\"");
+    const char *n0 = strstr(html, "data-parameter=\"n0\"");
+    ck_assert(mob && n0);
+    ck_assert_uint_eq(count_in(mob, n0, "class=\"predicted\""), 8); /* a line per split */
+    free(html);
+    free(html_path);
+    sl_run_result_free(&r);
+    free(path);
+    free(demo);
+}
+END_TEST
+
 START_TEST(test_history_with_two_lots)
 {
     const char *end;
@@ -879,6 +983,22 @@ START_TEST(test_instrument_lots)
     /* the truth file has 7 devices beyond 1.5 V; compare flags the same 7 */
     ck_assert_uint_eq(count_in(hyst, end, "point flagged"), 7);
     ck_assert_ptr_nonnull(strstr(html, "href=\"#hysteresis\""));
+    /* a chart per parameter, each axis in its unit, and each split's
+     * hysteresis median and spread in the parameters table */
+    const char *params = section(html, "parameters", &end);
+    ck_assert_ptr_nonnull(params);
+    const char *axes[] = { "data-parameter=\"mobility\"", "data-parameter=\"n0\"",
+                           "data-parameter=\"hysteresis\"",
+                           "mobility (log\xe2\x82\x81\xe2\x82\x80 cm\xc2\xb2/V s)",
+                           "n\xe2\x82\x80 (log\xe2\x82\x81\xe2\x82\x80 cm\xe2\x81\xbb\xc2\xb2)",
+                           ">hysteresis (V)<" };
+    for (size_t i = 0; i < sizeof axes / sizeof *axes; i++)
+        ck_assert_msg(count_in(params, end, axes[i]) == 1, "%s", axes[i]);
+    const char *table = strstr(params, "<table class=\"parameters\">");
+    ck_assert(table && table < end);
+    const char *table_end = strstr(table, "</table>");
+    ck_assert_uint_gt(count_in(table, table_end, "<tr data-split="), 0);
+    ck_assert_uint_eq(count_in(table, table_end, "<td class=\"num\">n/a</td></tr>"), 0);
     const char *maps = section(html, "wafers", &end);
     ck_assert_uint_eq(count_dies(maps, end), 32); /* 4 wafers x 8 devices, dies from (1, 1) */
     free(html);
@@ -1012,6 +1132,8 @@ static Suite *report_suite(void)
     tcase_add_loop_test(tc, test_off_plan_verdict, 0, 2);
     tcase_add_test(tc, test_curves_of_flagged_devices);
     tcase_add_test(tc, test_parameter_tooltips_name_devices);
+    tcase_add_loop_test(tc, test_parameters_table_per_split, 0, 2);
+    tcase_add_test(tc, test_planned_mobility_card_and_rows);
     tcase_add_test(tc, test_history_with_two_lots);
     tcase_add_test(tc, test_fitted_curve_of_an_outlier);
     tcase_add_test(tc, test_two_mobility_curves_use_their_model);

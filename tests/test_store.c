@@ -1108,11 +1108,12 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     ck_assert_int_eq(sl_store_scratch_keep_values(x, "ok", diag), SL_OK);
     for (size_t i = 0; i <= n_values; i++) {
         int more = 0;
-        double v = NAN;
-        ck_assert_int_eq(sl_store_scratch_next_value(x, &more, &group, &v, diag), SL_OK);
+        sl_store_scratch_value v;
+        ck_assert_int_eq(sl_store_scratch_next_value(x, &more, &v, diag), SL_OK);
         ck_assert_int_eq(more, i < n_values);
         if (more)
-            ck_assert(v == want_v[i] && group == want_group[i]);
+            ck_assert(v.cnp_V == want_v[i] && v.group == want_group[i] &&
+                      v.tag == want_group[i] - 6);
     }
 
     /* kept order W01 B, A, C, W02 A, B: severities 3, 5, 3, 3, none */
@@ -1136,7 +1137,7 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     if (!sl_test_pg()) { /* PostgreSQL: the snapshot transaction took them with it */
         ck_assert_int_eq(query_long(s.store, "PRAGMA cache_size"), cache_before);
         ck_assert_int_eq(query_long(s.store, "SELECT (SELECT count(*) FROM temp.sl_scratch_kept) + "
-                                             "(SELECT count(*) FROM temp.sl_scratch_value) + "
+                                             "(SELECT count(*) FROM temp.sl_scratch_values) + "
                                              "(SELECT count(*) FROM temp.sl_scratch_rank)"), 0);
     }
     free(rows);
@@ -1145,6 +1146,89 @@ START_TEST(scratch_keeps_ranks_and_reads_one_snapshot)
     ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
     sl_store_scratch_close(x);
     free(rows);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* More flagged devices than go to the server in one statement (600: two
+ * batches of 256 and the rest) come back by severity, the highest first. */
+START_TEST(scratch_ranks_many_in_order)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    static const char *const names[] = { "A", "B", "C" };
+    for (int j = 0; j < 3; j++)
+        add_device(&s, s.store, "W01", names[j], j, 0, "ok", 1.0 + j);
+    sl_store_scratch *x = NULL;
+    ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_view(x, s.lot.lot_id, "final", 300.0, diag), SL_OK);
+    ck_assert_int_eq(sl_store_scratch_keep_wafer(x, s.lot.lot_id, "W01", 1, 1, diag), SL_OK);
+    const sl_store_device_row *r = NULL;
+    long group = 0, tag = 0;
+    for (int pass = 0; pass < 200; pass++) {
+        for (int j = 0; j < 3; j++) {
+            ck_assert_int_eq(sl_store_scratch_next_kept(x, &group, &tag, &r, diag), SL_OK);
+            ck_assert_str_eq(r->name, names[j]); /* kept in die order */
+            ck_assert_int_eq(sl_store_scratch_rank(x, 3.0 * pass + j, diag), SL_OK);
+        }
+        sl_store_scratch_rewind(x);
+    }
+    for (int i = 0; i <= 600; i++) {
+        ck_assert_int_eq(sl_store_scratch_next_ranked(x, &group, &tag, &r, diag), SL_OK);
+        ck_assert_int_eq(r != NULL, i < 600);
+        if (r)
+            ck_assert_msg(strcmp(r->name, names[(599 - i) % 3]) == 0, "%d: %s", i, r->name);
+    }
+    sl_store_scratch_close(x);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* Inside an analysis's scratch a sweep read twice in a row (as the
+ * analysis does) is the same sweep, and reading another in between or a
+ * measurement without one never hands back the wrong points. */
+START_TEST(sweeps_read_again_in_a_scratch)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    const double vg[2][3] = { { -1.0, 0.0, 1.0 }, { -2.0, 0.5, 2.0 } };
+    const double r[2][3] = { { 900.0, 2000.0, 950.0 }, { 800.0, 1500.0, 700.0 } };
+    long ids[3];
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    static const char *const names[] = { "A", "B", "C" };
+    for (int i = 0; i < 3; i++) {
+        sl_store_device d = device_named("W01", names[i]);
+        d.vg_V = i < 2 ? vg[i] : NULL;
+        d.r_ohm = i < 2 ? r[i] : NULL;
+        d.n_points = i < 2 ? 3 : 0;
+        ids[i] = insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    }
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
+    sl_store_scratch *x = NULL;
+    ck_assert_int_eq(sl_store_scratch_open(&x, s.store, diag), SL_OK);
+    static const int order[] = { 0, 0, 1, 0, 2, 2, 1, 1 };
+    for (size_t k = 0; k < sizeof order / sizeof order[0]; k++) {
+        int i = order[k];
+        double *got_vg = NULL, *got_r = NULL;
+        size_t n = 0;
+        sl_status st = sl_store_load_sweep(s.store, &got_vg, &got_r, &n, ids[i], diag);
+        if (i == 2) {
+            ck_assert_int_eq(st, SL_ENOTFOUND);
+        } else {
+            ck_assert_int_eq(st, SL_OK);
+            ck_assert_uint_eq(n, 3);
+            for (size_t j = 0; j < 3; j++)
+                ck_assert(got_vg[j] == vg[i][j] && got_r[j] == r[i][j]);
+        }
+        free(got_vg);
+        free(got_r);
+    }
+    sl_store_scratch_close(x);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
     sl_diag_free(diag);
     demo_store_free(&s);
 }
@@ -1327,6 +1411,167 @@ START_TEST(constraint_failures_say_which)
 }
 END_TEST
 
+/* The first failure of an import of one device into the demo lot: the
+ * insert (SQLite writes at once) or the commit (PostgreSQL stages the row
+ * and stores it by then). The message is left in diag. */
+static sl_status import_one(stored_demo *s, const sl_store_device *d, long run_id, sl_diag *diag)
+{
+    sl_store_insert ins;
+    ck_assert_int_eq(sl_store_begin(s->store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s->store, s->lot.lot_id, diag), SL_OK);
+    sl_status st = sl_store_insert_measurement(s->store, &ins, s->lot.lot_id, run_id, d, diag);
+    if (st == SL_OK)
+        return sl_store_commit(s->store, diag);
+    sl_store_rollback(s->store);
+    return st;
+}
+
+/* A device the import cannot store names the kind of constraint it broke
+ * (as constraint_failures_say_which), on either backend, and nothing of
+ * it stays; a good device then goes in. */
+START_TEST(import_constraint_failures_say_which)
+{
+    stored_demo s = demo_store();
+    sl_store_device d = device_named("W01", "D001");
+    sl_store_device no_class = d, short_channel = d;
+    no_class.fit_class = NULL;
+    short_channel.channel_length_um = -2.0;
+    static const char *const kinds[] = { "a NOT NULL constraint", "a CHECK constraint",
+                                         "a FOREIGN KEY constraint" };
+    const sl_store_device *devices[] = { &no_class, &short_channel, &d };
+    const long runs[] = { s.run_id, s.run_id, s.run_id + 1000 };
+    for (size_t i = 0; i < 3; i++) {
+        sl_diag *diag = sl_diag_new();
+        ck_assert_int_eq(import_one(&s, devices[i], runs[i], diag), SL_EDB);
+        ck_assert_msg(strstr(sl_diag_last(diag), kinds[i]) &&
+                      strstr(sl_diag_last(diag), "nothing was changed") &&
+                      !strstr(sl_diag_last(diag), "duplicate device"),
+                      "%zu: %s", i, sl_diag_last(diag));
+        sl_diag_free(diag);
+        ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM device"), 0);
+        ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 0);
+    }
+    sl_diag *diag = sl_diag_new();
+    ck_assert_int_eq(import_one(&s, &d, s.run_id, diag), SL_OK);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 1);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* Dies far from the wafer's centre and an import of many runs tell a
+ * device met again apart as well as the common case (on PostgreSQL they
+ * leave the staging table's fast path for the row-by-row one). */
+START_TEST(far_dies_and_many_runs_keep_outcomes)
+{
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    sl_store_device far = device_named("W01", "FAR");
+    far.die_x = 100000;
+    far.die_y = -40000;
+    sl_store_insert ins;
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    long first = insert_added(s.store, s.lot.lot_id, s.run_id, &far);
+    ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &far, diag),
+                     SL_OK);
+    ck_assert(ins.outcome == SL_STORE_IN_RUN && ins.measurement_id == first);
+    far.die_y = -32768;
+    ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &far, diag),
+                     SL_OK);
+    ck_assert(ins.outcome == SL_STORE_DIE_DIFFERS && ins.die_x == 100000 && ins.die_y == -40000);
+    /* 40 runs of one device, then each run again */
+    long runs[40];
+    sl_store_device d = device_named("W02", "D009");
+    for (int i = 0; i < 40; i++) {
+        ck_assert_int_eq(sl_store_add_run(s.store, &runs[i], s.lot.lot_id, s.lot.revision_id,
+                                          "final", 10.0 + i, "sweeps", "many.csv", diag), SL_OK);
+        insert_added(s.store, s.lot.lot_id, runs[i], &d);
+    }
+    for (int i = 0; i < 40; i++) {
+        ck_assert_int_eq(sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, runs[i], &d, diag),
+                         SL_OK);
+        ck_assert_int_eq(ins.outcome, SL_STORE_IN_RUN);
+    }
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_OK);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 41);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM device"), 2);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* PostgreSQL: the staged rows go in only where the device sits at their
+ * die. A device another connection adds at another die while the import
+ * runs (it takes no lot lock, as no splitlot command would) makes the
+ * import fail with one message, nothing of it stored. */
+START_TEST(staged_rows_clashing_with_stored_devices_refused)
+{
+    if (!sl_test_pg())
+        return;
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    sl_store_device first = device_named("W01", "D000"), d = device_named("W01", "D001");
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    insert_added(s.store, s.lot.lot_id, s.run_id, &first);
+    insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    sl_store *other = open_ok(s.db);
+    char sql[256];
+    snprintf(sql, sizeof sql, "INSERT INTO device (lot_id, wafer, name, die_x, die_y) VALUES "
+             "(%ld, 'W01', 'D001', 7, 7)", s.lot.lot_id);
+    ck_assert_int_eq(sl__db_exec(other->db, sql), SL__DB_OK);
+    ck_assert_int_eq(sl_store_commit(s.store, diag), SL_EDB);
+    ck_assert_msg(strstr(sl_diag_last(diag), "cannot store the imported devices: 1 of 2 "
+                                             "measurements name a device the lot has at another die"),
+                  "%s", sl_diag_last(diag));
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM measurement"), 0);
+    ck_assert_int_eq(query_long(s.store, "SELECT count(*) FROM device"), 1);
+    sl_store_close(other);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
+/* PostgreSQL: the server ends the import's connection while its rows are
+ * streaming (an open COPY): one message naming the lost connection,
+ * "nothing was changed", and nothing of the import on the server. */
+START_TEST(connection_lost_mid_copy_keeps_nothing)
+{
+    if (!sl_test_pg())
+        return;
+    stored_demo s = demo_store();
+    sl_diag *diag = sl_diag_new();
+    long pid = query_long(s.store, "SELECT pg_backend_pid()");
+    ck_assert_int_eq(sl_store_begin(s.store, diag), SL_OK);
+    ck_assert_int_eq(sl_store_begin_lot_inserts(s.store, s.lot.lot_id, diag), SL_OK);
+    sl_store_device d = device_named("W01", "D000");
+    insert_added(s.store, s.lot.lot_id, s.run_id, &d);
+    ck_assert_int_eq(sl__db_pg_copying(s.store->db), 1);
+    sl_store *other = open_ok(s.db);
+    char sql[96];
+    snprintf(sql, sizeof sql, "SELECT pg_terminate_backend(%ld)::int", pid);
+    ck_assert_int_eq(query_long(other, sql), 1);
+    d.name = "D001";
+    sl_store_insert ins;
+    sl_status st = sl_store_insert_measurement(s.store, &ins, s.lot.lot_id, s.run_id, &d, diag);
+    if (st == SL_OK) /* the row may still fit the client's buffer */
+        st = sl_store_commit(s.store, diag);
+    else
+        sl_store_rollback(s.store);
+    ck_assert_int_eq(st, SL_EDB);
+    ck_assert_uint_eq(sl_diag_size(diag), 1);
+    ck_assert_msg(strstr(sl_diag_last(diag), "cannot be reached or closed the connection") &&
+                  strstr(sl_diag_last(diag), "nothing was changed"), "%s", sl_diag_last(diag));
+    ck_assert_int_eq(query_long(other, "SELECT count(*) FROM device"), 0);
+    ck_assert_int_eq(query_long(other, "SELECT count(*) FROM measurement"), 0);
+    sl_store_close(other);
+    sl_diag_free(diag);
+    demo_store_free(&s);
+}
+END_TEST
+
 /* A query that fails is an error naming what was asked, never a value: a
  * count of devices, the list of lots, and an unknown lot whose known lots
  * cannot be listed. */
@@ -1357,6 +1602,15 @@ START_TEST(failed_queries_are_errors)
     sl_store_lot lot;
     ck_assert_int_eq(sl_store_find_lot(s.store, &lot, "NOPE", diag), SL_EDB);
     ck_assert_msg(!strstr(sl_diag_last(diag), "not in the database"), "%s", sl_diag_last(diag));
+    sl_diag_clear(diag);
+    /* a sweep that cannot be read is an error, never "no sweep stored" */
+    ck_assert_int_eq(sl__store_exec(s.store, "ALTER TABLE sweep RENAME TO sweep_gone", diag,
+                                   "break the schema"), SL_OK);
+    double *vg = NULL, *r = NULL;
+    size_t n_points = 3;
+    ck_assert_int_eq(sl_store_load_sweep(s.store, &vg, &r, &n_points, 1, diag), SL_EDB);
+    ck_assert(vg == NULL && r == NULL && n_points == 0);
+    ck_assert_msg(strstr(sl_diag_last(diag), "sweep"), "%s", sl_diag_last(diag));
     sl_diag_free(diag);
     demo_store_free(&s);
 }
@@ -1441,6 +1695,15 @@ START_TEST(driver_insert_returning_id)
     ck_assert_int_eq(sl__db_column_int64(copy, 0), 4);
     ck_assert_int_eq(sl__db_step(copy), SL__DB_DONE);
     sl__db_finalize(copy);
+    /* two rows: SQLite's own RETURNING, a row for each */
+    ck_assert_int_eq(sl__db_prepare(db, "INSERT INTO t (name) VALUES ('p'), ('q') RETURNING id", 0,
+                                    &copy), SL__DB_OK);
+    ck_assert_int_eq(sl__db_step(copy), SL__DB_ROW);
+    ck_assert_int_eq(sl__db_column_int64(copy, 0), 5);
+    ck_assert_int_eq(sl__db_step(copy), SL__DB_ROW);
+    ck_assert_int_eq(sl__db_column_int64(copy, 0), 6);
+    ck_assert_int_eq(sl__db_step(copy), SL__DB_DONE);
+    sl__db_finalize(copy);
     sl__db_finalize(ins);
     sl__db_close(db);
     sl_test_rmtree(dir);
@@ -1466,12 +1729,18 @@ static Suite *store_suite(void)
     tcase_add_test(tc, sha256_fips_examples);
     tcase_add_test(tc, constraint_failures_say_which);
     tcase_add_test(tc, failed_queries_are_errors);
+    tcase_add_test(tc, import_constraint_failures_say_which);
+    tcase_add_test(tc, far_dies_and_many_runs_keep_outcomes);
+    tcase_add_test(tc, connection_lost_mid_copy_keeps_nothing);
+    tcase_add_test(tc, staged_rows_clashing_with_stored_devices_refused);
     tcase_add_test(tc, staged_points_in_order);
     tcase_add_test(tc, old_raw_sweep_still_loads);
     tcase_add_test(tc, damaged_sweep_is_a_database_error);
     tcase_add_test(tc, damaged_staged_points_are_a_database_error);
     tcase_add_test(tc, scratch_keeps_ranks_and_reads_one_snapshot);
     tcase_add_test(tc, driver_insert_returning_id);
+    tcase_add_test(tc, scratch_ranks_many_in_order);
+    tcase_add_test(tc, sweeps_read_again_in_a_scratch);
     suite_add_tcase(s, tc);
     TCase *blob = tcase_create("sweep blob");
     tcase_set_timeout(blob, 300);

@@ -365,23 +365,21 @@ sl_status sl_store_scratch_keep_wafer(sl_store_scratch *scratch, long lot_id, co
 sl_status sl_store_scratch_next_kept(sl_store_scratch *scratch, long *group, long *tag,
                                      const sl_store_device_row **row, sl_diag *diag);
 
-/* Once every wafer is kept: the group and V_cnp of the kept devices of one
- * fit class that have a V_cnp, copied into a small table of their own; then
- * read back in the order kept, faster than whole devices: *more = 0 after
+/* Once every wafer is kept: the group, tag, V_cnp, mobility, n0 and
+ * hysteresis (NaN where none) of the kept devices of one fit class that
+ * have a V_cnp, packed many to a row into a table of their own; then read
+ * back in the order kept, far faster than whole devices: *more = 0 after
  * the last, and the next call starts over. */
+typedef struct {
+    long group, tag;
+    double cnp_V;
+    double mobility_cm2_per_Vs, n0_per_cm2, hysteresis_V;
+} sl_store_scratch_value;
+
 sl_status sl_store_scratch_keep_values(sl_store_scratch *scratch, const char *fit_class,
                                        sl_diag *diag);
-sl_status sl_store_scratch_next_value(sl_store_scratch *scratch, int *more, long *group,
-                                      double *cnp_V, sl_diag *diag);
-
-/* The split (tag) and mobility, n0 and hysteresis (NaN where none) of the
- * kept devices of one fit class that have a V_cnp, in the order kept,
- * without their names: choose the class once, then read as
- * sl_store_scratch_next_value (*more = 0 after the last, the next call
- * starts over). */
-void sl_store_scratch_params_class(sl_store_scratch *scratch, const char *fit_class);
-sl_status sl_store_scratch_next_params(sl_store_scratch *scratch, int *more, long *tag,
-                                       double params[3], sl_diag *diag);
+sl_status sl_store_scratch_next_value(sl_store_scratch *scratch, int *more,
+                                      sl_store_scratch_value *value, sl_diag *diag);
 
 /* List the device last read by sl_store_scratch_next_kept with a severity;
  * read the listed ones back as kept devices, most severe first, then by

@@ -2,8 +2,9 @@
 # SPDX-License-Identifier: MIT
 # Benchmark (not a test) of the PostgreSQL backend against SQLite: the sweep
 # import of a 12,500-device lot (tests/bench/plan-12500.yaml, 50 wafers x 250
-# devices, 41 points a sweep), compare (json) on it, and compare's peak
-# client memory at 1,000 and 50,000 devices on PostgreSQL. Each import goes
+# devices, 41 points a sweep), compare (json) on it, and the peak client
+# memory of an import (results) and of compare at 1,000 and 50,000 devices
+# on PostgreSQL, the import's beside SQLite's. Each import goes
 # into an empty database (a new schema on the server, a new file for SQLite).
 # Prints wall seconds, best of RUNS runs, and the ratios; targets: import and
 # compare within 3x of SQLite, memory flat.
@@ -74,12 +75,19 @@ c_pg=$(compare_best "$db_pg")
 awk -v s="$t_sqlite" -v p="$t_pg" 'BEGIN { printf "import:  SQLite %6.3f s  PostgreSQL %6.3f s  ratio %.2f (target < 3: %s)\n", s, p, p / s, p / s < 3 ? "met" : "MISSED" }'
 awk -v s="$c_sqlite" -v p="$c_pg" 'BEGIN { printf "compare: SQLite %6.3f s  PostgreSQL %6.3f s  ratio %.2f (target < 3: %s)\n", s, p, p / s, p / s < 3 ? "met" : "MISSED" }'
 
-# peak client memory of compare on PostgreSQL: 1,000 and 50,000 devices
+# peak client memory of the import (results) and of compare on PostgreSQL,
+# the import's beside SQLite's: 1,000 and 50,000 devices
 for per_wafer in 20 1000; do
     db=$(fresh_pg)
     "$bin" predict "$plan" --db "$db" > /dev/null 2>&1
     "$bin" simulate "$plan" --out r$per_wafer --devices-per-wafer $per_wafer --no-sweeps > /dev/null
-    "$bin" ingest --lot BENCH-12500 --results r$per_wafer/results.csv --db "$db" > /dev/null 2>&1
+    /usr/bin/time -f '%M' -o rss.txt "$bin" ingest --lot BENCH-12500 \
+        --results r$per_wafer/results.csv --db "$db" > /dev/null 2>&1
+    import_pg=$(cat rss.txt)
+    rm -f "$work/m.db"*
+    "$bin" predict "$plan" --db "$work/m.db" > /dev/null 2>&1
+    /usr/bin/time -f '%M' -o rss.txt "$bin" ingest --lot BENCH-12500 \
+        --results r$per_wafer/results.csv --db "$work/m.db" > /dev/null 2>&1
     n=$(($(wc -l < r$per_wafer/results.csv) - 1))
-    echo "compare peak memory on PostgreSQL: $(peak_kb "$db") kB at $n devices"
+    echo "peak memory at $n devices: import PostgreSQL $import_pg kB (SQLite $(cat rss.txt) kB), compare PostgreSQL $(peak_kb "$db") kB"
 done

@@ -46,7 +46,8 @@ agreement() {
     "$py" - "$1/s.db" "$1/r.db" <<'PY'
 import sqlite3, sys, numpy as np
 s = sqlite3.connect(sys.argv[1]).execute(
-    "SELECT w.name, d.name, d.cnp_V FROM device d JOIN wafer w ON w.id = d.wafer_id WHERE d.fit_class = 'ok'").fetchall()
+    "SELECT d.wafer, d.name, m.cnp_V FROM device d JOIN measurement m ON m.device_id = d.id "
+    "WHERE m.fit_class = 'ok'").fetchall()
 r = {(w, d): v for w, d, v, c in sqlite3.connect(sys.argv[2]).execute(
     "SELECT wafer, device, cnp_V, fit_class FROM device") if c == "ok"}
 diff = np.array([abs(v - r[(w, d)]) for w, d, v in s if (w, d) in r])

@@ -3,7 +3,9 @@
 # The lot report in a real browser: builds a lot with three devices moved far
 # off, renders its report, has headless Chromium parse it (--dump-dom) and
 # take a screenshot, and checks the parsed page against compare's JSON: die and
-# flag counts, the flag interval as the band, every verdict card, one colour scale.
+# flag counts, the flag interval as the band, every verdict card (the planned
+# mobility's too), per split the medians and spreads of mobility, n0 and
+# hysteresis with their units and the parameter charts, one colour scale.
 # Usage: check_report.sh SPLITLOT SOURCE_DIR. Without Chromium it reports
 # itself skipped (exit 77, ctest's skip code), unless SL_REQUIRE_BROWSER=1
 # (CI sets it: there a missing browser is a failure); SL_SKIP_BROWSER=1 skips
@@ -38,7 +40,15 @@ fail() {
 }
 
 # ---- the lot: demo plan, results with three devices moved 15 V up ----------
-sed 's/^lot: DEMO-01/lot: BROWSER-01/' "$source_dir/plans/demo.yaml" >plan.yaml
+# with a planned mobility per dielectric: ox90 at the simulator's median
+# (2000 cm^2/Vs, src/simulate.c), alox20 at 5000 +/- 500, which its devices miss
+sed -e 's/^lot: DEMO-01/lot: BROWSER-01/' \
+    -e '/doping_per_cm2: { mean: 0, sigma: 0.2e12 }/a\
+    mobility_cm2_per_Vs: { mean: 2000, sigma: 300 }' \
+    -e '/doping_per_cm2: { mean: 0.5e12, sigma: 0.3e12 }/a\
+    mobility_cm2_per_Vs: { mean: 5000, sigma: 500 }' \
+    "$source_dir/plans/demo.yaml" >plan.yaml
+[ "$(grep -c 'mobility_cm2_per_Vs:' plan.yaml)" -eq 2 ] || fail "the plan has no planned mobilities"
 "$splitlot" predict plan.yaml --db t.db >/dev/null 2>&1
 "$splitlot" simulate plan.yaml --out sim --seed 11 --no-sweeps \
     --true-doping anneal-350=0.3e12 >/dev/null
@@ -107,7 +117,38 @@ outside_ci=$(grep -c '"prediction_in_ci": false' compare.json || true)
 grep -q "data-verdict=\"prediction-outside-ci\" data-count=\"$outside_ci\"" dom.html ||
     fail "the prediction-outside-ci card does not say $outside_ci"
 grep -q 'data-verdict="cnp-outside" data-count="' dom.html || fail "no cnp-outside card"
-[ "$(count '<li class="verdict')" -eq 7 ] || fail "$(count '<li class="verdict') verdict cards, 7 expected"
+mobility_off=$(sed -n 's/^ *"splits_mobility_off_plan": \([0-9]*\),$/\1/p' compare.json)
+[ "$mobility_off" -eq 4 ] || fail "compare judges $mobility_off splits' mobility off plan, 4 expected"
+grep -q "data-verdict=\"mobility-off-plan\" data-count=\"$mobility_off\"" dom.html ||
+    fail "the mobility-off-plan card does not say $mobility_off"
+[ "$(count '<li class="verdict')" -eq 8 ] || fail "$(count '<li class="verdict') verdict cards, 8 expected"
+
+# per split: median and spread of mobility (compare's, to 4 digits), n0 and
+# hysteresis in the parameters table, with units; the planned mobility and
+# its judgement; a chart per parameter with its unit, or a note without values
+awk 'BEGIN { RS = "<section id=\"" } /^parameters"/ { print }' dom.html > parameters.html
+rows=$(grep -o '<tr[^>]*data-split="' parameters.html | wc -l | tr -d ' ')
+[ "$rows" -eq "$splits" ] || fail "$rows rows in the parameters table, $splits splits"
+for unit in 'mobility median (cm²/V&nbsp;s)' 'n<sub>0</sub> median (cm<sup>−2</sup>)' \
+    'hysteresis median (V)' 'planned mobility (cm²/V&nbsp;s)'; do
+    grep -qF "$unit" parameters.html || fail "the parameters table has no heading '$unit'"
+done
+grep '^ *{"split": ' compare.json | sed -n '/"mobility_median_cm2_per_Vs"/p' |
+    awk -F'"mobility_median_cm2_per_Vs": ' '{ split($1, a, "\""); split($2, b, ","); 
+        printf "%s %.4g\n", a[4], b[1] }' > medians
+[ "$(wc -l < medians | tr -d ' ')" -eq "$splits" ] || fail "compare gives no mobility medians"
+while read -r split median; do
+    grep -q "<tr[^>]*data-split=\"$split\"[^>]*><td>$split</td><td class=\"num\">$median</td>" \
+        parameters.html || fail "split $split: no mobility median $median in the table"
+done < medians
+[ "$(grep -c '<td>off plan</td>' parameters.html)" -eq "$mobility_off" ] ||
+    fail "the table does not mark $mobility_off splits off plan"
+grep -q 'data-parameter="mobility"' parameters.html || fail "no mobility chart"
+grep -q 'data-parameter="n0"' parameters.html || fail "no n0 chart"
+grep -qF 'mobility (log₁₀ cm²/V s)' parameters.html || fail "the mobility axis has no unit"
+grep -qF 'n₀ (log₁₀ cm⁻²)' parameters.html || fail "the n0 axis has no unit"
+grep -q 'No device of this view has a hysteresis' parameters.html ||
+    fail "results without hysteresis: no note in place of its chart"
 
 # one colour scale: one legend for every wafer map, each map with die coordinates
 [ "$(count '<figure class="wafer-legend"')" -eq 1 ] || fail "not exactly one wafer-map legend"
