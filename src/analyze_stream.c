@@ -38,6 +38,58 @@ typedef struct {
     sl_stats_robust robust;       /* of the residuals: median 0 */
 } dielectric_state;
 
+/* The sweep end each censored device's neutrality point lies beyond, kept
+ * by measurement id so that the passes read its sweep once (on a server, a
+ * round trip a device and pass): open addressing, linear probing, at most
+ * half full; grows with the censored devices only. */
+typedef struct {
+    long id; /* 0: a free slot */
+    int above;
+    double bound_V;
+} censor_entry;
+
+typedef struct {
+    censor_entry *slot;
+    size_t cap, n; /* cap a power of two */
+} censor_memo;
+
+static censor_entry *censor_slot(const censor_memo *m, long id)
+{
+    size_t i = ((unsigned long)id * 0x9E3779B97F4A7C15ull) & (m->cap - 1);
+    while (m->slot[i].id != 0 && m->slot[i].id != id)
+        i = (i + 1) & (m->cap - 1);
+    return &m->slot[i];
+}
+
+/* Keep id's bound; out of memory only costs a later read again. */
+static void censor_memo_put(censor_memo *m, long id, int above, double bound_V)
+{
+    if (2 * (m->n + 1) > m->cap) {
+        censor_memo grown = { calloc(m->cap ? 2 * m->cap : 64, sizeof *grown.slot),
+                              m->cap ? 2 * m->cap : 64, 0 };
+        if (!grown.slot)
+            return;
+        for (size_t i = 0; i < m->cap; i++)
+            if (m->slot[i].id != 0) {
+                *censor_slot(&grown, m->slot[i].id) = m->slot[i];
+                grown.n++;
+            }
+        free(m->slot);
+        *m = grown;
+    }
+    censor_entry *e = censor_slot(m, id);
+    m->n += e->id == 0;
+    *e = (censor_entry){ id, above, bound_V };
+}
+
+static const censor_entry *censor_memo_get(const censor_memo *m, long id)
+{
+    if (m->cap == 0 || id == 0)
+        return NULL;
+    const censor_entry *e = censor_slot(m, id);
+    return e->id == id ? e : NULL;
+}
+
 struct sl_analysis_stream {
     sl_analysis_owner *owner;     /* the summary */
     sl_layout *layout;
@@ -47,6 +99,7 @@ struct sl_analysis_stream {
     sl_stats_median_search **wafer_search;
     dielectric_state *dielectric;
     analyze_param_state *params;  /* per split: mobility, n0, hysteresis */
+    censor_memo censored;         /* the censored devices' bounds, read once */
     int first_pass;               /* of a phase of median searches */
     const sl_store_device_row *row; /* behind device */
     sl_analyze_device device;       /* the one last given */
@@ -685,6 +738,12 @@ static const sl_stats_robust *outlier_scale(sl_analysis_stream *s, long wafer)
 static sl_status censor_bound(sl_analysis_stream *s, const sl_analyze_device *d, int *above,
                               double *bound_V, sl_diag *diag)
 {
+    const censor_entry *kept = censor_memo_get(&s->censored, d->device_id);
+    if (kept) {
+        *above = kept->above;
+        *bound_V = kept->bound_V;
+        return SL_OK;
+    }
     double *vg = NULL, *r = NULL;
     size_t n = 0;
     const sl_analysis *a = &s->owner->pub;
@@ -707,6 +766,8 @@ static sl_status censor_bound(sl_analysis_stream *s, const sl_analyze_device *d,
     }
     free(vg);
     free(r);
+    if (st == SL_OK && d->device_id != 0)
+        censor_memo_put(&s->censored, d->device_id, *above, *bound_V);
     return st;
 }
 
@@ -922,6 +983,7 @@ static void free_state(sl_analysis_stream *s)
     free(s->params);
     free(s->dielectric);
     free(s->wafer);
+    free(s->censored.slot);
 }
 
 sl_analysis_owner *sl__analysis_stream_release(sl_analysis_stream *s)

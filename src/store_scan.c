@@ -34,7 +34,7 @@
 #define SL_SCRATCH_CHUNK_BYTES_PG PACKED_MAX
 #define SL_SCRATCH_VALUES_PG 4 /* values a row holds on PostgreSQL */
 /* Rows one insert writes on PostgreSQL (a round trip each insert). */
-#define SL_SCRATCH_BATCH_PG 32
+#define SL_SCRATCH_BATCH_PG 256
 
 /* A kept device packed: these numbers (NaN for NULL), then its wafer,
  * name, fit class and fit model, not terminated, of the lengths given. */
