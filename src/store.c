@@ -275,7 +275,6 @@ void sl_store_close(sl_store *store)
     if (!store)
         return;
     sl__store_bulk_discard(store);
-    sl__store_sweep_memo(store, 0);
     sl__db_finalize(store->insert_device);
     sl__db_finalize(store->find_device);
     sl__db_finalize(store->insert_measurement);

@@ -23,13 +23,7 @@ struct sl_store {
     long *tx_runs;               /* runs added in the open transaction (an import's) */
     size_t n_tx_runs, cap_tx_runs;
     struct sl__bulk *bulk;       /* PostgreSQL: an import's rows going in by COPY */
-    struct sl__sweep_memo *sweep_memo; /* the last sweep read, while a scratch is open */
 };
-
-/* While an analysis's scratch reads one snapshot (nothing changes under
- * it), keep the last sweep read: an analysis reads a device's sweep twice
- * in a row (store_sweep.c). on 0 forgets it. */
-void sl__store_sweep_memo(sl_store *store, int on);
 
 /* The extraction columns of a measurement, in the order every insert and
  * update of them binds them (store_device.c, store_bulk.c). */

@@ -515,7 +515,6 @@ sl_status sl_store_scratch_open(sl_store_scratch **out, sl_store *store, sl_diag
         sl_store_scratch_close(x);
         return s;
     }
-    sl__store_sweep_memo(store, 1);
     *out = x;
     return SL_OK;
 }
@@ -739,7 +738,6 @@ void sl_store_scratch_close(sl_store_scratch *x)
 {
     if (!x)
         return;
-    sl__store_sweep_memo(x->store, 0);
     sl__db_finalize(x->select_any);
     sl__db_finalize(x->select_one_run);
     sl__db_finalize(x->keep);

@@ -499,79 +499,11 @@ sl_status sl_store_staged_points(sl_store *store, double **vg_V, double **r_ohm,
     return s;
 }
 
-struct sl__sweep_memo {
-    long measurement_id;         /* 0: nothing kept yet */
-    sl_status status;            /* SL_OK or SL_ENOTFOUND */
-    point_arrays points;
-};
-
-void sl__store_sweep_memo(sl_store *store, int on)
-{
-    if (store->sweep_memo) {
-        free(store->sweep_memo->points.vg_V);
-        free(store->sweep_memo->points.r_ohm);
-        free(store->sweep_memo);
-        store->sweep_memo = NULL;
-    }
-    if (on)
-        store->sweep_memo = calloc(1, sizeof *store->sweep_memo); /* none: no memo, no harm */
-}
-
-/* A copy of points (malloc'd arrays); 0 when out of memory. */
-static int copy_points(point_arrays *to, const point_arrays *from)
-{
-    *to = (point_arrays){ 0 };
-    if (!grow_points(to, from->n)) {
-        free(to->vg_V);
-        free(to->r_ohm);
-        *to = (point_arrays){ 0 };
-        return 0;
-    }
-    memcpy(to->vg_V, from->vg_V, from->n * sizeof *to->vg_V);
-    memcpy(to->r_ohm, from->r_ohm, from->n * sizeof *to->r_ohm);
-    to->n = from->n;
-    return 1;
-}
-
-/* The sweep from the memo when it is the one kept: 1, with *s. */
-static int sweep_from_memo(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
-                           long measurement_id, sl_status *s)
-{
-    struct sl__sweep_memo *m = store->sweep_memo;
-    if (!m || measurement_id == 0 || m->measurement_id != measurement_id)
-        return 0;
-    point_arrays a = { 0 };
-    *s = m->status;
-    if (*s == SL_OK && !copy_points(&a, &m->points))
-        *s = SL_ENOMEM;
-    give_points(&a, *s, vg_V, r_ohm, n);
-    return 1;
-}
-
-static void sweep_to_memo(sl_store *store, long measurement_id, sl_status s,
-                          const point_arrays *a)
-{
-    struct sl__sweep_memo *m = store->sweep_memo;
-    if (!m || (s != SL_OK && s != SL_ENOTFOUND))
-        return;
-    free(m->points.vg_V);
-    free(m->points.r_ohm);
-    m->points = (point_arrays){ 0 };
-    m->measurement_id = 0;
-    if (s == SL_OK && !copy_points(&m->points, a))
-        return;
-    m->measurement_id = measurement_id;
-    m->status = s;
-}
-
 sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, size_t *n,
                               long measurement_id, sl_diag *diag)
 {
     *vg_V = *r_ohm = NULL;
     *n = 0;
-    sl_status memo_status;
-    if (sweep_from_memo(store, vg_V, r_ohm, n, measurement_id, &memo_status))
-        return memo_status;
     sl__stmt *st = NULL;
     sl_status s = sl__store_prepare(store, &st,
                                    "SELECT n_points, points FROM sweep WHERE measurement_id = ?1", diag);
@@ -586,7 +518,6 @@ sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, si
     }
     if (rc != SL__DB_ROW) {
         sl__db_finalize(st);
-        sweep_to_memo(store, measurement_id, SL_ENOTFOUND, NULL);
         return SL_ENOTFOUND;
     }
     point_arrays a = { 0 };
@@ -597,7 +528,6 @@ sl_status sl_store_load_sweep(sl_store *store, double **vg_V, double **r_ohm, si
                       measurement_id, damage, sl__db_column_bytes(st, 1),
                       (long long)sl__db_column_int64(st, 0));
     sl__db_finalize(st);
-    sweep_to_memo(store, measurement_id, s, &a);
     give_points(&a, s, vg_V, r_ohm, n);
     return s;
 }
