@@ -58,9 +58,8 @@ void sl_report_options_default(sl_report_options *out)
     out->view.temperature_K = NAN;
 }
 
-static void now_utc(char out[32])
+void sl_report_time_text(char out[32], time_t t)
 {
-    time_t t = time(NULL);
     struct tm tm;
     if (gmtime_r(&t, &tm) == NULL || strftime(out, 32, "%Y-%m-%d %H:%M UTC", &tm) == 0)
         snprintf(out, 32, "unknown");
@@ -258,7 +257,7 @@ static void page_header(report_ctx *c)
 {
     char generated[32];
     if (!c->opts->generated_utc)
-        now_utc(generated);
+        sl_report_time_text(generated, time(NULL));
     sl_chart_buf *b = c->buf;
     sl_chart_buf_append(b, "<header>\n<h1>Lot report ");
     sl_chart_buf_escape(b, c->a->lot.lot);

@@ -8,6 +8,7 @@
 #define SPLITLOT_REPORT_H
 
 #include <stddef.h>
+#include <time.h>
 
 #include "splitlot/analyze.h"
 #include "splitlot/chart.h"
@@ -28,6 +29,10 @@ typedef struct {
                               holds more than one lot with estimates */
     sl_analyze_view view;  /* the measurements shown (sl_report_lot) */
 } sl_report_options;
+
+/* A time as the report's header shows it ("2026-12-01 22:53 UTC"), in a
+ * buffer of 32 bytes; "unknown" when it cannot be written. */
+void sl_report_time_text(char out[32], time_t t);
 
 /* What a render put on the page, for the command's summary and for tests. */
 typedef struct {

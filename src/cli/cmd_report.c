@@ -128,9 +128,8 @@ static int fixed_report_time(char out[32])
     long long seconds = strtoll(text, &end, 10);
     if (errno || *end || seconds < 0)
         return 0;
-    time_t t = (time_t)seconds;
-    struct tm tm;
-    return gmtime_r(&t, &tm) && strftime(out, 32, "%Y-%m-%d %H:%M UTC", &tm) > 0;
+    sl_report_time_text(out, (time_t)seconds);
+    return 1;
 }
 
 int cmd_report(int argc, char **argv)
