@@ -16,6 +16,9 @@
 
 #define READ_CHUNK_BYTES (1024u * 1024u)
 #define DATA_BYTES (SL_CSV_MAX_RECORD_BYTES + READ_CHUNK_BYTES)
+/* One read takes at most this much: what it brought is parsed while still in
+ * the core's cache, and the first rows of a file are handed on sooner. */
+#define READ_STEP_BYTES (128u * 1024u)
 /* Eight-byte words are loaded at any data position up to the NUL kept after
  * the data (the sentinel that ends the fast record scan); the buffer has
  * room for the last one. */
@@ -159,6 +162,8 @@ static sl_status refill(sl_csv *csv, sl_diag *diag)
     csv->pos = 0;
     csv->end = keep;
     size_t want = DATA_BYTES - keep;
+    if (want > READ_STEP_BYTES)
+        want = READ_STEP_BYTES;
     size_t got = fread(csv->buf + keep, 1, want, csv->stream);
     if (csv->tap && got)
         csv->tap(csv->tap_ctx, csv->buf + keep, got);
@@ -629,23 +634,23 @@ sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_di
     return open_stream(out, stream, name, NULL, NULL, diag);
 }
 
-sl_status sl_csv_open(sl_csv **out, const char *path, sl_diag *diag)
+sl_status sl_csv_open_stream_tapped(sl_csv **out, FILE *stream, const char *name, sl_csv_tap tap,
+                                    void *tap_ctx, sl_diag *diag)
 {
-    return sl_csv_open_tapped(out, path, NULL, NULL, diag);
+    return open_stream(out, stream, name, tap, tap_ctx, diag);
 }
 
-sl_status sl_csv_open_tapped(sl_csv **out, const char *path, sl_csv_tap tap, void *tap_ctx,
-                             sl_diag *diag)
+sl_status sl_csv_open(sl_csv **out, const char *path, sl_diag *diag)
 {
     *out = NULL;
     if (strcmp(path, "-") == 0)
-        return open_stream(out, stdin, "<stdin>", tap, tap_ctx, diag);
+        return open_stream(out, stdin, "<stdin>", NULL, NULL, diag);
     FILE *f = fopen(path, "rb");
     if (!f) {
         sl_diag_add(diag, SL_SEV_ERROR, path, 0, 0, "cannot open file for reading");
         return SL_EIO;
     }
-    sl_status st = open_stream(out, f, path, tap, tap_ctx, diag);
+    sl_status st = open_stream(out, f, path, NULL, NULL, diag);
     if (st != SL_OK) {
         fclose(f);
         return st;

@@ -685,13 +685,27 @@ static sl_status start_runs(ingest_ctx *c)
     return st;
 }
 
-static sl_status finish_runs(ingest_ctx *c)
+/* The file's SHA-256, once the hasher has read it all. */
+static sl_status finish_hash(ingest_ctx *c)
 {
-    sl__ingest_hasher_free(c->hasher, c->summary->sha256);
+    sl_hash_result r = sl__ingest_hasher_finish(c->hasher, c->summary->sha256);
     c->hasher = NULL;
     if (c->hash_failed)
         return SL_ENOMEM;
-    sl_status st = SL_OK;
+    if (r == SL_HASH_READ_FAILED)
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, 0, 0, "read failed (for its SHA-256)");
+    if (r == SL_HASH_FILE_CHANGED)
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->file, 0, 0,
+                    "the file changed while it was imported; nothing was stored "
+                    "(import it again once it is complete)");
+    return r == SL_HASH_OK ? SL_OK : SL_EIO;
+}
+
+static sl_status finish_runs(ingest_ctx *c)
+{
+    sl_status st = finish_hash(c);
+    if (st != SL_OK)
+        return st;
     for (size_t t = 0; st == SL_OK && t < c->revision.n_temperatures; t++) {
         long devices = 0;
         st = sl_store_finish_run(c->store, c->run_ids[t], c->run_rows[t], c->summary->sha256,
@@ -777,7 +791,9 @@ static void ctx_free(ingest_ctx *c)
     free(c->reject_buf);
     if (c->rejects)
         fclose(c->rejects);
-    sl__ingest_hasher_free(c->hasher, NULL);
+    sl__ingest_hasher_free(c->hasher); /* before the file it reads is closed */
+    if (c->in && c->in != stdin)
+        fclose(c->in);
     sl__ingest_batch_free(c->batch);
     free(c->wafers);
     if (c->dies)
@@ -799,6 +815,29 @@ static void hash_bytes(void *ctx, const char *bytes, size_t n)
         c->hash_failed = 1;
 }
 
+/* The file opened and its hasher started first thing, so that a regular
+ * file's checksum is read while the lot is loaded and the rows parsed; a
+ * file that cannot be opened is said when the rows are wanted. */
+static void start_hash(ingest_ctx *c)
+{
+    c->in = strcmp(c->opt->path, "-") == 0 ? stdin : fopen(c->opt->path, "rb");
+    if (c->in)
+        c->hasher = sl__ingest_hasher_of_file(fileno(c->in));
+}
+
+static sl_status open_source(ingest_ctx *c)
+{
+    if (!c->in) {
+        sl_diag_add(c->diag, SL_SEV_ERROR, c->opt->path, 0, 0, "cannot open file for reading");
+        return SL_EIO;
+    }
+    if (!c->hasher && !(c->hasher = sl__ingest_hasher_new()))
+        return SL_ENOMEM;
+    bool taps = sl__ingest_hasher_taps(c->hasher);
+    return sl_rowsrc_open_stream_tapped(&c->src, c->in, c->file, c->opt->columns,
+                                        taps ? hash_bytes : NULL, c, c->diag);
+}
+
 sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
                         const sl_ingest_options *options, sl_diag *diag)
 {
@@ -812,14 +851,12 @@ sl_status sl_ingest_run(sl_ingest_summary *out, sl_store *store,
     ingest_ctx c = { .store = store, .diag = scratch, .user_diag = diag, .opt = options,
                      .summary = out, .started_s = sl__ingest_now_s() };
     c.file = strcmp(options->path, "-") == 0 ? "<stdin>" : options->path;
+    start_hash(&c);
     sl_status st = sl_store_begin(store, c.diag);
     if (st == SL_OK)
         st = load_lot(&c);
-    if (st == SL_OK && !(c.hasher = sl__ingest_hasher_new()))
-        st = SL_ENOMEM;
     if (st == SL_OK)
-        st = sl_rowsrc_open_tapped(&c.src, options->path, options->columns, hash_bytes, &c,
-                                   c.diag);
+        st = open_source(&c);
     if (st == SL_OK)
         st = import_body(&c);
     if (st == SL_OK)

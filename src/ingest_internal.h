@@ -48,13 +48,22 @@ typedef struct {
 typedef struct ingest_batch ingest_batch;
 typedef struct ingest_density ingest_density;
 
-/* The SHA-256 of the file as read, on a thread of its own (ingest_hash.c):
- * add every block in order (0, or -1 when out of memory), then free, which
- * waits for the last block and gives the digest in hex (hex may be NULL). */
+/* The SHA-256 of the imported file on a thread of its own (ingest_hash.c).
+ * sl__ingest_hasher_of_file reads a regular file itself through fd (the
+ * import's open file; NULL when fd is not a regular file). Otherwise
+ * sl__ingest_hasher_new hashes what the reader hands it: add every block in
+ * order (0, or -1 when out of memory); sl__ingest_hasher_taps says which.
+ * finish waits for the digest (hex), releases the hasher and says whether a
+ * regular file could be read to its end and is still as it was when the
+ * hasher started; free drops a hasher whose digest is not wanted. */
 typedef struct ingest_hasher ingest_hasher;
+typedef enum { SL_HASH_OK, SL_HASH_READ_FAILED, SL_HASH_FILE_CHANGED } sl_hash_result;
 ingest_hasher *sl__ingest_hasher_new(void);
+ingest_hasher *sl__ingest_hasher_of_file(int fd);
+bool sl__ingest_hasher_taps(const ingest_hasher *h);
 int sl__ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
-void sl__ingest_hasher_free(ingest_hasher *h, char hex[65]);
+sl_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65]);
+void sl__ingest_hasher_free(ingest_hasher *h);
 
 /* The devices met at one die (FNV-1a hashes of their names), to hold a die
  * to the plan's wafer_map.devices_per_die. */
@@ -76,7 +85,9 @@ typedef struct {
     long *run_rows;          /* rows read per plan temperature */
     size_t default_temperature; /* for rows without a temperature */
     long first_run_id;       /* this import's runs have ids from this on */
-    ingest_hasher *hasher;   /* the file's SHA-256 as it is read */
+    FILE *in;                /* the file, opened when the import starts (NULL
+                                when it cannot be: said when it is needed) */
+    ingest_hasher *hasher;   /* the file's SHA-256 */
     int hash_failed;         /* a block could not be handed over */
     sl_rowsrc *src;
     const char *file;        /* name for messages */

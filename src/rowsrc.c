@@ -337,22 +337,20 @@ sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns,
     return st == SL_OK ? open_over(out, csv, columns, diag) : st;
 }
 
-sl_status sl_rowsrc_open_tapped(sl_rowsrc **out, const char *path, const char *columns,
-                                sl_csv_tap tap, void *tap_ctx, sl_diag *diag)
+sl_status sl_rowsrc_open_stream_tapped(sl_rowsrc **out, FILE *stream, const char *name,
+                                       const char *columns, sl_csv_tap tap, void *tap_ctx,
+                                       sl_diag *diag)
 {
     *out = NULL;
     sl_csv *csv = NULL;
-    sl_status st = sl_csv_open_tapped(&csv, path, tap, tap_ctx, diag);
+    sl_status st = sl_csv_open_stream_tapped(&csv, stream, name, tap, tap_ctx, diag);
     return st == SL_OK ? open_over(out, csv, columns, diag) : st;
 }
 
 sl_status sl_rowsrc_open_stream(sl_rowsrc **out, FILE *stream, const char *name,
                                 const char *columns, sl_diag *diag)
 {
-    *out = NULL;
-    sl_csv *csv = NULL;
-    sl_status st = sl_csv_open_stream(&csv, stream, name, diag);
-    return st == SL_OK ? open_over(out, csv, columns, diag) : st;
+    return sl_rowsrc_open_stream_tapped(out, stream, name, columns, NULL, NULL, diag);
 }
 
 void sl_rowsrc_free(sl_rowsrc *src)

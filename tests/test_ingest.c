@@ -9,7 +9,9 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
+#include "ingest_internal.h"
 #include "store_internal.h"
 
 #include "splitlot/ingest.h"
@@ -1934,12 +1936,61 @@ START_TEST(sweep_problems_counted_and_rejected)
 }
 END_TEST
 
+/* The checksum a run keeps: a regular file is read by the hasher on its own,
+ * a pipe through the reader's blocks; both give the digest of FIPS 180-2
+ * appendix B.1 for "abc", and a file that changes before the digest is
+ * taken is told, not hashed half old, half new. */
+START_TEST(file_hash_both_ways_and_a_changed_file)
+{
+    const char *abc_sha256 = "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad";
+    char *dir = sl_test_tmpdir();
+    char *path = sl_test_path(dir, "abc.csv");
+    ck_assert_int_eq(sl_test_write_file(path, "abc"), 0);
+    char hex[65];
+    FILE *f = fopen(path, "rb");
+    ck_assert_ptr_nonnull(f);
+    ingest_hasher *h = sl__ingest_hasher_of_file(fileno(f));
+    ck_assert_ptr_nonnull(h);
+    ck_assert(!sl__ingest_hasher_taps(h));
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_OK);
+    ck_assert_str_eq(hex, abc_sha256);
+    /* grown while being imported (a prober still writing it) */
+    h = sl__ingest_hasher_of_file(fileno(f));
+    FILE *more = fopen(path, "ab");
+    ck_assert_ptr_nonnull(more);
+    fputs("\nd", more);
+    ck_assert_int_eq(fclose(more), 0);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_FILE_CHANGED);
+    fclose(f);
+    /* a pipe is no regular file: its bytes are handed over as read */
+    int fds[2];
+    ck_assert_int_eq(pipe(fds), 0);
+    ck_assert_ptr_null(sl__ingest_hasher_of_file(fds[0]));
+    close(fds[0]);
+    close(fds[1]);
+    h = sl__ingest_hasher_new();
+    ck_assert(sl__ingest_hasher_taps(h));
+    ck_assert_int_eq(sl__ingest_hasher_add(h, "a", 1), 0);
+    ck_assert_int_eq(sl__ingest_hasher_add(h, "bc", 2), 0);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_OK);
+    ck_assert_str_eq(hex, abc_sha256);
+    /* dropped unfinished: nothing leaks, nothing waits forever */
+    f = fopen(path, "rb");
+    sl__ingest_hasher_free(sl__ingest_hasher_of_file(fileno(f)));
+    fclose(f);
+    sl__ingest_hasher_free(sl__ingest_hasher_new());
+    free(path);
+    drop_dir(dir);
+}
+END_TEST
+
 static Suite *ingest_suite(void)
 {
     Suite *s = suite_create("ingest");
     TCase *tc = tcase_create("ingest");
     tcase_set_timeout(tc, 300);
     tcase_add_test(tc, bad_corpus);
+    tcase_add_test(tc, file_hash_both_ways_and_a_changed_file);
     tcase_add_test(tc, impossible_values);
     tcase_add_test(tc, bad_very_long_line);
     tcase_add_test(tc, bad_rows_in_simulated_file);

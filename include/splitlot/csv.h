@@ -34,15 +34,15 @@ typedef struct sl_csv sl_csv;
  * SL_ENOMEM. On failure *out is NULL and diag holds the located reason. */
 sl_status sl_csv_open(sl_csv **out, const char *path, sl_diag *diag);
 
-/* The same, handing every byte read from the file, in file order, to
- * tap(tap_ctx, bytes, n) as it is read (a checksum of the file, say). */
-typedef void (*sl_csv_tap)(void *tap_ctx, const char *bytes, size_t n);
-sl_status sl_csv_open_tapped(sl_csv **out, const char *path, sl_csv_tap tap, void *tap_ctx,
-                             sl_diag *diag);
-
 /* The same on an already open stream, which the reader does not close; name
  * is used in messages (NULL: "<stream>"). */
 sl_status sl_csv_open_stream(sl_csv **out, FILE *stream, const char *name, sl_diag *diag);
+
+/* The same, handing every byte read from the stream, in order, to
+ * tap(tap_ctx, bytes, n) as it is read (a checksum of a pipe, say). */
+typedef void (*sl_csv_tap)(void *tap_ctx, const char *bytes, size_t n);
+sl_status sl_csv_open_stream_tapped(sl_csv **out, FILE *stream, const char *name, sl_csv_tap tap,
+                                    void *tap_ctx, sl_diag *diag);
 
 /* Close (if the reader opened the file) and release everything; NULL is fine. */
 void sl_csv_free(sl_csv *csv);

@@ -65,15 +65,16 @@ typedef struct sl_rowsrc sl_rowsrc;
  * sl_csv_open's statuses. *out is NULL on failure. */
 sl_status sl_rowsrc_open(sl_rowsrc **out, const char *path, const char *columns, sl_diag *diag);
 
-/* The same with every byte of the file shown to tap as it is read (see
- * sl_csv_open_tapped). */
-sl_status sl_rowsrc_open_tapped(sl_rowsrc **out, const char *path, const char *columns,
-                                sl_csv_tap tap, void *tap_ctx, sl_diag *diag);
-
 /* The same on an open stream, which the row source does not close; name is
  * used in messages. */
 sl_status sl_rowsrc_open_stream(sl_rowsrc **out, FILE *stream, const char *name,
                                 const char *columns, sl_diag *diag);
+
+/* The same with every byte of the stream shown to tap as it is read (see
+ * sl_csv_open_stream_tapped; tap may be NULL). */
+sl_status sl_rowsrc_open_stream_tapped(sl_rowsrc **out, FILE *stream, const char *name,
+                                       const char *columns, sl_csv_tap tap, void *tap_ctx,
+                                       sl_diag *diag);
 
 void sl_rowsrc_free(sl_rowsrc *src);
 
