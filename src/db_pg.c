@@ -4,6 +4,7 @@
  * bytea in binary), rows come back as text and are parsed as read. A
  * statement run a second time is prepared on the server; a statement marked
  * SL__DB_STREAM inside a transaction reads through a cursor in chunks.
+ * libpq is loaded when the first server is opened (db_pg_lib.h).
  */
 #include <errno.h>
 #include <stdio.h>
@@ -13,6 +14,7 @@
 #include <libpq-fe.h>
 
 #include "db_driver.h"
+#include "db_pg_lib.h"
 
 #define PG_BYTEA_OID 17
 #define PG_BOOL_OID 16
@@ -220,8 +222,10 @@ void sl__db_pg_set_settle(sl__db *base, int (*hook)(void *ctx), void *ctx)
 
 static void db_close(sl__db *db)
 {
-    copy_end(D(db), "the connection closes");
-    PQfinish(D(db)->conn);
+    if (D(db)->conn) { /* NULL when libpq could not be loaded */
+        copy_end(D(db), "the connection closes");
+        PQfinish(D(db)->conn);
+    }
     free(db);
 }
 
@@ -685,6 +689,8 @@ int sl__db_pg_open(sl__db **out, const char *url)
     db->base.ops = &pg_ops;
     db->base.kind = SL__DB_PG;
     *out = &db->base;
+    if (sl__pq_load(db->message, sizeof db->message) != 0)
+        return SL__DB_FAIL; /* said as it is: no server was tried */
     db->conn = PQconnectdb(url);
     if (!db->conn) {
         snprintf(db->message, sizeof db->message, "out of memory");
