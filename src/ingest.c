@@ -175,7 +175,8 @@ static sl_status load_lot(ingest_ctx *c)
     size_t nt = c->revision.n_temperatures;
     c->run_ids = calloc(nt, sizeof *c->run_ids);
     c->run_rows = calloc(nt, sizeof *c->run_rows);
-    if (!c->run_ids || !c->run_rows)
+    c->run_devices = calloc(nt, sizeof *c->run_devices);
+    if (!c->run_ids || !c->run_rows || !c->run_devices)
         return SL_ENOMEM;
     return load_wafers(c);
 }
@@ -630,6 +631,7 @@ static sl_status results_row(ingest_ctx *c)
                                      &dev, c->diag);
     if (st == SL_OK && ins.outcome != SL_STORE_ADDED)
         st = refused_row(c, &row, &ins);
+    c->run_devices[row.temperature] += st == SL_OK;
     c->summary->unmeasured += st == SL_OK && isnan(dev.cnp_V);
     c->summary->devices += st == SL_OK;
     c->summary->hysteresis_flagged += st == SL_OK &&
@@ -706,10 +708,12 @@ static sl_status finish_runs(ingest_ctx *c)
     sl_status st = finish_hash(c);
     if (st != SL_OK)
         return st;
+    size_t runs_measured = 0;
     for (size_t t = 0; st == SL_OK && t < c->revision.n_temperatures; t++) {
-        long devices = 0;
-        st = sl_store_finish_run(c->store, c->run_ids[t], c->run_rows[t], c->summary->sha256,
-                                 &devices, c->diag);
+        long devices = c->run_devices[t];
+        st = sl_store_finish_run(c->store, c->run_ids[t], c->run_rows[t], devices,
+                                 c->summary->sha256, c->diag);
+        runs_measured += devices > 0;
         if (st != SL_OK || devices == 0 || c->summary->n_runs >= SL_INGEST_MAX_RUNS)
             continue;
         size_t k = c->summary->n_runs++;
@@ -718,9 +722,10 @@ static sl_status finish_runs(ingest_ctx *c)
         c->summary->runs[k].rows = c->run_rows[t];
         c->summary->runs[k].devices = devices;
     }
-    /* a device measured at two temperatures is one device, two measurements */
+    /* a device measured at two temperatures is one device, two measurements:
+     * only then does the store have to tell them apart */
     c->summary->measurements = c->summary->devices;
-    if (st == SL_OK)
+    if (st == SL_OK && runs_measured > 1)
         st = sl_store_count_import_devices(c->store, &c->summary->devices, c->lot.lot_id,
                                            c->first_run_id, c->diag);
     return st;
@@ -803,6 +808,7 @@ static void ctx_free(ingest_ctx *c)
     sl__ingest_density_free(c->densities);
     free(c->run_ids);
     free(c->run_rows);
+    free(c->run_devices);
     sl_store_revision_clear(&c->revision);
     sl_plan_free(c->plan);
     sl_store_lot_clear(&c->lot);

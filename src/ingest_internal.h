@@ -83,6 +83,8 @@ typedef struct {
     ingest_die *dies;        /* per plan wafer, die row and die column */
     long *run_ids;           /* per plan temperature: its run of this import */
     long *run_rows;          /* rows read per plan temperature */
+    long *run_devices;       /* measurements added per plan temperature (the
+                                sweeps' writer thread counts while rows are read) */
     size_t default_temperature; /* for rows without a temperature */
     long first_run_id;       /* this import's runs have ids from this on */
     FILE *in;                /* the file, opened when the import starts (NULL

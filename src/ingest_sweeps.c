@@ -89,6 +89,11 @@ struct ingest_batch {
     dir_log first_dirs;      /* directions of each device's first run (a
                                 direction column only), by measurement id */
     dir_log later_dirs;      /* directions of the later runs, in write order */
+    /* the writer's count of what the import added (with c->run_devices):
+     * measurements in all and per fit class, and whether a device is left
+     * to fit at the end (its fit waits for rows later in the file) */
+    long added, added_class[SL_FIT_CLASS_COUNT];
+    int any_open;
 };
 
 static void write_batch(fit_batch *batch, void *ctx);
@@ -361,6 +366,22 @@ static sl_status note_written(ingest_batch *b, fit_batch *f, const fit_item *it,
     return fail ? SL_ENOMEM : SL_OK;
 }
 
+/* Count what the store added for an item, as the summary gives it. */
+static void count_added(ingest_ctx *c, const fit_item *it, sl_store_outcome outcome)
+{
+    ingest_batch *b = c->batch;
+    b->any_open |= outcome == SL_STORE_IN_RUN; /* staged, fitted again at the end */
+    if (outcome != SL_STORE_ADDED)
+        return;
+    for (size_t t = 0; t < c->revision.n_temperatures; t++)
+        c->run_devices[t] += c->run_ids[t] == it->run_id;
+    b->added++;
+    if (it->status != SL_OK) /* stored "pending", as result_to_device says */
+        b->any_open = 1;
+    else
+        b->added_class[it->result.cls]++;
+}
+
 /* Store one fitted device; runs on the writer thread, so it reads only the
  * item and what does not change during the import. A device the run has
  * already (its rows came back later in the file) gets these rows staged
@@ -390,6 +411,7 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     if (st != SL_OK)
         return st;
     it->measurement_id = ins.measurement_id;
+    count_added(c, it, ins.outcome);
     if ((st = note_written(c->batch, b, it, &ins)) != SL_OK)
         return st;
     if (ins.outcome == SL_STORE_DIE_DIFFERS) {
@@ -962,7 +984,18 @@ static sl_status resolve_pending(ingest_ctx *c)
     return st;
 }
 
-/* The summary's device and class counts, from what the import stored. */
+/* The summary's device and class counts, as the writer counted them: every
+ * device was fitted as it was stored. */
+static void count_written(ingest_ctx *c)
+{
+    const ingest_batch *b = c->batch;
+    for (int k = 0; k < SL_FIT_CLASS_COUNT; k++)
+        c->summary->per_class[k] = b->added_class[k];
+    c->summary->devices = b->added;
+}
+
+/* The summary's device and class counts, from what the import stored, once
+ * devices were fitted again at the end. */
 static sl_status count_stored(ingest_ctx *c)
 {
     const char *names[SL_FIT_CLASS_COUNT];
@@ -1007,9 +1040,12 @@ sl_status sl__ingest_sweeps(ingest_ctx *c)
     sl_status drained = drain_all(c);
     if (st == SL_OK)
         st = drained;
-    if (st == SL_OK)
-        st = resolve_pending(c);
-    if (st == SL_OK)
-        st = count_stored(c);
-    return st;
+    if (st != SL_OK)
+        return st;
+    if (!b->any_open) {
+        count_written(c);
+        return SL_OK;
+    }
+    st = resolve_pending(c);
+    return st == SL_OK ? count_stored(c) : st;
 }

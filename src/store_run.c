@@ -56,27 +56,23 @@ sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revi
     return s;
 }
 
-sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sl__sha256_hex,
-                              long *devices, sl_diag *diag)
+sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, long devices,
+                              const char *sha256_hex, sl_diag *diag)
 {
-    sl_status s = sl__store_count_query(store, devices,
-                                       "SELECT count(*) FROM measurement WHERE run_id = ?1",
-                                       run_id, diag, "count the run's devices");
     sl__stmt *st = NULL;
-    if (s == SL_OK)
-        s = sl__store_prepare(store, &st, *devices
-            ? "UPDATE measurement_run SET rows = ?2, source_sha256 = ?3, devices = ?4 WHERE id = ?1"
-            : "DELETE FROM measurement_run WHERE id = ?1", diag);
+    sl_status s = sl__store_prepare(store, &st, devices
+        ? "UPDATE measurement_run SET rows = ?2, source_sha256 = ?3, devices = ?4 WHERE id = ?1"
+        : "DELETE FROM measurement_run WHERE id = ?1", diag);
     if (s != SL_OK)
         return s;
     sl__db_bind_int64(st, 1, run_id);
-    if (*devices) {
+    if (devices) {
         sl__db_bind_int64(st, 2, rows);
-        if (sl__sha256_hex && *sl__sha256_hex)
-            sl__db_bind_text(st, 3, sl__sha256_hex, -1);
+        if (sha256_hex && *sha256_hex)
+            sl__db_bind_text(st, 3, sha256_hex, -1);
         else
             sl__db_bind_null(st, 3);
-        sl__db_bind_int64(st, 4, *devices);
+        sl__db_bind_int64(st, 4, devices);
     }
     return sl__store_step_once(store, st, diag, "record the measurement run");
 }

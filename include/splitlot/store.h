@@ -170,10 +170,11 @@ sl_status sl_store_add_run(sl_store *store, long *run_id, long lot_id, long revi
                            const char *step, double temperature_K, const char *kind,
                            const char *source_name, sl_diag *diag);
 
-/* Record a run's row count and source checksum, and count its devices
- * into *devices; a run without measurements is removed. */
-sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, const char *sha256_hex,
-                              long *devices, sl_diag *diag);
+/* Record a run's row count, its devices (the measurements the import added
+ * to it) and source checksum (NULL: unknown); a run without measurements
+ * (devices 0) is removed. */
+sl_status sl_store_finish_run(sl_store *store, long run_id, long rows, long devices,
+                              const char *sha256_hex, sl_diag *diag);
 
 /* The distinct devices measured by a lot's runs with ids >= first_run_id
  * (an import's runs: a device at two temperatures counts once). */
