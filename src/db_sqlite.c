@@ -2,8 +2,15 @@
  * The SQLite driver of the store's database layer (see db_driver.h): a file
  * opened read-write (created when missing) with extended result codes, and
  * statements passed straight to SQLite, but for one shape: see
- * rowid_returning.
+ * rowid_returning. Also hints for the disk: a long transaction's WAL written
+ * out as it grows (sl__db_sqlite_start_writeback).
  */
+#if defined(__linux__)
+#define _GNU_SOURCE 1 /* sync_file_range */
+#endif
+#include <fcntl.h>
+#include <sys/stat.h>
+#include <unistd.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -15,6 +22,7 @@
 typedef struct {
     sl__db base;
     sqlite3 *handle;
+    int wal_fd;                  /* the WAL opened for writeback hints, -1 */
 } sqlite_db;
 
 /* Where a statement that gives back the new row's rowid stands. */
@@ -35,6 +43,8 @@ static sqlite3_stmt *S(sl__stmt *st) { return ((sqlite_stmt *)st)->handle; }
 static void db_close(sl__db *db)
 {
     sqlite3_close(H(db));
+    if (((sqlite_db *)db)->wal_fd >= 0)
+        close(((sqlite_db *)db)->wal_fd);
     free(db);
 }
 
@@ -230,12 +240,51 @@ int sl__db_sqlite_open(sl__db **out, const char *path)
         return SL__DB_FAIL;
     db->base.ops = &sqlite_ops;
     db->base.kind = SL__DB_SQLITE;
+    db->wal_fd = -1;
     *out = &db->base;
     int rc = sqlite3_open_v2(path, &db->handle, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE, NULL);
     if (rc != SQLITE_OK)
         return SL__DB_FAIL;
     sqlite3_extended_result_codes(db->handle, 1);
     return SL__DB_OK;
+}
+
+/* The WAL file beside the database, opened read-only; -1 when there is
+ * none (not yet written, or a database without a file). */
+static int open_wal(sqlite_db *db)
+{
+    const char *main_path = sqlite3_db_filename(db->handle, "main");
+    if (!main_path || !*main_path)
+        return -1;
+    size_t len = strlen(main_path);
+    char *path = malloc(len + sizeof "-wal");
+    if (!path)
+        return -1;
+    memcpy(path, main_path, len);
+    memcpy(path + len, "-wal", sizeof "-wal");
+    int fd = open(path, O_RDONLY | O_CLOEXEC);
+    free(path);
+    return fd;
+}
+
+void sl__db_sqlite_start_writeback(sl__db *db)
+{
+#if defined(__linux__)
+    if (db->kind != SL__DB_SQLITE)
+        return;
+    sqlite_db *s = (sqlite_db *)db;
+    struct stat st;
+    if (s->wal_fd >= 0 && fstat(s->wal_fd, &st) == 0 && st.st_nlink == 0) {
+        close(s->wal_fd); /* the last connection's close removed it */
+        s->wal_fd = -1;
+    }
+    if (s->wal_fd < 0)
+        s->wal_fd = open_wal(s);
+    if (s->wal_fd >= 0)
+        (void)sync_file_range(s->wal_fd, 0, 0, SYNC_FILE_RANGE_WRITE); /* a hint only */
+#else
+    (void)db;
+#endif
 }
 
 /* The busy timeout is SQLite's alone: the store sets it through this. */

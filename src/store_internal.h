@@ -18,6 +18,7 @@ struct sl_store {
     sl__stmt *insert_measurement;
     long new_lot_id;             /* a lot with no devices before this import, or 0 */
     sl__stmt *insert_sweep;
+    unsigned sweeps_unflushed;   /* sweeps stored since the last writeback hint */
     sl__stmt *stage_point;
     int has_stage;               /* the stage table created on this connection */
     long *tx_runs;               /* runs added in the open transaction (an import's) */
@@ -70,6 +71,12 @@ sl_status sl__store_refuse_newer(sl_store *store, int version, sl_diag *diag);
 /* Location of a database for messages: a URL's password left out (malloc'd). */
 char *sl__db_display_name(const char *location);
 void sl__db_sqlite_busy_timeout(sl__db *db, int ms);
+/* Start the disk writes of what the open transaction has put in the WAL so
+ * far, without waiting for them (Linux; nothing elsewhere, or on a server):
+ * an import's commit then syncs little more than its last pages, instead of
+ * sending every megabyte of the import to the disk after the last row. A
+ * hint only: the commit still syncs. */
+void sl__db_sqlite_start_writeback(sl__db *db);
 sl_status sl__store_step_done(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);
 /* The same for a statement used once: stepped, then finalized. */
 sl_status sl__store_step_once(sl_store *store, sl__stmt *st, sl_diag *diag, const char *what);

@@ -52,6 +52,9 @@ enum { MAX_SCALE = 22 };                  /* 10^22 is the largest exact power of
 /* Residuals of |m| < 2^53 are below 2^55 in size, 2^56 zigzagged: at most
  * eight varint bytes of 7 bits. */
 enum { MAX_VARINT_BYTES = 8 };
+/* Sweeps stored between two hints to start writing the WAL to the disk
+ * (sl__db_sqlite_start_writeback): a few hundred kilobytes. */
+enum { SWEEPS_PER_WRITEBACK = 256 };
 
 /* The exact division needs doubles evaluated as doubles (no x87 excess
  * precision, which would round twice) and the default rounding to nearest,
@@ -377,6 +380,10 @@ sl_status sl__store_insert_sweep(sl_store *store, long measurement_id, const sl_
     sl__db_bind_int64(st, 2, (long long)dev->n_points);
     sl__db_bind_blob(st, 3, blob, bytes);
     free(blob);
+    if (++store->sweeps_unflushed == SWEEPS_PER_WRITEBACK) {
+        store->sweeps_unflushed = 0;
+        sl__db_sqlite_start_writeback(store->db);
+    }
     return sl__store_step_done(store, st, diag, "store a sweep");
 }
 
