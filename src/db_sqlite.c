@@ -2,14 +2,19 @@
  * The SQLite driver of the store's database layer (see db_driver.h): a file
  * opened read-write (created when missing) with extended result codes, and
  * statements passed straight to SQLite, but for one shape: see
- * rowid_returning. Also hints for the disk: a long transaction's WAL written
- * out as it grows (sl__db_sqlite_start_writeback).
+ * rowid_returning. Also hints for the disk (Linux): a long transaction's WAL
+ * written out as it grows (sl__db_sqlite_start_writeback), and while a large
+ * commit or the closing checkpoint copies pages, a helper thread has them
+ * written out as they come (writeback_helper), so the fsync SQLite ends with
+ * waits for little.
  */
 #if defined(__linux__)
 #define _GNU_SOURCE 1 /* sync_file_range */
 #endif
 #include <fcntl.h>
+#include <pthread.h>
 #include <sys/stat.h>
+#include <time.h>
 #include <unistd.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -40,9 +45,114 @@ typedef struct {
 static sqlite3 *H(sl__db *db) { return ((sqlite_db *)db)->handle; }
 static sqlite3_stmt *S(sl__stmt *st) { return ((sqlite_stmt *)st)->handle; }
 
+/* ---- disk writes ahead of the syncs ---- */
+
+#if defined(__linux__)
+static int open_wal(sqlite_db *db);
+#endif
+
+/* A WAL at least this large makes a commit or a checkpoint worth a helper. */
+#define WRITEBACK_HELPER_WAL_BYTES ((off_t)4 << 20)
+#define WRITEBACK_HELPER_PERIOD_NS 1000000L
+
+typedef struct {
+    pthread_t thread;
+    pthread_mutex_t lock;
+    pthread_cond_t wake;
+    int stop;                    /* guarded by lock */
+    int fd[2];                   /* the database file and its WAL */
+} writeback_helper;
+
+#if defined(__linux__)
+static void *writeback_helper_main(void *arg)
+{
+    writeback_helper *h = arg;
+    pthread_mutex_lock(&h->lock);
+    while (!h->stop) {
+        pthread_mutex_unlock(&h->lock);
+        for (int i = 0; i < 2; i++)
+            (void)sync_file_range(h->fd[i], 0, 0, SYNC_FILE_RANGE_WRITE); /* hints only */
+        struct timespec until;
+        clock_gettime(CLOCK_REALTIME, &until);
+        until.tv_nsec += WRITEBACK_HELPER_PERIOD_NS;
+        if (until.tv_nsec >= 1000000000L) {
+            until.tv_sec++;
+            until.tv_nsec -= 1000000000L;
+        }
+        pthread_mutex_lock(&h->lock);
+        if (!h->stop)
+            pthread_cond_timedwait(&h->wake, &h->lock, &until);
+    }
+    pthread_mutex_unlock(&h->lock);
+    return NULL;
+}
+
+static void writeback_helper_release(writeback_helper *h)
+{
+    for (int i = 0; i < 2; i++)
+        if (h->fd[i] >= 0)
+            close(h->fd[i]);
+    pthread_cond_destroy(&h->wake);
+    pthread_mutex_destroy(&h->lock);
+    free(h);
+}
+#endif
+
+/* A helper for what is about to copy the WAL's pages (a commit, whose
+ * automatic checkpoint may follow, or the last connection's close); NULL
+ * when the WAL is small or the platform has no such hint. */
+static writeback_helper *writeback_helper_start(sqlite_db *db)
+{
+#if defined(__linux__)
+    const char *main_path = sqlite3_db_filename(db->handle, "main");
+    struct stat st;
+    int wal = main_path && *main_path ? open_wal(db) : -1;
+    if (wal < 0 || fstat(wal, &st) != 0 || st.st_size < WRITEBACK_HELPER_WAL_BYTES) {
+        if (wal >= 0)
+            close(wal);
+        return NULL;
+    }
+    writeback_helper *h = calloc(1, sizeof *h);
+    if (!h) {
+        close(wal);
+        return NULL;
+    }
+    h->fd[0] = open(main_path, O_RDONLY | O_CLOEXEC);
+    h->fd[1] = wal;
+    pthread_mutex_init(&h->lock, NULL);
+    pthread_cond_init(&h->wake, NULL);
+    if (h->fd[0] < 0 || pthread_create(&h->thread, NULL, writeback_helper_main, h) != 0) {
+        writeback_helper_release(h);
+        return NULL;
+    }
+    return h;
+#else
+    (void)db;
+    return NULL;
+#endif
+}
+
+static void writeback_helper_stop(writeback_helper *h)
+{
+#if defined(__linux__)
+    if (!h)
+        return;
+    pthread_mutex_lock(&h->lock);
+    h->stop = 1;
+    pthread_cond_signal(&h->wake);
+    pthread_mutex_unlock(&h->lock);
+    pthread_join(h->thread, NULL);
+    writeback_helper_release(h);
+#else
+    (void)h;
+#endif
+}
+
 static void db_close(sl__db *db)
 {
+    writeback_helper *helper = writeback_helper_start((sqlite_db *)db);
     sqlite3_close(H(db));
+    writeback_helper_stop(helper);
     if (((sqlite_db *)db)->wal_fd >= 0)
         close(((sqlite_db *)db)->wal_fd);
     free(db);
@@ -84,7 +194,11 @@ static long db_changes(sl__db *db) { return (long)sqlite3_changes(H(db)); }
 
 static int db_exec(sl__db *db, const char *sql)
 {
-    return sqlite3_exec(H(db), sql, NULL, NULL, NULL) == SQLITE_OK ? SL__DB_OK : SL__DB_FAIL;
+    writeback_helper *helper =
+        strcmp(sql, "COMMIT") == 0 ? writeback_helper_start((sqlite_db *)db) : NULL;
+    int rc = sqlite3_exec(H(db), sql, NULL, NULL, NULL);
+    writeback_helper_stop(helper);
+    return rc == SQLITE_OK ? SL__DB_OK : SL__DB_FAIL;
 }
 
 static const sl__db_ops sqlite_ops;
@@ -249,6 +363,7 @@ int sl__db_sqlite_open(sl__db **out, const char *path)
     return SL__DB_OK;
 }
 
+#if defined(__linux__)
 /* The WAL file beside the database, opened read-only; -1 when there is
  * none (not yet written, or a database without a file). */
 static int open_wal(sqlite_db *db)
@@ -266,6 +381,7 @@ static int open_wal(sqlite_db *db)
     free(path);
     return fd;
 }
+#endif
 
 void sl__db_sqlite_start_writeback(sl__db *db)
 {
