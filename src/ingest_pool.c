@@ -1,7 +1,9 @@
 /* SPDX-License-Identifier: MIT
  * Batches of sweeps and the pool of fitting threads (see ingest_pool.h):
- * persistent POSIX threads, one fit workspace each, items handed out through
- * an atomic counter so uneven fits balance themselves.
+ * persistent POSIX threads, one fit workspace each (grown by its own thread
+ * for a longer sweep), items handed out through an atomic counter so uneven
+ * fits balance themselves, and submitted batches queued in order so the
+ * reading thread never waits for the fitting.
  */
 #include "ingest_pool.h"
 
@@ -91,22 +93,26 @@ typedef struct {
     int index;
 } worker_arg;
 
+/* Batches submitted and not yet started, at most the import's ring. */
+#define SL_POOL_MAX_QUEUE 8
+
 struct fit_pool {
     pthread_mutex_t mu;
     pthread_cond_t work, done;
     pthread_t tids[SL_POOL_MAX_THREADS];
-    sl_fit_workspace *ws[SL_POOL_MAX_THREADS];
+    sl_fit_workspace *ws[SL_POOL_MAX_THREADS]; /* each thread's own */
+    size_t ws_points[SL_POOL_MAX_THREADS];
     worker_arg args[SL_POOL_MAX_THREADS];
-    size_t ws_points;
     int threads, started;
-    fit_batch *job;
-    atomic_size_t next;
-    int generation, finished, completed, quit;
+    /* guarded by mu */
+    fit_batch *job;              /* being fitted, NULL when idle */
+    fit_batch *queue[SL_POOL_MAX_QUEUE];
+    size_t queue_head, queue_len;
+    int generation, finished, quit;
+    atomic_size_t next;          /* the job's next item to fit */
     fit_batch_done done_fn;
     void *done_ctx;
 };
-
-static void fit_pool_wait(fit_pool *p);
 
 /* A device whose readings were mostly the meter's overflow code: open. */
 static void open_result(sl_fit_result *r, size_t n_points)
@@ -121,7 +127,21 @@ static void open_result(sl_fit_result *r, size_t n_points)
                           .r_squared = nan, .n_points = n_points };
 }
 
-static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
+/* The thread's workspace, grown to n points when needed; NULL when out of
+ * memory. Only its own thread touches it. */
+static sl_fit_workspace *workspace_for(fit_pool *p, int t, size_t n)
+{
+    if (n < SL_FIT_MIN_POINTS)
+        n = SL_FIT_MIN_POINTS;
+    if (p->ws[t] && n <= p->ws_points[t])
+        return p->ws[t];
+    sl_fit_workspace_free(p->ws[t]);
+    p->ws[t] = sl_fit_workspace_new(n);
+    p->ws_points[t] = p->ws[t] ? n : 0;
+    return p->ws[t];
+}
+
+static void fit_one(fit_pool *p, int t, fit_batch *b, fit_item *it)
 {
     it->hysteresis_V = NAN;
     it->is_double = 0;
@@ -134,6 +154,11 @@ static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
         it->status = SL_EINPUT; /* rows may still come further down the file */
         return;
     }
+    sl_fit_workspace *ws = workspace_for(p, t, it->n);
+    if (!ws) {
+        it->status = SL_ENOMEM; /* the writer fails the import on it */
+        return;
+    }
     sl_fit_double_result d;
     it->status = sl_fit_double_sweep(&d, ws, &it->cfg, b->vg + it->offset, b->r + it->offset,
                                      it->has_direction ? b->dir + it->offset : NULL, it->n);
@@ -142,14 +167,30 @@ static void fit_one(fit_batch *b, fit_item *it, sl_fit_workspace *ws)
     it->hysteresis_V = d.hysteresis_V;
 }
 
-static void work_on(fit_pool *p, fit_batch *b, sl_fit_workspace *ws)
+static void work_on(fit_pool *p, int t, fit_batch *b)
 {
     for (;;) {
         size_t i = atomic_fetch_add(&p->next, 1);
         if (i >= b->n_items)
             return;
-        fit_one(b, &b->items[i], ws);
+        fit_one(p, t, b, &b->items[i]);
     }
+}
+
+/* The next queued batch becomes the job (mu held), or the pool goes idle. */
+static void start_next_locked(fit_pool *p)
+{
+    p->job = NULL;
+    if (p->queue_len > 0) {
+        p->job = p->queue[p->queue_head];
+        p->queue_head = (p->queue_head + 1) % SL_POOL_MAX_QUEUE;
+        p->queue_len--;
+        atomic_store(&p->next, 0);
+        p->finished = 0;
+        p->generation++;
+        pthread_cond_broadcast(&p->work);
+    }
+    pthread_cond_broadcast(&p->done); /* the queue has room, or the pool is idle */
 }
 
 static void *worker_main(void *arg)
@@ -166,16 +207,16 @@ static void *worker_main(void *arg)
         seen = p->generation;
         fit_batch *b = p->job;
         pthread_mutex_unlock(&p->mu);
-        work_on(p, b, p->ws[w->index]);
+        work_on(p, w->index, b);
         pthread_mutex_lock(&p->mu);
         if (++p->finished == p->started) {
-            /* the last thread out hands the batch on, outside the lock */
+            /* the last thread out hands the batch on, outside the lock;
+             * batches submitted meanwhile wait in the queue, in order */
             pthread_mutex_unlock(&p->mu);
             if (p->done_fn)
                 p->done_fn(b, p->done_ctx);
             pthread_mutex_lock(&p->mu);
-            p->completed = 1;
-            pthread_cond_signal(&p->done);
+            start_next_locked(p);
         }
     }
     pthread_mutex_unlock(&p->mu);
@@ -211,8 +252,9 @@ void sl__fit_pool_free(fit_pool *p)
 {
     if (!p)
         return;
-    fit_pool_wait(p);
     pthread_mutex_lock(&p->mu);
+    while (p->job || p->queue_len > 0) /* every submitted batch fitted and handed over */
+        pthread_cond_wait(&p->done, &p->mu);
     p->quit = 1;
     pthread_cond_broadcast(&p->work);
     pthread_mutex_unlock(&p->mu);
@@ -226,50 +268,15 @@ void sl__fit_pool_free(fit_pool *p)
     free(p);
 }
 
-/* Workspaces big enough for the batch's longest sweep; workers are idle. */
-static sl_status size_workspaces(fit_pool *p, const fit_batch *b)
-{
-    size_t need = SL_FIT_MIN_POINTS;
-    for (size_t i = 0; i < b->n_items; i++)
-        if (b->items[i].n > need)
-            need = b->items[i].n;
-    if (need <= p->ws_points)
-        return SL_OK;
-    for (int t = 0; t < p->started; t++) {
-        sl_fit_workspace_free(p->ws[t]);
-        p->ws[t] = sl_fit_workspace_new(need);
-        if (!p->ws[t]) {
-            p->ws_points = 0;
-            return SL_ENOMEM;
-        }
-    }
-    p->ws_points = need;
-    return SL_OK;
-}
-
 sl_status sl__fit_pool_submit(fit_pool *p, fit_batch *b)
 {
-    fit_pool_wait(p);
-    sl_status st = size_workspaces(p, b);
-    if (st != SL_OK)
-        return st;
     pthread_mutex_lock(&p->mu);
-    p->job = b;
-    atomic_store(&p->next, 0);
-    p->finished = 0;
-    p->completed = 0;
-    p->generation++;
-    pthread_cond_broadcast(&p->work);
+    while (p->queue_len == SL_POOL_MAX_QUEUE)
+        pthread_cond_wait(&p->done, &p->mu);
+    p->queue[(p->queue_head + p->queue_len) % SL_POOL_MAX_QUEUE] = b;
+    p->queue_len++;
+    if (!p->job)
+        start_next_locked(p);
     pthread_mutex_unlock(&p->mu);
     return SL_OK;
-}
-
-/* Wait until the submitted batch is fitted and handed over (no-op when none is). */
-static void fit_pool_wait(fit_pool *p)
-{
-    pthread_mutex_lock(&p->mu);
-    while (p->job && !p->completed)
-        pthread_cond_wait(&p->done, &p->mu);
-    p->job = NULL;
-    pthread_mutex_unlock(&p->mu);
 }

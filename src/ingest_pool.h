@@ -26,7 +26,8 @@ typedef struct {
     sl_fit_result result;
     int is_double;           /* fitted as a double sweep, branch by branch */
     double hysteresis_V;     /* V_cnp(reverse) - V_cnp(forward), NaN if none */
-    sl_status status;        /* SL_EINPUT: too few points so far, fitted later */
+    sl_status status;        /* SL_EINPUT: too few points so far, fitted later;
+                                SL_ENOMEM: no memory to fit it */
     long measurement_id;     /* set by the writer (that of the first rows when
                                 the device's rows come back later) */
     int rejected;            /* --keep-going: the writer left it out */
@@ -63,9 +64,12 @@ typedef void (*fit_batch_done)(fit_batch *batch, void *ctx);
 /* A pool of threads (>= 1) waiting for batches; NULL when out of resources. */
 fit_pool *sl__fit_pool_new(int threads, fit_batch_done done, void *done_ctx);
 void sl__fit_pool_free(fit_pool *pool);
-/* Start fitting every item of the batch on the pool's threads, once the
- * previous batch is fitted and handed over; the batch must stay untouched
- * until the hand-over callback has run for it. One batch at a time. */
+/* Queue the batch: its items are fitted on the pool's threads once the
+ * batches submitted before it are fitted and handed over, in the order they
+ * came; it returns at once (unless eight batches wait already). The batch
+ * must stay untouched until the hand-over callback has run for it. An item
+ * whose fit could not get memory has status SL_ENOMEM. Free waits for every
+ * submitted batch. */
 sl_status sl__fit_pool_submit(fit_pool *pool, fit_batch *batch);
 
 #endif

@@ -388,6 +388,10 @@ static void count_added(ingest_ctx *c, const fit_item *it, sl_store_outcome outc
  * under its measurement and is fitted again at the end. */
 static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
 {
+    if (it->status == SL_ENOMEM) {
+        sl_diag_error(b->diag, "out of memory fitting device '%s' (%zu points)", it->name, it->n);
+        return SL_ENOMEM;
+    }
     sl_store_device dev;
     sl_store_device_init(&dev);
     dev.wafer = it->wafer;

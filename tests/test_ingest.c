@@ -12,6 +12,7 @@
 #include <unistd.h>
 
 #include "ingest_internal.h"
+#include "ingest_pool.h"
 #include "store_internal.h"
 
 #include "splitlot/ingest.h"
@@ -1936,6 +1937,72 @@ START_TEST(sweep_problems_counted_and_rejected)
 }
 END_TEST
 
+/* The pool's hand-over order, as its callback sees it (one batch at a time). */
+typedef struct {
+    fit_batch *order[8];
+    size_t n;
+} handed_over;
+
+static void note_handed_over(fit_batch *batch, void *ctx)
+{
+    handed_over *h = ctx;
+    if (h->n < 8)
+        h->order[h->n++] = batch;
+}
+
+/* Noiseless model sweeps of a known device, n points each from -40 to 40 V. */
+static void pool_batch(fit_batch *b, size_t devices, size_t n, const sl_fit_config *cfg,
+                       const sl_fit_params *truth)
+{
+    memset(b, 0, sizeof *b);
+    ck_assert_int_eq(sl__fit_batch_reserve_points(b, devices * n), 0);
+    for (size_t d = 0; d < devices; d++) {
+        fit_item it = { .offset = d * n, .n = n, .cfg = *cfg, .channel_length_um = NAN,
+                        .channel_width_um = NAN };
+        for (size_t i = 0; i < n; i++) {
+            double vg = -40.0 + 80.0 * (double)i / (double)(n - 1);
+            b->vg[d * n + i] = vg;
+            b->r[d * n + i] = sl_fit_model_ohm(truth, cfg, vg);
+            b->dir[d * n + i] = 0;
+        }
+        b->n_points += n;
+        ck_assert_int_eq(sl__fit_batch_push(b, &it), 0);
+    }
+}
+
+/* Batches submitted back to back are queued, not waited for: each is fitted
+ * and handed over once, in the order submitted, the last one with sweeps
+ * ten times longer than the rest (the threads' workspaces grow for it). */
+START_TEST(fit_pool_queues_batches_in_order)
+{
+    sl_fit_config cfg;
+    /* 90 nm SiO2 (relative permittivity 3.9, a handbook value), 20 x 10 um */
+    sl_fit_config_default(&cfg, 3.9 * SL_SI_EPS0 / 90e-9, 20.0, 10.0);
+    const sl_fit_params truth = { 4.0, 2500.0, 2e11, 400.0 };
+    fit_batch batches[4];
+    for (size_t k = 0; k < 4; k++)
+        pool_batch(&batches[k], 6 + k, k == 3 ? 2001 : 201, &cfg, &truth);
+    handed_over h = { .n = 0 };
+    fit_pool *pool = sl__fit_pool_new(2, note_handed_over, &h);
+    ck_assert_ptr_nonnull(pool);
+    for (size_t k = 0; k < 4; k++)
+        ck_assert_int_eq(sl__fit_pool_submit(pool, &batches[k]), SL_OK);
+    sl__fit_pool_free(pool); /* waits for every batch */
+    ck_assert_uint_eq(h.n, 4);
+    for (size_t k = 0; k < 4; k++) {
+        ck_assert_ptr_eq(h.order[k], &batches[k]);
+        for (size_t d = 0; d < batches[k].n_items; d++) {
+            const fit_item *it = &batches[k].items[d];
+            ck_assert_int_eq(it->status, SL_OK);
+            ck_assert_int_eq(it->result.cls, SL_FIT_OK);
+            ck_assert_msg(fabs(it->result.p.cnp_V - truth.cnp_V) < 1e-3, "batch %zu: %g V", k,
+                          it->result.p.cnp_V);
+        }
+        sl__fit_batch_free(&batches[k]);
+    }
+}
+END_TEST
+
 /* The checksum a run keeps: a regular file is read by the hasher on its own,
  * a pipe through the reader's blocks; both give the digest of FIPS 180-2
  * appendix B.1 for "abc", and a file that changes before the digest is
@@ -1991,6 +2058,7 @@ static Suite *ingest_suite(void)
     tcase_set_timeout(tc, 300);
     tcase_add_test(tc, bad_corpus);
     tcase_add_test(tc, file_hash_both_ways_and_a_changed_file);
+    tcase_add_test(tc, fit_pool_queues_batches_in_order);
     tcase_add_test(tc, impossible_values);
     tcase_add_test(tc, bad_very_long_line);
     tcase_add_test(tc, bad_rows_in_simulated_file);
