@@ -6,9 +6,10 @@
 #   plain      wafer,device,die_x,die_y,vg_V,r_ohm (the reference reads this)
 #   units      semicolon separator, "Vg [V]", "Id [A]", "Vd [V]" (R = V_d / I_d)
 #   double     each sweep forward and back (twice the points, two fits a device)
-# Prints the median wall seconds of RUNS runs of each, and the ratios; with
-# /usr/bin/time also the median CPU seconds (user + system), steadier than
-# the wall clock on a shared machine.
+# Prints the median wall seconds of RUNS rounds (each round runs the four
+# imports once, in turn, starting one further on each round), and the ratios; with /usr/bin/time also the median
+# CPU seconds (user + system), steadier than the wall clock on a shared
+# machine.
 # Usage: tests/bench/bench_ingest_formats.sh BUILD_DIR REFERENCE_BUILD_DIR [RUNS]
 set -eu
 bin=$(cd "$1" && pwd)/splitlot
@@ -42,36 +43,53 @@ fi
 
 median() { sort -n "$1" | awk '{ t[NR] = $1 } END { print t[int((NR + 1) / 2)] }'; }
 
-# "wall cpu": medians of $runs imports of file $2 by binary $1 into a copy of db $3
-median_s() {
-    i=0
-    : > wall.txt
-    : > cpu.txt
-    while [ "$i" -lt "$runs" ]; do
-        i=$((i + 1))
-        cp "$3" t.db
-        rm -f t.db-wal t.db-shm
-        start=$(date +%s.%N)
-        if [ -n "$timer" ]; then
-            $timer -f "%U %S" -o cpu1.txt "$1" ingest --lot BENCH-12500 --sweeps "$2" --db t.db \
-                --format csv > out.txt 2> err.txt || { cat err.txt >&2; exit 1; }
-            awk '{ printf "%.3f\n", $1 + $2 }' cpu1.txt >> cpu.txt
-        else
-            "$1" ingest --lot BENCH-12500 --sweeps "$2" --db t.db --format csv > out.txt \
-                2> err.txt || { cat err.txt >&2; exit 1; }
-            echo 0 >> cpu.txt
-        fi
-        end=$(date +%s.%N)
-        echo "$start $end" | awk '{ printf "%.3f\n", $2 - $1 }' >> wall.txt
-    done
-    echo "$(median wall.txt) $(median cpu.txt)"
+# one import of file $2 by binary $1 into a copy of db $3; its wall and CPU
+# seconds appended to $4.wall and $4.cpu
+time_one() {
+    cp "$3" t.db
+    rm -f t.db-wal t.db-shm
+    start=$(date +%s.%N)
+    if [ -n "$timer" ]; then
+        $timer -f "%U %S" -o cpu1.txt "$1" ingest --lot BENCH-12500 --sweeps "$2" --db t.db \
+            --format csv > out.txt 2> err.txt || { cat err.txt >&2; exit 1; }
+        awk '{ printf "%.3f\n", $1 + $2 }' cpu1.txt >> "$4.cpu"
+    else
+        "$1" ingest --lot BENCH-12500 --sweeps "$2" --db t.db --format csv > out.txt \
+            2> err.txt || { cat err.txt >&2; exit 1; }
+        echo 0 >> "$4.cpu"
+    fi
+    end=$(date +%s.%N)
+    echo "$start $end" | awk '{ printf "%.4f\n", $2 - $1 }' >> "$4.wall"
 }
 
-# interleaved, so a change of load on the machine hits every shape alike
-ref_plain=$(median_s "$ref" sim/sweeps.csv ref.db)
-mine_plain=$(median_s "$bin" sim/sweeps.csv mine.db)
-mine_units=$(median_s "$bin" units.csv mine.db)
-mine_double=$(median_s "$bin" double.csv mine.db)
+time_shape() {
+    case $1 in
+    0) time_one "$ref" sim/sweeps.csv ref.db ref_plain ;;
+    1) time_one "$bin" sim/sweeps.csv mine.db mine_plain ;;
+    2) time_one "$bin" units.csv mine.db mine_units ;;
+    3) time_one "$bin" double.csv mine.db mine_double ;;
+    esac
+}
+
+# interleaved, round by round, so a change of load on the machine hits every
+# shape alike; each round starts one shape further on, so every shape follows
+# every other equally often (an import leaves the disk and caches busy for
+# the next one)
+for shape in ref_plain mine_plain mine_units mine_double; do
+    : > $shape.wall
+    : > $shape.cpu
+done
+i=0
+while [ "$i" -lt "$runs" ]; do
+    for k in 0 1 2 3; do
+        time_shape $(((i + k) % 4))
+    done
+    i=$((i + 1))
+done
+ref_plain="$(median ref_plain.wall) $(median ref_plain.cpu)"
+mine_plain="$(median mine_plain.wall) $(median mine_plain.cpu)"
+mine_units="$(median mine_units.wall) $(median mine_units.cpu)"
+mine_double="$(median mine_double.wall) $(median mine_double.cpu)"
 grep -q '^# double_sweeps: 12500' out.txt || echo "warning: not every device was fitted as a double sweep"
 echo "median of $runs runs, wall and CPU seconds: reference plain $ref_plain, plain $mine_plain," \
      "units+semicolon $mine_units, double $mine_double"
