@@ -48,6 +48,7 @@ median() { sort -n "$1" | awk '{ t[NR] = $1 } END { print t[int((NR + 1) / 2)] }
 time_one() {
     cp "$3" t.db
     rm -f t.db-wal t.db-shm
+    sync # the disk idle at the start: the writes of the run before are not this one's
     start=$(date +%s.%N)
     if [ -n "$timer" ]; then
         $timer -f "%U %S" -o cpu1.txt "$1" ingest --lot BENCH-12500 --sweeps "$2" --db t.db \
