@@ -834,6 +834,57 @@ START_TEST(numbers_from_file_round_like_strtod)
 }
 END_TEST
 
+/* Tokens of 9 to 18 bytes (7 to 16 digits, a sign now and then, a point
+ * anywhere or nowhere: "0.0001044817", the way meters write currents in
+ * fixed notation) read from a file with sl_csv_number, and with
+ * sl_csv_number_e in milli- and kilo-units, bit for bit as strtod reads the
+ * token (with "e-3" or "e3" appended for the units); strtod is the
+ * reference, as above. Tokens of 16 digits reach past 2^53 and take the
+ * general path; the rest the exact path of at most 15 significant digits. */
+START_TEST(medium_numbers_from_file_round_like_strtod)
+{
+    enum { N_VALUES = 60000, TOKEN_MAX = 24 };
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 1044817);
+    char (*tokens)[TOKEN_MAX] = malloc(N_VALUES * sizeof *tokens);
+    ck_assert_ptr_nonnull(tokens);
+    char *path = sl_test_path(scratch, "medium.csv");
+    FILE *f = fopen(path, "wb");
+    ck_assert_ptr_nonnull(f);
+    fputs("n,v\n", f);
+    for (int i = 0; i < N_VALUES; i++) {
+        while (random_decimal(tokens[i], 16, rng) < 9)
+            ;
+        fprintf(f, "%d,%s\n", i, tokens[i]);
+    }
+    ck_assert_int_eq(fclose(f), 0);
+    sl_diag *diag = sl_diag_new();
+    sl_csv *csv;
+    ck_assert_int_eq(sl_csv_open(&csv, path, diag), SL_OK);
+    bool has;
+    int i = 0;
+    while (sl_csv_next(&has, csv, diag) == SL_OK && has) {
+        char scaled[TOKEN_MAX + 4];
+        double got, want = strtod(tokens[i], NULL);
+        ck_assert_int_eq(sl_csv_number(&got, csv, 1, diag), SL_OK);
+        ck_assert_msg(memcmp(&got, &want, sizeof got) == 0, "%s: %a vs %a", tokens[i], got, want);
+        int exp10 = i % 2 ? -3 : 3;
+        snprintf(scaled, sizeof scaled, "%se%d", tokens[i], exp10);
+        want = strtod(scaled, NULL);
+        ck_assert_int_eq(sl_csv_number_e(&got, csv, 1, exp10, diag), SL_OK);
+        ck_assert_msg(memcmp(&got, &want, sizeof got) == 0, "%s: %a vs %a", scaled, got, want);
+        i++;
+    }
+    ck_assert_int_eq(i, N_VALUES);
+    ck_assert_uint_eq(sl_diag_size(diag), 0);
+    sl_csv_free(csv);
+    sl_diag_free(diag);
+    free(path);
+    free(tokens);
+    gsl_rng_free(rng);
+}
+END_TEST
+
 static Suite *csv_suite(void)
 {
     Suite *s = suite_create("csv");
@@ -848,6 +899,7 @@ static Suite *csv_suite(void)
     tcase_add_test(tc, numbers_accepted);
     tcase_add_test(tc, numbers_rejected);
     tcase_add_test(tc, numbers_round_trip_like_strtod);
+    tcase_add_test(tc, medium_numbers_from_file_round_like_strtod);
     tcase_add_test(tc, number_errors_located);
     tcase_add_test(tc, structural_errors);
     tcase_add_test(tc, header_errors);
