@@ -823,11 +823,14 @@ static void hash_bytes(void *ctx, const char *bytes, size_t n)
 
 /* The file opened and its hasher started first thing, so that a regular
  * file's checksum is read while the lot is loaded and the rows parsed; a
- * file that cannot be opened is said when the rows are wanted. */
+ * file that cannot be opened is said when the rows are wanted. Standard
+ * input is hashed as it is read, whatever it is: it may not start at the
+ * beginning of a file. */
 static void start_hash(ingest_ctx *c)
 {
-    c->in = strcmp(c->opt->path, "-") == 0 ? stdin : fopen(c->opt->path, "rb");
-    if (c->in)
+    bool is_stdin = strcmp(c->opt->path, "-") == 0;
+    c->in = is_stdin ? stdin : fopen(c->opt->path, "rb");
+    if (c->in && !is_stdin)
         c->hasher = sl__ingest_hasher_of_file(fileno(c->in));
 }
 
