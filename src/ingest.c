@@ -796,6 +796,8 @@ static void ctx_free(ingest_ctx *c)
     free(c->reject_buf);
     if (c->rejects)
         fclose(c->rejects);
+    if (c->feed)
+        fclose(c->feed); /* no call on its hasher, finished or not */
     sl__ingest_hasher_free(c->hasher); /* before the file it reads is closed */
     if (c->in && c->in != stdin)
         fclose(c->in);
@@ -843,6 +845,8 @@ static sl_status open_source(ingest_ctx *c)
     if (!c->hasher && !(c->hasher = sl__ingest_hasher_new()))
         return SL_ENOMEM;
     bool taps = sl__ingest_hasher_taps(c->hasher);
+    if (!taps && (c->feed = sl__ingest_hasher_stream(c->hasher)))
+        return sl_rowsrc_open_stream(&c->src, c->feed, c->file, c->opt->columns, c->diag);
     return sl_rowsrc_open_stream_tapped(&c->src, c->in, c->file, c->opt->columns,
                                         taps ? hash_bytes : NULL, c, c->diag);
 }

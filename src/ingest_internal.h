@@ -61,6 +61,12 @@ typedef enum { SL_HASH_OK, SL_HASH_READ_FAILED, SL_HASH_FILE_CHANGED } sl_hash_r
 ingest_hasher *sl__ingest_hasher_new(void);
 ingest_hasher *sl__ingest_hasher_of_file(int fd);
 bool sl__ingest_hasher_taps(const ingest_hasher *h);
+/* A regular file's bytes as the file hasher reads them, for the parser, so
+ * the file is read from the kernel once; NULL where the C library cannot
+ * make such a stream (the parser then reads the file itself). The stream
+ * makes no call on the hasher once it has given its end of file, nor when
+ * closed; close it before freeing the hasher, or after finishing it. */
+FILE *sl__ingest_hasher_stream(ingest_hasher *h);
 int sl__ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
 sl_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65]);
 void sl__ingest_hasher_free(ingest_hasher *h);
@@ -89,6 +95,7 @@ typedef struct {
     long first_run_id;       /* this import's runs have ids from this on */
     FILE *in;                /* the file, opened when the import starts (NULL
                                 when it cannot be: said when it is needed) */
+    FILE *feed;              /* the file through its hasher, or NULL */
     ingest_hasher *hasher;   /* the file's SHA-256 */
     int hash_failed;         /* a block could not be handed over */
     sl_rowsrc *src;
