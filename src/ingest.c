@@ -690,17 +690,17 @@ static sl_status start_runs(ingest_ctx *c)
 /* The file's SHA-256, once the hasher has read it all. */
 static sl_status finish_hash(ingest_ctx *c)
 {
-    sl_hash_result r = sl__ingest_hasher_finish(c->hasher, c->summary->sha256);
+    ingest_hash_result r = sl__ingest_hasher_finish(c->hasher, c->summary->sha256);
     c->hasher = NULL;
     if (c->hash_failed)
         return SL_ENOMEM;
-    if (r == SL_HASH_READ_FAILED)
+    if (r == INGEST_HASH_READ_FAILED)
         sl_diag_add(c->diag, SL_SEV_ERROR, c->file, 0, 0, "read failed (for its SHA-256)");
-    if (r == SL_HASH_FILE_CHANGED)
+    if (r == INGEST_HASH_FILE_CHANGED)
         sl_diag_add(c->diag, SL_SEV_ERROR, c->file, 0, 0,
                     "the file changed while it was imported; nothing was stored "
                     "(import it again once it is complete)");
-    return r == SL_HASH_OK ? SL_OK : SL_EIO;
+    return r == INGEST_HASH_OK ? SL_OK : SL_EIO;
 }
 
 static sl_status finish_runs(ingest_ctx *c)

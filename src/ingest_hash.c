@@ -281,7 +281,7 @@ static void stop(ingest_hasher *h)
     pthread_join(h->thread, NULL);
 }
 
-sl_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65])
+ingest_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65])
 {
     /* a file hasher reads to the end unless told to quit; what no stream
      * took is hashed all the same */
@@ -291,11 +291,11 @@ sl_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65])
     }
     else
         stop(h);
-    sl_hash_result r = SL_HASH_OK;
+    ingest_hash_result r = INGEST_HASH_OK;
     if (h->fd >= 0 && h->read_errno)
-        r = SL_HASH_READ_FAILED;
+        r = INGEST_HASH_READ_FAILED;
     else if (h->fd >= 0 && !file_unchanged(h))
-        r = SL_HASH_FILE_CHANGED;
+        r = INGEST_HASH_FILE_CHANGED;
     unsigned char digest[32];
     sl__sha256_final(&h->sha, digest);
     sl__sha256_hex(digest, hex);

@@ -57,7 +57,7 @@ typedef struct ingest_density ingest_density;
  * regular file could be read to its end and is still as it was when the
  * hasher started; free drops a hasher whose digest is not wanted. */
 typedef struct ingest_hasher ingest_hasher;
-typedef enum { SL_HASH_OK, SL_HASH_READ_FAILED, SL_HASH_FILE_CHANGED } sl_hash_result;
+typedef enum { INGEST_HASH_OK, INGEST_HASH_READ_FAILED, INGEST_HASH_FILE_CHANGED } ingest_hash_result;
 ingest_hasher *sl__ingest_hasher_new(void);
 ingest_hasher *sl__ingest_hasher_of_file(int fd);
 bool sl__ingest_hasher_taps(const ingest_hasher *h);
@@ -68,7 +68,7 @@ bool sl__ingest_hasher_taps(const ingest_hasher *h);
  * closed; close it before freeing the hasher, or after finishing it. */
 FILE *sl__ingest_hasher_stream(ingest_hasher *h);
 int sl__ingest_hasher_add(ingest_hasher *h, const char *bytes, size_t n);
-sl_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65]);
+ingest_hash_result sl__ingest_hasher_finish(ingest_hasher *h, char hex[65]);
 void sl__ingest_hasher_free(ingest_hasher *h);
 
 /* The devices met at one die (FNV-1a hashes of their names), to hold a die

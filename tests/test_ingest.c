@@ -2019,7 +2019,7 @@ START_TEST(file_hash_both_ways_and_a_changed_file)
     ingest_hasher *h = sl__ingest_hasher_of_file(fileno(f));
     ck_assert_ptr_nonnull(h);
     ck_assert(!sl__ingest_hasher_taps(h));
-    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_OK);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), INGEST_HASH_OK);
     ck_assert_str_eq(hex, abc_sha256);
     /* grown while being imported (a prober still writing it) */
     h = sl__ingest_hasher_of_file(fileno(f));
@@ -2027,7 +2027,7 @@ START_TEST(file_hash_both_ways_and_a_changed_file)
     ck_assert_ptr_nonnull(more);
     fputs("\nd", more);
     ck_assert_int_eq(fclose(more), 0);
-    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_FILE_CHANGED);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), INGEST_HASH_FILE_CHANGED);
     fclose(f);
     /* a pipe is no regular file: its bytes are handed over as read */
     int fds[2];
@@ -2039,7 +2039,7 @@ START_TEST(file_hash_both_ways_and_a_changed_file)
     ck_assert(sl__ingest_hasher_taps(h));
     ck_assert_int_eq(sl__ingest_hasher_add(h, "a", 1), 0);
     ck_assert_int_eq(sl__ingest_hasher_add(h, "bc", 2), 0);
-    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_OK);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), INGEST_HASH_OK);
     ck_assert_str_eq(hex, abc_sha256);
     /* a file of many blocks read through its hasher: the same bytes, and
      * their digest */
@@ -2064,7 +2064,7 @@ START_TEST(file_hash_both_ways_and_a_changed_file)
         ck_assert(memcmp(back, bytes, BIG) == 0);
         fclose(through);
     }
-    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_OK);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), INGEST_HASH_OK);
     sha256_ctx sha;
     unsigned char digest[32];
     char want[65];
@@ -2079,7 +2079,7 @@ START_TEST(file_hash_both_ways_and_a_changed_file)
     through = sl__ingest_hasher_stream(h);
     if (through)
         ck_assert_uint_eq(fread(back, 1, BIG / 2, through), BIG / 2);
-    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), SL_HASH_OK);
+    ck_assert_int_eq(sl__ingest_hasher_finish(h, hex), INGEST_HASH_OK);
     ck_assert_str_eq(hex, want);
     if (through)
         fclose(through);
