@@ -57,7 +57,11 @@ typedef struct ingest_density ingest_density;
  * regular file could be read to its end and is still as it was when the
  * hasher started; free drops a hasher whose digest is not wanted. */
 typedef struct ingest_hasher ingest_hasher;
-typedef enum { INGEST_HASH_OK, INGEST_HASH_READ_FAILED, INGEST_HASH_FILE_CHANGED } ingest_hash_result;
+typedef enum {
+    INGEST_HASH_OK,
+    INGEST_HASH_READ_FAILED,
+    INGEST_HASH_FILE_CHANGED
+} ingest_hash_result;
 ingest_hasher *sl__ingest_hasher_new(void);
 ingest_hasher *sl__ingest_hasher_of_file(int fd);
 bool sl__ingest_hasher_taps(const ingest_hasher *h);
