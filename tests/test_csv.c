@@ -787,21 +787,37 @@ START_TEST(short_numbers_round_like_strtod)
 }
 END_TEST
 
+enum { VALUE_TOKEN_MAX = 24 };
+
+/* A file "n,v" of the tokens, one a row, the last without a line end (its
+ * word reaches past the data), opened; the caller frees it. */
+static sl_csv *open_values(const char *name, char (*tokens)[VALUE_TOKEN_MAX], int n,
+                           sl_diag *diag)
+{
+    char *path = sl_test_path(scratch, name);
+    FILE *f = fopen(path, "wb");
+    ck_assert_ptr_nonnull(f);
+    fputs("n,v\n", f);
+    for (int i = 0; i < n; i++)
+        fprintf(f, "%d,%s%s", i, tokens[i], i + 1 < n ? "\n" : "");
+    ck_assert_int_eq(fclose(f), 0);
+    sl_csv *csv;
+    ck_assert_int_eq(sl_csv_open(&csv, path, diag), SL_OK);
+    free(path);
+    return csv;
+}
+
 /* Numbers read from a file with sl_csv_number: short tokens (the fast path
  * reads a word from the reader's buffer), longer ones and exponents, the
  * last without a line end, so its word reaches past the data. strtod is
  * the reference, as above. */
 START_TEST(numbers_from_file_round_like_strtod)
 {
-    enum { N_VALUES = 50000, TOKEN_MAX = 24 };
+    enum { N_VALUES = 50000, TOKEN_MAX = VALUE_TOKEN_MAX };
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
     gsl_rng_set(rng, 7);
     char (*tokens)[TOKEN_MAX] = malloc(N_VALUES * sizeof *tokens);
     ck_assert_ptr_nonnull(tokens);
-    char *path = sl_test_path(scratch, "values.csv");
-    FILE *f = fopen(path, "wb");
-    ck_assert_ptr_nonnull(f);
-    fputs("n,v\n", f);
     for (int i = 0; i < N_VALUES; i++) {
         unsigned long pick = gsl_rng_uniform_int(rng, 4);
         double scale = pow(10.0, (double)gsl_rng_uniform_int(rng, 12) - 4.0);
@@ -810,12 +826,9 @@ START_TEST(numbers_from_file_round_like_strtod)
             random_decimal(tokens[i], pick ? 8 : 12, rng);
         else
             snprintf(tokens[i], TOKEN_MAX, pick == 2 ? "%.6g" : "%.3e", x);
-        fprintf(f, "%d,%s%s", i, tokens[i], i + 1 < N_VALUES ? "\n" : "");
     }
-    ck_assert_int_eq(fclose(f), 0);
     sl_diag *diag = sl_diag_new();
-    sl_csv *csv;
-    ck_assert_int_eq(sl_csv_open(&csv, path, diag), SL_OK);
+    sl_csv *csv = open_values("values.csv", tokens, N_VALUES, diag);
     bool has;
     int i = 0;
     while (sl_csv_next(&has, csv, diag) == SL_OK && has) {
@@ -828,7 +841,6 @@ START_TEST(numbers_from_file_round_like_strtod)
     ck_assert_uint_eq(sl_diag_size(diag), 0);
     sl_csv_free(csv);
     sl_diag_free(diag);
-    free(path);
     free(tokens);
     gsl_rng_free(rng);
 }
@@ -843,24 +855,16 @@ END_TEST
  * general path; the rest the exact path of at most 15 significant digits. */
 START_TEST(medium_numbers_from_file_round_like_strtod)
 {
-    enum { N_VALUES = 60000, TOKEN_MAX = 24 };
+    enum { N_VALUES = 60000, TOKEN_MAX = VALUE_TOKEN_MAX };
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
     gsl_rng_set(rng, 1044817);
     char (*tokens)[TOKEN_MAX] = malloc(N_VALUES * sizeof *tokens);
     ck_assert_ptr_nonnull(tokens);
-    char *path = sl_test_path(scratch, "medium.csv");
-    FILE *f = fopen(path, "wb");
-    ck_assert_ptr_nonnull(f);
-    fputs("n,v\n", f);
-    for (int i = 0; i < N_VALUES; i++) {
+    for (int i = 0; i < N_VALUES; i++)
         while (random_decimal(tokens[i], 16, rng) < 9)
             ;
-        fprintf(f, "%d,%s\n", i, tokens[i]);
-    }
-    ck_assert_int_eq(fclose(f), 0);
     sl_diag *diag = sl_diag_new();
-    sl_csv *csv;
-    ck_assert_int_eq(sl_csv_open(&csv, path, diag), SL_OK);
+    sl_csv *csv = open_values("medium.csv", tokens, N_VALUES, diag);
     bool has;
     int i = 0;
     while (sl_csv_next(&has, csv, diag) == SL_OK && has) {
@@ -879,7 +883,6 @@ START_TEST(medium_numbers_from_file_round_like_strtod)
     ck_assert_uint_eq(sl_diag_size(diag), 0);
     sl_csv_free(csv);
     sl_diag_free(diag);
-    free(path);
     free(tokens);
     gsl_rng_free(rng);
 }
