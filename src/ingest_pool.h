@@ -17,6 +17,7 @@ typedef struct {
     sl_fit_config cfg;       /* the wafer's gate, the device's own channel */
     int has_direction;       /* dir[] of the points says forward or reverse */
     int open_by_overflow;    /* too few readings left after overflows: open */
+    double drain_bias_V;     /* the one |V_d| of its points (sl_store_device) */
     long overflow, compliance; /* points dropped */
     const char *device_type; /* plan device type, or NULL */
     double channel_length_um, channel_width_um; /* NaN: the plan's device */

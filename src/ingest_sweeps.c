@@ -70,6 +70,8 @@ struct ingest_batch {
     int run_identity_bad;    /* the problem is its identity: rows not read */
     char run_reason[512];
     long run_overflow, run_compliance;
+    double run_drain_V;      /* |V_d| of every point so far: -1 before the
+                                first, NaN once two differ or for R files */
     sl_fit_config run_cfg;
     const char *run_type;    /* the store's device type and channel (NULL, NaN:
                                 the plan's device) */
@@ -402,6 +404,7 @@ static sl_status write_item(ingest_ctx *c, fit_batch *b, fit_item *it)
     dev.vg_V = b->vg + it->offset;
     dev.r_ohm = b->r + it->offset;
     dev.n_points = it->n;
+    dev.drain_bias_V = it->drain_bias_V;
     dev.source_line = it->first_line;
     dev.device_type = it->device_type;
     dev.channel_length_um = it->channel_length_um;
@@ -593,7 +596,8 @@ static sl_status end_run(ingest_ctx *c)
                       .device_type = b->run_type, .channel_length_um = b->run_length_um,
                       .channel_width_um = b->run_width_um,
                       .run_id = c->run_ids[b->run_temperature], .die_x = b->run_x,
-                      .die_y = b->run_y, .first_line = b->run_first_line };
+                      .die_y = b->run_y, .first_line = b->run_first_line,
+                      .drain_bias_V = b->run_drain_V };
     /* the gate and temperature's, with the device's own channel */
     item.cfg.length_over_width = b->run_cfg.length_over_width;
     /* an open device reads the overflow code most of the time: it is open,
@@ -639,6 +643,7 @@ static void remember_identity(ingest_ctx *c)
     b->run_first_line = sl_rowsrc_line(c->src);
     b->run_offset = b->buf[b->filling].n_points;
     b->run_overflow = b->run_compliance = 0;
+    b->run_drain_V = b->by_current ? -1.0 : NAN;
     b->run_wafer_len = remember(b->run_wafer, sizeof b->run_wafer,
                                 sl_rowsrc_field(c->src, SL_ROW_WAFER, NULL));
     b->run_name_len = remember(b->run_name, sizeof b->run_name,
@@ -734,6 +739,8 @@ static sl_status read_point(ingest_ctx *c, fit_batch *f)
         /* R = V_d / I_d; the sign of a current depends on the meter's
          * convention, the channel's resistance does not (common practice) */
         r = fabs(vd / id);
+        if (fabs(vd) != b->run_drain_V && !overflow)
+            b->run_drain_V = b->run_drain_V < 0.0 ? fabs(vd) : NAN;
     } else {
         st = sl_rowsrc_number(&r, c->src, SL_ROW_R, c->diag);
         if (st != SL_OK)

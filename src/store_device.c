@@ -19,7 +19,7 @@ void sl_store_device_init(sl_store_device *d)
     d->n0_per_cm2 = d->n0_sigma_per_cm2 = d->r_contact_ohm = d->r_contact_sigma_ohm = NAN;
     d->rel_rms = d->r_squared = NAN;
     d->electron_mobility_cm2_per_Vs = d->hole_mobility_cm2_per_Vs = NAN;
-    d->hysteresis_V = NAN;
+    d->hysteresis_V = d->drain_bias_V = NAN;
     d->n_spikes = d->points_dropped = -1;
 }
 

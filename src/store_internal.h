@@ -90,9 +90,11 @@ sl_status sl__store_count_query(sl_store *store, long *count, const char *sql, l
 /* A text column as a malloc'd string ("" for NULL); NULL when out of memory. */
 char *sl__store_column_strdup(sl__stmt *st, int col);
 /* Pack a sweep into the compact blob described in store_sweep.c: malloc'd,
- * its length in *bytes; NULL when out of memory. */
+ * its length in *bytes; NULL when out of memory. drain_bias_V > 0 says
+ * every r_ohm is drain_bias_V / |I_d| (NaN when not): the resistances may
+ * then be stored as the currents. */
 unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
-                                   size_t *bytes);
+                                   double drain_bias_V, size_t *bytes);
 /* Unpack a blob of n points, compact or raw (exactly 16 * n bytes), into
  * vg_V and r_ohm (n each). A damaged blob gives SL_EDB and *damage says
  * what is wrong (a static string), else *damage is NULL. */

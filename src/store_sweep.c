@@ -13,9 +13,13 @@
  *   byte 0      format, 1
  *   the vg_V column, then the r_ohm column, each:
  *     byte      mode: 0 raw, 1 decimal by first differences,
- *                     2 decimal by second differences
+ *                     2 decimal by second differences,
+ *                     3 quotient by first differences,
+ *                     4 quotient by second differences (schema version 5 on)
  *     raw:      n_points little-endian doubles
  *     decimal:  a byte k (0..22), then n_points varints
+ *     quotient: a little-endian double q, then a decimal column d_i as
+ *               above (its byte k and varints); the values are q / d_i
  *   byte 0      padding, present exactly when the bytes before it are a
  *               multiple of 16 long
  *
@@ -34,11 +38,20 @@
  * 3) and written 7 bits a byte, low bits first, the high bit set on every
  * byte but the last. The prediction p_i is m_(i-1) in mode 1 and
  * 2 m_(i-1) - m_(i-2) in mode 2 (evenly stepped gate voltages leave zeros),
- * with m_(-1) = m_(-2) = 0.
+ * with m_(-1) = m_(-2) = 0 (modes 3 and 4 the same).
+ *
+ * A quotient column is the resistance of a file that gives drain current
+ * and drain bias: R = |V_d| / |I_d| has no short decimal form, but a
+ * meter's current has ("9.551234e-05"). The caller passes the one drain
+ * bias of the sweep as q; the encoder finds the decimal d_i nearest q / R_i
+ * at the smallest scale where q / d_i (two IEEE divisions, as the decoder
+ * does them) gives every R_i back bit for bit, else the column stays raw.
+ * Such a sweep takes about a third of its raw bytes.
  */
 #include <assert.h>
 #include <float.h>
 #include <math.h>
+#include <stdbool.h>
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
@@ -46,9 +59,18 @@
 #include "store_internal.h"
 
 enum { FORMAT_COMPACT = 1 };
-enum { MODE_RAW = 0, MODE_FIRST_DIFFERENCES = 1, MODE_SECOND_DIFFERENCES = 2 };
+enum {
+    MODE_RAW = 0,
+    MODE_FIRST_DIFFERENCES = 1,
+    MODE_SECOND_DIFFERENCES = 2,
+    MODE_QUOTIENT_FIRST = 3,  /* the decimal modes + 2: quotient columns */
+    MODE_QUOTIENT_SECOND = 4,
+};
+enum { QUOTIENT_MODES = MODE_QUOTIENT_FIRST - MODE_FIRST_DIFFERENCES };
 enum { MAX_SCALE = 22 };                  /* 10^22 is the largest exact power of ten */
 #define MANTISSA_LIMIT ((int64_t)1 << 53) /* |m| below it is an exact double */
+/* A quotient column's mantissas stay below 2^51 (quotient_candidates). */
+#define QUOTIENT_MANTISSA_LIMIT 0x1p51
 /* Residuals of |m| < 2^53 are below 2^55 in size, 2^56 zigzagged: at most
  * eight varint bytes of 7 bits. */
 enum { MAX_VARINT_BYTES = 8 };
@@ -200,6 +222,17 @@ static column_plan plan_column(const double *v, size_t n)
     return best.bytes < raw.bytes ? best : raw;
 }
 
+/* The residual of mantissa m after *m1 and *m2 (the two before it), which
+ * move on by one. */
+static unsigned char *put_residual(unsigned char *p, int mode, int64_t m, int64_t *m1,
+                                   int64_t *m2)
+{
+    int64_t predicted = mode == MODE_FIRST_DIFFERENCES ? *m1 : 2 * *m1 - *m2;
+    *m2 = *m1;
+    *m1 = m;
+    return put_varint(p, zigzag(m - predicted));
+}
+
 static unsigned char *put_column(unsigned char *p, const double *v, size_t n, column_plan plan)
 {
     *p++ = (unsigned char)plan.mode;
@@ -210,31 +243,146 @@ static unsigned char *put_column(unsigned char *p, const double *v, size_t n, co
     }
     *p++ = (unsigned char)plan.scale;
     int64_t m1 = 0, m2 = 0;
-    for (size_t i = 0; i < n; i++) {
-        int64_t m = candidate_mantissa(v[i], plan.scale); /* checked by tally_decimal */
-        int64_t predicted = plan.mode == MODE_FIRST_DIFFERENCES ? m1 : 2 * m1 - m2;
-        p = put_varint(p, zigzag(m - predicted));
-        m2 = m1;
-        m1 = m;
-    }
+    for (size_t i = 0; i < n; i++) /* every mantissa checked by tally_decimal */
+        p = put_residual(p, plan.mode, candidate_mantissa(v[i], plan.scale), &m1, &m2);
     return p;
 }
 
-unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
-                                   size_t *bytes)
+/* ---- the encoder's quotient columns ---- */
+
+/* Whether r is, bit for bit, q / (m / 10^scale) for the integer m nearest
+ * q / r * 10^scale, |m| < 2^51 (quotient_candidates's limit). */
+static int quotient_fits(double q, double r, int scale, int64_t *m)
 {
-    column_plan vg = plan_column(vg_V, n), r = plan_column(r_ohm, n);
+    double scaled = q * POWER_OF_TEN[scale] / r;
+    if (!(fabs(scaled) < QUOTIENT_MANTISSA_LIMIT)) /* also NaN and infinities */
+        return 0;
+    *m = (int64_t)rint(scaled);
+    double back = q / ((double)*m / POWER_OF_TEN[scale]);
+    return memcmp(&back, &r, sizeof r) == 0;
+}
+
+/* Every value's candidate mantissa at scale, as a double, and the value it
+ * gives back. Nothing carried from one value to the next and no branch:
+ * the compiler may do two values an instruction, and the divisions of many
+ * are under way at once. Rounding to an integer by adding and taking away
+ * 1.5 * 2^52 is exact for |x| < 2^51 under round to nearest (which
+ * DECIMAL_IS_EXACT assumes already); a candidate beyond is refused by the
+ * caller. */
+static void quotient_candidates(double q, const double *restrict v, size_t n, int scale,
+                                double *restrict m, double *restrict back)
+{
+    const double p = POWER_OF_TEN[scale], qp = q * p, round_off = 0x1.8p52;
+    for (size_t i = 0; i < n; i++) {
+        m[i] = (qp / v[i] + round_off) - round_off;
+        back[i] = q / (m[i] / p);
+    }
+}
+
+/* The quotient coding of v over q: the smallest scale at which every value
+ * comes back, the mantissas in m (n); false when there is none. back is
+ * scratch (2 n). */
+static bool plan_quotient(double q, const double *v, size_t n, int64_t *m, double *back,
+                          column_plan *plan)
+{
+    /* start where the first value and the smallest quotient (the largest
+     * value: the smallest current, with the most digits after the point)
+     * fit, which is where every value usually does */
+    size_t largest = 0;
+    for (size_t i = 1; i < n; i++)
+        largest = fabs(v[i]) > fabs(v[largest]) ? i : largest;
+    int scale = 0;
+    for (size_t k = 0; k < 2; k++)
+        while (!quotient_fits(q, v[k ? largest : 0], scale, &m[0]))
+            if (++scale > MAX_SCALE)
+                return false;
+    size_t bytes[2] = { 0, 0 };
+    for (size_t misfit = 0; misfit < n;) {
+        quotient_candidates(q, v, n, scale, back + n, back);
+        int64_t m1 = 0, m2 = 0, unused;
+        bytes[0] = bytes[1] = 0;
+        for (misfit = 0; misfit < n && fabs(back[n + misfit]) < QUOTIENT_MANTISSA_LIMIT &&
+                         memcmp(&back[misfit], &v[misfit], sizeof *v) == 0;
+             misfit++) {
+            m[misfit] = (int64_t)back[n + misfit];
+            bytes[0] += varint_bytes(zigzag(m[misfit] - m1));
+            bytes[1] += varint_bytes(zigzag(m[misfit] - (2 * m1 - m2)));
+            m2 = m1;
+            m1 = m[misfit];
+        }
+        if (misfit < n) /* a finer scale for that value, then every value again */
+            do
+                if (++scale > MAX_SCALE)
+                    return false;
+            while (!quotient_fits(q, v[misfit], scale, &unused));
+    }
+    int second = bytes[1] < bytes[0];
+    plan->mode = second ? MODE_QUOTIENT_SECOND : MODE_QUOTIENT_FIRST;
+    plan->scale = scale;
+    plan->bytes = 2 + 8 + bytes[second];
+    return true;
+}
+
+static unsigned char *put_quotient(unsigned char *p, double q, const int64_t *m, size_t n,
+                                   column_plan plan)
+{
+    *p++ = (unsigned char)plan.mode;
+    put_le_double(p, q);
+    p += 8;
+    *p++ = (unsigned char)plan.scale;
+    int64_t m1 = 0, m2 = 0;
+    for (size_t i = 0; i < n; i++)
+        p = put_residual(p, plan.mode - QUOTIENT_MODES, m[i], &m1, &m2);
+    return p;
+}
+
+/* The r_ohm column's plan: as a quotient over the drain bias when it is
+ * given and that takes fewer bytes than the column's own plan; *m then
+ * holds the mantissas (malloc'd). False when out of memory. */
+static bool plan_resistance(const double *r_ohm, size_t n, double drain_bias_V, column_plan *r,
+                            int64_t **m)
+{
+    *m = NULL;
+    *r = plan_column(r_ohm, n);
+    if (r->mode != MODE_RAW || !DECIMAL_IS_EXACT || !(drain_bias_V > 0.0) ||
+        !isfinite(drain_bias_V) || n == 0)
+        return true;
+    /* the mantissas, then scratch for the values they give back and the
+     * candidates */
+    int64_t *mantissas = malloc(n * (sizeof *mantissas + 2 * sizeof(double)));
+    if (!mantissas)
+        return false;
+    column_plan q;
+    double *back = (double *)(mantissas + n);
+    if (plan_quotient(drain_bias_V, r_ohm, n, mantissas, back, &q) && q.bytes < r->bytes) {
+        *r = q;
+        *m = mantissas;
+    } else {
+        free(mantissas);
+    }
+    return true;
+}
+
+unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
+                                   double drain_bias_V, size_t *bytes)
+{
+    column_plan vg = plan_column(vg_V, n), r;
+    int64_t *m = NULL;
+    if (!plan_resistance(r_ohm, n, drain_bias_V, &r, &m))
+        return NULL;
     size_t length = 1 + vg.bytes + r.bytes;
     int pad = length % 16 == 0;
     unsigned char *blob = malloc(length + pad);
-    if (!blob)
-        return NULL;
-    blob[0] = FORMAT_COMPACT;
-    unsigned char *end = put_column(put_column(blob + 1, vg_V, n, vg), r_ohm, n, r);
-    assert(end == blob + length); /* put_column wrote what plan_column counted */
-    if (pad)
-        *end = 0;
-    *bytes = length + pad;
+    if (blob) {
+        blob[0] = FORMAT_COMPACT;
+        unsigned char *p = put_column(blob + 1, vg_V, n, vg);
+        unsigned char *end = m ? put_quotient(p, drain_bias_V, m, n, r) : put_column(p, r_ohm, n, r);
+        assert(end == blob + length); /* what the plans counted */
+        if (pad)
+            *end = 0;
+        *bytes = length + pad;
+    }
+    free(m);
     return blob;
 }
 
@@ -307,6 +455,20 @@ static int read_decimal_column(blob_reader *rd, double *v, size_t n, int mode)
     return 1;
 }
 
+/* q / d_i, the d_i a decimal column: the encoder's two divisions. */
+static int read_quotient_column(blob_reader *rd, double *v, size_t n, int decimal_mode)
+{
+    if ((size_t)(rd->end - rd->p) < 8)
+        return read_fails(rd, "it ends early");
+    double q = get_le_double(rd->p);
+    rd->p += 8;
+    if (!read_decimal_column(rd, v, n, decimal_mode))
+        return 0;
+    for (size_t i = 0; i < n; i++)
+        v[i] = q / v[i];
+    return 1;
+}
+
 static int read_column(blob_reader *rd, double *v, size_t n)
 {
     int mode;
@@ -316,6 +478,8 @@ static int read_column(blob_reader *rd, double *v, size_t n)
         return read_raw_column(rd, v, n);
     if (mode == MODE_FIRST_DIFFERENCES || mode == MODE_SECOND_DIFFERENCES)
         return read_decimal_column(rd, v, n, mode);
+    if (mode == MODE_QUOTIENT_FIRST || mode == MODE_QUOTIENT_SECOND)
+        return read_quotient_column(rd, v, n, mode - QUOTIENT_MODES);
     return read_fails(rd, "a column has an unknown mode");
 }
 
@@ -372,7 +536,8 @@ sl_status sl__store_insert_sweep(sl_store *store, long measurement_id, const sl_
                          "points = excluded.points", diag) != SL_OK)
         return SL_EDB;
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(dev->vg_V, dev->r_ohm, dev->n_points, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(dev->vg_V, dev->r_ohm, dev->n_points,
+                                              dev->drain_bias_V, &bytes);
     if (!blob)
         return SL_ENOMEM;
     sl__stmt *st = store->insert_sweep;
@@ -417,7 +582,7 @@ sl_status sl_store_stage_points(sl_store *store, long key, const double *vg_V,
     if (s != SL_OK || n == 0)
         return s;
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg_V, r_ohm, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg_V, r_ohm, n, NAN, &bytes);
     if (!blob)
         return SL_ENOMEM;
     sl__db_bind_int64(store->stage_point, 1, key);

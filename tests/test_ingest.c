@@ -1448,6 +1448,59 @@ static void assert_against_truth(const char *dir, const char *lot, const char *t
     free(truth);
 }
 
+/* A number of alox_idvd.csv (decimal comma) in the unit 10^exp10, as a
+ * correct strtod reads it with the exponent joined: the CSV reader's
+ * double (test_csv checks it against strtod). */
+static double fixture_number(const char *text, int exp10)
+{
+    char joined[64];
+    snprintf(joined, sizeof joined, "%se%d", text, exp10);
+    for (char *c = joined; *c; c++)
+        if (*c == ',')
+            *c = '.';
+    return strtod(joined, NULL);
+}
+
+/* The stored sweeps of alox_idvd.csv, read back from the store (where they
+ * are kept as the file's currents), are the file's points bit for bit:
+ * V_g, and R = |V_d / I_d| of every row neither at compliance nor an
+ * overflow, in file order. */
+static void assert_sweeps_are_the_file(const char *dir)
+{
+    char *db = sl_test_path(dir, "t.db"), *path = sl_test_data("instrument/alox_idvd.csv");
+    lot_devices L = load_lot_named(db, "INST-ALOX", 300.0);
+    FILE *f = fopen(path, "r");
+    ck_assert_ptr_nonnull(f);
+    char line[256], wafer[16], name[16], vg[32], id[32], vd[32];
+    int compliance, checked = 0;
+    size_t at = 0, device = L.n;
+    while (fgets(line, sizeof line, f)) {
+        if (sscanf(line, "%15[^;];%15[^;];%*[^;];%*[^;];%31[^;];%31[^;];%31[^;];%d", wafer, name, vg,
+                   id, vd, &compliance) != 6 || compliance || strstr(id, "E+37"))
+            continue; /* the comment, the header, compliance and overflow rows */
+        if (device == L.n || strcmp(L.rows[device].wafer, wafer) || strcmp(L.rows[device].name, name)) {
+            for (device = 0; device < L.n; device++)
+                if (!strcmp(L.rows[device].wafer, wafer) && !strcmp(L.rows[device].name, name))
+                    break;
+            ck_assert_msg(device < L.n, "%s/%s not stored", wafer, name);
+            at = 0;
+        }
+        ck_assert_uint_lt(at, L.n_points[device]);
+        double vg_V = fixture_number(vg, 0), r_ohm = fabs(fixture_number(vd, -3) / fixture_number(id, -6));
+        ck_assert_msg(memcmp(&L.vg[device][at], &vg_V, sizeof vg_V) == 0 &&
+                          memcmp(&L.r[device][at], &r_ohm, sizeof r_ohm) == 0,
+                      "%s/%s point %zu: stored %.17g V %.17g ohm, file %.17g V %.17g ohm", wafer, name,
+                      at, L.vg[device][at], L.r[device][at], vg_V, r_ohm);
+        at++;
+        checked++;
+    }
+    fclose(f);
+    ck_assert_int_gt(checked, 4000);
+    lot_devices_free(&L);
+    free(path);
+    free(db);
+}
+
 /* Drain current in uA at a drain bias in mV, semicolons, decimal commas, a
  * comment line before the header, an overflow code and compliance points;
  * dies numbered from 1. Tolerance 0.01 V on 20 nm Al2O3 (the acceptance
@@ -1465,6 +1518,7 @@ START_TEST(instrument_drain_current_semicolon)
                   "%s", r.out);
     sl_run_result_free(&r);
     assert_against_truth(dir, "INST-ALOX", "alox_idvd_truth.csv", 0.01, 0);
+    assert_sweeps_are_the_file(dir);
     drop_dir(dir);
 }
 END_TEST

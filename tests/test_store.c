@@ -707,11 +707,12 @@ static void sprinkle_specials(double *v, size_t n, uint64_t *rng)
         v[random_below(rng, (long long)n)] = special[random_below(rng, (long long)n_special)];
 }
 
-/* Pack, check the length rules, unpack, compare bits; returns the length. */
-static size_t round_trip(const double *vg, const double *r, size_t n)
+/* Pack (the resistances over drain_bias_V, or NaN), check the length
+ * rules, unpack, compare bits; returns the length. */
+static size_t round_trip_over(const double *vg, const double *r, size_t n, double drain_bias_V)
 {
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, drain_bias_V, &bytes);
     ck_assert_ptr_nonnull(blob);
     ck_assert_uint_ne(bytes % 16, 0);
     ck_assert_uint_le(bytes, 16 * n + 4);
@@ -725,6 +726,11 @@ static size_t round_trip(const double *vg, const double *r, size_t n)
     free(r2);
     free(blob);
     return bytes;
+}
+
+static size_t round_trip(const double *vg, const double *r, size_t n)
+{
+    return round_trip_over(vg, r, n, NAN);
 }
 
 START_TEST(blob_round_trips_generated_sweeps)
@@ -768,11 +774,110 @@ START_TEST(blob_is_compact_for_a_csv_sweep)
     size_t n = csv_like_sweep(vg, r, 201);
     ck_assert_uint_le(round_trip(vg, r, n), 16 * n / 4);
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, NAN, &bytes);
     ck_assert_int_eq(blob[0], 1);
     ck_assert(blob[1] == 1 || blob[1] == 2); /* a decimal mode */
     ck_assert_int_eq(blob[2], 1);            /* in tenths of a volt */
     free(blob);
+}
+END_TEST
+
+/* A drain current as a meter writes it, seven digits ("%.7g"), read in
+ * the unit 10^unit_exp10 A ("Id (uA)": -6) and scaled to amperes as a
+ * correct strtod reads the text with the exponent joined: the double the
+ * CSV reader gives (test_csv checks it against strtod). */
+static double meter_current_A(double current_A, int unit_exp10)
+{
+    char text[48], joined[64];
+    snprintf(text, sizeof text, "%.7g", current_A / pow(10.0, unit_exp10));
+    char *e = strchr(text, 'e');
+    int exp10 = unit_exp10;
+    if (e) {
+        exp10 += atoi(e + 1);
+        *e = '\0';
+    }
+    snprintf(joined, sizeof joined, "%se%d", text, exp10);
+    return strtod(joined, NULL);
+}
+
+/* The sweep of csv_like_sweep as a meter measures it: drain currents at a
+ * drain bias of vd_V, R = |V_d / I_d| as the import works it out, the
+ * currents' sign the meter's (negative with sign < 0). */
+static size_t current_sweep(double *vg, double *r, size_t n, double vd_V, int unit_exp10, int sign)
+{
+    csv_like_sweep(vg, r, n);
+    for (size_t i = 0; i < n; i++) {
+        double id_A = sign * meter_current_A(vd_V / r[i], unit_exp10);
+        r[i] = fabs(vd_V / id_A);
+    }
+    return n;
+}
+
+/* The mode byte of the r_ohm column of a packed sweep whose vg column is
+ * decimal (its mode and scale bytes, then a varint a point). */
+static int r_mode_of(const unsigned char *blob, size_t n)
+{
+    const unsigned char *p = blob + 3;
+    for (size_t i = 0; i < n; p++)
+        i += !(*p & 0x80);
+    return *p;
+}
+
+START_TEST(blob_stores_meter_currents_as_quotients)
+{
+    const struct {
+        double vd_V;
+        int unit_exp10, sign;
+    } meters[] = { { 0.1, 0, 1 }, { 0.05, -6, 1 }, { 0.05, -3, -1 }, { 1.0, -9, 1 },
+                   { 0.025, -6, -1 } };
+    double vg[201], r[201];
+    for (size_t k = 0; k < sizeof meters / sizeof meters[0]; k++) {
+        size_t n = current_sweep(vg, r, 201, meters[k].vd_V, meters[k].unit_exp10, meters[k].sign);
+        size_t raw_bytes = round_trip(vg, r, n);
+        size_t bytes = round_trip_over(vg, r, n, meters[k].vd_V);
+        /* seven digits that change by some thousands of units a point: three
+         * varint bytes at most, not the eight of a raw double */
+        ck_assert_msg(bytes <= raw_bytes - 4 * n, "meter %zu: %zu bytes, raw %zu", k, bytes,
+                      raw_bytes);
+        size_t length = 0;
+        unsigned char *blob = sl__store_pack_sweep(vg, r, n, meters[k].vd_V, &length);
+        int mode = r_mode_of(blob, n);
+        ck_assert_msg(mode == 3 || mode == 4, "meter %zu: mode %d", k, mode);
+        free(blob);
+    }
+}
+END_TEST
+
+/* A drain bias that is no drain bias: the column stays raw. Drain biases
+ * the resistances are not over, or that change within the sweep, special
+ * values: every bit back, in no more bytes than raw. */
+START_TEST(blob_quotient_falls_back_to_raw)
+{
+    double vg[201], r[201];
+    size_t n = current_sweep(vg, r, 201, 0.1, 0, 1), length = 0;
+    const double no_bias[] = { 0.0, -0.1, NAN, INFINITY };
+    for (size_t k = 0; k < sizeof no_bias / sizeof no_bias[0]; k++) {
+        unsigned char *blob = sl__store_pack_sweep(vg, r, n, no_bias[k], &length);
+        ck_assert_msg(r_mode_of(blob, n) == 0, "drain bias %.17g", no_bias[k]);
+        free(blob);
+    }
+    size_t raw_bytes = round_trip(vg, r, n);
+    ck_assert_uint_le(round_trip_over(vg, r, n, 0.2), raw_bytes);
+    ck_assert_uint_le(round_trip_over(vg, r, n, 0.1 + 1e-12), raw_bytes);
+    /* the second half measured at 0.2 V */
+    for (size_t i = n / 2; i < n; i++)
+        r[i] = fabs(0.2 / meter_current_A(0.2 / r[i], 0));
+    round_trip_over(vg, r, n, 0.1);
+    uint64_t rng = 99;
+    for (int trial = 0; trial < 200; trial++) {
+        current_sweep(vg, r, n, 0.1, 0, 1);
+        sprinkle_specials(r, n, &rng);
+        round_trip_over(vg, r, n, 0.1);
+    }
+    /* currents of 1e-20 A need 10^27: beyond the decimal's 10^22 */
+    for (size_t i = 0; i < n; i++)
+        r[i] = fabs(0.1 / meter_current_A(1.234567e-20 * (1.0 + (double)i / 1000.0), 0));
+    ck_assert_uint_eq(round_trip_over(vg, r, n, 0.1), round_trip(vg, r, n));
 }
 END_TEST
 
@@ -782,7 +887,7 @@ static int vg_mode_of(double v, int *scale)
 {
     const double vg[] = { v, v, v, v }, r[] = { 1, 1, 1, 1 };
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg, r, 4, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, 4, NAN, &bytes);
     ck_assert_ptr_nonnull(blob);
     int mode = blob[1];
     *scale = blob[2];
@@ -825,7 +930,7 @@ START_TEST(blob_pads_a_multiple_of_16)
     /* vg 0..4 and r 1000 five times: 1 + (2 + 5) + (2 + 2 + 4) = 16 bytes */
     const double vg[] = { 0, 1, 2, 3, 4 }, r[] = { 1000, 1000, 1000, 1000, 1000 };
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg, r, 5, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, 5, NAN, &bytes);
     ck_assert_uint_eq(bytes, 17);
     ck_assert_int_eq(blob[16], 0);
     round_trip(vg, r, 5);
@@ -867,6 +972,14 @@ START_TEST(blob_damage_is_named)
     ck_assert_str_eq(damage_of(bad_mode, sizeof bad_mode, 1), "a column has an unknown mode");
     ck_assert_str_eq(damage_of(bad_format, sizeof bad_format, 1), "its format is unknown");
     ck_assert_str_eq(damage_of(bad_scale, sizeof bad_scale, 1), "a decimal scale is out of range");
+    /* a quotient column: q = 0.5 (0x3FE0000000000000), d = 2 / 10^0: 0.25 */
+    static const unsigned char quotient[] = { 1, 1, 0, 0, 3, 0, 0, 0, 0, 0, 0, 0xe0, 0x3f, 0, 4 };
+    double vg[1], r[1];
+    const char *damage = NULL;
+    ck_assert_int_eq(sl__store_unpack_sweep(vg, r, 1, quotient, sizeof quotient, &damage), SL_OK);
+    ck_assert(vg[0] == 0.0 && r[0] == 0.25);
+    ck_assert_str_eq(damage_of(quotient, 10, 1), "it ends early");  /* within q */
+    ck_assert_str_eq(damage_of(quotient, 14, 1), "it ends early");  /* before its varint */
     ck_assert_str_eq(damage_of(trailing, sizeof trailing, 1), "its length does not match its points");
     ck_assert_str_eq(damage_of(good, 5, 1), "it ends early");
     ck_assert_str_eq(damage_of(good, sizeof good, 4), "it ends early");
@@ -874,11 +987,12 @@ START_TEST(blob_damage_is_named)
 }
 END_TEST
 
-START_TEST(blob_truncated_or_mutated_never_crashes)
+/* Every cut and random bytes of blob (n points): a damage named, or
+ * values, never a crash or an overread. */
+static void assert_damage_never_crashes(const unsigned char *blob, size_t bytes, size_t n)
 {
-    double vg[201], r[201], vg2[201], r2[201];
-    size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
+    double vg2[201], r2[201];
+    ck_assert_uint_le(n, 201);
     const char *damage = NULL;
     for (size_t cut = 0; cut < bytes; cut++) {
         unsigned char *part = malloc(cut ? cut : 1); /* exact size: ASan sees overreads */
@@ -898,6 +1012,19 @@ START_TEST(blob_truncated_or_mutated_never_crashes)
         ck_assert_int_eq(st, damage ? SL_EDB : SL_OK);
     }
     free(copy);
+}
+
+START_TEST(blob_truncated_or_mutated_never_crashes)
+{
+    double vg[201], r[201];
+    size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, NAN, &bytes);
+    assert_damage_never_crashes(blob, bytes, n);
+    free(blob);
+    current_sweep(vg, r, n, 0.05, -6, 1);
+    blob = sl__store_pack_sweep(vg, r, n, 0.05, &bytes);
+    ck_assert_int_eq(r_mode_of(blob, n) / 3, 1); /* a quotient column */
+    assert_damage_never_crashes(blob, bytes, n);
     free(blob);
 }
 END_TEST
@@ -973,7 +1100,7 @@ START_TEST(damaged_sweep_is_a_database_error)
     stored_demo s = demo_store();
     double vg[201], r[201];
     size_t n = csv_like_sweep(vg, r, 201), bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(vg, r, n, &bytes);
+    unsigned char *blob = sl__store_pack_sweep(vg, r, n, NAN, &bytes);
     long id = device_without_sweep(&s, "D001");
     char expected[160], *message;
 
@@ -1744,6 +1871,8 @@ static Suite *store_suite(void)
     tcase_set_timeout(blob, 300);
     tcase_add_test(blob, blob_round_trips_generated_sweeps);
     tcase_add_test(blob, blob_is_compact_for_a_csv_sweep);
+    tcase_add_test(blob, blob_stores_meter_currents_as_quotients);
+    tcase_add_test(blob, blob_quotient_falls_back_to_raw);
     tcase_add_test(blob, blob_decimal_limits);
     tcase_add_test(blob, blob_pads_a_multiple_of_16);
     tcase_add_test(blob, blob_damage_is_named);

@@ -228,6 +228,10 @@ typedef struct {
     const double *vg_V;       /* raw sweep, or NULL */
     const double *r_ohm;
     size_t n_points;
+    double drain_bias_V;      /* > 0 when every r_ohm is drain_bias_V / |I_d| (a
+                                 file of drain currents at one drain bias): the
+                                 sweep is stored as its currents, a third of the
+                                 bytes; NaN otherwise */
     long source_line;         /* line of the device's first row in its file; 0: unknown */
 } sl_store_device;
 
