@@ -279,6 +279,7 @@ void sl_store_close(sl_store *store)
     sl__db_finalize(store->find_device);
     sl__db_finalize(store->insert_measurement);
     sl__db_finalize(store->insert_sweep);
+    sl__sweep_memo_clear(&store->vg_memo);
     sl__db_finalize(store->stage_point);
     sl__db_close(store->db);
     free(store->tx_runs);

@@ -427,7 +427,8 @@ static sl_status stage_row(sl_store *store, sl_store_insert *out, long lot_id, l
     unsigned char *blob = NULL;
     size_t bytes = 0;
     if (d->vg_V && d->n_points > 0 &&
-        !(blob = sl__store_pack_sweep(d->vg_V, d->r_ohm, d->n_points, d->drain_bias_V, &bytes)))
+        !(blob = sl__store_pack_sweep_memo(d->vg_V, d->r_ohm, d->n_points, d->drain_bias_V,
+                                           &store->vg_memo, &bytes)))
         return SL_ENOMEM;
     int encoded = encode_row(b, id, lot_id, run_id, d, blob, bytes);
     free(blob);

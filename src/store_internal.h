@@ -10,6 +10,14 @@
 
 #include "splitlot/store.h"
 
+/* The gate voltages of the last sweep packed and their coded column
+ * (sl__store_pack_sweep_memo). */
+typedef struct {
+    double *vg_V;
+    unsigned char *coded;
+    size_t n, bytes;          /* n 0: nothing kept */
+} sl__sweep_memo;
+
 struct sl_store {
     sl__db *db;
     char *path;                  /* shown in messages: a URL without its password */
@@ -18,6 +26,7 @@ struct sl_store {
     sl__stmt *insert_measurement;
     long new_lot_id;             /* a lot with no devices before this import, or 0 */
     sl__stmt *insert_sweep;
+    sl__sweep_memo vg_memo;      /* the last sweep's gate voltages, coded */
     unsigned sweeps_unflushed;   /* sweeps stored since the last writeback hint */
     sl__stmt *stage_point;
     int has_stage;               /* the stage table created on this connection */
@@ -95,6 +104,12 @@ char *sl__store_column_strdup(sl__stmt *st, int col);
  * then be stored as the currents. */
 unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
                                    double drain_bias_V, size_t *bytes);
+/* The same, coding the vg_V column once for a run of sweeps with the same
+ * gate voltages (a lot's usually are): memo keeps the last one. */
+unsigned char *sl__store_pack_sweep_memo(const double *vg_V, const double *r_ohm, size_t n,
+                                        double drain_bias_V, sl__sweep_memo *memo,
+                                        size_t *bytes);
+void sl__sweep_memo_clear(sl__sweep_memo *memo);
 /* Unpack a blob of n points, compact or raw (exactly 16 * n bytes), into
  * vg_V and r_ohm (n each). A damaged blob gives SL_EDB and *damage says
  * what is wrong (a static string), else *damage is NULL. */

@@ -363,10 +363,48 @@ static bool plan_resistance(const double *r_ohm, size_t n, double drain_bias_V, 
     return true;
 }
 
-unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
-                                   double drain_bias_V, size_t *bytes)
+/* The coded vg_V column kept in memo when it holds these gate voltages;
+ * NULL otherwise. */
+static const unsigned char *memo_column(const sl__sweep_memo *memo, const double *vg_V, size_t n)
 {
-    column_plan vg = plan_column(vg_V, n), r;
+    if (!memo || memo->n != n || n == 0 || memcmp(memo->vg_V, vg_V, n * sizeof *vg_V) != 0)
+        return NULL;
+    return memo->coded;
+}
+
+/* Keep the gate voltages and their coded column; a memo that cannot get
+ * the memory is left empty (the next sweep codes its column again). */
+static void memo_keep(sl__sweep_memo *memo, const double *vg_V, size_t n,
+                      const unsigned char *coded, size_t bytes)
+{
+    sl__sweep_memo_clear(memo);
+    memo->vg_V = malloc(n * sizeof *vg_V);
+    memo->coded = malloc(bytes);
+    if (!memo->vg_V || !memo->coded) {
+        sl__sweep_memo_clear(memo);
+        return;
+    }
+    memcpy(memo->vg_V, vg_V, n * sizeof *vg_V);
+    memcpy(memo->coded, coded, bytes);
+    memo->n = n;
+    memo->bytes = bytes;
+}
+
+void sl__sweep_memo_clear(sl__sweep_memo *memo)
+{
+    free(memo->vg_V);
+    free(memo->coded);
+    *memo = (sl__sweep_memo){ 0 };
+}
+
+unsigned char *sl__store_pack_sweep_memo(const double *vg_V, const double *r_ohm, size_t n,
+                                        double drain_bias_V, sl__sweep_memo *memo,
+                                        size_t *bytes)
+{
+    const unsigned char *kept = memo_column(memo, vg_V, n);
+    column_plan vg = { MODE_RAW, 0, kept ? memo->bytes : 0 }, r;
+    if (!kept)
+        vg = plan_column(vg_V, n);
     int64_t *m = NULL;
     if (!plan_resistance(r_ohm, n, drain_bias_V, &r, &m))
         return NULL;
@@ -375,7 +413,11 @@ unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, siz
     unsigned char *blob = malloc(length + pad);
     if (blob) {
         blob[0] = FORMAT_COMPACT;
-        unsigned char *p = put_column(blob + 1, vg_V, n, vg);
+        unsigned char *p = blob + 1 + vg.bytes;
+        if (kept)
+            memcpy(blob + 1, kept, vg.bytes);
+        else if (put_column(blob + 1, vg_V, n, vg) == p && memo)
+            memo_keep(memo, vg_V, n, blob + 1, vg.bytes);
         unsigned char *end = m ? put_quotient(p, drain_bias_V, m, n, r) : put_column(p, r_ohm, n, r);
         assert(end == blob + length); /* what the plans counted */
         if (pad)
@@ -384,6 +426,12 @@ unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, siz
     }
     free(m);
     return blob;
+}
+
+unsigned char *sl__store_pack_sweep(const double *vg_V, const double *r_ohm, size_t n,
+                                   double drain_bias_V, size_t *bytes)
+{
+    return sl__store_pack_sweep_memo(vg_V, r_ohm, n, drain_bias_V, NULL, bytes);
 }
 
 /* ---- the decoder ---- */
@@ -536,8 +584,8 @@ sl_status sl__store_insert_sweep(sl_store *store, long measurement_id, const sl_
                          "points = excluded.points", diag) != SL_OK)
         return SL_EDB;
     size_t bytes = 0;
-    unsigned char *blob = sl__store_pack_sweep(dev->vg_V, dev->r_ohm, dev->n_points,
-                                              dev->drain_bias_V, &bytes);
+    unsigned char *blob = sl__store_pack_sweep_memo(dev->vg_V, dev->r_ohm, dev->n_points,
+                                                   dev->drain_bias_V, &store->vg_memo, &bytes);
     if (!blob)
         return SL_ENOMEM;
     sl__stmt *st = store->insert_sweep;

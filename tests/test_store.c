@@ -881,6 +881,36 @@ START_TEST(blob_quotient_falls_back_to_raw)
 }
 END_TEST
 
+/* A memo of the last gate voltages gives the blob packing without one
+ * gives, byte for byte, whether the sweeps share their gate voltages, have
+ * other ones, other counts, or values no decimal holds. */
+START_TEST(blob_memo_packs_as_without)
+{
+    uint64_t rng = 31;
+    double vg[201], r[201];
+    sl__sweep_memo memo = { 0 };
+    for (int trial = 0; trial < 300; trial++) {
+        size_t n = trial % 7 == 6 ? 150 : 201;
+        csv_like_sweep(vg, r, n);
+        if (trial % 5 == 4)
+            vg[random_below(&rng, (long long)n)] += 0.1; /* other gate voltages */
+        if (trial % 11 == 10)
+            sprinkle_specials(vg, n, &rng);
+        for (size_t i = 0; i < n; i++)
+            r[i] = six_digits(r[i] * (1.0 + (double)random_below(&rng, 1000) / 1e4));
+        size_t bytes = 0, memo_bytes = 0;
+        unsigned char *blob = sl__store_pack_sweep(vg, r, n, NAN, &bytes);
+        unsigned char *memo_blob = sl__store_pack_sweep_memo(vg, r, n, NAN, &memo, &memo_bytes);
+        ck_assert_uint_eq(memo_bytes, bytes);
+        ck_assert_msg(memcmp(blob, memo_blob, bytes) == 0, "trial %d", trial);
+        ck_assert_uint_eq(memo.n, n); /* kept for the next */
+        free(blob);
+        free(memo_blob);
+    }
+    sl__sweep_memo_clear(&memo);
+}
+END_TEST
+
 /* The mode and scale bytes of the vg column of a sweep of v four times
  * (once, a large mantissa would cost more bytes than the raw double). */
 static int vg_mode_of(double v, int *scale)
@@ -1873,6 +1903,7 @@ static Suite *store_suite(void)
     tcase_add_test(blob, blob_is_compact_for_a_csv_sweep);
     tcase_add_test(blob, blob_stores_meter_currents_as_quotients);
     tcase_add_test(blob, blob_quotient_falls_back_to_raw);
+    tcase_add_test(blob, blob_memo_packs_as_without);
     tcase_add_test(blob, blob_decimal_limits);
     tcase_add_test(blob, blob_pads_a_multiple_of_16);
     tcase_add_test(blob, blob_damage_is_named);
