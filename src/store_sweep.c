@@ -15,9 +15,14 @@
  *     byte      mode: 0 raw, 1 decimal by first differences,
  *                     2 decimal by second differences,
  *                     3 quotient by first differences,
- *                     4 quotient by second differences (schema version 5 on)
+ *                     4 quotient by second differences,
+ *                     5 decimal by even steps (the vg_V column only)
+ *                     (modes 3 to 5 from schema version 5 on)
  *     raw:      n_points little-endian doubles
  *     decimal:  a byte k (0..22), then n_points varints
+ *     even steps: a byte k, then the varints of the first two points of
+ *               mode 2; every later residual is 0 and not stored (a gate
+ *               swept in equal steps: the column takes a few bytes)
  *     quotient: a little-endian double q, then a decimal column d_i as
  *               above (its byte k and varints); the values are q / d_i
  *   byte 0      padding, present exactly when the bytes before it are a
@@ -65,7 +70,10 @@ enum {
     MODE_SECOND_DIFFERENCES = 2,
     MODE_QUOTIENT_FIRST = 3,  /* the decimal modes + 2: quotient columns */
     MODE_QUOTIENT_SECOND = 4,
+    MODE_EVEN_STEPS = 5,      /* mode 2 with only its first two residuals */
 };
+/* The residuals an even-steps column stores; every one after is 0. */
+enum { EVEN_STEPS_STORED = 2 };
 enum { QUOTIENT_MODES = MODE_QUOTIENT_FIRST - MODE_FIRST_DIFFERENCES };
 enum { MAX_SCALE = 22 };                  /* 10^22 is the largest exact power of ten */
 #define MANTISSA_LIMIT ((int64_t)1 << 53) /* |m| below it is an exact double */
@@ -184,17 +192,24 @@ typedef struct {
     size_t bytes; /* of the column, its mode byte included */
 } column_plan;
 
-/* Check every value at scale and add up the varint bytes of both modes;
+/* Check every value at scale and add up the varint bytes of the decimal
+ * modes: first differences, second differences and (SIZE_MAX when a
+ * residual of the second after the first two is not 0) even steps;
  * returns the index of the first value that does not fit, n when all do. */
-static size_t tally_decimal(const double *v, size_t n, int scale, size_t bytes[2])
+static size_t tally_decimal(const double *v, size_t n, int scale, size_t bytes[3])
 {
     int64_t m1 = 0, m2 = 0, m;
-    bytes[0] = bytes[1] = 0;
+    bytes[0] = bytes[1] = bytes[2] = 0;
     for (size_t i = 0; i < n; i++) {
         if (!decimal_fits(v[i], scale, &m))
             return i;
+        uint64_t second = zigzag(m - (2 * m1 - m2));
         bytes[0] += varint_bytes(zigzag(m - m1));
-        bytes[1] += varint_bytes(zigzag(m - (2 * m1 - m2)));
+        bytes[1] += varint_bytes(second);
+        if (i < EVEN_STEPS_STORED)
+            bytes[2] = bytes[1];
+        else if (second != 0)
+            bytes[2] = SIZE_MAX;
         m2 = m1;
         m1 = m;
     }
@@ -202,11 +217,11 @@ static size_t tally_decimal(const double *v, size_t n, int scale, size_t bytes[2
 }
 
 /* The cheapest coding of a column: decimal at the smallest scale that fits
- * every value, else raw. */
-static column_plan plan_column(const double *v, size_t n)
+ * every value (even steps only where even_steps allows), else raw. */
+static column_plan plan_column(const double *v, size_t n, bool even_steps)
 {
     column_plan raw = { MODE_RAW, 0, 1 + 8 * n };
-    size_t bytes[2];
+    size_t bytes[3];
     int scale = DECIMAL_IS_EXACT ? 0 : -1;
     while (scale >= 0) {
         size_t misfit = tally_decimal(v, n, scale, bytes);
@@ -219,6 +234,8 @@ static column_plan plan_column(const double *v, size_t n)
     column_plan first = { MODE_FIRST_DIFFERENCES, scale, 2 + bytes[0] };
     column_plan second = { MODE_SECOND_DIFFERENCES, scale, 2 + bytes[1] };
     column_plan best = second.bytes < first.bytes ? second : first;
+    if (even_steps && bytes[2] != SIZE_MAX && 2 + bytes[2] < best.bytes)
+        best = (column_plan){ MODE_EVEN_STEPS, scale, 2 + bytes[2] };
     return best.bytes < raw.bytes ? best : raw;
 }
 
@@ -242,9 +259,12 @@ static unsigned char *put_column(unsigned char *p, const double *v, size_t n, co
         return p;
     }
     *p++ = (unsigned char)plan.scale;
+    int even = plan.mode == MODE_EVEN_STEPS;
+    size_t stored = even && n > EVEN_STEPS_STORED ? EVEN_STEPS_STORED : n;
     int64_t m1 = 0, m2 = 0;
-    for (size_t i = 0; i < n; i++) /* every mantissa checked by tally_decimal */
-        p = put_residual(p, plan.mode, candidate_mantissa(v[i], plan.scale), &m1, &m2);
+    for (size_t i = 0; i < stored; i++) /* every mantissa checked by tally_decimal */
+        p = put_residual(p, even ? MODE_SECOND_DIFFERENCES : plan.mode,
+                         candidate_mantissa(v[i], plan.scale), &m1, &m2);
     return p;
 }
 
@@ -343,7 +363,7 @@ static bool plan_resistance(const double *r_ohm, size_t n, double drain_bias_V, 
                             int64_t **m)
 {
     *m = NULL;
-    *r = plan_column(r_ohm, n);
+    *r = plan_column(r_ohm, n, false);
     if (r->mode != MODE_RAW || !DECIMAL_IS_EXACT || !(drain_bias_V > 0.0) ||
         !isfinite(drain_bias_V) || n == 0)
         return true;
@@ -404,7 +424,7 @@ unsigned char *sl__store_pack_sweep_memo(const double *vg_V, const double *r_ohm
     const unsigned char *kept = memo_column(memo, vg_V, n);
     column_plan vg = { MODE_RAW, 0, kept ? memo->bytes : 0 }, r;
     if (!kept)
-        vg = plan_column(vg_V, n);
+        vg = plan_column(vg_V, n, true);
     int64_t *m = NULL;
     if (!plan_resistance(r_ohm, n, drain_bias_V, &r, &m))
         return NULL;
@@ -480,7 +500,9 @@ static int read_raw_column(blob_reader *rd, double *v, size_t n)
     return 1;
 }
 
-static int read_decimal_column(blob_reader *rd, double *v, size_t n, int mode)
+/* A decimal column whose first `stored` residuals are in the blob, the
+ * rest 0 (n for modes 1 and 2, EVEN_STEPS_STORED for mode 5). */
+static int read_decimal_column(blob_reader *rd, double *v, size_t n, int mode, size_t stored)
 {
     int scale;
     if (!read_byte(rd, &scale))
@@ -489,10 +511,12 @@ static int read_decimal_column(blob_reader *rd, double *v, size_t n, int mode)
         return read_fails(rd, "a decimal scale is out of range");
     if (!DECIMAL_IS_EXACT)
         return read_fails(rd, "decimal columns need FLT_EVAL_METHOD 0 to come back exactly");
-    int64_t m1 = 0, m2 = 0, residual;
+    int64_t m1 = 0, m2 = 0, residual = 0;
     for (size_t i = 0; i < n; i++) {
-        if (!read_residual(rd, &residual))
+        if (i < stored && !read_residual(rd, &residual))
             return 0;
+        if (i >= stored)
+            residual = 0;
         int64_t m = (mode == MODE_FIRST_DIFFERENCES ? m1 : 2 * m1 - m2) + residual;
         if (m <= -MANTISSA_LIMIT || m >= MANTISSA_LIMIT)
             return read_fails(rd, "a mantissa is out of range");
@@ -510,14 +534,16 @@ static int read_quotient_column(blob_reader *rd, double *v, size_t n, int decima
         return read_fails(rd, "it ends early");
     double q = get_le_double(rd->p);
     rd->p += 8;
-    if (!read_decimal_column(rd, v, n, decimal_mode))
+    if (!read_decimal_column(rd, v, n, decimal_mode, n))
         return 0;
     for (size_t i = 0; i < n; i++)
         v[i] = q / v[i];
     return 1;
 }
 
-static int read_column(blob_reader *rd, double *v, size_t n)
+/* even_steps: the vg_V column, the one that may be in mode 5 (the r_ohm
+ * column takes a byte a point at least, which bounds a damaged count). */
+static int read_column(blob_reader *rd, double *v, size_t n, bool even_steps)
 {
     int mode;
     if (!read_byte(rd, &mode))
@@ -525,7 +551,9 @@ static int read_column(blob_reader *rd, double *v, size_t n)
     if (mode == MODE_RAW)
         return read_raw_column(rd, v, n);
     if (mode == MODE_FIRST_DIFFERENCES || mode == MODE_SECOND_DIFFERENCES)
-        return read_decimal_column(rd, v, n, mode);
+        return read_decimal_column(rd, v, n, mode, n);
+    if (mode == MODE_EVEN_STEPS && even_steps)
+        return read_decimal_column(rd, v, n, MODE_SECOND_DIFFERENCES, EVEN_STEPS_STORED);
     if (mode == MODE_QUOTIENT_FIRST || mode == MODE_QUOTIENT_SECOND)
         return read_quotient_column(rd, v, n, mode - QUOTIENT_MODES);
     return read_fails(rd, "a column has an unknown mode");
@@ -547,7 +575,7 @@ static int read_compact(blob_reader *rd, const unsigned char *blob, double *vg_V
         return 0;
     if (format != FORMAT_COMPACT)
         return read_fails(rd, "its format is unknown");
-    if (!read_column(rd, vg_V, n) || !read_column(rd, r_ohm, n))
+    if (!read_column(rd, vg_V, n, true) || !read_column(rd, r_ohm, n, false))
         return 0;
     size_t used = (size_t)(rd->p - blob), left = (size_t)(rd->end - rd->p);
     int pad_expected = used % 16 == 0;

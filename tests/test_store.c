@@ -776,9 +776,18 @@ START_TEST(blob_is_compact_for_a_csv_sweep)
     size_t bytes = 0;
     unsigned char *blob = sl__store_pack_sweep(vg, r, n, NAN, &bytes);
     ck_assert_int_eq(blob[0], 1);
-    ck_assert(blob[1] == 1 || blob[1] == 2); /* a decimal mode */
+    ck_assert_int_eq(blob[1], 5);            /* even steps */
     ck_assert_int_eq(blob[2], 1);            /* in tenths of a volt */
+    /* -40 V: -400 tenths, zigzagged 799, two bytes; then -39.6 V: from the
+     * prediction -800 a residual of 404, zigzagged 808, two bytes */
+    ck_assert(blob[7] == 1 || blob[7] == 2); /* the r_ohm column's mode */
     free(blob);
+    /* a gate that does not step evenly keeps its decimal residuals */
+    vg[100] += 0.1;
+    blob = sl__store_pack_sweep(vg, r, n, NAN, &bytes);
+    ck_assert(blob[1] == 1 || blob[1] == 2);
+    free(blob);
+    round_trip(vg, r, n);
 }
 END_TEST
 
@@ -814,11 +823,13 @@ static size_t current_sweep(double *vg, double *r, size_t n, double vd_V, int un
 }
 
 /* The mode byte of the r_ohm column of a packed sweep whose vg column is
- * decimal (its mode and scale bytes, then a varint a point). */
+ * decimal (its mode and scale bytes, then a varint a point, or two for
+ * even steps). */
 static int r_mode_of(const unsigned char *blob, size_t n)
 {
     const unsigned char *p = blob + 3;
-    for (size_t i = 0; i < n; p++)
+    size_t varints = blob[1] == 5 && n > 2 ? 2 : n;
+    for (size_t i = 0; i < varints; p++)
         i += !(*p & 0x80);
     return *p;
 }
@@ -946,6 +957,10 @@ START_TEST(blob_decimal_limits)
     };
     for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
         int scale = -1, mode = vg_mode_of(cases[i].v, &scale);
+        /* four equal values are even steps (5) where a decimal (1) takes
+         * no more bytes than raw */
+        if (mode == 5 && cases[i].mode == 1)
+            mode = 1;
         ck_assert_msg(mode == cases[i].mode, "%.17g: mode %d", cases[i].v, mode);
         if (mode != 0)
             ck_assert_msg(scale == cases[i].scale, "%.17g: scale %d", cases[i].v, scale);
@@ -957,8 +972,9 @@ END_TEST
 
 START_TEST(blob_pads_a_multiple_of_16)
 {
-    /* vg 0..4 and r 1000 five times: 1 + (2 + 5) + (2 + 2 + 4) = 16 bytes */
-    const double vg[] = { 0, 1, 2, 3, 4 }, r[] = { 1000, 1000, 1000, 1000, 1000 };
+    /* vg 0, 1, 2, 3, 5 (no even steps) and r 1000 five times:
+     * 1 + (2 + 5) + (2 + 2 + 4) = 16 bytes */
+    const double vg[] = { 0, 1, 2, 3, 5 }, r[] = { 1000, 1000, 1000, 1000, 1000 };
     size_t bytes = 0;
     unsigned char *blob = sl__store_pack_sweep(vg, r, 5, NAN, &bytes);
     ck_assert_uint_eq(bytes, 17);
@@ -1014,6 +1030,29 @@ START_TEST(blob_damage_is_named)
     ck_assert_str_eq(damage_of(good, 5, 1), "it ends early");
     ck_assert_str_eq(damage_of(good, sizeof good, 4), "it ends early");
     ck_assert_str_eq(damage_of(NULL, 0, 1), "its length does not match its points");
+}
+END_TEST
+
+/* Evenly stepped gate voltages come back whatever their count, and an
+ * even-steps mode in the r_ohm column, or one that runs out of range, is
+ * damage. */
+START_TEST(blob_even_steps)
+{
+    double vg[40] = { 0 }, r[40] = { 0 };
+    for (size_t n = 0; n <= 40; n++) {
+        for (size_t i = 0; i < n; i++) {
+            vg[i] = decimal(-1234 + 25 * (long long)i, 2);
+            r[i] = six_digits(1000.0 + 10.0 * (double)(i * i % 7));
+        }
+        round_trip(vg, r, n);
+    }
+    /* vg 0, 1; r 7 in mode 5: stored as two residuals, 0 and 2 */
+    static const unsigned char r_even[] = { 1, 1, 0, 0, 2, 5, 0, 0, 14 };
+    ck_assert_str_eq(damage_of(r_even, sizeof r_even, 2), "a column has an unknown mode");
+    /* vg from 0 in steps of 2^52: the third point is out of range */
+    static const unsigned char too_far[] = { 1, 5, 0, 0, 0x80, 0x80, 0x80, 0x80, 0x80, 0x80,
+                                             0x80, 0x10, 1, 0, 0, 0, 0 };
+    ck_assert_str_eq(damage_of(too_far, sizeof too_far, 3), "a mantissa is out of range");
 }
 END_TEST
 
@@ -1904,6 +1943,7 @@ static Suite *store_suite(void)
     tcase_add_test(blob, blob_stores_meter_currents_as_quotients);
     tcase_add_test(blob, blob_quotient_falls_back_to_raw);
     tcase_add_test(blob, blob_memo_packs_as_without);
+    tcase_add_test(blob, blob_even_steps);
     tcase_add_test(blob, blob_decimal_limits);
     tcase_add_test(blob, blob_pads_a_multiple_of_16);
     tcase_add_test(blob, blob_damage_is_named);

@@ -1,0 +1,8 @@
+-- SPDX-License-Identifier: MIT
+-- splitlot schema, version 5: no table changes. A sweep blob may now hold
+-- its gate voltages by even steps (the first two values) and its resistance
+-- column as the drain currents of the file it came from (a quotient column:
+-- the drain bias over decimal currents), src/store_sweep.c; builds before
+-- this version cannot read either. The version number makes them refuse
+-- the database as newer, instead of calling its sweeps damaged.
+-- Blobs written before stay as they are and read as before.
