@@ -51,7 +51,7 @@
  * bias of the sweep as q; the encoder finds the decimal d_i nearest q / R_i
  * at the smallest scale where q / d_i (two IEEE divisions, as the decoder
  * does them) gives every R_i back bit for bit, else the column stays raw.
- * Such a sweep takes about a third of its raw bytes.
+ * Seven-digit currents take about three bytes a point instead of eight.
  */
 #include <assert.h>
 #include <float.h>
@@ -312,14 +312,15 @@ static bool plan_quotient(double q, const double *v, size_t n, int64_t *m, doubl
     for (size_t i = 1; i < n; i++)
         largest = fabs(v[i]) > fabs(v[largest]) ? i : largest;
     int scale = 0;
+    int64_t unused;
     for (size_t k = 0; k < 2; k++)
-        while (!quotient_fits(q, v[k ? largest : 0], scale, &m[0]))
+        while (!quotient_fits(q, v[k ? largest : 0], scale, &unused))
             if (++scale > MAX_SCALE)
                 return false;
     size_t bytes[2] = { 0, 0 };
     for (size_t misfit = 0; misfit < n;) {
         quotient_candidates(q, v, n, scale, back + n, back);
-        int64_t m1 = 0, m2 = 0, unused;
+        int64_t m1 = 0, m2 = 0;
         bytes[0] = bytes[1] = 0;
         for (misfit = 0; misfit < n && fabs(back[n + misfit]) < QUOTIENT_MANTISSA_LIMIT &&
                          memcmp(&back[misfit], &v[misfit], sizeof *v) == 0;
