@@ -230,8 +230,8 @@ typedef struct {
     size_t n_points;
     double drain_bias_V;      /* > 0 when every r_ohm is drain_bias_V / |I_d| (a
                                  file of drain currents at one drain bias): the
-                                 sweep is stored as its currents, a third of the
-                                 bytes; NaN otherwise */
+                                 resistances may be stored as the currents, in
+                                 less than half the bytes; NaN otherwise */
     long source_line;         /* line of the device's first row in its file; 0: unknown */
 } sl_store_device;
 
