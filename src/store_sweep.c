@@ -77,7 +77,7 @@ enum { EVEN_STEPS_STORED = 2 };
 enum { QUOTIENT_MODES = MODE_QUOTIENT_FIRST - MODE_FIRST_DIFFERENCES };
 enum { MAX_SCALE = 22 };                  /* 10^22 is the largest exact power of ten */
 #define MANTISSA_LIMIT ((int64_t)1 << 53) /* |m| below it is an exact double */
-/* A quotient column's mantissas stay below 2^51 (quotient_candidates). */
+/* A quotient column's mantissas stay below 2^51 (candidate_fits). */
 #define QUOTIENT_MANTISSA_LIMIT 0x1p51
 /* Residuals of |m| < 2^53 are below 2^55 in size, 2^56 zigzagged: at most
  * eight varint bytes of 7 bits. */
@@ -270,33 +270,43 @@ static unsigned char *put_column(unsigned char *p, const double *v, size_t n, co
 
 /* ---- the encoder's quotient columns ---- */
 
-/* Whether r is, bit for bit, q / (m / 10^scale) for the integer m nearest
- * q / r * 10^scale, |m| < 2^51 (quotient_candidates's limit). */
-static int quotient_fits(double q, double r, int scale, int64_t *m)
+/* Rounding to an integer by adding and taking away 1.5 * 2^52 is exact for
+ * |x| < 2^51 under round to nearest (which DECIMAL_IS_EXACT assumes
+ * already); a candidate beyond is refused by candidate_fits. */
+#define ROUND_OFF 0x1.8p52
+
+/* The mantissa m (as a double) nearest q / v * 10^scale, given p = 10^scale
+ * and qp = q p, and the value q / (m / p) it gives back. */
+static inline void quotient_candidate(double q, double qp, double p, double v, double *m,
+                                      double *back)
 {
-    double scaled = q * POWER_OF_TEN[scale] / r;
-    if (!(fabs(scaled) < QUOTIENT_MANTISSA_LIMIT)) /* also NaN and infinities */
-        return 0;
-    *m = (int64_t)rint(scaled);
-    double back = q / ((double)*m / POWER_OF_TEN[scale]);
-    return memcmp(&back, &r, sizeof r) == 0;
+    *m = (qp / v + ROUND_OFF) - ROUND_OFF;
+    *back = q / (*m / p);
 }
 
-/* Every value's candidate mantissa at scale, as a double, and the value it
- * gives back. Nothing carried from one value to the next and no branch:
- * the compiler may do two values an instruction, and the divisions of many
- * are under way at once. Rounding to an integer by adding and taking away
- * 1.5 * 2^52 is exact for |x| < 2^51 under round to nearest (which
- * DECIMAL_IS_EXACT assumes already); a candidate beyond is refused by the
- * caller. */
+/* Whether the candidate gives v back bit for bit, its mantissa in range. */
+static inline bool candidate_fits(double v, double m, double back)
+{
+    return fabs(m) < QUOTIENT_MANTISSA_LIMIT && memcmp(&back, &v, sizeof v) == 0;
+}
+
+/* Whether v is q / (m / 10^scale) for the candidate m. */
+static bool quotient_fits(double q, double v, int scale)
+{
+    double p = POWER_OF_TEN[scale], m, back;
+    quotient_candidate(q, q * p, p, v, &m, &back);
+    return candidate_fits(v, m, back);
+}
+
+/* Every value's candidate at scale. Nothing carried from one value to the
+ * next and no branch: the compiler may do two values an instruction, and
+ * the divisions of many are under way at once. */
 static void quotient_candidates(double q, const double *restrict v, size_t n, int scale,
                                 double *restrict m, double *restrict back)
 {
-    const double p = POWER_OF_TEN[scale], qp = q * p, round_off = 0x1.8p52;
-    for (size_t i = 0; i < n; i++) {
-        m[i] = (qp / v[i] + round_off) - round_off;
-        back[i] = q / (m[i] / p);
-    }
+    const double p = POWER_OF_TEN[scale], qp = q * p;
+    for (size_t i = 0; i < n; i++)
+        quotient_candidate(q, qp, p, v[i], &m[i], &back[i]);
 }
 
 /* The quotient coding of v over q: the smallest scale at which every value
@@ -312,9 +322,8 @@ static bool plan_quotient(double q, const double *v, size_t n, int64_t *m, doubl
     for (size_t i = 1; i < n; i++)
         largest = fabs(v[i]) > fabs(v[largest]) ? i : largest;
     int scale = 0;
-    int64_t unused;
     for (size_t k = 0; k < 2; k++)
-        while (!quotient_fits(q, v[k ? largest : 0], scale, &unused))
+        while (!quotient_fits(q, v[k ? largest : 0], scale))
             if (++scale > MAX_SCALE)
                 return false;
     size_t bytes[2] = { 0, 0 };
@@ -322,8 +331,7 @@ static bool plan_quotient(double q, const double *v, size_t n, int64_t *m, doubl
         quotient_candidates(q, v, n, scale, back + n, back);
         int64_t m1 = 0, m2 = 0;
         bytes[0] = bytes[1] = 0;
-        for (misfit = 0; misfit < n && fabs(back[n + misfit]) < QUOTIENT_MANTISSA_LIMIT &&
-                         memcmp(&back[misfit], &v[misfit], sizeof *v) == 0;
+        for (misfit = 0; misfit < n && candidate_fits(v[misfit], back[n + misfit], back[misfit]);
              misfit++) {
             m[misfit] = (int64_t)back[n + misfit];
             bytes[0] += varint_bytes(zigzag(m[misfit] - m1));
@@ -335,7 +343,7 @@ static bool plan_quotient(double q, const double *v, size_t n, int64_t *m, doubl
             do
                 if (++scale > MAX_SCALE)
                     return false;
-            while (!quotient_fits(q, v[misfit], scale, &unused));
+            while (!quotient_fits(q, v[misfit], scale));
     }
     int second = bytes[1] < bytes[0];
     plan->mode = second ? MODE_QUOTIENT_SECOND : MODE_QUOTIENT_FIRST;
